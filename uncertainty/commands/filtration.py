@@ -128,12 +128,14 @@ def command(settings: tuple[str, ...], tissue: str | None, basis: str, density: 
         emit_json({"Jv": jv, "net_pressure": net, "direction": direction, "forces": forces,
                    "inputs": six, "sources": source, "units": units})
         return
-    click.echo(f"{'force':<38}{'mmHg':>9}{'sign':>13}{'share of net':>14}")
+    total = sum(abs(v) for v in forces.values())
+    click.echo(f"{'force':<38}{'mmHg':>9}{'direction':>11}{'share':>8}")
     for key, value in forces.items():
         sign = "outward" if value > 0 else ("inward" if value < 0 else "none")
-        share = f"{100 * value / net:.0f}%" if abs(net) > 1e-9 else "-"
-        click.echo(f"{FORCE_LABEL[key]:<38}{value:>9.2f}{sign:>13}{share:>14}")
-    click.echo(f"{'net pressure':<38}{net:>9.2f}")
+        share = f"{100 * abs(value) / total:.0f}%" if total > 0 else "-"
+        click.echo(f"{FORCE_LABEL[key]:<38}{value:>9.2f}{sign:>11}{share:>8}")
+    click.echo(f"{'net pressure (sum)':<38}{net:>9.2f}")
+    click.echo("share: the force's part of all forces acting, in absolute value")
     click.echo(f"\nJv = {jv:.4g} {units['Jv']}  ({direction}; Kf = {six['Kf']:.4g} {units['Kf']})")
     derived = [f"{k}: {v}" for k, v in source.items() if v != "set"]
     if derived:

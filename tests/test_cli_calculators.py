@@ -1,0 +1,128 @@
+"""The calculator commands: filtration and oncotic, their JSON keys and their bad-input paths."""
+
+import json
+import subprocess
+import sys
+
+import pytest
+from click.testing import CliRunner
+
+from uncertainty.cli import main
+
+SIX = ["--set", "Pc=25", "--set", "Pi=-2", "--set", "pi_c=25", "--set", "pi_i=8", "--set", "sigma=0.9",
+       "--set", "Kf=0.004"]
+
+
+def run(args):
+    return CliRunner().invoke(main, args)
+
+
+def test_filtration_json_keys_and_value():
+    res = run(["filtration", *SIX, "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.output)
+    assert {"Jv", "net_pressure", "direction", "forces", "units"} <= doc.keys()
+    # Starling sum by hand: (25 - (-2)) - 0.9 (25 - 8) = 27 - 15.3 = 11.7 mmHg (arithmetic)
+    assert doc["net_pressure"] == pytest.approx(11.7)
+    assert doc["Jv"] == pytest.approx(0.004 * 11.7)
+    assert doc["direction"] == "filtration"
+    assert sum(doc["forces"].values()) == pytest.approx(11.7)
+
+
+def test_filtration_absorption_and_units():
+    # 2.4 kPa = 18.0 mmHg (1 mmHg = 133.322 Pa, conventional)
+    res = run(["filtration", "--set", "Pc=2.4 kPa", "--set", "Pi=1", "--set", "pi_c=28", "--set", "pi_i=5",
+               "--set", "sigma=1", "--set", "Kf=0.01", "--json"])
+    doc = json.loads(res.output)
+    assert doc["inputs"]["Pc"] == pytest.approx(2400 / 133.322387415)
+    assert doc["direction"] == "absorption"
+
+
+def test_filtration_derives_pc_and_pi_c():
+    # Pc = (r Pa + Pv)/(1 + r) with r = 0.25, Pa = 90, Pv = 10 -> 26 mmHg (Pappenheimer & Soto-Rivera 1948)
+    res = run(["filtration", "--set", "Pa=90", "--set", "Pv=10", "--set", "r=0.25", "--set", "Pi=-1",
+               "--set", "Cp=7", "--set", "pi_i=8", "--set", "sigma=0.9", "--set", "Kf=0.004", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.output)
+    assert doc["inputs"]["Pc"] == pytest.approx(26.0)
+    # Landis-Pappenheimer at 7 g/dL: 2.1*7 + 0.16*49 + 0.009*343 = 25.627 mmHg (Landis & Pappenheimer 1963)
+    assert doc["inputs"]["pi_c"] == pytest.approx(25.627, abs=1e-3)
+
+
+def test_filtration_table_output():
+    res = run(["filtration", *SIX])
+    assert res.exit_code == 0
+    assert "net pressure" in res.output and "Jv = " in res.output
+
+
+@pytest.mark.parametrize("bad,word", [
+    ("sigma=1.5", "sigma"), ("Kf=-1", "Kf"), ("Pc=abc", "Pc"), ("Pc=3 g/dL", "Pc"), ("Pq=3", "Pq"),
+    ("pi_c=-2", "pi_c"),
+])
+def test_filtration_bad_input_exit_2(bad, word):
+    args = [a for a in SIX]
+    key = bad.split("=")[0]
+    # replace the quantity if present, else add it
+    for i in range(1, len(args), 2):
+        if args[i].split("=")[0] == key:
+            args[i] = bad
+            break
+    else:
+        args += ["--set", bad]
+    res = run(["filtration", *args])
+    assert res.exit_code == 2
+    lines = [ln for ln in res.output.strip().splitlines() if ln]
+    assert len(lines) == 1 and word in lines[0] and "Traceback" not in res.output
+
+
+def test_filtration_negative_pi_is_valid():
+    res = run(["filtration", *SIX, "--set", "Pi=-4"])  # Pi given twice -> refused, so replace instead
+    assert res.exit_code == 2 and "twice" in res.output
+    args = list(SIX)
+    args[3] = "Pi=-4"
+    assert run(["filtration", *args]).exit_code == 0
+
+
+def test_filtration_missing_quantity():
+    res = run(["filtration", "--set", "Pc=20"])
+    assert res.exit_code == 2 and "missing" in res.output
+
+
+def test_oncotic_json():
+    res = run(["oncotic", "7", "g/dL", "--json"])
+    assert res.exit_code == 0
+    doc = json.loads(res.output)
+    # Landis & Pappenheimer 1963 total-protein polynomial at 7 g/dL = 25.627 mmHg
+    assert doc["pi"] == pytest.approx(25.627, abs=1e-3)
+    assert doc["units"]["pi"] == "mmHg"
+
+
+def test_oncotic_g_per_l_and_bad():
+    assert json.loads(run(["oncotic", "70", "g/L", "--json"]).output)["pi"] == pytest.approx(25.627, abs=1e-3)
+    res = run(["oncotic", "7", "mmHg"])
+    assert res.exit_code == 2 and "Traceback" not in res.output
+
+
+def test_help_shows_examples():
+    for cmd in ("filtration", "oncotic"):
+        res = run([cmd, "--help"])
+        assert res.exit_code == 0 and "Example" in res.output
+
+
+def test_version():
+    res = run(["--version"])
+    assert res.exit_code == 0 and res.output.startswith("fluidshift ")
+
+
+def test_top_level_help_imports_nothing_heavy():
+    code = ("import sys; from click.testing import CliRunner; from uncertainty.cli import main; "
+            "r = CliRunner().invoke(main, ['--help']); assert r.exit_code == 0, r.output; "
+            "heavy = [m for m in ('pymc', 'pytensor', 'matplotlib', 'SALib', 'pandas', 'dask', 'scipy', 'pint') "
+            "if m in sys.modules]; print(heavy)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"
+
+
+def test_console_script_runs():
+    out = subprocess.run(["fluidshift", "oncotic", "7", "g/dL", "--json"], capture_output=True, text=True)
+    assert out.returncode == 0 and json.loads(out.stdout)["pi"] > 20
