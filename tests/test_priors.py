@@ -226,6 +226,11 @@ SET_TOML = textwrap.dedent("""
     upper = 0.3
     origin = "test fixture"
 
+    [derived.Pc]
+    rule = "resistance_ratio"
+    inputs = ["Pa", "Pv", "r"]
+    origin = "Pappenheimer and Soto-Rivera 1948"
+
     [priors.pi_c]
     from_protein = { dist = "normal", mean = 7.0, sd = 0.4, unit = "g/dL", origin = "test fixture" }
 

@@ -90,6 +90,13 @@ POSITIVE = frozenset({
     "density", "Pa", "PAP", "tau_v", "k_clear", "Kf_organ", "transmission", "osmolality", "V_dist",
 })
 
+#: Model forms (``[study] model``).
+MODEL_FORMS = ("classic", "steady_state", "revised")
+
+#: Positive quantities that may still be *fixed* at exactly zero (no protein in Bowman's space, an
+#: impermeable barrier).
+ZERO_ALLOWED = frozenset({"pi_i", "pi_g", "Ci", "Ci_alb", "Ci_glob", "PS", "PS_large"})
+
 #: Quantities confined to 0..1.
 UNIT_INTERVAL = frozenset({"sigma", "sigma_g", "sigma_osm", "transmission", "FF"})
 
@@ -575,7 +582,7 @@ def _check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
     shown = decl.get(pkey) if isinstance(decl, Mapping) else decl
     if s in POSITIVE:
         if prior.dist == "fixed":
-            if not p["value"] > 0:
+            if not (p["value"] > 0 or (p["value"] == 0 and s in ZERO_ALLOWED)):
                 raise _err(f"{s} must be > 0", ctx.file, key if not isinstance(decl, Mapping)
                            else _join(key, "value"), shown)
         elif prior.dist in ("uniform", "triangular", "truncnormal") and p.get("lower", -math.inf) < 0:
@@ -606,7 +613,7 @@ def _check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
     if bs and "sd" in bs and s in POSITIVE and s not in LOGIT_LAYER and prior.dist != "fixed":
         # an additive spread must not push typical individuals below zero
         med = prior.median()
-        if med - 4.75 * bs["sd"] <= 0:
+        if med - 3.719 * bs["sd"] <= 0:  # fewer than 1e-4 of individuals below zero (z = 3.719)
             raise _err(f"an additive between-subject sd this large would make some {s} values negative; "
                        "give a cv instead", ctx.file, _join(key, "between_subject.sd"),
                        decl["between_subject"]["sd"] if isinstance(decl, Mapping) else None)
@@ -622,7 +629,7 @@ class Derivation:
     Attributes:
         target: the derived quantity (``pi_c``, ``pi_i``, ``Pc``).
         formula: ``total`` / ``albumin`` / ``albumin_globulin`` (oncotic pressure from protein,
-            Landis & Pappenheimer relations), ``resistance`` (Pc from Pa, Pv, r;
+            Landis & Pappenheimer relations), ``resistance_ratio`` (Pc from Pa, Pv, r;
             Pappenheimer & Soto-Rivera 1948) or ``gaar`` (lung Pc from LAP, PAP; Gaar et al. 1967).
         inputs: the quantities it reads, in the order the formula takes them.
         shift: added after the formula (canonical unit of the target), from a condition.
@@ -636,6 +643,7 @@ class Derivation:
     shift: float = 0.0
     multiply: float = 1.0
     origin: str = ""
+    fraction: float = 0.4
 
     def compute(self, values: Mapping[str, Any], xp: Any = np) -> Any:
         """The derived value (canonical unit) from ``values`` of its inputs (numpy or PyTensor)."""
@@ -648,10 +656,10 @@ class Derivation:
             out = oncotic.pi_albumin(*args)
         elif self.formula == "albumin_globulin":
             out = oncotic.pi_albumin_globulin(*args)
-        elif self.formula == "resistance":
+        elif self.formula == "resistance_ratio":
             out = capillary.mean_capillary_pressure(*args)
         elif self.formula == "gaar":
-            out = capillary.pulmonary_capillary_pressure(*args)
+            out = capillary.pulmonary_capillary_pressure(*args, fraction=self.fraction)
         else:  # pragma: no cover
             raise ValueError(self.formula)
         if self.multiply != 1.0:
@@ -664,7 +672,8 @@ class Derivation:
         """Short text, e.g. ``pi_c = oncotic total protein(Cp)``."""
         names = {"total": "oncotic pressure of total protein", "albumin": "oncotic pressure of albumin",
                  "albumin_globulin": "oncotic pressure of albumin + globulin",
-                 "resistance": "(r Pa + Pv)/(1 + r)", "gaar": "LAP + 0.4 (PAP - LAP)"}
+                 "resistance_ratio": "(r Pa + Pv)/(1 + r)",
+                 "gaar": f"LAP + {self.fraction:g} (PAP - LAP)"}
         text = f"{self.target} = {names[self.formula]} from {', '.join(self.inputs)}"
         if self.multiply != 1.0:
             text += f", x {self.multiply:g}"
@@ -673,11 +682,34 @@ class Derivation:
         return text
 
 
-#: Formula -> (target, inputs) for the pressure derivations, tried when Pc itself has no prior.
+#: Rule -> (target, inputs) of the pressure derivations of a prior file's ``[derived.Pc]``.
 PRESSURE_DERIVATIONS: dict[str, tuple[str, tuple[str, ...]]] = {
-    "resistance": ("Pc", ("Pa", "Pv", "r")),
+    "resistance_ratio": ("Pc", ("Pa", "Pv", "r")),
     "gaar": ("Pc", ("LAP", "PAP")),
 }
+
+
+def parse_derived(symbol: str, spec: Any, *, file: Any = None, key: str | None = None) -> Derivation:
+    """Read a prior file's ``[derived.<symbol>]`` table (``rule``, ``inputs``, rule parameters, origin)."""
+    key = key or f"derived.{symbol}"
+    if not isinstance(spec, Mapping):
+        raise _err("a derived entry is a table with rule and inputs", file, key, spec)
+    for k in spec:
+        if k not in ("rule", "inputs", "fraction", "origin", "note"):
+            raise _err("unknown key (allowed: rule, inputs, fraction, origin, note)", file, _join(key, k), spec[k])
+    rule = spec.get("rule")
+    if rule not in PRESSURE_DERIVATIONS:
+        raise _err("unknown rule (" + ", ".join(PRESSURE_DERIVATIONS) + ")", file, _join(key, "rule"), rule)
+    target, inputs = PRESSURE_DERIVATIONS[rule]
+    if symbol != target:
+        raise _err(f"rule {rule} derives {target}", file, key, symbol)
+    given = spec.get("inputs", list(inputs))
+    if list(given) != list(inputs):
+        raise _err(f"rule {rule} reads inputs {list(inputs)}", file, _join(key, "inputs"), given)
+    fraction = spec.get("fraction", 0.4)
+    if not _is_number(fraction) or not 0 < fraction < 1:
+        raise _err("fraction lies between 0 and 1", file, _join(key, "fraction"), fraction)
+    return Derivation(symbol, rule, inputs, origin=str(spec.get("origin", "")), fraction=float(fraction))
 
 
 def parse_entry(symbol: str, decl: Any, *, ctx: Context | None = None, key: str | None = None,
@@ -756,6 +788,7 @@ class PriorSet:
     correlations: list[tuple[str, str, float]] = field(default_factory=list)
     correlation_origins: list[str] = field(default_factory=list)
     path: str | None = None
+    models: tuple[str, ...] = ("classic", "steady_state", "revised")
 
     def copy(self) -> PriorSet:
         """A copy whose dictionaries and lists may be changed freely."""
@@ -829,14 +862,17 @@ def _load_prior_set_cached(path_str: str) -> PriorSet:
 def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str | None = None) -> PriorSet:
     """Build a PriorSet from a parsed prior file (layout in DEVELOPERS.md)."""
     for k in doc:
-        if k not in ("set", "priors", "correlations"):
-            raise _err("unknown section (allowed: set, priors, correlations)", file, str(k), None)
+        if k not in ("set", "priors", "derived", "correlations"):
+            raise _err("unknown section (allowed: set, priors, derived, correlations)", file, str(k), None)
     head = doc.get("set", {})
     if not isinstance(head, Mapping):
         raise _err("[set] must be a table", file, "set", head)
     for k in head:
-        if k not in ("name", "description", "basis", "density", "origin", "note"):
+        if k not in ("name", "description", "basis", "density", "models", "origin", "note"):
             raise _err("unknown key", file, f"set.{k}", head[k])
+    models = head.get("models", list(MODEL_FORMS))
+    if not (isinstance(models, list) and models and all(m in MODEL_FORMS for m in models)):
+        raise _err("models lists model forms (" + ", ".join(MODEL_FORMS) + ")", file, "set.models", models)
     basis = head.get("basis", "100g")
     if basis not in ("100g", "100mL"):
         raise _err("basis is 100g or 100mL", file, "set.basis", basis)
@@ -857,7 +893,8 @@ def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str |
     if not 0.5 < density < 3:
         raise _err("tissue density (g/mL) out of range", file, "set.density", density)
     pset = PriorSet(name=str(head.get("name", name or "")), description=str(head.get("description", "")),
-                    basis=basis, density=density, density_origin=density_origin, path=str(file) if file else None)
+                    basis=basis, density=density, density_origin=density_origin, path=str(file) if file else None,
+                    models=tuple(models))
     ctx = Context(file=file, density=density)
     entries = doc.get("priors", {})
     if not isinstance(entries, Mapping):
@@ -870,6 +907,18 @@ def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str |
         pset.priors.update(new)
         if der is not None:
             pset.derived[der.target] = der
+    dsec = doc.get("derived", {})
+    if not isinstance(dsec, Mapping):
+        raise _err("[derived] must be a table", file, "derived", None)
+    for sym, spec in dsec.items():
+        if sym in pset.priors or sym in pset.derived:
+            raise _err("a derived quantity has no prior of its own", file, f"derived.{sym}", sym)
+        pset.derived[sym] = parse_derived(sym, spec, file=file, key=f"derived.{sym}")
+    for sym, d in pset.derived.items():
+        for inp in d.inputs:
+            if inp not in pset.priors:
+                raise _err(f"input {inp} of derived {sym} has no prior in this set", file,
+                           f"derived.{sym}.inputs", inp)
     rows = doc.get("correlations", [])
     if not isinstance(rows, list):
         raise _err("[[correlations]] rows: pair = [a, b], rho, origin", file, "correlations", rows)
@@ -1055,7 +1104,7 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
         if not isinstance(spec, Mapping):
             raise _err("a condition is a table", path_str, key, spec)
         for k in spec:
-            if k not in ("label", "note", "applies_to", "modify", "origin"):
+            if k not in ("label", "note", "applies_to", "modify", "origin", "height"):
                 raise _err("unknown key", path_str, f"{key}.{k}", spec[k])
         rows = []
         for i, row in enumerate(spec.get("modify", [])):
@@ -1064,7 +1113,7 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                 raise _err("a modify row is a table", path_str, rkey, row)
             for k in row:
                 if k not in ("parameter", "shift", "multiply", "set", "extra_sd", "extra_gsd", "origin", "note",
-                             "unit"):
+                             "unit", "per_cm"):
                     raise _err("unknown key", path_str, f"{rkey}.{k}", row[k])
             if not isinstance(row.get("parameter"), str):
                 raise _err("a modify row names its parameter", path_str, f"{rkey}.parameter", row.get("parameter"))
@@ -1213,11 +1262,6 @@ def prior_medians(tissue: str, directory: str | Path | None = None) -> dict[str,
     out = {s: p.median() for s, p in pset.priors.items()}
     for target, d in pset.derived.items():
         out[target] = float(d.compute(out))
-    if "Pc" not in out:
-        for formula, (target, inputs) in PRESSURE_DERIVATIONS.items():
-            if all(i in out for i in inputs):
-                out[target] = float(Derivation(target, formula, inputs).compute(out))
-                break
     return out
 
 
