@@ -1,0 +1,294 @@
+"""Entry points: :func:`infer` (a study's posterior, gated) and :func:`fit` (loop-friendly).
+
+``fit`` builds and samples the model of a study with an optional overriding observation list
+(e.g. simulated trial readings) and returns the result without raising on the quality gate;
+``infer`` adds the model checks, the optional model comparison and raises
+:class:`~uncertainty.errors.QualityGateError` (exit status 3) when the chains fail the gate.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from uncertainty.errors import InputError, QualityGateError
+from uncertainty.inference.diagnostics import Gate, diagnose
+from uncertainty.inference.model_builder import BuiltModel, apply_layer, build_model, spread_ratio
+from uncertainty.inference.problem import Problem, problem_from_study
+from uncertainty.inference.result import (
+    CONFOUNDED_CORRELATION,
+    PRIOR_BOUND_CONTRACTION,
+    InferenceResult,
+    flat,
+    summarise,
+)
+from uncertainty.inference.samplers import SampleRun, sample
+
+#: prior draws used for prior moments that have no closed form (individual layers, Jv)
+PRIOR_DRAWS = 8000
+
+
+def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) -> Problem:
+    if isinstance(study, Problem):
+        if observations is not None:
+            import dataclasses
+
+            from uncertainty.inference.problem import normalise_observations
+
+            return dataclasses.replace(study, observations=normalise_observations(
+                observations, file=study.file, density=study.density))
+        return study
+    return problem_from_study(study, observations=observations, model=model)
+
+
+def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str = "nutpie",
+        seed: int | None = None, chains: int = 4, draws: int = 1000, tune: int = 1000,
+        gate: Any = None, model: str | None = None, checks: bool = False,
+        target_accept: float | None = None) -> InferenceResult:
+    """Build and sample the posterior of ``study`` (a Study or a Problem); never raises on the gate.
+
+    ``observations`` replaces the study's own observation list (records in study-file form);
+    ``model`` replaces its model form. Returns an :class:`InferenceResult` whose
+    ``doc["diagnostics"]["passed"]`` says whether the gate passed. Jv in mL/min per basis.
+    """
+    problem = _problem(study, observations, model)
+    if not problem.observations:
+        raise InputError("the study has no [[observations]] to update the priors from",
+                         file=problem.file, key="observations", value=None)
+    if seed is None:
+        seed = getattr(problem.study, "seed", None)
+    built = build_model(problem)
+    run = sample(built.model, sampler=sampler, chains=chains, draws=draws, tune=tune, seed=seed,
+                 target_accept=target_accept)
+    result = summarise_run(built, run, Gate.coerce(gate), seed=seed)
+    if checks:
+        from uncertainty.inference import checks as checks_mod
+
+        result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
+    return result
+
+
+def infer(study: Any, sampler: str = "nutpie", seed: int | None = None, chains: int = 4,
+          draws: int = 1000, tune: int = 1000, gate: Any = None, compare_models: bool = False,
+          checks: bool = True, observations: Sequence[Any] | None = None) -> InferenceResult:
+    """Posterior of a study from its observations, with diagnostics and model checks.
+
+    Raises QualityGateError (exit 3, naming the failing quantities, the result attached) when the
+    chains fail the gate (default R-hat <= 1.01, bulk ESS >= 400, no divergences). Intervals are
+    in canonical units (Jv in mL/min per the study's basis).
+    """
+    result = fit(study, observations, sampler=sampler, seed=seed, chains=chains, draws=draws,
+                 tune=tune, gate=gate, checks=checks)
+    if compare_models:
+        from uncertainty.inference.compare import compare_forms
+
+        result.doc["comparison"] = compare_forms(study, sampler=sampler, seed=seed, chains=chains,
+                                                 draws=draws, tune=tune, observations=observations)
+    if not result.passed:
+        failing = "; ".join(result.doc["diagnostics"]["failing"][:8])
+        result.doc["trustworthy"] = False
+        raise QualityGateError(f"chains did not converge, intervals not trustworthy: {failing}",
+                               result=result)
+    return result
+
+
+# ---------------------------------------------------------------------------------------------
+def _positive_prior(prior: Any) -> bool:
+    from uncertainty.inference.model_builder import _positive
+
+    return _positive(prior)
+
+
+def _prior_draws(built: BuiltModel, rng: np.random.Generator, n: int) -> dict[str, np.ndarray]:
+    """Prior draws (numpy) of the reported quantities at their reported level, and of Jv."""
+    problem = built.problem
+    typical: dict[str, np.ndarray] = {}
+    for name, prior in problem.priors.items():
+        typical[name] = np.asarray(prior.frozen().rvs(size=n, random_state=rng), dtype=float)
+    level = dict(typical)
+    if not built.hierarchical:
+        for name in built.spreads:
+            level[name] = apply_layer(problem.priors[name], typical[name], rng.standard_normal(n), np)
+    try:
+        outs = problem.evaluate({**problem.fixed, **level}, np)
+        level["Jv"] = np.asarray(outs["Jv"], dtype=float) * np.ones(n)
+    except Exception:  # noqa: BLE001 - prior Jv is informative only
+        pass
+    return level
+
+
+def _reported(built: BuiltModel, idata: Any, name: str) -> np.ndarray:
+    if built.hierarchical:
+        return flat(idata, name)
+    return flat(idata, f"{name}__subject")[:, 0]
+
+
+def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> np.ndarray:
+    problem = built.problem
+    vals: dict[str, Any] = dict(problem.fixed)
+    for name in problem.priors:
+        typ = flat(idata, name)
+        sp = built.spreads.get(name)
+        if sp is None:
+            vals[name] = typ
+            continue
+        kind, declared = sp
+        ratio: Any = 1.0
+        if f"{name}__spread" in idata.posterior:
+            ratio = spread_ratio(kind, declared, flat(idata, f"{name}__spread"), np)
+        vals[name] = apply_layer(problem.priors[name], typ, rng.standard_normal(typ.shape[0]), np, ratio)
+    for hook in _kind_hooks(built, "new_subject"):
+        vals = hook(built, idata, vals, rng)
+    return np.asarray(problem.evaluate(vals, np)["Jv"], dtype=float)
+
+
+def _kind_hooks(built: BuiltModel, attr: str) -> list[Any]:
+    from uncertainty.inference.observations import kind_module
+
+    seen, hooks = set(), []
+    for obs in built.problem.observations:
+        mod = kind_module(obs)
+        fn = getattr(mod, attr, None)
+        if fn is not None and mod.__name__ not in seen:
+            seen.add(mod.__name__)
+            hooks.append(fn)
+    return hooks
+
+
+def _transform(x: np.ndarray, positive: bool) -> np.ndarray:
+    return np.log(np.maximum(x, 1e-300)) if positive else x
+
+
+def identifiability(built: BuiltModel, post: dict[str, np.ndarray], prior: dict[str, np.ndarray],
+                    contraction: dict[str, float]) -> dict[str, Any]:
+    """Which quantities stay prior-bound and which pairs the data identify only in combination.
+
+    A pair is confounded when its posterior correlation (log scale for positive quantities)
+    exceeds CONFOUNDED_CORRELATION in size while the prior correlation is below 0.3; the
+    contraction along the pair's least-informed direction (prior-standardised) is reported.
+    """
+    names = [n for n in built.quantities if n in post and n in prior]
+    prior_bound = [n for n in names if contraction.get(n, 0.0) < PRIOR_BOUND_CONTRACTION]
+    pos = {n: _positive_prior(built.problem.priors[n]) for n in names}
+    pairs = []
+    for a_i, a in enumerate(names):
+        for b in names[a_i + 1:]:
+            pa, pb = _transform(prior[a], pos[a]), _transform(prior[b], pos[b])
+            qa, qb = _transform(post[a], pos[a]), _transform(post[b], pos[b])
+            if np.std(qa) == 0 or np.std(qb) == 0:
+                continue
+            r_post = float(np.corrcoef(qa, qb)[0, 1])
+            r_prior = float(np.corrcoef(pa, pb)[0, 1])
+            if abs(r_post) < CONFOUNDED_CORRELATION or abs(r_prior) > 0.3:
+                continue
+            u = np.vstack([(qa - pa.mean()) / pa.std(), (qb - pb.mean()) / pb.std()])
+            lam = np.linalg.eigvalsh(np.cov(u))
+            pairs.append({
+                "pair": [a, b], "posterior_correlation": r_post,
+                "contraction_unidentified": float(1.0 - lam[-1]),
+                "contraction_identified": float(1.0 - lam[0]),
+                "note": (f"the data identify only a combination of {a} and {b} (posterior "
+                         f"correlation {r_post:+.2f}); along the other direction the posterior stays "
+                         f"at its prior (contraction {1.0 - lam[-1]:.2f})"),
+            })
+    return {"prior_bound": prior_bound, "confounded": pairs}
+
+
+def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | None) -> InferenceResult:
+    """Turn posterior draws into the result document (intervals, contraction, diagnostics)."""
+    from uncertainty import units
+
+    idata = run.idata
+    problem = built.problem
+    rng = np.random.default_rng(None if seed is None else seed + 7919)
+    diag_vars = list(built.quantities) + [f"{q}__spread" for q in built.spreads
+                                          if f"{q}__spread" in idata.posterior]
+    diag_vars += [v for v in built.extra_params if v in idata.posterior]
+    diag_vars += ["Jv__typical", "Jv__subject"]
+    diag_vars += [v for v in idata.posterior.data_vars if v.endswith("__subject_z")]
+    diagnostics = diagnose(idata, diag_vars, gate)
+    prior = _prior_draws(built, rng, PRIOR_DRAWS)
+    post: dict[str, np.ndarray] = {}
+    parameters: dict[str, Any] = {}
+    contraction: dict[str, float] = {}
+    for name in built.quantities:
+        x = _reported(built, idata, name)
+        post[name] = x
+        p = problem.priors[name]
+        if built.hierarchical or name not in built.spreads:
+            prior_mean, prior_sd = float(p.mean()), float(p.sd())
+            prior_ci = [float(v) for v in p.frozen().ppf([0.025, 0.975])]
+        else:
+            prior_mean, prior_sd = float(prior[name].mean()), float(prior[name].std(ddof=1))
+            prior_ci = [float(v) for v in np.quantile(prior[name], [0.025, 0.975])]
+        s = summarise(x)
+        c = float(1.0 - s["sd"] ** 2 / prior_sd**2) if prior_sd > 0 else float("nan")
+        contraction[name] = c
+        parameters[name] = {**s, "contraction": c,
+                            "prior": {"mean": prior_mean, "sd": prior_sd, "ci95": prior_ci},
+                            "prior_bound": bool(c < PRIOR_BOUND_CONTRACTION)}
+    jv_subject = flat(idata, "Jv__subject")
+    jv_typical = flat(idata, "Jv__typical")
+    subjects = {}
+    if built.hierarchical:
+        for k, sid in enumerate(built.subjects):
+            block: dict[str, Any] = {"Jv": summarise(jv_subject[:, k])}
+            if sid in built.subject_group:
+                block["group"] = built.subject_group[sid]
+            subjects[sid] = block
+    jv_main = jv_typical if built.hierarchical else jv_subject[:, 0]
+    new = _new_subject(built, idata, rng)
+    jv_block = summarise(jv_main)
+    if "Jv" in prior:
+        pv = float(np.var(prior["Jv"], ddof=1))
+        jv_block["contraction"] = float(1.0 - jv_block["sd"] ** 2 / pv) if pv > 0 else float("nan")
+        post["Jv"] = jv_main
+    spreads = {}
+    for q, (kind, declared) in built.spreads.items():
+        if f"{q}__spread" in idata.posterior:
+            spreads[q] = {**summarise(flat(idata, f"{q}__spread")), "kind": kind, "declared": declared}
+    extras = {v: summarise(flat(idata, v).reshape(flat(idata, v).shape[0], -1)[:, 0])
+              for v in built.extra_params if v in idata.posterior}
+    from uncertainty.inference.observations import kind_module
+
+    notes = list(built.notes)
+    for obs in problem.observations:
+        note = getattr(kind_module(obs), "NOTE", "")
+        if note and note not in notes:
+            notes.append(note)
+    ident = identifiability(built, post, prior, contraction)
+    for pair in ident["confounded"]:
+        notes.append(pair["note"])
+    if ident["prior_bound"]:
+        notes.append("prior-bound (the data barely inform them): " + ", ".join(ident["prior_bound"]))
+    unit_map = {}
+    for name in list(built.quantities) + ["Jv"]:
+        try:
+            unit_map[name] = units.canonical_unit(name, problem.basis)
+        except Exception:  # noqa: BLE001 - quantity without a registered unit
+            unit_map[name] = ""
+    doc = {
+        "model": problem.model_form,
+        "sampler": run.sampler,
+        "seed": seed,
+        "chains": int(idata.posterior.sizes["chain"]),
+        "draws": int(idata.posterior.sizes["draw"]),
+        "level": "typical subject" if built.hierarchical else "the study's individual",
+        "Jv": jv_block,
+        "typical": {"Jv": summarise(jv_typical)},
+        "subjects": subjects,
+        "new_subject": {"Jv": summarise(new)},
+        "parameters": parameters,
+        "between_subject": spreads,
+        "other_parameters": extras,
+        "identifiability": ident,
+        "diagnostics": {k: v for k, v in diagnostics.items()},
+        "trustworthy": bool(diagnostics["passed"]),
+        "timing": {"compile_s": run.compile_seconds, "sample_s": run.sample_seconds},
+        "notes": notes,
+        "units": unit_map,
+    }
+    return InferenceResult(doc=doc, idata=idata, built=built, prior_draws=prior,
+                           new_subject_draws=new)

@@ -1,0 +1,379 @@
+"""Build a PyMC model from a :class:`~uncertainty.inference.problem.Problem`.
+
+Layers (DESIGN.md section 2):
+
+- *typical subject*: one value per uncertain quantity, from its prior. Normal and lognormal priors
+  are sampled through a standard-normal score (non-centred: ``q = mean + sd * z`` or
+  ``q = median * gsd ** z``); other shapes through ``Prior.pymc(name)``. Correlations are those of
+  normal scores (Gaussian copula), added as a copula density term.
+- *individuals*: each subject label (or the study's one individual when there are none) gets its
+  own value of every quantity with a between-subject spread, non-centred:
+  ``q_s = q + spread * z_s`` (spread as sd) or ``q_s = q * exp(s * z_s)`` with
+  ``s = sqrt(log(1 + cv^2))`` (spread as cv; median at the typical value). With two or more
+  subjects the spread has its own prior (lognormal, median at the declared value); for one
+  individual it is the declared value.
+- *groups*: group labels give a group effect on named quantities, relative to the reference
+  group (``control`` when present, else the first label in sorted order): a log ratio for
+  positive quantities, a shift otherwise.
+- *observations*: each observation kind module (``uncertainty.inference.observations``) adds its
+  likelihood through the physiology functions evaluated with ``xp = pytensor.tensor``.
+
+PyMC variable names: the typical value of quantity ``q`` is ``q``; per-subject values are
+``q__subject`` (dim ``subject``); outputs are ``Jv__typical`` and ``Jv__subject``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from typing import Any
+
+import numpy as np
+
+from uncertainty.errors import InputError
+from uncertainty.inference.problem import Observation, Problem
+
+#: sd of the log of a between-subject spread around its declared value (factor ~1.65 at 1 sd).
+#: common practice: a weakly informative scale prior centred on the prior set's value.
+SPREAD_LOG_SD = 0.5
+#: sd of a group effect: log ratio for positive quantities (common practice: weakly informative,
+#: ratios within about 0.37..2.7 at 2 sd), in units of the prior sd for others.
+GROUP_EFFECT_SD = 0.5
+
+_POSITIVE_DISTS = ("lognormal", "gamma")
+_NORMAL_SCORE_DISTS = ("normal", "lognormal")
+
+
+@dataclasses.dataclass
+class ObservedTerm:
+    """One likelihood term added by an observation kind (for checks and model comparison)."""
+
+    name: str                       # the PyMC observed variable
+    observation: Observation
+    predicted: str | None = None    # a Deterministic with the noise-free prediction
+    subjects: np.ndarray | None = None   # subject index of each element (for leave-one-subject-out)
+    label: str = ""
+
+
+@dataclasses.dataclass
+class BuiltModel:
+    """A PyMC model with the bookkeeping the samplers, checks and results need."""
+
+    model: Any
+    problem: Problem
+    subjects: list[str]
+    hierarchical: bool
+    groups: list[str]
+    subject_group: dict[str, str]
+    terms: list[ObservedTerm]
+    quantities: list[str]           # typical-value variables reported per parameter
+    spreads: dict[str, tuple[str, float]]   # quantity -> (sd|cv, declared value)
+    notes: list[str]
+    extra_params: list[str] = dataclasses.field(default_factory=list)
+    prior_bound_candidates: list[str] = dataclasses.field(default_factory=list)
+    context: Any = None
+
+
+class BuildContext:
+    """What observation kinds see while they add their terms (inside the model context).
+
+    ``value(q, subject_index)`` returns the value of quantity ``q`` for the subjects given
+    (a PyTensor vector), ``output(name, subject_index)`` an output of the forward map.
+    """
+
+    def __init__(self, problem: Problem, subjects: list[str], hierarchical: bool) -> None:
+        self.problem = problem
+        self.subjects = subjects
+        self.hierarchical = hierarchical
+        self.typical: dict[str, Any] = {}
+        self.per_subject: dict[str, Any] = {}
+        self.subject_outputs: dict[str, Any] = {}
+        self.terms: list[ObservedTerm] = []
+        self.notes: list[str] = []
+        self.extra_params: list[str] = []
+        self.prior_bound_candidates: list[str] = []
+        self.instrument_bias: dict[str, Any] = {}
+        self._overrides: dict[str, Any] = {}
+
+    # -- access ---------------------------------------------------------------------------------
+    def subject_index(self, obs: Observation) -> int:
+        """Index of the observation's subject (0, the study's individual, when unlabelled)."""
+        if obs.subject is None:
+            return 0
+        return self.subjects.index(obs.subject)
+
+    def value(self, name: str) -> Any:
+        """Per-subject vector (dim subject) of a quantity or output; raises KeyError when unknown."""
+        import pytensor.tensor as pt
+
+        if name in self._overrides:
+            return self._overrides[name]
+        if name in self.per_subject:
+            return self.per_subject[name]
+        outs = self.outputs()
+        if name in outs:
+            return pt.as_tensor_variable(outs[name]) * pt.ones(len(self.subjects))
+        raise KeyError(name)
+
+    def outputs(self) -> dict[str, Any]:
+        """Outputs of the forward map for every subject (vectors over dim subject)."""
+        if not self.subject_outputs:
+            import pytensor.tensor as pt
+
+            vals = {**self.problem.fixed, **self.per_subject, **self._overrides}
+            outs = self.problem.evaluate(vals, pt)
+            self.subject_outputs = {k: v for k, v in outs.items() if not isinstance(v, str)}
+        return self.subject_outputs
+
+    def override(self, name: str, tensor: Any) -> None:
+        """Replace a quantity's per-subject values (re-parameterised kinds); resets the outputs."""
+        self._overrides[name] = tensor
+        self.subject_outputs = {}
+
+    def add_term(self, term: ObservedTerm) -> None:
+        self.terms.append(term)
+
+
+def _positive(prior: Any) -> bool:
+    dist = getattr(prior, "dist", "")
+    if dist in _POSITIVE_DISTS:
+        return True
+    frozen = prior.frozen() if hasattr(prior, "frozen") else None
+    try:
+        return frozen is not None and float(frozen.ppf(1e-9)) > 0
+    except Exception:  # noqa: BLE001 - any failure means "not known positive"
+        return False
+
+
+def _spread(prior: Any) -> tuple[str, float] | None:
+    bs = getattr(prior, "between_subject", None)
+    if not bs:
+        return None
+    if isinstance(bs, dict):
+        for kind in ("cv", "sd"):
+            if bs.get(kind) is not None:
+                return kind, float(bs[kind])
+        return None
+    for kind in ("cv", "sd"):
+        v = getattr(bs, kind, None)
+        if v is not None:
+            return kind, float(v)
+    return None
+
+
+def spread_ratio(kind: str, declared: float, spread: Any, xp: Any) -> Any:
+    """Factor on the normal score that turns the declared between-subject spread into ``spread``.
+
+    ``Prior.individual(typical, z * ratio)`` then has spread ``spread``: for an sd the ratio is
+    ``spread / declared``; for a cv it is ``s(spread) / s(declared)`` with ``s = sqrt(log(1+cv^2))``.
+    """
+    if kind == "sd":
+        return spread / declared
+    return xp.sqrt(xp.log1p(spread * spread)) / np.sqrt(np.log1p(declared * declared))
+
+
+def apply_layer(prior: Any, typical: Any, z: Any, xp: Any, ratio: Any = 1.0) -> Any:
+    """One subject's value around ``typical`` (numpy or PyTensor), through ``Prior.individual``.
+
+    sd: additive; cv: multiplicative lognormal with median at the typical value; reflection
+    coefficients on the logit scale (as the prior declares). ``ratio`` rescales the spread
+    (see :func:`spread_ratio`).
+    """
+    return prior.individual(typical, z * ratio, xp=xp)
+
+
+def _probit(logp: Any) -> Any:
+    import pytensor.tensor as pt
+
+    u = pt.clip(pt.exp(logp), 1e-12, 1 - 1e-12)
+    return np.sqrt(2.0) * pt.erfinv(2.0 * u - 1.0)
+
+
+def _collect_subjects(problem: Problem) -> tuple[list[str], dict[str, str]]:
+    """Subject labels (from the observations and data files) and each subject's group."""
+    from uncertainty.inference.observations import kind_module
+
+    labels: list[str] = []
+    groups: dict[str, str] = {}
+    for obs in problem.observations:
+        mod = kind_module(obs)
+        found = mod.subjects(obs, problem) if hasattr(mod, "subjects") else (
+            [(obs.subject, obs.group)] if obs.subject is not None else [])
+        for subj, grp in found:
+            if subj not in labels:
+                labels.append(subj)
+            if grp is not None:
+                if subj in groups and groups[subj] != grp:
+                    raise obs.error(f"subject {subj!r} is in two groups ({groups[subj]!r}, {grp!r})",
+                                    "group", grp)
+                groups[subj] = grp
+    return labels, groups
+
+
+def _group_effect_targets(problem: Problem) -> list[str]:
+    targets: list[str] = []
+    for obs in problem.observations:
+        eff = obs.extra.get("effects")
+        if eff:
+            for q in eff:
+                if q not in targets:
+                    targets.append(str(q))
+    return targets
+
+
+def build_model(problem: Problem) -> BuiltModel:
+    """Declare the PyMC model of ``problem`` (no sampling). See the module docstring for layers."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    from uncertainty.inference.observations import kind_module
+
+    for obs in problem.observations:
+        mod = kind_module(obs)
+        mod.validate(obs, problem)
+    labels, subject_group = _collect_subjects(problem)
+    hierarchical = len(labels) >= 2
+    if not labels:
+        labels = ["individual"]
+    unlabelled = [o for o in problem.observations if o.subject is None
+                  and getattr(kind_module(o), "LABELLED", False) is False]
+    if hierarchical and unlabelled:
+        o = unlabelled[0]
+        raise o.error("the study has subject labels; give this observation a subject too", "subject",
+                      None)
+    groups = sorted(set(subject_group.values()))
+    ctx = BuildContext(problem, labels, hierarchical)
+    n_subj = len(labels)
+    spreads: dict[str, tuple[str, float]] = {}
+    with pm.Model(coords={"subject": labels}) as model:
+        # typical-subject values
+        scores: dict[str, Any] = {}
+        for name, prior in problem.priors.items():
+            dist = getattr(prior, "dist", None)
+            params = getattr(prior, "params", {}) or {}
+            if dist == "normal":
+                z = pm.Normal(f"{name}__z", 0.0, 1.0)
+                ctx.typical[name] = pm.Deterministic(name, params["mean"] + params["sd"] * z)
+                scores[name] = z
+            elif dist == "lognormal":
+                z = pm.Normal(f"{name}__z", 0.0, 1.0)
+                ctx.typical[name] = pm.Deterministic(
+                    name, params["median"] * pt.exp(np.log(params["gsd"]) * z))
+                scores[name] = z
+            else:
+                ctx.typical[name] = prior.pymc(name)
+        _add_copula(problem, ctx, scores)
+        # group effects
+        targets = _group_effect_targets(problem)
+        effects: dict[str, Any] = {}
+        if len(groups) >= 2 and targets:
+            ref = "control" if "control" in groups else groups[0]
+            others = [g for g in groups if g != ref]
+            model.add_coord("group", others)
+            gidx = np.array([others.index(subject_group[s]) + 1 if subject_group.get(s) in others
+                             else 0 for s in labels])
+            for q in targets:
+                if q not in problem.priors:
+                    raise InputError("a group effect names a quantity that is not uncertain in this study",
+                                     file=problem.file, key="observations.effects", value=q)
+                eff = pm.Normal(f"{q}__effect", 0.0, GROUP_EFFECT_SD, dims="group")
+                ctx.extra_params.append(f"{q}__effect")
+                effects[q] = (pt.concatenate([pt.zeros(1), eff]), gidx)
+            ctx.notes.append(f"group effects on {', '.join(targets)} relative to group {ref!r}"
+                             + (" (log ratio)" if targets else ""))
+        # individuals
+        for name, prior in problem.priors.items():
+            typ = ctx.typical[name]
+            base = typ * pt.ones(n_subj)
+            if name in effects:
+                vec, gidx = effects[name]
+                if _positive(prior):
+                    base = base * pt.exp(vec[gidx])
+                else:
+                    base = base + float(prior.sd()) * vec[gidx]
+            sp = _spread(prior)
+            if sp is None:
+                ctx.per_subject[name] = base
+                continue
+            kind, declared = sp
+            spreads[name] = sp
+            ratio: Any = 1.0
+            if hierarchical:
+                w = pm.Normal(f"{name}__spread_z", 0.0, 1.0)
+                spread = pm.Deterministic(f"{name}__spread", declared * pt.exp(SPREAD_LOG_SD * w))
+                ratio = spread_ratio(kind, declared, spread, pt)
+            z = pm.Normal(f"{name}__subject_z", 0.0, 1.0, dims="subject")
+            ctx.per_subject[name] = apply_layer(prior, base, z, pt, ratio)
+        # observation terms (kinds may re-parameterise per-subject quantities first)
+        for obs in problem.observations:
+            mod = kind_module(obs)
+            if hasattr(mod, "prepare"):
+                mod.prepare(ctx, obs)
+        for obs in problem.observations:
+            kind_module(obs).add(ctx, obs)
+        for name in problem.priors:
+            if name not in ctx._overrides:
+                pm.Deterministic(f"{name}__subject", ctx.per_subject[name], dims="subject")
+            else:
+                pm.Deterministic(f"{name}__subject", ctx._overrides[name], dims="subject")
+        outs = ctx.outputs()
+        pm.Deterministic("Jv__subject", outs["Jv"] * pt.ones(n_subj), dims="subject")
+        typ_vals = {**problem.fixed, **ctx.typical}
+        typ_out = problem.evaluate(typ_vals, pt)
+        pm.Deterministic("Jv__typical", typ_out["Jv"])
+    return BuiltModel(model=model, problem=problem, subjects=labels, hierarchical=hierarchical,
+                      groups=groups, subject_group=subject_group, terms=ctx.terms,
+                      quantities=list(problem.priors), spreads=spreads,
+                      notes=ctx.notes, extra_params=ctx.extra_params,
+                      prior_bound_candidates=ctx.prior_bound_candidates, context=ctx)
+
+
+def _add_copula(problem: Problem, ctx: BuildContext, scores: dict[str, Any]) -> None:
+    """Gaussian-copula density for correlated quantities: -0.5 z'(R^-1 - I)z - 0.5 log|R|."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    R = problem.correlation
+    if R is None:
+        return
+    names = problem.names
+    R = np.asarray(R, dtype=float)
+    if R.shape != (len(names), len(names)) or np.allclose(R, np.eye(len(names))):
+        return
+    involved = [i for i in range(len(names)) if not np.allclose(np.delete(R[i], i), 0.0)]
+    Rs = R[np.ix_(involved, involved)]
+    zs = []
+    for i in involved:
+        name = names[i]
+        if name in scores:
+            zs.append(scores[name])
+        else:
+            prior = problem.priors[name]
+            rv = ctx.typical[name]
+            zs.append(_probit(pm.logcdf(_marginal(prior), rv)))
+    z = pt.stack(zs)
+    prec = np.linalg.inv(Rs) - np.eye(len(involved))
+    _, logdet = np.linalg.slogdet(Rs)
+    pm.Potential("copula", -0.5 * pt.dot(z, pt.dot(prec, z)) - 0.5 * logdet)
+
+
+def _marginal(prior: Any) -> Any:
+    """An unnamed PyMC distribution of a prior's marginal (for its CDF in the copula term)."""
+    import pymc as pm
+
+    fn = getattr(prior, "pymc_dist", None)
+    if callable(fn):
+        return fn()
+    p = prior.params
+    dist = prior.dist
+    if dist == "beta":
+        return pm.Beta.dist(mu=p["mean"], sigma=p["sd"])
+    if dist == "gamma":
+        return pm.Gamma.dist(mu=p["mean"], sigma=p["sd"])
+    if dist == "uniform":
+        return pm.Uniform.dist(p["lower"], p["upper"])
+    if dist == "truncnormal":
+        return pm.TruncatedNormal.dist(p["mean"], p["sd"], lower=p.get("lower"), upper=p.get("upper"))
+    if dist == "triangular":
+        return pm.Triangular.dist(lower=p["lower"], c=p["mode"], upper=p["upper"])
+    raise InputError("correlation with this prior shape is not supported in inference",
+                     key=f"parameters.{prior.symbol}.dist", value=dist)

@@ -1,0 +1,48 @@
+"""``lymph_flow``: pre-nodal lymph flow, equal to Jv at steady state (JL = Jv).
+
+sd: normal error in the value's unit; cv: lognormal error. Lymph collected after a lymph node
+understates Jv, because nodes take up part of the fluid (Levick & Michel 2010, Cardiovasc Res
+87:198-210: about half of filtered fluid returns to the blood in nodes; value from memory).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from uncertainty.inference.observations.base import (
+    add_reading,
+    check_positive_value,
+    require_error,
+    term_name,
+)
+from uncertainty.inference.problem import Observation, Problem
+
+NOTE = ("lymph_flow is read as pre-nodal lymph (JL = Jv at steady state); post-nodal lymph "
+        "understates Jv because lymph nodes absorb part of the fluid.")
+
+
+def validate(obs: Observation, problem: Problem) -> None:
+    """A value and one of sd or cv; a cv error needs a positive value."""
+    require_error(obs)
+    check_positive_value(obs)
+    site = obs.extra.get("site")
+    if site is not None and site not in ("pre_nodal", "post_nodal"):
+        raise obs.error("site is pre_nodal or post_nodal", "site", site)
+
+
+def add(ctx: Any, obs: Observation) -> None:
+    """reading ~ error(Jv of the observation's subject)."""
+    import pymc as pm
+
+    from uncertainty.inference.model_builder import ObservedTerm
+
+    i = ctx.subject_index(obs)
+    pred = ctx.value("Jv")[i]
+    name = term_name(obs)
+    pm.Deterministic(f"{name}__pred", pred)
+    add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
+    if obs.extra.get("site") == "post_nodal":
+        ctx.notes.append(f"{obs.key}: post-nodal lymph is fitted as if it were pre-nodal; the Jv "
+                         "posterior is then biased low")
+    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
+                              subjects=[i], label="lymph flow"))

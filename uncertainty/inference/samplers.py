@@ -1,0 +1,95 @@
+"""Hand a declared model to a sampler: nutpie (default) or PyMC's own NUTS.
+
+The declaration never knows the sampler (DESIGN.md section 7). Failures of the sampler (a model
+that cannot be evaluated at its initial point, a compile error) are raised as
+:class:`SamplerError` with the reason, which the command line prints in one line.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+from typing import Any
+
+from uncertainty.errors import FluidshiftError
+
+SAMPLERS = ("nutpie", "pymc")
+
+
+class SamplerError(FluidshiftError):
+    """The sampler could not run (exit status 1), with the reason in the message."""
+
+    exit_code = 1
+
+
+@dataclasses.dataclass
+class SampleRun:
+    """Posterior draws (ArviZ InferenceData) and how long compiling and sampling took (s)."""
+
+    idata: Any
+    sampler: str
+    compile_seconds: float
+    sample_seconds: float
+    compiled: Any = None
+
+
+def compile_model(model: Any, sampler: str = "nutpie") -> tuple[Any, float]:
+    """Compile ``model`` for ``sampler``; returns (compiled object or None, seconds)."""
+    t0 = time.perf_counter()
+    if sampler == "nutpie":
+        import nutpie
+
+        try:
+            compiled = nutpie.compile_pymc_model(model)
+        except Exception as exc:  # noqa: BLE001 - reported with its reason, no traceback
+            raise SamplerError(f"nutpie could not compile the model: {type(exc).__name__}: {exc}") from None
+        return compiled, time.perf_counter() - t0
+    if sampler == "pymc":
+        return None, 0.0
+    raise SamplerError(f"unknown sampler {sampler!r} (known: {', '.join(SAMPLERS)})")
+
+
+def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int = 1000,
+           tune: int = 1000, seed: int | None = None, compiled: Any = None,
+           data: dict[str, Any] | None = None, target_accept: float | None = None) -> SampleRun:
+    """Draw ``chains`` x ``draws`` posterior samples after ``tune`` warm-up steps, seeded.
+
+    ``compiled`` reuses a nutpie compiled model (``data`` then replaces its ``pm.Data``
+    values, e.g. simulated readings in a trial loop). Returns a :class:`SampleRun`.
+    """
+    import warnings
+
+    if sampler not in SAMPLERS:
+        raise SamplerError(f"unknown sampler {sampler!r} (known: {', '.join(SAMPLERS)})")
+    compile_s = 0.0
+    if sampler == "nutpie":
+        import nutpie
+
+        if compiled is None:
+            compiled, compile_s = compile_model(model, "nutpie")
+        run_model = compiled.with_data(**data) if data else compiled
+        kwargs: dict[str, Any] = {}
+        if target_accept is not None:
+            kwargs["target_accept"] = target_accept
+        t0 = time.perf_counter()
+        try:
+            idata = nutpie.sample(run_model, chains=chains, draws=draws, tune=tune, seed=seed,
+                                  progress_bar=False, save_warmup=False, **kwargs)
+        except Exception as exc:  # noqa: BLE001
+            raise SamplerError(f"nutpie failed: {type(exc).__name__}: {exc}") from None
+        return SampleRun(idata, sampler, compile_s, time.perf_counter() - t0, compiled)
+    import pymc as pm
+
+    t0 = time.perf_counter()
+    try:
+        with model:
+            if data:
+                pm.set_data(data)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                idata = pm.sample(draws=draws, tune=tune, chains=chains, cores=min(chains, 2),
+                                  random_seed=seed, progressbar=False, compute_convergence_checks=False,
+                                  target_accept=target_accept or 0.8)
+    except Exception as exc:  # noqa: BLE001
+        raise SamplerError(f"PyMC NUTS failed: {type(exc).__name__}: {exc}") from None
+    return SampleRun(idata, sampler, 0.0, time.perf_counter() - t0, None)
