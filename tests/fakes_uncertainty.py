@@ -74,14 +74,29 @@ class FakeStudy:
 
 
 # Invented demo values (a plausible resting skeletal-muscle-like set, not a prior set).
-def classic_study(corr=None, between=True, sigma_fixed=True, seed=1):
-    pri = {
-        "Kf": normal("Kf", 0.004, 0.0008, between_subject={"cv": 0.3} if between else None),
-        "Pc": normal("Pc", 25.0, 3.0, between_subject={"sd": 3.0} if between else None),
-        "Pi": normal("Pi", -2.0, 1.5),
-        "pi_c": normal("pi_c", 25.0, 2.0),
-        "pi_i": normal("pi_i", 8.0, 2.0),
-        "sigma": fixed("sigma", 0.9) if sigma_fixed else normal("sigma", 0.9, 0.03),
-    }
-    names = [s for s, p in pri.items() if p.frozen_dist is not None]
+CLASSIC = {"Kf": (0.004, 0.0008), "Pc": (25.0, 3.0), "Pi": (-2.0, 1.5), "pi_c": (25.0, 2.0),
+           "pi_i": (8.0, 1.5)}
+SIGMA = 0.9  # invented, fixed
+
+
+def classic_study(corr=None, between=True, sigma_fixed=True, seed=1, pairs=None):
+    """A study-like object with real Prior declarations (uncertainty.priors.parse_prior)."""
+    from uncertainty.priors import parse_prior
+
+    units = {"Kf": "mL/min/mmHg/100g", "Pc": "mmHg", "Pi": "mmHg", "pi_c": "mmHg", "pi_i": "mmHg"}
+    bs = {"Kf": {"cv": 0.3}, "Pc": {"sd": 3.0}} if between else {}
+    pri = {}
+    for s, (m, sd) in CLASSIC.items():
+        decl = {"dist": "normal", "mean": m, "sd": sd, "unit": units[s]}
+        if s in bs:
+            decl["between_subject"] = bs[s]
+        pri[s] = parse_prior(s, decl)
+    pri["sigma"] = parse_prior("sigma", SIGMA) if sigma_fixed else parse_prior(
+        "sigma", {"dist": "normal", "mean": SIGMA, "sd": 0.03})
+    names = [s for s, p in pri.items() if not p.is_fixed]
+    if pairs:
+        corr = np.eye(len(names))
+        for a, b, r in pairs:
+            i, j = names.index(a), names.index(b)
+            corr[i, j] = corr[j, i] = r
     return FakeStudy(priors=pri, names=names, correlation=corr, seed=seed)

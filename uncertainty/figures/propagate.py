@@ -1,0 +1,67 @@
+"""Figure of a forward-uncertainty result: the Jv distribution, individual beside typical.
+
+matplotlib is imported here only (Agg back-end), so the command line stays light.
+"""
+
+from __future__ import annotations
+
+import os
+from typing import Any
+
+import numpy as np
+
+STYLE = {"individual": "#3b6ea5", "typical": "#b5651d", "zero": "#444444", "interval": "#222222"}
+
+
+def _pyplot() -> Any:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def save(fig: Any, out_dir: str, stem: str) -> list[str]:
+    """Save a figure as PNG and SVG under out_dir; return the paths."""
+    os.makedirs(out_dir, exist_ok=True)
+    paths = []
+    for ext in ("png", "svg"):
+        p = os.path.join(out_dir, f"{stem}.{ext}")
+        fig.savefig(p, dpi=150 if ext == "png" else None, bbox_inches="tight")
+        paths.append(p)
+    _pyplot().close(fig)
+    return paths
+
+
+def plot_distribution(result: Any, out_dir: str, output: str = "Jv") -> list[str]:
+    """Histogram of one output (default Jv, canonical unit) for the individual and the typical
+    subject, side by side, each with its 95% interval and the zero line; PNG and SVG paths."""
+    plt = _pyplot()
+    if output not in result.outputs:
+        output = result.outputs[0]
+    unit = result.units.get(output, "")
+    fig, axes = plt.subplots(1, 2, figsize=(9, 3.4), sharex=True, sharey=False)
+    finite = [result.draws[layer][output][np.isfinite(result.draws[layer][output])]
+              for layer in ("individual", "typical")]
+    allv = np.concatenate(finite) if any(f.size for f in finite) else np.zeros(1)
+    lo, hi = np.quantile(allv, [0.001, 0.999])
+    lo, hi = min(lo, 0.0), max(hi, 0.0)
+    bins = np.linspace(lo, hi, 80)
+    for ax, layer, y in zip(axes, ("individual", "typical"), finite, strict=True):
+        s = result.summaries[layer][output]
+        ax.hist(y, bins=bins, color=STYLE[layer], alpha=0.75, density=True)
+        ax.axvline(0.0, color=STYLE["zero"], lw=1.0, ls="--")
+        for q in s.ci95:
+            ax.axvline(q, color=STYLE["interval"], lw=1.0)
+        ax.axvline(s.median, color=STYLE["interval"], lw=1.6)
+        title = "individual (both layers)" if layer == "individual" else "typical subject"
+        ax.set_title(f"{title}\nmedian {s.median:.3g}, 95% [{s.ci95[0]:.3g}, {s.ci95[1]:.3g}]", fontsize=9)
+        ax.set_xlabel(f"{output} ({unit})" if unit else output)
+        ax.spines[["top", "right"]].set_visible(False)
+        ax.set_yticks([])
+    p = result.summaries["individual"][output].p_negative if output == "Jv" else None
+    if p is not None:
+        fig.suptitle(f"P(absorption, Jv < 0) for the individual: {p:.3g}", fontsize=10)
+    fig.tight_layout()
+    return save(fig, out_dir, f"propagate_{output}")
