@@ -423,7 +423,10 @@ class Study:
 
     def outputs(self) -> list[str]:
         """Output names ``model.evaluate`` gives for this study."""
-        return output_names(self.model, self.tissue_mass_kg is not None, tuple(self.derived))
+        names = output_names(self.model, self.tissue_mass_kg is not None, tuple(self.derived))
+        if self.model != "classic" and "C_tis" not in self.priors:
+            names.remove("oedema_volume")
+        return names
 
     def known_quantities(self) -> set[str]:
         """Inputs, derived quantities and outputs a section may name."""

@@ -1,0 +1,150 @@
+"""Study + input values -> outputs: derived quantities, then the study's model form.
+
+``evaluate(study, values, xp)`` is the one forward model every analysis calls. It applies the
+study's derivations (oncotic pressure from protein, Pc from Pa/Pv/r or from LAP/PAP), then
+
+- ``classic``: Starling's equation with the six quantities as given (``physiology.starling``);
+- ``steady_state``: the coupled steady state of filtration, lymph drainage and protein flux
+  (``physiology.balance.steady_state``): Pi and pi_i are solved, not sampled;
+- ``revised``: the glycocalyx form (``physiology.balance.revised_steady_state``): pi_g beneath the
+  glycocalyx opposes filtration, pi_i is downstream; the force breakdown uses pi_g in the slot of
+  the opposing oncotic pressure (``force_pi_i`` is then the pi_g term).
+
+Only physiology functions compute; the same code runs on numpy arrays and PyTensor tensors
+(``xp=pytensor.tensor``), so inference uses this very function.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+
+from uncertainty.study import REQUIRED_INPUTS
+from uncertainty.study import required_inputs as _required_inputs
+
+#: Canonical unit of every output.
+OUTPUT_UNITS: dict[str, str] = {
+    "Jv": "mL/min/100g",
+    "net_pressure": "mmHg",
+    "force_Pc": "mmHg",
+    "force_Pi": "mmHg",
+    "force_pi_c": "mmHg",
+    "force_pi_i": "mmHg",
+    "Pi": "mmHg",
+    "pi_i": "mmHg",
+    "pi_g": "mmHg",
+    "ratio": "1",
+    "JL": "mL/min/100g",
+    "oedema_volume": "mL/100g",
+    "Jv_mL_per_h": "mL/h",
+    "Jv_L_per_day": "L/day",
+    "Pc": "mmHg",
+    "pi_c": "mmHg",
+}
+
+
+def required_inputs(model_form: str) -> tuple[str, ...]:
+    """Quantities a model form needs (before derivations): classic Kf, Pc, Pi, pi_c, pi_i, sigma;
+    steady_state / revised Kf, Pc, sigma, PS, pi_c, L, Pi_L0 (C_tis, PS_large optional)."""
+    return _required_inputs(model_form)
+
+
+def _value(study: Any, values: Mapping[str, Any], symbol: str) -> Any:
+    if symbol in values:
+        return values[symbol]
+    prior = study.priors.get(symbol)
+    if prior is None:
+        raise KeyError(f"no value for {symbol}")
+    return prior.params["value"] if prior.is_fixed else prior.median()
+
+
+def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, Any]:
+    """Outputs of the study's model at ``values`` (canonical units; arrays broadcast).
+
+    Args:
+        study: a ``Study`` (its ``model``, ``priors``, ``derived``, ``tissue_mass_kg``, ``steady_Cp``).
+        values: symbol -> value (numbers, numpy arrays or PyTensor tensors) for the study's priors;
+            fixed quantities may be left out.
+        xp: ``numpy`` or ``pytensor.tensor``.
+
+    Returns:
+        dict with ``Jv`` (mL/min/100g), ``net_pressure`` and ``force_Pc``, ``force_Pi``, ``force_pi_c``,
+        ``force_pi_i`` (mmHg, signed contributions to the net pressure); steady forms add ``Pi``,
+        ``pi_i`` (mmHg), ``ratio`` (Ci/Cp), ``JL`` (= Jv, lymph balance) and ``oedema_volume``
+        (mL/100g, when the study has C_tis); ``revised`` adds ``pi_g``; with a tissue mass,
+        ``Jv_mL_per_h`` and ``Jv_L_per_day`` for the whole tissue; derived inputs (``Pc``, ``pi_c``,
+        ``pi_i`` in classic) are returned too. Units in :data:`OUTPUT_UNITS`.
+    """
+    from uncertainty.physiology import balance, starling
+
+    form = study.model
+    v: dict[str, Any] = {}
+    for s in study.priors:
+        v[s] = _value(study, values, s)
+    for target, d in study.derived.items():
+        v[target] = d.compute(v, xp)
+    need = REQUIRED_INPUTS[form]
+    missing = [s for s in need if s not in v]
+    if missing:
+        raise KeyError(f"the {form} form needs {', '.join(missing)}")
+    out: dict[str, Any] = {}
+    if form == "classic":
+        Pi, pi_o = v["Pi"], v["pi_i"]
+        Jv = starling.filtration(v["Kf"], v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])
+    else:
+        Cp = v[study.steady_Cp] if getattr(study, "steady_Cp", None) else None
+        args = (v["Kf"], v["Pc"], v["sigma"], v["PS"], v["pi_c"], v["L"], v["Pi_L0"])
+        if form == "steady_state":
+            res = balance.steady_state(*args, Cp=Cp, xp=xp)
+            pi_o = res["pi_i"]
+        else:
+            res = balance.revised_steady_state(*args, v.get("PS_large", 0.0), Cp=Cp, xp=xp)
+            pi_o = res["pi_g"]
+            out["pi_g"] = res["pi_g"]
+        Jv, Pi = res["Jv"], res["Pi"]
+        out["Pi"] = Pi
+        out["pi_i"] = res["pi_i"]
+        out["ratio"] = res["ratio"]
+        out["JL"] = Jv
+        if "C_tis" in v:
+            out["oedema_volume"] = _oedema_volume(Pi, v, xp)
+    out["Jv"] = Jv
+    out["net_pressure"] = starling.net_pressure(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])
+    forces = starling.forces(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])
+    for k in ("Pc", "Pi", "pi_c", "pi_i"):
+        out[f"force_{k}"] = forces[k]
+    if study.tissue_mass_kg is not None:
+        from uncertainty.units import basis_factor
+
+        per_organ = basis_factor("100g", "organ", tissue_mass_kg=study.tissue_mass_kg, symbol="Jv")
+        out["Jv_mL_per_h"] = Jv * (per_organ * 60.0)
+        out["Jv_L_per_day"] = Jv * (per_organ * 1440.0 / 1000.0)
+    for target in study.derived:
+        out.setdefault(target, v[target])
+    return out
+
+
+def _oedema_volume(Pi: Any, v: Mapping[str, Any], xp: Any) -> Any:
+    """Interstitial volume gained (mL/100g) when Pi rises from the lymph-zero pressure to the solved Pi.
+
+    Uses ``physiology.interstitium.oedema_volume`` when it is present; until then the linear
+    compliance relation dV = C_tis (Pi - Pi_L0) (Aukland & Reed 1993, Physiol Rev 73:1; linear range).
+    """
+    try:
+        from uncertainty.physiology import interstitium
+    except ImportError:
+        interstitium = None
+    fn = getattr(interstitium, "oedema_volume", None) if interstitium is not None else None
+    if fn is not None:
+        try:
+            return fn(Pi, v["C_tis"], v["Pi_L0"], xp=xp)
+        except TypeError:
+            pass
+    return v["C_tis"] * (Pi - v["Pi_L0"])
+
+
+def outputs_for(study: Any) -> list[str]:
+    """Names ``evaluate`` returns for this study (see :func:`uncertainty.study.output_names`)."""
+    return study.outputs()
