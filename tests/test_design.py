@@ -1,0 +1,148 @@
+"""Trial design on a study: simulated power against exact noncentral t, assurance, dropout, bad input."""
+
+from __future__ import annotations
+
+import math
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+from scipy import integrate, stats
+
+from uncertainty import design as dz
+from uncertainty import trial_power as tp
+from uncertainty.errors import InputError
+from uncertainty.priors import parse_prior
+
+
+def _study(section: dict, **priors: dict) -> SimpleNamespace:
+    # Kf prior: median 0.004 mL/min/mmHg/100g, gsd 1.3, between-subject cv 0.35 (invented test values;
+    # the checks below compare our figures with closed forms, so any values do)
+    decls = priors or {"Kf": {"dist": "lognormal", "median": 0.004, "gsd": 1.3,
+                              "unit": "mL/min/mmHg/100g", "between_subject": {"cv": 0.35}}}
+    pri = {k: parse_prior(k, v) for k, v in decls.items()}
+    return SimpleNamespace(path="trial.toml", seed=11, priors=pri, names=list(pri), correlation=None,
+                           design=section)
+
+
+BASE = {"design": "parallel", "endpoint": "Kf", "effect": {"parameter": "Kf", "multiply": 0.7},
+        "measurement": {"cv": 0.2}, "n_range": [8, 60], "n_points": 4, "trials": 2000}
+
+
+def test_log_scale_sd_from_cvs() -> None:
+    spec = dz.parse_design(_study(BASE))
+    sd, _ = dz.analytic_sd(_study(BASE), spec)
+    # sd of a log endpoint from a cv: sqrt(ln(1 + cv^2)) (lognormal identity; common practice)
+    assert sd == pytest.approx(math.sqrt(math.log1p(0.35**2) + math.log1p(0.2**2)))
+    assert spec.scale == "log" and spec.effects[0].analysis_value() == pytest.approx(math.log(0.7))
+
+
+def test_simulated_power_matches_exact_noncentral_t() -> None:
+    st = _study(BASE)
+    res = dz.design(st).to_dict()
+    sd = res["sd_analysis_scale"]
+    for row in res["curve"]:
+        exact = float(tp.t_power(row["n_per_arm"], math.log(0.7), sd))  # scipy.stats.nct
+        assert abs(row["power"] - exact) < 4 * max(row["power_mc_se"], 1e-3)
+    # n_per_arm is the exact-t search result
+    assert res["n_per_arm_analysed"] == tp.n_for_power(math.log(0.7), sd, 0.05, 0.8, "parallel", 8, 60)
+
+
+def test_paired_design_uses_within_subject_spread() -> None:
+    sec = dict(BASE, design="paired", within_subject={"Kf": {"cv": 0.15}})
+    st = _study(sec)
+    res = dz.design(st).to_dict()
+    w2, m2 = math.log1p(0.15**2), math.log1p(0.2**2)
+    assert res["sd_analysis_scale"] == pytest.approx(math.sqrt(2 * (w2 + m2)))  # sd of a difference
+    for row in res["curve"]:
+        exact = float(tp.t_power(row["n_per_arm"], math.log(0.7), res["sd_analysis_scale"], design="paired"))
+        assert abs(row["power"] - exact) < 4 * max(row["power_mc_se"], 1e-3)
+
+
+def test_ancova_on_baseline_gains_power_as_theory_says() -> None:
+    sec = dict(BASE, baseline=True, within_subject={"Kf": {"cv": 0.1}}, n_range=[10, 30], n_points=3)
+    st = _study(sec)
+    res = dz.design(st).to_dict()
+    b2, w2, m2 = math.log1p(0.35**2), math.log1p(0.1**2), math.log1p(0.2**2)
+    total = b2 + w2 + m2
+    rho = b2 / total  # baseline/follow-up correlation of one subject's readings
+    assert res["sd_analysis_scale"] == pytest.approx(math.sqrt(total * (1 - rho**2)))
+    for row in res["curve"]:
+        approx = float(tp.t_power(row["n_per_arm"], math.log(0.7), res["sd_analysis_scale"], design="ancova"))
+        # the ANCOVA formula ignores the estimated slope's variance: allow 0.03 beyond MC error
+        assert abs(row["power"] - approx) < 4 * row["power_mc_se"] + 0.03
+        t_only = float(tp.t_power(row["n_per_arm"], math.log(0.7), math.sqrt(total)))
+        assert row["power"] > t_only + 0.05
+
+
+def test_assurance_simulated_against_closed_form_and_dropout() -> None:
+    sec = dict(BASE, design_prior={"dist": "normal", "mean": -0.357, "sd": 0.15}, target_assurance=0.6,
+               dropout=0.15, analysis_prior={"mean": 0.0, "sd": 1.0})
+    res = dz.design(_study(sec)).to_dict()
+    sd = res["sd_analysis_scale"]
+    for row in res["curve"]:
+        # assurance = E_prior[power] (O'Hagan et al. 2005), here by scipy.integrate.quad of exact t power
+        def integrand(d: float, n: int = row["n_per_arm"]) -> float:
+            return float(tp.t_power(n, d, sd)) * stats.norm.pdf(d, -0.357, 0.15)
+
+        quad = integrate.quad(integrand, -0.357 - 1.5, -0.357 + 1.5)[0]
+        assert abs(row["assurance"] - quad) < 4 * max(row["assurance_mc_se"], 1e-3)
+        assert row["assurance_analytic"] == pytest.approx(quad, abs=2e-3)
+        assert row["n_enrolled"] == math.ceil(row["n_per_arm"] / 0.85)
+    assert res["n_per_arm"] == math.ceil(res["n_per_arm_analysed"] / 0.85)
+    n_a = res["n_per_arm_assurance_analysed"]
+    prior = stats.norm(-0.357, 0.15)
+    assert tp.t_assurance(n_a, prior, sd) >= 0.6 > tp.t_assurance(n_a - 1, prior, sd)
+    assert 0 < res["bayesian_success"] <= 1
+
+
+@pytest.mark.parametrize(("patch", "key"), [
+    ({"target_power": 1.5}, "design.target_power"),
+    ({"target_power": 0}, "design.target_power"),
+    ({"n_range": [50, 10]}, "design.n_range"),
+    ({"n_range": []}, "design.n_range"),
+    ({"effect": {"parameter": "Qz", "shift": 1}}, "design.effect.parameter"),
+    ({"design": "paired"}, "design.within_subject"),
+    ({"endpoint": "nonsense"}, "design.endpoint"),
+    ({"effect": {"parameter": "Kf", "multiply": -1}}, "design.effect.multiply"),
+])
+def test_bad_design_input_names_file_key_value(patch: dict, key: str) -> None:
+    with pytest.raises(InputError) as err:
+        dz.parse_design(_study(dict(BASE, **patch)))
+    assert err.value.key == key
+    assert err.value.file == "trial.toml"
+
+
+def test_same_numbers_for_same_seed_and_any_executor(tmp_path) -> None:
+    from uncertainty.parallel import InProcess
+
+    st = _study(dict(BASE, trials=200))
+    a = dz.design(st, seed=3).to_dict()["curve"]
+    b = dz.design(st, seed=3, executor=InProcess(checkpoint_dir=tmp_path)).to_dict()["curve"]
+    assert a == b
+    c = dz.design(st, seed=4).to_dict()["curve"]
+    assert [r["power"] for r in a] != [r["power"] for r in c]
+
+
+@pytest.mark.slow
+def test_two_dask_workers_give_the_in_process_numbers() -> None:
+    from uncertainty.parallel import make_executor
+
+    st = _study(dict(BASE, trials=200))
+    ref = dz.design(st, seed=3).to_dict()["curve"]
+    with make_executor(workers=2) as ex:
+        assert dz.design(st, seed=3, executor=ex).to_dict()["curve"] == ref
+
+
+@pytest.mark.slow
+def test_exact_mcmc_path_agrees_with_fast_path_on_power() -> None:
+    # small case: n = 12 per arm, 40 simulated trials refitted with NUTS; the fast (t test) and exact
+    # (posterior probability of a direction > 1 - alpha/2) decisions are taken on the same trials
+    st = _study(dict(BASE, n_range=[12, 12], n_points=2, exact_trials=40))
+    res = dz.design(st, exact=True, seed=9).to_dict()
+    row = res["curve"][0]
+    assert res["path"] == "exact"
+    diff_se = max(row["power_exact_minus_fast_mc_se"], 1 / 40)
+    assert abs(row["power"] - row["power_fast"]) <= 3 * diff_se
+    exact_t = float(tp.t_power(12, math.log(0.7), res["sd_analysis_scale"]))
+    assert abs(row["power"] - exact_t) < 4 * np.sqrt(exact_t * (1 - exact_t) / 40)
