@@ -255,7 +255,7 @@ class RankSection(BaseModel):
     """``[rank]``: candidate measurements; optional ``budget``; output Jv; 4096 samples by default."""
 
     model_config = _CFG
-    candidates: list[Candidate] = Field(min_length=1)
+    candidates: list[Candidate] = Field(default_factory=list)  # empty: instruments.toml for the tissue
     budget: float | None = Field(default=None, gt=0)
     output: str = "Jv"
     samples: int = Field(default=4096, gt=0, le=2**22)
@@ -320,6 +320,14 @@ class DesignSection(BaseModel):
     design_prior: dict[str, Any] | None = None
     analysis_prior: dict[str, Any] | None = None
     simulations: int = Field(default=2000, gt=0, le=10**7)
+    # trial-design extensions (uncertainty/design.py): ANCOVA on a baseline, further effects of the same
+    # treatment (fixed; the design prior is over `effect`), curve points, exact-path trials, half-width
+    baseline: bool = False
+    extra_effects: list[Effect] = Field(default_factory=list)
+    n_points: int = Field(default=10, ge=2, le=100)
+    exact_trials: int = Field(default=40, ge=2, le=10**5)
+    target_half_width: float | None = Field(default=None, gt=0)
+    half_width_probability: float = Field(default=0.8, gt=0, lt=1)
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 
@@ -738,10 +746,12 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
 
     if study.design is not None:
         dsn = study.design
-        need_known(dsn.effect.parameter, "design.effect.parameter")
-        if dsn.effect.shift is not None and dsn.effect.unit:
-            dsn.effect.shift = convert(dsn.effect.parameter, dsn.effect.shift, dsn.effect.unit, "design.effect.unit")
-            dsn.effect.unit = units.CANONICAL[dsn.effect.parameter]
+        for ekey, eff in [("design.effect", dsn.effect)] + [
+                (f"design.extra_effects[{i}]", e) for i, e in enumerate(dsn.extra_effects)]:
+            need_known(eff.parameter, f"{ekey}.parameter")
+            if eff.shift is not None and eff.unit:
+                eff.shift = convert(eff.parameter, eff.shift, eff.unit, f"{ekey}.unit")
+                eff.unit = units.CANONICAL[eff.parameter]
         if dsn.endpoint not in known and dsn.endpoint not in CSV_COLUMNS:
             need_known(dsn.endpoint, "design.endpoint")
         for part in ("between_subject", "within_subject"):
