@@ -1,0 +1,275 @@
+"""Sensitivity: Sobol' against closed forms, scipy and Ishigami; Morris; Shapley against the
+linear-Gaussian closed form; the given-data index; refusal with correlated inputs; bad input."""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pytest
+from fakes_uncertainty import CLASSIC, SIGMA, classic_study, evaluate
+from scipy import stats
+
+from uncertainty.errors import InputError
+from uncertainty.sensitivity import (
+    Problem,
+    _index_warnings,
+    first_order_given_data,
+    morris_core,
+    morris_levels_inside,
+    problem_from_functions,
+    sensitivity,
+    shapley_core,
+    sobol_core,
+)
+
+
+def product_indices():
+    """Closed-form Sobol' indices of Y = K D, D = Pc - Pi - sigma (pi_c - pi_i) (sigma fixed), all
+    inputs independent, derived here:
+      V = (VK + mK^2)(VD + mD^2) - mK^2 mD^2
+      first order: V_K = mD^2 VK; V_Xi = mK^2 c_i^2 V_i for the linear terms (c = 1, -1, -s, s)
+      total:  T_K = E[D^2] VK = (VD + mD^2) VK; T_Xi = E[K^2] c_i^2 V_i = (VK + mK^2) c_i^2 V_i
+    (Var(E[Y|K]) = Var(K mD); E[Var(Y|X_-K)] = VK E[D^2]; E[Var(Y|X_-i)] = E[K^2] c_i^2 V_i.)"""
+    mK, sK = CLASSIC["Kf"]
+    lin = {"Pc": 1.0, "Pi": -1.0, "pi_c": -SIGMA, "pi_i": SIGMA}
+    mD = sum(c * CLASSIC[k][0] for k, c in lin.items())
+    VD = sum(c**2 * CLASSIC[k][1] ** 2 for k, c in lin.items())
+    VK = sK**2
+    V = (VK + mK**2) * (VD + mD**2) - mK**2 * mD**2
+    S1 = {"Kf": mD**2 * VK / V} | {k: mK**2 * c**2 * CLASSIC[k][1] ** 2 / V for k, c in lin.items()}
+    ST = {"Kf": (VD + mD**2) * VK / V} | {k: (VK + mK**2) * c**2 * CLASSIC[k][1] ** 2 / V
+                                           for k, c in lin.items()}
+    return S1, ST
+
+
+def _within(est, ci, truth, slack=0.01):
+    lo, hi = ci
+    return lo - slack <= truth <= hi + slack, (est, ci, truth)
+
+
+def test_sobol_product_form_matches_closed_form():
+    S1, ST = product_indices()
+    r = sensitivity(classic_study(), method="sobol", samples=8192, layer="typical", seed=4,
+                    evaluate=evaluate)
+    for p in S1:
+        ok, info = _within(r.indices[p]["S1"], r.indices[p]["S1_ci"], S1[p])
+        assert ok, (p, "S1", info)
+        ok, info = _within(r.indices[p]["ST"], r.indices[p]["ST_ci"], ST[p])
+        assert ok, (p, "ST", info)
+    assert r.ranking[0] == max(ST, key=ST.get)
+    assert r.to_dict()["ranking"] == r.ranking
+
+
+def test_sobol_agrees_with_scipy_sobol_indices():
+    # scipy.stats.sobol_indices (Saltelli 2010 / Jansen estimators) on the same function and marginals.
+    names = ["Kf", "Pc", "Pi", "pi_c", "pi_i"]
+    dists = [stats.norm(*CLASSIC[k]) for k in names]
+
+    def jv(**v):
+        return v["Kf"] * (v["Pc"] - v["Pi"] - SIGMA * (v["pi_c"] - v["pi_i"]))
+
+    prob = problem_from_functions(names, [d.ppf for d in dists], jv)
+    ours = sobol_core(prob, 8192, seed=2)
+
+    def f(x):  # scipy passes (d, n)
+        return jv(**{k: x[i] for i, k in enumerate(names)})
+
+    # scipy's error from 8 independent runs (its own bootstrap is slow): mean and se of the mean
+    runs = [stats.sobol_indices(func=f, n=2**12, dists=dists, rng=np.random.default_rng(100 + k))
+            for k in range(8)]
+    for key, attr in (("S1", "first_order"), ("ST", "total_order")):
+        vals = np.array([getattr(run, attr) for run in runs])
+        theirs, se_theirs = vals.mean(axis=0), vals.std(axis=0, ddof=1) / math.sqrt(len(runs))
+        for i, p in enumerate(names):
+            se_ours = ours.indices[p][f"{key}_se"]
+            assert abs(ours.indices[p][key] - theirs[i]) < 4 * math.hypot(se_ours, se_theirs[i]) + 0.005, \
+                (p, key, ours.indices[p][key], theirs[i])
+
+
+def ishigami(x1, x2, x3, a=7.0, b=0.1):
+    return np.sin(x1) + a * np.sin(x2) ** 2 + b * x3**4 * np.sin(x1)
+
+
+def ishigami_indices(a=7.0, b=0.1):
+    """Closed forms (Ishigami & Homma 1990; tabulated e.g. in Saltelli et al. 2008, Global Sensitivity
+    Analysis: The Primer, Wiley; from memory): V1 = 1/2 (1 + b pi^4/5)^2, V2 = a^2/8,
+    V13 = b^2 pi^8 (1/18 - 1/50), V = V1 + V2 + V13."""
+    pi = math.pi
+    V1 = 0.5 * (1 + b * pi**4 / 5) ** 2
+    V2 = a**2 / 8
+    V13 = b**2 * pi**8 * (1 / 18 - 1 / 50)
+    V = V1 + V2 + V13
+    return {"x1": V1 / V, "x2": V2 / V, "x3": 0.0}, {"x1": (V1 + V13) / V, "x2": V2 / V, "x3": V13 / V}
+
+
+def _ishigami_problem():
+    u = stats.uniform(-math.pi, 2 * math.pi).ppf
+    return problem_from_functions(["x1", "x2", "x3"], [u, u, u], ishigami)
+
+
+def test_ishigami_through_the_pipeline():
+    S1, ST = ishigami_indices()
+    # published tabulated values a=7, b=0.1: S1 = 0.3139, 0.4424, 0; ST = 0.5576, 0.4424, 0.2437
+    assert S1["x1"] == pytest.approx(0.3139, abs=1e-4) and ST["x3"] == pytest.approx(0.2437, abs=1e-4)
+    r = sobol_core(_ishigami_problem(), 8192, seed=11, second_order=True)
+    for p in S1:
+        assert _within(r.indices[p]["S1"], r.indices[p]["S1_ci"], S1[p])[0], p
+        assert _within(r.indices[p]["ST"], r.indices[p]["ST_ci"], ST[p])[0], p
+    # the only interaction is x1:x3 (closed form V13 / V)
+    assert r.second_order["x1:x3"]["S2"] == pytest.approx(ST["x3"], abs=0.05)
+    assert abs(r.second_order["x1:x2"]["S2"]) < 0.05
+    # convergence table: doubling sample sizes, the last row the full sample
+    sizes = [row["samples"] for row in r.convergence]
+    assert sizes == sorted(sizes) and sizes[-1] == r.samples
+    assert all(b == 2 * a for a, b in itertools.pairwise(sizes))
+
+
+def test_replicate_intervals_are_honest():
+    # Across independent runs the t-interval of ST(x1) covers the closed form most of the time.
+    _, ST = ishigami_indices()
+    cover = [sobol_core(_ishigami_problem(), 2048, seed=s, convergence=False) for s in range(10)]
+    hits = sum(r.indices["x1"]["ST_ci"][0] <= ST["x1"] <= r.indices["x1"]["ST_ci"][1] for r in cover)
+    assert hits >= 7
+
+
+def test_sobol_and_morris_refuse_correlated_inputs_and_default_is_shapley():
+    s = classic_study(between=False, pairs=[("Pc", "Pi", 0.4)])
+    for method in ("sobol", "morris"):
+        with pytest.raises(InputError, match="shapley"):
+            sensitivity(s, method=method, samples=256, evaluate=evaluate)
+    r = sensitivity(s, samples=512, evaluate=evaluate)
+    assert r.method == "shapley" and any("Shapley" in n for n in r.notes)
+
+
+def linear_gaussian_shapley(beta, cov):
+    """Shapley effects of Y = beta' X, X ~ N(0, cov), from the exact cost
+    c(J) = E[Var(Y | X_-J)] = beta_J' (S_JJ - S_J,-J S_-J,-J^-1 S_-J,J) beta_J (Gaussian conditioning,
+    closed form) and the Shapley weights |J|!(d-|J|-1)!/d!."""
+    d = len(beta)
+    V = beta @ cov @ beta
+
+    def c(J):
+        J = list(J)
+        if not J:
+            return 0.0
+        K = [k for k in range(d) if k not in J]
+        S = cov[np.ix_(J, J)]
+        if K:
+            S = S - cov[np.ix_(J, K)] @ np.linalg.solve(cov[np.ix_(K, K)], cov[np.ix_(K, J)])
+        return float(beta[J] @ S @ beta[J])
+
+    sh = np.zeros(d)
+    for i in range(d):
+        others = [j for j in range(d) if j != i]
+        for s in range(d):
+            for J in itertools.combinations(others, s):
+                sh[i] += math.factorial(s) * math.factorial(d - s - 1) / math.factorial(d) * (c(J + (i,)) - c(J))
+    return sh / V
+
+
+def test_shapley_linear_gaussian_closed_form():
+    beta = np.array([1.0, 1.0, 2.0])
+    rho = 0.5
+    cov = np.array([[1, 0, 0], [0, 1, rho], [0, rho, 1.0]])
+    # Iooss & Prieur (2019, Int J Uncertainty Quantification 9:493-514), three-input linear model
+    # with X2, X3 correlated (from memory): Sh1 = b1^2/V, Sh2 = (b2^2(1 - rho^2/2) + rho b2 b3
+    # + b3^2 rho^2/2)/V, V = b1^2 + b2^2 + b3^2 + 2 rho b2 b3
+    V = 1 + 1 + 4 + 2 * rho * 2
+    published = np.array([1 / V, (1 * (1 - rho**2 / 2) + rho * 2 + 4 * rho**2 / 2) / V,
+                          (4 * (1 - rho**2 / 2) + rho * 2 + 1 * rho**2 / 2) / V])
+    exact = linear_gaussian_shapley(beta, cov)
+    assert np.allclose(published, exact, atol=1e-12)
+    prob = Problem(players=["a", "b", "c"], groups=[0, 1, 2], corr=cov, model=lambda z: z @ beta)
+    r = shapley_core(prob, 8192, seed=3)
+    sh = np.array([r.indices[p]["Sh"] for p in "abc"])
+    se = np.array([r.indices[p]["Sh_se"] for p in "abc"])
+    assert np.all(np.abs(sh - exact) < 4 * se + 0.01), (sh, exact, se)
+    assert sh.sum() == pytest.approx(1.0, abs=0.03)  # efficiency
+    # full first-order index of input a (independent of the others): beta_a^2 / V (closed form)
+    assert r.indices["a"]["S1"] == pytest.approx(1 / V, abs=0.03)
+    assert r.ranking == ["c", "b", "a"]
+
+
+def test_shapley_equals_sobol_split_for_independent_product():
+    # With independent inputs Shapley effects lie between S1 and ST (Owen 2014, SIAM/ASA JUQ 2:245-251).
+    S1, ST = product_indices()
+    r = sensitivity(classic_study(), method="shapley", samples=4096, layer="typical", seed=5,
+                    evaluate=evaluate)
+    for p in S1:
+        assert S1[p] - 0.02 <= r.indices[p]["Sh"] <= ST[p] + 0.02, p
+
+
+def test_morris_levels_inside_and_linear_effects():
+    u = np.array([0.0, 1 / 3, 2 / 3, 1.0])
+    inside = morris_levels_inside(u, 4)
+    assert np.allclose(inside, [0.125, 0.375, 0.625, 0.875])
+    # y = sum c_i u_i on the unit cube: every elementary effect equals c_i exactly (closed form)
+    c = np.array([3.0, -1.0, 0.5])
+    prob2 = Problem(players=["a", "b", "c"], groups=[0, 1, 2], corr=np.eye(3),
+                    model=lambda z: stats.norm.cdf(z) @ c)
+    r = morris_core(prob2, 20, seed=1)
+    for p, ci in zip("abc", c, strict=True):
+        assert r.indices[p]["mu_star"] == pytest.approx(abs(ci), rel=1e-6)
+        assert r.indices[p]["mu"] == pytest.approx(ci, rel=1e-6)
+        assert r.indices[p]["sigma"] == pytest.approx(0.0, abs=1e-6)
+    assert r.ranking == ["a", "b", "c"]
+
+
+def test_given_data_index_matches_closed_forms():
+    rng = np.random.default_rng(1)
+    x = rng.uniform(-math.pi, math.pi, (20000, 3))
+    y = ishigami(*x.T)
+    S1, _ = ishigami_indices()
+    for j, p in enumerate(["x1", "x2", "x3"]):
+        s1, se = first_order_given_data(x[:, j], y)
+        assert abs(s1 - S1[p]) < 4 * se + 0.01, (p, s1, se)
+    # linear Gaussian, independent: S1_i = b_i^2 / sum b^2 (closed form)
+    z = rng.standard_normal((10000, 2))
+    s1, se = first_order_given_data(z[:, 0], 2 * z[:, 0] + z[:, 1])
+    assert abs(s1 - 0.8) < 4 * se and se < 0.02
+    with pytest.raises(InputError):
+        first_order_given_data(z[:5, 0], z[:5, 1])
+
+
+def test_warnings_and_ranking_flags():
+    ix = {"a": {"ST": 0.1, "ST_ci": [-0.2, 0.4]}, "b": {"ST": -0.2, "ST_ci": [-0.3, -0.1]},
+          "c": {"ST": 0.5, "ST_ci": [0.45, 0.55]}, "d": {"ST": 0.001, "ST_ci": [-0.004, 0.006]}}
+    w = _index_warnings(ix, ["ST"])
+    assert any("ST of a" in m and "wider" in m for m in w)
+    assert any("ST of b" in m and "negative" in m for m in w)
+    assert not any(" of c" in m or " of d" in m for m in w)
+
+
+def test_sobol_nan_runs_are_dropped_and_counted():
+    prob = _ishigami_problem()
+    base = prob.model
+    prob.model = lambda z: np.where(z[:, 0] > 2.0, np.nan, base(z))
+    r = sobol_core(prob, 1024, seed=1)
+    assert r.nan_draws > 0 and any("non-finite" in w for w in r.warnings)
+    assert all(np.isfinite(r.indices[p]["ST"]) for p in r.players)
+
+
+def test_bad_input_and_rounding():
+    s = classic_study()
+    with pytest.raises(InputError, match="no such output"):
+        sensitivity(s, output="Jw", evaluate=evaluate)
+    with pytest.raises(InputError):
+        sensitivity(s, method="sobol", samples=0, evaluate=evaluate)
+    with pytest.raises(InputError):
+        sensitivity(s, method="fast", evaluate=evaluate)
+    r = sensitivity(s, method="sobol", samples=1000, evaluate=evaluate)
+    assert r.samples == 1024 and any("power of two" in n for n in r.notes)
+    # individual layer: Kf and Pc carry between-subject columns, grouped with their typical column
+    assert r.players == s.names and r.layer == "individual"
+
+
+def test_result_tables_and_figures(tmp_path):
+    r = sensitivity(classic_study(), method="sobol", samples=512, evaluate=evaluate)
+    d = r.to_dict()
+    assert set(d) >= {"method", "output", "indices", "ranking"}
+    assert set(d["indices"]["Pc"]) >= {"S1", "S1_ci", "ST", "ST_ci"}
+    assert list(r.to_dataframe().index) == r.ranking
+    paths = r.plot(str(tmp_path))
+    assert sum(p.endswith(".png") for p in paths) == 2 and sum(p.endswith(".svg") for p in paths) == 2
