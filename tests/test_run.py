@@ -1,0 +1,241 @@
+"""Whole-study runner and bundle, against light stand-ins (tests/run_fakes.py): atomic bundle, schema,
+reuse of unchanged sections, --force, quality gate, crashes, interruption by SIGINT / SIGKILL."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pandas as pd
+import pytest
+import run_fakes
+
+from uncertainty import bundle as bundle_mod
+from uncertainty import run as run_mod
+from uncertainty.errors import FluidshiftError, InputError, QualityGateError, StudyError
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+
+
+@pytest.fixture
+def fakes(monkeypatch):
+    monkeypatch.setattr(run_mod, "LOADER", run_fakes.load_fake)
+    monkeypatch.setattr(run_mod, "ANALYSES", {**run_mod.ANALYSES, "propagate": run_fakes.fake_propagate,
+                                              "sensitivity": run_fakes.fake_sensitivity,
+                                              "design": run_fakes.fake_design, "rank": run_fakes.fake_rank})
+    run_fakes.CALLS.clear()
+    return run_fakes
+
+
+@pytest.fixture
+def study(tmp_path):
+    p = tmp_path / "study.toml"
+    p.write_text(run_fakes.STUDY_TEXT)
+    return p
+
+
+def assert_complete_files(out: Path) -> None:
+    """Every visible file in the bundle is whole: JSON parses, PNG ends with IEND, SVG closes, CSV reads."""
+    for p in out.rglob("*"):
+        if not p.is_file() or any(part.startswith(".") for part in p.relative_to(out).parts):
+            continue
+        data = p.read_bytes()
+        if p.suffix == ".json":
+            json.loads(data)
+        elif p.suffix == ".png":
+            assert data.startswith(b"\x89PNG") and data.rstrip().endswith(b"IEND\xaeB`\x82"), p
+        elif p.suffix == ".svg":
+            assert data.rstrip().endswith(b"</svg>"), p
+        elif p.suffix == ".csv":
+            pd.read_csv(p)
+        elif p.suffix == ".html":
+            assert data.rstrip().endswith(b"</html>"), p
+
+
+def test_run_writes_valid_bundle(fakes, study, tmp_path):
+    out = tmp_path / "out"
+    res = run_mod.run(study, out, progress=False)
+    doc = bundle_mod.read_results(out)  # validated against the schema on read
+    assert doc["complete"] is True
+    assert list(doc["sections"]) == ["check", "propagate", "sensitivity", "design"]  # run order, absent rank/infer
+    assert fakes.CALLS == ["propagate", "sensitivity", "design"]
+    assert doc["provenance"]["study_hash"] == res.doc["study"]["hash"]
+    assert doc["provenance"]["seed"] == 7
+    assert doc["provenance"]["dependencies"]["numpy"]
+    assert doc["provenance"]["finished"] >= doc["provenance"]["started"]
+    for rec in doc["sections"].values():
+        for f in rec["files"]:
+            assert bundle_mod.sha256_file(out / f["path"]) == f["sha256"]
+    kinds = {f["path"] for r in doc["sections"].values() for f in r["files"]}
+    assert {"figures/propagate_figure.png", "figures/propagate_figure.svg", "tables/propagate.csv"} <= kinds
+    assert (out / "report.html").is_file()
+    assert not (out / ".partial").exists()
+    assert_complete_files(out)
+    assert res.passed and res.summary == doc["summary"]
+    assert any("Jv, individual" in line for line in doc["summary"])
+
+
+def test_schema_rejects_bad_documents(fakes, study, tmp_path):
+    out = tmp_path / "out"
+    run_mod.run(study, out, progress=False)
+    doc = json.loads((out / "results.json").read_text())
+    bad = json.loads(json.dumps(doc))
+    bad["sections"]["propagate"]["status"] = "finished-ish"
+    with pytest.raises(InputError, match="status"):
+        bundle_mod.validate(bad)
+    bad = json.loads(json.dumps(doc))
+    del bad["provenance"]["seed"]
+    with pytest.raises(InputError):
+        bundle_mod.validate(bad)
+    (out / "results.json").write_text('{"schema": "fluidshift-results/1"')  # truncated
+    with pytest.raises(InputError, match="not valid JSON"):
+        bundle_mod.read_results(out)
+    schema = bundle_mod.results_schema()
+    assert "sections" in schema["properties"] and "provenance" in schema["properties"]
+
+
+def test_rerun_reuses_unchanged_sections_and_force_recomputes(fakes, study, tmp_path):
+    out = tmp_path / "out"
+    run_mod.run(study, out, progress=False)
+    fakes.CALLS.clear()
+    res = run_mod.run(study, out, progress=False)
+    assert fakes.CALLS == []
+    assert all(r["reused"] for n, r in res.doc["sections"].items() if n != "check")
+    # editing one section recomputes that section only
+    study.write_text(run_fakes.STUDY_TEXT.replace("n_range = [10, 100]", "n_range = [10, 120]"))
+    res = run_mod.run(study, out, progress=False)
+    assert fakes.CALLS == ["design"]
+    # a new seed recomputes every section
+    fakes.CALLS.clear()
+    run_mod.run(study, out, progress=False, seed=8)
+    assert fakes.CALLS == ["propagate", "sensitivity", "design"]
+    fakes.CALLS.clear()
+    run_mod.run(study, out, progress=False, seed=8, force=True)
+    assert fakes.CALLS == ["propagate", "sensitivity", "design"]
+    # a damaged figure makes its section recompute
+    fakes.CALLS.clear()
+    (out / "figures" / "sensitivity_figure.png").write_bytes(b"junk")
+    run_mod.run(study, out, progress=False, seed=8)
+    assert fakes.CALLS == ["sensitivity"]
+
+
+def test_same_seed_same_numbers(fakes, study, tmp_path):
+    a = run_mod.run(study, tmp_path / "a", progress=False).doc
+    b = run_mod.run(study, tmp_path / "b", progress=False).doc
+    assert {n: r["result"] for n, r in a["sections"].items()} == {n: r["result"] for n, r in b["sections"].items()}
+    c = run_mod.run(study, tmp_path / "c", progress=False, seed=99).doc
+    assert c["sections"]["propagate"]["result"] != a["sections"]["propagate"]["result"]
+
+
+def test_quality_gate_flags_but_writes_bundle(fakes, study, tmp_path):
+    study.write_text(run_fakes.STUDY_TEXT + "fail_gate = true\n")
+    out = tmp_path / "out"
+    with pytest.raises(QualityGateError) as info:
+        run_mod.run(study, out, progress=False)
+    assert info.value.exit_code == 3
+    doc = bundle_mod.read_results(out)
+    assert doc["complete"] and doc["quality_gate"] == {"passed": False, "failed": ["design"], "errors": []}
+    assert doc["sections"]["design"]["result"]["n_per_arm"] == 42
+    assert "Quality gate failed" in (out / "report.html").read_text()
+    assert info.value.result.doc["sections"]["design"]["status"] == "gate_failed"
+
+
+def test_crashing_section_keeps_the_others(fakes, study, tmp_path):
+    study.write_text(run_fakes.STUDY_TEXT + "\n[rank]\ncrash = true\n")
+    out = tmp_path / "out"
+    with pytest.raises(FluidshiftError, match="fake crash") as info:
+        run_mod.run(study, out, progress=False)
+    assert info.value.exit_code == 1
+    doc = bundle_mod.read_results(out)
+    assert doc["sections"]["rank"]["status"] == "error"
+    assert doc["sections"]["design"]["status"] == "done"  # after the crash, still run
+
+
+def test_bad_study_writes_nothing(fakes, tmp_path):
+    p = tmp_path / "bad.toml"
+    p.write_text('[study]\nseed = "seven"\n')
+    with pytest.raises(StudyError) as info:
+        run_mod.run(p, tmp_path / "out", progress=False)
+    assert info.value.exit_code == 2 and info.value.key == "study.seed"
+    assert not (tmp_path / "out").exists()
+
+
+def test_output_path_that_is_a_file(fakes, study, tmp_path):
+    f = tmp_path / "afile"
+    f.write_text("x")
+    with pytest.raises(InputError):
+        run_mod.run(study, f, progress=False)
+
+
+def test_removed_section_files_are_deleted(fakes, study, tmp_path):
+    out = tmp_path / "out"
+    run_mod.run(study, out, progress=False)
+    assert (out / "figures" / "design_figure.png").exists()
+    study.write_text(run_fakes.STUDY_TEXT.split("[design]")[0])
+    run_mod.run(study, out, progress=False)
+    assert not (out / "figures" / "design_figure.png").exists()
+    assert "design" not in bundle_mod.read_results(out)["sections"]
+
+
+def _start(study: Path, out: Path, slow: float) -> subprocess.Popen:
+    env = {**os.environ, "FAKE_SLOW": str(slow), "PYTHONPATH": os.pathsep.join([str(HERE), str(ROOT)])}
+    return subprocess.Popen([sys.executable, str(HERE / "run_fakes.py"), str(study), str(out)], env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+
+
+def _wait_for_checkpoint(out: Path, proc: subprocess.Popen, sections: int, timeout: float = 60.0) -> None:
+    """Poll until results.json records at least ``sections`` sections (a condition, not a timing check)."""
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < timeout:
+        doc = bundle_mod.read_results(out, missing_ok=True)
+        if doc and len(doc["sections"]) >= sections:
+            return
+        assert proc.poll() is None, proc.communicate()
+        time.sleep(0.05)
+    raise AssertionError("the run never reached its checkpoint")
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGKILL], ids=["SIGINT", "SIGKILL"])
+def test_interrupted_run_leaves_whole_files_and_resumes(sig, study, tmp_path):
+    out = tmp_path / "out"
+    proc = _start(study, out, slow=1.0)
+    _wait_for_checkpoint(out, proc, sections=2)  # check + propagate done; sensitivity under way
+    time.sleep(1.3)  # into sensitivity's slow figure writing (1 s of work, then 1 s of SVG chunks)
+    proc.send_signal(sig)
+    proc.communicate(timeout=60)
+    assert proc.returncode != 0
+    assert_complete_files(out)
+    doc = bundle_mod.read_results(out)
+    assert doc["complete"] is False
+    assert "propagate" in doc["sections"]
+    if sig == signal.SIGINT:
+        assert not (out / ".partial").exists()  # temporary files removed on Ctrl-C
+    assert not (out / "report.html").exists()
+    # the next run finishes the study, reusing what was complete
+    proc = _start(study, out, slow=0.0)
+    proc.communicate(timeout=120)
+    assert proc.returncode == 0
+    doc = bundle_mod.read_results(out)
+    assert doc["complete"] is True
+    assert doc["sections"]["propagate"]["reused"] is True
+    assert set(doc["sections"]) == {"check", "propagate", "sensitivity", "design"}
+    assert not (out / ".partial").exists()
+    assert_complete_files(out)
+
+
+def test_atomic_write_leaves_old_file_on_failure(tmp_path):
+    b = bundle_mod.Bundle(tmp_path / "b").open()
+    b.write_text("tables/x.csv", "a\n1\n", "table")
+
+    with pytest.raises(TypeError):  # the write fails half-way (not bytes): the old file stays whole
+        b.write_bytes("tables/x.csv", 12345, "table")  # type: ignore[arg-type]
+    assert list((tmp_path / "b" / ".partial").iterdir()) == []  # its temporary file removed
+    assert (tmp_path / "b" / "tables" / "x.csv").read_text() == "a\n1\n"
+    b.close()
+    assert not (tmp_path / "b" / ".partial").exists()
