@@ -14,11 +14,11 @@ from __future__ import annotations
 
 from typing import Any
 
-__all__ = ["infer", "fit", "build_model", "problem_from_study", "Gate", "InferenceResult"]
+__all__ = ["infer", "fit", "Session", "build_model", "problem_from_study", "Gate", "InferenceResult"]
 
 
 def __getattr__(name: str) -> Any:
-    if name in ("infer", "fit"):
+    if name in ("infer", "fit", "Session"):
         from uncertainty.inference import api
 
         return getattr(api, name)

@@ -292,3 +292,57 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
     }
     return InferenceResult(doc=doc, idata=idata, built=built, prior_draws=prior,
                            new_subject_draws=new)
+
+
+class Session:
+    """A model built and compiled once, refitted to new readings in a loop (nutpie ``with_data``).
+
+    ``Session(study, observations)`` declares the model for the observation list given (or the
+    study's own); ``fit(observations=...)`` (records with the same kinds, order and sizes, e.g.
+    simulated trial readings) or ``fit(data={term: values})`` samples again without recompiling.
+    Used by simulation-based calibration and by trial simulation (``design --exact``).
+    """
+
+    def __init__(self, study: Any, observations: Sequence[Any] | None = None, *,
+                 sampler: str = "nutpie", model: str | None = None, gate: Any = None) -> None:
+        from uncertainty.inference.samplers import compile_model
+
+        self.problem = _problem(study, observations, model)
+        self.built = build_model(self.problem)
+        self.sampler = sampler
+        self.gate = Gate.coerce(gate)
+        self.compiled, self.compile_seconds = compile_model(self.built.model, sampler)
+
+    @property
+    def terms(self) -> list[str]:
+        """Names of the observed variables, in observation order."""
+        return [t.name for t in self.built.terms]
+
+    def data_from(self, observations: Sequence[Any]) -> dict[str, np.ndarray]:
+        """Data arrays (canonical units) for each term from study-form observation records."""
+        from uncertainty.inference.problem import normalise_observations
+
+        obs = normalise_observations(observations, file=self.problem.file, density=self.problem.density)
+        if len(obs) != len(self.problem.observations):
+            raise InputError("a refit needs as many observations as the session was built with",
+                             key="observations", value=len(obs))
+        data = {}
+        for term in self.built.terms:
+            new = obs[term.observation.index]
+            data[f"{term.name}__data"] = np.asarray(new.value, dtype=float)
+        return data
+
+    def fit(self, *, observations: Sequence[Any] | None = None, data: dict[str, Any] | None = None,
+            seed: int | None = None, chains: int = 4, draws: int = 1000, tune: int = 1000,
+            summarise_result: bool = True) -> Any:
+        """Sample with new readings; returns an InferenceResult (or the raw SampleRun)."""
+        if observations is not None:
+            data = self.data_from(observations)
+        elif data is not None:
+            data = {(k if k.endswith("__data") else f"{k}__data"): np.asarray(v, dtype=float)
+                    for k, v in data.items()}
+        run = sample(self.built.model, sampler=self.sampler, chains=chains, draws=draws, tune=tune,
+                     seed=seed, compiled=self.compiled, data=data)
+        if not summarise_result:
+            return run
+        return summarise_run(self.built, run, self.gate, seed=seed)

@@ -1,0 +1,96 @@
+"""Inference pieces that need no sampling: validation, summaries, diagnostics and the gate."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from inference_helpers import lognormal, normal, problem
+
+from uncertainty.errors import InputError
+from uncertainty.inference.diagnostics import Gate, diagnose
+from uncertainty.inference.model_builder import build_model
+from uncertainty.inference.result import summarise
+
+
+def test_summarise_matches_numpy_and_arviz_hdi():
+    import arviz as az
+
+    x = np.random.default_rng(3).gamma(2.0, 1.0, size=20000)
+    s = summarise(x)
+    assert s["mean"] == pytest.approx(x.mean())
+    assert s["ci95"] == pytest.approx(list(np.quantile(x, [0.025, 0.975])))
+    # highest-density interval of a skewed sample: ArviZ's shortest-interval algorithm
+    assert s["hdi95"] == pytest.approx(list(az.hdi(x, hdi_prob=0.95)), rel=1e-3)
+    # for a right-skewed gamma the HDI sits left of the equal-tailed interval (closed-form fact)
+    assert s["hdi95"][0] < s["ci95"][0] and s["hdi95"][1] < s["ci95"][1]
+
+
+def _idata(chains):
+    import arviz as az
+
+    return az.from_dict(posterior={"Pc": np.asarray(chains)},
+                        sample_stats={"diverging": np.zeros(np.shape(chains), dtype=bool)})
+
+
+def test_gate_names_a_quantity_whose_chains_disagree():
+    rng = np.random.default_rng(0)
+    good = rng.standard_normal((4, 500))
+    bad = good + np.array([[0.0], [0.0], [0.0], [3.0]])  # one chain stuck elsewhere
+    d_good = diagnose(_idata(good), ["Pc"], Gate())
+    d_bad = diagnose(_idata(bad), ["Pc"], Gate())
+    assert d_good["passed"] and d_good["r_hat_max"] < 1.01
+    assert not d_bad["passed"]
+    assert d_bad["r_hat_max"] > 1.1
+    assert any(f.startswith("Pc") for f in d_bad["failing"])
+
+
+def test_gate_thresholds_are_configurable_and_divergences_fail():
+    import arviz as az
+
+    rng = np.random.default_rng(1)
+    x = rng.standard_normal((4, 500))
+    div = np.zeros((4, 500), dtype=bool)
+    div[0, :3] = True
+    idata = az.from_dict(posterior={"Pc": x}, sample_stats={"diverging": div})
+    assert not diagnose(idata, ["Pc"], Gate())["passed"]
+    assert diagnose(idata, ["Pc"], Gate.coerce({"divergences_max": 5}))["passed"]
+    assert not diagnose(idata, ["Pc"], Gate.coerce({"divergences_max": 5, "ess_bulk_min": 1e6}))["passed"]
+
+
+@pytest.mark.parametrize("obs, key", [
+    ({"kind": "measurement", "parameter": "Pz", "value": 20, "sd": 1}, "observations[0].parameter"),
+    ({"kind": "measurement", "parameter": "Pc", "value": 20, "sd": 0}, "observations[0].sd"),
+    ({"kind": "lymph_flow", "value": 0.002, "sd": -1}, "observations[0].sd"),
+    ({"kind": "lymph_flow", "value": -0.002, "cv": 0.2}, "observations[0].value"),
+    ({"kind": "lymph_flow", "value": 0.002}, "observations[0].sd"),
+    ({"kind": "measurement", "parameter": "Pi", "value": -1, "sd": 1}, "observations[0].parameter"),
+    ({"kind": "tissue_weight", "value": 1.0, "sd": 1}, "observations[0].kind"),
+    ({"kind": "clearance_rate", "value": 0.01, "cv": 0.2}, "observations[0].volume"),
+    ({"kind": "protein_ratio", "value": 0.5, "sd": 0.05}, "observations[0].kind"),
+])
+def test_bad_observations_name_file_key_and_value(obs, key):
+    with pytest.raises(InputError) as err:
+        build_model(problem({"Pc": normal("Pc", 20, 3)}, [obs]))
+    assert err.value.key == key
+    assert err.value.file == "stand-in.toml"
+
+
+def test_hierarchical_model_is_non_centred_with_subject_dims():
+    kf = lognormal("Kf", 0.004, 1.3, between_subject={"cv": 0.3})
+    obs = [{"kind": "lymph_flow", "value": 0.04, "cv": 0.1, "subject": s} for s in ("a", "b", "c")]
+    built = build_model(problem({"Kf": kf, "Pc": normal("Pc", 24, 2)}, obs))
+    assert built.hierarchical and built.subjects == ["a", "b", "c"]
+    free = {v.name for v in built.model.free_RVs}
+    # only standard-normal scores are free: the model is non-centred
+    assert free == {"Kf__z", "Pc__z", "Kf__spread_z", "Kf__subject_z"}
+    assert built.model.named_vars_to_dims["Kf__subject"] == ("subject",)
+
+
+def test_subject_labels_everywhere_or_nowhere():
+    kf = lognormal("Kf", 0.004, 1.3, between_subject={"cv": 0.3})
+    obs = [{"kind": "lymph_flow", "value": 0.04, "cv": 0.1, "subject": "a"},
+           {"kind": "lymph_flow", "value": 0.04, "cv": 0.1, "subject": "b"},
+           {"kind": "lymph_flow", "value": 0.04, "cv": 0.1}]
+    with pytest.raises(InputError) as err:
+        build_model(problem({"Kf": kf}, obs))
+    assert err.value.key == "observations[2].subject"
