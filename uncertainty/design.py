@@ -89,6 +89,8 @@ class DesignSpec:
     target_half_width: float | None = None
     half_width_probability: float = 0.8
     file: str | None = None
+    prior_frozen: Any = None
+    scale_forced: str | None = None
 
     @property
     def analysis(self) -> str:
@@ -99,7 +101,9 @@ class DesignSpec:
 
     @property
     def scale(self) -> str:
-        """``log`` for a ratio effect, ``natural`` for a shift."""
+        """``log`` for a ratio effect, ``natural`` for a shift (or when the endpoint can be <= 0)."""
+        if self.scale_forced:
+            return self.scale_forced
         return "log" if self.effects[0].kind == "multiply" else "natural"
 
     @property
@@ -109,6 +113,8 @@ class DesignSpec:
 
     def design_prior_frozen(self) -> Any:
         """The design prior as a scipy frozen distribution (over the analysis-scale effect)."""
+        if self.prior_frozen is not None:
+            return self.prior_frozen
         if self.design_prior is None:
             return None
         p = self.design_prior
@@ -134,7 +140,9 @@ def _section_dict(section: Any) -> dict[str, Any]:
 
 def _spread(value: Any, file: str | None, key: str) -> dict[str, float]:
     if hasattr(value, "model_dump"):
-        value = {k: v for k, v in value.model_dump().items() if v is not None}
+        value = value.model_dump()
+    if isinstance(value, dict):
+        value = {k: v for k, v in value.items() if v is not None}
     if not isinstance(value, dict) or len(value) != 1 or next(iter(value)) not in ("sd", "cv"):
         raise InputError("a spread is { sd = .. } or { cv = .. }", file=file, key=key, value=value)
     kind, v = next(iter(value.items()))
@@ -177,10 +185,12 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
 
     nr = doc.get("n_range", [5, 200])
     if (not isinstance(nr, list | tuple) or len(nr) != 2 or not all(isinstance(v, int) for v in nr)
-            or nr[0] < 3 or nr[1] < nr[0]):
-        raise InputError("n_range must be [low, high] integers with 3 <= low <= high", file=file,
+            or nr[0] < 2 or nr[1] < nr[0]):
+        raise InputError("n_range must be [low, high] integers with 2 <= low <= high", file=file,
                          key="design.n_range", value=list(nr) if isinstance(nr, list | tuple) else nr)
     spec.n_range = (int(nr[0]), int(nr[1]))
+    if "simulations" in doc and "trials" not in doc:
+        doc["trials"] = doc["simulations"]
     for key in ("n_points", "trials", "exact_trials"):
         if key in doc:
             v = doc[key]
@@ -203,13 +213,13 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
 
     # effects
     raw = doc.get("effect")
-    raws = raw if isinstance(raw, list) else [raw]
+    raws = (raw if isinstance(raw, list) else [raw]) + list(doc.get("extra_effects") or [])
     if raw is None:
         raise InputError("an effect is required, e.g. { parameter = \"Kf\", multiply = 0.7 }", file=file,
                          key="design.effect")
     for i, e in enumerate(raws):
         e = _section_dict(e)
-        key = "design.effect" if not isinstance(raw, list) else f"design.effect[{i}]"
+        key = "design.effect" if i == 0 and not isinstance(raw, list) else f"design.effect[{i}]"
         par = e.get("parameter")
         if par not in priors:
             raise InputError("effect on an unknown quantity", file=file, key=f"{key}.parameter", value=par)
@@ -242,9 +252,14 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
         raise InputError("a paired design needs within_subject (test-retest) variability", file=file,
                          key="design.within_subject", value=None)
 
+    sec_obj = section if section is not None else getattr(study, "design", None)
+    obj = getattr(sec_obj, "design_prior_obj", None)
+    if obj is not None:
+        spec.prior_frozen = obj.frozen()
+        spec.design_prior = {"dist": obj.dist, **obj.params}
     for name in ("design_prior", "analysis_prior"):
         p = _section_dict(doc.get(name))
-        if not p:
+        if not p or (name == "design_prior" and spec.prior_frozen is not None):
             continue
         dist = p.get("dist", "normal")
         need = {"normal": ("mean", "sd"), "truncnormal": ("mean", "sd", "lower", "upper"),
@@ -653,6 +668,13 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
     # analytic figures
     sd, sd_method = analytic_sd(study, spec)
     effect = spec.effects[0].analysis_value()
+    if sd is None and spec.scale == "log":
+        spec.scale_forced = "natural"
+        probe = simulate_trials(study, spec, 500, 4, np.random.default_rng(seed + 104729))
+        if all(np.all(v > 0) for v in probe.values()):
+            spec.scale_forced = None
+        else:
+            notes.append(f"{spec.endpoint} takes values <= 0 in this population: analysed on the natural scale")
     if sd is None:
         sd, effect = pilot_sd(study, spec, seed + 7919)
         sd_method = "normal approximation from a simulated pilot of 4000 subjects per arm"
