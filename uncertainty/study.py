@@ -179,6 +179,13 @@ class Observation(BaseModel):
     steps: list[StepSpec] | None = None
     note: str = ""
     declared_unit: str | None = None
+    # inference extras (uncertainty/inference/observations/*): a distribution-volume prior for
+    # clearance_rate, a lymph-flow prior for swelling_rate, quantities given a group effect,
+    # and where lymph was collected for lymph_flow
+    volume: Any = None
+    lymph: Any = None
+    effects: list[str] | None = None
+    site: Literal["pre_nodal", "post_nodal"] | None = None
     _data: dict[str, list] | None = PrivateAttr(default=None)
     _path: Path | None = PrivateAttr(default=None)
 
