@@ -46,7 +46,6 @@ def test_name_calls_the_library_function(name):
 def test_submodule_import_does_not_shadow_the_function(monkeypatch):
     import uncertainty
     import uncertainty.run  # the import system sets the package attribute `run` to the module
-
     from uncertainty.run import RunResult  # and `from module import name` still works
 
     assert uncertainty.run.RunResult is RunResult  # module attributes pass through
