@@ -1,0 +1,453 @@
+"""Value of information: which measurement would narrow the Jv interval most.
+
+For a candidate reading X of a quantity theta (noise sd or cv, an optional bias prior, ``n``
+repeated readings averaged), the expected posterior variance of the output Y (Jv) after the
+reading is E_X[Var(Y | X)] = Var(Y) - Var(E[Y | X]). Two estimators over one set of draws
+(theta, Y) from the prior:
+
+- ``regression`` (Strong, Oakley, Brennan & Breeze 2015, Med Decis Making 35:570-583): simulate
+  one reading per draw and regress Y on the reading(s) with a penalised cubic B-spline basis
+  (additive terms plus pairwise tensor products for several readings; smoothing chosen by GCV).
+  E[Var(Y|X)] is the residual mean square (corrected for the fitted degrees of freedom).
+- ``importance`` (likelihood reweighting of the draws for J simulated readings): unbiased and
+  simple, but its effective sample size collapses when the noise is much smaller than the prior
+  sd of theta; ``auto`` uses it only where the noise is at least the prior sd and the likelihood
+  is closed form (no bias, or a normal bias with an sd noise), else regression.
+
+The perfect-information bound is Var(Y) S1(theta) (the first-order index, given-data estimate).
+The expected 95% interval width after the reading is the 2.5-97.5% range of the residuals
+Y - E[Y|X] (a location-shift approximation of the posterior). Monte Carlo error: the standard
+deviation over independent blocks of the draws (each block a full estimate) divided by sqrt(blocks).
+``best_pair`` and ``best_set`` (within ``budget``) are fitted jointly on the candidates' joint
+readings, never by adding single reductions.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from uncertainty.errors import InputError
+
+_BLOCKS = 8
+
+
+@dataclass(frozen=True)
+class Reading:
+    """A candidate measurement: ``parameter`` read with noise ``sd`` (additive) or ``cv`` (lognormal).
+
+    ``bias``: a scipy-frozen-like object with ``ppf`` (canonical unit, additive) or None;
+    ``n``: readings averaged (noise shrinks by sqrt(n), the bias does not); ``cost`` relative.
+    """
+
+    name: str
+    parameter: str
+    sd: float | None = None
+    cv: float | None = None
+    bias: Any = None
+    cost: float = 1.0
+    n: int = 1
+
+    def simulate(self, theta: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+        """One simulated (averaged) reading per value of ``theta`` (canonical unit)."""
+        z = rng.standard_normal(theta.shape)
+        if self.sd is not None:
+            x = theta + self.sd / math.sqrt(self.n) * z
+        else:
+            s = math.sqrt(math.log1p(self.cv**2)) / math.sqrt(self.n)
+            x = theta * np.exp(s * z)
+        if self.bias is not None:
+            x = x + self.bias.ppf(rng.uniform(size=theta.shape))
+        return x
+
+
+# --------------------------------------------------------------------------------------------
+# regression (nonparametric, GCV-penalised B-splines)
+
+
+def _bspline_block(x: np.ndarray, interior: int) -> np.ndarray:
+    from scipy.interpolate import BSpline
+
+    k = 3
+    lo, hi = float(np.min(x)), float(np.max(x))
+    if hi <= lo:
+        return np.zeros((len(x), 0))
+    inner = np.quantile(x, np.linspace(0, 1, interior + 2)[1:-1]) if interior > 0 else np.array([])
+    inner = np.unique(inner[(inner > lo) & (inner < hi)])
+    t = np.concatenate([[lo] * (k + 1), inner, [hi] * (k + 1)])
+    xx = np.clip(x, lo, hi)
+    B = BSpline.design_matrix(xx, t, k).toarray()
+    return B[:, 1:]  # drop one column: the intercept is separate
+
+
+def _design_matrix(X: np.ndarray, interior: int) -> np.ndarray:
+    n, d = X.shape
+    z = (X - X.mean(axis=0)) / np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+    cols = [np.ones((n, 1))]
+    blocks = [_bspline_block(z[:, j], interior) for j in range(d)]
+    cols += blocks
+    if d > 1:
+        small = [_bspline_block(z[:, j], max(1, min(interior, 3))) for j in range(d)]
+        for a, b in itertools.combinations(range(d), 2):
+            cols.append((small[a][:, :, None] * small[b][:, None, :]).reshape(n, -1))
+    return np.hstack(cols)
+
+
+def _ridge_path(A: np.ndarray, y: np.ndarray, lams: tuple[float, ...]) -> list[tuple[np.ndarray, float, float]]:
+    """Ridge fits of centred y on A for several penalties: [(fit, edf, lam)], one eigendecomposition."""
+    AtA = A.T @ A
+    evals, Q = np.linalg.eigh(AtA)
+    evals = np.clip(evals, 0.0, None)
+    qty = Q.T @ (A.T @ y)
+    AQ = A @ Q
+    scale = float(np.trace(AtA)) / AtA.shape[0]
+    out = []
+    for lam in lams:
+        d = 1.0 / (evals + lam * scale)
+        out.append((AQ @ (d * qty), float(np.sum(evals * d)), lam))
+    return out
+
+
+_LAMS = (1e-8, 1e-5, 1e-3, 1e-1)
+
+
+def regression_fit(X: np.ndarray, y: np.ndarray, choice: tuple[int, float] | None = None
+                   ) -> tuple[np.ndarray, float, tuple[int, float]]:
+    """Fitted E[y | X] at the draws, its effective degrees of freedom and the (knots, penalty) used.
+
+    X: (n, d) readings, y: (n,) outputs (any units). Spline blocks per column and pairwise tensor
+    products; the penalty is a ridge on the coefficients, chosen with the number of knots by
+    generalised cross-validation, GCV = n RSS / (n - edf)^2, unless ``choice`` fixes both.
+    """
+    X = np.asarray(X, dtype=float)
+    if X.ndim == 1:
+        X = X[:, None]
+    n = len(y)
+    ym = float(np.mean(y))
+    yc = y - ym
+    max_knots = max(1, min(10, n // 300))
+    if choice is not None:
+        grid = [(min(choice[0], max_knots), (choice[1],))]
+    else:
+        knots = (2, 5, 9) if X.shape[1] == 1 else (3, 6)
+        grid = [(k, _LAMS) for k in sorted({min(k, max_knots) for k in knots})]
+    best = None
+    for interior, lams in grid:
+        A = _design_matrix(X, interior)
+        for fit, edf, lam in _ridge_path(A, yc, lams):
+            rss = float(np.sum((yc - fit) ** 2))
+            gcv = n * rss / max(n - edf - 1, 1.0) ** 2
+            if best is None or gcv < best[0]:
+                best = (gcv, fit + ym, edf + 1, (interior, lam))
+    return best[1], best[2], best[3]
+
+
+def _regression_figures(X: np.ndarray, y: np.ndarray, choice: tuple[int, float] | None = None
+                        ) -> tuple[float, float, tuple[int, float]]:
+    fit, edf, choice = regression_fit(X, y, choice)
+    resid = y - fit
+    n = len(y)
+    var_post = float(np.sum(resid**2) / max(n - edf, 1.0))
+    lo, hi = np.quantile(resid, [0.025, 0.975])
+    return var_post, float(hi - lo), choice
+
+
+# --------------------------------------------------------------------------------------------
+# importance reweighting
+
+
+def _loglik(reading: Reading, x: np.ndarray, theta: np.ndarray) -> np.ndarray:
+    """log p(x_j | theta_i), (J, n); closed form for sd noise (+ normal bias) and cv noise."""
+    if reading.sd is not None:
+        s2 = reading.sd**2 / reading.n
+        m = 0.0
+        if reading.bias is not None:
+            m, sb = float(reading.bias.mean()), float(reading.bias.std())
+            s2 = s2 + sb**2
+        return -0.5 * (x[:, None] - theta[None, :] - m) ** 2 / s2
+    s = math.sqrt(math.log1p(reading.cv**2)) / math.sqrt(reading.n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return -0.5 * (np.log(x)[:, None] - np.log(theta)[None, :]) ** 2 / s**2
+
+
+def importance_figures(reading: Reading, theta: np.ndarray, y: np.ndarray, rng: np.random.Generator,
+                       outer: int = 400) -> tuple[float, float, float, float]:
+    """(E[Var(Y|X)], MC se of the reduction, expected 95% width, smallest effective-sample fraction).
+
+    Reweighting the draws by the likelihood of ``outer`` simulated readings.
+    """
+    idx = rng.choice(len(theta), size=outer, replace=False)
+    x = reading.simulate(theta[idx], rng)
+    ll = _loglik(reading, x, theta)
+    w = np.exp(ll - ll.max(axis=1, keepdims=True))
+    w /= w.sum(axis=1, keepdims=True)
+    mean = w @ y
+    ess = 1.0 / np.sum(w**2, axis=1)
+    order = np.argsort(y)
+    cw = np.cumsum(w[:, order], axis=1)
+    lo = y[order][np.argmax(cw >= 0.025, axis=1)]
+    hi = y[order][np.argmax(cw >= 0.975, axis=1)]
+    # Var(E[Y|X]) from the spread of the posterior means (their mean is E[Y]): the reduction, and its se
+    explained = (mean - np.mean(y)) ** 2
+    red = float(explained.mean())
+    return (float(np.var(y, ddof=1)) - red, float(explained.std(ddof=1) / math.sqrt(outer)),
+            float(np.mean(hi - lo)), float(ess.min() / len(theta)))
+
+
+def choose_method(reading: Reading, theta: np.ndarray) -> str:
+    """``importance`` where the noise is at least the prior sd and the likelihood is closed form."""
+    prior_sd = float(np.std(theta))
+    if reading.sd is not None:
+        noise = reading.sd / math.sqrt(reading.n)
+        closed = reading.bias is None or getattr(getattr(reading.bias, "dist", None), "name", "") == "norm"
+    else:
+        noise = math.sqrt(math.log1p(reading.cv**2)) / math.sqrt(reading.n) * float(np.median(np.abs(theta)))
+        closed = reading.bias is None and bool(np.all(theta > 0))
+    return "importance" if closed and noise >= prior_sd else "regression"
+
+
+# --------------------------------------------------------------------------------------------
+# figures for one candidate or one set
+
+
+def _blocks(n: int, rng: np.random.Generator, blocks: int = _BLOCKS) -> list[np.ndarray]:
+    return np.array_split(rng.permutation(n), blocks)
+
+
+def evaluate_set(readings: np.ndarray, y: np.ndarray, rng: np.random.Generator | None) -> dict[str, float]:
+    """Expected posterior variance / 95% width of Y given joint readings (n, k), with block MC errors.
+
+    The blocks reuse the full fit's knots and penalty; ``mc_se`` is the error of the expected
+    variance reduction (block reductions: block variance of Y minus block residual variance).
+    """
+    var_post, width, choice = _regression_figures(readings, y)
+    if rng is None:  # no Monte Carlo error wanted (searching over sets)
+        return {"expected_var_post": var_post, "expected_ci95_width": width}
+    reps = []
+    for b in _blocks(len(y), rng):
+        v, w, _ = _regression_figures(readings[b], y[b], choice)
+        reps.append((v, w, float(np.var(y[b], ddof=1)) - v))
+    v = np.array([r[0] for r in reps])
+    wd = np.array([r[1] for r in reps])
+    red = np.array([r[2] for r in reps])
+    k = math.sqrt(len(reps))
+    return {"expected_var_post": var_post, "expected_ci95_width": width,
+            "mc_se": float(red.std(ddof=1) / k), "var_post_mc_se": float(v.std(ddof=1) / k),
+            "ci95_width_mc_se": float(wd.std(ddof=1) / k)}
+
+
+def perfect_information(theta: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """(S1, se): first-order index of theta for y from the draws (given-data estimate)."""
+    try:
+        from uncertainty.sensitivity import first_order_given_data
+
+        s1, se = first_order_given_data(theta, y)
+        return float(s1), float(se)
+    except ImportError:  # pragma: no cover - sensitivity.py is part of the package
+        fit, _, _ = regression_fit(theta, y)
+        return float(np.var(fit) / np.var(y)), float("nan")
+
+
+def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Reading], *,
+               seed: int = 0, budget: float | None = None, method: str = "auto",
+               max_set_size: int = 6) -> dict[str, Any]:
+    """Rank candidate readings on draws ``values`` (name -> array) of the inputs and ``y`` (output).
+
+    Returns the ``rank`` JSON (DESIGN.md section 5): ``candidates`` sorted by expected variance
+    reduction, ``prior`` figures, ``best_pair`` and ``best_set`` (joint fits). Units: those of y
+    (variances in y's unit squared); ``per_cost`` is the 95% interval narrowing per unit cost.
+    """
+    rng = np.random.default_rng(seed)
+    y = np.asarray(y, dtype=float)
+    ok = np.isfinite(y)
+    y = y[ok]
+    var_y = float(np.var(y, ddof=1))
+    lo, hi = np.quantile(y, [0.025, 0.975])
+    prior_width = float(hi - lo)
+    # one simulated reading per draw and candidate: shared by singles, pairs and sets
+    reads: dict[str, np.ndarray] = {}
+    rows = []
+    for c in candidates:
+        if c.parameter not in values:
+            raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
+                             value=c.parameter)
+        theta = np.asarray(values[c.parameter], dtype=float)[ok]
+        reads[c.name] = c.simulate(theta, rng)
+        m = choose_method(c, theta) if method == "auto" else method
+        fig = evaluate_set(reads[c.name][:, None], y, rng) if m == "regression" else None
+        if m == "importance":
+            v, se, width, ess = importance_figures(c, theta, y, rng)
+            if ess * len(theta) < 50:  # too few effective draws: fall back
+                m, fig = "regression", evaluate_set(reads[c.name][:, None], y, rng)
+            else:
+                fig = {"expected_var_post": v, "expected_ci95_width": width, "mc_se": se}
+        s1, s1_se = perfect_information(theta, y)
+        row = {
+            "name": c.name, "parameter": c.parameter, "cost": c.cost,
+            "expected_var_post": fig["expected_var_post"],
+            "expected_variance_reduction": var_y - fig["expected_var_post"],
+            "expected_ci95_width": fig["expected_ci95_width"],
+            "ci95_narrowing": prior_width - fig["expected_ci95_width"],
+            "perfect_information_bound": var_y * s1,
+            "perfect_information_S1": s1,
+            "per_cost": (prior_width - fig["expected_ci95_width"]) / c.cost,
+            "mc_se": fig["mc_se"],
+            "perfect_information_mc_se": var_y * s1_se,
+            "method": m,
+        }
+        rows.append(row)
+    rows.sort(key=lambda r: -r["expected_variance_reduction"])
+
+    def joint(names: tuple[str, ...], with_se: bool = False) -> dict[str, Any]:
+        X = np.column_stack([reads[n] for n in names])
+        fig = evaluate_set(X, y, rng if with_se else None)
+        cost = sum(c.cost for c in candidates if c.name in names)
+        return {"names": list(names), "cost": cost, "expected_var_post": fig["expected_var_post"],
+                "expected_variance_reduction": var_y - fig["expected_var_post"],
+                "expected_ci95_width": fig["expected_ci95_width"], "mc_se": fig.get("mc_se")}
+
+    names = [c.name for c in candidates]
+    cost_of = {c.name: c.cost for c in candidates}
+    best_pair = None
+    if len(names) >= 2:
+        pairs = [joint(p) for p in itertools.combinations(names, 2)
+                 if budget is None or cost_of[p[0]] + cost_of[p[1]] <= budget + 1e-12]
+        best_pair = min(pairs, key=lambda r: r["expected_var_post"]) if pairs else None
+        if best_pair is not None:
+            best_pair = joint(tuple(best_pair["names"]), with_se=True)
+    best_set = None
+    if budget is not None:
+        affordable = [n for n in names if cost_of[n] <= budget + 1e-12]
+        subsets = [s for k in range(1, min(len(affordable), max_set_size) + 1)
+                   for s in itertools.combinations(affordable, k)
+                   if sum(cost_of[n] for n in s) <= budget + 1e-12]
+        if len(subsets) <= 64:
+            fits = [joint(s) for s in subsets]
+            best_set = min(fits, key=lambda r: r["expected_var_post"])
+            best_set["search"] = "exhaustive"
+        else:  # greedy forward selection, each step a joint fit
+            chosen: tuple[str, ...] = ()
+            best_set = None
+            while True:
+                spent = sum(cost_of[n] for n in chosen)
+                options = [n for n in affordable if n not in chosen and spent + cost_of[n] <= budget + 1e-12]
+                if not options or len(chosen) >= max_set_size:
+                    break
+                fits = [joint((*chosen, n)) for n in options]
+                step = min(fits, key=lambda r: r["expected_var_post"])
+                if best_set is not None and step["expected_var_post"] >= best_set["expected_var_post"]:
+                    break
+                best_set, chosen = step, tuple(step["names"])
+            if best_set is not None:
+                best_set["search"] = "greedy"
+        if best_set is not None:
+            search = best_set["search"]
+            best_set = joint(tuple(best_set["names"]), with_se=True)
+            best_set["search"], best_set["budget"] = search, budget
+    return {"prior": {"var": var_y, "ci95_width": prior_width, "draws": int(len(y))},
+            "candidates": rows, "best_pair": best_pair, "best_set": best_set}
+
+
+# --------------------------------------------------------------------------------------------
+# on a study
+
+
+def candidates_of(study: Any) -> list[Reading]:
+    """The study's ``[rank]`` candidates, or the instruments that apply to its tissue.
+
+    Instruments (priors/instruments.toml) apply when their ``tissues`` include the study's tissue
+    (or list none) and they read an uncertain input of the study. Bias priors come from the
+    instrument a candidate names.
+    """
+    from uncertainty.priors import load_instruments
+
+    file = str(getattr(study, "path", None) or "") or None
+    section = getattr(study, "rank", None)
+    given = list(getattr(section, "candidates", []) or [])
+    instruments = load_instruments()
+    names = set(getattr(study, "names", []))
+    out = []
+    if given:
+        for c in given:
+            inst = instruments.get(c.instrument) if getattr(c, "instrument", None) else None
+            bias = inst.bias.frozen() if inst is not None and inst.bias is not None else None
+            out.append(Reading(c.name, c.parameter, sd=c.sd, cv=c.cv if c.sd is None else None, bias=bias,
+                               cost=float(c.cost), n=int(getattr(c, "n", 1) or 1)))
+    else:
+        tissue = getattr(study, "tissue", None)
+        for key, inst in instruments.items():
+            if inst.tissues and tissue not in inst.tissues:
+                continue
+            if inst.measures not in names:
+                continue
+            bias = inst.bias.frozen() if inst.bias is not None else None
+            out.append(Reading(key, inst.measures, sd=inst.sd, cv=inst.cv if inst.sd is None else None,
+                               bias=bias, cost=float(inst.cost)))
+    if not out:
+        raise InputError("no candidate measurements: give [rank] candidates, or no instrument applies to the tissue",
+                         file=file, key="rank.candidates", value=getattr(study, "tissue", None))
+    for i, c in enumerate(out):
+        if c.parameter not in names:
+            raise InputError("a candidate must read an uncertain input of the study", file=file,
+                             key=f"rank.candidates[{i}].parameter", value=c.parameter)
+    budget = getattr(section, "budget", None)
+    if budget is not None:
+        cheapest = min(c.cost for c in out)
+        if budget < cheapest:
+            raise InputError(f"budget is below the cheapest candidate (cost {cheapest:g})", file=file,
+                             key="rank.budget", value=budget)
+    return out
+
+
+@dataclass
+class RankResult:
+    """Result of :func:`rank`: the JSON of DESIGN.md section 5."""
+
+    doc: dict[str, Any]
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON document (variances in the output's unit squared, widths in its unit)."""
+        return self.doc
+
+    def to_dataframe(self) -> Any:
+        """One row per single candidate."""
+        import pandas as pd
+
+        return pd.DataFrame(self.doc["candidates"])
+
+    def plot(self, out_dir: str) -> list[str]:
+        """Bar chart of expected interval narrowing per candidate (and its bound) in ``out_dir``."""
+        from uncertainty.figures.rank import plot_rank
+
+        return plot_rank(self.doc, out_dir)
+
+
+def rank(study: Any, seed: int | None = None, samples: int | None = None, method: str = "auto") -> RankResult:
+    """Rank candidate measurements for the study's output (``[rank] output``, default Jv).
+
+    Draws come from the prior (individual layer: a reading measures this individual's value).
+    ``samples``: draws (default ``[rank] samples`` or 4096, at least 4096 for the regression).
+    """
+    from uncertainty import model, sampling
+
+    section = getattr(study, "rank", None)
+    output = getattr(section, "output", "Jv") or "Jv"
+    budget = getattr(section, "budget", None)
+    n = int(samples or max(getattr(section, "samples", 4096) or 4096, 4096))
+    seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
+    cands = candidates_of(study)
+    values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
+    y = np.asarray(model.evaluate(study, values)[output], dtype=float)
+    doc = rank_draws(values, y, cands, seed=seed + 1, budget=budget, method=method)
+    notes = []
+    if getattr(study, "observations", None):
+        notes.append("figures are from the prior: the observations are not yet folded in (posterior draws "
+                     "from `infer` are not used by rank in this version)")
+    unit = getattr(model, "OUTPUT_UNITS", {}).get(output, "")
+    doc = {"output": output, "samples": int(len(y)), "seed": seed, **doc, "notes": notes,
+           "units": {"expected_var_post": f"({unit})^2", "expected_ci95_width": unit, "per_cost": f"{unit} per cost"}}
+    return RankResult(doc)
