@@ -397,12 +397,15 @@ def render(doc: dict[str, Any], root: str | os.PathLike) -> str:
             f'{_e(doc.get("provenance", {}).get("finished") or "")}</p></header>']
     body.append('<section class="caution" id="cautions"><strong>Cautions</strong><ul>'
                 + "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS) + "</ul></section>")
-    if gate.get("failed") or gate.get("errors"):
+    if gate.get("failed"):
         body.append('<section class="gate-bad" id="quality-gate"><strong>Quality gate failed.</strong> '
-                    + _e("; ".join(f"{n}: {doc['sections'][n].get('message')}"
-                                   for n in gate.get("failed", []) + gate.get("errors", [])))
+                    + _e("; ".join(f"{n}: {doc['sections'][n].get('message')}" for n in gate["failed"]))
                     + " The numbers of the flagged sections are shown but should not be relied on.</section>")
-    else:
+    if gate.get("errors"):
+        body.append('<section class="gate-bad" id="section-errors"><strong>Some sections did not complete.</strong> '
+                    + _e("; ".join(f"{n}: {doc['sections'][n].get('message')}" for n in gate["errors"]))
+                    + "</section>")
+    if not gate.get("failed") and not gate.get("errors"):
         body.append('<p id="quality-gate" class="gate-ok">Every quality gate passed.</p>')
     body.append('<section class="glance" id="summary"><h2>At a glance</h2><ul>'
                 + "".join(f"<li>{_e(line)}</li>" for line in doc.get("summary") or summary_lines(doc))

@@ -376,20 +376,25 @@ def _close_figures() -> None:
         sys.modules["matplotlib.pyplot"].close("all")
 
 
-def _run_section(name: str, study: Any, seed: int | None, key: str, bundle: Bundle) -> dict[str, Any]:
+def _run_section(name: str, study: Any, seed: int | None, key: str, bundle: Bundle
+                 ) -> tuple[dict[str, Any], InputError | None]:
     started, t0 = _now(), time.perf_counter()
     status, message, result = "done", None, None
     warnings: list[str] = []
+    input_error: InputError | None = None
     if name == "check":
         doc = _check(study)
         return {"name": name, "status": "done", "key": key, "started": started, "finished": _now(),
                 "seconds": time.perf_counter() - t0, "reused": False, "result": doc, "files": [],
-                "message": None, "warnings": []}
+                "message": None, "warnings": []}, None
     try:
         result = ANALYSES[name](study, seed)
     except QualityGateError as exc:
         status, message, result = "gate_failed", str(exc), exc.result
-    except (InputError, KeyboardInterrupt):
+    except InputError as exc:  # bad input found late: recorded, the other sections still run, exit 2 at the end
+        status, message = "error", str(exc)
+        input_error = exc
+    except KeyboardInterrupt:
         raise
     except Exception as exc:  # noqa: BLE001 - one failing analysis must not lose the others
         status, message = "error", f"{type(exc).__name__}: {exc}"
@@ -408,7 +413,7 @@ def _run_section(name: str, study: Any, seed: int | None, key: str, bundle: Bund
         warnings = [str(w) for w in doc.get("warnings", []) or []] + warnings
     return {"name": name, "status": status, "key": key, "started": started, "finished": _now(),
             "seconds": seconds, "reused": False, "result": doc, "files": [f.model_dump() for f in files],
-            "message": message, "warnings": warnings}
+            "message": message, "warnings": warnings}, input_error
 
 
 def _reusable(prev: dict[str, Any] | None, name: str, key: str, bundle: Bundle) -> dict[str, Any] | None:
@@ -456,10 +461,13 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
 
     ``seed`` overrides the study's seed. Sections whose inputs are unchanged since the last run into
     the same folder are reused unless ``force``. ``progress`` shows one spinner line per section on
-    stderr. Returns a :class:`RunResult`. Raises StudyError/InputError (exit 2) on bad input before
-    any file is written, QualityGateError (exit 3, ``.result`` the RunResult) when a section's
-    quality gate failed, FluidshiftError (exit 1) when a section raised an error; in both of the
-    last cases the complete bundle and report are written first.
+    stderr. Returns a :class:`RunResult`.
+
+    Raises StudyError/InputError (exit 2) on bad input: before any file is written when the study
+    file is invalid; after the bundle is written (that section flagged as an error, the others run)
+    when an analysis refuses its input. QualityGateError (exit 3, ``.result`` the RunResult) when a
+    section's quality gate failed, FluidshiftError (exit 1) when a section raised an error; in both
+    cases the complete bundle and report are written first.
     """
     from uncertainty.report import summary_lines, write_report
 
@@ -475,13 +483,17 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
             "notes": [str(n) for n in (getattr(study, "notes", None) or [])], "sections": {},
             "quality_gate": {"passed": True, "failed": [], "errors": []}, "summary": [], "files": [],
         }
+        input_errors: list[InputError] = []
         with _Progress(progress) as bar:
             for name in ORDER:
                 if not present(study, name):
                     continue
                 key = section_key(study, name, seed)
                 task = bar.start(name)
-                rec = _reusable(prev, name, key, bundle) or _run_section(name, study, seed, key, bundle)
+                rec = _reusable(prev, name, key, bundle)
+                if rec is None:
+                    rec, bad = _run_section(name, study, seed, key, bundle)
+                    input_errors += [bad] if bad is not None else []
                 doc["sections"][name] = rec
                 doc["quality_gate"] = _gate(doc["sections"])
                 bundle.write_results(doc)  # checkpoint: an interrupted run keeps finished sections
@@ -497,6 +509,9 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
         bundle.close()
     result = RunResult(doc=doc, out_dir=Path(out_dir))
     gate = doc["quality_gate"]
+    if input_errors:  # bad input (exit 2), found only when its section ran
+        input_errors[0].result = result  # type: ignore[attr-defined]
+        raise input_errors[0]
     if gate["errors"]:
         msgs = "; ".join(f"{n}: {doc['sections'][n]['message']}" for n in gate["errors"])
         err = FluidshiftError(f"section(s) failed: {msgs} (bundle written to {out_dir})")
