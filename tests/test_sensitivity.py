@@ -273,3 +273,44 @@ def test_result_tables_and_figures(tmp_path):
     assert list(r.to_dataframe().index) == r.ranking
     paths = r.plot(str(tmp_path))
     assert sum(p.endswith(".png") for p in paths) == 2 and sum(p.endswith(".svg") for p in paths) == 2
+
+
+def test_shapley_random_permutation_estimator_closed_form():
+    beta = np.array([1.0, 1.0, 2.0])
+    cov = np.array([[1, 0, 0], [0, 1, 0.5], [0, 0.5, 1.0]])
+    exact = linear_gaussian_shapley(beta, cov)
+    prob = Problem(players=["a", "b", "c"], groups=[0, 1, 2], corr=cov, model=lambda z: z @ beta)
+    r = shapley_core(prob, 16384, seed=8, exact_max_players=0)
+    sh = np.array([r.indices[p]["Sh"] for p in "abc"])
+    se = np.array([r.indices[p]["Sh_se"] for p in "abc"])
+    assert np.all(np.abs(sh - exact) < 4 * se + 0.01), (sh, exact, se)
+    assert "random-permutation" in r.notes[-1]
+
+
+def _steady(tissue="skeletal_muscle"):
+    from uncertainty.study import Study
+
+    # PS restated so that the prior set's Kf-PS correlation is dropped: independent inputs for Sobol'
+    # (PS lognormal median 0.002 mL/min/100g, gsd 1.6: invented for this test)
+    return Study.from_dict({"study": {"title": "steady-state check (invented)", "tissue": tissue,
+                                      "model": "steady_state", "seed": 5},
+                            "parameters": {"PS": {"dist": "lognormal", "median": 0.002, "gsd": 1.6,
+                                                  "unit": "mL/min/100g"}}})
+
+
+def test_steady_state_sobol_ranks_only_causes():
+    s = _steady()
+    r = sensitivity(s, method="sobol", samples=2048, layer="typical")
+    # the solved quantities are consequences: never factors
+    assert not {"Pi", "pi_i", "JL"} & set(r.players)
+    # C_tis enters only the oedema volume, not Jv: its total index is zero (structural, exact)
+    assert abs(r.indices["C_tis"]["ST"]) < 1e-9
+    assert r.ranking[-1] == "C_tis" or r.indices[r.ranking[-1]]["ST"] < 1e-9
+    top = r.ranking[0]
+    assert r.indices[top]["ST_ci"][0] > 0.05
+
+
+def test_sensitivity_json_from_a_study_and_other_outputs():
+    s = _steady()
+    r = sensitivity(s, method="morris", samples=16, output="oedema_volume", layer="typical")
+    assert r.output == "oedema_volume" and r.indices["C_tis"]["mu_star"] > 0

@@ -231,8 +231,8 @@ def _section(study: Any, name: str) -> dict[str, Any]:
     sec = getattr(study, name, None)
     if sec is None:
         return {}
-    if hasattr(sec, "model_dump"):
-        return {k: v for k, v in sec.model_dump().items() if v is not None}
+    if hasattr(sec, "model_dump"):  # only the keys the file sets; our own defaults otherwise
+        return {k: v for k, v in sec.model_dump(exclude_unset=True).items() if v is not None}
     return dict(sec)
 
 
@@ -380,6 +380,10 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         raise InputError(f"unknown sampling method; use one of {', '.join(METHODS)}",
                          file=_file(study), key="propagate.method", value=method)
     seed = getattr(study, "seed", None) if seed is None else seed
+    tol = sec.get("tol") if tol is None else tol
+    max_samples = sec.get("max_samples") if max_samples is None else max_samples
+    if "replicates" in sec and replicates == REPLICATES:
+        replicates = sec["replicates"]
     evaluate = _evaluator(evaluate)
     have = available_outputs(study, evaluate)
     if outputs is None:

@@ -34,9 +34,9 @@ import numpy as np
 from uncertainty.errors import InputError
 
 METHODS = ("sobol", "morris", "shapley")
-DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 4096}
+DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 2048}
 REPLICATES = 16
-EXACT_MAX_PLAYERS = 10
+EXACT_MAX_PLAYERS = 7
 MORRIS_LEVELS = 4
 
 
@@ -471,109 +471,139 @@ def _conditional(corr: np.ndarray, J: list[int], K: list[int]) -> tuple[np.ndarr
     return W, L
 
 
-def _cost(problem: Problem, subset: tuple[int, ...], n_outer: int, n_inner: int, L_full: np.ndarray,
-          rng: np.random.Generator) -> tuple[float, int]:
-    """Estimate c(J) = E[Var(Y | X_-J)] for a player subset J; returns (c, number of non-finite runs)."""
-    J = problem.columns_of(subset)
-    K = [c for c in range(problem.k) if c not in set(J)]
-    W, L = _conditional(problem.corr, J, K)
-    z_outer = rng.standard_normal((n_outer, problem.k)) @ L_full.T
-    z = np.repeat(z_outer, n_inner, axis=0)
-    mean_J = z[:, K] @ W.T if K else 0.0
-    z[:, J] = mean_J + rng.standard_normal((n_outer * n_inner, len(J))) @ L.T
-    y = problem.model(z).reshape(n_outer, n_inner)
-    bad = ~np.isfinite(y)
-    if bad.any():
-        keep = ~bad.any(axis=1)
-        y = y[keep]
-    return (float(np.mean(np.var(y, axis=1, ddof=1))) if y.size else float("nan")), int(bad.sum())
+class _Conditioner:
+    """Exact Gaussian-copula conditional sampling of the columns of player subsets (cached)."""
+
+    def __init__(self, problem: Problem) -> None:
+        self.problem = problem
+        try:
+            self.L_full = np.linalg.cholesky(problem.corr)
+        except np.linalg.LinAlgError as exc:
+            raise InputError("correlation matrix is not positive definite", key="correlations") from exc
+        self._cache: dict[tuple[int, ...], tuple[list[int], list[int], np.ndarray, np.ndarray]] = {}
+
+    def joint(self, n: int, rng: np.random.Generator) -> np.ndarray:
+        """n joint draws of the correlated normal scores."""
+        return rng.standard_normal((n, self.problem.k)) @ self.L_full.T
+
+    def rows(self, subset: tuple[int, ...], n_outer: int, n_inner: int, rng: np.random.Generator) -> np.ndarray:
+        """(n_outer * n_inner, k) scores: X_-J drawn n_outer times, X_J | X_-J n_inner times each."""
+        if subset not in self._cache:
+            J = self.problem.columns_of(subset)
+            K = [c for c in range(self.problem.k) if c not in set(J)]
+            self._cache[subset] = (J, K, *_conditional(self.problem.corr, J, K))
+        J, K, W, L = self._cache[subset]
+        z = np.repeat(self.joint(n_outer, rng), n_inner, axis=0)
+        mean_J = z[:, K] @ W.T if K else 0.0
+        z[:, J] = mean_J + rng.standard_normal((n_outer * n_inner, len(J))) @ L.T
+        return z
+
+
+def _inner_variances(y: np.ndarray, n_inner: int) -> np.ndarray:
+    """Per outer draw, the sample variance of its n_inner conditional runs (NaN if any is not finite)."""
+    y = y.reshape(-1, n_inner)
+    v = np.var(y, axis=1, ddof=1)
+    v[~np.all(np.isfinite(y), axis=1)] = np.nan
+    return v
 
 
 def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_inner: int = 3,
                  n_var: int | None = None, replicates: int = REPLICATES,
-                 permutations: int | None = None) -> SensitivityResult:
-    """Shapley effects Sh_i = sum over J not containing i of |J|!(d-|J|-1)!/d! [c(J+i) - c(J)] / Var(Y).
+                 exact_max_players: int = EXACT_MAX_PLAYERS) -> SensitivityResult:
+    """Shapley effects Sh_i = sum over J not containing i of |J|!(d-|J|-1)!/d! [c(J+i) - c(J)] / Var(Y),
+    c(J) = E[Var(Y | X_-J)], after Song, Nelson and Staum (2016).
 
-    ``samples`` outer draws in all (split over ``replicates`` independent replicates), ``n_inner``
-    conditional draws per outer draw (Song et al. 2016 recommend 3), ``n_var`` draws per replicate
-    for Var(Y) (default outer x inner). All subsets when there are at most EXACT_MAX_PLAYERS players,
-    otherwise ``permutations`` random orders (default 100 d). Also returns, from the same costs, the
-    full first-order index S1_i = 1 - c(-i)/V and the total index ST_i = c({i})/V under dependence.
+    Up to ``exact_max_players`` players: every subset's cost from ``samples`` outer draws in all
+    (split over ``replicates``), ``n_inner`` conditional draws each (exact-permutation estimator).
+    Beyond: ``samples`` random permutations in all, one outer and ``n_inner`` inner draws per step
+    (their random-permutation estimator, No = 1, Ni = 3). ``n_var`` joint draws per replicate for
+    Var(Y). Also returns the full first-order index S1_i = 1 - c(-i)/V and the total index
+    ST_i = c({i})/V under dependence. Intervals: t-based across independent replicates.
     """
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer) or samples <= 0:
         raise InputError("the number of samples must be a positive whole number", key="sensitivity.samples",
                          value=samples)
+    from uncertainty.sampling import replicate_seeds
+
     d = len(problem.players)
     notes: list[str] = []
     per = max(2, math.ceil(samples / replicates))
     if per * replicates != samples:
         notes.append(f"samples rounded up from {samples} to {per * replicates} ({replicates} replicates)")
-    n_var = per * n_inner if n_var is None else n_var
-    try:
-        L_full = np.linalg.cholesky(problem.corr)
-    except np.linalg.LinAlgError as exc:
-        raise InputError("correlation matrix is not positive definite", key="correlations") from exc
-    from uncertainty.sampling import replicate_seeds
-
-    exact = d <= EXACT_MAX_PLAYERS
+    cond = _Conditioner(problem)
+    exact = d <= exact_max_players
+    n_var = n_var or max(4096, per * n_inner)
     full = tuple(range(d))
     w = [math.factorial(s) * math.factorial(d - s - 1) / math.factorial(d) for s in range(d)]
+    subsets = [J for s in range(1, d) for J in itertools.combinations(range(d), s)]
     Sh_r, S1_r, ST_r = [], [], []
-    evaluations = 0
-    nan_runs = 0
+    evaluations = nan_runs = 0
     for ss in replicate_seeds(seed, replicates):
         rng = np.random.default_rng(ss)
-        y = problem.model(rng.standard_normal((n_var, problem.k)) @ L_full.T)
+        y = problem.model(cond.joint(n_var, rng))
         evaluations += y.size
         nan_runs += int((~np.isfinite(y)).sum())
         V = float(np.var(y[np.isfinite(y)], ddof=1))
-        cache: dict[tuple[int, ...], float] = {(): 0.0, full: V}
-
-        def c(subset: tuple[int, ...], rng: np.random.Generator = rng,
-              cache: dict[tuple[int, ...], float] = cache) -> float:
-            nonlocal evaluations, nan_runs
-            if subset not in cache:
-                cache[subset], nbad = _cost(problem, subset, per, n_inner, L_full, rng)
-                evaluations += per * n_inner
-                nan_runs += nbad
-            return cache[subset]
-
-        sh = np.zeros(d)
         if exact:
+            zs = [cond.rows(J, per, n_inner, rng) for J in subsets]
+            yy = problem.model(np.vstack(zs))
+            evaluations += yy.size
+            nan_runs += int((~np.isfinite(yy)).sum())
+            c = {(): 0.0, full: V}
+            for J, part in zip(subsets, np.split(yy, len(subsets)), strict=True):
+                c[J] = float(np.nanmean(_inner_variances(part, n_inner)))
+            sh = np.zeros(d)
             for i in range(d):
                 others = [j for j in range(d) if j != i]
                 for s in range(d):
                     for J in itertools.combinations(others, s):
-                        sh[i] += w[s] * (c(tuple(sorted(J + (i,)))) - c(J))
+                        sh[i] += w[s] * (c[tuple(sorted(J + (i,)))] - c[J])
+            st = np.array([c[(i,)] for i in range(d)])
+            c_minus = np.array([c[tuple(j for j in range(d) if j != i)] for i in range(d)])
         else:
-            m = permutations or 100 * d
-            for _ in range(m):
-                order = rng.permutation(d)
-                prev: tuple[int, ...] = ()
-                for i in order:
-                    cur = tuple(sorted(prev + (int(i),)))
-                    sh[i] += (c(cur) - c(prev)) / m
-                    prev = cur
+            perms = np.array([rng.permutation(d) for _ in range(per)])
+            codes = np.cumsum(np.left_shift(1, perms.astype(np.int64)), axis=1)[:, : d - 1]  # subset bitmasks
+            flat = codes.ravel()
+            order = np.argsort(flat, kind="stable")
+            uniq, counts = np.unique(flat[order], return_counts=True)
+            zs = [cond.rows(tuple(int(b) for b in range(d) if code >> b & 1), int(n), n_inner, rng)
+                  for code, n in zip(uniq, counts, strict=True)]
+            yy = problem.model(np.vstack(zs))
+            evaluations += yy.size
+            nan_runs += int((~np.isfinite(yy)).sum())
+            cost = np.empty((per, d))
+            cost[:, d - 1] = V
+            v = _inner_variances(yy, n_inner)  # in the order of the sorted subset codes
+            vals = np.empty(flat.size)
+            vals[order] = v
+            cost[:, : d - 1] = vals.reshape(per, d - 1)
+            delta = np.diff(np.concatenate([np.zeros((per, 1)), cost], axis=1), axis=1)
+            contrib = np.full((per, d), np.nan)
+            contrib[np.arange(per)[:, None], perms] = delta
+            sh = np.nanmean(contrib, axis=0)
+            st = np.array([np.nanmean(cost[perms[:, 0] == i, 0]) if np.any(perms[:, 0] == i) else np.nan
+                           for i in range(d)])
+            # c(-i): the step before the last, in the orders that end with i
+            c_minus = np.array([np.nanmean(cost[perms[:, -1] == i, d - 2]) if np.any(perms[:, -1] == i)
+                                else np.nan for i in range(d)])
         Sh_r.append(sh / V)
-        S1_r.append(np.array([1.0 - c(tuple(j for j in range(d) if j != i)) / V for i in range(d)]))
-        ST_r.append(np.array([c((i,)) / V for i in range(d)]))
+        S1_r.append(1.0 - c_minus / V)
+        ST_r.append(st / V)
     Sh_r, S1_r, ST_r = np.array(Sh_r), np.array(S1_r), np.array(ST_r)
-    indices = {}
+    indices: dict[str, dict[str, Any]] = {}
     for key, reps in (("Sh", Sh_r), ("S1", S1_r), ("ST", ST_r)):
-        point = reps.mean(axis=0)
+        point = np.nanmean(reps, axis=0)
         se, lo, hi = _replicate_ci(point, reps)
         for j, p in enumerate(problem.players):
-            indices.setdefault(p, {})
-            indices[p][key] = float(point[j])
-            indices[p][f"{key}_ci"] = [float(lo[j]), float(hi[j])]
-            indices[p][f"{key}_se"] = float(se[j])
+            ix = indices.setdefault(p, {})
+            ix[key], ix[f"{key}_ci"], ix[f"{key}_se"] = float(point[j]), [float(lo[j]), float(hi[j])], float(se[j])
     warnings = _index_warnings(indices, ("Sh",))
     if nan_runs:
-        warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; left out "
-                        "(conditional blocks containing one are dropped)")
+        warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; their conditional "
+                        "blocks are left out")
     notes.append("Shapley effects share the variance among correlated inputs and sum to 1; S1 and ST "
                  "here are the full first-order and total indices under the correlation"
-                 + ("" if exact else f"; random-permutation estimator ({permutations or 100 * d} orders)"))
+                 + ("" if exact else f"; random-permutation estimator ({per * replicates} orders)"))
     return SensitivityResult(method="shapley", output=problem.output, unit=problem.unit,
                              players=list(problem.players), indices=indices,
                              ranking=_ranking(indices, "Sh"), samples=per * replicates,
@@ -674,7 +704,10 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
     if method not in METHODS:
         raise InputError(f"unknown method; use one of {', '.join(METHODS)}", file=_file(study),
                          key="sensitivity.method", value=method)
-    samples = sec.get("samples", DEFAULT_SAMPLES[method]) if samples is None else samples
+    if samples is None:
+        samples = sec.get("samples", DEFAULT_SAMPLES[method])
+        if method == "shapley" and "samples" not in sec and len(problem.players) > EXACT_MAX_PLAYERS:
+            samples = 8192  # random orders: one outer draw each, cheap per order
     try:
         if method == "sobol":
             res = sobol_core(problem, samples, seed=seed, replicates=replicates, second_order=second_order)
@@ -682,6 +715,9 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
             res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS))
         else:
             res = shapley_core(problem, samples, seed=seed, replicates=replicates)
+        level = sec.get("conf_level", 0.95)
+        if level != 0.95:
+            res.notes.append(f"conf_level {level:g} is not used: intervals are 95% (DESIGN.md section 5)")
     except InputError as exc:
         if exc.file is None and _file(study):
             raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc
