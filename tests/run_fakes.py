@@ -183,13 +183,24 @@ def fake_rank(study: FakeStudy, seed: int | None) -> FakeResult:
     return FakeResult("rank", doc)
 
 
+def fake_infer(study: FakeStudy, seed: int | None) -> FakeResult:
+    CALLS.append("infer")
+    s = _stats("infer", study, seed)
+    doc = {"Jv": {k: s[k] for k in ("mean", "sd", "ci95")} | {"hdi95": s["ci95"]},
+           "diagnostics": {"r_hat_max": 1.001, "ess_bulk_min": 900.0, "divergences": 0, "passed": True}}
+    return FakeResult("infer", doc)
+
+
+FAKES = {"propagate": fake_propagate, "sensitivity": fake_sensitivity, "infer": fake_infer, "rank": fake_rank,
+         "design": fake_design}
+
+
 def install() -> None:
     """Point the runner at the stand-ins."""
     from uncertainty import run as run_mod
 
     run_mod.LOADER = load_fake
-    run_mod.ANALYSES.update({"propagate": fake_propagate, "sensitivity": fake_sensitivity, "design": fake_design,
-                             "rank": fake_rank})
+    run_mod.ANALYSES.update(FAKES)
 
 
 STUDY_TEXT = """
