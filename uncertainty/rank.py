@@ -382,7 +382,7 @@ def candidates_of(study: Any) -> list[Reading]:
         for key, inst in instruments.items():
             if inst.tissues and tissue not in inst.tissues:
                 continue
-            if inst.measures not in names:
+            if inst.measures not in names and inst.measures not in (getattr(study, "derived", None) or {}):
                 continue
             bias = inst.bias.frozen() if inst.bias is not None else None
             out.append(Reading(key, inst.measures, sd=inst.sd, cv=inst.cv if inst.sd is None else None,
@@ -390,9 +390,10 @@ def candidates_of(study: Any) -> list[Reading]:
     if not out:
         raise InputError("no candidate measurements: give [rank] candidates, or no instrument applies to the tissue",
                          file=file, key="rank.candidates", value=getattr(study, "tissue", None))
+    readable = names | set(getattr(getattr(study, "derived", None) or {}, "keys", lambda: [])())
     for i, c in enumerate(out):
-        if c.parameter not in names:
-            raise InputError("a candidate must read an uncertain input of the study", file=file,
+        if c.parameter not in readable:
+            raise InputError("a candidate must read an uncertain or derived quantity of the study", file=file,
                              key=f"rank.candidates[{i}].parameter", value=c.parameter)
     budget = getattr(section, "budget", None)
     if budget is not None:
@@ -441,8 +442,11 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
     cands = candidates_of(study)
     values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
-    y = np.asarray(model.evaluate(study, values)[output], dtype=float)
-    doc = rank_draws(values, y, cands, seed=seed + 1, budget=budget, method=method)
+    outputs = model.evaluate(study, values)
+    y = np.asarray(outputs[output], dtype=float)
+    # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
+    pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
+    doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method)
     notes = []
     if getattr(study, "observations", None):
         notes.append("figures are from the prior: the observations are not yet folded in (posterior draws "
