@@ -395,14 +395,27 @@ class Context:
     tissue_mass_kg: float | None = None
 
 
+def convert_unit(symbol: str, value: Any, unit: str | None = None, *, density: float = 1.05,
+                 tissue_mass_kg: float | None = None) -> float:
+    """``units.to_canonical``, but a unit of the wrong dimension is reported as such even when the
+    missing basis suffix would otherwise be read as "per organ" (which needs a tissue mass)."""
+    from uncertainty import units
+
+    try:
+        return units.to_canonical(symbol, value, unit, density=density, tissue_mass_kg=tissue_mass_kg)
+    except UnitError as exc:
+        if tissue_mass_kg is None and "tissue_mass" in exc.reason:
+            units.to_canonical(symbol, value, unit, density=density, tissue_mass_kg=1.0)  # dimension check
+        raise
+
+
 def _unit_info(symbol: str, unit: str | None, ctx: Context, key: str) -> tuple[float, str, str | None]:
     """(factor to canonical, canonical unit, basis of the declared unit) for ``symbol`` in ``unit``."""
     from uncertainty import units
 
     try:
-        factor = units.to_canonical(symbol, 1.0, unit, density=ctx.density, tissue_mass_kg=ctx.tissue_mass_kg)
-        offset = units.to_canonical(symbol, 0.0, unit, density=ctx.density,
-                                    tissue_mass_kg=ctx.tissue_mass_kg)
+        factor = convert_unit(symbol, 1.0, unit, density=ctx.density, tissue_mass_kg=ctx.tissue_mass_kg)
+        offset = convert_unit(symbol, 0.0, unit, density=ctx.density, tissue_mass_kg=ctx.tissue_mass_kg)
     except UnitError as exc:
         raise _err(exc.reason, ctx.file, _join(key, "unit"), unit if unit is not None else exc.value) from None
     if abs(offset) > 1e-12:  # pragma: no cover (no offset units among our quantities)
@@ -755,6 +768,10 @@ def parse_entry(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
             inner = {k: v for k, v in spec.items() if k != "kind"}
             (inp,) = PROTEIN_INPUTS[(symbol, kind)]
             priors = {inp: parse_prior(inp, inner, ctx=ctx, key=fkey, default_origin=origin)}
+        if not origin:
+            inner_origins = [spec.get("origin")] + [spec[k].get("origin") for k in ("albumin", "globulin")
+                                                    if isinstance(spec.get(k), Mapping)]
+            origin = next((o for o in inner_origins if isinstance(o, str) and o), "")
         return priors, Derivation(symbol, kind, PROTEIN_INPUTS[(symbol, kind)], origin=origin or "")
     return {symbol: parse_prior(symbol, decl, ctx=ctx, key=key, default_origin=default_origin)}, None
 
@@ -825,6 +842,11 @@ def parse_toml_bytes(data: bytes, label: str) -> dict[str, Any]:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         line_no = getattr(exc, "lineno", None)
+        if line_no is None:
+            import re
+
+            m = re.search(r"at line (\d+)", str(exc))
+            line_no = int(m.group(1)) if m else None
         msg = str(exc).split(" (at ")[0]
         key, shown = _key_at_line(text, line_no)
         if "overwrite" in msg or "Cannot declare" in msg:

@@ -37,6 +37,7 @@ from uncertainty.priors import (
     Derivation,
     Instrument,
     Prior,
+    convert_unit,
     load_conditions,
     load_instruments,
     load_prior_set,
@@ -694,7 +695,7 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
 
     def convert(sym: str, value: float, unit: str | None, key: str) -> float:
         try:
-            return units.to_canonical(sym, value, unit, density=density, tissue_mass_kg=tissue_mass_kg)
+            return convert_unit(sym, value, unit, density=density, tissue_mass_kg=tissue_mass_kg)
         except UnitError as exc:
             raise _err(exc.reason, file, key, unit if unit is not None else value) from None
 
