@@ -87,3 +87,13 @@ def test_every_distribution_is_documented():
         row = next(line for line in text.splitlines() if line.startswith(f"| `{dist}` |"))
         for p in required:
             assert f"`{p}`" in row, (dist, p)
+
+
+def test_results_doc_is_generated_from_bundle_schema():
+    from uncertainty import bundle
+
+    text = (DOC.parent / "results.md").read_text(encoding="utf-8")
+    assert text == docs_gen.render_results(), "docs/results.md is out of date: run `python -m uncertainty.docs_gen`"
+    for model in (bundle.ResultsDoc, bundle.SectionRecord, bundle.Provenance):
+        for name, f in model.model_fields.items():
+            assert f"| `{f.alias or name}` |" in text

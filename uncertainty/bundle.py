@@ -74,32 +74,36 @@ class SectionRecord(_Strict):
 class Provenance(_Strict):
     """Where the numbers came from: software versions, study file, seed, times, command line."""
 
-    package: str
-    version: str
-    python: str
-    platform: str
-    dependencies: dict[str, str | None]
-    study_path: str | None
-    study_hash: str | None
-    seed: int | None
-    started: str
-    finished: str | None
-    command_line: str
+    package: str = Field(description="the distribution name, fluidshift")
+    version: str = Field(description="its version")
+    python: str = Field(description="Python version")
+    platform: str = Field(description="operating system and machine")
+    dependencies: dict[str, str | None] = Field(description="installed version of each dependency (null: absent)")
+    study_path: str | None = Field(description="the study file")
+    study_hash: str | None = Field(description="SHA-256 of the study file's bytes")
+    seed: int | None = Field(description="the seed used")
+    started: str = Field(description="ISO 8601 UTC start of the run")
+    finished: str | None = Field(description="ISO 8601 UTC end of the run (null until it ends)")
+    command_line: str = Field(description="the command line (shell-quoted)")
 
 
 class StudyInfo(_Strict):
-    title: str | None = None
-    path: str | None = None
-    hash: str | None = None
-    seed: int | None = None
-    model: str | None = None
-    tissue: str | None = None
-    conditions: list[str] = Field(default_factory=list)
-    basis: str | None = None
+    """The study that was run (from its [study] section and prior set)."""
+
+    title: str | None = Field(None, description="[study] title")
+    path: str | None = Field(None, description="the study file")
+    hash: str | None = Field(None, description="SHA-256 of the study file's bytes")
+    seed: int | None = Field(None, description="the seed used (the study's, or the --seed override)")
+    model: str | None = Field(None, description="classic | steady_state | revised")
+    tissue: str | None = Field(None, description="the prior set")
+    conditions: list[str] = Field(default_factory=list, description="condition modifiers applied")
+    basis: str | None = Field(None, description="basis of Kf and Jv: 100g, 100mL or organ")
 
 
 class GateInfo(_Strict):
-    passed: bool
+    """Whether every section passed its quality gate and none raised an error."""
+
+    passed: bool = Field(description="true when no section failed its gate or raised an error")
     failed: list[str] = Field(default_factory=list, description="sections whose quality gate failed")
     errors: list[str] = Field(default_factory=list, description="sections that raised an error")
 
@@ -107,16 +111,17 @@ class GateInfo(_Strict):
 class ResultsDoc(_Strict):
     """The top level of ``results.json``."""
 
-    schema_: Literal["fluidshift-results/1"] = Field(SCHEMA, alias="schema")
+    schema_: Literal["fluidshift-results/1"] = Field(SCHEMA, alias="schema", description="schema name and version")
     complete: bool = Field(description="false while a run is under way or when it was interrupted")
-    study: StudyInfo
-    provenance: Provenance
+    study: StudyInfo = Field(description="the study that was run")
+    provenance: Provenance = Field(description="software versions, study file hash, seed, times, command line")
     priors: list[dict[str, Any]] = Field(default_factory=list,
                                          description="every prior used: symbol, dist, median, ci95, unit, "
                                                      "basis, between_subject, origin")
-    notes: list[str] = Field(default_factory=list)
-    sections: dict[str, SectionRecord] = Field(default_factory=dict)
-    quality_gate: GateInfo
+    notes: list[str] = Field(default_factory=list, description="the study's notes (e.g. dropped correlations)")
+    sections: dict[str, SectionRecord] = Field(default_factory=dict,
+                                               description="one record per section run, in run order")
+    quality_gate: GateInfo = Field(description="the run's quality gate over all sections")
     summary: list[str] = Field(default_factory=list, description="the one-screen summary, line by line")
     files: list[FileRecord] = Field(default_factory=list, description="report and other top-level files")
 
