@@ -160,3 +160,32 @@ def test_steady_state_jv_positive_for_ordinary_tissues(tissue):
     assert r.summaries["individual"]["Jv"].nan_draws == 0
     assert r.to_dict()["p_absorption"] == 0.0 and r.to_dict()["typical_p_absorption"] == 0.0
     assert r.units["Jv"].startswith("mL/min")
+
+
+def _demo_path():
+    from pathlib import Path
+
+    return str(Path(__file__).resolve().parents[1] / "studies" / "demo.toml")
+
+
+def test_command_json_gate_and_bad_input(tmp_path):
+    import json
+
+    from click.testing import CliRunner
+
+    from uncertainty.cli import main
+
+    runner = CliRunner()
+    res = runner.invoke(main, ["propagate", _demo_path(), "--samples", "1024", "--json",
+                               "--out", str(tmp_path)])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    assert {"outputs", "typical", "p_absorption"} <= set(doc)
+    assert (tmp_path / "propagate_Jv.png").exists() and (tmp_path / "propagate_Jv.svg").exists()
+    res = runner.invoke(main, ["propagate", _demo_path(), "--samples", "1024", "--tol", "1e-12",
+                               "--max-samples", "4096", "--json"])
+    assert res.exit_code == 3 and json.loads(res.stdout)["converged"] is False
+    res = runner.invoke(main, ["propagate", _demo_path(), "--output", "Jw"])
+    assert res.exit_code == 2 and "no such output" in res.stderr and "Traceback" not in res.output
+    res = runner.invoke(main, ["propagate", _demo_path(), "--samples", "0"])
+    assert res.exit_code == 2

@@ -314,3 +314,23 @@ def test_sensitivity_json_from_a_study_and_other_outputs():
     s = _steady()
     r = sensitivity(s, method="morris", samples=16, output="oedema_volume", layer="typical")
     assert r.output == "oedema_volume" and r.indices["C_tis"]["mu_star"] > 0
+
+
+def test_command_refuses_sobol_on_correlated_study_and_runs_shapley():
+    import json
+    from pathlib import Path
+
+    from click.testing import CliRunner
+
+    from uncertainty.cli import main
+
+    demo = str(Path(__file__).resolve().parents[1] / "studies" / "demo.toml")
+    runner = CliRunner()
+    res = runner.invoke(main, ["sensitivity", demo, "--method", "sobol"])
+    assert res.exit_code == 2 and "shapley" in res.stderr and len(res.stderr.strip().splitlines()) == 1
+    res = runner.invoke(main, ["sensitivity", demo, "--samples", "512", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    assert doc["method"] == "shapley" and set(doc["ranking"]) == set(doc["indices"])
+    res = runner.invoke(main, ["sensitivity", demo, "--output", "nope"])
+    assert res.exit_code == 2
