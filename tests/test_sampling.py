@@ -98,3 +98,16 @@ def test_bad_input():
     with pytest.raises(InputError):
         from_cube(s, np.full((3, 2), 0.5), "typical")
     assert next_power_of_two(1000) == 1024 and next_power_of_two(1024) == 1024
+
+
+def test_fast_score_map_agrees_with_exact_path():
+    from uncertainty.priors import parse_prior
+    from uncertainty.sampling import scores_to_values
+
+    z = np.random.default_rng(0).standard_normal(50000) * 2.5
+    z[:3] = [-9.0, 9.5, 0.0]  # beyond the spline grid: exact map
+    for decl in ({"dist": "beta", "mean": 0.9, "sd": 0.04}, {"dist": "gamma", "mean": 3.0, "sd": 1.0},
+                 {"dist": "beta", "mean": 0.5, "sd": 0.2}, {"dist": "gamma", "mean": 0.01, "sd": 0.008}):
+        p = parse_prior("sigma" if decl["dist"] in ("beta", "triangular") else "PS", decl)
+        fast, exact = scores_to_values(p, z), scores_to_values(p, z, exact=True)
+        assert np.allclose(fast, exact, rtol=1e-9, atol=1e-12), decl["dist"]

@@ -295,12 +295,15 @@ def propagate_arrays(
     take = per
     total_per = 0
     while True:
-        for r, u in enumerate(stream.take(take)):
-            res = sample_layers(u)
-            for layer, outs in res.items():
-                for name in outputs:
-                    store.setdefault(layer, {}).setdefault(name, [[] for _ in range(replicates)])
-                    store[layer][name][r].append(np.asarray(outs[name], dtype=float))
+        # all replicates in one batch (vectorised evaluation), split back afterwards
+        res = sample_layers(np.vstack(stream.take(take)))
+        for layer, outs in res.items():
+            for name in outputs:
+                store.setdefault(layer, {}).setdefault(name, [[] for _ in range(replicates)])
+                parts = np.split(np.broadcast_to(np.asarray(outs[name], dtype=float), (take * replicates,)),
+                                 replicates)
+                for r in range(replicates):
+                    store[layer][name][r].append(parts[r])
         total_per += take
         summaries = {layer: {name: summarize(name, [np.concatenate(x) for x in reps], units.get(name, ""))
                              for name, reps in outs_.items()} for layer, outs_ in store.items()}
