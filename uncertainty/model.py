@@ -73,7 +73,8 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
         dict with ``Jv`` (mL/min/100g), ``net_pressure`` and ``force_Pc``, ``force_Pi``, ``force_pi_c``,
         ``force_pi_i`` (mmHg, signed contributions to the net pressure); steady forms add ``Pi``,
         ``pi_i`` (mmHg), ``ratio`` (Ci/Cp), ``JL`` (= Jv, lymph balance) and ``oedema_volume``
-        (mL/100g, when the study has C_tis); ``revised`` adds ``pi_g``; with a tissue mass,
+        (mL/100g above the volume at the tissue's reference Pi, ``Study.Pi_ref``, when the study has
+        C_tis); ``revised`` adds ``pi_g``; with a tissue mass,
         ``Jv_mL_per_h`` and ``Jv_L_per_day`` for the whole tissue; derived inputs (``Pc``, ``pi_c``,
         ``pi_i`` in classic) are returned too. Units in :data:`OUTPUT_UNITS`.
     """
@@ -108,8 +109,8 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
         out["pi_i"] = res["pi_i"]
         out["ratio"] = res["ratio"]
         out["JL"] = Jv
-        if "C_tis" in v:
-            out["oedema_volume"] = _oedema_volume(Pi, v, xp)
+        if "C_tis" in v and getattr(study, "Pi_ref", None) is not None:
+            out["oedema_volume"] = _oedema_volume(Pi, v, study.Pi_ref, xp)
     out["Jv"] = Jv
     out["net_pressure"] = starling.net_pressure(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])
     forces = starling.forces(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])
@@ -126,23 +127,13 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
     return out
 
 
-def _oedema_volume(Pi: Any, v: Mapping[str, Any], xp: Any) -> Any:
-    """Interstitial volume gained (mL/100g) when Pi rises from the lymph-zero pressure to the solved Pi.
+def _oedema_volume(Pi: Any, v: Mapping[str, Any], Pi_ref: float, xp: Any) -> Any:
+    """Interstitial volume (mL/100g) at the solved Pi above that at the tissue's reference Pi
+    (``physiology.interstitium.oedema_volume``; two-slope compliance when C_tis_high and Pi_break are
+    inputs)."""
+    from uncertainty.physiology import interstitium
 
-    Uses ``physiology.interstitium.oedema_volume`` when it is present; until then the linear
-    compliance relation dV = C_tis (Pi - Pi_L0) (Aukland & Reed 1993, Physiol Rev 73:1; linear range).
-    """
-    try:
-        from uncertainty.physiology import interstitium
-    except ImportError:
-        interstitium = None
-    fn = getattr(interstitium, "oedema_volume", None) if interstitium is not None else None
-    if fn is not None:
-        try:
-            return fn(Pi, v["C_tis"], v["Pi_L0"], xp=xp)
-        except TypeError:
-            pass
-    return v["C_tis"] * (Pi - v["Pi_L0"])
+    return interstitium.oedema_volume(Pi, Pi_ref, v["C_tis"], v.get("C_tis_high"), v.get("Pi_break"), xp=xp)
 
 
 def outputs_for(study: Any) -> list[str]:

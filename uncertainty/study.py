@@ -56,8 +56,8 @@ REQUIRED_INPUTS: dict[str, tuple[str, ...]] = {
 }
 OPTIONAL_INPUTS: dict[str, tuple[str, ...]] = {
     "classic": (),
-    "steady_state": ("C_tis",),
-    "revised": ("C_tis", "PS_large"),
+    "steady_state": ("C_tis", "C_tis_high", "Pi_break"),
+    "revised": ("C_tis", "C_tis_high", "Pi_break", "PS_large"),
 }
 #: Quantities a form solves (never sampled there).
 SOLVED: dict[str, tuple[str, ...]] = {
@@ -357,14 +357,61 @@ class DesignSection(BaseModel):
         return v
 
 
+class ScheduleSection(BaseModel):
+    """``[schedule]``: optimise a venous-cuff protocol (uncertainty/schedule.py; `fluidshift design STUDY
+    --schedule`). ``steps`` cuff steps of ``step_min`` minutes each, pressures from ``pressure_grid``,
+    ``measurements`` limb-volume readings on a grid of ``time_step_min``; criterion ``A`` (default) or
+    ``D`` over ``targets`` (Kf, Pvi). Kf, C_tis, L, Pv and r priors come from the study / its tissue;
+    venous compliance C_v and filling time constant tau_v are lognormal with the medians and gsds here."""
+
+    model_config = _CFG
+    steps: int = Field(default=5, ge=1, le=12, description="number of cumulative cuff steps")
+    step_min: float = Field(default=4.0, gt=0, le=60, description=(
+        "duration of each step, min (from memory: cumulative protocols hold each step about 4 min)"))
+    pressure_grid: list[float] = Field(
+        default_factory=lambda: [10.0, 20.0, 30.0, 40.0, 50.0, 60.0, 70.0, 80.0], min_length=1,
+        description="cuff pressures allowed for a step, mmHg (common practice: up to about 80 mmHg, below "
+                    "diastolic pressure, in 10 mmHg steps)")
+    increasing: bool = Field(default=True, description="each step at or above the previous (cumulative protocol)")
+    measurements: int = Field(default=10, ge=1, le=200, description="number K of limb-volume readings")
+    time_step_min: float = Field(default=0.5, gt=0, description="spacing of the candidate reading times, min")
+    noise_sd: float = Field(default=0.01, gt=0, description=(
+        "sd of one limb-volume reading, mL per 100 g of tissue (from memory: strain-gauge resolution about "
+        "0.01 mL/100 mL)"))
+    criterion: Literal["A", "D"] = Field(default="A", description=(
+        "A: sum of posterior/prior variance ratios of the targets; D: log det of their posterior block over "
+        "the prior block (both with the prior precision added to the Fisher information)"))
+    targets: list[Literal["Kf", "Pvi"]] = Field(default_factory=lambda: ["Kf", "Pvi"], min_length=1,
+                                                 description="quantities whose posterior sd is minimised")
+    linearisation_draws: int = Field(default=16, ge=1, le=512, description=(
+        "prior points (the median and further prior draws) the criterion is averaged over"))
+    transmission: float = Field(default=0.9, gt=0, le=1, description=(
+        "cuff-to-vein pressure transmission (Christ et al. 1997 J Physiol 503:463, abstract: 0.91)"))
+    C_v_median: float = Field(default=0.06, gt=0, description=(
+        "median venous compliance, mL/mmHg per 100 g (from memory: forearm venous volume rises about "
+        "2-3 mL/100 mL under 40 mmHg congestion)"))
+    C_v_gsd: float = Field(default=1.5, gt=1, description="geometric sd of the venous compliance (from memory)")
+    tau_v_median: float = Field(default=1.0, gt=0, description=(
+        "median venous filling time constant, min (from memory: veins fill within 1-2 min)"))
+    tau_v_gsd: float = Field(default=1.5, gt=1, description="geometric sd of tau_v (from memory)")
+
+    @field_validator("pressure_grid")
+    @classmethod
+    def _grid(cls, v: list[float]) -> list[float]:
+        if any(p < 0 or p > 200 for p in v):
+            raise ValueError("cuff pressures lie between 0 and 200 mmHg")
+        return v
+
+
 SECTIONS: dict[str, type[BaseModel]] = {
     "propagate": PropagateSection,
     "sensitivity": SensitivitySection,
     "rank": RankSection,
     "design": DesignSection,
+    "schedule": ScheduleSection,
 }
 TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", "observations", "rank",
-             "design")
+             "design", "schedule")
 
 #: Required CSV columns per observation kind; a time column is one of TIME_COLUMNS.
 CSV_COLUMNS: dict[str, tuple[str, ...]] = {
@@ -401,10 +448,12 @@ class Study:
         correlation: normal-score correlation matrix over ``names``.
         correlations: the (a, b, rho) pairs kept.
         notes: what was dropped or set aside, in plain words.
-        propagate, sensitivity, observations, rank, design: section models or None.
+        propagate, sensitivity, observations, rank, design, schedule: section models or None.
         instruments: the instruments the observations and candidates name.
         steady_Cp: the plasma protein input passed to the steady state (pi_i through the protein cubic),
             or None for proportional scaling.
+        Pi_ref: reference (normally hydrated) interstitial pressure for ``oedema_volume`` in the steady
+            forms: the median of the tissue prior set's own Pi prior, before conditions (mmHg), or None.
     """
 
     path: Path | None
@@ -428,8 +477,10 @@ class Study:
     observations: list[Observation] | None = None
     rank: RankSection | None = None
     design: DesignSection | None = None
+    schedule: ScheduleSection | None = None
     instruments: dict[str, Instrument] = field(default_factory=dict)
     steady_Cp: str | None = None
+    Pi_ref: float | None = None
     doc: dict[str, Any] = field(default_factory=dict, repr=False)
 
     @property
@@ -440,7 +491,7 @@ class Study:
     def outputs(self) -> list[str]:
         """Output names ``model.evaluate`` gives for this study."""
         names = output_names(self.model, self.tissue_mass_kg is not None, tuple(self.derived))
-        if self.model != "classic" and "C_tis" not in self.priors:
+        if self.model != "classic" and ("C_tis" not in self.priors or self.Pi_ref is None):
             names.remove("oedema_volume")
         return names
 
@@ -655,12 +706,14 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
                   density=density, priors=study_priors, derived=used_derived, names=[],
                   correlation=np.eye(0), notes=notes, doc=dict(doc))
     if head.model in ("steady_state", "revised"):
+        if "Pi" in pset.priors:
+            study.Pi_ref = pset.priors["Pi"].median()
         d = used_derived.get("pi_c")
         if d is not None and d.formula == "total":
             study.steady_Cp = d.inputs[0]
     pool = priors
 
-    for name in ("propagate", "sensitivity", "rank", "design"):
+    for name in ("propagate", "sensitivity", "rank", "design", "schedule"):
         if name in doc:
             setattr(study, name, _section_model(SECTIONS[name], doc[name], file, name))
     if "observations" in doc:
