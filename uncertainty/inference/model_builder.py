@@ -181,6 +181,27 @@ def apply_layer(prior: Any, typical: Any, z: Any, xp: Any, ratio: Any = 1.0) -> 
     return prior.individual(typical, z * ratio, xp=xp)
 
 
+def _merged_layers(prior: Any) -> tuple[float, float, float, bool] | None:
+    """(location, typical sd, between-subject sd, log scale) when both layers are normal on one scale.
+
+    normal prior + sd spread: both additive normal; lognormal prior + cv spread: both normal in
+    log (log-sd of the spread sqrt(log(1 + cv^2))). Reflection coefficients (logit layer) and other
+    shapes return None.
+    """
+    from uncertainty.priors import LOGIT_LAYER
+
+    sp = _spread(prior)
+    if sp is None or getattr(prior, "symbol", None) in LOGIT_LAYER:
+        return None
+    kind, declared = sp
+    p = prior.params
+    if prior.dist == "normal" and kind == "sd":
+        return float(p["mean"]), float(p["sd"]), declared, False
+    if prior.dist == "lognormal" and kind == "cv":
+        return float(np.log(p["median"])), float(np.log(p["gsd"])), float(np.sqrt(np.log1p(declared**2))), True
+    return None
+
+
 def _probit(logp: Any) -> Any:
     import pytensor.tensor as pt
 
@@ -247,10 +268,27 @@ def build_model(problem: Problem) -> BuiltModel:
     with pm.Model(coords={"subject": labels}) as model:
         # typical-subject values
         scores: dict[str, Any] = {}
+        collapsed: dict[str, Any] = {}
         for name, prior in problem.priors.items():
             dist = getattr(prior, "dist", None)
             params = getattr(prior, "params", {}) or {}
-            if dist == "normal":
+            merged = None if hierarchical else _merged_layers(prior)
+            if merged is not None:
+                # one individual: sample the individual's value from the exact two-layer marginal
+                # and the typical value from its conditional given the individual (non-centred)
+                loc, s_typ, s_bs, log_scale = merged
+                total = float(np.hypot(s_typ, s_bs))
+                z = pm.Normal(f"{name}__z", 0.0, 1.0)
+                z2 = pm.Normal(f"{name}__typical_z", 0.0, 1.0)
+                dev_typ = (s_typ**2 / total) * z + (s_typ * s_bs / total) * z2
+                if log_scale:
+                    collapsed[name] = pt.exp(loc + total * z)
+                    ctx.typical[name] = pm.Deterministic(name, pt.exp(loc + dev_typ))
+                else:
+                    collapsed[name] = loc + total * z
+                    ctx.typical[name] = pm.Deterministic(name, loc + dev_typ)
+                scores[name] = dev_typ / s_typ
+            elif dist == "normal":
                 z = pm.Normal(f"{name}__z", 0.0, 1.0)
                 ctx.typical[name] = pm.Deterministic(name, params["mean"] + params["sd"] * z)
                 scores[name] = z
@@ -296,6 +334,9 @@ def build_model(problem: Problem) -> BuiltModel:
                 continue
             kind, declared = sp
             spreads[name] = sp
+            if name in collapsed:
+                ctx.per_subject[name] = collapsed[name] * pt.ones(n_subj)
+                continue
             ratio: Any = 1.0
             if hierarchical:
                 w = pm.Normal(f"{name}__spread_z", 0.0, 1.0)

@@ -115,6 +115,16 @@ def _symbol_for(kind: str, parameter: str | None) -> str | None:
     }.get(kind)
 
 
+def _converts(symbol: str, unit: str) -> bool:
+    from uncertainty import units
+
+    try:
+        units.to_canonical(symbol, 1.0, unit)
+    except InputError:
+        return False
+    return True
+
+
 def _canonical_factor(symbol: str | None, unit: str | None, obs: Observation,
                       density: float) -> float:
     """Multiplicative factor from ``unit`` to the canonical unit of ``symbol`` (1 without a unit)."""
@@ -132,12 +142,17 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
                            density: float = 1.05) -> list[Observation]:
     """Turn study observation records (pydantic models or dicts) into :class:`Observation` records.
 
-    Values and sd are converted to the canonical unit of the observed quantity (cv is unitless).
-    Raises InputError (file, key, value) for an sd or cv that is not positive.
+    Values and sd are converted to the canonical unit of the observed quantity (cv is unitless);
+    records that come from a validated Study (they carry ``declared_unit``) are canonical already.
+    A record with a per-subject data file (columns subject, value; optional group) becomes one
+    record per row, all with the same index. Raises InputError (file, key, value) for an sd or cv
+    that is not positive.
     """
     out: list[Observation] = []
     for i, rec in enumerate(records or []):
         raw = _as_dict(rec)
+        canonical = "declared_unit" in raw
+        data = getattr(rec, "data", None) if not isinstance(rec, Mapping) else rec.get("data")
         kind = raw.get("kind")
         obs = Observation(kind=str(kind), index=i, file=file,
                           parameter=raw.get("parameter"), instrument=raw.get("instrument"),
@@ -147,7 +162,14 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
         obs.extra = {k: v for k, v in raw.items()
                      if k not in ("kind", "parameter", "instrument", "subject", "group", "unit",
                                   "value", "sd", "cv") and v is not None}
-        factor = _canonical_factor(_symbol_for(obs.kind, obs.parameter), obs.unit, obs, density)
+        if data is not None:
+            obs.extra["data"] = data
+        unit = raw.get("declared_unit") if canonical else obs.unit
+        symbol = _symbol_for(obs.kind, obs.parameter)
+        if obs.kind == "clearance_rate" and unit and not _converts("k_clear", unit):
+            symbol = "JL"  # a clearance given as a flow (mL/min per basis)
+            obs.extra["as_flow"] = True
+        factor = _canonical_factor(symbol, unit, obs, density)
         for name in ("value", "sd", "cv"):
             v = raw.get(name)
             if v is None:
@@ -158,9 +180,19 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
                 raise obs.error("must be a number", name, v) from None
             if name in ("sd", "cv") and not v > 0:
                 raise obs.error(f"{name} must be positive", name, v)
-            if name in ("value", "sd"):
+            if name in ("value", "sd") and not canonical:
                 v *= factor
             setattr(obs, name, v)
+        if data is not None and obs.kind != "volume_time_course" and "value" in data:
+            subjects = data.get("subject") or [None] * len(data["value"])
+            groups = data.get("group") or [obs.group] * len(data["value"])
+            for subj, grp, val in zip(subjects, groups, data["value"], strict=True):
+                row = dataclasses.replace(obs, extra={k: v for k, v in obs.extra.items() if k != "data"},
+                                          subject=None if subj is None else str(subj),
+                                          group=None if grp is None else str(grp),
+                                          value=float(val) * factor)
+                out.append(row)
+            continue
         out.append(obs)
     return out
 

@@ -1,7 +1,8 @@
 """``clearance_rate``: an isotope removal rate constant k (1/min) from the tissue.
 
 The removal rate is a flow through a distribution volume: k = JL / V_dist with JL = Jv at steady
-state, so the prediction is k = Jv / V_dist. ``volume`` declares the prior of V_dist
+state, so the prediction is k = Jv / V_dist. A clearance given in flow units (mL/min per basis) is
+read as JL = Jv directly. ``volume`` declares the prior of V_dist
 (mL/100 g of tissue), e.g. ``volume = { dist = "lognormal", median = 12, gsd = 1.4,
 unit = "mL/100g" }``.
 """
@@ -27,6 +28,8 @@ def validate(obs: Observation, problem: Problem) -> None:
     """A value with sd or cv, and a ``volume`` declaration (the distribution volume's prior)."""
     require_error(obs)
     check_positive_value(obs)
+    if obs.extra.get("as_flow"):
+        return
     if "volume" not in obs.extra:
         raise obs.error("a clearance rate needs the distribution volume's prior: "
                         "volume = { dist = ..., unit = \"mL/100g\" }", "volume", None)
@@ -41,9 +44,12 @@ def add(ctx: Any, obs: Observation) -> None:
 
     i = ctx.subject_index(obs)
     name = term_name(obs)
-    vd = prior_rv(f"{name}__V_dist", declared_prior(obs.extra["volume"], "V_dist", obs, "volume"))
-    ctx.extra_params.append(f"{name}__V_dist")
-    pred = ctx.value("Jv")[i] / vd
+    if obs.extra.get("as_flow"):  # a clearance already expressed as a flow: JL = Jv
+        pred = ctx.value("Jv")[i]
+    else:
+        vd = prior_rv(f"{name}__V_dist", declared_prior(obs.extra["volume"], "V_dist", obs, "volume"))
+        ctx.extra_params.append(f"{name}__V_dist")
+        pred = ctx.value("Jv")[i] / vd
     pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
