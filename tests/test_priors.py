@@ -316,3 +316,14 @@ def test_condition_multiply_then_shift_derived() -> None:
     derived = {"pi_c": Derivation("pi_c", "total", ("Cp",))}
     cond.apply({}, derived=derived)
     assert derived["pi_c"].compute({"Cp": 7.0}) == pytest.approx(25.627 * 0.5 + 2.0)
+
+
+def test_fixed_prior_pymc_and_point_mass() -> None:
+    import pymc as pm
+
+    p = parse_prior("pi_i", "12 mmHg")
+    with pm.Model():
+        rv = p.pymc("x")
+    assert float(pm.draw(rv, random_seed=1)) == 12.0
+    assert p.interval() == (12.0, 12.0) and p.sd() == 0.0
+    np.testing.assert_array_equal(p.from_normal_scores(np.array([-3.0, 3.0])), [12.0, 12.0])

@@ -178,3 +178,11 @@ def test_priors_list_and_unknown_tissue() -> None:
             "glomerulus"} <= names
     r = CliRunner().invoke(main, ["priors", "show", "kidney"])
     assert r.exit_code == 2 and "kidney" in r.stderr
+
+
+def test_condition_on_solved_quantity_noted() -> None:
+    s = Study.from_dict(_doc(head={"model": "steady_state", "conditions": ["lymphatic_obstruction"]}))
+    assert "Pi" not in s.priors
+    assert any("lymphatic_obstruction changes Pi" in n for n in s.notes)
+    # the lowered lymph conductance applies (multiply 0.3 in priors/conditions.toml)
+    assert s.priors["L"].params["median"] == pytest.approx(0.3 * MUSCLE.priors["L"].params["median"])

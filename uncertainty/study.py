@@ -621,7 +621,12 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
         cond = conditions[cname]
         if cond.applies_to is not None and head.tissue not in cond.applies_to:
             raise _err(f"condition {cname} applies to {', '.join(cond.applies_to)} only", file, key, cname)
+        before = dict(priors)
         priors = cond.apply(priors, tissue=head.tissue, notes=notes, derived=derived, density=density)
+        for sym in SOLVED[head.model]:
+            if sym in priors and priors[sym] is not before.get(sym):
+                notes.append(f"condition {cname} changes {sym}, but the {head.model} form solves {sym}; "
+                             "that change does not apply (its effect comes through the other quantities)")
 
     # ---- overrides
     params = doc.get("parameters", {})
