@@ -77,6 +77,10 @@ def test_run_writes_valid_bundle(fakes, study, tmp_path):
     assert (out / "report.html").is_file()
     assert not (out / ".partial").exists()
     assert_complete_files(out)
+    mask = os.umask(0o22)
+    os.umask(mask)
+    for name in ("results.json", "report.html", "tables/propagate.csv"):  # not mkstemp's private 0600
+        assert (out / name).stat().st_mode & 0o777 == 0o666 & ~mask, name
     assert res.passed and res.summary == doc["summary"]
     assert any("Jv, individual" in line for line in doc["summary"])
 

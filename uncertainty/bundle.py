@@ -258,6 +258,7 @@ class Bundle:
         try:
             with os.fdopen(fd, "wb") as fh:
                 fh.write(data)
+            os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the file the usual permissions
             return self.adopt(tmp, rel, kind)
         except BaseException:
             with contextlib.suppress(FileNotFoundError):
@@ -307,6 +308,12 @@ def read_results(out_dir: str | os.PathLike, *, missing_ok: bool = False) -> dic
             return None
         raise
     return doc
+
+
+def _umask() -> int:
+    mask = os.umask(0o22)
+    os.umask(mask)
+    return mask
 
 
 def _fsync(path: Path) -> None:
