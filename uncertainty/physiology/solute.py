@@ -55,6 +55,15 @@ def protein_flux(Jv: Array, sigma: Array, PS: Array, Cp: Array, Ci: Array, xp: A
     return PS * bern * conc
 
 
+def _ratio_and_slope(Jv: Array, sigma: Array, PS: Array, xp: Any = np) -> tuple[Array, Array]:
+    """Ci/Cp and d(Ci/Cp)/dJv together (shared work for the Newton steps of ``balance``)."""
+    R = steady_state_ratio(Jv, sigma, PS, xp)
+    pe = xp.maximum(Jv, 0.0) * (1.0 - sigma) / PS
+    # d/dJv [1 + sigma (Jv/PS) E(Pe)] = sigma e^-Pe / PS, so dR/dJv = -R^2 sigma e^-Pe / PS (Jv > 0).
+    slope = -R * R * sigma * xp.exp(-pe) / PS
+    return R, xp.where(Jv > 0, slope, 0.0 * slope)
+
+
 def steady_state_ratio(Jv: Array, sigma: Array, PS: Array, xp: Any = np) -> Array:
     """Steady-state interstitial (= filtrate, lymph) to plasma protein ratio Ci/Cp (dimensionless).
 
@@ -78,8 +87,4 @@ def steady_state_ratio_slope(Jv: Array, sigma: Array, PS: Array, xp: Any = np) -
     Closed form: -R^2 sigma e^-Pe / PS, since d/dJv [1 + sigma (Jv/PS) E(Pe)] = sigma e^-Pe / PS.
     Used by the Newton steps of ``balance``.
     """
-    J = xp.maximum(Jv, 0.0)
-    pe = J * (1.0 - sigma) / PS
-    R = steady_state_ratio(Jv, sigma, PS, xp)
-    slope = -R * R * sigma * xp.exp(-pe) / PS
-    return xp.where(Jv > 0, slope, 0.0 * slope)
+    return _ratio_and_slope(Jv, sigma, PS, xp)[1]

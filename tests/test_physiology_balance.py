@@ -1,0 +1,163 @@
+"""Coupled steady state: conservation of fluid and protein, positivity of filtration, agreement with
+an independent root finder, and the PyTensor back-end (values and gradients)."""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy.optimize import brentq
+
+from uncertainty.physiology.balance import revised_steady_state, steady_state
+from uncertainty.physiology.oncotic import pi_total_protein
+from uncertainty.physiology.solute import protein_flux, steady_state_ratio
+from uncertainty.physiology.starling import filtration
+
+# Ordinary-tissue values of the right order (from memory; skeletal muscle per 100 g):
+# Kf 0.005 mL/min/mmHg, Pc 20 mmHg, sigma 0.9, PS 0.0005 mL/min, pi_c 25 mmHg,
+# lymph conductance 0.002 mL/min/mmHg, lymph flow zero at Pi = -4 mmHg.
+ORDINARY = dict(Kf=0.005, Pc=20.0, sigma=0.9, PS=0.0005, pi_c=25.0, L=0.002, Pi_L0=-4.0)
+CP = 7.0  # g/dL, normal plasma total protein (Guyton & Hall, from memory)
+
+
+def lymph(Pi, L, Pi_L0):
+    return L * (Pi - Pi_L0)
+
+
+@pytest.mark.parametrize("use_cp", [False, True])
+def test_conserves_fluid_and_protein(use_cp):
+    kw = {"Cp": CP} if use_cp else {}
+    out = steady_state(**ORDINARY, **kw)
+    p = ORDINARY
+    # Fluid: Starling filtration at the solved Pi, pi_i equals lymph flow.
+    Jv_starling = filtration(p["Kf"], p["Pc"], out["Pi"], p["pi_c"], out["pi_i"], p["sigma"])
+    assert out["Jv"] == pytest.approx(Jv_starling, rel=1e-12)
+    assert out["Jv"] == pytest.approx(lymph(out["Pi"], p["L"], p["Pi_L0"]), rel=1e-12)
+    # Protein: Patlak flux at Ci = ratio * Cp equals lymph protein outflow JL * Ci.
+    Ci = out["ratio"] * CP
+    Js = protein_flux(out["Jv"], p["sigma"], p["PS"], CP, Ci)
+    assert Js == pytest.approx(out["Jv"] * Ci, rel=1e-12)
+    if use_cp:  # pi_i through the Landis-Pappenheimer polynomial, rescaled to the given pi_c
+        assert out["pi_i"] == pytest.approx(p["pi_c"] * pi_total_protein(Ci) / pi_total_protein(CP))
+    else:
+        assert out["pi_i"] == pytest.approx(p["pi_c"] * out["ratio"])
+
+
+def test_matches_independent_root_finder():
+    p = ORDINARY
+
+    def residual(J):
+        Pi = p["Pi_L0"] + J / p["L"]
+        pi_i = p["pi_c"] * steady_state_ratio(J, p["sigma"], p["PS"])
+        return filtration(p["Kf"], p["Pc"], Pi, p["pi_c"], pi_i, p["sigma"]) - J
+
+    J_ref = brentq(residual, 1e-12, 1.0, xtol=1e-16, rtol=1e-14)
+    assert steady_state(**p)["Jv"] == pytest.approx(J_ref, rel=1e-10)
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    Kf=st.floats(1e-4, 0.05), Pc=st.floats(5.0, 45.0), sigma=st.floats(0.5, 0.99),
+    PS=st.floats(1e-5, 0.01), pi_c=st.floats(15.0, 32.0), L=st.floats(5e-4, 0.05),
+    Pi_L0=st.floats(-6.0, 2.0),
+)
+def test_filtration_positive_in_ordinary_tissues(Kf, Pc, sigma, PS, pi_c, L, Pi_L0):
+    # Levick & Michel 2010 (Cardiovasc Res 87:198): no sustained absorption at steady state in
+    # ordinary tissues. Here Pc > Pi_L0 throughout the ranges (from memory, ordinary tissues).
+    out = steady_state(Kf, Pc, sigma, PS, pi_c, L, Pi_L0)
+    assert out["Jv"] > 0
+    assert 0 < out["ratio"] <= 1
+    resid = filtration(Kf, Pc, out["Pi"], pi_c, out["pi_i"], sigma) - out["Jv"]
+    assert abs(resid) <= 1e-12 * Kf * (Pc - Pi_L0 + pi_c)
+    # Bounded by the no-oncotic-gradient value Kf (Pc - Pi_L0) / (1 + Kf/L) (closed form).
+    assert out["Jv"] <= Kf * (Pc - Pi_L0) / (1 + Kf / L) * (1 + 1e-12)
+
+
+def test_no_lymph_state_when_pc_below_lymph_threshold():
+    p = dict(ORDINARY, Pc=-5.0)
+    out = steady_state(**p)
+    assert out["Jv"] == pytest.approx(p["Kf"] * (p["Pc"] - p["Pi_L0"]) / (1 + p["Kf"] / p["L"]))
+    assert out["ratio"] == 1.0
+
+
+def test_vectorised_broadcast():
+    Pc = np.linspace(10, 40, 7)
+    out = steady_state(**dict(ORDINARY, Pc=Pc))
+    assert out["Jv"].shape == (7,)
+    assert np.all(np.diff(out["Jv"]) > 0)  # more pressure, more filtration
+    for k, Pck in enumerate(Pc):
+        assert out["Jv"][k] == pytest.approx(steady_state(**dict(ORDINARY, Pc=Pck))["Jv"], rel=1e-13)
+
+
+def test_revised_reduces_to_classic_without_large_pores():
+    a = steady_state(**ORDINARY)
+    b = revised_steady_state(**ORDINARY, PS_large=0.0)
+    for k in ("Jv", "Pi", "pi_i", "ratio"):
+        assert b[k] == pytest.approx(a[k], rel=1e-13)
+    assert b["pi_g"] == pytest.approx(b["pi_i"], rel=1e-13)
+
+
+def test_revised_conserves_protein_and_jv_ignores_pi_i():
+    p = ORDINARY
+    out = revised_steady_state(**p, PS_large=0.0005)
+    Cg, Ci = out["ratio_g"] * CP, out["ratio"] * CP
+    # Across the glycocalyx: Patlak flux equals the filtrate's protein (washed subglycocalyx space).
+    assert protein_flux(out["Jv"], p["sigma"], p["PS"], CP, Cg) == pytest.approx(out["Jv"] * Cg, rel=1e-12)
+    # Interstitium: lymph protein = filtrate protein + large-pore diffusion.
+    assert out["Jv"] * Ci == pytest.approx(out["Jv"] * Cg + 0.0005 * (CP - Ci), rel=1e-12)
+    # Jv follows the glycocalyx forces (pi_g), whatever pi_i is (Levick & Michel 2010).
+    assert out["pi_i"] > out["pi_g"]
+    assert out["Jv"] == pytest.approx(filtration(p["Kf"], p["Pc"], out["Pi"], p["pi_c"], out["pi_g"], p["sigma"]),
+                                      rel=1e-12)
+    assert out["Jv"] == pytest.approx(revised_steady_state(**p, PS_large=0.01)["Jv"], rel=1e-13)
+
+
+# --- PyTensor back-end -----------------------------------------------------------------------------
+
+pytensor = pytest.importorskip("pytensor")
+pt = pytest.importorskip("pytensor.tensor")
+
+NAMES = ["Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0"]
+
+
+def _grid(n=32, seed=7):
+    rng = np.random.default_rng(seed)
+    return dict(Kf=10 ** rng.uniform(-3.5, -1.5, n), Pc=rng.uniform(-8, 45, n), sigma=rng.uniform(0.3, 1.0, n),
+                PS=10 ** rng.uniform(-5, -2, n), pi_c=rng.uniform(15, 32, n), L=10 ** rng.uniform(-3.3, -1.5, n),
+                Pi_L0=rng.uniform(-6, 2, n))
+
+
+@pytest.mark.parametrize("func,extra", [(steady_state, {}),
+                                        (revised_steady_state, {"PS_large": 0.0005, "Cp": CP})])
+def test_numpy_and_pytensor_agree(func, extra):
+    # Same numbers to 1e-12 on a grid spanning wide ranges (including Pc below the lymph threshold);
+    # gradients finite everywhere on it.
+    vals = _grid()
+    sym = [pt.dvector(n) for n in NAMES]
+    out_sym = func(*sym, **extra, xp=pt)
+    keys = list(out_sym)
+    grads = pytensor.grad(out_sym["Jv"].sum(), sym)
+    f = pytensor.function(sym, [out_sym[k] for k in keys] + grads)
+    res = f(*[vals[n] for n in NAMES])
+    out_np = func(*[vals[n] for n in NAMES], **extra)
+    for k, r in zip(keys, res[: len(keys)], strict=True):
+        a = np.broadcast_to(out_np[k], r.shape)
+        np.testing.assert_allclose(r, a, rtol=1e-12, atol=1e-12 * np.max(np.abs(a)), err_msg=k)
+    for g in res[len(keys):]:
+        assert np.all(np.isfinite(g))
+
+
+@pytest.mark.parametrize("extra", [{}, {"Cp": CP}])
+def test_pytensor_gradient_matches_finite_difference(extra):
+    x = {k: pt.dscalar(k) for k in NAMES}
+    out = steady_state(*[x[k] for k in NAMES], **extra, xp=pt)
+    wrt = [x["Kf"], x["Pc"]]
+    f = pytensor.function(list(x.values()), [g for key in ("Jv", "Pi", "pi_i")
+                                             for g in pytensor.grad(out[key], wrt)])
+    grads = f(*[ORDINARY[k] for k in NAMES])
+    for key_i, key in enumerate(("Jv", "Pi", "pi_i")):
+        for j, name in enumerate(("Kf", "Pc")):
+            h = 1e-6 * abs(ORDINARY[name])
+            up = steady_state(**dict(ORDINARY, **{name: ORDINARY[name] + h}), **extra)[key]
+            dn = steady_state(**dict(ORDINARY, **{name: ORDINARY[name] - h}), **extra)[key]
+            fd = (up - dn) / (2 * h)
+            assert grads[2 * key_i + j] == pytest.approx(fd, rel=1e-6), (key, name)
