@@ -39,7 +39,7 @@ from uncertainty.errors import FluidshiftError, InputError, QualityGateError
 
 ORDER = ("check", "propagate", "sensitivity", "infer", "rank", "design")
 #: study-file sections that belong to one analysis (the rest of the file is shared by all)
-ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design")
+ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule")
 #: the study-file sections each analysis depends on, beyond the shared part
 DEPENDS = {
     "check": (),
@@ -47,7 +47,7 @@ DEPENDS = {
     "sensitivity": ("sensitivity",),
     "infer": ("observations", "infer"),
     "rank": ("rank", "observations"),
-    "design": ("design", "observations"),
+    "design": ("design", "observations", "schedule"),
 }
 LABELS = {"check": "check study", "propagate": "propagate uncertainty", "sensitivity": "global sensitivity",
           "infer": "Bayesian updating", "rank": "rank measurements", "design": "trial design"}
