@@ -40,6 +40,10 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "The treatment effect on one quantity: a ratio (`multiply`) or a difference (`shift`)."),
     ("design.spread", "between_subject / within_subject / measurement = { sd | cv }", "Spread",
      "A spread: `sd` in the quantity's canonical unit, or `cv` (a fraction)."),
+    ("schedule", "[schedule]", "ScheduleSection",
+     "Venous-cuff measurement schedule: the cuff pressures and K reading times that minimise the expected "
+     "posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision), against equal "
+     "spacing. Run by `fluidshift design STUDY --schedule`; defaults apply when the section is absent."),
 ]
 
 #: "section.key" -> meaning, with the unit where there is one
@@ -251,7 +255,8 @@ def render() -> str:
                 "| key | type | default | constraints | meaning |", "|---|---|---|---|---|"]
         prefix = heading
         for name, typ, default, cons in fields_of(model):
-            meaning = MEANINGS.get(f"{prefix}.{name}", "(not described yet)")
+            meaning = (MEANINGS.get(f"{prefix}.{name}") or model.model_fields[name].description
+                       or "(not described yet)")
             out.append(f"| `{name}` | {typ} | {default} | {cons} | {meaning} |")
         out.append("")
     return "\n".join(out).rstrip() + "\n"

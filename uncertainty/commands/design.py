@@ -42,15 +42,28 @@ def table(doc: dict) -> str:
 @click.option("--scheduler", default=None, help="Join a running dask scheduler at ADDRESS.")
 @click.option("--checkpoint", type=click.Path(file_okay=False), default=None,
               help="Folder for finished design points (an interrupted run resumes).")
+@click.option("--schedule", "cuff_schedule", is_flag=True,
+              help="Instead of the trial: optimise the venous-cuff measurement schedule ([schedule] section, "
+                   "defaults when absent); JSON keys optimised, equal_spacing, sd_ratio, prior_sd.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, exact: bool,
-            trials: int | None, workers: int | None, scheduler: str | None, checkpoint: str | None) -> None:
+            trials: int | None, workers: int | None, scheduler: str | None, checkpoint: str | None,
+            cuff_schedule: bool) -> None:
     """Power of the two-sided test (simulated, with Monte Carlo error, and exact noncentral t),
-    assurance over the design prior, Bayesian success, n per arm for the targets, and the curves."""
-    from uncertainty.design import design
+    assurance over the design prior, Bayesian success, n per arm for the targets, and the curves.
+
+    With --schedule: the cuff pressures and K reading times of a venous-cuff protocol that minimise
+    the expected posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision),
+    and the ratio of those sds to equal spacing (sd_ratio below 1 is a gain); the [design] section
+    is not needed then."""
     from uncertainty.errors import InputError
-    from uncertainty.parallel import make_executor
     from uncertainty.study import load_study
+
+    if cuff_schedule:
+        _schedule(load_study(study), seed, as_json, out, quiet)
+        return
+    from uncertainty.design import design
+    from uncertainty.parallel import make_executor
 
     if trials is not None and trials < 2:
         raise InputError("need at least 2 simulated trials", key="--trials", value=trials)
@@ -67,3 +80,35 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
         emit_json(result.to_dict())
     elif not quiet:
         click.echo(table(result.to_dict()))
+
+
+def schedule_table(doc: dict) -> str:
+    """Plain-text summary of a schedule result: optimised against equal spacing."""
+    lines = [f"venous-cuff schedule: {doc['steps']} steps of {doc['step_min']:g} min, {doc['measurements']} readings "
+             f"(noise sd {doc['noise_sd']:g} mL/100g), criterion {doc['criterion']} over {', '.join(doc['targets'])}"]
+    for label in ("optimised", "equal_spacing"):
+        d = doc[label]
+        sd = d["posterior_sd"]
+        lines.append(f"{label:<14} cuff {' '.join(f'{p:g}' for p in d['pressures'])} mmHg; readings at "
+                     f"{' '.join(f'{t:g}' for t in d['times'])} min; sd Kf {sd['Kf']:.3g}, sd Pvi {sd['Pvi']:.3g} mmHg")
+    r = doc["sd_ratio"]
+    lines.append(f"prior sd Kf {doc['prior_sd']['Kf']:.3g}, Pvi {doc['prior_sd']['Pvi']:.3g} mmHg; "
+                 f"sd ratio optimised / equal spacing: Kf {r['Kf']:.3f}, Pvi {r['Pvi']:.3f}")
+    lines += [f"note: {n}" for n in doc.get("notes", [])]
+    return "\n".join(lines)
+
+
+def _schedule(study, seed: int | None, as_json: bool, out: str | None, quiet: bool) -> None:
+    from uncertainty.schedule import schedule
+
+    result = schedule(study, seed=seed)
+    if out:
+        import os
+
+        os.makedirs(out, exist_ok=True)
+        result.to_dataframe().to_csv(os.path.join(out, "schedule.csv"), index=False)
+        result.plot(out)
+    if as_json:
+        emit_json(result.to_dict())
+    elif not quiet:
+        click.echo(schedule_table(result.to_dict()))

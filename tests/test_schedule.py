@@ -1,0 +1,136 @@
+"""Venous-cuff schedule: linearised posterior against conjugate closed forms, never worse than equal
+spacing, greedy/exchange against brute force, study section and CLI."""
+
+from __future__ import annotations
+
+import json
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from uncertainty import schedule as sch
+from uncertainty.errors import InputError, StudyError
+from uncertainty.study import ScheduleSection, Study
+
+ROOT = Path(__file__).resolve().parent.parent
+FOREARM = ROOT / "studies" / "forearm_volunteers.toml"
+
+
+def _study(**schedule_keys) -> Study:
+    doc = tomllib.loads(FOREARM.read_text(encoding="utf-8"))
+    doc["schedule"] = {**doc.get("schedule", {}), **schedule_keys}
+    return Study.from_dict(doc, path=FOREARM)
+
+
+# ---------------------------------------------------------------------------------------------
+# linear-Gaussian toy: the Fisher-information posterior is exact
+
+
+def test_scalar_repeated_readings_match_the_conjugate_normal_posterior() -> None:
+    # K readings of theta with noise s, prior N(m, v): posterior variance 1/(1/v + K/s^2)
+    # (conjugate normal model; common practice, e.g. Gelman et al., Bayesian Data Analysis, section 2.5)
+    v, s, K = 2.0, 0.7, 5
+    J = sch.jacobian(lambda phi: np.repeat(phi[:, :1], K, axis=1), np.array([[0.3]]))
+    info = sch.information(J, s).sum(axis=1)
+    cov = sch.posterior_cov(info, np.array([[1 / v]]))
+    assert cov[0, 0, 0] == pytest.approx(1 / (1 / v + K / s**2), rel=1e-9)
+
+
+def test_linear_regression_posterior_matches_gaussian_conditioning() -> None:
+    # y = X phi + e, phi ~ N(0, S0), e ~ N(0, s^2 I): Cov(phi | y) = S0 - S0 X^T (X S0 X^T + s^2 I)^-1 X S0
+    # (conditioning a joint normal; common practice, any multivariate statistics text)
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(7, 3))
+    A = rng.normal(size=(3, 3))
+    S0 = A @ A.T + 0.5 * np.eye(3)
+    s = 0.4
+    J = sch.jacobian(lambda phi: phi @ X.T, rng.normal(size=(1, 3)))
+    cov = sch.posterior_cov(sch.information(J, s).sum(axis=1), np.linalg.inv(S0))[0]
+    closed = S0 - S0 @ X.T @ np.linalg.solve(X @ S0 @ X.T + s**2 * np.eye(7), X @ S0)
+    np.testing.assert_allclose(np.sqrt(np.diag(cov)), np.sqrt(np.diag(closed)), rtol=1e-7)
+
+
+def test_jacobian_of_the_cuff_model_matches_the_initial_filtration_slope() -> None:
+    # d(filtration volume)/dKf at time s after one step, Kf << C_tis/s: about dPc s (initial slope Kf dPc,
+    # interstitium docstring); venous part independent of Kf. dPc = (T P - Pv0)/(1 + r) (Pappenheimer 1948).
+    m = sch.cuff_model(_study(), ScheduleSection(linearisation_draws=1), seed=1)
+    k = m.names.index("Kf")
+    t = np.array([0.05])
+    J = sch.jacobian(m.forward([40.0], t), m.points)[0, 0, k]
+    v = {n: float(x[0, 0]) for n, x in m.values(m.points).items()}
+    dPc = (m.transmission * 40.0 - v["Pv"]) / (1 + v["r"])
+    assert J / v["Kf"] == pytest.approx(dPc * 0.05, rel=0.02)  # phi = log Kf: dV/dlogKf = Kf dV/dKf
+
+
+# ---------------------------------------------------------------------------------------------
+# search
+
+
+def _tiny(crit: str = "A", targets=("Kf", "Pvi")) -> sch.Problem:
+    m = sch.cuff_model(_study(), ScheduleSection(linearisation_draws=3, step_min=2.0), seed=3)
+    idx = tuple(m.names.index(sch.TARGETS[t]) for t in targets)
+    return sch.Problem(m, (15.0, 35.0, 60.0), 2, 0.5 * np.arange(1, 9), 3, 0.01,
+                       sch.Criterion(crit, idx, m.prior_cov))
+
+
+@pytest.mark.parametrize("crit,targets", [("A", ("Kf", "Pvi")), ("D", ("Kf", "Pvi")), ("A", ("Kf",))])
+def test_greedy_exchange_finds_the_brute_force_optimum_on_a_tiny_grid(crit, targets) -> None:
+    prob = _tiny(crit, targets)
+    bp, bt, bv = sch.brute_force(prob)
+    op, ot, ov = sch.optimise(prob, [15.0, 35.0], sch.equal_times(prob.times, 3))
+    assert ov == pytest.approx(bv, rel=1e-9, abs=1e-12)
+    assert (op, ot) == (bp, bt)
+
+
+@pytest.mark.parametrize("keys", [{}, {"criterion": "D"}, {"targets": ["Pvi"]}, {"noise_sd": 0.05},
+                                  {"measurements": 4, "increasing": False}])
+def test_optimised_schedule_is_never_worse_than_equal_spacing(keys) -> None:
+    doc = sch.schedule(_study(linearisation_draws=4, **keys)).to_dict()
+    assert doc["criterion_ratio"] <= 1 + 1e-12
+    assert doc["optimised"]["criterion"] <= doc["equal_spacing"]["criterion"] + 1e-12
+    for t in doc["targets"]:
+        assert 0 < doc["optimised"]["posterior_sd"][t] < doc["prior_sd"][t]
+    if len(doc["targets"]) == 1:
+        t = doc["targets"][0]
+        assert doc["sd_ratio"][t] <= 1 + 1e-9
+    assert len(doc["optimised"]["times"]) == doc["measurements"]
+    if doc["increasing"]:
+        assert doc["optimised"]["pressures"] == sorted(doc["optimised"]["pressures"])
+
+
+def test_more_readings_or_less_noise_never_raise_the_posterior_sd() -> None:
+    a = sch.schedule(_study(linearisation_draws=2, measurements=6)).to_dict()
+    b = sch.schedule(_study(linearisation_draws=2, measurements=12)).to_dict()
+    c = sch.schedule(_study(linearisation_draws=2, measurements=6, noise_sd=0.002)).to_dict()
+    assert b["optimised"]["criterion"] <= a["optimised"]["criterion"]
+    assert c["optimised"]["criterion"] <= a["optimised"]["criterion"]
+
+
+# ---------------------------------------------------------------------------------------------
+# study section, CLI, figure
+
+
+def test_bad_schedule_input_names_the_key() -> None:
+    with pytest.raises(StudyError) as e:
+        _study(readings=3)
+    assert "schedule" in (e.value.key or "")
+    with pytest.raises(StudyError) as e:
+        _study(pressure_grid=[20.0, 250.0])
+    assert e.value.key.startswith("schedule.pressure_grid")
+    with pytest.raises(InputError) as e2:
+        sch.schedule(_study(measurements=200, time_step_min=1.0, linearisation_draws=1))
+    assert e2.value.key == "schedule.measurements"
+
+
+def test_cli_design_schedule_json_and_figure(tmp_path) -> None:
+    from uncertainty.cli import main
+
+    res = CliRunner().invoke(main, ["design", str(FOREARM), "--schedule", "--json", "--out", str(tmp_path)])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.output)
+    assert set(doc) >= {"optimised", "equal_spacing", "sd_ratio", "prior_sd"}
+    assert doc["criterion_ratio"] <= 1
+    assert (tmp_path / "schedule.png").exists()
