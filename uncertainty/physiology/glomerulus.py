@@ -37,6 +37,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.physiology.iteration import fixed_steps
 from uncertainty.physiology.oncotic import pi_total_protein
 
 Array = Any
@@ -75,34 +76,6 @@ def _above_fraction(n0: Array, n1: Array, tol: float, xp: Any) -> Array:
     rising = 1.0 - xp.minimum(xp.maximum((tol - n0) / xp.where(flat, -1.0, -safe), 0.0), 1.0)
     sloped = xp.where(d > 0, falling, rising)
     return xp.where(flat, xp.where(n0 > tol, 1.0, 0.0), sloped)
-
-
-def _is_pytensor(xp: Any) -> bool:
-    return getattr(xp, "__name__", "").startswith("pytensor")
-
-
-def fixed_steps(step: Callable[..., tuple[Array, ...]], init: tuple[Array, ...], n_steps: int, h: float,
-                xp: Any = np) -> tuple[Array, ...]:
-    """Apply ``step(x0, *state) -> state`` at x0 = 0, h, 2h, ... (n_steps times) and return the final state.
-
-    One step function written in ``xp`` arithmetic; numpy runs it in a Python loop, PyTensor in one
-    ``pytensor.scan`` (an unrolled graph of many steps takes minutes to compile; a scan takes seconds and
-    is differentiable). The x0 values are the same floats (i * h) on both back-ends.
-    """
-    if not _is_pytensor(xp):
-        state = tuple(init)
-        for i in range(n_steps):
-            state = tuple(step(i * h, *state))
-        return state
-    import pytensor
-
-    init_t = [xp.as_tensor_variable(v) for v in init]
-    xs = xp.arange(n_steps, dtype="float64") * h
-    outs = pytensor.scan(fn=lambda x0, *st: list(step(x0, *st)), sequences=[xs], outputs_info=init_t,
-                         n_steps=n_steps, return_updates=False)
-    if not isinstance(outs, list | tuple):
-        outs = [outs]
-    return tuple(o[-1] for o in outs)
 
 
 def glomerular_filtration(Kf: Array, dP: Array, Q_A: Array, C_A: Array, dP_eff: Array | None = None,

@@ -1,0 +1,50 @@
+"""Lung: capillary pressure from left atrial and pulmonary arterial pressure, and extravascular lung water.
+
+Pc = LAP + 0.4 (PAP - LAP) (Gaar et al. 1967, Am J Physiol 213:910; ``capillary.pulmonary_capillary_pressure``).
+Left-sided heart failure acts through LAP: a raised LAP raises Pc, filtration, Pi and lymph flow.
+
+Extravascular lung water at steady state: the coupled balance of filtration, lymph and interstitial
+protein (``balance.steady_state``, or ``balance.revised_steady_state`` with ``revised=True``) gives Pi; the
+interstitial pressure-volume relation (``interstitium.oedema_volume``, linear or two-slope) turns the rise
+of Pi above its reference into excess interstitial water, added to the baseline EVLW. The approach to a
+new steady state after a step in Pc is exponential with time constant C_tis/(Kf + L) in the linear model
+(the interstitial part of ``interstitium.volume_time_course``), returned as ``tau``.
+
+Units: pressures mmHg; Kf and L mL/min/mmHg per basis; PS, Jv, JL mL/min per basis; C_tis (and C_high)
+mL/mmHg per basis; EVLW and EVLW0 mL per basis; tau in min. Plain arithmetic plus ``xp``.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from uncertainty.physiology.balance import revised_steady_state, steady_state
+from uncertainty.physiology.capillary import pulmonary_capillary_pressure
+from uncertainty.physiology.interstitium import oedema_volume
+
+Array = Any
+
+
+def lung_water(Kf: Array, LAP: Array, PAP: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
+               C_tis: Array, Pi_ref: Array, EVLW0: Array = 0.0, *, fraction: Array = 0.4,
+               C_high: Array | None = None, P_break: Array | None = None, Cp: Array | None = None,
+               revised: bool = False, xp: Any = np) -> dict[str, Array]:
+    """Steady-state pulmonary exchange and extravascular lung water (EVLW).
+
+    LAP, PAP: left atrial and mean pulmonary arterial pressure (mmHg); fraction: Gaar's 0.4 (1);
+    Kf, sigma, PS, pi_c, L, Pi_L0 (and optional Cp) as ``balance.steady_state``; C_tis (mL/mmHg per
+    basis) with optional two-slope C_high and P_break, and Pi_ref (mmHg, normally hydrated reference) as
+    ``interstitium.oedema_volume``; EVLW0 (mL per basis) the water at Pi_ref.
+    Returns dict ``Pc``, ``Jv``, ``Pi``, ``pi_i``, ``ratio``, ``JL`` (= Jv at steady state), ``oedema_volume``
+    (mL per basis above the reference), ``EVLW`` (EVLW0 + oedema_volume), ``tau`` (min, C_tis/(Kf + L),
+    linear model), and ``pi_g`` when ``revised``.
+    """
+    Pc = pulmonary_capillary_pressure(LAP, PAP, fraction)
+    solve = revised_steady_state if revised else steady_state
+    out = dict(solve(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp=Cp, xp=xp))
+    extra = oedema_volume(out["Pi"], Pi_ref, C_tis, C_high, P_break, xp=xp)
+    out.update({"Pc": Pc, "JL": out["Jv"], "oedema_volume": extra, "EVLW": EVLW0 + extra,
+                "tau": C_tis / (Kf + L)})
+    return out
