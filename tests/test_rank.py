@@ -94,3 +94,51 @@ def test_unknown_quantity_is_an_input_error() -> None:
     vals, y = _draws(200)
     with pytest.raises(InputError):
         rank_draws(vals, y, [Reading("Z", "zz", sd=1.0)])
+
+
+# ---------------------------------------------------------------------------------------------
+# ranking from the current posterior (observations present)
+
+# Conjugate normal: Pc ~ N(20, 3^2) (invented), one reading 23 with sd 2 already observed, candidate a second
+# reading with sd 2. Posterior variance after n readings: 1/(1/v + sum 1/s_i^2) (conjugate normal model;
+# common practice, e.g. Gelman et al., Bayesian Data Analysis, section 2.5). Jv = Kf (Pc - Pi - sigma (pi_c -
+# pi_i)) is linear in Pc with everything else fixed, so Var(Jv | .) = Kf^2 Var(Pc | .).
+_KF, _V, _S1, _S2 = 0.01, 9.0, 2.0, 2.0
+
+
+def _conjugate_doc(tmp_path) -> dict:
+    return {
+        "study": {"title": "conjugate check (invented)", "tissue": "skeletal_muscle", "model": "classic",
+                  "seed": 11},
+        "parameters": {"Pc": {"dist": "normal", "mean": 20.0, "sd": 3.0, "unit": "mmHg"}, "Kf": _KF,
+                       "Pi": -1.0, "pi_c": 25.0, "pi_i": 10.0, "sigma": 0.9},
+        "observations": [{"kind": "measurement", "parameter": "Pc", "value": 23.0, "sd": _S1, "unit": "mmHg"}],
+        "rank": {"candidates": [{"name": "second Pc", "parameter": "Pc", "sd": _S2, "unit": "mmHg"}]},
+    }
+
+
+@pytest.mark.slow
+def test_rank_from_posterior_matches_two_reading_conjugate_closed_form(tmp_path) -> None:
+    from uncertainty.rank import rank
+    from uncertainty.study import Study
+
+    study = Study.from_dict(_conjugate_doc(tmp_path), base_dir=tmp_path)
+    assert study.names == ["Pc"]
+    doc = rank(study, samples=4096).to_dict()
+    assert doc["from"] == "posterior" and doc["posterior_draws"]["draws"] >= 1000
+    v1 = 1 / (1 / _V + 1 / _S1**2)               # after the observed reading
+    v2 = 1 / (1 / _V + 1 / _S1**2 + 1 / _S2**2)  # after the candidate as well
+    n = doc["samples"]
+    assert doc["prior"]["var"] == pytest.approx(_KF**2 * v1, rel=4 * np.sqrt(2 / n))
+    row = doc["candidates"][0]
+    tol = 4 * np.hypot(row["mc_se"], _KF**2 * v1 * np.sqrt(2 / n))
+    assert abs(row["expected_var_post"] - _KF**2 * v2) < tol
+    assert abs(row["expected_variance_reduction"] - _KF**2 * (v1 - v2)) < tol
+    # perfect information on the posterior draws: Jv is a function of Pc alone, S1 = 1
+    assert row["perfect_information_S1"] == pytest.approx(1.0, abs=0.05)
+    # the prior path stays available and gives the one-reading figure instead
+    prior_doc = rank(study, samples=8192, from_prior=True).to_dict()
+    assert prior_doc["from"] == "prior"
+    prow = prior_doc["candidates"][0]
+    v1p = 1 / (1 / _V + 1 / _S2**2)
+    assert abs(prow["expected_var_post"] - _KF**2 * v1p) < 4 * np.hypot(prow["mc_se"], _KF**2 * _V * np.sqrt(2 / 8192))

@@ -3,7 +3,8 @@
 For a candidate reading X of a quantity theta (noise sd or cv, an optional bias prior, ``n``
 repeated readings averaged), the expected posterior variance of the output Y (Jv) after the
 reading is E_X[Var(Y | X)] = Var(Y) - Var(E[Y | X]). Two estimators over one set of draws
-(theta, Y) from the prior:
+(theta, Y) from the prior, or, when the study has observations, from the current posterior (thinned
+MCMC draws, :func:`posterior_pool`; Var and E are then posterior moments):
 
 - ``regression`` (Strong, Oakley, Brennan & Breeze 2015, Med Decis Making 35:570-583): simulate
   one reading per draw and regress Y on the reading(s) with a penalised cubic B-spline basis
@@ -427,11 +428,77 @@ class RankResult:
         return plot_rank(self.doc, out_dir)
 
 
-def rank(study: Any, seed: int | None = None, samples: int | None = None, method: str = "auto") -> RankResult:
+def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler: str = "nutpie",
+                   chains: int = 4, tune: int = 1000) -> tuple[dict[str, np.ndarray], np.ndarray, dict[str, Any]]:
+    """Posterior draws of the study's individual from its observations, thinned for autocorrelation.
+
+    Samples with :func:`uncertainty.inference.infer` (quality gate: QualityGateError, exit 3), about
+    ``samples`` draws over ``chains`` chains, then keeps every ``thin``-th draw of each chain with
+    thin = total draws / smallest bulk ESS over the uncertain inputs (so the kept draws are close to
+    independent, as the regression and the given-data index assume). Without subject labels the
+    draws are the study's individual; with subjects they are a new individual of the population (the
+    typical posterior plus the between-subject layer), the level a new reading would measure.
+    Returns (name -> values, including derived quantities and outputs; ``y`` = ``output`` draws;
+    info with ``draws``, ``thin``, ``ess_bulk_min``, ``sampler``). Canonical units.
+    """
+    import arviz as az
+
+    from uncertainty.inference import infer
+    from uncertainty.inference.api import _kind_hooks
+    from uncertainty.inference.model_builder import apply_layer, spread_ratio
+    from uncertainty.inference.result import flat
+
+    per_chain = max(250, math.ceil(samples / chains))
+    res = infer(study, sampler=sampler, seed=seed, chains=chains, draws=per_chain, tune=tune, checks=False)
+    idata, built = res.idata, res.built
+    problem = built.problem
+    names = list(problem.priors)
+    n_chain, n_draw = int(idata.posterior.sizes["chain"]), int(idata.posterior.sizes["draw"])
+    ess = az.ess(idata, var_names=[n for n in names if n in idata.posterior], method="bulk")
+    ess_min = float(min(float(np.min(ess[v].values)) for v in ess.data_vars))
+    thin = max(1, int(n_chain * n_draw // max(ess_min, 1.0)))
+    rng = np.random.default_rng(seed + 104729)
+    vals: dict[str, Any] = dict(problem.fixed)
+    for name in names:
+        if not built.hierarchical:
+            vals[name] = flat(idata, f"{name}__subject")[:, 0]
+            continue
+        typ = flat(idata, name)
+        sp = built.spreads.get(name)
+        if sp is None:
+            vals[name] = typ
+            continue
+        kind, declared = sp
+        ratio: Any = 1.0
+        if f"{name}__spread" in idata.posterior:
+            ratio = spread_ratio(kind, declared, flat(idata, f"{name}__spread"), np)
+        vals[name] = apply_layer(problem.priors[name], typ, rng.standard_normal(typ.shape[0]), np, ratio)
+    if built.hierarchical:
+        for hook in _kind_hooks(built, "new_subject"):
+            vals = hook(built, idata, vals, rng)
+    keep = np.arange(n_chain * n_draw).reshape(n_chain, n_draw)[:, ::thin].ravel()
+    total = n_chain * n_draw
+    vals = {k: (np.asarray(v, dtype=float)[keep] if np.ndim(v) and np.shape(v)[0] == total else v)
+            for k, v in vals.items()}
+    outputs = problem.evaluate(vals, np)
+    y = np.asarray(outputs[output], dtype=float) * np.ones(len(keep))
+    pool = {**{k: np.asarray(v, dtype=float) for k, v in outputs.items() if np.shape(v) == y.shape},
+            **{k: np.asarray(v, dtype=float) for k, v in vals.items() if np.shape(v) == y.shape}}
+    info = {"draws": int(len(keep)), "thin": thin, "ess_bulk_min": ess_min, "sampler": res.doc.get("sampler"),
+            "chains": n_chain, "level": "new individual" if built.hierarchical else "the study's individual"}
+    return pool, y, info
+
+
+def rank(study: Any, seed: int | None = None, samples: int | None = None, method: str = "auto",
+         from_prior: bool = False) -> RankResult:
     """Rank candidate measurements for the study's output (``[rank] output``, default Jv).
 
-    Draws come from the prior (individual layer: a reading measures this individual's value).
-    ``samples``: draws (default ``[rank] samples`` or 4096, at least 4096 for the regression).
+    Without observations (or with ``from_prior``) draws come from the prior (individual layer: a
+    reading measures this individual's value); with observations from the current posterior
+    (:func:`posterior_pool`, thinned MCMC draws): simulated readings from the posterior draws and the
+    perfect-information bound as the given-data first-order index on them. JSON key ``from`` says
+    which. ``samples``: draws (default ``[rank] samples`` or 4096, at least 4096 for the prior path;
+    the posterior path samples about that many and keeps the thinned ones).
     """
     from uncertainty import model, sampling
 
@@ -441,17 +508,25 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     n = int(samples or max(getattr(section, "samples", 4096) or 4096, 4096))
     seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
     cands = candidates_of(study)
-    values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
-    outputs = model.evaluate(study, values)
-    y = np.asarray(outputs[output], dtype=float)
-    # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
-    pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
-    doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method)
     notes = []
-    if getattr(study, "observations", None):
-        notes.append("figures are from the prior: the observations are not yet folded in (posterior draws "
-                     "from `infer` are not used by rank in this version)")
+    posterior = None
+    if getattr(study, "observations", None) and not from_prior:
+        pool, y, posterior = posterior_pool(study, output, seed=seed, samples=n)
+        notes.append(f"figures are from the current posterior: {posterior['draws']} MCMC draws of "
+                     f"{posterior['level']}, thinned every {posterior['thin']} for autocorrelation")
+    else:
+        values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
+        outputs = model.evaluate(study, values)
+        y = np.asarray(outputs[output], dtype=float)
+        # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
+        pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
+        if getattr(study, "observations", None):
+            notes.append("figures are from the prior (--from-prior): the observations are not folded in")
+    doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method)
     unit = getattr(model, "OUTPUT_UNITS", {}).get(output, "")
-    doc = {"output": output, "samples": int(len(y)), "seed": seed, **doc, "notes": notes,
+    doc = {"output": output, "samples": int(len(y)), "seed": seed, "from": "prior" if posterior is None else
+           "posterior", **doc, "notes": notes,
            "units": {"expected_var_post": f"({unit})^2", "expected_ci95_width": unit, "per_cost": f"{unit} per cost"}}
+    if posterior is not None:
+        doc["posterior_draws"] = posterior
     return RankResult(doc)

@@ -9,7 +9,7 @@ from uncertainty.commands.common import emit_json, handle_errors, study_options
 
 def table(doc: dict) -> str:
     """Plain-text table of a rank result (best first)."""
-    lines = [f"expected effect of one measurement on {doc['output']} (prior 95% width "
+    lines = [f"expected effect of one measurement on {doc['output']} ({doc.get('from', 'prior')} 95% width "
              f"{doc['prior']['ci95_width']:.3g}; {doc['samples']} draws, seed {doc['seed']})",
              f"{'candidate':<28}{'reads':<7}{'Var reduction':>15}{'+-mc_se':>10}{'bound':>11}"
              f"{'95% width':>11}{'narrow/cost':>13}"]
@@ -32,16 +32,19 @@ def table(doc: dict) -> str:
 @click.option("--samples", type=int, default=None, help="Prior draws (at least 4096).")
 @click.option("--method", type=click.Choice(["auto", "regression", "importance"]), default="auto",
               help="EVSI estimator: regression on the simulated reading, likelihood reweighting, or auto.")
+@click.option("--from-prior", "from_prior", is_flag=True,
+              help="Rank from the prior even when the study has observations (no MCMC).")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, samples: int | None,
-            method: str) -> None:
+            method: str, from_prior: bool) -> None:
     """Expected posterior variance and 95% interval width of the output after each candidate
     measurement, the perfect-information bound, narrowing per cost, and the best pair / set within
-    the budget (fitted jointly)."""
+    the budget (fitted jointly). With [[observations]] the figures start from the current posterior
+    (thinned MCMC draws; exit 3 if the chains fail the gate) unless --from-prior is given."""
     from uncertainty.rank import rank
     from uncertainty.study import load_study
 
-    result = rank(load_study(study), seed=seed, samples=samples, method=method)
+    result = rank(load_study(study), seed=seed, samples=samples, method=method, from_prior=from_prior)
     if out:
         import os
 
