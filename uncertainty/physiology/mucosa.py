@@ -112,7 +112,7 @@ def absorbing_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: 
     pi_i, _ = _oncotic_from_ratio(R, pi_c, Cp)
     JL = Jv + J_epi
     # With lymph stopped, Pi sits below Pi_L0 where Starling's equation gives Jv = -J_epi.
-    Pi_stopped = Pc - sigma * (pi_c - pi_i) + Jv / Kf
+    Pi_stopped = Pc - sigma * (pi_c - pi_i) - Jv / Kf
     Pi = xp.where(stopped, Pi_stopped, Pi_L0 + JL / L)
     return {"Jv": Jv, "Pi": Pi, "pi_i": pi_i, "pi_g": pi_i, "ratio": R, "JL": JL,
             "lymph_stopped": xp.where(stopped, 1.0, 0.0)}
