@@ -7,17 +7,20 @@ package is imported straight from a source checkout, the top-level folders are u
 
 from __future__ import annotations
 
-import importlib.resources
+import importlib
 from pathlib import Path
 
 
 def _folder(package: str, fallback: str) -> Path:
+    # The data packages have no __init__.py (they are plain folders of TOML and CSV), so they
+    # import as namespace packages: take the first directory on their __path__.
     try:
-        found = Path(str(importlib.resources.files(package)))
-        if found.is_dir():
-            return found
+        module = importlib.import_module(package)
     except ModuleNotFoundError:
-        pass
+        module = None
+    for entry in getattr(module, "__path__", []):
+        if Path(entry).is_dir():
+            return Path(entry)
     return Path(__file__).resolve().parent.parent / fallback
 
 
