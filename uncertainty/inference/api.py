@@ -249,8 +249,23 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
     for q, (kind, declared) in built.spreads.items():
         if f"{q}__spread" in idata.posterior:
             spreads[q] = {**summarise(flat(idata, f"{q}__spread")), "kind": kind, "declared": declared}
-    extras = {v: summarise(flat(idata, v).reshape(flat(idata, v).shape[0], -1)[:, 0])
-              for v in built.extra_params if v in idata.posterior}
+    extras = {}
+    for v in built.extra_params:
+        if v not in idata.posterior:
+            continue
+        x = flat(idata, v).reshape(flat(idata, v).shape[0], -1)[:, 0]
+        extras[v] = summarise(x)
+        ep = built.extra_priors.get(v)
+        if ep is not None and ep.dist != "fixed":
+            c = float(1.0 - extras[v]["sd"] ** 2 / ep.sd() ** 2)
+            extras[v].update({"contraction": c, "prior": {"mean": ep.mean(), "sd": ep.sd(),
+                                                          "ci95": list(ep.interval(0.95))},
+                              "prior_bound": bool(c < PRIOR_BOUND_CONTRACTION)})
+    if built.hierarchical and built.context is not None:
+        for var, label in built.context.subject_params.items():
+            draws = flat(idata, var)
+            for k, sid in enumerate(built.subjects):
+                subjects[sid][label] = summarise(draws[:, k])
     from uncertainty.inference.observations import kind_module
 
     notes = list(built.notes)
@@ -259,6 +274,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         if note and note not in notes:
             notes.append(note)
     ident = identifiability(built, post, prior, contraction)
+    ident["prior_bound"] += [v for v, e in extras.items() if e.get("prior_bound")]
     for pair in ident["confounded"]:
         notes.append(pair["note"])
     if ident["prior_bound"]:

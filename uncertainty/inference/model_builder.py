@@ -72,6 +72,11 @@ class BuiltModel:
     prior_bound_candidates: list[str] = dataclasses.field(default_factory=list)
     context: Any = None
 
+    @property
+    def extra_priors(self) -> dict[str, Any]:
+        """Priors of side quantities added by observation kinds (volume curves, instruments)."""
+        return self.context.extra_priors if self.context is not None else {}
+
 
 class BuildContext:
     """What observation kinds see while they add their terms (inside the model context).
@@ -92,6 +97,9 @@ class BuildContext:
         self.extra_params: list[str] = []
         self.prior_bound_candidates: list[str] = []
         self.instrument_bias: dict[str, Any] = {}
+        self.extra_priors: dict[str, Any] = {}      # side quantity -> Prior (for contraction)
+        self.subject_params: dict[str, str] = {}    # per-subject Deterministic -> label
+        self.curves: list[dict[str, Any]] = []      # time-course data (for figures)
         self._overrides: dict[str, Any] = {}
 
     # -- access ---------------------------------------------------------------------------------

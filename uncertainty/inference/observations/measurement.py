@@ -90,6 +90,7 @@ def add(ctx: Any, obs: Observation) -> None:
                 rv_name = f"{key}__bias"
                 ctx.instrument_bias[key] = prior_rv(rv_name, bias_prior)
                 ctx.extra_params.append(rv_name)
+                ctx.extra_priors[rv_name] = bias_prior
             pred = pred + ctx.instrument_bias[key]
     sd, cv = _noise(obs, ctx.problem)
     name = term_name(obs)

@@ -1,0 +1,237 @@
+"""``volume_time_course``: limb volume (mL/100 mL) against time after one or more venous-cuff steps.
+
+The curve is ``physiology.interstitium.volume_time_course`` (linear interstitium, analytic):
+a fast venous-filling phase (venous compliance Cv, time constant tau_v) plus the filtration phase,
+with the cuff-to-vein transmission and dPc = dPv / (1 + r), plus a per-subject baseline offset
+(the protocol bias term). Filtration responds to venous pressure above the isovolumetric venous
+pressure Pvi (the curve's filtration part is evaluated with Pvi as its baseline), the venous part
+to pressure above the resting venous pressure Pv.
+
+Re-parameterisation. What such curves identify is Kf (per 100 mL) and Pvi for each subject; the
+interstitial compliance C_tis and lymph conductance L enter the linear solution only through the
+time constant tau = C_tis / (Kf + L). So the model samples, non-centred, per subject Kf (the study's
+hierarchical Kf, converted to per 100 mL), Pvi and Cv, and once tau, tau_v, transmission and the
+reading noise; C_tis and L are never sampled separately (they would form a ridge). The naive
+alternative (``parameterisation = "naive"``: centred per-subject Kf, C_tis and L) is kept for the
+benchmark only.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from uncertainty.inference.problem import Observation, Problem
+
+LABELLED = True
+NOTE = ("volume_time_course: the curves identify Kf (per 100 mL) and Pvi per subject; interstitial "
+        "compliance and lymph conductance enter only through tau = C_tis/(Kf + L), sampled as one "
+        "quantity.")
+
+# Side priors of the curve model (canonical units). Each names its origin.
+SIDE_PRIORS: dict[str, dict[str, Any]] = {
+    # isovolumetric venous pressure, typical subject; REFERENCES: Gamble et al. 1993 (J Physiol
+    # 464:407), Pvi roughly 8-30 mmHg depending on protocol (from memory)
+    "Pvi": {"dist": "normal", "mean": 15.0, "sd": 5.0, "between_subject": {"sd": 4.0},
+            "origin": "from memory: Gamble et al. 1993 J Physiol 464:407, Pvi about 8-30 mmHg"},
+    # venous compliance of the forearm, mL/mmHg per 100 mL (from memory: a few hundredths)
+    "Cv": {"dist": "lognormal", "median": 0.04, "gsd": 1.6, "between_subject": {"cv": 0.3},
+           "origin": "from memory: forearm venous compliance of order 0.03-0.06 mL/mmHg/100 mL"},
+    # venous filling time constant (min), physiology.interstitium.TAU_VENOUS_MIN is 1 min (from memory)
+    "tau_v": {"dist": "lognormal", "median": 0.6, "gsd": 2.0,
+              "origin": "from memory: venous filling complete within 1-2 min of a cuff step"},
+    # slow-phase time constant C_tis/(Kf + L) (min); the slow phase is near-linear over minutes
+    "tau": {"dist": "lognormal", "median": 30.0, "gsd": 3.0,
+            "origin": "from memory: filtration phase near-linear over a 4-min step (tau of tens of min)"},
+    # cuff-to-vein pressure transmission; Christ et al. 1997 (J Physiol 503:463) about 0.9
+    "transmission": {"dist": "normal", "mean": 0.9, "sd": 0.04,
+                     "origin": "from memory: Christ et al. 1997 J Physiol 503:463, about 0.9"},
+    # per-subject baseline offset (mL/100 mL): common practice, a zero-centred protocol bias term
+    "offset_sd": {"value": 0.02, "origin": "common practice: zero-centred baseline offset"},
+    # reading noise when the observation states no sd (mL/100 mL)
+    "noise": {"dist": "lognormal", "median": 0.01, "gsd": 2.5,
+              "origin": "from memory: strain-gauge plethysmography resolution about 0.01 mL/100 mL"},
+}
+
+# Naive model (benchmark only): centred hierarchy over C_tis and L (mL/mmHg, mL/min/mmHg per 100 mL)
+NAIVE_PRIORS = {
+    "C_tis": {"median": 0.3, "gsd": 2.0, "cv": 0.3, "origin": "from memory: Aukland & Reed 1993"},
+    "L": {"median": 0.005, "gsd": 2.0, "cv": 0.3, "origin": "from memory: order of Kf"},
+}
+
+
+def _time_column(data: dict[str, list]) -> np.ndarray:
+    if "time_min" in data:
+        return np.asarray(data["time_min"], dtype=float)
+    if "time_h" in data:
+        return np.asarray(data["time_h"], dtype=float) * 60.0
+    return np.asarray(data["time_day"], dtype=float) * 1440.0
+
+
+def _data(obs: Observation, problem: Problem) -> dict[str, list]:
+    data = obs.extra.get("data")
+    if data is None:
+        raise obs.error("a volume_time_course needs its data file (read by the study loader)", "file",
+                        obs.extra.get("file"))
+    return data
+
+
+def _steps(obs: Observation) -> tuple[list[float], list[float]]:
+    steps = obs.extra.get("steps")
+    if steps is None:
+        step = obs.extra.get("step")
+        steps = [step] if step is not None else []
+        for s in steps:
+            if isinstance(s, dict):
+                s.setdefault("at_min", 0.0)
+    times, cuffs = [], []
+    for i, s in enumerate(steps):
+        get = s.get if isinstance(s, dict) else (lambda k, _s=s: getattr(_s, k, None))
+        at = get("at_min")
+        times.append(0.0 if at is None else float(at))
+        cuffs.append(float(get("to")))
+        if i and not times[-1] > times[-2]:
+            raise obs.error("step times (at_min) must increase", f"steps[{i}].at_min", times[-1])
+    if not times:
+        raise obs.error("give step = {...} or steps = [...]", "step", None)
+    return times, cuffs
+
+
+def subjects(obs: Observation, problem: Problem) -> list[tuple[str, str | None]]:
+    """(subject, group) pairs in the data file, in file order."""
+    data = _data(obs, problem)
+    seen: dict[str, str | None] = {}
+    groups = data.get("group")
+    for k, s in enumerate(data["subject"]):
+        s = str(s)
+        if s not in seen:
+            seen[s] = None if groups is None else str(groups[k])
+    return list(seen.items())
+
+
+def validate(obs: Observation, problem: Problem) -> None:
+    """Data columns (subject, time, volume), times rising per subject, non-negative volumes, steps."""
+    data = _data(obs, problem)
+    if "subject" not in data or "volume" not in data:
+        raise obs.error("the data file needs columns subject, time_min and volume", "file",
+                        obs.extra.get("file"))
+    t = _time_column(data)
+    last: dict[str, float] = {}
+    for k, (s, tk) in enumerate(zip(data["subject"], t, strict=True)):
+        if s in last and not tk > last[s]:
+            raise obs.error(f"time must increase within subject {s} (row {k + 1})", "file", float(tk))
+        last[s] = tk
+    _steps(obs)
+    if obs.cv is not None:
+        raise obs.error("volume changes can be zero or negative: give the reading noise as sd "
+                        "(mL/100 mL), or leave it out to estimate it", "cv", obs.cv)
+    if "Kf" not in problem.priors:
+        raise obs.error("a volume_time_course needs Kf to be uncertain in the study", "kind", obs.kind)
+    if "effects" not in obs.extra and data.get("group") is not None:
+        obs.extra["effects"] = ["Kf"]
+
+
+def _side_prior(name: str) -> Any:
+    from uncertainty.priors import Prior
+
+    spec = SIDE_PRIORS[name]
+    params = {k: float(v) for k, v in spec.items() if k in ("mean", "sd", "median", "gsd")}
+    return Prior(name, spec["dist"], params, between_subject=spec.get("between_subject"),
+                 origin=spec["origin"])
+
+
+def _hier(ctx: Any, name: str, prior: Any, n_subj: int, hierarchical: bool) -> Any:
+    """Typical value, spread and per-subject values of a side quantity (non-centred)."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    from uncertainty.inference.model_builder import SPREAD_LOG_SD, spread_ratio
+    from uncertainty.inference.observations.base import prior_rv
+
+    typ = prior_rv(name, prior)
+    ctx.extra_params.append(name)
+    ctx.extra_priors[name] = prior
+    bs = prior.between_subject
+    if not bs:
+        return typ * pt.ones(n_subj)
+    kind, declared = next(iter(bs.items()))
+    ratio: Any = 1.0
+    if hierarchical:
+        w = pm.Normal(f"{name}__spread_z", 0.0, 1.0)
+        spread = pm.Deterministic(f"{name}__spread", declared * pt.exp(SPREAD_LOG_SD * w))
+        ratio = spread_ratio(kind, declared, spread, pt)
+    z = pm.Normal(f"{name}__subject_z", 0.0, 1.0, dims="subject")
+    return prior.individual(typ * pt.ones(n_subj), z * ratio, xp=pt)
+
+
+def add(ctx: Any, obs: Observation) -> None:
+    """Likelihood of every volume reading of every subject in the file."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    from uncertainty.inference.model_builder import ObservedTerm
+    from uncertainty.inference.observations.base import add_reading, prior_rv, term_name
+    from uncertainty.physiology import interstitium
+
+    data = _data(obs, ctx.problem)
+    name = term_name(obs)
+    t = _time_column(data)
+    sidx = np.array([ctx.subjects.index(str(s)) for s in data["subject"]])
+    y = np.asarray(data["volume"], dtype=float)
+    times, cuffs = _steps(obs)
+    n = len(ctx.subjects)
+    naive = obs.extra.get("parameterisation") == "naive"
+    density = ctx.problem.density
+    # 100 mL of tissue weighs 100*density g, so a coefficient per 100 mL is density times that per 100 g
+    kf = ctx.value("Kf") * density
+    r = ctx.value("r") if ctx.problem.quantity_known("r") else 0.2 * pt.ones(n)
+    pv0 = ctx.value("Pv") if ctx.problem.quantity_known("Pv") else 9.0 * pt.ones(n)
+    pvi = _hier(ctx, f"{name}__Pvi", _side_prior("Pvi"), n, ctx.hierarchical)
+    cv = _hier(ctx, f"{name}__Cv", _side_prior("Cv"), n, ctx.hierarchical)
+    tau_v = prior_rv(f"{name}__tau_v", _side_prior("tau_v"))
+    trans = prior_rv(f"{name}__transmission", _side_prior("transmission"))
+    for q in ("tau_v", "transmission"):
+        ctx.extra_params.append(f"{name}__{q}")
+        ctx.extra_priors[f"{name}__{q}"] = _side_prior(q)
+    if naive:
+        # centred per-subject C_tis and L (benchmark baseline): a ridge along C_tis/(Kf + L)
+        c_tis = pm.LogNormal(f"{name}__C_tis", mu=np.log(NAIVE_PRIORS["C_tis"]["median"]),
+                             sigma=np.log(NAIVE_PRIORS["C_tis"]["gsd"]), dims="subject")
+        lym = pm.LogNormal(f"{name}__L", mu=np.log(NAIVE_PRIORS["L"]["median"]),
+                           sigma=np.log(NAIVE_PRIORS["L"]["gsd"]), dims="subject")
+        c_arg, l_arg = c_tis, lym
+    else:
+        tau = prior_rv(f"{name}__tau", _side_prior("tau"))
+        ctx.extra_params.append(f"{name}__tau")
+        ctx.extra_priors[f"{name}__tau"] = _side_prior("tau")
+        # tau = C_tis / (Kf + L): with L = 0 the solution depends on C_tis only through tau
+        c_arg, l_arg = tau * kf, 0.0 * kf
+    z_off = pm.Normal(f"{name}__offset_z", 0.0, 1.0, dims="subject")
+    offset = SIDE_PRIORS["offset_sd"]["value"] * z_off
+    at = pt.as_tensor_variable(t)
+    common = dict(tau_v=tau_v, r=r[sidx], transmission=trans, xp=pt, parts=True)
+    # venous phase: pressure above the resting venous pressure; filtration: above Pvi
+    ven = interstitium.volume_time_course(at, times, cuffs, kf[sidx], c_arg[sidx], l_arg[sidx], cv[sidx],
+                                          Pv0=pv0[sidx], **common)["venous"]
+    fil = interstitium.volume_time_course(at, times, cuffs, kf[sidx], c_arg[sidx], l_arg[sidx], cv[sidx],
+                                          Pv0=pvi[sidx], **common)["filtration"]
+    pred = ven + fil + offset[sidx]
+    pm.Deterministic(f"{name}__pred", pred)
+    pm.Deterministic(f"{name}__Pvi__subject", pvi, dims="subject")
+    pm.Deterministic(f"{name}__Kf_100mL__subject", kf, dims="subject")
+    ctx.subject_params[f"{name}__Pvi__subject"] = "Pvi"
+    ctx.subject_params[f"{name}__Kf_100mL__subject"] = "Kf_100mL"
+    if obs.sd is not None:
+        sd: Any = obs.sd
+    else:
+        sd = prior_rv(f"{name}__noise", _side_prior("noise"))
+        ctx.extra_params.append(f"{name}__noise")
+        ctx.extra_priors[f"{name}__noise"] = _side_prior("noise")
+    add_reading(name, pred, y, sd=sd)
+    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
+                              subjects=sidx, label="limb volume"))
+    ctx.notes.append(f"{obs.key}: C_tis and L are not separately identified by short protocols; their "
+                     f"combination tau = C_tis/(Kf + L) is sampled as {name}__tau")
+    ctx.curves.append({"name": name, "t": t, "subject_index": sidx, "volume": y,
+                       "subjects": list(ctx.subjects)})
