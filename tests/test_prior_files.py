@@ -31,6 +31,7 @@ TISSUES = {"skeletal_muscle", "skin_subcutis", "lung", "myocardium", "intestinal
 SYMBOLS = {
     "Pc", "Pi", "pi_c", "pi_i", "pi_g", "sigma", "Kf", "Jv", "JL", "Pa", "Pv", "r", "Cp", "Ci", "PS",
     "C_tis", "L", "Pvi", "tissue_mass", "LAP", "PAP", "Pi_L0", "JL_max",
+    "RPF",  # renal plasma flow, an input of the glomerular form (issue 8)
 }
 
 #: Quantities that may be negative (DESIGN.md section 4: "Negative pressures are valid where the
@@ -130,7 +131,8 @@ def test_prior_set_names_and_plausibility(path: Path) -> None:
 
 def test_tissue_specific_statements() -> None:
     glom = _load(PRIORS / "glomerulus.toml")["set"]
-    assert "not uniform" in glom["description"] and glom["models"] == ["classic"]
+    # issue 8: the glomerulus set offers the glomerular form; never the lymph-balance forms
+    assert "not uniform" in glom["description"] and glom["models"] == ["classic", "glomerular"]
     gut = _load(PRIORS / "intestinal_mucosa.toml")["set"]["description"]
     assert "flushes interstitial protein" in gut and "sustained" in gut.lower()
     lung = _load(PRIORS / "lung.toml")

@@ -53,7 +53,8 @@ MEANINGS: dict[str, str] = {
                     "myocardium, intestinal_mucosa, brain, glomerulus)",
     "study.conditions": "condition modifiers from priors/conditions.toml, applied in order",
     "study.model": "model form: classic (Jv from the six Starling quantities), steady_state (Pi and pi_i solved "
-                   "from the lymph and protein balance), revised (glycocalyx filter, pi_g solved)",
+                   "from the lymph and protein balance), revised (glycocalyx filter, pi_g solved), glomerular "
+                   "(filtration along the glomerular capillary from Cp and RPF; needs tissue_mass)",
     "study.seed": "random seed; the same study and seed give the same numbers",
     "study.tissue_mass": "mass of the limb or organ for whole-tissue shifts (Jv in mL/h and L/day); a number in "
                          "kg or a string with a unit (\"3.2 kg\")",
@@ -78,7 +79,9 @@ MEANINGS: dict[str, str] = {
                          "spread)",
     "observations.kind": "measurement (a direct noisy reading of one quantity), lymph_flow (pre-nodal JL = Jv at "
                          "steady state), clearance_rate, swelling_rate, volume_time_course (limb volume after "
-                         "venous-cuff steps), protein_ratio (lymph/plasma protein)",
+                         "venous-cuff steps), protein_ratio (lymph/plasma protein); glomerular form only: GFR, "
+                         "RPF (renal plasma flow), filtration_fraction (strictly between 0 and 1); lymph_flow is "
+                         "refused for brain",
     "observations.name": "optional label",
     "observations.parameter": "the quantity a measurement reads (a trade symbol)",
     "observations.value": "the observed value, in `unit`",

@@ -42,6 +42,12 @@ OUTPUT_UNITS: dict[str, str] = {
     "Jv_L_per_day": "L/day",
     "Pc": "mmHg",
     "pi_c": "mmHg",
+    "GFR": "mL/min",
+    "FF": "1",
+    "pi_eff": "mmHg",
+    "x_equilibrium": "1",
+    "equilibrium": "1",
+    "Kf_lower_bound": "mL/min/mmHg/100g",
 }
 
 
@@ -91,6 +97,8 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
     if missing:
         raise KeyError(f"the {form} form needs {', '.join(missing)}")
     out: dict[str, Any] = {}
+    if form == "glomerular":
+        return _glomerular(study, v, xp)
     if form == "classic":
         Pi, pi_o = v["Pi"], v["pi_i"]
         Jv = starling.filtration(v["Kf"], v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])
@@ -122,6 +130,35 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
         per_organ = basis_factor("100g", "organ", tissue_mass_kg=study.tissue_mass_kg, symbol="Jv")
         out["Jv_mL_per_h"] = Jv * (per_organ * 60.0)
         out["Jv_L_per_day"] = Jv * (per_organ * 1440.0 / 1000.0)
+    for target in study.derived:
+        out.setdefault(target, v[target])
+    return out
+
+
+def _glomerular(study: Any, v: Mapping[str, Any], xp: Any) -> dict[str, Any]:
+    """The ``glomerular`` form: filtration along the capillary (``physiology.glomerulus``).
+
+    Pc is P_GC and Pi Bowman's space pressure (mmHg), Cp the afferent plasma protein (g/dL), RPF the renal
+    plasma flow of the whole tissue (mL/min), converted to per 100 g with ``study.tissue_mass_kg`` to match
+    Kf (mL/min/mmHg/100g). ``Jv`` is GFR per 100 g; ``net_pressure`` the mean net ultrafiltration pressure;
+    ``force_pi_c`` minus the mean oncotic pressure along the capillary (Bowman's space oncotic pressure 0).
+    """
+    from uncertainty.physiology import glomerulus
+
+    per_100g = 1.0 / (study.tissue_mass_kg * 10.0)  # 100 g units in the tissue
+    dP = v["Pc"] - v["Pi"]
+    res = glomerulus.glomerular_filtration(v["Kf"], dP, v["RPF"] * per_100g, v["Cp"], xp=xp)
+    Jv = res["GFR"]
+    mean_net = res["mean_net_pressure"]
+    zero = 0.0 * Jv
+    out: dict[str, Any] = {
+        "Jv": Jv, "net_pressure": mean_net, "force_Pc": v["Pc"] + zero, "force_Pi": -v["Pi"] + zero,
+        "force_pi_c": mean_net - dP, "force_pi_i": zero,
+        "GFR": Jv / per_100g, "FF": res["FF"], "pi_eff": res["pi_eff"], "x_equilibrium": res["x_equilibrium"],
+        "equilibrium": res["equilibrium"], "Kf_lower_bound": res["Kf_lower_bound"],
+    }
+    out["Jv_mL_per_h"] = out["GFR"] * 60.0
+    out["Jv_L_per_day"] = out["GFR"] * (1440.0 / 1000.0)
     for target in study.derived:
         out.setdefault(target, v[target])
     return out

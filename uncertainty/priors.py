@@ -90,8 +90,10 @@ POSITIVE = frozenset({
     "density", "Pa", "PAP", "tau_v", "k_clear", "Kf_organ", "transmission", "osmolality", "V_dist",
 })
 
-#: Model forms (``[study] model``).
-MODEL_FORMS = ("classic", "steady_state", "revised")
+#: Model forms (``[study] model``). ``glomerular`` is organ-specific: a prior set offers it only when its
+#: ``[set] models`` lists it (the default is the three general forms).
+MODEL_FORMS = ("classic", "steady_state", "revised", "glomerular")
+GENERAL_FORMS = ("classic", "steady_state", "revised")
 
 #: Positive quantities that may still be *fixed* at exactly zero (no protein in Bowman's space, an
 #: impermeable barrier).
@@ -892,7 +894,7 @@ def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str |
     for k in head:
         if k not in ("name", "description", "basis", "density", "models", "origin", "note"):
             raise _err("unknown key", file, f"set.{k}", head[k])
-    models = head.get("models", list(MODEL_FORMS))
+    models = head.get("models", list(GENERAL_FORMS))
     if not (isinstance(models, list) and models and all(m in MODEL_FORMS for m in models)):
         raise _err("models lists model forms (" + ", ".join(MODEL_FORMS) + ")", file, "set.models", models)
     basis = head.get("basis", "100g")

@@ -53,17 +53,22 @@ REQUIRED_INPUTS: dict[str, tuple[str, ...]] = {
     "classic": ("Kf", "Pc", "Pi", "pi_c", "pi_i", "sigma"),
     "steady_state": ("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0"),
     "revised": ("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0"),
+    # glomerular (physiology.glomerulus): Pc = P_GC, Pi = Bowman's space pressure, Cp = afferent plasma
+    # protein, RPF = renal plasma flow (whole kidney, mL/min; needs study.tissue_mass)
+    "glomerular": ("Kf", "Pc", "Pi", "Cp", "RPF"),
 }
 OPTIONAL_INPUTS: dict[str, tuple[str, ...]] = {
     "classic": (),
     "steady_state": ("C_tis", "C_tis_high", "Pi_break"),
     "revised": ("C_tis", "C_tis_high", "Pi_break", "PS_large"),
+    "glomerular": (),
 }
 #: Quantities a form solves (never sampled there).
 SOLVED: dict[str, tuple[str, ...]] = {
     "classic": ("pi_g",),
     "steady_state": ("Pi", "pi_i", "pi_g"),
     "revised": ("Pi", "pi_i", "pi_g"),
+    "glomerular": ("pi_i", "pi_g"),
 }
 #: Quantities that are results, never inputs.
 OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "Jv_organ", "GFR", "ratio", "volume",
@@ -82,6 +87,17 @@ def required_inputs(model_form: str) -> tuple[str, ...]:
     return REQUIRED_INPUTS[model_form]
 
 
+#: Outputs of the glomerular form beyond the common ones (``physiology.glomerulus``).
+GLOMERULAR_OUTPUTS = ["GFR", "FF", "pi_eff", "x_equilibrium", "equilibrium", "Kf_lower_bound"]
+
+#: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
+NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "
+                     "and CSF routes), so a lymph flow does not measure its filtration"}
+
+#: Observation kinds that only the glomerular form predicts.
+GLOMERULAR_KINDS = ("GFR", "RPF", "filtration_fraction")
+
+
 def output_names(model_form: str, tissue_mass: bool = False, derived: tuple[str, ...] = ()) -> list[str]:
     """Outputs ``model.evaluate`` returns for a model form (``derived``: derived quantities shown too)."""
     out = ["Jv", "net_pressure", "force_Pc", "force_Pi", "force_pi_c", "force_pi_i"]
@@ -89,6 +105,8 @@ def output_names(model_form: str, tissue_mass: bool = False, derived: tuple[str,
         out += ["Pi", "pi_i", "ratio", "JL", "oedema_volume"]
     if model_form == "revised":
         out += ["pi_g"]
+    if model_form == "glomerular":
+        out += GLOMERULAR_OUTPUTS
     if tissue_mass:
         out += ["Jv_mL_per_h", "Jv_L_per_day"]
     out += [d for d in derived if d not in out]
@@ -108,7 +126,7 @@ class StudySection(BaseModel):
     title: str = ""
     tissue: str
     conditions: list[str] = Field(default_factory=list)
-    model: Literal["classic", "steady_state", "revised"] = "classic"
+    model: Literal["classic", "steady_state", "revised", "glomerular"] = "classic"
     seed: int = Field(default=1, ge=0, lt=2**63)
     tissue_mass: float | str | None = None
     description: str = ""
@@ -165,7 +183,7 @@ class Observation(BaseModel):
 
     model_config = _CFG
     kind: Literal["measurement", "lymph_flow", "clearance_rate", "swelling_rate", "volume_time_course",
-                  "protein_ratio"]
+                  "protein_ratio", "GFR", "RPF", "filtration_fraction"]
     name: str | None = None
     parameter: str | None = None
     value: float | None = None
@@ -231,6 +249,8 @@ class Observation(BaseModel):
                 raise ValueError("give value or file, not both")
             if self.sd is None and self.cv is None and self.instrument is None:
                 raise ValueError("give the measurement error: sd, cv or instrument")
+        if k == "filtration_fraction" and self.value is not None and not 0 < self.value < 1:
+            raise ValueError("a filtration fraction lies strictly between 0 and 1 (GFR below renal plasma flow)")
         if k == "protein_ratio" and self.value is not None and not 0 < self.value <= 1.5:
             raise ValueError("a protein concentration ratio lies between 0 and about 1")
         return self
@@ -421,13 +441,16 @@ CSV_COLUMNS: dict[str, tuple[str, ...]] = {
     "clearance_rate": ("subject", "value"),
     "swelling_rate": ("subject", "value"),
     "protein_ratio": ("subject", "value"),
+    "GFR": ("subject", "value"),
+    "RPF": ("subject", "value"),
+    "filtration_fraction": ("subject", "value"),
 }
 TIME_COLUMNS = ("time_min", "time_h", "time_day")
 TEXT_COLUMNS = ("subject", "group", "arm", "note")
 
 #: Quantity whose canonical unit an observation's value takes.
 OBS_SYMBOL = {"lymph_flow": "JL", "swelling_rate": "swelling_rate", "protein_ratio": "ratio",
-              "clearance_rate": "k_clear"}
+              "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF"}
 
 
 # --------------------------------------------------------------------------- Study
@@ -491,7 +514,7 @@ class Study:
     def outputs(self) -> list[str]:
         """Output names ``model.evaluate`` gives for this study."""
         names = output_names(self.model, self.tissue_mass_kg is not None, tuple(self.derived))
-        if self.model != "classic" and ("C_tis" not in self.priors or self.Pi_ref is None):
+        if self.model in ("steady_state", "revised") and ("C_tis" not in self.priors or self.Pi_ref is None):
             names.remove("oedema_volume")
         return names
 
@@ -603,6 +626,9 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
     if head.model not in pset.models:
         raise _err(f"the {head.tissue} prior set supports the model forms {', '.join(pset.models)} only",
                    file, "study.model", head.model)
+    if head.model == "glomerular" and tissue_mass_kg is None:
+        raise _err("the glomerular form needs tissue_mass (the kidney mass) to relate renal plasma flow (mL/min) "
+                   "to Kf per 100 g", file, "study.tissue_mass", None)
     density = pset.density
     priors = dict(pset.priors)
     derived = dict(pset.derived)
@@ -768,6 +794,12 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
 
     for i, ob in enumerate(study.observations or []):
         key = f"observations[{i}]"
+        if ob.kind == "lymph_flow" and head.tissue in NO_LYMPH:
+            raise _err(f"lymph-flow observations are refused for {head.tissue}: {NO_LYMPH[head.tissue]}", file,
+                       f"{key}.kind", ob.kind)
+        if ob.kind in GLOMERULAR_KINDS and head.model != "glomerular":
+            raise _err(f"a {ob.kind} observation needs model = \"glomerular\" (the {head.model} form does not "
+                       "predict it)", file, f"{key}.kind", ob.kind)
         sym = ob.parameter if ob.kind == "measurement" else OBS_SYMBOL.get(ob.kind)
         if ob.kind == "measurement":
             need_known(ob.parameter, f"{key}.parameter")
