@@ -112,6 +112,9 @@ def _symbol_for(kind: str, parameter: str | None) -> str | None:
         "swelling_rate": "swelling_rate",
         "clearance_rate": "k_clear",
         "protein_ratio": "ratio",
+        "GFR": "GFR",
+        "RPF": "RPF",
+        "filtration_fraction": "FF",
     }.get(kind)
 
 

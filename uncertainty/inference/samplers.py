@@ -51,7 +51,8 @@ def compile_model(model: Any, sampler: str = "nutpie") -> tuple[Any, float]:
 
 def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int = 1000,
            tune: int = 1000, seed: int | None = None, compiled: Any = None,
-           data: dict[str, Any] | None = None, target_accept: float | None = None) -> SampleRun:
+           data: dict[str, Any] | None = None, target_accept: float | None = None,
+           low_rank: bool = False) -> SampleRun:
     """Draw ``chains`` x ``draws`` posterior samples after ``tune`` warm-up steps, seeded.
 
     ``compiled`` reuses a nutpie compiled model (``data`` then replaces its ``pm.Data``
@@ -71,6 +72,8 @@ def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int =
         kwargs: dict[str, Any] = {}
         if target_accept is not None:
             kwargs["target_accept"] = target_accept
+        if low_rank:  # mass matrix that adapts to correlated directions (nutpie option)
+            kwargs["low_rank_modified_mass_matrix"] = True
         t0 = time.perf_counter()
         try:
             idata = nutpie.sample(run_model, chains=chains, draws=draws, tune=tune, seed=seed,

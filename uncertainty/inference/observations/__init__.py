@@ -21,6 +21,9 @@ KINDS: dict[str, str] = {
     "swelling_rate": "swelling_rate",
     "volume_time_course": "volume_time_course",
     "protein_ratio": "protein_ratio",
+    "GFR": "glomerular",
+    "RPF": "glomerular",
+    "filtration_fraction": "glomerular",
 }
 
 

@@ -1,0 +1,121 @@
+"""`fluidshift infer STUDY`: posterior from the study's observations, with diagnostics and checks."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import click
+
+from uncertainty.commands.common import emit_json, handle_errors, study_options
+from uncertainty.errors import QualityGateError
+
+
+def _fmt(x: Any) -> str:
+    if x is None:
+        return "-"
+    x = float(x)
+    return "nan" if x != x else f"{x:.4g}"
+
+
+def _ci(block: dict[str, Any], key: str = "ci95") -> str:
+    lo, hi = block[key]
+    return f"[{_fmt(lo)}, {_fmt(hi)}]"
+
+
+def table(doc: dict[str, Any]) -> str:
+    """Plain-text summary of an inference result document."""
+    u = doc["units"].get("Jv", "")
+    lines = [f"Jv ({doc['level']}): mean {_fmt(doc['Jv']['mean'])} {u}, sd {_fmt(doc['Jv']['sd'])}, "
+             f"95% equal-tailed {_ci(doc['Jv'])}, 95% HDI {_ci(doc['Jv'], 'hdi95')}"]
+    lines.append(f"Jv typical subject: {_ci(doc['typical']['Jv'])}   new subject: "
+                 f"{_ci(doc['new_subject']['Jv'])}")
+    if doc["subjects"]:
+        lines.append("")
+        lines.append(f"{'subject':<10}{'group':<8}{'Jv mean':>11}{'95% interval':>26}")
+        for sid, b in doc["subjects"].items():
+            lines.append(f"{sid:<10}{b.get('group', ''):<8}{_fmt(b['Jv']['mean']):>11}{_ci(b['Jv']):>26}")
+    lines.append("")
+    head = f"{'quantity':<24}{'prior mean':>11}{'prior sd':>11}{'post mean':>11}{'post sd':>11}" \
+           f"{'95% interval':>26}{'contraction':>13}"
+    lines += [head, "-" * len(head)]
+    rows = list(doc["parameters"].items()) + [(k, v) for k, v in doc["other_parameters"].items()
+                                              if "prior" in v]
+    for name, p in rows:
+        flag = "  prior-bound" if p.get("prior_bound") else ""
+        lines.append(f"{name:<24}{_fmt(p['prior']['mean']):>11}{_fmt(p['prior']['sd']):>11}"
+                     f"{_fmt(p['mean']):>11}{_fmt(p['sd']):>11}{_ci(p):>26}{_fmt(p['contraction']):>13}{flag}")
+    d = doc["diagnostics"]
+    lines.append("")
+    lines.append(f"diagnostics: R-hat max {_fmt(d['r_hat_max'])}, bulk ESS min {_fmt(d['ess_bulk_min'])}, "
+                 f"tail ESS min {_fmt(d['ess_tail_min'])}, divergences {d['divergences']}, "
+                 f"BFMI min {_fmt(d['bfmi_min'])}: {'passed' if d['passed'] else 'FAILED'}")
+    checks = doc.get("checks", {})
+    for row in checks.get("prior_data_conflict", []) if isinstance(checks.get("prior_data_conflict"), list) \
+            else []:
+        if row["conflict"]:
+            lines.append(f"prior-data conflict: {row['observation']} ({row['label']}), tail p {_fmt(row['p_tail'])}")
+    sens = checks.get("prior_sensitivity", {})
+    flagged = [k for k, v in sens.items() if isinstance(v, dict) and v.get("diagnosis", "-") != "-"]
+    if flagged:
+        lines.append("prior-sensitive (power scaling): " + ", ".join(
+            f"{k} ({sens[k]['diagnosis']})" for k in flagged))
+    if "comparison" in doc:
+        c = doc["comparison"]
+        lines.append(f"model comparison ({c.get('method', '')}): " + ", ".join(
+            f"{m} elpd {_fmt(v['elpd'])} (se {_fmt(v['se'])})" for m, v in c.get("models", {}).items())
+            + (f"; preferred {c['preferred']}" if c.get("preferred") else ""))
+    for n in doc["notes"]:
+        lines.append(f"note: {n}")
+    lines.append(f"{doc['chains']} chains x {doc['draws']} draws, sampler {doc['sampler']}, seed {doc['seed']}")
+    return "\n".join(lines)
+
+
+def _report(result: Any, as_json: bool, out: str | None, quiet: bool) -> None:
+    if out:
+        result.save(out)
+        result.plot(out)
+    if as_json:
+        emit_json(result.to_dict())
+    elif not quiet:
+        click.echo(table(result.to_dict()))
+        if out:
+            click.echo(f"posterior.nc, tables and figures written to {out}")
+
+
+@click.command("infer", short_help="Posterior from the study's observations, with diagnostics.")
+@study_options
+@click.option("--sampler", type=click.Choice(["nutpie", "pymc"]), default="nutpie", show_default=True,
+              help="nutpie (default) or PyMC's own NUTS.")
+@click.option("--chains", type=click.IntRange(1, 64), default=4, show_default=True)
+@click.option("--draws", type=click.IntRange(50, 10**6), default=1000, show_default=True,
+              help="Posterior draws per chain.")
+@click.option("--tune", type=click.IntRange(50, 10**6), default=1000, show_default=True,
+              help="Warm-up steps per chain.")
+@click.option("--compare-models", is_flag=True,
+              help="Compare the classic and revised forms by PSIS-LOO (leave one subject out with subjects).")
+@click.option("--no-checks", is_flag=True, help="Skip prior/posterior predictive and power-scaling checks.")
+@click.option("--r-hat-max", type=float, default=1.01, show_default=True, help="Quality gate: largest R-hat.")
+@click.option("--ess-min", type=float, default=400.0, show_default=True, help="Quality gate: smallest bulk ESS.")
+@click.option("--divergences-max", type=int, default=0, show_default=True,
+              help="Quality gate: divergent transitions allowed.")
+@handle_errors
+def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, sampler: str,
+            chains: int, draws: int, tune: int, compare_models: bool, no_checks: bool,
+            r_hat_max: float, ess_min: float, divergences_max: int) -> None:
+    """Update the study's priors from its [[observations]]: credible intervals for Jv (individual,
+    per subject, typical and new subject), prior vs posterior per quantity with contraction,
+    diagnostics (R-hat, ESS, divergences, BFMI) and model checks. Exit 3 if the chains fail the
+    quality gate; the posterior is saved as posterior.nc with --out."""
+    from uncertainty.inference import infer
+    from uncertainty.study import load_study
+
+    s = load_study(study)
+    gate = {"r_hat_max": r_hat_max, "ess_bulk_min": ess_min, "divergences_max": divergences_max}
+    try:
+        result = infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
+                       compare_models=compare_models, checks=not no_checks)
+    except QualityGateError as exc:
+        if exc.result is not None:
+            _report(exc.result, as_json, out, quiet)
+        raise
+    _report(result, as_json, out, quiet)
