@@ -158,3 +158,25 @@ def test_glomerular_form_numpy_and_pytensor_agree():
     ref = evaluate(s, vals)
     for k, r in zip(keys, res, strict=True):
         np.testing.assert_allclose(r, ref[k], rtol=1e-12, atol=1e-12, err_msg=k)
+
+
+@pytest.mark.slow  # compiles the glomerular scan inside a PyMC model
+def test_glomerular_observations_build_and_prior_predictive():
+    # GFR and FF readings are terms of the PyMC model; their prior predictive centres on the forward
+    # model at the human textbook priors (GFR about 125 mL/min, FF about 0.2: textbook estimates).
+    pm = pytest.importorskip("pymc")
+    from uncertainty.inference.model_builder import build_model
+    from uncertainty.inference.problem import problem_from_study
+
+    obs = [{"kind": "GFR", "value": 110.0, "sd": 8.0, "unit": "mL/min"},
+           {"kind": "filtration_fraction", "value": 0.17, "sd": 0.015},
+           {"kind": "RPF", "value": 640.0, "cv": 0.1, "unit": "mL/min"}]
+    s = _study(observations=obs)
+    built = build_model(problem_from_study(s))
+    names = {v.name for v in built.model.observed_RVs}
+    assert {"obs0__GFR", "obs1__filtration_fraction", "obs2__RPF"} <= names
+    with built.model:
+        pp = pm.sample_prior_predictive(200, random_seed=5).prior_predictive
+    assert 100 < float(pp["obs0__GFR"].median()) < 160
+    assert 0.15 < float(pp["obs1__filtration_fraction"].median()) < 0.25
+    assert 550 < float(pp["obs2__RPF"].median()) < 750  # RPF prior 650 mL/min (textbook estimate)

@@ -109,14 +109,16 @@ def glomerular_filtration(Kf: Array, dP: Array, Q_A: Array, C_A: Array, dP_eff: 
     dP1 = dP if dP_eff is None else dP_eff
     slope = dP1 - dP  # linear fall of dP along x
 
-    def rhs(x: float, q: Array) -> Array:
-        return -a * _net(q, dP + slope * x, C_A, oncotic, xp)
 
     q = 1.0 + 0.0 * (a + dP + dP1 + C_A)  # full broadcast shape
     n_prev = _net(q, dP, C_A, oncotic, xp)
     net_aff = n_prev
 
-    def step(x0: Array, q: Array, n_prev: Array, x_eq: Array, q_min: Array) -> tuple[Array, ...]:
+    def step(x0: Array, q: Array, n_prev: Array, x_eq: Array, q_min: Array, a: Array, dP: Array, slope: Array,
+             C_A: Array) -> tuple[Array, ...]:
+        def rhs(x: Array, q: Array) -> Array:
+            return -a * _net(q, dP + slope * x, C_A, oncotic, xp)
+
         k1 = rhs(x0, q)
         k2 = rhs(x0 + 0.5 * h, q + 0.5 * h * k1)
         k3 = rhs(x0 + 0.5 * h, q + 0.5 * h * k2)
@@ -129,7 +131,8 @@ def glomerular_filtration(Kf: Array, dP: Array, Q_A: Array, C_A: Array, dP_eff: 
         return q, n_next, x_eq, q_min
 
     # q_min: smallest flow met at any stage, where the decay rate a C pi'(C)/q is largest
-    q, n_prev, x_eq, q_min = fixed_steps(step, (q, n_prev, 0.0 * q, q), n_steps, h, xp)
+    q, n_prev, x_eq, q_min = fixed_steps(step, (q, n_prev, 0.0 * q, q), n_steps, h, xp,
+                                         params=(a + 0.0 * q, dP + 0.0 * q, slope + 0.0 * q, C_A + 0.0 * q))
     net_eff = n_prev
     C_eff = C_A / xp.maximum(q, _Q_FLOOR)
     ff = 1.0 - q

@@ -22,23 +22,27 @@ def is_pytensor(xp: Any) -> bool:
 
 
 def fixed_steps(step: Callable[..., tuple[Array, ...]], init: tuple[Array, ...], n_steps: int, h: float = 1.0,
-                xp: Any = np) -> tuple[Array, ...]:
-    """Apply ``step(x0, *state) -> state`` at x0 = 0, h, 2h, ... (n_steps times); return the final state.
+                xp: Any = np, params: tuple[Array, ...] = ()) -> tuple[Array, ...]:
+    """Apply ``step(x0, *state, *params) -> state`` at x0 = 0, h, 2h, ... (n_steps times); return the final state.
 
     ``x0`` is the position (or step index when h = 1) as a float; the state is a tuple of arrays of
-    one broadcast shape. The x0 values are the same floats (i * h) on both back-ends.
+    one broadcast shape, and so are ``params`` (broadcast them first). The x0 values are the same floats
+    (i * h) on both back-ends. Every tensor the
+    step uses must come in through ``state`` or ``params`` (not a closure): on PyTensor they are the
+    scan's explicit non-sequences, so that PyMC random variables stay outside the scan.
     """
     if not is_pytensor(xp):
         state = tuple(init)
         for i in range(n_steps):
-            state = tuple(step(i * h, *state))
+            state = tuple(step(i * h, *state, *params))
         return state
     import pytensor
 
     init_t = [xp.as_tensor_variable(v) for v in init]
+    par_t = [xp.as_tensor_variable(p) for p in params]
     xs = xp.arange(n_steps, dtype="float64") * h
     outs = pytensor.scan(fn=lambda x0, *st: list(step(x0, *st)), sequences=[xs], outputs_info=init_t,
-                         n_steps=n_steps, return_updates=False)
+                         non_sequences=par_t, n_steps=n_steps, return_updates=False)
     if not isinstance(outs, list | tuple):
         outs = [outs]
     return tuple(o[-1] for o in outs)

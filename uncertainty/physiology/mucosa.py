@@ -92,12 +92,17 @@ def absorbing_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: 
     def F(x: Array) -> Array:
         return _residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, J_epi, Cp, xp)
 
-    def step(_i: Array, lo: Array, hi: Array) -> tuple[Array, Array]:
+    full = 0.0 * lo0
+    par = [Kf + full, Pc + full, sigma + full, PS + full, pi_c + full, L + full, Pi_L0 + full, J_epi + full]
+    if Cp is not None:
+        par.append(Cp + full)
+
+    def step(_i: Array, lo: Array, hi: Array, *p: Array) -> tuple[Array, Array]:
         mid = 0.5 * (lo + hi)
-        pos = F(mid) > 0
+        pos = _residual(mid, *p[:8], p[8] if len(p) > 8 else None, xp) > 0
         return xp.where(pos, mid, lo), xp.where(pos, hi, mid)
 
-    lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp)
+    lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp, params=tuple(par))
     x = stop_gradient(0.5 * (lo + hi), xp)
     stopped = F(lo0) <= 0
     # one Newton step for the gradient (value change is below the bracket width)
