@@ -302,12 +302,12 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         "identifiability": ident,
         "diagnostics": {k: v for k, v in diagnostics.items()},
         "trustworthy": bool(diagnostics["passed"]),
-        "timing": {"compile_s": run.compile_seconds, "sample_s": run.sample_seconds},
         "notes": notes,
         "units": unit_map,
     }
     return InferenceResult(doc=doc, idata=idata, built=built, prior_draws=prior,
-                           new_subject_draws=new)
+                           new_subject_draws=new,
+                           timing={"compile_s": run.compile_seconds, "sample_s": run.sample_seconds})
 
 
 class Session:

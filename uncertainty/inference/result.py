@@ -65,6 +65,7 @@ class InferenceResult:
     built: Any = None
     prior_draws: dict[str, np.ndarray] = dataclasses.field(default_factory=dict)
     new_subject_draws: np.ndarray | None = None
+    timing: dict[str, float] = dataclasses.field(default_factory=dict)   # not in to_dict (varies per run)
 
     @property
     def passed(self) -> bool:
