@@ -91,6 +91,8 @@ def _report(result: Any, as_json: bool, out: str | None, quiet: bool) -> None:
               help="Posterior draws per chain.")
 @click.option("--tune", type=click.IntRange(50, 10**6), default=1000, show_default=True,
               help="Warm-up steps per chain.")
+@click.option("--target-accept", type=click.FloatRange(0.5, 0.999), default=0.95, show_default=True,
+              help="NUTS target acceptance rate; raise it (e.g. 0.99) when a few divergences remain.")
 @click.option("--compare-models", is_flag=True,
               help="Compare the classic and revised forms by PSIS-LOO (leave one subject out with subjects).")
 @click.option("--no-checks", is_flag=True, help="Skip prior/posterior predictive and power-scaling checks.")
@@ -100,12 +102,19 @@ def _report(result: Any, as_json: bool, out: str | None, quiet: bool) -> None:
               help="Quality gate: divergent transitions allowed.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, sampler: str,
-            chains: int, draws: int, tune: int, compare_models: bool, no_checks: bool,
+            chains: int, draws: int, tune: int, target_accept: float, compare_models: bool, no_checks: bool,
             r_hat_max: float, ess_min: float, divergences_max: int) -> None:
     """Update the study's priors from its [[observations]]: credible intervals for Jv (individual,
     per subject, typical and new subject), prior vs posterior per quantity with contraction,
     diagnostics (R-hat, ESS, divergences, BFMI) and model checks. Exit 3 if the chains fail the
-    quality gate; the posterior is saved as posterior.nc with --out."""
+    quality gate; the posterior is saved as posterior.nc with --out.
+
+    \b
+    Examples:
+      fluidshift infer studies/demo.toml
+      fluidshift infer studies/demo.toml --json --out demo-posterior
+      fluidshift infer my-study.toml --sampler pymc --target-accept 0.99
+    """
     from uncertainty.inference import infer
     from uncertainty.study import load_study
 
@@ -113,7 +122,7 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     gate = {"r_hat_max": r_hat_max, "ess_bulk_min": ess_min, "divergences_max": divergences_max}
     try:
         result = infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
-                       compare_models=compare_models, checks=not no_checks)
+                       compare_models=compare_models, checks=not no_checks, target_accept=target_accept)
     except QualityGateError as exc:
         if exc.result is not None:
             _report(exc.result, as_json, out, quiet)
