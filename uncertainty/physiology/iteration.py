@@ -26,10 +26,10 @@ def fixed_steps(step: Callable[..., tuple[Array, ...]], init: tuple[Array, ...],
     """Apply ``step(x0, *state, *params) -> state`` at x0 = 0, h, 2h, ... (n_steps times); return the final state.
 
     ``x0`` is the position (or step index when h = 1) as a float; the state is a tuple of arrays of
-    one broadcast shape, and so are ``params`` (broadcast them first). The x0 values are the same floats
-    (i * h) on both back-ends. Every tensor the
-    step uses must come in through ``state`` or ``params`` (not a closure): on PyTensor they are the
-    scan's explicit non-sequences, so that PyMC random variables stay outside the scan.
+    one broadcast shape, and so are ``params`` (on PyTensor they are broadcast here, as float64). The x0
+    values are the same floats (i * h) on both back-ends. The step must be elementwise. Every tensor the
+    step uses must come in through ``state`` or ``params`` (not a closure): on PyTensor they are
+    explicit scan inputs (sequences), so that PyMC random variables stay outside the scan.
     """
     if not is_pytensor(xp):
         state = tuple(init)
@@ -38,14 +38,31 @@ def fixed_steps(step: Callable[..., tuple[Array, ...]], init: tuple[Array, ...],
         return state
     import pytensor
 
-    init_t = [xp.as_tensor_variable(v) for v in init]
-    par_t = [xp.as_tensor_variable(p) for p in params]
+    k = len(init)
+    vals = [xp.cast(xp.as_tensor_variable(v), "float64") for v in (*init, *params)]
+    vals = list(xp.broadcast_arrays(*vals))
+    shape = vals[0].shape
+    # Each input goes into the scan flattened with its last element repeated, so its length is never
+    # statically 1. A sampler that rebuilds the graph (nutpie swaps the value variables for slices of one
+    # flat vector) may learn a length of 1 that was unknown when the scan was built; the scan then refuses
+    # the input, because a static length of 1 is a different broadcast class. With the pad the static
+    # length is unknown or >= 2 at both times, and the loop function (elementwise) is unchanged.
+    flat = [xp.concatenate([v.ravel(), v.ravel()[-1:]]) for v in vals]
+    # The parameters enter as sequences (each row the same), not non-sequences: with non-sequences the
+    # numba back-end (nutpie) returned one parameter's gradient for another (pytensor 2.38, seen with the
+    # glomerular RK4: dGFR/dC_A came back equal to dGFR/d(dP); the C and Python back-ends were right).
     xs = xp.arange(n_steps, dtype="float64") * h
-    outs = pytensor.scan(fn=lambda x0, *st: list(step(x0, *st)), sequences=[xs], outputs_info=init_t,
-                         non_sequences=par_t, n_steps=n_steps, return_updates=False)
+    rows = [xp.broadcast_to(p, (n_steps, p.shape[0])) for p in flat[k:]]
+
+    def inner(x0: Array, *args: Array) -> list[Array]:
+        par, st = args[:len(rows)], args[len(rows):]
+        return list(step(x0, *st, *par))
+
+    outs = pytensor.scan(fn=inner, sequences=[xs, *rows], outputs_info=flat[:k], n_steps=n_steps,
+                         return_updates=False)
     if not isinstance(outs, list | tuple):
         outs = [outs]
-    return tuple(o[-1] for o in outs)
+    return tuple(o[-1][:-1].reshape(shape) for o in outs)
 
 
 def stop_gradient(x: Array, xp: Any = np) -> Array:
