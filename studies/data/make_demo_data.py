@@ -1,9 +1,9 @@
 """Make the INVENTED demo data of the example studies (seeded, deterministic).
 
 Every number written here is invented for demonstration: none is a measurement of a real person.
-The generating models are deliberately simple (an exponential approach of venous pressure after each
-cuff step, linear filtration above the isovolumetric venous pressure, an exponential approach of arm
-swelling over weeks), and the parameter values are chosen to sit inside the shipped priors.
+The generating models are deliberately simple (the fitted venous-cuff curve of
+physiology.interstitium.volume_time_course for the forearm, an exponential approach of arm swelling
+over weeks), and the parameter values are chosen to sit inside the shipped priors.
 
 Run from anywhere:  python studies/data/make_demo_data.py
 It rewrites the CSVs beside this file and prints the observation blocks pasted into the studies.
@@ -24,36 +24,42 @@ CUFF_STEPS = [(0.0, 20.0), (4.0, 30.0), (8.0, 40.0), (12.0, 50.0), (16.0, 60.0)]
 END_MIN = 20.0
 SAMPLE_EVERY_MIN = 0.25
 TRANSMISSION = 0.91  # cuff-to-vein, as reported by Christ et al. 1997 (used here only to invent data)
+# The curve is the one the volume_time_course inference fits (physiology.interstitium.volume_time_course,
+# venous phase above the resting venous pressure, filtration above Pvi, the same corner rounding), so
+# the invented data are consistent with the fitted model. Common to all subjects (invented):
+R_RATIO = 0.12      # post- to pre-capillary resistance ratio (the skeletal_muscle prior median)
+TAU_VENOUS = 0.5    # venous filling time constant, min
+TAU_SLOW = 30.0     # slow-phase time constant C_tis / (Kf + L), min
+L_LYMPH = 0.004     # lymph conductance, mL/min/mmHg/100 mL (only C_tis = TAU_SLOW (Kf + L) depends on it)
+NOISE_SD = 0.01     # reading noise, mL/100 mL
 
 
 def forearm_volumes(rng: np.random.Generator, n_subjects: int = 16) -> list[dict[str, object]]:
     """Invented limb-volume change (mL/100 mL) against time for each subject and group."""
+    from uncertainty.inference.observations.volume_time_course import SMOOTH_MMHG
+    from uncertainty.physiology.interstitium import volume_time_course
+
     rows: list[dict[str, object]] = []
-    fine = np.arange(0.0, END_MIN + 1e-9, 0.01)
+    times = np.arange(0.0, END_MIN + 1e-9, SAMPLE_EVERY_MIN)
+    at = [a for a, _ in CUFF_STEPS]
+    cuffs = [c for _, c in CUFF_STEPS]
     for s in range(n_subjects):
         group = "A" if s < n_subjects // 2 else "B"
         kf = 0.0035 * np.exp(rng.normal(0.0, 0.36)) * (0.75 if group == "B" else 1.0)  # mL/min/mmHg/100mL
         pvi = rng.normal(15.0, 4.0)                     # mmHg
         cv = 0.045 * np.exp(rng.normal(0.0, 0.25))      # venous compliance, mL/100mL/mmHg
-        tau = 0.4 * np.exp(rng.normal(0.0, 0.2))        # venous filling time constant, min
-        r = 0.12
-        pv0 = rng.normal(9.0, 2.0)
-        pv = np.full_like(fine, pv0)
-        prev = pv0
-        for at, to in CUFF_STEPS:
-            target = max(prev, TRANSMISSION * to)
-            on = fine >= at
-            pv[on] += (target - prev) * (1.0 - np.exp(-(fine[on] - at) / tau))
-            prev = target
-        vascular = cv * (pv - pv0)
-        jv = kf * np.maximum(pv - pvi, 0.0) / (1.0 + r)   # mL/min/100mL above the isovolumetric pressure
-        filtered = np.concatenate([[0.0], np.cumsum(0.5 * (jv[1:] + jv[:-1]) * np.diff(fine))])
-        volume = vascular + filtered
-        for t in np.arange(0.0, END_MIN + 1e-9, SAMPLE_EVERY_MIN):
-            i = int(round(t / 0.01))
-            # the strain gauge is zeroed at the start, so the first reading is 0 by definition
-            noise = rng.normal(0.0, 0.01)
-            noisy = 0.0 if i == 0 else volume[i] + noise
+        rng.normal()  # drawn and unused: keeps the later invented data sets' values unchanged
+        pv0 = rng.normal(9.0, 2.0)                      # resting venous pressure, mmHg
+        c_tis = TAU_SLOW * (kf + L_LYMPH)
+        common = dict(tau_v=TAU_VENOUS, r=R_RATIO, transmission=TRANSMISSION, parts=True,
+                      smooth=SMOOTH_MMHG)
+        ven = volume_time_course(times, at, cuffs, kf, c_tis, L_LYMPH, cv, Pv0=pv0, **common)["venous"]
+        fil = volume_time_course(times, at, cuffs, kf, c_tis, L_LYMPH, cv, Pv0=pvi, **common)["filtration"]
+        noise = rng.normal(0.0, NOISE_SD, size=times.size)
+        # the gauge is zeroed at the first reading, so every reading carries minus that reading's
+        # noise: a per-subject offset (the protocol bias term of the fitted model), first reading 0
+        volume = ven + fil + noise - noise[0]
+        for t, noisy in zip(times, volume, strict=True):
             rows.append({"subject": f"V{s + 1:02d}", "time_min": round(float(t), 2),
                          "volume": round(float(noisy), 4), "group": group})
     return rows

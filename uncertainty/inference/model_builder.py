@@ -100,6 +100,10 @@ class BuildContext:
         self.extra_priors: dict[str, Any] = {}      # side quantity -> Prior (for contraction)
         self.subject_params: dict[str, str] = {}    # per-subject Deterministic -> label
         self.curves: list[dict[str, Any]] = []      # time-course data (for figures)
+        # quantities whose subject layer an observation kind builds itself (``claims`` hook):
+        # name -> {"base": typical value per subject (group effect included), "kind": "sd"|"cv",
+        # "declared": float, "spread": the between-subject spread (tensor or float)}
+        self.layers: dict[str, dict[str, Any]] = {}
         self._overrides: dict[str, Any] = {}
 
     # -- access ---------------------------------------------------------------------------------
@@ -326,7 +330,13 @@ def build_model(problem: Problem) -> BuiltModel:
                 effects[q] = (pt.concatenate([pt.zeros(1), eff]), gidx)
             ctx.notes.append(f"group effects on {', '.join(targets)} relative to group {ref!r}"
                              + (" (log ratio)" if targets else ""))
-        # individuals
+        # individuals (a kind's ``claims(obs, problem)`` names quantities whose subject layer it
+        # builds itself, e.g. centred on a scale the data identify; it must ``ctx.override`` them)
+        claimed: set[str] = set()
+        for obs in problem.observations:
+            fn = getattr(kind_module(obs), "claims", None)
+            if fn is not None and hierarchical:
+                claimed.update(fn(obs, problem))
         for name, prior in problem.priors.items():
             typ = ctx.typical[name]
             base = typ * pt.ones(n_subj)
@@ -350,6 +360,10 @@ def build_model(problem: Problem) -> BuiltModel:
                 w = pm.Normal(f"{name}__spread_z", 0.0, 1.0)
                 spread = pm.Deterministic(f"{name}__spread", declared * pt.exp(SPREAD_LOG_SD * w))
                 ratio = spread_ratio(kind, declared, spread, pt)
+            if name in claimed and hierarchical:
+                ctx.layers[name] = {"base": base, "kind": kind, "declared": declared, "spread": spread}
+                ctx.per_subject[name] = base  # replaced by the claiming kind (ctx.override)
+                continue
             z = pm.Normal(f"{name}__subject_z", 0.0, 1.0, dims="subject")
             ctx.per_subject[name] = apply_layer(prior, base, z, pt, ratio)
         # observation terms (kinds may re-parameterise per-subject quantities first)

@@ -96,17 +96,28 @@ def oedema_volume(Pi: Array, Pi_ref: Array, C_tis: Array, C_high: Array | None =
 
 # --- venous-cuff protocol ------------------------------------------------------------------------------
 
-def venous_pressure(P_cuff: Array, Pv0: Array, transmission: Array = TRANSMISSION, xp: Any = np) -> Array:
-    """Venous pressure (mmHg) under a cuff at P_cuff: max(Pv0, transmission * P_cuff)."""
-    return xp.maximum(Pv0, transmission * P_cuff)
+def venous_pressure(P_cuff: Array, Pv0: Array, transmission: Array = TRANSMISSION, xp: Any = np,
+                    smooth: float | None = None) -> Array:
+    """Venous pressure (mmHg) under a cuff at P_cuff: max(Pv0, transmission * P_cuff).
+
+    With ``smooth`` (mmHg) the corner is rounded: Pv0 + smooth * softplus((T P_cuff - Pv0) / smooth),
+    written as max(x, 0) + smooth * log1p(exp(-|x| / smooth)) so it cannot overflow; it lies above the
+    sharp max by at most smooth * log 2 (at the corner) and by < 0.05 mmHg once |x| > 3 smooth. A
+    numerical device for gradient-based sampling (continuous derivative at the corner), not physiology.
+    """
+    if smooth is None:
+        return xp.maximum(Pv0, transmission * P_cuff)
+    x = transmission * P_cuff - Pv0
+    return Pv0 + xp.maximum(x, 0.0) + smooth * xp.log1p(xp.exp(-xp.abs(x) / smooth))
 
 
-def _levels(cuff_pressures: Sequence[Array], Pv0: Array, transmission: Array, r: Array, xp: Any):
+def _levels(cuff_pressures: Sequence[Array], Pv0: Array, transmission: Array, r: Array, xp: Any,
+            smooth: float | None = None):
     """Increments of Pv and Pc at each step (relative to the previous level)."""
     dPv, dPc = [], []
     prev_v, prev_c = Pv0, mean_capillary_pressure(0.0, Pv0, r)  # Pa cancels in differences
     for P in cuff_pressures:
-        Pv = venous_pressure(P, Pv0, transmission, xp)
+        Pv = venous_pressure(P, Pv0, transmission, xp, smooth)
         Pc = mean_capillary_pressure(0.0, Pv, r)
         dPv.append(Pv - prev_v)
         dPc.append(Pc - prev_c)
@@ -117,7 +128,8 @@ def _levels(cuff_pressures: Sequence[Array], Pv0: Array, transmission: Array, r:
 def volume_time_course(t: Array, step_times: Sequence[float], cuff_pressures: Sequence[Array],
                        Kf: Array, C_tis: Array, L: Array, Cv: Array, *, Pv0: Array,
                        tau_v: Array = TAU_VENOUS_MIN, r: Array = 0.2, transmission: Array = TRANSMISSION,
-                       xp: Any = np, parts: bool = False) -> Array | dict[str, Array]:
+                       xp: Any = np, parts: bool = False, smooth: float | None = None
+                       ) -> Array | dict[str, Array]:
     """Limb volume change (mL per basis) at times t (min) after cumulative venous-cuff steps; linear model.
 
     Steps: at ``step_times[k]`` (min) the cuff goes to ``cuff_pressures[k]`` (mmHg) and stays there
@@ -129,9 +141,10 @@ def volume_time_course(t: Array, step_times: Sequence[float], cuff_pressures: Se
         venous:        Cv dPv_k (1 - exp(-s/tau_v))
         interstitial:  dPc_k Kf tau (1 - exp(-s/tau)),  tau = C_tis/(Kf + L),   s = max(t - t_k, 0)
     Written in ``xp`` arithmetic (step times are constants; pressures and parameters may be tensors).
-    With ``parts=True`` returns dict ``total``, ``venous``, ``filtration``.
+    With ``parts=True`` returns dict ``total``, ``venous``, ``filtration``. ``smooth`` (mmHg, default
+    None = the sharp max) rounds the corner of Pv = max(Pv0, T P_cuff), see ``venous_pressure``.
     """
-    dPv, dPc = _levels(cuff_pressures, Pv0, transmission, r, xp)
+    dPv, dPc = _levels(cuff_pressures, Pv0, transmission, r, xp, smooth)
     tau = C_tis / (Kf + L)
     ven = 0.0 * t
     fil = 0.0 * t

@@ -54,6 +54,20 @@ SIDE_PRIORS: dict[str, dict[str, Any]] = {
               "origin": "from memory: strain-gauge plethysmography resolution about 0.01 mL/100 mL"},
 }
 
+#: Rounding (mmHg) of the corner of Pv = max(Pv0, T P_cuff) (``interstitium.venous_pressure``):
+#: our numerical choice, well below the 10 mmHg cuff steps; it gives the likelihood a continuous
+#: gradient where a subject's Pvi crosses a step's venous pressure. studies/data/make_demo_data.py
+#: uses the same value.
+SMOOTH_MMHG = 1.0
+#: Use every k-th reading of each subject (1 = all). Readings 0.25 min apart over 4-min steps
+#: carry redundant information on the slow phase; thinning cuts gradient cost.
+DEFAULT_EVERY = 1
+#: Resting venous pressure (mmHg) when the study has no Pv: from memory, supine forearm veins about
+#: 5-10 mmHg. Post- to pre-capillary resistance ratio r when the study has none: from memory,
+#: resting muscle 0.1-0.3 (Pappenheimer & Soto-Rivera 1948).
+PV_REST = 9.0
+R_DEFAULT = 0.2
+
 # Naive model (benchmark only): centred hierarchy over C_tis and L (mL/mmHg, mL/min/mmHg per 100 mL)
 NAIVE_PRIORS = {
     "C_tis": {"median": 0.3, "gsd": 2.0, "cv": 0.3, "origin": "from memory: Aukland & Reed 1993"},
@@ -141,32 +155,70 @@ def _side_prior(name: str) -> Any:
                  origin=spec["origin"])
 
 
-def _hier(ctx: Any, name: str, prior: Any, n_subj: int, hierarchical: bool) -> Any:
-    """Typical value, spread and per-subject values of a side quantity (non-centred)."""
+def claims(obs: Observation, problem: Problem) -> list[str]:
+    """Quantities whose subject layer this kind builds itself, centred: Kf (on the cuff scale) and the
+    resting venous pressure Pv (the first step's venous volume pins it) when the study samples it."""
+    if obs.extra.get("parameterisation") == "naive":
+        return []
+    return ["Kf"] + (["Pv"] if "Pv" in problem.priors else [])
+
+
+def _hyper(ctx: Any, name: str, prior: Any) -> tuple[Any, Any]:
+    """Typical value (non-centred) and between-subject spread (lognormal around the declared value)."""
     import pymc as pm
     import pytensor.tensor as pt
 
-    from uncertainty.inference.model_builder import SPREAD_LOG_SD, spread_ratio
+    from uncertainty.inference.model_builder import SPREAD_LOG_SD
     from uncertainty.inference.observations.base import prior_rv
 
     typ = prior_rv(name, prior)
     ctx.extra_params.append(name)
     ctx.extra_priors[name] = prior
-    bs = prior.between_subject
-    if not bs:
-        return typ * pt.ones(n_subj)
-    kind, declared = next(iter(bs.items()))
-    ratio: Any = 1.0
-    if hierarchical:
-        w = pm.Normal(f"{name}__spread_z", 0.0, 1.0)
-        spread = pm.Deterministic(f"{name}__spread", declared * pt.exp(SPREAD_LOG_SD * w))
-        ratio = spread_ratio(kind, declared, spread, pt)
-    z = pm.Normal(f"{name}__subject_z", 0.0, 1.0, dims="subject")
-    return prior.individual(typ * pt.ones(n_subj), z * ratio, xp=pt)
+    kind, declared = next(iter(prior.between_subject.items()))
+    declared = float(declared)
+    if not ctx.hierarchical:
+        return typ, declared
+    w = pm.Normal(f"{name}__spread_z", 0.0, 1.0)
+    spread = pm.Deterministic(f"{name}__spread", declared * pt.exp(SPREAD_LOG_SD * w))
+    ctx.extra_params.append(f"{name}__spread")
+    return typ, spread
+
+
+def _log_sd(kind: str, spread: Any, xp: Any) -> Any:
+    """Log-scale sd of a multiplicative between-subject spread given as a cv."""
+    return xp.sqrt(xp.log1p(spread * spread)) if kind == "cv" else spread
+
+
+def _subject_layer(ctx: Any, name: str, n: int, *, log_mean: Any = None, mean: Any = None,
+                   sd: Any) -> Any:
+    """Per-subject values, centred: log-normal around exp(log_mean) or normal around mean.
+
+    Centred because every subject's curve pins its own value far more tightly than the
+    population spread does; non-centred scores would then all move with the typical value and
+    spread (one correlated direction through every subject), which is what made NUTS hit its
+    tree-depth limit. With one individual the layer has the declared spread.
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    if log_mean is not None:
+        v = pm.Normal(f"{name}__log_subject", log_mean, sd, dims="subject")
+        ctx.extra_params.append(f"{name}__log_subject")
+        return pt.exp(v)
+    v = pm.Normal(f"{name}__c_subject", mean, sd, dims="subject")
+    ctx.extra_params.append(f"{name}__c_subject")
+    return v
+
+
+def _thin(obs: Observation) -> int:
+    every = int(obs.extra.get("every", DEFAULT_EVERY))
+    if every < 1:
+        raise obs.error("every (use every k-th reading) must be a positive integer", "every", every)
+    return every
 
 
 def add(ctx: Any, obs: Observation) -> None:
-    """Likelihood of every volume reading of every subject in the file."""
+    """Likelihood of the volume readings (every ``every``-th per subject) of every subject in the file."""
     import pymc as pm
     import pytensor.tensor as pt
 
@@ -176,32 +228,75 @@ def add(ctx: Any, obs: Observation) -> None:
 
     data = _data(obs, ctx.problem)
     name = term_name(obs)
-    t = _time_column(data)
-    sidx = np.array([ctx.subjects.index(str(s)) for s in data["subject"]])
-    y = np.asarray(data["volume"], dtype=float)
+    t_all = _time_column(data)
+    subj_all = [str(s) for s in data["subject"]]
+    every = _thin(obs)
+    # keep every k-th reading of each subject, counted from its first one
+    count: dict[str, int] = {}
+    keep = np.zeros(len(subj_all), dtype=bool)
+    for k, s in enumerate(subj_all):
+        keep[k] = count.get(s, 0) % every == 0
+        count[s] = count.get(s, 0) + 1
+    t = t_all[keep]
+    sidx = np.array([ctx.subjects.index(s) for s, k in zip(subj_all, keep, strict=True) if k])
+    y = np.asarray(data["volume"], dtype=float)[keep]
     times, cuffs = _steps(obs)
     n = len(ctx.subjects)
     naive = obs.extra.get("parameterisation") == "naive"
     density = ctx.problem.density
-    # 100 mL of tissue weighs 100*density g, so a coefficient per 100 mL is density times that per 100 g
-    kf = ctx.value("Kf") * density
-    r = ctx.value("r") if ctx.problem.quantity_known("r") else 0.2 * pt.ones(n)
-    pv0 = ctx.value("Pv") if ctx.problem.quantity_known("Pv") else 9.0 * pt.ones(n)
-    pvi = _hier(ctx, f"{name}__Pvi", _side_prior("Pvi"), n, ctx.hierarchical)
-    cv = _hier(ctx, f"{name}__Cv", _side_prior("Cv"), n, ctx.hierarchical)
+    r = ctx.value("r") if ctx.problem.quantity_known("r") else R_DEFAULT * pt.ones(n)
+    pv_layer = ctx.layers.get("Pv")
+    if pv_layer is not None:
+        if pv_layer["kind"] == "sd":
+            pv0 = _subject_layer(ctx, f"{name}__Pv", n, mean=pv_layer["base"], sd=pv_layer["spread"])
+        else:
+            pv0 = _subject_layer(ctx, f"{name}__Pv", n, log_mean=pt.log(pv_layer["base"]),
+                                 sd=_log_sd("cv", pv_layer["spread"], pt))
+        ctx.override("Pv", pv0)
+    else:
+        pv0 = ctx.value("Pv") if ctx.problem.quantity_known("Pv") else PV_REST * pt.ones(n)
     tau_v = prior_rv(f"{name}__tau_v", _side_prior("tau_v"))
     trans = prior_rv(f"{name}__transmission", _side_prior("transmission"))
     for q in ("tau_v", "transmission"):
         ctx.extra_params.append(f"{name}__{q}")
         ctx.extra_priors[f"{name}__{q}"] = _side_prior(q)
+    pvi_prior, cv_prior = _side_prior("Pvi"), _side_prior("Cv")
+    pvi_typ, pvi_spread = _hyper(ctx, f"{name}__Pvi", pvi_prior)
+    cv_typ, cv_spread = _hyper(ctx, f"{name}__Cv", cv_prior)
     if naive:
-        # centred per-subject C_tis and L (benchmark baseline): a ridge along C_tis/(Kf + L)
+        # benchmark baseline: the builder's non-centred Kf, non-centred Pvi and Cv in their own
+        # units, centred per-subject C_tis and L (a ridge along C_tis/(Kf + L))
+        kf = ctx.value("Kf") * density
+        zp = pm.Normal(f"{name}__Pvi__subject_z", 0.0, 1.0, dims="subject")
+        zc = pm.Normal(f"{name}__Cv__subject_z", 0.0, 1.0, dims="subject")
+        pvi = pvi_typ + pvi_spread * zp if ctx.hierarchical else pvi_typ * pt.ones(n)
+        cv = cv_typ * pt.exp(_log_sd("cv", cv_spread, pt) * zc) if ctx.hierarchical else cv_typ * pt.ones(n)
         c_tis = pm.LogNormal(f"{name}__C_tis", mu=np.log(NAIVE_PRIORS["C_tis"]["median"]),
                              sigma=np.log(NAIVE_PRIORS["C_tis"]["gsd"]), dims="subject")
         lym = pm.LogNormal(f"{name}__L", mu=np.log(NAIVE_PRIORS["L"]["median"]),
                            sigma=np.log(NAIVE_PRIORS["L"]["gsd"]), dims="subject")
         c_arg, l_arg = c_tis, lym
     else:
+        # What the curves identify, on the cuff scale (transmission T factored out): the slope
+        # b = Kf T / (1 + r) per cuff mmHg, the cuff pressure of zero filtration Pvi / T and the venous
+        # volume per cuff mmHg Cv T. Sampling those (centred, per subject) leaves T a global
+        # quantity that hardly correlates with any subject. The priors are the declared ones:
+        # log Kf_s ~ N(log Kf_typ, s) is log b_s ~ N(log Kf_typ + log T - log(1 + r_s), s); Pvi_s ~ N(m, sd) is
+        # Pvi_s / T ~ N(m / T, sd / T) (the Jacobian is in the transformed density).
+        layer = ctx.layers.get("Kf")
+        if layer is not None:
+            b = _subject_layer(ctx, f"{name}__Kf_T", n,
+                               log_mean=pt.log(layer["base"] * density * trans / (1.0 + r)),
+                               sd=_log_sd(layer["kind"], layer["spread"], pt))
+            kf = b * (1.0 + r) / trans
+            ctx.override("Kf", kf / density)
+        else:  # one individual, or Kf without a between-subject spread: the builder's values
+            kf = ctx.value("Kf") * density
+        pc = _subject_layer(ctx, f"{name}__Pvi_per_T", n, mean=pvi_typ / trans, sd=pvi_spread / trans)
+        pvi = pc * trans
+        cT = _subject_layer(ctx, f"{name}__Cv_T", n, log_mean=pt.log(cv_typ * trans),
+                            sd=_log_sd("cv", cv_spread, pt))
+        cv = cT / trans
         tau = prior_rv(f"{name}__tau", _side_prior("tau"))
         ctx.extra_params.append(f"{name}__tau")
         ctx.extra_priors[f"{name}__tau"] = _side_prior("tau")
@@ -210,7 +305,7 @@ def add(ctx: Any, obs: Observation) -> None:
     z_off = pm.Normal(f"{name}__offset_z", 0.0, 1.0, dims="subject")
     offset = SIDE_PRIORS["offset_sd"]["value"] * z_off
     at = pt.as_tensor_variable(t)
-    common = dict(tau_v=tau_v, r=r[sidx], transmission=trans, xp=pt, parts=True)
+    common = dict(tau_v=tau_v, r=r[sidx], transmission=trans, xp=pt, parts=True, smooth=SMOOTH_MMHG)
     # venous phase: pressure above the resting venous pressure; filtration: above Pvi
     ven = interstitium.volume_time_course(at, times, cuffs, kf[sidx], c_arg[sidx], l_arg[sidx], cv[sidx],
                                           Pv0=pv0[sidx], **common)["venous"]
@@ -233,5 +328,8 @@ def add(ctx: Any, obs: Observation) -> None:
                               subjects=sidx, label="limb volume"))
     ctx.notes.append(f"{obs.key}: C_tis and L are not separately identified by short protocols; their "
                      f"combination tau = C_tis/(Kf + L) is sampled as {name}__tau")
+    if every > 1:
+        ctx.notes.append(f"{obs.key}: every {every}th reading of each subject used ({int(keep.sum())} of "
+                         f"{keep.size})")
     ctx.curves.append({"name": name, "t": t, "subject_index": sidx, "volume": y,
                        "subjects": list(ctx.subjects)})
