@@ -56,26 +56,30 @@ def test_matches_separable_integral_in_disequilibrium():
 
 
 def _reference_ivp(Kf, dP, dP_eff, QA, CA):
-    """Two-state system (Q, C) with dC/dx = -(C/Q) dQ/dx, integrated by scipy solve_ivp (DOP853)."""
+    """Two-state system (Q, C) with dC/dx = -(C/Q) dQ/dx, integrated by scipy solve_ivp (DOP853).
+
+    No flux where the net pressure is negative (filtrate is not reabsorbed from Bowman's space)."""
 
     def f(x, y):
         Q, C = y
-        dQ = -Kf * (dP + (dP_eff - dP) * x - pi_total_protein(C))
+        dQ = -Kf * max(dP + (dP_eff - dP) * x - pi_total_protein(C), 0.0)
         return [dQ, -C / Q * dQ]
 
     sol = solve_ivp(f, (0.0, 1.0), [QA, CA], method="DOP853", rtol=1e-12, atol=1e-12)
     return sol.y[0, -1], sol.y[1, -1]
 
 
-@pytest.mark.parametrize("dP_eff", [35.0, 31.0])
-def test_matches_solve_ivp_and_conserves_protein(dP_eff):
+@pytest.mark.parametrize(("dP_eff", "rel"), [(35.0, 1e-8), (31.0, 3e-6)])
+def test_matches_solve_ivp_and_conserves_protein(dP_eff, rel):
     # Outside reference: scipy's DOP853 on the (Q, C) system, which carries protein as its own state.
     # Protein conservation: its efferent C must equal C_A/(1 - FF) from our filtration fraction.
+    # With the falling dP the net pressure crosses zero inside the capillary and the flux stops there (a
+    # kink): fixed-step RK4 is then second order near the crossing, 1e-6 at 64 steps, 1e-7 at 256.
     QE, CE = _reference_ivp(RAT_KF, RAT_DP, dP_eff, RAT_QA, RAT_CA)
     out = glomerular_filtration(RAT_KF, RAT_DP, RAT_QA, RAT_CA, dP_eff)
-    assert out["Q_eff"] == pytest.approx(QE, rel=1e-8)
-    assert CE == pytest.approx(efferent_protein(RAT_CA, out["FF"]), rel=1e-8)
-    assert out["pi_eff"] == pytest.approx(pi_total_protein(CE), rel=1e-7)
+    assert out["Q_eff"] == pytest.approx(QE, rel=rel)
+    assert CE == pytest.approx(efferent_protein(RAT_CA, out["FF"]), rel=rel)
+    assert out["pi_eff"] == pytest.approx(pi_total_protein(CE), rel=10 * rel)
 
 
 def test_rat_micropuncture_values_reach_equilibrium_before_efferent_end():
@@ -216,3 +220,31 @@ def test_pytensor_gradient_finite_and_matches_finite_difference():
     fd = (glomerular_filtration(RAT_KF + h, RAT_DP, 2.2 * RAT_QA, RAT_CA)["GFR"]
           - glomerular_filtration(RAT_KF - h, RAT_DP, 2.2 * RAT_QA, RAT_CA)["GFR"]) / (2 * h)
     assert np.isfinite(g) and g == pytest.approx(fd, rel=1e-6)
+
+
+def test_no_filtration_when_oncotic_pressure_exceeds_hydraulic_difference():
+    # Deen et al. 1972 model: the flux is Kf times the net pressure where it is positive; where the afferent
+    # oncotic pressure (about 21 mmHg at 5.7 g/dL, Landis & Pappenheimer relation) is above dP, nothing
+    # filters: GFR exactly 0 (not negative), and the note states the share.
+    dP = np.array([15.0, 35.0])
+    out = glomerular_filtration(RAT_KF, dP, RAT_QA, RAT_CA)
+    assert pi_total_protein(RAT_CA) > 15.0
+    assert out["GFR"][0] == 0.0 and out["no_filtration"][0] == 1.0
+    assert out["GFR"][1] > 0.0 and out["no_filtration"][1] == 0.0
+    note = equilibrium_note(out)
+    assert note is not None and "50% of evaluations" in note and "nothing filters" in note
+
+
+def test_clipped_flux_numpy_equals_pytensor_with_finite_gradient():
+    pytensor = pytest.importorskip("pytensor")
+    pt = pytest.importorskip("pytensor.tensor")
+    dP = np.array([15.0, 22.0, 35.0])  # below, near and above the afferent oncotic pressure (about 21 mmHg)
+    ref = glomerular_filtration(RAT_KF, dP, RAT_QA, RAT_CA, n_steps=16)
+    x = pt.dvector("dP")
+    out = glomerular_filtration(RAT_KF, x, RAT_QA, RAT_CA, n_steps=16, xp=pt)
+    grad = pytensor.grad(out["GFR"].sum(), x)
+    f = pytensor.function([x], [out["GFR"], out["no_filtration"], grad], mode="FAST_COMPILE")
+    gfr, none, g = f(dP)
+    np.testing.assert_allclose(gfr, ref["GFR"], rtol=1e-12, atol=1e-12)
+    np.testing.assert_array_equal(none, ref["no_filtration"])
+    assert np.all(np.isfinite(g)) and g[0] == 0.0 and g[2] > 0.0

@@ -102,7 +102,10 @@ def glomerular_filtration(Kf: Array, dP: Array, Q_A: Array, C_A: Array, dP_eff: 
       Kf_lower_bound (Kf x_equilibrium: the smallest Kf consistent with the same GFR when equilibrium
       is reached, exact for constant dP up to the linear interpolation of the crossing within a step;
       equal to Kf otherwise), stiffness (RK4 step times the local decay rate of the net pressure at the
-      smallest flow met at any stage, where it is largest; RK4 is stable below about 2.5: above it, raise n_steps).
+      smallest flow met at any stage, where it is largest; RK4 is stable below about 2.5: above it, raise n_steps),
+      no_filtration (1.0 where the net pressure is nowhere above zero, so GFR = 0, else 0.0). Where the
+      local net pressure dP - pi is negative the flux is zero (the net pressure is clipped at 0): the
+      wall does not return filtrate from Bowman's space, so GFR >= 0 always.
     """
     h = 1.0 / n_steps
     a = Kf / Q_A
@@ -117,7 +120,9 @@ def glomerular_filtration(Kf: Array, dP: Array, Q_A: Array, C_A: Array, dP_eff: 
     def step(x0: Array, q: Array, n_prev: Array, x_eq: Array, q_min: Array, a: Array, dP: Array, slope: Array,
              C_A: Array) -> tuple[Array, ...]:
         def rhs(x: Array, q: Array) -> Array:
-            return -a * _net(q, dP + slope * x, C_A, oncotic, xp)
+            # no filtration where the net pressure is negative: the glomerular wall does not reabsorb
+            # filtrate from Bowman's space (zero, not negative, flow; exact clip, so numpy == PyTensor)
+            return -a * xp.maximum(_net(q, dP + slope * x, C_A, oncotic, xp), 0.0)
 
         k1 = rhs(x0, q)
         k2 = rhs(x0 + 0.5 * h, q + 0.5 * h * k1)
@@ -137,6 +142,7 @@ def glomerular_filtration(Kf: Array, dP: Array, Q_A: Array, C_A: Array, dP_eff: 
     C_eff = C_A / xp.maximum(q, _Q_FLOOR)
     ff = 1.0 - q
     reached = xp.where(net_eff <= eq_tol, 1.0, 0.0)
+    none = xp.where(ff <= 0.0, 1.0, 0.0)  # the net pressure is nowhere positive: nothing filters
     stiffness = h * _decay_rate(q_min, a, C_A, oncotic, xp)
     return {
         "GFR": n_glomeruli * Q_A * ff,
@@ -152,6 +158,7 @@ def glomerular_filtration(Kf: Array, dP: Array, Q_A: Array, C_A: Array, dP_eff: 
         "equilibrium": reached,
         "Kf_lower_bound": xp.where(reached > 0.5, Kf * x_eq, Kf + 0.0 * q),
         "stiffness": stiffness,
+        "no_filtration": none,
     }
 
 
@@ -168,18 +175,41 @@ def filtration_fraction(GFR: Array, RPF: Array) -> Array:
     return GFR / RPF
 
 
-def equilibrium_note(result: dict[str, Array], Kf_unit: str = "") -> str | None:
+#: Share of draws at filtration equilibrium from which analyses add the "Kf bounded below" note to their
+#: results (our choice: a material share, 5%).
+MATERIAL_SHARE = 0.05
+
+
+def equilibrium_note(result: dict[str, Array], Kf_unit: str = "", min_share: float = 0.0) -> str | None:
     """Plain-language note when filtration equilibrium is reached in some or all evaluations (numpy only).
 
-    ``result`` is the dict of ``glomerular_filtration``. Returns None when equilibrium is never reached.
+    ``result`` is the dict of ``glomerular_filtration`` (or model outputs with ``equilibrium``,
+    ``x_equilibrium``, ``Kf_lower_bound`` and optionally ``no_filtration``). Evaluations with no filtration
+    at all count apart (their share is stated; there the data say nothing about Kf). Returns None when the
+    share reaching equilibrium while filtering is at most ``min_share`` (1) and nothing fails to filter.
     """
-    reached = np.asarray(result["equilibrium"], dtype=float)
-    share = float(np.mean(reached)) if reached.size else 0.0
-    if share <= 0.0:
+    reached = np.asarray(result["equilibrium"], dtype=float).ravel()
+    none = np.asarray(result.get("no_filtration", np.zeros_like(reached)), dtype=float).ravel()
+    none = np.broadcast_to(none, reached.shape)
+    ok = np.isfinite(reached)
+    n = int(ok.sum())
+    if n == 0:
         return None
-    bound = np.asarray(result["Kf_lower_bound"], dtype=float)[reached > 0.5]
-    x_eq = np.asarray(result["x_equilibrium"], dtype=float)[reached > 0.5]
-    unit = f" {Kf_unit}" if Kf_unit else ""
-    return (f"filtration equilibrium is reached before the efferent end in {100 * share:.0f}% of evaluations "
-            f"(median position {np.median(x_eq):.2f} of the capillary length): there GFR does not depend on Kf, "
-            f"so observations bound Kf only from below (median lower bound {np.median(bound):.3g}{unit})")
+    filtering = ok & (none < 0.5)
+    eq = filtering & (reached > 0.5)
+    share = float(eq.sum()) / n
+    share_none = float((ok & (none > 0.5)).sum()) / n
+    parts = []
+    if share > min_share and eq.any():
+        bound = np.broadcast_to(np.asarray(result["Kf_lower_bound"], dtype=float).ravel(), reached.shape)[eq]
+        x_eq = np.broadcast_to(np.asarray(result["x_equilibrium"], dtype=float).ravel(), reached.shape)[eq]
+        unit = f" {Kf_unit}" if Kf_unit else ""
+        parts.append(f"filtration equilibrium is reached before the efferent end in {100 * share:.0f}% of "
+                     f"evaluations (median position {np.median(x_eq):.2f} of the capillary length): there GFR "
+                     f"does not depend on Kf, so observations bound Kf only from below (median lower bound "
+                     f"{np.median(bound):.3g}{unit})")
+    if share_none > 0:
+        parts.append(f"in {100 * share_none:.2g}% of evaluations the afferent oncotic pressure is at or above "
+                     "P_GC - P_Bowman, so nothing filters (GFR = 0; the net pressure is clipped at zero, not "
+                     "reversed)")
+    return "; ".join(parts) if parts else None
