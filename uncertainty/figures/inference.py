@@ -3,30 +3,11 @@ posterior predictive overlay on limb-volume time courses. matplotlib is imported
 
 from __future__ import annotations
 
-import os
 from typing import Any
 
 import numpy as np
 
-
-def _pyplot() -> Any:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
-def _save(fig: Any, out_dir: str, stem: str) -> list[str]:
-    os.makedirs(out_dir, exist_ok=True)
-    paths = []
-    for ext in ("png", "svg"):
-        p = os.path.join(out_dir, f"{stem}.{ext}")
-        fig.savefig(p, dpi=130 if ext == "png" else None, bbox_inches="tight")
-        paths.append(p)
-    _pyplot().close(fig)
-    return paths
+from uncertainty.figures.propagate import _pyplot, save
 
 
 def prior_vs_posterior(result: Any, out_dir: str) -> list[str]:
@@ -56,7 +37,7 @@ def prior_vs_posterior(result: Any, out_dir: str) -> list[str]:
         ax.axis("off")
     axes.ravel()[0].legend(fontsize=7)
     fig.tight_layout()
-    return _save(fig, out_dir, "inference_prior_posterior")
+    return save(fig, out_dir, "inference_prior_posterior")
 
 
 def jv_by_subject(result: Any, out_dir: str) -> list[str]:
@@ -78,7 +59,7 @@ def jv_by_subject(result: Any, out_dir: str) -> list[str]:
     ax.invert_yaxis()
     ax.set_xlabel(f"Jv ({doc['units'].get('Jv', '')}), mean and 95% credible interval")
     fig.tight_layout()
-    return _save(fig, out_dir, "inference_jv_subjects")
+    return save(fig, out_dir, "inference_jv_subjects")
 
 
 def curves_overlay(result: Any, out_dir: str) -> list[str]:
@@ -112,7 +93,7 @@ def curves_overlay(result: Any, out_dir: str) -> list[str]:
         fig.supxlabel("time (min)", fontsize=8)
         fig.supylabel("limb volume change (mL/100 mL)", fontsize=8)
         fig.tight_layout()
-        paths += _save(fig, out_dir, f"inference_curves_{name}")
+        paths += save(fig, out_dir, f"inference_curves_{name}")
     return paths
 
 
