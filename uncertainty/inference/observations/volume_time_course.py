@@ -245,18 +245,20 @@ def add(ctx: Any, obs: Observation) -> None:
     naive = obs.extra.get("parameterisation") == "naive"
     density = ctx.problem.density
     r = ctx.value("r") if ctx.problem.quantity_known("r") else R_DEFAULT * pt.ones(n)
+    tau_v = prior_rv(f"{name}__tau_v", _side_prior("tau_v"))
+    trans = prior_rv(f"{name}__transmission", _side_prior("transmission"))
     pv_layer = ctx.layers.get("Pv")
     if pv_layer is not None:
+        # the curves see T P_cuff - Pv: sampled on the cuff scale, Pv / T (as Pvi below)
         if pv_layer["kind"] == "sd":
-            pv0 = _subject_layer(ctx, f"{name}__Pv", n, mean=pv_layer["base"], sd=pv_layer["spread"])
+            pv0 = trans * _subject_layer(ctx, f"{name}__Pv_per_T", n, mean=pv_layer["base"] / trans,
+                                         sd=pv_layer["spread"] / trans)
         else:
-            pv0 = _subject_layer(ctx, f"{name}__Pv", n, log_mean=pt.log(pv_layer["base"]),
-                                 sd=_log_sd("cv", pv_layer["spread"], pt))
+            pv0 = trans * _subject_layer(ctx, f"{name}__Pv_per_T", n, log_mean=pt.log(pv_layer["base"] / trans),
+                                         sd=_log_sd("cv", pv_layer["spread"], pt))
         ctx.override("Pv", pv0)
     else:
         pv0 = ctx.value("Pv") if ctx.problem.quantity_known("Pv") else PV_REST * pt.ones(n)
-    tau_v = prior_rv(f"{name}__tau_v", _side_prior("tau_v"))
-    trans = prior_rv(f"{name}__transmission", _side_prior("transmission"))
     for q in ("tau_v", "transmission"):
         ctx.extra_params.append(f"{name}__{q}")
         ctx.extra_priors[f"{name}__{q}"] = _side_prior(q)
@@ -283,12 +285,21 @@ def add(ctx: Any, obs: Observation) -> None:
         # quantity that hardly correlates with any subject. The priors are the declared ones:
         # log Kf_s ~ N(log Kf_typ, s) is log b_s ~ N(log Kf_typ + log T - log(1 + r_s), s); Pvi_s ~ N(m, sd) is
         # Pvi_s / T ~ N(m / T, sd / T) (the Jacobian is in the transformed density).
+        # The slow-phase time constant tau bends every curve: the data pin the mean slope over the
+        # protocol, Kf g(tau) with g = tau (1 - exp(-Tm/tau)) / Tm, Tm half the protocol's length,
+        # far better than Kf itself; sampling that (shifted log-normal prior, exact) keeps tau from
+        # correlating with every subject's Kf.
+        tau = prior_rv(f"{name}__tau", _side_prior("tau"))
+        ctx.extra_params.append(f"{name}__tau")
+        ctx.extra_priors[f"{name}__tau"] = _side_prior("tau")
+        t_half = max(0.5 * (float(np.max(t_all)) - times[0]), 1e-6)
+        bend = tau * (-pt.expm1(-t_half / tau)) / t_half
         layer = ctx.layers.get("Kf")
         if layer is not None:
             b = _subject_layer(ctx, f"{name}__Kf_T", n,
-                               log_mean=pt.log(layer["base"] * density * trans / (1.0 + r)),
+                               log_mean=pt.log(layer["base"] * density * trans * bend / (1.0 + r)),
                                sd=_log_sd(layer["kind"], layer["spread"], pt))
-            kf = b * (1.0 + r) / trans
+            kf = b * (1.0 + r) / (trans * bend)
             ctx.override("Kf", kf / density)
         else:  # one individual, or Kf without a between-subject spread: the builder's values
             kf = ctx.value("Kf") * density
@@ -297,9 +308,6 @@ def add(ctx: Any, obs: Observation) -> None:
         cT = _subject_layer(ctx, f"{name}__Cv_T", n, log_mean=pt.log(cv_typ * trans),
                             sd=_log_sd("cv", cv_spread, pt))
         cv = cT / trans
-        tau = prior_rv(f"{name}__tau", _side_prior("tau"))
-        ctx.extra_params.append(f"{name}__tau")
-        ctx.extra_priors[f"{name}__tau"] = _side_prior("tau")
         # tau = C_tis / (Kf + L): with L = 0 the solution depends on C_tis only through tau
         c_arg, l_arg = tau * kf, 0.0 * kf
     z_off = pm.Normal(f"{name}__offset_z", 0.0, 1.0, dims="subject")
