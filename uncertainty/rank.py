@@ -444,8 +444,7 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
     import arviz as az
 
     from uncertainty.inference import infer
-    from uncertainty.inference.api import _kind_hooks
-    from uncertainty.inference.model_builder import apply_layer, spread_ratio
+    from uncertainty.inference.api import new_subject_values
     from uncertainty.inference.result import flat
 
     per_chain = max(250, math.ceil(samples / chains))
@@ -458,24 +457,10 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
     ess_min = float(min(float(np.min(ess[v].values)) for v in ess.data_vars))
     thin = max(1, int(n_chain * n_draw // max(ess_min, 1.0)))
     rng = np.random.default_rng(seed + 104729)
-    vals: dict[str, Any] = dict(problem.fixed)
-    for name in names:
-        if not built.hierarchical:
-            vals[name] = flat(idata, f"{name}__subject")[:, 0]
-            continue
-        typ = flat(idata, name)
-        sp = built.spreads.get(name)
-        if sp is None:
-            vals[name] = typ
-            continue
-        kind, declared = sp
-        ratio: Any = 1.0
-        if f"{name}__spread" in idata.posterior:
-            ratio = spread_ratio(kind, declared, flat(idata, f"{name}__spread"), np)
-        vals[name] = apply_layer(problem.priors[name], typ, rng.standard_normal(typ.shape[0]), np, ratio)
-    if built.hierarchical:
-        for hook in _kind_hooks(built, "new_subject"):
-            vals = hook(built, idata, vals, rng)
+    if built.hierarchical:  # a new individual: typical posterior plus a fresh between-subject layer
+        vals = new_subject_values(built, idata, rng)
+    else:  # the study's own individual
+        vals = {**problem.fixed, **{name: flat(idata, f"{name}__subject")[:, 0] for name in names}}
     keep = np.arange(n_chain * n_draw).reshape(n_chain, n_draw)[:, ::thin].ravel()
     total = n_chain * n_draw
     vals = {k: (np.asarray(v, dtype=float)[keep] if np.ndim(v) and np.shape(v)[0] == total else v)

@@ -131,6 +131,14 @@ def _reported(built: BuiltModel, idata: Any, name: str) -> np.ndarray:
 
 
 def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> np.ndarray:
+    vals = new_subject_values(built, idata, rng)
+    return np.asarray(built.problem.evaluate(vals, np)["Jv"], dtype=float)
+
+
+def new_subject_values(built: BuiltModel, idata: Any, rng: np.random.Generator) -> dict[str, Any]:
+    """Posterior draws of each quantity for a new subject: the typical value plus a fresh
+    between-subject layer (posterior spread where sampled), then each observation kind's hook.
+    Canonical units; one value per posterior draw (fixed quantities as given)."""
     problem = built.problem
     vals: dict[str, Any] = dict(problem.fixed)
     for name in problem.priors:
@@ -146,7 +154,7 @@ def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> np.
         vals[name] = apply_layer(problem.priors[name], typ, rng.standard_normal(typ.shape[0]), np, ratio)
     for hook in _kind_hooks(built, "new_subject"):
         vals = hook(built, idata, vals, rng)
-    return np.asarray(problem.evaluate(vals, np)["Jv"], dtype=float)
+    return vals
 
 
 def _kind_hooks(built: BuiltModel, attr: str) -> list[Any]:
