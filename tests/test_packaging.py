@@ -36,6 +36,14 @@ def test_wheel_ships_priors_and_studies(wheel):
             for p in (ROOT / "studies").glob("*.toml")} <= studies
 
 
+def test_wheel_ships_every_module_of_the_source_tree(wheel):
+    names = set(zipfile.ZipFile(wheel).namelist())
+    source = {p.relative_to(ROOT).as_posix() for p in (ROOT / "uncertainty").rglob("*.py")
+              if "__pycache__" not in p.parts}
+    missing = sorted(source - names)
+    assert not missing, f"modules left out of the wheel (add their package to pyproject.toml): {missing}"
+
+
 def test_installed_wheel_finds_priors(wheel, tmp_path):
     site = tmp_path / "site"
     zipfile.ZipFile(wheel).extractall(site)  # a wheel installs by unpacking into site-packages
@@ -53,7 +61,11 @@ def test_editable_install_finds_priors(tmp_path):
     py = venv / "bin" / "python"
     subprocess.run([str(py), "-m", "pip", "install", "-q", "--no-deps", "--no-build-isolation", "-e", str(ROOT)],
                    check=True, capture_output=True)
-    out = subprocess.run([str(py), "-c", PROBE], capture_output=True, text=True, cwd=tmp_path,
+    # The venv sees the base interpreter's site-packages (for the build tools), where CI has a regular
+    # install of this package that the editable finder would never be asked about: hide it from the probe.
+    hide_base = ("import sys; sys.path[:] = [p for p in sys.path "
+                 "if not (p.startswith(sys.base_prefix) and 'site-packages' in p)]; ")
+    out = subprocess.run([str(py), "-c", hide_base + PROBE], capture_output=True, text=True, cwd=tmp_path,
                          check=True).stdout.splitlines()
     assert Path(out[0]).is_relative_to(ROOT)
     assert Path(out[1]).resolve() == (ROOT / "priors").resolve()
