@@ -180,3 +180,98 @@ def test_glomerular_observations_build_and_prior_predictive():
     assert 100 < float(pp["obs0__GFR"].median()) < 160
     assert 0.15 < float(pp["obs1__filtration_fraction"].median()) < 0.25
     assert 550 < float(pp["obs2__RPF"].median()) < 750  # RPF prior 650 mL/min (textbook estimate)
+
+
+# ---- the "Kf is only bounded below" note in analyses --------------------------------------------------
+
+#: Hydropenic Munich-Wistar rat, per glomerulus (Deen, Troy, Robertson & Brenner 1973, J Clin Invest 52:1500,
+#: abstract: Kf 0.08 nL/(s mmHg) = 4.8 nL/min/mmHg; P_GC about 45 and Bowman's space about 10 mmHg, afferent
+#: plasma flow about 75 nL/min, plasma protein about 5.7 g/dL, from memory), scaled to two kidneys of about
+#: 2 g with about 30,000 glomeruli each (from memory): Kf 4.8 nL/min/mmHg x 60,000 / 20 (100 g units) =
+#: 14.4 mL/min/mmHg/100 g, RPF 75 nL/min x 60,000 = 4.5 mL/min. These reach filtration equilibrium
+#: (single-nephron FF about 0.33, Deen et al. 1973).
+RAT_HEAD = dict(HEAD, title="invented: rat micropuncture values", tissue_mass="2 g")
+RAT = {"Kf": {"dist": "lognormal", "median": 14.4, "gsd": 1.2, "unit": "mL/min/mmHg/100g"},
+       "Pc": {"dist": "normal", "mean": 45.0, "sd": 2.0, "unit": "mmHg"},
+       "Pi": {"dist": "normal", "mean": 10.0, "sd": 1.0, "unit": "mmHg"},
+       "Cp": {"dist": "normal", "mean": 5.7, "sd": 0.2, "unit": "g/dL"},
+       "RPF": {"dist": "normal", "mean": 4.5, "sd": 0.3, "unit": "mL/min"}}
+#: Plasma loading raised single-nephron plasma flow to several times the hydropenic value and abolished
+#: equilibrium, which let Deen et al. (1973) fix Kf uniquely; 250 nL/min (from memory) x 60,000 = 15 mL/min.
+HIGH_FLOW = dict(RAT, RPF={"dist": "normal", "mean": 15.0, "sd": 1.0, "unit": "mL/min"})
+
+BOUNDED_BELOW = "observations bound Kf only from below"
+
+
+def _rat(parameters: dict, **extra) -> Study:
+    return Study.from_dict({"study": dict(RAT_HEAD), "parameters": parameters, **extra})
+
+
+def test_no_filtration_is_an_output():
+    s = _study()
+    assert "no_filtration" in s.outputs()
+    # afferent oncotic pressure above P_GC - P_Bowman: nothing filters (Deen et al. 1972 model; pi at 7 g/dL
+    # is about 25.6 mmHg by the Landis-Pappenheimer relation, common practice)
+    out = evaluate(s, {"Pc": np.array([60.0, 40.0]), "Pi": np.array([18.0, 18.0])})
+    assert out["no_filtration"].tolist() == [0.0, 1.0]
+    assert out["GFR"][1] == 0.0 and out["GFR"][0] > 0
+
+
+def test_propagate_notes_kf_bounded_below_at_rat_equilibrium():
+    from uncertainty.propagate import propagate
+
+    s = _rat(RAT)
+    # the whole-kidney scaling leaves Kf/Q_A as per glomerulus: the study at its medians is the
+    # single-glomerulus solution (4.8 nL/min/mmHg, dP 35 mmHg, 75 nL/min, 5.7 g/dL)
+    one = glomerular_filtration(4.8, 35.0, 75.0, 5.7)
+    at_medians = evaluate(s, {})
+    assert at_medians["FF"] == pytest.approx(one["FF"], rel=1e-9) and one["equilibrium"] == 1.0
+    r = propagate(s, samples=2048, outputs=["GFR", "FF", "equilibrium"])
+    notes = [n for n in r.notes if BOUNDED_BELOW in n]
+    assert len(notes) == 1
+    assert notes[0] in r.to_dict()["notes"]
+    # single-nephron FF about 0.33 at equilibrium (Deen et al. 1973)
+    assert 0.29 < r.summaries["individual"]["FF"].median < 0.36
+    share = r.summaries["individual"]["equilibrium"].mean
+    assert share > 0.5 and f"in {100 * share:.0f}% of evaluations" in notes[0]
+
+
+def test_propagate_has_no_note_without_equilibrium():
+    from uncertainty.propagate import propagate
+
+    r = propagate(_rat(HIGH_FLOW), samples=2048, outputs=["GFR", "FF", "equilibrium"])
+    assert r.summaries["individual"]["equilibrium"].mean < 0.05
+    assert not [n for n in r.notes if "equilibrium" in n or "filters" in n]
+    # disequilibrium at high plasma flow: FF falls (Deen et al. 1973)
+    assert r.summaries["individual"]["FF"].median < 0.27
+
+
+def test_propagate_command_prints_the_note(tmp_path):
+    import json
+
+    p = tmp_path / "rat.toml"
+    lines = ["[study]", 'tissue = "glomerulus"', 'model = "glomerular"', 'tissue_mass = "2 g"', "seed = 3", "",
+             "[parameters]"]
+    for k, d in RAT.items():
+        lines.append(f"{k} = {json.dumps(d).replace(':', ' =')}")
+    p.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    res = CliRunner().invoke(main, ["propagate", str(p), "--samples", "1024", "--json"])
+    assert res.exit_code == 0, res.output
+    assert any(BOUNDED_BELOW in n for n in json.loads(res.stdout)["notes"])
+    res = CliRunner().invoke(main, ["propagate", str(p), "--samples", "1024"])
+    assert res.exit_code == 0 and BOUNDED_BELOW in res.output
+
+
+def test_inference_summary_notes_from_posterior_draws():
+    # The inference summary evaluates the model on the posterior draws; here prior draws stand in for them
+    # (no sampling). Rat values -> the note; high plasma flow -> none.
+    from uncertainty.inference.api import posterior_output_notes
+    from uncertainty.inference.problem import problem_from_study
+
+    rng = np.random.default_rng(5)
+    for params, expect in ((RAT, True), (HIGH_FLOW, False)):
+        prob = problem_from_study(_rat(params))
+        draws = {k: np.asarray(p.frozen().rvs(size=400, random_state=rng), dtype=float)
+                 for k, p in prob.priors.items()}
+        notes = posterior_output_notes(prob, draws)
+        assert any(BOUNDED_BELOW in n for n in notes) is expect

@@ -34,6 +34,18 @@ def test_glomerular_study_samples_with_nutpie():
     # the prior median GFR is about 125 mL/min (forward model at the textbook medians, tests of the
     # form); with one reading at 100 +- 5 the posterior mean lies between them, near the reading
     assert 90.0 < float(pred.mean()) < 115.0
+    # The summary's "Kf is only bounded below" note follows the posterior draws of the individual: recompute
+    # the equilibrium share with physiology.glomerulus directly (RPF over 0.3 kg = 3 x 100 g, closed form).
+    from uncertainty.physiology.glomerulus import MATERIAL_SHARE, glomerular_filtration
+
+    d = {k: np.asarray(post[f"{k}__subject"]).reshape(-1) for k in ("Kf", "Pc", "Pi", "Cp", "RPF")}
+    direct = glomerular_filtration(d["Kf"], d["Pc"] - d["Pi"], d["RPF"] / 3.0, d["Cp"])
+    filtering = direct["no_filtration"] < 0.5
+    share = float(np.mean(filtering & (direct["equilibrium"] > 0.5)))
+    noted = [n for n in res.doc["notes"] if "bound Kf only from below" in n or "nothing filters" in n]
+    assert bool(noted) == (share > MATERIAL_SHARE or not filtering.all())
+    if share > MATERIAL_SHARE:
+        assert f"in {100 * share:.0f}% of evaluations" in noted[0]
 
 
 @pytest.mark.slow  # numba compile of a short scan and its gradient

@@ -48,6 +48,7 @@ OUTPUT_UNITS: dict[str, str] = {
     "x_equilibrium": "1",
     "equilibrium": "1",
     "Kf_lower_bound": "mL/min/mmHg/100g",
+    "no_filtration": "1",
 }
 
 
@@ -156,6 +157,7 @@ def _glomerular(study: Any, v: Mapping[str, Any], xp: Any) -> dict[str, Any]:
         "force_pi_c": mean_net - dP, "force_pi_i": zero,
         "GFR": Jv / per_100g, "FF": res["FF"], "pi_eff": res["pi_eff"], "x_equilibrium": res["x_equilibrium"],
         "equilibrium": res["equilibrium"], "Kf_lower_bound": res["Kf_lower_bound"],
+        "no_filtration": res["no_filtration"],
     }
     out["Jv_mL_per_h"] = out["GFR"] * 60.0
     out["Jv_L_per_day"] = out["GFR"] * (1440.0 / 1000.0)
@@ -171,6 +173,30 @@ def _oedema_volume(Pi: Any, v: Mapping[str, Any], Pi_ref: float, xp: Any) -> Any
     from uncertainty.physiology import interstitium
 
     return interstitium.oedema_volume(Pi, Pi_ref, v["C_tis"], v.get("C_tis_high"), v.get("Pi_break"), xp=xp)
+
+
+#: Outputs ``output_notes`` reads, per model form (analyses keep these draws even when not reported).
+NOTE_OUTPUTS: dict[str, tuple[str, ...]] = {
+    "glomerular": ("equilibrium", "x_equilibrium", "Kf_lower_bound", "no_filtration"),
+}
+
+
+def output_notes(model_form: str, outputs: Mapping[str, Any]) -> list[str]:
+    """Plain-language notes that a batch of model outputs calls for (numpy arrays, one value per draw).
+
+    ``glomerular``: the "Kf is only bounded below" note of ``physiology.glomerulus.equilibrium_note``
+    when more than ``glomerulus.MATERIAL_SHARE`` (5%) of the draws reach filtration equilibrium, or when
+    any draw filters nothing (Kf_lower_bound in mL/min/mmHg/100g). Other forms: no notes. Draws of the
+    outputs in :data:`NOTE_OUTPUTS` must be present; returns an empty list otherwise.
+    """
+    need = NOTE_OUTPUTS.get(model_form, ())
+    if not need or any(k not in outputs for k in need):
+        return []
+    from uncertainty.physiology import glomerulus
+
+    note = glomerulus.equilibrium_note({k: np.asarray(outputs[k], dtype=float) for k in need},
+                                       OUTPUT_UNITS["Kf_lower_bound"], min_share=glomerulus.MATERIAL_SHARE)
+    return [note] if note else []
 
 
 def outputs_for(study: Any) -> list[str]:

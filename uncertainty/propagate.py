@@ -356,6 +356,15 @@ def _evaluator(evaluate: Callable | None) -> Callable:
     return model_evaluate
 
 
+def _note_outputs(form: str | None) -> tuple[str, ...]:
+    """Outputs whose draws the model form's notes read (``model.NOTE_OUTPUTS``)."""
+    try:
+        from uncertainty.model import NOTE_OUTPUTS
+    except ImportError:  # pragma: no cover - model.py not present
+        return ()
+    return NOTE_OUTPUTS.get(form or "", ())
+
+
 def _output_units(outputs: Sequence[str]) -> dict[str, str]:
     try:
         from uncertainty.model import OUTPUT_UNITS
@@ -403,10 +412,24 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     k = len(cube_columns(study, "individual"))
     has_bs = k > d
 
+    form = getattr(study, "model", None)
+    note_keys = _note_outputs(form)
+    kept: list[dict[str, np.ndarray]] = []  # individual draws the form's notes read (model.output_notes)
+
     def sample_layers(u: np.ndarray) -> dict[str, dict[str, np.ndarray]]:
         typ = evaluate(study, from_cube(study, u[:, :d], "typical"))
         ind = evaluate(study, from_cube(study, u, "individual")) if has_bs else typ
+        if note_keys and all(key in ind for key in note_keys):
+            kept.append({key: np.broadcast_to(np.asarray(ind[key], dtype=float), (u.shape[0],))
+                         for key in note_keys})
         return {"individual": ind, "typical": typ}
+
+    def add_form_notes(res: PropagateResult) -> None:
+        if kept:
+            from uncertainty.model import output_notes
+
+            draws = {key: np.concatenate([b[key] for b in kept]) for key in note_keys}
+            res.notes.extend(n for n in output_notes(form, draws) if n not in res.notes)
 
     try:
         result = propagate_arrays(sample_layers, k, outputs, samples=samples, method=method, seed=seed,
@@ -415,12 +438,14 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     except QualityGateError as exc:
         if exc.result is not None:
             exc.result.study = _study_meta(study)
+            add_form_notes(exc.result)
         raise
     except InputError as exc:
         if exc.file is None and _file(study):
             raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc
         raise
     result.study = _study_meta(study)
+    add_form_notes(result)
     if not has_bs:
         result.notes.append("no between-subject spread declared: the individual equals the typical "
                             "subject")

@@ -88,7 +88,7 @@ def required_inputs(model_form: str) -> tuple[str, ...]:
 
 
 #: Outputs of the glomerular form beyond the common ones (``physiology.glomerulus``).
-GLOMERULAR_OUTPUTS = ["GFR", "FF", "pi_eff", "x_equilibrium", "equilibrium", "Kf_lower_bound"]
+GLOMERULAR_OUTPUTS = ["GFR", "FF", "pi_eff", "x_equilibrium", "equilibrium", "Kf_lower_bound", "no_filtration"]
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "

@@ -209,6 +209,18 @@ def identifiability(built: BuiltModel, post: dict[str, np.ndarray], prior: dict[
     return {"prior_bound": prior_bound, "confounded": pairs}
 
 
+def posterior_output_notes(problem: Problem, post: dict[str, np.ndarray]) -> list[str]:
+    """Notes the model form calls for on posterior draws (``model.output_notes``; e.g. the glomerular
+    "Kf is only bounded below" note). ``post`` holds one array of draws per quantity of ``problem.priors``
+    at the reported level (canonical units); fixed quantities come from ``problem.fixed``."""
+    from uncertainty.model import NOTE_OUTPUTS, output_notes
+
+    if problem.model_form not in NOTE_OUTPUTS or any(name not in post for name in problem.priors):
+        return []
+    outs = problem.evaluate({**problem.fixed, **{name: post[name] for name in problem.priors}}, np)
+    return output_notes(problem.model_form, outs)
+
+
 def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | None) -> InferenceResult:
     """Turn posterior draws into the result document (intervals, contraction, diagnostics)."""
     from uncertainty import units
@@ -285,6 +297,9 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
     for obs in problem.observations:
         note = getattr(kind_module(obs), "NOTE", "")
         if note and note not in notes:
+            notes.append(note)
+    for note in posterior_output_notes(problem, post):
+        if note not in notes:
             notes.append(note)
     ident = identifiability(built, post, prior, contraction)
     ident["prior_bound"] += [v for v, e in extras.items() if e.get("prior_bound")]
