@@ -6,7 +6,8 @@
   builder's non-centred Kf scores.
 - Slow: four simulated subjects with known Kf and Pvi (simulated through the same physiology function
   the model fits) are recovered inside their 95% credible intervals with the default quality gate.
-- Slow: SBC-lite, a few replicates with truths drawn from the prior (count in N_SBC).
+- Slow: simulation-based calibration, truths and curves drawn from the model's prior predictive
+  (replicate count in N_SBC).
 """
 
 from __future__ import annotations
@@ -37,11 +38,9 @@ def simulate(kf_100ml: np.ndarray, pvi: np.ndarray, cv: np.ndarray, rng: np.rand
     at, cuffs = [a for a, _ in STEPS], [c for _, c in STEPS]
     data: dict[str, list] = {"subject": [], "time_min": [], "volume": []}
     for s, (k, p, c) in enumerate(zip(kf_100ml, pvi, cv, strict=True)):
-        common = dict(tau_v=tau_v, r=vtc.R_DEFAULT, transmission=transmission, parts=True,
-                      smooth=vtc.SMOOTH_MMHG)
-        ven = interstitium.volume_time_course(t, at, cuffs, k, tau * k, 0.0, c, Pv0=vtc.PV_REST, **common)
-        fil = interstitium.volume_time_course(t, at, cuffs, k, tau * k, 0.0, c, Pv0=p, **common)
-        y = ven["venous"] + fil["filtration"] + NOISE_SD * rng.standard_normal(t.size)
+        curve = interstitium.cuff_curve(t, at, cuffs, k, tau * k, 0.0, c, Pv_rest=vtc.PV_REST, Pvi=p, tau_v=tau_v,
+                                        r=vtc.R_DEFAULT, transmission=transmission, smooth=vtc.SMOOTH_MMHG)
+        y = curve + NOISE_SD * rng.standard_normal(t.size)
         data["subject"] += [f"S{s + 1}"] * t.size
         data["time_min"] += list(t)
         data["volume"] += list(y)
@@ -101,3 +100,76 @@ def test_reparameterised_model_samples_cuff_scale_combinations_centred():
     naive = build_model(stand_in(data, parameterisation="naive"))
     nfree = {v.name for v in naive.model.free_RVs}
     assert "Kf__subject_z" in nfree and f"{name}__C_tis" in nfree and f"{name}__L" in nfree
+
+
+CURVE = "obs0__volume_time_course"
+
+
+@pytest.mark.slow
+def test_simulated_subjects_recovered_with_default_gate():
+    """Four simulated subjects (invented truths) are each recovered inside their 95% interval."""
+    from uncertainty.inference.api import Session
+    from uncertainty.inference.result import flat
+
+    kf = np.array([0.0025, 0.0035, 0.0045, 0.0030])   # mL/min/mmHg/100 mL, invented truths
+    pvi = np.array([10.0, 14.0, 18.0, 22.0])           # mmHg, invented truths
+    cv = np.array([0.035, 0.045, 0.050, 0.040])        # mL/mmHg/100 mL, invented truths
+    data = simulate(kf, pvi, cv, np.random.default_rng(7))
+    result = Session(stand_in(data)).fit(seed=3, chains=4, draws=1000, tune=1000)
+    assert result.passed, result.doc["diagnostics"]["failing"]
+    for var, truth in ((f"{CURVE}__Kf_100mL__subject", kf), (f"{CURVE}__Pvi__subject", pvi)):
+        lo, hi = np.quantile(flat(result.idata, var), [0.025, 0.975], axis=0)
+        assert np.all((lo <= truth) & (truth <= hi)), (var, truth, lo, hi)
+    # the curves pin Kf far more tightly than its prior (geometric sd 1.35, cv 0.38): interval
+    # narrower than +/-20% of the truth for every subject
+    lo, hi = np.quantile(flat(result.idata, f"{CURVE}__Kf_100mL__subject"), [0.025, 0.975], axis=0)
+    assert np.all((hi - lo) / kf < 0.4)
+
+
+N_SBC = 60      # replicates; 90% coverage must lie within the central 99.9% of Binomial(60, 0.9)
+L_SBC = 49      # thinned posterior draws per rank (ranks 0..49 in 5 bins of 10)
+
+
+@pytest.mark.slow
+def test_sbc_cuff_curves_ranks_uniform_and_coverage_binomial():
+    """Simulation-based calibration (Talts et al. 2018, arXiv:1804.06788) of the cuff-curve model.
+
+    Truths and curves of three subjects are drawn jointly from the model's own prior predictive
+    (every side quantity too: tau, tau_v, transmission, Cv, offsets); each replicate is refitted
+    with the compiled model and new data. Ranks of the truth among L_SBC thinned draws must pass
+    a chi-square uniformity test (p > 0.001) and the 90% central interval must cover the truth a
+    number of times inside Binomial(N_SBC, 0.9)'s central 99.9%.
+    """
+    import pymc as pm
+    from scipy import stats
+
+    from uncertainty.inference.api import Session
+    from uncertainty.inference.result import flat
+
+    shape = simulate(np.array([0.003, 0.004, 0.0035]), np.array([12.0, 16.0, 20.0]),
+                     np.array([0.04, 0.05, 0.045]), np.random.default_rng(11))  # layout only
+    session = Session(stand_in(shape, every=2))
+    term = session.terms[0]
+    with session.built.model:
+        prior = pm.sample_prior_predictive(draws=N_SBC, random_seed=5)
+    readings = prior.prior_predictive[term].values[0]
+    checked = {"Kf_subject_1": f"{CURVE}__Kf_100mL__subject", "Pvi_subject_1": f"{CURVE}__Pvi__subject",
+               "Kf_typical": "Kf"}
+    ranks: dict[str, list[int]] = {k: [] for k in checked}
+    covered = dict.fromkeys(checked, 0)
+    for rep in range(N_SBC):
+        run = session.fit(data={term: readings[rep]}, seed=100 + rep, chains=2, draws=250, tune=400,
+                          summarise_result=False)
+        for key, var in checked.items():
+            truth = float(np.atleast_1d(prior.prior[var].values[0, rep])[0])
+            draws = flat(run.idata, var)
+            draws = draws[:, 0] if draws.ndim > 1 else draws
+            thinned = draws[:: len(draws) // L_SBC][:L_SBC]
+            ranks[key].append(int((thinned < truth).sum()))
+            lo, hi = np.quantile(draws, [0.05, 0.95])
+            covered[key] += int(lo <= truth <= hi)
+    lo_ok, hi_ok = stats.binom.ppf(0.0005, N_SBC, 0.9), stats.binom.isf(0.0005, N_SBC, 0.9)
+    for key in checked:
+        counts = np.bincount(np.asarray(ranks[key]) * 5 // (L_SBC + 1), minlength=5)
+        assert stats.chisquare(counts).pvalue > 0.001, (key, counts)
+        assert lo_ok <= covered[key] <= hi_ok, (key, covered[key], lo_ok, hi_ok)

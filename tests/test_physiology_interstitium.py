@@ -129,3 +129,16 @@ def test_regression_exact_on_exact_line_and_errors():
         it.kf_pvi_regression([20, 20], [0.01, 0.02])
     with pytest.raises(InputError):
         it.slow_phase_slope(np.arange(3.0), np.arange(3.0), 0.0, 1.0, tau_v=1.0, at_onset=True)
+def test_cuff_curve_is_venous_part_above_rest_plus_filtration_part_above_pvi():
+    """cuff_curve against volume_time_course's two parts (and the ODE) for one invented subject."""
+    t = np.linspace(0.0, 20.0, 81)
+    at, cuffs = [0.0, 4.0, 8.0], [20.0, 30.0, 40.0]           # invented protocol
+    kw = dict(tau_v=0.6, r=0.15, transmission=0.9)            # invented subject
+    got = it.cuff_curve(t, at, cuffs, 0.004, 0.12, 0.0, 0.05, Pv_rest=8.0, Pvi=14.0, **kw)
+    ven = it.volume_time_course(t, at, cuffs, 0.004, 0.12, 0.0, 0.05, Pv0=8.0, parts=True, **kw)
+    fil = it.volume_time_course(t, at, cuffs, 0.004, 0.12, 0.0, 0.05, Pv0=14.0, parts=True, **kw)
+    np.testing.assert_allclose(got, ven["venous"] + fil["filtration"], rtol=1e-12)
+    # filtration starts only at the step whose venous pressure 0.9 x 20 = 18 mmHg exceeds Pvi = 14
+    # mmHg: with Pvi at rest instead, more fluid filters (the ODE of the linear model agrees)
+    ode = it.volume_time_course_ode(t, at, cuffs, 0.004, 0.12, 0.0, 0.05, Pv0=8.0, **kw)
+    assert np.all(got[t > 1] < ode[t > 1])

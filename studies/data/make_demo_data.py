@@ -37,7 +37,7 @@ NOISE_SD = 0.01     # reading noise, mL/100 mL
 def forearm_volumes(rng: np.random.Generator, n_subjects: int = 16) -> list[dict[str, object]]:
     """Invented limb-volume change (mL/100 mL) against time for each subject and group."""
     from uncertainty.inference.observations.volume_time_course import SMOOTH_MMHG
-    from uncertainty.physiology.interstitium import volume_time_course
+    from uncertainty.physiology.interstitium import cuff_curve
 
     rows: list[dict[str, object]] = []
     times = np.arange(0.0, END_MIN + 1e-9, SAMPLE_EVERY_MIN)
@@ -51,14 +51,12 @@ def forearm_volumes(rng: np.random.Generator, n_subjects: int = 16) -> list[dict
         rng.normal()  # drawn and unused: keeps the later invented data sets' values unchanged
         pv0 = rng.normal(9.0, 2.0)                      # resting venous pressure, mmHg
         c_tis = TAU_SLOW * (kf + L_LYMPH)
-        common = dict(tau_v=TAU_VENOUS, r=R_RATIO, transmission=TRANSMISSION, parts=True,
-                      smooth=SMOOTH_MMHG)
-        ven = volume_time_course(times, at, cuffs, kf, c_tis, L_LYMPH, cv, Pv0=pv0, **common)["venous"]
-        fil = volume_time_course(times, at, cuffs, kf, c_tis, L_LYMPH, cv, Pv0=pvi, **common)["filtration"]
+        curve = cuff_curve(times, at, cuffs, kf, c_tis, L_LYMPH, cv, Pv_rest=pv0, Pvi=pvi, tau_v=TAU_VENOUS,
+                           r=R_RATIO, transmission=TRANSMISSION, smooth=SMOOTH_MMHG)
         noise = rng.normal(0.0, NOISE_SD, size=times.size)
         # the gauge is zeroed at the first reading, so every reading carries minus that reading's
         # noise: a per-subject offset (the protocol bias term of the fitted model), first reading 0
-        volume = ven + fil + noise - noise[0]
+        volume = curve + noise - noise[0]
         for t, noisy in zip(times, volume, strict=True):
             rows.append({"subject": f"V{s + 1:02d}", "time_min": round(float(t), 2),
                          "volume": round(float(noisy), 4), "group": group})

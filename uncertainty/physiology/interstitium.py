@@ -158,6 +158,24 @@ def volume_time_course(t: Array, step_times: Sequence[float], cuff_pressures: Se
     return total
 
 
+def cuff_curve(t: Array, step_times: Sequence[float], cuff_pressures: Sequence[Array], Kf: Array,
+               C_tis: Array, L: Array, Cv: Array, *, Pv_rest: Array, Pvi: Array,
+               tau_v: Array = TAU_VENOUS_MIN, r: Array = 0.2, transmission: Array = TRANSMISSION,
+               smooth: float | None = None, xp: Any = np) -> Array:
+    """Limb volume change (mL per basis) at t (min) over cuff steps, with the veins and the
+    filtration referred to different baselines.
+
+    The veins fill with venous pressure above the resting venous pressure ``Pv_rest`` (mmHg);
+    filtration responds only once venous pressure exceeds the isovolumetric venous pressure ``Pvi``
+    (mmHg; Gamble et al. 1993, J Physiol 464:407). Both parts are ``volume_time_course``'s; units as
+    there. This is the curve the ``volume_time_course`` observation fits.
+    """
+    common = dict(tau_v=tau_v, r=r, transmission=transmission, xp=xp, parts=True, smooth=smooth)
+    ven = volume_time_course(t, step_times, cuff_pressures, Kf, C_tis, L, Cv, Pv0=Pv_rest, **common)
+    fil = volume_time_course(t, step_times, cuff_pressures, Kf, C_tis, L, Cv, Pv0=Pvi, **common)
+    return ven["venous"] + fil["filtration"]
+
+
 def volume_time_course_ode(t: Array, step_times: Sequence[float], cuff_pressures: Sequence[float],
                            Kf: float, C_tis: float, L: float, Cv: float, *, Pv0: float,
                            tau_v: float = TAU_VENOUS_MIN, r: float = 0.2, transmission: float = TRANSMISSION,

@@ -312,14 +312,10 @@ def add(ctx: Any, obs: Observation) -> None:
         c_arg, l_arg = tau * kf, 0.0 * kf
     z_off = pm.Normal(f"{name}__offset_z", 0.0, 1.0, dims="subject")
     offset = SIDE_PRIORS["offset_sd"]["value"] * z_off
-    at = pt.as_tensor_variable(t)
-    common = dict(tau_v=tau_v, r=r[sidx], transmission=trans, xp=pt, parts=True, smooth=SMOOTH_MMHG)
-    # venous phase: pressure above the resting venous pressure; filtration: above Pvi
-    ven = interstitium.volume_time_course(at, times, cuffs, kf[sidx], c_arg[sidx], l_arg[sidx], cv[sidx],
-                                          Pv0=pv0[sidx], **common)["venous"]
-    fil = interstitium.volume_time_course(at, times, cuffs, kf[sidx], c_arg[sidx], l_arg[sidx], cv[sidx],
-                                          Pv0=pvi[sidx], **common)["filtration"]
-    pred = ven + fil + offset[sidx]
+    curve = interstitium.cuff_curve(pt.as_tensor_variable(t), times, cuffs, kf[sidx], c_arg[sidx], l_arg[sidx],
+                                    cv[sidx], Pv_rest=pv0[sidx], Pvi=pvi[sidx], tau_v=tau_v, r=r[sidx],
+                                    transmission=trans, smooth=SMOOTH_MMHG, xp=pt)
+    pred = curve + offset[sidx]
     pm.Deterministic(f"{name}__pred", pred)
     pm.Deterministic(f"{name}__Pvi__subject", pvi, dims="subject")
     pm.Deterministic(f"{name}__Kf_100mL__subject", kf, dims="subject")
