@@ -12,7 +12,7 @@ import pytest
 pytensor = pytest.importorskip("pytensor")
 pt = pytest.importorskip("pytensor.tensor")
 
-from uncertainty.physiology import capillary, interstitium, oncotic, solute, starling  # noqa: E402
+from uncertainty.physiology import balance, capillary, interstitium, oncotic, solute, starling  # noqa: E402
 
 RNG = np.random.default_rng(20240501)
 N = 64
@@ -75,6 +75,12 @@ CASES = {
             t, [0.0, 4.0], [P1, P2], Kf, C_tis, L, Cv, Pv0=Pv0, tau_v=tau_v, r=r, xp=xp),
         dict(t=u(0, 10), P1=u(10, 40), P2=u(40, 70), Kf=u(0.002, 0.008), C_tis=u(0.5, 10), L=u(0.002, 0.02),
              Cv=u(0.03, 0.15), Pv0=u(4, 12), tau_v=u(0.3, 1.5), r=u(0.1, 0.4))),
+    "balance.oncotic_from_ratio": (
+        lambda R, pi_c, Cp: dict(zip(("pi", "dpi_dR"), balance.oncotic_from_ratio(R, pi_c, Cp), strict=True)),
+        dict(R=u(0.05, 1), pi_c=u(18, 32), Cp=u(5, 8))),
+    "balance.oncotic_from_ratio[proportional]": (
+        lambda R, pi_c: dict(zip(("pi", "dpi_dR"), balance.oncotic_from_ratio(R, pi_c, None), strict=True)),
+        dict(R=u(0.05, 1), pi_c=u(18, 32))),
 }
 
 # Functions that are documented as numpy only (labels, root finding, ODEs, regressions).
@@ -110,8 +116,6 @@ def test_numpy_and_pytensor_agree(name):
 
 
 def test_every_public_function_has_a_case():
-    from uncertainty.physiology import balance
-
     modules = {"starling": starling, "oncotic": oncotic, "capillary": capillary, "solute": solute,
                "interstitium": interstitium, "balance": balance}
     missing = []

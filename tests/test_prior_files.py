@@ -32,6 +32,7 @@ SYMBOLS = {
     "Pc", "Pi", "pi_c", "pi_i", "pi_g", "sigma", "Kf", "Jv", "JL", "Pa", "Pv", "r", "Cp", "Ci", "PS",
     "C_tis", "L", "Pvi", "tissue_mass", "LAP", "PAP", "Pi_L0", "JL_max",
     "RPF",  # renal plasma flow, an input of the glomerular form (issue 8)
+    "J_epi",  # epithelial fluid into the mucosal interstitium, revised form of the intestinal mucosa
 }
 
 #: Quantities that may be negative (DESIGN.md section 4: "Negative pressures are valid where the

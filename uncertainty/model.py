@@ -8,7 +8,10 @@ study's derivations (oncotic pressure from protein, Pc from Pa/Pv/r or from LAP/
   (``physiology.balance.steady_state``): Pi and pi_i are solved, not sampled;
 - ``revised``: the glycocalyx form (``physiology.balance.revised_steady_state``): pi_g beneath the
   glycocalyx opposes filtration, pi_i is downstream; the force breakdown uses pi_g in the slot of
-  the opposing oncotic pressure (``force_pi_i`` is then the pi_g term).
+  the opposing oncotic pressure (``force_pi_i`` is then the pi_g term). For the intestinal mucosa
+  (``study.TISSUE_INPUTS``) it is the absorbing steady state of ``physiology.mucosa``: the epithelial
+  fluid J_epi washes the interstitium, so absorption (Jv < 0) can be sustained; pi_g = pi_i there and
+  ``JL`` = Jv + J_epi.
 
 Only physiology functions compute; the same code runs on numpy arrays and PyTensor tensors
 (``xp=pytensor.tensor``), so inference uses this very function.
@@ -21,7 +24,6 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.study import REQUIRED_INPUTS
 from uncertainty.study import required_inputs as _required_inputs
 
 #: Canonical unit of every output.
@@ -52,10 +54,11 @@ OUTPUT_UNITS: dict[str, str] = {
 }
 
 
-def required_inputs(model_form: str) -> tuple[str, ...]:
+def required_inputs(model_form: str, tissue: str | None = None) -> tuple[str, ...]:
     """Quantities a model form needs (before derivations): classic Kf, Pc, Pi, pi_c, pi_i, sigma;
-    steady_state / revised Kf, Pc, sigma, PS, pi_c, L, Pi_L0 (C_tis, PS_large optional)."""
-    return _required_inputs(model_form)
+    steady_state / revised Kf, Pc, sigma, PS, pi_c, L, Pi_L0 (C_tis, PS_large optional); with ``tissue``,
+    plus that tissue's own (revised intestinal_mucosa: J_epi, mL/min/100g)."""
+    return _required_inputs(model_form, tissue)
 
 
 def _value(study: Any, values: Mapping[str, Any], symbol: str) -> Any:
@@ -79,7 +82,8 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
     Returns:
         dict with ``Jv`` (mL/min/100g), ``net_pressure`` and ``force_Pc``, ``force_Pi``, ``force_pi_c``,
         ``force_pi_i`` (mmHg, signed contributions to the net pressure); steady forms add ``Pi``,
-        ``pi_i`` (mmHg), ``ratio`` (Ci/Cp), ``JL`` (= Jv, lymph balance) and ``oedema_volume``
+        ``pi_i`` (mmHg), ``ratio`` (Ci/Cp), ``JL`` (= Jv, lymph balance; Jv + J_epi in the absorbing
+        mucosa) and ``oedema_volume``
         (mL/100g above the volume at the tissue's reference Pi, ``Study.Pi_ref``, when the study has
         C_tis); ``revised`` adds ``pi_g``; with a tissue mass,
         ``Jv_mL_per_h`` and ``Jv_L_per_day`` for the whole tissue; derived inputs (``Pc``, ``pi_c``,
@@ -93,7 +97,7 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
         v[s] = _value(study, values, s)
     for target, d in study.derived.items():
         v[target] = d.compute(v, xp)
-    need = REQUIRED_INPUTS[form]
+    need = _required_inputs(form, getattr(study, "tissue", None))
     missing = [s for s in need if s not in v]
     if missing:
         raise KeyError(f"the {form} form needs {', '.join(missing)}")
@@ -109,6 +113,12 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
         if form == "steady_state":
             res = balance.steady_state(*args, Cp=Cp, xp=xp)
             pi_o = res["pi_i"]
+        elif "J_epi" in need:  # absorbing mucosa: epithelial fluid washes the interstitium
+            from uncertainty.physiology import mucosa
+
+            res = mucosa.absorbing_steady_state(*args, v["J_epi"], Cp=Cp, xp=xp)
+            pi_o = res["pi_g"]
+            out["pi_g"] = res["pi_g"]
         else:
             res = balance.revised_steady_state(*args, v.get("PS_large", 0.0), Cp=Cp, xp=xp)
             pi_o = res["pi_g"]
@@ -117,7 +127,7 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
         out["Pi"] = Pi
         out["pi_i"] = res["pi_i"]
         out["ratio"] = res["ratio"]
-        out["JL"] = Jv
+        out["JL"] = res.get("JL", Jv)  # lymph balance: JL = Jv, or Jv + J_epi in the absorbing mucosa
         if "C_tis" in v and getattr(study, "Pi_ref", None) is not None:
             out["oedema_volume"] = _oedema_volume(Pi, v, study.Pi_ref, xp)
     out["Jv"] = Jv

@@ -88,6 +88,7 @@ POSITIVE = frozenset({
     "Kf", "PS", "C_tis", "C_tis_high", "C_v", "L", "sigma", "sigma_g", "sigma_osm", "pi_c", "pi_i",
     "pi_g", "Cp", "Ci", "C_alb", "C_glob", "Ci_alb", "Ci_glob", "r", "JL_max", "tissue_mass",
     "density", "Pa", "PAP", "tau_v", "k_clear", "Kf_organ", "transmission", "osmolality", "V_dist",
+    "J_epi",
 })
 
 #: Model forms (``[study] model``). ``glomerular`` is organ-specific: a prior set offers it only when its
@@ -97,7 +98,7 @@ GENERAL_FORMS = ("classic", "steady_state", "revised")
 
 #: Positive quantities that may still be *fixed* at exactly zero (no protein in Bowman's space, an
 #: impermeable barrier).
-ZERO_ALLOWED = frozenset({"pi_i", "pi_g", "Ci", "Ci_alb", "Ci_glob", "PS", "PS_large"})
+ZERO_ALLOWED = frozenset({"pi_i", "pi_g", "Ci", "Ci_alb", "Ci_glob", "PS", "PS_large", "J_epi"})
 
 #: Quantities confined to 0..1.
 UNIT_INTERVAL = frozenset({"sigma", "sigma_g", "sigma_osm", "transmission", "FF"})

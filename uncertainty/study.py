@@ -63,6 +63,16 @@ OPTIONAL_INPUTS: dict[str, tuple[str, ...]] = {
     "revised": ("C_tis", "C_tis_high", "Pi_break", "PS_large"),
     "glomerular": (),
 }
+#: Inputs a form needs for one tissue only, (form, tissue) -> symbols: the revised form of the absorbing
+#: intestinal mucosa takes the epithelial fluid input J_epi (``physiology.mucosa.absorbing_steady_state``).
+TISSUE_INPUTS: dict[tuple[str, str], tuple[str, ...]] = {
+    ("revised", "intestinal_mucosa"): ("J_epi",),
+}
+#: Optional inputs of a form that one tissue does not use, (form, tissue) -> symbols (the absorbing mucosa
+#: has no large-pore route: ``absorbing_steady_state`` takes no PS_large).
+TISSUE_UNUSED: dict[tuple[str, str], tuple[str, ...]] = {
+    ("revised", "intestinal_mucosa"): ("PS_large",),
+}
 #: Quantities a form solves (never sampled there).
 SOLVED: dict[str, tuple[str, ...]] = {
     "classic": ("pi_g",),
@@ -79,12 +89,20 @@ INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C
                "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "L", "Pi_L0", "JL_max")
 
 
-def required_inputs(model_form: str) -> tuple[str, ...]:
-    """Quantities the model form needs as inputs (before derivations such as Pc from Pa, Pv, r)."""
+def required_inputs(model_form: str, tissue: str | None = None) -> tuple[str, ...]:
+    """Quantities the model form needs as inputs (before derivations such as Pc from Pa, Pv, r); with
+    ``tissue``, plus the ones that tissue's form needs (:data:`TISSUE_INPUTS`, e.g. J_epi for the revised
+    form of the intestinal mucosa)."""
     if model_form not in REQUIRED_INPUTS:
         raise StudyError("unknown model form; use one of " + ", ".join(MODEL_FORMS), key="study.model",
                          value=model_form)
-    return REQUIRED_INPUTS[model_form]
+    return REQUIRED_INPUTS[model_form] + TISSUE_INPUTS.get((model_form, tissue or ""), ())
+
+
+def optional_inputs(model_form: str, tissue: str | None = None) -> tuple[str, ...]:
+    """Quantities the model form uses when the study has them (``OPTIONAL_INPUTS`` less ``TISSUE_UNUSED``)."""
+    unused = TISSUE_UNUSED.get((model_form, tissue or ""), ())
+    return tuple(s for s in OPTIONAL_INPUTS[model_form] if s not in unused)
 
 
 #: Outputs of the glomerular form beyond the common ones (``physiology.glomerulus``).
@@ -698,8 +716,9 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
                      "of them are not used")
     needed: list[str] = []
     used_derived: dict[str, Derivation] = {}
-    wanted = list(REQUIRED_INPUTS[head.model]) + [s for s in OPTIONAL_INPUTS[head.model]
-                                                   if s in priors or s in derived]
+    wanted = list(required_inputs(head.model, head.tissue)) + [s for s in optional_inputs(head.model, head.tissue)
+                                                               if s in priors or s in derived]
+    tissue_only = TISSUE_INPUTS.get((head.model, head.tissue), ())
     for s in wanted:
         if s in derived:
             used_derived[s] = derived[s]
@@ -712,8 +731,9 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
             if s not in needed:
                 needed.append(s)
         else:
-            raise _err(f"the {head.tissue} prior set gives no prior for {s}, which the {head.model} form needs; "
-                       "declare it under [parameters]", file, f"parameters.{s}", None)
+            why = f" for {head.tissue}" if s in tissue_only else ""
+            raise _err(f"the {head.tissue} prior set gives no prior for {s}, which the {head.model} form needs"
+                       f"{why}; declare it under [parameters]", file, f"parameters.{s}", None)
     unused = [s for s in priors if s not in needed and s not in set_aside]
     unused_changed = sorted(s for s in unused if s in overridden)
     if unused_changed:

@@ -45,6 +45,7 @@ CANONICAL: dict[str, str] = {
     # per-tissue quantities (basis suffix)
     "Kf": "mL/min/mmHg/100g",
     "Jv": "mL/min/100g", "JL": "mL/min/100g", "JL_max": "mL/min/100g", "swelling_rate": "mL/min/100g",
+    "J_epi": "mL/min/100g",
     "PS": "mL/min/100g",
     "C_tis": "mL/mmHg/100g", "C_tis_high": "mL/mmHg/100g", "C_v": "mL/mmHg/100g",
     "L": "mL/min/mmHg/100g",

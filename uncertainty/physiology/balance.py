@@ -56,8 +56,13 @@ Array = Any
 DEFAULT_STEPS = 12  # Newton steps: machine precision over wide ranges (ordinary tissues need about 6)
 
 
-def _oncotic_from_ratio(R: Array, pi_c: Array, Cp: Array | None) -> tuple[Array, Array]:
-    """pi at concentration ratio R and d pi / dR: proportional, or through the total-protein cubic."""
+def oncotic_from_ratio(R: Array, pi_c: Array, Cp: Array | None) -> tuple[Array, Array]:
+    """Oncotic pressure (mmHg) at concentration ratio R = C/Cp (1), and d pi / dR (mmHg).
+
+    Proportional scaling pi = pi_c R when ``Cp`` is None; otherwise through the Landis-Pappenheimer
+    total-protein cubic, pi = pi_c pi_tp(R Cp)/pi_tp(Cp), with Cp the plasma protein in g/dL.
+    pi_c in mmHg. Plain arithmetic (numpy arrays or PyTensor tensors).
+    """
     if Cp is None:
         return pi_c * R, pi_c + 0.0 * R
     scale = pi_c / _cubic(Cp, "total")
@@ -77,7 +82,7 @@ def _residual(x: Array, Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
               Pi_L0: Array, Cp: Array | None, xp: Any) -> tuple[Array, Array]:
     """F(Jv) of the module docstring and its derivative dF/dJv, in the same arithmetic."""
     R, dR = _ratio_and_slope(x, sigma, PS, xp)
-    pi_o, dpi_dR = _oncotic_from_ratio(R, pi_c, Cp)
+    pi_o, dpi_dR = oncotic_from_ratio(R, pi_c, Cp)
     f = Kf * ((Pc - Pi_L0 - x / L) - sigma * (pi_c - pi_o)) - x
     d = -(1.0 + Kf / L) + Kf * sigma * dpi_dR * dR
     return f, d
@@ -98,7 +103,7 @@ def _solve_jv(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Arr
     gain = 1.0 + Kf / L
     drive = Kf * (Pc - Pi_L0)  # F(0): R = 1 and pi_o = pi_c at Jv = 0
     hi = drive / gain
-    _, dpi_dR_1 = _oncotic_from_ratio(1.0 + 0.0 * hi, pi_c, Cp)
+    _, dpi_dR_1 = oncotic_from_ratio(1.0 + 0.0 * hi, pi_c, Cp)
     d0 = -gain - Kf * sigma * sigma * dpi_dR_1 / PS  # F'(0+)
     f_hi, d_hi = _residual(hi, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp, xp)
     x = xp.maximum(hi - f_hi / d_hi, -drive / d0)
@@ -126,7 +131,7 @@ def steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: 
     """
     Jv = _solve_jv(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp, xp, n_steps)
     R = steady_state_ratio(Jv, sigma, PS, xp)
-    pi_i, _ = _oncotic_from_ratio(R, pi_c, Cp)
+    pi_i, _ = oncotic_from_ratio(R, pi_c, Cp)
     return {"Jv": Jv, "Pi": Pi_L0 + Jv / L, "pi_i": pi_i, "ratio": R}
 
 
@@ -147,6 +152,6 @@ def revised_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Ar
     den = J + PS_large
     safe = xp.where(den > 0, den, 1.0)
     Ri = 1.0 - J * (1.0 - Rg) / safe  # Jv Ci = Jv Cg + PS_large (Cp - Ci), solved for Ci/Cp
-    pi_g, _ = _oncotic_from_ratio(Rg, pi_c, Cp)
-    pi_i, _ = _oncotic_from_ratio(Ri, pi_c, Cp)
+    pi_g, _ = oncotic_from_ratio(Rg, pi_c, Cp)
+    pi_i, _ = oncotic_from_ratio(Ri, pi_c, Cp)
     return {"Jv": Jv, "Pi": Pi_L0 + Jv / L, "pi_i": pi_i, "pi_g": pi_g, "ratio": Ri, "ratio_g": Rg}

@@ -42,7 +42,7 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.physiology.balance import _oncotic_from_ratio
+from uncertainty.physiology.balance import oncotic_from_ratio
 from uncertainty.physiology.iteration import fixed_steps, stop_gradient
 from uncertainty.physiology.solute import protein_flux
 from uncertainty.physiology.starling import filtration
@@ -68,7 +68,7 @@ def washout_ratio(Jv: Array, J_epi: Array, sigma: Array, PS: Array, xp: Any = np
 def _residual(Jv: Array, Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array,
               Pi_L0: Array, J_epi: Array, Cp: Array | None, xp: Any) -> Array:
     R = washout_ratio(Jv, J_epi, sigma, PS, xp)
-    pi_i, _ = _oncotic_from_ratio(R, pi_c, Cp)
+    pi_i, _ = oncotic_from_ratio(R, pi_c, Cp)
     Pi = Pi_L0 + (Jv + J_epi) / L
     return filtration(Kf, Pc, Pi, pi_c, pi_i, sigma) - Jv
 
@@ -114,7 +114,7 @@ def absorbing_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: 
     interior = (width > 0) & ~stopped
     Jv = xp.where(interior, polished, xp.where(stopped, lo0, x))
     R = washout_ratio(Jv, J_epi, sigma, PS, xp)
-    pi_i, _ = _oncotic_from_ratio(R, pi_c, Cp)
+    pi_i, _ = oncotic_from_ratio(R, pi_c, Cp)
     JL = Jv + J_epi
     # With lymph stopped, Pi sits below Pi_L0 where Starling's equation gives Jv = -J_epi.
     Pi_stopped = Pc - sigma * (pi_c - pi_i) - Jv / Kf

@@ -1,0 +1,94 @@
+"""Organ-specific model forms in studies: the revised form of the absorbing intestinal mucosa
+(``physiology.mucosa.absorbing_steady_state``) and extravascular lung water in the steady forms.
+
+Check values: sustained absorption only where the interstitium is washed by a protein-free fluid supply
+(Levick & Michel 2010, Cardiovasc Res 87:198, "Microvascular fluid exchange and the revised Starling
+principle"); Pc = LAP + 0.4 (PAP - LAP) (Gaar, Taylor, Owens & Guyton 1967, Am J Physiol 213:910).
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from uncertainty.cli import main
+from uncertainty.errors import StudyError
+from uncertainty.model import evaluate, required_inputs
+from uncertainty.physiology import mucosa
+from uncertainty.propagate import propagate
+from uncertainty.study import Study
+
+PRIORS = Path(__file__).resolve().parents[1] / "priors"
+
+
+def _study(tissue: str, model: str, **extra) -> Study:
+    head = {"title": "invented: organ form check", "tissue": tissue, "model": model, "seed": 3,
+            **extra.pop("head", {})}
+    return Study.from_dict({"study": head, **extra})
+
+
+# ---- absorbing intestinal mucosa, revised form --------------------------------------------------------
+
+def test_mucosa_revised_form_needs_j_epi_and_routes_through_absorbing_steady_state():
+    assert "J_epi" in required_inputs("revised", "intestinal_mucosa")
+    assert "J_epi" not in required_inputs("revised", "skeletal_muscle")
+    assert "J_epi" not in required_inputs("steady_state", "intestinal_mucosa")
+    s = _study("intestinal_mucosa", "revised")
+    assert "J_epi" in s.names
+    med = {k: p.median() for k, p in s.priors.items()}
+    out = evaluate(s, med)
+    ref = mucosa.absorbing_steady_state(med["Kf"], out["Pc"], med["sigma"],
+                                        med["PS"], out["pi_c"], med["L"], med["Pi_L0"], med["J_epi"],
+                                        Cp=med["Cp"])
+    for k in ("Jv", "Pi", "pi_i", "pi_g", "ratio", "JL"):
+        assert out[k] == pytest.approx(ref[k], rel=1e-12), k
+    # lymph carries capillary filtration plus the epithelial absorbate (mass balance, closed form)
+    assert out["JL"] == pytest.approx(out["Jv"] + med["J_epi"], rel=1e-12)
+    # the force breakdown still sums to the net pressure, with pi_g (= pi_i here) opposing filtration
+    total = out["force_Pc"] + out["force_Pi"] + out["force_pi_c"] + out["force_pi_i"]
+    assert total == pytest.approx(out["net_pressure"], rel=1e-9)
+    assert out["Jv"] == pytest.approx(med["Kf"] * out["net_pressure"], rel=1e-9)
+    # the resting forms do not take J_epi
+    assert "J_epi" not in _study("intestinal_mucosa", "steady_state").names
+
+
+def test_revised_form_absorbs_in_mucosa_only():
+    # Levick & Michel 2010: sustained absorption is impossible in ordinary tissues at steady state
+    # (P(absorption) exactly 0 there), possible in the absorbing intestinal mucosa.
+    gut = propagate(_study("intestinal_mucosa", "revised"), samples=4096).to_dict()
+    assert gut["p_absorption"] > 0.05 + 5 * gut["p_absorption_mc_se"]  # a material share (> 5%)
+    assert gut["typical_p_absorption"] > 0.05
+    assert gut["nan_draws"]["individual"]["Jv"] == 0
+    for tissue in ("skeletal_muscle", "skin_subcutis"):
+        d = propagate(_study(tissue, "revised"), samples=4096).to_dict()
+        assert d["p_absorption"] == 0.0 and d["typical_p_absorption"] == 0.0, tissue
+
+
+def test_mucosa_without_j_epi_prior_exits_2(tmp_path, monkeypatch):
+    # A prior set for the mucosa that lacks J_epi: the revised form refuses the study, naming the key.
+    folder = tmp_path / "priors"
+    shutil.copytree(PRIORS, folder)
+    text = (folder / "intestinal_mucosa.toml").read_text(encoding="utf-8")
+    start = text.index("[priors.J_epi]")
+    end = text.index("[priors.", start + 5)
+    (folder / "intestinal_mucosa.toml").write_text(text[:start] + text[end:], encoding="utf-8")
+    import uncertainty.study as study_mod
+    from uncertainty import priors
+
+    monkeypatch.setattr(study_mod, "load_prior_set", lambda name: priors.load_prior_set(name, folder))
+    with pytest.raises(StudyError) as exc:
+        _study("intestinal_mucosa", "revised")
+    assert exc.value.key == "parameters.J_epi" and exc.value.value is None
+    assert "J_epi" in exc.value.reason
+    _study("intestinal_mucosa", "steady_state")  # the resting forms do not need it
+    p = tmp_path / "gut.toml"
+    p.write_text('[study]\ntissue = "intestinal_mucosa"\nmodel = "revised"\n', encoding="utf-8")
+    res = CliRunner().invoke(main, ["check", str(p)])
+    out = (res.output or "") + (getattr(res, "stderr", "") or "")
+    assert res.exit_code == 2 and "gut.toml" in out and "parameters.J_epi" in out and "Traceback" not in out
+    # declaring it in the study is enough (0.2 mL/min/100 g, the order of magnitude of the prior set, from memory)
+    p.write_text(p.read_text() + '\n[parameters]\nJ_epi = "0.2 mL/min/100g"\n', encoding="utf-8")
+    assert CliRunner().invoke(main, ["check", str(p)]).exit_code == 0
