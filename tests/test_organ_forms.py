@@ -11,13 +11,14 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
 from uncertainty.cli import main
 from uncertainty.errors import StudyError
 from uncertainty.model import evaluate, required_inputs
-from uncertainty.physiology import mucosa
+from uncertainty.physiology import lung, mucosa
 from uncertainty.propagate import propagate
 from uncertainty.study import Study
 
@@ -92,3 +93,39 @@ def test_mucosa_without_j_epi_prior_exits_2(tmp_path, monkeypatch):
     # declaring it in the study is enough (0.2 mL/min/100 g, the order of magnitude of the prior set, from memory)
     p.write_text(p.read_text() + '\n[parameters]\nJ_epi = "0.2 mL/min/100g"\n', encoding="utf-8")
     assert CliRunner().invoke(main, ["check", str(p)]).exit_code == 0
+
+
+# ---- extravascular lung water, steady forms --------------------------------------------------------------
+
+@pytest.mark.parametrize("model", ["steady_state", "revised"])
+def test_lung_water_is_an_output_of_the_steady_forms(model):
+    s = _study("lung", model)
+    assert {"EVLW", "oedema_volume", "Pc"} <= set(s.outputs()) and "EVLW0" in s.names
+    assert "EVLW" not in _study("skeletal_muscle", model).outputs()
+    rng = np.random.default_rng(7)
+    v = {k: p.median() * rng.uniform(0.8, 1.2, 16) for k, p in s.priors.items()}
+    out = evaluate(s, v)
+    # Gaar et al. 1967: Pc = LAP + 0.4 (PAP - LAP), draw by draw
+    np.testing.assert_allclose(out["Pc"], v["LAP"] + 0.4 * (v["PAP"] - v["LAP"]), rtol=1e-14)
+    # EVLW = EVLW0 + C_tis (Pi - Pi_ref), linear compliance (closed form; Pi_ref = the lung set's Pi median)
+    assert s.Pi_ref == pytest.approx(-3.0)  # priors/lung.toml Pi prior mean
+    np.testing.assert_allclose(out["EVLW"], v["EVLW0"] + v["C_tis"] * (out["Pi"] - s.Pi_ref), rtol=1e-12)
+    # the same numbers as physiology.lung.lung_water, which takes LAP and PAP itself
+    ref = lung.lung_water(v["Kf"], v["LAP"], v["PAP"], v["sigma"], v["PS"], out["pi_c"], v["L"], v["Pi_L0"],
+                          v["C_tis"], s.Pi_ref, v["EVLW0"], Cp=v["Cp"], revised=model == "revised")
+    for k in ("Jv", "Pi", "oedema_volume", "EVLW"):
+        np.testing.assert_allclose(out[k], ref[k], rtol=1e-12, atol=1e-12, err_msg=k)
+
+
+def test_left_heart_failure_raises_lung_water_and_pc_follows_gaar():
+    base = propagate(_study("lung", "steady_state"), samples=4096, outputs=["EVLW", "Pc"])
+    hf = propagate(_study("lung", "steady_state", head={"conditions": ["heart_failure_left"]}), samples=4096,
+                   outputs=["EVLW", "Pc"])
+    for layer in ("individual", "typical"):
+        b, h = base.summaries[layer], hf.summaries[layer]
+        se = np.hypot(b["EVLW"].mc_se["median"], h["EVLW"].mc_se["median"])
+        assert h["EVLW"].median > b["EVLW"].median + 5 * se, layer
+        # E[Pc] = 0.6 E[LAP] + 0.4 E[PAP] (Gaar et al. 1967, linear): baseline LAP 8, PAP 14 mmHg
+        # (priors/lung.toml); left-sided failure shifts them by +12 and +14 mmHg (priors/conditions.toml)
+        for r, lap, pap in ((b, 8.0, 14.0), (h, 20.0, 28.0)):
+            assert abs(r["Pc"].mean - (lap + 0.4 * (pap - lap))) < 5 * r["Pc"].mc_se["mean"] + 1e-9, layer

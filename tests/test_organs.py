@@ -169,6 +169,10 @@ CASES = {
     "lung.lung_water": (lung.lung_water, dict(
         Kf=u(0.05, 0.4), LAP=u(2, 30), PAP=u(10, 40), sigma=u(0.5, 0.9), PS=u(0.002, 0.02), pi_c=u(18, 30),
         L=u(0.02, 0.2), Pi_L0=u(-5, 0), C_tis=u(0.5, 2), Pi_ref=u(-5, -1), EVLW0=u(30, 60))),
+    "lung.extravascular_water": (
+        lambda Pi, Pi_ref, C_tis, EVLW0, C_high, P_break, xp=np: lung.extravascular_water(
+            Pi, Pi_ref, C_tis, EVLW0, C_high=C_high, P_break=P_break, xp=xp),
+        dict(Pi=u(-6, 10), Pi_ref=u(-5, -1), C_tis=u(0.5, 2), EVLW0=u(60, 90), C_high=u(5, 20), P_break=u(-2, 3))),
     "osmotic.crystalloid_sum": (lambda s1, c1, i1, s2, c2, i2: osmotic.crystalloid_sum(
         [(s1, c1, i1), (s2, c2, i2)]), dict(s1=u(0, 1), c1=u(270, 330), i1=u(270, 330), s2=u(0, 1),
                                           c2=u(0, 20), i2=u(0, 20))),

@@ -33,6 +33,7 @@ SYMBOLS = {
     "C_tis", "L", "Pvi", "tissue_mass", "LAP", "PAP", "Pi_L0", "JL_max",
     "RPF",  # renal plasma flow, an input of the glomerular form (issue 8)
     "J_epi",  # epithelial fluid into the mucosal interstitium, revised form of the intestinal mucosa
+    "EVLW0",  # extravascular lung water at the reference Pi, steady lung forms (physiology.lung)
 }
 
 #: Quantities that may be negative (DESIGN.md section 4: "Negative pressures are valid where the

@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.study import TISSUE_OUTPUTS
 from uncertainty.study import required_inputs as _required_inputs
 
 #: Canonical unit of every output.
@@ -40,6 +41,7 @@ OUTPUT_UNITS: dict[str, str] = {
     "ratio": "1",
     "JL": "mL/min/100g",
     "oedema_volume": "mL/100g",
+    "EVLW": "mL/100g",
     "Jv_mL_per_h": "mL/h",
     "Jv_L_per_day": "L/day",
     "Pc": "mmHg",
@@ -129,7 +131,14 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
         out["ratio"] = res["ratio"]
         out["JL"] = res.get("JL", Jv)  # lymph balance: JL = Jv, or Jv + J_epi in the absorbing mucosa
         if "C_tis" in v and getattr(study, "Pi_ref", None) is not None:
-            out["oedema_volume"] = _oedema_volume(Pi, v, study.Pi_ref, xp)
+            if "EVLW" in TISSUE_OUTPUTS.get((form, getattr(study, "tissue", "")), ()):
+                from uncertainty.physiology import lung
+
+                water = lung.extravascular_water(Pi, study.Pi_ref, v["C_tis"], v.get("EVLW0", 0.0),
+                                                 C_high=v.get("C_tis_high"), P_break=v.get("Pi_break"), xp=xp)
+                out["oedema_volume"], out["EVLW"] = water["oedema_volume"], water["EVLW"]
+            else:
+                out["oedema_volume"] = _oedema_volume(Pi, v, study.Pi_ref, xp)
     out["Jv"] = Jv
     out["net_pressure"] = starling.net_pressure(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])
     forces = starling.forces(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"])

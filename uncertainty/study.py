@@ -73,6 +73,17 @@ TISSUE_INPUTS: dict[tuple[str, str], tuple[str, ...]] = {
 TISSUE_UNUSED: dict[tuple[str, str], tuple[str, ...]] = {
     ("revised", "intestinal_mucosa"): ("PS_large",),
 }
+#: Optional inputs a form uses for one tissue only: the steady lung forms take EVLW0, the extravascular
+#: lung water at the reference Pi (``physiology.lung.extravascular_water``).
+TISSUE_OPTIONAL: dict[tuple[str, str], tuple[str, ...]] = {
+    ("steady_state", "lung"): ("EVLW0",),
+    ("revised", "lung"): ("EVLW0",),
+}
+#: Outputs a form gives for one tissue only (with C_tis and the reference Pi, as ``oedema_volume``).
+TISSUE_OUTPUTS: dict[tuple[str, str], tuple[str, ...]] = {
+    ("steady_state", "lung"): ("EVLW",),
+    ("revised", "lung"): ("EVLW",),
+}
 #: Quantities a form solves (never sampled there).
 SOLVED: dict[str, tuple[str, ...]] = {
     "classic": ("pi_g",),
@@ -81,7 +92,7 @@ SOLVED: dict[str, tuple[str, ...]] = {
     "glomerular": ("pi_i", "pi_g"),
 }
 #: Quantities that are results, never inputs.
-OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "Jv_organ", "GFR", "ratio", "volume",
+OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "Jv_organ", "GFR", "ratio", "volume",
                          "swelling_rate", "time", "tissue_mass", "density", "osmotic_pressure"})
 
 #: Display order of inputs (others follow alphabetically).
@@ -100,9 +111,11 @@ def required_inputs(model_form: str, tissue: str | None = None) -> tuple[str, ..
 
 
 def optional_inputs(model_form: str, tissue: str | None = None) -> tuple[str, ...]:
-    """Quantities the model form uses when the study has them (``OPTIONAL_INPUTS`` less ``TISSUE_UNUSED``)."""
+    """Quantities the model form uses when the study has them (``OPTIONAL_INPUTS`` less ``TISSUE_UNUSED``,
+    plus ``TISSUE_OPTIONAL``)."""
     unused = TISSUE_UNUSED.get((model_form, tissue or ""), ())
-    return tuple(s for s in OPTIONAL_INPUTS[model_form] if s not in unused)
+    return tuple(s for s in OPTIONAL_INPUTS[model_form] if s not in unused) + \
+        TISSUE_OPTIONAL.get((model_form, tissue or ""), ())
 
 
 #: Outputs of the glomerular form beyond the common ones (``physiology.glomerulus``).
@@ -116,11 +129,14 @@ NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial flu
 GLOMERULAR_KINDS = ("GFR", "RPF", "filtration_fraction")
 
 
-def output_names(model_form: str, tissue_mass: bool = False, derived: tuple[str, ...] = ()) -> list[str]:
-    """Outputs ``model.evaluate`` returns for a model form (``derived``: derived quantities shown too)."""
+def output_names(model_form: str, tissue_mass: bool = False, derived: tuple[str, ...] = (),
+                 tissue: str | None = None) -> list[str]:
+    """Outputs ``model.evaluate`` returns for a model form (``derived``: derived quantities shown too;
+    ``tissue``: plus that tissue's own, :data:`TISSUE_OUTPUTS`, e.g. EVLW for the steady lung forms)."""
     out = ["Jv", "net_pressure", "force_Pc", "force_Pi", "force_pi_c", "force_pi_i"]
     if model_form in ("steady_state", "revised"):
         out += ["Pi", "pi_i", "ratio", "JL", "oedema_volume"]
+        out += list(TISSUE_OUTPUTS.get((model_form, tissue or ""), ()))
     if model_form == "revised":
         out += ["pi_g"]
     if model_form == "glomerular":
@@ -531,9 +547,10 @@ class Study:
 
     def outputs(self) -> list[str]:
         """Output names ``model.evaluate`` gives for this study."""
-        names = output_names(self.model, self.tissue_mass_kg is not None, tuple(self.derived))
+        names = output_names(self.model, self.tissue_mass_kg is not None, tuple(self.derived), self.tissue)
         if self.model in ("steady_state", "revised") and ("C_tis" not in self.priors or self.Pi_ref is None):
-            names.remove("oedema_volume")
+            for name in ("oedema_volume", *TISSUE_OUTPUTS.get((self.model, self.tissue), ())):
+                names.remove(name)
         return names
 
     def known_quantities(self) -> set[str]:

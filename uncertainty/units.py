@@ -49,7 +49,7 @@ CANONICAL: dict[str, str] = {
     "PS": "mL/min/100g",
     "C_tis": "mL/mmHg/100g", "C_tis_high": "mL/mmHg/100g", "C_v": "mL/mmHg/100g",
     "L": "mL/min/mmHg/100g",
-    "volume": "mL/100g", "oedema_volume": "mL/100g", "V_dist": "mL/100g",
+    "volume": "mL/100g", "oedema_volume": "mL/100g", "V_dist": "mL/100g", "EVLW": "mL/100g", "EVLW0": "mL/100g",
     # whole-organ quantities
     "GFR": "mL/min", "RPF": "mL/min", "Kf_organ": "mL/min/mmHg", "Jv_organ": "mL/min",
     # other

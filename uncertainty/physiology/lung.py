@@ -27,6 +27,18 @@ from uncertainty.physiology.interstitium import oedema_volume
 Array = Any
 
 
+def extravascular_water(Pi: Array, Pi_ref: Array, C_tis: Array, EVLW0: Array = 0.0, *, C_high: Array | None = None,
+                        P_break: Array | None = None, xp: Any = np) -> dict[str, Array]:
+    """Extravascular lung water (mL per basis) at a steady-state interstitial pressure Pi (mmHg).
+
+    ``oedema_volume``: interstitial water above that at the reference Pi_ref (mmHg), by
+    ``interstitium.oedema_volume`` (C_tis, optional two-slope C_high above P_break; mL/mmHg per basis, mmHg);
+    ``EVLW`` = EVLW0 (the water at Pi_ref, mL per basis) + oedema_volume.
+    """
+    extra = oedema_volume(Pi, Pi_ref, C_tis, C_high, P_break, xp=xp)
+    return {"oedema_volume": extra, "EVLW": EVLW0 + extra}
+
+
 def lung_water(Kf: Array, LAP: Array, PAP: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
                C_tis: Array, Pi_ref: Array, EVLW0: Array = 0.0, *, fraction: Array = 0.4,
                C_high: Array | None = None, P_break: Array | None = None, Cp: Array | None = None,
@@ -44,7 +56,6 @@ def lung_water(Kf: Array, LAP: Array, PAP: Array, sigma: Array, PS: Array, pi_c:
     Pc = pulmonary_capillary_pressure(LAP, PAP, fraction)
     solve = revised_steady_state if revised else steady_state
     out = dict(solve(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp=Cp, xp=xp))
-    extra = oedema_volume(out["Pi"], Pi_ref, C_tis, C_high, P_break, xp=xp)
-    out.update({"Pc": Pc, "JL": out["Jv"], "oedema_volume": extra, "EVLW": EVLW0 + extra,
-                "tau": C_tis / (Kf + L)})
+    out.update(extravascular_water(out["Pi"], Pi_ref, C_tis, EVLW0, C_high=C_high, P_break=P_break, xp=xp))
+    out.update({"Pc": Pc, "JL": out["Jv"], "tau": C_tis / (Kf + L)})
     return out
