@@ -197,7 +197,9 @@ FAKES = {"propagate": fake_propagate, "sensitivity": fake_sensitivity, "infer": 
 
 def install() -> None:
     """Point the runner at the stand-ins."""
-    from uncertainty import run as run_mod
+    import importlib
+
+    run_mod = importlib.import_module("uncertainty.run")
 
     run_mod.LOADER = load_fake
     run_mod.ANALYSES.update(FAKES)

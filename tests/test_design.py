@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib
 import math
 from types import SimpleNamespace
 
@@ -9,10 +10,12 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from uncertainty import design as dz
 from uncertainty import trial_power as tp
 from uncertainty.errors import InputError
 from uncertainty.priors import parse_prior
+
+# the module itself: the package attribute uncertainty.design is the API function
+dz = importlib.import_module("uncertainty.design")
 
 
 def _study(section: dict, **priors: dict) -> SimpleNamespace:

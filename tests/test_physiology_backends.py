@@ -75,6 +75,11 @@ CASES = {
             t, [0.0, 4.0], [P1, P2], Kf, C_tis, L, Cv, Pv0=Pv0, tau_v=tau_v, r=r, xp=xp),
         dict(t=u(0, 10), P1=u(10, 40), P2=u(40, 70), Kf=u(0.002, 0.008), C_tis=u(0.5, 10), L=u(0.002, 0.02),
              Cv=u(0.03, 0.15), Pv0=u(4, 12), tau_v=u(0.3, 1.5), r=u(0.1, 0.4))),
+    "interstitium.cuff_curve": (
+        lambda t, P1, P2, Kf, C_tis, Cv, Pv_rest, Pvi, tau_v, xp=np: interstitium.cuff_curve(
+            t, [0.0, 4.0], [P1, P2], Kf, C_tis, 0.0, Cv, Pv_rest=Pv_rest, Pvi=Pvi, tau_v=tau_v, smooth=1.0, xp=xp),
+        dict(t=u(0, 10), P1=u(10, 40), P2=u(40, 70), Kf=u(0.002, 0.008), C_tis=u(0.5, 10), Cv=u(0.03, 0.15),
+             Pv_rest=u(4, 12), Pvi=u(10, 25), tau_v=u(0.3, 1.5))),
     "balance.oncotic_from_ratio": (
         lambda R, pi_c, Cp: dict(zip(("pi", "dpi_dR"), balance.oncotic_from_ratio(R, pi_c, Cp), strict=True)),
         dict(R=u(0.05, 1), pi_c=u(18, 32), Cp=u(5, 8))),

@@ -3,6 +3,7 @@ rendered in headless chromium (figures decoded, tables present, fits a phone wid
 
 from __future__ import annotations
 
+import importlib
 import re
 import shutil
 import subprocess
@@ -12,7 +13,9 @@ import pytest
 import run_fakes
 
 from uncertainty import report
-from uncertainty import run as run_mod
+
+# the module itself: the package attribute uncertainty.run is the API function
+run_mod = importlib.import_module("uncertainty.run")
 
 CHROMIUM = next((shutil.which(n) for n in ("chromium", "chromium-browser") if shutil.which(n)), None)
 needs_chromium = pytest.mark.skipif(

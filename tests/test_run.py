@@ -3,6 +3,7 @@ reuse of unchanged sections, --force, quality gate, crashes, interruption by SIG
 
 from __future__ import annotations
 
+import importlib
 import json
 import os
 import signal
@@ -16,8 +17,10 @@ import pytest
 import run_fakes
 
 from uncertainty import bundle as bundle_mod
-from uncertainty import run as run_mod
 from uncertainty.errors import FluidshiftError, InputError, QualityGateError, StudyError
+
+# the module itself: the package attribute uncertainty.run is the API function
+run_mod = importlib.import_module("uncertainty.run")
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent

@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+import importlib
 import json
 
 import pytest
 import run_fakes
 from click.testing import CliRunner
 
-from uncertainty import run as run_mod
 from uncertainty.cli import main
+
+# the module itself: the package attribute uncertainty.run is the API function
+run_mod = importlib.import_module("uncertainty.run")
 
 
 @pytest.fixture
