@@ -173,3 +173,30 @@ def test_sbc_cuff_curves_ranks_uniform_and_coverage_binomial():
         counts = np.bincount(np.asarray(ranks[key]) * 5 // (L_SBC + 1), minlength=5)
         assert stats.chisquare(counts).pvalue > 0.001, (key, counts)
         assert lo_ok <= covered[key] <= hi_ok, (key, covered[key], lo_ok, hi_ok)
+
+
+def test_posterior_mode_start_is_the_conjugate_mode_and_flattens_in_nutpie_order():
+    """posterior_mode on a conjugate normal model (closed-form mode), and the jittered start vector
+    lists every free variable in the model's order within +/-START_JITTER of the mode."""
+    import pymc as pm
+
+    from uncertainty.inference import samplers
+
+    y = np.array([1.2, 0.7, 1.9])  # invented readings
+    with pm.Model() as model:
+        mu = pm.Normal("mu", 0.0, 2.0)
+        s = pm.LogNormal("s", 0.0, 1.0)
+        pm.Normal("k", 0.0, 1.0, shape=2)
+        pm.Normal("y", mu, 0.5, observed=y)
+        del s
+    mode, _ = samplers.posterior_mode(model)
+    # conjugate normal mean: (sum y / 0.5^2) / (n / 0.5^2 + 1 / 2^2) (closed form)
+    assert mode["mu"] == pytest.approx((y.sum() / 0.25) / (3 / 0.25 + 1 / 4.0), rel=1e-5)
+    # find_MAP maximises the density of s itself: the LogNormal(0, 1) mode exp(mu - sigma^2) = exp(-1)
+    # (closed form), stored on the log scale as -1
+    assert mode["s"] == pytest.approx(np.exp(-1.0), rel=1e-5)
+    assert mode["s_log__"] == pytest.approx(-1.0, abs=1e-5)
+    start = samplers._jittered_start(model, mode)(3)
+    expected = np.concatenate([[mode["mu"]], [-1.0], np.zeros(2)])
+    assert start.shape == (4,) and np.all(np.abs(start - expected) <= samplers.START_JITTER)
+    assert not np.allclose(start, samplers._jittered_start(model, mode)(4))  # chains start apart

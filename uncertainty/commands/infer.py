@@ -93,6 +93,9 @@ def _report(result: Any, as_json: bool, out: str | None, quiet: bool) -> None:
               help="Warm-up steps per chain.")
 @click.option("--target-accept", type=click.FloatRange(0.5, 0.999), default=0.95, show_default=True,
               help="NUTS target acceptance rate; raise it (e.g. 0.99) when a few divergences remain.")
+@click.option("--start", type=click.Choice(["auto", "mode", "prior"]), default="auto", show_default=True,
+              help="Where chains start: around the posterior mode (mode), at the priors' central points "
+                   "(prior), or the mode only for kinds that need it, such as volume time courses (auto).")
 @click.option("--compare-models", is_flag=True,
               help="Compare the classic and revised forms by PSIS-LOO (leave one subject out with subjects).")
 @click.option("--no-checks", is_flag=True, help="Skip prior/posterior predictive and power-scaling checks.")
@@ -102,7 +105,7 @@ def _report(result: Any, as_json: bool, out: str | None, quiet: bool) -> None:
               help="Quality gate: divergent transitions allowed.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, sampler: str,
-            chains: int, draws: int, tune: int, target_accept: float, compare_models: bool, no_checks: bool,
+            chains: int, draws: int, tune: int, target_accept: float, start: str, compare_models: bool, no_checks: bool,
             r_hat_max: float, ess_min: float, divergences_max: int) -> None:
     """Update the study's priors from its [[observations]]: credible intervals for Jv (individual,
     per subject, typical and new subject), prior vs posterior per quantity with contraction,
@@ -122,7 +125,8 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     gate = {"r_hat_max": r_hat_max, "ess_bulk_min": ess_min, "divergences_max": divergences_max}
     try:
         result = infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
-                       compare_models=compare_models, checks=not no_checks, target_accept=target_accept)
+                       compare_models=compare_models, checks=not no_checks, target_accept=target_accept,
+                       start=start)
     except QualityGateError as exc:
         if exc.result is not None:
             _report(exc.result, as_json, out, quiet)
