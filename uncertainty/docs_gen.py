@@ -101,6 +101,7 @@ MEANINGS: dict[str, str] = {
     "observations.lymph": "swelling_rate: a prior declaration of the lymph flow (mL/min/100g)",
     "observations.effects": "quantities given a group effect (with grouped data)",
     "observations.site": "lymph_flow: where lymph was collected, pre_nodal or post_nodal",
+    "observations.every": "volume_time_course: fit every k-th reading of each subject (1 = all; fewer is faster)",
     "observations.step.parameter": "the stepped pressure (Pv)",
     "observations.step.to": "the pressure after the step, in `unit` (default mmHg)",
     "observations.step.unit": "unit of `to`",

@@ -239,6 +239,8 @@ class Observation(BaseModel):
     lymph: Any = None
     effects: list[str] | None = None
     site: Literal["pre_nodal", "post_nodal"] | None = None
+    # volume_time_course: fit every k-th reading of each subject (1 = all)
+    every: int | None = Field(default=None, ge=1)
     _data: dict[str, list] | None = PrivateAttr(default=None)
     _path: Path | None = PrivateAttr(default=None)
 
@@ -277,6 +279,8 @@ class Observation(BaseModel):
         else:
             if self.step is not None or self.steps is not None:
                 raise ValueError(f"a {k} observation takes no step / steps")
+            if self.every is not None:
+                raise ValueError(f"a {k} observation takes no every (volume_time_course only)")
             if self.value is None and self.file is None:
                 raise ValueError(f"a {k} observation needs value (or a data file)")
             if self.value is not None and self.file is not None:
