@@ -114,13 +114,16 @@ class BuildContext:
         return self.subjects.index(obs.subject)
 
     def value(self, name: str) -> Any:
-        """Per-subject vector (dim subject) of a quantity or output; raises KeyError when unknown."""
+        """Per-subject vector (dim subject) of a quantity (uncertain or fixed) or output; raises
+        KeyError when unknown."""
         import pytensor.tensor as pt
 
         if name in self._overrides:
             return self._overrides[name]
         if name in self.per_subject:
             return self.per_subject[name]
+        if name in self.problem.fixed:
+            return pt.as_tensor_variable(float(self.problem.fixed[name])) * pt.ones(len(self.subjects))
         outs = self.outputs()
         if name in outs:
             return pt.as_tensor_variable(outs[name]) * pt.ones(len(self.subjects))
