@@ -94,3 +94,27 @@ def test_subject_labels_everywhere_or_nowhere():
     with pytest.raises(InputError) as err:
         build_model(problem({"Kf": kf}, obs))
     assert err.value.key == "observations[2].subject"
+
+
+def test_lymph_flow_reads_the_models_lymph_output_where_it_has_one():
+    """With a JL output (the absorbing mucosa: JL = Jv + J_epi) the reading predicts JL, else Jv."""
+    import pymc as pm
+    from inference_helpers import FIXED, normal, starling_outputs
+
+    from uncertainty.inference.model_builder import build_model
+    from uncertainty.inference.problem import Problem, normalise_observations
+
+    j_epi = 0.2  # mL/min/100 g, invented epithelial flow for the check
+
+    def with_lymph(v, xp):
+        out = starling_outputs(v, xp)
+        return out | {"JL": out["Jv"] + j_epi}
+
+    obs = normalise_observations([{"kind": "lymph_flow", "value": 0.1, "sd": 0.02}], file="stand-in.toml")
+    for evaluate, extra in ((starling_outputs, 0.0), (with_lymph, j_epi)):
+        built = build_model(Problem(priors={"Pc": normal("Pc", 20.0, 2.0)}, fixed=dict(FIXED),
+                                    evaluate=evaluate, observations=obs, file="stand-in.toml"))
+        draws = pm.sample_prior_predictive(draws=5, model=built.model, random_seed=1,
+                                           var_names=["obs0__lymph_flow__pred", "Jv__subject"]).prior
+        pred = draws["obs0__lymph_flow__pred"].values.ravel()
+        np.testing.assert_allclose(pred, draws["Jv__subject"].values.ravel() + extra, rtol=1e-12)

@@ -1,4 +1,6 @@
-"""``lymph_flow``: pre-nodal lymph flow, equal to Jv at steady state (JL = Jv).
+"""``lymph_flow``: pre-nodal lymph flow, equal to Jv at steady state (JL = Jv), or to the model's JL
+output where the form has one (in the absorbing intestinal mucosa JL = Jv + J_epi, the epithelial
+fluid leaving through the lymph).
 
 sd: normal error in the value's unit; cv: lognormal error. Lymph collected after a lymph node
 understates Jv, because nodes take up part of the fluid (Levick & Michel 2010, Cardiovasc Res
@@ -31,13 +33,14 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 
 def add(ctx: Any, obs: Observation) -> None:
-    """reading ~ error(Jv of the observation's subject)."""
+    """reading ~ error(lymph flow of the observation's subject): the model's JL output where the form
+    has one (steady forms; JL = Jv + J_epi in the absorbing mucosa), else Jv (lymph = Jv)."""
     import pymc as pm
 
     from uncertainty.inference.model_builder import ObservedTerm
 
     i = ctx.subject_index(obs)
-    pred = ctx.value("Jv")[i]
+    pred = ctx.value("JL" if "JL" in ctx.outputs() else "Jv")[i]
     name = term_name(obs)
     pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
