@@ -136,8 +136,11 @@ def time_to_gate(parameterisation: str, cap: float) -> tuple[float, bool]:
             break
         bg = nutpie.sample(compiled, chains=4, draws=n, tune=n, seed=1, progress_bar=False, save_warmup=False,
                            target_accept=0.95, blocking=False)
-        idata = bg.wait(timeout=left)  # the trace (all of it once finished; wait takes it only once)
-        if not bg.is_finished:
+        try:
+            idata = bg.wait(timeout=left)  # the trace (wait takes it only once); TimeoutError at the cap
+        except TimeoutError:
+            idata = None
+        if idata is None or not bg.is_finished:
             bg.cancel()
             print(f"  {parameterisation}: stopped at the {cap:.0f} s cap during {n} + {n} draws")
             return time.perf_counter() - t0, False
