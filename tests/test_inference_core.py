@@ -118,3 +118,15 @@ def test_lymph_flow_reads_the_models_lymph_output_where_it_has_one():
                                            var_names=["obs0__lymph_flow__pred", "Jv__subject"]).prior
         pred = draws["obs0__lymph_flow__pred"].values.ravel()
         np.testing.assert_allclose(pred, draws["Jv__subject"].values.ravel() + extra, rtol=1e-12)
+
+
+def test_unknown_start_is_an_input_error():
+    from inference_helpers import normal, problem
+
+    from uncertainty.errors import InputError
+    from uncertainty.inference.api import fit
+
+    with pytest.raises(InputError) as err:
+        fit(problem({"Pc": normal("Pc", 20.0, 2.0)}, [{"kind": "lymph_flow", "value": 0.05, "sd": 0.01}]),
+            start="centre")
+    assert err.value.key == "start" and err.value.value == "centre"

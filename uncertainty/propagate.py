@@ -356,15 +356,6 @@ def _evaluator(evaluate: Callable | None) -> Callable:
     return model_evaluate
 
 
-def _note_outputs(form: str | None) -> tuple[str, ...]:
-    """Outputs whose draws the model form's notes read (``model.NOTE_OUTPUTS``)."""
-    try:
-        from uncertainty.model import NOTE_OUTPUTS
-    except ImportError:  # pragma: no cover - model.py not present
-        return ()
-    return NOTE_OUTPUTS.get(form or "", ())
-
-
 def _output_units(outputs: Sequence[str]) -> dict[str, str]:
     try:
         from uncertainty.model import OUTPUT_UNITS
@@ -413,7 +404,9 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     has_bs = k > d
 
     form = getattr(study, "model", None)
-    note_keys = _note_outputs(form)
+    from uncertainty.model import NOTE_OUTPUTS
+
+    note_keys = NOTE_OUTPUTS.get(form or "", ())  # outputs whose draws the form's notes read
     kept: list[dict[str, np.ndarray]] = []  # individual draws the form's notes read (model.output_notes)
 
     def sample_layers(u: np.ndarray) -> dict[str, dict[str, np.ndarray]]:
