@@ -32,6 +32,9 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "Data for Bayesian updating, one table per observation; `kind` decides which keys are required."),
     ("observations.step", "step = { ... } / steps = [{ ... }]", "StepSpec",
      "A venous-cuff pressure step of a `volume_time_course` (one step, or a cumulative protocol)."),
+    ("infer", "[infer]", "InferSection",
+     "Sampler settings and quality gate for Bayesian updating from the observations. `fluidshift infer` flags "
+     "override these keys; `fluidshift run` uses them as they stand."),
     ("rank", "[rank]", "RankSection",
      "Which single measurement (and which pair or set within a budget) would narrow the Jv interval most."),
     ("rank.candidates", "candidates = [{ ... }]", "Candidate", "One candidate measurement."),

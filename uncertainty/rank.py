@@ -428,8 +428,9 @@ class RankResult:
         return plot_rank(self.doc, out_dir)
 
 
-def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler: str = "nutpie",
-                   chains: int = 4, tune: int = 1000) -> tuple[dict[str, np.ndarray], np.ndarray, dict[str, Any]]:
+def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler: str | None = None,
+                   chains: int | None = None, tune: int | None = None
+                   ) -> tuple[dict[str, np.ndarray], np.ndarray, dict[str, Any]]:
     """Posterior draws of the study's individual from its observations, thinned for autocorrelation.
 
     Samples with :func:`uncertainty.inference.infer` (quality gate: QualityGateError, exit 3), about
@@ -444,11 +445,12 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
     import arviz as az
 
     from uncertainty.inference import infer
-    from uncertainty.inference.api import new_subject_values
+    from uncertainty.inference.api import new_subject_values, settings
     from uncertainty.inference.result import flat
 
-    per_chain = max(250, math.ceil(samples / chains))
-    res = infer(study, sampler=sampler, seed=seed, chains=chains, draws=per_chain, tune=tune, checks=False)
+    opts = settings(study, sampler=sampler, chains=chains, tune=tune)  # None: the study's [infer], else defaults
+    opts["draws"] = max(250, math.ceil(samples / opts["chains"]))
+    res = infer(study, seed=seed, checks=False, **opts)
     idata, built = res.idata, res.built
     problem = built.problem
     names = list(problem.priors)

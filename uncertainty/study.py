@@ -415,6 +415,38 @@ class DesignSection(BaseModel):
         return v
 
 
+class InferSection(BaseModel):
+    """``[infer]``: sampler settings and quality gate for Bayesian updating. Every key is optional; a
+    command-line flag of ``fluidshift infer`` overrides the key, and ``fluidshift run`` uses the section
+    as it stands. Defaults are those of ``fluidshift infer``."""
+
+    model_config = _CFG
+    sampler: Literal["nutpie", "pymc"] = Field(default="nutpie", description=(
+        "nutpie (default) or PyMC's own NUTS"))
+    chains: int = Field(default=4, ge=1, le=64, description="number of chains")
+    draws: int = Field(default=1000, ge=50, le=10**6, description="posterior draws per chain")
+    tune: int = Field(default=1000, ge=50, le=10**6, description="warm-up steps per chain")
+    target_accept: float = Field(default=0.95, ge=0.5, le=0.999, description=(
+        "NUTS target acceptance rate; raise it (e.g. 0.99) when a few divergences remain. The default is 0.95, "
+        "not the samplers' 0.8: a lymph-flow reading pins only the product Kf x net pressure, a curved ridge "
+        "on which 0.8 gave tens of divergences (common practice: raise target_accept before trusting chains "
+        "with divergences)"))
+    start: Literal["auto", "mode", "prior"] = Field(default="auto", description=(
+        "where chains start: around the posterior mode (mode), at the priors' central points (prior), or "
+        "the mode only for observation kinds that need it, such as volume time courses (auto)"))
+    r_hat_max: float = Field(default=1.01, gt=1, le=2, description=(
+        "quality gate: largest R-hat allowed (Vehtari et al. 2021: 1.01)"))
+    ess_bulk_min: float = Field(default=400.0, ge=0, description=(
+        "quality gate: smallest bulk effective sample size (Vehtari et al. 2021: 400 over 4 chains)"))
+    divergences_max: int = Field(default=0, ge=0, description=(
+        "quality gate: divergent transitions allowed (common practice: none)"))
+
+    def gate(self) -> dict[str, float]:
+        """The quality-gate thresholds as the ``gate`` argument of ``inference.infer``."""
+        return {"r_hat_max": self.r_hat_max, "ess_bulk_min": self.ess_bulk_min,
+                "divergences_max": self.divergences_max}
+
+
 class ScheduleSection(BaseModel):
     """``[schedule]``: optimise a venous-cuff protocol (uncertainty/schedule.py; `fluidshift design STUDY
     --schedule`). ``steps`` cuff steps of ``step_min`` minutes each, pressures from ``pressure_grid``,
@@ -467,9 +499,10 @@ SECTIONS: dict[str, type[BaseModel]] = {
     "rank": RankSection,
     "design": DesignSection,
     "schedule": ScheduleSection,
+    "infer": InferSection,
 }
-TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", "observations", "rank",
-             "design", "schedule")
+TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", "observations", "infer",
+             "rank", "design", "schedule")
 
 #: Required CSV columns per observation kind; a time column is one of TIME_COLUMNS.
 CSV_COLUMNS: dict[str, tuple[str, ...]] = {
@@ -509,7 +542,7 @@ class Study:
         correlation: normal-score correlation matrix over ``names``.
         correlations: the (a, b, rho) pairs kept.
         notes: what was dropped or set aside, in plain words.
-        propagate, sensitivity, observations, rank, design, schedule: section models or None.
+        propagate, sensitivity, observations, infer, rank, design, schedule: section models or None.
         instruments: the instruments the observations and candidates name.
         steady_Cp: the plasma protein input passed to the steady state (pi_i through the protein cubic),
             or None for proportional scaling.
@@ -539,6 +572,7 @@ class Study:
     rank: RankSection | None = None
     design: DesignSection | None = None
     schedule: ScheduleSection | None = None
+    infer: InferSection | None = None
     instruments: dict[str, Instrument] = field(default_factory=dict)
     steady_Cp: str | None = None
     Pi_ref: float | None = None
@@ -785,9 +819,11 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
             study.steady_Cp = d.inputs[0]
     pool = priors
 
-    for name in ("propagate", "sensitivity", "rank", "design", "schedule"):
+    for name in SECTIONS:
         if name in doc:
             setattr(study, name, _section_model(SECTIONS[name], doc[name], file, name))
+    if study.infer is not None and "observations" not in doc:
+        notes.append("[infer] is set but the study has no [[observations]]: no inference runs")
     if "observations" in doc:
         obs = doc["observations"]
         if not isinstance(obs, list):

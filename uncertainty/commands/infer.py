@@ -84,33 +84,39 @@ def _report(result: Any, as_json: bool, out: str | None, quiet: bool) -> None:
 
 @click.command("infer", short_help="Posterior from the study's observations, with diagnostics.")
 @study_options
-@click.option("--sampler", type=click.Choice(["nutpie", "pymc"]), default="nutpie", show_default=True,
-              help="nutpie (default) or PyMC's own NUTS.")
-@click.option("--chains", type=click.IntRange(1, 64), default=4, show_default=True)
-@click.option("--draws", type=click.IntRange(50, 10**6), default=1000, show_default=True,
-              help="Posterior draws per chain.")
-@click.option("--tune", type=click.IntRange(50, 10**6), default=1000, show_default=True,
-              help="Warm-up steps per chain.")
-@click.option("--target-accept", type=click.FloatRange(0.5, 0.999), default=0.95, show_default=True,
-              help="NUTS target acceptance rate; raise it (e.g. 0.99) when a few divergences remain.")
-@click.option("--start", type=click.Choice(["auto", "mode", "prior"]), default="auto", show_default=True,
+@click.option("--sampler", type=click.Choice(["nutpie", "pymc"]), default=None,
+              help="nutpie or PyMC's own NUTS.  [default: the study's [infer], else nutpie]")
+@click.option("--chains", type=click.IntRange(1, 64), default=None, help="[default: [infer], else 4]")
+@click.option("--draws", type=click.IntRange(50, 10**6), default=None,
+              help="Posterior draws per chain.  [default: [infer], else 1000]")
+@click.option("--tune", type=click.IntRange(50, 10**6), default=None,
+              help="Warm-up steps per chain.  [default: [infer], else 1000]")
+@click.option("--target-accept", type=click.FloatRange(0.5, 0.999), default=None,
+              help="NUTS target acceptance rate; raise it (e.g. 0.99) when a few divergences remain.  "
+                   "[default: [infer], else 0.95]")
+@click.option("--start", type=click.Choice(["auto", "mode", "prior"]), default=None,
               help="Where chains start: around the posterior mode (mode), at the priors' central points "
-                   "(prior), or the mode only for kinds that need it, such as volume time courses (auto).")
+                   "(prior), or the mode only for kinds that need it, such as volume time courses (auto).  "
+                   "[default: [infer], else auto]")
 @click.option("--compare-models", is_flag=True,
               help="Compare the classic and revised forms by PSIS-LOO (leave one subject out with subjects).")
 @click.option("--no-checks", is_flag=True, help="Skip prior/posterior predictive and power-scaling checks.")
-@click.option("--r-hat-max", type=float, default=1.01, show_default=True, help="Quality gate: largest R-hat.")
-@click.option("--ess-min", type=float, default=400.0, show_default=True, help="Quality gate: smallest bulk ESS.")
-@click.option("--divergences-max", type=int, default=0, show_default=True,
-              help="Quality gate: divergent transitions allowed.")
+@click.option("--r-hat-max", type=float, default=None, help="Quality gate: largest R-hat.  [default: [infer], "
+              "else 1.01]")
+@click.option("--ess-min", type=float, default=None, help="Quality gate: smallest bulk ESS.  [default: [infer], "
+              "else 400]")
+@click.option("--divergences-max", type=int, default=None,
+              help="Quality gate: divergent transitions allowed.  [default: [infer], else 0]")
 @handle_errors
-def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, sampler: str,
-            chains: int, draws: int, tune: int, target_accept: float, start: str, compare_models: bool, no_checks: bool,
-            r_hat_max: float, ess_min: float, divergences_max: int) -> None:
+def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, sampler: str | None,
+            chains: int | None, draws: int | None, tune: int | None, target_accept: float | None, start: str | None,
+            compare_models: bool, no_checks: bool, r_hat_max: float | None, ess_min: float | None,
+            divergences_max: int | None) -> None:
     """Update the study's priors from its [[observations]]: credible intervals for Jv (individual,
     per subject, typical and new subject), prior vs posterior per quantity with contraction,
     diagnostics (R-hat, ESS, divergences, BFMI) and model checks. Exit 3 if the chains fail the
-    quality gate; the posterior is saved as posterior.nc with --out.
+    quality gate; the posterior is saved as posterior.nc with --out. Sampler settings and gate come
+    from the study's [infer] section where it has one; each flag overrides its key.
 
     \b
     Examples:
@@ -119,10 +125,13 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
       fluidshift infer my-study.toml --sampler pymc --target-accept 0.99
     """
     from uncertainty.inference import infer
+    from uncertainty.inference.api import settings
     from uncertainty.study import load_study
 
     s = load_study(study)
-    gate = {"r_hat_max": r_hat_max, "ess_bulk_min": ess_min, "divergences_max": divergences_max}
+    gate = settings(s)["gate"]  # the study's [infer] thresholds (or the defaults), each flag overriding
+    gate.update({k: v for k, v in (("r_hat_max", r_hat_max), ("ess_bulk_min", ess_min),
+                                   ("divergences_max", divergences_max)) if v is not None})
     try:
         result = infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
                        compare_models=compare_models, checks=not no_checks, target_accept=target_accept,

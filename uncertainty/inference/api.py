@@ -25,13 +25,12 @@ from uncertainty.inference.result import (
     summarise,
 )
 from uncertainty.inference.samplers import SampleRun, sample
+from uncertainty.study import InferSection
 
 #: prior draws used for prior moments that have no closed form (individual layers, Jv)
 PRIOR_DRAWS = 8000
-#: NUTS target acceptance. 0.95 rather than the samplers' 0.8: a lymph-flow reading pins only the
-#: product Kf x net pressure, a curved ridge on which 0.8 gave tens of divergences (common practice:
-#: raise target_accept before trusting chains with divergences).
-DEFAULT_TARGET_ACCEPT = 0.95
+#: NUTS target acceptance (study [infer] default; its description gives the reason for 0.95).
+DEFAULT_TARGET_ACCEPT: float = InferSection.model_fields["target_accept"].default
 #: where chains start: "auto" (the posterior mode when an observation kind asks for it with
 #: START_AT_MODE, else the priors' central points), "mode" or "prior"
 STARTS = ("auto", "mode", "prior")
@@ -82,23 +81,44 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     return result
 
 
-def infer(study: Any, sampler: str = "nutpie", seed: int | None = None, chains: int = 4,
-          draws: int = 1000, tune: int = 1000, gate: Any = None, compare_models: bool = False,
+def settings(study: Any, **given: Any) -> dict[str, Any]:
+    """Sampler settings and gate for ``study``: each value given (not None) wins, then the study's
+    ``[infer]`` section, then the defaults of :class:`uncertainty.study.InferSection`.
+
+    Returns ``{sampler, chains, draws, tune, target_accept, start, gate}`` (``gate`` a dict of the
+    thresholds unless one was given).
+    """
+    section = getattr(study, "infer", None)
+    if section is None and isinstance(study, Problem):
+        section = getattr(study.study, "infer", None)
+    if section is None:
+        section = InferSection()
+    out = {k: getattr(section, k) for k in ("sampler", "chains", "draws", "tune", "target_accept", "start")}
+    out["gate"] = section.gate()
+    out.update({k: v for k, v in given.items() if v is not None})
+    return out
+
+
+def infer(study: Any, sampler: str | None = None, seed: int | None = None, chains: int | None = None,
+          draws: int | None = None, tune: int | None = None, gate: Any = None, compare_models: bool = False,
           checks: bool = True, observations: Sequence[Any] | None = None,
-          target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto") -> InferenceResult:
+          target_accept: float | None = None, start: str | None = None) -> InferenceResult:
     """Posterior of a study from its observations, with diagnostics and model checks.
 
-    Raises QualityGateError (exit 3, naming the failing quantities, the result attached) when the
-    chains fail the gate (default R-hat <= 1.01, bulk ESS >= 400, no divergences). Intervals are
-    in canonical units (Jv in mL/min per the study's basis).
+    Settings left as None come from the study's ``[infer]`` section, else the defaults (nutpie,
+    4 chains x (1000 + 1000), target_accept 0.95, start "auto"; gate R-hat <= 1.01, bulk ESS >= 400,
+    no divergences). Raises QualityGateError (exit 3, naming the failing quantities, the result
+    attached) when the chains fail the gate. Intervals are in canonical units (Jv in mL/min per the
+    study's basis).
     """
-    result = fit(study, observations, sampler=sampler, seed=seed, chains=chains, draws=draws,
-                 tune=tune, gate=gate, checks=checks, target_accept=target_accept, start=start)
+    opts = settings(study, sampler=sampler, chains=chains, draws=draws, tune=tune, gate=gate,
+                    target_accept=target_accept, start=start)
+    result = fit(study, observations, seed=seed, checks=checks, **opts)
     if compare_models:
         from uncertainty.inference.compare import compare_forms
 
-        result.doc["comparison"] = compare_forms(study, sampler=sampler, seed=seed, chains=chains,
-                                                 draws=draws, tune=tune, observations=observations)
+        result.doc["comparison"] = compare_forms(study, sampler=opts["sampler"], seed=seed, chains=opts["chains"],
+                                                 draws=opts["draws"], tune=opts["tune"], observations=observations)
     if not result.passed:
         failing = "; ".join(result.doc["diagnostics"]["failing"][:8])
         result.doc["trustworthy"] = False
