@@ -88,6 +88,46 @@ def test_filtration_missing_quantity():
     assert res.exit_code == 2 and "missing" in res.output
 
 
+def _muscle_file_medians():
+    """Medians read straight from priors/skeletal_muscle.toml (each value's origin is beside it there)."""
+    import tomllib
+    from pathlib import Path
+
+    from scipy import stats
+
+    doc = tomllib.loads((Path(__file__).resolve().parents[1] / "priors" / "skeletal_muscle.toml").read_text())
+    pr = doc["priors"]
+    assert pr["Kf"]["dist"] == "lognormal" and pr["Kf"]["unit"] == "mL/min/mmHg/100g"
+    assert pr["Pi"]["dist"] == "normal" and pr["pi_i"]["dist"] == "lognormal" and pr["sigma"]["dist"] == "beta"
+    m, sd = pr["sigma"]["mean"], pr["sigma"]["sd"]
+    nu = m * (1 - m) / sd**2 - 1  # beta by mean and sd: a = m nu, b = (1 - m) nu (method of moments)
+    cp = pr["pi_c"]["from_protein"]["mean"]
+    return {"Kf": pr["Kf"]["median"], "Pi": pr["Pi"]["mean"], "pi_i": pr["pi_i"]["median"],
+            "sigma": stats.beta(m * nu, (1 - m) * nu).median(),
+            # Landis & Pappenheimer 1963 total-protein polynomial: 2.1 C + 0.16 C^2 + 0.009 C^3
+            "pi_c": 2.1 * cp + 0.16 * cp**2 + 0.009 * cp**3}
+
+
+def test_filtration_tissue_fills_unset_quantities_with_prior_medians():
+    med = _muscle_file_medians()
+    res = run(["filtration", "--set", "Pc=20", "--tissue", "skeletal_muscle", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.output)
+    assert doc["inputs"]["Pc"] == 20.0 and doc["sources"]["Pc"] == "set"
+    for s in ("Kf", "Pi", "pi_c", "pi_i", "sigma"):
+        assert doc["inputs"][s] == pytest.approx(med[s], rel=1e-6), s
+        assert doc["sources"][s] == "skeletal_muscle prior median"
+    # Starling sum by hand at those values
+    net = (20 - med["Pi"]) - med["sigma"] * (med["pi_c"] - med["pi_i"])
+    assert doc["Jv"] == pytest.approx(med["Kf"] * net, rel=1e-6)
+    # per 100 mL of tissue: the per-100-g median times the density (1.05 g/mL: 100 mL weighs 105 g)
+    res = run(["filtration", "--set", "Pc=20", "--tissue", "skeletal_muscle", "--basis", "100mL", "--json"])
+    doc = json.loads(res.output)
+    assert doc["units"]["Kf"] == "mL/min/mmHg/100mL"
+    assert doc["inputs"]["Kf"] == pytest.approx(med["Kf"] * 1.05, rel=1e-6)
+    assert doc["Jv"] == pytest.approx(med["Kf"] * 1.05 * net, rel=1e-6)
+
+
 def test_oncotic_json():
     res = run(["oncotic", "7", "g/dL", "--json"])
     assert res.exit_code == 0

@@ -52,9 +52,12 @@ def check_ranges(values: dict[str, float]) -> None:
             raise InputError(f"{symbol} {why}", key=symbol, value=x)
 
 
-def resolve(values: dict[str, float], tissue: str | None) -> tuple[dict[str, float], dict[str, str]]:
+def resolve(values: dict[str, float], tissue: str | None, basis: str = "100g",
+            density: float = 1.05) -> tuple[dict[str, float], dict[str, str]]:
     """Fill the six Starling quantities: derived ones first, then prior medians of ``tissue``.
 
+    ``values`` are canonical on ``basis`` (Kf in mL/min/mmHg per 100 g or per 100 mL); prior medians
+    (per 100 g) are converted to that basis at ``density`` (g/mL) before they fill a gap.
     Returns the six values and, for each, where it came from ("set", "derived", "tissue median").
     """
     from uncertainty.physiology import capillary, oncotic
@@ -73,11 +76,15 @@ def resolve(values: dict[str, float], tissue: str | None) -> tuple[dict[str, flo
     missing = [s for s in SIX if s not in out]
     if missing and tissue:
         from uncertainty.priors import prior_medians
+        from uncertainty.units import CANONICAL, takes_basis, to_canonical
 
         medians = prior_medians(tissue)
         for s in missing:
             if s in medians:
-                out[s] = float(medians[s])
+                x = float(medians[s])
+                if basis != "100g" and takes_basis(s):  # medians are per 100 g
+                    x = to_canonical(s, x, CANONICAL[s], basis=basis, density=density)
+                out[s] = x
                 source[s] = f"{tissue} prior median"
         missing = [s for s in SIX if s not in out]
     if missing:
@@ -114,7 +121,7 @@ def command(settings: tuple[str, ...], tissue: str | None, basis: str, density: 
     from uncertainty.physiology import starling
 
     values = parse_settings(settings, basis, density)
-    six, source = resolve(values, tissue)
+    six, source = resolve(values, tissue, basis, density)
     forces = {k: float(v) for k, v in starling.forces(six["Pc"], six["Pi"], six["pi_c"], six["pi_i"],
                                                        six["sigma"]).items()}
     net = float(starling.net_pressure(six["Pc"], six["Pi"], six["pi_c"], six["pi_i"], six["sigma"]))
