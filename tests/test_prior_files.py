@@ -286,3 +286,19 @@ def test_demo_data_regenerates_identically(tmp_path: Path, monkeypatch: pytest.M
     mod.main()
     for c in sorted((STUDIES / "data").glob("*.csv")):
         assert (tmp_path / c.name).read_text() == c.read_text(), c.name
+
+
+def test_posture_height_rescales_the_shift() -> None:
+    # rho g h of blood (common practice: rho 1.05 g/mL, 1 mmHg = 133.322 Pa): 45 cm below the heart
+    # raises Pa and Pv by about 34.8 mmHg; without posture_height the file's 30 cm applies.
+    from uncertainty.study import Study
+
+    base = {"tissue": "skeletal_muscle"}
+    plain = Study.from_dict({"study": base})
+    default = Study.from_dict({"study": {**base, "conditions": ["posture"]}})
+    tall = Study.from_dict({"study": {**base, "conditions": ["posture"], "posture_height": "45 cm"}})
+    expected = 1050 * 9.80665 * 0.45 / 133.322
+    for sym in ("Pa", "Pv"):
+        rise = tall.priors[sym].mean() - plain.priors[sym].mean()
+        assert rise == pytest.approx(expected, rel=5e-3)
+        assert default.priors[sym].mean() - plain.priors[sym].mean() == pytest.approx(expected * 30 / 45, rel=5e-3)

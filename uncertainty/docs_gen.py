@@ -58,6 +58,9 @@ MEANINGS: dict[str, str] = {
     "study.model": "model form: classic (Jv from the six Starling quantities), steady_state (Pi and pi_i solved "
                    "from the lymph and protein balance), revised (glycocalyx filter, pi_g solved), glomerular "
                    "(filtration along the glomerular capillary from Cp and RPF; needs tissue_mass)",
+    "study.posture_height": "height of the tissue below the heart for the posture condition (default 30 cm, "
+                            "from priors/conditions.toml); a number in cm or a string with a unit (\"40 cm\"); "
+                            "Pa and Pv rise by 0.7725 mmHg per cm",
     "study.seed": "random seed; the same study and seed give the same numbers",
     "study.tissue_mass": "mass of the limb or organ for whole-tissue shifts (Jv in mL/h and L/day); a number in "
                          "kg or a string with a unit (\"3.2 kg\")",

@@ -1001,6 +1001,7 @@ class Modifier:
     extra_gsd: float | None = None
     origin: str = ""
     note: str = ""
+    per_cm: float | None = None   # shift per cm of height below the heart (posture rows), canonical unit
 
 
 @dataclass(frozen=True)
@@ -1016,8 +1017,11 @@ class Condition:
 
     def apply(self, prior_set: PriorSet | Mapping[str, Prior], *, tissue: str | None = None,
               notes: list[str] | None = None, derived: dict[str, Derivation] | None = None,
-              density: float | None = None) -> dict[str, Prior]:
+              density: float | None = None, height_cm: float | None = None) -> dict[str, Prior]:
         """The priors after this condition's modifiers (a new dict; the input is not changed).
+
+        ``height_cm`` (cm below the heart) rescales the rows that carry ``per_cm`` (posture): their
+        shift becomes ``per_cm * height_cm`` instead of the file's default-height shift.
 
         Shifts are in the parameter's canonical unit and move the location (mean, median, bounds,
         mode, value); ``multiply`` scales the location (mean or median; bounds and mode for uniform /
@@ -1039,6 +1043,8 @@ class Condition:
         for i, m in enumerate(self.modify):
             key = f"conditions.{self.name}.modify[{i}]"
             sym = m.parameter
+            if height_cm is not None and m.per_cm is not None:
+                m = dataclasses.replace(m, shift=m.per_cm * height_cm)
             if sym in priors and sym not in derived:
                 priors[sym] = _modify_prior(priors[sym], m, self.path, key, density)
             elif sym in derived:
@@ -1147,7 +1153,7 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                     "extra_sd" in row or "extra_gsd" in row):
                 raise _err("give one of shift, multiply or set", path_str, rkey, None)
             vals: dict[str, float | None] = {}
-            for k in ("shift", "multiply", "extra_sd", "extra_gsd"):
+            for k in ("shift", "multiply", "extra_sd", "extra_gsd", "per_cm"):
                 v = row.get(k)
                 if v is None:
                     vals[k] = None
@@ -1155,7 +1161,7 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                 if not _is_number(v):
                     raise _err("expected a number", path_str, f"{rkey}.{k}", v)
                 v = float(v)
-                if k in ("shift", "extra_sd") and row.get("unit"):
+                if k in ("shift", "extra_sd", "per_cm") and row.get("unit"):
                     from uncertainty import units
 
                     try:
@@ -1170,7 +1176,8 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                     raise _err("extra_gsd must be > 1", path_str, f"{rkey}.{k}", v)
                 vals[k] = v
             rows.append(Modifier(sym, vals["shift"], vals["multiply"], row.get("set"), vals["extra_sd"],
-                                 vals["extra_gsd"], str(row.get("origin", "")), str(row.get("note", ""))))
+                                 vals["extra_gsd"], str(row.get("origin", "")), str(row.get("note", "")),
+                                 vals["per_cm"]))
         applies = spec.get("applies_to")
         if applies is not None and not (isinstance(applies, list) and all(isinstance(a, str) for a in applies)):
             raise _err("applies_to is a list of tissue names", path_str, f"{key}.applies_to", applies)

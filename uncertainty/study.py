@@ -163,6 +163,7 @@ class StudySection(BaseModel):
     model: Literal["classic", "steady_state", "revised", "glomerular"] = "classic"
     seed: int = Field(default=1, ge=0, lt=2**63)
     tissue_mass: float | str | None = None
+    posture_height: float | str | None = None
     description: str = ""
     note: str = ""
 
@@ -706,6 +707,20 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
     priors = dict(pset.priors)
     derived = dict(pset.derived)
 
+    height_cm = None
+    if head.posture_height is not None:
+        key = "study.posture_height"
+        if "posture" not in head.conditions:
+            raise _err("posture_height applies with the posture condition (add \"posture\" to conditions)",
+                       file, key, head.posture_height)
+        try:
+            height_cm = units.to_canonical("height", head.posture_height)
+        except UnitError as exc:
+            raise _err(exc.reason, file, key, head.posture_height) from None
+        if not 0 < height_cm <= 200:
+            raise _err("posture_height is a height below the heart, above 0 and at most 200 cm", file, key,
+                       head.posture_height)
+
     # ---- conditions
     conditions = load_conditions() if head.conditions else {}
     seen: set[str] = set()
@@ -721,7 +736,8 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
         if cond.applies_to is not None and head.tissue not in cond.applies_to:
             raise _err(f"condition {cname} applies to {', '.join(cond.applies_to)} only", file, key, cname)
         before = dict(priors)
-        priors = cond.apply(priors, tissue=head.tissue, notes=notes, derived=derived, density=density)
+        priors = cond.apply(priors, tissue=head.tissue, notes=notes, derived=derived, density=density,
+                            height_cm=height_cm if cname == "posture" else None)
         for sym in SOLVED[head.model]:
             if sym in priors and priors[sym] is not before.get(sym):
                 notes.append(f"condition {cname} changes {sym}, but the {head.model} form solves {sym}; "
