@@ -186,3 +186,10 @@ def test_condition_on_solved_quantity_noted() -> None:
     assert any("lymphatic_obstruction changes Pi" in n for n in s.notes)
     # the lowered lymph conductance applies (multiply 0.3 in priors/conditions.toml)
     assert s.priors["L"].params["median"] == pytest.approx(0.3 * MUSCLE.priors["L"].params["median"])
+
+
+def test_check_lists_every_analysis_section_present() -> None:
+    # the forearm study has propagate, sensitivity, observations, infer and schedule (studies/forearm_volunteers.toml)
+    path = next(p for p in SHIPPED if p.stem == "forearm_volunteers")
+    doc = json.loads(CliRunner().invoke(main, ["check", str(path), "--json"]).stdout)
+    assert doc["sections"] == ["propagate", "sensitivity", "observations", "infer", "schedule"]

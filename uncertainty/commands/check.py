@@ -15,12 +15,12 @@ from uncertainty.commands.common import emit_json, handle_errors
 def command(study: str, as_json: bool, quiet: bool) -> None:
     """Validate STUDY: priors after tissue, conditions and overrides; correlations; sections; data files."""
     from uncertainty.commands.priors import rows_table
-    from uncertainty.study import load_study, resolved_rows
+    from uncertainty.study import TOP_LEVEL, load_study, resolved_rows
 
     s = load_study(study)
     rows = resolved_rows(s)
-    sections = [n for n in ("propagate", "sensitivity", "observations", "rank", "design")
-                if getattr(s, n) is not None]
+    sections = [n for n in TOP_LEVEL if n not in ("study", "parameters", "correlations")
+                and getattr(s, n) is not None]
     if as_json:
         emit_json({"valid": True, "path": s.file, "hash": s.hash, "title": s.title, "tissue": s.tissue,
                    "conditions": s.conditions, "model": s.model, "seed": s.seed,
