@@ -89,3 +89,16 @@ def test_helpers():
     assert canonical_unit("Kf", "organ") == "mL/min/mmHg"
     assert parse("2.5 kPa") == (2.5, "kPa")
     assert basis_factor("organ", "100g", tissue_mass_kg=2.0) == pytest.approx(1 / 20)
+
+
+def test_overflowing_number_is_refused():
+    # "1e999" is not a pressure: float() makes it inf, which must not reach a formula
+    with pytest.raises(UnitError, match="out of range") as err:
+        to_canonical("Pc", "1e999 mmHg")
+    assert "Pc" in str(err.value) and "1e999" in str(err.value)
+
+
+def test_per_organ_error_names_the_value():
+    with pytest.raises(UnitError, match="tissue_mass") as err:
+        to_canonical("Kf", "0.004 mL/min/mmHg")
+    assert "Kf" in str(err.value) and "0.004 mL/min/mmHg" in str(err.value)

@@ -129,8 +129,8 @@ def basis_factor(from_basis: str, to_basis: str, *, density: float = 1.05,
                 raise UnitError("tissue density must be positive", key=symbol, value=density)
             return 1.0 / density
         if tissue_mass_kg is None:
-            raise UnitError("a per-organ value needs the study's tissue_mass to convert to another basis",
-                            key=symbol)
+            raise UnitError("a per-organ value (a unit without /100g or /100mL) needs the study's tissue_mass "
+                            "to convert to another basis", key=symbol)
         if not tissue_mass_kg > 0:
             raise UnitError("tissue_mass must be positive", key="tissue_mass", value=tissue_mass_kg)
         return 1.0 / (10.0 * tissue_mass_kg)
@@ -159,6 +159,7 @@ def to_canonical(symbol: str, value: float | int | str, unit: str | None = None,
     """
     if symbol not in CANONICAL:
         raise UnitError(f"unknown quantity '{symbol}'", key=symbol, value=value)
+    given = value if unit is None else f"{value} {unit}"
     if isinstance(value, bool):
         raise UnitError("expected a number or a value with a unit", key=symbol, value=value)
     if isinstance(value, str):
@@ -179,8 +180,13 @@ def to_canonical(symbol: str, value: float | int | str, unit: str | None = None,
     if takes_basis(symbol):
         stem, from_basis = _split_basis(symbol, unit)
         target_stem = canonical_unit(symbol, "organ")
-        factor = basis_factor(from_basis, basis, density=density, tissue_mass_kg=tissue_mass_kg,
-                              symbol=symbol)
+        try:
+            factor = basis_factor(from_basis, basis, density=density, tissue_mass_kg=tissue_mass_kg,
+                                  symbol=symbol)
+        except UnitError as exc:  # name the value given, not only the quantity
+            if exc.value is not None:
+                raise
+            raise UnitError(exc.reason, key=exc.key, value=given) from None
         return _convert(symbol, number, stem, target_stem) * factor
     if basis_of(unit) is not None:
         raise UnitError(f"'{symbol}' is not a per-tissue quantity; its unit takes no basis", key=symbol,
@@ -220,5 +226,8 @@ def parse(text: str, symbol: str = "value") -> tuple[float, str | None]:
     m = _NUMBER_RE.match(text)
     if m is None:
         raise UnitError("expected a number, optionally followed by a unit", key=symbol, value=text)
+    number = float(m.group(1))
+    if not math.isfinite(number):  # e.g. "1e999" overflows to inf
+        raise UnitError("number out of range", key=symbol, value=text)
     unit = m.group(2) or None
-    return float(m.group(1)), unit
+    return number, unit
