@@ -166,3 +166,19 @@ def test_top_level_help_imports_nothing_heavy():
 def test_console_script_runs():
     out = subprocess.run(["fluidshift", "oncotic", "7", "g/dL", "--json"], capture_output=True, text=True)
     assert out.returncode == 0 and json.loads(out.stdout)["pi"] > 20
+
+
+def test_table_gives_each_force_as_a_share_of_the_net_pressure() -> None:
+    # hand Starling sum (common practice): 30 + 3 - 0.9*25 + 0.9*8 = 17.7 mmHg; Pc is 30/17.7 = 169% of it
+    from click.testing import CliRunner
+
+    from uncertainty.cli import main
+
+    args = ["filtration", "--set", "Pc=30", "--set", "Pi=-3", "--set", "pi_c=25", "--set", "pi_i=8",
+            "--set", "sigma=0.9", "--set", "Kf=0.004"]
+    out = CliRunner().invoke(main, args).output
+    rows = {line[:38].strip(): line[38:].split() for line in out.splitlines() if "%" in line and "mmHg" not in line}
+    assert rows["capillary hydrostatic (Pc)"][-1] == "169%"
+    assert rows["plasma oncotic (-sigma*pi_c)"][-1] == "-127%"
+    assert sum(float(r[-1].rstrip("%")) for k, r in rows.items() if k.startswith(("cap", "inter", "plasma"))) \
+        == pytest.approx(100, abs=2)

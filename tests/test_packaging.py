@@ -13,10 +13,6 @@ PROBE = ("from uncertainty.resources import priors_dir, studies_dir; import unce
          "print(sorted(p.name for p in priors_dir().glob('*.toml')))")
 
 
-def _has_prior_files() -> bool:
-    return any((ROOT / "priors").glob("*.toml"))
-
-
 @pytest.fixture(scope="module")
 def wheel(tmp_path_factory):
     out = tmp_path_factory.mktemp("wheel")
@@ -51,8 +47,7 @@ def test_installed_wheel_finds_priors(wheel, tmp_path):
                          env={"PYTHONPATH": str(site), "PATH": "/usr/bin:/bin"}, check=True).stdout.splitlines()
     assert out[0].startswith(str(site))
     assert Path(out[1]).is_relative_to(site)
-    if _has_prior_files():
-        assert "skeletal_muscle.toml" in out[2]
+    assert "skeletal_muscle.toml" in out[2]
 
 
 def test_editable_install_finds_priors(tmp_path):
@@ -69,5 +64,4 @@ def test_editable_install_finds_priors(tmp_path):
                          check=True).stdout.splitlines()
     assert Path(out[0]).is_relative_to(ROOT)
     assert Path(out[1]).resolve() == (ROOT / "priors").resolve()
-    if _has_prior_files():
-        assert "skeletal_muscle.toml" in out[2]
+    assert "skeletal_muscle.toml" in out[2]

@@ -136,13 +136,16 @@ def command(settings: tuple[str, ...], tissue: str | None, basis: str, density: 
                    "inputs": six, "sources": source, "units": units})
         return
     total = sum(abs(v) for v in forces.values())
-    click.echo(f"{'force':<38}{'mmHg':>9}{'direction':>11}{'share':>8}")
+    tiny = abs(net) < 1e-9 * max(total, 1.0)
+    click.echo(f"{'force':<38}{'mmHg':>9}{'direction':>11}{'share':>8}{'of net':>9}")
     for key, value in forces.items():
         sign = "outward" if value > 0 else ("inward" if value < 0 else "none")
         share = f"{100 * abs(value) / total:.0f}%" if total > 0 else "-"
-        click.echo(f"{FORCE_LABEL[key]:<38}{value:>9.2f}{sign:>11}{share:>8}")
-    click.echo(f"{'net pressure (sum)':<38}{net:>9.2f}")
-    click.echo("share: the force's part of all forces acting, in absolute value")
+        of_net = "-" if tiny else f"{100 * value / net:.0f}%"
+        click.echo(f"{FORCE_LABEL[key]:<38}{value:>9.2f}{sign:>11}{share:>8}{of_net:>9}")
+    click.echo(f"{'net pressure (sum)':<38}{net:>9.2f}{'':>19}{'' if tiny else '100%':>9}")
+    click.echo("share: the force's part of all forces acting, in absolute value; of net: the signed force as a "
+               "percentage of the net pressure (the column sums to 100%)")
     click.echo(f"\nJv = {jv:.4g} {units['Jv']}  ({direction}; Kf = {six['Kf']:.4g} {units['Kf']})")
     derived = [f"{k}: {v}" for k, v in source.items() if v != "set"]
     if derived:
