@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scipy import stats
 
 from uncertainty.errors import InputError
 from uncertainty.rank import Reading, rank_draws
@@ -88,6 +89,43 @@ def test_correlated_inputs_joint_closed_form() -> None:
     pair = res["best_pair"]
     tol = 4 * np.hypot(pair["mc_se"], float(c @ S @ c) * np.sqrt(2 / 6000))
     assert abs(pair["expected_variance_reduction"] - expect) < tol
+
+
+def test_expected_width_is_the_normal_posterior_width_and_importance_meets_its_error_target() -> None:
+    # normal posterior of a linear-Gaussian Y: its 95% width is 2 z_{0.975} sd(Y | X), the same for every X
+    # (normal quantiles; common practice), so the expected width is 2 z sqrt(Var(Y) - c^2 v^2 / (v + s^2))
+    vals, y = _draws(seed=12)
+    z = stats.norm.ppf(0.975)
+    res = rank_draws(vals, y, [Reading("A", "a", sd=1.0), Reading("C", "c", sd=3.0)], seed=13)
+    by = {r["name"]: r for r in res["candidates"]}
+    assert by["A"]["method"] == "regression" and by["C"]["method"] == "importance"
+    for name, i, s in (("A", 0, 1.0), ("C", 2, 3.0)):
+        row = by[name]
+        width = 2 * z * np.sqrt(float(C**2 @ V) - _closed(i, s))
+        # MC error of the figure, and that of a sample 95% range: sqrt(2 p (1 - p) / n) / (phi(z) 2 z) = 1.3% of
+        # the width at p = 0.025, n = 6000 (asymptotic variance of a sample quantile; common practice)
+        assert abs(row["expected_ci95_width"] - width) < 4 * np.hypot(row["expected_ci95_width_mc_se"], 0.013 * width)
+        assert row["expected_var_post_mc_se"] > 0 and row["per_cost_mc_se"] > 0
+    # importance reweighting: outer readings grown until the MC error is below 5% of the reduction (issue 6)
+    assert by["C"]["mc_rel_error"] <= 0.05 and by["C"]["importance_outer"] >= 800
+
+
+def test_expected_width_of_a_lognormal_output_matches_its_closed_form() -> None:
+    # theta ~ N(0, v), Y = exp(theta), reading X = theta + N(0, s^2): theta | X ~ N(m, vp), vp = 1/(1/v + 1/s^2),
+    # m ~ N(0, v - vp) over X (conjugate normal; common practice). Y | X is lognormal, 95% width
+    # exp(m) (exp(z sqrt(vp)) - exp(-z sqrt(vp))) and variance exp(2m + vp)(exp(vp) - 1) (lognormal quantiles
+    # and moments; common practice); over m, E[exp(k m)] = exp(k^2 (v - vp) / 2). The width changes with X,
+    # so a location-shift reading of the residuals (one residual spread for every X) would be too wide.
+    v, s = 0.36, 0.3
+    vp = 1 / (1 / v + 1 / s**2)
+    z = stats.norm.ppf(0.975)
+    width = np.exp((v - vp) / 2) * 2 * np.sinh(z * np.sqrt(vp))
+    var_post = np.exp(2 * (v - vp) + vp) * (np.exp(vp) - 1)
+    th = np.random.default_rng(22).standard_normal(8192) * np.sqrt(v)
+    row = rank_draws({"t": th}, np.exp(th), [Reading("T", "t", sd=s)], seed=1)["candidates"][0]
+    assert row["method"] == "regression"
+    assert abs(row["expected_ci95_width"] - width) < 4 * row["expected_ci95_width_mc_se"] + 0.02 * width
+    assert abs(row["expected_var_post"] - var_post) < 4 * row["expected_var_post_mc_se"] + 0.02 * var_post
 
 
 def test_unknown_quantity_is_an_input_error() -> None:

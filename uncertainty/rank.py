@@ -10,17 +10,25 @@ MCMC draws, :func:`posterior_pool`; Var and E are then posterior moments):
   one reading per draw and regress Y on the reading(s) with a penalised cubic B-spline basis
   (additive terms plus pairwise tensor products for several readings; smoothing chosen by GCV).
   E[Var(Y|X)] is the residual mean square (corrected for the fitted degrees of freedom).
-- ``importance`` (likelihood reweighting of the draws for J simulated readings): unbiased and
-  simple, but its effective sample size collapses when the noise is much smaller than the prior
-  sd of theta; ``auto`` uses it only where the noise is at least the prior sd and the likelihood
-  is closed form (no bias, or a normal bias with an sd noise), else regression.
+- ``importance`` (likelihood reweighting of the draws for J simulated readings): simple, but its
+  effective sample size collapses when the noise is much smaller than the prior sd of theta; ``auto``
+  uses it only where the noise is at least the prior sd and the likelihood is closed form (no bias,
+  or a normal bias with an sd noise), else regression. The inner estimate of each posterior mean uses
+  all draws (its self-normalised variance is subtracted from the explained variance, removing the
+  nested-sampling bias); the outer readings J start at 800 (relative error sqrt(2/J) = 5% for one
+  normal reading) and grow until the Monte Carlo error of the reduction is below 5% of it, up to
+  the number of draws (capped at 4000).
 
 The perfect-information bound is Var(Y) S1(theta) (the first-order index, given-data estimate).
-The expected 95% interval width after the reading is the 2.5-97.5% range of the residuals
-Y - E[Y|X] (a location-shift approximation of the posterior). Monte Carlo error: the standard
-deviation over independent blocks of the draws (each block a full estimate) divided by sqrt(blocks).
-``best_pair`` and ``best_set`` (within ``budget``) are fitted jointly on the candidates' joint
-readings, never by adding single reductions.
+The expected 95% interval width after the reading: importance, the mean width of the reweighted
+2.5-97.5% quantiles; regression, a location-scale approximation of the posterior: the residual
+scale given the reading(s), s(X), is a second regression (of log squared residuals), and the width
+is the 2.5-97.5% range of the standardised residuals (Y - E[Y|X]) / s(X) times the mean of s(X)
+(exact when the posterior keeps its shape and changes only location and scale with X, e.g. a
+lognormal output of a normal reading). Monte Carlo error of every figure: the standard deviation
+over independent blocks of the draws (each block a full estimate) divided by sqrt(blocks), or, for
+importance, over the outer readings. ``best_pair`` and ``best_set`` (within ``budget``) are fitted
+jointly on the candidates' joint readings, never by adding single reductions.
 """
 
 from __future__ import annotations
@@ -147,14 +155,24 @@ def regression_fit(X: np.ndarray, y: np.ndarray, choice: tuple[int, float] | Non
     return best[1], best[2], best[3]
 
 
-def _regression_figures(X: np.ndarray, y: np.ndarray, choice: tuple[int, float] | None = None
-                        ) -> tuple[float, float, tuple[int, float]]:
-    fit, edf, choice = regression_fit(X, y, choice)
+def _regression_figures(X: np.ndarray, y: np.ndarray, choice: tuple | None = None
+                        ) -> tuple[float, float, tuple]:
+    """(E[Var(y|X)], expected 95% width, (mean fit choice, scale fit choice)) by regression.
+
+    The width is the location-scale approximation of the module docstring: a second fit of
+    log((y - E[y|X])^2) on X gives the residual scale s(X) up to a constant factor, which cancels.
+    """
+    c_mean, c_scale = choice if choice is not None else (None, None)
+    fit, edf, c_mean = regression_fit(X, y, c_mean)
     resid = y - fit
     n = len(y)
     var_post = float(np.sum(resid**2) / max(n - edf, 1.0))
-    lo, hi = np.quantile(resid, [0.025, 0.975])
-    return var_post, float(hi - lo), choice
+    r2 = resid**2
+    floor = float(np.quantile(r2[r2 > 0], 1e-3)) if np.any(r2 > 0) else 1.0
+    g, _, c_scale = regression_fit(X, np.log(np.maximum(r2, floor)), c_scale)
+    scale = np.exp(0.5 * (g - np.mean(g)))
+    lo, hi = np.quantile(resid / scale, [0.025, 0.975])
+    return var_post, float((hi - lo) * np.mean(scale)), (c_mean, c_scale)
 
 
 # --------------------------------------------------------------------------------------------
@@ -175,28 +193,68 @@ def _loglik(reading: Reading, x: np.ndarray, theta: np.ndarray) -> np.ndarray:
         return -0.5 * (np.log(x)[:, None] - np.log(theta)[None, :]) ** 2 / s**2
 
 
-def importance_figures(reading: Reading, theta: np.ndarray, y: np.ndarray, rng: np.random.Generator,
-                       outer: int = 400) -> tuple[float, float, float, float]:
-    """(E[Var(Y|X)], MC se of the reduction, expected 95% width, smallest effective-sample fraction).
+_IS_REL_TOL = 0.05  # relative Monte Carlo error asked of the importance estimate (issue 6)
+_IS_START, _IS_MAX, _IS_CHUNK = 800, 4000, 250
 
-    Reweighting the draws by the likelihood of ``outer`` simulated readings.
+
+def importance_figures(reading: Reading, theta: np.ndarray, y: np.ndarray, rng: np.random.Generator,
+                       rel_tol: float = _IS_REL_TOL, max_outer: int = _IS_MAX) -> dict[str, float]:
+    """Expected posterior variance and 95% width of y after ``reading``, by likelihood reweighting.
+
+    Outer: J readings simulated from distinct draws (800 at first, more until the MC error of the
+    reduction is below ``rel_tol`` of it, at most min(draws, ``max_outer``)); inner: every draw,
+    weighted by the reading's likelihood. Per outer reading, (mean - E[y])^2 minus the
+    self-normalised variance of the mean, sum w_i^2 (y_i - mean)^2, is an unbiased-to-first-order
+    estimate of its share of Var(E[y|X]). Returns ``expected_var_post`` (y's unit squared), ``mc_se``
+    (of the reduction, = that of the posterior variance), ``expected_ci95_width`` and
+    ``ci95_width_mc_se`` (y's unit; outer spread plus the inner draws' quantile error at each
+    reading's effective sample), ``ess_fraction`` (smallest effective-sample fraction),
+    ``outer`` and ``rel_error`` (mc_se / reduction).
     """
-    idx = rng.choice(len(theta), size=outer, replace=False)
-    x = reading.simulate(theta[idx], rng)
-    ll = _loglik(reading, x, theta)
-    w = np.exp(ll - ll.max(axis=1, keepdims=True))
-    w /= w.sum(axis=1, keepdims=True)
-    mean = w @ y
-    ess = 1.0 / np.sum(w**2, axis=1)
+    n = len(theta)
+    cap = max(2, min(n, int(max_outer)))
+    perm = rng.permutation(n)
     order = np.argsort(y)
-    cw = np.cumsum(w[:, order], axis=1)
-    lo = y[order][np.argmax(cw >= 0.025, axis=1)]
-    hi = y[order][np.argmax(cw >= 0.975, axis=1)]
-    # Var(E[Y|X]) from the spread of the posterior means (their mean is E[Y]): the reduction, and its se
-    explained = (mean - np.mean(y)) ** 2
-    red = float(explained.mean())
-    return (float(np.var(y, ddof=1)) - red, float(explained.std(ddof=1) / math.sqrt(outer)),
-            float(np.mean(hi - lo)), float(ess.min() / len(theta)))
+    ys = y[order]
+    ybar = float(np.mean(y))
+    expl: list[np.ndarray] = []
+    widths: list[np.ndarray] = []
+    esss: list[np.ndarray] = []
+    used, target = 0, min(cap, _IS_START)
+    while True:
+        while used < target:
+            idx = perm[used:min(target, used + _IS_CHUNK)]
+            x = reading.simulate(theta[idx], rng)
+            ll = _loglik(reading, x, theta)
+            w = np.exp(ll - ll.max(axis=1, keepdims=True))
+            w /= w.sum(axis=1, keepdims=True)
+            mean = w @ y
+            var_mean = np.einsum("ji,ji->j", w**2, (y[None, :] - mean[:, None]) ** 2)
+            expl.append((mean - ybar) ** 2 - var_mean)
+            cw = np.cumsum(w[:, order], axis=1)
+            widths.append(ys[np.argmax(cw >= 0.975, axis=1)] - ys[np.argmax(cw >= 0.025, axis=1)])
+            esss.append(1.0 / np.sum(w**2, axis=1))
+            used += len(idx)
+        e = np.concatenate(expl)
+        red, se = float(e.mean()), float(e.std(ddof=1) / math.sqrt(len(e)))
+        if used >= cap or (red > 0 and se <= rel_tol * red):
+            break
+        grow = (se / (rel_tol * red)) ** 2 * 1.1 if red > 0 else 2.0
+        target = min(cap, max(used + _IS_CHUNK, int(math.ceil(used * min(grow, 4.0)))))
+    wd, ess = np.concatenate(widths), np.concatenate(esss)
+    width = float(wd.mean())
+    # every outer reading reuses the same inner draws: add the error of a weighted 95% range from its
+    # effective sample, sqrt(2 p (1 - p) / ess) / (phi(z) 2 z) of the width at p = 0.025 (asymptotic
+    # variance of a sample quantile, normal shape; common practice), averaged over the readings (an upper
+    # bound for the error of their mean: those errors are positively correlated, not identical)
+    z = 1.959963984540054
+    k = math.sqrt(2 * 0.025 * 0.975) / (math.exp(-z * z / 2) / math.sqrt(2 * math.pi) * 2 * z)
+    inner = float(np.mean(wd * k / np.sqrt(ess)))
+    width_se = math.hypot(float(wd.std(ddof=1) / math.sqrt(len(wd))), inner)
+    return {"expected_var_post": float(np.var(y, ddof=1)) - red, "mc_se": se,
+            "expected_ci95_width": width, "ci95_width_mc_se": width_se,
+            "ess_fraction": float(ess.min()) / n, "outer": int(used),
+            "rel_error": se / red if red > 0 else float("inf")}
 
 
 def choose_method(reading: Reading, theta: np.ndarray) -> str:
@@ -222,8 +280,10 @@ def _blocks(n: int, rng: np.random.Generator, blocks: int = _BLOCKS) -> list[np.
 def evaluate_set(readings: np.ndarray, y: np.ndarray, rng: np.random.Generator | None) -> dict[str, float]:
     """Expected posterior variance / 95% width of Y given joint readings (n, k), with block MC errors.
 
-    The blocks reuse the full fit's knots and penalty; ``mc_se`` is the error of the expected
-    variance reduction (block reductions: block variance of Y minus block residual variance).
+    The blocks reuse the full fit's knots and penalties; ``mc_se`` is the error of the expected
+    variance reduction (block reductions: block variance of Y minus block residual variance),
+    ``var_post_mc_se``, ``ci95_width_mc_se`` and ``narrowing_mc_se`` (block 95% width of Y minus the
+    block expected width) those of the other figures.
     """
     var_post, width, choice = _regression_figures(readings, y)
     if rng is None:  # no Monte Carlo error wanted (searching over sets)
@@ -231,14 +291,13 @@ def evaluate_set(readings: np.ndarray, y: np.ndarray, rng: np.random.Generator |
     reps = []
     for b in _blocks(len(y), rng):
         v, w, _ = _regression_figures(readings[b], y[b], choice)
-        reps.append((v, w, float(np.var(y[b], ddof=1)) - v))
-    v = np.array([r[0] for r in reps])
-    wd = np.array([r[1] for r in reps])
-    red = np.array([r[2] for r in reps])
+        lo, hi = np.quantile(y[b], [0.025, 0.975])
+        reps.append((v, w, float(np.var(y[b], ddof=1)) - v, float(hi - lo) - w))
+    v, wd, red, nar = (np.array(col) for col in zip(*reps, strict=True))
     k = math.sqrt(len(reps))
     return {"expected_var_post": var_post, "expected_ci95_width": width,
             "mc_se": float(red.std(ddof=1) / k), "var_post_mc_se": float(v.std(ddof=1) / k),
-            "ci95_width_mc_se": float(wd.std(ddof=1) / k)}
+            "ci95_width_mc_se": float(wd.std(ddof=1) / k), "narrowing_mc_se": float(nar.std(ddof=1) / k)}
 
 
 def perfect_information(theta: np.ndarray, y: np.ndarray) -> tuple[float, float]:
@@ -272,6 +331,7 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
     # one simulated reading per draw and candidate: shared by singles, pairs and sets
     reads: dict[str, np.ndarray] = {}
     rows = []
+    notes: list[str] = []
     for c in candidates:
         if c.parameter not in values:
             raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
@@ -279,27 +339,46 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
         theta = np.asarray(values[c.parameter], dtype=float)[ok]
         reads[c.name] = c.simulate(theta, rng)
         m = choose_method(c, theta) if method == "auto" else method
-        fig = evaluate_set(reads[c.name][:, None], y, rng) if m == "regression" else None
+        fig = None
         if m == "importance":
-            v, se, width, ess = importance_figures(c, theta, y, rng)
-            if ess * len(theta) < 50:  # too few effective draws: fall back
-                m, fig = "regression", evaluate_set(reads[c.name][:, None], y, rng)
+            fig = importance_figures(c, theta, y, rng)
+            if fig["ess_fraction"] * len(theta) < 50:  # too few effective draws: fall back
+                m, fig = "regression", None
             else:
-                fig = {"expected_var_post": v, "expected_ci95_width": width, "mc_se": se}
+                # the prior width is fixed by the draws here; the narrowing's error is the width's
+                fig["var_post_mc_se"] = fig["mc_se"]
+                fig["narrowing_mc_se"] = fig["ci95_width_mc_se"]
+        if fig is None:
+            fig = evaluate_set(reads[c.name][:, None], y, rng)
         s1, s1_se = perfect_information(theta, y)
+        reduction = var_y - fig["expected_var_post"]
         row = {
             "name": c.name, "parameter": c.parameter, "cost": c.cost,
             "expected_var_post": fig["expected_var_post"],
-            "expected_variance_reduction": var_y - fig["expected_var_post"],
+            "expected_var_post_mc_se": fig["var_post_mc_se"],
+            "expected_variance_reduction": reduction,
             "expected_ci95_width": fig["expected_ci95_width"],
+            "expected_ci95_width_mc_se": fig["ci95_width_mc_se"],
             "ci95_narrowing": prior_width - fig["expected_ci95_width"],
+            "ci95_narrowing_mc_se": fig["narrowing_mc_se"],
             "perfect_information_bound": var_y * s1,
             "perfect_information_S1": s1,
             "per_cost": (prior_width - fig["expected_ci95_width"]) / c.cost,
+            "per_cost_mc_se": fig["narrowing_mc_se"] / c.cost,
             "mc_se": fig["mc_se"],
+            "mc_rel_error": fig["mc_se"] / reduction if reduction > 0 else None,
             "perfect_information_mc_se": var_y * s1_se,
             "method": m,
         }
+        if m == "importance":
+            row["importance_outer"] = fig["outer"]
+            row["importance_ess_fraction"] = fig["ess_fraction"]
+        if row["mc_rel_error"] is None:
+            notes.append(f"{c.name}: the expected reduction ({reduction:.3g}) is not above zero "
+                         f"(Monte Carlo error {fig['mc_se']:.2g}, {m})")
+        elif row["mc_rel_error"] > _IS_REL_TOL:
+            notes.append(f"{c.name}: Monte Carlo error {100 * row['mc_rel_error']:.0f}% of the expected reduction "
+                         f"({m}; above {100 * _IS_REL_TOL:.0f}%, more samples would sharpen it)")
         rows.append(row)
     rows.sort(key=lambda r: -r["expected_variance_reduction"])
 
@@ -309,7 +388,8 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
         cost = sum(c.cost for c in candidates if c.name in names)
         return {"names": list(names), "cost": cost, "expected_var_post": fig["expected_var_post"],
                 "expected_variance_reduction": var_y - fig["expected_var_post"],
-                "expected_ci95_width": fig["expected_ci95_width"], "mc_se": fig.get("mc_se")}
+                "expected_ci95_width": fig["expected_ci95_width"], "mc_se": fig.get("mc_se"),
+                "expected_ci95_width_mc_se": fig.get("ci95_width_mc_se")}
 
     names = [c.name for c in candidates]
     cost_of = {c.name: c.cost for c in candidates}
@@ -350,7 +430,7 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
             best_set = joint(tuple(best_set["names"]), with_se=True)
             best_set["search"], best_set["budget"] = search, budget
     return {"prior": {"var": var_y, "ci95_width": prior_width, "draws": int(len(y))},
-            "candidates": rows, "best_pair": best_pair, "best_set": best_set}
+            "candidates": rows, "best_pair": best_pair, "best_set": best_set, "notes": notes}
 
 
 # --------------------------------------------------------------------------------------------
@@ -511,6 +591,7 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
             notes.append("figures are from the prior (--from-prior): the observations are not folded in")
     doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method)
     unit = getattr(model, "OUTPUT_UNITS", {}).get(output, "")
+    notes += doc.pop("notes", [])
     doc = {"output": output, "samples": int(len(y)), "seed": seed, "from": "prior" if posterior is None else
            "posterior", **doc, "notes": notes,
            "units": {"expected_var_post": f"({unit})^2", "expected_ci95_width": unit, "per_cost": f"{unit} per cost"}}
