@@ -99,6 +99,70 @@ def test_assurance_simulated_against_closed_form_and_dropout() -> None:
     assert 0 < res["bayesian_success"] <= 1
 
 
+def test_bayesian_success_against_its_conjugate_closed_form() -> None:
+    # probability that the posterior probability of benefit exceeds 0.975 under an N(0, 1) analysis prior, the
+    # effect from the N(-0.357, 0.15^2) design prior: conjugate normal closed form with known sd
+    # (trial_power.bayes_success_probability, itself checked against simulated conjugate posteriors); the trials
+    # plug in their estimated sd, so allow 0.02 beyond the MC error (t against z at n >= 8 per arm)
+    sec = dict(BASE, design_prior={"dist": "normal", "mean": -0.357, "sd": 0.15},
+               analysis_prior={"mean": 0.0, "sd": 1.0})
+    res = dz.design(_study(sec)).to_dict()
+    sd = res["sd_analysis_scale"]
+    for row in res["curve"]:
+        closed = float(tp.bayes_success_probability(row["n_per_arm"], -0.357, 0.15, sd, 0.0, 1.0, direction=-1.0))
+        assert abs(row["bayesian_success"] - closed) < 4 * row["bayesian_success_mc_se"] + 0.02
+
+
+def test_shift_effect_is_analysed_on_the_natural_scale() -> None:
+    # Pc: typical N(20, 2^2), between-subject sd 3, reading sd 2 (invented test values); effect -3 mmHg.
+    # The endpoint sd is sqrt(3^2 + 2^2) (independent normal parts; common practice); the typical value cancels
+    # in the difference, so the power is the exact noncentral t (scipy.stats.nct) at delta -3
+    pri = {"Pc": {"dist": "normal", "mean": 20.0, "sd": 2.0, "unit": "mmHg", "between_subject": {"sd": 3.0}}}
+    sec = {"design": "parallel", "endpoint": "Pc", "effect": {"parameter": "Pc", "shift": -3.0},
+           "measurement": {"sd": 2.0}, "n_range": [6, 40], "n_points": 4, "trials": 2000}
+    res = dz.design(_study(sec, **pri)).to_dict()
+    assert res["scale"] == "natural" and res["sd_analysis_scale"] == pytest.approx(math.sqrt(13.0))
+    for row in res["curve"]:
+        exact = float(tp.t_power(row["n_per_arm"], -3.0, math.sqrt(13.0)))
+        assert abs(row["power"] - exact) < 4 * max(row["power_mc_se"], 1e-3)
+
+
+def test_half_width_sample_size_and_its_probability() -> None:
+    # n for a 95% half-width <= 0.25 (log units) with probability 0.8: the chi-square closed form
+    # (trial_power.half_width_probability, checked against simulated t intervals), and the simulated trials'
+    # share of intervals that narrow, against the same closed form
+    res = dz.design(_study(dict(BASE, target_half_width=0.25, half_width_probability=0.8))).to_dict()
+    sd = res["sd_analysis_scale"]
+    hw = res["half_width"]
+    assert hw["n_per_arm_analysed"] == tp.n_for_half_width(sd, 0.25, 0.8, 0.05, "parallel", 8, 60)
+    assert hw["probability"] >= 0.8
+    for row in res["curve"]:
+        closed = float(tp.half_width_probability(row["n_per_arm"], sd, 0.25))
+        assert abs(row["p_half_width"] - closed) < 4 * max(row["p_half_width_mc_se"], 1e-3)
+
+
+@pytest.mark.parametrize("endpoint", ["Jv", "lymph_flow"])
+def test_model_endpoint_jv_matches_the_noncentral_t(tmp_path, endpoint: str) -> None:
+    # classic form with only Pc uncertain (invented test values): Jv = Kf (Pc - Pi - sigma (pi_c - pi_i)) is
+    # linear in Pc (Starling 1896), so a Pc shift of -3 mmHg moves Jv by Kf * -3 and the per-subject sd of Jv is
+    # sqrt((Kf * 3)^2 + 0.01^2) (between-subject sd 3 mmHg, reading sd 0.01); power = exact noncentral t
+    from uncertainty.study import Study
+
+    doc = {"study": {"title": "linear Jv endpoint (invented)", "tissue": "skeletal_muscle", "model": "classic",
+                     "seed": 3},
+           "parameters": {"Pc": {"dist": "normal", "mean": 20.0, "sd": 2.0, "unit": "mmHg",
+                                 "between_subject": {"sd": 3.0}},
+                          "Kf": 0.01, "Pi": -1.0, "pi_c": 25.0, "pi_i": 10.0, "sigma": 0.9},
+           "design": {"endpoint": endpoint, "effect": {"parameter": "Pc", "shift": -3.0},
+                      "measurement": {"sd": 0.01}, "n_range": [6, 40], "n_points": 4, "simulations": 2000}}
+    res = dz.design(Study.from_dict(doc, base_dir=tmp_path)).to_dict()
+    sd = math.hypot(0.01 * 3.0, 0.01)
+    assert res["sd_analysis_scale"] == pytest.approx(sd, rel=0.05)  # pilot of 4000 per arm: sd within 5%
+    for row in res["curve"]:
+        exact = float(tp.t_power(row["n_per_arm"], -0.03, sd))
+        assert abs(row["power"] - exact) < 4 * max(row["power_mc_se"], 1e-3)
+
+
 @pytest.mark.parametrize(("patch", "key"), [
     ({"target_power": 1.5}, "design.target_power"),
     ({"target_power": 0}, "design.target_power"),
@@ -125,6 +189,32 @@ def test_same_numbers_for_same_seed_and_any_executor(tmp_path) -> None:
     assert a == b
     c = dz.design(st, seed=4).to_dict()["curve"]
     assert [r["power"] for r in a] != [r["power"] for r in c]
+
+
+def test_checkpoint_resumes_an_unchanged_study_and_never_reuses_a_changed_one(tmp_path, monkeypatch) -> None:
+    from uncertainty.parallel import InProcess
+
+    calls: list[int] = []
+    run_point = dz._run_point
+
+    def counting(study, spec, point, ss):  # noqa: ANN001, ANN202 - a stand-in with _run_point's signature
+        calls.append(point.n)
+        return run_point(study, spec, point, ss)
+
+    monkeypatch.setattr(dz, "_run_point", counting)
+    # target power out of reach: the design points (sizes 8..20) do not depend on the effect
+    sec = dict(BASE, trials=100, n_range=[8, 20], target_power=0.999)
+    first = dz.design(_study(sec), seed=3, executor=InProcess(checkpoint_dir=tmp_path)).to_dict()["curve"]
+    done = len(calls)
+    # the same study, loaded afresh: every point comes from the checkpoint
+    again = dz.design(_study(sec), seed=3, executor=InProcess(checkpoint_dir=tmp_path)).to_dict()["curve"]
+    assert again == first and len(calls) == done
+    # a changed effect with the same points, seed and label: recomputed, equal to a run without checkpoints
+    other = dict(sec, effect={"parameter": "Kf", "multiply": 0.6})
+    changed = dz.design(_study(other), seed=3, executor=InProcess(checkpoint_dir=tmp_path)).to_dict()["curve"]
+    assert [r["n_per_arm"] for r in changed] == [r["n_per_arm"] for r in first]
+    assert len(calls) == 2 * done
+    assert changed == dz.design(_study(other), seed=3).to_dict()["curve"]
 
 
 @pytest.mark.slow

@@ -20,8 +20,9 @@ conjugate normal posterior for Bayesian success). Exact path (``exact=True``): e
 trial is also refitted with full MCMC (PyMC model, nutpie sampler), success when the posterior
 probability of an effect in one direction exceeds 1 - alpha/2, on the same simulated trials.
 
-Tasks (one per design point, or per chunk of trials on the exact path) go through
-:mod:`uncertainty.parallel`, each seeded from the study seed and its index.
+Tasks (one per design point: a sample size, for power or for assurance; on the exact path its
+trials are refitted inside the task) go through :mod:`uncertainty.parallel`, each seeded from the
+study seed and its index; a checkpoint is keyed by the study and the section as well.
 """
 
 from __future__ import annotations
@@ -250,7 +251,8 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
         spec.measurement = _spread(doc["measurement"], file, "design.measurement")
     if spec.design == "paired" and not spec.within:
         raise InputError("a paired design needs within_subject (test-retest) variability", file=file,
-                         key="design.within_subject", value=None)
+                         key="design.within_subject",
+                         value=_section_dict(doc.get("within_subject")))
 
     sec_obj = section if section is not None else getattr(study, "design", None)
     obj = getattr(sec_obj, "design_prior_obj", None)
@@ -555,6 +557,27 @@ class _PointTask:
     def __call__(self, point: _Point, ss: np.random.SeedSequence) -> dict[str, Any]:
         return _run_point(self.study, self.spec, point, ss)
 
+    @property
+    def checkpoint_key(self) -> str:
+        """Digest of what the points depend on beyond (n, trials, path): the study file's hash, the
+        resolved priors, correlations and model form, the validated section and the package version
+        (a checkpoint of a changed study is never reused)."""
+        import dataclasses
+        import hashlib
+        from importlib.metadata import PackageNotFoundError, version
+
+        try:
+            release = version("fluidshift")
+        except PackageNotFoundError:  # a bare source tree
+            release = "0+unknown"
+        st = self.study
+        spec = {f.name: getattr(self.spec, f.name) for f in dataclasses.fields(self.spec) if f.name != "prior_frozen"}
+        priors = {k: (p.dist, sorted(p.params.items()), p.between_subject) for k, p in sorted(st.priors.items())}
+        corr = getattr(st, "correlation", None)
+        parts = (getattr(st, "hash", None), getattr(st, "model", None), getattr(st, "tissue", None), priors,
+                 None if corr is None else np.asarray(corr).round(12).tolist(), spec, release)
+        return hashlib.sha256(repr(parts).encode()).hexdigest()
+
 
 def curve_sizes(n_range: tuple[int, int], points: int) -> list[int]:
     """About ``points`` distinct sample sizes spread geometrically over ``n_range`` (per arm)."""
@@ -764,6 +787,7 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
         "assurance": at["assurance"] if at else None,
         "assurance_mc_se": at["assurance_mc_se"] if at else None,
         "bayesian_success": at.get("bayesian_success") if at else None,
+        "bayesian_success_mc_se": at.get("bayesian_success_mc_se") if at else None,
         "path": path,
         "trials_per_point": n_trials,
         "seed": seed,

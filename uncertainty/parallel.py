@@ -11,8 +11,10 @@ same in-process, on 1 worker or on many.
   an existing cluster. dask is imported only when this executor is made.
 
 Both show progress (rich) when asked and can checkpoint finished tasks to a folder, so that an
-interrupted sweep resumes where it stopped (a checkpoint is keyed by the label, the seed and the
-tasks, so a changed sweep never reuses stale results).
+interrupted sweep resumes where it stopped (a checkpoint is keyed by the label, the seed, the
+tasks and the task function's ``checkpoint_key`` attribute when it has one, a string naming what
+the function computes, e.g. a digest of the study and its section; so a changed sweep never reuses
+stale results).
 """
 
 from __future__ import annotations
@@ -39,12 +41,13 @@ def task_seeds(seed: int, n: int) -> list[np.random.SeedSequence]:
 class _Checkpoint:
     """Finished task results kept in one pickle file, rewritten atomically after each task."""
 
-    def __init__(self, folder: str | os.PathLike | None, label: str, seed: int, tasks: Sequence) -> None:
+    def __init__(self, folder: str | os.PathLike | None, label: str, seed: int, tasks: Sequence,
+                 key: str | None = None) -> None:
         self.path: Path | None = None
         self.done: dict[int, Any] = {}
         if folder is None:
             return
-        digest = hashlib.sha256(pickle.dumps((label, int(seed), list(tasks)))).hexdigest()[:16]
+        digest = hashlib.sha256(pickle.dumps((label, int(seed), list(tasks), key))).hexdigest()[:16]
         folder = Path(folder)
         folder.mkdir(parents=True, exist_ok=True)
         safe = "".join(c if c.isalnum() or c in "-_" else "_" for c in label) or "tasks"
@@ -100,7 +103,7 @@ class InProcess:
         """Return ``[fn(task_i, seedseq_i)]`` in task order (seeds from :func:`task_seeds`)."""
         tasks = list(tasks)
         seeds = task_seeds(seed, len(tasks))
-        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks)
+        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks, getattr(fn, "checkpoint_key", None))
         bar = _Progress(self.progress, label, len(tasks), len(ckpt.done))
         try:
             for i, (task, ss) in enumerate(zip(tasks, seeds, strict=True)):
@@ -150,7 +153,7 @@ class DaskExecutor(InProcess):
 
         tasks = list(tasks)
         seeds = task_seeds(seed, len(tasks))
-        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks)
+        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks, getattr(fn, "checkpoint_key", None))
         todo = [i for i in range(len(tasks)) if i not in ckpt.done]
         bar = _Progress(self.progress, label, len(tasks), len(ckpt.done))
         try:
