@@ -42,11 +42,12 @@ class _Checkpoint:
     """Finished task results kept in one pickle file, rewritten atomically after each task."""
 
     def __init__(self, folder: str | os.PathLike | None, label: str, seed: int, tasks: Sequence,
-                 key: str | None = None) -> None:
+                 fn: TaskFn | None = None) -> None:
         self.path: Path | None = None
         self.done: dict[int, Any] = {}
         if folder is None:
             return
+        key = getattr(fn, "checkpoint_key", None)  # read only when checkpointing
         digest = hashlib.sha256(pickle.dumps((label, int(seed), list(tasks), key))).hexdigest()[:16]
         folder = Path(folder)
         folder.mkdir(parents=True, exist_ok=True)
@@ -103,7 +104,7 @@ class InProcess:
         """Return ``[fn(task_i, seedseq_i)]`` in task order (seeds from :func:`task_seeds`)."""
         tasks = list(tasks)
         seeds = task_seeds(seed, len(tasks))
-        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks, getattr(fn, "checkpoint_key", None))
+        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks, fn)
         bar = _Progress(self.progress, label, len(tasks), len(ckpt.done))
         try:
             for i, (task, ss) in enumerate(zip(tasks, seeds, strict=True)):
@@ -153,7 +154,7 @@ class DaskExecutor(InProcess):
 
         tasks = list(tasks)
         seeds = task_seeds(seed, len(tasks))
-        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks, getattr(fn, "checkpoint_key", None))
+        ckpt = _Checkpoint(self.checkpoint_dir, label, seed, tasks, fn)
         todo = [i for i in range(len(tasks)) if i not in ckpt.done]
         bar = _Progress(self.progress, label, len(tasks), len(ckpt.done))
         try:
