@@ -54,3 +54,20 @@ def test_rank_budget_below_cheapest_exits_2(tmp_path) -> None:
     res = _run(tmp_path, text, "rank")
     assert res.exit_code == 2
     assert "rank.budget" in res.output and "1" in res.output and "s.toml" in res.output
+
+
+@pytest.mark.parametrize(("extra", "key"), [
+    ('[design]\ndesign = "paired"\nendpoint = "Kf"\neffect = { parameter = "Kf", multiply = 0.7 }\n'
+     "n_range = [10, 40]\n", "design.within_subject"),
+    ('[rank]\ncandidates = [{ name = "Pi wick", parameter = "Pi", sd = 1.0, cost = 2 }]\nbudget = 1\n', "rank.budget"),
+])
+def test_check_and_run_stop_on_section_rules_before_any_work(tmp_path, extra: str, key: str) -> None:
+    # rules that need the analysis module (paired design needs within_subject; budget >= cheapest candidate)
+    f = tmp_path / "s.toml"
+    f.write_text(HEAD + '[propagate]\nsamples = 1024\n' + extra)
+    res = CliRunner().invoke(main, ["check", str(f)])
+    assert res.exit_code == 2 and key in res.output
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, ["run", str(f), "--out", str(out), "--quiet"])
+    assert res.exit_code == 2 and key in res.output
+    assert not out.exists() or not any(p.suffix in (".json", ".csv", ".png") for p in out.rglob("*"))

@@ -296,6 +296,10 @@ class _Progress:
 # --------------------------------------------------------------------------------------------
 
 def _check(study: Any) -> dict[str, Any]:
+    if hasattr(study, "priors") and hasattr(study, "doc"):  # a Study (tests pass light stand-ins)
+        from uncertainty.section_checks import check_sections
+
+        check_sections(study)
     names = list(getattr(study, "names", None) or [])
     return jsonable({
         "title": getattr(study, "title", None), "model": getattr(study, "model", None),

@@ -15,9 +15,11 @@ from uncertainty.commands.common import emit_json, handle_errors
 def command(study: str, as_json: bool, quiet: bool) -> None:
     """Validate STUDY: priors after tissue, conditions and overrides; correlations; sections; data files."""
     from uncertainty.commands.priors import rows_table
+    from uncertainty.section_checks import check_sections
     from uncertainty.study import TOP_LEVEL, load_study, resolved_rows
 
     s = load_study(study)
+    check_sections(s)
     rows = resolved_rows(s)
     sections = [n for n in TOP_LEVEL if n not in ("study", "parameters", "correlations")
                 and getattr(s, n) is not None]
