@@ -116,6 +116,25 @@ def test_json_keys_and_labels(tmp_path):
     assert {p.rsplit(".", 1)[1] for p in paths} == {"png", "svg"}
 
 
+def test_labelled_draws_carry_names_units_and_replicates():
+    r = propagate(classic_study(), samples=2048, seed=6, tol=5e-3, outputs=["Jv"], evaluate=evaluate)
+    ds = r.to_xarray()
+    assert ds["Jv"].attrs["units"] == r.units["Jv"] and list(ds["layer"].values) == ["individual", "typical"]
+    assert np.array_equal(ds["Jv"].sel(layer="typical").values, r.draws["typical"]["Jv"], equal_nan=True)
+    # the replicate labels reproduce the reported MC standard error of the mean (sd of the R replicate
+    # means / sqrt(R), the module's own definition): wrong labels would not
+    means = ds["Jv"].sel(layer="typical").groupby("replicate").mean().values
+    assert means.size == r.replicates
+    se = np.std(means, ddof=1) / math.sqrt(r.replicates)
+    assert se == pytest.approx(r.summaries["typical"]["Jv"].mc_se["mean"], rel=1e-9)
+
+
+def test_fewer_than_16_replicates_refused():
+    with pytest.raises(InputError, match="at least 16") as exc:
+        propagate(classic_study(), samples=1024, replicates=8, evaluate=evaluate)
+    assert exc.value.key == "propagate.replicates"
+
+
 def test_qmc_non_power_of_two_rounds_up_with_note():
     r = propagate(classic_study(), samples=3000, method="qmc", seed=1, outputs=["Jv"], evaluate=evaluate)
     assert r.samples == 4096 and any("power of two" in n for n in r.notes)
@@ -157,6 +176,8 @@ def test_steady_state_jv_positive_for_ordinary_tissues(tissue):
     s = Study.from_dict({"study": {"title": "check (invented)", "tissue": tissue, "model": "steady_state",
                                    "seed": 3}})
     r = propagate(s, samples=4096, outputs=["Jv", "Pi", "pi_i"])
+    # Levick & Michel 2010 (Cardiovasc Res 87:198): no sustained absorption at steady state in
+    # ordinary tissues (the lymph balance JL = Jv >= 0), so P(Jv < 0) is exactly 0 in both layers
     assert r.summaries["individual"]["Jv"].nan_draws == 0
     assert r.to_dict()["p_absorption"] == 0.0 and r.to_dict()["typical_p_absorption"] == 0.0
     assert r.units["Jv"].startswith("mL/min")

@@ -190,6 +190,12 @@ def test_shapley_linear_gaussian_closed_form():
     # full first-order index of input a (independent of the others): beta_a^2 / V (closed form)
     assert r.indices["a"]["S1"] == pytest.approx(1 / V, abs=0.03)
     assert r.ranking == ["c", "b", "a"]
+    # convergence table: the first 4, 8, 16 replicates (doubling), the last row the full estimate
+    sizes = [row["samples"] for row in r.convergence]
+    assert sizes == [r.samples // 4, r.samples // 2, r.samples]
+    assert r.convergence[-1]["indices"]["c"]["Sh"] == pytest.approx(r.indices["c"]["Sh"], rel=1e-12)
+    widths = [np.diff(row["indices"]["c"]["Sh_ci"])[0] for row in r.convergence]
+    assert widths[-1] < widths[0]  # t-intervals narrow with more replicates
 
 
 def test_shapley_equals_sobol_split_for_independent_product():
@@ -215,6 +221,9 @@ def test_morris_levels_inside_and_linear_effects():
         assert r.indices[p]["mu"] == pytest.approx(ci, rel=1e-6)
         assert r.indices[p]["sigma"] == pytest.approx(0.0, abs=1e-6)
     assert r.ranking == ["a", "b", "c"]
+    # convergence table over the first 5, 10, 20 trajectories; a linear model gives c_i at every size
+    assert [row["samples"] for row in r.convergence] == [5, 10, 20]
+    assert all(row["indices"]["a"]["mu_star"] == pytest.approx(3.0, rel=1e-6) for row in r.convergence)
 
 
 def test_given_data_index_matches_closed_forms():
@@ -273,6 +282,9 @@ def test_result_tables_and_figures(tmp_path):
     assert list(r.to_dataframe().index) == r.ranking
     paths = r.plot(str(tmp_path))
     assert sum(p.endswith(".png") for p in paths) == 2 and sum(p.endswith(".svg") for p in paths) == 2
+    # Shapley: bars and the convergence figure too
+    sh = sensitivity(classic_study(), method="shapley", samples=512, evaluate=evaluate)
+    assert any(p.endswith("_convergence.png") for p in sh.plot(str(tmp_path / "sh")))
 
 
 def test_shapley_random_permutation_estimator_closed_form():
@@ -332,5 +344,6 @@ def test_command_refuses_sobol_on_correlated_study_and_runs_shapley():
     assert res.exit_code == 0, res.output
     doc = json.loads(res.stdout)
     assert doc["method"] == "shapley" and set(doc["ranking"]) == set(doc["indices"])
+    assert [row["samples"] for row in doc["convergence"]] == [128, 256, 512]  # 4, 8, 16 replicates of 32
     res = runner.invoke(main, ["sensitivity", demo, "--output", "nope"])
     assert res.exit_code == 2

@@ -155,7 +155,8 @@ class PropagateResult:
     """Forward-uncertainty result: summaries and draws per layer and output, names and units.
 
     ``summaries[layer][output]`` is a :class:`Summary`; ``draws[layer][output]`` the pooled draws
-    (canonical units, non-finite draws kept as NaN); ``units[output]`` the canonical unit.
+    (canonical units, non-finite draws kept as NaN); ``units[output]`` the canonical unit;
+    :meth:`to_xarray` gives the draws as one labelled Dataset (names, units, replicate labels).
     """
 
     method: str
@@ -215,6 +216,23 @@ class PropagateResult:
                              "mc_se_ci95_high": s.mc_se["ci95"][1], "p_negative": s.p_negative,
                              "n": s.n, "nan_draws": s.nan_draws})
         return pd.DataFrame(rows).set_index(["layer", "output"])
+
+    def to_xarray(self) -> Any:
+        """The draws as a labelled ``xarray.Dataset``: one variable per output over the dimensions
+        ``layer`` (individual, typical) and ``draw``, its canonical unit in ``attrs["units"]``; the
+        coordinate ``replicate`` says which independent replicate each draw belongs to (non-finite
+        draws kept as NaN)."""
+        import xarray as xr
+
+        layers = ["individual", "typical"]
+        # pooled draws are replicate after replicate (propagate_arrays), each samples / R long
+        replicate = np.repeat(np.arange(self.replicates), self.samples // self.replicates)
+        data = {name: (("layer", "draw"), np.vstack([self.draws[layer][name] for layer in layers]),
+                       {"units": self.units.get(name, "")}) for name in self.outputs}
+        return xr.Dataset(data, coords={"layer": layers, "draw": np.arange(self.samples),
+                                        "replicate": ("draw", replicate)},
+                          attrs={"method": self.method, "samples": self.samples,
+                                 "replicates": self.replicates, "seed": str(self.seed)})
 
     def plot(self, out_dir: str) -> list[str]:
         """Write the Jv distribution figure (individual beside typical) as PNG and SVG; paths."""
@@ -387,6 +405,10 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     max_samples = sec.get("max_samples") if max_samples is None else max_samples
     if "replicates" in sec and replicates == REPLICATES:
         replicates = sec["replicates"]
+    if replicates < REPLICATES:
+        raise InputError(f"at least {REPLICATES} independent replicates are needed for the Monte Carlo "
+                         "standard errors (DESIGN.md: at least 16 scrambles)", file=_file(study),
+                         key="propagate.replicates", value=replicates)
     evaluate = _evaluator(evaluate)
     have = available_outputs(study, evaluate)
     if outputs is None:

@@ -157,6 +157,9 @@ class SensitivityResult:
     ``indices[player]`` holds, by method: Sobol' ``S1, S1_ci, ST, ST_ci`` (+ ``S1_se, ST_se``);
     Morris ``mu_star, mu_star_ci, sigma, mu``; Shapley ``Sh, Sh_ci`` plus the full first-order
     ``S1`` and the total ``ST`` under dependence, each with ``_ci``. Intervals are 95%.
+    ``convergence`` rows ``{samples, evaluations, indices}`` at doubling sample sizes: prefixes of
+    each scrambled design (Sobol'), the first R/4, R/2, R replicates (Shapley), the first T/4, T/2,
+    T trajectories (Morris).
     """
 
     method: str
@@ -413,7 +416,8 @@ def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
 
     SALib's trajectories on a p-level grid, the levels moved to cell centres inside the open cube;
     the elementary effects are rescaled to the moved step (p/(p-1) times SALib's). mu* intervals are
-    SALib's bootstrap over the independent trajectories. Refuses correlated inputs (InputError).
+    SALib's bootstrap over the independent trajectories; the convergence table re-analyses the
+    first T/2^k trajectories (at least 4). Refuses correlated inputs (InputError).
     """
     from SALib.analyze import morris as morris_analyze
     from SALib.sample import morris as morris_sample
@@ -435,19 +439,35 @@ def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
     if bad.any():
         raise InputError(f"{int(bad.sum())} Morris runs gave a non-finite {problem.output}; Morris "
                          "trajectories cannot drop runs", key="sensitivity.output", value=problem.output)
-    Si = morris_analyze.analyze(salib, X, Y, num_levels=levels, seed=rng_seed)
     scale = levels / (levels - 1)
-    names = list(Si["names"])
-    indices = {}
-    for p in problem.players:
-        j = names.index(p) if p in names else problem.players.index(p)
-        ms, conf = float(Si["mu_star"][j]) * scale, float(Si["mu_star_conf"][j]) * scale
-        indices[p] = {"mu_star": ms, "mu_star_ci": [ms - conf, ms + conf],
+    per_traj = X.shape[0] // int(trajectories)  # runs per trajectory: groups + 1
+
+    def analyse(t: int) -> dict[str, dict[str, Any]]:
+        """mu*, its bootstrap interval, sigma and mu from the first t trajectories."""
+        Si = morris_analyze.analyze(salib, X[: t * per_traj], Y[: t * per_traj], num_levels=levels,
+                                    seed=rng_seed)
+        names = list(Si["names"])
+        out = {}
+        for p in problem.players:
+            j = names.index(p) if p in names else problem.players.index(p)
+            ms, conf = float(Si["mu_star"][j]) * scale, float(Si["mu_star_conf"][j]) * scale
+            out[p] = {"mu_star": ms, "mu_star_ci": [ms - conf, ms + conf],
                       "sigma": float(Si["sigma"][j]) * scale, "mu": float(Si["mu"][j]) * scale}
+        return out
+
+    indices = analyse(int(trajectories))
+    # convergence: the first T/2^k trajectories (doubling sizes, at least 4 trajectories each)
+    sizes = []
+    t = int(trajectories)
+    while t >= 4 and len(sizes) < 6:
+        sizes.append(t)
+        t //= 2
+    conv = [{"samples": t, "evaluations": t * per_traj, "indices": analyse(t)} for t in reversed(sizes)] \
+        if len(sizes) > 1 else []
     return SensitivityResult(method="morris", output=problem.output, unit=problem.unit,
                              players=list(problem.players), indices=indices,
                              ranking=_ranking(indices, "mu_star"), samples=int(trajectories),
-                             evaluations=int(Y.size), replicates=1,
+                             evaluations=int(Y.size), replicates=1, convergence=conv,
                              notes=["Morris elementary effects are in output units per unit of the "
                                     "cube (per quantile step), a screening measure, not a variance share"],
                              seed=seed if isinstance(seed, int | type(None)) else str(seed))
@@ -518,7 +538,8 @@ def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_i
     Beyond: ``samples`` random permutations in all, one outer and ``n_inner`` inner draws per step
     (their random-permutation estimator, No = 1, Ni = 3). ``n_var`` joint draws per replicate for
     Var(Y). Also returns the full first-order index S1_i = 1 - c(-i)/V and the total index
-    ST_i = c({i})/V under dependence. Intervals: t-based across independent replicates.
+    ST_i = c({i})/V under dependence. Intervals: t-based across independent replicates; the
+    convergence table uses the first R/4, R/2 and R replicates.
     """
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer) or samples <= 0:
         raise InputError("the number of samples must be a positive whole number", key="sensitivity.samples",
@@ -590,13 +611,29 @@ def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_i
         S1_r.append(1.0 - c_minus / V)
         ST_r.append(st / V)
     Sh_r, S1_r, ST_r = np.array(Sh_r), np.array(S1_r), np.array(ST_r)
-    indices: dict[str, dict[str, Any]] = {}
-    for key, reps in (("Sh", Sh_r), ("S1", S1_r), ("ST", ST_r)):
-        point = np.nanmean(reps, axis=0)
-        se, lo, hi = _replicate_ci(point, reps)
-        for j, p in enumerate(problem.players):
-            ix = indices.setdefault(p, {})
-            ix[key], ix[f"{key}_ci"], ix[f"{key}_se"] = float(point[j]), [float(lo[j]), float(hi[j])], float(se[j])
+
+    def summarise(r: int, with_se: bool) -> dict[str, dict[str, Any]]:
+        """Indices from the first r replicates: point = their mean, t-based 95% interval."""
+        out: dict[str, dict[str, Any]] = {}
+        for key, reps in (("Sh", Sh_r[:r]), ("S1", S1_r[:r]), ("ST", ST_r[:r])):
+            point = np.nanmean(reps, axis=0)
+            se, lo, hi = _replicate_ci(point, reps)
+            for j, p in enumerate(problem.players):
+                ix = out.setdefault(p, {})
+                ix[key], ix[f"{key}_ci"] = float(point[j]), [float(lo[j]), float(hi[j])]
+                if with_se:
+                    ix[f"{key}_se"] = float(se[j])
+        return out
+
+    indices = summarise(replicates, True)
+    # convergence: the first R/4, R/2, R replicates (doubling sample sizes, at least 4 replicates each)
+    sizes = []
+    r = replicates
+    while r >= 4 and len(sizes) < 6:
+        sizes.append(r)
+        r //= 2
+    conv = [{"samples": per * r, "evaluations": evaluations // replicates * r, "indices": summarise(r, False)}
+            for r in reversed(sizes)] if len(sizes) > 1 else []
     warnings = _index_warnings(indices, ("Sh",))
     if nan_runs:
         warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; their conditional "
@@ -607,8 +644,8 @@ def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_i
     return SensitivityResult(method="shapley", output=problem.output, unit=problem.unit,
                              players=list(problem.players), indices=indices,
                              ranking=_ranking(indices, "Sh"), samples=per * replicates,
-                             evaluations=evaluations, replicates=replicates, warnings=warnings,
-                             notes=notes, nan_draws=nan_runs,
+                             evaluations=evaluations, replicates=replicates, convergence=conv,
+                             warnings=warnings, notes=notes, nan_draws=nan_runs,
                              seed=seed if isinstance(seed, int | type(None)) else str(seed))
 
 

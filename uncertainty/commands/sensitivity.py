@@ -38,11 +38,15 @@ def table(result: Any) -> str:
     lines.append(f"{result.samples} base samples, {result.evaluations} model runs, "
                  f"{result.replicates} independent replicates, seed {result.seed}")
     if result.convergence:
+        key = result.rank_key
+        size = {"sobol": "base samples N", "morris": "trajectories",
+                "shapley": "samples (outer draws or orders)"}[result.method]
+        cell = (lambda v: f"{v:.3g}") if result.method == "morris" else _fmt
         lines.append("")
-        lines.append("convergence (ST by base samples N):")
+        lines.append(f"convergence ({key} by {size}):")
         lines.append(f"{'N':>8}" + "".join(f"{p:>12}" for p in result.ranking))
         for row in result.convergence:
-            lines.append(f"{row['samples']:>8}" + "".join(f"{_fmt(row['indices'][p]['ST']):>12}"
+            lines.append(f"{row['samples']:>8}" + "".join(f"{cell(row['indices'][p][key]):>12}"
                                                           for p in result.ranking))
     for n in result.notes:
         lines.append(f"note: {n}")

@@ -44,19 +44,22 @@ def plot_indices(result: Any, out_dir: str) -> list[str]:
 
 
 def plot_convergence(result: Any, out_dir: str) -> list[str]:
-    """Total index (ST) of each input with its 95% interval against the sample size (log2 axis)."""
+    """The ranking index (ST for Sobol', Sh for Shapley, mu* for Morris) of each input with its 95%
+    interval against the sample size (log2 axis)."""
     plt = _pyplot()
+    key = result.rank_key
     fig, ax = plt.subplots(figsize=(6, 3.4))
     n = np.array([row["samples"] for row in result.convergence])
     for p in result.ranking:
-        v = np.array([row["indices"][p]["ST"] for row in result.convergence])
-        ci = np.array([row["indices"][p]["ST_ci"] for row in result.convergence])
+        v = np.array([row["indices"][p][key] for row in result.convergence])
+        ci = np.array([row["indices"][p][f"{key}_ci"] for row in result.convergence])
         line = ax.plot(n, v, marker="o", ms=3, label=p)[0]
         ax.fill_between(n, ci[:, 0], ci[:, 1], color=line.get_color(), alpha=0.15)
     ax.set_xscale("log", base=2)
-    ax.set_xlabel("base samples N")
-    ax.set_ylabel("ST")
-    ax.set_title(f"convergence of total indices of {result.output}", fontsize=10)
+    ax.set_xlabel({"sobol": "base samples N", "morris": "trajectories",
+                   "shapley": "samples (outer draws or orders)"}[result.method])
+    ax.set_ylabel(key)
+    ax.set_title(f"convergence of {key} of {result.output}", fontsize=10)
     ax.legend(frameon=False, fontsize=8, ncol=2)
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
