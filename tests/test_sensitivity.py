@@ -347,3 +347,25 @@ def test_command_refuses_sobol_on_correlated_study_and_runs_shapley():
     assert [row["samples"] for row in doc["convergence"]] == [128, 256, 512]  # 4, 8, 16 replicates of 32
     res = runner.invoke(main, ["sensitivity", demo, "--output", "nope"])
     assert res.exit_code == 2
+
+
+def test_study_section_asks_for_second_order_indices() -> None:
+    # [sensitivity] second_order = true reaches sobol_core; for Jv = Kf * net pressure (a product) the
+    # interaction of Kf with the pressures is positive (closed form of a product of independent factors:
+    # Var = E[Kf]^2 Var[net] + Var[Kf] E[net]^2 + Var[Kf] Var[net], the last term the interaction)
+    from uncertainty.sensitivity import sensitivity
+    from uncertainty.study import Study
+
+    doc = {"study": {"tissue": "skeletal_muscle", "seed": 4},
+           "parameters": {"Pc": {"dist": "normal", "mean": 20, "sd": 3, "unit": "mmHg"}, "Pi": -1.0,
+                          "pi_c": 25.0, "pi_i": 10.0, "sigma": 0.9},
+           "correlations": {"pairs": []},
+           "sensitivity": {"method": "sobol", "samples": 2048, "second_order": True}}
+    r = sensitivity(Study.from_dict(doc)).to_dict()
+    # individual layer: Kf log-sd sqrt(ln(1.35)^2 + ln(1 + 0.38^2)) (priors/skeletal_muscle.toml), so
+    # Var[Kf]/E[Kf]^2 = exp(s^2) - 1; net pressure Pc - 12.5 has mean 7.5, variance 9
+    s2 = math.log(1.35) ** 2 + math.log1p(0.38**2)
+    v = math.expm1(s2)
+    expected = v * 9 / (9 + v * 7.5**2 + v * 9)
+    lo, hi = r["second_order"]["Kf:Pc"]["S2_ci"]
+    assert lo - 0.02 <= expected <= hi + 0.02, (expected, lo, hi)

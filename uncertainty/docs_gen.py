@@ -70,19 +70,10 @@ MEANINGS: dict[str, str] = {
     "propagate.samples": "total number of draws over all replicates (rounded up to a power of two per replicate "
                          "for qmc)",
     "propagate.method": "mc (pseudo-random), qmc (scrambled Sobol'), lhs (Latin hypercube)",
-    "propagate.outputs": "outputs to summarise (Jv is always added); see `fluidshift check` for the model's list",
-    "propagate.replicates": "independent randomised replicates behind the Monte Carlo standard errors",
     "propagate.tol": "optional: double the sample until the MC standard error of both 95% interval ends is below "
                      "this, in the first output's canonical unit",
     "propagate.max_samples": "optional: upper limit for the doubling under `tol` (quality gate, exit 3, when "
                              "reached)",
-    "sensitivity.method": "sobol (Saltelli design, S1 and ST), morris (elementary effects), shapley (Shapley "
-                          "effects, for correlated inputs)",
-    "sensitivity.samples": "base sample size of the design",
-    "sensitivity.output": "the output whose variance is apportioned",
-    "sensitivity.conf_level": "level of the confidence intervals of the indices",
-    "sensitivity.layer": "typical (uncertainty about the typical subject) or individual (with between-subject "
-                         "spread)",
     "observations.kind": "measurement (a direct noisy reading of one quantity), lymph_flow (pre-nodal JL = Jv at "
                          "steady state), clearance_rate, swelling_rate, volume_time_course (limb volume after "
                          "venous-cuff steps), protein_ratio (lymph/plasma protein); glomerular form only: GFR, "

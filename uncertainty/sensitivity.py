@@ -752,9 +752,6 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
             res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS))
         else:
             res = shapley_core(problem, samples, seed=seed, replicates=replicates)
-        level = sec.get("conf_level", 0.95)
-        if level != 0.95:
-            res.notes.append(f"conf_level {level:g} is not used: intervals are 95% (DESIGN.md section 5)")
     except InputError as exc:
         if exc.file is None and _file(study):
             raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc

@@ -176,27 +176,46 @@ class CorrelationsSection(BaseModel):
 
 
 class PropagateSection(BaseModel):
-    """``[propagate]``: forward uncertainty. Defaults: 16384 samples, qmc, outputs Jv and net_pressure,
-    16 randomised replicates (QMC error estimate); ``tol`` / ``max_samples`` optional."""
+    """``[propagate]``: forward uncertainty; every key is optional (``uncertainty.propagate`` defaults)."""
 
     model_config = _CFG
-    samples: int = Field(default=16384, gt=0, le=2**26)
-    method: Literal["mc", "qmc", "lhs"] = "qmc"
-    outputs: list[str] = Field(default_factory=lambda: ["Jv", "net_pressure"], min_length=1)
-    replicates: int = Field(default=16, ge=2, le=1024)
-    tol: float | None = Field(default=None, gt=0)
-    max_samples: int | None = Field(default=None, gt=0)
+    samples: int = Field(default=16384, gt=0, le=2**26, description=(
+        "draws per randomised replicate set in all; a power of two for qmc (rounded up with a note)"))
+    method: Literal["mc", "qmc", "lhs"] = Field(default="qmc", description=(
+        "mc (plain Monte Carlo), qmc (scrambled Sobol' points), lhs (Latin hypercube)"))
+    outputs: list[str] | None = Field(default=None, min_length=1, description=(
+        "outputs to summarise; default every output of the model form (Jv, net_pressure and each force first)"))
+    replicates: int = Field(default=16, ge=16, le=1024, description=(
+        "independent randomised replicates for the Monte Carlo standard errors (at least 16 scrambles)"))
+    tol: float | None = Field(default=None, gt=0, description=(
+        "keep doubling the sample until the standard error of the 95% interval ends is below tol (output units)"))
+    max_samples: int | None = Field(default=None, gt=0, description=(
+        "with tol: the largest sample; reaching it first exits 3"))
 
 
 class SensitivitySection(BaseModel):
-    """``[sensitivity]``: global sensitivity. Defaults: sobol, 8192 samples, output Jv, 95 % intervals."""
+    """``[sensitivity]``: global sensitivity of one output; every key is optional."""
 
     model_config = _CFG
-    method: Literal["sobol", "morris", "shapley"] = "sobol"
-    samples: int = Field(default=8192, gt=0, le=2**24)
-    output: str = "Jv"
-    conf_level: float = Field(default=0.95, gt=0, lt=1)
-    layer: Literal["individual", "typical"] = "typical"
+    method: Literal["sobol", "morris", "shapley"] | None = Field(default=None, description=(
+        "default: sobol for independent inputs, shapley when the study correlates inputs (sobol and morris "
+        "refuse correlated inputs)"))
+    samples: int | None = Field(default=None, gt=0, le=2**24, description=(
+        "base sample size; default 8192 (sobol), 64 trajectories (morris), 2048 outer draws (shapley)"))
+    output: str = Field(default="Jv", description="the output whose variance is apportioned")
+    layer: Literal["individual", "typical"] = Field(default="individual", description=(
+        "individual: each quantity's typical and between-subject parts as one factor; typical: the "
+        "typical-subject uncertainty only"))
+    second_order: bool = Field(default=False, description="sobol: also the second-order indices S2")
+    levels: int = Field(default=4, ge=2, le=64, description=(
+        "morris: grid levels (even), kept inside the open unit cube"))
+
+    @field_validator("levels")
+    @classmethod
+    def _even(cls, v: int) -> int:
+        if v % 2:
+            raise ValueError("Morris levels must be even")
+        return v
 
 
 class StepSpec(BaseModel):
@@ -877,7 +896,7 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
             raise _err(exc.reason, file, key, unit if unit is not None else value) from None
 
     if study.propagate is not None:
-        for i, o in enumerate(study.propagate.outputs):
+        for i, o in enumerate(study.propagate.outputs or []):
             if o not in study.outputs():
                 raise _err(f"unknown output (the {head.model} form gives {', '.join(study.outputs())})", file,
                            f"propagate.outputs[{i}]", o)
