@@ -72,13 +72,6 @@ def test_filtration_positive_in_ordinary_tissues(Kf, Pc, sigma, PS, pi_c, L, Pi_
     assert out["Jv"] <= Kf * (Pc - Pi_L0) / (1 + Kf / L) * (1 + 1e-12)
 
 
-def test_no_lymph_state_when_pc_below_lymph_threshold():
-    p = dict(ORDINARY, Pc=-5.0)
-    out = steady_state(**p)
-    assert out["Jv"] == pytest.approx(p["Kf"] * (p["Pc"] - p["Pi_L0"]) / (1 + p["Kf"] / p["L"]))
-    assert out["ratio"] == 1.0
-
-
 def test_vectorised_broadcast():
     Pc = np.linspace(10, 40, 7)
     out = steady_state(**dict(ORDINARY, Pc=Pc))
@@ -161,3 +154,17 @@ def test_pytensor_gradient_matches_finite_difference(extra):
             dn = steady_state(**dict(ORDINARY, **{name: ORDINARY[name] - h}), **extra)[key]
             fd = (up - dn) / (2 * h)
             assert grads[2 * key_i + j] == pytest.approx(fd, rel=1e-6), (key, name)
+
+
+def test_no_lymph_state_when_capillary_pressure_is_below_the_lymph_zero() -> None:
+    # one-way lymph valves (common practice): with Pc <= Pi_L0 nothing filters and no lymph flows;
+    # Pi equals Pc and pi_i equals pi_c, continuous with the filtering branch at Pc = Pi_L0
+    from uncertainty.physiology.balance import revised_steady_state, steady_state
+
+    args = dict(Kf=0.004, sigma=0.9, PS=0.002, pi_c=25.0, L=0.01, Pi_L0=2.0)
+    for fn in (steady_state, revised_steady_state):
+        low = fn(Pc=np.array([1.0, 2.0]), **args)
+        assert np.all(low["Jv"] == 0.0) and np.allclose(low["Pi"], [1.0, 2.0])
+        assert np.allclose(low["pi_i"], 25.0)
+        edge = fn(Pc=np.array([2.0 + 1e-9]), **args)
+        assert edge["Jv"][0] >= 0 and abs(edge["Pi"][0] - 2.0) < 1e-6

@@ -166,10 +166,7 @@ def test_summarize_replicate_se():
     assert 0.5 < s.mc_se["mean"] / (1 / math.sqrt(16000)) < 1.6
 
 
-@pytest.mark.parametrize("tissue", ["skeletal_muscle", "skin_subcutis", "lung", "intestinal_mucosa",
-                                    pytest.param("myocardium", marks=pytest.mark.xfail(
-                                        reason="linear lymph relation is not clipped below Pi_L0; the "
-                                               "myocardium Pi_L0 prior tail gives rare JL < 0", strict=False))])
+@pytest.mark.parametrize("tissue", ["skeletal_muscle", "skin_subcutis", "lung", "intestinal_mucosa", "myocardium"])
 def test_steady_state_jv_positive_for_ordinary_tissues(tissue):
     from uncertainty.study import Study
 

@@ -14,8 +14,9 @@ below hi = Kf (Pc - Pi_L0)/(1 + Kf/L) (the root if pi_i stayed at pi_c). Because
 Jv <= 0 (no steady state of absorption), F(Jv) = Kf (Pc - Pi_L0 - Jv/L) - Jv > 0 for all Jv <= 0 when
 Pc > Pi_L0: **filtration stays positive at steady state** whenever capillary pressure exceeds the
 pressure at which lymph flow stops, whatever the oncotic pressures (Levick & Michel 2010,
-Cardiovasc Res 87:198). When Pc <= Pi_L0 the root is hi <= 0 (a state with no lymph, kept only so that
-the function is defined everywhere).
+Cardiovasc Res 87:198). When Pc <= Pi_L0 lymph cannot flow backwards (one-way valves): the steady
+state is then Jv = JL = 0 with Pi = Pc and pi_i = pi_c (no filtration, no lymph), which joins the
+filtering branch continuously at Pc = Pi_L0 (there Jv = 0 and Pi_L0 + Jv/L = Pc).
 
 The root is found with a fixed number of Newton steps started at a point left of the root (F is
 convex for Jv > 0, so the steps rise monotonically to the root; see ``_solve_jv``), the derivative in
@@ -96,7 +97,8 @@ def _solve_jv(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Arr
     a Newton step from any point lands at or left of the root, and Newton steps from the left rise
     monotonically to it (no overshoot, no safeguard needed). The start is the larger of two such
     points: the Newton step from the upper bound hi, and the Newton step from 0+ (slope F'(0+)).
-    When Pc <= Pi_L0 the root is hi exactly (F is linear for Jv <= 0), returned by a final ``where``.
+    When Pc <= Pi_L0 there is no filtering steady state; 0 is returned by a final ``where`` (the
+    no-lymph state, module docstring).
     n_steps >= 2 evaluations of F are made (the start counts as one).
     """
     n_steps = max(int(n_steps), 2)
@@ -116,7 +118,7 @@ def _solve_jv(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Arr
     x = _stop_gradient(x, xp)
     f, d = _residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp, xp)
     x = x - f / d
-    return xp.where(hi > 0, x, hi)
+    return xp.where(hi > 0, x, 0.0 * hi)
 
 
 def steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
@@ -132,7 +134,12 @@ def steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: 
     Jv = _solve_jv(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp, xp, n_steps)
     R = steady_state_ratio(Jv, sigma, PS, xp)
     pi_i, _ = oncotic_from_ratio(R, pi_c, Cp)
-    return {"Jv": Jv, "Pi": Pi_L0 + Jv / L, "pi_i": pi_i, "ratio": R}
+    return {"Jv": Jv, "Pi": _steady_pi(Jv, Pc, L, Pi_L0, xp), "pi_i": pi_i, "ratio": R}
+
+
+def _steady_pi(Jv: Array, Pc: Array, L: Array, Pi_L0: Array, xp: Any) -> Array:
+    """Pi at steady state (mmHg): Pi_L0 + Jv/L while lymph flows; Pc in the no-lymph state (Pc <= Pi_L0)."""
+    return xp.where(Pc > Pi_L0, Pi_L0 + Jv / L, Pc)
 
 
 def revised_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array,
@@ -154,4 +161,5 @@ def revised_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Ar
     Ri = 1.0 - J * (1.0 - Rg) / safe  # Jv Ci = Jv Cg + PS_large (Cp - Ci), solved for Ci/Cp
     pi_g, _ = oncotic_from_ratio(Rg, pi_c, Cp)
     pi_i, _ = oncotic_from_ratio(Ri, pi_c, Cp)
-    return {"Jv": Jv, "Pi": Pi_L0 + Jv / L, "pi_i": pi_i, "pi_g": pi_g, "ratio": Ri, "ratio_g": Rg}
+    return {"Jv": Jv, "Pi": _steady_pi(Jv, Pc, L, Pi_L0, xp), "pi_i": pi_i, "pi_g": pi_g, "ratio": Ri,
+            "ratio_g": Rg}
