@@ -134,3 +134,20 @@ def test_cli_design_schedule_json_and_figure(tmp_path) -> None:
     assert set(doc) >= {"optimised", "equal_spacing", "sd_ratio", "prior_sd"}
     assert doc["criterion_ratio"] <= 1
     assert (tmp_path / "schedule.png").exists()
+
+
+def test_run_includes_the_schedule_section(tmp_path) -> None:
+    # DESIGN.md section 4: every analysis section present is run by `fluidshift run`, [schedule] included
+    from uncertainty.run import run
+
+    study = tmp_path / "s.toml"
+    study.write_text('[study]\ntitle = "invented"\ntissue = "skeletal_muscle"\nseed = 2\n'
+                     "[schedule]\nsteps = 3\nmeasurements = 6\nlinearisation_draws = 2\n")
+    res = run(study, tmp_path / "out", progress=False)
+    doc = json.loads((tmp_path / "out" / "results.json").read_text())
+    sec = doc["sections"]["schedule"]
+    assert sec["status"] == "done", sec.get("message")
+    ratio = sec["result"]["sd_ratio"]
+    assert all(v <= 1.0 + 1e-9 for v in ratio.values())  # never worse than equal spacing
+    assert any(f["kind"] == "figure" for f in sec["files"])
+    assert res.passed

@@ -34,7 +34,7 @@ STAGING = ".partial"
 DEPENDENCIES = ("numpy", "scipy", "SALib", "pymc", "pytensor", "arviz", "nutpie", "pint", "pydantic",
                 "click", "rich", "matplotlib", "pandas", "xarray", "netCDF4", "h5netcdf", "dask")
 
-SectionName = Literal["check", "propagate", "sensitivity", "infer", "rank", "design"]
+SectionName = Literal["check", "propagate", "sensitivity", "infer", "rank", "design", "schedule"]
 
 
 # --------------------------------------------------------------------------------------------

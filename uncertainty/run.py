@@ -1,9 +1,9 @@
 """Whole-study runner: every analysis section of a study, one results bundle, one HTML report.
 
 Order: check (load and validate), propagate, sensitivity, infer (when there are observations),
-rank, design; each section runs only when the study has it. After each section ``results.json`` is
-rewritten (atomically), so an interrupted run keeps what it finished, and the next run of the same
-study skips every section whose inputs are unchanged: the study content that section depends on
+rank, design, schedule (the venous-cuff measurement schedule); each section runs only when the study
+has it. After each section ``results.json`` is rewritten (atomically), so an interrupted run keeps
+what it finished, and the next run of the same study skips every section whose inputs are unchanged: the study content that section depends on
 (the study minus the other analysis sections, the resolved priors, data files), the seed and the
 package version. ``force=True`` recomputes everything.
 
@@ -37,7 +37,7 @@ from uncertainty.bundle import (
 )
 from uncertainty.errors import FluidshiftError, InputError, QualityGateError
 
-ORDER = ("check", "propagate", "sensitivity", "infer", "rank", "design")
+ORDER = ("check", "propagate", "sensitivity", "infer", "rank", "design", "schedule")
 #: study-file sections that belong to one analysis (the rest of the file is shared by all)
 ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule")
 #: the study-file sections each analysis depends on, beyond the shared part
@@ -47,10 +47,12 @@ DEPENDS = {
     "sensitivity": ("sensitivity",),
     "infer": ("observations", "infer"),
     "rank": ("rank", "observations"),
-    "design": ("design", "observations", "schedule"),
+    "design": ("design", "observations"),
+    "schedule": ("schedule", "observations"),
 }
 LABELS = {"check": "check study", "propagate": "propagate uncertainty", "sensitivity": "global sensitivity",
-          "infer": "Bayesian updating", "rank": "rank measurements", "design": "trial design"}
+          "infer": "Bayesian updating", "rank": "rank measurements", "design": "trial design",
+          "schedule": "cuff schedule"}
 
 
 # --------------------------------------------------------------------------------------------
@@ -87,9 +89,16 @@ def _design(study: Any, seed: int | None) -> Any:
     return design(study, seed=seed)
 
 
+def _schedule(study: Any, seed: int | None) -> Any:
+    from uncertainty.schedule import schedule
+
+    return schedule(study, seed=seed)
+
+
 #: section -> callable(study, seed) returning a result object (to_dict, to_dataframe, plot)
 ANALYSES: dict[str, Callable[[Any, int | None], Any]] = {
     "propagate": _propagate, "sensitivity": _sensitivity, "infer": _infer, "rank": _rank, "design": _design,
+    "schedule": _schedule,
 }
 
 
