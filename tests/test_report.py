@@ -3,6 +3,7 @@ rendered in headless chromium (figures decoded, tables present, fits a phone wid
 
 from __future__ import annotations
 
+import html
 import importlib
 import re
 import shutil
@@ -36,6 +37,10 @@ window.addEventListener('load', function () {
   b.setAttribute('data-images-rendered', String(ok.length));
   b.setAttribute('data-tables', String(document.querySelectorAll('table tbody tr').length));
   b.setAttribute('data-overflow', String(document.documentElement.scrollWidth > window.innerWidth + 1));
+  var origins = Array.prototype.slice.call(document.querySelectorAll('.origin'));
+  b.setAttribute('data-origins', String(origins.length));
+  b.setAttribute('data-origins-clipped', String(origins.filter(function (o) {
+    return o.getBoundingClientRect().right > window.innerWidth + 1; }).length));
 });
 </script></body>"""
 
@@ -80,9 +85,11 @@ def test_report_has_cautions_priors_captions_and_diagnostics(bundle):
     text = bundle.report_path.read_text()
     assert "not a diagnostic device" in text
     assert "licensed practitioners" in text and "local protocols" in text
-    for row in bundle.doc["priors"]:  # every prior used, with its origin
-        assert f"<td>{row['symbol']}</td>" in text
-        assert row["origin"] in text
+    for row in bundle.doc["priors"]:  # every prior used, with its origin on the row beneath it
+        m = re.search(rf'<td data-label="symbol">{re.escape(row["symbol"])}</td>.*?</tr>'
+                      r'<tr class="origin-row"><td[^>]*>(.*?)</td></tr>', text)
+        assert m, row["symbol"]
+        assert html.escape(row["origin"], quote=True) in m.group(1)
     # one sentence per figure, in its caption
     captions = re.findall(r"<figcaption>(.*?)</figcaption>", text)
     assert len(captions) == 4 and all(c.endswith(".") and c.count(". ") == 0 for c in captions)
@@ -101,9 +108,21 @@ def test_summary_lines_name_the_key_numbers(bundle):
 
 
 def test_caption_lookup():
-    assert "Sampler traces" in report.caption("infer", "infer_trace")
-    assert report.caption("design", "whatever").startswith("Power")
+    # each figure the analyses write (uncertainty/figures/*.py stems) gets the sentence for what it shows
+    assert report.caption("infer", "inference_prior_posterior").startswith("Prior (grey) beside posterior")
+    assert "each subject" in report.caption("infer", "inference_jv_subjects")
+    assert "posterior predictive" in report.caption("infer", "inference_curves_obs0__volume_time_course")
+    assert "perfect-information bound" in report.caption("rank", "rank_Jv", {"output": "Jv"})
+    assert "Var" not in report.caption("rank", "rank_Jv") and "shortest" not in report.caption("rank", "rank_Jv")
+    assert report.caption("design", "design_Kf").startswith("Simulated power")
+    assert "(mu*)" in report.caption("sensitivity", "sensitivity_Jv", {"method": "morris", "output": "Jv"})
+    assert "Shapley" in report.caption("sensitivity", "sensitivity_Jv", {"method": "shapley", "output": "Jv"})
+    assert "(S1)" in report.caption("sensitivity", "sensitivity_Jv", {"method": "sobol", "output": "Jv"})
+    assert "net_pressure" in report.caption("sensitivity", "sensitivity_net_pressure", {"output": "net_pressure"})
+    assert "sample size" in report.caption("sensitivity", "sensitivity_Jv_convergence", {"method": "sobol"})
     assert report.caption("nonsense", "x")
+    for sec, _, _, text in report.CAPTIONS:  # one sentence each
+        assert text.endswith(".") and ". " not in text, (sec, text)
 
 
 def test_gate_banner(bundle):
@@ -137,7 +156,10 @@ def check_in_browser(report_path: Path, tmp: Path, min_images: int) -> None:
     assert int(attrs["data-tables"]) >= 5
     # a phone (390 CSS px wide): the page itself does not scroll sideways (wide tables scroll in their box)
     out = chromium(["--window-size=390,844", "--virtual-time-budget=5000", "--dump-dom", probe.as_uri()], tmp)
-    assert _attrs(out.stdout)["data-overflow"] == "false"
+    phone = _attrs(out.stdout)
+    assert phone["data-overflow"] == "false"
+    # every prior's origin reads whole on the phone's screen, not cut off inside a sideways-scrolling table
+    assert int(phone["data-origins"]) >= 1 and phone["data-origins-clipped"] == "0", phone
     # screenshot: the right size and not blank
     shot = tmp / "shot.png"
     chromium(["--window-size=1000,1600", f"--screenshot={shot}", report_path.as_uri()], tmp)
@@ -159,3 +181,32 @@ def check_in_browser(report_path: Path, tmp: Path, min_images: int) -> None:
 @needs_chromium
 def test_report_renders_in_chromium(bundle, tmp_path):
     check_in_browser(bundle.report_path, tmp_path, min_images=4)
+
+
+def test_inference_diagnostics_and_checks_are_tables(bundle):
+    """Sampler diagnostics per quantity and the model checks are laid out as tables, not printed dicts."""
+    infer = {"Jv": {"mean": 0.01, "sd": 0.0025, "ci95": [0.005, 0.015], "hdi95": [0.005, 0.0148]},
+             "level": "the study's individual", "units": {"Jv": "mL/min/100g"},
+             "diagnostics": {"r_hat_max": 1.004, "ess_bulk_min": 2649.8, "divergences": 0, "passed": True,
+                             "failing": [], "per_quantity": {"Kf": {"r_hat": 1.0022, "ess_bulk": 6128.3,
+                                                                    "ess_tail": 2913.1}}},
+             "checks": {"prior_data_conflict": [{"observation": "observations[0]", "kind": "lymph_flow",
+                                                 "label": "lymph flow", "p_tail": 0.664, "conflict": False,
+                                                 "prior_predictive": {"mean": 0.025, "ci95": [-0.03, 0.11]}}],
+                        "posterior_predictive": {"obs0__lymph_flow": {"observation": "observations[0]",
+                                                                      "kind": "lymph_flow", "p_value_mean": 0.52,
+                                                                      "coverage95": 1.0, "n": 1}},
+                        "prior_sensitivity": {"Kf": {"prior": 0.0686, "likelihood": 0.0403,
+                                                     "diagnosis": "prior dominates (weak likelihood)"}}},
+             "identifiability": {"prior_bound": ["Pa"], "confounded": []}, "trustworthy": True}
+    rec = {**bundle.doc["sections"]["propagate"], "name": "infer", "result": infer, "files": []}
+    doc = {**bundle.doc, "sections": {**bundle.doc["sections"], "infer": rec}}
+    page = report.render(doc, bundle.out_dir)
+    diag = page[page.index('id="diagnostics"'):]
+    assert "{'" not in diag and "[]" not in diag  # no Python reprs
+    assert "<td>Kf</td><td class=\"num\">1.002</td><td class=\"num\">6128</td><td class=\"num\">2913</td>" in diag
+    assert "<td>lymph flow</td><td>lymph_flow</td><td class=\"num\">0.664</td>" in diag  # conflict, by label
+    assert "<td>lymph flow</td><td>lymph_flow</td><td class=\"num\">0.52</td>" in diag  # predictive, by label
+    assert "prior dominates (weak likelihood)" in diag and "Prior sensitivity" in diag
+    assert any("Jv after the observations (the study's individual)" in line and "mL/min/100g" in line
+               for line in report.summary_lines(doc))

@@ -27,38 +27,54 @@ CAUTIONS = (
     "before relying on them. Example studies and their data are invented scenarios.",
 )
 
-#: one sentence per figure: (section, substring of the file name or "" for the section default)
-CAPTIONS: list[tuple[str, str, str]] = [
-    ("propagate", "", "The distribution of the output for this study's individual (typical-subject "
-                      "uncertainty plus between-subject spread) beside the typical subject (uncertainty "
-                      "only); mass below zero is the probability of absorption rather than filtration."),
-    ("sensitivity", "morris", "Morris screening: inputs far to the right matter most on average, and inputs "
-                              "high up act non-linearly or through interactions."),
-    ("sensitivity", "", "The share of the output's variance each input explains, alone (S1) and with its "
-                        "interactions (ST), with 95% intervals: the longest bars are the inputs worth "
-                        "measuring better."),
-    ("infer", "trace", "Sampler traces per chain: well-mixed, overlapping chains without trends mean the "
-                       "posterior was explored reliably."),
-    ("infer", "predictive", "Observations against the model's predictions: data inside the predicted bands "
-                            "mean the model can reproduce what was seen."),
-    ("infer", "", "Prior beside posterior: the narrower the posterior than the prior, the more the "
-                  "observations taught about that quantity."),
-    ("rank", "", "The expected width of the Jv interval after each candidate measurement: the shortest "
-                 "bar is the measurement that would narrow the estimate most."),
-    ("design", "", "Power (and assurance) against subjects per arm with Monte Carlo error bars: the trial "
-                   "size is the first n where the curve crosses the target line."),
+#: one sentence per figure: (section, substring of the file name or "" for the section default, method of
+#: the section's result or "" for any method, text); ``{output}`` is the result's output (default Jv).
+#: The first row whose section, substring and method match wins, so the specific rows come first.
+CAPTIONS: list[tuple[str, str, str, str]] = [
+    ("propagate", "", "", "Histograms of {output} for this study's individual (typical-subject uncertainty "
+                          "plus between-subject spread) and for the typical subject (uncertainty only), with "
+                          "the median and 95% interval as solid lines; for Jv the mass left of the dashed zero "
+                          "line is the probability of absorption rather than filtration."),
+    ("sensitivity", "convergence", "", "Each input's ranking index with its 95% band against the sample size: "
+                                       "flat, well separated lines mean the ranking has settled."),
+    ("sensitivity", "", "morris", "Morris screening: the mean absolute elementary effect (mu*) of each input on "
+                                  "{output} with its 95% interval; the tallest bars are the inputs that move "
+                                  "{output} most."),
+    ("sensitivity", "", "shapley", "Each input's Shapley share (Sh) of the variance of {output}, which shares "
+                                   "interactions and correlations out fairly and sums to one, beside its "
+                                   "first-order (S1) and total (ST) index with 95% intervals: the tallest bars are "
+                                   "the inputs worth measuring better."),
+    ("sensitivity", "", "", "The share of the variance of {output} each input explains alone (S1) and with its "
+                            "interactions (ST), with 95% intervals: the tallest bars are the inputs worth "
+                            "measuring better."),
+    ("infer", "curves", "", "Observed limb-volume readings (dots) against the posterior predictive median and 95% "
+                            "band for each subject: readings inside the band mean the model reproduces what was "
+                            "seen."),
+    ("infer", "jv_subjects", "", "Posterior mean and 95% credible interval of Jv for the study's individual or each "
+                                 "subject, the typical subject and a new subject from the population; left of the "
+                                 "dotted zero line is absorption."),
+    ("infer", "", "", "Prior (grey) beside posterior (blue) for each updated quantity, with the contraction in "
+                      "the title: the narrower the posterior than the prior, the more the observations taught "
+                      "about that quantity."),
+    ("rank", "", "", "For each candidate measurement, the expected reduction of the variance of {output} (blue, "
+                     "with twice its Monte Carlo error) inside the perfect-information bound (grey): the longest "
+                     "blue bar is the measurement that would narrow the estimate most."),
+    ("design", "", "", "Simulated power and assurance (bands of twice the Monte Carlo error) against completing "
+                       "subjects per arm, with the noncentral-t power dashed: the trial size is the first n where "
+                       "power crosses the dotted target line, enlarged for dropout when enrolling."),
 ]
 
 
-def caption(section: str, filename: str) -> str:
-    """The one-sentence meaning of a figure, by section and file name."""
+def caption(section: str, filename: str, result: dict[str, Any] | None = None) -> str:
+    """The one-sentence meaning of a figure, by section, file name and (from ``result``, the section's
+    to_dict) the method and output it shows."""
     low = filename.lower()
-    for sec, pattern, text in CAPTIONS:
-        if sec == section and pattern and pattern in low:
-            return text
-    for sec, pattern, text in CAPTIONS:
-        if sec == section and not pattern:
-            return text
+    res = result if isinstance(result, dict) else {}
+    method = str(res.get("method") or "").lower()
+    output = str(res.get("output") or "Jv")
+    for sec, pattern, meth, text in CAPTIONS:
+        if sec == section and (not pattern or pattern in low) and (not meth or meth == method):
+            return text.replace("{output}", output)
     return "A figure of this analysis; see the table beside it for the numbers."
 
 
@@ -143,8 +159,10 @@ def summary_lines(doc: dict[str, Any]) -> list[str]:
     if inf and isinstance(inf.get("Jv"), dict):
         jv = inf["Jv"]
         diag = inf.get("diagnostics") or {}
-        lines.append(f"Jv after the observations: mean {fmt(jv.get('mean'), 3)}, 95% credible interval "
-                     f"{_interval(jv.get('ci95'))}"
+        unit = (inf.get("units") or {}).get("Jv", "")
+        level = f" ({inf['level']})" if inf.get("level") else ""
+        lines.append(f"Jv after the observations{level}: mean {fmt(jv.get('mean'), 3)}, 95% credible interval "
+                     f"{_interval(jv.get('ci95'))} {unit}".rstrip()
                      + (f"  (diagnostics {'passed' if diag.get('passed') else 'FAILED'})" if diag else ""))
     rk = _result(doc, "rank")
     if rk:
@@ -198,9 +216,19 @@ def _table(head: list[str], rows: list[list[Any]], num_cols: set[int] | None = N
     return "".join(out)
 
 
+def _value(v: Any, digits: int = 4) -> str:
+    """A cell value: numbers rounded, empty lists as 'none', nested mappings as 'key value; ...'."""
+    if isinstance(v, dict):
+        return "; ".join(f"{a} {_value(b, digits)}" for a, b in v.items()) or "none"
+    if isinstance(v, list | tuple) and not v:
+        return "none"
+    if isinstance(v, list | tuple) and not all(isinstance(x, int | float) and not isinstance(x, bool) for x in v):
+        return ", ".join(_value(x, digits) for x in v)
+    return fmt(v, digits)
+
+
 def _kv_table(d: dict[str, Any]) -> str:
-    rows = [[k, fmt(v) if not isinstance(v, dict) else ", ".join(f"{a}={fmt(b)}" for a, b in v.items())]
-            for k, v in d.items() if not isinstance(v, list) or len(v) <= 4]
+    rows = [[k, _value(v)] for k, v in d.items() if not isinstance(v, list) or len(v) <= 4]
     return _table(["key", "value"], rows) if rows else ""
 
 
@@ -241,9 +269,19 @@ def _section_sensitivity(res: dict[str, Any]) -> str:
         if isinstance(v, dict):
             keys += [k for k in v if k not in keys]
     rows = [[p] + [fmt(v.get(k), 3) for k in keys] for p, v in idx.items() if isinstance(v, dict)]
+    meaning = []
+    if "Sh" in keys:
+        meaning.append("Sh is the input's Shapley share of the variance (interactions and correlations shared "
+                       "out; the shares sum to 1)")
+    if "S1" in keys or "ST" in keys:
+        meaning.append("S1 is the share of the output's variance an input explains alone, ST the share "
+                       "including its interactions")
+    if "mu_star" in keys:
+        meaning.append("mu_star is the mean absolute elementary effect (Morris) and sigma their spread, a sign "
+                       "of non-linearity or interaction")
+    meaning.append("_ci gives the 95% interval and _se the standard error")
     parts = [f"<p>Method: {_e(res.get('method', ''))}; output: {_e(res.get('output', ''))}. "
-             "S1 is the share of the output's variance an input explains alone, ST the share including "
-             "its interactions; _ci gives the 95% interval.</p>"]
+             + _e("; ".join(meaning)) + ".</p>"]
     parts.append(_table(["input"] + keys, rows, num_cols=set(range(1, len(keys) + 1))))
     top = _top_inputs(res, k=len(idx) or 10)
     if top:
@@ -330,23 +368,89 @@ def _figures(name: str, rec: dict[str, Any], root: Path) -> str:
     out = []
     for stem, versions in sorted(by_stem.items()):
         p = versions.get(".svg") or versions[".png"]
-        cap = caption(name, stem)
+        cap = caption(name, stem, rec.get("result"))
         out.append(f'<figure><img src="{_figure_uri(p)}" alt="{_e(cap)}" loading="eager">'
                    f"<figcaption>{_e(cap)}</figcaption></figure>")
     return "".join(out)
 
 
 def _priors(doc: dict[str, Any]) -> str:
-    rows = []
+    """The priors table: one row of numbers per quantity, then its origin (and note) on a full-width row
+    beneath it, so the origin reads whole on a phone and in print instead of in a narrow last column."""
+    head = ["symbol", "distribution", "median", "95% interval", "unit", "basis", "between-subject"]
+    out = ['<div class="table-wrap"><table class="priors"><thead><tr>']
+    out += [f"<th>{_e(h)}</th>" for h in head]
+    out.append("</tr></thead><tbody>")
     for r in doc.get("priors", []):
         bs = r.get("between_subject")
         bs_text = ", ".join(f"{k} {fmt(v, 3)}" for k, v in bs.items()) if isinstance(bs, dict) else fmt(bs)
-        rows.append([r.get("symbol"), r.get("dist"), fmt(r.get("median"), 4), _interval(r.get("ci95"), 4),
-                     r.get("unit") or "", r.get("basis") or "", bs_text, r.get("origin") or "(no origin given)"])
-    if not rows:
+        cells = [r.get("symbol"), r.get("dist"), fmt(r.get("median"), 4), _interval(r.get("ci95"), 4),
+                 r.get("unit") or "", r.get("basis") or "", bs_text]
+        tds = []
+        for i, (h, c) in enumerate(zip(head, cells, strict=True)):
+            cls = ' class="num"' if i == 2 else ""
+            tds.append(f'<td data-label="{_e(h)}"{cls}>{_e(c)}</td>')
+        out.append('<tr class="prior">' + "".join(tds) + "</tr>")
+        origin = r.get("origin") or "(no origin given)"
+        note = f' <span class="note">Note: {_e(r["note"])}</span>' if r.get("note") else ""
+        out.append(f'<tr class="origin-row"><td colspan="{len(head)}"><span class="origin-label">Origin:</span> '
+                   f'<span class="origin">{_e(origin)}</span>{note}</td></tr>')
+    out.append("</tbody></table></div>")
+    if not doc.get("priors"):
         return "<p>No priors recorded.</p>"
-    return _table(["symbol", "distribution", "median", "95% interval", "unit", "basis", "between-subject",
-                   "origin"], rows, num_cols={2}, cls={7: "origin"})
+    return "".join(out)
+
+
+def _diag_number(key: str, v: Any) -> str:
+    """R-hat with three decimals, effective sample sizes as whole draws."""
+    if not isinstance(v, int | float) or isinstance(v, bool) or not math.isfinite(v):
+        return fmt(v)
+    return f"{v:.3f}" if key == "r_hat" else str(round(v))
+
+
+def _checks(inf: dict[str, Any]) -> str:
+    """The inference checks: prior-data conflict, posterior predictive, prior sensitivity, identifiability."""
+    checks = inf.get("checks") or {}
+    parts = []
+    conflict = [c for c in checks.get("prior_data_conflict") or [] if isinstance(c, dict)]
+    if conflict:
+        parts.append("<h3>Prior-data conflict</h3><p>Where each observation falls in its prior predictive "
+                     "distribution: a two-sided tail probability below 0.01 flags a reading the priors did not "
+                     "expect (Evans and Moshonov 2006; the threshold is common practice).</p>")
+        parts.append(_table(["observation", "kind", "tail probability", "conflict", "prior predictive 95%"],
+                            [[c.get("label") or c.get("observation"), c.get("kind"), fmt(c.get("p_tail"), 3),
+                              fmt(c.get("conflict")), _interval((c.get("prior_predictive") or {}).get("ci95"), 3)]
+                             for c in conflict], num_cols={2}))
+    ppc = checks.get("posterior_predictive") or {}
+    labels = {c.get("observation"): c.get("label") for c in conflict if c.get("label")}
+    ppc_rows = [[labels.get(v.get("observation")) or v.get("observation") or k, v.get("kind"),
+                 fmt(v.get("p_value_mean"), 3), fmt(v.get("coverage95"), 3),
+                 fmt(v.get("n"))] for k, v in ppc.items() if isinstance(v, dict)]
+    if ppc_rows:
+        parts.append("<h3>Posterior predictive check</h3><p>Posterior predictive p-values near 0 or 1, or "
+                     "coverage of the 95% predictive interval well below 0.95, mean the fitted model does not "
+                     "reproduce the data.</p>")
+        parts.append(_table(["observation", "kind", "p-value (mean)", "95% coverage", "readings"], ppc_rows,
+                            num_cols={2, 3, 4}))
+    sens = checks.get("prior_sensitivity") or {}
+    sens_rows = [[q, fmt(v.get("prior"), 3), fmt(v.get("likelihood"), 3), v.get("diagnosis") or ""]
+                 for q, v in sens.items() if isinstance(v, dict)]
+    if sens_rows:
+        parts.append("<h3>Prior sensitivity</h3><p>Power-scaling sensitivity (Kallioinen et al. 2024): how far "
+                     "each posterior moves per unit log power when the prior or the likelihood is raised to a "
+                     "power near one; above about 0.05 the quantity leans on that part.</p>")
+        parts.append(_table(["quantity", "prior", "likelihood", "diagnosis"], sens_rows, num_cols={1, 2}))
+    elif isinstance(sens.get("error"), str):
+        parts.append(f"<p>Prior sensitivity could not be computed: {_e(sens['error'])}</p>")
+    ident = inf.get("identifiability") or {}
+    if isinstance(ident, dict) and ident:
+        parts.append("<p>Quantities the data barely inform (posterior near the prior): "
+                     f"{_e(_value(ident.get('prior_bound') or []))}; confounded pairs: "
+                     f"{_e(_value(ident.get('confounded') or []))}.</p>")
+    if inf.get("trustworthy") is not None:
+        parts.append(f"<p>Inference judged trustworthy by these checks: <strong>{fmt(inf.get('trustworthy'))}"
+                     "</strong>.</p>")
+    return "".join(parts)
 
 
 def _diagnostics(doc: dict[str, Any]) -> str:
@@ -360,10 +464,21 @@ def _diagnostics(doc: dict[str, Any]) -> str:
     if isinstance(diag, dict):
         parts.append("<h3>Sampler diagnostics</h3><p>r_hat_max should be below about 1.01, ess_bulk_min above "
                      "about 400 and divergences zero (common practice).</p>")
-        parts.append(_kv_table(diag))
+        per = diag.get("per_quantity")
+        parts.append(_kv_table({k: v for k, v in diag.items() if k != "per_quantity"}))
+        if isinstance(per, dict) and per:
+            keys = [k for k in ("r_hat", "ess_bulk", "ess_tail") if any(k in (v or {}) for v in per.values())]
+            parts.append(_table(["quantity", *[k.replace("_", " ") for k in keys]],
+                                [[q, *[_diag_number(k, (v or {}).get(k)) for k in keys]] for q, v in per.items()],
+                                num_cols=set(range(1, len(keys) + 1))))
+        parts.append(_checks(inf or {}))
     prop = _result(doc, "propagate")
     if prop:
-        bits = {"converged": prop.get("converged"), "tol": prop.get("tol"), "samples": prop.get("samples")}
+        if prop.get("tol") is None:  # a fixed sample size: nothing to converge to
+            bits = {"stopping": "fixed sample size (no tolerance asked)"}
+        else:
+            bits = {"converged": prop.get("converged"), "tolerance": prop.get("tol")}
+        bits.update({"samples": prop.get("samples"), "independent replicates": prop.get("replicates")})
         nan = prop.get("nan_draws") or {}
         bad = {f"{layer}.{k}": v for layer, d in nan.items() if isinstance(d, dict) for k, v in d.items() if v}
         bits.update({f"non-finite draws {k}": v for k, v in bad.items()})
