@@ -88,3 +88,39 @@ def test_demo_runs_the_bundled_study(fakes, tmp_path):
     assert res.exit_code == 0, res.output
     doc = json.loads((out / "results.json").read_text())
     assert doc["study"]["path"] == str(studies_dir() / "demo.toml")
+
+
+def test_quiet_hides_library_chatter(capfd):
+    """--quiet prints nothing but errors: PyMC's "Sampling: [...]" log lines and library warnings (PyTensor's
+    BLAS UserWarning) are hidden; without --quiet they still show, so this test can fail."""
+    import logging
+    import sys
+    import warnings
+
+    import click
+
+    from uncertainty.commands.common import handle_errors
+
+    @click.command()
+    @click.option("--quiet", is_flag=True)
+    @handle_errors
+    def chatty(quiet: bool) -> None:
+        log = logging.getLogger("pymc")
+        log.setLevel(logging.INFO)  # as pymc does on import
+        handler = logging.StreamHandler(sys.stderr)
+        log.addHandler(handler)
+        try:
+            log.info("Sampling: [Kf__z]")
+            warnings.warn("PyTensor could not link to a BLAS installation.", UserWarning, stacklevel=1)
+        finally:
+            log.removeHandler(handler)
+
+    with warnings.catch_warnings(record=True) as seen, pytest.raises(SystemExit) as info:
+        warnings.simplefilter("always")
+        chatty.main(["--quiet"], standalone_mode=True)
+    assert info.value.code == 0
+    assert capfd.readouterr().err == "" and seen == []
+    with pytest.warns(UserWarning, match="BLAS"), pytest.raises(SystemExit):
+        chatty.main([], standalone_mode=True)
+    assert "Sampling: [Kf__z]" in capfd.readouterr().err
+    assert logging.root.manager.disable == logging.NOTSET  # restored after the command

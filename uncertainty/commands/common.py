@@ -6,6 +6,7 @@ status (2 bad input, 3 quality gate, 1 other); nothing else is printed on stdout
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import json
 import math
@@ -60,12 +61,32 @@ def emit_json(doc: dict[str, Any]) -> None:
     click.echo(to_json(doc))
 
 
+@contextlib.contextmanager
+def _libraries_silenced() -> Any:
+    """For --quiet: hide the libraries' own chatter on stderr (PyMC's "Sampling: [...]" log lines,
+    PyTensor's BLAS UserWarning and other warnings); our own error line is printed after this ends."""
+    import logging
+    import warnings
+
+    previous = logging.root.manager.disable
+    logging.disable(logging.WARNING)  # a level, not a logger setting: pymc resets its logger on import
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            yield
+    finally:
+        logging.disable(previous)
+
+
 def handle_errors(func: Callable) -> Callable:
     """Turn FluidshiftError into a one-line message and its exit status; no traceback."""
 
     @functools.wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
         try:
+            if kwargs.get("quiet"):
+                with _libraries_silenced():
+                    return func(*args, **kwargs)
             return func(*args, **kwargs)
         except QualityGateError as exc:
             click.echo(f"fluidshift: quality gate failed: {exc}", err=True)
