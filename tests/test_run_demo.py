@@ -105,3 +105,20 @@ def test_same_study_and_seed_same_numbers(demo, tmp_path):
         ra = {k: v for k, v in a["sections"][s]["result"].items() if k != "study"}
         rd = {k: v for k, v in demo_doc["sections"][s]["result"].items() if k != "study"}
         assert dump(ra, sort_keys=True) == dump(rd, sort_keys=True), s
+
+
+def test_demo_twice_same_numbers_in_every_section(demo, tmp_path):
+    """The whole demo again (PyMC sampling included) with --force into another folder: every section's
+    numbers in results.json are the same as in the first run (same study, same seed)."""
+    _, out = demo
+    again = tmp_path / "again"
+    proc = subprocess.run([*_fluidshift(), "demo", "--out", str(again), "--force", "--quiet"], capture_output=True,
+                          text=True, timeout=1200)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    a, b = bundle_mod.read_results(out), bundle_mod.read_results(again)
+    assert list(a["sections"]) == list(b["sections"]) == ["check", *ANALYSES]
+    for name in a["sections"]:
+        assert a["sections"][name]["key"] == b["sections"][name]["key"], name
+        assert json.dumps(a["sections"][name]["result"], sort_keys=True) == json.dumps(
+            b["sections"][name]["result"], sort_keys=True), name
+    assert a["summary"] == b["summary"]
