@@ -246,3 +246,14 @@ def test_atomic_write_leaves_old_file_on_failure(tmp_path):
     assert (tmp_path / "b" / "tables" / "x.csv").read_text() == "a\n1\n"
     b.close()
     assert not (tmp_path / "b" / ".partial").exists()
+
+
+def test_a_code_change_changes_every_section_key(monkeypatch) -> None:
+    # results computed by other code must not be reused under the same version number
+    from uncertainty.study import Study
+
+    s = Study.from_dict({"study": {"tissue": "skeletal_muscle"}, "propagate": {"samples": 1024}})
+    before = run_mod.section_key(s, "propagate", 1)
+    assert run_mod.section_key(s, "propagate", 1) == before
+    monkeypatch.setattr(run_mod, "code_hash", lambda: "0" * 64)
+    assert run_mod.section_key(s, "propagate", 1) != before

@@ -13,6 +13,7 @@ A section whose quality gate fails keeps its result, flagged; the bundle and rep
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import os
@@ -195,9 +196,22 @@ def _data_files(study: Any, raw: dict[str, Any] | None) -> dict[str, str]:
     return out
 
 
+@functools.lru_cache(maxsize=1)
+def code_hash() -> str:
+    """SHA-256 over the package's Python sources (sorted paths and bytes): a code change within one version
+    number must not reuse results computed by the old code."""
+    root = Path(__file__).resolve().parent
+    h = hashlib.sha256()
+    for f in sorted(root.rglob("*.py")):
+        h.update(str(f.relative_to(root)).encode("utf-8"))
+        h.update(f.read_bytes())
+    return h.hexdigest()
+
+
 def section_key(study: Any, name: str, seed: int | None) -> str:
     """SHA-256 over everything section ``name`` depends on: the shared part of the study file, its
-    own study-file sections, the resolved priors, data files, the seed and the package version."""
+    own study-file sections, the resolved priors, data files, the seed, the package version and the
+    hash of the package's sources (:func:`code_hash`)."""
     raw = _raw_study(study)
     if raw is not None:
         shared = {k: v for k, v in raw.items() if k not in ANALYSIS_KEYS}
@@ -205,7 +219,7 @@ def section_key(study: Any, name: str, seed: int | None) -> str:
     else:  # a Study built in memory: its hash stands for the shared part
         shared = {"hash": getattr(study, "hash", None)}
         own = {k: _dump(getattr(study, k, None)) for k in DEPENDS[name]}
-    payload = {"schema": SCHEMA, "version": package_version(), "section": name, "seed": seed,
+    payload = {"schema": SCHEMA, "version": package_version(), "code": code_hash(), "section": name, "seed": seed,
                "shared": shared, "own": own, "priors": prior_rows(study),
                "data": _data_files(study, raw) if "observations" in DEPENDS[name] else {}}
     text = json.dumps(jsonable(payload), sort_keys=True, separators=(",", ":"))
