@@ -151,3 +151,6 @@ def test_run_includes_the_schedule_section(tmp_path) -> None:
     assert all(v <= 1.0 + 1e-9 for v in ratio.values())  # never worse than equal spacing
     assert any(f["kind"] == "figure" for f in sec["files"])
     assert res.passed
+    html = (tmp_path / "out" / "report.html").read_text()
+    assert 'id="section-schedule"' in html and "equal spacing" in html
+    assert any(line.startswith("Cuff schedule:") for line in res.summary)

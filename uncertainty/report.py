@@ -62,6 +62,9 @@ CAPTIONS: list[tuple[str, str, str, str]] = [
     ("design", "", "", "Simulated power and assurance (bands of twice the Monte Carlo error) against completing "
                        "subjects per arm, with the noncentral-t power dashed: the trial size is the first n where "
                        "power crosses the dotted target line, enlarged for dropout when enrolling."),
+    ("schedule", "", "", "The optimised venous-cuff protocol beside equal spacing: cuff pressure steps and the "
+                         "expected limb-volume course, with the reading times marked; the optimised readings sit "
+                         "where the curve says most about Kf and Pvi."),
 ]
 
 
@@ -175,6 +178,10 @@ def summary_lines(doc: dict[str, Any]) -> list[str]:
         if des.get("n_per_arm_assurance") is not None:
             part += f", {fmt(des.get('n_per_arm_assurance'))} per arm for the target assurance"
         lines.append(part)
+    sch = _result(doc, "schedule")
+    if sch and isinstance(sch.get("sd_ratio"), dict):
+        lines.append("Cuff schedule: posterior sd optimised / equal spacing " + ", ".join(
+            f"{k} {fmt(v, 3)}" for k, v in sch["sd_ratio"].items()))
     gate = doc.get("quality_gate", {})
     if gate.get("failed") or gate.get("errors"):
         bits = []
@@ -345,11 +352,28 @@ def _section_design(res: dict[str, Any]) -> str:
     return "".join(parts)
 
 
+def _section_schedule(res: dict[str, Any]) -> str:
+    rows = []
+    for label in ("optimised", "equal_spacing"):
+        d = res.get(label) or {}
+        sd = d.get("posterior_sd") or {}
+        rows.append([label.replace("_", " "), " ".join(fmt(x, 3) for x in d.get("pressures") or []),
+                     " ".join(fmt(x, 3) for x in d.get("times") or []),
+                     *[fmt(sd.get(k), 3) for k in ("Kf", "Pvi")]])
+    ratio = res.get("sd_ratio") or {}
+    return ("<p>Cuff pressures (mmHg per step) and reading times (min) that minimise the expected posterior "
+            "sd of Kf and Pvi, against equal spacing; a ratio below 1 is a gain: "
+            + _e(", ".join(f"{k} {fmt(v, 3)}" for k, v in ratio.items())) + ".</p>"
+            + _table(["schedule", "pressures", "times", "posterior sd Kf", "posterior sd Pvi"], rows,
+                     num_cols={3, 4}))
+
+
 SECTION_HTML = {"propagate": _section_propagate, "sensitivity": _section_sensitivity, "infer": _section_infer,
-                "rank": _section_rank, "design": _section_design}
+                "rank": _section_rank, "design": _section_design,
+                "schedule": _section_schedule}
 TITLES = {"check": "Study check", "propagate": "Uncertainty of Jv", "sensitivity": "Which inputs matter",
           "infer": "Updating from the observations", "rank": "Which measurement to make",
-          "design": "Trial design"}
+          "design": "Trial design", "schedule": "Cuff measurement schedule"}
 
 
 def _figure_uri(path: Path) -> str:
