@@ -139,7 +139,8 @@ def steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: 
 
 def _steady_pi(Jv: Array, Pc: Array, L: Array, Pi_L0: Array, xp: Any) -> Array:
     """Pi at steady state (mmHg): Pi_L0 + Jv/L while lymph flows; Pc in the no-lymph state (Pc <= Pi_L0)."""
-    return xp.where(Pc > Pi_L0, Pi_L0 + Jv / L, Pc)
+    zero = 0.0 * Jv  # broadcasts plain-number pressures to Jv's type (a PyTensor condition needs a tensor)
+    return xp.where(Pc - Pi_L0 + zero > 0, Pi_L0 + Jv / L, Pc + zero)
 
 
 def revised_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array,
