@@ -13,6 +13,7 @@ is read back; ``results_schema()`` gives the JSON Schema (documented in docs/res
 from __future__ import annotations
 
 import contextlib
+import functools
 import hashlib
 import json
 import math
@@ -197,6 +198,18 @@ def versions() -> dict[str, str | None]:
         except PackageNotFoundError:
             out[name] = None
     return out
+
+
+@functools.lru_cache(maxsize=1)
+def code_hash() -> str:
+    """SHA-256 over the package's Python sources (sorted paths and bytes): a code change within one version
+    number must not reuse results computed by the old code."""
+    root = Path(__file__).resolve().parent  # the uncertainty package
+    h = hashlib.sha256()
+    for f in sorted(root.rglob("*.py")):
+        h.update(str(f.relative_to(root)).encode("utf-8"))
+        h.update(f.read_bytes())
+    return h.hexdigest()
 
 
 def package_version() -> str:

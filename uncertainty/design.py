@@ -560,16 +560,14 @@ class _PointTask:
     @property
     def checkpoint_key(self) -> str:
         """Digest of what the points depend on beyond (n, trials, path): the study file's hash, the
-        resolved priors, correlations and model form, the validated section and the package version
-        (a checkpoint of a changed study is never reused)."""
+        resolved priors, correlations and model form, the validated section, the package version and
+        the hash of its sources (a checkpoint of a changed study or changed code is never reused)."""
         import dataclasses
         import hashlib
-        from importlib.metadata import PackageNotFoundError, version
 
-        try:
-            release = version("fluidshift")
-        except PackageNotFoundError:  # a bare source tree
-            release = "0+unknown"
+        from uncertainty.bundle import code_hash, package_version
+
+        release = (package_version(), code_hash())
         st = self.study
         spec = {f.name: getattr(self.spec, f.name) for f in dataclasses.fields(self.spec) if f.name != "prior_frozen"}
         priors = {k: (p.dist, sorted(p.params.items()), p.between_subject) for k, p in sorted(st.priors.items())}

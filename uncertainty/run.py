@@ -13,7 +13,6 @@ A section whose quality gate fails keeps its result, flagged; the bundle and rep
 
 from __future__ import annotations
 
-import functools
 import hashlib
 import json
 import os
@@ -32,6 +31,7 @@ from uncertainty.bundle import (
     SCHEMA,
     Bundle,
     FileRecord,
+    code_hash,
     jsonable,
     package_version,
     versions,
@@ -196,22 +196,10 @@ def _data_files(study: Any, raw: dict[str, Any] | None) -> dict[str, str]:
     return out
 
 
-@functools.lru_cache(maxsize=1)
-def code_hash() -> str:
-    """SHA-256 over the package's Python sources (sorted paths and bytes): a code change within one version
-    number must not reuse results computed by the old code."""
-    root = Path(__file__).resolve().parent
-    h = hashlib.sha256()
-    for f in sorted(root.rglob("*.py")):
-        h.update(str(f.relative_to(root)).encode("utf-8"))
-        h.update(f.read_bytes())
-    return h.hexdigest()
-
-
 def section_key(study: Any, name: str, seed: int | None) -> str:
     """SHA-256 over everything section ``name`` depends on: the shared part of the study file, its
     own study-file sections, the resolved priors, data files, the seed, the package version and the
-    hash of the package's sources (:func:`code_hash`)."""
+    hash of the package's sources (``bundle.code_hash``)."""
     raw = _raw_study(study)
     if raw is not None:
         shared = {k: v for k, v in raw.items() if k not in ANALYSIS_KEYS}
