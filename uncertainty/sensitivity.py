@@ -410,6 +410,16 @@ def morris_levels_inside(u: np.ndarray, levels: int) -> np.ndarray:
     return (np.round(u * (levels - 1)) + 0.5) / levels
 
 
+def _halvings(n: int, smallest: int = 4, most: int = 6) -> list[int]:
+    """Doubling sizes ending at ``n`` (n, n/2, n/4, ... down to ``smallest``, at most ``most``), ascending:
+    the prefixes a convergence table re-analyses."""
+    sizes = []
+    while n >= smallest and len(sizes) < most:
+        sizes.append(n)
+        n //= 2
+    return sizes[::-1]
+
+
 def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
                 levels: int = MORRIS_LEVELS) -> SensitivityResult:
     """Morris screening: mu*, sigma and mu per player (output units per unit of the cube).
@@ -457,12 +467,8 @@ def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
 
     indices = analyse(int(trajectories))
     # convergence: the first T/2^k trajectories (doubling sizes, at least 4 trajectories each)
-    sizes = []
-    t = int(trajectories)
-    while t >= 4 and len(sizes) < 6:
-        sizes.append(t)
-        t //= 2
-    conv = [{"samples": t, "evaluations": t * per_traj, "indices": analyse(t)} for t in reversed(sizes)] \
+    sizes = _halvings(int(trajectories))
+    conv = [{"samples": t, "evaluations": t * per_traj, "indices": analyse(t)} for t in sizes] \
         if len(sizes) > 1 else []
     return SensitivityResult(method="morris", output=problem.output, unit=problem.unit,
                              players=list(problem.players), indices=indices,
@@ -627,13 +633,9 @@ def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_i
 
     indices = summarise(replicates, True)
     # convergence: the first R/4, R/2, R replicates (doubling sample sizes, at least 4 replicates each)
-    sizes = []
-    r = replicates
-    while r >= 4 and len(sizes) < 6:
-        sizes.append(r)
-        r //= 2
+    sizes = _halvings(replicates)
     conv = [{"samples": per * r, "evaluations": evaluations // replicates * r, "indices": summarise(r, False)}
-            for r in reversed(sizes)] if len(sizes) > 1 else []
+            for r in sizes] if len(sizes) > 1 else []
     warnings = _index_warnings(indices, ("Sh",))
     if nan_runs:
         warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; their conditional "
