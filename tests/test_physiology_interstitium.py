@@ -142,3 +142,24 @@ def test_cuff_curve_is_venous_part_above_rest_plus_filtration_part_above_pvi():
     # mmHg: with Pvi at rest instead, more fluid filters (the ODE of the linear model agrees)
     ode = it.volume_time_course_ode(t, at, cuffs, 0.004, 0.12, 0.0, 0.05, Pv0=8.0, **kw)
     assert np.all(got[t > 1] < ode[t > 1])
+
+
+def test_time_constant_given_directly_and_subject_by_time_table():
+    """``tau`` given directly equals C_tis/(Kf + L); a (1, T) time row and (n, 1) subject columns give
+    the (n, T) table whose rows are each subject's own curve."""
+    t = np.linspace(0.0, 12.0, 49)
+    at, cuffs = [0.0, 4.0, 8.0], [20.0, 30.0, 40.0]           # invented protocol
+    kw = dict(tau_v=0.6, transmission=0.9)                     # invented subjects below
+    kf, c_tis, lym = 0.004, 0.12, 0.001
+    by_parts = it.volume_time_course(t, at, cuffs, kf, c_tis, lym, 0.05, Pv0=8.0, r=0.15, **kw)
+    by_tau = it.volume_time_course(t, at, cuffs, kf, None, None, 0.05, Pv0=8.0, r=0.15, tau=c_tis / (kf + lym), **kw)
+    np.testing.assert_allclose(by_tau, by_parts, rtol=1e-13)
+    kfs, cvs = np.array([0.003, 0.004, 0.005]), np.array([0.04, 0.05, 0.06])
+    pvis, rs = np.array([10.0, 14.0, 21.0]), np.array([0.1, 0.2, 0.3])
+    table = it.cuff_curve(t[None, :], at, cuffs, kfs[:, None], None, None, cvs[:, None], Pv_rest=8.0,
+                          Pvi=pvis[:, None], r=rs[:, None], tau=25.0, smooth=1.0, **kw)
+    assert table.shape == (3, t.size)
+    for s in range(3):
+        one = it.cuff_curve(t, at, cuffs, kfs[s], 25.0 * kfs[s], 0.0, cvs[s], Pv_rest=8.0, Pvi=pvis[s], r=rs[s],
+                            smooth=1.0, **kw)
+        np.testing.assert_allclose(table[s], one, rtol=1e-12)

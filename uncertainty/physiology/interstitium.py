@@ -128,8 +128,8 @@ def _levels(cuff_pressures: Sequence[Array], Pv0: Array, transmission: Array, r:
 def volume_time_course(t: Array, step_times: Sequence[float], cuff_pressures: Sequence[Array],
                        Kf: Array, C_tis: Array, L: Array, Cv: Array, *, Pv0: Array,
                        tau_v: Array = TAU_VENOUS_MIN, r: Array = 0.2, transmission: Array = TRANSMISSION,
-                       xp: Any = np, parts: bool = False, smooth: float | None = None
-                       ) -> Array | dict[str, Array]:
+                       xp: Any = np, parts: bool = False, smooth: float | None = None,
+                       tau: Array | None = None) -> Array | dict[str, Array]:
     """Limb volume change (mL per basis) at times t (min) after cumulative venous-cuff steps; linear model.
 
     Steps: at ``step_times[k]`` (min) the cuff goes to ``cuff_pressures[k]`` (mmHg) and stays there
@@ -143,9 +143,14 @@ def volume_time_course(t: Array, step_times: Sequence[float], cuff_pressures: Se
     Written in ``xp`` arithmetic (step times are constants; pressures and parameters may be tensors).
     With ``parts=True`` returns dict ``total``, ``venous``, ``filtration``. ``smooth`` (mmHg, default
     None = the sharp max) rounds the corner of Pv = max(Pv0, T P_cuff), see ``venous_pressure``.
+    ``tau`` (min), when given, is the slow time constant itself and C_tis, L are not used: the
+    solution depends on them only through it (inference samples it as one quantity). All arguments
+    broadcast: t as a row (1, T) and per-subject values as a column (n, 1) give an (n, T) table,
+    and a shared tau_v and tau then cost one exponential per time and step instead of per reading.
     """
     dPv, dPc = _levels(cuff_pressures, Pv0, transmission, r, xp, smooth)
-    tau = C_tis / (Kf + L)
+    if tau is None:
+        tau = C_tis / (Kf + L)
     ven = 0.0 * t
     fil = 0.0 * t
     for tk, dv, dc in zip(step_times, dPv, dPc, strict=True):
@@ -161,7 +166,7 @@ def volume_time_course(t: Array, step_times: Sequence[float], cuff_pressures: Se
 def cuff_curve(t: Array, step_times: Sequence[float], cuff_pressures: Sequence[Array], Kf: Array,
                C_tis: Array, L: Array, Cv: Array, *, Pv_rest: Array, Pvi: Array,
                tau_v: Array = TAU_VENOUS_MIN, r: Array = 0.2, transmission: Array = TRANSMISSION,
-               smooth: float | None = None, xp: Any = np) -> Array:
+               smooth: float | None = None, xp: Any = np, tau: Array | None = None) -> Array:
     """Limb volume change (mL per basis) at t (min) over cuff steps, with the veins and the
     filtration referred to different baselines.
 
@@ -170,7 +175,7 @@ def cuff_curve(t: Array, step_times: Sequence[float], cuff_pressures: Sequence[A
     (mmHg; Gamble et al. 1993, J Physiol 464:407). Both parts are ``volume_time_course``'s; units as
     there. This is the curve the ``volume_time_course`` observation fits.
     """
-    common = dict(tau_v=tau_v, r=r, transmission=transmission, xp=xp, parts=True, smooth=smooth)
+    common = dict(tau_v=tau_v, r=r, transmission=transmission, xp=xp, parts=True, smooth=smooth, tau=tau)
     ven = volume_time_course(t, step_times, cuff_pressures, Kf, C_tis, L, Cv, Pv0=Pv_rest, **common)
     fil = volume_time_course(t, step_times, cuff_pressures, Kf, C_tis, L, Cv, Pv0=Pvi, **common)
     return ven["venous"] + fil["filtration"]
