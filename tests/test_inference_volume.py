@@ -85,7 +85,7 @@ def test_rounded_corner_is_softplus_and_backends_agree():
     assert grad == pytest.approx(np.sum(1.0 - 1.0 / (1.0 + np.exp(-x / s))), rel=1e-9)
 
 
-def test_reparameterised_model_samples_cuff_scale_combinations_centred():
+def test_reparameterised_model_samples_cuff_scale_combinations_in_subject_frames():
     from uncertainty.inference.model_builder import build_model
 
     rng = np.random.default_rng(1)
@@ -94,8 +94,9 @@ def test_reparameterised_model_samples_cuff_scale_combinations_centred():
     built = build_model(stand_in(data))
     free = {v.name for v in built.model.free_RVs}
     name = "obs0__volume_time_course"
-    assert {f"{name}__Kf_T__log_subject", f"{name}__Pvi_per_T__c_subject",
-            f"{name}__Cv_T__log_subject"} <= free
+    assert f"{name}__subject_frame" in free   # one frame per subject over the block below
+    assert {f"{name}__Kf_T__log_subject", f"{name}__Pvi_per_T__c_subject", f"{name}__Cv_T__log_subject",
+            f"{name}__offset__c_subject"} <= {v.name for v in built.model.deterministics}
     assert "Kf__subject_z" not in free  # the builder's non-centred Kf scores are not created
     naive = build_model(stand_in(data, parameterisation="naive"))
     nfree = {v.name for v in naive.model.free_RVs}
@@ -131,6 +132,45 @@ def test_table_and_reading_by_reading_likelihoods_agree(monkeypatch):
         lp_each, g_each = logp_and_grad(0.0, d)
         assert lp_table == pytest.approx(lp_each, rel=1e-12)
         np.testing.assert_allclose(g_table, g_each, rtol=1e-10, atol=1e-10)
+
+
+def test_subject_frames_keep_the_declared_prior():
+    """The per-subject frame is fitted to the data, yet the model's prior is the declared one: prior
+    draws of each subject's Kf, Pvi, Cv and baseline offset against draws of the declared hierarchy
+    made here with numpy (two-sample Kolmogorov-Smirnov, scipy.stats)."""
+    import pymc as pm
+    from scipy import stats
+
+    from uncertainty.inference.model_builder import SPREAD_LOG_SD, build_model
+
+    rng = np.random.default_rng(7)
+    data = simulate(np.array([0.003, 0.005, 0.0035]), np.array([12.0, 22.0, 18.0]),
+                    np.array([0.04, 0.06, 0.045]), rng)
+    built = build_model(stand_in(data))
+    n_draws = 4000
+    with built.model:
+        prior = pm.sample_prior_predictive(draws=n_draws, random_seed=11).prior
+    name = "obs0__volume_time_course"
+    pick = {"Kf": np.log(prior[f"{name}__Kf_100mL__subject"].values[0]),
+            "Pvi": prior[f"{name}__Pvi__subject"].values[0],
+            "Cv": prior[f"{name}__Cv_T__log_subject"].values[0]
+            - np.log(prior[f"{name}__transmission"].values[0])[:, None],
+            "offset": prior[f"{name}__offset__c_subject"].values[0]}
+    # the declared hierarchy: typical value, a lognormal spread around the declared one, subjects
+    z = rng.standard_normal((5, n_draws))
+    spread = np.exp(SPREAD_LOG_SD * z[:3])
+
+    def cv_sd(cv: np.ndarray) -> np.ndarray:
+        return np.sqrt(np.log1p(cv * cv))
+
+    ref = {"Kf": np.log(0.0035) + np.log(1.35) * z[3] + cv_sd(0.38 * spread[0]) * z[4],  # KF_PRIOR, per 100 mL
+           "Pvi": 15.0 + 5.0 * z[3] + 4.0 * spread[1] * z[4],                              # vtc.SIDE_PRIORS
+           "Cv": np.log(0.04) + np.log(1.6) * z[3] + cv_sd(0.3 * spread[2]) * z[4],          # vtc.SIDE_PRIORS
+           "offset": 0.02 * z[4]}                                                          # vtc.SIDE_PRIORS
+    for q, draws in pick.items():
+        for s in range(3):
+            p = stats.ks_2samp(draws[:, s], ref[q]).pvalue
+            assert p > 1e-3, (q, s, p)
 
 
 CURVE = "obs0__volume_time_course"
