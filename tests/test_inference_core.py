@@ -130,3 +130,41 @@ def test_unknown_start_is_an_input_error():
         fit(problem({"Pc": normal("Pc", 20.0, 2.0)}, [{"kind": "lymph_flow", "value": 0.05, "sd": 0.01}]),
             start="centre")
     assert err.value.key == "start" and err.value.value == "centre"
+
+
+def test_lymph_subjects_scores_reflected_along_the_pinned_direction_with_the_same_density(monkeypatch):
+    """A lymph reading pins Kf x net pressure: the subject's scores are sampled reflected so that the
+    first axis is the direction of steepest change of log Jv, which for Jv = Kf (Pc - Pi - ...) is
+    proportional to (sd_Pc, -sd_Pi) (closed form); the reflection is orthogonal, so the log density at
+    corresponding points is the same as without it."""
+    import pymc as pm
+
+    from uncertainty.inference import model_builder as mb
+
+    priors = {"Pc": normal("Pc", 24, 2, between_subject={"sd": 3.0}),
+              "Pi": normal("Pi", -1, 1, between_subject={"sd": 1.5})}
+    obs = [{"kind": "lymph_flow", "value": 0.03, "cv": 0.2, "subject": s} for s in ("a", "b")]
+    prob = problem(priors, obs)
+    rot = mb._pinned_rotations(prob, ["Pc", "Pi"], ["a", "b"])
+    expected = np.array([3.0, -1.5]) / np.hypot(3.0, 1.5)   # d log Jv / dz = (sd_Pc, -sd_Pi) / net
+    for s in (0, 1):
+        np.testing.assert_allclose(rot[s][:, 0], expected, atol=1e-6)
+        np.testing.assert_allclose(rot[s] @ rot[s].T, np.eye(2), atol=1e-12)
+    built = build_model(prob)
+    assert "subject_scores" in {v.name for v in built.model.free_RVs}
+    monkeypatch.setattr(mb, "_pinned_rotations", lambda *a: {})
+    plain = build_model(problem(priors, obs))
+    assert {"Pc__subject_z", "Pi__subject_z"} <= {v.name for v in plain.model.free_RVs}
+    rng = np.random.default_rng(4)
+    u = rng.standard_normal((2, 2))
+    point = {k: v + rng.normal(0.0, 0.3, np.shape(v)) for k, v in built.model.initial_point().items()}
+    point["subject_scores"] = u
+    z = np.einsum("sij,sj->si", np.array([rot[0], rot[1]]), u)
+    other = {k: v for k, v in point.items() if k != "subject_scores"}
+    other |= {"Pc__subject_z": z[:, 0], "Pi__subject_z": z[:, 1]}
+    lp = built.model.compile_logp()(point)
+    lp_plain = plain.model.compile_logp()(other)
+    assert lp == pytest.approx(lp_plain, rel=1e-12)
+    with built.model:
+        draws = pm.sample_prior_predictive(draws=2, random_seed=1).prior
+    assert draws["Pc__subject_z"].shape[-1] == 2

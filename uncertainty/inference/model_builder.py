@@ -336,6 +336,7 @@ def build_model(problem: Problem) -> BuiltModel:
         # individuals (a kind's ``claims(obs, problem)`` names quantities whose subject layer it
         # builds itself, e.g. centred on a scale the data identify; it must ``ctx.override`` them)
         claimed: set[str] = set()
+        scored: dict[str, tuple[Any, Any, Any]] = {}   # quantity -> (prior, base, spread ratio)
         for obs in problem.observations:
             fn = getattr(kind_module(obs), "claims", None)
             if fn is not None and hierarchical:
@@ -367,8 +368,10 @@ def build_model(problem: Problem) -> BuiltModel:
                 ctx.layers[name] = {"base": base, "kind": kind, "declared": declared, "spread": spread}
                 ctx.per_subject[name] = base  # replaced by the claiming kind (ctx.override)
                 continue
-            z = pm.Normal(f"{name}__subject_z", 0.0, 1.0, dims="subject")
-            ctx.per_subject[name] = apply_layer(prior, base, z, pt, ratio)
+            scored[name] = (prior, base, ratio)
+        z_scores = _subject_scores(problem, list(scored), labels, hierarchical)
+        for name, (prior, base, ratio) in scored.items():
+            ctx.per_subject[name] = apply_layer(prior, base, z_scores[name], pt, ratio)
         # observation terms (kinds may re-parameterise per-subject quantities first)
         for obs in problem.observations:
             mod = kind_module(obs)
@@ -391,6 +394,77 @@ def build_model(problem: Problem) -> BuiltModel:
                       quantities=list(problem.priors), spreads=spreads,
                       notes=ctx.notes, extra_params=ctx.extra_params,
                       prior_bound_candidates=ctx.prior_bound_candidates, context=ctx)
+
+
+#: Relative step of the finite differences that find a reading's direction in score space.
+PIN_STEP = 1e-4
+
+
+def _pinned_rotations(problem: Problem, names: list[str], labels: list[str]) -> dict[int, np.ndarray]:
+    """Per subject with a reading of an output (a kind's ``pinned_output(obs, problem)`` hook, e.g.
+    lymph flow), a Householder reflection H (orthogonal, symmetric) whose first column is the
+    direction in which that reading's prediction (its log for a cv error) changes fastest with the
+    subject's between-subject scores of ``names``, found by finite differences at the priors'
+    medians. A single reading pins one combination of many scores (Kf x net pressure = lymph flow
+    pins a sum of pressures): a thin slab across the score axes that a diagonal mass matrix
+    resolves only with tiny steps; in the reflected scores it lies along one axis."""
+    from uncertainty.inference.observations import kind_module
+    from uncertainty.inference.observations.base import prior_centres
+
+    centre = prior_centres(problem)
+    out: dict[int, np.ndarray] = {}
+    for obs in problem.observations:
+        hook = getattr(kind_module(obs), "pinned_output", None)
+        pinned = hook(obs, problem) if hook is not None else None
+        if pinned is None or obs.subject not in labels:
+            continue
+        s = labels.index(obs.subject)
+        if s in out:
+            continue
+        output, log = pinned
+
+        def predict(z: np.ndarray, output: str = output, log: bool = log) -> float:
+            vals = {**problem.fixed, **centre}
+            for j, q in enumerate(names):
+                vals[q] = problem.priors[q].individual(centre[q], z[j])
+            v = float(np.asarray(problem.evaluate(vals, np)[output]))
+            return float(np.log(v)) if log else v
+
+        grad = np.zeros(len(names))
+        with np.errstate(all="ignore"):
+            for j in range(len(names)):
+                e = np.zeros(len(names))
+                e[j] = PIN_STEP
+                grad[j] = (predict(e) - predict(-e)) / (2 * PIN_STEP)
+        norm = float(np.linalg.norm(grad))
+        if not np.all(np.isfinite(grad)) or norm == 0.0:
+            continue
+        w = grad / norm
+        v = w - np.eye(len(names))[0]
+        vv = float(v @ v)
+        out[s] = np.eye(len(names)) if vv < 1e-24 else np.eye(len(names)) - 2.0 * np.outer(v, v) / vv
+    return out
+
+
+def _subject_scores(problem: Problem, names: list[str], labels: list[str], hierarchical: bool) -> dict[str, Any]:
+    """Standard-normal between-subject scores ``q__subject_z`` (dim subject) of the quantities ``names``.
+
+    Where a subject has a reading of an output and there are two or more scores, that subject's
+    scores are sampled reflected (``_pinned_rotations``): z_s = H_s u_s with u ~ N(0, I), which is
+    again N(0, I) because H_s is orthogonal, so the model is unchanged; the ``q__subject_z`` are then
+    deterministic functions of the free ``subject_scores``."""
+    import pymc as pm
+
+    rot = _pinned_rotations(problem, names, labels) if hierarchical and len(names) >= 2 else {}
+    if not rot:
+        return {q: pm.Normal(f"{q}__subject_z", 0.0, 1.0, dims="subject") for q in names}
+    H = np.tile(np.eye(len(names)), (len(labels), 1, 1))
+    for s, h in rot.items():
+        H[s] = h
+    pm.modelcontext(None).add_coord("score", names)
+    u = pm.Normal("subject_scores", 0.0, 1.0, dims=("subject", "score"))
+    z = (H * u[:, None, :]).sum(axis=-1)
+    return {q: pm.Deterministic(f"{q}__subject_z", z[:, j], dims="subject") for j, q in enumerate(names)}
 
 
 def _add_copula(problem: Problem, ctx: BuildContext, scores: dict[str, Any]) -> None:

@@ -87,16 +87,22 @@ def require_quantity(obs: Observation, problem: Problem, name: str, why: str) ->
                         "[parameters]", "kind", obs.kind)
 
 
+def prior_centres(problem: Problem) -> dict[str, float]:
+    """Each uncertain quantity's prior median (its mean where a prior has no median)."""
+    out = {}
+    for name, prior in problem.priors.items():
+        try:
+            out[name] = float(prior.median())
+        except Exception:  # noqa: BLE001 - priors without a median method
+            out[name] = float(prior.mean())
+    return out
+
+
 def output_names(problem: Problem) -> set[str]:
     """Names of the forward map's outputs (evaluated once with numpy at the prior medians)."""
     cached = getattr(problem, "_output_names", None)
     if cached is None:
-        vals: dict[str, Any] = dict(problem.fixed)
-        for name, prior in problem.priors.items():
-            try:
-                vals[name] = float(prior.median())
-            except Exception:  # noqa: BLE001 - priors without a median method
-                vals[name] = float(prior.mean())
+        vals: dict[str, Any] = {**problem.fixed, **prior_centres(problem)}
         try:
             outs = problem.evaluate(vals, np)
         except Exception:  # noqa: BLE001 - a failing evaluation is reported later, when sampling

@@ -32,6 +32,14 @@ def validate(obs: Observation, problem: Problem) -> None:
         raise obs.error("site is pre_nodal or post_nodal", "site", site)
 
 
+def pinned_output(obs: Observation, problem: Problem) -> tuple[str, bool]:
+    """The output a reading pins (JL where the form has one, else Jv) and whether its error is on the
+    log scale (cv): the model builder reflects the subject's between-subject scores along it."""
+    from uncertainty.inference.observations.base import output_names
+
+    return ("JL" if "JL" in output_names(problem) else "Jv"), obs.cv is not None
+
+
 def add(ctx: Any, obs: Observation) -> None:
     """reading ~ error(lymph flow of the observation's subject): the model's JL output where the form
     has one (steady forms; JL = Jv + J_epi in the absorbing mucosa), else Jv (lymph = Jv)."""

@@ -313,6 +313,25 @@ def _at_prior_centre(tensors: dict[str, Any]) -> dict[str, np.ndarray]:
     return {k: np.asarray(v, dtype=float) for k, v in zip(names, fn(model.initial_point()), strict=True)}
 
 
+def _frame_logp(u: Any, mean: Any, sd: Any, m: Any, chol: Any, inv: Any, log_det: Any) -> Any:
+    """Log density of frame coordinates u (last axis): that of theta = m + L u under the declared
+    independent normals N(mean, sd), plus log |det L| (the Jacobian of the map, a constant). The
+    same density as a multivariate normal with mean L^-1 (mean - m) and Cholesky factor
+    L^-1 diag(sd), in elementwise arithmetic only (no batched triangular solves)."""
+    import pytensor.tensor as pt
+
+    theta = m + (chol * pt.shape_padaxis(u, -2)).sum(axis=-1)
+    x = (theta - mean) / sd
+    return (-0.5 * x * x - pt.log(sd)).sum(axis=-1) - 0.5 * np.log(2.0 * np.pi) * u.shape[-1] + log_det
+
+
+def _frame_random(mean: np.ndarray, sd: np.ndarray, m: np.ndarray, chol: np.ndarray, inv: np.ndarray,
+                  log_det: np.ndarray, rng: np.random.Generator, size: Any = None) -> np.ndarray:
+    """Prior draws of the frame coordinates: theta from the declared normals, u = L^-1 (theta - m)."""
+    theta = rng.normal(mean, sd, size=size if size is None else (*size, np.shape(mean)[-1]))
+    return np.einsum("...ij,...j->...i", inv, theta - m)
+
+
 def _subject_block(ctx: Any, name: str, entries: list[_Entry], frame: tuple[np.ndarray, np.ndarray, np.ndarray],
                    globals_now: list[Any], globals_centre: np.ndarray) -> dict[str, Any]:
     """Per-subject values of the block's quantities (vectors over subjects, sampling scale).
@@ -332,6 +351,7 @@ def _subject_block(ctx: Any, name: str, entries: list[_Entry], frame: tuple[np.n
 
     m0, chol, shift = frame
     inv = np.linalg.inv(chol)
+    log_det = np.log(np.abs(np.diagonal(chol, axis1=-2, axis2=-1))).sum(axis=-1)
     model = pm.modelcontext(None)
     axis = f"{name}__axis"
     model.add_coord(axis, [e.label for e in entries])
@@ -340,8 +360,8 @@ def _subject_block(ctx: Any, name: str, entries: list[_Entry], frame: tuple[np.n
     m = m0 + (shift * delta).sum(axis=-1)
     mean = pt.stack([e.mean * pt.ones(n) for e in entries], axis=1)
     sd = pt.stack([e.sd * pt.ones(n) for e in entries], axis=1)
-    u = pm.MvNormal(f"{name}__subject_frame", mu=(inv * (mean - m)[:, None, :]).sum(axis=-1),
-                    chol=inv * sd[:, None, :], dims=("subject", axis))
+    u = pm.CustomDist(f"{name}__subject_frame", mean, sd, m, chol, inv, log_det, logp=_frame_logp,
+                      random=_frame_random, signature="(k),(k),(k),(k,k),(k,k),()->(k)", dims=("subject", axis))
     theta = m + (chol * u[:, None, :]).sum(axis=-1)
     values = {}
     for j, e in enumerate(entries):
