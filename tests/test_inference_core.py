@@ -81,8 +81,10 @@ def test_hierarchical_model_is_non_centred_with_subject_dims():
     built = build_model(problem({"Kf": kf, "Pc": normal("Pc", 24, 2)}, obs))
     assert built.hierarchical and built.subjects == ["a", "b", "c"]
     free = {v.name for v in built.model.free_RVs}
-    # only standard-normal scores are free: the model is non-centred
-    assert free == {"Kf__z", "Pc__z", "Kf__spread_z", "Kf__subject_z"}
+    # only standard-normal scores are free: the model is non-centred; the lymph readings pin the
+    # typical net pressure, so the typical scores of Kf and Pc are sampled reflected along it
+    assert free == {"typical_scores", "Kf__spread_z", "Kf__subject_z"}
+    assert {"Kf__z", "Pc__z"} <= {v.name for v in built.model.deterministics}
     assert built.model.named_vars_to_dims["Kf__subject"] == ("subject",)
 
 
@@ -168,3 +170,30 @@ def test_lymph_subjects_scores_reflected_along_the_pinned_direction_with_the_sam
     with built.model:
         draws = pm.sample_prior_predictive(draws=2, random_seed=1).prior
     assert draws["Pc__subject_z"].shape[-1] == 2
+
+
+def test_typical_scores_reflected_along_the_pinned_typical_direction(monkeypatch):
+    """Lymph readings of several subjects pin the typical Kf x net pressure too: the typical scores are
+    reflected so that the first axis is d log Jv / dz, which is (log gsd_Kf, sd_Pc / net) in closed
+    form (Jv = Kf (Pc - Pi - sigma (pi_c - pi_i)), net 9.7 mmHg at the stand-in values); the density
+    at corresponding points is unchanged."""
+    from uncertainty.inference import model_builder as mb
+
+    kf = lognormal("Kf", 0.004, 1.3, between_subject={"cv": 0.3})
+    priors = {"Kf": kf, "Pc": normal("Pc", 24, 2)}
+    obs = [{"kind": "lymph_flow", "value": 0.04, "cv": 0.1, "subject": s} for s in ("a", "b", "c")]
+    built = build_model(problem(priors, obs))
+    net = 24.0 + 1.0 - 0.9 * (25.0 - 8.0)            # stand-in FIXED values (inference_helpers)
+    w = np.array([np.log(1.3), 2.0 / net])
+    w /= np.linalg.norm(w)
+    H = mb._householder(w)
+    point = built.model.initial_point()
+    point["typical_scores"] = np.array([0.7, -1.2])
+    z = H @ point["typical_scores"]
+    outs = built.model.replace_rvs_by_values([built.model["Kf__z"], built.model["Pc__z"]])
+    fn = built.model.compile_fn(outs, inputs=built.model.value_vars, on_unused_input="ignore")
+    np.testing.assert_allclose(np.ravel(fn(point)), z, atol=1e-6)
+    monkeypatch.setattr(mb, "_typical_scores", lambda *a: {})
+    plain = build_model(problem(priors, obs))
+    other = {k: v for k, v in point.items() if k != "typical_scores"} | {"Kf__z": z[0], "Pc__z": z[1]}
+    assert built.model.compile_logp()(point) == pytest.approx(plain.model.compile_logp()(other), rel=1e-8)

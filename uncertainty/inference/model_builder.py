@@ -284,6 +284,8 @@ def build_model(problem: Problem) -> BuiltModel:
         # typical-subject values
         scores: dict[str, Any] = {}
         collapsed: dict[str, Any] = {}
+        plain = [q for q, p in problem.priors.items() if getattr(p, "dist", None) in _NORMAL_SCORE_DISTS]
+        typical_z = _typical_scores(problem, plain) if hierarchical else {}
         for name, prior in problem.priors.items():
             dist = getattr(prior, "dist", None)
             params = getattr(prior, "params", {}) or {}
@@ -304,11 +306,11 @@ def build_model(problem: Problem) -> BuiltModel:
                     ctx.typical[name] = pm.Deterministic(name, loc + dev_typ)
                 scores[name] = dev_typ / s_typ
             elif dist == "normal":
-                z = pm.Normal(f"{name}__z", 0.0, 1.0)
+                z = typical_z[name] if name in typical_z else pm.Normal(f"{name}__z", 0.0, 1.0)
                 ctx.typical[name] = pm.Deterministic(name, params["mean"] + params["sd"] * z)
                 scores[name] = z
             elif dist == "lognormal":
-                z = pm.Normal(f"{name}__z", 0.0, 1.0)
+                z = typical_z[name] if name in typical_z else pm.Normal(f"{name}__z", 0.0, 1.0)
                 ctx.typical[name] = pm.Deterministic(
                     name, params["median"] * pt.exp(np.log(params["gsd"]) * z))
                 scores[name] = z
@@ -400,6 +402,53 @@ def build_model(problem: Problem) -> BuiltModel:
 PIN_STEP = 1e-4
 
 
+def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
+    """(observation, output, log scale) of every reading with a kind's ``pinned_output`` hook."""
+    from uncertainty.inference.observations import kind_module
+
+    out = []
+    for obs in problem.observations:
+        hook = getattr(kind_module(obs), "pinned_output", None)
+        pinned = hook(obs, problem) if hook is not None else None
+        if pinned is not None:
+            out.append((obs, *pinned))
+    return out
+
+
+def _direction(problem: Problem, names: list[str], value_of: Any, output: str, log: bool) -> np.ndarray | None:
+    """Unit direction of steepest change of an output (its log when ``log``) with the scores of
+    ``names`` at 0 (central finite differences; ``value_of(q, z)`` is q's value at score z, the other
+    quantities at their prior centres). None where the gradient is zero or not finite."""
+    from uncertainty.inference.observations.base import prior_centres
+
+    centre = prior_centres(problem)
+
+    def predict(z: np.ndarray) -> float:
+        vals = {**problem.fixed, **centre}
+        for j, q in enumerate(names):
+            vals[q] = value_of(q, z[j])
+        v = float(np.asarray(problem.evaluate(vals, np)[output]))
+        return float(np.log(v)) if log else v
+
+    grad = np.zeros(len(names))
+    with np.errstate(all="ignore"):
+        for j in range(len(names)):
+            e = np.zeros(len(names))
+            e[j] = PIN_STEP
+            grad[j] = (predict(e) - predict(-e)) / (2 * PIN_STEP)
+    norm = float(np.linalg.norm(grad))
+    if not np.all(np.isfinite(grad)) or norm == 0.0:
+        return None
+    return grad / norm
+
+
+def _householder(w: np.ndarray) -> np.ndarray:
+    """Orthogonal, symmetric H with first column the unit vector w (identity when w = e1)."""
+    v = w - np.eye(w.size)[0]
+    vv = float(v @ v)
+    return np.eye(w.size) if vv < 1e-24 else np.eye(w.size) - 2.0 * np.outer(v, v) / vv
+
+
 def _pinned_rotations(problem: Problem, names: list[str], labels: list[str]) -> dict[int, np.ndarray]:
     """Per subject with a reading of an output (a kind's ``pinned_output(obs, problem)`` hook, e.g.
     lymph flow), a Householder reflection H (orthogonal, symmetric) whose first column is the
@@ -408,42 +457,47 @@ def _pinned_rotations(problem: Problem, names: list[str], labels: list[str]) -> 
     medians. A single reading pins one combination of many scores (Kf x net pressure = lymph flow
     pins a sum of pressures): a thin slab across the score axes that a diagonal mass matrix
     resolves only with tiny steps; in the reflected scores it lies along one axis."""
-    from uncertainty.inference.observations import kind_module
     from uncertainty.inference.observations.base import prior_centres
 
     centre = prior_centres(problem)
     out: dict[int, np.ndarray] = {}
-    for obs in problem.observations:
-        hook = getattr(kind_module(obs), "pinned_output", None)
-        pinned = hook(obs, problem) if hook is not None else None
-        if pinned is None or obs.subject not in labels:
+    for obs, output, log in _pinned_readings(problem):
+        if obs.subject not in labels or labels.index(obs.subject) in out:
             continue
-        s = labels.index(obs.subject)
-        if s in out:
-            continue
-        output, log = pinned
-
-        def predict(z: np.ndarray, output: str = output, log: bool = log) -> float:
-            vals = {**problem.fixed, **centre}
-            for j, q in enumerate(names):
-                vals[q] = problem.priors[q].individual(centre[q], z[j])
-            v = float(np.asarray(problem.evaluate(vals, np)[output]))
-            return float(np.log(v)) if log else v
-
-        grad = np.zeros(len(names))
-        with np.errstate(all="ignore"):
-            for j in range(len(names)):
-                e = np.zeros(len(names))
-                e[j] = PIN_STEP
-                grad[j] = (predict(e) - predict(-e)) / (2 * PIN_STEP)
-        norm = float(np.linalg.norm(grad))
-        if not np.all(np.isfinite(grad)) or norm == 0.0:
-            continue
-        w = grad / norm
-        v = w - np.eye(len(names))[0]
-        vv = float(v @ v)
-        out[s] = np.eye(len(names)) if vv < 1e-24 else np.eye(len(names)) - 2.0 * np.outer(v, v) / vv
+        w = _direction(problem, names, lambda q, z: problem.priors[q].individual(centre[q], z), output, log)
+        if w is not None:
+            out[labels.index(obs.subject)] = _householder(w)
     return out
+
+
+def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
+    """Standard-normal scores ``q__z`` of the typical values of ``names`` (normal or lognormal priors),
+    reflected like a subject's (``_pinned_rotations``) along the direction the study's readings of
+    outputs pin together (the sum of their unit directions): with subjects, a few lymph readings
+    pin the typical net pressure as well. Empty (the builder makes its own ``q__z``) when nothing
+    is pinned or there are fewer than two scores."""
+    import pymc as pm
+
+    pinned = _pinned_readings(problem)
+    if len(names) < 2 or not pinned:
+        return {}
+
+    def typical(q: str, z: float) -> float:
+        p = problem.priors[q].params
+        return p["mean"] + p["sd"] * z if problem.priors[q].dist == "normal" else p["median"] * p["gsd"] ** z
+
+    total = np.zeros(len(names))
+    for _obs, output, log in pinned:
+        w = _direction(problem, names, typical, output, log)
+        if w is not None:
+            total += w
+    if not np.linalg.norm(total) > 0:
+        return {}
+    H = _householder(total / np.linalg.norm(total))
+    pm.modelcontext(None).add_coord("typical_score", names)
+    u = pm.Normal("typical_scores", 0.0, 1.0, dims="typical_score")
+    z = (H * u[None, :]).sum(axis=-1)
+    return {q: pm.Deterministic(f"{q}__z", z[j]) for j, q in enumerate(names)}
 
 
 def _subject_scores(problem: Problem, names: list[str], labels: list[str], hierarchical: bool) -> dict[str, Any]:

@@ -251,15 +251,16 @@ def _tau_of_bend(g: float, t_bend: float) -> float:
 
 def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.ndarray, sidx: np.ndarray,
            times: list[float], cuffs: list[float], noise: float, t_bend: float
-           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Per-subject affine frame of the curve block: theta_s = m_s + D_s (g - g0) + L_s u_s.
 
-    m_s is the subject's penalised least-squares fit of its own curve with the global quantities g
-    (``FRAME_GLOBALS``) at their prior centres g0, L_s the Cholesky factor of its Laplace covariance,
-    and D_s = dm_s/dg (Gauss-Newton, finite differences), so that the frame follows tau, tau_v and T
-    as they move. Any frame gives an exact model; a good one makes the posterior of the frame
-    coordinates u close to independent standard normals. A subject whose fit fails gets the prior's
-    centre and scales (no shift). Returns (m (n, k), L (n, k, k), D (n, k, len(g)))."""
+    First every subject's block and the global quantities (tau, tau_v, T) are fitted jointly by
+    penalised least squares (each prior as a residual), which gives g0; then at g0 m_s is the
+    subject's own fit, L_s the Cholesky factor of its Laplace covariance, and D_s = dm_s/dg
+    (Gauss-Newton, finite differences) with g = ``FRAME_GLOBALS``, so that the frame follows tau,
+    tau_v and T as they move. Any frame gives an exact model; a good one makes the posterior of the
+    frame coordinates u close to independent standard normals. A subject whose fit fails gets the
+    prior's centre and scales (no shift). Returns (m (n, k), L (n, k, k), D (n, k, len(g)), g0)."""
     from scipy.optimize import least_squares
 
     from uncertainty.physiology import interstitium
@@ -267,25 +268,40 @@ def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.n
     mean = np.array([np.broadcast_to(centre[f"mean:{e.label}"], (len(centre["r"]),)) for e in entries]).T
     sd = np.array([np.broadcast_to(centre[f"sd:{e.label}"], (len(centre["r"]),)) for e in entries]).T
     n, k = mean.shape
-    g0 = np.array(_globals(float(centre["tau"]), float(centre["tau_v"]), float(centre["trans"]), np, t_bend))
-    m, chol, shift = mean.copy(), np.zeros((n, k, k)), np.zeros((n, k, g0.size))
-    for s in range(n):
-        chol[s] = np.diag(sd[s])
+
+    def resid(theta: np.ndarray, g: np.ndarray, s: int) -> np.ndarray:
         rows = sidx == s
         r_s = float(centre["r"][s])
+        tau, tau_v, trans = _tau_of_bend(g[0], t_bend), np.exp(g[1]), g[2]
+        v = _physical(entries, theta, r_s, trans, g[0], np)
+        pred = interstitium.cuff_curve(t[rows], times, cuffs, v.get("Kf", centre["kf"][s]), None, None,
+                                       v["Cv"], Pv_rest=v.get("Pv", centre["pv0"][s]), Pvi=v["Pvi"],
+                                       tau_v=tau_v, r=r_s, transmission=trans, smooth=SMOOTH_MMHG,
+                                       tau=tau) + v["offset"]
+        return np.concatenate([(y[rows] - pred) / noise, (theta - mean[s]) / sd[s]])
 
-        def resid(theta: np.ndarray, g: np.ndarray = g0, s: int = s, rows: np.ndarray = rows,
-                  r_s: float = r_s) -> np.ndarray:
-            tau, tau_v, trans = _tau_of_bend(g[0], t_bend), np.exp(g[1]), g[2]
-            v = _physical(entries, theta, r_s, trans, g[0], np)
-            pred = interstitium.cuff_curve(t[rows], times, cuffs, v.get("Kf", centre["kf"][s]), None, None,
-                                           v["Cv"], Pv_rest=v.get("Pv", centre["pv0"][s]), Pvi=v["Pvi"],
-                                           tau_v=tau_v, r=r_s, transmission=trans, smooth=SMOOTH_MMHG,
-                                           tau=tau) + v["offset"]
-            return np.concatenate([(y[rows] - pred) / noise, (theta - mean[s]) / sd[s]])
+    # joint fit over (theta_1 .. theta_n, log tau, log tau_v, T), each side prior a residual
+    side = [_side_prior(q) for q in ("tau", "tau_v", "transmission")]
+    q0 = np.array([np.log(float(centre["tau"])), np.log(float(centre["tau_v"])), float(centre["trans"])])
+    q_sd = np.array([np.log(side[0].params["gsd"]), np.log(side[1].params["gsd"]), side[2].params["sd"]])
 
+    def to_g(q: np.ndarray) -> np.ndarray:
+        return np.array([_bend(np.exp(q[0]), t_bend, np), q[1], q[2]])
+
+    def joint(x: np.ndarray) -> np.ndarray:
+        g = to_g(x[n * k:])
+        return np.concatenate([resid(x[s * k:(s + 1) * k], g, s) for s in range(n)] + [(x[n * k:] - q0) / q_sd])
+
+    x = np.concatenate([mean.ravel(), q0])
+    try:
+        x = least_squares(joint, x, method="trf", x_scale="jac", max_nfev=200).x
+    except (np.linalg.LinAlgError, ValueError):
+        pass
+    g0 = to_g(x[n * k:])
+    m, chol, shift = mean.copy(), np.zeros((n, k, k)), np.zeros((n, k, g0.size))
+    for s in range(n):
         try:
-            fit = least_squares(resid, mean[s], method="lm")
+            fit = least_squares(lambda th, s=s: resid(th, g0, s), x[s * k:(s + 1) * k], method="lm")
             jt = fit.jac
             cov = np.linalg.inv(jt.T @ jt)
             chol[s] = np.linalg.cholesky(0.5 * (cov + cov.T))
@@ -293,11 +309,11 @@ def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.n
             for j in range(g0.size):
                 dg = np.zeros_like(g0)
                 dg[j] = FRAME_STEP
-                jg = (resid(fit.x, g0 + dg) - resid(fit.x, g0 - dg)) / (2 * FRAME_STEP)
+                jg = (resid(fit.x, g0 + dg, s) - resid(fit.x, g0 - dg, s)) / (2 * FRAME_STEP)
                 shift[s, :, j] = -cov @ (jt.T @ jg)
         except (np.linalg.LinAlgError, ValueError):
             chol[s], m[s], shift[s] = np.diag(sd[s]), mean[s], 0.0
-    return m, chol, shift
+    return m, chol, shift, g0
 
 
 def _at_prior_centre(tensors: dict[str, Any]) -> dict[str, np.ndarray]:
@@ -503,8 +519,7 @@ def add(ctx: Any, obs: Observation) -> None:
         centre = _at_prior_centre(given | {f"mean:{e.label}": e.mean for e in entries}
                                   | {f"sd:{e.label}": e.sd for e in entries})
         frame = _frame(entries, centre, t, y, sidx, times, cuffs, noise, t_bend)
-        g0 = np.array(_globals(float(centre["tau"]), float(centre["tau_v"]), float(centre["trans"]), np, t_bend))
-        values = _subject_block(ctx, name, entries, frame, _globals(tau, tau_v, trans, pt, t_bend), g0)
+        values = _subject_block(ctx, name, entries, frame[:3], _globals(tau, tau_v, trans, pt, t_bend), frame[3])
         phys = _physical(entries, [values[e.label] for e in entries], r, trans, bend, pt)
         if layer is not None:
             ctx.override("Kf", phys["Kf"] / density)
