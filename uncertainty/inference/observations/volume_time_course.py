@@ -231,8 +231,10 @@ def _bend(tau: Any, t_bend: float, xp: Any) -> Any:
     return tau * (-xp.expm1(-t_bend / tau)) / t_bend
 
 
-#: Global quantities the frame follows (``_frame``): log tau, log tau_v and the transmission T, with
-#: the finite-difference step used for the frame's derivatives (our numerical choice).
+#: Global quantities the frame follows (``_frame``): the bend g(tau) (bounded, so a frame shift
+#: along it saturates where tau runs far out, as it may with few subjects; log tau did not and left
+#: divergences in the 4-subject recovery test), log tau_v and the transmission T; and the
+#: finite-difference step used for the frame's derivatives (our numerical choice).
 FRAME_GLOBALS = ("bend", "log_tau_v", "trans")
 FRAME_STEP = 1e-4
 
