@@ -173,6 +173,38 @@ def test_subject_frames_keep_the_declared_prior():
             assert p > 1e-3, (q, s, p)
 
 
+def test_frame_falls_back_to_the_prior_scales_when_a_fit_fails(monkeypatch):
+    """Where the least-squares fit fails, each subject's frame is the prior's own centre and scales
+    with no shift (the model is exact either way), and the model still builds and evaluates."""
+    import scipy.optimize
+
+    from uncertainty.inference.model_builder import build_model
+
+    def failing(*args, **kwargs):
+        raise ValueError("residuals are not finite")   # what least_squares raises on a bad curve
+
+    monkeypatch.setattr(scipy.optimize, "least_squares", failing)
+    seen = {}
+    frame = vtc._frame
+
+    def spy(entries, centre, *args):
+        seen["centre"], seen["out"] = centre, frame(entries, centre, *args)
+        seen["labels"] = [e.label for e in entries]
+        return seen["out"]
+
+    monkeypatch.setattr(vtc, "_frame", spy)
+    data = simulate(np.array([0.003, 0.004]), np.array([12.0, 18.0]), np.array([0.04, 0.05]),
+                    np.random.default_rng(2))
+    model = build_model(stand_in(data)).model
+    m, chol, shift, _ = seen["out"]
+    for j, label in enumerate(seen["labels"]):
+        np.testing.assert_allclose(m[:, j], np.broadcast_to(seen["centre"][f"mean:{label}"], 2))
+        np.testing.assert_allclose(chol[:, j, j], np.broadcast_to(seen["centre"][f"sd:{label}"], 2))
+    assert np.count_nonzero(chol - np.diagonal(chol, axis1=1, axis2=2)[:, :, None] * np.eye(m.shape[1])) == 0
+    assert not shift.any()
+    assert np.isfinite(model.compile_logp()(model.initial_point()))
+
+
 CURVE = "obs0__volume_time_course"
 
 

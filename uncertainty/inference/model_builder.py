@@ -398,7 +398,8 @@ def build_model(problem: Problem) -> BuiltModel:
                       prior_bound_candidates=ctx.prior_bound_candidates, context=ctx)
 
 
-#: Relative step of the finite differences that find a reading's direction in score space.
+#: Step (in standard-normal score units) of the finite differences that find a reading's direction in
+#: score space: our numerical choice.
 PIN_STEP = 1e-4
 
 

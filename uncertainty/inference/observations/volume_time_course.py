@@ -231,24 +231,17 @@ def _bend(tau: Any, t_bend: float, xp: Any) -> Any:
     return tau * (-xp.expm1(-t_bend / tau)) / t_bend
 
 
-#: Global quantities the frame follows (``_frame``): the bend g(tau) (bounded, so a frame shift
-#: along it saturates where tau runs far out, as it may with few subjects; log tau did not and left
-#: divergences in the 4-subject recovery test), log tau_v and the transmission T; and the
-#: finite-difference step used for the frame's derivatives (our numerical choice).
-FRAME_GLOBALS = ("bend", "log_tau_v", "trans")
+#: Finite-difference step (in the frame's global coordinates) for the frame's derivatives, and the
+#: cap on function evaluations of the joint fit: our numerical choices.
 FRAME_STEP = 1e-4
+FRAME_MAX_EVALUATIONS = 200
 
 
 def _globals(tau: Any, tau_v: Any, trans: Any, xp: Any, t_bend: float) -> list[Any]:
-    """The frame's global coordinates (``FRAME_GLOBALS``)."""
+    """The global quantities the frame follows: the bend g(tau) (bounded, so a frame shift along it
+    saturates where tau runs far out, as it may with few subjects; a shift along log tau left
+    divergences in the 4-subject recovery test), log tau_v and the transmission T."""
     return [_bend(tau, t_bend, xp), xp.log(tau_v), trans]
-
-
-def _tau_of_bend(g: float, t_bend: float) -> float:
-    """tau (min) whose bend over t_bend is g (0 < g < 1; numpy, Brent root in log tau)."""
-    from scipy.optimize import brentq
-
-    return float(np.exp(brentq(lambda lt: _bend(np.exp(lt), t_bend, np) - g, -20.0, 40.0)))
 
 
 def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.ndarray, sidx: np.ndarray,
@@ -259,10 +252,11 @@ def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.n
     First every subject's block and the global quantities (tau, tau_v, T) are fitted jointly by
     penalised least squares (each prior as a residual), which gives g0; then at g0 m_s is the
     subject's own fit, L_s the Cholesky factor of its Laplace covariance, and D_s = dm_s/dg
-    (Gauss-Newton, finite differences) with g = ``FRAME_GLOBALS``, so that the frame follows tau,
+    (Gauss-Newton, finite differences) with g the ``_globals``, so that the frame follows tau,
     tau_v and T as they move. Any frame gives an exact model; a good one makes the posterior of the
     frame coordinates u close to independent standard normals. A subject whose fit fails gets the
-    prior's centre and scales (no shift). Returns (m (n, k), L (n, k, k), D (n, k, len(g)), g0)."""
+    prior's centre and scales (no shift). Returns (m (n, k), L (n, k, k), D (n, k, 3), g0); g as in
+    ``_globals``."""
     from scipy.optimize import least_squares
 
     from uncertainty.physiology import interstitium
@@ -271,11 +265,12 @@ def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.n
     sd = np.array([np.broadcast_to(centre[f"sd:{e.label}"], (len(centre["r"]),)) for e in entries]).T
     n, k = mean.shape
 
-    def resid(theta: np.ndarray, g: np.ndarray, s: int) -> np.ndarray:
+    def resid(theta: np.ndarray, q: np.ndarray, s: int) -> np.ndarray:
+        """Residuals of subject s at block values theta and q = (log tau, log tau_v, T)."""
         rows = sidx == s
         r_s = float(centre["r"][s])
-        tau, tau_v, trans = _tau_of_bend(g[0], t_bend), np.exp(g[1]), g[2]
-        v = _physical(entries, theta, r_s, trans, g[0], np)
+        tau, tau_v, trans = np.exp(q[0]), np.exp(q[1]), q[2]
+        v = _physical(entries, theta, r_s, trans, _bend(tau, t_bend, np), np)
         pred = interstitium.cuff_curve(t[rows], times, cuffs, v.get("Kf", centre["kf"][s]), None, None,
                                        v["Cv"], Pv_rest=v.get("Pv", centre["pv0"][s]), Pvi=v["Pvi"],
                                        tau_v=tau_v, r=r_s, transmission=trans, smooth=SMOOTH_MMHG,
@@ -287,32 +282,34 @@ def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.n
     q0 = np.array([np.log(float(centre["tau"])), np.log(float(centre["tau_v"])), float(centre["trans"])])
     q_sd = np.array([np.log(side[0].params["gsd"]), np.log(side[1].params["gsd"]), side[2].params["sd"]])
 
-    def to_g(q: np.ndarray) -> np.ndarray:
-        return np.array([_bend(np.exp(q[0]), t_bend, np), q[1], q[2]])
-
     def joint(x: np.ndarray) -> np.ndarray:
-        g = to_g(x[n * k:])
-        return np.concatenate([resid(x[s * k:(s + 1) * k], g, s) for s in range(n)] + [(x[n * k:] - q0) / q_sd])
+        q = x[n * k:]
+        return np.concatenate([resid(x[s * k:(s + 1) * k], q, s) for s in range(n)] + [(q - q0) / q_sd])
 
     x = np.concatenate([mean.ravel(), q0])
     try:
-        x = least_squares(joint, x, method="trf", x_scale="jac", max_nfev=200).x
+        x = least_squares(joint, x, method="trf", x_scale="jac", max_nfev=FRAME_MAX_EVALUATIONS).x
     except (np.linalg.LinAlgError, ValueError):
         pass
-    g0 = to_g(x[n * k:])
+    q_hat = x[n * k:]
+    g0 = np.array(_globals(np.exp(q_hat[0]), np.exp(q_hat[1]), q_hat[2], np, t_bend))
+    # dq/dg is diagonal: d log tau / d g(tau) for the bend, 1 for log tau_v and T
+    h = FRAME_STEP
+    dq_dg = np.array([2 * h / (_bend(np.exp(q_hat[0] + h), t_bend, np) - _bend(np.exp(q_hat[0] - h), t_bend, np)),
+                      1.0, 1.0])
     m, chol, shift = mean.copy(), np.zeros((n, k, k)), np.zeros((n, k, g0.size))
     for s in range(n):
         try:
-            fit = least_squares(lambda th, s=s: resid(th, g0, s), x[s * k:(s + 1) * k], method="lm")
+            fit = least_squares(lambda th, s=s: resid(th, q_hat, s), x[s * k:(s + 1) * k], method="lm")
             jt = fit.jac
             cov = np.linalg.inv(jt.T @ jt)
             chol[s] = np.linalg.cholesky(0.5 * (cov + cov.T))
             m[s] = fit.x
-            for j in range(g0.size):
-                dg = np.zeros_like(g0)
-                dg[j] = FRAME_STEP
-                jg = (resid(fit.x, g0 + dg, s) - resid(fit.x, g0 - dg, s)) / (2 * FRAME_STEP)
-                shift[s, :, j] = -cov @ (jt.T @ jg)
+            for j in range(q_hat.size):
+                dq = np.zeros_like(q_hat)
+                dq[j] = h
+                jq = (resid(fit.x, q_hat + dq, s) - resid(fit.x, q_hat - dq, s)) / (2 * h)
+                shift[s, :, j] = -cov @ (jt.T @ jq) * dq_dg[j]
         except (np.linalg.LinAlgError, ValueError):
             chol[s], m[s], shift[s] = np.diag(sd[s]), mean[s], 0.0
     return m, chol, shift, g0
@@ -399,6 +396,7 @@ def _thin(obs: Observation) -> int:
 #: Evaluate the curves on a subjects x distinct-times table (then pick the readings) when the table
 #: has at most this many cells per reading: shared time constants then cost one exponential per
 #: distinct time and step instead of one per reading (20x fewer on a shared time grid of 20 subjects).
+#: Our numerical choice: a table at most twice the readings is still far cheaper than per reading.
 GRID_CELLS_PER_READING = 2.0
 
 
