@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from inference_helpers import lognormal, normal, problem
+from inference_helpers import FIXED, lognormal, normal, problem
 
 from uncertainty.errors import InputError
 from uncertainty.inference.diagnostics import Gate, diagnose
@@ -81,9 +81,10 @@ def test_hierarchical_model_is_non_centred_with_subject_dims():
     built = build_model(problem({"Kf": kf, "Pc": normal("Pc", 24, 2)}, obs))
     assert built.hierarchical and built.subjects == ["a", "b", "c"]
     free = {v.name for v in built.model.free_RVs}
-    # only standard-normal scores are free: the model is non-centred; the lymph readings pin the
-    # typical net pressure, so the typical scores of Kf and Pc are sampled reflected along it
-    assert free == {"typical_scores", "Kf__spread_z", "Kf__subject_z"}
+    # the model is non-centred except along what a reading pins: each lymph subject's Jv is sampled
+    # centred (pinned_prediction); the readings pin the typical net pressure too, so the typical scores
+    # of Kf and Pc are sampled reflected along it
+    assert free == {"typical_scores", "Kf__spread_z", "pinned_prediction"}
     assert {"Kf__z", "Pc__z"} <= {v.name for v in built.model.deterministics}
     assert built.model.named_vars_to_dims["Kf__subject"] == ("subject",)
 
@@ -134,11 +135,12 @@ def test_unknown_start_is_an_input_error():
     assert err.value.key == "start" and err.value.value == "centre"
 
 
-def test_lymph_subjects_scores_reflected_along_the_pinned_direction_with_the_same_density(monkeypatch):
-    """A lymph reading pins Kf x net pressure: the subject's scores are sampled reflected so that the
-    first axis is the direction of steepest change of log Jv, which for Jv = Kf (Pc - Pi - ...) is
-    proportional to (sd_Pc, -sd_Pi) (closed form); the reflection is orthogonal, so the log density at
-    corresponding points is the same as without it."""
+def test_lymph_subjects_sampled_centred_on_their_reading_with_the_same_density(monkeypatch):
+    """A lymph reading pins Kf x net pressure: a lymph subject's scores are sampled as its predicted Jv
+    (free, centred) and the scores across it. For Jv = Kf (Pc - Pi - ...) with Kf fixed, Jv is linear in
+    the scores, so the free prediction equals the subject's Jv exactly, and the change of variables has
+    Jacobian 1 / |dJv/dz| = 1 / (Kf hypot(sd_Pc rho_Pc, sd_Pi rho_Pi)) (closed form, rho the spread
+    ratios); the log density at corresponding points is the plain model's plus the log of it."""
     import pymc as pm
 
     from uncertainty.inference import model_builder as mb
@@ -146,30 +148,32 @@ def test_lymph_subjects_scores_reflected_along_the_pinned_direction_with_the_sam
     priors = {"Pc": normal("Pc", 24, 2, between_subject={"sd": 3.0}),
               "Pi": normal("Pi", -1, 1, between_subject={"sd": 1.5})}
     obs = [{"kind": "lymph_flow", "value": 0.03, "cv": 0.2, "subject": s} for s in ("a", "b")]
-    prob = problem(priors, obs)
-    rot = mb._pinned_rotations(prob, ["Pc", "Pi"], ["a", "b"])
-    expected = np.array([3.0, -1.5]) / np.hypot(3.0, 1.5)   # d log Jv / dz = (sd_Pc, -sd_Pi) / net
-    for s in (0, 1):
-        np.testing.assert_allclose(rot[s][:, 0], expected, atol=1e-6)
-        np.testing.assert_allclose(rot[s] @ rot[s].T, np.eye(2), atol=1e-12)
-    built = build_model(prob)
-    assert "subject_scores" in {v.name for v in built.model.free_RVs}
-    monkeypatch.setattr(mb, "_pinned_rotations", lambda *a: {})
+    obs.append({"kind": "measurement", "parameter": "Pc", "value": 25.0, "sd": 2.0, "subject": "c"})
+    built = build_model(problem(priors, obs))
+    assert {"pinned_prediction", "pinned_scores", "subject_scores"} <= {v.name for v in built.model.free_RVs}
+    monkeypatch.setattr(mb, "_pinned_subjects", lambda *a: {})
     plain = build_model(problem(priors, obs))
     assert {"Pc__subject_z", "Pi__subject_z"} <= {v.name for v in plain.model.free_RVs}
     rng = np.random.default_rng(4)
-    u = rng.standard_normal((2, 2))
     point = {k: v + rng.normal(0.0, 0.3, np.shape(v)) for k, v in built.model.initial_point().items()}
-    point["subject_scores"] = u
-    z = np.einsum("sij,sj->si", np.array([rot[0], rot[1]]), u)
-    other = {k: v for k, v in point.items() if k != "subject_scores"}
-    other |= {"Pc__subject_z": z[:, 0], "Pi__subject_z": z[:, 1]}
+    point["pinned_prediction"] = np.array([0.031, 0.027])
+    names = ["Pc__subject_z", "Pi__subject_z", "Jv__subject", "Pc__spread", "Pi__spread"]
+    fn = built.model.compile_fn(built.model.replace_rvs_by_values([built.model[n] for n in names]),
+                                inputs=built.model.value_vars, on_unused_input="ignore")
+    zc, zi, jv, sp_c, sp_i = fn(point)
+    np.testing.assert_allclose(jv[:2], point["pinned_prediction"], rtol=1e-10)
+    gnorm = FIXED["Kf"] * np.hypot(sp_c, sp_i)          # sd spreads: rho * declared sd = the spread
+    other = {k: v for k, v in point.items() if k not in ("pinned_prediction", "pinned_scores", "subject_scores")}
+    other |= {"Pc__subject_z": zc, "Pi__subject_z": zi}
     lp = built.model.compile_logp()(point)
     lp_plain = plain.model.compile_logp()(other)
-    assert lp == pytest.approx(lp_plain, rel=1e-12)
+    assert lp == pytest.approx(lp_plain - 2 * np.log(gnorm), rel=1e-10)
     with built.model:
-        draws = pm.sample_prior_predictive(draws=2, random_seed=1).prior
-    assert draws["Pc__subject_z"].shape[-1] == 2
+        draws = pm.sample_prior_predictive(draws=400, random_seed=1).prior
+    z = draws["Pc__subject_z"].values.ravel()
+    assert draws["Pc__subject_z"].shape[-1] == 3
+    from scipy import stats
+    assert stats.kstest(z, "norm").pvalue > 1e-3     # the scores are still standard normal a priori
 
 
 def test_typical_scores_reflected_along_the_pinned_typical_direction(monkeypatch):

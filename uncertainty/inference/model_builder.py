@@ -104,6 +104,10 @@ class BuildContext:
         # name -> {"base": typical value per subject (group effect included), "kind": "sd"|"cv",
         # "declared": float, "spread": the between-subject spread (tensor or float)}
         self.layers: dict[str, dict[str, Any]] = {}
+        # claimed quantity -> (shared vector over the pinned subjects, their indices): the value a
+        # pinned subject's reading is linearised at (``_subject_scores``); a claiming kind that can
+        # estimate it from its data before sampling sets it with ``guess``
+        self.guesses: dict[str, tuple[Any, np.ndarray]] = {}
         self._overrides: dict[str, Any] = {}
 
     # -- access ---------------------------------------------------------------------------------
@@ -146,6 +150,13 @@ class BuildContext:
 
     def add_term(self, term: ObservedTerm) -> None:
         self.terms.append(term)
+
+    def guess(self, name: str, values: np.ndarray) -> None:
+        """Point estimates (a vector over all subjects, canonical unit) of a claimed quantity, for the
+        subjects whose readings are linearised at them; ignored when no subject needs it."""
+        if name in self.guesses:
+            shared, index = self.guesses[name]
+            shared.set_value(np.asarray(values, dtype=float)[index])
 
 
 def _positive(prior: Any) -> bool:
@@ -371,7 +382,7 @@ def build_model(problem: Problem) -> BuiltModel:
                 ctx.per_subject[name] = base  # replaced by the claiming kind (ctx.override)
                 continue
             scored[name] = (prior, base, ratio)
-        z_scores = _subject_scores(problem, list(scored), labels, hierarchical)
+        z_scores = _subject_scores(problem, ctx, scored, labels, hierarchical)
         for name, (prior, base, ratio) in scored.items():
             ctx.per_subject[name] = apply_layer(prior, base, z_scores[name], pt, ratio)
         # observation terms (kinds may re-parameterise per-subject quantities first)
@@ -450,30 +461,55 @@ def _householder(w: np.ndarray) -> np.ndarray:
     return np.eye(w.size) if vv < 1e-24 else np.eye(w.size) - 2.0 * np.outer(v, v) / vv
 
 
-def _pinned_rotations(problem: Problem, names: list[str], labels: list[str]) -> dict[int, np.ndarray]:
-    """Per subject with a reading of an output (a kind's ``pinned_output(obs, problem)`` hook, e.g.
-    lymph flow), a Householder reflection H (orthogonal, symmetric) whose first column is the
-    direction in which that reading's prediction (its log for a cv error) changes fastest with the
-    subject's between-subject scores of ``names``, found by finite differences at the priors'
-    medians. A single reading pins one combination of many scores (Kf x net pressure = lymph flow
-    pins a sum of pressures): a thin slab across the score axes that a diagonal mass matrix
-    resolves only with tiny steps; in the reflected scores it lies along one axis."""
+#: Largest distance (in standard-normal score units) of a pinned subject's anchor from the typical
+#: subject: our numerical choice (a reading further out than 3 prior sds is anchored at 3).
+ANCHOR_MAX = 3.0
+
+
+def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> dict[int, tuple[str, np.ndarray]]:
+    """Subject index -> (pinned output, anchor scores z*) for every subject with a reading of an output
+    (a kind's ``pinned_output(obs, problem)`` hook, e.g. lymph flow; the subject's first such reading)
+    that depends on the subject's between-subject scores of ``names``.
+
+    The anchor z* = lambda w lies on the direction w in which the output changes fastest at the
+    priors' medians (finite differences), where the output equals the reading (a root in
+    [-ANCHOR_MAX, ANCHOR_MAX], else the nearer end): the subject's scores are linearised there, not at
+    the typical subject, since a reading far from the typical value is where the posterior is."""
+    from scipy.optimize import brentq
+
     from uncertainty.inference.observations.base import prior_centres
 
     centre = prior_centres(problem)
-    out: dict[int, np.ndarray] = {}
-    for obs, output, log in _pinned_readings(problem):
+
+    def value_of(q: str, z: float) -> float:
+        return problem.priors[q].individual(centre[q], z)
+
+    out: dict[int, tuple[str, np.ndarray]] = {}
+    for obs, output, _log in _pinned_readings(problem):
         if obs.subject not in labels or labels.index(obs.subject) in out:
             continue
-        w = _direction(problem, names, lambda q, z: problem.priors[q].individual(centre[q], z), output, log)
-        if w is not None:
-            out[labels.index(obs.subject)] = _householder(w)
+        w = _direction(problem, names, value_of, output, False)
+        if w is None:
+            continue
+
+        def miss(lam: float) -> float:
+            vals = {**problem.fixed, **centre, **{q: value_of(q, lam * w[j]) for j, q in enumerate(names)}}
+            return float(np.asarray(problem.evaluate(vals, np)[output])) - float(obs.value)
+
+        ends = (miss(-ANCHOR_MAX), miss(ANCHOR_MAX))
+        if not all(np.isfinite(ends)):
+            lam = 0.0
+        elif ends[0] * ends[1] < 0:
+            lam = brentq(miss, -ANCHOR_MAX, ANCHOR_MAX, xtol=1e-6)
+        else:
+            lam = -ANCHOR_MAX if abs(ends[0]) < abs(ends[1]) else ANCHOR_MAX
+        out[labels.index(obs.subject)] = (output, lam * w)
     return out
 
 
 def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
     """Standard-normal scores ``q__z`` of the typical values of ``names`` (normal or lognormal priors),
-    reflected like a subject's (``_pinned_rotations``) along the direction the study's readings of
+    reflected (Householder) along the direction the study's readings of
     outputs pin together (the sum of their unit directions): with subjects, a few lymph readings
     pin the typical net pressure as well. Empty (the builder makes its own ``q__z``) when nothing
     is pinned or there are fewer than two scores."""
@@ -501,24 +537,82 @@ def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
     return {q: pm.Deterministic(f"{q}__z", z[j]) for j, q in enumerate(names)}
 
 
-def _subject_scores(problem: Problem, names: list[str], labels: list[str], hierarchical: bool) -> dict[str, Any]:
-    """Standard-normal between-subject scores ``q__subject_z`` (dim subject) of the quantities ``names``.
+def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple[Any, Any, Any]],
+                    labels: list[str], hierarchical: bool) -> dict[str, Any]:
+    """Standard-normal between-subject scores ``q__subject_z`` (dim subject) of the quantities ``scored``
+    (name -> (prior, per-subject base, spread ratio)).
 
-    Where a subject has a reading of an output and there are two or more scores, that subject's
-    scores are sampled reflected (``_pinned_rotations``): z_s = H_s u_s with u ~ N(0, I), which is
-    again N(0, I) because H_s is orthogonal, so the model is unchanged; the ``q__subject_z`` are then
-    deterministic functions of the free ``subject_scores``."""
+    A subject with a reading of an output (``_pinned_subjects``: lymph flow pins Kf x net pressure, a
+    thin slab across all the scores whose place and width move with the typical values and spreads) is
+    sampled centred along the direction the reading pins. With z* the subject's anchor, g the gradient
+    of the output with respect to the scores at z* (PyTensor, so it follows the typical values and
+    spreads) and H the Householder reflection (orthogonal, symmetric) whose first column is -+g/|g|,
+    the scores are z = z* + H u with u ~ N(-H z*, I), which is z ~ N(0, I) again. The free variables are
+    u_rest (``pinned_scores``) and, in place of u1, the subject's output itself (``pinned_prediction``,
+    in the output's unit): t = f(z* + H (0, u_rest)) -+ |g| u1, so t ~ Normal(f(...) -+ |g| (-H z*)_1,
+    |g|), a change of variables with Jacobian 1/|g|: the model is unchanged, but t sits where the
+    reading puts it whatever the spreads and typical values, where u1 would have to move with them (a
+    funnel: the chains diverged at large spreads). The output is taken with the subject's other
+    quantities at their typical values, except quantities another kind claims (the cuff curves' Kf and
+    Pv): those are constants, the kind's estimate from its own data (``ctx.guess``) or else the prior
+    centre, so that t follows the subject's reading and not the typical Pv or Kf. Other subjects keep
+    plain scores (``subject_scores``)."""
     import pymc as pm
+    import pytensor
+    import pytensor.tensor as pt
+    from pytensor.graph.replace import graph_replace
 
-    rot = _pinned_rotations(problem, names, labels) if hierarchical and len(names) >= 2 else {}
-    if not rot:
+    from uncertainty.inference.observations.base import prior_centres
+
+    names = list(scored)
+    pinned = _pinned_subjects(problem, names, labels) if hierarchical and names else {}
+    if not pinned:
         return {q: pm.Normal(f"{q}__subject_z", 0.0, 1.0, dims="subject") for q in names}
-    H = np.tile(np.eye(len(names)), (len(labels), 1, 1))
-    for s, h in rot.items():
-        H[s] = h
-    pm.modelcontext(None).add_coord("score", names)
-    u = pm.Normal("subject_scores", 0.0, 1.0, dims=("subject", "score"))
-    z = (H * u[:, None, :]).sum(axis=-1)
+    model = pm.modelcontext(None)
+    k, n = len(names), len(labels)
+    pidx = np.array(sorted(pinned))
+    anchor = np.array([pinned[i][1] for i in pidx])
+    free = np.array([i for i in range(n) if i not in pinned])
+    model.add_coord("score", names)
+    model.add_coord("pinned_subject", [labels[i] for i in pidx])
+    if k > 1:
+        model.add_coord("pinned_axis", names[1:])
+
+    centre = prior_centres(problem)
+    for name in ctx.layers:           # claimed: a constant the claiming kind may set (``ctx.guess``)
+        ctx.guesses[name] = (pytensor.shared(np.full(len(pidx), centre[name]), name=f"{name}__pinned_at"), pidx)
+
+    def predict(z: Any) -> Any:     # the pinned outputs of the pinned subjects at scores z (P, k)
+        vals = {**problem.fixed}
+        for name in problem.priors:
+            if name in ctx.guesses:
+                vals[name] = ctx.guesses[name][0]
+            elif name not in scored:
+                vals[name] = ctx.per_subject[name][pidx]
+        for j, (name, (prior, base, ratio)) in enumerate(scored.items()):
+            vals[name] = apply_layer(prior, base[pidx], z[:, j], pt, ratio)
+        outs = problem.evaluate(vals, pt)
+        return pt.stack([(outs[pinned[i][0]] * pt.ones(len(pidx)))[r] for r, i in enumerate(pidx)])
+
+    z_in = pt.matrix("pinned_scores_at", shape=(len(pidx), k))
+    # graph_replace, not clone_replace: a clone would copy the model's random variables into the graph
+    grad = graph_replace(pytensor.grad(predict(z_in).sum(), z_in), {z_in: pt.as_tensor(anchor)})
+    gnorm = pt.maximum(pt.sqrt((grad**2).sum(axis=1)), 1e-300)
+    w = grad / gnorm[:, None]
+    sign = pt.switch(w[:, 0] >= 0.0, 1.0, -1.0)
+    v = pt.set_subtensor(w[:, 0], w[:, 0] + sign)
+    H = pt.eye(k)[None, :, :] - 2.0 * v[:, :, None] * v[:, None, :] / (v**2).sum(axis=1)[:, None, None]
+    mean = -(H * anchor[:, None, :]).sum(axis=-1)          # -H z*, the prior mean of u
+    rest = (pm.Normal("pinned_scores", mean[:, 1:], 1.0, dims=("pinned_subject", "pinned_axis")) if k > 1
+            else pt.zeros((len(pidx), 0)))
+    offset = predict(anchor + (H[:, :, 1:] * rest[:, None, :]).sum(axis=-1))
+    t = pm.Normal("pinned_prediction", mu=offset - sign * gnorm * mean[:, 0], sigma=gnorm, dims="pinned_subject")
+    u = pt.concatenate([(-sign * (t - offset) / gnorm)[:, None], rest], axis=1)
+    z = pt.zeros((n, k))
+    z = pt.set_subtensor(z[pidx], anchor + (H * u[:, None, :]).sum(axis=-1))
+    if free.size:
+        model.add_coord("unpinned_subject", [labels[i] for i in free])
+        z = pt.set_subtensor(z[free], pm.Normal("subject_scores", 0.0, 1.0, dims=("unpinned_subject", "score")))
     return {q: pm.Deterministic(f"{q}__subject_z", z[:, j], dims="subject") for j, q in enumerate(names)}
 
 

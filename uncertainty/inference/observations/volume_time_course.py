@@ -519,6 +519,10 @@ def add(ctx: Any, obs: Observation) -> None:
         centre = _at_prior_centre(given | {f"mean:{e.label}": e.mean for e in entries}
                                   | {f"sd:{e.label}": e.sd for e in entries})
         frame = _frame(entries, centre, t, y, sidx, times, cuffs, noise, t_bend)
+        at_fit = _physical(entries, list(frame[0].T), centre["r"], frame[3][2], frame[3][0], np)
+        for q in ("Kf", "Pv"):       # the fit's estimates, for subjects with other readings (ctx.guess)
+            if q in at_fit:
+                ctx.guess(q, at_fit[q] / density if q == "Kf" else at_fit[q])
         values = _subject_block(ctx, name, entries, frame[:3], _globals(tau, tau_v, trans, pt, t_bend), frame[3])
         phys = _physical(entries, [values[e.label] for e in entries], r, trans, bend, pt)
         if layer is not None:
