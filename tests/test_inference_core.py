@@ -176,6 +176,44 @@ def test_lymph_subjects_sampled_centred_on_their_reading_with_the_same_density(m
     assert stats.kstest(z, "norm").pvalue > 1e-3     # the scores are still standard normal a priori
 
 
+def test_pinned_change_of_variables_is_exact_where_the_output_is_nonlinear(monkeypatch):
+    """With Kf lognormal among the scores Jv is nonlinear in them, and the pinned axis' slope is taken
+    where the other scores are. Whatever the slope, the model must stay the plain one: the log density
+    at corresponding points differs by log |dz/dt|, the Jacobian of the map from the free prediction t
+    to the scores z (H is orthogonal), here found by central finite differences (numpy, outside the
+    builder)."""
+    from uncertainty.inference import model_builder as mb
+
+    priors = {"Kf": lognormal("Kf", 0.004, 1.3, between_subject={"cv": 0.4}),
+              "Pc": normal("Pc", 24, 2, between_subject={"sd": 3.0})}
+    obs = [{"kind": "lymph_flow", "value": 0.05, "cv": 0.2, "subject": s} for s in ("a", "b")]
+    built = build_model(problem(priors, obs))
+    monkeypatch.setattr(mb, "_pinned_subjects", lambda *a: {})
+    plain = build_model(problem(priors, obs))
+    model = built.model
+    point = {k: v + np.random.default_rng(5).normal(0.0, 0.4, np.shape(v)) for k, v in model.initial_point().items()}
+    point["pinned_prediction"] = np.array([0.07, 0.03])
+    names = ["Kf__subject_z", "Pc__subject_z"]
+    fn = model.compile_fn(model.replace_rvs_by_values([model[n] for n in names]), inputs=model.value_vars,
+                          on_unused_input="ignore")
+
+    def scores(p: dict) -> np.ndarray:
+        return np.array(fn(p))                      # (score, subject)
+
+    h = 1e-7
+    log_jac = 0.0
+    for s in (0, 1):
+        up, down = dict(point), dict(point)
+        up["pinned_prediction"] = point["pinned_prediction"] + h * np.eye(2)[s]
+        down["pinned_prediction"] = point["pinned_prediction"] - h * np.eye(2)[s]
+        log_jac += np.log(np.linalg.norm((scores(up) - scores(down))[:, s]) / (2 * h))
+    z = scores(point)
+    other = {k: v for k, v in point.items() if k not in ("pinned_prediction", "pinned_scores")}
+    other |= {"Kf__subject_z": z[0], "Pc__subject_z": z[1]}
+    lp = model.compile_logp()(point)
+    assert lp == pytest.approx(plain.model.compile_logp()(other) + log_jac, abs=1e-5)
+
+
 def test_typical_scores_reflected_along_the_pinned_typical_direction(monkeypatch):
     """Lymph readings of several subjects pin the typical Kf x net pressure too: the typical scores are
     reflected so that the first axis is d log Jv / dz, which is (log gsd_Kf, sd_Pc / net) in closed

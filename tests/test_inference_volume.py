@@ -47,13 +47,15 @@ def simulate(kf_100ml: np.ndarray, pvi: np.ndarray, cv: np.ndarray, rng: np.rand
     return data
 
 
-def stand_in(data: dict[str, list], **extra: Any) -> Problem:
-    """A Problem with an uncertain, hierarchical Kf and the volume curves as its one observation."""
+def stand_in(data: dict[str, list], *, priors: dict | None = None, more: list[dict] = (), **extra: Any) -> Problem:
+    """A Problem with an uncertain, hierarchical Kf (and ``priors``) and the volume curves as its first
+    observation (then ``more``)."""
     obs = {"kind": "volume_time_course", "file": "simulated.csv", "sd": NOISE_SD, "data": data,
            "steps": [{"at_min": a, "to": c} for a, c in STEPS], **extra}
-    fixed = {k: v for k, v in FIXED.items() if k != "Kf"} | {"Pc": 20.0}
-    return Problem(priors={"Kf": KF_PRIOR}, fixed=fixed, evaluate=starling_outputs,
-                   observations=normalise_observations([obs], file="stand-in.toml"),
+    priors = {"Kf": KF_PRIOR, **(priors or {})}
+    fixed = {k: v for k, v in (FIXED | {"Pc": 20.0}).items() if k not in priors}
+    return Problem(priors=priors, fixed=fixed, evaluate=starling_outputs,
+                   observations=normalise_observations([obs, *more], file="stand-in.toml"),
                    file="stand-in.toml", density=DENSITY)
 
 
@@ -206,6 +208,28 @@ def test_frame_falls_back_to_the_prior_scales_when_a_fit_fails(monkeypatch):
 
 
 CURVE = "obs0__volume_time_course"
+
+
+def test_lymph_subject_linearised_at_its_own_curve_fit():
+    """A subject with a cuff curve and a lymph reading (invented: Pc prior, Jv 0.024 from the truth at
+    the stand-in forces): the reading is linearised at the Kf its curve gives (``ctx.guess`` from the
+    frame fit), not at the prior centre (29% lower for this subject)."""
+    from inference_helpers import normal
+
+    from uncertainty.inference.model_builder import build_model
+
+    kf = np.array([0.0025, 0.0035, 0.0045, 0.0030])   # mL/min/mmHg/100 mL, invented truths
+    data = simulate(kf, np.array([10.0, 14.0, 18.0, 22.0]), np.array([0.035, 0.045, 0.050, 0.040]),
+                    np.random.default_rng(7))
+    built = build_model(stand_in(data, priors={"Pc": normal("Pc", 20.0, 2.0, between_subject={"sd": 3.0})},
+                                 more=[{"kind": "lymph_flow", "value": 0.024, "cv": 0.2, "subject": "S3"}]))
+    assert "pinned_prediction" in {v.name for v in built.model.free_RVs}
+    shared, index = built.context.guesses["Kf"]
+    assert list(index) == [2]
+    guess = float(shared.get_value()[0])
+    truth = kf[2] / DENSITY                     # per 100 g
+    assert abs(guess / truth - 1) < 0.1, (guess, truth)
+    assert abs(float(KF_PRIOR.median()) / truth - 1) > 0.2
 
 
 @pytest.mark.slow

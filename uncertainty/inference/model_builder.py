@@ -461,6 +461,9 @@ def _householder(w: np.ndarray) -> np.ndarray:
     return np.eye(w.size) if vv < 1e-24 else np.eye(w.size) - 2.0 * np.outer(v, v) / vv
 
 
+#: Floor of the slope along a pinned subject's pinned axis, as a fraction of the slope at its anchor:
+#: our numerical choice (any positive floor keeps the change of variables exact).
+SLOPE_FLOOR = 0.1
 #: Largest distance (in standard-normal score units) of a pinned subject's anchor from the typical
 #: subject: our numerical choice (a reading further out than 3 prior sds is anchored at 3).
 ANCHOR_MAX = 3.0
@@ -475,8 +478,6 @@ def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> d
     priors' medians (finite differences), where the output equals the reading (a root in
     [-ANCHOR_MAX, ANCHOR_MAX], else the nearer end): the subject's scores are linearised there, not at
     the typical subject, since a reading far from the typical value is where the posterior is."""
-    from scipy.optimize import brentq
-
     from uncertainty.inference.observations.base import prior_centres
 
     centre = prior_centres(problem)
@@ -492,19 +493,26 @@ def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> d
         if w is None:
             continue
 
-        def miss(lam: float) -> float:
+        def miss(lam: float, w: np.ndarray = w, output: str = output, reading: float = float(obs.value)) -> float:
             vals = {**problem.fixed, **centre, **{q: value_of(q, lam * w[j]) for j, q in enumerate(names)}}
-            return float(np.asarray(problem.evaluate(vals, np)[output])) - float(obs.value)
+            return float(np.asarray(problem.evaluate(vals, np)[output])) - reading
 
-        ends = (miss(-ANCHOR_MAX), miss(ANCHOR_MAX))
-        if not all(np.isfinite(ends)):
-            lam = 0.0
-        elif ends[0] * ends[1] < 0:
-            lam = brentq(miss, -ANCHOR_MAX, ANCHOR_MAX, xtol=1e-6)
-        else:
-            lam = -ANCHOR_MAX if abs(ends[0]) < abs(ends[1]) else ANCHOR_MAX
+        lam = _anchor(miss)
         out[labels.index(obs.subject)] = (output, lam * w)
     return out
+
+
+def _anchor(miss: Any) -> float:
+    """The root of ``miss`` (prediction minus reading along a unit direction) in [-ANCHOR_MAX,
+    ANCHOR_MAX], else the nearer end; 0 where the ends are not finite."""
+    from scipy.optimize import brentq
+
+    ends = (miss(-ANCHOR_MAX), miss(ANCHOR_MAX))
+    if not all(np.isfinite(ends)):
+        return 0.0
+    if ends[0] * ends[1] < 0:
+        return float(brentq(miss, -ANCHOR_MAX, ANCHOR_MAX, xtol=1e-6))
+    return -ANCHOR_MAX if abs(ends[0]) < abs(ends[1]) else ANCHOR_MAX
 
 
 def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
@@ -595,8 +603,9 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
         return pt.stack([(outs[pinned[i][0]] * pt.ones(len(pidx)))[r] for r, i in enumerate(pidx)])
 
     z_in = pt.matrix("pinned_scores_at", shape=(len(pidx), k))
+    grad_at = pytensor.grad(predict(z_in).sum(), z_in)
     # graph_replace, not clone_replace: a clone would copy the model's random variables into the graph
-    grad = graph_replace(pytensor.grad(predict(z_in).sum(), z_in), {z_in: pt.as_tensor(anchor)})
+    grad = graph_replace(grad_at, {z_in: pt.as_tensor(anchor)})
     gnorm = pt.maximum(pt.sqrt((grad**2).sum(axis=1)), 1e-300)
     w = grad / gnorm[:, None]
     sign = pt.switch(w[:, 0] >= 0.0, 1.0, -1.0)
@@ -605,9 +614,13 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     mean = -(H * anchor[:, None, :]).sum(axis=-1)          # -H z*, the prior mean of u
     rest = (pm.Normal("pinned_scores", mean[:, 1:], 1.0, dims=("pinned_subject", "pinned_axis")) if k > 1
             else pt.zeros((len(pidx), 0)))
-    offset = predict(anchor + (H[:, :, 1:] * rest[:, None, :]).sum(axis=-1))
-    t = pm.Normal("pinned_prediction", mu=offset - sign * gnorm * mean[:, 0], sigma=gnorm, dims="pinned_subject")
-    u = pt.concatenate([(-sign * (t - offset) / gnorm)[:, None], rest], axis=1)
+    z_rest = anchor + (H[:, :, 1:] * rest[:, None, :]).sum(axis=-1)
+    offset = predict(z_rest)
+    # slope of the output along the pinned axis at z_rest (floored at a tenth of |g|: any positive slope
+    # gives an exact change of variables; the true one makes t follow the output most closely)
+    slope = pt.maximum((graph_replace(grad_at, {z_in: z_rest}) * w).sum(axis=1), SLOPE_FLOOR * gnorm)
+    t = pm.Normal("pinned_prediction", mu=offset - sign * slope * mean[:, 0], sigma=slope, dims="pinned_subject")
+    u = pt.concatenate([(-sign * (t - offset) / slope)[:, None], rest], axis=1)
     z = pt.zeros((n, k))
     z = pt.set_subtensor(z[pidx], anchor + (H * u[:, None, :]).sum(axis=-1))
     if free.size:

@@ -34,7 +34,7 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def pinned_output(obs: Observation, problem: Problem) -> tuple[str, bool]:
     """The output a reading pins (JL where the form has one, else Jv) and whether its error is on the
-    log scale (cv): the model builder reflects the subject's between-subject scores along it."""
+    log scale (cv): the model builder samples the subject's between-subject scores centred along it."""
     from uncertainty.inference.observations.base import output_names
 
     return ("JL" if "JL" in output_names(problem) else "Jv"), obs.cv is not None

@@ -551,7 +551,7 @@ def add(ctx: Any, obs: Observation) -> None:
     ctx.notes.append(f"{obs.key}: C_tis and L are not separately identified by short protocols; their "
                      f"combination tau = C_tis/(Kf + L) is sampled as {name}__tau")
     if every > 1:
-        ctx.notes.append(f"{obs.key}: every {every}th reading of each subject used ({int(keep.sum())} of "
+        ctx.notes.append(f"{obs.key}: one reading in {every} of each subject used ({int(keep.sum())} of "
                          f"{keep.size})")
     ctx.curves.append({"name": name, "t": t, "subject_index": sidx, "volume": y,
                        "subjects": list(ctx.subjects)})
