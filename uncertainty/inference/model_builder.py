@@ -557,10 +557,11 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     spreads) and H the Householder reflection (orthogonal, symmetric) whose first column is -+g/|g|,
     the scores are z = z* + H u with u ~ N(-H z*, I), which is z ~ N(0, I) again. The free variables are
     u_rest (``pinned_scores``) and, in place of u1, the subject's output itself (``pinned_prediction``,
-    in the output's unit): t = f(z* + H (0, u_rest)) -+ |g| u1, so t ~ Normal(f(...) -+ |g| (-H z*)_1,
-    |g|), a change of variables with Jacobian 1/|g|: the model is unchanged, but t sits where the
-    reading puts it whatever the spreads and typical values, where u1 would have to move with them (a
-    funnel: the chains diverged at large spreads). The output is taken with the subject's other
+    in the output's unit): t = f(z* + H (0, u_rest)) -+ c u1, with c > 0 the output's slope along the
+    pinned axis at z* + H (0, u_rest) (floored at SLOPE_FLOOR |g|), so t ~ Normal(f(...) -+ c (-H z*)_1,
+    c), a change of variables with Jacobian 1/c, exact for any positive c: the model is unchanged, but
+    t sits where the reading puts it whatever the spreads and typical values, where u1 would have to
+    move with them (a funnel: the chains diverged at large spreads). The output is taken with the subject's other
     quantities at their typical values, except quantities another kind claims (the cuff curves' Kf and
     Pv): those are constants, the kind's estimate from its own data (``ctx.guess``) or else the prior
     centre, so that t follows the subject's reading and not the typical Pv or Kf. Other subjects keep
