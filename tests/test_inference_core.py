@@ -176,6 +176,18 @@ def test_lymph_subjects_sampled_centred_on_their_reading_with_the_same_density(m
     assert stats.kstest(z, "norm").pvalue > 1e-3     # the scores are still standard normal a priori
 
 
+@pytest.mark.parametrize("reading_sd, pinned", [(0.002, True), (0.02, False)])
+def test_only_a_reading_sharper_than_the_population_spread_is_sampled_centred(reading_sd, pinned):
+    """Between-subject sd of the predicted Jv at the stand-in values: Kf hypot(3, 1.5) = 0.0134 mL/min/100 g
+    (closed form); a reading with sd 0.002 is below PIN_RATIO (0.5) times that, one with sd 0.02 is not
+    and stays non-centred (centring a weakly informed subject makes a funnel of its own)."""
+    priors = {"Pc": normal("Pc", 24, 2, between_subject={"sd": 3.0}),
+              "Pi": normal("Pi", -1, 1, between_subject={"sd": 1.5})}
+    obs = [{"kind": "lymph_flow", "value": 0.03, "sd": reading_sd, "subject": s} for s in ("a", "b")]
+    built = build_model(problem(priors, obs))
+    assert ("pinned_prediction" in {v.name for v in built.model.free_RVs}) is pinned
+
+
 def test_pinned_change_of_variables_is_exact_where_the_output_is_nonlinear(monkeypatch):
     """With Kf lognormal among the scores Jv is nonlinear in them, and the pinned axis' slope is taken
     where the other scores are. Whatever the slope, the model must stay the plain one: the log density
@@ -186,8 +198,9 @@ def test_pinned_change_of_variables_is_exact_where_the_output_is_nonlinear(monke
 
     priors = {"Kf": lognormal("Kf", 0.004, 1.3, between_subject={"cv": 0.4}),
               "Pc": normal("Pc", 24, 2, between_subject={"sd": 3.0})}
-    obs = [{"kind": "lymph_flow", "value": 0.05, "cv": 0.2, "subject": s} for s in ("a", "b")]
+    obs = [{"kind": "lymph_flow", "value": 0.05, "cv": 0.1, "subject": s} for s in ("a", "b")]
     built = build_model(problem(priors, obs))
+    assert "pinned_prediction" in {v.name for v in built.model.free_RVs}
     monkeypatch.setattr(mb, "_pinned_subjects", lambda *a: {})
     plain = build_model(problem(priors, obs))
     model = built.model

@@ -427,10 +427,10 @@ def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
     return out
 
 
-def _direction(problem: Problem, names: list[str], value_of: Any, output: str, log: bool) -> np.ndarray | None:
-    """Unit direction of steepest change of an output (its log when ``log``) with the scores of
-    ``names`` at 0 (central finite differences; ``value_of(q, z)`` is q's value at score z, the other
-    quantities at their prior centres). None where the gradient is zero or not finite."""
+def _gradient(problem: Problem, names: list[str], value_of: Any, output: str, log: bool) -> np.ndarray | None:
+    """Gradient of an output (its log when ``log``) with respect to the scores of ``names`` at 0
+    (central finite differences; ``value_of(q, z)`` is q's value at score z, the other quantities at
+    their prior centres). None where it is zero or not finite."""
     from uncertainty.inference.observations.base import prior_centres
 
     centre = prior_centres(problem)
@@ -448,10 +448,15 @@ def _direction(problem: Problem, names: list[str], value_of: Any, output: str, l
             e = np.zeros(len(names))
             e[j] = PIN_STEP
             grad[j] = (predict(e) - predict(-e)) / (2 * PIN_STEP)
-    norm = float(np.linalg.norm(grad))
-    if not np.all(np.isfinite(grad)) or norm == 0.0:
+    if not np.all(np.isfinite(grad)) or not np.any(grad):
         return None
-    return grad / norm
+    return grad
+
+
+def _direction(problem: Problem, names: list[str], value_of: Any, output: str, log: bool) -> np.ndarray | None:
+    """Unit direction of steepest change of an output (``_gradient``); None where there is none."""
+    grad = _gradient(problem, names, value_of, output, log)
+    return None if grad is None else grad / np.linalg.norm(grad)
 
 
 def _householder(w: np.ndarray) -> np.ndarray:
@@ -461,6 +466,12 @@ def _householder(w: np.ndarray) -> np.ndarray:
     return np.eye(w.size) if vv < 1e-24 else np.eye(w.size) - 2.0 * np.outer(v, v) / vv
 
 
+#: A reading pins its subject (``_pinned_subjects``) when its error sd is below this fraction of the
+#: between-subject sd of its prediction: our numerical choice, after the usual rule that a centred
+#: parameterisation suits a group whose data are more informative than the population spread
+#: (Betancourt M, Girolami M 2015, Current Trends in Bayesian Methodology with Applications, CRC Press;
+#: arXiv:1312.0906; from memory).
+PIN_RATIO = 0.5
 #: Floor of the slope along a pinned subject's pinned axis, as a fraction of the slope at its anchor:
 #: our numerical choice (any positive floor keeps the change of variables exact).
 SLOPE_FLOOR = 0.1
@@ -472,7 +483,9 @@ ANCHOR_MAX = 3.0
 def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> dict[int, tuple[str, np.ndarray]]:
     """Subject index -> (pinned output, anchor scores z*) for every subject with a reading of an output
     (a kind's ``pinned_output(obs, problem)`` hook, e.g. lymph flow; the subject's first such reading)
-    that depends on the subject's between-subject scores of ``names``.
+    that depends on the subject's between-subject scores of ``names`` and pins it: the reading's error
+    sd (a cv times the value) is below PIN_RATIO times the between-subject sd of the prediction, |grad|
+    at the priors' medians (a reading less precise than that is left non-centred).
 
     The anchor z* = lambda w lies on the direction w in which the output changes fastest at the
     priors' medians (finite differences), where the output equals the reading (a root in
@@ -489,9 +502,11 @@ def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> d
     for obs, output, _log in _pinned_readings(problem):
         if obs.subject not in labels or labels.index(obs.subject) in out:
             continue
-        w = _direction(problem, names, value_of, output, False)
-        if w is None:
+        grad = _gradient(problem, names, value_of, output, False)
+        reading_sd = obs.sd if obs.sd is not None else obs.cv * abs(float(obs.value))
+        if grad is None or not reading_sd < PIN_RATIO * np.linalg.norm(grad):
             continue
+        w = grad / np.linalg.norm(grad)
 
         def miss(lam: float, w: np.ndarray = w, output: str = output, reading: float = float(obs.value)) -> float:
             vals = {**problem.fixed, **centre, **{q: value_of(q, lam * w[j]) for j, q in enumerate(names)}}
