@@ -576,11 +576,11 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     pinned axis at z* + H (0, u_rest) (floored at SLOPE_FLOOR |g|), so t ~ Normal(f(...) -+ c (-H z*)_1,
     c), a change of variables with Jacobian 1/c, exact for any positive c: the model is unchanged, but
     t sits where the reading puts it whatever the spreads and typical values, where u1 would have to
-    move with them (a funnel: the chains diverged at large spreads). The output is taken with the subject's other
-    quantities at their typical values, except quantities another kind claims (the cuff curves' Kf and
-    Pv): those are constants, the kind's estimate from its own data (``ctx.guess``) or else the prior
-    centre, so that t follows the subject's reading and not the typical Pv or Kf. Other subjects keep
-    plain scores (``subject_scores``)."""
+    move with them (a funnel: the chains diverged at large spreads). The output is taken with the
+    subject's other quantities at their typical values, except quantities another kind claims (the cuff
+    curves' Kf and Pv): those are constants, the kind's estimate from its own data (``ctx.guess``) or
+    else the prior centre, so that t follows the subject's reading and not the typical Pv or Kf. Other
+    subjects keep plain scores (``subject_scores``)."""
     import pymc as pm
     import pytensor
     import pytensor.tensor as pt
@@ -615,8 +615,8 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
                 vals[name] = ctx.per_subject[name][pidx]
         for j, (name, (prior, base, ratio)) in enumerate(scored.items()):
             vals[name] = apply_layer(prior, base[pidx], z[:, j], pt, ratio)
-        outs = problem.evaluate(vals, pt)
-        return pt.stack([(outs[pinned[i][0]] * pt.ones(len(pidx)))[r] for r, i in enumerate(pidx)])
+        outs = problem.evaluate(vals, pt)       # row r of the output its subject's reading pins
+        return pt.stack([pt.broadcast_to(outs[pinned[i][0]], (len(pidx),))[r] for r, i in enumerate(pidx)])
 
     z_in = pt.matrix("pinned_scores_at", shape=(len(pidx), k))
     grad_at = pytensor.grad(predict(z_in).sum(), z_in)
