@@ -86,3 +86,20 @@ def test_only_the_product_kf_times_net_pressure_is_identified():
     # neither factor alone is pinned: each keeps well over a third of its prior variance
     assert doc["parameters"]["Kf"]["contraction"] < 0.7
     assert doc["parameters"]["Pc"]["contraction"] < 0.7
+
+
+@pytest.mark.parametrize("reading_sd, prior_flagged", [(0.2, False), (20.0, True)])
+def test_power_scaling_flags_the_prior_only_where_the_reading_is_weak(reading_sd, prior_flagged):
+    """Conjugate normal case (prior sd 2 mmHg, invented): raising the prior to a power alpha makes its
+    sd 2 / sqrt(alpha); with a reading of sd 0.2 the posterior sd, (alpha / 4 + 25)^-1/2, hardly moves
+    (prior sensitivity below the threshold, likelihood sensitivity above); with a reading of sd 20 the
+    posterior is nearly the prior and moves with it (flagged, prior dominates)."""
+    from uncertainty.inference.checks import PSENS_THRESHOLD, power_scaling, top_level
+
+    obs = [{"kind": "measurement", "parameter": "Pc", "value": 21.0, "sd": reading_sd}]
+    result = fit(problem({"Pc": normal("Pc", 20.0, 2.0)}, obs), seed=5, draws=1000, tune=500, checks=False)
+    assert top_level(result.built.model) == ["Pc__z"]
+    sens = power_scaling(result.built, result.idata, ["Pc__subject"])["Pc"]
+    assert (sens["prior"] >= PSENS_THRESHOLD) is prior_flagged, sens
+    assert (sens["likelihood"] >= PSENS_THRESHOLD) is not prior_flagged, sens
+    assert sens["diagnosis"] == ("prior dominates (weak likelihood)" if prior_flagged else "-")

@@ -154,6 +154,10 @@ def test_lymph_subjects_sampled_centred_on_their_reading_with_the_same_density(m
     monkeypatch.setattr(mb, "_pinned_subjects", lambda *a: {})
     plain = build_model(problem(priors, obs))
     assert {"Pc__subject_z", "Pi__subject_z"} <= {v.name for v in plain.model.free_RVs}
+    # power scaling scales the declared priors only, whichever way the subject layer is sampled
+    from uncertainty.inference.checks import top_level
+    expected = {"typical_scores", "Pc__spread_z", "Pi__spread_z"}
+    assert set(top_level(built.model)) == expected == set(top_level(plain.model))
     rng = np.random.default_rng(4)
     point = {k: v + rng.normal(0.0, 0.3, np.shape(v)) for k, v in built.model.initial_point().items()}
     point["pinned_prediction"] = np.array([0.031, 0.027])

@@ -6,9 +6,10 @@
   1:893-914, prior-data conflict checks; the threshold is common practice).
 - Prior sensitivity by power scaling (Kallioinen et al. 2024, Stat Comput 34:57): the posterior is
   reweighted by importance sampling as if the prior were raised to a power near 1; the cumulative
-  Jensen-Shannon distance per unit log power (``arviz.psens``) above PSENS_THRESHOLD (0.05, the
-  value those authors suggest, from memory) flags a quantity as sensitive to its prior (or, when
-  the likelihood is sensitive too, a prior-data conflict).
+  Jensen-Shannon distance per unit log power (``arviz.psens``; the declared priors are scaled, not the
+  between-subject layers) above PSENS_THRESHOLD (0.05, the value those authors suggest, from memory)
+  flags a quantity as sensitive to its prior (or, when the likelihood is sensitive too, a prior-data
+  conflict).
 - Posterior predictive checks of each observation kind: the posterior predictive p-value of the
   mean reading and the share of readings inside their 95% predictive interval.
 """
@@ -61,8 +62,20 @@ def prior_data_conflict(built: Any, prior_idata: Any) -> list[dict[str, Any]]:
     return rows
 
 
+def top_level(model: Any) -> list[str]:
+    """Free variables of the declared priors: every free variable without a subject dimension (the
+    per-subject layers, whatever their parameterisation, are left out)."""
+    dims = model.named_vars_to_dims
+    return [v.name for v in model.free_RVs if not any("subject" in d for d in dims.get(v.name, ()) or ())]
+
+
 def power_scaling(built: Any, idata: Any, var_names: list[str]) -> dict[str, Any]:
-    """Power-scaling sensitivity of each quantity to the prior and to the likelihood (arviz.psens)."""
+    """Power-scaling sensitivity of each quantity to the prior and to the likelihood (arviz.psens).
+
+    Only the declared priors are scaled (``top_level``): the typical values, spreads, group effects and
+    side quantities, not the between-subject layers. Scaling those too would ask how the answer moves
+    if the population model itself were weakened, and it would depend on how the subject layer is
+    parameterised (a centred coordinate carries the layer's density, a non-centred score does not)."""
     import warnings
 
     import arviz as az
@@ -71,13 +84,16 @@ def power_scaling(built: Any, idata: Any, var_names: list[str]) -> dict[str, Any
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         if "log_prior" not in idata.groups():
-            pm.compute_log_prior(idata, model=built.model, extend_inferencedata=True, progressbar=False)
+            pm.compute_log_prior(idata, var_names=top_level(built.model), model=built.model,
+                                 extend_inferencedata=True, progressbar=False)
         if "log_likelihood" not in idata.groups():
             pm.compute_log_likelihood(idata, model=built.model, extend_inferencedata=True,
                                       progressbar=False)
         names = [v for v in var_names if v in idata.posterior]
         prior_s = az.psens(idata, component="prior", var_names=names)
         lik_s = az.psens(idata, component="likelihood", var_names=names)
+    if len(names) == 1:            # arviz gives a bare DataArray for one variable
+        prior_s, lik_s = ({names[0]: prior_s}, {names[0]: lik_s})
     out = {}
     for v in names:
         ps = float(np.nanmax(np.asarray(prior_s[v].values)))
