@@ -568,8 +568,8 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     A subject with a reading of an output (``_pinned_subjects``: lymph flow pins Kf x net pressure, a
     thin slab across all the scores whose place and width move with the typical values and spreads) is
     sampled centred along the direction the reading pins. With z* the subject's anchor, g the gradient
-    of the output with respect to the scores at z* (PyTensor, so it follows the typical values and
-    spreads) and H the Householder reflection (orthogonal, symmetric) whose first column is -+g/|g|,
+    of the output with respect to the scores at z* (central differences in PyTensor, so it follows the
+    typical values and spreads) and H the Householder reflection (orthogonal, symmetric) whose first column is -+g/|g|,
     the scores are z = z* + H u with u ~ N(-H z*, I), which is z ~ N(0, I) again. The free variables are
     u_rest (``pinned_scores``) and, in place of u1, the subject's output itself (``pinned_prediction``,
     in the output's unit): t = f(z* + H (0, u_rest)) -+ c u1, with c > 0 the output's slope along the
@@ -584,7 +584,6 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     import pymc as pm
     import pytensor
     import pytensor.tensor as pt
-    from pytensor.graph.replace import graph_replace
 
     from uncertainty.inference.observations.base import prior_centres
 
@@ -606,7 +605,8 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     for name in ctx.layers:           # claimed: a constant the claiming kind may set (``ctx.guess``)
         ctx.guesses[name] = (pytensor.shared(np.full(len(pidx), centre[name]), name=f"{name}__pinned_at"), pidx)
 
-    def predict(z: Any) -> Any:     # the pinned outputs of the pinned subjects at scores z (P, k)
+    def predict(z: Any) -> Any:
+        """The pinned outputs of the pinned subjects at scores z (..., P, k) -> (..., P)."""
         vals = {**problem.fixed}
         for name in problem.priors:
             if name in ctx.guesses:
@@ -614,14 +614,17 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
             elif name not in scored:
                 vals[name] = ctx.per_subject[name][pidx]
         for j, (name, (prior, base, ratio)) in enumerate(scored.items()):
-            vals[name] = apply_layer(prior, base[pidx], z[:, j], pt, ratio)
-        outs = problem.evaluate(vals, pt)       # row r of the output its subject's reading pins
-        return pt.stack([pt.broadcast_to(outs[pinned[i][0]], (len(pidx),))[r] for r, i in enumerate(pidx)])
+            vals[name] = apply_layer(prior, base[pidx], z[..., j], pt, ratio)
+        outs = problem.evaluate(vals, pt)
+        shape = pt.shape(z)[:-1]
+        return pt.stack([pt.broadcast_to(outs[pinned[i][0]], shape)[..., r] for r, i in enumerate(pidx)], axis=-1)
 
-    z_in = pt.matrix("pinned_scores_at", shape=(len(pidx), k))
-    grad_at = pytensor.grad(predict(z_in).sum(), z_in)
-    # graph_replace, not clone_replace: a clone would copy the model's random variables into the graph
-    grad = graph_replace(grad_at, {z_in: pt.as_tensor(anchor)})
+    # derivatives by central differences in one batched evaluation each (PIN_STEP): pytensor.grad here
+    # would put second derivatives of the forward map into the sampler's gradient, and the steady forms'
+    # Newton solve then took many minutes to compile
+    steps = PIN_STEP * np.concatenate([np.eye(k), -np.eye(k)])[:, None, :]          # (2k, 1, k)
+    f_steps = predict(pt.as_tensor(anchor)[None] + steps)                           # (2k, P)
+    grad = ((f_steps[:k] - f_steps[k:]) / (2 * PIN_STEP)).T                          # (P, k)
     gnorm = pt.maximum(pt.sqrt((grad**2).sum(axis=1)), 1e-300)
     w = grad / gnorm[:, None]
     sign = pt.switch(w[:, 0] >= 0.0, 1.0, -1.0)
@@ -631,10 +634,11 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     rest = (pm.Normal("pinned_scores", mean[:, 1:], 1.0, dims=("pinned_subject", "pinned_axis")) if k > 1
             else pt.zeros((len(pidx), 0)))
     z_rest = anchor + (H[:, :, 1:] * rest[:, None, :]).sum(axis=-1)
-    offset = predict(z_rest)
+    f_rest = predict(pt.stack([z_rest, z_rest + PIN_STEP * w, z_rest - PIN_STEP * w]))   # (3, P)
+    offset = f_rest[0]
     # slope of the output along the pinned axis at z_rest (floored at a tenth of |g|: any positive slope
     # gives an exact change of variables; the true one makes t follow the output most closely)
-    slope = pt.maximum((graph_replace(grad_at, {z_in: z_rest}) * w).sum(axis=1), SLOPE_FLOOR * gnorm)
+    slope = pt.maximum((f_rest[1] - f_rest[2]) / (2 * PIN_STEP), SLOPE_FLOOR * gnorm)
     t = pm.Normal("pinned_prediction", mu=offset - sign * slope * mean[:, 0], sigma=slope, dims="pinned_subject")
     u = pt.concatenate([(-sign * (t - offset) / slope)[:, None], rest], axis=1)
     z = pt.zeros((n, k))
