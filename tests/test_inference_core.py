@@ -231,9 +231,36 @@ def test_pinned_change_of_variables_is_exact_where_the_output_is_nonlinear(monke
     assert lp == pytest.approx(plain.model.compile_logp()(other) + log_jac, abs=1e-5)
 
 
+@pytest.mark.parametrize("w", [[1.0, 0.0, 0.0], [-1.0, 0.0, 0.0], [0.6, -0.8, 0.0], [-0.48, 0.6, 0.64]])
+def test_householder_reflection_numpy_and_pytensor(w):
+    """H is orthogonal and symmetric with first column -sign(w_1) w, also at w = +-e1 (where the plain
+    form w - e1 would vanish); numpy and PyTensor give the same matrix."""
+    import pytensor.tensor as pt
+
+    from uncertainty.inference.model_builder import _householder
+
+    w = np.asarray(w)
+    H = _householder(w)
+    np.testing.assert_allclose(H @ H.T, np.eye(3), atol=1e-14)
+    np.testing.assert_allclose(H, H.T, atol=1e-14)
+    np.testing.assert_allclose(H[:, 0], -np.sign(w[0]) * w, atol=1e-14)
+    np.testing.assert_allclose(_householder(pt.as_tensor(w[None]), pt, 3).eval()[0], H, atol=1e-14)
+
+
+@pytest.mark.parametrize("miss, expected", [(lambda lam: lam - 1.0, 1.0),     # root inside [-3, 3]
+                                            (lambda lam: lam - 5.0, 3.0),     # no root: the nearer end
+                                            (lambda lam: lam + 7.0, -3.0),
+                                            (lambda lam: np.nan, 0.0)])      # not finite: the typical subject
+def test_anchor_root_or_nearer_end_or_typical(miss, expected):
+    from uncertainty.inference.model_builder import ANCHOR_MAX, _anchor
+
+    assert ANCHOR_MAX == 3.0
+    assert _anchor(miss) == pytest.approx(expected, abs=1e-6)
+
+
 def test_typical_scores_reflected_along_the_pinned_typical_direction(monkeypatch):
     """Lymph readings of several subjects pin the typical Kf x net pressure too: the typical scores are
-    reflected so that the first axis is d log Jv / dz, which is (log gsd_Kf, sd_Pc / net) in closed
+    reflected so that the first axis is -+ d log Jv / dz, which is (log gsd_Kf, sd_Pc / net) in closed
     form (Jv = Kf (Pc - Pi - sigma (pi_c - pi_i)), net 9.7 mmHg at the stand-in values); the density
     at corresponding points is unchanged."""
     from uncertainty.inference import model_builder as mb

@@ -427,19 +427,22 @@ def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
     return out
 
 
-def _gradient(problem: Problem, names: list[str], value_of: Any, output: str, log: bool) -> np.ndarray | None:
-    """Gradient of an output (its log when ``log``) with respect to the scores of ``names`` at 0
-    (central finite differences; ``value_of(q, z)`` is q's value at score z, the other quantities at
-    their prior centres). None where it is zero or not finite."""
+def _output_at(problem: Problem, names: list[str], value_of: Any, output: str, z: np.ndarray) -> float:
+    """An output of the forward map (numpy) with the quantities ``names`` at scores z (``value_of(q,
+    z_q)``) and every other quantity at its prior centre."""
     from uncertainty.inference.observations.base import prior_centres
 
-    centre = prior_centres(problem)
+    vals = {**problem.fixed, **prior_centres(problem)}
+    vals.update({q: value_of(q, z[j]) for j, q in enumerate(names)})
+    return float(np.asarray(problem.evaluate(vals, np)[output]))
+
+
+def _gradient(problem: Problem, names: list[str], value_of: Any, output: str, log: bool) -> np.ndarray | None:
+    """Gradient of an output (its log when ``log``) with respect to the scores of ``names`` at 0
+    (central finite differences, ``_output_at``). None where it is zero or not finite."""
 
     def predict(z: np.ndarray) -> float:
-        vals = {**problem.fixed, **centre}
-        for j, q in enumerate(names):
-            vals[q] = value_of(q, z[j])
-        v = float(np.asarray(problem.evaluate(vals, np)[output]))
+        v = _output_at(problem, names, value_of, output, z)
         return float(np.log(v)) if log else v
 
     grad = np.zeros(len(names))
@@ -459,11 +462,14 @@ def _direction(problem: Problem, names: list[str], value_of: Any, output: str, l
     return None if grad is None else grad / np.linalg.norm(grad)
 
 
-def _householder(w: np.ndarray) -> np.ndarray:
-    """Orthogonal, symmetric H with first column the unit vector w (identity when w = e1)."""
-    v = w - np.eye(w.size)[0]
-    vv = float(v @ v)
-    return np.eye(w.size) if vv < 1e-24 else np.eye(w.size) - 2.0 * np.outer(v, v) / vv
+def _householder(w: Any, xp: Any = np, k: int | None = None) -> Any:
+    """Orthogonal, symmetric reflections H (..., k, k) whose first column is -sign(w_1) w, for unit
+    vectors w (..., k), numpy or PyTensor (give k, the static length, with PyTensor). v = w + sign(w_1) e1
+    keeps |v| >= 1 (no cancellation)."""
+    k = w.shape[-1] if k is None else k
+    sign = xp.where(w[..., 0] >= 0.0, 1.0, -1.0)
+    v = w + sign[..., None] * np.eye(k)[0]
+    return np.eye(k) - 2.0 * v[..., :, None] * v[..., None, :] / (v * v).sum(axis=-1)[..., None, None]
 
 
 #: A reading pins its subject (``_pinned_subjects``) when its error sd is below this fraction of the
@@ -509,8 +515,7 @@ def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> d
         w = grad / np.linalg.norm(grad)
 
         def miss(lam: float, w: np.ndarray = w, output: str = output, reading: float = float(obs.value)) -> float:
-            vals = {**problem.fixed, **centre, **{q: value_of(q, lam * w[j]) for j, q in enumerate(names)}}
-            return float(np.asarray(problem.evaluate(vals, np)[output])) - reading
+            return _output_at(problem, names, value_of, output, lam * w) - reading
 
         lam = _anchor(miss)
         out[labels.index(obs.subject)] = (output, lam * w)
@@ -627,9 +632,8 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     grad = ((f_steps[:k] - f_steps[k:]) / (2 * PIN_STEP)).T                          # (P, k)
     gnorm = pt.maximum(pt.sqrt((grad**2).sum(axis=1)), 1e-300)
     w = grad / gnorm[:, None]
-    sign = pt.switch(w[:, 0] >= 0.0, 1.0, -1.0)
-    v = pt.set_subtensor(w[:, 0], w[:, 0] + sign)
-    H = pt.eye(k)[None, :, :] - 2.0 * v[:, :, None] * v[:, None, :] / (v**2).sum(axis=1)[:, None, None]
+    sign = pt.where(w[:, 0] >= 0.0, 1.0, -1.0)
+    H = _householder(w, pt, k)
     mean = -(H * anchor[:, None, :]).sum(axis=-1)          # -H z*, the prior mean of u
     rest = (pm.Normal("pinned_scores", mean[:, 1:], 1.0, dims=("pinned_subject", "pinned_axis")) if k > 1
             else pt.zeros((len(pidx), 0)))
