@@ -30,14 +30,14 @@ def _study() -> SimpleNamespace:
 
 
 def _warm(*_: object) -> bool:
-    from uncertainty import design as dz
+    from uncertainty.analyses import design as dz
 
     dz._compiled_model("parallel")
     return True
 
 
 def fast_vs_exact() -> float:
-    from uncertainty import design as dz
+    from uncertainty.analyses import design as dz
 
     st = _study()
     t0 = time.perf_counter()
@@ -59,8 +59,8 @@ def fast_vs_exact() -> float:
 
 
 def dask_two_vs_one() -> float:
-    from uncertainty import design as dz
-    from uncertainty.parallel import make_executor
+    from uncertainty.analyses import design as dz
+    from uncertainty.core.parallel import make_executor
 
     st = _study()
     st.design = dict(st.design, n_range=[20, 40], n_points=8, exact_trials=25)

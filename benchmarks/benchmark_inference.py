@@ -32,7 +32,7 @@ CURVE = "obs0__volume_time_course"
 
 def simulated_data(seed: int = 20) -> dict[str, list]:
     """Invented readings of N_SUBJECTS subjects through the curve the model fits."""
-    from uncertainty.inference.observations import volume_time_course as vtc
+    from uncertainty.analyses.inference.observations import volume_time_course as vtc
     from uncertainty.physiology.interstitium import cuff_curve
 
     rng = np.random.default_rng(seed)
@@ -53,7 +53,7 @@ def simulated_data(seed: int = 20) -> dict[str, list]:
 
 def problem(parameterisation: str = "combinations") -> Any:
     """A Problem with a hierarchical Kf (forearm prior, per 100 g) and the simulated curves."""
-    from uncertainty.inference.problem import Problem, normalise_observations
+    from uncertainty.analyses.inference.problem import Problem, normalise_observations
     from uncertainty.physiology import starling
     from uncertainty.priors import Prior
 
@@ -84,8 +84,8 @@ def _quality(idata: Any, model: Any) -> tuple[float, float, int]:
 
 def ess_per_second(skip_pymc: bool) -> float | None:
     """nutpie against PyMC NUTS on the re-parameterised model: min bulk ESS / sampling seconds."""
-    from uncertainty.inference.model_builder import build_model
-    from uncertainty.inference.samplers import posterior_mode, sample
+    from uncertainty.analyses.inference.model_builder import build_model
+    from uncertainty.analyses.inference.samplers import posterior_mode, sample
 
     built = build_model(problem())
     mode, mode_s = posterior_mode(built.model)
@@ -122,8 +122,8 @@ def time_to_gate(parameterisation: str, cap: float) -> tuple[float, bool]:
 
     import nutpie
 
-    from uncertainty.inference.model_builder import build_model
-    from uncertainty.inference.samplers import _jittered_start, compile_model, posterior_mode
+    from uncertainty.analyses.inference.model_builder import build_model
+    from uncertainty.analyses.inference.samplers import _jittered_start, compile_model, posterior_mode
 
     t0 = time.perf_counter()
     built = build_model(problem(parameterisation))

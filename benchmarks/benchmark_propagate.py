@@ -64,8 +64,8 @@ def _best(f, repeat: int = 5) -> float:
 
 
 def forward_draws() -> float:
+    from uncertainty.analyses.sampling import draw
     from uncertainty.model import evaluate
-    from uncertainty.sampling import draw
 
     s = study()
     n = 10**6
@@ -86,7 +86,7 @@ def _mc_se_of_ends(batches: list[np.ndarray]) -> float:
 
 
 def fixed_accuracy() -> float:
-    from uncertainty.propagate import propagate
+    from uncertainty.analyses.propagate import propagate
 
     s = study()
     sd = float(np.std(bare_numpy(10**6, np.random.default_rng(9))))

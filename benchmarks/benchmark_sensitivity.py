@@ -33,8 +33,8 @@ def sobol_vs_salib() -> float:
     from SALib.analyze import sobol as sobol_analyze
     from SALib.sample import sobol as sobol_sample
 
-    from uncertainty.sampling import open_cube
-    from uncertainty.sensitivity import problem_from_study, sobol_core
+    from uncertainty.analyses.sampling import open_cube
+    from uncertainty.analyses.sensitivity import problem_from_study, sobol_core
 
     s = study()
     prob = problem_from_study(s, "Jv", "typical")

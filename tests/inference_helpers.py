@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from uncertainty.inference.problem import Problem, normalise_observations
+from uncertainty.analyses.inference.problem import Problem, normalise_observations
 from uncertainty.physiology import starling
 from uncertainty.priors import Prior
 

@@ -62,7 +62,7 @@ class FakeStudy:
 
 def load_fake(path: str | os.PathLike) -> FakeStudy:
     """A FakeStudy from a TOML file with [study] title/seed and any of the analysis sections."""
-    from uncertainty.errors import StudyError
+    from uncertainty.core.errors import StudyError
 
     data = Path(path).read_bytes()
     try:
@@ -162,7 +162,7 @@ def fake_sensitivity(study: FakeStudy, seed: int | None) -> FakeResult:
 
 
 def fake_design(study: FakeStudy, seed: int | None) -> FakeResult:
-    from uncertainty.errors import QualityGateError
+    from uncertainty.core.errors import QualityGateError
 
     CALLS.append("design")
     doc = {"n_per_arm": 42, "power": 0.81, "assurance": 0.6,
@@ -199,7 +199,7 @@ def install() -> None:
     """Point the runner at the stand-ins."""
     import importlib
 
-    run_mod = importlib.import_module("uncertainty.run")
+    run_mod = importlib.import_module("uncertainty.app.run")
 
     run_mod.LOADER = load_fake
     run_mod.ANALYSES.update(FAKES)
@@ -223,6 +223,6 @@ n_range = [10, 100]
 
 if __name__ == "__main__":  # python run_fakes.py STUDY OUT : a fake run in a subprocess
     install()
-    from uncertainty.run import run
+    from uncertainty.app.run import run
 
     run(sys.argv[1], sys.argv[2], progress=False)

@@ -9,9 +9,10 @@ import sys
 
 import pytest
 
-API = {"load_study": "uncertainty.study", "propagate": "uncertainty.propagate",
-       "sensitivity": "uncertainty.sensitivity", "infer": "uncertainty.inference", "rank": "uncertainty.rank",
-       "design": "uncertainty.design", "run": "uncertainty.run"}
+API = {"load_study": "uncertainty.study", "propagate": "uncertainty.analyses.propagate",
+       "sensitivity": "uncertainty.analyses.sensitivity", "infer": "uncertainty.analyses.inference",
+       "rank": "uncertainty.analyses.rank", "design": "uncertainty.analyses.design",
+       "schedule": "uncertainty.analyses.schedule", "run": "uncertainty.app.run"}
 
 
 def test_import_is_light():
@@ -43,18 +44,23 @@ def test_name_calls_the_library_function(name):
     assert api.__doc__ == fn.__doc__
 
 
-def test_submodule_import_does_not_shadow_the_function(monkeypatch):
+def test_api_calls_the_module_function_at_call_time(monkeypatch):
     import uncertainty
-    import uncertainty.run  # the import system sets the package attribute `run` to the module
-    from uncertainty.run import RunResult  # and `from module import name` still works
+    import uncertainty.app.run as run_module
 
-    assert uncertainty.run.RunResult is RunResult  # module attributes pass through
     seen = {}
 
     def fake(study_path, out_dir, **kw):
         seen["args"] = (study_path, out_dir, kw)
         return "ok"
 
-    monkeypatch.setattr(sys.modules["uncertainty.run"], "run", fake)
+    monkeypatch.setattr(run_module, "run", fake)
     assert uncertainty.run("s.toml", "out", force=True) == "ok"  # the API calls the module's function
     assert seen["args"] == ("s.toml", "out", {"force": True})
+
+
+def test_unknown_attribute_is_an_attribute_error():
+    import uncertainty
+
+    with pytest.raises(AttributeError):
+        uncertainty.no_such_name  # noqa: B018

@@ -11,7 +11,7 @@ import subprocess
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
+from uncertainty.app.cli import main
 
 GOOD = {"Pc": "25", "Pi": "-2", "pi_c": "25", "pi_i": "8", "sigma": "0.9", "Kf": "0.004"}
 

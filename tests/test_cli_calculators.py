@@ -7,7 +7,7 @@ import sys
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
+from uncertainty.app.cli import main
 
 SIX = ["--set", "Pc=25", "--set", "Pi=-2", "--set", "pi_c=25", "--set", "pi_i=8", "--set", "sigma=0.9",
        "--set", "Kf=0.004"]
@@ -155,7 +155,7 @@ def test_version():
 
 
 def test_top_level_help_imports_nothing_heavy():
-    code = ("import sys; from click.testing import CliRunner; from uncertainty.cli import main; "
+    code = ("import sys; from click.testing import CliRunner; from uncertainty.app.cli import main; "
             "r = CliRunner().invoke(main, ['--help']); assert r.exit_code == 0, r.output; "
             "heavy = [m for m in ('pymc', 'pytensor', 'matplotlib', 'SALib', 'pandas', 'dask', 'scipy', 'pint') "
             "if m in sys.modules]; print(heavy)")
@@ -172,7 +172,7 @@ def test_table_gives_each_force_as_a_share_of_the_net_pressure() -> None:
     # hand Starling sum (common practice): 30 + 3 - 0.9*25 + 0.9*8 = 17.7 mmHg; Pc is 30/17.7 = 169% of it
     from click.testing import CliRunner
 
-    from uncertainty.cli import main
+    from uncertainty.app.cli import main
 
     args = ["filtration", "--set", "Pc=30", "--set", "Pi=-3", "--set", "pi_c=25", "--set", "pi_i=8",
             "--set", "sigma=0.9", "--set", "Kf=0.004"]

@@ -10,12 +10,12 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from uncertainty import trial_power as tp
-from uncertainty.errors import InputError
+from uncertainty.analyses.design import trial_power as tp
+from uncertainty.core.errors import InputError
 from uncertainty.priors import parse_prior
 
-# the module itself: the package attribute uncertainty.design is the API function
-dz = importlib.import_module("uncertainty.design")
+# the module itself: the package attribute uncertainty.analyses.design is the API function
+dz = importlib.import_module("uncertainty.analyses.design")
 
 
 def _study(section: dict, **priors: dict) -> SimpleNamespace:
@@ -181,7 +181,7 @@ def test_bad_design_input_names_file_key_value(patch: dict, key: str) -> None:
 
 
 def test_same_numbers_for_same_seed_and_any_executor(tmp_path) -> None:
-    from uncertainty.parallel import InProcess
+    from uncertainty.core.parallel import InProcess
 
     st = _study(dict(BASE, trials=200))
     a = dz.design(st, seed=3).to_dict()["curve"]
@@ -192,7 +192,7 @@ def test_same_numbers_for_same_seed_and_any_executor(tmp_path) -> None:
 
 
 def test_checkpoint_resumes_an_unchanged_study_and_never_reuses_a_changed_one(tmp_path, monkeypatch) -> None:
-    from uncertainty.parallel import InProcess
+    from uncertainty.core.parallel import InProcess
 
     calls: list[int] = []
     run_point = dz._run_point
@@ -219,7 +219,7 @@ def test_checkpoint_resumes_an_unchanged_study_and_never_reuses_a_changed_one(tm
 
 @pytest.mark.slow
 def test_two_dask_workers_give_the_in_process_numbers() -> None:
-    from uncertainty.parallel import make_executor
+    from uncertainty.core.parallel import make_executor
 
     st = _study(dict(BASE, trials=200))
     ref = dz.design(st, seed=3).to_dict()["curve"]

@@ -7,7 +7,7 @@ import json
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
+from uncertainty.app.cli import main
 
 HEAD = '[study]\ntissue = "skeletal_muscle"\nseed = 5\n'
 # invented trial settings for command-line checks (the figures are checked elsewhere against closed forms)

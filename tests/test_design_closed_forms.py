@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from uncertainty import trial_power as tp
+from uncertainty.analyses.design import trial_power as tp
 
 
 def test_normal_approximation_sample_size() -> None:

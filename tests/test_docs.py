@@ -1,4 +1,4 @@
-"""docs/study-file.md cannot drift from the pydantic schema in uncertainty/study.py."""
+"""docs/study-file.md cannot drift from the pydantic schema in uncertainty/study/__init__.py."""
 
 from __future__ import annotations
 
@@ -9,7 +9,8 @@ from pathlib import Path
 import pytest
 from pydantic import BaseModel
 
-from uncertainty import docs_gen, study
+from uncertainty import study
+from uncertainty.app import docs_gen
 
 DOC = Path(__file__).resolve().parent.parent / "docs" / "study-file.md"
 
@@ -31,7 +32,7 @@ def _tables() -> dict[str, dict[str, list[str]]]:
 
 def test_doc_is_generated_from_schema():
     assert DOC.read_text(encoding="utf-8") == docs_gen.render(), (
-        "docs/study-file.md is out of date with uncertainty/study.py: run `python -m uncertainty.docs_gen`")
+        "docs/study-file.md is out of date with the study schema: run `python -m uncertainty.app.docs_gen`")
 
 
 def _section_models() -> list[type[BaseModel]]:
@@ -90,10 +91,10 @@ def test_every_distribution_is_documented():
 
 
 def test_results_doc_is_generated_from_bundle_schema():
-    from uncertainty import bundle
+    from uncertainty.app import bundle
 
     text = (DOC.parent / "results.md").read_text(encoding="utf-8")
-    assert text == docs_gen.render_results(), "docs/results.md is out of date: run `python -m uncertainty.docs_gen`"
+    assert text == docs_gen.render_results(), "docs/results.md is out of date: run `python -m uncertainty.app.docs_gen`"
     for model in (bundle.ResultsDoc, bundle.SectionRecord, bundle.Provenance):
         for name, f in model.model_fields.items():
             assert f"| `{f.alias or name}` |" in text

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
-from uncertainty.errors import StudyError
+from uncertainty.app.cli import main
+from uncertainty.core.errors import StudyError
 from uncertainty.model import evaluate
 from uncertainty.physiology.glomerulus import glomerular_filtration
 from uncertainty.study import Study
@@ -165,8 +165,8 @@ def test_glomerular_observations_build_and_prior_predictive():
     # GFR and FF readings are terms of the PyMC model; their prior predictive centres on the forward
     # model at the human textbook priors (GFR about 125 mL/min, FF about 0.2: textbook estimates).
     pm = pytest.importorskip("pymc")
-    from uncertainty.inference.model_builder import build_model
-    from uncertainty.inference.problem import problem_from_study
+    from uncertainty.analyses.inference.model_builder import build_model
+    from uncertainty.analyses.inference.problem import problem_from_study
 
     obs = [{"kind": "GFR", "value": 110.0, "sd": 8.0, "unit": "mL/min"},
            {"kind": "filtration_fraction", "value": 0.17, "sd": 0.015},
@@ -218,7 +218,7 @@ def test_no_filtration_is_an_output():
 
 
 def test_propagate_notes_kf_bounded_below_at_rat_equilibrium():
-    from uncertainty.propagate import propagate
+    from uncertainty.analyses.propagate import propagate
 
     s = _rat(RAT)
     # the whole-kidney scaling leaves Kf/Q_A as per glomerulus: the study at its medians is the
@@ -237,7 +237,7 @@ def test_propagate_notes_kf_bounded_below_at_rat_equilibrium():
 
 
 def test_propagate_has_no_note_without_equilibrium():
-    from uncertainty.propagate import propagate
+    from uncertainty.analyses.propagate import propagate
 
     r = propagate(_rat(HIGH_FLOW), samples=2048, outputs=["GFR", "FF", "equilibrium"])
     assert r.summaries["individual"]["equilibrium"].mean < 0.05
@@ -265,8 +265,8 @@ def test_propagate_command_prints_the_note(tmp_path):
 def test_inference_summary_notes_from_posterior_draws():
     # The inference summary evaluates the model on the posterior draws; here prior draws stand in for them
     # (no sampling). Rat values -> the note; high plasma flow -> none.
-    from uncertainty.inference.api import posterior_output_notes
-    from uncertainty.inference.problem import problem_from_study
+    from uncertainty.analyses.inference.api import posterior_output_notes
+    from uncertainty.analyses.inference.problem import problem_from_study
 
     rng = np.random.default_rng(5)
     for params, expect in ((RAT, True), (HIGH_FLOW, False)):

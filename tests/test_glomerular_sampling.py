@@ -19,7 +19,7 @@ HEAD = {"title": "invented: glomerular sampling check", "tissue": "glomerulus", 
 @pytest.mark.slow  # compiles the glomerular scan with numba (nutpie) and samples 2 short chains
 def test_glomerular_study_samples_with_nutpie():
     pytest.importorskip("nutpie")
-    from uncertainty.inference import fit
+    from uncertainty.analyses.inference import fit
 
     # invented reading: whole-kidney GFR 100 mL/min, sd 5 (below the textbook prior of about 125 mL/min,
     # common practice), so the posterior must move down from the prior

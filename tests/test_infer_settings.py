@@ -13,11 +13,11 @@ from typing import Any
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
-from uncertainty.inference.api import settings
+from uncertainty.analyses.inference.api import settings
+from uncertainty.app.cli import main
 from uncertainty.study import Study
 
-api = importlib.import_module("uncertainty.inference.api")
+api = importlib.import_module("uncertainty.analyses.inference.api")
 
 BASE = {"study": {"tissue": "skeletal_muscle", "seed": 3},
         "observations": [{"kind": "measurement", "parameter": "Pc", "value": 20.0, "sd": 2.0, "unit": "mmHg"}]}
@@ -70,7 +70,7 @@ def test_infer_passes_the_study_settings_to_the_sampler(monkeypatch: pytest.Monk
 
 def test_cli_flags_override_study_keys(monkeypatch: pytest.MonkeyPatch, tmp_path: Any) -> None:
     seen: dict[str, Any] = {}
-    inference = importlib.import_module("uncertainty.inference")
+    inference = importlib.import_module("uncertainty.analyses.inference")
 
     def fake_infer(study: Any, **kw: Any) -> Any:
         seen.update(kw)

@@ -7,7 +7,7 @@ import json
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
+from uncertainty.app.cli import main
 
 # Invented study: Kf and Pc uncertain, the other forces fixed (test scaffolding).
 STUDY = """

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from inference_helpers import FIXED, lognormal, normal, problem
 
-from uncertainty.inference.api import fit
-from uncertainty.inference.result import flat
+from uncertainty.analyses.inference.api import fit
+from uncertainty.analyses.inference.result import flat
 
 pytestmark = pytest.mark.slow
 
@@ -94,7 +94,7 @@ def test_power_scaling_flags_the_prior_only_where_the_reading_is_weak(reading_sd
     sd 2 / sqrt(alpha); with a reading of sd 0.2 the posterior sd, (alpha / 4 + 25)^-1/2, hardly moves
     (prior sensitivity below the threshold, likelihood sensitivity above); with a reading of sd 20 the
     posterior is nearly the prior and moves with it (flagged, prior dominates)."""
-    from uncertainty.inference.checks import PSENS_THRESHOLD, power_scaling, top_level
+    from uncertainty.analyses.inference.checks import PSENS_THRESHOLD, power_scaling, top_level
 
     obs = [{"kind": "measurement", "parameter": "Pc", "value": 21.0, "sd": reading_sd}]
     result = fit(problem({"Pc": normal("Pc", 20.0, 2.0)}, obs), seed=5, draws=1000, tune=500, checks=False)

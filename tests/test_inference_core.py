@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from inference_helpers import FIXED, lognormal, normal, problem
 
-from uncertainty.errors import InputError
-from uncertainty.inference.diagnostics import Gate, diagnose
-from uncertainty.inference.model_builder import build_model
-from uncertainty.inference.result import summarise
+from uncertainty.analyses.inference.diagnostics import Gate, diagnose
+from uncertainty.analyses.inference.model_builder import build_model
+from uncertainty.analyses.inference.result import summarise
+from uncertainty.core.errors import InputError
 
 
 def test_summarise_matches_numpy_and_arviz_hdi():
@@ -104,8 +104,8 @@ def test_lymph_flow_reads_the_models_lymph_output_where_it_has_one():
     import pymc as pm
     from inference_helpers import FIXED, normal, starling_outputs
 
-    from uncertainty.inference.model_builder import build_model
-    from uncertainty.inference.problem import Problem, normalise_observations
+    from uncertainty.analyses.inference.model_builder import build_model
+    from uncertainty.analyses.inference.problem import Problem, normalise_observations
 
     j_epi = 0.2  # mL/min/100 g, invented epithelial flow for the check
 
@@ -126,8 +126,8 @@ def test_lymph_flow_reads_the_models_lymph_output_where_it_has_one():
 def test_unknown_start_is_an_input_error():
     from inference_helpers import normal, problem
 
-    from uncertainty.errors import InputError
-    from uncertainty.inference.api import fit
+    from uncertainty.analyses.inference.api import fit
+    from uncertainty.core.errors import InputError
 
     with pytest.raises(InputError) as err:
         fit(problem({"Pc": normal("Pc", 20.0, 2.0)}, [{"kind": "lymph_flow", "value": 0.05, "sd": 0.01}]),
@@ -143,7 +143,7 @@ def test_lymph_subjects_sampled_centred_on_their_reading_with_the_same_density(m
     ratios); the log density at corresponding points is the plain model's plus the log of it."""
     import pymc as pm
 
-    from uncertainty.inference import model_builder as mb
+    from uncertainty.analyses.inference import model_builder as mb
 
     priors = {"Pc": normal("Pc", 24, 2, between_subject={"sd": 3.0}),
               "Pi": normal("Pi", -1, 1, between_subject={"sd": 1.5})}
@@ -155,7 +155,7 @@ def test_lymph_subjects_sampled_centred_on_their_reading_with_the_same_density(m
     plain = build_model(problem(priors, obs))
     assert {"Pc__subject_z", "Pi__subject_z"} <= {v.name for v in plain.model.free_RVs}
     # power scaling scales the declared priors only, whichever way the subject layer is sampled
-    from uncertainty.inference.checks import top_level
+    from uncertainty.analyses.inference.checks import top_level
     expected = {"typical_scores", "Pc__spread_z", "Pi__spread_z"}
     assert set(top_level(built.model)) == expected == set(top_level(plain.model))
     rng = np.random.default_rng(4)
@@ -198,7 +198,7 @@ def test_pinned_change_of_variables_is_exact_where_the_output_is_nonlinear(monke
     at corresponding points differs by log |dz/dt|, the Jacobian of the map from the free prediction t
     to the scores z (H is orthogonal), here found by central finite differences (numpy, outside the
     builder)."""
-    from uncertainty.inference import model_builder as mb
+    from uncertainty.analyses.inference import model_builder as mb
 
     priors = {"Kf": lognormal("Kf", 0.004, 1.3, between_subject={"cv": 0.4}),
               "Pc": normal("Pc", 24, 2, between_subject={"sd": 3.0})}
@@ -237,7 +237,7 @@ def test_householder_reflection_numpy_and_pytensor(w):
     form w - e1 would vanish); numpy and PyTensor give the same matrix."""
     import pytensor.tensor as pt
 
-    from uncertainty.inference.model_builder import _householder
+    from uncertainty.analyses.inference.model_builder import _householder
 
     w = np.asarray(w)
     H = _householder(w)
@@ -252,7 +252,7 @@ def test_householder_reflection_numpy_and_pytensor(w):
                                             (lambda lam: lam + 7.0, -3.0),
                                             (lambda lam: np.nan, 0.0)])      # not finite: the typical subject
 def test_anchor_root_or_nearer_end_or_typical(miss, expected):
-    from uncertainty.inference.model_builder import ANCHOR_MAX, _anchor
+    from uncertainty.analyses.inference.model_builder import ANCHOR_MAX, _anchor
 
     assert ANCHOR_MAX == 3.0
     assert _anchor(miss) == pytest.approx(expected, abs=1e-6)
@@ -263,7 +263,7 @@ def test_typical_scores_reflected_along_the_pinned_typical_direction(monkeypatch
     reflected so that the first axis is -+ d log Jv / dz, which is (log gsd_Kf, sd_Pc / net) in closed
     form (Jv = Kf (Pc - Pi - sigma (pi_c - pi_i)), net 9.7 mmHg at the stand-in values); the density
     at corresponding points is unchanged."""
-    from uncertainty.inference import model_builder as mb
+    from uncertainty.analyses.inference import model_builder as mb
 
     kf = lognormal("Kf", 0.004, 1.3, between_subject={"cv": 0.3})
     priors = {"Kf": kf, "Pc": normal("Pc", 24, 2)}

@@ -21,8 +21,8 @@ import pytest
 from inference_helpers import FIXED, lognormal, normal, problem, starling_outputs
 from scipy import integrate, stats
 
-from uncertainty.inference.api import fit
-from uncertainty.inference.result import flat
+from uncertainty.analyses.inference.api import fit
+from uncertainty.analyses.inference.result import flat
 from uncertainty.physiology import solute
 from uncertainty.priors import Prior
 

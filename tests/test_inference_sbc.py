@@ -14,8 +14,8 @@ import pytest
 from inference_helpers import FIXED, lognormal, normal, problem, starling_outputs
 from scipy import stats
 
-from uncertainty.inference.api import Session
-from uncertainty.inference.result import flat
+from uncertainty.analyses.inference.api import Session
+from uncertainty.analyses.inference.result import flat
 
 pytestmark = pytest.mark.slow
 

@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 from inference_helpers import FIXED, lognormal, starling_outputs
 
-from uncertainty.inference.observations import volume_time_course as vtc
-from uncertainty.inference.problem import Problem, normalise_observations
+from uncertainty.analyses.inference.observations import volume_time_course as vtc
+from uncertainty.analyses.inference.problem import Problem, normalise_observations
 from uncertainty.physiology import interstitium
 
 STEPS = [(0.0, 20.0), (4.0, 30.0), (8.0, 40.0), (12.0, 50.0), (16.0, 60.0)]  # invented protocol
@@ -88,7 +88,7 @@ def test_rounded_corner_is_softplus_and_backends_agree():
 
 
 def test_reparameterised_model_samples_cuff_scale_combinations_in_subject_frames():
-    from uncertainty.inference.model_builder import build_model
+    from uncertainty.analyses.inference.model_builder import build_model
 
     rng = np.random.default_rng(1)
     data = simulate(np.array([0.003, 0.004, 0.0035]), np.array([12.0, 16.0, 20.0]),
@@ -110,7 +110,7 @@ def test_table_and_reading_by_reading_likelihoods_agree(monkeypatch):
     log density and gradient as evaluating the curve reading by reading."""
     import pytensor.tensor as pt
 
-    from uncertainty.inference.model_builder import build_model
+    from uncertainty.analyses.inference.model_builder import build_model
 
     rng = np.random.default_rng(3)
     data = simulate(np.array([0.003, 0.004, 0.0035]), np.array([12.0, 16.0, 20.0]),
@@ -143,7 +143,7 @@ def test_subject_frames_keep_the_declared_prior():
     import pymc as pm
     from scipy import stats
 
-    from uncertainty.inference.model_builder import SPREAD_LOG_SD, build_model
+    from uncertainty.analyses.inference.model_builder import SPREAD_LOG_SD, build_model
 
     rng = np.random.default_rng(7)
     data = simulate(np.array([0.003, 0.005, 0.0035]), np.array([12.0, 22.0, 18.0]),
@@ -180,7 +180,7 @@ def test_frame_falls_back_to_the_prior_scales_when_a_fit_fails(monkeypatch):
     with no shift (the model is exact either way), and the model still builds and evaluates."""
     import scipy.optimize
 
-    from uncertainty.inference.model_builder import build_model
+    from uncertainty.analyses.inference.model_builder import build_model
 
     def failing(*args, **kwargs):
         raise ValueError("residuals are not finite")   # what least_squares raises on a bad curve
@@ -216,7 +216,7 @@ def test_lymph_subject_linearised_at_its_own_curve_fit():
     frame fit), not at the prior centre (29% lower for this subject)."""
     from inference_helpers import normal
 
-    from uncertainty.inference.model_builder import build_model
+    from uncertainty.analyses.inference.model_builder import build_model
 
     kf = np.array([0.0025, 0.0035, 0.0045, 0.0030])   # mL/min/mmHg/100 mL, invented truths
     data = simulate(kf, np.array([10.0, 14.0, 18.0, 22.0]), np.array([0.035, 0.045, 0.050, 0.040]),
@@ -235,8 +235,8 @@ def test_lymph_subject_linearised_at_its_own_curve_fit():
 @pytest.mark.slow
 def test_simulated_subjects_recovered_with_default_gate():
     """Four simulated subjects (invented truths) are each recovered inside their 95% interval."""
-    from uncertainty.inference.api import Session
-    from uncertainty.inference.result import flat
+    from uncertainty.analyses.inference.api import Session
+    from uncertainty.analyses.inference.result import flat
 
     kf = np.array([0.0025, 0.0035, 0.0045, 0.0030])   # mL/min/mmHg/100 mL, invented truths
     pvi = np.array([10.0, 14.0, 18.0, 22.0])           # mmHg, invented truths
@@ -270,8 +270,8 @@ def test_sbc_cuff_curves_ranks_uniform_and_coverage_binomial():
     import pymc as pm
     from scipy import stats
 
-    from uncertainty.inference.api import Session
-    from uncertainty.inference.result import flat
+    from uncertainty.analyses.inference.api import Session
+    from uncertainty.analyses.inference.result import flat
 
     shape = simulate(np.array([0.003, 0.004, 0.0035]), np.array([12.0, 16.0, 20.0]),
                      np.array([0.04, 0.05, 0.045]), np.random.default_rng(11))  # layout only
@@ -307,7 +307,7 @@ def test_posterior_mode_start_is_the_conjugate_mode_and_flattens_in_nutpie_order
     lists every free variable in the model's order within +/-START_JITTER of the mode."""
     import pymc as pm
 
-    from uncertainty.inference import samplers
+    from uncertainty.analyses.inference import samplers
 
     y = np.array([1.2, 0.7, 1.9])  # invented readings
     with pm.Model() as model:

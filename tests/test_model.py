@@ -62,7 +62,7 @@ def test_lung_pc_from_gaar() -> None:
 def test_steady_forms_balance_fluid_and_protein(model: str) -> None:
     s = _study(model)
     assert "Pi" not in s.priors and "pi_i" not in s.priors
-    from uncertainty.sampling import draw
+    from uncertainty.analyses.sampling import draw
 
     v = draw(s, 256, method="mc", seed=11, layer="typical")
     out = evaluate(s, v)
@@ -103,7 +103,7 @@ def test_pytensor_matches_numpy(model: str) -> None:
     import pytensor.tensor as pt
 
     s = _study(model, head={"tissue_mass": "2 kg"})
-    from uncertainty.sampling import draw
+    from uncertainty.analyses.sampling import draw
 
     v = draw(s, 64, method="mc", seed=5)
     syms = list(s.priors)

@@ -15,11 +15,11 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
-from uncertainty.errors import StudyError
+from uncertainty.analyses.propagate import propagate
+from uncertainty.app.cli import main
+from uncertainty.core.errors import StudyError
 from uncertainty.model import evaluate, required_inputs
 from uncertainty.physiology import lung, mucosa
-from uncertainty.propagate import propagate
 from uncertainty.study import Study
 
 PRIORS = Path(__file__).resolve().parents[1] / "priors"

@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parent.parent
-PROBE = ("from uncertainty.resources import priors_dir, studies_dir; import uncertainty; "
+PROBE = ("from uncertainty.core.resources import priors_dir, studies_dir; import uncertainty; "
          "print(uncertainty.__file__); print(priors_dir()); "
          "print(sorted(p.name for p in priors_dir().glob('*.toml')))")
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from uncertainty.parallel import InProcess, make_executor, task_seeds
+from uncertainty.core.parallel import InProcess, make_executor, task_seeds
 
 
 def _draw(task: int, ss: np.random.SeedSequence) -> float:

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from uncertainty.errors import InputError
+from uncertainty.core.errors import InputError
 from uncertainty.physiology import interstitium as it
 
 # Human-limb-like values (from memory, order of magnitude; per 100 mL tissue): Kf 0.004

@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from uncertainty.errors import InputError
+from uncertainty.core.errors import InputError
 from uncertainty.physiology import oncotic
 
 

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from uncertainty.errors import StudyError
+from uncertainty.core.errors import StudyError
 from uncertainty.priors import (
     Condition,
     Context,

@@ -10,8 +10,8 @@ import pytest
 from fakes_uncertainty import CLASSIC, SIGMA, classic_study, evaluate
 from scipy import stats
 
-from uncertainty.errors import InputError, QualityGateError
-from uncertainty.propagate import propagate, summarize
+from uncertainty.analyses.propagate import propagate, summarize
+from uncertainty.core.errors import InputError, QualityGateError
 
 
 def product_moments():
@@ -191,7 +191,7 @@ def test_command_json_gate_and_bad_input(tmp_path):
 
     from click.testing import CliRunner
 
-    from uncertainty.cli import main
+    from uncertainty.app.cli import main
 
     runner = CliRunner()
     res = runner.invoke(main, ["propagate", _demo_path(), "--samples", "1024", "--json",

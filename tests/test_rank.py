@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from uncertainty.errors import InputError
-from uncertainty.rank import Reading, rank_draws
+from uncertainty.analyses.rank import Reading, rank_draws
+from uncertainty.core.errors import InputError
 
 # Linear-Gaussian model Y = sum_i c_i theta_i, theta_i ~ N(0, v_i) independent, reading X = theta + N(0, s^2):
 # E[Var(Y)] - E[Var(Y|X)] = c^2 v^2 / (v + s^2) (normal conditioning; common practice, any Bayesian text).
@@ -157,7 +157,7 @@ def _conjugate_doc(tmp_path) -> dict:
 
 @pytest.mark.slow
 def test_rank_from_posterior_matches_two_reading_conjugate_closed_form(tmp_path) -> None:
-    from uncertainty.rank import rank
+    from uncertainty.analyses.rank import rank
     from uncertainty.study import Study
 
     study = Study.from_dict(_conjugate_doc(tmp_path), base_dir=tmp_path)

@@ -13,10 +13,10 @@ from pathlib import Path
 import pytest
 import run_fakes
 
-from uncertainty import report
+from uncertainty.app import report
 
-# the module itself: the package attribute uncertainty.run is the API function
-run_mod = importlib.import_module("uncertainty.run")
+# the module itself: the package attribute uncertainty.app.run is the API function
+run_mod = importlib.import_module("uncertainty.app.run")
 
 CHROMIUM = next((shutil.which(n) for n in ("chromium", "chromium-browser") if shutil.which(n)), None)
 needs_chromium = pytest.mark.skipif(

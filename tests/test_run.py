@@ -16,11 +16,11 @@ import pandas as pd
 import pytest
 import run_fakes
 
-from uncertainty import bundle as bundle_mod
-from uncertainty.errors import FluidshiftError, InputError, QualityGateError, StudyError
+from uncertainty.app import bundle as bundle_mod
+from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError, StudyError
 
-# the module itself: the package attribute uncertainty.run is the API function
-run_mod = importlib.import_module("uncertainty.run")
+# the module itself: the package attribute uncertainty.app.run is the API function
+run_mod = importlib.import_module("uncertainty.app.run")
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent

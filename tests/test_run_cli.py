@@ -1,4 +1,4 @@
-"""`fluidshift run` and `fluidshift demo`: thin commands over uncertainty.run.run; exit statuses 0 / 2 / 3."""
+"""`fluidshift run` and `fluidshift demo`: thin commands over uncertainty.app.run.run; exit statuses 0 / 2 / 3."""
 
 from __future__ import annotations
 
@@ -9,10 +9,10 @@ import pytest
 import run_fakes
 from click.testing import CliRunner
 
-from uncertainty.cli import main
+from uncertainty.app.cli import main
 
-# the module itself: the package attribute uncertainty.run is the API function
-run_mod = importlib.import_module("uncertainty.run")
+# the module itself: the package attribute uncertainty.app.run is the API function
+run_mod = importlib.import_module("uncertainty.app.run")
 
 
 @pytest.fixture
@@ -81,7 +81,7 @@ def test_force_recomputes(fakes, study, tmp_path):
 
 
 def test_demo_runs_the_bundled_study(fakes, tmp_path):
-    from uncertainty.resources import studies_dir
+    from uncertainty.core.resources import studies_dir
 
     out = tmp_path / "demo"
     res = CliRunner().invoke(main, ["demo", "--out", str(out), "--quiet"])
@@ -99,7 +99,7 @@ def test_quiet_hides_library_chatter(capfd):
 
     import click
 
-    from uncertainty.commands.common import handle_errors
+    from uncertainty.app.commands.common import handle_errors
 
     @click.command()
     @click.option("--quiet", is_flag=True)

@@ -13,8 +13,8 @@ from pathlib import Path
 import pytest
 from test_report import check_in_browser, needs_chromium
 
-from uncertainty import bundle as bundle_mod
-from uncertainty.resources import studies_dir
+from uncertainty.app import bundle as bundle_mod
+from uncertainty.core.resources import studies_dir
 
 pytestmark = pytest.mark.slow  # PyMC sampling inside
 
@@ -23,7 +23,7 @@ ANALYSES = ("propagate", "sensitivity", "infer", "rank", "design")
 
 def _fluidshift() -> list[str]:
     exe = shutil.which("fluidshift")
-    return [exe] if exe else [sys.executable, "-c", "from uncertainty.cli import main; main()"]
+    return [exe] if exe else [sys.executable, "-c", "from uncertainty.app.cli import main; main()"]
 
 
 @pytest.fixture(scope="module")
@@ -85,7 +85,7 @@ def test_demo_report_renders_in_chromium(demo, tmp_path):
 
 def test_same_study_and_seed_same_numbers(demo, tmp_path):
     """The demo's forward sections, run again from a copy without observations (no PyMC), twice."""
-    from uncertainty.run import run
+    from uncertainty.app.run import run
 
     _, out = demo
     text = (studies_dir() / "demo.toml").read_text()

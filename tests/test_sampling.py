@@ -8,14 +8,14 @@ import numpy as np
 import pytest
 from fakes_uncertainty import classic_study
 
-from uncertainty.errors import InputError
-from uncertainty.sampling import (
+from uncertainty.analyses.sampling import (
     cube,
     cube_columns,
     draw,
     from_cube,
     next_power_of_two,
 )
+from uncertainty.core.errors import InputError
 
 
 def test_columns_typical_then_between_subject():
@@ -81,7 +81,7 @@ def test_same_seed_same_numbers_and_seeds_differ():
 def test_from_cube_extremes_stay_finite():
     s = classic_study()
     u = np.array([[1e-300] * 7, [1 - 1e-17] * 7, [0.0] * 7, [1.0] * 7])
-    from uncertainty.sampling import open_cube
+    from uncertainty.analyses.sampling import open_cube
 
     v = from_cube(s, open_cube(u))
     assert all(np.all(np.isfinite(x)) for x in v.values())
@@ -101,8 +101,8 @@ def test_bad_input():
 
 
 def test_fast_score_map_agrees_with_exact_path():
+    from uncertainty.analyses.sampling import scores_to_values
     from uncertainty.priors import parse_prior
-    from uncertainty.sampling import scores_to_values
 
     z = np.random.default_rng(0).standard_normal(50000) * 2.5
     z[:3] = [-9.0, 9.5, 0.0]  # beyond the spline grid: exact map

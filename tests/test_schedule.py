@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from uncertainty import schedule as sch
-from uncertainty.errors import InputError, StudyError
+from uncertainty.analyses import schedule as sch
+from uncertainty.core.errors import InputError, StudyError
 from uncertainty.study import ScheduleSection, Study
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -126,7 +126,7 @@ def test_bad_schedule_input_names_the_key() -> None:
 
 
 def test_cli_design_schedule_json_and_figure(tmp_path) -> None:
-    from uncertainty.cli import main
+    from uncertainty.app.cli import main
 
     res = CliRunner().invoke(main, ["design", str(FOREARM), "--schedule", "--json", "--out", str(tmp_path)])
     assert res.exit_code == 0, res.output
@@ -138,7 +138,7 @@ def test_cli_design_schedule_json_and_figure(tmp_path) -> None:
 
 def test_run_includes_the_schedule_section(tmp_path) -> None:
     # DESIGN.md section 4: every analysis section present is run by `fluidshift run`, [schedule] included
-    from uncertainty.run import run
+    from uncertainty.app.run import run
 
     study = tmp_path / "s.toml"
     study.write_text('[study]\ntitle = "invented"\ntissue = "skeletal_muscle"\nseed = 2\n'

@@ -11,8 +11,7 @@ import pytest
 from fakes_uncertainty import CLASSIC, SIGMA, classic_study, evaluate
 from scipy import stats
 
-from uncertainty.errors import InputError
-from uncertainty.sensitivity import (
+from uncertainty.analyses.sensitivity import (
     Problem,
     _index_warnings,
     first_order_given_data,
@@ -23,6 +22,7 @@ from uncertainty.sensitivity import (
     shapley_core,
     sobol_core,
 )
+from uncertainty.core.errors import InputError
 
 
 def product_indices():
@@ -334,7 +334,7 @@ def test_command_refuses_sobol_on_correlated_study_and_runs_shapley():
 
     from click.testing import CliRunner
 
-    from uncertainty.cli import main
+    from uncertainty.app.cli import main
 
     demo = str(Path(__file__).resolve().parents[1] / "studies" / "demo.toml")
     runner = CliRunner()
@@ -353,7 +353,7 @@ def test_study_section_asks_for_second_order_indices() -> None:
     # [sensitivity] second_order = true reaches sobol_core; for Jv = Kf * net pressure (a product) the
     # interaction of Kf with the pressures is positive (closed form of a product of independent factors:
     # Var = E[Kf]^2 Var[net] + Var[Kf] E[net]^2 + Var[Kf] Var[net], the last term the interaction)
-    from uncertainty.sensitivity import sensitivity
+    from uncertainty.analyses.sensitivity import sensitivity
     from uncertainty.study import Study
 
     doc = {"study": {"tissue": "skeletal_muscle", "seed": 4},

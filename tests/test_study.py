@@ -15,10 +15,10 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from uncertainty.cli import main
-from uncertainty.errors import StudyError
+from uncertainty.app.cli import main
+from uncertainty.core.errors import StudyError
+from uncertainty.core.resources import studies_dir
 from uncertainty.priors import load_prior_set
-from uncertainty.resources import studies_dir
 from uncertainty.study import Study, load_study
 
 MUSCLE = load_prior_set("skeletal_muscle")

@@ -16,8 +16,8 @@ from click.testing import CliRunner
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from uncertainty.cli import main
-from uncertainty.errors import StudyError
+from uncertainty.app.cli import main
+from uncertainty.core.errors import StudyError
 from uncertainty.study import Study
 
 BAD = Path(__file__).parent / "bad_studies"

@@ -2,8 +2,8 @@
 
 import pytest
 
-from uncertainty.errors import UnitError
-from uncertainty.units import basis_factor, basis_of, canonical_unit, parse, to_canonical
+from uncertainty.core.errors import UnitError
+from uncertainty.core.units import basis_factor, basis_of, canonical_unit, parse, to_canonical
 
 # 1 mmHg = 133.322387415 Pa (conventional millimetre of mercury; BIPM SI Brochure, 8th ed., Table 9)
 MMHG_PA = 133.322387415

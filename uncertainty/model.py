@@ -145,7 +145,7 @@ def evaluate(study: Any, values: Mapping[str, Any], xp: Any = np) -> dict[str, A
     for k in ("Pc", "Pi", "pi_c", "pi_i"):
         out[f"force_{k}"] = forces[k]
     if study.tissue_mass_kg is not None:
-        from uncertainty.units import basis_factor
+        from uncertainty.core.units import basis_factor
 
         per_organ = basis_factor("100g", "organ", tissue_mass_kg=study.tissue_mass_kg, symbol="Jv")
         out["Jv_mL_per_h"] = Jv * (per_organ * 60.0)

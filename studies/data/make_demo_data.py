@@ -36,7 +36,7 @@ NOISE_SD = 0.01     # reading noise, mL/100 mL
 
 def forearm_volumes(rng: np.random.Generator, n_subjects: int = 16) -> list[dict[str, object]]:
     """Invented limb-volume change (mL/100 mL) against time for each subject and group."""
-    from uncertainty.inference.observations.volume_time_course import SMOOTH_MMHG
+    from uncertainty.analyses.inference.observations.volume_time_course import SMOOTH_MMHG
     from uncertainty.physiology.interstitium import cuff_curve
 
     rows: list[dict[str, object]] = []

@@ -23,7 +23,7 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.errors import InputError
+from uncertainty.core.errors import InputError
 
 Array = Any
 

@@ -1,0 +1,1 @@
+"""The analyses: each folder owns its computation, result, figure, table and report section."""

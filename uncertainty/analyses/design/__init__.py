@@ -1,0 +1,815 @@
+"""Trial design: power, assurance, Bayesian success and sample size for a study's ``[design]``.
+
+Designs: ``parallel`` (two arms; with ``baseline = true`` analysed by ANCOVA on the baseline) and
+``paired`` (before/after in the same subjects; needs ``within_subject`` test-retest spread).
+The effect is a ``shift`` (natural units, analysed on the natural scale) or a ``multiply`` (a
+ratio, analysed on the log scale: sd of a log endpoint from a cv is sqrt(ln(1 + cv^2))) on one or
+more quantities. ``design_prior`` is over the first effect's shift or log ratio.
+
+Endpoints:
+- a quantity (``"Kf"``): subjects drawn around the typical value with the between-subject spread
+  (from ``[design] between_subject`` or the prior), a within-subject (occasion) spread and a
+  measurement error. Power is exact (noncentral t) as well as simulated.
+- ``"Jv"`` or another model output, or an observation kind (``lymph_flow`` = Jv at steady state):
+  each simulated subject's quantities go through ``model.evaluate``; the typical subject is drawn
+  from the prior once per simulated trial. Power is simulated; an analytic figure from a large
+  pilot's sd (normal approximation) is given beside it.
+
+Fast path: every simulated trial is analysed in closed form (t test / ANCOVA / paired t;
+conjugate normal posterior for Bayesian success). Exact path (``exact=True``): each simulated
+trial is also refitted with full MCMC (PyMC model, nutpie sampler), success when the posterior
+probability of an effect in one direction exceeds 1 - alpha/2, on the same simulated trials.
+
+Tasks (one per design point: a sample size, for power or for assurance; on the exact path its
+trials are refitted inside the task) go through :mod:`uncertainty.core.parallel`, each seeded from the
+study seed and its index; a checkpoint is keyed by the study and the section as well.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy import stats
+
+from uncertainty.analyses.design import trial_power as tp
+from uncertainty.core.errors import InputError
+
+OBSERVATION_ENDPOINTS = {"lymph_flow": "Jv"}  # observation kind -> model output it measures
+_DEFAULT_TRIALS = 1000
+_DEFAULT_EXACT_TRIALS = 40
+
+
+# --------------------------------------------------------------------------------------------
+# specification
+
+
+@dataclass(frozen=True)
+class Effect:
+    """One effect of treatment: ``kind`` shift (canonical unit) or multiply (ratio) on ``parameter``."""
+
+    parameter: str
+    kind: str
+    value: float
+
+    def analysis_value(self) -> float:
+        """The effect on its analysis scale: the shift, or the natural log of the ratio."""
+        return math.log(self.value) if self.kind == "multiply" else self.value
+
+    def apply(self, x: np.ndarray, delta: np.ndarray | float | None = None) -> np.ndarray:
+        """Treated values: x + shift or x * ratio; ``delta`` (analysis scale) replaces the point effect."""
+        d = self.analysis_value() if delta is None else delta
+        return x * np.exp(d) if self.kind == "multiply" else x + d
+
+
+@dataclass
+class DesignSpec:
+    """A validated ``[design]`` section (see the module docstring for the meaning of each field)."""
+
+    design: str = "parallel"
+    baseline: bool = False
+    endpoint: str = "Kf"
+    endpoint_kind: str = "quantity"  # quantity | output
+    output: str = "Kf"  # the model output or quantity that is read
+    effects: list[Effect] = field(default_factory=list)
+    between: dict[str, dict[str, float]] = field(default_factory=dict)
+    within: dict[str, dict[str, float]] = field(default_factory=dict)
+    measurement: dict[str, float] | None = None
+    alpha: float = 0.05
+    target_power: float = 0.8
+    target_assurance: float | None = None
+    dropout: float = 0.0
+    n_range: tuple[int, int] = (5, 200)
+    n_points: int = 10
+    trials: int = _DEFAULT_TRIALS
+    exact_trials: int = _DEFAULT_EXACT_TRIALS
+    design_prior: dict[str, Any] | None = None
+    analysis_prior: dict[str, float] | None = None
+    target_half_width: float | None = None
+    half_width_probability: float = 0.8
+    file: str | None = None
+    prior_frozen: Any = None
+    scale_forced: str | None = None
+
+    @property
+    def analysis(self) -> str:
+        """``parallel`` (t test), ``ancova`` or ``paired``: the analysis of one trial."""
+        if self.design == "paired":
+            return "paired"
+        return "ancova" if self.baseline else "parallel"
+
+    @property
+    def scale(self) -> str:
+        """``log`` for a ratio effect, ``natural`` for a shift (or when the endpoint can be <= 0)."""
+        if self.scale_forced:
+            return self.scale_forced
+        return "log" if self.effects[0].kind == "multiply" else "natural"
+
+    @property
+    def direction(self) -> float:
+        """+1 when the point effect raises the endpoint on the analysis scale, -1 when it lowers it."""
+        return -1.0 if self.effects[0].analysis_value() < 0 else 1.0
+
+    def design_prior_frozen(self) -> Any:
+        """The design prior as a scipy frozen distribution (over the analysis-scale effect)."""
+        if self.prior_frozen is not None:
+            return self.prior_frozen
+        if self.design_prior is None:
+            return None
+        p = self.design_prior
+        dist = p.get("dist", "normal")
+        if dist == "normal":
+            return stats.norm(p["mean"], p["sd"])
+        if dist == "uniform":
+            return stats.uniform(p["lower"], p["upper"] - p["lower"])
+        if dist == "truncnormal":
+            a, b = (p["lower"] - p["mean"]) / p["sd"], (p["upper"] - p["mean"]) / p["sd"]
+            return stats.truncnorm(a, b, loc=p["mean"], scale=p["sd"])
+        raise InputError("design_prior: use dist normal, truncnormal or uniform", file=self.file,
+                         key="design.design_prior.dist", value=dist)
+
+
+def _section_dict(section: Any) -> dict[str, Any]:
+    if section is None:
+        return {}
+    if hasattr(section, "model_dump"):
+        return {k: v for k, v in section.model_dump().items() if v is not None}
+    return dict(section)
+
+
+def _spread(value: Any, file: str | None, key: str) -> dict[str, float]:
+    if hasattr(value, "model_dump"):
+        value = value.model_dump()
+    if isinstance(value, dict):
+        value = {k: v for k, v in value.items() if v is not None}
+    if not isinstance(value, dict) or len(value) != 1 or next(iter(value)) not in ("sd", "cv"):
+        raise InputError("a spread is { sd = .. } or { cv = .. }", file=file, key=key, value=value)
+    kind, v = next(iter(value.items()))
+    if not isinstance(v, int | float) or v < 0:
+        raise InputError("a spread must be a number >= 0", file=file, key=f"{key}.{kind}", value=v)
+    return {kind: float(v)}
+
+
+def _prob(doc: dict, key: str, file: str | None, default: float | None, *, open_: bool = True) -> float | None:
+    v = doc.get(key, default)
+    if v is None:
+        return None
+    if not isinstance(v, int | float) or not (0 < v < 1 if open_ else 0 <= v < 1):
+        raise InputError("must lie strictly between 0 and 1" if open_ else "must lie in [0, 1)",
+                         file=file, key=f"design.{key}", value=v)
+    return float(v)
+
+
+def parse_design(study: Any, section: Any = None) -> DesignSpec:
+    """Validate a study's ``[design]`` section (or ``section``) into a :class:`DesignSpec`.
+
+    Raises InputError (file, key, value) for a target power outside 0..1, an empty n range,
+    an effect on an unknown quantity, a paired design without within-subject spread, etc.
+    """
+    file = str(getattr(study, "path", None) or "") or None
+    doc = _section_dict(section if section is not None else getattr(study, "design", None))
+    if not doc:
+        raise InputError("the study has no [design] section", file=file, key="design")
+    priors = getattr(study, "priors", {}) or {}
+    spec = DesignSpec(file=file)
+    spec.design = doc.get("design", "parallel")
+    if spec.design not in ("parallel", "paired"):
+        raise InputError("design must be parallel or paired", file=file, key="design.design", value=spec.design)
+    spec.baseline = bool(doc.get("baseline", False))
+    spec.alpha = _prob(doc, "alpha", file, 0.05)
+    spec.target_power = _prob(doc, "target_power", file, 0.8)
+    spec.target_assurance = _prob(doc, "target_assurance", file, None)
+    spec.dropout = _prob(doc, "dropout", file, 0.0, open_=False)
+    spec.half_width_probability = _prob(doc, "half_width_probability", file, 0.8)
+
+    nr = doc.get("n_range", [5, 200])
+    if (not isinstance(nr, list | tuple) or len(nr) != 2 or not all(isinstance(v, int) for v in nr)
+            or nr[0] < 2 or nr[1] < nr[0]):
+        raise InputError("n_range must be [low, high] integers with 2 <= low <= high", file=file,
+                         key="design.n_range", value=list(nr) if isinstance(nr, list | tuple) else nr)
+    spec.n_range = (int(nr[0]), int(nr[1]))
+    if "simulations" in doc and "trials" not in doc:
+        doc["trials"] = doc["simulations"]
+    for key in ("n_points", "trials", "exact_trials"):
+        if key in doc:
+            v = doc[key]
+            if not isinstance(v, int) or v < 2:
+                raise InputError("must be an integer >= 2", file=file, key=f"design.{key}", value=v)
+            setattr(spec, key, int(v))
+
+    # endpoint
+    endpoint = doc.get("endpoint", "Jv")
+    spec.endpoint = endpoint
+    if endpoint in priors:
+        spec.endpoint_kind, spec.output = "quantity", endpoint
+    elif endpoint in OBSERVATION_ENDPOINTS:
+        spec.endpoint_kind, spec.output = "output", OBSERVATION_ENDPOINTS[endpoint]
+    elif endpoint in _model_outputs():
+        spec.endpoint_kind, spec.output = "output", endpoint
+    else:
+        raise InputError("unknown endpoint: a quantity of the study, a model output or an observation kind",
+                         file=file, key="design.endpoint", value=endpoint)
+
+    # effects
+    raw = doc.get("effect")
+    raws = (raw if isinstance(raw, list) else [raw]) + list(doc.get("extra_effects") or [])
+    if raw is None:
+        raise InputError("an effect is required, e.g. { parameter = \"Kf\", multiply = 0.7 }", file=file,
+                         key="design.effect")
+    for i, e in enumerate(raws):
+        e = _section_dict(e)
+        key = "design.effect" if i == 0 and not isinstance(raw, list) else f"design.effect[{i}]"
+        par = e.get("parameter")
+        if par not in priors:
+            raise InputError("effect on an unknown quantity", file=file, key=f"{key}.parameter", value=par)
+        kinds = [k for k in ("shift", "multiply") if e.get(k) is not None]
+        if len(kinds) != 1:
+            raise InputError("give exactly one of shift or multiply", file=file, key=key, value=e)
+        kind = kinds[0]
+        val = e[kind]
+        if kind == "shift" and e.get("unit"):
+            from uncertainty.core import units
+
+            val = units.to_canonical(par, val, e["unit"])
+        if not isinstance(val, int | float) or (kind == "multiply" and val <= 0):
+            raise InputError("multiply must be a ratio > 0" if kind == "multiply" else "shift must be a number",
+                             file=file, key=f"{key}.{kind}", value=val)
+        spec.effects.append(Effect(par, kind, float(val)))
+    if spec.endpoint_kind == "quantity" and spec.effects[0].parameter != spec.endpoint:
+        raise InputError("for a quantity endpoint the (first) effect must be on that quantity", file=file,
+                         key="design.effect.parameter", value=spec.effects[0].parameter)
+
+    for name in ("between_subject", "within_subject"):
+        target = spec.between if name == "between_subject" else spec.within
+        for sym, sp in _section_dict(doc.get(name)).items():
+            if sym not in priors:
+                raise InputError("spread for an unknown quantity", file=file, key=f"design.{name}.{sym}", value=sym)
+            target[sym] = _spread(sp, file, f"design.{name}.{sym}")
+    if doc.get("measurement") is not None:
+        spec.measurement = _spread(doc["measurement"], file, "design.measurement")
+    if spec.design == "paired" and not spec.within:
+        raise InputError("a paired design needs within_subject (test-retest) variability", file=file,
+                         key="design.within_subject",
+                         value=_section_dict(doc.get("within_subject")))
+
+    sec_obj = section if section is not None else getattr(study, "design", None)
+    obj = getattr(sec_obj, "design_prior_obj", None)
+    if obj is not None:
+        spec.prior_frozen = obj.frozen()
+        spec.design_prior = {"dist": obj.dist, **obj.params}
+    for name in ("design_prior", "analysis_prior"):
+        p = _section_dict(doc.get(name))
+        if not p or (name == "design_prior" and spec.prior_frozen is not None):
+            continue
+        dist = p.get("dist", "normal")
+        need = {"normal": ("mean", "sd"), "truncnormal": ("mean", "sd", "lower", "upper"),
+                "uniform": ("lower", "upper")}.get(dist if name == "design_prior" else
+                                                   ("normal" if dist == "normal" else "x"))
+        if need is None:
+            raise InputError(f"{name}: unsupported dist", file=file, key=f"design.{name}.dist", value=dist)
+        for k in need:
+            if not isinstance(p.get(k), int | float):
+                raise InputError(f"{name} needs a number", file=file, key=f"design.{name}.{k}", value=p.get(k))
+        if "sd" in need and p["sd"] <= 0:
+            raise InputError("sd must be > 0", file=file, key=f"design.{name}.sd", value=p["sd"])
+        setattr(spec, name, {k: (float(v) if isinstance(v, int | float) else v) for k, v in p.items()})
+    if spec.target_assurance is not None and spec.design_prior is None:
+        raise InputError("target_assurance needs a design_prior", file=file, key="design.design_prior", value=None)
+
+    hw = doc.get("target_half_width")
+    if hw is not None:
+        if not isinstance(hw, int | float) or hw <= 0:
+            raise InputError("target_half_width must be > 0", file=file, key="design.target_half_width", value=hw)
+        spec.target_half_width = float(hw)
+    return spec
+
+
+def _model_outputs() -> set[str]:
+    try:
+        from uncertainty import model
+
+        return set(getattr(model, "OUTPUT_UNITS", {})) | {"Jv", "net_pressure"}
+    except ImportError:  # model.py not there yet
+        return {"Jv", "net_pressure"}
+
+
+# --------------------------------------------------------------------------------------------
+# simulating trials
+
+
+def _typical(study: Any, trials: int, rng: np.random.Generator) -> dict[str, np.ndarray]:
+    """Typical-subject values, one per simulated trial (canonical units)."""
+    from uncertainty.analyses import sampling
+
+    seed = int(rng.integers(2**63 - 1))
+    return sampling.draw(study, trials, method="mc", seed=seed, layer="typical")
+
+
+def _spread_prior(study: Any, sym: str, spread: dict[str, float] | None) -> Any:
+    prior = study.priors[sym]
+    return prior.replace(between_subject=spread) if spread is not None else prior
+
+
+def _endpoint(study: Any, spec: DesignSpec, values: dict[str, np.ndarray], shape: tuple) -> np.ndarray:
+    """The endpoint read from each subject-occasion's values (canonical unit), shape ``shape``."""
+    if spec.endpoint_kind == "quantity":
+        return np.broadcast_to(values[spec.output], shape)
+    from uncertainty import model
+
+    flat = {k: np.broadcast_to(v, shape).reshape(-1) for k, v in values.items()}
+    return np.asarray(model.evaluate(study, flat)[spec.output]).reshape(shape)
+
+
+def _measure(study: Any, spec: DesignSpec, y: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Add measurement error: sd additive, cv multiplicative lognormal (median at the true value)."""
+    m = spec.measurement
+    if not m:
+        return y
+    z = rng.standard_normal(y.shape)
+    if "sd" in m:
+        return y + m["sd"] * z
+    s = math.sqrt(math.log1p(m["cv"] ** 2))
+    return y * np.exp(s * z)
+
+
+def simulate_trials(study: Any, spec: DesignSpec, n: int, trials: int, rng: np.random.Generator,
+                    delta: np.ndarray | None = None) -> dict[str, np.ndarray]:
+    """Simulated trial data on the analysis scale: arrays (trials, n).
+
+    Keys: ``y0``, ``y1`` (control and treated follow-up; for paired, before and after in the same
+    subjects) and, for ANCOVA, ``x0``, ``x1`` (baselines). ``delta`` (trials,) replaces the first
+    effect's point value (analysis scale), e.g. drawn from the design prior.
+    """
+    typ = _typical(study, trials, rng)
+    two_occasions = spec.design == "paired" or spec.baseline
+    groups = 1 if spec.design == "paired" else 2
+    shape = (trials, groups * n)
+
+    # subjects: typical + between-subject spread
+    subj = {}
+    for sym, prior in study.priors.items():
+        t = np.asarray(typ[sym], dtype=float)[:, None] if sym in typ else None
+        if t is None:
+            continue
+        sp = spec.between.get(sym)
+        pr = _spread_prior(study, sym, sp) if sp is not None else prior
+        if pr.between_subject:
+            subj[sym] = np.asarray(pr.individual(t, rng.standard_normal(shape)))
+        else:
+            subj[sym] = np.broadcast_to(t, shape)
+
+    def occasion(treated: np.ndarray) -> np.ndarray:
+        vals = dict(subj)
+        for sym, sp in spec.within.items():
+            vals[sym] = np.asarray(_spread_prior(study, sym, sp).individual(vals[sym], rng.standard_normal(shape)))
+        for i, eff in enumerate(spec.effects):
+            d = delta[:, None] if (i == 0 and delta is not None) else None
+            vals[eff.parameter] = np.where(treated, eff.apply(vals[eff.parameter], d), vals[eff.parameter])
+        return _measure(study, spec, _endpoint(study, spec, vals, shape), rng)
+
+    none = np.zeros(shape, dtype=bool)
+    if spec.design == "paired":
+        before = occasion(none)
+        after = occasion(~none)
+        out = {"y0": before, "y1": after}
+    else:
+        arm = np.zeros(shape, dtype=bool)
+        arm[:, n:] = True
+        follow = occasion(arm)
+        out = {"y0": follow[:, :n], "y1": follow[:, n:]}
+        if two_occasions:
+            base = occasion(none)
+            out.update(x0=base[:, :n], x1=base[:, n:])
+    if spec.scale == "log":
+        for k, v in out.items():
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[k] = np.log(np.where(v > 0, v, np.nan))
+    return out
+
+
+def analyse_fast(data: dict[str, np.ndarray], analysis: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Closed-form analysis of each simulated trial: (estimate, standard error, df), each (trials,).
+
+    ``parallel``: difference of means, pooled sd; ``ancova``: pooled within-arm regression on the
+    baseline; ``paired``: mean and sd of the differences. Trials with non-finite data give NaN.
+    """
+    y0, y1 = data["y0"], data["y1"]
+    n = y0.shape[1]
+    if analysis == "paired":
+        d = y1 - y0
+        return d.mean(axis=1), d.std(axis=1, ddof=1) / np.sqrt(n), np.full(len(d), n - 1.0)
+    if analysis == "parallel":
+        s2 = (y0.var(axis=1, ddof=1) + y1.var(axis=1, ddof=1)) / 2
+        return y1.mean(axis=1) - y0.mean(axis=1), np.sqrt(s2 * 2 / n), np.full(len(y0), 2 * n - 2.0)
+    x0, x1 = data["x0"], data["x1"]
+    xc0, xc1 = x0 - x0.mean(axis=1, keepdims=True), x1 - x1.mean(axis=1, keepdims=True)
+    yc0, yc1 = y0 - y0.mean(axis=1, keepdims=True), y1 - y1.mean(axis=1, keepdims=True)
+    sxx = (xc0**2).sum(axis=1) + (xc1**2).sum(axis=1)
+    sxy = (xc0 * yc0).sum(axis=1) + (xc1 * yc1).sum(axis=1)
+    syy = (yc0**2).sum(axis=1) + (yc1**2).sum(axis=1)
+    b = sxy / sxx
+    dx = x1.mean(axis=1) - x0.mean(axis=1)
+    est = y1.mean(axis=1) - y0.mean(axis=1) - b * dx
+    s2 = (syy - b * sxy) / (2 * n - 3)
+    se = np.sqrt(s2 * (2 / n + dx**2 / sxx))
+    return est, se, np.full(len(y0), 2 * n - 3.0)
+
+
+def _fast_success(est: np.ndarray, se: np.ndarray, df: np.ndarray, spec: DesignSpec) -> dict[str, np.ndarray]:
+    tc = stats.t.ppf(1 - spec.alpha / 2, df)
+    ok = np.isfinite(est) & np.isfinite(se) & (se > 0)
+    out = {"success": ok & (np.abs(est) > tc * np.where(ok, se, 1.0)), "half_width": np.where(ok, tc * se, np.inf)}
+    if spec.analysis_prior is not None:
+        a0, s0 = spec.analysis_prior["mean"], spec.analysis_prior["sd"]
+        with np.errstate(all="ignore"):
+            prec = 1 / s0**2 + 1 / se**2
+            pm = (a0 / s0**2 + est / se**2) / prec
+            p_benefit = stats.norm.cdf(spec.direction * pm * np.sqrt(prec))
+        out["bayes"] = ok & (p_benefit > 1 - spec.alpha / 2)
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# exact path: full MCMC per simulated trial
+
+_COMPILED: dict[str, Any] = {}
+
+
+def _compiled_model(analysis: str) -> Any:
+    """The PyMC trial model for one analysis, compiled once per process (nutpie)."""
+    if analysis in _COMPILED:
+        return _COMPILED[analysis]
+    import nutpie
+    import pymc as pm
+
+    with pm.Model() as m:
+        y = pm.Data("y", np.zeros(6))
+        g = pm.Data("g", np.zeros(6))
+        x = pm.Data("x", np.zeros(6))
+        a0 = pm.Data("a0", 0.0)
+        s0 = pm.Data("s0", 10.0)
+        delta = pm.Normal("delta", a0, s0)
+        sigma = pm.HalfNormal("sigma", 5.0)
+        if analysis == "paired":
+            mean = delta
+        else:
+            mu = pm.Normal("mu", 0.0, 10.0)
+            mean = mu + delta * g
+            if analysis == "ancova":
+                beta = pm.Normal("beta", 0.0, 10.0)
+                mean = mean + beta * x
+        pm.Normal("obs", mean, sigma, observed=y, shape=y.shape)
+    _COMPILED[analysis] = nutpie.compile_pymc_model(m)
+    return _COMPILED[analysis]
+
+
+def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, seed: int,
+                 draws: int = 500, tune: int = 400) -> dict[str, np.ndarray]:
+    """Refit each simulated trial with NUTS (2 chains, sequential) and decide success per trial.
+
+    The data are standardised (centred, divided by the pooled sd) so that the vague priors
+    (Normal(0, 10) on mean and effect, HalfNormal(5) on sigma) are vague for any unit; the
+    analysis prior, when given, is carried to the same scale. Success: the posterior probability of
+    an effect in one direction exceeds 1 - alpha/2 (the Bayesian analogue of the two-sided test);
+    ``bayes``: the posterior probability of benefit exceeds 1 - alpha/2 under the analysis prior.
+    """
+    import nutpie
+
+    compiled = _compiled_model(analysis)
+    y0, y1 = data["y0"], data["y1"]
+    trials, n = y0.shape
+    success = np.zeros(trials, dtype=bool)
+    bayes = np.zeros(trials, dtype=bool)
+    for i in range(trials):
+        if analysis == "paired":
+            y = y1[i] - y0[i]
+            scale = y.std(ddof=1)
+            y_s, g, x = y / scale, np.zeros(n), np.zeros(n)
+        else:
+            y = np.concatenate([y0[i], y1[i]])
+            g = np.repeat([0.0, 1.0], n)
+            scale = math.sqrt((y0[i].var(ddof=1) + y1[i].var(ddof=1)) / 2)
+            y_s = (y - y.mean()) / scale
+            if analysis == "ancova":
+                xx = np.concatenate([data["x0"][i], data["x1"][i]])
+                x = (xx - xx.mean()) / xx.std(ddof=1)
+            else:
+                x = np.zeros(2 * n)
+        if not (np.all(np.isfinite(y_s)) and np.isfinite(scale) and scale > 0):
+            continue
+        ap = spec.analysis_prior
+        a0, s0 = (ap["mean"] / scale, ap["sd"] / scale) if ap else (0.0, 10.0)
+        updates = {"y": y_s, "g": g, "x": x, "a0": a0, "s0": s0}
+        fit = compiled.with_data(**{k: v for k, v in updates.items() if k in compiled.shared_data})
+        trace = nutpie.sample(fit, draws=draws, tune=tune, chains=2, cores=1, seed=int(seed) + i,
+                              progress_bar=False)
+        d = np.asarray(trace.posterior["delta"]).ravel()
+        p_pos = float(np.mean(d > 0))
+        success[i] = max(p_pos, 1 - p_pos) > 1 - spec.alpha / 2
+        p_benefit = p_pos if spec.direction > 0 else 1 - p_pos
+        bayes[i] = p_benefit > 1 - spec.alpha / 2
+    out = {"success": success}
+    if spec.analysis_prior is not None:
+        out["bayes"] = bayes
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# design points
+
+
+@dataclass(frozen=True)
+class _Point:
+    n: int
+    trials: int
+    exact: bool
+    what: str  # "power" (point effect) | "assurance" (effect from the design prior)
+
+
+def _mean_se(x: np.ndarray) -> tuple[float, float]:
+    x = np.asarray(x, dtype=float)
+    return float(x.mean()), float(x.std(ddof=1) / math.sqrt(len(x))) if len(x) > 1 else float("nan")
+
+
+def _run_point(study: Any, spec: DesignSpec, point: _Point, ss: np.random.SeedSequence) -> dict[str, Any]:
+    """Simulate ``point.trials`` trials at one n and analyse them (fast, and exact when asked)."""
+    rng = np.random.default_rng(ss)
+    delta = None
+    if point.what == "assurance":
+        delta = spec.design_prior_frozen().ppf(rng.uniform(size=point.trials))
+    data = simulate_trials(study, spec, point.n, point.trials, rng, delta)
+    fast = _fast_success(*analyse_fast(data, spec.analysis), spec)
+    out: dict[str, Any] = {"n": point.n, "what": point.what, "fast": {k: np.asarray(v) for k, v in fast.items()}}
+    if point.exact:
+        seed = int(ss.generate_state(1)[0])
+        out["exact"] = analyse_mcmc(data, spec.analysis, spec, seed)
+    return out
+
+
+class _PointTask:
+    """Picklable task function bound to a study and a spec (for dask workers)."""
+
+    def __init__(self, study: Any, spec: DesignSpec) -> None:
+        self.study, self.spec = study, spec
+
+    def __call__(self, point: _Point, ss: np.random.SeedSequence) -> dict[str, Any]:
+        return _run_point(self.study, self.spec, point, ss)
+
+    @property
+    def checkpoint_key(self) -> str:
+        """Digest of what the points depend on beyond (n, trials, path): the study file's hash, the
+        resolved priors, correlations and model form, the validated section, the package version and
+        the hash of its sources (a checkpoint of a changed study or changed code is never reused)."""
+        import dataclasses
+        import hashlib
+
+        from uncertainty.app.bundle import code_hash, package_version
+
+        release = (package_version(), code_hash())
+        st = self.study
+        spec = {f.name: getattr(self.spec, f.name) for f in dataclasses.fields(self.spec) if f.name != "prior_frozen"}
+        priors = {k: (p.dist, sorted(p.params.items()), p.between_subject) for k, p in sorted(st.priors.items())}
+        corr = getattr(st, "correlation", None)
+        parts = (getattr(st, "hash", None), getattr(st, "model", None), getattr(st, "tissue", None), priors,
+                 None if corr is None else np.asarray(corr).round(12).tolist(), spec, release)
+        return hashlib.sha256(repr(parts).encode()).hexdigest()
+
+
+def curve_sizes(n_range: tuple[int, int], points: int) -> list[int]:
+    """About ``points`` distinct sample sizes spread geometrically over ``n_range`` (per arm)."""
+    lo, hi = n_range
+    return sorted({int(round(v)) for v in np.geomspace(lo, hi, points)})
+
+
+def enrolled(n: int | None, dropout: float) -> int | None:
+    """Subjects to enrol per arm so that ``n`` complete: ceil(n / (1 - dropout))."""
+    return None if n is None else int(math.ceil(n / (1 - dropout) - 1e-9))
+
+
+# --------------------------------------------------------------------------------------------
+# analytic sd of the endpoint on the analysis scale
+
+
+def _level(study: Any, sym: str) -> float:
+    return float(study.priors[sym].median())
+
+
+def _sd_on_scale(spread: dict[str, float] | None, scale: str, level: float) -> float:
+    if not spread:
+        return 0.0
+    kind, v = next(iter(spread.items()))
+    if scale == "log":
+        return math.sqrt(math.log1p(v**2)) if kind == "cv" else v / abs(level)
+    return v * abs(level) if kind == "cv" else v
+
+
+def analytic_sd(study: Any, spec: DesignSpec) -> tuple[float | None, str]:
+    """The sd that the closed forms use (analysis scale) and how it was found.
+
+    Quantity endpoint: from the between-subject, within-subject and measurement spreads
+    (parallel: total; ANCOVA: total * sqrt(1 - rho^2), rho = between^2 / total^2; paired:
+    sqrt(2 (within^2 + measurement^2))). Other endpoints: None (simulation gives the figures; a
+    pilot-based sd is computed by :func:`pilot_sd`).
+    """
+    if spec.endpoint_kind != "quantity":
+        return None, "simulation"
+    sym = spec.output
+    level = _level(study, sym)
+    b = _sd_on_scale(spec.between.get(sym) or study.priors[sym].between_subject, spec.scale, level)
+    w = _sd_on_scale(spec.within.get(sym), spec.scale, level)
+    m = _sd_on_scale(spec.measurement, spec.scale, level)
+    total2 = b**2 + w**2 + m**2
+    if spec.analysis == "paired":
+        return math.sqrt(2 * (w**2 + m**2)), "closed form (paired differences)"
+    if spec.analysis == "ancova":
+        rho = b**2 / total2 if total2 > 0 else 0.0
+        return math.sqrt(total2 * (1 - rho**2)), "closed form (ANCOVA residual)"
+    return math.sqrt(total2), "closed form"
+
+
+def pilot_sd(study: Any, spec: DesignSpec, seed: int, n: int = 4000) -> tuple[float, float]:
+    """(sd, effect) of the endpoint on the analysis scale from one large simulated pilot trial.
+
+    The sd is that of the analysed contrast per subject (control arm, differences, or ANCOVA
+    residuals), the effect the estimated difference at the point effect: the normal approximation
+    for endpoints without a closed form.
+    """
+    rng = np.random.default_rng(seed)
+    data = simulate_trials(study, spec, n, 1, rng)
+    est, se, _ = analyse_fast(data, spec.analysis)
+    k = math.sqrt(n) if spec.analysis == "paired" else math.sqrt(n / 2)
+    return float(se[0] * k), float(est[0])
+
+
+# --------------------------------------------------------------------------------------------
+# the analysis
+
+
+@dataclass
+class DesignResult:
+    """Result of :func:`design`: the JSON of DESIGN.md section 5 plus the curves."""
+
+    doc: dict[str, Any]
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON document (canonical units; n per arm, power and assurance dimensionless)."""
+        return self.doc
+
+    def to_dataframe(self) -> Any:
+        """The power / assurance curve as a pandas DataFrame (one row per sample size)."""
+        import pandas as pd
+
+        return pd.DataFrame(self.doc["curve"])
+
+    def plot(self, out_dir: str) -> list[str]:
+        """Power and assurance curves as figures in ``out_dir``; returns the file paths."""
+        from uncertainty.analyses.design.figure import plot_design
+
+        return plot_design(self.doc, out_dir)
+
+
+def design(study: Any, seed: int | None = None, exact: bool = False, executor: Any = None,
+           trials: int | None = None) -> DesignResult:
+    """Power, assurance, Bayesian success and sample size for the study's ``[design]`` section.
+
+    ``trials``: simulated trials per design point (default ``[design] trials`` or 1000; on the
+    exact path ``exact_trials`` or 40). ``executor``: an :mod:`uncertainty.core.parallel` executor
+    (in-process when None). Returns a :class:`DesignResult`.
+    """
+    from uncertainty.core.parallel import InProcess
+
+    spec = parse_design(study)
+    seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
+    executor = executor or InProcess()
+    notes: list[str] = []
+    n_trials = int(trials or (spec.exact_trials if exact else spec.trials))
+
+    # analytic figures
+    sd, sd_method = analytic_sd(study, spec)
+    effect = spec.effects[0].analysis_value()
+    if sd is None and spec.scale == "log":
+        spec.scale_forced = "natural"
+        probe = simulate_trials(study, spec, 500, 4, np.random.default_rng(seed + 104729))
+        if all(np.all(v > 0) for v in probe.values()):
+            spec.scale_forced = None
+        else:
+            notes.append(f"{spec.endpoint} takes values <= 0 in this population: analysed on the natural scale")
+    if sd is None:
+        sd, effect = pilot_sd(study, spec, seed + 7919)
+        sd_method = "normal approximation from a simulated pilot of 4000 subjects per arm"
+        notes.append("power_analytic is a normal approximation; the simulated power is the figure to use")
+    lo, hi = spec.n_range
+    prior = spec.design_prior_frozen()
+    n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi) if sd > 0 else lo
+    n_ass = None
+    if spec.target_assurance is not None and spec.endpoint_kind == "quantity":
+        ns = np.arange(lo, hi + 1)
+        a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis)
+        hit = np.nonzero(a >= spec.target_assurance)[0]
+        n_ass = int(ns[hit[0]]) if hit.size else None
+
+    sizes = curve_sizes(spec.n_range, spec.n_points)
+    for extra in (n_pow, n_ass):
+        if extra is not None and extra not in sizes:
+            sizes = sorted({*sizes, extra})
+    points = [_Point(n, n_trials, exact, "power") for n in sizes]
+    if prior is not None:
+        points += [_Point(n, n_trials, exact, "assurance") for n in sizes]
+    results = executor.map(_PointTask(study, spec), points, seed=seed, label=f"design-{'exact' if exact else 'fast'}")
+
+    by_n: dict[int, dict[str, Any]] = {n: {"n_per_arm": n, "n_enrolled": enrolled(n, spec.dropout)} for n in sizes}
+    path = "exact" if exact else "fast"
+    for r in results:
+        row = by_n[r["n"]]
+        res = r[path]
+        if r["what"] == "power":
+            row["power"], row["power_mc_se"] = _mean_se(res["success"])
+            if exact:
+                row["power_fast"], _ = _mean_se(r["fast"]["success"])
+                row["power_exact_minus_fast_mc_se"] = _mean_se(res["success"].astype(float)
+                                                               - r["fast"]["success"])[1]
+            if "bayes" in res and prior is None:
+                row["bayesian_success"], row["bayesian_success_mc_se"] = _mean_se(res["bayes"])
+            if spec.target_half_width is not None:
+                row["p_half_width"], row["p_half_width_mc_se"] = _mean_se(
+                    r["fast"]["half_width"] <= spec.target_half_width)
+        else:
+            row["assurance"], row["assurance_mc_se"] = _mean_se(res["success"])
+            if "bayes" in res:
+                row["bayesian_success"], row["bayesian_success_mc_se"] = _mean_se(res["bayes"])
+    for n, row in by_n.items():
+        row["power_analytic"] = float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis)) if sd > 0 else None
+        if prior is not None:
+            row.setdefault("assurance", None)
+            row.setdefault("assurance_mc_se", None)
+            if spec.endpoint_kind == "quantity":
+                row["assurance_analytic"] = float(tp.t_assurance(n, prior, sd, spec.alpha, spec.analysis))
+        else:
+            row["assurance"], row["assurance_mc_se"] = None, None
+    curve = [by_n[n] for n in sizes]
+
+    if spec.endpoint_kind != "quantity":
+        # the simulated curve decides; the analytic n only seeded the grid
+        hit = [row["n_per_arm"] for row in curve if row["power"] >= spec.target_power]
+        n_pow = hit[0] if hit else None
+        if spec.target_assurance is not None:
+            hit = [row["n_per_arm"] for row in curve if (row["assurance"] or 0) >= spec.target_assurance]
+            n_ass = hit[0] if hit else None
+    if n_pow is None:
+        notes.append(f"target power {spec.target_power} not reached within n_range {list(spec.n_range)}")
+
+    at = by_n.get(n_pow) if n_pow is not None else None
+    doc: dict[str, Any] = {
+        "design": spec.design,
+        "analysis": {"parallel": "two-sample t test", "ancova": "ANCOVA on baseline",
+                     "paired": "paired t test"}[spec.analysis],
+        "endpoint": spec.endpoint,
+        "scale": spec.scale,
+        "effect": [{"parameter": e.parameter, e.kind: e.value, "analysis_scale": e.analysis_value()}
+                   for e in spec.effects],
+        "alpha": spec.alpha,
+        "target_power": spec.target_power,
+        "target_assurance": spec.target_assurance,
+        "dropout": spec.dropout,
+        "sd_analysis_scale": sd,
+        "sd_method": sd_method,
+        "n_per_arm": enrolled(n_pow, spec.dropout),
+        "n_per_arm_analysed": n_pow,
+        "n_per_arm_assurance": enrolled(n_ass, spec.dropout),
+        "n_per_arm_assurance_analysed": n_ass,
+        "power": at["power"] if at else None,
+        "power_mc_se": at["power_mc_se"] if at else None,
+        "power_analytic": at["power_analytic"] if at else None,
+        "assurance": at["assurance"] if at else None,
+        "assurance_mc_se": at["assurance_mc_se"] if at else None,
+        "bayesian_success": at.get("bayesian_success") if at else None,
+        "bayesian_success_mc_se": at.get("bayesian_success_mc_se") if at else None,
+        "path": path,
+        "trials_per_point": n_trials,
+        "seed": seed,
+        "curve": curve,
+        "notes": notes,
+        "units": {"n_per_arm": "subjects per arm (enrolled, after dropout)", "power": "1",
+                  "sd_analysis_scale": "log units" if spec.scale == "log" else _unit_of(spec)},
+    }
+    if spec.target_half_width is not None and sd > 0:
+        n_hw = tp.n_for_half_width(sd, spec.target_half_width, spec.half_width_probability, spec.alpha,
+                                   spec.analysis, lo, hi)
+        doc["half_width"] = {
+            "target": spec.target_half_width, "probability_target": spec.half_width_probability,
+            "n_per_arm": enrolled(n_hw, spec.dropout), "n_per_arm_analysed": n_hw,
+            "probability": (float(tp.half_width_probability(n_hw, sd, spec.target_half_width, spec.alpha,
+                                                            spec.analysis)) if n_hw else None),
+        }
+    return DesignResult(doc)
+
+
+def _unit_of(spec: DesignSpec) -> str:
+    try:
+        from uncertainty.core import units
+
+        return units.CANONICAL.get(spec.output, "")
+    except ImportError:  # pragma: no cover
+        return ""

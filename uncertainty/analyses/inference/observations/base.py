@@ -1,0 +1,112 @@
+"""Shared pieces of the observation kinds: the reading's error model and declared side priors."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from uncertainty.analyses.inference.problem import Observation, Problem
+from uncertainty.core.errors import InputError
+
+
+def term_name(obs: Observation) -> str:
+    """PyMC name of an observation's observed variable, e.g. ``obs2__lymph_flow``."""
+    return f"obs{obs.index}__{obs.kind}"
+
+
+def require_error(obs: Observation) -> None:
+    """An observation needs a value and exactly one of sd (normal error) or cv (lognormal error)."""
+    if obs.value is None:
+        raise obs.error("a value is required", "value", None)
+    if (obs.sd is None) == (obs.cv is None):
+        raise obs.error("give exactly one of sd (normal error) or cv (lognormal error)", "sd",
+                        obs.sd if obs.sd is not None else obs.cv)
+
+
+def add_reading(name: str, predicted: Any, value: Any, *, sd: float | None = None,
+                cv: float | None = None, dims: str | None = None) -> Any:
+    """Add the observed reading(s) ``value`` of ``predicted`` to the current PyMC model.
+
+    ``sd``: normal error in the value's (canonical) unit; ``cv``: lognormal error with
+    log-sd ``sqrt(log(1 + cv^2))`` around the prediction (which must be positive).
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    data = pm.Data(f"{name}__data", np.asarray(value, dtype=float))
+    if cv is not None:
+        s = float(np.sqrt(np.log1p(cv * cv)))
+        mu = pt.log(pt.maximum(predicted, 1e-300))
+        return pm.LogNormal(name, mu=mu, sigma=s, observed=data, shape=data.shape)
+    return pm.Normal(name, mu=predicted, sigma=sd, observed=data, shape=data.shape)
+
+
+def check_positive_value(obs: Observation) -> None:
+    """A cv (lognormal) error needs a positive reading."""
+    if obs.cv is not None and obs.value is not None and not obs.value > 0:
+        raise obs.error("a cv (lognormal) error needs a positive value", "value", obs.value)
+
+
+def declared_prior(decl: Any, symbol: str, obs: Observation, field: str) -> Any:
+    """A Prior from a declaration given inside an observation (e.g. a distribution volume).
+
+    Read with ``uncertainty.priors.parse_prior`` (any declaration a prior file accepts).
+    """
+    from uncertainty import priors as priors_mod
+
+    try:
+        return priors_mod.parse_prior(symbol, decl, key=f"{obs.key}.{field}",
+                                      ctx=priors_mod.Context(file=obs.file))
+    except InputError as exc:
+        raise obs.error(exc.reason, field, decl) from None
+
+
+def prior_rv(name: str, prior: Any) -> Any:
+    """A PyMC variable for a side prior, non-centred for normal and lognormal shapes."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    dist = getattr(prior, "dist", None)
+    p = getattr(prior, "params", {}) or {}
+    if dist == "fixed":
+        return pt.as_tensor_variable(float(p.get("value", prior.mean())))
+    if dist == "normal":
+        z = pm.Normal(f"{name}__z", 0.0, 1.0)
+        return pm.Deterministic(name, p["mean"] + p["sd"] * z)
+    if dist == "lognormal":
+        z = pm.Normal(f"{name}__z", 0.0, 1.0)
+        return pm.Deterministic(name, p["median"] * pt.exp(np.log(p["gsd"]) * z))
+    return prior.pymc(name)
+
+
+def require_quantity(obs: Observation, problem: Problem, name: str, why: str) -> None:
+    """Raise when a quantity the observation kind needs is not part of the study."""
+    if not problem.quantity_known(name) and name not in output_names(problem):
+        raise obs.error(f"{obs.kind} needs the quantity {name} ({why}); add a prior for it to "
+                        "[parameters]", "kind", obs.kind)
+
+
+def prior_centres(problem: Problem) -> dict[str, float]:
+    """Each uncertain quantity's prior median (its mean where a prior has no median)."""
+    out = {}
+    for name, prior in problem.priors.items():
+        try:
+            out[name] = float(prior.median())
+        except Exception:  # noqa: BLE001 - priors without a median method
+            out[name] = float(prior.mean())
+    return out
+
+
+def output_names(problem: Problem) -> set[str]:
+    """Names of the forward map's outputs (evaluated once with numpy at the prior medians)."""
+    cached = getattr(problem, "_output_names", None)
+    if cached is None:
+        vals: dict[str, Any] = {**problem.fixed, **prior_centres(problem)}
+        try:
+            outs = problem.evaluate(vals, np)
+        except Exception:  # noqa: BLE001 - a failing evaluation is reported later, when sampling
+            outs = {}
+        cached = set(outs)
+        problem._output_names = cached
+    return cached

@@ -1,0 +1,100 @@
+"""``measurement``: a direct, noisy reading of one quantity.
+
+reading ~ Normal(q + bias, sd) for an sd error, LogNormal(log(q + bias), sqrt(log(1 + cv^2))) for a
+cv error. With ``instrument = "<name>"`` the noise (sd or cv) and the bias prior come from
+priors/instruments.toml unless the observation states its own sd or cv; one bias variable is
+shared by every reading taken with the same instrument (a systematic method error).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from uncertainty.analyses.inference.observations.base import (
+    add_reading,
+    check_positive_value,
+    output_names,
+    prior_rv,
+    term_name,
+)
+from uncertainty.analyses.inference.problem import Observation, Problem
+
+NOTE = ""
+
+
+def _instrument(obs: Observation) -> Any:
+    from uncertainty import priors as priors_mod
+
+    table = priors_mod.load_instruments()
+    inst = table.get(obs.instrument)
+    if inst is None:
+        raise obs.error(f"unknown instrument (known: {', '.join(sorted(table))})", "instrument",
+                        obs.instrument)
+    return inst
+
+
+def _noise(obs: Observation, problem: Problem) -> tuple[float | None, float | None]:
+    if obs.sd is not None or obs.cv is not None:
+        return obs.sd, obs.cv
+    inst = _instrument(obs)
+    cv = getattr(inst, "cv", None)
+    sd = getattr(inst, "sd", None)
+    if sd is not None:  # instruments.toml values are read into canonical units
+        return float(sd), None
+    return None, None if cv is None else float(cv)
+
+
+def validate(obs: Observation, problem: Problem) -> None:
+    """Check the parameter is an uncertain quantity (or an output) and the error is stated."""
+    if not obs.parameter:
+        raise obs.error("a measurement names the quantity it reads", "parameter", None)
+    if obs.value is None:
+        raise obs.error("a value is required", "value", None)
+    name = obs.parameter
+    if name in problem.fixed:
+        raise obs.error("this quantity is fixed in the study, so a reading of it informs nothing; "
+                        "give it a prior in [parameters]", "parameter", name)
+    if name not in problem.priors and name not in output_names(problem):
+        raise obs.error("unknown quantity (not an uncertain input or an output of the model)",
+                        "parameter", name)
+    if obs.sd is not None and obs.cv is not None:
+        raise obs.error("give one of sd or cv, not both", "cv", obs.cv)
+    if obs.instrument is not None:
+        inst = _instrument(obs)
+        measures = getattr(inst, "measures", None)
+        if measures and measures != name:
+            raise obs.error(f"instrument {obs.instrument!r} measures {measures}, not {name}",
+                            "instrument", obs.instrument)
+    sd, cv = _noise(obs, problem)
+    if sd is None and cv is None:
+        raise obs.error("give sd (normal error), cv (lognormal error) or an instrument", "sd", None)
+    if cv is not None and not obs.value > 0:
+        raise obs.error("a cv (lognormal) error needs a positive value", "value", obs.value)
+    check_positive_value(obs)
+
+
+def add(ctx: Any, obs: Observation) -> None:
+    """Add the reading's likelihood for its subject (or the study's individual)."""
+    import pymc as pm
+
+    from uncertainty.analyses.inference.model_builder import ObservedTerm
+
+    i = ctx.subject_index(obs)
+    pred = ctx.value(obs.parameter)[i]
+    if obs.instrument is not None:
+        inst = _instrument(obs)
+        bias_prior = getattr(inst, "bias", None)
+        if bias_prior is not None:
+            key = obs.instrument
+            if key not in ctx.instrument_bias:
+                rv_name = f"{key}__bias"
+                ctx.instrument_bias[key] = prior_rv(rv_name, bias_prior)
+                ctx.extra_params.append(rv_name)
+                ctx.extra_priors[rv_name] = bias_prior
+            pred = pred + ctx.instrument_bias[key]
+    sd, cv = _noise(obs, ctx.problem)
+    name = term_name(obs)
+    pm.Deterministic(f"{name}__pred", pred)
+    add_reading(name, pred, obs.value, sd=sd, cv=cv)
+    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
+                              subjects=[i], label=f"{obs.parameter} reading"))

@@ -1,0 +1,262 @@
+"""What a Bayesian model is built from: priors, fixed values, a forward map and observations.
+
+A :class:`Problem` is the sampler-free description of an inference task. It is normally made from
+a :class:`uncertainty.study.Study` by :func:`problem_from_study` (priors, correlations and
+``model.evaluate`` of the study's model form), optionally with an overriding observation list, so
+that callers such as trial simulation can refit the same study to simulated data in a loop.
+
+Observations are normalised into :class:`Observation` records (canonical units, key paths such as
+``observations[2].sd`` for error messages) whatever form the study layer hands them in.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Callable, Mapping, Sequence
+from typing import Any
+
+import numpy as np
+
+from uncertainty.core.errors import InputError
+
+#: fields an observation record may carry (study files spell them the same way)
+_FIELDS = ("kind", "parameter", "value", "sd", "cv", "unit", "instrument", "subject", "group",
+           "file", "step", "steps", "volume", "lymph", "effects", "site", "data")
+
+
+@dataclasses.dataclass
+class Observation:
+    """One normalised observation (values, sd in canonical units of the observed quantity).
+
+    ``index`` is the position in the study's ``[[observations]]`` list, used for key paths.
+    ``extra`` keeps every other field of the source record (e.g. a time-course ``file``).
+    """
+
+    kind: str
+    index: int
+    value: float | None = None
+    sd: float | None = None
+    cv: float | None = None
+    unit: str | None = None
+    parameter: str | None = None
+    instrument: str | None = None
+    subject: str | None = None
+    group: str | None = None
+    extra: dict[str, Any] = dataclasses.field(default_factory=dict)
+    file: str | None = None
+
+    @property
+    def key(self) -> str:
+        """Dotted key path of this observation in the study file, e.g. ``observations[1]``."""
+        return f"observations[{self.index}]"
+
+    def error(self, message: str, field: str | None = None, value: Any = None) -> InputError:
+        """An InputError naming the study file, this observation's key path and the value."""
+        key = self.key + (f".{field}" if field else "")
+        return InputError(message, file=self.file, key=key, value=value)
+
+
+@dataclasses.dataclass
+class Problem:
+    """Priors over the uncertain quantities, fixed values, the forward map and the observations.
+
+    ``evaluate(values, xp)`` maps a dict of quantity values (floats, numpy arrays or PyTensor
+    tensors, canonical units) to a dict of outputs that contains at least ``Jv`` (mL/min per basis).
+    ``priors`` maps each uncertain quantity to a Prior-like object (``dist``, ``params`` in
+    canonical units, ``between_subject``, ``pymc(name)``, ``mean()``, ``sd()``, ``frozen()``).
+    """
+
+    priors: dict[str, Any]
+    fixed: dict[str, float]
+    evaluate: Callable[[Mapping[str, Any], Any], Mapping[str, Any]]
+    observations: list[Observation]
+    correlation: np.ndarray | None = None
+    file: str | None = None
+    model_form: str = "classic"
+    basis: str = "100g"
+    density: float = 1.05
+    study: Any = None
+    base_dir: str | None = None
+    notes: list[str] = dataclasses.field(default_factory=list)
+
+    @property
+    def names(self) -> list[str]:
+        """The uncertain quantities, in order."""
+        return list(self.priors)
+
+    def quantity_known(self, name: str) -> bool:
+        """True when ``name`` is an uncertain or fixed quantity of the problem."""
+        return name in self.priors or name in self.fixed
+
+
+def _get(record: Any, field: str, default: Any = None) -> Any:
+    if isinstance(record, Mapping):
+        return record.get(field, default)
+    value = getattr(record, field, default)
+    return default if value is None else value
+
+
+def _as_dict(record: Any) -> dict[str, Any]:
+    if isinstance(record, Mapping):
+        return dict(record)
+    if hasattr(record, "model_dump"):
+        return dict(record.model_dump())
+    return {f: getattr(record, f) for f in _FIELDS if hasattr(record, f)}
+
+
+def _symbol_for(kind: str, parameter: str | None) -> str | None:
+    """The quantity whose canonical unit an observation's value is expressed in."""
+    return {
+        "measurement": parameter,
+        "lymph_flow": "JL",
+        "swelling_rate": "swelling_rate",
+        "clearance_rate": "k_clear",
+        "protein_ratio": "ratio",
+        "GFR": "GFR",
+        "RPF": "RPF",
+        "filtration_fraction": "FF",
+    }.get(kind)
+
+
+def _converts(symbol: str, unit: str) -> bool:
+    from uncertainty.core import units
+
+    try:
+        units.to_canonical(symbol, 1.0, unit)
+    except InputError:
+        return False
+    return True
+
+
+def _canonical_factor(symbol: str | None, unit: str | None, obs: Observation,
+                      density: float) -> float:
+    """Multiplicative factor from ``unit`` to the canonical unit of ``symbol`` (1 without a unit)."""
+    if not unit or symbol is None:
+        return 1.0
+    from uncertainty.core import units
+
+    try:
+        return float(units.to_canonical(symbol, 1.0, unit, density=density))
+    except InputError as exc:
+        raise obs.error(exc.reason, "unit", unit) from None
+
+
+def normalise_observations(records: Sequence[Any] | None, *, file: str | None = None,
+                           density: float = 1.05) -> list[Observation]:
+    """Turn study observation records (pydantic models or dicts) into :class:`Observation` records.
+
+    Values and sd are converted to the canonical unit of the observed quantity (cv is unitless);
+    records that come from a validated Study (they carry ``declared_unit``) are canonical already.
+    A record with a per-subject data file (columns subject, value; optional group) becomes one
+    record per row, all with the same index. Raises InputError (file, key, value) for an sd or cv
+    that is not positive.
+    """
+    out: list[Observation] = []
+    for i, rec in enumerate(records or []):
+        raw = _as_dict(rec)
+        canonical = "declared_unit" in raw
+        data = getattr(rec, "data", None) if not isinstance(rec, Mapping) else rec.get("data")
+        kind = raw.get("kind")
+        obs = Observation(kind=str(kind), index=i, file=file,
+                          parameter=raw.get("parameter"), instrument=raw.get("instrument"),
+                          subject=None if raw.get("subject") is None else str(raw.get("subject")),
+                          group=None if raw.get("group") is None else str(raw.get("group")),
+                          unit=raw.get("unit"))
+        obs.extra = {k: v for k, v in raw.items()
+                     if k not in ("kind", "parameter", "instrument", "subject", "group", "unit",
+                                  "value", "sd", "cv") and v is not None}
+        if data is not None:
+            obs.extra["data"] = data
+        unit = raw.get("declared_unit") if canonical else obs.unit
+        symbol = _symbol_for(obs.kind, obs.parameter)
+        if obs.kind == "clearance_rate" and unit and not _converts("k_clear", unit):
+            symbol = "JL"  # a clearance given as a flow (mL/min per basis)
+            obs.extra["as_flow"] = True
+        factor = _canonical_factor(symbol, unit, obs, density)
+        for name in ("value", "sd", "cv"):
+            v = raw.get(name)
+            if v is None:
+                continue
+            try:
+                v = float(v)
+            except (TypeError, ValueError):
+                raise obs.error("must be a number", name, v) from None
+            if name in ("sd", "cv") and not v > 0:
+                raise obs.error(f"{name} must be positive", name, v)
+            if name in ("value", "sd") and not canonical:
+                v *= factor
+            setattr(obs, name, v)
+        if data is not None and obs.kind != "volume_time_course" and "value" in data:
+            subjects = data.get("subject") or [None] * len(data["value"])
+            groups = data.get("group") or [obs.group] * len(data["value"])
+            for subj, grp, val in zip(subjects, groups, data["value"], strict=True):
+                row = dataclasses.replace(obs, extra={k: v for k, v in obs.extra.items() if k != "data"},
+                                          subject=None if subj is None else str(subj),
+                                          group=None if grp is None else str(grp),
+                                          value=float(val) * factor)
+                out.append(row)
+            continue
+        out.append(obs)
+    return out
+
+
+def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
+                       model: str | None = None) -> Problem:
+    """A :class:`Problem` from a validated Study (optionally another model form or observations).
+
+    ``observations`` overrides the study's own ``[[observations]]`` (records in the study-file
+    form, e.g. simulated readings); ``model`` overrides ``[study] model`` (``classic``,
+    ``steady_state``, ``revised``), used by model comparison.
+    """
+    from uncertainty import model as model_mod
+
+    names = list(study.names)
+    priors = {n: study.priors[n] for n in names}
+    fixed: dict[str, float] = {}
+    for name, prior in study.priors.items():
+        if name in priors:
+            continue
+        if getattr(prior, "dist", None) == "fixed":
+            fixed[name] = float(prior.params.get("value", prior.mean()))
+    form = model or study.model
+    target = study
+    if model is not None and model != study.model:
+        target = _with_model(study, model)
+
+    def evaluate(values: Mapping[str, Any], xp: Any) -> Mapping[str, Any]:
+        return model_mod.evaluate(target, dict(values), xp=xp)
+
+    file = str(study.path) if getattr(study, "path", None) else None
+    density = float(getattr(study, "density", 1.05) or 1.05)
+    records = study.observations if observations is None else observations
+    base_dir = None
+    if file:
+        import os
+
+        base_dir = os.path.dirname(os.path.abspath(file))
+    corr = getattr(study, "correlation", None)
+    return Problem(priors=priors, fixed=fixed, evaluate=evaluate,
+                   observations=normalise_observations(records, file=file, density=density),
+                   correlation=None if corr is None else np.asarray(corr, dtype=float),
+                   file=file, model_form=form, basis=getattr(study, "basis", "100g"),
+                   density=density, study=target, base_dir=base_dir,
+                   notes=list(getattr(study, "notes", []) or []))
+
+
+def _with_model(study: Any, model: str) -> Any:
+    """A copy of ``study`` with another model form (re-resolved when the study supports it)."""
+    for attr in ("with_model", "replace_model"):
+        fn = getattr(study, attr, None)
+        if callable(fn):
+            return fn(model)
+    try:
+        return dataclasses.replace(study, model=model)
+    except TypeError:
+        pass
+    if hasattr(study, "model_copy"):
+        return study.model_copy(update={"model": model})
+    import copy
+
+    clone = copy.copy(study)
+    clone.model = model
+    return clone

@@ -1,0 +1,142 @@
+"""Hand a declared model to a sampler: nutpie (default) or PyMC's own NUTS.
+
+The declaration never knows the sampler (DESIGN.md section 7). Failures of the sampler (a model
+that cannot be evaluated at its initial point, a compile error) are raised as
+:class:`SamplerError` with the reason, which the command line prints in one line.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+from typing import Any
+
+from uncertainty.core.errors import FluidshiftError
+
+SAMPLERS = ("nutpie", "pymc")
+
+
+class SamplerError(FluidshiftError):
+    """The sampler could not run (exit status 1), with the reason in the message."""
+
+    exit_code = 1
+
+
+@dataclasses.dataclass
+class SampleRun:
+    """Posterior draws (ArviZ InferenceData) and how long compiling and sampling took (s)."""
+
+    idata: Any
+    sampler: str
+    compile_seconds: float
+    sample_seconds: float
+    compiled: Any = None
+
+
+def compile_model(model: Any, sampler: str = "nutpie") -> tuple[Any, float]:
+    """Compile ``model`` for ``sampler``; returns (compiled object or None, seconds)."""
+    t0 = time.perf_counter()
+    if sampler == "nutpie":
+        import nutpie
+
+        try:
+            compiled = nutpie.compile_pymc_model(model)
+        except Exception as exc:  # noqa: BLE001 - reported with its reason, no traceback
+            raise SamplerError(f"nutpie could not compile the model: {type(exc).__name__}: {exc}") from None
+        return compiled, time.perf_counter() - t0
+    if sampler == "pymc":
+        return None, 0.0
+    raise SamplerError(f"unknown sampler {sampler!r} (known: {', '.join(SAMPLERS)})")
+
+
+#: half-width of the uniform jitter (unconstrained scale) around a given start point, as PyMC and
+#: nutpie jitter their default starts (common practice: overdispersed starts for R-hat)
+START_JITTER = 1.0
+
+
+def posterior_mode(model: Any) -> tuple[dict[str, Any], float]:
+    """Posterior mode of ``model`` (PyMC's L-BFGS ``find_MAP``) and the seconds it took: a dict with
+    every free variable's value on both scales (value-variable names for the unconstrained values,
+    variable names for the constrained ones). Raises SamplerError when the optimiser fails."""
+    import warnings
+
+    import pymc as pm
+
+    t0 = time.perf_counter()
+    try:
+        with model, warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            mode = pm.find_MAP(progressbar=False, maxeval=20000, include_transformed=True)
+    except Exception as exc:  # noqa: BLE001
+        raise SamplerError(f"the optimiser for the start point failed: {type(exc).__name__}: {exc}") from None
+    names = [n for v in model.free_RVs for n in (v.name, model.rvs_to_values[v].name)]
+    return {n: mode[n] for n in names}, time.perf_counter() - t0
+
+
+def _jittered_start(model: Any, start: dict[str, Any]) -> Any:
+    """nutpie start-point function: ``start`` (unconstrained, per value variable, in the order of
+    the model's free variables, as nutpie flattens them) plus uniform jitter, seeded per chain."""
+    import numpy as np
+
+    flat = np.concatenate([np.ravel(np.asarray(start[model.rvs_to_values[v].name], dtype=float))
+                           for v in model.free_RVs])
+
+    def initial_point(seed: Any = None) -> Any:
+        rng = np.random.default_rng(seed)
+        return flat + rng.uniform(-START_JITTER, START_JITTER, flat.size)
+
+    return initial_point
+
+
+def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int = 1000,
+           tune: int = 1000, seed: int | None = None, compiled: Any = None,
+           data: dict[str, Any] | None = None, target_accept: float | None = None,
+           low_rank: bool = False, start: dict[str, Any] | None = None) -> SampleRun:
+    """Draw ``chains`` x ``draws`` posterior samples after ``tune`` warm-up steps, seeded.
+
+    ``compiled`` reuses a nutpie compiled model (``data`` then replaces its ``pm.Data``
+    values, e.g. simulated readings in a trial loop). ``start`` (from :func:`posterior_mode`)
+    starts every chain there plus uniform jitter instead of at the priors' central points. Returns a :class:`SampleRun`.
+    """
+    import warnings
+
+    if sampler not in SAMPLERS:
+        raise SamplerError(f"unknown sampler {sampler!r} (known: {', '.join(SAMPLERS)})")
+    compile_s = 0.0
+    if sampler == "nutpie":
+        import nutpie
+
+        if compiled is None:
+            compiled, compile_s = compile_model(model, "nutpie")
+        run_model = compiled.with_data(**data) if data else compiled
+        if start is not None:
+            run_model = dataclasses.replace(run_model, initial_point_func=_jittered_start(model, start))
+        kwargs: dict[str, Any] = {}
+        if target_accept is not None:
+            kwargs["target_accept"] = target_accept
+        if low_rank:  # mass matrix that adapts to correlated directions (nutpie option)
+            kwargs["low_rank_modified_mass_matrix"] = True
+        t0 = time.perf_counter()
+        try:
+            idata = nutpie.sample(run_model, chains=chains, draws=draws, tune=tune, seed=seed,
+                                  progress_bar=False, save_warmup=False, **kwargs)
+        except Exception as exc:  # noqa: BLE001
+            raise SamplerError(f"nutpie failed: {type(exc).__name__}: {exc}") from None
+        return SampleRun(idata, sampler, compile_s, time.perf_counter() - t0, compiled)
+    import pymc as pm
+
+    t0 = time.perf_counter()
+    try:
+        with model:
+            if data:
+                pm.set_data(data)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                # PyMC takes start values on the constrained scale (posterior_mode gives both)
+                initvals = None if start is None else {v.name: start[v.name] for v in model.free_RVs}
+                idata = pm.sample(draws=draws, tune=tune, chains=chains, cores=min(chains, 2),
+                                  random_seed=seed, progressbar=False, compute_convergence_checks=False,
+                                  target_accept=target_accept or 0.8, initvals=initvals)
+    except Exception as exc:  # noqa: BLE001
+        raise SamplerError(f"PyMC NUTS failed: {type(exc).__name__}: {exc}") from None
+    return SampleRun(idata, sampler, 0.0, time.perf_counter() - t0, None)

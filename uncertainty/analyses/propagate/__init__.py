@@ -1,0 +1,478 @@
+"""Forward uncertainty: the distribution of Jv and other outputs (MC, scrambled-Sobol' QMC, LHS).
+
+The sample is split into R independent replicates (R >= 16: independent scrambles for QMC,
+independent streams for MC, independent designs for LHS). Point estimates use the pooled sample;
+the Monte Carlo standard error of every statistic is the spread of its R replicate values divided
+by sqrt(R) (Owen 2013, *Monte Carlo theory, methods and examples*, ch. 17, randomised QMC; from
+memory). Each output is summarised for the study's individual (typical-subject uncertainty plus the
+between-subject spread) and for the typical subject (uncertainty only), DESIGN.md section 2.
+
+Draws whose output is not finite (NaN / inf) are counted per output and layer, reported, and left
+out of that output's statistics; they are never averaged silently.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from uncertainty.analyses.sampling import (
+    METHODS,
+    cube_columns,
+    from_cube,
+    is_power_of_two,
+    next_power_of_two,
+    replicate_seeds,
+)
+from uncertainty.core.errors import InputError, QualityGateError
+
+DEFAULT_SAMPLES = 16384
+DEFAULT_METHOD = "qmc"
+DEFAULT_OUTPUTS = ("Jv", "net_pressure", "force_Pc", "force_Pi", "force_pi_c", "force_pi_i")
+REPLICATES = 16
+DEFAULT_MAX_SAMPLES = 2**22
+
+
+# --------------------------------------------------------------------------------------------
+# Replicated cube streams
+# --------------------------------------------------------------------------------------------
+
+class CubeStream:
+    """R independent replicated streams of points in the open cube (0,1)^k.
+
+    ``take(m)`` returns the next m points of each replicate: for ``qmc`` the continuation of each
+    scrambled Sobol' sequence (so the union after doubling is again a balanced Sobol' prefix), for
+    ``mc`` more pseudo-random points, for ``lhs`` a fresh independent Latin hypercube per replicate.
+    """
+
+    def __init__(self, k: int, method: str, seed: Any, replicates: int = REPLICATES) -> None:
+        from scipy.stats import qmc
+
+        if method not in METHODS:
+            raise InputError(f"unknown sampling method; use one of {', '.join(METHODS)}",
+                             key="propagate.method", value=method)
+        self.k, self.method, self.replicates = k, method, replicates
+        self._rngs = [np.random.default_rng(s) for s in replicate_seeds(seed, replicates)]
+        self._sobol = ([qmc.Sobol(k, scramble=True, rng=r) for r in self._rngs]
+                       if method == "qmc" and k > 0 else None)
+
+    def take(self, m: int) -> list[np.ndarray]:
+        """The next m points (m, k) of every replicate, in the open cube."""
+        from scipy.stats import qmc
+
+        from uncertainty.analyses.sampling import open_cube
+
+        out = []
+        for i, rng in enumerate(self._rngs):
+            if self.k == 0:
+                u = np.empty((m, 0))
+            elif self.method == "qmc":
+                u = self._sobol[i].random(m)
+            elif self.method == "lhs":
+                u = qmc.LatinHypercube(self.k, rng=rng).random(m)
+            else:
+                u = rng.random((m, self.k))
+            out.append(open_cube(u))
+        return out
+
+
+# --------------------------------------------------------------------------------------------
+# Summaries
+# --------------------------------------------------------------------------------------------
+
+def _t975(df: int) -> float:
+    from scipy.stats import t
+
+    return float(t.ppf(0.975, df))
+
+
+@dataclass
+class Summary:
+    """Distribution summary of one output in one layer, with Monte Carlo standard errors.
+
+    Values are in the output's canonical unit (``unit``). ``mc_se`` holds the standard error of
+    ``mean``, ``sd``, ``median`` and of each end of ``ci95`` (from R replicates); ``p_negative``
+    is P(output < 0); ``n`` counts finite draws, ``nan_draws`` the non-finite ones left out.
+    """
+
+    name: str
+    unit: str
+    mean: float
+    sd: float
+    median: float
+    ci95: tuple[float, float]
+    mc_se: dict[str, Any]
+    p_negative: float
+    p_negative_se: float
+    n: int
+    nan_draws: int
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict: mean, sd, median, ci95, mc_se (DESIGN.md section 5) plus extras."""
+        return {"mean": self.mean, "sd": self.sd, "median": self.median, "ci95": list(self.ci95),
+                "mc_se": self.mc_se, "p_negative": self.p_negative, "unit": self.unit,
+                "n": self.n, "nan_draws": self.nan_draws}
+
+
+def _stats(y: np.ndarray) -> np.ndarray:
+    """mean, sd, median, q2.5, q97.5, P(y<0) of the finite values of y (NaN when none)."""
+    if y.size == 0:
+        return np.full(6, np.nan)
+    q = np.quantile(y, [0.5, 0.025, 0.975])
+    sd = float(np.std(y, ddof=1)) if y.size > 1 else np.nan
+    return np.array([y.mean(), sd, q[0], q[1], q[2], np.mean(y < 0)])
+
+
+def summarize(name: str, replicates: Sequence[np.ndarray], unit: str = "") -> Summary:
+    """Summarise one output from its R replicate draw arrays (pooled estimates, replicate SEs)."""
+    reps = [np.asarray(r, dtype=float).ravel() for r in replicates]
+    finite = [r[np.isfinite(r)] for r in reps]
+    nan = int(sum(r.size - f.size for r, f in zip(reps, finite, strict=True)))
+    pooled = np.concatenate(finite) if finite else np.empty(0)
+    est = _stats(pooled)
+    per = np.array([_stats(f) for f in finite])
+    R = len(reps)
+    with np.errstate(invalid="ignore"):
+        se = np.nanstd(per, axis=0, ddof=1) / math.sqrt(R) if R > 1 else np.full(6, np.nan)
+    return Summary(
+        name=name, unit=unit, mean=float(est[0]), sd=float(est[1]), median=float(est[2]),
+        ci95=(float(est[3]), float(est[4])),
+        mc_se={"mean": float(se[0]), "sd": float(se[1]), "median": float(se[2]),
+               "ci95": [float(se[3]), float(se[4])]},
+        p_negative=float(est[5]), p_negative_se=float(se[5]), n=int(pooled.size), nan_draws=nan)
+
+
+# --------------------------------------------------------------------------------------------
+# Result
+# --------------------------------------------------------------------------------------------
+
+@dataclass
+class PropagateResult:
+    """Forward-uncertainty result: summaries and draws per layer and output, names and units.
+
+    ``summaries[layer][output]`` is a :class:`Summary`; ``draws[layer][output]`` the pooled draws
+    (canonical units, non-finite draws kept as NaN); ``units[output]`` the canonical unit;
+    :meth:`to_xarray` gives the draws as one labelled Dataset (names, units, replicate labels).
+    """
+
+    method: str
+    samples: int
+    replicates: int
+    seed: Any
+    outputs: list[str]
+    units: dict[str, str]
+    summaries: dict[str, dict[str, Summary]]
+    draws: dict[str, dict[str, np.ndarray]]
+    notes: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    tol: float | None = None
+    converged: bool | None = None
+    history: list[dict[str, Any]] = field(default_factory=list)
+    study: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def p_absorption(self) -> float:
+        """P(Jv < 0) for the study's individual (both layers of uncertainty)."""
+        return self.summaries["individual"]["Jv"].p_negative if "Jv" in self.summaries["individual"] \
+            else float("nan")
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON document of DESIGN.md section 5 (``outputs``, ``typical``, ``p_absorption``)."""
+        ind, typ = self.summaries["individual"], self.summaries["typical"]
+        doc: dict[str, Any] = {
+            "outputs": {k: ind[k].to_dict() for k in self.outputs},
+            "typical": {k: typ[k].to_dict() for k in self.outputs},
+        }
+        if "Jv" in ind:
+            doc["p_absorption"] = ind["Jv"].p_negative
+            doc["p_absorption_mc_se"] = ind["Jv"].p_negative_se
+            doc["typical_p_absorption"] = typ["Jv"].p_negative
+        doc.update({
+            "units": {k: self.units.get(k, "") for k in self.outputs},
+            "method": self.method, "samples": self.samples, "replicates": self.replicates,
+            "seed": self.seed,
+            "nan_draws": {layer: {k: s.nan_draws for k, s in self.summaries[layer].items()}
+                          for layer in ("individual", "typical")},
+            "tol": self.tol, "converged": self.converged, "history": self.history,
+            "notes": self.notes, "warnings": self.warnings, "study": self.study,
+        })
+        return doc
+
+    def to_dataframe(self) -> Any:
+        """A pandas DataFrame, one row per (layer, output), columns for each statistic and SE."""
+        import pandas as pd
+
+        rows = []
+        for layer in ("individual", "typical"):
+            for k in self.outputs:
+                s = self.summaries[layer][k]
+                rows.append({"layer": layer, "output": k, "unit": s.unit, "mean": s.mean, "sd": s.sd,
+                             "median": s.median, "ci95_low": s.ci95[0], "ci95_high": s.ci95[1],
+                             "mc_se_mean": s.mc_se["mean"], "mc_se_ci95_low": s.mc_se["ci95"][0],
+                             "mc_se_ci95_high": s.mc_se["ci95"][1], "p_negative": s.p_negative,
+                             "n": s.n, "nan_draws": s.nan_draws})
+        return pd.DataFrame(rows).set_index(["layer", "output"])
+
+    def to_xarray(self) -> Any:
+        """The draws as a labelled ``xarray.Dataset``: one variable per output over the dimensions
+        ``layer`` (individual, typical) and ``draw``, its canonical unit in ``attrs["units"]``; the
+        coordinate ``replicate`` says which independent replicate each draw belongs to (non-finite
+        draws kept as NaN)."""
+        import xarray as xr
+
+        layers = ["individual", "typical"]
+        # pooled draws are replicate after replicate (propagate_arrays), each samples / R long
+        replicate = np.repeat(np.arange(self.replicates), self.samples // self.replicates)
+        data = {name: (("layer", "draw"), np.vstack([self.draws[layer][name] for layer in layers]),
+                       {"units": self.units.get(name, "")}) for name in self.outputs}
+        return xr.Dataset(data, coords={"layer": layers, "draw": np.arange(self.samples),
+                                        "replicate": ("draw", replicate)},
+                          attrs={"method": self.method, "samples": self.samples,
+                                 "replicates": self.replicates, "seed": str(self.seed)})
+
+    def plot(self, out_dir: str) -> list[str]:
+        """Write the Jv distribution figure (individual beside typical) as PNG and SVG; paths."""
+        from uncertainty.analyses.propagate.figure import plot_distribution
+
+        return plot_distribution(self, out_dir)
+
+
+# --------------------------------------------------------------------------------------------
+# Core: any sampler of the cube + any model
+# --------------------------------------------------------------------------------------------
+
+def _section(study: Any, name: str) -> dict[str, Any]:
+    sec = getattr(study, name, None)
+    if sec is None:
+        return {}
+    if hasattr(sec, "model_dump"):  # only the keys the file sets; our own defaults otherwise
+        return {k: v for k, v in sec.model_dump(exclude_unset=True).items() if v is not None}
+    return dict(sec)
+
+
+def _resolve_samples(samples: int, method: str, replicates: int, notes: list[str],
+                     key: str = "propagate.samples") -> int:
+    """Per-replicate sample size: samples / replicates, a power of two for qmc (rounded up)."""
+    if isinstance(samples, bool) or not isinstance(samples, int | np.integer):
+        raise InputError("the number of samples must be a whole number", key=key, value=samples)
+    if samples <= 0:
+        raise InputError("the number of samples must be positive", key=key, value=samples)
+    per = max(2, math.ceil(samples / replicates))
+    if method == "qmc" and not is_power_of_two(per):
+        per = next_power_of_two(per)
+    if per * replicates != samples:
+        notes.append(f"samples rounded up from {samples} to {per * replicates} "
+                     f"({replicates} replicates of {per}"
+                     + (", a power of two as scrambled Sobol' needs)" if method == "qmc" else ")"))
+    return per
+
+
+def propagate_arrays(
+    sample_layers: Callable[[np.ndarray], dict[str, dict[str, np.ndarray]]],
+    k: int,
+    outputs: Sequence[str],
+    *,
+    samples: int = DEFAULT_SAMPLES,
+    method: str = DEFAULT_METHOD,
+    seed: Any = None,
+    tol: float | None = None,
+    max_samples: int | None = None,
+    replicates: int = REPLICATES,
+    units: dict[str, str] | None = None,
+    tol_outputs: Sequence[str] | None = None,
+) -> PropagateResult:
+    """Replicated forward propagation over any cube -> outputs map.
+
+    ``sample_layers(u)`` takes cube points (n, k) and returns ``{layer: {output: array(n)}}`` for
+    the layers ``individual`` and ``typical``. ``samples`` is the total over ``replicates``
+    independent replicates. With ``tol`` (in the unit of the gated outputs, default the first of
+    ``outputs``), the sample doubles until the MC standard error of both 95%-interval ends is below
+    ``tol`` in both layers; QualityGateError (exit 3, carrying the result) if ``max_samples`` would
+    be exceeded first.
+    """
+    if replicates < 2:
+        raise InputError("at least 2 replicates are needed for a Monte Carlo error", key="replicates",
+                         value=replicates)
+    notes: list[str] = []
+    per = _resolve_samples(samples, method, replicates, notes)
+    if tol is not None and not (tol > 0):
+        raise InputError("the tolerance must be positive", key="tol", value=tol)
+    max_samples = DEFAULT_MAX_SAMPLES if max_samples is None else max_samples
+    if max_samples < per * replicates:
+        raise InputError(f"max-samples is below the starting sample size {per * replicates}",
+                         key="max_samples", value=max_samples)
+    stream = CubeStream(k, method, seed, replicates)
+    units = dict(units or {})
+    gate = list(tol_outputs or outputs[:1])
+    store: dict[str, dict[str, list[list[np.ndarray]]]] = {}
+    history: list[dict[str, Any]] = []
+    take = per
+    total_per = 0
+    while True:
+        # all replicates in one batch (vectorised evaluation), split back afterwards
+        res = sample_layers(np.vstack(stream.take(take)))
+        for layer, outs in res.items():
+            for name in outputs:
+                store.setdefault(layer, {}).setdefault(name, [[] for _ in range(replicates)])
+                parts = np.split(np.broadcast_to(np.asarray(outs[name], dtype=float), (take * replicates,)),
+                                 replicates)
+                for r in range(replicates):
+                    store[layer][name][r].append(parts[r])
+        total_per += take
+        summaries = {layer: {name: summarize(name, [np.concatenate(x) for x in reps], units.get(name, ""))
+                             for name, reps in outs_.items()} for layer, outs_ in store.items()}
+        worst = max((max(summaries[layer][g].mc_se["ci95"]) for layer in summaries for g in gate),
+                    default=float("nan"))
+        history.append({"samples": total_per * replicates, "worst_ci95_mc_se": worst})
+        if tol is None or worst < tol:
+            converged = None if tol is None else True
+            break
+        if 2 * total_per * replicates > max_samples:
+            converged = False
+            break
+        take = total_per  # doubling
+    draws = {layer: {name: np.concatenate([np.concatenate(x) for x in reps])
+                     for name, reps in outs_.items()} for layer, outs_ in store.items()}
+    result = PropagateResult(method=method, samples=total_per * replicates, replicates=replicates,
+                             seed=seed if isinstance(seed, int | type(None)) else str(seed),
+                             outputs=list(outputs), units=units, summaries=summaries, draws=draws,
+                             notes=notes, tol=tol, converged=converged, history=history)
+    for layer, outs_ in summaries.items():
+        for name, s in outs_.items():
+            if s.nan_draws:
+                result.warnings.append(
+                    f"{s.nan_draws} of {s.n + s.nan_draws} {layer} draws of {name} are not finite "
+                    f"(NaN/inf); they are left out of its statistics")
+    if converged is False:
+        raise QualityGateError(
+            f"Monte Carlo standard error of the 95% interval ends ({worst:.3g}) is still above "
+            f"tol={tol:g} at {total_per * replicates} samples; the next doubling would exceed "
+            f"max-samples={max_samples}", result=result)
+    return result
+
+
+# --------------------------------------------------------------------------------------------
+# Study layer
+# --------------------------------------------------------------------------------------------
+
+def available_outputs(study: Any, evaluate: Callable | None = None) -> list[str]:
+    """Output names the study's model returns (evaluated on a tiny draw at the medians)."""
+    evaluate = _evaluator(evaluate)
+    u = np.full((2, len(cube_columns(study, "individual"))), 0.5)
+    return list(evaluate(study, from_cube(study, u, "individual")).keys())
+
+
+def _evaluator(evaluate: Callable | None) -> Callable:
+    if evaluate is not None:
+        return evaluate
+    from uncertainty.model import evaluate as model_evaluate
+
+    return model_evaluate
+
+
+def _output_units(outputs: Sequence[str]) -> dict[str, str]:
+    try:
+        from uncertainty.model import OUTPUT_UNITS
+    except ImportError:  # pragma: no cover - model.py not present
+        return {}
+    return {k: OUTPUT_UNITS.get(k, "") for k in outputs}
+
+
+def propagate(study: Any, samples: int | None = None, method: str | None = None, seed: int | None = None,
+              tol: float | None = None, max_samples: int | None = None,
+              outputs: Sequence[str] | None = None, *, replicates: int = REPLICATES,
+              evaluate: Callable | None = None) -> PropagateResult:
+    """Distribution of the study's outputs (Jv in its canonical unit and the rest) for its
+    individual and its typical subject.
+
+    Arguments override the study's ``[propagate]`` section (``samples``, ``method``, ``outputs``);
+    ``seed`` defaults to the study's. ``tol`` is in the unit of the first output; see
+    :func:`propagate_arrays`. Raises InputError for an unknown output, zero samples or an unknown
+    method; QualityGateError when ``tol`` is not reached within ``max_samples``.
+    """
+    sec = _section(study, "propagate")
+    samples = sec.get("samples", DEFAULT_SAMPLES) if samples is None else samples
+    method = sec.get("method", DEFAULT_METHOD) if method is None else method
+    if method not in METHODS:
+        raise InputError(f"unknown sampling method; use one of {', '.join(METHODS)}",
+                         file=_file(study), key="propagate.method", value=method)
+    seed = getattr(study, "seed", None) if seed is None else seed
+    tol = sec.get("tol") if tol is None else tol
+    max_samples = sec.get("max_samples") if max_samples is None else max_samples
+    if "replicates" in sec and replicates == REPLICATES:
+        replicates = sec["replicates"]
+    if replicates < REPLICATES:
+        raise InputError(f"at least {REPLICATES} independent replicates are needed for the Monte Carlo "
+                         "standard errors (DESIGN.md: at least 16 scrambles)", file=_file(study),
+                         key="propagate.replicates", value=replicates)
+    evaluate = _evaluator(evaluate)
+    have = available_outputs(study, evaluate)
+    if outputs is None:
+        outputs = sec.get("outputs") or [o for o in DEFAULT_OUTPUTS if o in have] + \
+            [o for o in have if o not in DEFAULT_OUTPUTS]
+    outputs = list(outputs)
+    for o in outputs:
+        if o not in have:
+            raise InputError(f"no such output; the {getattr(study, 'model', 'study')} model gives "
+                             f"{', '.join(have)}", file=_file(study), key="propagate.outputs", value=o)
+    if "Jv" in have and "Jv" not in outputs:
+        outputs.append("Jv")  # P(absorption) always reported
+    d = len(study.names)
+    k = len(cube_columns(study, "individual"))
+    has_bs = k > d
+
+    form = getattr(study, "model", None)
+    from uncertainty.model import NOTE_OUTPUTS
+
+    note_keys = NOTE_OUTPUTS.get(form or "", ())  # outputs whose draws the form's notes read
+    kept: list[dict[str, np.ndarray]] = []  # individual draws the form's notes read (model.output_notes)
+
+    def sample_layers(u: np.ndarray) -> dict[str, dict[str, np.ndarray]]:
+        typ = evaluate(study, from_cube(study, u[:, :d], "typical"))
+        ind = evaluate(study, from_cube(study, u, "individual")) if has_bs else typ
+        if note_keys and all(key in ind for key in note_keys):
+            kept.append({key: np.broadcast_to(np.asarray(ind[key], dtype=float), (u.shape[0],))
+                         for key in note_keys})
+        return {"individual": ind, "typical": typ}
+
+    def add_form_notes(res: PropagateResult) -> None:
+        if kept:
+            from uncertainty.model import output_notes
+
+            draws = {key: np.concatenate([b[key] for b in kept]) for key in note_keys}
+            res.notes.extend(n for n in output_notes(form, draws) if n not in res.notes)
+
+    try:
+        result = propagate_arrays(sample_layers, k, outputs, samples=samples, method=method, seed=seed,
+                                  tol=tol, max_samples=max_samples, replicates=replicates,
+                                  units=_output_units(outputs))
+    except QualityGateError as exc:
+        if exc.result is not None:
+            exc.result.study = _study_meta(study)
+            add_form_notes(exc.result)
+        raise
+    except InputError as exc:
+        if exc.file is None and _file(study):
+            raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc
+        raise
+    result.study = _study_meta(study)
+    add_form_notes(result)
+    if not has_bs:
+        result.notes.append("no between-subject spread declared: the individual equals the typical "
+                            "subject")
+    return result
+
+
+def _file(study: Any) -> str | None:
+    p = getattr(study, "path", None)
+    return str(p) if p else None
+
+
+def _study_meta(study: Any) -> dict[str, Any]:
+    return {"title": getattr(study, "title", None), "path": _file(study),
+            "hash": getattr(study, "hash", None), "model": getattr(study, "model", None),
+            "tissue": getattr(study, "tissue", None)}

@@ -1,0 +1,601 @@
+"""Value of information: which measurement would narrow the Jv interval most.
+
+For a candidate reading X of a quantity theta (noise sd or cv, an optional bias prior, ``n``
+repeated readings averaged), the expected posterior variance of the output Y (Jv) after the
+reading is E_X[Var(Y | X)] = Var(Y) - Var(E[Y | X]). Two estimators over one set of draws
+(theta, Y) from the prior, or, when the study has observations, from the current posterior (thinned
+MCMC draws, :func:`posterior_pool`; Var and E are then posterior moments):
+
+- ``regression`` (Strong, Oakley, Brennan & Breeze 2015, Med Decis Making 35:570-583): simulate
+  one reading per draw and regress Y on the reading(s) with a penalised cubic B-spline basis
+  (additive terms plus pairwise tensor products for several readings; smoothing chosen by GCV).
+  E[Var(Y|X)] is the residual mean square (corrected for the fitted degrees of freedom).
+- ``importance`` (likelihood reweighting of the draws for J simulated readings): simple, but its
+  effective sample size collapses when the noise is much smaller than the prior sd of theta; ``auto``
+  uses it only where the noise is at least the prior sd and the likelihood is closed form (no bias,
+  or a normal bias with an sd noise), else regression. The inner estimate of each posterior mean uses
+  all draws (its self-normalised variance is subtracted from the explained variance, removing the
+  nested-sampling bias); the outer readings J start at 800 (relative error sqrt(2/J) = 5% for one
+  normal reading) and grow until the Monte Carlo error of the reduction is below 5% of it, up to
+  the number of draws (capped at 4000).
+
+The perfect-information bound is Var(Y) S1(theta) (the first-order index, given-data estimate).
+The expected 95% interval width after the reading: importance, the mean width of the reweighted
+2.5-97.5% quantiles; regression, a location-scale approximation of the posterior: the residual
+scale given the reading(s), s(X), is a second regression (of log squared residuals), and the width
+is the 2.5-97.5% range of the standardised residuals (Y - E[Y|X]) / s(X) times the mean of s(X)
+(exact when the posterior keeps its shape and changes only location and scale with X, e.g. a
+lognormal output of a normal reading). Monte Carlo error of every figure: the standard deviation
+over independent blocks of the draws (each block a full estimate) divided by sqrt(blocks), or, for
+importance, over the outer readings. ``best_pair`` and ``best_set`` (within ``budget``) are fitted
+jointly on the candidates' joint readings, never by adding single reductions.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from uncertainty.core.errors import InputError
+
+_BLOCKS = 8
+
+
+@dataclass(frozen=True)
+class Reading:
+    """A candidate measurement: ``parameter`` read with noise ``sd`` (additive) or ``cv`` (lognormal).
+
+    ``bias``: a scipy-frozen-like object with ``ppf`` (canonical unit, additive) or None;
+    ``n``: readings averaged (noise shrinks by sqrt(n), the bias does not); ``cost`` relative.
+    """
+
+    name: str
+    parameter: str
+    sd: float | None = None
+    cv: float | None = None
+    bias: Any = None
+    cost: float = 1.0
+    n: int = 1
+
+    def simulate(self, theta: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+        """One simulated (averaged) reading per value of ``theta`` (canonical unit)."""
+        z = rng.standard_normal(theta.shape)
+        if self.sd is not None:
+            x = theta + self.sd / math.sqrt(self.n) * z
+        else:
+            s = math.sqrt(math.log1p(self.cv**2)) / math.sqrt(self.n)
+            x = theta * np.exp(s * z)
+        if self.bias is not None:
+            x = x + self.bias.ppf(rng.uniform(size=theta.shape))
+        return x
+
+
+# --------------------------------------------------------------------------------------------
+# regression (nonparametric, GCV-penalised B-splines)
+
+
+def _bspline_block(x: np.ndarray, interior: int) -> np.ndarray:
+    from scipy.interpolate import BSpline
+
+    k = 3
+    lo, hi = float(np.min(x)), float(np.max(x))
+    if hi <= lo:
+        return np.zeros((len(x), 0))
+    inner = np.quantile(x, np.linspace(0, 1, interior + 2)[1:-1]) if interior > 0 else np.array([])
+    inner = np.unique(inner[(inner > lo) & (inner < hi)])
+    t = np.concatenate([[lo] * (k + 1), inner, [hi] * (k + 1)])
+    xx = np.clip(x, lo, hi)
+    B = BSpline.design_matrix(xx, t, k).toarray()
+    return B[:, 1:]  # drop one column: the intercept is separate
+
+
+def _design_matrix(X: np.ndarray, interior: int) -> np.ndarray:
+    n, d = X.shape
+    z = (X - X.mean(axis=0)) / np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+    cols = [np.ones((n, 1))]
+    blocks = [_bspline_block(z[:, j], interior) for j in range(d)]
+    cols += blocks
+    if d > 1:
+        small = [_bspline_block(z[:, j], max(1, min(interior, 3))) for j in range(d)]
+        for a, b in itertools.combinations(range(d), 2):
+            cols.append((small[a][:, :, None] * small[b][:, None, :]).reshape(n, -1))
+    return np.hstack(cols)
+
+
+def _ridge_path(A: np.ndarray, y: np.ndarray, lams: tuple[float, ...]) -> list[tuple[np.ndarray, float, float]]:
+    """Ridge fits of centred y on A for several penalties: [(fit, edf, lam)], one eigendecomposition."""
+    AtA = A.T @ A
+    evals, Q = np.linalg.eigh(AtA)
+    evals = np.clip(evals, 0.0, None)
+    qty = Q.T @ (A.T @ y)
+    AQ = A @ Q
+    scale = float(np.trace(AtA)) / AtA.shape[0]
+    out = []
+    for lam in lams:
+        d = 1.0 / (evals + lam * scale)
+        out.append((AQ @ (d * qty), float(np.sum(evals * d)), lam))
+    return out
+
+
+_LAMS = (1e-8, 1e-5, 1e-3, 1e-1)
+
+
+def regression_fit(X: np.ndarray, y: np.ndarray, choice: tuple[int, float] | None = None
+                   ) -> tuple[np.ndarray, float, tuple[int, float]]:
+    """Fitted E[y | X] at the draws, its effective degrees of freedom and the (knots, penalty) used.
+
+    X: (n, d) readings, y: (n,) outputs (any units). Spline blocks per column and pairwise tensor
+    products; the penalty is a ridge on the coefficients, chosen with the number of knots by
+    generalised cross-validation, GCV = n RSS / (n - edf)^2, unless ``choice`` fixes both.
+    """
+    X = np.asarray(X, dtype=float)
+    if X.ndim == 1:
+        X = X[:, None]
+    n = len(y)
+    ym = float(np.mean(y))
+    yc = y - ym
+    max_knots = max(1, min(10, n // 300))
+    if choice is not None:
+        grid = [(min(choice[0], max_knots), (choice[1],))]
+    else:
+        knots = (2, 5, 9) if X.shape[1] == 1 else (3, 6)
+        grid = [(k, _LAMS) for k in sorted({min(k, max_knots) for k in knots})]
+    best = None
+    for interior, lams in grid:
+        A = _design_matrix(X, interior)
+        for fit, edf, lam in _ridge_path(A, yc, lams):
+            rss = float(np.sum((yc - fit) ** 2))
+            gcv = n * rss / max(n - edf - 1, 1.0) ** 2
+            if best is None or gcv < best[0]:
+                best = (gcv, fit + ym, edf + 1, (interior, lam))
+    return best[1], best[2], best[3]
+
+
+def _regression_figures(X: np.ndarray, y: np.ndarray, choice: tuple | None = None
+                        ) -> tuple[float, float, tuple]:
+    """(E[Var(y|X)], expected 95% width, (mean fit choice, scale fit choice)) by regression.
+
+    The width is the location-scale approximation of the module docstring: a second fit of
+    log((y - E[y|X])^2) on X gives the residual scale s(X) up to a constant factor, which cancels.
+    """
+    c_mean, c_scale = choice if choice is not None else (None, None)
+    fit, edf, c_mean = regression_fit(X, y, c_mean)
+    resid = y - fit
+    n = len(y)
+    var_post = float(np.sum(resid**2) / max(n - edf, 1.0))
+    r2 = resid**2
+    floor = float(np.quantile(r2[r2 > 0], 1e-3)) if np.any(r2 > 0) else 1.0
+    g, _, c_scale = regression_fit(X, np.log(np.maximum(r2, floor)), c_scale)
+    scale = np.exp(0.5 * (g - np.mean(g)))
+    lo, hi = np.quantile(resid / scale, [0.025, 0.975])
+    return var_post, float((hi - lo) * np.mean(scale)), (c_mean, c_scale)
+
+
+# --------------------------------------------------------------------------------------------
+# importance reweighting
+
+
+def _loglik(reading: Reading, x: np.ndarray, theta: np.ndarray) -> np.ndarray:
+    """log p(x_j | theta_i), (J, n); closed form for sd noise (+ normal bias) and cv noise."""
+    if reading.sd is not None:
+        s2 = reading.sd**2 / reading.n
+        m = 0.0
+        if reading.bias is not None:
+            m, sb = float(reading.bias.mean()), float(reading.bias.std())
+            s2 = s2 + sb**2
+        return -0.5 * (x[:, None] - theta[None, :] - m) ** 2 / s2
+    s = math.sqrt(math.log1p(reading.cv**2)) / math.sqrt(reading.n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return -0.5 * (np.log(x)[:, None] - np.log(theta)[None, :]) ** 2 / s**2
+
+
+_IS_REL_TOL = 0.05  # relative Monte Carlo error asked of the importance estimate (issue 6)
+_IS_START, _IS_MAX, _IS_CHUNK = 800, 4000, 250
+
+
+def importance_figures(reading: Reading, theta: np.ndarray, y: np.ndarray, rng: np.random.Generator,
+                       rel_tol: float = _IS_REL_TOL, max_outer: int = _IS_MAX) -> dict[str, float]:
+    """Expected posterior variance and 95% width of y after ``reading``, by likelihood reweighting.
+
+    Outer: J readings simulated from distinct draws (800 at first, more until the MC error of the
+    reduction is below ``rel_tol`` of it, at most min(draws, ``max_outer``)); inner: every draw,
+    weighted by the reading's likelihood. Per outer reading, (mean - E[y])^2 minus the
+    self-normalised variance of the mean, sum w_i^2 (y_i - mean)^2, is an unbiased-to-first-order
+    estimate of its share of Var(E[y|X]). Returns ``expected_var_post`` (y's unit squared), ``mc_se``
+    (of the reduction, = that of the posterior variance), ``expected_ci95_width`` and
+    ``ci95_width_mc_se`` (y's unit; outer spread plus the inner draws' quantile error at each
+    reading's effective sample), ``ess_fraction`` (smallest effective-sample fraction),
+    ``outer`` and ``rel_error`` (mc_se / reduction).
+    """
+    n = len(theta)
+    cap = max(2, min(n, int(max_outer)))
+    perm = rng.permutation(n)
+    order = np.argsort(y)
+    ys = y[order]
+    ybar = float(np.mean(y))
+    expl: list[np.ndarray] = []
+    widths: list[np.ndarray] = []
+    esss: list[np.ndarray] = []
+    used, target = 0, min(cap, _IS_START)
+    while True:
+        while used < target:
+            idx = perm[used:min(target, used + _IS_CHUNK)]
+            x = reading.simulate(theta[idx], rng)
+            ll = _loglik(reading, x, theta)
+            w = np.exp(ll - ll.max(axis=1, keepdims=True))
+            w /= w.sum(axis=1, keepdims=True)
+            mean = w @ y
+            var_mean = np.einsum("ji,ji->j", w**2, (y[None, :] - mean[:, None]) ** 2)
+            expl.append((mean - ybar) ** 2 - var_mean)
+            cw = np.cumsum(w[:, order], axis=1)
+            widths.append(ys[np.argmax(cw >= 0.975, axis=1)] - ys[np.argmax(cw >= 0.025, axis=1)])
+            esss.append(1.0 / np.sum(w**2, axis=1))
+            used += len(idx)
+        e = np.concatenate(expl)
+        red, se = float(e.mean()), float(e.std(ddof=1) / math.sqrt(len(e)))
+        if used >= cap or (red > 0 and se <= rel_tol * red):
+            break
+        grow = (se / (rel_tol * red)) ** 2 * 1.1 if red > 0 else 2.0
+        target = min(cap, max(used + _IS_CHUNK, int(math.ceil(used * min(grow, 4.0)))))
+    wd, ess = np.concatenate(widths), np.concatenate(esss)
+    width = float(wd.mean())
+    # every outer reading reuses the same inner draws: add the error of a weighted 95% range from its
+    # effective sample, sqrt(2 p (1 - p) / ess) / (phi(z) 2 z) of the width at p = 0.025 (asymptotic
+    # variance of a sample quantile, normal shape; common practice), averaged over the readings (an upper
+    # bound for the error of their mean: those errors are positively correlated, not identical)
+    z = 1.959963984540054
+    k = math.sqrt(2 * 0.025 * 0.975) / (math.exp(-z * z / 2) / math.sqrt(2 * math.pi) * 2 * z)
+    inner = float(np.mean(wd * k / np.sqrt(ess)))
+    width_se = math.hypot(float(wd.std(ddof=1) / math.sqrt(len(wd))), inner)
+    return {"expected_var_post": float(np.var(y, ddof=1)) - red, "mc_se": se,
+            "expected_ci95_width": width, "ci95_width_mc_se": width_se,
+            "ess_fraction": float(ess.min()) / n, "outer": int(used),
+            "rel_error": se / red if red > 0 else float("inf")}
+
+
+def choose_method(reading: Reading, theta: np.ndarray) -> str:
+    """``importance`` where the noise is at least the prior sd and the likelihood is closed form."""
+    prior_sd = float(np.std(theta))
+    if reading.sd is not None:
+        noise = reading.sd / math.sqrt(reading.n)
+        closed = reading.bias is None or getattr(getattr(reading.bias, "dist", None), "name", "") == "norm"
+    else:
+        noise = math.sqrt(math.log1p(reading.cv**2)) / math.sqrt(reading.n) * float(np.median(np.abs(theta)))
+        closed = reading.bias is None and bool(np.all(theta > 0))
+    return "importance" if closed and noise >= prior_sd else "regression"
+
+
+# --------------------------------------------------------------------------------------------
+# figures for one candidate or one set
+
+
+def _blocks(n: int, rng: np.random.Generator, blocks: int = _BLOCKS) -> list[np.ndarray]:
+    return np.array_split(rng.permutation(n), blocks)
+
+
+def evaluate_set(readings: np.ndarray, y: np.ndarray, rng: np.random.Generator | None) -> dict[str, float]:
+    """Expected posterior variance / 95% width of Y given joint readings (n, k), with block MC errors.
+
+    The blocks reuse the full fit's knots and penalties; ``mc_se`` is the error of the expected
+    variance reduction (block reductions: block variance of Y minus block residual variance),
+    ``var_post_mc_se``, ``ci95_width_mc_se`` and ``narrowing_mc_se`` (block 95% width of Y minus the
+    block expected width) those of the other figures.
+    """
+    var_post, width, choice = _regression_figures(readings, y)
+    if rng is None:  # no Monte Carlo error wanted (searching over sets)
+        return {"expected_var_post": var_post, "expected_ci95_width": width}
+    reps = []
+    for b in _blocks(len(y), rng):
+        v, w, _ = _regression_figures(readings[b], y[b], choice)
+        lo, hi = np.quantile(y[b], [0.025, 0.975])
+        reps.append((v, w, float(np.var(y[b], ddof=1)) - v, float(hi - lo) - w))
+    v, wd, red, nar = (np.array(col) for col in zip(*reps, strict=True))
+    k = math.sqrt(len(reps))
+    return {"expected_var_post": var_post, "expected_ci95_width": width,
+            "mc_se": float(red.std(ddof=1) / k), "var_post_mc_se": float(v.std(ddof=1) / k),
+            "ci95_width_mc_se": float(wd.std(ddof=1) / k), "narrowing_mc_se": float(nar.std(ddof=1) / k)}
+
+
+def perfect_information(theta: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """(S1, se): first-order index of theta for y from the draws (given-data estimate)."""
+    try:
+        from uncertainty.analyses.sensitivity import first_order_given_data
+
+        s1, se = first_order_given_data(theta, y)
+        return float(s1), float(se)
+    except ImportError:  # pragma: no cover - sensitivity.py is part of the package
+        fit, _, _ = regression_fit(theta, y)
+        return float(np.var(fit) / np.var(y)), float("nan")
+
+
+def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Reading], *,
+               seed: int = 0, budget: float | None = None, method: str = "auto",
+               max_set_size: int = 6) -> dict[str, Any]:
+    """Rank candidate readings on draws ``values`` (name -> array) of the inputs and ``y`` (output).
+
+    Returns the ``rank`` JSON (DESIGN.md section 5): ``candidates`` sorted by expected variance
+    reduction, ``prior`` figures, ``best_pair`` and ``best_set`` (joint fits). Units: those of y
+    (variances in y's unit squared); ``per_cost`` is the 95% interval narrowing per unit cost.
+    """
+    rng = np.random.default_rng(seed)
+    y = np.asarray(y, dtype=float)
+    ok = np.isfinite(y)
+    y = y[ok]
+    var_y = float(np.var(y, ddof=1))
+    lo, hi = np.quantile(y, [0.025, 0.975])
+    prior_width = float(hi - lo)
+    # one simulated reading per draw and candidate: shared by singles, pairs and sets
+    reads: dict[str, np.ndarray] = {}
+    rows = []
+    notes: list[str] = []
+    for c in candidates:
+        if c.parameter not in values:
+            raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
+                             value=c.parameter)
+        theta = np.asarray(values[c.parameter], dtype=float)[ok]
+        reads[c.name] = c.simulate(theta, rng)
+        m = choose_method(c, theta) if method == "auto" else method
+        fig = None
+        if m == "importance":
+            fig = importance_figures(c, theta, y, rng)
+            if fig["ess_fraction"] * len(theta) < 50:  # too few effective draws: fall back
+                m, fig = "regression", None
+            else:
+                # the prior width is fixed by the draws here; the narrowing's error is the width's
+                fig["var_post_mc_se"] = fig["mc_se"]
+                fig["narrowing_mc_se"] = fig["ci95_width_mc_se"]
+        if fig is None:
+            fig = evaluate_set(reads[c.name][:, None], y, rng)
+        s1, s1_se = perfect_information(theta, y)
+        reduction = var_y - fig["expected_var_post"]
+        row = {
+            "name": c.name, "parameter": c.parameter, "cost": c.cost,
+            "expected_var_post": fig["expected_var_post"],
+            "expected_var_post_mc_se": fig["var_post_mc_se"],
+            "expected_variance_reduction": reduction,
+            "expected_ci95_width": fig["expected_ci95_width"],
+            "expected_ci95_width_mc_se": fig["ci95_width_mc_se"],
+            "ci95_narrowing": prior_width - fig["expected_ci95_width"],
+            "ci95_narrowing_mc_se": fig["narrowing_mc_se"],
+            "perfect_information_bound": var_y * s1,
+            "perfect_information_S1": s1,
+            "per_cost": (prior_width - fig["expected_ci95_width"]) / c.cost,
+            "per_cost_mc_se": fig["narrowing_mc_se"] / c.cost,
+            "mc_se": fig["mc_se"],
+            "mc_rel_error": fig["mc_se"] / reduction if reduction > 0 else None,
+            "perfect_information_mc_se": var_y * s1_se,
+            "method": m,
+        }
+        if m == "importance":
+            row["importance_outer"] = fig["outer"]
+            row["importance_ess_fraction"] = fig["ess_fraction"]
+        if row["mc_rel_error"] is None:
+            notes.append(f"{c.name}: the expected reduction ({reduction:.3g}) is not above zero "
+                         f"(Monte Carlo error {fig['mc_se']:.2g}, {m})")
+        elif row["mc_rel_error"] > _IS_REL_TOL:
+            notes.append(f"{c.name}: Monte Carlo error {100 * row['mc_rel_error']:.0f}% of the expected reduction "
+                         f"({m}; above {100 * _IS_REL_TOL:.0f}%, more samples would sharpen it)")
+        rows.append(row)
+    rows.sort(key=lambda r: -r["expected_variance_reduction"])
+
+    def joint(names: tuple[str, ...], with_se: bool = False) -> dict[str, Any]:
+        X = np.column_stack([reads[n] for n in names])
+        fig = evaluate_set(X, y, rng if with_se else None)
+        cost = sum(c.cost for c in candidates if c.name in names)
+        return {"names": list(names), "cost": cost, "expected_var_post": fig["expected_var_post"],
+                "expected_variance_reduction": var_y - fig["expected_var_post"],
+                "expected_ci95_width": fig["expected_ci95_width"], "mc_se": fig.get("mc_se"),
+                "expected_ci95_width_mc_se": fig.get("ci95_width_mc_se")}
+
+    names = [c.name for c in candidates]
+    cost_of = {c.name: c.cost for c in candidates}
+    best_pair = None
+    if len(names) >= 2:
+        pairs = [joint(p) for p in itertools.combinations(names, 2)
+                 if budget is None or cost_of[p[0]] + cost_of[p[1]] <= budget + 1e-12]
+        best_pair = min(pairs, key=lambda r: r["expected_var_post"]) if pairs else None
+        if best_pair is not None:
+            best_pair = joint(tuple(best_pair["names"]), with_se=True)
+    best_set = None
+    if budget is not None:
+        affordable = [n for n in names if cost_of[n] <= budget + 1e-12]
+        subsets = [s for k in range(1, min(len(affordable), max_set_size) + 1)
+                   for s in itertools.combinations(affordable, k)
+                   if sum(cost_of[n] for n in s) <= budget + 1e-12]
+        if len(subsets) <= 64:
+            fits = [joint(s) for s in subsets]
+            best_set = min(fits, key=lambda r: r["expected_var_post"])
+            best_set["search"] = "exhaustive"
+        else:  # greedy forward selection, each step a joint fit
+            chosen: tuple[str, ...] = ()
+            best_set = None
+            while True:
+                spent = sum(cost_of[n] for n in chosen)
+                options = [n for n in affordable if n not in chosen and spent + cost_of[n] <= budget + 1e-12]
+                if not options or len(chosen) >= max_set_size:
+                    break
+                fits = [joint((*chosen, n)) for n in options]
+                step = min(fits, key=lambda r: r["expected_var_post"])
+                if best_set is not None and step["expected_var_post"] >= best_set["expected_var_post"]:
+                    break
+                best_set, chosen = step, tuple(step["names"])
+            if best_set is not None:
+                best_set["search"] = "greedy"
+        if best_set is not None:
+            search = best_set["search"]
+            best_set = joint(tuple(best_set["names"]), with_se=True)
+            best_set["search"], best_set["budget"] = search, budget
+    return {"prior": {"var": var_y, "ci95_width": prior_width, "draws": int(len(y))},
+            "candidates": rows, "best_pair": best_pair, "best_set": best_set, "notes": notes}
+
+
+# --------------------------------------------------------------------------------------------
+# on a study
+
+
+def candidates_of(study: Any) -> list[Reading]:
+    """The study's ``[rank]`` candidates, or the instruments that apply to its tissue.
+
+    Instruments (priors/instruments.toml) apply when their ``tissues`` include the study's tissue
+    (or list none) and they read an uncertain input of the study. Bias priors come from the
+    instrument a candidate names.
+    """
+    from uncertainty.priors import load_instruments
+
+    file = str(getattr(study, "path", None) or "") or None
+    section = getattr(study, "rank", None)
+    given = list(getattr(section, "candidates", []) or [])
+    instruments = load_instruments()
+    names = set(getattr(study, "names", []))
+    out = []
+    if given:
+        for c in given:
+            inst = instruments.get(c.instrument) if getattr(c, "instrument", None) else None
+            bias = inst.bias.frozen() if inst is not None and inst.bias is not None else None
+            out.append(Reading(c.name, c.parameter, sd=c.sd, cv=c.cv if c.sd is None else None, bias=bias,
+                               cost=float(c.cost), n=int(getattr(c, "n", 1) or 1)))
+    else:
+        tissue = getattr(study, "tissue", None)
+        for key, inst in instruments.items():
+            if inst.tissues and tissue not in inst.tissues:
+                continue
+            if inst.measures not in names and inst.measures not in (getattr(study, "derived", None) or {}):
+                continue
+            bias = inst.bias.frozen() if inst.bias is not None else None
+            out.append(Reading(key, inst.measures, sd=inst.sd, cv=inst.cv if inst.sd is None else None,
+                               bias=bias, cost=float(inst.cost)))
+    if not out:
+        raise InputError("no candidate measurements: give [rank] candidates, or no instrument applies to the tissue",
+                         file=file, key="rank.candidates", value=getattr(study, "tissue", None))
+    readable = names | set(getattr(getattr(study, "derived", None) or {}, "keys", lambda: [])())
+    for i, c in enumerate(out):
+        if c.parameter not in readable:
+            raise InputError("a candidate must read an uncertain or derived quantity of the study", file=file,
+                             key=f"rank.candidates[{i}].parameter", value=c.parameter)
+    budget = getattr(section, "budget", None)
+    if budget is not None:
+        cheapest = min(c.cost for c in out)
+        if budget < cheapest:
+            raise InputError(f"budget is below the cheapest candidate (cost {cheapest:g})", file=file,
+                             key="rank.budget", value=budget)
+    return out
+
+
+@dataclass
+class RankResult:
+    """Result of :func:`rank`: the JSON of DESIGN.md section 5."""
+
+    doc: dict[str, Any]
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON document (variances in the output's unit squared, widths in its unit)."""
+        return self.doc
+
+    def to_dataframe(self) -> Any:
+        """One row per single candidate."""
+        import pandas as pd
+
+        return pd.DataFrame(self.doc["candidates"])
+
+    def plot(self, out_dir: str) -> list[str]:
+        """Bar chart of expected interval narrowing per candidate (and its bound) in ``out_dir``."""
+        from uncertainty.analyses.rank.figure import plot_rank
+
+        return plot_rank(self.doc, out_dir)
+
+
+def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler: str | None = None,
+                   chains: int | None = None, tune: int | None = None
+                   ) -> tuple[dict[str, np.ndarray], np.ndarray, dict[str, Any]]:
+    """Posterior draws of the study's individual from its observations, thinned for autocorrelation.
+
+    Samples with :func:`uncertainty.analyses.inference.infer` (quality gate: QualityGateError, exit 3), about
+    ``samples`` draws over ``chains`` chains, then keeps every ``thin``-th draw of each chain with
+    thin = total draws / smallest bulk ESS over the uncertain inputs (so the kept draws are close to
+    independent, as the regression and the given-data index assume). Without subject labels the
+    draws are the study's individual; with subjects they are a new individual of the population (the
+    typical posterior plus the between-subject layer), the level a new reading would measure.
+    Returns (name -> values, including derived quantities and outputs; ``y`` = ``output`` draws;
+    info with ``draws``, ``thin``, ``ess_bulk_min``, ``sampler``). Canonical units.
+    """
+    import arviz as az
+
+    from uncertainty.analyses.inference import infer
+    from uncertainty.analyses.inference.api import new_subject_values, settings
+    from uncertainty.analyses.inference.result import flat
+
+    opts = settings(study, sampler=sampler, chains=chains, tune=tune)  # None: the study's [infer], else defaults
+    opts["draws"] = max(250, math.ceil(samples / opts["chains"]))
+    res = infer(study, seed=seed, checks=False, **opts)
+    idata, built = res.idata, res.built
+    problem = built.problem
+    names = list(problem.priors)
+    n_chain, n_draw = int(idata.posterior.sizes["chain"]), int(idata.posterior.sizes["draw"])
+    ess = az.ess(idata, var_names=[n for n in names if n in idata.posterior], method="bulk")
+    ess_min = float(min(float(np.min(ess[v].values)) for v in ess.data_vars))
+    thin = max(1, int(n_chain * n_draw // max(ess_min, 1.0)))
+    rng = np.random.default_rng(seed + 104729)
+    if built.hierarchical:  # a new individual: typical posterior plus a fresh between-subject layer
+        vals = new_subject_values(built, idata, rng)
+    else:  # the study's own individual
+        vals = {**problem.fixed, **{name: flat(idata, f"{name}__subject")[:, 0] for name in names}}
+    keep = np.arange(n_chain * n_draw).reshape(n_chain, n_draw)[:, ::thin].ravel()
+    total = n_chain * n_draw
+    vals = {k: (np.asarray(v, dtype=float)[keep] if np.ndim(v) and np.shape(v)[0] == total else v)
+            for k, v in vals.items()}
+    outputs = problem.evaluate(vals, np)
+    y = np.asarray(outputs[output], dtype=float) * np.ones(len(keep))
+    pool = {**{k: np.asarray(v, dtype=float) for k, v in outputs.items() if np.shape(v) == y.shape},
+            **{k: np.asarray(v, dtype=float) for k, v in vals.items() if np.shape(v) == y.shape}}
+    info = {"draws": int(len(keep)), "thin": thin, "ess_bulk_min": ess_min, "sampler": res.doc.get("sampler"),
+            "chains": n_chain, "level": "new individual" if built.hierarchical else "the study's individual"}
+    return pool, y, info
+
+
+def rank(study: Any, seed: int | None = None, samples: int | None = None, method: str = "auto",
+         from_prior: bool = False) -> RankResult:
+    """Rank candidate measurements for the study's output (``[rank] output``, default Jv).
+
+    Without observations (or with ``from_prior``) draws come from the prior (individual layer: a
+    reading measures this individual's value); with observations from the current posterior
+    (:func:`posterior_pool`, thinned MCMC draws): simulated readings from the posterior draws and the
+    perfect-information bound as the given-data first-order index on them. JSON key ``from`` says
+    which. ``samples``: draws (default ``[rank] samples`` or 4096, at least 4096 for the prior path;
+    the posterior path samples about that many and keeps the thinned ones).
+    """
+    from uncertainty import model
+    from uncertainty.analyses import sampling
+
+    section = getattr(study, "rank", None)
+    output = getattr(section, "output", "Jv") or "Jv"
+    budget = getattr(section, "budget", None)
+    n = int(samples or max(getattr(section, "samples", 4096) or 4096, 4096))
+    seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
+    cands = candidates_of(study)
+    notes = []
+    posterior = None
+    if getattr(study, "observations", None) and not from_prior:
+        pool, y, posterior = posterior_pool(study, output, seed=seed, samples=n)
+        notes.append(f"figures are from the current posterior: {posterior['draws']} MCMC draws of "
+                     f"{posterior['level']}, thinned every {posterior['thin']} for autocorrelation")
+    else:
+        values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
+        outputs = model.evaluate(study, values)
+        y = np.asarray(outputs[output], dtype=float)
+        # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
+        pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
+        if getattr(study, "observations", None):
+            notes.append("figures are from the prior (--from-prior): the observations are not folded in")
+    doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method)
+    unit = getattr(model, "OUTPUT_UNITS", {}).get(output, "")
+    notes += doc.pop("notes", [])
+    doc = {"output": output, "samples": int(len(y)), "seed": seed, "from": "prior" if posterior is None else
+           "posterior", **doc, "notes": notes,
+           "units": {"expected_var_post": f"({unit})^2", "expected_ci95_width": unit, "per_cost": f"{unit} per cost"}}
+    if posterior is not None:
+        doc["posterior_draws"] = posterior
+    return RankResult(doc)

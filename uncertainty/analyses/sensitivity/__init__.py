@@ -1,0 +1,764 @@
+"""Global sensitivity of any model output: Sobol', Morris, Shapley effects and a given-data index.
+
+All methods work on one :class:`Problem`: named factors (players), the cube columns that belong
+to each, the normal-score correlation over the columns and a model that maps normal scores to the
+output. :func:`sensitivity` builds the problem from a Study; the machinery below is also usable
+(and tested) on plain callables.
+
+- Sobol' (independent inputs only): SALib's Saltelli design (``SALib.sample.sobol``, scrambled) and
+  estimators (``SALib.analyze.sobol.first_order`` / ``total_order`` / ``second_order``: Saltelli et
+  al. 2010, Comput Phys Commun 181:259-270, first order; Jansen total order). Intervals come from R
+  independent scrambles of the design (t-based across replicates), never from a bootstrap of one
+  QMC design.
+- Morris (independent inputs only): SALib's trajectories and mu*, sigma (Campolongo et al. 2007);
+  the p grid levels are moved to the cell centres (i + 1/2)/p so that no level lies on a face of
+  the cube (a level at 0 or 1 sends a normal marginal to infinity).
+- Shapley effects (any Gaussian-copula correlation): Song, Nelson and Staum (2016) SIAM/ASA JUQ
+  4:1060-1083, cost c(J) = E[Var(Y | X_-J)], all subsets for up to ``EXACT_MAX_PLAYERS`` players
+  (the exact-permutation estimator) and random permutations beyond; conditional sampling of the
+  normal scores is exact under the Gaussian copula.
+- :func:`first_order_given_data`: a first-order index from any set of draws (binning estimator
+  with an ANOVA bias correction).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from uncertainty.core.errors import InputError
+
+METHODS = ("sobol", "morris", "shapley")
+DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 2048}
+REPLICATES = 16
+EXACT_MAX_PLAYERS = 7
+MORRIS_LEVELS = 4
+
+
+# --------------------------------------------------------------------------------------------
+# Problem
+# --------------------------------------------------------------------------------------------
+
+@dataclass
+class Problem:
+    """A sensitivity problem over normal scores.
+
+    ``players``: factor names; ``groups[c]``: the player that cube column c belongs to;
+    ``corr``: (k, k) normal-score correlation over the columns; ``model(z)``: correlated normal
+    scores (n, k) -> output array (n,). ``unit``: the output's unit.
+    """
+
+    players: list[str]
+    groups: list[int]
+    corr: np.ndarray
+    model: Callable[[np.ndarray], np.ndarray]
+    output: str = "y"
+    unit: str = ""
+
+    @property
+    def k(self) -> int:
+        """Number of cube columns."""
+        return len(self.groups)
+
+    def columns_of(self, players: Sequence[int]) -> list[int]:
+        """Cube columns of a set of player indices."""
+        s = set(players)
+        return [c for c, g in enumerate(self.groups) if g in s]
+
+    def independent(self) -> bool:
+        """True when the columns are uncorrelated."""
+        return bool(np.allclose(self.corr, np.eye(self.k), atol=1e-12, rtol=0))
+
+    def correlated_pairs(self) -> list[tuple[str, str, float]]:
+        """Pairs of players whose columns are correlated, with the largest |rho|."""
+        out = []
+        for a, b in itertools.combinations(range(len(self.players)), 2):
+            block = self.corr[np.ix_(self.columns_of([a]), self.columns_of([b]))]
+            if block.size and np.max(np.abs(block)) > 1e-12:
+                out.append((self.players[a], self.players[b], float(block.flat[np.argmax(np.abs(block))])))
+        return out
+
+    def evaluate_cube(self, u: np.ndarray) -> np.ndarray:
+        """Model at points of the open cube (independent columns only)."""
+        from scipy.special import ndtri
+
+        return np.asarray(self.model(ndtri(u)), dtype=float)
+
+
+def problem_from_functions(names: Sequence[str], ppfs: Sequence[Callable[[np.ndarray], np.ndarray]],
+                           func: Callable[..., np.ndarray], corr: np.ndarray | None = None,
+                           output: str = "y", unit: str = "") -> Problem:
+    """A problem from marginal inverse CDFs, a function of keyword arrays and a score correlation."""
+    from scipy.special import ndtr
+
+    names = list(names)
+    k = len(names)
+    corr = np.eye(k) if corr is None else np.asarray(corr, dtype=float)
+
+    def model(z: np.ndarray) -> np.ndarray:
+        u = ndtr(z)
+        return func(**{n: ppfs[i](u[:, i]) for i, n in enumerate(names)})
+
+    return Problem(players=names, groups=list(range(k)), corr=corr, model=model, output=output, unit=unit)
+
+
+def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual",
+                       evaluate: Callable | None = None) -> Problem:
+    """A problem over a study's quantities for one output.
+
+    Players are the study's uncertain inputs (``study.names``) and, in the ``individual`` layer,
+    every quantity with a between-subject spread; a quantity's typical and between-subject columns
+    form one group (the individual's value of that quantity).
+    """
+    from uncertainty.analyses.propagate import _evaluator, available_outputs
+    from uncertainty.analyses.sampling import correlation_of, cube_columns, from_scores
+
+    evaluate = _evaluator(evaluate)
+    have = available_outputs(study, evaluate)
+    if output not in have:
+        raise InputError(f"no such output; the model gives {', '.join(have)}",
+                         file=_file(study), key="sensitivity.output", value=output)
+    cols = cube_columns(study, layer)
+    players: list[str] = []
+    for s, _ in cols:
+        if s not in players:
+            players.append(s)
+    groups = [players.index(s) for s, _ in cols]
+    d = len(study.names)
+    corr = np.eye(len(cols))
+    corr[:d, :d] = correlation_of(study)
+
+    def model(z: np.ndarray) -> np.ndarray:
+        return np.asarray(evaluate(study, from_scores(study, z, layer))[output], dtype=float)
+
+    unit = ""
+    try:
+        from uncertainty.model import OUTPUT_UNITS
+
+        unit = OUTPUT_UNITS.get(output, "")
+    except ImportError:  # pragma: no cover
+        pass
+    return Problem(players=players, groups=groups, corr=corr, model=model, output=output, unit=unit)
+
+
+# --------------------------------------------------------------------------------------------
+# Result
+# --------------------------------------------------------------------------------------------
+
+@dataclass
+class SensitivityResult:
+    """Indices per player with intervals, a ranking, a convergence table, warnings and notes.
+
+    ``indices[player]`` holds, by method: Sobol' ``S1, S1_ci, ST, ST_ci`` (+ ``S1_se, ST_se``);
+    Morris ``mu_star, mu_star_ci, sigma, mu``; Shapley ``Sh, Sh_ci`` plus the full first-order
+    ``S1`` and the total ``ST`` under dependence, each with ``_ci``. Intervals are 95%.
+    ``convergence`` rows ``{samples, evaluations, indices}`` at doubling sample sizes: prefixes of
+    each scrambled design (Sobol'), the first R/4, R/2, R replicates (Shapley), the first T/4, T/2,
+    T trajectories (Morris).
+    """
+
+    method: str
+    output: str
+    unit: str
+    players: list[str]
+    indices: dict[str, dict[str, Any]]
+    ranking: list[str]
+    samples: int
+    evaluations: int
+    replicates: int
+    convergence: list[dict[str, Any]] = field(default_factory=list)
+    second_order: dict[str, dict[str, Any]] | None = None
+    warnings: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    nan_draws: int = 0
+    layer: str | None = None
+    seed: Any = None
+    study: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def rank_key(self) -> str:
+        """The index the ranking sorts by."""
+        return {"sobol": "ST", "morris": "mu_star", "shapley": "Sh"}[self.method]
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON document of DESIGN.md section 5 (method, output, indices, ranking) plus extras."""
+        doc: dict[str, Any] = {"method": self.method, "output": self.output, "indices": self.indices,
+                               "ranking": self.ranking, "ranked_by": self.rank_key, "unit": self.unit,
+                               "layer": self.layer, "samples": self.samples,
+                               "evaluations": self.evaluations, "replicates": self.replicates,
+                               "seed": self.seed, "nan_draws": self.nan_draws,
+                               "convergence": self.convergence, "warnings": self.warnings,
+                               "notes": self.notes, "study": self.study}
+        if self.second_order is not None:
+            doc["second_order"] = self.second_order
+        return doc
+
+    def to_dataframe(self) -> Any:
+        """A pandas DataFrame, one row per player, flattened index columns, in ranking order."""
+        import pandas as pd
+
+        rows = []
+        for p in self.ranking:
+            row: dict[str, Any] = {"parameter": p}
+            for key, v in self.indices[p].items():
+                if isinstance(v, list | tuple):
+                    row[f"{key}_low"], row[f"{key}_high"] = v
+                else:
+                    row[key] = v
+            rows.append(row)
+        return pd.DataFrame(rows).set_index("parameter")
+
+    def plot(self, out_dir: str) -> list[str]:
+        """Write index bars with interval whiskers (and convergence, when present); PNG and SVG."""
+        from uncertainty.analyses.sensitivity.figure import plot_indices
+
+        return plot_indices(self, out_dir)
+
+
+# --------------------------------------------------------------------------------------------
+# Helpers
+# --------------------------------------------------------------------------------------------
+
+def _t975(df: int) -> float:
+    from scipy.stats import t
+
+    return float(t.ppf(0.975, df))
+
+
+def _replicate_ci(point: np.ndarray, reps: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(se, low, high) from R replicate estimates (axis 0), t-based, centred on the point estimate."""
+    R = reps.shape[0]
+    se = np.std(reps, axis=0, ddof=1) / math.sqrt(R)
+    h = _t975(R - 1) * se
+    return se, point - h, point + h
+
+
+def _ranking(indices: dict[str, dict[str, Any]], key: str) -> list[str]:
+    return sorted(indices, key=lambda p: -(indices[p][key] if np.isfinite(indices[p][key]) else -np.inf))
+
+
+def _index_warnings(indices: dict[str, dict[str, Any]], keys: Sequence[str]) -> list[str]:
+    """Warnings where an interval is wider than its index, or an index is clearly negative.
+
+    Intervals lying wholly within +-0.02 (a negligible index either way) are not flagged.
+    """
+    out = []
+    for p, ix in indices.items():
+        for key in keys:
+            if key not in ix or f"{key}_ci" not in ix:
+                continue
+            v, (lo, hi) = ix[key], ix[f"{key}_ci"]
+            if not np.isfinite(v):
+                continue
+            if hi < 0:
+                out.append(f"{key} of {p} is clearly negative ({v:.3g}, interval [{lo:.3g}, {hi:.3g}]): "
+                           "the sample is too small or the model output is degenerate")
+            elif (hi - lo) > abs(v) and max(abs(lo), abs(hi)) > 0.02:
+                out.append(f"the interval of {key} of {p} ([{lo:.3g}, {hi:.3g}]) is wider than the "
+                           f"index ({v:.3g}): increase the sample")
+    return out
+
+
+def _per_replicate_size(samples: int, replicates: int, notes: list[str], key: str) -> int:
+    from uncertainty.analyses.sampling import is_power_of_two, next_power_of_two
+
+    if isinstance(samples, bool) or not isinstance(samples, int | np.integer):
+        raise InputError("the number of samples must be a whole number", key=key, value=samples)
+    if samples <= 0:
+        raise InputError("the number of samples must be positive", key=key, value=samples)
+    per = max(2, math.ceil(samples / replicates))
+    if not is_power_of_two(per):
+        per = next_power_of_two(per)
+    if per * replicates != samples:
+        notes.append(f"sample size {samples} rounded up to {per * replicates} ({replicates} independent "
+                     f"scrambles of {per} base points; the Sobol' design needs a power of two)")
+    return per
+
+
+# --------------------------------------------------------------------------------------------
+# Sobol'
+# --------------------------------------------------------------------------------------------
+
+def _refuse_correlated(problem: Problem, method: str) -> None:
+    pairs = problem.correlated_pairs()
+    if pairs:
+        shown = ", ".join(f"{a}-{b} (rho={r:.2g})" for a, b, r in pairs)
+        raise InputError(f"{method} indices assume independent inputs, but this study correlates "
+                         f"{shown}; use method = \"shapley\"", key="sensitivity.method",
+                         value=method.lower().rstrip("'"))
+
+
+def _sobol_estimates(Y: np.ndarray, D: int, second: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """S1, ST (and the S2 matrix) from Saltelli-ordered outputs, SALib's estimators."""
+    from SALib.analyze.sobol import first_order, second_order, separate_output_values, total_order
+
+    step = 2 * D + 2 if second else D + 2
+    N = Y.size // step
+    A, B, AB, BA = separate_output_values(Y, D, N, second)
+    A2, B2 = np.repeat(A[:, None], D, axis=1), np.repeat(B[:, None], D, axis=1)
+    S1 = first_order(A2, AB, B2)
+    ST = total_order(A2, AB, B2)
+    S2 = None
+    if second:
+        S2 = np.full((D, D), np.nan)
+        for j in range(D):
+            for m in range(j + 1, D):
+                S2[j, m] = second_order(A, AB[:, j], AB[:, m], BA[:, j], B)
+    return S1, ST, S2
+
+
+def sobol_core(problem: Problem, samples: int = 8192, *, seed: Any = None, replicates: int = REPLICATES,
+               second_order: bool = False, convergence: bool = True) -> SensitivityResult:
+    """Sobol' first-order and total indices (and optionally second order) of ``problem``.
+
+    ``samples`` is the number of base points N over all replicates (total model runs
+    N (D + 2), or N (2D + 2) with second order). R scrambled Saltelli designs of N / R points each
+    (a power of two, rounded up with a note) give the point estimate (pooled) and a t-based 95%
+    interval (spread across replicates). Base points where any run is not finite are dropped and
+    counted. Refuses correlated inputs (InputError).
+    """
+    from SALib.sample import sobol as sobol_sample
+
+    from uncertainty.analyses.sampling import open_cube, replicate_seeds
+
+    _refuse_correlated(problem, "Sobol'")
+    notes: list[str] = []
+    per = _per_replicate_size(samples, replicates, notes, "sensitivity.samples")
+    D = len(problem.players)
+    salib = {"num_vars": problem.k, "names": [f"c{c}" for c in range(problem.k)],
+             "bounds": [[0.0, 1.0]] * problem.k}
+    if D != problem.k:
+        salib["groups"] = [problem.players[g] for g in problem.groups]
+    step = 2 * D + 2 if second_order else D + 2
+    X = np.vstack([sobol_sample.sample(salib, per, calc_second_order=second_order, scramble=True,
+                                       seed=np.random.default_rng(s))
+                   for s in replicate_seeds(seed, replicates)])
+    Y = problem.evaluate_cube(open_cube(X)).reshape(replicates, per, step)
+    ok = np.all(np.isfinite(Y), axis=2)  # (R, per)
+    nan_draws = int((~ok).sum())
+    warnings: list[str] = []
+    if nan_draws:
+        warnings.append(f"{nan_draws} of {replicates * per} base points gave a non-finite {problem.output} "
+                        "in at least one run; they are left out of the estimates")
+    finite = Y[ok]
+    if finite.size == 0:
+        raise InputError(f"the model gave no finite {problem.output}", key="sensitivity.output",
+                         value=problem.output)
+    mu, sd = finite.mean(), finite.std()
+    sd = sd if sd > 0 else 1.0
+    Yc = (Y - mu) / sd  # centring as SALib's analyze does (estimators are not shift invariant)
+
+    def estimate(prefix: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
+        reps = [_sobol_estimates(Yc[r, :prefix][ok[r, :prefix]].ravel(), D, second_order)
+                for r in range(replicates)]
+        pooled = _sobol_estimates(np.concatenate([Yc[r, :prefix][ok[r, :prefix]].ravel()
+                                                  for r in range(replicates)]), D, second_order)
+        S1r = np.array([x[0] for x in reps])
+        STr = np.array([x[1] for x in reps])
+        return pooled[0], pooled[1], np.stack([S1r, STr]), (
+            (pooled[2], np.array([x[2] for x in reps])) if second_order else None)
+
+    S1, ST, reps, s2 = estimate(per)
+    s1_se, s1_lo, s1_hi = _replicate_ci(S1, reps[0])
+    st_se, st_lo, st_hi = _replicate_ci(ST, reps[1])
+    indices = {p: {"S1": float(S1[j]), "S1_ci": [float(s1_lo[j]), float(s1_hi[j])],
+                   "ST": float(ST[j]), "ST_ci": [float(st_lo[j]), float(st_hi[j])],
+                   "S1_se": float(s1_se[j]), "ST_se": float(st_se[j])}
+               for j, p in enumerate(problem.players)}
+    S2d = None
+    if s2 is not None:
+        S2p, S2r = s2
+        se2, lo2, hi2 = _replicate_ci(S2p, S2r)
+        S2d = {f"{problem.players[j]}:{problem.players[m]}":
+               {"S2": float(S2p[j, m]), "S2_ci": [float(lo2[j, m]), float(hi2[j, m])]}
+               for j in range(D) for m in range(j + 1, D)}
+    conv = []
+    if convergence:
+        prefix = per
+        sizes = []
+        while prefix >= 16 and len(sizes) < 6:
+            sizes.append(prefix)
+            prefix //= 2
+        for pre in reversed(sizes):
+            c1, ct, cr, _ = estimate(pre)
+            _, l1, h1 = _replicate_ci(c1, cr[0])
+            _, lt, ht = _replicate_ci(ct, cr[1])
+            conv.append({"samples": pre * replicates, "evaluations": pre * replicates * step,
+                         "indices": {p: {"S1": float(c1[j]), "S1_ci": [float(l1[j]), float(h1[j])],
+                                         "ST": float(ct[j]), "ST_ci": [float(lt[j]), float(ht[j])]}
+                                     for j, p in enumerate(problem.players)}})
+    warnings += _index_warnings(indices, ("S1", "ST"))
+    return SensitivityResult(method="sobol", output=problem.output, unit=problem.unit,
+                             players=list(problem.players), indices=indices,
+                             ranking=_ranking(indices, "ST"), samples=per * replicates,
+                             evaluations=int(Y.size), replicates=replicates, convergence=conv,
+                             second_order=S2d, warnings=warnings, notes=notes, nan_draws=nan_draws,
+                             seed=seed if isinstance(seed, int | type(None)) else str(seed))
+
+
+# --------------------------------------------------------------------------------------------
+# Morris
+# --------------------------------------------------------------------------------------------
+
+def morris_levels_inside(u: np.ndarray, levels: int) -> np.ndarray:
+    """Map SALib's Morris grid {0, 1/(p-1), ..., 1} to cell centres {(i + 1/2)/p}, inside (0, 1)."""
+    return (np.round(u * (levels - 1)) + 0.5) / levels
+
+
+def _halvings(n: int, smallest: int = 4, most: int = 6) -> list[int]:
+    """Doubling sizes ending at ``n`` (n, n/2, n/4, ... down to ``smallest``, at most ``most``), ascending:
+    the prefixes a convergence table re-analyses."""
+    sizes = []
+    while n >= smallest and len(sizes) < most:
+        sizes.append(n)
+        n //= 2
+    return sizes[::-1]
+
+
+def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
+                levels: int = MORRIS_LEVELS) -> SensitivityResult:
+    """Morris screening: mu*, sigma and mu per player (output units per unit of the cube).
+
+    SALib's trajectories on a p-level grid, the levels moved to cell centres inside the open cube;
+    the elementary effects are rescaled to the moved step (p/(p-1) times SALib's). mu* intervals are
+    SALib's bootstrap over the independent trajectories; the convergence table re-analyses the
+    first T/2^k trajectories (at least 4). Refuses correlated inputs (InputError).
+    """
+    from SALib.analyze import morris as morris_analyze
+    from SALib.sample import morris as morris_sample
+
+    _refuse_correlated(problem, "Morris")
+    if isinstance(trajectories, bool) or not isinstance(trajectories, int | np.integer) or trajectories < 2:
+        raise InputError("Morris needs at least 2 trajectories", key="sensitivity.samples",
+                         value=trajectories)
+    if levels < 2 or levels % 2:
+        raise InputError("Morris levels must be an even number >= 2", key="sensitivity.levels", value=levels)
+    salib = {"num_vars": problem.k, "names": [f"c{c}" for c in range(problem.k)],
+             "bounds": [[0.0, 1.0]] * problem.k}
+    if len(problem.players) != problem.k:
+        salib["groups"] = [problem.players[g] for g in problem.groups]
+    rng_seed = int(np.random.SeedSequence(seed).generate_state(1)[0])
+    X = morris_sample.sample(salib, int(trajectories), num_levels=levels, seed=rng_seed)
+    Y = problem.evaluate_cube(morris_levels_inside(X, levels))
+    bad = ~np.isfinite(Y)
+    if bad.any():
+        raise InputError(f"{int(bad.sum())} Morris runs gave a non-finite {problem.output}; Morris "
+                         "trajectories cannot drop runs", key="sensitivity.output", value=problem.output)
+    scale = levels / (levels - 1)
+    per_traj = X.shape[0] // int(trajectories)  # runs per trajectory: groups + 1
+
+    def analyse(t: int) -> dict[str, dict[str, Any]]:
+        """mu*, its bootstrap interval, sigma and mu from the first t trajectories."""
+        Si = morris_analyze.analyze(salib, X[: t * per_traj], Y[: t * per_traj], num_levels=levels,
+                                    seed=rng_seed)
+        names = list(Si["names"])
+        out = {}
+        for p in problem.players:
+            j = names.index(p) if p in names else problem.players.index(p)
+            ms, conf = float(Si["mu_star"][j]) * scale, float(Si["mu_star_conf"][j]) * scale
+            out[p] = {"mu_star": ms, "mu_star_ci": [ms - conf, ms + conf],
+                      "sigma": float(Si["sigma"][j]) * scale, "mu": float(Si["mu"][j]) * scale}
+        return out
+
+    indices = analyse(int(trajectories))
+    # convergence: the first T/2^k trajectories (doubling sizes, at least 4 trajectories each)
+    sizes = _halvings(int(trajectories))
+    conv = [{"samples": t, "evaluations": t * per_traj, "indices": analyse(t)} for t in sizes] \
+        if len(sizes) > 1 else []
+    return SensitivityResult(method="morris", output=problem.output, unit=problem.unit,
+                             players=list(problem.players), indices=indices,
+                             ranking=_ranking(indices, "mu_star"), samples=int(trajectories),
+                             evaluations=int(Y.size), replicates=1, convergence=conv,
+                             notes=["Morris elementary effects are in output units per unit of the "
+                                    "cube (per quantile step), a screening measure, not a variance share"],
+                             seed=seed if isinstance(seed, int | type(None)) else str(seed))
+
+
+# --------------------------------------------------------------------------------------------
+# Shapley effects (Song, Nelson & Staum 2016)
+# --------------------------------------------------------------------------------------------
+
+def _conditional(corr: np.ndarray, J: list[int], K: list[int]) -> tuple[np.ndarray, np.ndarray]:
+    """Gaussian conditional of z_J given z_K: (regression matrix (|J|,|K|), Cholesky of the cov)."""
+    if not K:
+        return np.zeros((len(J), 0)), np.linalg.cholesky(corr[np.ix_(J, J)])
+    Ckk = corr[np.ix_(K, K)]
+    Cjk = corr[np.ix_(J, K)]
+    W = np.linalg.solve(Ckk, Cjk.T).T
+    cov = corr[np.ix_(J, J)] - W @ Cjk.T
+    cov = 0.5 * (cov + cov.T)
+    # jitter guards exact degeneracy (rho = +-1 is refused upstream; this is numerical only)
+    L = np.linalg.cholesky(cov + 1e-12 * np.eye(len(J)))
+    return W, L
+
+
+class _Conditioner:
+    """Exact Gaussian-copula conditional sampling of the columns of player subsets (cached)."""
+
+    def __init__(self, problem: Problem) -> None:
+        self.problem = problem
+        try:
+            self.L_full = np.linalg.cholesky(problem.corr)
+        except np.linalg.LinAlgError as exc:
+            raise InputError("correlation matrix is not positive definite", key="correlations") from exc
+        self._cache: dict[tuple[int, ...], tuple[list[int], list[int], np.ndarray, np.ndarray]] = {}
+
+    def joint(self, n: int, rng: np.random.Generator) -> np.ndarray:
+        """n joint draws of the correlated normal scores."""
+        return rng.standard_normal((n, self.problem.k)) @ self.L_full.T
+
+    def rows(self, subset: tuple[int, ...], n_outer: int, n_inner: int, rng: np.random.Generator) -> np.ndarray:
+        """(n_outer * n_inner, k) scores: X_-J drawn n_outer times, X_J | X_-J n_inner times each."""
+        if subset not in self._cache:
+            J = self.problem.columns_of(subset)
+            K = [c for c in range(self.problem.k) if c not in set(J)]
+            self._cache[subset] = (J, K, *_conditional(self.problem.corr, J, K))
+        J, K, W, L = self._cache[subset]
+        z = np.repeat(self.joint(n_outer, rng), n_inner, axis=0)
+        mean_J = z[:, K] @ W.T if K else 0.0
+        z[:, J] = mean_J + rng.standard_normal((n_outer * n_inner, len(J))) @ L.T
+        return z
+
+
+def _inner_variances(y: np.ndarray, n_inner: int) -> np.ndarray:
+    """Per outer draw, the sample variance of its n_inner conditional runs (NaN if any is not finite)."""
+    y = y.reshape(-1, n_inner)
+    v = np.var(y, axis=1, ddof=1)
+    v[~np.all(np.isfinite(y), axis=1)] = np.nan
+    return v
+
+
+def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_inner: int = 3,
+                 n_var: int | None = None, replicates: int = REPLICATES,
+                 exact_max_players: int = EXACT_MAX_PLAYERS) -> SensitivityResult:
+    """Shapley effects Sh_i = sum over J not containing i of |J|!(d-|J|-1)!/d! [c(J+i) - c(J)] / Var(Y),
+    c(J) = E[Var(Y | X_-J)], after Song, Nelson and Staum (2016).
+
+    Up to ``exact_max_players`` players: every subset's cost from ``samples`` outer draws in all
+    (split over ``replicates``), ``n_inner`` conditional draws each (exact-permutation estimator).
+    Beyond: ``samples`` random permutations in all, one outer and ``n_inner`` inner draws per step
+    (their random-permutation estimator, No = 1, Ni = 3). ``n_var`` joint draws per replicate for
+    Var(Y). Also returns the full first-order index S1_i = 1 - c(-i)/V and the total index
+    ST_i = c({i})/V under dependence. Intervals: t-based across independent replicates; the
+    convergence table uses the first R/4, R/2 and R replicates.
+    """
+    if isinstance(samples, bool) or not isinstance(samples, int | np.integer) or samples <= 0:
+        raise InputError("the number of samples must be a positive whole number", key="sensitivity.samples",
+                         value=samples)
+    from uncertainty.analyses.sampling import replicate_seeds
+
+    d = len(problem.players)
+    notes: list[str] = []
+    per = max(2, math.ceil(samples / replicates))
+    if per * replicates != samples:
+        notes.append(f"samples rounded up from {samples} to {per * replicates} ({replicates} replicates)")
+    cond = _Conditioner(problem)
+    exact = d <= exact_max_players
+    n_var = n_var or max(4096, per * n_inner)
+    full = tuple(range(d))
+    w = [math.factorial(s) * math.factorial(d - s - 1) / math.factorial(d) for s in range(d)]
+    subsets = [J for s in range(1, d) for J in itertools.combinations(range(d), s)]
+    Sh_r, S1_r, ST_r = [], [], []
+    evaluations = nan_runs = 0
+    for ss in replicate_seeds(seed, replicates):
+        rng = np.random.default_rng(ss)
+        y = problem.model(cond.joint(n_var, rng))
+        evaluations += y.size
+        nan_runs += int((~np.isfinite(y)).sum())
+        V = float(np.var(y[np.isfinite(y)], ddof=1))
+        if exact:
+            zs = [cond.rows(J, per, n_inner, rng) for J in subsets]
+            yy = problem.model(np.vstack(zs))
+            evaluations += yy.size
+            nan_runs += int((~np.isfinite(yy)).sum())
+            c = {(): 0.0, full: V}
+            for J, part in zip(subsets, np.split(yy, len(subsets)), strict=True):
+                c[J] = float(np.nanmean(_inner_variances(part, n_inner)))
+            sh = np.zeros(d)
+            for i in range(d):
+                others = [j for j in range(d) if j != i]
+                for s in range(d):
+                    for J in itertools.combinations(others, s):
+                        sh[i] += w[s] * (c[tuple(sorted(J + (i,)))] - c[J])
+            st = np.array([c[(i,)] for i in range(d)])
+            c_minus = np.array([c[tuple(j for j in range(d) if j != i)] for i in range(d)])
+        else:
+            perms = np.array([rng.permutation(d) for _ in range(per)])
+            codes = np.cumsum(np.left_shift(1, perms.astype(np.int64)), axis=1)[:, : d - 1]  # subset bitmasks
+            flat = codes.ravel()
+            order = np.argsort(flat, kind="stable")
+            uniq, counts = np.unique(flat[order], return_counts=True)
+            zs = [cond.rows(tuple(int(b) for b in range(d) if code >> b & 1), int(n), n_inner, rng)
+                  for code, n in zip(uniq, counts, strict=True)]
+            yy = problem.model(np.vstack(zs))
+            evaluations += yy.size
+            nan_runs += int((~np.isfinite(yy)).sum())
+            cost = np.empty((per, d))
+            cost[:, d - 1] = V
+            v = _inner_variances(yy, n_inner)  # in the order of the sorted subset codes
+            vals = np.empty(flat.size)
+            vals[order] = v
+            cost[:, : d - 1] = vals.reshape(per, d - 1)
+            delta = np.diff(np.concatenate([np.zeros((per, 1)), cost], axis=1), axis=1)
+            contrib = np.full((per, d), np.nan)
+            contrib[np.arange(per)[:, None], perms] = delta
+            sh = np.nanmean(contrib, axis=0)
+            st = np.array([np.nanmean(cost[perms[:, 0] == i, 0]) if np.any(perms[:, 0] == i) else np.nan
+                           for i in range(d)])
+            # c(-i): the step before the last, in the orders that end with i
+            c_minus = np.array([np.nanmean(cost[perms[:, -1] == i, d - 2]) if np.any(perms[:, -1] == i)
+                                else np.nan for i in range(d)])
+        Sh_r.append(sh / V)
+        S1_r.append(1.0 - c_minus / V)
+        ST_r.append(st / V)
+    Sh_r, S1_r, ST_r = np.array(Sh_r), np.array(S1_r), np.array(ST_r)
+
+    def summarise(r: int, with_se: bool) -> dict[str, dict[str, Any]]:
+        """Indices from the first r replicates: point = their mean, t-based 95% interval."""
+        out: dict[str, dict[str, Any]] = {}
+        for key, reps in (("Sh", Sh_r[:r]), ("S1", S1_r[:r]), ("ST", ST_r[:r])):
+            point = np.nanmean(reps, axis=0)
+            se, lo, hi = _replicate_ci(point, reps)
+            for j, p in enumerate(problem.players):
+                ix = out.setdefault(p, {})
+                ix[key], ix[f"{key}_ci"] = float(point[j]), [float(lo[j]), float(hi[j])]
+                if with_se:
+                    ix[f"{key}_se"] = float(se[j])
+        return out
+
+    indices = summarise(replicates, True)
+    # convergence: the first R/4, R/2, R replicates (doubling sample sizes, at least 4 replicates each)
+    sizes = _halvings(replicates)
+    conv = [{"samples": per * r, "evaluations": evaluations // replicates * r, "indices": summarise(r, False)}
+            for r in sizes] if len(sizes) > 1 else []
+    warnings = _index_warnings(indices, ("Sh",))
+    if nan_runs:
+        warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; their conditional "
+                        "blocks are left out")
+    notes.append("Shapley effects share the variance among correlated inputs and sum to 1; S1 and ST "
+                 "here are the full first-order and total indices under the correlation"
+                 + ("" if exact else f"; random-permutation estimator ({per * replicates} orders)"))
+    return SensitivityResult(method="shapley", output=problem.output, unit=problem.unit,
+                             players=list(problem.players), indices=indices,
+                             ranking=_ranking(indices, "Sh"), samples=per * replicates,
+                             evaluations=evaluations, replicates=replicates, convergence=conv,
+                             warnings=warnings, notes=notes, nan_draws=nan_runs,
+                             seed=seed if isinstance(seed, int | type(None)) else str(seed))
+
+
+# --------------------------------------------------------------------------------------------
+# Given-data first-order index
+# --------------------------------------------------------------------------------------------
+
+def _binned_s1(xs_order: np.ndarray, y: np.ndarray, bins: int) -> float:
+    ys = y[xs_order]
+    n = ys.size
+    edges = np.linspace(0, n, bins + 1).astype(int)
+    sums = np.add.reduceat(ys, edges[:-1])
+    counts = np.diff(edges)
+    means = sums / counts
+    grand = ys.mean()
+    ssb = float(np.sum(counts * (means - grand) ** 2))
+    sst = float(np.sum((ys - grand) ** 2))
+    ssw = sst - ssb
+    # ANOVA correction: E[SSB] = (M - 1) s_w^2 + n Var(E[Y|X]) (common practice, one-way ANOVA)
+    var_m = (ssb - (bins - 1) * ssw / (n - bins)) / n
+    return var_m / (sst / n) if sst > 0 else float("nan")
+
+
+def first_order_given_data(x: np.ndarray, y: np.ndarray, bins: int | None = None,
+                           n_boot: int = 200, seed: int = 0) -> tuple[float, float]:
+    """First-order index Var(E[Y|X]) / Var(Y) from paired draws (x, y), and its standard error.
+
+    Any draws serve (Monte Carlo, posterior draws thinned for autocorrelation): x is sorted into
+    ``bins`` equal-count bins (default about sqrt(n), at least 5 draws per bin), the between-bin
+    variance is corrected for the noise of the bin means (one-way ANOVA expectation), and the
+    standard error is a bootstrap over the pairs. Dimensionless. Non-finite pairs are dropped.
+    """
+    x = np.asarray(x, dtype=float).ravel()
+    y = np.asarray(y, dtype=float).ravel()
+    if x.shape != y.shape:
+        raise InputError("x and y must have the same length", key="x", value=(x.size, y.size))
+    keep = np.isfinite(x) & np.isfinite(y)
+    x, y = x[keep], y[keep]
+    n = x.size
+    if n < 20:
+        raise InputError("a given-data index needs at least 20 finite pairs", key="x", value=n)
+    bins = bins or int(min(max(2, round(math.sqrt(n))), n // 5))
+    if not 2 <= bins <= n // 2:
+        raise InputError("bins must be between 2 and n/2", key="bins", value=bins)
+    order = np.argsort(x, kind="stable")
+    s1 = _binned_s1(order, y, bins)
+    rng = np.random.default_rng(seed)
+    boot = np.empty(n_boot)
+    for b in range(n_boot):
+        idx = np.sort(rng.integers(0, n, n))  # x is pre-sorted: sorted indices keep the order
+        boot[b] = _binned_s1(order[idx], y, bins)
+    return float(s1), float(np.std(boot, ddof=1))
+
+
+# --------------------------------------------------------------------------------------------
+# Study layer
+# --------------------------------------------------------------------------------------------
+
+def _file(study: Any) -> str | None:
+    p = getattr(study, "path", None)
+    return str(p) if p else None
+
+
+def sensitivity(study: Any, method: str | None = None, samples: int | None = None, output: str | None = None,
+                seed: int | None = None, *, layer: str | None = None, second_order: bool | None = None,
+                evaluate: Callable | None = None, replicates: int = REPLICATES) -> SensitivityResult:
+    """Global sensitivity of one study output (default Jv) to the study's quantities.
+
+    Arguments override the study's ``[sensitivity]`` section (``method``, ``samples``, ``output``,
+    ``layer``, ``second_order``). Without a method: Sobol' for independent inputs, Shapley when the
+    study correlates inputs (with a note). Sobol' or Morris on correlated inputs refuse
+    (InputError, exit 2). ``layer`` ``individual`` (default) treats each quantity's typical and
+    between-subject parts as one factor; ``typical`` uses the typical-subject uncertainty only.
+    """
+    from uncertainty.analyses.propagate import _section, _study_meta
+
+    sec = _section(study, "sensitivity")
+    method = method or sec.get("method")
+    output = output or sec.get("output") or "Jv"
+    layer = layer or sec.get("layer") or "individual"
+    second_order = sec.get("second_order", False) if second_order is None else second_order
+    seed = getattr(study, "seed", None) if seed is None else seed
+    if layer not in ("individual", "typical"):
+        raise InputError("layer must be individual or typical", file=_file(study), key="sensitivity.layer",
+                         value=layer)
+    problem = problem_from_study(study, output=output, layer=layer, evaluate=evaluate)
+    notes = []
+    if method is None:
+        method = "sobol" if problem.independent() else "shapley"
+        if method == "shapley":
+            notes.append("the study correlates inputs, so Shapley effects are computed (Sobol' indices "
+                         "assume independence)")
+    if method not in METHODS:
+        raise InputError(f"unknown method; use one of {', '.join(METHODS)}", file=_file(study),
+                         key="sensitivity.method", value=method)
+    if samples is None:
+        samples = sec.get("samples", DEFAULT_SAMPLES[method])
+        if method == "shapley" and "samples" not in sec and len(problem.players) > EXACT_MAX_PLAYERS:
+            samples = 8192  # random orders: one outer draw each, cheap per order
+    try:
+        if method == "sobol":
+            res = sobol_core(problem, samples, seed=seed, replicates=replicates, second_order=second_order)
+        elif method == "morris":
+            res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS))
+        else:
+            res = shapley_core(problem, samples, seed=seed, replicates=replicates)
+    except InputError as exc:
+        if exc.file is None and _file(study):
+            raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc
+        raise
+    res.notes = notes + res.notes
+    res.layer = layer
+    res.study = _study_meta(study)
+    return res

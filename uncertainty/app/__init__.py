@@ -1,0 +1,1 @@
+"""Application layer: run pipeline, bundle, report, command line, docs generation."""

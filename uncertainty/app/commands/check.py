@@ -1,0 +1,45 @@
+"""`fluidshift check STUDY`: validate a study file and show the resolved priors (exit 2 on bad input)."""
+
+from __future__ import annotations
+
+import click
+
+from uncertainty.app.commands.common import emit_json, handle_errors
+
+
+@click.command("check", short_help="Validate a study file and show the resolved priors.")
+@click.argument("study", type=click.Path(dir_okay=False))
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout and nothing else.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@handle_errors
+def command(study: str, as_json: bool, quiet: bool) -> None:
+    """Validate STUDY: priors after tissue, conditions and overrides; correlations; sections; data files."""
+    from uncertainty.app.commands.priors import rows_table
+    from uncertainty.app.section_checks import check_sections
+    from uncertainty.study import TOP_LEVEL, load_study, resolved_rows
+
+    s = load_study(study)
+    check_sections(s)
+    rows = resolved_rows(s)
+    sections = [n for n in TOP_LEVEL if n not in ("study", "parameters", "correlations")
+                and getattr(s, n) is not None]
+    if as_json:
+        emit_json({"valid": True, "path": s.file, "hash": s.hash, "title": s.title, "tissue": s.tissue,
+                   "conditions": s.conditions, "model": s.model, "seed": s.seed,
+                   "tissue_mass_kg": s.tissue_mass_kg, "names": s.names, "priors": rows,
+                   "correlations": [list(p) for p in s.correlations], "sections": sections,
+                   "outputs": s.outputs(), "notes": s.notes})
+        return
+    if quiet:
+        return
+    click.echo(f"{s.file}: valid")
+    click.echo(f"title: {s.title}" if s.title else "title: -")
+    click.echo(f"tissue {s.tissue}, model {s.model}, conditions: {', '.join(s.conditions) or 'none'}, "
+               f"seed {s.seed}" + (f", tissue mass {s.tissue_mass_kg:g} kg" if s.tissue_mass_kg else ""))
+    click.echo(rows_table(rows, with_origin=False))
+    if s.correlations:
+        click.echo("correlations (normal scores): " + "; ".join(f"{a}-{b} {r:g}" for a, b, r in s.correlations))
+    click.echo(f"uncertain inputs: {', '.join(s.names)}")
+    click.echo(f"sections: {', '.join(sections) or 'none'}")
+    for n in s.notes:
+        click.echo(f"note: {n}")

@@ -1,0 +1,98 @@
+"""`fluidshift priors list` / `fluidshift priors show TISSUE`: prior sets, each value with its origin."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import click
+
+from uncertainty.app.commands.common import emit_json, handle_errors
+
+
+def _fmt(x: Any) -> str:
+    if x is None:
+        return "-"
+    if isinstance(x, float):
+        return f"{x:.4g}"
+    return str(x)
+
+
+def rows_table(rows: list[dict[str, Any]], *, with_origin: bool = True) -> str:
+    """Plain-text table of prior rows (symbol, distribution, median, 95 % interval, unit, spread, origin)."""
+    head = f"{'symbol':<9}{'distribution':<42}{'median':>11}{'95% interval':>24}  {'unit':<18}{'between':<12}"
+    lines = [head, "-" * len(head)]
+    for r in rows:
+        if r["dist"] == "derived":
+            desc = r.get("derivation", "derived")
+            lines.append(f"{r['symbol']:<9}{desc}")
+        else:
+            params = ", ".join(f"{k}={_fmt(v)}" for k, v in (r.get("params") or {}).items())
+            dist = f"{r['dist']}({params})"
+            ci = "[" + ", ".join(_fmt(x) for x in r["ci95"]) + "]"
+            bs = r.get("between_subject")
+            bs_text = ", ".join(f"{k}={_fmt(v)}" for k, v in bs.items()) if bs else "-"
+            lines.append(f"{r['symbol']:<9}{dist:<42}{_fmt(r['median']):>11}{ci:>24}  {r['unit']:<18}{bs_text:<12}")
+        if with_origin and r.get("origin"):
+            lines.append(f"{'':<9}origin: {r['origin']}")
+    return "\n".join(lines)
+
+
+@click.group("priors", short_help="List prior sets or show one, each value with its origin.")
+def command() -> None:
+    """Prior sets (tissues) shipped with fluidshift, each value with its origin."""
+
+
+@command.command("list")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout and nothing else.")
+@handle_errors
+def list_cmd(as_json: bool) -> None:
+    """List the prior sets (tissues), the conditions and the instruments."""
+    from uncertainty.priors import list_prior_sets, load_conditions, load_instruments, load_prior_set
+
+    sets = [load_prior_set(n) for n in list_prior_sets()]
+    conditions = load_conditions()
+    instruments = load_instruments()
+    if as_json:
+        emit_json({
+            "prior_sets": [{"name": s.name, "description": s.description, "basis": s.basis,
+                            "models": list(s.models)} for s in sets],
+            "conditions": [{"name": c.name, "label": c.label, "applies_to": list(c.applies_to or [])}
+                           for c in conditions.values()],
+            "instruments": [{"name": i.name, "label": i.label, "measures": i.measures}
+                            for i in instruments.values()],
+        })
+        return
+    click.echo("prior sets (tissues):")
+    for s in sets:
+        first = s.description.split(". ")[0].strip().rstrip(".")
+        click.echo(f"  {s.name:<20}{first}")
+    if conditions:
+        click.echo("conditions:")
+        for c in conditions.values():
+            where = f"  [{', '.join(c.applies_to)}]" if c.applies_to else ""
+            click.echo(f"  {c.name:<24}{c.label}{where}")
+    if instruments:
+        click.echo("instruments:")
+        for i in instruments.values():
+            click.echo(f"  {i.name:<36}{i.label} ({i.measures})")
+
+
+@command.command("show")
+@click.argument("tissue")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout and nothing else.")
+@handle_errors
+def show_cmd(tissue: str, as_json: bool) -> None:
+    """Show the priors of TISSUE: distribution, median, 95 % interval, unit, spread and origin."""
+    from uncertainty.priors import load_prior_set, prior_rows
+
+    pset = load_prior_set(tissue)
+    rows = prior_rows(pset.priors, pset.derived)
+    if as_json:
+        emit_json(rows)
+        return
+    click.echo(f"{pset.name}: {pset.description}")
+    click.echo(f"basis of quoted values: per {pset.basis}; density {pset.density:g} g/mL; values below in "
+               "canonical units (per 100 g)")
+    click.echo(rows_table(rows))
+    for (a, b, rho), origin in zip(pset.correlations, pset.correlation_origins, strict=False):
+        click.echo(f"correlation {a}-{b}: {rho:g}  (origin: {origin})")

@@ -1,0 +1,328 @@
+"""Generate docs/study-file.md, the study-file reference, from the pydantic schema in study.py.
+
+Every key of every section model is listed with its type, default and constraints, read from the
+models themselves; meanings and units come from :data:`MEANINGS`. ``tests/test_docs.py`` fails when the
+committed file differs from what this module generates, so the reference cannot drift from the code.
+
+It also writes docs/results.md, the results.json reference, from the models in bundle.py.
+Regenerate with ``python -m uncertainty.app.docs_gen`` (writes both in a source checkout).
+"""
+
+from __future__ import annotations
+
+import sys
+import types
+import typing
+from pathlib import Path
+from typing import Any
+
+#: (section heading, TOML form, model name in uncertainty.study, introduction)
+SECTIONS: list[tuple[str, str, str, str]] = [
+    ("study", "[study]", "StudySection",
+     "What the study is about. Required; every other section is optional."),
+    ("correlations", "[correlations]", "CorrelationsSection",
+     "Correlations between uncertain inputs, as correlations of normal scores (a Gaussian copula). A prior "
+     "set's pairs that involve a quantity the study overrides are dropped (and say so in the study notes)."),
+    ("propagate", "[propagate]", "PropagateSection",
+     "Forward uncertainty: the distribution of Jv and other outputs, for the study's individual and for the "
+     "typical subject. Its Monte Carlo error comes from independent randomised replicates."),
+    ("sensitivity", "[sensitivity]", "SensitivitySection",
+     "Global sensitivity of one output to the uncertain inputs, with confidence intervals and a ranking."),
+    ("observations", "[[observations]]", "Observation",
+     "Data for Bayesian updating, one table per observation; `kind` decides which keys are required."),
+    ("observations.step", "step = { ... } / steps = [{ ... }]", "StepSpec",
+     "A venous-cuff pressure step of a `volume_time_course` (one step, or a cumulative protocol)."),
+    ("infer", "[infer]", "InferSection",
+     "Sampler settings and quality gate for Bayesian updating from the observations. `fluidshift infer` flags "
+     "override these keys; `fluidshift run` uses them as they stand."),
+    ("rank", "[rank]", "RankSection",
+     "Which single measurement (and which pair or set within a budget) would narrow the Jv interval most."),
+    ("rank.candidates", "candidates = [{ ... }]", "Candidate", "One candidate measurement."),
+    ("design", "[design]", "DesignSection", "Trial sizing: power, assurance and sample size."),
+    ("design.effect", "effect = { ... } / extra_effects = [{ ... }]", "Effect",
+     "The treatment effect on one quantity: a ratio (`multiply`) or a difference (`shift`)."),
+    ("design.spread", "between_subject / within_subject / measurement = { sd | cv }", "Spread",
+     "A spread: `sd` in the quantity's canonical unit, or `cv` (a fraction)."),
+    ("schedule", "[schedule]", "ScheduleSection",
+     "Venous-cuff measurement schedule: the cuff pressures and K reading times that minimise the expected "
+     "posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision), against equal "
+     "spacing. Run by `fluidshift design STUDY --schedule`; defaults apply when the section is absent."),
+]
+
+#: "section.key" -> meaning, with the unit where there is one
+MEANINGS: dict[str, str] = {
+    "study.title": "a short title shown in outputs and the report",
+    "study.tissue": "the prior set to start from: a file name in priors/ (skeletal_muscle, skin_subcutis, lung, "
+                    "myocardium, intestinal_mucosa, brain, glomerulus)",
+    "study.conditions": "condition modifiers from priors/conditions.toml, applied in order",
+    "study.model": "model form: classic (Jv from the six Starling quantities), steady_state (Pi and pi_i solved "
+                   "from the lymph and protein balance), revised (glycocalyx filter, pi_g solved), glomerular "
+                   "(filtration along the glomerular capillary from Cp and RPF; needs tissue_mass)",
+    "study.posture_height": "height of the tissue below the heart for the posture condition (default 30 cm, "
+                            "from priors/conditions.toml); a number in cm or a string with a unit (\"40 cm\"); "
+                            "Pa and Pv rise by 0.7725 mmHg per cm",
+    "study.seed": "random seed; the same study and seed give the same numbers",
+    "study.tissue_mass": "mass of the limb or organ for whole-tissue shifts (Jv in mL/h and L/day); a number in "
+                         "kg or a string with a unit (\"3.2 kg\")",
+    "study.description": "free text",
+    "study.note": "free text",
+    "correlations.pairs": "[[a, b, rho], ...]: normal-score correlation rho (-1..1) between inputs a and b",
+    "propagate.samples": "total number of draws over all replicates (rounded up to a power of two per replicate "
+                         "for qmc)",
+    "propagate.method": "mc (pseudo-random), qmc (scrambled Sobol'), lhs (Latin hypercube)",
+    "propagate.tol": "optional: double the sample until the MC standard error of both 95% interval ends is below "
+                     "this, in the first output's canonical unit",
+    "propagate.max_samples": "optional: upper limit for the doubling under `tol` (quality gate, exit 3, when "
+                             "reached)",
+    "observations.kind": "measurement (a direct noisy reading of one quantity), lymph_flow (pre-nodal JL = Jv at "
+                         "steady state), clearance_rate, swelling_rate, volume_time_course (limb volume after "
+                         "venous-cuff steps), protein_ratio (lymph/plasma protein); glomerular form only: GFR, "
+                         "RPF (renal plasma flow), filtration_fraction (strictly between 0 and 1); lymph_flow is "
+                         "refused for brain",
+    "observations.name": "optional label",
+    "observations.parameter": "the quantity a measurement reads (a trade symbol)",
+    "observations.value": "the observed value, in `unit`",
+    "observations.sd": "normal measurement error, in `unit`",
+    "observations.cv": "lognormal measurement error, as a fraction",
+    "observations.unit": "unit of `value` and `sd` (any unit pint converts to the quantity's canonical unit)",
+    "observations.instrument": "optional: noise (and bias prior) from priors/instruments.toml",
+    "observations.file": "CSV data file relative to the study file; columns per kind (subject, value or "
+                         "time_min/time_h/time_day and volume; optional group)",
+    "observations.subject": "subject label of a single value",
+    "observations.group": "group label (e.g. a trial arm)",
+    "observations.step": "one venous-cuff step (volume_time_course)",
+    "observations.steps": "a cumulative step protocol (volume_time_course); each step with `at_min`",
+    "observations.note": "free text",
+    "observations.declared_unit": "set by the loader (the unit as written); not for study files",
+    "observations.volume": "clearance_rate: a prior declaration of the tracer's distribution volume (mL/100g)",
+    "observations.lymph": "swelling_rate: a prior declaration of the lymph flow (mL/min/100g)",
+    "observations.effects": "quantities given a group effect (with grouped data)",
+    "observations.site": "lymph_flow: where lymph was collected, pre_nodal or post_nodal",
+    "observations.every": "volume_time_course: fit every k-th reading of each subject (1 = all; fewer is faster)",
+    "observations.step.parameter": "the stepped pressure (Pv)",
+    "observations.step.to": "the pressure after the step, in `unit` (default mmHg)",
+    "observations.step.unit": "unit of `to`",
+    "observations.step.at_min": "start of the step, min (protocols)",
+    "rank.candidates": "candidate measurements; empty: the tissue's instruments from priors/instruments.toml",
+    "rank.budget": "optional: the best set of candidates whose total cost stays within this",
+    "rank.output": "the output whose interval should narrow",
+    "rank.samples": "Monte Carlo sample size of the value-of-information estimate",
+    "rank.candidates.name": "label (unique)",
+    "rank.candidates.parameter": "the quantity measured (a trade symbol)",
+    "rank.candidates.sd": "measurement noise, in `unit` (default the quantity's canonical unit)",
+    "rank.candidates.cv": "measurement noise as a fraction (lognormal)",
+    "rank.candidates.unit": "unit of `sd`",
+    "rank.candidates.instrument": "noise from priors/instruments.toml",
+    "rank.candidates.cost": "relative cost (any consistent unit), used by `per_cost` and `budget`",
+    "rank.candidates.n": "number of repeated readings averaged",
+    "design.design": "parallel (two arms) or paired (each subject before and after)",
+    "design.endpoint": "a quantity, \"Jv\", or an observation kind",
+    "design.effect": "the treatment effect to detect",
+    "design.between_subject": "spread of individuals around the typical value, per quantity",
+    "design.within_subject": "test-retest spread per quantity (paired designs)",
+    "design.measurement": "measurement error of the endpoint",
+    "design.alpha": "two-sided significance level",
+    "design.target_power": "power the sample size must reach",
+    "design.target_assurance": "optional: assurance (power averaged over the design prior) to reach",
+    "design.dropout": "fraction of subjects lost; n is inflated by 1/(1 - dropout)",
+    "design.n_range": "[low, high] subjects per arm searched",
+    "design.design_prior": "a prior declaration over the effect (the shift, or the log ratio) for assurance",
+    "design.analysis_prior": "optional prior declaration for Bayesian success",
+    "design.simulations": "simulated trials per design point",
+    "design.baseline": "analyse with a baseline covariate (ANCOVA)",
+    "design.extra_effects": "further effects of the same treatment (fixed)",
+    "design.n_points": "points on the power curve",
+    "design.exact_trials": "trials refitted by full MCMC on the exact path",
+    "design.target_half_width": "optional: interval half-width to reach, in the endpoint's unit",
+    "design.half_width_probability": "probability of reaching `target_half_width`",
+    "design.effect.parameter": "the quantity the treatment changes",
+    "design.effect.multiply": "ratio of treated to control (e.g. 0.7)",
+    "design.effect.shift": "difference treated minus control, in `unit`",
+    "design.effect.unit": "unit of `shift`",
+    "design.spread.sd": "standard deviation in the quantity's canonical unit",
+    "design.spread.cv": "coefficient of variation, a fraction",
+}
+
+PARAMETERS_TEXT = """\
+## [parameters]
+
+Override a prior of the tissue's set, or add one, by trade symbol. Each entry is a declaration:
+
+| dist | parameters (in `unit`) |
+|---|---|
+{rows}
+
+Common keys of a declaration: `unit` (any unit pint converts to the quantity's canonical unit; filtration
+quantities carry a basis such as `/100g` or `/100mL`), `between_subject = {{ sd = .. }}` or `{{ cv = .. }}`
+(spread of individuals around the typical value), `origin` (where the numbers come from), `note`.
+A bare number, or a string with a unit (`"12 mmHg"`), fixes the value (`fixed`).
+`from_protein = {{ <declaration in g/dL>, kind = "total" | "albumin" }}` or
+`from_protein = {{ albumin = {{...}}, globulin = {{...}} }}` derives an oncotic pressure from protein.
+An override replaces the whole declaration, between-subject spread included, unless it states one.
+
+Canonical units: {units}.
+"""
+
+
+def _type(annotation: Any) -> str:
+    if annotation is Any:
+        return "declaration or value"
+    origin = typing.get_origin(annotation)
+    args = typing.get_args(annotation)
+    if origin is typing.Literal:
+        return "one of " + ", ".join(f"`{a}`" for a in args)
+    if origin in (typing.Union, types.UnionType):
+        parts = [_type(a) for a in args if a is not type(None)]
+        return " or ".join(parts) + (" (optional)" if type(None) in args else "")
+    if origin in (list, tuple):
+        return f"list of {_type(args[0])}" if args else "list"
+    if origin is dict:
+        return f"table of {_type(args[1])}" if len(args) == 2 else "table"
+    if isinstance(annotation, type):
+        return {"str": "string", "int": "integer", "float": "number", "bool": "true/false"}.get(
+            annotation.__name__, f"table ({annotation.__name__})")
+    return str(annotation).replace("typing.", "")
+
+
+def _default(field: Any) -> str:
+    from pydantic_core import PydanticUndefined
+
+    if field.is_required():
+        return "required"
+    value = field.default_factory() if field.default_factory is not None else field.default
+    if value is PydanticUndefined or value is None:
+        return "none"
+    return "`" + _toml(value) + "`"
+
+
+def _toml(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return f'"{value}"'
+    if isinstance(value, list):
+        return "[" + ", ".join(_toml(v) for v in value) + "]"
+    if isinstance(value, dict):
+        return "{" + ", ".join(f"{k} = {_toml(v)}" for k, v in value.items()) + "}" if value else "{}"
+    return repr(value)
+
+
+def _constraints(field: Any) -> str:
+    names = {"gt": ">", "ge": ">=", "lt": "<", "le": "<=", "min_length": "length >=", "max_length": "length <="}
+    out = []
+    for m in field.metadata:
+        for attr, sym in names.items():
+            v = getattr(m, attr, None)
+            if v is not None:
+                out.append(f"{sym} {v}")
+    return ", ".join(out)
+
+
+def fields_of(model: Any) -> list[tuple[str, str, str, str]]:
+    """(key, type, default, constraints) of every field of a pydantic model, in declaration order."""
+    return [(name, _type(f.annotation), _default(f), _constraints(f)) for name, f in model.model_fields.items()]
+
+
+def _parameters() -> str:
+    from uncertainty import priors
+    from uncertainty.core import units
+
+    rows = []
+    for dist, (required, optional) in priors.DISTRIBUTIONS.items():
+        params = ", ".join(f"`{p}`" for p in required)
+        if optional:
+            params += " (optional: " + ", ".join(f"`{p}`" for p in optional) + ")"
+        rows.append(f"| `{dist}` | {params} |")
+    unit_list = ", ".join(f"{k} {v}" if v else f"{k} (dimensionless)" for k, v in units.CANONICAL.items())
+    return PARAMETERS_TEXT.format(rows="\n".join(rows), units=unit_list)
+
+
+def render() -> str:
+    """The study-file reference as Markdown."""
+    from uncertainty import study
+
+    out = ["# Study file reference", "",
+           "<!-- Generated by `python -m uncertainty.app.docs_gen` from the study schema (uncertainty/study/); "
+           "do not edit by hand (tests/test_docs.py checks it). -->", "",
+           "A study is one TOML file. `[study]` is required; each analysis section present (`[propagate]`, "
+           "`[sensitivity]`, `[[observations]]`, `[rank]`, `[design]`) is run by `fluidshift run`. Unknown keys, "
+           "wrong types and out-of-range values are errors naming the file, the key path and the value (exit "
+           "status 2). Values are in the canonical units of DESIGN.md unless a `unit` key or a unit string says "
+           "otherwise.", ""]
+    for heading, form, model_name, intro in SECTIONS:
+        model = getattr(study, model_name)
+        if heading == "correlations":
+            out.append(_parameters())
+        out += [f"## {form}" if "." not in heading else f"### {form}", "", intro, "",
+                "| key | type | default | constraints | meaning |", "|---|---|---|---|---|"]
+        prefix = heading
+        for name, typ, default, cons in fields_of(model):
+            meaning = (MEANINGS.get(f"{prefix}.{name}") or model.model_fields[name].description
+                       or "(not described yet)")
+            out.append(f"| `{name}` | {typ} | {default} | {cons} | {meaning} |")
+        out.append("")
+    return "\n".join(out).rstrip() + "\n"
+
+
+RESULTS_INTRO = """\
+# results.json reference
+
+<!-- Generated by `python -m uncertainty.app.docs_gen` from the pydantic models in uncertainty/app/bundle.py;
+do not edit by hand (tests/test_docs.py checks it). -->
+
+`fluidshift run STUDY --out DIR` (and `fluidshift demo`) write DIR/results.json, validated against this
+schema when written and when read back (`uncertainty.app.bundle.read_results`). The file is rewritten
+atomically after every section, so while a run is under way, or after it was interrupted, `complete` is
+false and `sections` holds the sections finished so far. Each section's `result` is the JSON document
+of that analysis (DESIGN.md section 5, the same as `fluidshift <analysis> --json`); values are in
+canonical units with a `units` map beside them. The JSON Schema itself:
+`python -c "import json, uncertainty.app.bundle as b; print(json.dumps(b.results_schema(), indent=2))"`.
+
+Other files of the bundle: `tables/<section>.csv` (each result's `to_dataframe()`),
+`figures/<section>-*.png` and `.svg`, `posterior.nc` (ArviZ InferenceData, where inference ran) and
+`report.html` (self-contained). A hidden `.partial/` folder holds temporary files during a run.
+"""
+
+
+def render_results() -> str:
+    """The results.json reference as Markdown, from uncertainty.app.bundle's models."""
+    from uncertainty.app import bundle
+
+    out = [RESULTS_INTRO]
+    for model in (bundle.ResultsDoc, bundle.StudyInfo, bundle.Provenance, bundle.SectionRecord, bundle.FileRecord,
+                  bundle.GateInfo):
+        out += [f"## {model.__name__}", "", (model.__doc__ or "").strip().splitlines()[0] if model.__doc__ else "",
+                "", "| key | type | default | description |", "|---|---|---|---|"]
+        for name, f in model.model_fields.items():
+            key = f.alias or name
+            out.append(f"| `{key}` | {_type(f.annotation)} | {_default(f)} | {f.description or ''} |")
+        out.append("")
+    return "\n".join(out).rstrip() + "\n"
+
+
+def results_doc_path() -> Path:
+    """docs/results.md of the source checkout."""
+    return Path(__file__).resolve().parents[2] / "docs" / "results.md"
+
+
+def doc_path() -> Path:
+    """docs/study-file.md of the source checkout."""
+    return Path(__file__).resolve().parents[2] / "docs" / "study-file.md"
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Write docs/study-file.md and docs/results.md (or print the study-file reference with ``-``)."""
+    argv = sys.argv[1:] if argv is None else argv
+    text = render()
+    if argv and argv[0] == "-":
+        sys.stdout.write(text)
+        return 0
+    for path, content in ((doc_path(), text), (results_doc_path(), render_results())):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(content, encoding="utf-8")
+        print(f"wrote {path}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

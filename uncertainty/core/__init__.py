@@ -1,0 +1,1 @@
+"""Foundation: errors, units, TOML reading, serialisation, provenance, resources, the executor."""
