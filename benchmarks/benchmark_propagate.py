@@ -65,7 +65,7 @@ def _best(f, repeat: int = 5) -> float:
 
 def forward_draws() -> float:
     from uncertainty.analyses.sampling import draw
-    from uncertainty.model import evaluate
+    from uncertainty.forms.evaluate import evaluate
 
     s = study()
     n = 10**6

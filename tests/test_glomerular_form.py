@@ -14,7 +14,7 @@ from click.testing import CliRunner
 
 from uncertainty.app.cli import main
 from uncertainty.core.errors import StudyError
-from uncertainty.model import evaluate
+from uncertainty.forms.evaluate import evaluate
 from uncertainty.physiology.glomerulus import glomerular_filtration
 from uncertainty.study import Study
 

@@ -13,7 +13,7 @@ import math
 import numpy as np
 import pytest
 
-from uncertainty.model import OUTPUT_UNITS, evaluate, required_inputs
+from uncertainty.forms.evaluate import OUTPUT_UNITS, evaluate, required_inputs
 from uncertainty.study import Study
 
 

@@ -57,3 +57,8 @@ class QualityGateError(FluidshiftError):
     def __init__(self, message: str, result: Any = None) -> None:
         self.result = result
         super().__init__(message)
+
+
+def study_error(message: str, file: object, key: str | None, value: Any = None) -> StudyError:
+    """A :class:`StudyError` naming ``file`` (any path-like, or None), the dotted ``key`` and ``value``."""
+    return StudyError(message, file=str(file) if file else None, key=key, value=value)

@@ -288,7 +288,7 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
 
 def _model_outputs() -> set[str]:
     try:
-        from uncertainty import model
+        from uncertainty.forms import evaluate as model
 
         return set(getattr(model, "OUTPUT_UNITS", {})) | {"Jv", "net_pressure"}
     except ImportError:  # model.py not there yet
@@ -316,7 +316,7 @@ def _endpoint(study: Any, spec: DesignSpec, values: dict[str, np.ndarray], shape
     """The endpoint read from each subject-occasion's values (canonical unit), shape ``shape``."""
     if spec.endpoint_kind == "quantity":
         return np.broadcast_to(values[spec.output], shape)
-    from uncertainty import model
+    from uncertainty.forms import evaluate as model
 
     flat = {k: np.broadcast_to(v, shape).reshape(-1) for k, v in values.items()}
     return np.asarray(model.evaluate(study, flat)[spec.output]).reshape(shape)

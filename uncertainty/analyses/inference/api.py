@@ -254,7 +254,7 @@ def posterior_output_notes(problem: Problem, post: dict[str, np.ndarray]) -> lis
     """Notes the model form calls for on posterior draws (``model.output_notes``; e.g. the glomerular
     "Kf is only bounded below" note). ``post`` holds one array of draws per quantity of ``problem.priors``
     at the reported level (canonical units); fixed quantities come from ``problem.fixed``."""
-    from uncertainty.model import NOTE_OUTPUTS, output_notes
+    from uncertainty.forms.evaluate import NOTE_OUTPUTS, output_notes
 
     if problem.model_form not in NOTE_OUTPUTS or any(name not in post for name in problem.priors):
         return []

@@ -208,7 +208,7 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
     form, e.g. simulated readings); ``model`` overrides ``[study] model`` (``classic``,
     ``steady_state``, ``revised``), used by model comparison.
     """
-    from uncertainty import model as model_mod
+    from uncertainty.forms import evaluate as model_mod
 
     names = list(study.names)
     priors = {n: study.priors[n] for n in names}

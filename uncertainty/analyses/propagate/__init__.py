@@ -369,14 +369,14 @@ def available_outputs(study: Any, evaluate: Callable | None = None) -> list[str]
 def _evaluator(evaluate: Callable | None) -> Callable:
     if evaluate is not None:
         return evaluate
-    from uncertainty.model import evaluate as model_evaluate
+    from uncertainty.forms.evaluate import evaluate as model_evaluate
 
     return model_evaluate
 
 
 def _output_units(outputs: Sequence[str]) -> dict[str, str]:
     try:
-        from uncertainty.model import OUTPUT_UNITS
+        from uncertainty.forms.evaluate import OUTPUT_UNITS
     except ImportError:  # pragma: no cover - model.py not present
         return {}
     return {k: OUTPUT_UNITS.get(k, "") for k in outputs}
@@ -426,7 +426,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     has_bs = k > d
 
     form = getattr(study, "model", None)
-    from uncertainty.model import NOTE_OUTPUTS
+    from uncertainty.forms.evaluate import NOTE_OUTPUTS
 
     note_keys = NOTE_OUTPUTS.get(form or "", ())  # outputs whose draws the form's notes read
     kept: list[dict[str, np.ndarray]] = []  # individual draws the form's notes read (model.output_notes)
@@ -441,7 +441,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
 
     def add_form_notes(res: PropagateResult) -> None:
         if kept:
-            from uncertainty.model import output_notes
+            from uncertainty.forms.evaluate import output_notes
 
             draws = {key: np.concatenate([b[key] for b in kept]) for key in note_keys}
             res.notes.extend(n for n in output_notes(form, draws) if n not in res.notes)

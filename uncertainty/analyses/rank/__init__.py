@@ -567,8 +567,8 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     which. ``samples``: draws (default ``[rank] samples`` or 4096, at least 4096 for the prior path;
     the posterior path samples about that many and keeps the thinned ones).
     """
-    from uncertainty import model
     from uncertainty.analyses import sampling
+    from uncertainty.forms import evaluate as model
 
     section = getattr(study, "rank", None)
     output = getattr(section, "output", "Jv") or "Jv"

@@ -138,7 +138,7 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
 
     unit = ""
     try:
-        from uncertainty.model import OUTPUT_UNITS
+        from uncertainty.forms.evaluate import OUTPUT_UNITS
 
         unit = OUTPUT_UNITS.get(output, "")
     except ImportError:  # pragma: no cover

@@ -24,8 +24,8 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.study import TISSUE_OUTPUTS
-from uncertainty.study import required_inputs as _required_inputs
+from uncertainty.forms.catalogue import TISSUE_OUTPUTS
+from uncertainty.forms.catalogue import required_inputs as _required_inputs
 
 #: Canonical unit of every output.
 OUTPUT_UNITS: dict[str, str] = {

@@ -1,0 +1,1 @@
+"""Model forms: the catalogue (what each form takes, solves and returns) and their evaluation."""

@@ -1,0 +1,418 @@
+"""The study-file schema: one strict pydantic model per section (unknown keys and wrong types are errors).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_validator, model_validator
+
+from uncertainty.priors import (
+    Prior,
+)
+
+STRICT_CONFIG = ConfigDict(extra="forbid", strict=True)
+
+
+Number = float  # strict mode accepts int for float
+
+
+class StudySection(BaseModel):
+    """``[study]``: what the study is about. ``tissue`` is required; ``seed`` defaults to 1."""
+
+    model_config = STRICT_CONFIG
+    title: str = ""
+    tissue: str
+    conditions: list[str] = Field(default_factory=list)
+    model: Literal["classic", "steady_state", "revised", "glomerular"] = "classic"
+    seed: int = Field(default=1, ge=0, lt=2**63)
+    tissue_mass: float | str | None = None
+    posture_height: float | str | None = None
+    description: str = ""
+    note: str = ""
+
+
+class CorrelationsSection(BaseModel):
+    """``[correlations]``: ``pairs = [[a, b, rho], ...]`` (normal-score correlations)."""
+
+    model_config = STRICT_CONFIG
+    pairs: list[list[str | float]] = Field(default_factory=list)
+
+
+class PropagateSection(BaseModel):
+    """``[propagate]``: forward uncertainty; every key is optional (``uncertainty.analyses.propagate`` defaults)."""
+
+    model_config = STRICT_CONFIG
+    samples: int = Field(default=16384, gt=0, le=2**26, description=(
+        "draws per randomised replicate set in all; a power of two for qmc (rounded up with a note)"))
+    method: Literal["mc", "qmc", "lhs"] = Field(default="qmc", description=(
+        "mc (plain Monte Carlo), qmc (scrambled Sobol' points), lhs (Latin hypercube)"))
+    outputs: list[str] | None = Field(default=None, min_length=1, description=(
+        "outputs to summarise; default every output of the model form (Jv, net_pressure and each force first)"))
+    replicates: int = Field(default=16, ge=16, le=1024, description=(
+        "independent randomised replicates for the Monte Carlo standard errors (at least 16 scrambles)"))
+    tol: float | None = Field(default=None, gt=0, description=(
+        "keep doubling the sample until the standard error of the 95% interval ends is below tol (output units)"))
+    max_samples: int | None = Field(default=None, gt=0, description=(
+        "with tol: the largest sample; reaching it first exits 3"))
+
+
+class SensitivitySection(BaseModel):
+    """``[sensitivity]``: global sensitivity of one output; every key is optional."""
+
+    model_config = STRICT_CONFIG
+    method: Literal["sobol", "morris", "shapley"] | None = Field(default=None, description=(
+        "default: sobol for independent inputs, shapley when the study correlates inputs (sobol and morris "
+        "refuse correlated inputs)"))
+    samples: int | None = Field(default=None, gt=0, le=2**24, description=(
+        "base sample size; default 8192 (sobol), 64 trajectories (morris), 2048 outer draws (shapley)"))
+    output: str = Field(default="Jv", description="the output whose variance is apportioned")
+    layer: Literal["individual", "typical"] = Field(default="individual", description=(
+        "individual: each quantity's typical and between-subject parts as one factor; typical: the "
+        "typical-subject uncertainty only"))
+    second_order: bool = Field(default=False, description="sobol: also the second-order indices S2")
+    levels: int = Field(default=4, ge=2, le=64, description=(
+        "morris: grid levels (even), kept inside the open unit cube"))
+
+    @field_validator("levels")
+    @classmethod
+    def _even(cls, v: int) -> int:
+        if v % 2:
+            raise ValueError("Morris levels must be even")
+        return v
+
+
+class StepSpec(BaseModel):
+    """One venous-cuff step: ``{ parameter = "Pv", to = 30, unit = "mmHg" }`` (``at_min`` in a protocol)."""
+
+    model_config = STRICT_CONFIG
+    parameter: str = "Pv"
+    to: float
+    unit: str | None = None
+    at_min: float | None = Field(default=None, ge=0)
+
+
+class Observation(BaseModel):
+    """One ``[[observations]]`` entry. ``kind`` decides which keys are required (see ``_check_kind``).
+
+    Values are converted to canonical units after validation (``value``, ``sd``; ``unit`` becomes the
+    canonical unit and ``declared_unit`` keeps what was written). CSV rows of ``file`` are in ``data``.
+    """
+
+    model_config = STRICT_CONFIG
+    kind: Literal["measurement", "lymph_flow", "clearance_rate", "swelling_rate", "volume_time_course",
+                  "protein_ratio", "GFR", "RPF", "filtration_fraction"]
+    name: str | None = None
+    parameter: str | None = None
+    value: float | None = None
+    sd: float | None = Field(default=None, gt=0)
+    cv: float | None = Field(default=None, gt=0)
+    unit: str | None = None
+    instrument: str | None = None
+    file: str | None = None
+    subject: str | int | None = None
+    group: str | None = None
+    step: StepSpec | None = None
+    steps: list[StepSpec] | None = None
+    note: str = ""
+    declared_unit: str | None = None
+    # inference extras (uncertainty/analyses/inference/observations/*): a distribution-volume prior for
+    # clearance_rate, a lymph-flow prior for swelling_rate, quantities given a group effect,
+    # and where lymph was collected for lymph_flow
+    volume: Any = None
+    lymph: Any = None
+    effects: list[str] | None = None
+    site: Literal["pre_nodal", "post_nodal"] | None = None
+    # volume_time_course: fit every k-th reading of each subject (1 = all)
+    every: int | None = Field(default=None, ge=1)
+    _data: dict[str, list] | None = PrivateAttr(default=None)
+    _path: Path | None = PrivateAttr(default=None)
+
+    @property
+    def data(self) -> dict[str, list] | None:
+        """Columns of the validated CSV file (numeric columns as floats), or None."""
+        return self._data
+
+    @property
+    def path(self) -> Path | None:
+        """The resolved data file, or None."""
+        return self._path
+
+    @model_validator(mode="after")
+    def _check_kind(self) -> Observation:
+        k = self.kind
+        if self.sd is not None and self.cv is not None:
+            raise ValueError("give sd or cv, not both")
+        if k == "measurement" and self.parameter is None:
+            raise ValueError("a measurement names its parameter")
+        if k != "measurement" and k != "volume_time_course" and self.parameter is not None and k != "clearance_rate":
+            raise ValueError(f"a {k} observation takes no parameter")
+        if k == "volume_time_course":
+            if self.file is None:
+                raise ValueError("a volume_time_course needs a data file (file = ...)")
+            if (self.step is None) == (self.steps is None):
+                raise ValueError("give step = {...} or steps = [...] (one of them)")
+            if self.steps is not None:
+                if not self.steps:
+                    raise ValueError("steps is empty")
+                times = [s.at_min if s.at_min is not None else math.nan for s in self.steps]
+                if any(math.isnan(t) for t in times):
+                    raise ValueError("each step of a protocol needs at_min")
+                if any(b <= a for a, b in zip(times, times[1:], strict=False)):
+                    raise ValueError("step times (at_min) must increase")
+        else:
+            if self.step is not None or self.steps is not None:
+                raise ValueError(f"a {k} observation takes no step / steps")
+            if self.every is not None:
+                raise ValueError(f"a {k} observation takes no every (volume_time_course only)")
+            if self.value is None and self.file is None:
+                raise ValueError(f"a {k} observation needs value (or a data file)")
+            if self.value is not None and self.file is not None:
+                raise ValueError("give value or file, not both")
+            if self.sd is None and self.cv is None and self.instrument is None:
+                raise ValueError("give the measurement error: sd, cv or instrument")
+        if k == "filtration_fraction" and self.value is not None and not 0 < self.value < 1:
+            raise ValueError("a filtration fraction lies strictly between 0 and 1 (GFR below renal plasma flow)")
+        if k == "protein_ratio" and self.value is not None and not 0 < self.value <= 1.5:
+            raise ValueError("a protein concentration ratio lies between 0 and about 1")
+        return self
+
+
+class Candidate(BaseModel):
+    """One ``[rank]`` candidate measurement: parameter, noise (sd / cv / instrument), cost (default 1)."""
+
+    model_config = STRICT_CONFIG
+    name: str
+    parameter: str
+    sd: float | None = Field(default=None, gt=0)
+    cv: float | None = Field(default=None, gt=0)
+    unit: str | None = None
+    instrument: str | None = None
+    cost: float = Field(default=1.0, gt=0)
+    n: int = Field(default=1, gt=0)
+
+    @model_validator(mode="after")
+    def _noise(self) -> Candidate:
+        given = sum(x is not None for x in (self.sd, self.cv, self.instrument))
+        if given == 0:
+            raise ValueError("give the candidate's noise: sd, cv or instrument")
+        if self.sd is not None and self.cv is not None:
+            raise ValueError("give sd or cv, not both")
+        return self
+
+
+class RankSection(BaseModel):
+    """``[rank]``: candidate measurements; optional ``budget``; output Jv; 4096 samples by default."""
+
+    model_config = STRICT_CONFIG
+    candidates: list[Candidate] = Field(default_factory=list)  # empty: instruments.toml for the tissue
+    budget: float | None = Field(default=None, gt=0)
+    output: str = "Jv"
+    samples: int = Field(default=4096, gt=0, le=2**22)
+
+    @field_validator("candidates")
+    @classmethod
+    def _unique(cls, v: list[Candidate]) -> list[Candidate]:
+        names = [c.name for c in v]
+        dup = {n for n in names if names.count(n) > 1}
+        if dup:
+            raise ValueError(f"candidate names must be unique: {sorted(dup)}")
+        return v
+
+
+class Spread(BaseModel):
+    """``{ sd = .. }`` or ``{ cv = .. }`` (sd in the quantity's canonical unit)."""
+
+    model_config = STRICT_CONFIG
+    sd: float | None = Field(default=None, gt=0)
+    cv: float | None = Field(default=None, gt=0)
+
+    @model_validator(mode="after")
+    def _one(self) -> Spread:
+        if (self.sd is None) == (self.cv is None):
+            raise ValueError("give exactly one of sd or cv")
+        return self
+
+
+class Effect(BaseModel):
+    """``effect = { parameter = "Kf", multiply = 0.7 }`` or ``{ parameter = "Pc", shift = -3 }``."""
+
+    model_config = STRICT_CONFIG
+    parameter: str
+    multiply: float | None = Field(default=None, gt=0)
+    shift: float | None = None
+    unit: str | None = None
+
+    @model_validator(mode="after")
+    def _one(self) -> Effect:
+        if (self.multiply is None) == (self.shift is None):
+            raise ValueError("give exactly one of multiply or shift")
+        return self
+
+
+class DesignSection(BaseModel):
+    """``[design]``: trial sizing. Defaults: parallel, endpoint Jv, alpha 0.05 (two-sided), power 0.8,
+    no dropout, n from 10 to 200 per arm; ``design_prior`` / ``analysis_prior`` are declarations
+    (parsed into ``Prior`` objects in ``design_prior_obj`` / ``analysis_prior_obj``)."""
+
+    model_config = STRICT_CONFIG
+    design: Literal["parallel", "paired"] = "parallel"
+    endpoint: str = "Jv"
+    effect: Effect
+    between_subject: dict[str, Spread] = Field(default_factory=dict)
+    within_subject: dict[str, Spread] = Field(default_factory=dict)
+    measurement: Spread | None = None
+    alpha: float = Field(default=0.05, gt=0, lt=1)
+    target_power: float = Field(default=0.8, gt=0, lt=1)
+    target_assurance: float | None = Field(default=None, gt=0, lt=1)
+    dropout: float = Field(default=0.0, ge=0, lt=1)
+    n_range: list[int] = Field(default_factory=lambda: [10, 200], min_length=2, max_length=2)
+    design_prior: dict[str, Any] | None = None
+    analysis_prior: dict[str, Any] | None = None
+    simulations: int = Field(default=2000, gt=0, le=10**7)
+    # trial-design extensions (uncertainty/analyses/design/): ANCOVA on a baseline, further effects of the same
+    # treatment (fixed; the design prior is over `effect`), curve points, exact-path trials, half-width
+    baseline: bool = False
+    extra_effects: list[Effect] = Field(default_factory=list)
+    n_points: int = Field(default=10, ge=2, le=100)
+    exact_trials: int = Field(default=40, ge=2, le=10**5)
+    target_half_width: float | None = Field(default=None, gt=0)
+    half_width_probability: float = Field(default=0.8, gt=0, lt=1)
+    _design_prior: Prior | None = PrivateAttr(default=None)
+    _analysis_prior: Prior | None = PrivateAttr(default=None)
+
+    @property
+    def design_prior_obj(self) -> Prior | None:
+        """The design prior over the effect (shift, or log ratio) as a Prior, or None."""
+        return self._design_prior
+
+    @property
+    def analysis_prior_obj(self) -> Prior | None:
+        """The analysis prior as a Prior, or None."""
+        return self._analysis_prior
+
+    @field_validator("n_range")
+    @classmethod
+    def _range(cls, v: list[int]) -> list[int]:
+        if not 2 <= v[0] <= v[1]:
+            raise ValueError("n_range is [low, high] with 2 <= low <= high")
+        return v
+
+
+class InferSection(BaseModel):
+    """``[infer]``: sampler settings and quality gate for Bayesian updating. Every key is optional; a
+    command-line flag of ``fluidshift infer`` overrides the key, and ``fluidshift run`` uses the section
+    as it stands. Defaults are those of ``fluidshift infer``."""
+
+    model_config = STRICT_CONFIG
+    sampler: Literal["nutpie", "pymc"] = Field(default="nutpie", description=(
+        "nutpie (default) or PyMC's own NUTS"))
+    chains: int = Field(default=4, ge=1, le=64, description="number of chains")
+    draws: int = Field(default=1000, ge=50, le=10**6, description="posterior draws per chain")
+    tune: int = Field(default=1000, ge=50, le=10**6, description="warm-up steps per chain")
+    target_accept: float = Field(default=0.95, ge=0.5, le=0.999, description=(
+        "NUTS target acceptance rate; raise it (e.g. 0.99) when a few divergences remain. The default is 0.95, "
+        "not the samplers' 0.8: a lymph-flow reading pins only the product Kf x net pressure, a curved ridge "
+        "on which 0.8 gave tens of divergences (common practice: raise target_accept before trusting chains "
+        "with divergences)"))
+    start: Literal["auto", "mode", "prior"] = Field(default="auto", description=(
+        "where chains start: around the posterior mode (mode), at the priors' central points (prior), or "
+        "the mode only for observation kinds that need it, such as volume time courses (auto)"))
+    r_hat_max: float = Field(default=1.01, gt=1, le=2, description=(
+        "quality gate: largest R-hat allowed (Vehtari et al. 2021: 1.01)"))
+    ess_bulk_min: float = Field(default=400.0, ge=0, description=(
+        "quality gate: smallest bulk effective sample size (Vehtari et al. 2021: 400 over 4 chains)"))
+    divergences_max: int = Field(default=0, ge=0, description=(
+        "quality gate: divergent transitions allowed (common practice: none)"))
+
+    def gate(self) -> dict[str, float]:
+        """The quality-gate thresholds as the ``gate`` argument of ``inference.infer``."""
+        return {"r_hat_max": self.r_hat_max, "ess_bulk_min": self.ess_bulk_min,
+                "divergences_max": self.divergences_max}
+
+
+class ScheduleSection(BaseModel):
+    """``[schedule]``: optimise a venous-cuff protocol (uncertainty/analyses/schedule/; `fluidshift design STUDY
+    --schedule`). ``steps`` cuff steps of ``step_min`` minutes each, pressures from ``pressure_grid``,
+    ``measurements`` limb-volume readings on a grid of ``time_step_min``; criterion ``A`` (default) or
+    ``D`` over ``targets`` (Kf, Pvi). Kf, C_tis, L, Pv and r priors come from the study / its tissue;
+    venous compliance C_v and filling time constant tau_v are lognormal with the medians and gsds here."""
+
+    model_config = STRICT_CONFIG
+    steps: int = Field(default=5, ge=1, le=12, description="number of cumulative cuff steps")
+    step_min: float = Field(default=4.0, gt=0, le=60, description=(
+        "duration of each step, min (from memory: cumulative protocols hold each step about 4 min)"))
+    pressure_grid: list[float] = Field(
+        default_factory=lambda: [10.0, 20.0, 30.0, 40.0, 50.0, 60.0, 70.0, 80.0], min_length=1,
+        description="cuff pressures allowed for a step, mmHg (common practice: up to about 80 mmHg, below "
+                    "diastolic pressure, in 10 mmHg steps)")
+    increasing: bool = Field(default=True, description="each step at or above the previous (cumulative protocol)")
+    measurements: int = Field(default=10, ge=1, le=200, description="number K of limb-volume readings")
+    time_step_min: float = Field(default=0.5, gt=0, description="spacing of the candidate reading times, min")
+    noise_sd: float = Field(default=0.01, gt=0, description=(
+        "sd of one limb-volume reading, mL per 100 g of tissue (from memory: strain-gauge resolution about "
+        "0.01 mL/100 mL)"))
+    criterion: Literal["A", "D"] = Field(default="A", description=(
+        "A: sum of posterior/prior variance ratios of the targets; D: log det of their posterior block over "
+        "the prior block (both with the prior precision added to the Fisher information)"))
+    targets: list[Literal["Kf", "Pvi"]] = Field(default_factory=lambda: ["Kf", "Pvi"], min_length=1,
+                                                 description="quantities whose posterior sd is minimised")
+    linearisation_draws: int = Field(default=16, ge=1, le=512, description=(
+        "prior points (the median and further prior draws) the criterion is averaged over"))
+    transmission: float = Field(default=0.9, gt=0, le=1, description=(
+        "cuff-to-vein pressure transmission (Christ et al. 1997 J Physiol 503:463, abstract: 0.91)"))
+    C_v_median: float = Field(default=0.06, gt=0, description=(
+        "median venous compliance, mL/mmHg per 100 g (from memory: forearm venous volume rises about "
+        "2-3 mL/100 mL under 40 mmHg congestion)"))
+    C_v_gsd: float = Field(default=1.5, gt=1, description="geometric sd of the venous compliance (from memory)")
+    tau_v_median: float = Field(default=1.0, gt=0, description=(
+        "median venous filling time constant, min (from memory: veins fill within 1-2 min)"))
+    tau_v_gsd: float = Field(default=1.5, gt=1, description="geometric sd of tau_v (from memory)")
+
+    @field_validator("pressure_grid")
+    @classmethod
+    def _grid(cls, v: list[float]) -> list[float]:
+        if any(p < 0 or p > 200 for p in v):
+            raise ValueError("cuff pressures lie between 0 and 200 mmHg")
+        return v
+
+
+SECTIONS: dict[str, type[BaseModel]] = {
+    "propagate": PropagateSection,
+    "sensitivity": SensitivitySection,
+    "rank": RankSection,
+    "design": DesignSection,
+    "schedule": ScheduleSection,
+    "infer": InferSection,
+}
+
+
+TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", "observations", "infer",
+             "rank", "design", "schedule")
+
+
+#: Required CSV columns per observation kind; a time column is one of TIME_COLUMNS.
+CSV_COLUMNS: dict[str, tuple[str, ...]] = {
+    "volume_time_course": ("subject", "volume"),
+    "measurement": ("subject", "value"),
+    "lymph_flow": ("subject", "value"),
+    "clearance_rate": ("subject", "value"),
+    "swelling_rate": ("subject", "value"),
+    "protein_ratio": ("subject", "value"),
+    "GFR": ("subject", "value"),
+    "RPF": ("subject", "value"),
+    "filtration_fraction": ("subject", "value"),
+}
+
+
+TIME_COLUMNS = ("time_min", "time_h", "time_day")
+
+
+TEXT_COLUMNS = ("subject", "group", "arm", "note")
+
+
+#: Quantity whose canonical unit an observation's value takes.
+OBS_SYMBOL = {"lymph_flow": "JL", "swelling_rate": "swelling_rate", "protein_ratio": "ratio",
+              "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF"}
