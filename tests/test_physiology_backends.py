@@ -31,6 +31,8 @@ CASES = {
     "starling.forces": (starling.forces, dict(
         Pc=u(5, 45), Pi=u(-6, 4), pi_c=u(15, 30), pi_i=u(2, 15), sigma=u(0.5, 1))),
     "oncotic.pi_total_protein": (oncotic.pi_total_protein, dict(C=u(0, 10))),
+    "oncotic.pi_cubic": (lambda C: oncotic.pi_cubic(C, "albumin"), dict(C=u(0, 10))),
+    "oncotic.pi_cubic_slope": (lambda C: oncotic.pi_cubic_slope(C, "total"), dict(C=u(0, 10))),
     "oncotic.pi_albumin": (oncotic.pi_albumin, dict(C=u(0, 6))),
     "oncotic.pi_globulin": (oncotic.pi_globulin, dict(C=u(0, 5))),
     "oncotic.pi_albumin_globulin": (oncotic.pi_albumin_globulin, dict(C_alb=u(0, 6), C_glob=u(0, 5))),
@@ -56,6 +58,8 @@ CASES = {
         PS=u(1e-4, 0.01), Cp=u(4, 8), Ci=u(1, 5))),
     "solute.steady_state_ratio": (solute.steady_state_ratio, dict(
         Jv=np.r_[u(-0.02, 0.02)[:-2], 0.0, 1e-13], sigma=np.r_[u(0, 1)[:-1], 1.0], PS=u(1e-4, 0.01))),
+    "solute.ratio_and_slope": (lambda Jv, sigma, PS, xp=np: solute.ratio_and_slope(Jv, sigma, PS, xp)[1], dict(
+        Jv=u(-0.01, 0.05), sigma=u(0.5, 0.99), PS=u(0.001, 0.01))),
     "solute.steady_state_ratio_slope": (solute.steady_state_ratio_slope, dict(
         Jv=np.r_[u(-0.02, 0.02)[:-2], 0.0, 1e-13], sigma=np.r_[u(0, 1)[:-1], 1.0], PS=u(1e-4, 0.01))),
     "interstitium.lymph_flow": (interstitium.lymph_flow, dict(Pi=u(-6, 10), L=u(0.001, 0.05), Pi_L0=u(-6, 0))),

@@ -54,7 +54,7 @@ def test_van_t_hoff_underestimates_real_plasma():
 @pytest.mark.parametrize("kind", ["total", "albumin", "globulin"])
 def test_inverse_roundtrip(kind):
     C = np.array([0.0, 0.5, 2.0, 4.5, 7.0, 10.0])
-    pi = oncotic._cubic(C, kind)
+    pi = oncotic.pi_cubic(C, kind)
     np.testing.assert_allclose(oncotic.protein_from_pi(pi, kind), C, atol=1e-10)
 
 

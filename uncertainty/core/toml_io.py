@@ -7,7 +7,7 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
-from uncertainty.priors.declarations import study_error
+from uncertainty.core.errors import study_error
 
 
 def read_toml(path: Path, *, file_label: str | None = None) -> dict[str, Any]:

@@ -49,8 +49,8 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.physiology.oncotic import _cubic, _cubic_derivative
-from uncertainty.physiology.solute import _ratio_and_slope, steady_state_ratio
+from uncertainty.physiology.oncotic import pi_cubic, pi_cubic_slope
+from uncertainty.physiology.solute import ratio_and_slope, steady_state_ratio
 
 Array = Any
 
@@ -66,8 +66,8 @@ def oncotic_from_ratio(R: Array, pi_c: Array, Cp: Array | None) -> tuple[Array, 
     """
     if Cp is None:
         return pi_c * R, pi_c + 0.0 * R
-    scale = pi_c / _cubic(Cp, "total")
-    return scale * _cubic(R * Cp, "total"), scale * Cp * _cubic_derivative(R * Cp, "total")
+    scale = pi_c / pi_cubic(Cp, "total")
+    return scale * pi_cubic(R * Cp, "total"), scale * Cp * pi_cubic_slope(R * Cp, "total")
 
 
 def _stop_gradient(x: Array, xp: Any) -> Array:
@@ -82,7 +82,7 @@ def _stop_gradient(x: Array, xp: Any) -> Array:
 def _residual(x: Array, Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array,
               Pi_L0: Array, Cp: Array | None, xp: Any) -> tuple[Array, Array]:
     """F(Jv) of the module docstring and its derivative dF/dJv, in the same arithmetic."""
-    R, dR = _ratio_and_slope(x, sigma, PS, xp)
+    R, dR = ratio_and_slope(x, sigma, PS, xp)
     pi_o, dpi_dR = oncotic_from_ratio(R, pi_c, Cp)
     f = Kf * ((Pc - Pi_L0 - x / L) - sigma * (pi_c - pi_o)) - x
     d = -(1.0 + Kf / L) + Kf * sigma * dpi_dR * dR

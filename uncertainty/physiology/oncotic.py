@@ -39,29 +39,32 @@ PA_PER_MMHG = 133.322387415  # common practice (conventional mmHg definition)
 BODY_TEMPERATURE_K = 310.15  # 37 degC, common practice
 
 
-def _cubic(C: Array, kind: str) -> Array:
+def pi_cubic(C: Array, kind: str) -> Array:
+    """Colloid osmotic pressure (mmHg) of protein at ``C`` (g/dL) by the cubic of ``kind``
+    (``COEFFICIENTS``: total, albumin or globulin)."""
     a1, a2, a3 = COEFFICIENTS[kind]
     return C * (a1 + C * (a2 + C * a3))
 
 
-def _cubic_derivative(C: Array, kind: str) -> Array:
+def pi_cubic_slope(C: Array, kind: str) -> Array:
+    """d pi / dC (mmHg per g/dL) of :func:`pi_cubic` at ``C`` (g/dL)."""
     a1, a2, a3 = COEFFICIENTS[kind]
     return a1 + C * (2.0 * a2 + C * 3.0 * a3)
 
 
 def pi_total_protein(C: Array) -> Array:
     """Oncotic pressure (mmHg) of plasma from total protein C (g/dL): 2.1C + 0.16C^2 + 0.009C^3."""
-    return _cubic(C, "total")
+    return pi_cubic(C, "total")
 
 
 def pi_albumin(C: Array) -> Array:
     """Oncotic pressure (mmHg) of an albumin solution C (g/dL): 2.8C + 0.18C^2 + 0.012C^3."""
-    return _cubic(C, "albumin")
+    return pi_cubic(C, "albumin")
 
 
 def pi_globulin(C: Array) -> Array:
     """Oncotic pressure (mmHg) of a globulin solution C (g/dL): 1.6C + 0.15C^2 + 0.006C^3 (from memory)."""
-    return _cubic(C, "globulin")
+    return pi_cubic(C, "globulin")
 
 
 def pi_albumin_globulin(C_alb: Array, C_glob: Array) -> Array:
@@ -104,7 +107,7 @@ def protein_from_pi(pi: Array, kind: str = "total") -> np.ndarray | float:
             out[idx] = p / a1
             continue
         hi = 1.01 * p / a1  # the cubic lies above its linear term, so the root is <= p / a1
-        out[idx] = brentq(lambda c, p=p: _cubic(c, kind) - p, 0.0, hi, xtol=1e-14, rtol=1e-14)
+        out[idx] = brentq(lambda c, p=p: pi_cubic(c, kind) - p, 0.0, hi, xtol=1e-14, rtol=1e-14)
     if out.ndim == 0:
         return float(out)
     return out

@@ -55,8 +55,9 @@ def protein_flux(Jv: Array, sigma: Array, PS: Array, Cp: Array, Ci: Array, xp: A
     return PS * bern * conc
 
 
-def _ratio_and_slope(Jv: Array, sigma: Array, PS: Array, xp: Any = np) -> tuple[Array, Array]:
-    """Ci/Cp and d(Ci/Cp)/dJv together (shared work for the Newton steps of ``balance``)."""
+def ratio_and_slope(Jv: Array, sigma: Array, PS: Array, xp: Any = np) -> tuple[Array, Array]:
+    """Ci/Cp and d(Ci/Cp)/dJv (per mL/min per 100 g) together (shared work for the Newton steps of
+    ``balance``)."""
     R = steady_state_ratio(Jv, sigma, PS, xp)
     pe = xp.maximum(Jv, 0.0) * (1.0 - sigma) / PS
     # d/dJv [1 + sigma (Jv/PS) E(Pe)] = sigma e^-Pe / PS, so dR/dJv = -R^2 sigma e^-Pe / PS (Jv > 0).
@@ -87,4 +88,4 @@ def steady_state_ratio_slope(Jv: Array, sigma: Array, PS: Array, xp: Any = np) -
     Closed form: -R^2 sigma e^-Pe / PS, since d/dJv [1 + sigma (Jv/PS) E(Pe)] = sigma e^-Pe / PS.
     Used by the Newton steps of ``balance``.
     """
-    return _ratio_and_slope(Jv, sigma, PS, xp)[1]
+    return ratio_and_slope(Jv, sigma, PS, xp)[1]
