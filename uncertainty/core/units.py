@@ -65,7 +65,7 @@ def registry() -> Any:
     """The one pint registry (built on first use): mmHg, cmH2O, kPa, g/dL, mOsm and the rest."""
     import pint
 
-    ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    ureg: Any = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
     ureg.define("osmole = mole = Osm")
     ureg.define("mOsm = 1e-3 * osmole")
     return ureg

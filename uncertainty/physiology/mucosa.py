@@ -99,7 +99,8 @@ def absorbing_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: 
 
     def step(_i: Array, lo: Array, hi: Array, *p: Array) -> tuple[Array, Array]:
         mid = 0.5 * (lo + hi)
-        pos = _residual(mid, *p[:8], p[8] if len(p) > 8 else None, xp) > 0
+        kf, pc, s, ps, pic, lc, pl0, je = p[:8]
+        pos = _residual(mid, kf, pc, s, ps, pic, lc, pl0, je, p[8] if len(p) > 8 else None, xp) > 0
         return xp.where(pos, mid, lo), xp.where(pos, hi, mid)
 
     lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp, params=tuple(par))
