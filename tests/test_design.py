@@ -86,7 +86,7 @@ def test_assurance_simulated_against_closed_form_and_dropout() -> None:
     for row in res["curve"]:
         # assurance = E_prior[power] (O'Hagan et al. 2005), here by scipy.integrate.quad of exact t power
         def integrand(d: float, n: int = row["n_per_arm"]) -> float:
-            return float(tp.t_power(n, d, sd)) * stats.norm.pdf(d, -0.357, 0.15)
+            return float(tp.t_power(n, d, sd, direction=-1.0)) * stats.norm.pdf(d, -0.357, 0.15)
 
         quad = integrate.quad(integrand, -0.357 - 1.5, -0.357 + 1.5)[0]
         assert abs(row["assurance"] - quad) < 4 * max(row["assurance_mc_se"], 1e-3)

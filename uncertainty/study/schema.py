@@ -280,6 +280,7 @@ class DesignSection(BaseModel):
     exact_trials: int = Field(default=40, ge=2, le=10**5)
     target_half_width: float | None = Field(default=None, gt=0)
     half_width_probability: float = Field(default=0.8, gt=0, lt=1)
+    benefit: Literal["increase", "decrease"] | None = None
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 

@@ -92,6 +92,7 @@ class DesignSpec:
     file: str | None = None
     prior_frozen: Any = None
     scale_forced: str | None = None
+    benefit: str | None = None  # "increase" | "decrease"; None: the sign of the point effect
 
     @property
     def analysis(self) -> str:
@@ -109,8 +110,12 @@ class DesignSpec:
 
     @property
     def direction(self) -> float:
-        """+1 when the point effect raises the endpoint on the analysis scale, -1 when it lowers it."""
-        return -1.0 if self.effects[0].analysis_value() < 0 else 1.0
+        """The direction of benefit on the analysis scale: +1 when raising the endpoint is the desired
+        outcome, -1 when lowering it is; stated as ``benefit`` in the study, else the sign of the point
+        effect. Power, assurance and Bayesian success count only results in this direction."""
+        if self.benefit is not None:
+            return 1.0 if self.benefit == "increase" else -1.0
+        return tp.benefit_sign(self.effects[0].analysis_value())
 
     def design_prior_frozen(self) -> Any:
         """The design prior as a scipy frozen distribution (over the analysis-scale effect)."""
@@ -178,6 +183,9 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
     if spec.design not in ("parallel", "paired"):
         raise InputError("design must be parallel or paired", file=file, key="design.design", value=spec.design)
     spec.baseline = bool(doc.get("baseline", False))
+    spec.benefit = doc.get("benefit")
+    if spec.benefit not in (None, "increase", "decrease"):
+        raise InputError("benefit must be increase or decrease", file=file, key="design.benefit", value=spec.benefit)
     spec.alpha = _prob(doc, "alpha", file, 0.05)
     spec.target_power = _prob(doc, "target_power", file, 0.8)
     spec.target_assurance = _prob(doc, "target_assurance", file, None)
@@ -420,7 +428,9 @@ def analyse_fast(data: dict[str, np.ndarray], analysis: str) -> tuple[np.ndarray
 def _fast_success(est: np.ndarray, se: np.ndarray, df: np.ndarray, spec: DesignSpec) -> dict[str, np.ndarray]:
     tc = stats.t.ppf(1 - spec.alpha / 2, df)
     ok = np.isfinite(est) & np.isfinite(se) & (se > 0)
-    out = {"success": ok & (np.abs(est) > tc * np.where(ok, se, 1.0)), "half_width": np.where(ok, tc * se, np.inf)}
+    # a significant result counts only in the direction of benefit (a harmful one is never a success)
+    out = {"success": ok & (spec.direction * est > tc * np.where(ok, se, 1.0)),
+           "half_width": np.where(ok, tc * se, np.inf)}
     if spec.analysis_prior is not None:
         a0, s0 = spec.analysis_prior["mean"], spec.analysis_prior["sd"]
         with np.errstate(all="ignore"):
@@ -472,7 +482,8 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
     The data are standardised (centred, divided by the pooled sd) so that the vague priors
     (Normal(0, 10) on mean and effect, HalfNormal(5) on sigma) are vague for any unit; the
     analysis prior, when given, is carried to the same scale. Success: the posterior probability of
-    an effect in one direction exceeds 1 - alpha/2 (the Bayesian analogue of the two-sided test);
+    an effect in the direction of benefit exceeds 1 - alpha/2 (the Bayesian analogue of the two-sided
+    test counted in that direction);
     ``bayes``: the posterior probability of benefit exceeds 1 - alpha/2 under the analysis prior.
     """
     import nutpie
@@ -507,8 +518,8 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
                               progress_bar=False)
         d = np.asarray(trace.posterior["delta"]).ravel()
         p_pos = float(np.mean(d > 0))
-        success[i] = max(p_pos, 1 - p_pos) > 1 - spec.alpha / 2
         p_benefit = p_pos if spec.direction > 0 else 1 - p_pos
+        success[i] = p_benefit > 1 - spec.alpha / 2
         bayes[i] = p_benefit > 1 - spec.alpha / 2
     out = {"success": success}
     if spec.analysis_prior is not None:
@@ -702,11 +713,12 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
         notes.append("power_analytic is a normal approximation; the simulated power is the figure to use")
     lo, hi = spec.n_range
     prior = spec.design_prior_frozen()
-    n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi) if sd > 0 else lo
+    n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi,
+                                                spec.direction) if sd > 0 else lo
     n_ass = None
     if spec.target_assurance is not None and spec.endpoint_kind == "quantity":
         ns = np.arange(lo, hi + 1)
-        a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis)
+        a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis, direction=spec.direction)
         hit = np.nonzero(a >= spec.target_assurance)[0]
         n_ass = int(ns[hit[0]]) if hit.size else None
 
@@ -740,12 +752,14 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             if "bayes" in res:
                 row["bayesian_success"], row["bayesian_success_mc_se"] = _mean_se(res["bayes"])
     for n, row in by_n.items():
-        row["power_analytic"] = float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis)) if sd > 0 else None
+        row["power_analytic"] = (float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis, spec.direction))
+                                 if sd > 0 else None)
         if prior is not None:
             row.setdefault("assurance", None)
             row.setdefault("assurance_mc_se", None)
             if spec.endpoint_kind == "quantity":
-                row["assurance_analytic"] = float(tp.t_assurance(n, prior, sd, spec.alpha, spec.analysis))
+                row["assurance_analytic"] = float(tp.t_assurance(n, prior, sd, spec.alpha, spec.analysis,
+                                                                      direction=spec.direction))
         else:
             row["assurance"], row["assurance_mc_se"] = None, None
     curve = [by_n[n] for n in sizes]
@@ -767,6 +781,7 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
                      "paired": "paired t test"}[spec.analysis],
         "endpoint": spec.endpoint,
         "scale": spec.scale,
+        "benefit": "increase" if spec.direction > 0 else "decrease",
         "effect": [{"parameter": e.parameter, e.kind: e.value, "analysis_scale": e.analysis_value()}
                    for e in spec.effects],
         "alpha": spec.alpha,

@@ -6,13 +6,17 @@ ratio). ``design`` is one of
 - ``parallel``: two arms of ``n`` subjects each, two-sample t test, ``df = 2n - 2``,
   standard error ``sd * sqrt(2/n)``;
 - ``ancova``: as parallel, adjusted for a baseline measurement; ``sd`` is then the residual sd
-  ``sd * sqrt(1 - rho^2)`` and ``df = 2n - 3``;
+  ``sd * sqrt(1 - rho^2)`` and ``df = 2n - 3``; the standard error carries the variance of the
+  estimated baseline slope, a factor ``1 + 1/(2n - 4)`` on the variance (the mean of
+  dx^2 / Sxx with dx ~ N(0, 2 s_x^2/n) and Sxx ~ s_x^2 chi2_{2n-2}, E[1/chi2_k] = 1/(k - 2));
 - ``paired``: before/after in the same ``n`` subjects, one-sample t test on the differences,
   ``df = n - 1``, standard error ``sd_diff / sqrt(n)``.
 
-Power is that of the two-sided test at ``alpha`` (both tails counted), from the noncentral t
-distribution (exact for a normal endpoint). Assurance averages that same power over a design
-prior on the effect (O'Hagan, Stevens & Campbell 2005, Pharm Stat 4:187-201).
+Power is the probability of the desired outcome: the two-sided test at ``alpha`` rejects *in the
+direction of benefit* (``direction`` +1: the effect raises the endpoint, -1: lowers it). A
+significant result in the harmful direction is never a success. Exact from the noncentral t
+distribution for a normal endpoint. Assurance averages that same power over a design prior on the
+effect (O'Hagan, Stevens & Campbell 2005, Pharm Stat 4:187-201).
 """
 
 from __future__ import annotations
@@ -30,7 +34,7 @@ def _df_se(n: np.ndarray | int, sd: float, design: str) -> tuple[np.ndarray, np.
     if design == "parallel":
         return 2 * n - 2, sd * np.sqrt(2.0 / n)
     if design == "ancova":
-        return 2 * n - 3, sd * np.sqrt(2.0 / n)
+        return 2 * n - 3, sd * np.sqrt(2.0 / n * (1.0 + 1.0 / (2 * n - 4)))
     if design == "paired":
         return n - 1, sd / np.sqrt(n)
     raise ValueError(f"unknown design {design!r}")
@@ -47,53 +51,79 @@ def z_sample_size(delta: float, sd: float, alpha: float = 0.05, power: float = 0
     return int(math.ceil(k * z**2 * sd**2 / delta**2))
 
 
-def t_power(n: np.ndarray | int, delta: float, sd: float, alpha: float = 0.05,
-            design: str = "parallel") -> np.ndarray:
-    """Exact power of the two-sided t test (noncentral t), both rejection tails; dimensionless."""
+def benefit_sign(effect: float) -> float:
+    """Default direction of benefit: the sign of the expected effect (+1 for zero)."""
+    return -1.0 if effect < 0 else 1.0
+
+
+def t_power(n: np.ndarray | int, delta: np.ndarray | float, sd: float, alpha: float = 0.05,
+            design: str = "parallel", direction: float | None = None) -> np.ndarray:
+    """Exact probability that the two-sided t test rejects in the direction of benefit (noncentral t).
+
+    Parameters
+    ----------
+    n : subjects per arm (completing).
+    delta, sd : true effect and the endpoint's sd, in the analysis unit.
+    alpha : two-sided significance level.
+    design : ``parallel``, ``ancova`` or ``paired``.
+    direction : +1 or -1, the direction of benefit; None takes the sign of ``delta``.
+
+    Returns
+    -------
+    Power, dimensionless: P(direction * T > t_{1-alpha/2, df}).
+    """
     df, se = _df_se(n, sd, design)
-    ncp = delta / se
+    sign = benefit_sign(float(np.mean(delta))) if direction is None else float(direction)
+    ncp = sign * np.asarray(delta) / se
     tc = stats.t.ppf(1 - alpha / 2, df)
     with np.errstate(all="ignore"):
-        p = stats.nct.sf(tc, df, ncp) + stats.nct.cdf(-tc, df, ncp)
+        p = stats.nct.sf(tc, df, ncp)
     # far in the tails scipy's nct can return nan; the normal approximation is exact to print there
-    approx = stats.norm.sf(tc - ncp) + stats.norm.cdf(-tc - ncp)
+    approx = stats.norm.sf(tc - ncp)
     return np.where(np.isfinite(p), p, approx)
 
 
 def n_for_power(delta: float, sd: float, alpha: float, target: float, design: str,
-                n_min: int, n_max: int) -> int | None:
-    """Smallest n per arm in [n_min, n_max] whose exact power reaches ``target``; None if none does."""
+                n_min: int, n_max: int, direction: float | None = None) -> int | None:
+    """Smallest n per arm in [n_min, n_max] whose exact power (in the direction of benefit) reaches
+    ``target``; None if none does."""
     n = np.arange(int(n_min), int(n_max) + 1)
-    p = t_power(n, delta, sd, alpha, design)
+    p = t_power(n, delta, sd, alpha, design, direction)
     hit = np.nonzero(p >= target)[0]
     return int(n[hit[0]]) if hit.size else None
 
 
 def z_assurance(n: np.ndarray | int, prior_mean: float, prior_sd: float, sd: float,
-                alpha: float = 0.05, design: str = "parallel") -> np.ndarray:
+                alpha: float = 0.05, design: str = "parallel", direction: float | None = None) -> np.ndarray:
     """Assurance of the two-sided z test with known sd under a normal design prior (closed form).
 
-    The estimate D is marginally N(m, tau^2 + s^2) with tau the standard error, so
-    P(|D| > z tau) = Phi((m - z tau)/r) + Phi((-m - z tau)/r), r = sqrt(tau^2 + s^2)
-    (O'Hagan, Stevens & Campbell 2005, Pharm Stat 4:187, section 2 for the one-sided form).
+    The estimate D is marginally N(m, tau^2 + s^2) with tau the standard error; success is a
+    significant result in the direction of benefit d (default: the sign of m), so
+    P(d D > z tau) = Phi((d m - z tau)/r), r = sqrt(tau^2 + s^2)
+    (O'Hagan, Stevens & Campbell 2005, Pharm Stat 4:187, section 2).
     """
     _, tau = _df_se(n, sd, design)
     z = stats.norm.ppf(1 - alpha / 2)
     r = np.sqrt(tau**2 + prior_sd**2)
-    return stats.norm.cdf((prior_mean - z * tau) / r) + stats.norm.cdf((-prior_mean - z * tau) / r)
+    sign = benefit_sign(prior_mean) if direction is None else float(direction)
+    return stats.norm.cdf((sign * prior_mean - z * tau) / r)
 
 
 def t_assurance(n: np.ndarray | int, prior: stats.rv_continuous | None, sd: float,
-                alpha: float = 0.05, design: str = "parallel", nodes: int = 400) -> np.ndarray:
-    """Exact t power averaged over a design prior (scipy frozen distribution) by quadrature.
+                alpha: float = 0.05, design: str = "parallel", nodes: int = 400,
+                direction: float | None = None) -> np.ndarray:
+    """Exact t power in the direction of benefit averaged over a design prior (scipy frozen) by quadrature.
 
     Midpoint rule in probability: the prior's ppf at (k + 1/2)/nodes; exact enough for smooth
-    priors (a test compares it with scipy.integrate.quad).
+    priors (a test compares it with scipy.integrate.quad). ``direction`` defaults to the sign of the
+    prior's median; a draw of the effect in the harmful direction contributes only its (small)
+    chance of a significant result in the beneficial direction.
     """
     u = (np.arange(nodes) + 0.5) / nodes
     deltas = prior.ppf(u)
+    sign = benefit_sign(float(prior.median())) if direction is None else float(direction)
     n_arr = np.atleast_1d(np.asarray(n))
-    out = np.array([np.mean(t_power(int(k), deltas, sd, alpha, design)) for k in n_arr])
+    out = np.array([np.mean(t_power(int(k), deltas, sd, alpha, design, sign)) for k in n_arr])
     return out if np.ndim(n) else out[0]
 
 
