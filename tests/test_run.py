@@ -190,6 +190,27 @@ def test_removed_section_files_are_deleted(fakes, study, tmp_path):
     assert "design" not in bundle_mod.read_results(out)["sections"]
 
 
+@pytest.mark.parametrize("planted", ["../victim.txt", "ABSOLUTE", "figures/../../victim.txt"])
+def test_a_bundle_naming_files_outside_is_refused_and_nothing_is_deleted(fakes, study, tmp_path, planted):
+    out = tmp_path / "out"
+    victim = tmp_path / "victim.txt"
+    victim.write_text("not yours")
+    run_mod.run(study, out, progress=False)
+    doc = json.loads((out / "results.json").read_text())
+    name = str(victim) if planted == "ABSOLUTE" else planted
+    doc["sections"]["design"]["files"][0]["path"] = name  # as if tampered with, or written by someone else
+    (out / "results.json").write_text(json.dumps(doc))
+    study.write_text(run_fakes.STUDY_TEXT.split("[design]")[0])  # the design section's files become stale
+    with pytest.raises(InputError, match="outside the bundle"):
+        run_mod.run(study, out, progress=False)
+    assert victim.read_text() == "not yours"
+    run_mod.run(study, out, progress=False, force=True)  # --force starts afresh and deletes nothing outside
+    assert victim.read_text() == "not yours"
+    with pytest.raises(InputError, match="inside the bundle"):
+        bundle_mod.Bundle(out).remove(name)
+    assert victim.exists()
+
+
 def _start(study: Path, out: Path, slow: float) -> subprocess.Popen:
     env = {**os.environ, "FAKE_SLOW": str(slow), "PYTHONPATH": os.pathsep.join([str(HERE), str(ROOT)])}
     return subprocess.Popen([sys.executable, str(HERE / "run_fakes.py"), str(study), str(out)], env=env,

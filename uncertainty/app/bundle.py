@@ -20,10 +20,10 @@ import math
 import os
 import shutil
 import tempfile
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from uncertainty.core.errors import InputError
 
@@ -42,6 +42,12 @@ SectionName = Literal["check", "propagate", "sensitivity", "infer", "rank", "des
 # Schema
 # --------------------------------------------------------------------------------------------
 
+def is_bundle_path(rel: str) -> bool:
+    """True when ``rel`` names a file inside a bundle: relative, '/'-separated, no '..', no drive."""
+    p = PurePosixPath(rel)
+    return bool(rel) and not p.is_absolute() and ".." not in p.parts and "\\" not in rel and ":" not in rel
+
+
 class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
@@ -53,6 +59,13 @@ class FileRecord(_Strict):
     kind: Literal["figure", "table", "data", "report", "results"]
     sha256: str = Field(min_length=64, max_length=64)
     bytes: int = Field(ge=0)
+
+    @field_validator("path")
+    @classmethod
+    def _inside(cls, v: str) -> str:
+        if not is_bundle_path(v):
+            raise ValueError(f"a bundle file must lie inside the bundle folder: {v[:200]!r}")
+        return v
 
 
 class SectionRecord(_Strict):
@@ -247,7 +260,16 @@ class Bundle:
         shutil.rmtree(self.staging, ignore_errors=True)
 
     def path(self, rel: str) -> Path:
-        return self.root / rel
+        """The file ``rel`` of the bundle; InputError when it would lie outside the bundle folder
+        (a recorded path such as ``../x``, an absolute path, or a link leading out)."""
+        if not is_bundle_path(rel):
+            raise InputError("a bundle file must lie inside the bundle folder", file=str(self.root), value=rel[:200])
+        target = self.root / rel
+        root = self.root.resolve()
+        if not target.parent.resolve().is_relative_to(root):
+            raise InputError("a bundle file must lie inside the bundle folder (a link leads out)",
+                             file=str(self.root), value=rel[:200])
+        return target
 
     def stage_dir(self, name: str) -> Path:
         """A fresh empty folder inside the staging area, e.g. for an analysis's plot(out_dir)."""
@@ -258,7 +280,7 @@ class Bundle:
         """Move a complete staged file into the bundle at ``rel`` (atomic); its record."""
         staged = Path(staged)
         _fsync(staged)
-        target = self.root / rel
+        target = self.path(rel)
         target.parent.mkdir(parents=True, exist_ok=True)
         os.replace(staged, target)
         _fsync_dir(target.parent)
@@ -286,19 +308,37 @@ class Bundle:
         self.write_text(RESULTS, dump(doc), "results")
 
     def read_results(self) -> dict[str, Any] | None:
-        """The previous run's results.json, validated; None when absent or not valid."""
-        return read_results(self.root, missing_ok=True)
+        """The previous run's results.json, validated; None when absent or not valid.
+
+        Raises
+        ------
+        InputError
+            When the previous results.json names a file outside the bundle folder: such a bundle is
+            refused (nothing is read, reused or deleted) rather than quietly treated as absent.
+        """
+        doc = read_results(self.root, missing_ok=True)
+        if doc is None and (self.root / RESULTS).is_file():
+            with contextlib.suppress(OSError, ValueError, UnicodeDecodeError):
+                raw = json.loads((self.root / RESULTS).read_text(encoding="utf-8"))
+                named = [f.get("path") for s in (raw.get("sections") or {}).values() if isinstance(s, dict)
+                         for f in (s.get("files") or []) if isinstance(f, dict)]
+                named += [f.get("path") for f in (raw.get("files") or []) if isinstance(f, dict)]
+                outside = [p for p in named if isinstance(p, str) and not is_bundle_path(p)]
+                if outside:
+                    raise InputError("results.json names files outside the bundle folder; remove the folder "
+                                     "or run with --force", file=str(self.root / RESULTS), value=outside[0][:200])
+        return doc
 
     def intact(self, record: FileRecord | dict[str, Any]) -> bool:
         """True when the recorded file exists with the recorded SHA-256."""
         rec = record if isinstance(record, FileRecord) else FileRecord.model_validate(record)
-        p = self.root / rec.path
+        p = self.path(rec.path)
         return p.is_file() and p.stat().st_size == rec.bytes and sha256_file(p) == rec.sha256
 
     def remove(self, rel: str) -> None:
         """Delete a bundle file if present (e.g. a figure of a section no longer in the study)."""
         with contextlib.suppress(FileNotFoundError):
-            (self.root / rel).unlink()
+            self.path(rel).unlink()
 
 
 def read_results(out_dir: str | os.PathLike, *, missing_ok: bool = False) -> dict[str, Any] | None:
