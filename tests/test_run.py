@@ -4,6 +4,7 @@ reuse of unchanged sections, --force, quality gate, crashes, interruption by SIG
 from __future__ import annotations
 
 import importlib
+import io
 import json
 import os
 import signal
@@ -278,3 +279,13 @@ def test_a_code_change_changes_every_section_key(monkeypatch) -> None:
     assert run_mod.section_key(s, "propagate", 1) == before
     monkeypatch.setattr(run_mod, "code_hash", lambda: "0" * 64)
     assert run_mod.section_key(s, "propagate", 1) != before
+
+
+def test_tables_neutralise_spreadsheet_formulas():
+    # OWASP "CSV injection" (common practice): text starting with = + - @ is written with a leading apostrophe
+    df = pd.DataFrame({"name": ["=cmd|' /C calc'!A0", "+1", "@SUM(A1)", "-2+3", "plain"],
+                       "value": [1.0, -2.0, 3, 4, 5]})
+    text = bundle_mod.table_csv(df)
+    back = pd.read_csv(io.StringIO(text))
+    assert list(back["name"]) == ["'=cmd|' /C calc'!A0", "'+1", "'@SUM(A1)", "'-2+3", "plain"]
+    assert list(back["value"]) == [1.0, -2.0, 3, 4, 5]  # numbers, negative ones included, are untouched

@@ -191,6 +191,27 @@ def jsonable(obj: Any) -> Any:
     return str(obj)
 
 
+#: First characters that make a spreadsheet program read a cell as a formula (OWASP "CSV injection"; common
+#: practice): such text cells are written with a leading apostrophe, which the programs show as text.
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(cell: Any) -> Any:
+    """A text cell that a spreadsheet would read as a formula, prefixed with an apostrophe; others as is."""
+    if isinstance(cell, str) and cell.startswith(FORMULA_STARTS):
+        return "'" + cell
+    return cell
+
+
+def table_csv(df: Any, index: bool = False) -> str:
+    """CSV text of a pandas DataFrame with every text cell, column and index name spreadsheet-safe."""
+    safe = df.map(spreadsheet_safe)
+    safe.columns = [spreadsheet_safe(c) for c in safe.columns]
+    if index:
+        safe.index = safe.index.map(spreadsheet_safe)
+    return safe.to_csv(index=index)
+
+
 def sha256_file(path: str | os.PathLike) -> str:
     """SHA-256 (hex) of a file's bytes."""
     h = hashlib.sha256()

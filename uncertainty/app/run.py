@@ -34,6 +34,7 @@ from uncertainty.app.bundle import (
     code_hash,
     jsonable,
     package_version,
+    table_csv,
     versions,
 )
 from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError
@@ -338,7 +339,7 @@ def _save_outputs(name: str, result: Any, bundle: Bundle) -> tuple[list[FileReco
                     continue
                 rel = f"tables/{name}{'-' + str(sub) if sub else ''}.csv"
                 named_index = any(n is not None for n in getattr(df.index, "names", [None]))
-                files.append(bundle.write_text(rel, df.to_csv(index=named_index), "table"))
+                files.append(bundle.write_text(rel, table_csv(df, index=named_index), "table"))
         except Exception as exc:  # noqa: BLE001 - a table that fails is reported, the rest is kept
             warnings.append(f"table not written: {type(exc).__name__}: {exc}")
     else:
