@@ -289,3 +289,51 @@ def test_tables_neutralise_spreadsheet_formulas():
     back = pd.read_csv(io.StringIO(text))
     assert list(back["name"]) == ["'=cmd|' /C calc'!A0", "'+1", "'@SUM(A1)", "'-2+3", "plain"]
     assert list(back["value"]) == [1.0, -2.0, 3, 4, 5]  # numbers, negative ones included, are untouched
+
+
+def test_a_foreign_folder_is_refused_unless_forced(fakes, study, tmp_path):
+    out = tmp_path / "mine"
+    (out / ".partial").mkdir(parents=True)
+    (out / ".partial" / "notes.txt").write_text("a user's own file")
+    (out / "thesis.docx").write_text("a user's own file")
+    with pytest.raises(InputError, match="not a fluidshift bundle"):
+        run_mod.run(study, out, progress=False)
+    assert (out / ".partial" / "notes.txt").exists() and not (out / "results.json").exists()
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    run_mod.run(study, empty, progress=False)  # an empty folder is fine, and so is a bundle run again
+    run_mod.run(study, empty, progress=False)
+    run_mod.run(study, out, progress=False, force=True)
+    assert (out / "thesis.docx").exists() and (out / "results.json").exists()
+
+
+def test_a_second_run_into_a_locked_folder_is_refused(fakes, study, tmp_path):
+    out = tmp_path / "out"
+    holder = bundle_mod.Bundle(out).open()  # as if another run were writing the folder
+    try:
+        with pytest.raises(InputError, match="another fluidshift run"):
+            run_mod.run(study, out, progress=False)
+    finally:
+        holder.close()
+    run_mod.run(study, out, progress=False)  # released: the next run goes ahead
+    assert bundle_mod.read_results(out)["complete"] is True
+
+
+def test_a_full_disk_is_a_clean_refusal_and_the_checkpoint_stays_valid(fakes, study, tmp_path, monkeypatch):
+    out = tmp_path / "out"
+    real_replace, calls = os.replace, {"n": 0}
+
+    def full_disk(src, dst):
+        calls["n"] += 1
+        if calls["n"] > 3:  # the first few files land, then the disk is full
+            raise OSError(28, "No space left on device")
+        return real_replace(src, dst)
+
+    monkeypatch.setattr(bundle_mod.os, "replace", full_disk)
+    with pytest.raises(InputError, match="No space left"):
+        run_mod.run(study, out, progress=False)
+    monkeypatch.setattr(bundle_mod.os, "replace", real_replace)
+    doc = bundle_mod.read_results(out, missing_ok=True)
+    assert doc is None or doc["complete"] is False  # whatever landed is a valid, flagged checkpoint
+    run_mod.run(study, out, progress=False)  # and the next run completes
+    assert bundle_mod.read_results(out)["complete"] is True

@@ -13,6 +13,7 @@ is read back; ``results_schema()`` gives the JSON Schema (documented in docs/res
 from __future__ import annotations
 
 import contextlib
+import fcntl
 import functools
 import hashlib
 import json
@@ -31,6 +32,10 @@ SCHEMA = "fluidshift-results/1"
 RESULTS = "results.json"
 REPORT = "report.html"
 STAGING = ".partial"
+LOCK = ".lock"
+#: What a bundle folder may hold besides results.json; a folder with anything else and no results.json is
+#: someone else's and is refused unless --force.
+BUNDLE_ENTRIES = frozenset({RESULTS, REPORT, "tables", "figures", "posterior.nc", STAGING, LOCK})
 #: dependencies whose versions go into the provenance (looked up by distribution metadata only).
 DEPENDENCIES = ("numpy", "scipy", "SALib", "pymc", "pytensor", "arviz", "nutpie", "pint", "pydantic",
                 "click", "rich", "matplotlib", "pandas", "xarray", "netCDF4", "h5netcdf", "dask")
@@ -268,17 +273,51 @@ class Bundle:
         if self.root.exists() and not self.root.is_dir():
             raise InputError("the output path exists and is not a folder", key="--out", value=str(out_dir))
         self.staging = self.root / STAGING
+        self._lock: int | None = None
 
-    def open(self) -> Bundle:
-        """Create the folder and a fresh staging area (removing leftovers of an interrupted run)."""
-        self.root.mkdir(parents=True, exist_ok=True)
+    def open(self, force: bool = False) -> Bundle:
+        """Create the folder, lock it for this run and make a fresh staging area (removing leftovers of an
+        interrupted run).
+
+        Raises
+        ------
+        InputError
+            When the folder holds files and is not a bundle (unless ``force``), when another run holds
+            its lock, or when it cannot be written (read-only, full disk).
+        """
+        if not force and self.root.is_dir() and not (self.root / RESULTS).exists():
+            foreign = sorted(p.name for p in self.root.iterdir() if p.name not in BUNDLE_ENTRIES)
+            if foreign:
+                raise InputError("the output folder holds files that are not a fluidshift bundle; choose a new "
+                                 "or empty folder, or use --force", key="--out", value=str(self.root))
+        try:
+            self.root.mkdir(parents=True, exist_ok=True)
+            self._lock = os.open(self.root / LOCK, os.O_RDWR | os.O_CREAT, 0o666 & ~_umask())
+        except OSError as exc:
+            raise InputError(f"cannot write to the output folder ({exc.strerror})", key="--out",
+                             value=str(self.root)) from None
+        try:
+            fcntl.flock(self._lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            os.close(self._lock)
+            self._lock = None
+            raise InputError("another fluidshift run is writing this output folder; wait for it or choose "
+                             "another folder", key="--out", value=str(self.root)) from None
         shutil.rmtree(self.staging, ignore_errors=True)
-        self.staging.mkdir()
+        try:
+            self.staging.mkdir()
+        except OSError as exc:
+            self.close()
+            raise InputError(f"cannot write to the output folder ({exc.strerror})", key="--out",
+                             value=str(self.root)) from None
         return self
 
     def close(self) -> None:
-        """Remove the staging area (temporary files of this run)."""
+        """Remove the staging area (temporary files of this run) and release the folder's lock."""
         shutil.rmtree(self.staging, ignore_errors=True)
+        if getattr(self, "_lock", None) is not None:
+            os.close(self._lock)  # closing the descriptor releases the flock
+            self._lock = None
 
     def path(self, rel: str) -> Path:
         """The file ``rel`` of the bundle; InputError when it would lie outside the bundle folder

@@ -490,7 +490,7 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
     started = _now()
     study = LOADER(study_path)
     seed = getattr(study, "seed", None) if seed is None else seed
-    bundle = Bundle(out_dir).open()
+    bundle = Bundle(out_dir).open(force=force)
     try:
         prev = None if force else bundle.read_results()
         doc: dict[str, Any] = {
@@ -521,6 +521,9 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
         doc["files"] = [report.model_dump()]
         doc["complete"] = True
         bundle.write_results(doc)
+    except OSError as exc:  # a full disk or a folder made read-only mid-run: the last checkpoint stays valid
+        raise InputError(f"cannot write the bundle ({exc.strerror or exc}); the last complete checkpoint is kept",
+                         key="--out", value=str(out_dir)) from None
     finally:
         bundle.close()
     result = RunResult(doc=doc, out_dir=Path(out_dir))
