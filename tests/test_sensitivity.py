@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import itertools
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -17,12 +18,14 @@ from uncertainty.analyses.sensitivity import (
     first_order_given_data,
     morris_core,
     morris_levels_inside,
+    morris_trajectories,
     problem_from_functions,
     sensitivity,
     shapley_core,
     sobol_core,
 )
 from uncertainty.core.errors import InputError
+from uncertainty.study import Study
 
 
 def product_indices():
@@ -226,6 +229,33 @@ def test_morris_levels_inside_and_linear_effects():
     assert all(row["indices"]["a"]["mu_star"] == pytest.approx(3.0, rel=1e-6) for row in r.convergence)
 
 
+def test_morris_moves_a_players_columns_together():
+    # a quantity with a typical and a between-subject column (player "a"): y = u0 + u1 + 0.5 u2 on the cube,
+    # so moving a's two columns together by the same signed step gives the elementary effect 2 exactly
+    # (closed form); SALib's grouped sampler moved them in opposite directions a quarter of the time,
+    # which left sigma undefined and mu below mu* for a monotone input.
+    prob = Problem(players=["a", "b"], groups=[0, 0, 1], corr=np.eye(3),
+                   model=lambda z: stats.norm.cdf(z) @ np.array([1.0, 1.0, 0.5]))
+    r = morris_core(prob, 40, seed=2)
+    assert r.indices["a"]["mu"] == pytest.approx(2.0, rel=1e-6)
+    assert r.indices["a"]["mu_star"] == pytest.approx(2.0, rel=1e-6)
+    assert r.indices["a"]["sigma"] == pytest.approx(0.0, abs=1e-6)
+    assert r.indices["b"]["mu"] == pytest.approx(0.5, rel=1e-6)
+    X = morris_trajectories(prob, 400, 4, seed=5)
+    steps = np.diff(X.reshape(400, 3, 3), axis=1)
+    assert np.all(np.sign(steps[:, :, 0]) == np.sign(steps[:, :, 1]))  # the two columns move together
+    levels, counts = np.unique(np.round(X[:, 1] * 3), return_counts=True)
+    assert list(levels) == [0, 1, 2, 3] and counts.min() > 0.15 * counts.sum()  # every level used, near 1/4 each
+
+
+def test_morris_on_a_prior_set_reports_sigma_for_every_input():
+    # the myocardium set has no correlations and seven quantities with a between-subject spread
+    s = Study.from_dict({"study": {"tissue": "myocardium", "model": "classic"}})
+    r = sensitivity(s, method="morris", samples=16, output="Jv", layer="individual")
+    assert all(v["sigma"] is not None and np.isfinite(v["sigma"]) for v in r.indices.values())
+    assert all(v["mu_star"] >= abs(v["mu"]) - 1e-12 for v in r.indices.values())
+
+
 def test_given_data_index_matches_closed_forms():
     rng = np.random.default_rng(1)
     x = rng.uniform(-math.pi, math.pi, (20000, 3))
@@ -330,7 +360,6 @@ def test_sensitivity_json_from_a_study_and_other_outputs():
 
 def test_command_refuses_sobol_on_correlated_study_and_runs_shapley():
     import json
-    from pathlib import Path
 
     from click.testing import CliRunner
 

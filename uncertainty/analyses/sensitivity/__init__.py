@@ -410,6 +410,53 @@ def morris_levels_inside(u: np.ndarray, levels: int) -> np.ndarray:
     return (np.round(u * (levels - 1)) + 0.5) / levels
 
 
+def morris_trajectories(problem: Problem, trajectories: int, levels: int, seed: int) -> np.ndarray:
+    """Morris trajectories over the players on the cube's p-level grid, one row per run.
+
+    SALib's one-at-a-time trajectories over the players (Morris 1991, as SALib samples them); a player
+    with several columns (a quantity's typical value and its between-subject score, both raising the
+    individual's value) moves all of them together *in the same direction*, so that its signed
+    elementary effect, mu and sigma are defined. Its other columns start from levels drawn in the same
+    half of the grid as the first (each column's marginal stays uniform over the levels).
+    """
+    from SALib.sample import morris as morris_sample
+
+    G = len(problem.players)
+    spec = {"num_vars": G, "names": list(problem.players), "bounds": [[0.0, 1.0]] * G}
+    Xp = morris_sample.sample(spec, trajectories, num_levels=levels, seed=seed)
+    first = {g: problem.groups.index(g) for g in range(G)}
+    if len(problem.groups) == G:
+        return Xp[:, problem.groups]
+    rng = np.random.default_rng(seed)
+    Xp3 = Xp.reshape(trajectories, G + 1, G)
+    X = np.empty((trajectories, G + 1, problem.k))
+    half = levels // 2
+    for c, g in enumerate(problem.groups):
+        moves = Xp3[:, :, g] - Xp3[:, :1, g]  # each trajectory's one move of player g (0 before it)
+        if c == first[g]:
+            X[:, :, c] = Xp3[:, :, g]
+            continue
+        lower = np.round(Xp3[:, 0, g] * (levels - 1)) < half  # the first column starts in the lower half
+        start = rng.integers(0, half, trajectories) + np.where(lower, 0, half)
+        X[:, :, c] = start[:, None] / (levels - 1) + moves
+    return X.reshape(-1, problem.k)
+
+
+def _elementary_effects(problem: Problem, X: np.ndarray, Y: np.ndarray, steps: int) -> np.ndarray:
+    """Signed elementary effects (trajectories, players): the output change over the player's signed step,
+    in output units per unit of the cube."""
+    T = X.shape[0] // steps
+    X3, Y2 = X.reshape(T, steps, -1), Y.reshape(T, steps)
+    first = [problem.groups.index(g) for g in range(len(problem.players))]
+    dX = np.diff(X3[:, :, first], axis=1)  # (T, steps - 1, players): one non-zero per step
+    dY = np.diff(Y2, axis=1)
+    moved = np.argmax(np.abs(dX), axis=2)
+    ee = np.empty((T, len(first)))
+    rows = np.arange(T)[:, None]
+    ee[rows, moved] = dY / dX[rows, np.arange(steps - 1)[None, :], moved]
+    return ee
+
+
 def _halvings(n: int, smallest: int = 4, most: int = 6) -> list[int]:
     """Doubling sizes ending at ``n`` (n, n/2, n/4, ... down to ``smallest``, at most ``most``), ascending:
     the prefixes a convergence table re-analyses."""
@@ -430,7 +477,6 @@ def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
     first T/2^k trajectories (at least 4). Refuses correlated inputs (InputError).
     """
     from SALib.analyze import morris as morris_analyze
-    from SALib.sample import morris as morris_sample
 
     _refuse_correlated(problem, "Morris")
     if isinstance(trajectories, bool) or not isinstance(trajectories, int | np.integer) or trajectories < 2:
@@ -443,32 +489,33 @@ def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
     if len(problem.players) != problem.k:
         salib["groups"] = [problem.players[g] for g in problem.groups]
     rng_seed = int(np.random.SeedSequence(seed).generate_state(1)[0])
-    X = morris_sample.sample(salib, int(trajectories), num_levels=levels, seed=rng_seed)
+    X = morris_trajectories(problem, int(trajectories), levels, rng_seed)
     Y = problem.evaluate_cube(morris_levels_inside(X, levels))
     bad = ~np.isfinite(Y)
     if bad.any():
         raise InputError(f"{int(bad.sum())} Morris runs gave a non-finite {problem.output}; Morris "
                          "trajectories cannot drop runs", key="sensitivity.output", value=problem.output)
     scale = levels / (levels - 1)
-    per_traj = X.shape[0] // int(trajectories)  # runs per trajectory: groups + 1
+    steps = len(problem.players) + 1  # runs per trajectory
+    effects = _elementary_effects(problem, X, Y, steps)  # (trajectories, players), per unit of the cube
 
     def analyse(t: int) -> dict[str, dict[str, Any]]:
-        """mu*, its bootstrap interval, sigma and mu from the first t trajectories."""
-        Si = morris_analyze.analyze(salib, X[: t * per_traj], Y[: t * per_traj], num_levels=levels,
-                                    seed=rng_seed)
+        """mu*, its bootstrap interval (SALib), sigma and mu from the first t trajectories."""
+        Si = morris_analyze.analyze(salib, X[: t * steps], Y[: t * steps], num_levels=levels, seed=rng_seed)
         names = list(Si["names"])
+        ee = effects[:t] * scale
         out = {}
-        for p in problem.players:
-            j = names.index(p) if p in names else problem.players.index(p)
-            ms, conf = float(Si["mu_star"][j]) * scale, float(Si["mu_star_conf"][j]) * scale
+        for j, p in enumerate(problem.players):
+            ms = float(np.mean(np.abs(ee[:, j])))
+            conf = float(Si["mu_star_conf"][names.index(p) if p in names else j]) * scale
             out[p] = {"mu_star": ms, "mu_star_ci": [ms - conf, ms + conf],
-                      "sigma": float(Si["sigma"][j]) * scale, "mu": float(Si["mu"][j]) * scale}
+                      "sigma": float(np.std(ee[:, j], ddof=1)) if t > 1 else None, "mu": float(np.mean(ee[:, j]))}
         return out
 
     indices = analyse(int(trajectories))
     # convergence: the first T/2^k trajectories (doubling sizes, at least 4 trajectories each)
     sizes = _halvings(int(trajectories))
-    conv = [{"samples": t, "evaluations": t * per_traj, "indices": analyse(t)} for t in sizes] \
+    conv = [{"samples": t, "evaluations": t * steps, "indices": analyse(t)} for t in sizes] \
         if len(sizes) > 1 else []
     return SensitivityResult(method="morris", output=problem.output, unit=problem.unit,
                              players=list(problem.players), indices=indices,
