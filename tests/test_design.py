@@ -172,12 +172,24 @@ def test_model_endpoint_jv_matches_the_noncentral_t(tmp_path, endpoint: str) -> 
     ({"design": "paired"}, "design.within_subject"),
     ({"endpoint": "nonsense"}, "design.endpoint"),
     ({"effect": {"parameter": "Kf", "multiply": -1}}, "design.effect.multiply"),
+    ({"trials": 2}, "design.simulations"),
+    ({"benefit": "sideways"}, "design.benefit"),
 ])
 def test_bad_design_input_names_file_key_value(patch: dict, key: str) -> None:
     with pytest.raises(InputError) as err:
         dz.parse_design(_study(dict(BASE, **patch)))
     assert err.value.key == key
     assert err.value.file == "trial.toml"
+
+
+def test_power_error_stays_positive_when_every_trial_succeeds() -> None:
+    # a huge effect: every simulated trial succeeds; the error is the sd of the Jeffreys posterior
+    # Beta(k + 1/2, n - k + 1/2) (Brown, Cai & DasGupta 2001), checked with scipy.stats.beta
+    res = dz.design(_study(dict(BASE, effect={"parameter": "Kf", "multiply": 0.2}, trials=200,
+                                n_range=[40, 40], n_points=2))).to_dict()
+    row = res["curve"][0]
+    assert row["power"] == 1.0
+    assert row["power_mc_se"] == pytest.approx(stats.beta(200.5, 0.5).std(), rel=1e-9)
 
 
 def test_same_numbers_for_same_seed_and_any_executor(tmp_path) -> None:

@@ -271,7 +271,7 @@ class DesignSection(BaseModel):
     n_range: list[int] = Field(default_factory=lambda: [10, 200], min_length=2, max_length=2)
     design_prior: dict[str, Any] | None = None
     analysis_prior: dict[str, Any] | None = None
-    simulations: int = Field(default=2000, gt=0, le=10**7)
+    simulations: int = Field(default=2000, ge=100, le=10**7)
     # trial-design extensions (uncertainty/analyses/design/): ANCOVA on a baseline, further effects of the same
     # treatment (fixed; the design prior is over `effect`), curve points, exact-path trials, half-width
     baseline: bool = False

@@ -64,6 +64,13 @@ class Effect:
         return x * np.exp(d) if self.kind == "multiply" else x + d
 
 
+#: Fewest simulated trials per design point, exact (MCMC) trials, and most of either.
+MIN_TRIALS = 100
+MIN_TRIALS_REASON = "fewer leave a Monte Carlo error of power near 0.05 or more: sqrt(0.5 * 0.5 / 100)"
+MIN_EXACT_TRIALS = 20
+MAX_TRIALS = 10**7
+
+
 @dataclass
 class DesignSpec:
     """A validated ``[design]`` section (see the module docstring for the meaning of each field)."""
@@ -200,11 +207,13 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
     spec.n_range = (int(nr[0]), int(nr[1]))
     if "simulations" in doc and "trials" not in doc:
         doc["trials"] = doc["simulations"]
-    for key in ("n_points", "trials", "exact_trials"):
+    for key, least in (("n_points", 2), ("trials", MIN_TRIALS), ("exact_trials", MIN_EXACT_TRIALS)):
         if key in doc:
             v = doc[key]
-            if not isinstance(v, int) or v < 2:
-                raise InputError("must be an integer >= 2", file=file, key=f"design.{key}", value=v)
+            if isinstance(v, bool) or not isinstance(v, int) or not least <= v <= MAX_TRIALS:
+                why = f" ({MIN_TRIALS_REASON})" if key == "trials" else ""
+                raise InputError(f"must be an integer from {least} to {MAX_TRIALS}{why}", file=file,
+                                 key=f"design.{'simulations' if key == 'trials' else key}", value=v)
             setattr(spec, key, int(v))
 
     # endpoint
@@ -540,8 +549,16 @@ class _Point:
 
 
 def _mean_se(x: np.ndarray) -> tuple[float, float]:
-    x = np.asarray(x, dtype=float)
-    return float(x.mean()), float(x.std(ddof=1) / math.sqrt(len(x))) if len(x) > 1 else float("nan")
+    """Mean and Monte Carlo standard error of per-trial values; for successes (booleans) the proportion and
+    the sd of its Jeffreys posterior Beta(k + 1/2, n - k + 1/2), which stays above zero when every trial
+    (or none) succeeds (Brown, Cai & DasGupta 2001, Stat Sci 16:101, the Jeffreys interval)."""
+    x = np.asarray(x)
+    n = len(x)
+    if x.dtype == bool:
+        a, b = x.sum() + 0.5, n - x.sum() + 0.5
+        return float(x.mean()), float(math.sqrt(a * b / ((a + b) ** 2 * (a + b + 1))))
+    x = x.astype(float)
+    return float(x.mean()), float(x.std(ddof=1) / math.sqrt(n)) if n > 1 else float("nan")
 
 
 def _run_point(study: Any, spec: DesignSpec, point: _Point, ss: np.random.SeedSequence) -> dict[str, Any]:

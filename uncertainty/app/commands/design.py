@@ -62,11 +62,12 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     if cuff_schedule:
         _schedule(load_study(study), seed, as_json, out, quiet)
         return
-    from uncertainty.analyses.design import design
+    from uncertainty.analyses.design import MAX_TRIALS, MIN_TRIALS, MIN_TRIALS_REASON, design
     from uncertainty.core.parallel import make_executor
 
-    if trials is not None and trials < 2:
-        raise InputError("need at least 2 simulated trials", key="--trials", value=trials)
+    if trials is not None and not MIN_TRIALS <= trials <= MAX_TRIALS:
+        raise InputError(f"simulated trials per point must lie between {MIN_TRIALS} and {MAX_TRIALS} "
+                         f"({MIN_TRIALS_REASON})", key="--trials", value=trials)
     s = load_study(study)
     with make_executor(workers, scheduler, checkpoint_dir=checkpoint, progress=not (quiet or as_json)) as ex:
         result = design(s, seed=seed, exact=exact, executor=ex, trials=trials)
