@@ -252,7 +252,7 @@ def identifiability(built: BuiltModel, post: dict[str, np.ndarray], prior: dict[
 
 
 def posterior_output_notes(problem: Problem, post: dict[str, np.ndarray]) -> list[str]:
-    """Notes the model form calls for on posterior draws (``model.output_notes``; e.g. the glomerular
+    """Notes the model form calls for on posterior draws (the catalogue's ``output_notes``; e.g. the glomerular
     "Kf is only bounded below" note). ``post`` holds one array of draws per quantity of ``problem.priors``
     at the reported level (canonical units); fixed quantities come from ``problem.fixed``."""
     if not note_outputs(problem.model_form) or any(name not in post for name in problem.priors):
