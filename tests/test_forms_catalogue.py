@@ -47,7 +47,10 @@ def _medians(study: Study) -> dict[str, float]:
 @pytest.mark.parametrize("mass", [None, "1 kg"])  # "1 kg": an invented round organ mass
 def test_declared_outputs_are_what_evaluate_returns(model, tissue, mass):
     if mass is None and catalogue.tissue_mass_reason(model) is not None:
-        pytest.skip("the form needs a tissue mass")
+        with pytest.raises(StudyError) as exc:  # the form needs a tissue mass: the study is refused
+            _study(model, tissue, mass)
+        assert exc.value.key == "study.tissue_mass"
+        return
     s = _study(model, tissue, mass)
     out = evaluate(s, _medians(s))
     assert list(out) == study_outputs(s) == s.outputs()
