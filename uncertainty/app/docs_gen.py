@@ -16,6 +16,8 @@ import typing
 from pathlib import Path
 from typing import Any
 
+from uncertainty.forms.catalogue import FORMS
+
 #: (section heading, TOML form, model name in uncertainty.study, introduction)
 SECTIONS: list[tuple[str, str, str, str]] = [
     ("study", "[study]", "StudySection",
@@ -55,9 +57,7 @@ MEANINGS: dict[str, str] = {
     "study.tissue": "the prior set to start from: a file name in priors/ (skeletal_muscle, skin_subcutis, lung, "
                     "myocardium, intestinal_mucosa, brain, glomerulus)",
     "study.conditions": "condition modifiers from priors/conditions.toml, applied in order",
-    "study.model": "model form: classic (Jv from the six Starling quantities), steady_state (Pi and pi_i solved "
-                   "from the lymph and protein balance), revised (glycocalyx filter, pi_g solved), glomerular "
-                   "(filtration along the glomerular capillary from Cp and RPF; needs tissue_mass)",
+    "study.model": "model form: " + ", ".join(f"{name} ({spec.summary})" for name, spec in FORMS.items()),
     "study.posture_height": "height of the tissue below the heart for the posture condition (default 30 cm, "
                             "from priors/conditions.toml); a number in cm or a string with a unit (\"40 cm\"); "
                             "Pa and Pv rise by 0.7725 mmHg per cm",

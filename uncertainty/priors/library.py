@@ -103,7 +103,7 @@ class PriorSet:
     correlations: list[tuple[str, str, float]] = field(default_factory=list)
     correlation_origins: list[str] = field(default_factory=list)
     path: str | None = None
-    models: tuple[str, ...] = ("classic", "steady_state", "revised")
+    models: tuple[str, ...] = GENERAL_FORMS
 
     def copy(self) -> PriorSet:
         """A copy whose dictionaries and lists may be changed freely."""

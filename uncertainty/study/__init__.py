@@ -4,8 +4,6 @@ The submodules hold the code; this package re-exports their public names.
 """
 
 from uncertainty.forms.catalogue import (  # noqa: F401
-    GLOMERULAR_KINDS,
-    GLOMERULAR_OUTPUTS,
     INPUT_ORDER,
     NO_LYMPH,
     OPTIONAL_INPUTS,
@@ -16,9 +14,12 @@ from uncertainty.forms.catalogue import (  # noqa: F401
     TISSUE_OPTIONAL,
     TISSUE_OUTPUTS,
     TISSUE_UNUSED,
+    form,
     optional_inputs,
     output_names,
+    outputs,
     required_inputs,
+    study_outputs,
 )
 from uncertainty.study.data_files import (  # noqa: F401
     read_csv,

@@ -9,6 +9,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_validator, model_validator
 
+from uncertainty.forms.catalogue import MODEL_FORMS
 from uncertainty.priors import (
     Prior,
 )
@@ -26,7 +27,7 @@ class StudySection(BaseModel):
     title: str = ""
     tissue: str
     conditions: list[str] = Field(default_factory=list)
-    model: Literal["classic", "steady_state", "revised", "glomerular"] = "classic"
+    model: Literal[MODEL_FORMS] = "classic"  # type: ignore[valid-type]  # the form catalogue's names
     seed: int = Field(default=1, ge=0, lt=2**63)
     tissue_mass: float | str | None = None
     posture_height: float | str | None = None

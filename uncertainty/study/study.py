@@ -32,16 +32,16 @@ from pydantic import BaseModel, ValidationError
 from uncertainty.core.errors import StudyError, UnitError, study_error
 from uncertainty.core.toml_io import parse_toml_bytes
 from uncertainty.forms.catalogue import (
-    GLOMERULAR_KINDS,
     INPUT_ORDER,
     NO_LYMPH,
     OUTPUT_ONLY,
     SOLVED,
-    TISSUE_INPUTS,
-    TISSUE_OUTPUTS,
+    forms_predicting,
     optional_inputs,
-    output_names,
     required_inputs,
+    study_outputs,
+    tissue_inputs,
+    tissue_mass_reason,
 )
 from uncertainty.priors import (
     Context,
@@ -130,12 +130,8 @@ class Study:
         return str(self.path) if self.path else None
 
     def outputs(self) -> list[str]:
-        """Output names ``model.evaluate`` gives for this study."""
-        names = output_names(self.model, self.tissue_mass_kg is not None, tuple(self.derived), self.tissue)
-        if self.model in ("steady_state", "revised") and ("C_tis" not in self.priors or self.Pi_ref is None):
-            for name in ("oedema_volume", *TISSUE_OUTPUTS.get((self.model, self.tissue), ())):
-                names.remove(name)
-        return names
+        """Output names ``forms.evaluate`` gives for this study (from the form catalogue)."""
+        return study_outputs(self)
 
     def known_quantities(self) -> set[str]:
         """Inputs, derived quantities and outputs a section may name."""
@@ -238,9 +234,9 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
     if head.model not in pset.models:
         raise study_error(f"the {head.tissue} prior set supports the model forms {', '.join(pset.models)} only",
                    file, "study.model", head.model)
-    if head.model == "glomerular" and tissue_mass_kg is None:
-        raise study_error("the glomerular form needs tissue_mass (the kidney mass) to relate renal plasma flow "
-                          "(mL/min) to Kf per 100 g", file, "study.tissue_mass", None)
+    mass_reason = tissue_mass_reason(head.model)
+    if mass_reason is not None and tissue_mass_kg is None:
+        raise study_error(f"the {head.model} form needs tissue_mass {mass_reason}", file, "study.tissue_mass", None)
     density = pset.density
     priors = dict(pset.priors)
     derived = dict(pset.derived)
@@ -327,7 +323,7 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
     used_derived: dict[str, Derivation] = {}
     wanted = list(required_inputs(head.model, head.tissue)) + [s for s in optional_inputs(head.model, head.tissue)
                                                                if s in priors or s in derived]
-    tissue_only = TISSUE_INPUTS.get((head.model, head.tissue), ())
+    tissue_only = tissue_inputs(head.model, head.tissue)
     for s in wanted:
         if s in derived:
             used_derived[s] = derived[s]
@@ -428,9 +424,11 @@ def _build(doc: Mapping[str, Any], file: str, path: Path | None, base_dir: Path,
         if ob.kind == "lymph_flow" and head.tissue in NO_LYMPH:
             raise study_error(f"lymph-flow observations are refused for {head.tissue}: {NO_LYMPH[head.tissue]}", file,
                        f"{key}.kind", ob.kind)
-        if ob.kind in GLOMERULAR_KINDS and head.model != "glomerular":
-            raise study_error(f"a {ob.kind} observation needs model = \"glomerular\" (the {head.model} form does not "
-                       "predict it)", file, f"{key}.kind", ob.kind)
+        predicting = forms_predicting(ob.kind)
+        if predicting and head.model not in predicting:
+            wanted = " or ".join(f"model = \"{m}\"" for m in predicting)
+            raise study_error(f"a {ob.kind} observation needs {wanted} (the {head.model} form does not predict it)",
+                              file, f"{key}.kind", ob.kind)
         sym = ob.parameter if ob.kind == "measurement" else OBS_SYMBOL.get(ob.kind)
         if ob.kind == "measurement":
             need_known(ob.parameter, f"{key}.parameter")

@@ -36,6 +36,8 @@ from scipy import stats
 
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.core.errors import InputError
+from uncertainty.forms.catalogue import all_outputs
+from uncertainty.forms.evaluate import evaluate as model_evaluate
 
 OBSERVATION_ENDPOINTS = {"lymph_flow": "Jv"}  # observation kind -> model output it measures
 _DEFAULT_TRIALS = 1000
@@ -304,12 +306,8 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
 
 
 def _model_outputs() -> set[str]:
-    try:
-        from uncertainty.forms import evaluate as model
-
-        return set(getattr(model, "OUTPUT_UNITS", {})) | {"Jv", "net_pressure"}
-    except ImportError:  # model.py not there yet
-        return {"Jv", "net_pressure"}
+    """Every output name of every model form (the form catalogue)."""
+    return set(all_outputs())
 
 
 # --------------------------------------------------------------------------------------------
@@ -333,10 +331,8 @@ def _endpoint(study: Any, spec: DesignSpec, values: dict[str, np.ndarray], shape
     """The endpoint read from each subject-occasion's values (canonical unit), shape ``shape``."""
     if spec.endpoint_kind == "quantity":
         return np.broadcast_to(values[spec.output], shape)
-    from uncertainty.forms import evaluate as model
-
     flat = {k: np.broadcast_to(v, shape).reshape(-1) for k, v in values.items()}
-    return np.asarray(model.evaluate(study, flat)[spec.output]).reshape(shape)
+    return np.asarray(model_evaluate(study, flat)[spec.output]).reshape(shape)
 
 
 def _measure(study: Any, spec: DesignSpec, y: np.ndarray, rng: np.random.Generator) -> np.ndarray:

@@ -25,6 +25,7 @@ from uncertainty.analyses.inference.result import (
 )
 from uncertainty.analyses.inference.samplers import SampleRun, sample
 from uncertainty.core.errors import InputError, QualityGateError
+from uncertainty.forms.catalogue import note_outputs, output_notes
 from uncertainty.study import InferSection
 
 #: prior draws used for prior moments that have no closed form (individual layers, Jv)
@@ -251,12 +252,10 @@ def identifiability(built: BuiltModel, post: dict[str, np.ndarray], prior: dict[
 
 
 def posterior_output_notes(problem: Problem, post: dict[str, np.ndarray]) -> list[str]:
-    """Notes the model form calls for on posterior draws (``model.output_notes``; e.g. the glomerular
+    """Notes the model form calls for on posterior draws (the catalogue's ``output_notes``; e.g. the glomerular
     "Kf is only bounded below" note). ``post`` holds one array of draws per quantity of ``problem.priors``
     at the reported level (canonical units); fixed quantities come from ``problem.fixed``."""
-    from uncertainty.forms.evaluate import NOTE_OUTPUTS, output_notes
-
-    if problem.model_form not in NOTE_OUTPUTS or any(name not in post for name in problem.priors):
+    if not note_outputs(problem.model_form) or any(name not in post for name in problem.priors):
         return []
     outs = problem.evaluate({**problem.fixed, **{name: post[name] for name in problem.priors}}, np)
     return output_notes(problem.model_form, outs)

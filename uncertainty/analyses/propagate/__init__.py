@@ -29,6 +29,8 @@ from uncertainty.analyses.sampling import (
     replicate_seeds,
 )
 from uncertainty.core.errors import InputError, QualityGateError
+from uncertainty.forms.catalogue import note_outputs, output_notes, output_unit, study_outputs
+from uncertainty.forms.evaluate import evaluate as model_evaluate
 
 DEFAULT_SAMPLES = 16384
 DEFAULT_METHOD = "qmc"
@@ -360,26 +362,33 @@ def propagate_arrays(
 # --------------------------------------------------------------------------------------------
 
 def available_outputs(study: Any, evaluate: Callable | None = None) -> list[str]:
-    """Output names the study's model returns (evaluated on a tiny draw at the medians)."""
-    evaluate = _evaluator(evaluate)
-    u = np.full((2, len(cube_columns(study, "individual"))), 0.5)
-    return list(evaluate(study, from_cube(study, u, "individual")).keys())
+    """Output names the study's model returns, in order, from the form catalogue (never by running it).
+
+    Parameters
+    ----------
+    study : Study
+        The study (its ``model``, ``priors``, ``derived``, ``tissue``, ``tissue_mass_kg``, ``Pi_ref``).
+    evaluate : callable, optional
+        Accepted for callers that pass their forward map; not called.
+
+    Returns
+    -------
+    list of str
+
+    Raises
+    ------
+    StudyError
+        For an unknown model form.
+    """
+    return study_outputs(study)
 
 
 def _evaluator(evaluate: Callable | None) -> Callable:
-    if evaluate is not None:
-        return evaluate
-    from uncertainty.forms.evaluate import evaluate as model_evaluate
-
-    return model_evaluate
+    return model_evaluate if evaluate is None else evaluate
 
 
 def _output_units(outputs: Sequence[str]) -> dict[str, str]:
-    try:
-        from uncertainty.forms.evaluate import OUTPUT_UNITS
-    except ImportError:  # pragma: no cover - model.py not present
-        return {}
-    return {k: OUTPUT_UNITS.get(k, "") for k in outputs}
+    return {k: output_unit(k) for k in outputs}
 
 
 def propagate(study: Any, samples: int | None = None, method: str | None = None, seed: int | None = None,
@@ -426,10 +435,8 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     has_bs = k > d
 
     form = getattr(study, "model", None)
-    from uncertainty.forms.evaluate import NOTE_OUTPUTS
-
-    note_keys = NOTE_OUTPUTS.get(form or "", ())  # outputs whose draws the form's notes read
-    kept: list[dict[str, np.ndarray]] = []  # individual draws the form's notes read (model.output_notes)
+    note_keys = note_outputs(form)  # outputs whose draws the form's notes read
+    kept: list[dict[str, np.ndarray]] = []  # individual draws the form's notes read (output_notes)
 
     def sample_layers(u: np.ndarray) -> dict[str, dict[str, np.ndarray]]:
         typ = evaluate(study, from_cube(study, u[:, :d], "typical"))
@@ -441,8 +448,6 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
 
     def add_form_notes(res: PropagateResult) -> None:
         if kept:
-            from uncertainty.forms.evaluate import output_notes
-
             draws = {key: np.concatenate([b[key] for b in kept]) for key in note_keys}
             res.notes.extend(n for n in output_notes(form, draws) if n not in res.notes)
 

@@ -41,6 +41,8 @@ from typing import Any
 import numpy as np
 
 from uncertainty.core.errors import InputError
+from uncertainty.forms.catalogue import output_unit
+from uncertainty.forms.evaluate import evaluate as model_evaluate
 
 _BLOCKS = 8
 
@@ -568,7 +570,6 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     the posterior path samples about that many and keeps the thinned ones).
     """
     from uncertainty.analyses import sampling
-    from uncertainty.forms import evaluate as model
 
     section = getattr(study, "rank", None)
     output = getattr(section, "output", "Jv") or "Jv"
@@ -584,14 +585,14 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
                      f"{posterior['level']}, thinned every {posterior['thin']} for autocorrelation")
     else:
         values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
-        outputs = model.evaluate(study, values)
+        outputs = model_evaluate(study, values)
         y = np.asarray(outputs[output], dtype=float)
         # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
         pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
         if getattr(study, "observations", None):
             notes.append("figures are from the prior (--from-prior): the observations are not folded in")
     doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method)
-    unit = getattr(model, "OUTPUT_UNITS", {}).get(output, "")
+    unit = output_unit(output)
     notes += doc.pop("notes", [])
     doc = {"output": output, "samples": int(len(y)), "seed": seed, "from": "prior" if posterior is None else
            "posterior", **doc, "notes": notes,

@@ -32,6 +32,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.core.errors import InputError
+from uncertainty.forms.catalogue import output_unit
 
 METHODS = ("sobol", "morris", "shapley")
 DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 2048}
@@ -136,13 +137,7 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
     def model(z: np.ndarray) -> np.ndarray:
         return np.asarray(evaluate(study, from_scores(study, z, layer))[output], dtype=float)
 
-    unit = ""
-    try:
-        from uncertainty.forms.evaluate import OUTPUT_UNITS
-
-        unit = OUTPUT_UNITS.get(output, "")
-    except ImportError:  # pragma: no cover
-        pass
+    unit = output_unit(output)
     return Problem(players=players, groups=groups, corr=corr, model=model, output=output, unit=unit)
 
 

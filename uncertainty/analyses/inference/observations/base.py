@@ -8,6 +8,7 @@ import numpy as np
 
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.core.errors import InputError
+from uncertainty.forms.catalogue import outputs, study_outputs
 
 
 def term_name(obs: Observation) -> str:
@@ -99,14 +100,23 @@ def prior_centres(problem: Problem) -> dict[str, float]:
 
 
 def output_names(problem: Problem) -> set[str]:
-    """Names of the forward map's outputs (evaluated once with numpy at the prior medians)."""
-    cached = getattr(problem, "_output_names", None)
-    if cached is None:
-        vals: dict[str, Any] = {**problem.fixed, **prior_centres(problem)}
-        try:
-            outs = problem.evaluate(vals, np)
-        except Exception:  # noqa: BLE001 - a failing evaluation is reported later, when sampling
-            outs = {}
-        cached = set(outs)
-        problem._output_names = cached
-    return cached
+    """Names of the forward map's outputs, from the form catalogue (never by running the model).
+
+    Parameters
+    ----------
+    problem : Problem
+        Its ``study`` (form, tissue, inputs) when it has one; otherwise its ``model_form`` with the
+        problem's own quantities.
+
+    Returns
+    -------
+    set of str
+
+    Raises
+    ------
+    StudyError
+        For an unknown model form.
+    """
+    if problem.study is not None and getattr(problem.study, "model", None) == problem.model_form:
+        return set(study_outputs(problem.study))
+    return set(outputs(problem.model_form, have=(*problem.priors, *problem.fixed)))

@@ -12,6 +12,7 @@ from typing import Any
 
 from uncertainty.analyses.inference.observations.base import add_reading, check_positive_value, require_error, term_name
 from uncertainty.analyses.inference.problem import Observation, Problem
+from uncertainty.forms.catalogue import forms_predicting
 
 NOTE = ("GFR, RPF and filtration-fraction readings are fitted with the glomerular form; where filtration "
         "equilibrium is reached before the efferent end, GFR does not depend on Kf, so Kf is only bounded "
@@ -24,12 +25,15 @@ LABEL = {"GFR": "glomerular filtration rate", "RPF": "renal plasma flow", "filtr
 
 
 def validate(obs: Observation, problem: Problem) -> None:
-    """A value with sd or cv; the glomerular form; a filtration fraction strictly between 0 and 1."""
+    """A value with sd or cv; a form that predicts the kind (the catalogue's ``forms_predicting``); a
+    filtration fraction strictly between 0 and 1."""
     require_error(obs)
     check_positive_value(obs)
     form = getattr(problem, "model_form", None)
-    if form is not None and form != "glomerular":
-        raise obs.error(f"a {obs.kind} observation needs model = \"glomerular\"", "kind", obs.kind)
+    predicting = forms_predicting(obs.kind)
+    if form is not None and predicting and form not in predicting:
+        wanted = " or ".join(f"model = \"{m}\"" for m in predicting)
+        raise obs.error(f"a {obs.kind} observation needs {wanted}", "kind", obs.kind)
     if obs.kind == "filtration_fraction" and not 0 < obs.value < 1:
         raise obs.error("a filtration fraction lies strictly between 0 and 1", "value", obs.value)
 
