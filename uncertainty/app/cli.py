@@ -24,6 +24,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "design": ("design", "Power, assurance and sample size for a trial."),
     "run": ("run", "Run every section of a study; results bundle and HTML report."),
     "demo": ("demo", "Run the bundled demo study (invented data) end to end."),
+    "validate": ("validate", "Published measurements beside the model's predictions."),
 }
 
 

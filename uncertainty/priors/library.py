@@ -112,6 +112,11 @@ class PriorSet:
                                    correlation_origins=list(self.correlation_origins))
 
 
+#: TOML files in the priors folder that are not prior sets: the condition modifiers, the instruments and the
+#: validation table (``uncertainty.analyses.validation``).
+NOT_PRIOR_SETS = ("conditions", "instruments", "validation")
+
+
 def data_dir(directory: str | Path | None) -> Path:
     if directory is not None:
         return Path(directory)
@@ -207,7 +212,7 @@ def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str |
 def list_prior_sets(directory: str | Path | None = None) -> list[str]:
     """Names of the shipped prior sets (tissues), sorted."""
     d = data_dir(directory)
-    return sorted(p.stem for p in d.glob("*.toml") if p.stem not in ("conditions", "instruments"))
+    return sorted(p.stem for p in d.glob("*.toml") if p.stem not in NOT_PRIOR_SETS)
 
 
 def load_prior_set(name: str, directory: str | Path | None = None) -> PriorSet:
@@ -220,7 +225,7 @@ def load_prior_set(name: str, directory: str | Path | None = None) -> PriorSet:
     if not isinstance(name, str) or not name or "/" in name or "\\" in name or name.startswith("."):
         raise study_error("unknown tissue", None, "tissue", name)
     path = d / f"{name}.toml"
-    if name in ("conditions", "instruments") or not path.is_file():
+    if name in NOT_PRIOR_SETS or not path.is_file():
         known = ", ".join(list_prior_sets(d)) or "none installed"
         raise study_error(f"unknown tissue (known: {known})", None, "tissue", name)
     pset = _load_prior_set_cached(str(path)).copy()

@@ -29,6 +29,7 @@ from uncertainty.analyses.sampling import (
     replicate_seeds,
 )
 from uncertainty.core.errors import InputError, QualityGateError
+from uncertainty.core.units import basis_factor
 from uncertainty.forms.catalogue import note_outputs, output_notes, output_unit, study_outputs
 from uncertainty.forms.evaluate import evaluate as model_evaluate
 
@@ -37,6 +38,16 @@ DEFAULT_METHOD = "qmc"
 DEFAULT_OUTPUTS = ("Jv", "net_pressure", "force_Pc", "force_Pi", "force_pi_c", "force_pi_i")
 REPLICATES = 16
 DEFAULT_MAX_SAMPLES = 2**22
+
+#: What the body can return: whole-body afferent lymph flow of an adult, L/day. An organ-level filtration
+#: whose median exceeds it cannot be a steady state and is flagged (``PropagateResult.flags``).
+WHOLE_BODY_LYMPH_L_PER_DAY = 8.0
+WHOLE_BODY_LYMPH_ORIGIN = (
+    "about 8 L/day of afferent lymph in an adult: Chronic lower limb oedema (review; authors and journal not "
+    "confirmed), abstract: approximately eight litres a day pass through the afferent lymphatics, about four "
+    "absorbed in the nodes; Levick JR, Michel CC 2010 Cardiovasc Res 87:198-210 (from memory)")
+#: Forms whose organ-level filtration is not returned by lymph (the kidney's tubules reabsorb it).
+NOT_LYMPH_RETURNED = ("glomerular",)
 
 
 # --------------------------------------------------------------------------------------------
@@ -171,6 +182,7 @@ class PropagateResult:
     draws: dict[str, dict[str, np.ndarray]]
     notes: list[str] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
+    flags: list[dict[str, Any]] = field(default_factory=list)
     tol: float | None = None
     converged: bool | None = None
     history: list[dict[str, Any]] = field(default_factory=list)
@@ -200,7 +212,7 @@ class PropagateResult:
             "nan_draws": {layer: {k: s.nan_draws for k, s in self.summaries[layer].items()}
                           for layer in ("individual", "typical")},
             "tol": self.tol, "converged": self.converged, "history": self.history,
-            "notes": self.notes, "warnings": self.warnings, "study": self.study,
+            "notes": self.notes, "warnings": self.warnings, "flags": self.flags, "study": self.study,
         })
         return doc
 
@@ -459,6 +471,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         if exc.result is not None:
             exc.result.study = _study_meta(study)
             add_form_notes(exc.result)
+            flag_implausible_flux(exc.result, getattr(study, "tissue_mass_kg", None), form)
         raise
     except InputError as exc:
         if exc.file is None and _file(study):
@@ -466,10 +479,50 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         raise
     result.study = _study_meta(study)
     add_form_notes(result)
+    flag_implausible_flux(result, getattr(study, "tissue_mass_kg", None), form)
     if not has_bs:
         result.notes.append("no between-subject spread declared: the individual equals the typical "
                             "subject")
     return result
+
+
+def flag_implausible_flux(result: PropagateResult, tissue_mass_kg: float | None, form: str | None) -> None:
+    """Flag an organ-level filtration beyond what the body can return (plausibility guard).
+
+    With a tissue mass, the organ's filtration in L/day is Jv (mL/min/100g) times the organ's 100 g units
+    times 1440/1000. When its median (individual or typical subject) exceeds
+    :data:`WHOLE_BODY_LYMPH_L_PER_DAY`, a flag (a dict: ``kind``, ``output``, ``layer``, ``median``,
+    ``limit``, ``unit``, ``message``, ``source``) is added to ``result.flags`` and its message to
+    ``result.warnings`` (shown by the terminal table, the JSON and the report). Forms in
+    :data:`NOT_LYMPH_RETURNED` (glomerular filtration, reabsorbed by the tubules) are not checked.
+
+    Parameters
+    ----------
+    result : PropagateResult
+        Changed in place.
+    tissue_mass_kg : float or None
+        The organ's mass in kg; nothing is checked without it.
+    form : str or None
+        The study's model form.
+    """
+    if tissue_mass_kg is None or form in NOT_LYMPH_RETURNED:
+        return
+    per_day = basis_factor("100g", "organ", tissue_mass_kg=tissue_mass_kg, symbol="Jv") * 1440.0 / 1000.0
+    for layer in ("individual", "typical"):
+        s = result.summaries.get(layer, {}).get("Jv")
+        if s is None or not math.isfinite(s.median):
+            continue
+        median = s.median * per_day  # a positive scale: the median of the flux is the scaled median
+        if median > WHOLE_BODY_LYMPH_L_PER_DAY:
+            who = "the study's individual" if layer == "individual" else "the typical subject"
+            message = (f"implausible organ-level filtration: the median for {who} is {median:.3g} L/day "
+                       f"({median * 1000.0 / 24.0:.3g} mL/h) over {tissue_mass_kg:g} kg, more than the "
+                       f"{WHOLE_BODY_LYMPH_L_PER_DAY:g} L/day the whole body's lymph can return, so it cannot "
+                       f"be a steady state (source: {WHOLE_BODY_LYMPH_ORIGIN})")
+            result.flags.append({"kind": "implausible_flux", "output": "Jv_L_per_day", "layer": layer,
+                                 "median": median, "limit": WHOLE_BODY_LYMPH_L_PER_DAY, "unit": "L/day",
+                                 "message": message, "source": WHOLE_BODY_LYMPH_ORIGIN})
+            result.warnings.append(message)
 
 
 def _file(study: Any) -> str | None:
