@@ -46,7 +46,7 @@ LOGNORMAL = {"Kf", "PS", "C_tis", "L"}
 #: Accepted kinds of origin (DESIGN.md section 6). A published source is recognised by a year.
 ORIGIN_RE = re.compile(r"common practice|from memory|\b(18|19|20)\d\d\b", re.I)
 
-PRIOR_FILES = sorted(p for p in PRIORS.glob("*.toml") if p.stem not in ("conditions", "instruments"))
+PRIOR_FILES = sorted(p for p in PRIORS.glob("*.toml") if p.stem not in ("conditions", "instruments", "validation"))
 
 
 def _load(path: Path) -> dict[str, Any]:

@@ -1,0 +1,175 @@
+"""The validation table: published measurements beside the model, and the plausibility guard.
+
+The test that matters is ``test_rows_not_marked_as_gaps_lie_inside_their_band``: it fails when the
+physiology drifts away from a published measurement it used to meet. A row the model cannot meet is
+marked ``known_gap`` in priors/validation.toml with its reason, never tuned away.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+
+import pytest
+from click.testing import CliRunner
+
+from uncertainty.analyses.propagate import WHOLE_BODY_LYMPH_L_PER_DAY, propagate
+from uncertainty.analyses.validation import (
+    KINDS,
+    VERDICTS,
+    ValidationResult,
+    load_table,
+    markdown,
+    parse_row,
+    validate,
+)
+from uncertainty.app.cli import main
+from uncertainty.app.validation_doc import doc_path
+from uncertainty.core.errors import StudyError
+from uncertainty.priors import list_prior_sets, load_conditions
+from uncertainty.study import Study
+
+TISSUES = {"skeletal_muscle", "skin_subcutis", "lung", "myocardium", "intestinal_mucosa", "brain", "glomerulus"}
+
+#: A source names a year, or says "common practice" / "from memory" (DESIGN.md section 6).
+REGENERATE = "python -m uncertainty.app.validation_doc"
+
+ORIGIN_RE = re.compile(r"common practice|from memory|\b(18|19|20)\d\d\b", re.I)
+
+
+@pytest.fixture(scope="module")
+def result() -> ValidationResult:
+    return validate()
+
+
+def test_table_parses_with_at_least_30_rows_across_the_seven_tissues() -> None:
+    rows = load_table()
+    assert len(rows) >= 30
+    assert {r.tissue for r in rows} == TISSUES
+    assert len({r.id for r in rows}) == len(rows)
+
+
+def test_every_row_names_its_source_and_band() -> None:
+    for r in load_table():
+        assert r.source.strip() and ORIGIN_RE.search(r.source), r.id
+        assert r.band.strip(), r.id
+        assert r.low <= r.high, r.id
+        assert r.kind in KINDS, r.id
+        if r.value is not None and math.isfinite(r.high):
+            assert r.low <= r.value <= r.high or r.known_gap or "judgement" in r.band, r.id
+
+
+def test_rows_name_known_tissues_conditions_and_forms() -> None:
+    conditions = load_conditions()
+    for r in load_table():
+        assert r.tissue in list_prior_sets(), r.id
+        for c in list(r.conditions) + list((r.reference or {}).get("conditions", [])):
+            assert c in conditions, (r.id, c)
+            assert r.tissue in (conditions[c].applies_to or []), (r.id, c)
+
+
+def test_the_table_is_not_a_prior_set() -> None:
+    assert "validation" not in list_prior_sets()
+
+
+def test_every_row_is_predicted_or_a_known_gap(result: ValidationResult) -> None:
+    for rr in result.rows:
+        assert rr.verdict in VERDICTS
+        if not rr.row.known_gap:
+            assert not rr.error, (rr.row.id, rr.error)
+            assert math.isfinite(rr.median), rr.row.id
+
+
+def test_rows_not_marked_as_gaps_lie_inside_their_band(result: ValidationResult) -> None:
+    outside = [(rr.row.id, rr.median, (rr.row.low, rr.row.high)) for rr in result.rows
+               if not rr.row.known_gap and not rr.inside]
+    assert not outside, f"rows outside their published band (physiology drifted?): {outside}"
+
+
+def test_the_bundled_sepsis_problem_is_a_known_gap(result: ValidationResult) -> None:
+    # issue 15, "What was found" 1: 36 L/day of filtration into 25 kg of muscle
+    rr = next(r for r in result.rows if r.row.id == "skeletal_muscle.Jv_L_per_day.sepsis")
+    assert rr.verdict == "known gap" and rr.median > WHOLE_BODY_LYMPH_L_PER_DAY
+
+
+def test_contrasts_are_paired_draw_by_draw(result: ValidationResult) -> None:
+    refs = [rr for rr in result.rows if rr.row.reference and not rr.error]
+    assert refs and all(rr.paired for rr in refs)
+
+
+def test_results_repeat_with_the_fixed_seed(result: ValidationResult) -> None:
+    again = validate("brain")
+    first = {rr.row.id: rr.median for rr in result.rows if rr.row.tissue == "brain"}
+    assert {rr.row.id: rr.median for rr in again.rows} == first
+
+
+def test_docs_list_every_row_with_its_current_verdict(result: ValidationResult) -> None:
+    text = doc_path().read_text(encoding="utf-8")
+    fresh = markdown(result)
+    for rr in result.rows:
+        line = next((ln for ln in text.splitlines() if ln.startswith(f"| `{rr.row.id}` |")), None)
+        assert line is not None, f"{rr.row.id} missing from docs/validation.md (regenerate: {REGENERATE})"
+        assert line.rstrip().endswith(f"| {rr.verdict} |"), rr.row.id
+    assert text.splitlines()[:8] == fresh.splitlines()[:8]
+
+
+def test_parse_row_refuses_bad_rows() -> None:
+    good = {"id": "x", "quantity": "Jv", "tissue": "brain", "model": "classic", "low": 0.0, "high": 1.0,
+            "unit": "mL/min/100g", "origin": "common practice: test", "band": "test"}
+    assert parse_row(good, 0).high == 1.0
+    assert parse_row({**good, "high": "inf"}, 0).high == math.inf
+    with pytest.raises(StudyError):
+        parse_row({**good, "low": 2.0}, 0)
+    with pytest.raises(StudyError):
+        parse_row({**good, "colour": "red"}, 0)
+    with pytest.raises(StudyError):
+        parse_row({k: v for k, v in good.items() if k != "origin"}, 0)
+    with pytest.raises(StudyError):
+        parse_row({**good, "reference": {"op": "sum"}}, 0)
+
+
+def test_validate_command_json_shape() -> None:
+    res = CliRunner().invoke(main, ["validate", "--tissue", "brain", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.output)
+    assert set(doc) >= {"rows", "counts", "samples", "seed", "layer", "closed_gaps"}
+    assert doc["layer"] == "typical" and len(doc["rows"]) == 3
+    for row in doc["rows"]:
+        assert set(row) >= {"id", "quantity", "tissue", "model", "conditions", "low", "high", "unit", "source",
+                            "median", "ci95", "verdict", "known_gap", "kind"}
+        assert row["tissue"] == "brain" and len(row["ci95"]) == 2 and row["verdict"] in VERDICTS
+
+
+def test_validate_command_table_and_out(tmp_path) -> None:
+    res = CliRunner().invoke(main, ["validate", "--tissue", "glomerulus", "--out", str(tmp_path), "--sources"])
+    assert res.exit_code == 0, res.output
+    assert "glomerulus" in res.output and "source:" in res.output
+    assert {p.name for p in tmp_path.iterdir()} == {"validation.json", "validation.csv", "validation.md"}
+
+
+def test_validate_command_unknown_tissue_is_bad_input() -> None:
+    res = CliRunner().invoke(main, ["validate", "--tissue", "liver"])
+    assert res.exit_code == 2
+
+
+# --------------------------------------------------------------------------- plausibility guard
+
+def _study(tissue: str, model: str, conditions: list[str], mass: str) -> Study:
+    return Study.from_dict({"study": {"tissue": tissue, "model": model, "conditions": conditions,
+                                      "tissue_mass": mass, "seed": 3}})
+
+
+def test_organ_filtration_beyond_lymph_return_is_flagged() -> None:
+    r = propagate(_study("skeletal_muscle", "classic", ["sepsis"], "25 kg"), samples=512)
+    doc = r.to_dict()
+    assert doc["flags"] and doc["flags"][0]["kind"] == "implausible_flux"
+    flag = doc["flags"][0]
+    assert flag["median"] > flag["limit"] == WHOLE_BODY_LYMPH_L_PER_DAY and flag["unit"] == "L/day"
+    assert flag["source"] and any("implausible organ-level filtration" in w for w in doc["warnings"])
+
+
+def test_plausible_or_glomerular_filtration_is_not_flagged() -> None:
+    assert propagate(_study("skeletal_muscle", "classic", [], "1 kg"), samples=512).flags == []
+    # the kidney filters about 180 L/day, reabsorbed by the tubules, not returned by lymph
+    assert propagate(_study("glomerulus", "glomerular", [], "0.3 kg"), samples=512).flags == []
