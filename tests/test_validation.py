@@ -173,3 +173,22 @@ def test_plausible_or_glomerular_filtration_is_not_flagged() -> None:
     assert propagate(_study("skeletal_muscle", "classic", [], "1 kg"), samples=512).flags == []
     # the kidney filters about 180 L/day, reabsorbed by the tubules, not returned by lymph
     assert propagate(_study("glomerulus", "glomerular", [], "0.3 kg"), samples=512).flags == []
+
+
+# --------------------------------------------------------------------------- priors show: implied ranges
+
+def test_priors_show_gives_derived_quantities_their_implied_range() -> None:
+    res = CliRunner().invoke(main, ["priors", "show", "lung", "--json"])
+    assert res.exit_code == 0, res.output
+    rows = {r["symbol"]: r for r in json.loads(res.output)}
+    pc = rows["Pc"]
+    assert pc["dist"] == "derived" and pc["implied"] is True
+    # Pc = LAP + 0.4 (PAP - LAP) at the medians LAP 8, PAP 14 (lung.toml) is 10.4 mmHg
+    assert pc["median"] == pytest.approx(10.4, abs=0.1)
+    lo, hi = pc["ci95"]
+    ilo, ihi = pc["individual"]["ci95"]
+    assert ilo < lo < pc["median"] < hi < ihi  # an individual adds the between-subject spread
+    # pi_c from Cp 7.0 g/dL by Landis-Pappenheimer: about 25.6 mmHg (skeletal_muscle.toml note)
+    assert rows["pi_c"]["median"] == pytest.approx(25.6, abs=0.2)
+    text = CliRunner().invoke(main, ["priors", "show", "lung"]).output
+    assert "implied (typical subject)" in text and "implied (an individual)" in text
