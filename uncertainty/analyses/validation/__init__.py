@@ -306,6 +306,9 @@ def _draws(study: Study, names: Sequence[str], samples: int, seed: int) -> dict[
     """Typical-subject draws of ``names``: outputs by propagation, inputs from the priors."""
     outputs = [n for n in names if n in study.outputs()]
     inputs = [n for n in names if n not in outputs]
+    if outputs and inputs:  # drawn by different streams, so the draws would not be paired
+        raise InputError("a quantity combines outputs or inputs, not one of each", key="quantity",
+                         value=" , ".join(names))
     for n in inputs:
         if n not in study.priors:
             raise InputError(f"the {study.model} form of {study.tissue} gives no {n} (output or input)",
