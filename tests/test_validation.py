@@ -192,3 +192,20 @@ def test_priors_show_gives_derived_quantities_their_implied_range() -> None:
     assert rows["pi_c"]["median"] == pytest.approx(25.6, abs=0.2)
     text = CliRunner().invoke(main, ["priors", "show", "lung"]).output
     assert "implied (typical subject)" in text and "implied (an individual)" in text
+
+
+def test_verdicts_on_a_small_table(tmp_path) -> None:
+    # invented bands around the brain's classic Jv (near 0 mL/min/100g): one met, one missed, one missed but
+    # marked as a known gap, one marked as a gap although met (its mark can go)
+    rows = []
+    for i, (low, high, gap) in enumerate([(-1.0, 1.0, ""), (5.0, 6.0, ""), (5.0, 6.0, "invented"),
+                                          (-1.0, 1.0, "invented")]):
+        rows.append(f'[[row]]\nid = "r{i}"\nquantity = "Jv"\ntissue = "brain"\nmodel = "classic"\n'
+                    f'low = {low}\nhigh = {high}\nunit = "mL/min/100g"\norigin = "invented for a test (common '
+                    f'practice)"\nband = "invented"\nknown_gap = "{gap}"\n')
+    path = tmp_path / "table.toml"
+    path.write_text("\n".join(rows), encoding="utf-8")
+    res = validate(path=path, samples=256)
+    assert [r.verdict for r in res.rows] == ["inside", "outside", "known gap", "known gap"]
+    assert res.counts() == {"inside": 1, "outside": 1, "known gap": 2}
+    assert res.closed_gaps() == ["r3"]
