@@ -35,7 +35,7 @@ from uncertainty.analyses.propagate import propagate
 from uncertainty.analyses.sampling import draw
 from uncertainty.core.errors import InputError, StudyError
 from uncertainty.core.resources import priors_dir
-from uncertainty.forms.evaluate import OUTPUT_UNITS
+from uncertainty.forms.catalogue import output_unit
 from uncertainty.study import Study
 
 #: File name of the table inside the shipped priors folder.
@@ -389,8 +389,8 @@ def _unit_of(row: ValidationRow, study: Study) -> str | None:
         return "1"
 
     def unit(name: str) -> str | None:
-        if name in OUTPUT_UNITS:
-            return OUTPUT_UNITS[name]
+        if output_unit(name):
+            return output_unit(name)
         prior = study.priors.get(name)
         return getattr(prior, "unit", None) if prior is not None else None
 
