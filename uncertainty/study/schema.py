@@ -14,7 +14,7 @@ from uncertainty.priors import (
     Prior,
 )
 
-STRICT_CONFIG = ConfigDict(extra="forbid", strict=True)
+STRICT_CONFIG = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False)
 
 
 Number = float  # strict mode accepts int for float
