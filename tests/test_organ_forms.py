@@ -76,7 +76,7 @@ def test_mucosa_without_j_epi_prior_exits_2(tmp_path, monkeypatch):
     start = text.index("[priors.J_epi]")
     end = text.index("[priors.", start + 5)
     (folder / "intestinal_mucosa.toml").write_text(text[:start] + text[end:], encoding="utf-8")
-    import uncertainty.study.study as study_mod
+    import uncertainty.study.resolve as study_mod
     from uncertainty import priors
 
     monkeypatch.setattr(study_mod, "load_prior_set", lambda name: priors.load_prior_set(name, folder))

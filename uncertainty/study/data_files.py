@@ -14,6 +14,8 @@ from uncertainty.study.schema import CSV_COLUMNS, TEXT_COLUMNS, TIME_COLUMNS, Ob
 def read_csv(ob: Observation, base_dir: Path, file: str, key: str) -> tuple[Path, dict[str, list]]:
     """Resolve and validate an observation's CSV: required columns, numeric cells, no NaN, times rising."""
     fkey = f"{key}.file"
+    if ob.file is None:
+        raise study_error("the observation names no data file", file, fkey, None)
     p = Path(ob.file)
     p = p if p.is_absolute() else (base_dir / p)
     if not p.is_file():

@@ -141,6 +141,25 @@ class Observation(BaseModel):
         """The resolved data file, or None."""
         return self._path
 
+    def with_data(self, path: Path, data: dict[str, list]) -> Observation:
+        """A copy that carries its validated data file.
+
+        Parameters
+        ----------
+        path : Path
+            The resolved CSV file.
+        data : dict of str to list
+            Its columns (numeric columns as floats, in the canonical units the file states).
+
+        Returns
+        -------
+        Observation
+            A new record; this one is not changed.
+        """
+        new = self.model_copy()
+        new._path, new._data = path, data
+        return new
+
     @model_validator(mode="after")
     def _check_kind(self) -> Observation:
         k = self.kind
@@ -295,6 +314,23 @@ class DesignSection(BaseModel):
         """The analysis prior as a Prior, or None."""
         return self._analysis_prior
 
+    def with_priors(self, design_prior: Prior | None, analysis_prior: Prior | None) -> DesignSection:
+        """A copy that carries the parsed design and analysis priors.
+
+        Parameters
+        ----------
+        design_prior, analysis_prior : Prior or None
+            ``design_prior`` / ``analysis_prior`` parsed into Prior objects (canonical units of the effect).
+
+        Returns
+        -------
+        DesignSection
+            A new section; this one is not changed.
+        """
+        new = self.model_copy()
+        new._design_prior, new._analysis_prior = design_prior, analysis_prior
+        return new
+
     @field_validator("n_range")
     @classmethod
     def _range(cls, v: list[int]) -> list[int]:
@@ -335,6 +371,10 @@ class InferSection(BaseModel):
                 "divergences_max": self.divergences_max}
 
 
+def _default_targets() -> list[Literal["Kf", "Pvi"]]:
+    return ["Kf", "Pvi"]
+
+
 class ScheduleSection(BaseModel):
     """``[schedule]``: optimise a venous-cuff protocol (uncertainty/analyses/schedule/; `fluidshift design STUDY
     --schedule`). ``steps`` cuff steps of ``step_min`` minutes each, pressures from ``pressure_grid``,
@@ -359,7 +399,7 @@ class ScheduleSection(BaseModel):
     criterion: Literal["A", "D"] = Field(default="A", description=(
         "A: sum of posterior/prior variance ratios of the targets; D: log det of their posterior block over "
         "the prior block (both with the prior precision added to the Fisher information)"))
-    targets: list[Literal["Kf", "Pvi"]] = Field(default_factory=lambda: ["Kf", "Pvi"], min_length=1,
+    targets: list[Literal["Kf", "Pvi"]] = Field(default_factory=_default_targets, min_length=1,
                                                  description="quantities whose posterior sd is minimised")
     linearisation_draws: int = Field(default=16, ge=1, le=512, description=(
         "prior points (the median and further prior draws) the criterion is averaged over"))

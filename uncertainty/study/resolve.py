@@ -1,0 +1,1247 @@
+"""Resolution of a study as pure steps (DESIGN.md sections 2 and 4).
+
+Each step is a function from its inputs to a new value; none changes its arguments, and the
+validated pydantic sections are never modified (a step that converts units returns a copy):
+
+1. :func:`validate_document`: the parsed TOML document -> :class:`StudyInput` (each section
+   validated as written, nothing converted).
+2. :func:`tissue_base`: ``[study]`` -> :class:`TissueBase` (the tissue's prior set, the tissue mass
+   and the posture height in canonical units).
+3. :func:`apply_conditions`: the prior set's declarations -> :class:`Declared` after each condition
+   in the order listed.
+4. :func:`apply_overrides`: ``[parameters]`` on top. An override replaces the whole declaration,
+   its between-subject spread included, unless it states one (DESIGN.md section 2).
+5. :func:`select_inputs`: what the model form needs (:class:`FormInputs`); the quantities the form
+   solves are set aside.
+6. :func:`resolve_sections`: the analysis sections and observations, converted to canonical units,
+   with their data files and instruments (:class:`Sections`).
+7. :func:`resolve_correlations`: the prior set's and the study's normal-score correlations over the
+   uncertain inputs (:class:`Correlations`).
+
+Every error is a :class:`uncertainty.core.errors.StudyError` naming the file, the dotted key path
+and the offending value.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from collections.abc import Mapping, Sequence, Set
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any, TypeVar
+
+import numpy as np
+from pydantic import BaseModel, ValidationError
+
+from uncertainty.core import units
+from uncertainty.core.errors import StudyError, UnitError, study_error
+from uncertainty.forms.catalogue import (
+    INPUT_ORDER,
+    NO_LYMPH,
+    OUTPUT_ONLY,
+    SOLVED,
+    forms_predicting,
+    optional_inputs,
+    required_inputs,
+    study_outputs,
+    tissue_inputs,
+    tissue_mass_reason,
+)
+from uncertainty.priors import (
+    Context,
+    Derivation,
+    Instrument,
+    Prior,
+    PriorSet,
+    convert_unit,
+    load_conditions,
+    load_instruments,
+    load_prior_set,
+    parse_entry,
+    parse_prior,
+)
+from uncertainty.study.data_files import read_csv
+from uncertainty.study.schema import (
+    CSV_COLUMNS,
+    OBS_SYMBOL,
+    SECTIONS,
+    TOP_LEVEL,
+    Candidate,
+    CorrelationsSection,
+    DesignSection,
+    Effect,
+    InferSection,
+    Observation,
+    PropagateSection,
+    RankSection,
+    ScheduleSection,
+    SensitivitySection,
+    StepSpec,
+    StudySection,
+)
+
+M = TypeVar("M", bound=BaseModel)
+
+#: the model forms that solve the interstitial pressures (a reference Pi and the protein input matter)
+STEADY_FORMS = ("steady_state", "revised")
+
+
+# --------------------------------------------------------------------------------------------
+# 1. The document, validated section by section (as written)
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class StudyInput:
+    """A study document validated section by section, as written (no unit converted).
+
+    Attributes
+    ----------
+    head : StudySection
+        ``[study]``.
+    parameters : Mapping of str to Any
+        ``[parameters]`` declarations as written (each is read by :func:`apply_overrides`).
+    correlations : CorrelationsSection or None
+        ``[correlations]``.
+    sections : Mapping of str to BaseModel
+        The analysis sections present (``propagate``, ``sensitivity``, ``rank``, ``design``,
+        ``schedule``, ``infer``), validated, in canonical order.
+    observations : tuple of Observation, or None
+        ``[[observations]]`` as written, or None without them.
+    file : str
+        The label used in messages (the study file, or ``<study>``).
+    path : Path or None
+        The study file (None for a document built in memory).
+    base_dir : Path
+        The folder data files are resolved against.
+    file_hash : str or None
+        sha256 of the file's bytes.
+    document : Mapping of str to Any
+        The document as written (read-only), kept for provenance only (cache keys and data-file
+        hashes of a run); the resolution never reads it.
+    """
+
+    head: StudySection
+    parameters: Mapping[str, Any]
+    correlations: CorrelationsSection | None
+    sections: Mapping[str, BaseModel]
+    observations: tuple[Observation, ...] | None
+    file: str
+    path: Path | None
+    base_dir: Path
+    file_hash: str | None
+    document: Mapping[str, Any] = field(default_factory=dict, repr=False, compare=False)
+
+    def section(self, name: str, kind: type[M]) -> M | None:
+        """The validated section ``name`` as ``kind``, or None when the study has none.
+
+        Parameters
+        ----------
+        name : str
+            A key of :data:`uncertainty.study.schema.SECTIONS`.
+        kind : type
+            The section's model class.
+
+        Returns
+        -------
+        BaseModel or None
+            The section as written.
+        """
+        sec = self.sections.get(name)
+        return sec if isinstance(sec, kind) else None
+
+    def with_head(self, **changes: Any) -> StudyInput:
+        """A copy with ``[study]`` keys changed (re-validated; the document echo follows).
+
+        Parameters
+        ----------
+        **changes
+            ``[study]`` keys and their new values as a study file would state them.
+
+        Returns
+        -------
+        StudyInput
+            The edited input.
+
+        Raises
+        ------
+        StudyError
+            A value ``[study]`` refuses (key ``study.<key>``).
+        """
+        data = {**self.head.model_dump(exclude_unset=True), **changes}
+        head = validate_section(StudySection, data, self.file, "study")
+        doc = dict(self.document)
+        doc["study"] = {**dict(doc.get("study", {})), **changes}
+        return StudyInput(head=head, parameters=self.parameters, correlations=self.correlations,
+                          sections=self.sections, observations=self.observations, file=self.file,
+                          path=self.path, base_dir=self.base_dir, file_hash=self.file_hash,
+                          document=_read_only(doc))
+
+    def with_parameters(self, overrides: Mapping[str, Any]) -> StudyInput:
+        """A copy with ``[parameters]`` entries added or replaced (a whole declaration each).
+
+        Parameters
+        ----------
+        overrides : Mapping of str to Any
+            Trade symbol -> declaration as a study file would state it.
+
+        Returns
+        -------
+        StudyInput
+            The edited input (its entries are read when the study is resolved).
+
+        Raises
+        ------
+        StudyError
+            ``overrides`` is not a table (key ``parameters``).
+        """
+        if not isinstance(overrides, Mapping):
+            raise study_error("[parameters] must be a table", self.file, "parameters", overrides)
+        params = {**self.parameters, **copy.deepcopy(dict(overrides))}
+        doc = dict(self.document)
+        doc["parameters"] = {**dict(doc.get("parameters", {})), **copy.deepcopy(dict(overrides))}
+        return StudyInput(head=self.head, parameters=_read_only(params), correlations=self.correlations,
+                          sections=self.sections, observations=self.observations, file=self.file,
+                          path=self.path, base_dir=self.base_dir, file_hash=self.file_hash,
+                          document=_read_only(doc))
+
+
+def _read_only(doc: Mapping[str, Any]) -> Mapping[str, Any]:
+    return MappingProxyType(dict(doc))
+
+
+def _loc(prefix: str, loc: Sequence[int | str]) -> str:
+    out = prefix
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out = f"{out}.{part}" if out else str(part)
+    return out
+
+
+def validate_section(model: type[M], data: Any, file: str, prefix: str) -> M:
+    """Validate one study-file table with its pydantic model.
+
+    Parameters
+    ----------
+    model : type
+        The section's model class (strict, unknown keys forbidden).
+    data : Any
+        The table as parsed from TOML.
+    file : str
+        The study file, for messages.
+    prefix : str
+        The table's key path (``"study"``, ``"observations[2]"``).
+
+    Returns
+    -------
+    BaseModel
+        The validated section (values as written).
+
+    Raises
+    ------
+    StudyError
+        The first problem, with its dotted key path and value.
+    """
+    if not isinstance(data, Mapping):
+        raise study_error("must be a table", file, prefix, data)
+    try:
+        return model.model_validate(dict(data))
+    except ValidationError as exc:
+        e = exc.errors(include_url=False)[0]
+        loc = tuple(p for p in e.get("loc", ()) if not (isinstance(p, str) and p.startswith("function-")))
+        msg = e.get("msg", "invalid")
+        if e.get("type") == "extra_forbidden":
+            msg = "unknown key"
+        value = e.get("input")
+        if isinstance(value, Mapping) and e.get("type") not in ("extra_forbidden",):
+            value = None if len(str(value)) > 200 else value
+        raise study_error(msg.replace("Value error, ", ""), file, _loc(prefix, loc), value) from None
+
+
+def validate_document(doc: Any, file: str, path: Path | None, base_dir: Path,
+                      file_hash: str | None = None) -> StudyInput:
+    """Validate a parsed study document section by section (nothing is resolved or converted).
+
+    Parameters
+    ----------
+    doc : Any
+        The parsed TOML document (a table).
+    file : str
+        The label for messages (the study file, or ``<study>``).
+    path : Path or None
+        The study file, or None for a document built in memory.
+    base_dir : Path
+        The folder data files are resolved against.
+    file_hash : str or None
+        sha256 of the file's bytes.
+
+    Returns
+    -------
+    StudyInput
+        The validated sections, and a read-only copy of the document for provenance.
+
+    Raises
+    ------
+    StudyError
+        An unknown section, a missing ``[study]``, or a section its model refuses.
+    """
+    if not isinstance(doc, Mapping):
+        raise study_error("a study is a TOML table", file, None, None)
+    for k in doc:
+        if k not in TOP_LEVEL:
+            raise study_error("unknown section (allowed: " + ", ".join(TOP_LEVEL) + ")", file, str(k), None)
+    if "study" not in doc:
+        raise study_error("missing [study] section", file, "study", None)
+    head = validate_section(StudySection, doc["study"], file, "study")
+    params = doc.get("parameters", {})
+    if not isinstance(params, Mapping):
+        raise study_error("[parameters] must be a table", file, "parameters", params)
+    sections = {name: validate_section(model, doc[name], file, name)
+                for name, model in SECTIONS.items() if name in doc}
+    observations: tuple[Observation, ...] | None = None
+    if "observations" in doc:
+        obs = doc["observations"]
+        if not isinstance(obs, list):
+            raise study_error("observations are [[observations]] tables", file, "observations", None)
+        observations = tuple(validate_section(Observation, o, file, f"observations[{i}]")
+                             for i, o in enumerate(obs))
+    correlations = (validate_section(CorrelationsSection, doc["correlations"], file, "correlations")
+                    if "correlations" in doc else None)
+    kept = copy.deepcopy(dict(doc))
+    return StudyInput(head=head, parameters=_read_only(kept.get("parameters", {})), correlations=correlations,
+                      sections=MappingProxyType(sections), observations=observations, file=file, path=path,
+                      base_dir=base_dir, file_hash=file_hash, document=_read_only(kept))
+
+
+# --------------------------------------------------------------------------------------------
+# 2. The tissue: prior set, mass, posture height
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class TissueBase:
+    """The tissue's prior set with the study's tissue mass and posture height.
+
+    Attributes
+    ----------
+    prior_set : PriorSet
+        ``priors/<tissue>.toml`` as loaded (never changed).
+    tissue_mass_kg : float or None
+        Organ or limb mass (kg).
+    height_cm : float or None
+        Height below the heart for the posture condition (cm).
+    """
+
+    prior_set: PriorSet
+    tissue_mass_kg: float | None
+    height_cm: float | None
+
+    @property
+    def density(self) -> float:
+        """Tissue density of the prior set (g/mL)."""
+        return self.prior_set.density
+
+    def declared(self) -> Declared:
+        """The prior set's own declarations, before conditions and overrides."""
+        return Declared(priors=dict(self.prior_set.priors), derived=dict(self.prior_set.derived))
+
+
+def _canonical(symbol: str, value: float | str, file: str, key: str) -> float:
+    try:
+        return float(units.to_canonical(symbol, value))
+    except UnitError as exc:
+        raise study_error(exc.reason, file, key, value) from None
+
+
+def tissue_base(head: StudySection, file: str) -> TissueBase:
+    """Load the tissue's prior set and read ``tissue_mass`` / ``posture_height`` of ``[study]``.
+
+    Parameters
+    ----------
+    head : StudySection
+        ``[study]``.
+    file : str
+        The study file, for messages.
+
+    Returns
+    -------
+    TissueBase
+        Prior set, tissue mass (kg) and height below the heart (cm).
+
+    Raises
+    ------
+    StudyError
+        Unknown tissue, a model form the prior set does not support, a glomerular study without a
+        kidney mass, or a mass / height out of range.
+    """
+    tissue_mass_kg = None
+    if head.tissue_mass is not None:
+        tissue_mass_kg = _canonical("tissue_mass", head.tissue_mass, file, "study.tissue_mass")
+        if not 0 < tissue_mass_kg < 1000 or not math.isfinite(tissue_mass_kg):
+            raise study_error("tissue_mass must be a positive mass below 1000 kg", file, "study.tissue_mass",
+                              head.tissue_mass)
+    try:
+        pset = load_prior_set(head.tissue)
+    except StudyError as exc:
+        if exc.key == "tissue":
+            raise study_error(exc.reason, file, "study.tissue", head.tissue) from None
+        raise
+    if head.model not in pset.models:
+        raise study_error(f"the {head.tissue} prior set supports the model forms {', '.join(pset.models)} only",
+                          file, "study.model", head.model)
+    mass_reason = tissue_mass_reason(head.model)
+    if mass_reason is not None and tissue_mass_kg is None:
+        raise study_error(f"the {head.model} form needs tissue_mass {mass_reason}", file, "study.tissue_mass", None)
+    height_cm = None
+    if head.posture_height is not None:
+        key = "study.posture_height"
+        if "posture" not in head.conditions:
+            raise study_error("posture_height applies with the posture condition (add \"posture\" to conditions)",
+                              file, key, head.posture_height)
+        height_cm = _canonical("height", head.posture_height, file, key)
+        if not 0 < height_cm <= 200:
+            raise study_error("posture_height is a height below the heart, above 0 and at most 200 cm", file, key,
+                              head.posture_height)
+    return TissueBase(prior_set=pset, tissue_mass_kg=tissue_mass_kg, height_cm=height_cm)
+
+
+# --------------------------------------------------------------------------------------------
+# 3-4. Conditions, then overrides
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Declared:
+    """The declarations at one step of the resolution.
+
+    Attributes
+    ----------
+    priors : Mapping of str to Prior
+        Symbol -> prior (canonical units).
+    derived : Mapping of str to Derivation
+        Target -> derivation (pi_c / pi_i from protein, Pc from pressures).
+    notes : tuple of str
+        What was changed, dropped or set aside so far, in plain words.
+    overridden : frozenset of str
+        The quantities ``[parameters]`` declares (their prior-set correlations are dropped).
+    """
+
+    priors: Mapping[str, Prior]
+    derived: Mapping[str, Derivation]
+    notes: tuple[str, ...] = ()
+    overridden: frozenset[str] = frozenset()
+
+
+def apply_conditions(declared: Declared, head: StudySection, base: TissueBase, file: str) -> Declared:
+    """Apply the study's conditions in the order listed.
+
+    Parameters
+    ----------
+    declared : Declared
+        The prior set's declarations.
+    head : StudySection
+        ``[study]`` (tissue, model form, conditions).
+    base : TissueBase
+        Density (g/mL) and posture height (cm).
+    file : str
+        The study file, for messages.
+
+    Returns
+    -------
+    Declared
+        The declarations after every condition, with a note for each change the form cannot use.
+
+    Raises
+    ------
+    StudyError
+        A condition listed twice, unknown, or not for this tissue.
+    """
+    conditions = load_conditions() if head.conditions else {}
+    priors = dict(declared.priors)
+    notes = list(declared.notes)
+    derived = dict(declared.derived)
+    seen: set[str] = set()
+    for i, cname in enumerate(head.conditions):
+        key = f"study.conditions[{i}]"
+        if cname in seen:
+            raise study_error("condition listed twice", file, key, cname)
+        seen.add(cname)
+        if cname not in conditions:
+            known = ", ".join(sorted(conditions)) or "none installed"
+            raise study_error(f"unknown condition (known: {known})", file, key, cname)
+        cond = conditions[cname]
+        if cond.applies_to is not None and head.tissue not in cond.applies_to:
+            raise study_error(f"condition {cname} applies to {', '.join(cond.applies_to)} only", file, key, cname)
+        before = priors
+        derived = dict(derived)  # Condition.apply writes the changed derivations into this copy
+        priors = cond.apply(before, tissue=head.tissue, notes=notes, derived=derived, density=base.density,
+                            height_cm=base.height_cm if cname == "posture" else None)
+        for sym in SOLVED[head.model]:
+            if sym in priors and priors[sym] is not before.get(sym):
+                notes.append(f"condition {cname} changes {sym}, but the {head.model} form solves {sym}; "
+                             "that change does not apply (its effect comes through the other quantities)")
+    return Declared(priors=priors, derived=derived, notes=tuple(notes), overridden=declared.overridden)
+
+
+def apply_overrides(declared: Declared, parameters: Mapping[str, Any], head: StudySection, base: TissueBase,
+                    file: str) -> Declared:
+    """Apply ``[parameters]``: each entry replaces the whole declaration of its quantity.
+
+    The replaced declaration's between-subject spread is not carried over: an override without
+    ``between_subject`` has none (DESIGN.md section 2). A ``from_protein`` entry replaces a prior by
+    a derivation; a plain entry replaces a derivation by a prior.
+
+    Parameters
+    ----------
+    declared : Declared
+        The declarations after the conditions.
+    parameters : Mapping of str to Any
+        ``[parameters]`` as written.
+    head : StudySection
+        ``[study]`` (model form).
+    base : TissueBase
+        Density (g/mL) and tissue mass (kg) for unit conversion.
+    file : str
+        The study file, for messages.
+
+    Returns
+    -------
+    Declared
+        The declarations with the overrides, ``overridden`` naming every quantity declared here.
+
+    Raises
+    ------
+    StudyError
+        An unknown quantity, a quantity the form solves, a bad declaration, or a quantity
+        declared twice (``parameters.<symbol>``).
+    """
+    ctx = Context(file=file, density=base.density, tissue_mass_kg=base.tissue_mass_kg)
+    solved = SOLVED[head.model]
+    priors = dict(declared.priors)
+    derived = dict(declared.derived)
+    notes = list(declared.notes)
+    overridden = set(declared.overridden)
+    declared_here: dict[str, str] = {}
+    for sym, decl in parameters.items():
+        key = f"parameters.{sym}"
+        if not isinstance(sym, str) or sym not in units.CANONICAL or sym in OUTPUT_ONLY:
+            raise study_error("unknown quantity (use a trade symbol such as Pc, Pi, pi_c, pi_i, sigma, Kf)", file,
+                              key, sym)
+        if sym in solved:
+            what = "always derived, never a prior" if sym == "pi_g" and head.model == "classic" else \
+                f"solved by the {head.model} form (lymph balance and protein flux), not sampled; remove it " \
+                "or use model = \"classic\""
+            raise study_error(f"{sym} is {what}", file, key, decl)
+        new, der = parse_entry(sym, decl, ctx=ctx, key=key)
+        for s in new:
+            if s in declared_here:
+                raise study_error(f"duplicate quantity: {s} is also declared by parameters.{declared_here[s]}",
+                                  file, key, s)
+            declared_here[s] = sym
+        if sym in derived:
+            notes.append(f"parameters.{sym} replaces the derivation {derived[sym].describe()}")
+            del derived[sym]
+        if der is not None:
+            derived[sym] = der
+            priors.pop(sym, None)
+        priors.update(new)
+        overridden.update(new)
+        overridden.add(sym)
+    return Declared(priors=priors, derived=derived, notes=tuple(notes), overridden=frozenset(overridden))
+
+
+# --------------------------------------------------------------------------------------------
+# 5. What the model form needs
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class FormInputs:
+    """What the model form takes from the declarations.
+
+    Attributes
+    ----------
+    priors : Mapping of str to Prior
+        The priors the form needs (directly or through a derivation), in input order.
+    derived : Mapping of str to Derivation
+        The derivations the form uses.
+    declared : Declared
+        Every declaration left after the solved quantities are set aside (the pool an analysis
+        section may still name, and the derivations correlations are read through).
+    """
+
+    priors: Mapping[str, Prior]
+    derived: Mapping[str, Derivation]
+    declared: Declared
+
+
+def _input_order(s: str) -> tuple[int, str]:
+    return (INPUT_ORDER.index(s), "") if s in INPUT_ORDER else (len(INPUT_ORDER), s)
+
+
+def select_inputs(declared: Declared, head: StudySection, file: str) -> FormInputs:
+    """Keep what the model form needs and set aside what it solves.
+
+    Parameters
+    ----------
+    declared : Declared
+        The declarations after conditions and overrides.
+    head : StudySection
+        ``[study]`` (tissue, model form).
+    file : str
+        The study file, for messages.
+
+    Returns
+    -------
+    FormInputs
+        The needed priors and derivations, and the remaining declarations.
+
+    Raises
+    ------
+    StudyError
+        A needed quantity without a prior (``parameters.<symbol>``).
+    """
+    model, tissue = head.model, head.tissue
+    priors = dict(declared.priors)
+    derived = dict(declared.derived)
+    notes = list(declared.notes)
+    set_aside = [s for s in SOLVED[model] if s in priors or s in derived]
+    for s in set_aside:
+        priors.pop(s, None)
+        derived.pop(s, None)
+    if set_aside and model != "classic":
+        notes.append(f"the {model} form solves {', '.join(set_aside)}; the prior set's declarations "
+                     "of them are not used")
+    needed: list[str] = []
+    used_derived: dict[str, Derivation] = {}
+    wanted = list(required_inputs(model, tissue)) + [s for s in optional_inputs(model, tissue)
+                                                     if s in priors or s in derived]
+    tissue_only = tissue_inputs(model, tissue)
+    for s in wanted:
+        if s in derived:
+            used_derived[s] = derived[s]
+            for inp in derived[s].inputs:
+                if inp not in priors:
+                    raise study_error(f"{s} is derived from {inp}, which has no prior", file, f"parameters.{inp}",
+                                      None)
+                if inp not in needed:
+                    needed.append(inp)
+        elif s in priors:
+            if s not in needed:
+                needed.append(s)
+        else:
+            why = f" for {tissue}" if s in tissue_only else ""
+            raise study_error(f"the {tissue} prior set gives no prior for {s}, which the {model} form needs"
+                              f"{why}; declare it under [parameters]", file, f"parameters.{s}", None)
+    unused_changed = sorted(s for s in priors if s not in needed and s in declared.overridden)
+    if unused_changed:
+        notes.append(f"declared but not used by the {model} form: {', '.join(unused_changed)}")
+    return FormInputs(priors={s: priors[s] for s in sorted(needed, key=_input_order)}, derived=used_derived,
+                      declared=Declared(priors=priors, derived=derived, notes=tuple(notes),
+                                        overridden=declared.overridden))
+
+
+def steady_references(head: StudySection, base: TissueBase, derived: Mapping[str, Derivation]
+                      ) -> tuple[float | None, str | None]:
+    """The steady forms' reference interstitial pressure and plasma protein input.
+
+    Parameters
+    ----------
+    head : StudySection
+        ``[study]`` (model form).
+    base : TissueBase
+        The tissue's prior set (its own Pi prior, before conditions).
+    derived : Mapping of str to Derivation
+        The derivations the form uses.
+
+    Returns
+    -------
+    Pi_ref : float or None
+        Median of the prior set's Pi prior (mmHg) in a steady form, else None.
+    steady_Cp : str or None
+        The total-protein input of pi_c in a steady form, else None.
+    """
+    if head.model not in STEADY_FORMS:
+        return None, None
+    pi = base.prior_set.priors.get("Pi")
+    d = derived.get("pi_c")
+    return (pi.median() if pi is not None else None,
+            d.inputs[0] if d is not None and d.formula == "total" else None)
+
+
+@dataclass(frozen=True)
+class FormFacts:
+    """What the form catalogue reads of a study being resolved (a ``forms.study_like.StudyLike``).
+
+    Attributes
+    ----------
+    model, tissue : str
+        Model form and tissue.
+    priors : Mapping of str to Prior
+        The study's priors so far.
+    derived : Mapping of str to Derivation
+        The derivations the form uses.
+    tissue_mass_kg : float or None
+        Organ mass (kg).
+    Pi_ref : float or None
+        Reference interstitial pressure (mmHg).
+    steady_Cp : str or None
+        The steady forms' plasma-protein input.
+    """
+
+    model: str
+    tissue: str
+    priors: Mapping[str, Prior]
+    derived: Mapping[str, Derivation]
+    tissue_mass_kg: float | None
+    Pi_ref: float | None
+    steady_Cp: str | None = None
+
+
+def form_outputs(model: str, tissue: str, tissue_mass_kg: float | None, derived: Mapping[str, Derivation],
+                 priors: Mapping[str, Prior], Pi_ref: float | None) -> list[str]:
+    """Output names the model form gives for a study being resolved (as ``Study.outputs`` will).
+
+    Parameters
+    ----------
+    model, tissue : str
+        Model form and tissue.
+    tissue_mass_kg : float or None
+        Organ mass (kg); whole-organ outputs need it.
+    derived : Mapping of str to Derivation
+        The derivations the form uses.
+    priors : Mapping of str to Prior
+        The study's priors so far (an oedema volume needs C_tis).
+    Pi_ref : float or None
+        Reference interstitial pressure (mmHg); an oedema volume needs it.
+
+    Returns
+    -------
+    list of str
+        Output names, in the form's order (from the form catalogue).
+    """
+    return study_outputs(FormFacts(model=model, tissue=tissue, priors=priors, derived=derived,
+                                   tissue_mass_kg=tissue_mass_kg, Pi_ref=Pi_ref))
+
+
+# --------------------------------------------------------------------------------------------
+# 6. Analysis sections and observations
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Kept:
+    """What resolving the sections adds to the study, accumulated entry by entry.
+
+    Attributes
+    ----------
+    priors : tuple of (str, Prior)
+        Declared quantities a section names that the form does not need (kept for the analysis).
+    instruments : tuple of (str, Instrument)
+        The instruments named, in order of first use.
+    notes : tuple of str
+        Remarks, in plain words.
+    """
+
+    priors: tuple[tuple[str, Prior], ...] = ()
+    instruments: tuple[tuple[str, Instrument], ...] = ()
+    notes: tuple[str, ...] = ()
+
+    def plus(self, *, prior: tuple[str, Prior] | None = None, instrument: tuple[str, Instrument] | None = None,
+             note: str | None = None) -> Kept:
+        """A copy with one more prior, instrument or note."""
+        return Kept(priors=self.priors + ((prior,) if prior else ()),
+                    instruments=self.instruments + ((instrument,) if instrument else ()),
+                    notes=self.notes + ((note,) if note else ()))
+
+
+@dataclass(frozen=True)
+class SectionContext:
+    """What the section steps read: the study so far, read-only.
+
+    Attributes
+    ----------
+    file : str
+        The study file, for messages.
+    base_dir : Path
+        The folder data files are resolved against.
+    tissue, model : str
+        From ``[study]``.
+    tissue_mass_kg : float or None
+        Organ mass (kg).
+    density : float
+        Tissue density (g/mL).
+    known : frozenset of str
+        Inputs, derived quantities and outputs of the study before the sections.
+    pool : Mapping of str to Prior
+        Every declaration left after the solved ones are set aside.
+    """
+
+    file: str
+    base_dir: Path
+    tissue: str
+    model: str
+    tissue_mass_kg: float | None
+    density: float
+    known: Set[str]
+    pool: Mapping[str, Prior]
+
+    def convert(self, sym: str, value: float, unit: str | None, key: str) -> float:
+        """``value`` in ``unit`` to the canonical unit of ``sym`` (StudyError at ``key``)."""
+        try:
+            return convert_unit(sym, value, unit, density=self.density, tissue_mass_kg=self.tissue_mass_kg)
+        except UnitError as exc:
+            raise study_error(exc.reason, self.file, key, unit if unit is not None else value) from None
+
+
+def keep_known(sym: str, key: str, kept: Kept, ctx: SectionContext) -> Kept:
+    """Check that a section names a quantity of the study; keep a declared one the form does not use.
+
+    Parameters
+    ----------
+    sym : str
+        The quantity named.
+    key : str
+        Its key path.
+    kept : Kept
+        What the sections added so far.
+    ctx : SectionContext
+        The study so far.
+
+    Returns
+    -------
+    Kept
+        ``kept``, with the prior of ``sym`` added when the form does not need it but it is declared.
+
+    Raises
+    ------
+    StudyError
+        ``sym`` is not a quantity of the study.
+    """
+    known = set(ctx.known) | {s for s, _ in kept.priors}
+    if sym in known:
+        return kept
+    if sym in ctx.pool:
+        return kept.plus(prior=(sym, ctx.pool[sym]))
+    raise study_error(f"not a quantity of this study (known: {', '.join(sorted(known))})", ctx.file, key, sym)
+
+
+def use_instrument(name: str, key: str, measures: str | None, kept: Kept, ctx: SectionContext
+                   ) -> tuple[Instrument, Kept]:
+    """Look up an instrument a section names.
+
+    Parameters
+    ----------
+    name : str
+        The instrument (``priors/instruments.toml``).
+    key : str
+        Its key path.
+    measures : str or None
+        The quantity it must read, or None for any.
+    kept : Kept
+        What the sections added so far.
+    ctx : SectionContext
+        The study so far.
+
+    Returns
+    -------
+    Instrument
+        The instrument.
+    Kept
+        ``kept`` with the instrument (and a note when it is listed for other tissues).
+
+    Raises
+    ------
+    StudyError
+        An unknown instrument, or one that reads another quantity.
+    """
+    catalogue = load_instruments()
+    inst = catalogue.get(name)
+    if inst is None:
+        known_i = ", ".join(sorted(catalogue)) or "none installed"
+        raise study_error(f"unknown instrument (known: {known_i})", ctx.file, key, name)
+    if measures is not None and inst.measures != measures:
+        raise study_error(f"instrument {name} measures {inst.measures}, not {measures}", ctx.file, key, name)
+    if inst.tissues is not None and ctx.tissue not in inst.tissues:
+        kept = kept.plus(note=f"instrument {name} is listed for {', '.join(inst.tissues)}, not {ctx.tissue}")
+    return inst, kept.plus(instrument=(name, inst))
+
+
+def _step_canonical(st: StepSpec, skey: str, ctx: SectionContext) -> StepSpec:
+    if st.parameter not in units.CANONICAL:
+        raise study_error("unknown quantity", ctx.file, f"{skey}.parameter", st.parameter)
+    to = ctx.convert(st.parameter, st.to, st.unit, f"{skey}.unit" if st.unit else f"{skey}.to")
+    return st.model_copy(update={"to": to, "unit": units.CANONICAL[st.parameter]})
+
+
+def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext) -> tuple[Observation, Kept]:
+    """One ``[[observations]]`` entry in canonical units, with its instrument's noise and data file.
+
+    Parameters
+    ----------
+    ob : Observation
+        The entry as written (not changed).
+    i : int
+        Its position (key path ``observations[i]``).
+    kept : Kept
+        What the sections added so far.
+    ctx : SectionContext
+        The study so far.
+
+    Returns
+    -------
+    Observation
+        A copy: ``value`` / ``sd`` in the canonical unit of the observed quantity, ``unit`` that unit,
+        ``declared_unit`` the unit as written; time-course steps in canonical units; the data file read.
+    Kept
+        ``kept`` with the instrument and any prior the observation names.
+
+    Raises
+    ------
+    StudyError
+        A kind the tissue or form refuses, an unknown quantity or instrument, a bad unit or data file.
+    """
+    key = f"observations[{i}]"
+    if ob.kind == "lymph_flow" and ctx.tissue in NO_LYMPH:
+        raise study_error(f"lymph-flow observations are refused for {ctx.tissue}: {NO_LYMPH[ctx.tissue]}",
+                          ctx.file, f"{key}.kind", ob.kind)
+    predicting = forms_predicting(ob.kind)
+    if predicting and ctx.model not in predicting:
+        wanted = " or ".join(f"model = \"{m}\"" for m in predicting)
+        raise study_error(f"a {ob.kind} observation needs {wanted} (the {ctx.model} form does not predict it)",
+                          ctx.file, f"{key}.kind", ob.kind)
+    sym = ob.parameter if ob.kind == "measurement" else OBS_SYMBOL.get(ob.kind)
+    if ob.kind == "measurement" and ob.parameter is not None:
+        kept = keep_known(ob.parameter, f"{key}.parameter", kept, ctx)
+    inst = None
+    if ob.instrument:
+        inst, kept = use_instrument(ob.instrument, f"{key}.instrument", sym if ob.kind == "measurement" else None,
+                                    kept, ctx)
+    if ob.kind == "clearance_rate" and ob.unit is not None:
+        try:
+            units.to_canonical("k_clear", 1.0, ob.unit)
+        except UnitError:
+            sym = "JL"  # a clearance in flow units (mL/min per basis)
+    update: dict[str, Any] = {}
+    if ob.kind != "volume_time_course" and sym is not None:
+        update["declared_unit"] = ob.unit
+        if ob.value is not None:
+            update["value"] = ctx.convert(sym, ob.value, ob.unit, f"{key}.unit" if ob.unit else f"{key}.value")
+        if ob.sd is not None:
+            update["sd"] = ctx.convert(sym, ob.sd, ob.unit, f"{key}.unit" if ob.unit else f"{key}.sd")
+        if ob.sd is None and ob.cv is None and inst is not None:
+            update["sd"], update["cv"] = inst.sd, inst.cv
+        update["unit"] = units.CANONICAL[sym]
+    if ob.kind == "volume_time_course":
+        if ob.step is not None:
+            update["step"] = _step_canonical(ob.step, f"{key}.step", ctx)
+        else:
+            update["steps"] = [_step_canonical(st, f"{key}.steps[{j}]", ctx) for j, st in enumerate(ob.steps or [])]
+    new = ob.model_copy(update=update)
+    if ob.file is not None:
+        path, data = read_csv(ob, ctx.base_dir, ctx.file, key)
+        new = new.with_data(path, data)
+    return new, kept
+
+
+def resolve_rank(rank: RankSection, kept: Kept, ctx: SectionContext) -> tuple[RankSection, Kept]:
+    """``[rank]`` with each candidate's noise in canonical units (or its instrument's).
+
+    Parameters
+    ----------
+    rank : RankSection
+        As written (not changed).
+    kept : Kept
+        What the sections added so far.
+    ctx : SectionContext
+        The study so far.
+
+    Returns
+    -------
+    RankSection
+        A copy with resolved candidates.
+    Kept
+        ``kept`` with the instruments and priors the candidates name.
+
+    Raises
+    ------
+    StudyError
+        An unknown quantity or instrument, or a bad unit.
+    """
+    candidates: list[Candidate] = []
+    for i, c in enumerate(rank.candidates):
+        key = f"rank.candidates[{i}]"
+        kept = keep_known(c.parameter, f"{key}.parameter", kept, ctx)
+        inst = None
+        if c.instrument:
+            inst, kept = use_instrument(c.instrument, f"{key}.instrument", c.parameter, kept, ctx)
+        update: dict[str, Any] = {}
+        if c.sd is not None:
+            update["sd"] = ctx.convert(c.parameter, c.sd, c.unit, f"{key}.unit" if c.unit else f"{key}.sd")
+            update["unit"] = units.CANONICAL[c.parameter]
+        elif c.cv is None and inst is not None:
+            update["sd"], update["cv"] = inst.sd, inst.cv
+        candidates.append(c.model_copy(update=update))
+    return rank.model_copy(update={"candidates": candidates}), kept
+
+
+def resolve_design(dsn: DesignSection, kept: Kept, ctx: SectionContext) -> tuple[DesignSection, Kept]:
+    """``[design]`` with effect shifts in canonical units and the design / analysis priors parsed.
+
+    Parameters
+    ----------
+    dsn : DesignSection
+        As written (not changed).
+    kept : Kept
+        What the sections added so far.
+    ctx : SectionContext
+        The study so far.
+
+    Returns
+    -------
+    DesignSection
+        A copy with resolved effects and the parsed priors (``design_prior_obj`` / ``analysis_prior_obj``).
+    Kept
+        ``kept`` with the priors the section names.
+
+    Raises
+    ------
+    StudyError
+        An unknown quantity, a bad unit or a bad prior declaration.
+    """
+    effects: list[Effect] = []
+    for ekey, eff in [("design.effect", dsn.effect)] + [
+            (f"design.extra_effects[{i}]", e) for i, e in enumerate(dsn.extra_effects)]:
+        kept = keep_known(eff.parameter, f"{ekey}.parameter", kept, ctx)
+        if eff.shift is not None and eff.unit:
+            eff = eff.model_copy(update={"shift": ctx.convert(eff.parameter, eff.shift, eff.unit, f"{ekey}.unit"),
+                                         "unit": units.CANONICAL[eff.parameter]})
+        effects.append(eff)
+    known = set(ctx.known) | {s for s, _ in kept.priors}
+    if dsn.endpoint not in known and dsn.endpoint not in CSV_COLUMNS:
+        kept = keep_known(dsn.endpoint, "design.endpoint", kept, ctx)
+    for sym in dsn.between_subject:
+        kept = keep_known(sym, f"design.between_subject.{sym}", kept, ctx)
+    for sym in dsn.within_subject:
+        kept = keep_known(sym, f"design.within_subject.{sym}", kept, ctx)
+    parsed: dict[str, Prior | None] = {}
+    for part in ("design_prior", "analysis_prior"):
+        spec = getattr(dsn, part)
+        parsed[part] = None if spec is None else parse_prior(
+            "dP", spec, ctx=Context(ctx.file, ctx.density), key=f"design.{part}", check_sign=False)
+    new = dsn.model_copy(update={"effect": effects[0], "extra_effects": effects[1:]})
+    return new.with_priors(parsed["design_prior"], parsed["analysis_prior"]), kept
+
+
+@dataclass(frozen=True)
+class Sections:
+    """The resolved analysis sections.
+
+    Attributes
+    ----------
+    propagate, sensitivity, rank, design, schedule, infer : section or None
+        The analysis sections (rank and design resolved to canonical units).
+    observations : list of Observation, or None
+        The observations in canonical units, with their data files.
+    kept : Kept
+        The priors, instruments and notes the sections add.
+    """
+
+    propagate: PropagateSection | None
+    sensitivity: SensitivitySection | None
+    rank: RankSection | None
+    design: DesignSection | None
+    schedule: ScheduleSection | None
+    infer: InferSection | None
+    observations: list[Observation] | None
+    kept: Kept
+
+
+def resolve_sections(inp: StudyInput, form: FormInputs, base: TissueBase, Pi_ref: float | None) -> Sections:
+    """Check and resolve the analysis sections and observations against the study's quantities.
+
+    Parameters
+    ----------
+    inp : StudyInput
+        The validated sections as written.
+    form : FormInputs
+        What the model form takes (its priors, derivations and the remaining declarations).
+    base : TissueBase
+        Tissue mass (kg) and density (g/mL) for unit conversion.
+    Pi_ref : float or None
+        The steady forms' reference interstitial pressure (mmHg), for the outputs offered.
+
+    Returns
+    -------
+    Sections
+        The resolved sections and what they add to the study.
+
+    Raises
+    ------
+    StudyError
+        An unknown output, quantity or instrument, a bad unit or a bad data file.
+    """
+    head, file = inp.head, inp.file
+    kept = Kept()
+    outputs = form_outputs(head.model, head.tissue, base.tissue_mass_kg, form.derived, form.priors, Pi_ref)
+    ctx = SectionContext(file=file, base_dir=inp.base_dir, tissue=head.tissue, model=head.model,
+                         tissue_mass_kg=base.tissue_mass_kg, density=base.density,
+                         known=frozenset(set(form.priors) | set(form.derived) | set(outputs)),
+                         pool=form.declared.priors)
+    propagate = inp.section("propagate", PropagateSection)
+    sensitivity = inp.section("sensitivity", SensitivitySection)
+    infer = inp.section("infer", InferSection)
+    if infer is not None and inp.observations is None:
+        kept = kept.plus(note="[infer] is set but the study has no [[observations]]: no inference runs")
+    if propagate is not None:
+        for i, o in enumerate(propagate.outputs or []):
+            if o not in outputs:
+                raise study_error(f"unknown output (the {head.model} form gives {', '.join(outputs)})", file,
+                                  f"propagate.outputs[{i}]", o)
+    if sensitivity is not None and sensitivity.output not in outputs:
+        raise study_error(f"unknown output (the {head.model} form gives {', '.join(outputs)})", file,
+                          "sensitivity.output", sensitivity.output)
+    observations: list[Observation] | None = None
+    if inp.observations is not None:
+        observations = []
+        for i, ob in enumerate(inp.observations):
+            new, kept = resolve_observation(ob, i, kept, ctx)
+            observations.append(new)
+    rank = inp.section("rank", RankSection)
+    if rank is not None:
+        rank, kept = resolve_rank(rank, kept, ctx)
+        with_kept = {**form.priors, **dict(kept.priors)}  # a kept C_tis offers the oedema volume
+        if rank.output not in form_outputs(head.model, head.tissue, base.tissue_mass_kg, form.derived, with_kept,
+                                           Pi_ref):
+            raise study_error("unknown output", file, "rank.output", rank.output)
+    design = inp.section("design", DesignSection)
+    if design is not None:
+        design, kept = resolve_design(design, kept, ctx)
+    return Sections(propagate=propagate, sensitivity=sensitivity, rank=rank, design=design,
+                    schedule=inp.section("schedule", ScheduleSection), infer=infer, observations=observations,
+                    kept=kept)
+
+
+# --------------------------------------------------------------------------------------------
+# 7. Correlations
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Correlations:
+    """The normal-score (Gaussian copula) correlations of a study.
+
+    Attributes
+    ----------
+    names : list of str
+        The uncertain inputs, in order (rows and columns of ``matrix``).
+    matrix : numpy.ndarray
+        The correlation matrix (dimensionless), symmetric, unit diagonal, positive definite.
+    pairs : list of (str, str, float)
+        The pairs kept.
+    notes : tuple of str
+        What was dropped or replaced.
+    """
+
+    names: list[str]
+    matrix: np.ndarray
+    pairs: list[tuple[str, str, float]]
+    notes: tuple[str, ...] = ()
+
+
+def _study_pairs(section: CorrelationsSection, names: Sequence[str], priors: Mapping[str, Prior],
+                 alias: Mapping[str, str], file: str) -> list[tuple[str, str, str, str, float]]:
+    """``[correlations]`` pairs as (written a, written b, input a, input b, rho), checked."""
+    out: list[tuple[str, str, str, str, float]] = []
+    seen: set[frozenset[str]] = set()
+    for i, pair in enumerate(section.pairs):
+        key = f"correlations.pairs[{i}]"
+        if len(pair) != 3 or not isinstance(pair[0], str) or not isinstance(pair[1], str) \
+                or isinstance(pair[2], str):
+            raise study_error("a pair is [quantity, quantity, rho]", file, key, pair)
+        a, b, rho = pair[0], pair[1], float(pair[2])
+        if not math.isfinite(rho) or not -1 <= rho <= 1:
+            raise study_error("a correlation lies between -1 and 1", file, f"{key}[2]", pair[2])
+        if a == b:
+            raise study_error("a quantity paired with itself", file, key, pair)
+        a2, b2 = alias.get(a, a), alias.get(b, b)
+        for j, (s, s2) in enumerate(((a, a2), (b, b2))):
+            if s2 not in names:
+                why = "fixed" if s2 in priors else "not an uncertain input of this study"
+                raise study_error(f"cannot correlate {s}: it is {why}", file, f"{key}[{j}]", s)
+        fs = frozenset((a2, b2))
+        if fs in seen:
+            raise study_error("this pair is given twice", file, key, pair)
+        seen.add(fs)
+        out.append((a, b, a2, b2, rho))
+    return out
+
+
+def resolve_correlations(priors: Mapping[str, Prior], derived: Mapping[str, Derivation],
+                         prior_set_pairs: Sequence[tuple[str, str, float]], overridden: Set[str],
+                         section: CorrelationsSection | None, model: str, file: str) -> Correlations:
+    """The correlation matrix over the uncertain inputs.
+
+    A prior-set pair involving an overridden quantity is dropped; a pair named on a derived
+    quantity with a single input (pi_c from Cp) applies to that input; ``[correlations]`` pairs
+    replace prior-set pairs over the same inputs. The matrix is refused, never repaired.
+
+    Parameters
+    ----------
+    priors : Mapping of str to Prior
+        The study's priors (fixed ones are not uncertain inputs).
+    derived : Mapping of str to Derivation
+        Every derivation left after the solved quantities are set aside.
+    prior_set_pairs : Sequence of (str, str, float)
+        The prior set's correlations.
+    overridden : Set of str
+        Quantities ``[parameters]`` declares.
+    section : CorrelationsSection or None
+        ``[correlations]`` as written.
+    model : str
+        The model form, for notes.
+    file : str
+        The study file, for messages.
+
+    Returns
+    -------
+    Correlations
+        Names, matrix, kept pairs and notes.
+
+    Raises
+    ------
+    StudyError
+        A malformed pair, a pair on a fixed or unknown quantity, a pair given twice, or a matrix that
+        is not positive definite (``correlations.pairs``).
+    """
+    names = [s for s, p in priors.items() if not p.is_fixed]
+    alias = {t: d.inputs[0] for t, d in derived.items() if len(d.inputs) == 1 and d.formula != "gaar"}
+    notes: list[str] = []
+    kept: dict[frozenset[str], tuple[str, str, float]] = {}
+    for (a, b, rho) in prior_set_pairs:
+        if a in overridden or b in overridden:
+            notes.append(f"prior-set correlation {a}-{b} ({rho:g}) dropped: {a if a in overridden else b} "
+                         "is overridden by the study")
+            continue
+        a2, b2 = alias.get(a, a), alias.get(b, b)
+        if a2 not in names or b2 not in names:
+            missing = a if a2 not in names else b
+            notes.append(f"prior-set correlation {a}-{b} ({rho:g}) not used: {missing} is not an uncertain "
+                         f"input of the {model} form")
+            continue
+        kept[frozenset((a2, b2))] = (a2, b2, rho)
+    if section is not None:
+        for a, b, a2, b2, rho in _study_pairs(section, names, priors, alias, file):
+            fs = frozenset((a2, b2))
+            if fs in kept:
+                notes.append(f"[correlations] {a}-{b} replaces the prior set's value {kept[fs][2]:g}")
+            kept[fs] = (a2, b2, rho)
+    corr = np.eye(len(names))
+    idx = {n: i for i, n in enumerate(names)}
+    for a, b, rho in kept.values():
+        corr[idx[a], idx[b]] = corr[idx[b], idx[a]] = rho
+    if names:
+        eig = float(np.linalg.eigvalsh(corr).min())
+        if not eig > 1e-10:
+            raise study_error("the correlations do not form a valid (positive-definite) correlation matrix; "
+                              f"smallest eigenvalue {eig:.3g}; revise the pairs (it is not repaired)", file,
+                              "correlations.pairs", [list(p) for p in kept.values()])
+    return Correlations(names=names, matrix=corr, pairs=list(kept.values()), notes=tuple(notes))
