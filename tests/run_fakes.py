@@ -42,6 +42,13 @@ class FakePrior:
 
 
 @dataclass
+class FakeSource:
+    """What a Study keeps of its file (``Study.source``): the document as written."""
+
+    document: dict
+
+
+@dataclass
 class FakeStudy:
     path: str
     hash: str
@@ -58,6 +65,7 @@ class FakeStudy:
     observations: Any = None
     rank: Any = None
     design: Any = None
+    source: FakeSource | None = None
 
 
 def load_fake(path: str | os.PathLike) -> FakeStudy:
@@ -79,7 +87,8 @@ def load_fake(path: str | os.PathLike) -> FakeStudy:
     return FakeStudy(path=str(path), hash=hashlib.sha256(data).hexdigest(), title=st.get("title", "fake"),
                      seed=st.get("seed", 1), priors=priors, names=list(priors),
                      propagate=doc.get("propagate"), sensitivity=doc.get("sensitivity"),
-                     observations=doc.get("observations"), rank=doc.get("rank"), design=doc.get("design"))
+                     observations=doc.get("observations"), rank=doc.get("rank"), design=doc.get("design"),
+                     source=FakeSource(document=doc))
 
 
 @dataclass

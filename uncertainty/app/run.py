@@ -20,7 +20,7 @@ import shlex
 import sys
 import time
 import traceback
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -132,16 +132,12 @@ def _now() -> str:
     return datetime.now(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
 
 
-def _raw_study(study: Any) -> dict[str, Any] | None:
-    path = getattr(study, "path", None)
-    if not path or not Path(path).is_file():
+def _raw_study(study: Any) -> Mapping[str, Any] | None:
+    """The study file's tables as written (``Study.source.document``); None for a study built in memory."""
+    source = getattr(study, "source", None)
+    if not getattr(study, "path", None) or source is None:
         return None
-    import tomllib
-
-    try:
-        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, tomllib.TOMLDecodeError, UnicodeDecodeError):
-        return None
+    return source.document
 
 
 def _dump(obj: Any) -> Any:
@@ -183,7 +179,7 @@ def prior_rows(study: Any) -> list[dict[str, Any]]:
     return rows
 
 
-def _data_files(study: Any, raw: dict[str, Any] | None) -> dict[str, str]:
+def _data_files(study: Any, raw: Mapping[str, Any] | None) -> dict[str, str]:
     """SHA-256 of every data file the observations name (relative to the study file)."""
     from uncertainty.app.bundle import sha256_file
 

@@ -118,8 +118,9 @@ def infer(study: Any, sampler: str | None = None, seed: int | None = None, chain
     if compare_models:
         from uncertainty.analyses.inference.compare import compare_forms
 
-        result.doc["comparison"] = compare_forms(study, sampler=opts["sampler"], seed=seed, chains=opts["chains"],
-                                                 draws=opts["draws"], tune=opts["tune"], observations=observations)
+        result.doc["comparison"] = compare_forms(study, fit=fit, sampler=opts["sampler"], seed=seed,
+                                                 chains=opts["chains"], draws=opts["draws"], tune=opts["tune"],
+                                                 observations=observations)
     if not result.passed:
         failing = "; ".join(result.doc["diagnostics"]["failing"][:8])
         result.doc["trustworthy"] = False

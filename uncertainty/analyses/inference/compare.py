@@ -1,31 +1,22 @@
 """Compare model forms (classic against revised) on the same observations by PSIS-LOO.
 
-Each form is refitted (the study re-resolved with ``[study] model`` replaced, so each form gets the
-quantities it needs), the pointwise log-likelihood is computed, and the expected log predictive
-density is estimated by Pareto-smoothed importance sampling leave-one-out (Vehtari, Gelman & Gabry
-2017, Stat Comput 27:1413-1432). With subject labels the unit left out is a subject: the
-log-likelihood of each subject's readings is summed before PSIS (leave-one-subject-out).
+Each form is refitted (the study re-resolved by ``Study.with_model``, as if ``[study] model`` were
+edited, so each form gets the quantities it needs), the pointwise log-likelihood is computed, and
+the expected log predictive density is estimated by Pareto-smoothed importance sampling
+leave-one-out (Vehtari, Gelman & Gabry 2017, Stat Comput 27:1413-1432). With subject labels the
+unit left out is a subject: the log-likelihood of each subject's readings is summed before PSIS (leave-one-subject-out).
 """
 
 from __future__ import annotations
 
-import copy
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
 
+from uncertainty.study import Study
+
 FORMS = ("classic", "revised")
-
-
-def _restudy(study: Any, form: str) -> Any:
-    from uncertainty.study import Study
-
-    doc = copy.deepcopy(getattr(study, "doc", None) or {})
-    if not doc:
-        raise ValueError("the study document is not available to re-resolve another model form")
-    doc.setdefault("study", {})["model"] = form
-    return Study.from_dict(doc, path=study.path, file_hash=study.hash)
 
 
 def _pointwise(built: Any, idata: Any) -> tuple[np.ndarray, str]:
@@ -53,20 +44,38 @@ def _pointwise(built: Any, idata: Any) -> tuple[np.ndarray, str]:
     return mat, "PSIS-LOO"
 
 
-def compare_forms(study: Any, *, sampler: str = "nutpie", seed: int | None = None, chains: int = 4,
-                  draws: int = 1000, tune: int = 1000,
+def compare_forms(study: Study, *, fit: Callable[..., Any], sampler: str = "nutpie", seed: int | None = None,
+                  chains: int = 4, draws: int = 1000, tune: int = 1000,
                   observations: Sequence[Any] | None = None) -> dict[str, Any]:
-    """elpd (and its se, Pareto k max) per model form and the preferred form; failures as notes."""
-    import arviz as az
+    """elpd (and its se, Pareto k max) per model form and the preferred form; failures as notes.
 
-    from uncertainty.analyses.inference.api import fit
+    Parameters
+    ----------
+    study : Study
+        The study; each form of :data:`FORMS` is fitted to ``study.with_model(form)``.
+    fit : callable
+        ``inference.fit`` (passed in, so that this module does not import the entry points that
+        call it).
+    sampler, seed, chains, draws, tune
+        Sampler settings, as for ``inference.fit``.
+    observations : Sequence, optional
+        Observations replacing the study's own (study-file form, canonical units).
+
+    Returns
+    -------
+    dict
+        ``method``, ``models`` (per form: ``elpd`` and ``se`` in nats, ``p_loo``, ``pareto_k_max``,
+        ``converged``), ``notes``; with both forms fitted, ``elpd_difference_revised_minus_classic``
+        and ``preferred``.
+    """
+    import arviz as az
 
     models: dict[str, Any] = {}
     notes: list[str] = []
     method = "PSIS-LOO"
     for form in FORMS:
         try:
-            st = study if form == study.model else _restudy(study, form)
+            st = study if form == study.model else study.with_model(form)
             res = fit(st, observations, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune)
             mat, method = _pointwise(res.built, res.idata)
             ll = az.from_dict(log_likelihood={"y": mat}, posterior={"_": np.zeros(mat.shape[:2])})

@@ -12,12 +12,15 @@ Observations are normalised into :class:`Observation` records (canonical units, 
 from __future__ import annotations
 
 import dataclasses
+import os
 from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
 
+from uncertainty.core import units
 from uncertainty.core.errors import InputError
+from uncertainty.forms import evaluate as model_mod
 
 #: fields an observation record may carry (study files spell them the same way)
 _FIELDS = ("kind", "parameter", "value", "sd", "cv", "unit", "instrument", "subject", "group",
@@ -119,8 +122,6 @@ def _symbol_for(kind: str, parameter: str | None) -> str | None:
 
 
 def _converts(symbol: str, unit: str) -> bool:
-    from uncertainty.core import units
-
     try:
         units.to_canonical(symbol, 1.0, unit)
     except InputError:
@@ -133,8 +134,6 @@ def _canonical_factor(symbol: str | None, unit: str | None, obs: Observation,
     """Multiplicative factor from ``unit`` to the canonical unit of ``symbol`` (1 without a unit)."""
     if not unit or symbol is None:
         return 1.0
-    from uncertainty.core import units
-
     try:
         return float(units.to_canonical(symbol, 1.0, unit, density=density))
     except InputError as exc:
@@ -206,10 +205,9 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
 
     ``observations`` overrides the study's own ``[[observations]]`` (records in the study-file
     form, e.g. simulated readings); ``model`` overrides ``[study] model`` (``classic``,
-    ``steady_state``, ``revised``), used by model comparison.
+    ``steady_state``, ``revised``), used by model comparison: the study is resolved again for
+    that form by ``Study.with_model``.
     """
-    from uncertainty.forms import evaluate as model_mod
-
     names = list(study.names)
     priors = {n: study.priors[n] for n in names}
     fixed: dict[str, float] = {}
@@ -219,9 +217,7 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
         if getattr(prior, "dist", None) == "fixed":
             fixed[name] = float(prior.params.get("value", prior.mean()))
     form = model or study.model
-    target = study
-    if model is not None and model != study.model:
-        target = _with_model(study, model)
+    target = study.with_model(model) if model is not None and model != study.model else study
 
     def evaluate(values: Mapping[str, Any], xp: Any) -> Mapping[str, Any]:
         return model_mod.evaluate(target, dict(values), xp=xp)
@@ -231,8 +227,6 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
     records = study.observations if observations is None else observations
     base_dir = None
     if file:
-        import os
-
         base_dir = os.path.dirname(os.path.abspath(file))
     corr = getattr(study, "correlation", None)
     return Problem(priors=priors, fixed=fixed, evaluate=evaluate,
@@ -241,22 +235,3 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
                    file=file, model_form=form, basis=getattr(study, "basis", "100g"),
                    density=density, study=target, base_dir=base_dir,
                    notes=list(getattr(study, "notes", []) or []))
-
-
-def _with_model(study: Any, model: str) -> Any:
-    """A copy of ``study`` with another model form (re-resolved when the study supports it)."""
-    for attr in ("with_model", "replace_model"):
-        fn = getattr(study, attr, None)
-        if callable(fn):
-            return fn(model)
-    try:
-        return dataclasses.replace(study, model=model)
-    except TypeError:
-        pass
-    if hasattr(study, "model_copy"):
-        return study.model_copy(update={"model": model})
-    import copy
-
-    clone = copy.copy(study)
-    clone.model = model
-    return clone
