@@ -24,6 +24,9 @@ from uncertainty.forms.catalogue import (  # noqa: F401
 from uncertainty.study.data_files import (  # noqa: F401
     read_csv,
 )
+from uncertainty.study.resolve import (  # noqa: F401
+    StudyInput,
+)
 from uncertainty.study.schema import (  # noqa: F401
     CSV_COLUMNS,
     OBS_SYMBOL,

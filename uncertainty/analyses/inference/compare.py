@@ -4,7 +4,8 @@ Each form is refitted (the study re-resolved by ``Study.with_model``, as if ``[s
 edited, so each form gets the quantities it needs), the pointwise log-likelihood is computed, and
 the expected log predictive density is estimated by Pareto-smoothed importance sampling
 leave-one-out (Vehtari, Gelman & Gabry 2017, Stat Comput 27:1413-1432). With subject labels the
-unit left out is a subject: the log-likelihood of each subject's readings is summed before PSIS (leave-one-subject-out).
+unit left out is a subject: the log-likelihood of each subject's readings is summed before PSIS
+(leave-one-subject-out).
 """
 
 from __future__ import annotations
