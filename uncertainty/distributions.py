@@ -48,7 +48,7 @@ import numpy as np
 __all__ = [
     "REGISTRY", "SPLINE_MIN_N", "SPLINE_Z", "Beta", "Distribution", "Fixed", "Gamma", "LogNormal",
     "Normal", "ParameterError", "PointMass", "Spread", "TruncNormal", "Triangular", "Uniform",
-    "distribution", "family", "log_sd_from_cv", "normal_cdf", "normal_quantile",
+    "distribution", "family", "is_normal_frozen", "log_sd_from_cv", "normal_cdf", "normal_quantile",
 ]
 
 
@@ -145,6 +145,21 @@ def normal_quantile(u: Any, xp: Any = np) -> Any:
 
         return ndtri(u)
     return math.sqrt(2.0) * xp.erfinv(2.0 * u - 1.0)
+
+
+def is_normal_frozen(frozen: Any) -> bool:
+    """True when ``frozen`` is a scipy.stats frozen normal distribution.
+
+    Parameters
+    ----------
+    frozen : object
+        A scipy.stats frozen distribution (or a :class:`PointMass`, or anything else).
+
+    Returns
+    -------
+    bool
+    """
+    return getattr(getattr(frozen, "dist", None), "name", "") == "norm"
 
 
 class PointMass:
