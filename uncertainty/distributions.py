@@ -79,8 +79,12 @@ class ParameterError(ValueError):
 def log_sd_from_cv(cv: Any, xp: Any = None) -> Any:
     """Standard deviation of log X for a lognormal X with coefficient of variation ``cv``.
 
-    s = sqrt(log(1 + cv^2)): the moments of the lognormal, cv^2 = exp(s^2) - 1 (common practice;
-    e.g. Limpert E, Stahel WA, Abbt M 2001, BioScience 51(5):341-352, table 1).
+    s = sqrt(log(1 + cv^2)), from the lognormal's moments: variance (exp(s^2) - 1) exp(2 mu + s^2)
+    and mean exp(mu + s^2 / 2), so cv^2 = exp(s^2) - 1 (common practice).
+
+    References
+    ----------
+    Aitchison J, Brown JAC 1957. The Lognormal Distribution. Cambridge University Press.
 
     Parameters
     ----------
@@ -337,6 +341,12 @@ class Distribution:
         return self._make_frozen()
 
     def _make_frozen(self) -> Any:
+        from scipy import stats  # type: ignore[import-untyped]
+
+        return self._scipy(stats)
+
+    def _scipy(self, stats: Any) -> Any:
+        """The family's scipy.stats frozen distribution, ``stats`` the scipy.stats module."""
         raise NotImplementedError
 
     def frozen(self) -> Any:
@@ -497,15 +507,13 @@ class Normal(Distribution):
     mean: float
     sd: float
 
-    name: ClassVar[str] = "normal"
-    required: ClassVar[tuple[str, ...]] = ("mean", "sd")
-    multiplied: ClassVar[tuple[str, ...]] = ("mean",)
-    shown_param: ClassVar[str] = "mean"
-    non_centred: ClassVar[bool] = True
+    name = "normal"
+    required = ("mean", "sd")
+    multiplied = ("mean",)
+    shown_param = "mean"
+    non_centred = True
 
-    def _make_frozen(self) -> Any:
-        from scipy import stats  # type: ignore[import-untyped]
-
+    def _scipy(self, stats: Any) -> Any:
         return stats.norm(loc=self.mean, scale=self.sd)
 
     def _closed_scores(self, z: Any, xp: Any) -> Any:
@@ -528,12 +536,12 @@ class TruncNormal(Distribution):
     lower: float | None = None
     upper: float | None = None
 
-    name: ClassVar[str] = "truncnormal"
-    required: ClassVar[tuple[str, ...]] = ("mean", "sd")
-    optional: ClassVar[tuple[str, ...]] = ("lower", "upper")
-    multiplied: ClassVar[tuple[str, ...]] = ("mean", "lower", "upper")
-    shown_param: ClassVar[str] = "lower"
-    bounded: ClassVar[bool] = True
+    name = "truncnormal"
+    required = ("mean", "sd")
+    optional = ("lower", "upper")
+    multiplied = ("mean", "lower", "upper")
+    shown_param = "lower"
+    bounded = True
 
     @property
     def bounds(self) -> tuple[float, float]:
@@ -554,9 +562,7 @@ class TruncNormal(Distribution):
         if not mass > 1e-12:
             raise ParameterError("the truncation interval holds no probability of the parent normal", "mean")
 
-    def _make_frozen(self) -> Any:
-        from scipy import stats
-
+    def _scipy(self, stats: Any) -> Any:
         lo, hi = self.bounds
         return stats.truncnorm((lo - self.mean) / self.sd, (hi - self.mean) / self.sd,
                                loc=self.mean, scale=self.sd)
@@ -578,12 +584,12 @@ class LogNormal(Distribution):
     median: float
     gsd: float
 
-    name: ClassVar[str] = "lognormal"
-    required: ClassVar[tuple[str, ...]] = ("median", "gsd")
-    multiplied: ClassVar[tuple[str, ...]] = ("median",)
-    shown_param: ClassVar[str] = "median"
-    non_centred: ClassVar[bool] = True
-    positive_support: ClassVar[bool] = True
+    name = "lognormal"
+    required = ("median", "gsd")
+    multiplied = ("median",)
+    shown_param = "median"
+    non_centred = True
+    positive_support = True
 
     def check(self, shown: Mapping[str, Any] | None = None) -> None:
         """Raise :class:`ParameterError` unless median > 0 and gsd > 1."""
@@ -592,9 +598,7 @@ class LogNormal(Distribution):
         if not self.gsd > 1:
             raise ParameterError("a geometric sd (gsd) must be > 1", "gsd")
 
-    def _make_frozen(self) -> Any:
-        from scipy import stats
-
+    def _scipy(self, stats: Any) -> Any:
         return stats.lognorm(s=math.log(self.gsd), scale=self.median)
 
     def _closed_scores(self, z: Any, xp: Any) -> Any:
@@ -623,11 +627,11 @@ class Beta(Distribution):
     mean: float
     sd: float
 
-    name: ClassVar[str] = "beta"
-    required: ClassVar[tuple[str, ...]] = ("mean", "sd")
-    multiplied: ClassVar[tuple[str, ...]] = ("mean",)
-    shown_param: ClassVar[str] = "mean"
-    spline: ClassVar[bool] = True
+    name = "beta"
+    required = ("mean", "sd")
+    multiplied = ("mean",)
+    shown_param = "mean"
+    spline = True
 
     @property
     def shapes(self) -> tuple[float, float]:
@@ -644,9 +648,7 @@ class Beta(Distribution):
             m = (shown or {}).get("mean", self.mean)
             raise ParameterError(f"sd too large for a beta with mean {m:g} (needs sd^2 < mean (1 - mean))", "sd")
 
-    def _make_frozen(self) -> Any:
-        from scipy import stats
-
+    def _scipy(self, stats: Any) -> Any:
         a, b = self.shapes
         return stats.beta(a, b)
 
@@ -662,12 +664,12 @@ class Gamma(Distribution):
     mean: float
     sd: float
 
-    name: ClassVar[str] = "gamma"
-    required: ClassVar[tuple[str, ...]] = ("mean", "sd")
-    multiplied: ClassVar[tuple[str, ...]] = ("mean", "sd")
-    shown_param: ClassVar[str] = "mean"
-    positive_support: ClassVar[bool] = True
-    spline: ClassVar[bool] = True
+    name = "gamma"
+    required = ("mean", "sd")
+    multiplied = ("mean", "sd")
+    shown_param = "mean"
+    positive_support = True
+    spline = True
 
     @property
     def shape_scale(self) -> tuple[float, float]:
@@ -680,9 +682,7 @@ class Gamma(Distribution):
         if not self.mean > 0:
             raise ParameterError("a gamma mean must be > 0", "mean")
 
-    def _make_frozen(self) -> Any:
-        from scipy import stats
-
+    def _scipy(self, stats: Any) -> Any:
         k, theta = self.shape_scale
         return stats.gamma(k, scale=theta)
 
@@ -711,21 +711,19 @@ class Uniform(Distribution):
     lower: float
     upper: float
 
-    name: ClassVar[str] = "uniform"
-    required: ClassVar[tuple[str, ...]] = ("lower", "upper")
-    multiplied: ClassVar[tuple[str, ...]] = ("lower", "upper")
-    shown_param: ClassVar[str] = "lower"
-    bounded: ClassVar[bool] = True
-    hard_bounds: ClassVar[bool] = True
+    name = "uniform"
+    required = ("lower", "upper")
+    multiplied = ("lower", "upper")
+    shown_param = "lower"
+    bounded = True
+    hard_bounds = True
 
     def check(self, shown: Mapping[str, Any] | None = None) -> None:
         """Raise :class:`ParameterError` unless lower < upper."""
         if not self.lower < self.upper:
             raise ParameterError("lower must be below upper", "lower", ("lower", "upper"))
 
-    def _make_frozen(self) -> Any:
-        from scipy import stats
-
+    def _scipy(self, stats: Any) -> Any:
         return stats.uniform(loc=self.lower, scale=self.upper - self.lower)
 
     def _closed_scores(self, z: Any, xp: Any) -> Any:
@@ -752,12 +750,12 @@ class Triangular(Distribution):
     mode: float
     upper: float
 
-    name: ClassVar[str] = "triangular"
-    required: ClassVar[tuple[str, ...]] = ("lower", "mode", "upper")
-    multiplied: ClassVar[tuple[str, ...]] = ("lower", "mode", "upper")
-    shown_param: ClassVar[str] = "lower"
-    bounded: ClassVar[bool] = True
-    hard_bounds: ClassVar[bool] = True
+    name = "triangular"
+    required = ("lower", "mode", "upper")
+    multiplied = ("lower", "mode", "upper")
+    shown_param = "lower"
+    bounded = True
+    hard_bounds = True
 
     def check(self, shown: Mapping[str, Any] | None = None) -> None:
         """Raise :class:`ParameterError` unless lower < upper and lower <= mode <= upper."""
@@ -766,9 +764,7 @@ class Triangular(Distribution):
         if not self.lower <= self.mode <= self.upper:
             raise ParameterError("the mode must lie between lower and upper", "mode")
 
-    def _make_frozen(self) -> Any:
-        from scipy import stats
-
+    def _scipy(self, stats: Any) -> Any:
         w = self.upper - self.lower
         return stats.triang((self.mode - self.lower) / w, loc=self.lower, scale=w)
 
@@ -799,11 +795,11 @@ class Fixed(Distribution):
 
     value: float
 
-    name: ClassVar[str] = "fixed"
-    required: ClassVar[tuple[str, ...]] = ("value",)
-    multiplied: ClassVar[tuple[str, ...]] = ("value",)
-    shown_param: ClassVar[str] = "value"
-    is_fixed: ClassVar[bool] = True
+    name = "fixed"
+    required = ("value",)
+    multiplied = ("value",)
+    shown_param = "value"
+    is_fixed = True
 
     def _make_frozen(self) -> Any:
         return PointMass(self.value)

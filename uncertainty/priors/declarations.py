@@ -8,23 +8,11 @@ between-subject spread, an origin and a note. From one declaration come
   ``from_normal_scores(z)``), and
 - a PyMC random variable (inference: ``pymc(name)``).
 
-Distributions and their parameters (all in the declared ``unit``):
-
-=============  =======================================  =========================================
-dist           parameters                               meaning
-=============  =======================================  =========================================
-normal         mean, sd                                 Normal(mean, sd)
-truncnormal    mean, sd, lower, upper                   Normal(mean, sd) cut to [lower, upper];
-                                                        mean and sd are the *parent* normal's;
-                                                        either bound may be left out (infinite)
-lognormal      median, gsd                              log X ~ Normal(log median, log gsd), gsd > 1
-beta           mean, sd                                 Beta with that mean and sd (0 < mean < 1,
-                                                        sd^2 < mean (1 - mean))
-gamma          mean, sd                                 Gamma with shape (mean/sd)^2, mean > 0
-uniform        lower, upper                             Uniform(lower, upper)
-triangular     lower, mode, upper                       triangular on [lower, upper]
-fixed          value                                    a known constant
-=============  =======================================  =========================================
+Distributions and their parameters (all in the declared ``unit``): ``normal`` (mean, sd),
+``truncnormal`` (mean, sd, optional lower, upper), ``lognormal`` (median, gsd), ``beta`` (mean, sd),
+``gamma`` (mean, sd), ``uniform`` (lower, upper), ``triangular`` (lower, mode, upper), ``fixed``
+(value); the families, their checks, scipy and PyMC forms and score maps live in
+:mod:`uncertainty.distributions`, the between-subject spread in its ``Spread``.
 
 A bare number, or a string such as ``"12 mmHg"``, is a ``fixed`` declaration.
 
