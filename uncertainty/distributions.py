@@ -123,7 +123,7 @@ def normal_cdf(z: Any, xp: Any = np) -> Any:
         Probabilities in [0, 1].
     """
     if xp is np:
-        from scipy.special import ndtr  # type: ignore[import-untyped]
+        from scipy.special import ndtr
 
         return ndtr(z)
     return 0.5 * xp.erfc(-z / math.sqrt(2.0))
@@ -233,7 +233,7 @@ _splines: dict[Distribution, np.ndarray] = {}
 
 def _spline_for(dist: Distribution) -> np.ndarray:
     """Cubic-spline coefficients (4, m) of a family's exact score map on the uniform grid (cached)."""
-    from scipy.interpolate import CubicSpline  # type: ignore[import-untyped]
+    from scipy.interpolate import CubicSpline
 
     if dist not in _splines:
         grid = np.linspace(SPLINE_Z[0], SPLINE_Z[1], int(SPLINE_Z[2]))
@@ -341,7 +341,7 @@ class Distribution:
         return self._make_frozen()
 
     def _make_frozen(self) -> Any:
-        from scipy import stats  # type: ignore[import-untyped]
+        from scipy import stats
 
         return self._scipy(stats)
 
@@ -460,7 +460,7 @@ class Distribution:
         -------
         pymc random variable (a ``pm.Deterministic`` constant for ``fixed``)
         """
-        import pymc as pm  # type: ignore[import-untyped]
+        import pymc as pm
 
         cls, args = self._pymc_args()
         return getattr(pm, cls)(name, **args, **kwargs)
