@@ -9,8 +9,9 @@ Everything samples the open unit cube (0, 1)^k. A point's columns are laid out a
 
 A cube column ``u`` becomes a normal score ``z = Phi^-1(u)``. The typical-subject scores are
 correlated through the study's correlation matrix (a Gaussian copula, Cholesky factor applied to
-independent scores); the between-subject scores stay independent. The priors map scores to values
-(``Prior.from_normal_scores``, exact for normal and lognormal; ``Prior.individual`` for the
+independent scores); the between-subject scores stay independent. The priors' distribution
+families map scores to values (``uncertainty.distributions``: ``Distribution.from_scores``, with a
+spline of the exact map for large beta and gamma batches; ``Prior.individual`` for the
 between-subject layer).
 
 Designs: ``qmc`` scrambled Sobol' (scipy.stats.qmc, LMS + digital shift), ``lhs`` Latin hypercube,
@@ -156,53 +157,33 @@ def normal_scores(study: Any, u: np.ndarray, layer: str = "individual") -> np.nd
     return z
 
 
-# Score maps that are exact and cheap in closed form; others (beta, gamma, truncnormal, ...) go
-# through the inverse CDF, which scipy evaluates slowly. For large batches those use a cubic spline
-# of the exact map on a fine grid of scores (the fast path; tests/test_sampling.py checks it against
-# the exact path to 1e-9 relative), with the exact map outside the grid.
-_CLOSED_FORM = ("normal", "lognormal", "fixed")
-_SPLINE_DISTS = ("beta", "gamma")  # smooth score maps with a slow scipy inverse CDF
-_SPLINE_MIN_N = 4096
-_SPLINE_Z = (-8.0, 8.0, 4001)
-_splines: dict[tuple, Any] = {}
-
-
-def _spline_for(prior: Any) -> Any:
-    """Cubic-spline coefficients (4, m) of a prior's exact score map on a uniform grid (cached)."""
-    from scipy.interpolate import CubicSpline
-
-    key = (prior.dist, tuple(sorted(prior.params.items())))
-    if key not in _splines:
-        grid = np.linspace(*_SPLINE_Z)
-        cs = CubicSpline(grid, np.asarray(prior.from_normal_scores(grid), dtype=float))
-        _splines[key] = np.ascontiguousarray(cs.c)
-        if len(_splines) > 256:  # keep the cache small
-            _splines.pop(next(iter(_splines)))
-    return _splines[key]
-
-
-def _spline_eval(c: np.ndarray, z: np.ndarray) -> np.ndarray:
-    """Evaluate uniform-grid spline coefficients at z (|z| <= 8): direct interval index, Horner."""
-    lo, hi, m = _SPLINE_Z
-    h = (hi - lo) / (m - 1)
-    idx = np.clip(((z - lo) / h).astype(np.intp), 0, m - 2)
-    t = z - (lo + idx * h)
-    return ((c[0, idx] * t + c[1, idx]) * t + c[2, idx]) * t + c[3, idx]
-
-
 def scores_to_values(prior: Any, z: np.ndarray, *, exact: bool = False) -> np.ndarray:
-    """One prior's values (canonical unit) at normal scores z: closed form for normal/lognormal,
-    a spline of the exact inverse-CDF map for large batches of beta and gamma priors (unless
-    ``exact``), the exact map otherwise and outside the spline's grid (|z| > 8)."""
+    """One prior's values (canonical unit) at normal scores z.
+
+    Through the prior's distribution family (``Distribution.from_scores``): closed forms where the
+    family has one, a cubic spline of the exact inverse-CDF map for large batches of beta and gamma
+    priors (unless ``exact``; the exact map outside the spline's grid, |z| > 8), the exact map
+    otherwise. A prior-like object without a ``distribution`` uses its ``from_normal_scores``.
+
+    Parameters
+    ----------
+    prior : Prior
+        The declaration.
+    z : array
+        Standard normal scores (dimensionless).
+    exact : bool
+        Never use the spline.
+
+    Returns
+    -------
+    array
+        Values in the canonical unit of the prior's quantity, shaped like ``z``.
+    """
     z = np.asarray(z, dtype=float)
-    if exact or getattr(prior, "dist", None) not in _SPLINE_DISTS or z.size < _SPLINE_MIN_N \
-            or not hasattr(prior, "params"):
+    dist = getattr(prior, "distribution", None)
+    if dist is None:
         return np.asarray(prior.from_normal_scores(z), dtype=float)
-    out = _spline_eval(_spline_for(prior), np.clip(z, _SPLINE_Z[0], _SPLINE_Z[1]))
-    outside = np.abs(z) > _SPLINE_Z[1]
-    if outside.any():
-        out[outside] = prior.from_normal_scores(z[outside])
-    return out
+    return np.asarray(dist.from_scores(z, np, fast=not exact), dtype=float)
 
 
 def from_scores(study: Any, z: np.ndarray, layer: str = "individual") -> dict[str, np.ndarray]:

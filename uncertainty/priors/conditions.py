@@ -13,12 +13,12 @@ from typing import Any
 
 from uncertainty.core.errors import StudyError, UnitError, study_error
 from uncertainty.core.toml_io import read_toml
+from uncertainty.distributions import distribution
 from uncertainty.priors.declarations import (
     Context,
     Prior,
     _check_params,
     _check_sign,
-    frozen_distribution,
     is_number,
     parse_prior,
 )
@@ -111,10 +111,7 @@ def _modify_prior(prior: Prior, m: Modifier, file: Any, key: str, density: float
     p = dict(prior.params)
     dist = prior.dist
     if m.multiply is not None:
-        locs = {"normal": ("mean",), "truncnormal": ("mean", "lower", "upper"), "lognormal": ("median",),
-                "beta": ("mean",), "gamma": ("mean", "sd"), "uniform": ("lower", "upper"),
-                "triangular": ("lower", "mode", "upper"), "fixed": ("value",)}[dist]
-        for k in locs:
+        for k in prior.distribution.multiplied:
             if k in p:
                 p[k] *= m.multiply
     if m.shift is not None:
@@ -122,27 +119,15 @@ def _modify_prior(prior: Prior, m: Modifier, file: Any, key: str, density: float
             if k in p:
                 p[k] += m.shift
     if m.extra_sd:
-        e = m.extra_sd
-        if dist == "fixed":
-            dist, p = "normal", {"mean": p["value"], "sd": e}
-        elif dist in ("normal", "truncnormal", "beta", "gamma"):
-            p["sd"] = math.hypot(p["sd"], e)
-        elif dist == "lognormal":
-            p["gsd"] = math.exp(math.hypot(math.log(p["gsd"]), e / p["median"]))
-        else:  # uniform / triangular: widen about the mode / centre so the variance grows by e^2
-            var = frozen_distribution(dist, tuple(sorted(p.items()))).var()
-            f = math.sqrt((var + e * e) / var)
-            c = p.get("mode", 0.5 * (p["lower"] + p["upper"]))
-            p["lower"] = c - f * (c - p["lower"])
-            p["upper"] = c + f * (p["upper"] - c)
-            if "mode" in p:
-                p["mode"] = c
+        # the family adds the spread (fixed -> normal; an sd in quadrature; lognormal as a cv at the
+        # median; uniform / triangular widened about the mode / centre so the variance grows by e^2)
+        wide = distribution(dist, p).widened(m.extra_sd)
+        dist, p = wide.name, wide.params()
     if m.extra_gsd:
         g = math.log(m.extra_gsd)
-        if dist == "lognormal":
-            p["gsd"] = math.exp(math.hypot(math.log(p["gsd"]), g))
-        elif dist == "fixed":
-            dist, p = "lognormal", {"median": p["value"], "gsd": m.extra_gsd}
+        wide_log = distribution(dist, p).widened_log(m.extra_gsd)  # lognormal, fixed -> lognormal
+        if wide_log is not None:
+            dist, p = wide_log.name, wide_log.params()
         else:
             # convert the multiplicative uncertainty to an sd at the location
             loc = prior.median()

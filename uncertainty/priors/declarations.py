@@ -8,23 +8,11 @@ between-subject spread, an origin and a note. From one declaration come
   ``from_normal_scores(z)``), and
 - a PyMC random variable (inference: ``pymc(name)``).
 
-Distributions and their parameters (all in the declared ``unit``):
-
-=============  =======================================  =========================================
-dist           parameters                               meaning
-=============  =======================================  =========================================
-normal         mean, sd                                 Normal(mean, sd)
-truncnormal    mean, sd, lower, upper                   Normal(mean, sd) cut to [lower, upper];
-                                                        mean and sd are the *parent* normal's;
-                                                        either bound may be left out (infinite)
-lognormal      median, gsd                              log X ~ Normal(log median, log gsd), gsd > 1
-beta           mean, sd                                 Beta with that mean and sd (0 < mean < 1,
-                                                        sd^2 < mean (1 - mean))
-gamma          mean, sd                                 Gamma with shape (mean/sd)^2, mean > 0
-uniform        lower, upper                             Uniform(lower, upper)
-triangular     lower, mode, upper                       triangular on [lower, upper]
-fixed          value                                    a known constant
-=============  =======================================  =========================================
+Distributions and their parameters (all in the declared ``unit``): ``normal`` (mean, sd),
+``truncnormal`` (mean, sd, optional lower, upper), ``lognormal`` (median, gsd), ``beta`` (mean, sd),
+``gamma`` (mean, sd), ``uniform`` (lower, upper), ``triangular`` (lower, mode, upper), ``fixed``
+(value); the families, their checks, scipy and PyMC forms and score maps live in
+:mod:`uncertainty.distributions`, the between-subject spread in its ``Spread``.
 
 A bare number, or a string such as ``"12 mmHg"``, is a ``fixed`` declaration.
 
@@ -49,7 +37,6 @@ Numbers in this module are conventions, not physiology, and carry no origin of t
 from __future__ import annotations
 
 import dataclasses
-import functools
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -57,18 +44,20 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.core.errors import StudyError, UnitError, study_error
+from uncertainty.core.errors import UnitError, study_error
+from uncertainty.distributions import (
+    REGISTRY,
+    Distribution,
+    Fixed,
+    ParameterError,
+    PointMass,  # noqa: F401 - re-exported (uncertainty.priors.PointMass)
+    Spread,
+    distribution,
+)
 
-#: Distribution name -> (required parameters, optional parameters).
+#: Distribution name -> (required parameters, optional parameters) (from the family registry).
 DISTRIBUTIONS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
-    "normal": (("mean", "sd"), ()),
-    "truncnormal": (("mean", "sd"), ("lower", "upper")),
-    "lognormal": (("median", "gsd"), ()),
-    "beta": (("mean", "sd"), ()),
-    "gamma": (("mean", "sd"), ()),
-    "uniform": (("lower", "upper"), ()),
-    "triangular": (("lower", "mode", "upper"), ()),
-    "fixed": (("value",), ()),
+    name: (cls.required, cls.optional) for name, cls in REGISTRY.items()
 }
 
 
@@ -137,87 +126,13 @@ def is_number(x: Any) -> bool:
     return isinstance(x, int | float) and not isinstance(x, bool)
 
 
-class PointMass:
-    """A degenerate distribution at ``value`` with the scipy.stats frozen-distribution methods."""
-
-    def __init__(self, value: float) -> None:
-        self.value = float(value)
-
-    def ppf(self, q: Any) -> np.ndarray:
-        """Quantile: ``value`` everywhere."""
-        return np.full(np.shape(q), self.value)
-
-    isf = ppf
-
-    def cdf(self, x: Any) -> np.ndarray:
-        """Cumulative probability: 0 below ``value``, 1 from it on."""
-        return (np.asarray(x, dtype=float) >= self.value).astype(float)
-
-    def sf(self, x: Any) -> np.ndarray:
-        """Survival function 1 - cdf."""
-        return 1.0 - self.cdf(x)
-
-    def rvs(self, size: Any = None, random_state: Any = None) -> Any:
-        """Draws: ``value`` repeated."""
-        return self.value if size is None else np.full(size, self.value)
-
-    def mean(self) -> float:
-        return self.value
-
-    def median(self) -> float:
-        return self.value
-
-    def std(self) -> float:
-        return 0.0
-
-    def var(self) -> float:
-        return 0.0
-
-    def interval(self, confidence: float) -> tuple[float, float]:
-        return (self.value, self.value)
-
-    def support(self) -> tuple[float, float]:
-        return (self.value, self.value)
-
-
-@functools.lru_cache(maxsize=4096)
 def frozen_distribution(dist: str, items: tuple[tuple[str, float], ...]) -> Any:
-    from scipy import stats
+    """The scipy.stats frozen distribution of ``dist`` with parameters ``items`` ((name, value) pairs).
 
-    p = dict(items)
-    if dist == "normal":
-        return stats.norm(loc=p["mean"], scale=p["sd"])
-    if dist == "truncnormal":
-        lo, hi = p.get("lower", -math.inf), p.get("upper", math.inf)
-        return stats.truncnorm((lo - p["mean"]) / p["sd"], (hi - p["mean"]) / p["sd"],
-                               loc=p["mean"], scale=p["sd"])
-    if dist == "lognormal":
-        return stats.lognorm(s=math.log(p["gsd"]), scale=p["median"])
-    if dist == "beta":
-        a, b = _beta_ab(p["mean"], p["sd"])
-        return stats.beta(a, b)
-    if dist == "gamma":
-        k, theta = _gamma_k_theta(p["mean"], p["sd"])
-        return stats.gamma(k, scale=theta)
-    if dist == "uniform":
-        return stats.uniform(loc=p["lower"], scale=p["upper"] - p["lower"])
-    if dist == "triangular":
-        w = p["upper"] - p["lower"]
-        return stats.triang((p["mode"] - p["lower"]) / w, loc=p["lower"], scale=w)
-    if dist == "fixed":
-        return PointMass(p["value"])
-    raise ValueError(f"unknown distribution {dist!r}")  # pragma: no cover (validated earlier)
-
-
-def _beta_ab(mean: float, sd: float) -> tuple[float, float]:
-    """Beta shape parameters (a, b) from mean and sd (method of moments)."""
-    nu = mean * (1.0 - mean) / sd**2 - 1.0
-    return mean * nu, (1.0 - mean) * nu
-
-
-def _gamma_k_theta(mean: float, sd: float) -> tuple[float, float]:
-    """Gamma shape k and scale theta from mean and sd."""
-    return (mean / sd) ** 2, sd**2 / mean
+    Raises:
+        ValueError: unknown distribution.
+    """
+    return distribution(dist, items).frozen()
 
 
 @dataclass(frozen=True)
@@ -247,58 +162,54 @@ class Prior:
     note: str = ""
     declared_unit: str | None = None
 
-    # ---- scipy side
+    # ---- the distribution family (uncertainty.distributions) and thin delegations to it
+    @property
+    def distribution(self) -> Distribution:
+        """The family instance of ``dist`` with ``params`` (cached by name and parameters)."""
+        return distribution(self.dist, self.params)
+
+    @property
+    def spread(self) -> Spread | None:
+        """The between-subject spread (on the logit scale for :data:`LOGIT_LAYER`), or None."""
+        return Spread.from_declaration(self.between_subject, self.symbol in LOGIT_LAYER)
+
     def frozen(self) -> Any:
         """The scipy.stats frozen distribution (a :class:`PointMass` for ``fixed``)."""
-        return frozen_distribution(self.dist, tuple(sorted(self.params.items())))
+        return self.distribution.frozen()
 
     @property
     def is_fixed(self) -> bool:
         """True for a ``fixed`` declaration (a known constant)."""
-        return self.dist == "fixed"
+        return self.distribution.is_fixed
 
     def ppf(self, u: Any) -> np.ndarray:
         """Values (canonical unit) at probabilities ``u`` in (0, 1): the inverse CDF."""
-        return np.asarray(self.frozen().ppf(np.asarray(u, dtype=float)), dtype=float)
+        return self.distribution.ppf(u)
 
     def from_normal_scores(self, z: Any) -> np.ndarray:
-        """Values (canonical unit) from standard normal scores ``z``.
+        """Values (canonical unit) from standard normal scores ``z`` (the exact map).
 
         Exact and cheap for normal (mean + sd z) and lognormal (median gsd^z); otherwise
         ``ppf(Phi(z))`` evaluated through the survival function for z > 0, so extreme scores
-        keep their precision.
+        keep their precision (``Distribution.from_scores``).
         """
-        z = np.asarray(z, dtype=float)
-        p = self.params
-        if self.dist == "normal":
-            return p["mean"] + p["sd"] * z
-        if self.dist == "lognormal":
-            return p["median"] * np.exp(math.log(p["gsd"]) * z)
-        if self.dist == "fixed":
-            return np.full(z.shape, p["value"])
-        from scipy.special import ndtr
-
-        fr = self.frozen()
-        lower = fr.ppf(ndtr(np.minimum(z, 0.0)))
-        upper = fr.isf(ndtr(-np.maximum(z, 0.0)))
-        return np.where(z <= 0.0, lower, upper)
+        return np.asarray(self.distribution.from_scores(z), dtype=float)
 
     def mean(self) -> float:
         """Mean of the typical-subject distribution (canonical unit)."""
-        return float(self.frozen().mean())
+        return self.distribution.get_mean()
 
     def sd(self) -> float:
         """Standard deviation of the typical-subject distribution (canonical unit)."""
-        return float(self.frozen().std())
+        return self.distribution.get_sd()
 
     def median(self) -> float:
         """Median (canonical unit)."""
-        return float(self.frozen().median())
+        return self.distribution.get_median()
 
     def interval(self, level: float = 0.95) -> tuple[float, float]:
         """Central interval holding ``level`` of the probability (canonical unit)."""
-        lo, hi = self.frozen().interval(level)
-        return float(lo), float(hi)
+        return self.distribution.interval(level)
 
     # ---- PyMC side
     def pymc(self, name: str | None = None, **kwargs: Any) -> Any:
@@ -307,33 +218,7 @@ class Prior:
         ``kwargs`` (``shape``, ``dims``, ...) pass to the PyMC distribution. A ``fixed`` prior gives
         a ``pm.Deterministic`` holding the constant.
         """
-        import pymc as pm
-
-        name = name or self.symbol
-        p = self.params
-        if self.dist == "normal":
-            return pm.Normal(name, mu=p["mean"], sigma=p["sd"], **kwargs)
-        if self.dist == "truncnormal":
-            return pm.TruncatedNormal(name, mu=p["mean"], sigma=p["sd"], lower=p.get("lower"),
-                                      upper=p.get("upper"), **kwargs)
-        if self.dist == "lognormal":
-            return pm.LogNormal(name, mu=math.log(p["median"]), sigma=math.log(p["gsd"]), **kwargs)
-        if self.dist == "beta":
-            a, b = _beta_ab(p["mean"], p["sd"])
-            return pm.Beta(name, alpha=a, beta=b, **kwargs)
-        if self.dist == "gamma":
-            k, theta = _gamma_k_theta(p["mean"], p["sd"])
-            return pm.Gamma(name, alpha=k, beta=1.0 / theta, **kwargs)
-        if self.dist == "uniform":
-            return pm.Uniform(name, lower=p["lower"], upper=p["upper"], **kwargs)
-        if self.dist == "triangular":
-            return pm.Triangular(name, lower=p["lower"], c=p["mode"], upper=p["upper"], **kwargs)
-        import pytensor.tensor as pt
-
-        value = pt.as_tensor_variable(np.float64(p["value"]))
-        if "shape" in kwargs:
-            value = pt.full(kwargs["shape"], p["value"])
-        return pm.Deterministic(name, value, dims=kwargs.get("dims"))
+        return self.distribution.pymc(name or self.symbol, **kwargs)
 
     # ---- between-subject layer
     def individual(self, typical: Any, z: Any, xp: Any = np) -> Any:
@@ -343,18 +228,8 @@ class Prior:
         reflection coefficients on the logit scale (see the module docstring). No spread: typical.
         Works for numpy arrays and PyTensor tensors (``xp``).
         """
-        bs = self.between_subject
-        if not bs:
-            return typical
-        if self.symbol in LOGIT_LAYER:
-            t = typical
-            s = bs["sd"] / (t * (1.0 - t)) if "sd" in bs else bs["cv"] / (1.0 - t)
-            x = xp.log(t) - xp.log1p(-t) + s * z
-            return 1.0 / (1.0 + xp.exp(-x))
-        if "sd" in bs:
-            return typical + bs["sd"] * z
-        s = math.sqrt(math.log1p(bs["cv"] ** 2))
-        return typical * xp.exp(s * z)
+        spread = self.spread
+        return typical if spread is None else spread.individual(typical, z, xp)
 
     # ---- display
     def describe(self) -> str:
@@ -469,7 +344,7 @@ def parse_prior(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
     if is_number(decl) or isinstance(decl, str):
         value, text_unit = number_in_unit(us, decl, None, ctx, key)
         factor, canon, basis = unit_info(us, text_unit, ctx, key)
-        prior = Prior(symbol, "fixed", {"value": value * factor}, canon, basis, None, default_origin, "",
+        prior = Prior(symbol, Fixed.name, {"value": value * factor}, canon, basis, None, default_origin, "",
                       text_unit)
         if check_sign:
             _check_sign(prior, ctx, key, decl)
@@ -480,7 +355,7 @@ def parse_prior(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
     dist = decl.get("dist")
     if dist is None:
         if "value" in decl:
-            dist = "fixed"
+            dist = Fixed.name
         else:
             raise study_error("missing `dist` (one of " + ", ".join(DISTRIBUTIONS) + ")", ctx.file,
                        join_key(key, "dist"), None)
@@ -549,38 +424,12 @@ def _parse_between(spec: Any, factor: float, ctx: Context, key: str) -> dict[str
 
 
 def _check_params(dist: str, p: dict[str, float], ctx: Context, key: str, raw: dict[str, float]) -> None:
-    def bad(msg: str, k: str) -> StudyError:
-        return study_error(msg, ctx.file, join_key(key, k), raw.get(k))
-
-    if "sd" in p and not p["sd"] > 0:
-        raise bad("sd must be > 0", "sd")
-    if dist == "lognormal":
-        if not p["median"] > 0:
-            raise bad("a lognormal median must be > 0", "median")
-        if not p["gsd"] > 1:
-            raise bad("a geometric sd (gsd) must be > 1", "gsd")
-    elif dist == "beta":
-        if not 0 < p["mean"] < 1:
-            raise bad("a beta mean must lie strictly between 0 and 1", "mean")
-        if not p["sd"] ** 2 < p["mean"] * (1 - p["mean"]):
-            raise bad(f"sd too large for a beta with mean {raw['mean']:g} (needs sd^2 < mean (1 - mean))",
-                      "sd")
-    elif dist == "gamma":
-        if not p["mean"] > 0:
-            raise bad("a gamma mean must be > 0", "mean")
-    elif dist in ("uniform", "triangular", "truncnormal"):
-        lo, hi = p.get("lower", -math.inf), p.get("upper", math.inf)
-        if not lo < hi:
-            raise study_error("lower must be below upper", ctx.file, join_key(key, "lower"),
-                       [raw.get("lower"), raw.get("upper")])
-        if dist == "triangular" and not lo <= p["mode"] <= hi:
-            raise bad("the mode must lie between lower and upper", "mode")
-        if dist == "truncnormal":
-            from scipy.special import ndtr
-
-            mass = ndtr((hi - p["mean"]) / p["sd"]) - ndtr((lo - p["mean"]) / p["sd"])
-            if not mass > 1e-12:
-                raise bad("the truncation interval holds no probability of the parent normal", "mean")
+    """The family's parameter checks (``Distribution.check``) as a StudyError at ``key.<param>``."""
+    try:
+        distribution(dist, p).check(raw)
+    except ParameterError as exc:
+        shown = [raw.get(k) for k in exc.shown] if len(exc.shown) > 1 else raw.get(exc.param)
+        raise study_error(exc.reason, ctx.file, join_key(key, exc.param), shown) from None
 
 
 def _check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
@@ -589,17 +438,17 @@ def _check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
     if sign_symbol is None:
         return
     p = prior.params
-    fr = prior.frozen()
-    pkey = {"normal": "mean", "truncnormal": "lower", "lognormal": "median", "beta": "mean",
-            "gamma": "mean", "uniform": "lower", "triangular": "lower", "fixed": "value"}[prior.dist]
+    fam = prior.distribution
+    fr = fam.frozen()
+    pkey = fam.shown_param
     shown = decl.get(pkey) if isinstance(decl, Mapping) else decl
     if s in POSITIVE:
-        if prior.dist == "fixed":
+        if fam.is_fixed:
             if not (p["value"] > 0 or (p["value"] == 0 and s in ZERO_ALLOWED)):
                 raise study_error(f"{s} must be > 0", ctx.file, key if not isinstance(decl, Mapping)
                            else join_key(key, "value"), shown)
-        elif prior.dist in ("uniform", "triangular", "truncnormal") and p.get("lower", -math.inf) < 0:
-            if prior.dist != "truncnormal" or float(fr.cdf(0.0)) >= NEGLIGIBLE_MASS:
+        elif fam.bounded and p.get("lower", -math.inf) < 0:
+            if fam.hard_bounds or float(fr.cdf(0.0)) >= NEGLIGIBLE_MASS:
                 raise study_error(f"{s} must be positive; the lower bound is negative", ctx.file,
                            join_key(key, "lower"), decl.get("lower") if isinstance(decl, Mapping) else None)
         else:
@@ -609,11 +458,11 @@ def _check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
                            f"(at most {NEGLIGIBLE_MASS:g} allowed; use a lognormal, gamma or truncnormal)",
                            ctx.file, join_key(key, pkey), shown)
     if s in UNIT_INTERVAL:
-        if prior.dist == "fixed":
+        if fam.is_fixed:
             if not 0 <= p["value"] <= 1:
                 raise study_error(f"{s} must lie between 0 and 1", ctx.file, key if not isinstance(decl, Mapping)
                            else join_key(key, "value"), shown)
-        elif prior.dist in ("uniform", "triangular") or (prior.dist == "truncnormal" and "upper" in p):
+        elif fam.hard_bounds or (fam.bounded and "upper" in p):
             if p["upper"] > 1:
                 raise study_error(f"{s} must lie between 0 and 1; the upper bound is above 1", ctx.file,
                            join_key(key, "upper"), decl.get("upper") if isinstance(decl, Mapping) else None)
@@ -623,7 +472,7 @@ def _check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
                 raise study_error(f"{s} must lie between 0 and 1, but this prior puts {above:.2g} of its mass "
                            "above 1 (use a beta)", ctx.file, join_key(key, pkey), shown)
     bs = prior.between_subject
-    if bs and "sd" in bs and s in POSITIVE and s not in LOGIT_LAYER and prior.dist != "fixed":
+    if bs and "sd" in bs and s in POSITIVE and s not in LOGIT_LAYER and not fam.is_fixed:
         # an additive spread must not push typical individuals below zero
         med = prior.median()
         if med - 3.719 * bs["sd"] <= 0:  # fewer than 1e-4 of individuals below zero (z = 3.719)

@@ -36,8 +36,14 @@ from scipy import stats
 
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.core.errors import InputError
+from uncertainty.distributions import REGISTRY, Distribution, Normal, Spread, TruncNormal, Uniform, log_sd_from_cv
 from uncertainty.forms.catalogue import all_outputs
 from uncertainty.forms.evaluate import evaluate as model_evaluate
+
+#: Families a design prior (over the analysis-scale effect) may take; an analysis prior is normal.
+#: Every parameter of these families is required here (a truncnormal gives both bounds).
+DESIGN_PRIOR_FAMILIES: tuple[type[Distribution], ...] = (Normal, TruncNormal, Uniform)
+ANALYSIS_PRIOR_FAMILIES: tuple[type[Distribution], ...] = (Normal,)
 
 OBSERVATION_ENDPOINTS = {"lymph_flow": "Jv"}  # observation kind -> model output it measures
 _DEFAULT_TRIALS = 1000
@@ -133,16 +139,12 @@ class DesignSpec:
         if self.design_prior is None:
             return None
         p = self.design_prior
-        dist = p.get("dist", "normal")
-        if dist == "normal":
-            return stats.norm(p["mean"], p["sd"])
-        if dist == "uniform":
-            return stats.uniform(p["lower"], p["upper"] - p["lower"])
-        if dist == "truncnormal":
-            a, b = (p["lower"] - p["mean"]) / p["sd"], (p["upper"] - p["mean"]) / p["sd"]
-            return stats.truncnorm(a, b, loc=p["mean"], scale=p["sd"])
-        raise InputError("design_prior: use dist normal, truncnormal or uniform", file=self.file,
-                         key="design.design_prior.dist", value=dist)
+        dist = p.get("dist", Normal.name)
+        cls = REGISTRY.get(dist) if isinstance(dist, str) else None
+        if cls is None or cls not in DESIGN_PRIOR_FAMILIES:
+            raise InputError("design_prior: use dist normal, truncnormal or uniform", file=self.file,
+                             key="design.design_prior.dist", value=dist)
+        return cls.from_params(p).frozen()
 
 
 def _section_dict(section: Any) -> dict[str, Any]:
@@ -282,12 +284,12 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
         p = _section_dict(doc.get(name))
         if not p or (name == "design_prior" and spec.prior_frozen is not None):
             continue
-        dist = p.get("dist", "normal")
-        need = {"normal": ("mean", "sd"), "truncnormal": ("mean", "sd", "lower", "upper"),
-                "uniform": ("lower", "upper")}.get(dist if name == "design_prior" else
-                                                   ("normal" if dist == "normal" else "x"))
-        if need is None:
+        dist = p.get("dist", Normal.name)
+        cls = REGISTRY.get(dist) if isinstance(dist, str) else None
+        allowed = DESIGN_PRIOR_FAMILIES if name == "design_prior" else ANALYSIS_PRIOR_FAMILIES
+        if cls is None or cls not in allowed:
             raise InputError(f"{name}: unsupported dist", file=file, key=f"design.{name}.dist", value=dist)
+        need = cls.required + cls.optional
         for k in need:
             if not isinstance(p.get(k), int | float):
                 raise InputError(f"{name} needs a number", file=file, key=f"design.{name}.{k}", value=p.get(k))
@@ -341,10 +343,8 @@ def _measure(study: Any, spec: DesignSpec, y: np.ndarray, rng: np.random.Generat
     if not m:
         return y
     z = rng.standard_normal(y.shape)
-    if "sd" in m:
-        return y + m["sd"] * z
-    s = math.sqrt(math.log1p(m["cv"] ** 2))
-    return y * np.exp(s * z)
+    spread = Spread.from_declaration(m)
+    return y if spread is None else spread.individual(y, z)
 
 
 def simulate_trials(study: Any, spec: DesignSpec, n: int, trials: int, rng: np.random.Generator,
@@ -625,7 +625,7 @@ def _sd_on_scale(spread: dict[str, float] | None, scale: str, level: float) -> f
         return 0.0
     kind, v = next(iter(spread.items()))
     if scale == "log":
-        return math.sqrt(math.log1p(v**2)) if kind == "cv" else v / abs(level)
+        return log_sd_from_cv(v) if kind == "cv" else v / abs(level)
     return v * abs(level) if kind == "cv" else v
 
 

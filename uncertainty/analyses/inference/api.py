@@ -322,7 +322,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         x = flat(idata, v).reshape(flat(idata, v).shape[0], -1)[:, 0]
         extras[v] = summarise(x)
         ep = built.extra_priors.get(v)
-        if ep is not None and ep.dist != "fixed":
+        if ep is not None and not ep.is_fixed:
             c = float(1.0 - extras[v]["sd"] ** 2 / ep.sd() ** 2)
             extras[v].update({"contraction": c, "prior": {"mean": ep.mean(), "sd": ep.sd(),
                                                           "ci95": list(ep.interval(0.95))},

@@ -31,6 +31,7 @@ import numpy as np
 
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.core.errors import InputError
+from uncertainty.distributions import Spread
 
 #: sd of the log of a between-subject spread around its declared value (factor ~1.65 at 1 sd).
 #: common practice: a weakly informative scale prior centred on the prior set's value.
@@ -38,9 +39,6 @@ SPREAD_LOG_SD = 0.5
 #: sd of a group effect: log ratio for positive quantities (common practice: weakly informative,
 #: ratios within about 0.37..2.7 at 2 sd), in units of the prior sd for others.
 GROUP_EFFECT_SD = 0.5
-
-_POSITIVE_DISTS = ("lognormal", "gamma")
-_NORMAL_SCORE_DISTS = ("normal", "lognormal")
 
 
 @dataclasses.dataclass
@@ -160,14 +158,18 @@ class BuildContext:
 
 
 def _positive(prior: Any) -> bool:
-    dist = getattr(prior, "dist", "")
-    if dist in _POSITIVE_DISTS:
+    if getattr(getattr(prior, "distribution", None), "positive_support", False):
         return True
     frozen = prior.frozen() if hasattr(prior, "frozen") else None
     try:
         return frozen is not None and float(frozen.ppf(1e-9)) > 0
     except Exception:  # noqa: BLE001 - any failure means "not known positive"
         return False
+
+
+def _non_centred(prior: Any) -> bool:
+    """True when the prior's family is sampled through a standard-normal score (normal, lognormal)."""
+    return bool(getattr(getattr(prior, "distribution", None), "non_centred", False))
 
 
 def _spread(prior: Any) -> tuple[str, float] | None:
@@ -192,9 +194,7 @@ def spread_ratio(kind: str, declared: float, spread: Any, xp: Any) -> Any:
     ``Prior.individual(typical, z * ratio)`` then has spread ``spread``: for an sd the ratio is
     ``spread / declared``; for a cv it is ``s(spread) / s(declared)`` with ``s = sqrt(log(1+cv^2))``.
     """
-    if kind == "sd":
-        return spread / declared
-    return xp.sqrt(xp.log1p(spread * spread)) / np.sqrt(np.log1p(declared * declared))
+    return Spread(kind, declared).ratio(spread, xp)
 
 
 def apply_layer(prior: Any, typical: Any, z: Any, xp: Any, ratio: Any = 1.0) -> Any:
@@ -214,18 +214,14 @@ def _merged_layers(prior: Any) -> tuple[float, float, float, bool] | None:
     log (log-sd of the spread sqrt(log(1 + cv^2))). Reflection coefficients (logit layer) and other
     shapes return None.
     """
-    from uncertainty.priors import LOGIT_LAYER
-
-    sp = _spread(prior)
-    if sp is None or getattr(prior, "symbol", None) in LOGIT_LAYER:
+    spread = getattr(prior, "spread", None)
+    dist = getattr(prior, "distribution", None)
+    scale = dist.normal_scale() if spread is not None and dist is not None else None
+    if scale is None:
         return None
-    kind, declared = sp
-    p = prior.params
-    if prior.dist == "normal" and kind == "sd":
-        return float(p["mean"]), float(p["sd"]), declared, False
-    if prior.dist == "lognormal" and kind == "cv":
-        return float(np.log(p["median"])), float(np.log(p["gsd"])), float(np.sqrt(np.log1p(declared**2))), True
-    return None
+    loc, s_typ, log_scale = scale
+    s_bs = spread.on_normal_scale(log_scale)
+    return None if s_bs is None else (loc, s_typ, s_bs, log_scale)
 
 
 def _probit(logp: Any) -> Any:
@@ -295,11 +291,9 @@ def build_model(problem: Problem) -> BuiltModel:
         # typical-subject values
         scores: dict[str, Any] = {}
         collapsed: dict[str, Any] = {}
-        plain = [q for q, p in problem.priors.items() if getattr(p, "dist", None) in _NORMAL_SCORE_DISTS]
+        plain = [q for q, p in problem.priors.items() if _non_centred(p)]
         typical_z = _typical_scores(problem, plain) if hierarchical else {}
         for name, prior in problem.priors.items():
-            dist = getattr(prior, "dist", None)
-            params = getattr(prior, "params", {}) or {}
             merged = None if hierarchical else _merged_layers(prior)
             if merged is not None:
                 # one individual: sample the individual's value from the exact two-layer marginal
@@ -316,14 +310,9 @@ def build_model(problem: Problem) -> BuiltModel:
                     collapsed[name] = loc + total * z
                     ctx.typical[name] = pm.Deterministic(name, loc + dev_typ)
                 scores[name] = dev_typ / s_typ
-            elif dist == "normal":
+            elif _non_centred(prior):
                 z = typical_z[name] if name in typical_z else pm.Normal(f"{name}__z", 0.0, 1.0)
-                ctx.typical[name] = pm.Deterministic(name, params["mean"] + params["sd"] * z)
-                scores[name] = z
-            elif dist == "lognormal":
-                z = typical_z[name] if name in typical_z else pm.Normal(f"{name}__z", 0.0, 1.0)
-                ctx.typical[name] = pm.Deterministic(
-                    name, params["median"] * pt.exp(np.log(params["gsd"]) * z))
+                ctx.typical[name] = pm.Deterministic(name, prior.distribution.from_scores(z, pt))
                 scores[name] = z
             else:
                 ctx.typical[name] = prior.pymc(name)
@@ -548,8 +537,7 @@ def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
         return {}
 
     def typical(q: str, z: float) -> float:
-        p = problem.priors[q].params
-        return p["mean"] + p["sd"] * z if problem.priors[q].dist == "normal" else p["median"] * p["gsd"] ** z
+        return float(problem.priors[q].distribution.from_scores(z))
 
     total = np.zeros(len(names))
     for _obs, output, log in pinned:
@@ -684,22 +672,8 @@ def _add_copula(problem: Problem, ctx: BuildContext, scores: dict[str, Any]) -> 
 
 def _marginal(prior: Any) -> Any:
     """An unnamed PyMC distribution of a prior's marginal (for its CDF in the copula term)."""
-    import pymc as pm
-
-    fn = getattr(prior, "pymc_dist", None)
-    if callable(fn):
-        return fn()
-    p = prior.params
-    dist = prior.dist
-    if dist == "beta":
-        return pm.Beta.dist(mu=p["mean"], sigma=p["sd"])
-    if dist == "gamma":
-        return pm.Gamma.dist(mu=p["mean"], sigma=p["sd"])
-    if dist == "uniform":
-        return pm.Uniform.dist(p["lower"], p["upper"])
-    if dist == "truncnormal":
-        return pm.TruncatedNormal.dist(p["mean"], p["sd"], lower=p.get("lower"), upper=p.get("upper"))
-    if dist == "triangular":
-        return pm.Triangular.dist(lower=p["lower"], c=p["mode"], upper=p["upper"])
-    raise InputError("correlation with this prior shape is not supported in inference",
-                     key=f"parameters.{prior.symbol}.dist", value=dist)
+    try:
+        return prior.distribution.pymc_dist()
+    except NotImplementedError:
+        raise InputError("correlation with this prior shape is not supported in inference",
+                         key=f"parameters.{prior.symbol}.dist", value=prior.dist) from None

@@ -214,7 +214,7 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
     for name, prior in study.priors.items():
         if name in priors:
             continue
-        if getattr(prior, "dist", None) == "fixed":
+        if getattr(prior, "is_fixed", False):
             fixed[name] = float(prior.params.get("value", prior.mean()))
     form = model or study.model
     target = study.with_model(model) if model is not None and model != study.model else study

@@ -41,6 +41,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.core.errors import InputError
+from uncertainty.distributions import is_normal_frozen, log_sd_from_cv
 from uncertainty.forms.catalogue import output_unit
 from uncertainty.forms.evaluate import evaluate as model_evaluate
 
@@ -69,7 +70,7 @@ class Reading:
         if self.sd is not None:
             x = theta + self.sd / math.sqrt(self.n) * z
         else:
-            s = math.sqrt(math.log1p(self.cv**2)) / math.sqrt(self.n)
+            s = log_sd_from_cv(self.cv) / math.sqrt(self.n)
             x = theta * np.exp(s * z)
         if self.bias is not None:
             x = x + self.bias.ppf(rng.uniform(size=theta.shape))
@@ -190,7 +191,7 @@ def _loglik(reading: Reading, x: np.ndarray, theta: np.ndarray) -> np.ndarray:
             m, sb = float(reading.bias.mean()), float(reading.bias.std())
             s2 = s2 + sb**2
         return -0.5 * (x[:, None] - theta[None, :] - m) ** 2 / s2
-    s = math.sqrt(math.log1p(reading.cv**2)) / math.sqrt(reading.n)
+    s = log_sd_from_cv(reading.cv) / math.sqrt(reading.n)
     with np.errstate(divide="ignore", invalid="ignore"):
         return -0.5 * (np.log(x)[:, None] - np.log(theta)[None, :]) ** 2 / s**2
 
@@ -264,9 +265,9 @@ def choose_method(reading: Reading, theta: np.ndarray) -> str:
     prior_sd = float(np.std(theta))
     if reading.sd is not None:
         noise = reading.sd / math.sqrt(reading.n)
-        closed = reading.bias is None or getattr(getattr(reading.bias, "dist", None), "name", "") == "norm"
+        closed = reading.bias is None or is_normal_frozen(reading.bias)
     else:
-        noise = math.sqrt(math.log1p(reading.cv**2)) / math.sqrt(reading.n) * float(np.median(np.abs(theta)))
+        noise = log_sd_from_cv(reading.cv) / math.sqrt(reading.n) * float(np.median(np.abs(theta)))
         closed = reading.bias is None and bool(np.all(theta > 0))
     return "importance" if closed and noise >= prior_sd else "regression"
 

@@ -207,7 +207,7 @@ def _moments(prior: Any, rng: np.random.Generator, n: int) -> tuple[bool, np.nda
     """(log scale?, individual-level draws on that scale) of a Prior (typical + between-subject layer)."""
     typ = np.asarray(prior.frozen().rvs(size=n, random_state=rng), dtype=float)
     ind = np.asarray(prior.individual(typ, rng.standard_normal(n)), dtype=float)
-    log = prior.dist in ("lognormal", "gamma") and bool(np.all(ind > 0))
+    log = prior.distribution.positive_support and bool(np.all(ind > 0))
     return log, (np.log(ind) if log else ind)
 
 
@@ -245,7 +245,7 @@ def cuff_model(study: Any, section: Any, seed: int, draws: int = 20000) -> CuffM
                 raise InputError(f"the cuff model needs a prior for {name}: give it under [parameters]",
                                  file=file, key=f"parameters.{name}", value=None)
         origins[name] = getattr(prior, "origin", "") or ""
-        if prior.dist == "fixed":
+        if prior.is_fixed:
             logs.append(False)
             samples.append(np.full(draws, float(prior.median())))
             continue

@@ -8,6 +8,7 @@ import numpy as np
 
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.core.errors import InputError
+from uncertainty.distributions import log_sd_from_cv
 from uncertainty.forms.catalogue import outputs, study_outputs
 
 
@@ -37,7 +38,7 @@ def add_reading(name: str, predicted: Any, value: Any, *, sd: float | None = Non
 
     data = pm.Data(f"{name}__data", np.asarray(value, dtype=float))
     if cv is not None:
-        s = float(np.sqrt(np.log1p(cv * cv)))
+        s = log_sd_from_cv(cv)
         mu = pt.log(pt.maximum(predicted, 1e-300))
         return pm.LogNormal(name, mu=mu, sigma=s, observed=data, shape=data.shape)
     return pm.Normal(name, mu=predicted, sigma=sd, observed=data, shape=data.shape)
@@ -64,20 +65,18 @@ def declared_prior(decl: Any, symbol: str, obs: Observation, field: str) -> Any:
 
 
 def prior_rv(name: str, prior: Any) -> Any:
-    """A PyMC variable for a side prior, non-centred for normal and lognormal shapes."""
+    """A PyMC variable for a side prior: a constant for ``fixed``, non-centred (a standard-normal
+    score ``name__z`` through ``Distribution.from_scores``) for normal and lognormal shapes, else
+    ``prior.pymc(name)``."""
     import pymc as pm
     import pytensor.tensor as pt
 
-    dist = getattr(prior, "dist", None)
-    p = getattr(prior, "params", {}) or {}
-    if dist == "fixed":
-        return pt.as_tensor_variable(float(p.get("value", prior.mean())))
-    if dist == "normal":
+    dist = prior.distribution
+    if dist.is_fixed:
+        return pt.as_tensor_variable(float(prior.params.get("value", prior.mean())))
+    if dist.non_centred:
         z = pm.Normal(f"{name}__z", 0.0, 1.0)
-        return pm.Deterministic(name, p["mean"] + p["sd"] * z)
-    if dist == "lognormal":
-        z = pm.Normal(f"{name}__z", 0.0, 1.0)
-        return pm.Deterministic(name, p["median"] * pt.exp(np.log(p["gsd"]) * z))
+        return pm.Deterministic(name, dist.from_scores(z, pt))
     return prior.pymc(name)
 
 

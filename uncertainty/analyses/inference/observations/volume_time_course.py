@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.problem import Observation, Problem
+from uncertainty.distributions import log_sd_from_cv
 
 LABELLED = True
 #: Start the chains around the posterior mode (inference.api.fit, start="auto"): from the priors'
@@ -199,7 +200,7 @@ def _hyper(ctx: Any, name: str, prior: Any) -> tuple[Any, Any]:
 
 def _log_sd(kind: str, spread: Any, xp: Any) -> Any:
     """Log-scale sd of a multiplicative between-subject spread given as a cv."""
-    return xp.sqrt(xp.log1p(spread * spread)) if kind == "cv" else spread
+    return log_sd_from_cv(spread, xp) if kind == "cv" else spread
 
 
 @dataclasses.dataclass
