@@ -17,8 +17,8 @@ from uncertainty.distributions import distribution
 from uncertainty.priors.declarations import (
     Context,
     Prior,
-    _check_params,
-    _check_sign,
+    check_params,
+    check_sign,
     is_number,
     parse_prior,
 )
@@ -137,8 +137,8 @@ def _modify_prior(prior: Prior, m: Modifier, file: Any, key: str, density: float
                                  file, key, density)
     new = prior.replace(dist=dist, params=p, note=(prior.note + f" [modified by condition: {m.origin}]").strip())
     try:
-        _check_params(dist, p, Context(file, density), key, p)
-        _check_sign(new, Context(file, density), key, p)
+        check_params(dist, p, Context(file, density), key, p)
+        check_sign(new, Context(file, density), key, p)
     except StudyError as exc:
         raise study_error(f"after the condition, {prior.symbol}: {exc.reason}", file, key, exc.value) from None
     return new

@@ -347,7 +347,7 @@ def parse_prior(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
         prior = Prior(symbol, Fixed.name, {"value": value * factor}, canon, basis, None, default_origin, "",
                       text_unit)
         if check_sign:
-            _check_sign(prior, ctx, key, decl)
+            check_sign(prior, ctx, key, decl)
         return prior
     if not isinstance(decl, Mapping):
         raise study_error("a declaration is a table, a number or a string with a unit", ctx.file, key, decl)
@@ -390,7 +390,7 @@ def parse_prior(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
     unit_used = unit or (text_units.pop() if text_units else None)
     factor, canon, basis = unit_info(us, unit_used, ctx, key)
     params = {k: (v if k in PURE_PARAMS else v * factor) for k, v in raw.items()}
-    _check_params(dist, params, ctx, key, raw)
+    check_params(dist, params, ctx, key, raw)
 
     between = _parse_between(decl.get("between_subject"), factor, ctx, join_key(key, "between_subject"))
     origin = decl.get("origin", default_origin)
@@ -400,7 +400,7 @@ def parse_prior(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
             raise study_error(f"`{k}` must be a string", ctx.file, join_key(key, k), v)
     prior = Prior(symbol, dist, params, canon, basis, between, origin, note, unit_used)
     if check_sign:
-        _check_sign(prior, ctx, key, decl)
+        check_sign(prior, ctx, key, decl)
     return prior
 
 
@@ -423,7 +423,7 @@ def _parse_between(spec: Any, factor: float, ctx: Context, key: str) -> dict[str
     return {k: float(v) * (factor if k == "sd" else 1.0)}
 
 
-def _check_params(dist: str, p: dict[str, float], ctx: Context, key: str, raw: dict[str, float]) -> None:
+def check_params(dist: str, p: dict[str, float], ctx: Context, key: str, raw: dict[str, float]) -> None:
     """The family's parameter checks (``Distribution.check``) as a StudyError at ``key.<param>``."""
     try:
         distribution(dist, p).check(raw)
@@ -432,7 +432,9 @@ def _check_params(dist: str, p: dict[str, float], ctx: Context, key: str, raw: d
         raise study_error(exc.reason, ctx.file, join_key(key, exc.param), shown) from None
 
 
-def _check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
+def check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
+    """The sign rules of :data:`POSITIVE` and :data:`UNIT_INTERVAL` quantities (module docstring) as a
+    StudyError at ``key``: negligible mass (below :data:`NEGLIGIBLE_MASS`) at or below zero, or above one."""
     s = prior.symbol
     sign_symbol = s if s in POSITIVE or s in UNIT_INTERVAL else None
     if sign_symbol is None:
