@@ -111,8 +111,12 @@ class BuildContext:
         self._overrides: dict[str, Any] = {}
 
     # -- access ---------------------------------------------------------------------------------
-    def subject_index(self, obs: Observation) -> int:
-        """Index of the observation's subject (0, the study's individual, when unlabelled)."""
+    def subject_index(self, obs: Observation) -> Any:
+        """Index of the observation's subject (0, the study's individual, when unlabelled); for an
+        observation with data-file rows, an integer array with the index of each reading's subject."""
+        if obs.rows is not None:
+            where = {s: k for k, s in enumerate(self.subjects)}
+            return np.array([0 if s is None else where[s] for s in obs.rows.subject], dtype=int)
         if obs.subject is None:
             return 0
         return self.subjects.index(obs.subject)
@@ -243,8 +247,7 @@ def _collect_subjects(problem: Problem) -> tuple[list[str], dict[str, str]]:
     groups: dict[str, str] = {}
     for obs in problem.observations:
         mod = kind_module(obs)
-        found = mod.subjects(obs, problem) if hasattr(mod, "subjects") else (
-            [(obs.subject, obs.group)] if obs.subject is not None else [])
+        found = mod.subjects(obs, problem) if hasattr(mod, "subjects") else obs.subject_groups()
         for subj, grp in found:
             if subj not in labels:
                 labels.append(subj)
@@ -281,7 +284,8 @@ def build_model(problem: Problem) -> BuiltModel:
     hierarchical = len(labels) >= 2
     if not labels:
         labels = ["individual"]
-    unlabelled = [o for o in problem.observations if o.subject is None
+    unlabelled = [o for o in problem.observations
+                  if (o.subject is None if o.rows is None else None in o.rows.subject)
                   and getattr(kind_module(o), "LABELLED", False) is False]
     if hierarchical and unlabelled:
         o = unlabelled[0]
@@ -392,6 +396,7 @@ def build_model(problem: Problem) -> BuiltModel:
                 mod.prepare(ctx, obs)
         for obs in problem.observations:
             kind_module(obs).add(ctx, obs)
+            ctx.notes += [n for n in obs.notes + _repeat_note(obs) if n not in ctx.notes]
         for name in problem.priors:
             if name not in ctx._overrides:
                 pm.Deterministic(f"{name}__subject", ctx.per_subject[name], dims="subject")
@@ -415,7 +420,8 @@ PIN_STEP = 1e-4
 
 
 def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
-    """(observation, output, log scale) of every reading with a kind's ``pinned_output`` hook."""
+    """(observation, output, log scale) of every reading with a kind's ``pinned_output`` hook (one
+    single-value record per data-file row)."""
     from uncertainty.analyses.inference.observations import kind_module
 
     out = []
@@ -423,8 +429,16 @@ def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
         hook = getattr(kind_module(obs), "pinned_output", None)
         pinned = hook(obs, problem) if hook is not None else None
         if pinned is not None:
-            out.append((obs, *pinned))
+            out += [(reading, *pinned) for reading in obs.readings()]
     return out
+
+
+def _repeat_note(obs: Observation) -> list[str]:
+    """A note where a data file holds several readings of one subject (fitted as repeats of one value)."""
+    if obs.rows is None or len(set(obs.rows.subject)) == len(obs.rows.subject):
+        return []
+    return [f"{obs.key}: several readings of one subject are fitted as repeated readings of one steady value "
+            "(times are not modelled)"]
 
 
 def _output_at(problem: Problem, names: list[str], value_of: Any, output: str, z: np.ndarray) -> float:
