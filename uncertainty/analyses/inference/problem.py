@@ -101,10 +101,10 @@ class Observation:
         """One single-value Observation per reading (itself when it has no rows), with the same index."""
         if self.rows is None:
             return [self]
-        sds = self.sds
+        sds = None if self.sds is None else np.broadcast_to(np.asarray(self.sds, dtype=float), self.rows.value.shape)
         out = []
         for k, subject in enumerate(self.rows.subject):
-            sd = None if sds is None else float(np.asarray(sds)[k])
+            sd = None if sds is None else float(sds[k])
             out.append(dataclasses.replace(self, rows=None, subject=subject, group=self.rows.group[k],
                                            value=float(self.rows.value[k]), sd=sd))
         return out
