@@ -78,6 +78,10 @@ def test_lab_shaped_file_loads_through_the_column_map(tmp_path: Path) -> None:
     notes = data_notes(s.observations)
     assert len(notes) == 1 and "3 of 8 rows skipped" in notes[0]
     assert "blank COP_mmHg in 2" in notes[0] and "blank patient_id in 1" in notes[0]
+    # the note reaches the inference output (built.notes go into the result's notes)
+    built = build_model(problem_from_study(s))
+    assert notes[0] in built.notes
+    assert any("repeated readings of one steady value" in n for n in built.notes)
 
 
 def test_check_prints_the_skipped_rows_note(tmp_path: Path) -> None:
