@@ -340,3 +340,21 @@ def test_multi_row_measurement_file_infers_conjugate_posterior(tmp_path: Path) -
     assert draws.std() == pytest.approx(post_sd, rel=0.15)
     # the posterior moved from the prior mean toward the readings
     assert abs(draws.mean() - y.mean()) < abs(m0 - y.mean())
+
+
+def test_a_subject_in_two_groups_names_the_line(tmp_path: Path) -> None:
+    from uncertainty.core.errors import InputError
+
+    obs = """
+    [[observations]]
+    kind = "measurement"
+    parameter = "pi_c"
+    file = "g.csv"
+    columns = { group = "arm" }
+    sd = 1.0
+    """
+    # invented: subject B listed in both arms
+    s = load_study(_study(tmp_path, obs, {"g.csv": "subject,arm,value\nA,x,20\nB,x,21\nB,y,22\n"}))
+    with pytest.raises(InputError) as exc:
+        build_model(problem_from_study(s))
+    assert "g.csv line 4: subject 'B' is in two groups" in str(exc.value)

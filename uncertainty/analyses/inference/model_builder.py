@@ -243,20 +243,21 @@ def _collect_subjects(problem: Problem) -> tuple[list[str], dict[str, str]]:
     """Subject labels (from the observations and data files) and each subject's group."""
     from uncertainty.analyses.inference.observations import kind_module
 
-    labels: list[str] = []
+    labels: dict[str, None] = {}     # insertion-ordered set (cohorts of thousands of readings)
     groups: dict[str, str] = {}
     for obs in problem.observations:
         mod = kind_module(obs)
         found = mod.subjects(obs, problem) if hasattr(mod, "subjects") else obs.subject_groups()
-        for subj, grp in found:
-            if subj not in labels:
-                labels.append(subj)
+        for k, (subj, grp) in enumerate(found):
+            labels.setdefault(subj)
             if grp is not None:
                 if subj in groups and groups[subj] != grp:
-                    raise obs.error(f"subject {subj!r} is in two groups ({groups[subj]!r}, {grp!r})",
-                                    "group", grp)
+                    where = (f"{obs.rows.source} line {obs.rows.line[k]}: "
+                             if obs.rows is not None and None not in obs.rows.subject else "")
+                    raise obs.error(f"{where}subject {subj!r} is in two groups ({groups[subj]!r}, {grp!r})",
+                                    "file" if where else "group", grp)
                 groups[subj] = grp
-    return labels, groups
+    return list(labels), groups
 
 
 def _group_effect_targets(problem: Problem) -> list[str]:
@@ -566,8 +567,11 @@ def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
         return p["mean"] + p["sd"] * z if problem.priors[q].dist == "normal" else p["median"] * p["gsd"] ** z
 
     total = np.zeros(len(names))
+    directions: dict[tuple[str, bool], np.ndarray | None] = {}   # the same for every reading of an output
     for _obs, output, log in pinned:
-        w = _direction(problem, names, typical, output, log)
+        if (output, log) not in directions:
+            directions[(output, log)] = _direction(problem, names, typical, output, log)
+        w = directions[(output, log)]
         if w is not None:
             total += w
     if not np.linalg.norm(total) > 0:
