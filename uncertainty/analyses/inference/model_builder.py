@@ -628,6 +628,8 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     for name in ctx.layers:           # claimed: a constant the claiming kind may set (``ctx.guess``)
         ctx.guesses[name] = (pytensor.shared(np.full(len(pidx), centre[name]), name=f"{name}__pinned_at"), pidx)
 
+    out_names = [pinned[i][0] for i in pidx]
+
     def predict(z: Any) -> Any:
         """The pinned outputs of the pinned subjects at scores z (..., P, k) -> (..., P)."""
         vals = {**problem.fixed}
@@ -640,7 +642,13 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
             vals[name] = apply_layer(prior, base[pidx], z[..., j], pt, ratio)
         outs = problem.evaluate(vals, pt)
         shape = pt.shape(z)[:-1]
-        return pt.stack([pt.broadcast_to(outs[pinned[i][0]], shape)[..., r] for r, i in enumerate(pidx)], axis=-1)
+        # one broadcast per output name, chosen per subject by a mask (a stack of one slice per subject
+        # made the graph grow quadratically with the pinned subjects of a cohort)
+        result = None
+        for out_name in dict.fromkeys(out_names):
+            part = pt.broadcast_to(outs[out_name], shape)
+            result = part if result is None else pt.where(np.array(out_names) == out_name, part, result)
+        return result
 
     # derivatives by central differences in one batched evaluation each (PIN_STEP): pytensor.grad here
     # would put second derivatives of the forward map into the sampler's gradient, and the steady forms'
