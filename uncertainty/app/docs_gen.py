@@ -34,6 +34,17 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "Data for Bayesian updating, one table per observation; `kind` decides which keys are required."),
     ("observations.step", "step = { ... } / steps = [{ ... }]", "StepSpec",
      "A venous-cuff pressure step of a `volume_time_course` (one step, or a cumulative protocol)."),
+    ("observations.columns", "columns = { ... }", "ColumnMap",
+     "Which column of an observation's data file plays which part. A data file is read in long format, one "
+     "reading a row: subject, optional group, optional time, the value (`volume` for a `volume_time_course`) "
+     "and an optional per-row sd (in `unit`; a blank sd cell takes the observation's `sd`). Columns the map "
+     "does not name are not read, so a wide file (a column per quantity) serves several observations, each "
+     "naming its value column. A blank subject, value or (time course) time cell is a missing reading: the "
+     "row is skipped and counted in a note. Negative volumes are kept: the curve model fits a per-subject "
+     "baseline offset, so zeroed strain-gauge readings slightly below zero are data, not errors. Errors name "
+     "the data file, the line and the column, and show at most the offending cell, shortened."),
+    ("observations.columns.time", "time = { column = ..., unit = ... }", "TimeColumn",
+     "A time column with its unit (seconds, minutes, hours or days; times are converted to minutes)."),
     ("infer", "[infer]", "InferSection",
      "Sampler settings and quality gate for Bayesian updating from the observations. `fluidshift infer` flags "
      "override these keys; `fluidshift run` uses them as they stand."),
@@ -82,12 +93,28 @@ MEANINGS: dict[str, str] = {
     "observations.name": "optional label",
     "observations.parameter": "the quantity a measurement reads (a trade symbol)",
     "observations.value": "the observed value, in `unit`",
-    "observations.sd": "normal measurement error, in `unit`",
+    "observations.sd": "normal measurement error, in `unit` (with a data file: for rows whose sd cell is "
+                       "blank or absent)",
     "observations.cv": "lognormal measurement error, as a fraction",
     "observations.unit": "unit of `value` and `sd` (any unit pint converts to the quantity's canonical unit)",
     "observations.instrument": "optional: noise (and bias prior) from priors/instruments.toml",
-    "observations.file": "CSV data file relative to the study file; columns per kind (subject, value or "
-                         "time_min/time_h/time_day and volume; optional group)",
+    "observations.file": "CSV data file relative to the study file, long format, one reading a row: subject, "
+                         "value (volume for volume_time_course), optional group, optional time (time_s, "
+                         "time_min, time_h or time_day; required for volume_time_course), optional sd; other "
+                         "names through `columns`. One likelihood term covers all its rows",
+    "observations.columns": "which column plays which part, e.g. { subject = \"patient_id\", time = \"day\", "
+                            "value = \"COP_mmHg\" } (see below)",
+    "observations.columns.subject": "the subject label column (default `subject`)",
+    "observations.columns.group": "the group label column, e.g. a trial arm (default `group`, when present)",
+    "observations.columns.time": "the time column: a name that states its unit (`day`, `hours`, `t_s`, "
+                                 "`time (min)`) or { column, unit }; default one of time_s, time_min, time_h, "
+                                 "time_day",
+    "observations.columns.value": "the reading column, in the observation's `unit` (default `value`; `volume` "
+                                  "for volume_time_course, mL/100 mL, negative readings allowed)",
+    "observations.columns.sd": "a per-row normal error column, in `unit` (default `sd`, when present; not for "
+                               "volume_time_course)",
+    "observations.columns.time.column": "the column's name in the file's first line",
+    "observations.columns.time.unit": "s, min, h or day",
     "observations.subject": "subject label of a single value",
     "observations.group": "group label (e.g. a trial arm)",
     "observations.step": "one venous-cuff step (volume_time_course)",

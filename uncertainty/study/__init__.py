@@ -22,6 +22,8 @@ from uncertainty.forms.catalogue import (  # noqa: F401
     study_outputs,
 )
 from uncertainty.study.data_files import (  # noqa: F401
+    DataColumns,
+    data_notes,
     read_csv,
 )
 from uncertainty.study.resolve import (  # noqa: F401
@@ -34,8 +36,10 @@ from uncertainty.study.schema import (  # noqa: F401
     STRICT_CONFIG,
     TEXT_COLUMNS,
     TIME_COLUMNS,
+    TIME_UNITS,
     TOP_LEVEL,
     Candidate,
+    ColumnMap,
     CorrelationsSection,
     DesignSection,
     Effect,
@@ -49,6 +53,7 @@ from uncertainty.study.schema import (  # noqa: F401
     Spread,
     StepSpec,
     StudySection,
+    TimeColumn,
 )
 from uncertainty.study.study import (  # noqa: F401
     Study,

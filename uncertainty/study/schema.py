@@ -95,6 +95,33 @@ class StepSpec(BaseModel):
     at_min: float | None = Field(default=None, ge=0)
 
 
+#: Time units a data file's time column may be in, with their length in minutes (exact).
+TIME_UNITS: dict[str, float] = {"s": 1.0 / 60.0, "min": 1.0, "h": 60.0, "day": 1440.0}
+
+
+class TimeColumn(BaseModel):
+    """A time column with its unit: ``time = { column = "t_s", unit = "s" }``."""
+
+    model_config = STRICT_CONFIG
+    column: str = Field(min_length=1, description="the column's name in the file's first line")
+    unit: Literal["s", "min", "h", "day"] = Field(description="unit of the times: s, min, h or day")
+
+
+class ColumnMap(BaseModel):
+    """``columns = { subject = "patient_id", time = "day", value = "COP_mmHg" }``: which column of an
+    observation's data file plays which part. Every key is optional; a key left out means the column of
+    that name (``subject``, ``group``, one of ``time_s`` / ``time_min`` / ``time_h`` / ``time_day``,
+    ``value`` (``volume`` for a volume_time_course), ``sd``). Columns the map does not name are not read,
+    so one wide file (a column per quantity) serves several observations, each naming its value column."""
+
+    model_config = STRICT_CONFIG
+    subject: str | None = Field(default=None, min_length=1)
+    group: str | None = Field(default=None, min_length=1)
+    time: str | TimeColumn | None = None
+    value: str | None = Field(default=None, min_length=1)
+    sd: str | None = Field(default=None, min_length=1)
+
+
 class Observation(BaseModel):
     """One ``[[observations]]`` entry. ``kind`` decides which keys are required (see ``_check_kind``).
 
@@ -113,6 +140,7 @@ class Observation(BaseModel):
     unit: str | None = None
     instrument: str | None = None
     file: str | None = None
+    columns: ColumnMap | None = None
     subject: str | int | None = None
     group: str | None = None
     step: StepSpec | None = None
@@ -165,6 +193,8 @@ class Observation(BaseModel):
         k = self.kind
         if self.sd is not None and self.cv is not None:
             raise ValueError("give sd or cv, not both")
+        if self.columns is not None and self.file is None:
+            raise ValueError("columns maps the columns of a data file: give file = ... too")
         if k == "measurement" and self.parameter is None:
             raise ValueError("a measurement names its parameter")
         if k != "measurement" and k != "volume_time_course" and self.parameter is not None and k != "clearance_rate":
@@ -191,7 +221,7 @@ class Observation(BaseModel):
                 raise ValueError(f"a {k} observation needs value (or a data file)")
             if self.value is not None and self.file is not None:
                 raise ValueError("give value or file, not both")
-            if self.sd is None and self.cv is None and self.instrument is None:
+            if self.sd is None and self.cv is None and self.instrument is None and self.file is None:
                 raise ValueError("give the measurement error: sd, cv or instrument")
         if k == "filtration_fraction" and self.value is not None and not 0 < self.value < 1:
             raise ValueError("a filtration fraction lies strictly between 0 and 1 (GFR below renal plasma flow)")
@@ -449,7 +479,8 @@ CSV_COLUMNS: dict[str, tuple[str, ...]] = {
 }
 
 
-TIME_COLUMNS = ("time_min", "time_h", "time_day")
+#: Time column names that carry their unit (a ``columns`` map may name another column and its unit).
+TIME_COLUMNS = ("time_s", "time_min", "time_h", "time_day")
 
 
 TEXT_COLUMNS = ("subject", "group", "arm", "note")

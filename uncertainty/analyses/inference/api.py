@@ -414,7 +414,7 @@ class Session:
         data = {}
         for term in self.built.terms:
             new = obs[term.observation.index]
-            data[f"{term.name}__data"] = np.asarray(new.value, dtype=float)
+            data[f"{term.name}__data"] = np.asarray(new.values, dtype=float)
         return data
 
     def fit(self, *, observations: Sequence[Any] | None = None, data: dict[str, Any] | None = None,

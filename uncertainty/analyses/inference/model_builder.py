@@ -109,8 +109,12 @@ class BuildContext:
         self._overrides: dict[str, Any] = {}
 
     # -- access ---------------------------------------------------------------------------------
-    def subject_index(self, obs: Observation) -> int:
-        """Index of the observation's subject (0, the study's individual, when unlabelled)."""
+    def subject_index(self, obs: Observation) -> Any:
+        """Index of the observation's subject (0, the study's individual, when unlabelled); for an
+        observation with data-file rows, an integer array with the index of each reading's subject."""
+        if obs.rows is not None:
+            where = {s: k for k, s in enumerate(self.subjects)}
+            return np.array([0 if s is None else where[s] for s in obs.rows.subject], dtype=int)
         if obs.subject is None:
             return 0
         return self.subjects.index(obs.subject)
@@ -235,21 +239,21 @@ def _collect_subjects(problem: Problem) -> tuple[list[str], dict[str, str]]:
     """Subject labels (from the observations and data files) and each subject's group."""
     from uncertainty.analyses.inference.observations import kind_module
 
-    labels: list[str] = []
+    labels: dict[str, None] = {}     # insertion-ordered set (cohorts of thousands of readings)
     groups: dict[str, str] = {}
     for obs in problem.observations:
         mod = kind_module(obs)
-        found = mod.subjects(obs, problem) if hasattr(mod, "subjects") else (
-            [(obs.subject, obs.group)] if obs.subject is not None else [])
-        for subj, grp in found:
-            if subj not in labels:
-                labels.append(subj)
+        found = mod.subjects(obs, problem) if hasattr(mod, "subjects") else obs.subject_groups()
+        for k, (subj, grp) in enumerate(found):
+            labels.setdefault(subj)
             if grp is not None:
                 if subj in groups and groups[subj] != grp:
-                    raise obs.error(f"subject {subj!r} is in two groups ({groups[subj]!r}, {grp!r})",
-                                    "group", grp)
+                    where = (f"{obs.rows.source} line {obs.rows.line[k]}: "
+                             if obs.rows is not None and None not in obs.rows.subject else "")
+                    raise obs.error(f"{where}subject {subj!r} is in two groups ({groups[subj]!r}, {grp!r})",
+                                    "file" if where else "group", grp)
                 groups[subj] = grp
-    return labels, groups
+    return list(labels), groups
 
 
 def _group_effect_targets(problem: Problem) -> list[str]:
@@ -277,7 +281,8 @@ def build_model(problem: Problem) -> BuiltModel:
     hierarchical = len(labels) >= 2
     if not labels:
         labels = ["individual"]
-    unlabelled = [o for o in problem.observations if o.subject is None
+    unlabelled = [o for o in problem.observations
+                  if (o.subject is None if o.rows is None else None in o.rows.subject)
                   and getattr(kind_module(o), "LABELLED", False) is False]
     if hierarchical and unlabelled:
         o = unlabelled[0]
@@ -381,6 +386,7 @@ def build_model(problem: Problem) -> BuiltModel:
                 mod.prepare(ctx, obs)
         for obs in problem.observations:
             kind_module(obs).add(ctx, obs)
+            ctx.notes += [n for n in obs.notes + _repeat_note(obs) if n not in ctx.notes]
         for name in problem.priors:
             if name not in ctx._overrides:
                 pm.Deterministic(f"{name}__subject", ctx.per_subject[name], dims="subject")
@@ -404,7 +410,8 @@ PIN_STEP = 1e-4
 
 
 def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
-    """(observation, output, log scale) of every reading with a kind's ``pinned_output`` hook."""
+    """(observation, output, log scale) of every reading with a kind's ``pinned_output`` hook (one
+    single-value record per data-file row)."""
     from uncertainty.analyses.inference.observations import kind_module
 
     out = []
@@ -412,8 +419,16 @@ def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
         hook = getattr(kind_module(obs), "pinned_output", None)
         pinned = hook(obs, problem) if hook is not None else None
         if pinned is not None:
-            out.append((obs, *pinned))
+            out += [(reading, *pinned) for reading in obs.readings()]
     return out
+
+
+def _repeat_note(obs: Observation) -> list[str]:
+    """A note where a data file holds several readings of one subject (fitted as repeats of one value)."""
+    if obs.rows is None or len(set(obs.rows.subject)) == len(obs.rows.subject):
+        return []
+    return [f"{obs.key}: several readings of one subject are fitted as repeated readings of one steady value "
+            "(times are not modelled)"]
 
 
 def _output_at(problem: Problem, names: list[str], value_of: Any, output: str, z: np.ndarray) -> float:
@@ -540,8 +555,11 @@ def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
         return float(problem.priors[q].distribution.from_scores(z))
 
     total = np.zeros(len(names))
+    directions: dict[tuple[str, bool], np.ndarray | None] = {}   # the same for every reading of an output
     for _obs, output, log in pinned:
-        w = _direction(problem, names, typical, output, log)
+        if (output, log) not in directions:
+            directions[(output, log)] = _direction(problem, names, typical, output, log)
+        w = directions[(output, log)]
         if w is not None:
             total += w
     if not np.linalg.norm(total) > 0:
@@ -598,6 +616,8 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     for name in ctx.layers:           # claimed: a constant the claiming kind may set (``ctx.guess``)
         ctx.guesses[name] = (pytensor.shared(np.full(len(pidx), centre[name]), name=f"{name}__pinned_at"), pidx)
 
+    out_names = [pinned[i][0] for i in pidx]
+
     def predict(z: Any) -> Any:
         """The pinned outputs of the pinned subjects at scores z (..., P, k) -> (..., P)."""
         vals = {**problem.fixed}
@@ -610,7 +630,13 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
             vals[name] = apply_layer(prior, base[pidx], z[..., j], pt, ratio)
         outs = problem.evaluate(vals, pt)
         shape = pt.shape(z)[:-1]
-        return pt.stack([pt.broadcast_to(outs[pinned[i][0]], shape)[..., r] for r, i in enumerate(pidx)], axis=-1)
+        # one broadcast per output name, chosen per subject by a mask (a stack of one slice per subject
+        # made the graph grow quadratically with the pinned subjects of a cohort)
+        result = None
+        for out_name in dict.fromkeys(out_names):
+            part = pt.broadcast_to(outs[out_name], shape)
+            result = part if result is None else pt.where(np.array(out_names) == out_name, part, result)
+        return result
 
     # derivatives by central differences in one batched evaluation each (PIN_STEP): pytensor.grad here
     # would put second derivatives of the forward map into the sampler's gradient, and the steady forms'

@@ -28,11 +28,32 @@ _FIELDS = ("kind", "parameter", "value", "sd", "cv", "unit", "instrument", "subj
 
 
 @dataclasses.dataclass
+class Rows:
+    """The readings of one observation's data file (long format), in canonical units.
+
+    One entry per reading: ``subject`` labels, ``group`` labels (None where not given), ``value``,
+    ``sd`` (per-reading normal error; nan where the file gives none, so the observation's own applies),
+    ``time_min`` (nan where the file has no time) and ``line`` (the reading's line in ``source``).
+    """
+
+    subject: list[str | None]
+    group: list[str | None]
+    value: np.ndarray
+    sd: np.ndarray
+    time_min: np.ndarray
+    line: list[int]
+    source: str = ""
+    headers: dict[str, str] = dataclasses.field(default_factory=dict)
+
+
+@dataclasses.dataclass
 class Observation:
     """One normalised observation (values, sd in canonical units of the observed quantity).
 
-    ``index`` is the position in the study's ``[[observations]]`` list, used for key paths.
-    ``extra`` keeps every other field of the source record (e.g. a time-course ``file``).
+    ``index`` is the position in the study's ``[[observations]]`` list, used for key paths (and, as
+    ``obs<index>__<kind>``, for the names of its model variables). ``extra`` keeps every other field
+    of the source record (e.g. a time-course ``file``). An observation with a data file carries its
+    readings in ``rows`` (``value`` and ``subject`` are then None): one likelihood term covers them all.
     """
 
     kind: str
@@ -47,6 +68,8 @@ class Observation:
     group: str | None = None
     extra: dict[str, Any] = dataclasses.field(default_factory=dict)
     file: str | None = None
+    rows: Rows | None = None
+    notes: list[str] = dataclasses.field(default_factory=list)
 
     @property
     def key(self) -> str:
@@ -57,6 +80,67 @@ class Observation:
         """An InputError naming the study file, this observation's key path and the value."""
         key = self.key + (f".{field}" if field else "")
         return InputError(message, file=self.file, key=key, value=value)
+
+    @property
+    def values(self) -> np.ndarray:
+        """The reading(s) in canonical units: a 0-d array for a single value, else one per row."""
+        if self.rows is not None:
+            return self.rows.value
+        return np.asarray(np.nan if self.value is None else self.value, dtype=float)
+
+    @property
+    def sds(self) -> np.ndarray | float | None:
+        """Normal error of each reading (canonical unit): the row's sd where given, else ``sd``; None for a
+        cv (lognormal) error. A 0-d value for a single reading."""
+        if self.rows is None or not np.any(np.isfinite(self.rows.sd)):
+            return self.sd
+        default = np.nan if self.sd is None else self.sd
+        return np.where(np.isfinite(self.rows.sd), self.rows.sd, default)
+
+    def readings(self) -> list[Observation]:
+        """One single-value Observation per reading (itself when it has no rows), with the same index."""
+        if self.rows is None:
+            return [self]
+        sds = None if self.sds is None else np.broadcast_to(np.asarray(self.sds, dtype=float), self.rows.value.shape)
+        out = []
+        for k, subject in enumerate(self.rows.subject):
+            sd = None if sds is None else float(sds[k])
+            out.append(dataclasses.replace(self, rows=None, subject=subject, group=self.rows.group[k],
+                                           value=float(self.rows.value[k]), sd=sd))
+        return out
+
+    def subject_groups(self) -> list[tuple[str, str | None]]:
+        """(subject, group) of each labelled reading."""
+        if self.rows is not None:
+            return [(s, g) for s, g in zip(self.rows.subject, self.rows.group, strict=True) if s is not None]
+        return [(self.subject, self.group)] if self.subject is not None else []
+
+    def check_values(self, ok: np.ndarray | bool, message: str, field: str = "value") -> None:
+        """Raise ``message`` for the first reading where ``ok`` is False, naming its data-file line.
+
+        Parameters
+        ----------
+        ok : array of bool or bool
+            One flag per reading (as ``values``).
+        message : str
+            What is wrong.
+        field : str
+            The observation's key for a single value.
+
+        Raises
+        ------
+        InputError
+            Naming the key path, and the file, line and column of a data-file reading.
+        """
+        bad = np.flatnonzero(~np.atleast_1d(np.asarray(ok, dtype=bool)))
+        if not bad.size:
+            return
+        if self.rows is None:
+            raise self.error(message, field, self.value)
+        k = int(bad[0])
+        col = self.rows.headers.get("value", "value")
+        raise self.error(f"{self.rows.source} line {self.rows.line[k]}, column {col}: {message}", "file",
+                         float(self.rows.value[k]))
 
 
 @dataclasses.dataclass
@@ -146,8 +230,8 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
 
     Values and sd are converted to the canonical unit of the observed quantity (cv is unitless);
     records that come from a validated Study (they carry ``declared_unit``) are canonical already.
-    A record with a per-subject data file (columns subject, value; optional group) becomes one
-    record per row, all with the same index. Raises InputError (file, key, value) for an sd or cv
+    A record with a data file (columns subject, value; optional group, time, sd) keeps all its readings
+    in ``rows`` (one record, one likelihood term). Raises InputError (file, key, value) for an sd or cv
     that is not positive.
     """
     out: list[Observation] = []
@@ -185,16 +269,23 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
             if name in ("value", "sd") and not canonical:
                 v *= factor
             setattr(obs, name, v)
+        if data is not None:
+            obs.notes = list(getattr(data, "notes", []) or [])
         if data is not None and obs.kind != "volume_time_course" and "value" in data:
-            subjects = data.get("subject") or [None] * len(data["value"])
-            groups = data.get("group") or [obs.group] * len(data["value"])
-            for subj, grp, val in zip(subjects, groups, data["value"], strict=True):
-                row = dataclasses.replace(obs, extra={k: v for k, v in obs.extra.items() if k != "data"},
-                                          subject=None if subj is None else str(subj),
-                                          group=None if grp is None else str(grp),
-                                          value=float(val) * factor)
-                out.append(row)
-            continue
+            n = len(data["value"])
+            sd_col = data.get("sd")
+            obs.rows = Rows(
+                subject=[None if x is None else str(x) for x in (data.get("subject") or [obs.subject] * n)],
+                group=[obs.group if g is None else str(g) for g in (data.get("group") or [obs.group] * n)],
+                value=np.asarray(data["value"], dtype=float) * factor,
+                sd=(np.full(n, np.nan) if sd_col is None else np.asarray(sd_col, dtype=float) * factor),
+                time_min=np.asarray(data.get("time_min") or [np.nan] * n, dtype=float),
+                line=list(data.get("line") or range(2, n + 2)),
+                source=str(getattr(data, "source", "") or obs.extra.get("file", "")),
+                headers=dict(getattr(data, "headers", {}) or {}))
+            obs.extra.pop("data", None)
+            obs.value = None
+            obs.subject = None
         out.append(obs)
     return out
 

@@ -16,11 +16,12 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
     """Validate STUDY: priors after tissue, conditions and overrides; correlations; sections; data files."""
     from uncertainty.app.commands.priors import rows_table
     from uncertainty.app.section_checks import check_sections
-    from uncertainty.study import TOP_LEVEL, load_study, resolved_rows
+    from uncertainty.study import TOP_LEVEL, data_notes, load_study, resolved_rows
 
     s = load_study(study)
     check_sections(s)
     rows = resolved_rows(s)
+    notes = list(s.notes) + data_notes(s.observations)
     sections = [n for n in TOP_LEVEL if n not in ("study", "parameters", "correlations")
                 and getattr(s, n) is not None]
     if as_json:
@@ -28,7 +29,7 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
                    "conditions": s.conditions, "model": s.model, "seed": s.seed,
                    "tissue_mass_kg": s.tissue_mass_kg, "names": s.names, "priors": rows,
                    "correlations": [list(p) for p in s.correlations], "sections": sections,
-                   "outputs": s.outputs(), "notes": s.notes})
+                   "outputs": s.outputs(), "notes": notes})
         return
     if quiet:
         return
@@ -41,5 +42,5 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
         click.echo("correlations (normal scores): " + "; ".join(f"{a}-{b} {r:g}" for a, b, r in s.correlations))
     click.echo(f"uncertain inputs: {', '.join(s.names)}")
     click.echo(f"sections: {', '.join(sections) or 'none'}")
-    for n in s.notes:
+    for n in notes:
         click.echo(f"note: {n}")

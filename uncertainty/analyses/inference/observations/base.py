@@ -13,17 +13,36 @@ from uncertainty.forms.catalogue import outputs, study_outputs
 
 
 def term_name(obs: Observation) -> str:
-    """PyMC name of an observation's observed variable, e.g. ``obs2__lymph_flow``."""
+    """PyMC name of an observation's observed variable, e.g. ``obs2__lymph_flow``: one term per
+    ``[[observations]]`` entry (all the rows of its data file), so names cannot clash."""
     return f"obs{obs.index}__{obs.kind}"
 
 
+def term_subjects(index: Any) -> np.ndarray:
+    """Subject index of each element of a term (``BuildContext.subject_index``: an int or an array)."""
+    return np.atleast_1d(np.asarray(index, dtype=int))
+
+
 def require_error(obs: Observation) -> None:
-    """An observation needs a value and exactly one of sd (normal error) or cv (lognormal error)."""
-    if obs.value is None:
+    """An observation needs a value (or data-file rows) and exactly one of sd (normal error, on the
+    observation or per row) or cv (lognormal error); every reading needs its error."""
+    if obs.value is None and obs.rows is None:
         raise obs.error("a value is required", "value", None)
-    if (obs.sd is None) == (obs.cv is None):
+    sds = obs.sds
+    if (sds is None) == (obs.cv is None):
         raise obs.error("give exactly one of sd (normal error) or cv (lognormal error)", "sd",
                         obs.sd if obs.sd is not None else obs.cv)
+    check_sds(obs, sds)
+
+
+def check_sds(obs: Observation, sds: Any) -> None:
+    """Every reading's normal error (``sds``: a number, an array over rows or None) is given and positive."""
+    if sds is None:
+        return
+    sds = np.broadcast_to(np.asarray(sds, dtype=float), np.shape(obs.values))
+    obs.check_values(np.isfinite(sds), "no sd for this reading (a blank sd cell and no sd on the observation)",
+                     "sd")
+    obs.check_values(sds > 0, "sd must be positive", "sd")
 
 
 def add_reading(name: str, predicted: Any, value: Any, *, sd: float | None = None,
@@ -45,9 +64,9 @@ def add_reading(name: str, predicted: Any, value: Any, *, sd: float | None = Non
 
 
 def check_positive_value(obs: Observation) -> None:
-    """A cv (lognormal) error needs a positive reading."""
-    if obs.cv is not None and obs.value is not None and not obs.value > 0:
-        raise obs.error("a cv (lognormal) error needs a positive value", "value", obs.value)
+    """A cv (lognormal) error needs positive readings."""
+    if obs.cv is not None and (obs.value is not None or obs.rows is not None):
+        obs.check_values(obs.values > 0, "a cv (lognormal) error needs a positive value")
 
 
 def declared_prior(decl: Any, symbol: str, obs: Observation, field: str) -> Any:

@@ -18,6 +18,7 @@ from uncertainty.analyses.inference.observations.base import (
     prior_rv,
     require_error,
     term_name,
+    term_subjects,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
 
@@ -51,6 +52,6 @@ def add(ctx: Any, obs: Observation) -> None:
         ctx.extra_params.append(f"{name}__V_dist")
         pred = ctx.value("Jv")[i] / vd
     pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
+    add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
-                              subjects=[i], label="clearance rate"))
+                              subjects=term_subjects(i), label="clearance rate"))

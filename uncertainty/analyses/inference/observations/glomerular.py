@@ -10,7 +10,13 @@ from __future__ import annotations
 
 from typing import Any
 
-from uncertainty.analyses.inference.observations.base import add_reading, check_positive_value, require_error, term_name
+from uncertainty.analyses.inference.observations.base import (
+    add_reading,
+    check_positive_value,
+    require_error,
+    term_name,
+    term_subjects,
+)
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.forms.catalogue import forms_predicting
 
@@ -34,8 +40,8 @@ def validate(obs: Observation, problem: Problem) -> None:
     if form is not None and predicting and form not in predicting:
         wanted = " or ".join(f"model = \"{m}\"" for m in predicting)
         raise obs.error(f"a {obs.kind} observation needs {wanted}", "kind", obs.kind)
-    if obs.kind == "filtration_fraction" and not 0 < obs.value < 1:
-        raise obs.error("a filtration fraction lies strictly between 0 and 1", "value", obs.value)
+    if obs.kind == "filtration_fraction":
+        obs.check_values((obs.values > 0) & (obs.values < 1), "a filtration fraction lies strictly between 0 and 1")
 
 
 def add(ctx: Any, obs: Observation) -> None:
@@ -48,6 +54,6 @@ def add(ctx: Any, obs: Observation) -> None:
     pred = ctx.value(QUANTITY[obs.kind])[i]
     name = term_name(obs)
     pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
+    add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
-                              subjects=[i], label=LABEL[obs.kind]))
+                              subjects=term_subjects(i), label=LABEL[obs.kind]))

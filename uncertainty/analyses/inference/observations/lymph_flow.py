@@ -16,6 +16,7 @@ from uncertainty.analyses.inference.observations.base import (
     check_positive_value,
     require_error,
     term_name,
+    term_subjects,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
 
@@ -51,9 +52,9 @@ def add(ctx: Any, obs: Observation) -> None:
     pred = ctx.value("JL" if "JL" in ctx.outputs() else "Jv")[i]
     name = term_name(obs)
     pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
+    add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     if obs.extra.get("site") == "post_nodal":
         ctx.notes.append(f"{obs.key}: post-nodal lymph is fitted as if it were pre-nodal; the Jv "
                          "posterior is then biased low")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
-                              subjects=[i], label="lymph flow"))
+                              subjects=term_subjects(i), label="lymph flow"))

@@ -10,12 +10,16 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
+
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     check_positive_value,
+    check_sds,
     output_names,
     prior_rv,
     term_name,
+    term_subjects,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
 
@@ -33,22 +37,30 @@ def _instrument(obs: Observation) -> Any:
     return inst
 
 
-def _noise(obs: Observation, problem: Problem) -> tuple[float | None, float | None]:
-    if obs.sd is not None or obs.cv is not None:
-        return obs.sd, obs.cv
-    inst = _instrument(obs)
-    cv = getattr(inst, "cv", None)
-    sd = getattr(inst, "sd", None)
-    if sd is not None:  # instruments.toml values are read into canonical units
-        return float(sd), None
-    return None, None if cv is None else float(cv)
+def _noise(obs: Observation, problem: Problem) -> tuple[Any, float | None]:
+    """(sd, cv) of the readings: the observation's own, else its instrument's; a data file's sd column
+    overrides sd row by row (an array over the rows then)."""
+    if obs.sd is not None or obs.cv is not None or obs.instrument is None:
+        sd, cv = obs.sd, obs.cv
+    else:
+        inst = _instrument(obs)
+        cv = getattr(inst, "cv", None)
+        sd = getattr(inst, "sd", None)
+        # instruments.toml values are read into canonical units
+        sd, cv = (float(sd), None) if sd is not None else (None, None if cv is None else float(cv))
+    rows = obs.rows
+    if rows is not None and np.any(np.isfinite(rows.sd)):
+        if cv is not None:
+            raise obs.error("the data file gives an sd per row but the error is a cv; give sd", "cv", cv)
+        sd = np.where(np.isfinite(rows.sd), rows.sd, np.nan if sd is None else sd)
+    return sd, cv
 
 
 def validate(obs: Observation, problem: Problem) -> None:
     """Check the parameter is an uncertain quantity (or an output) and the error is stated."""
     if not obs.parameter:
         raise obs.error("a measurement names the quantity it reads", "parameter", None)
-    if obs.value is None:
+    if obs.value is None and obs.rows is None:
         raise obs.error("a value is required", "value", None)
     name = obs.parameter
     if name in problem.fixed:
@@ -68,8 +80,9 @@ def validate(obs: Observation, problem: Problem) -> None:
     sd, cv = _noise(obs, problem)
     if sd is None and cv is None:
         raise obs.error("give sd (normal error), cv (lognormal error) or an instrument", "sd", None)
-    if cv is not None and not obs.value > 0:
-        raise obs.error("a cv (lognormal) error needs a positive value", "value", obs.value)
+    check_sds(obs, sd)
+    if cv is not None:
+        obs.check_values(obs.values > 0, "a cv (lognormal) error needs a positive value")
     check_positive_value(obs)
 
 
@@ -95,6 +108,6 @@ def add(ctx: Any, obs: Observation) -> None:
     sd, cv = _noise(obs, ctx.problem)
     name = term_name(obs)
     pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, obs.value, sd=sd, cv=cv)
+    add_reading(name, pred, obs.values, sd=sd, cv=cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
-                              subjects=[i], label=f"{obs.parameter} reading"))
+                              subjects=term_subjects(i), label=f"{obs.parameter} reading"))

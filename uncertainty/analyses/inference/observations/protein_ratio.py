@@ -14,6 +14,7 @@ from uncertainty.analyses.inference.observations.base import (
     require_error,
     require_quantity,
     term_name,
+    term_subjects,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
 
@@ -24,8 +25,8 @@ def validate(obs: Observation, problem: Problem) -> None:
     """A value in (0, 1] with sd or cv; sigma and PS must be quantities of the study."""
     require_error(obs)
     check_positive_value(obs)
-    if not 0 < obs.value <= 1.5:
-        raise obs.error("a lymph/plasma protein ratio lies between 0 and about 1", "value", obs.value)
+    obs.check_values((obs.values > 0) & (obs.values <= 1.5), "a lymph/plasma protein ratio lies between 0 and "
+                     "about 1")
     require_quantity(obs, problem, "sigma", "reflection coefficient")
     require_quantity(obs, problem, "PS", "protein permeability-surface product")
 
@@ -43,6 +44,6 @@ def add(ctx: Any, obs: Observation) -> None:
     pred = solute.steady_state_ratio(ctx.value("Jv")[i], ctx.value("sigma")[i], ctx.value("PS")[i],
                                      xp=pt)
     pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
+    add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
-                              subjects=[i], label="lymph/plasma protein ratio"))
+                              subjects=term_subjects(i), label="lymph/plasma protein ratio"))

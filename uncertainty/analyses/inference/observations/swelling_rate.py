@@ -15,6 +15,7 @@ from uncertainty.analyses.inference.observations.base import (
     require_error,
     require_quantity,
     term_name,
+    term_subjects,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
 
@@ -24,8 +25,8 @@ NOTE = "swelling_rate: dV/dt = Jv - JL, with JL from the lymph relation or the d
 def validate(obs: Observation, problem: Problem) -> None:
     """A value with sd or cv, and either a lymph declaration or the study's lymph relation."""
     require_error(obs)
-    if obs.cv is not None and not obs.value > 0:
-        raise obs.error("a cv (lognormal) error needs a positive swelling rate", "value", obs.value)
+    if obs.cv is not None:
+        obs.check_values(obs.values > 0, "a cv (lognormal) error needs a positive swelling rate")
     if "lymph" in obs.extra:
         declared_prior(obs.extra["lymph"], "JL", obs, "lymph")
         return
@@ -51,6 +52,6 @@ def add(ctx: Any, obs: Observation) -> None:
                                      xp=pt)
     pred = ctx.value("Jv")[i] - JL
     pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, obs.value, sd=obs.sd, cv=obs.cv)
+    add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
-                              subjects=[i], label="swelling rate"))
+                              subjects=term_subjects(i), label="swelling rate"))

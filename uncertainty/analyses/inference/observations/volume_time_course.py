@@ -90,6 +90,9 @@ NAIVE_PRIORS = {
 
 
 def _time_column(data: dict[str, list]) -> np.ndarray:
+    """Times in minutes (the study loader gives ``time_min``; records built in code may use another unit)."""
+    if "time_s" in data and "time_min" not in data:
+        return np.asarray(data["time_s"], dtype=float) / 60.0
     if "time_min" in data:
         return np.asarray(data["time_min"], dtype=float)
     if "time_h" in data:
@@ -127,19 +130,21 @@ def _steps(obs: Observation) -> tuple[list[float], list[float]]:
 
 
 def subjects(obs: Observation, problem: Problem) -> list[tuple[str, str | None]]:
-    """(subject, group) pairs in the data file, in file order."""
+    """(subject, group) pairs in the data file, in file order (a subject's group from any of its rows)."""
     data = _data(obs, problem)
     seen: dict[str, str | None] = {}
     groups = data.get("group")
     for k, s in enumerate(data["subject"]):
         s = str(s)
-        if s not in seen:
-            seen[s] = None if groups is None else str(groups[k])
+        g = None if groups is None or groups[k] is None else str(groups[k])
+        if s not in seen or seen[s] is None:   # a blank group cell: the subject's group from another row
+            seen[s] = g
     return list(seen.items())
 
 
 def validate(obs: Observation, problem: Problem) -> None:
-    """Data columns (subject, time, volume), times rising per subject, non-negative volumes, steps."""
+    """Data columns (subject, time, volume), times rising per subject, steps. Volumes may be negative
+    (zeroed readings below the baseline): the curve has a per-subject baseline offset."""
     data = _data(obs, problem)
     if "subject" not in data or "volume" not in data:
         raise obs.error("the data file needs columns subject, time_min and volume", "file",
