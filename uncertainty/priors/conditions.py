@@ -18,7 +18,7 @@ from uncertainty.priors.declarations import (
     Context,
     Prior,
     check_params,
-    check_sign,
+    check_sign_rules,
     is_number,
     parse_prior,
 )
@@ -138,7 +138,7 @@ def _modify_prior(prior: Prior, m: Modifier, file: Any, key: str, density: float
     new = prior.replace(dist=dist, params=p, note=(prior.note + f" [modified by condition: {m.origin}]").strip())
     try:
         check_params(dist, p, Context(file, density), key, p)
-        check_sign(new, Context(file, density), key, p)
+        check_sign_rules(new, Context(file, density), key, p)
     except StudyError as exc:
         raise study_error(f"after the condition, {prior.symbol}: {exc.reason}", file, key, exc.value) from None
     return new

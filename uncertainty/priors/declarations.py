@@ -347,7 +347,7 @@ def parse_prior(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
         prior = Prior(symbol, Fixed.name, {"value": value * factor}, canon, basis, None, default_origin, "",
                       text_unit)
         if check_sign:
-            check_sign(prior, ctx, key, decl)
+            check_sign_rules(prior, ctx, key, decl)
         return prior
     if not isinstance(decl, Mapping):
         raise study_error("a declaration is a table, a number or a string with a unit", ctx.file, key, decl)
@@ -400,7 +400,7 @@ def parse_prior(symbol: str, decl: Any, *, ctx: Context | None = None, key: str 
             raise study_error(f"`{k}` must be a string", ctx.file, join_key(key, k), v)
     prior = Prior(symbol, dist, params, canon, basis, between, origin, note, unit_used)
     if check_sign:
-        check_sign(prior, ctx, key, decl)
+        check_sign_rules(prior, ctx, key, decl)
     return prior
 
 
@@ -432,7 +432,7 @@ def check_params(dist: str, p: dict[str, float], ctx: Context, key: str, raw: di
         raise study_error(exc.reason, ctx.file, join_key(key, exc.param), shown) from None
 
 
-def check_sign(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
+def check_sign_rules(prior: Prior, ctx: Context, key: str, decl: Any) -> None:
     """The sign rules of :data:`POSITIVE` and :data:`UNIT_INTERVAL` quantities (module docstring) as a
     StudyError at ``key``: negligible mass (below :data:`NEGLIGIBLE_MASS`) at or below zero, or above one."""
     s = prior.symbol
