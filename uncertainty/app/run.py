@@ -26,83 +26,23 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from uncertainty.app.bundle import (
-    REPORT,
-    SCHEMA,
-    Bundle,
-    FileRecord,
-    code_hash,
-    jsonable,
-    package_version,
-    table_csv,
-    versions,
-)
+from uncertainty.analyses import registry
+from uncertainty.app.bundle import REPORT, SCHEMA, Bundle, FileRecord, sha256_file, table_csv
 from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError
+from uncertainty.core.provenance import code_hash, package_version, versions
+from uncertainty.core.serialise import jsonable
 from uncertainty.study import Study, load_study
 
-ORDER = ("check", "propagate", "sensitivity", "infer", "rank", "design", "schedule")
+ORDER = ("check", *(a.name for a in registry.ANALYSES))
 #: study-file sections that belong to one analysis (the rest of the file is shared by all)
 ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule")
 #: the study-file sections each analysis depends on, beyond the shared part
-DEPENDS = {
-    "check": (),
-    "propagate": ("propagate",),
-    "sensitivity": ("sensitivity",),
-    "infer": ("observations", "infer"),
-    "rank": ("rank", "observations"),
-    "design": ("design", "observations"),
-    "schedule": ("schedule", "observations"),
-}
-LABELS = {"check": "check study", "propagate": "propagate uncertainty", "sensitivity": "global sensitivity",
-          "infer": "Bayesian updating", "rank": "rank measurements", "design": "trial design",
-          "schedule": "cuff schedule"}
+DEPENDS = {"check": (), **{a.name: a.depends for a in registry.ANALYSES}}
+LABELS = {"check": "check study", **{a.name: a.label for a in registry.ANALYSES}}
 
-
-# --------------------------------------------------------------------------------------------
-# The analyses, called exactly as the Python API and the single commands call them
-# --------------------------------------------------------------------------------------------
-
-def _propagate(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.propagate import propagate
-
-    return propagate(study, seed=seed)
-
-
-def _sensitivity(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.sensitivity import sensitivity
-
-    return sensitivity(study, seed=seed)
-
-
-def _infer(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.inference import infer
-
-    return infer(study, seed=seed)
-
-
-def _rank(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.rank import rank
-
-    return rank(study, seed=seed)
-
-
-def _design(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.design import design
-
-    return design(study, seed=seed)
-
-
-def _schedule(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.schedule import schedule
-
-    return schedule(study, seed=seed)
-
-
-#: section -> callable(study, seed) returning a result object (to_dict, to_dataframe, plot)
-ANALYSES: dict[str, Callable[[Any, int | None], Any]] = {
-    "propagate": _propagate, "sensitivity": _sensitivity, "infer": _infer, "rank": _rank, "design": _design,
-    "schedule": _schedule,
-}
+#: section -> callable(study, seed) returning a result object (to_dict, to_dataframe, plot), called
+#: exactly as the Python API and the single commands call the analyses; replaceable (tests use stand-ins)
+ANALYSES: dict[str, Callable[[Any, int | None], Any]] = {a.name: a.run for a in registry.ANALYSES}
 
 
 def load(study_path: str | os.PathLike) -> Study:
@@ -116,11 +56,8 @@ LOADER: Callable[[str | os.PathLike], Any] = load
 
 def present(study: Any, name: str) -> bool:
     """True when the study has the analysis section ``name`` (check is always present)."""
-    if name == "check":
-        return True
-    if name == "infer":
-        return bool(getattr(study, "observations", None))
-    return getattr(study, name, None) is not None
+    a = registry.analysis(name)
+    return True if a is None else a.present(study)
 
 
 # --------------------------------------------------------------------------------------------
@@ -180,8 +117,6 @@ def prior_rows(study: Any) -> list[dict[str, Any]]:
 
 def _data_files(study: Any, raw: Mapping[str, Any] | None) -> dict[str, str]:
     """SHA-256 of every data file the observations name (relative to the study file)."""
-    from uncertainty.app.bundle import sha256_file
-
     out: dict[str, str] = {}
     base = Path(getattr(study, "path", None) or ".").parent
     for obs in (raw or {}).get("observations", []) or []:
