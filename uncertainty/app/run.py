@@ -28,9 +28,12 @@ from typing import Any
 
 from uncertainty.analyses import registry
 from uncertainty.app.bundle import REPORT, SCHEMA, Bundle, FileRecord, sha256_file, table_csv
+from uncertainty.app.report import summary_lines, write_report
+from uncertainty.app.section_checks import check_sections
 from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError
 from uncertainty.core.provenance import code_hash, package_version, versions
 from uncertainty.core.serialise import jsonable
+from uncertainty.priors import prior_rows as declared_rows
 from uncertainty.study import Study, load_study
 
 ORDER = ("check", *(a.name for a in registry.ANALYSES))
@@ -91,9 +94,7 @@ def prior_rows(study: Any) -> list[dict[str, Any]]:
     basis, between_subject, origin; plus params), then one row per derived quantity; canonical units."""
     priors = getattr(study, "priors", None) or {}
     try:
-        from uncertainty.priors import prior_rows as _rows
-
-        rows = _rows(priors, getattr(study, "derived", None))
+        rows = declared_rows(priors, getattr(study, "derived", None))
         for row in rows:
             p = priors.get(row.get("symbol"))
             if p is not None and row.get("dist") != "derived":
@@ -239,8 +240,6 @@ class _Progress:
 
 def _check(study: Any) -> dict[str, Any]:
     if isinstance(study, Study):  # tests pass light stand-ins, which have no analysis sections to check
-        from uncertainty.app.section_checks import check_sections
-
         check_sections(study)
     names = list(getattr(study, "names", None) or [])
     return jsonable({
@@ -415,8 +414,6 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
     section's quality gate failed, FluidshiftError (exit 1) when a section raised an error; in both
     cases the complete bundle and report are written first.
     """
-    from uncertainty.app.report import summary_lines, write_report
-
     started = _now()
     study = LOADER(study_path)
     seed = getattr(study, "seed", None) if seed is None else seed

@@ -507,7 +507,7 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
 
     from uncertainty.analyses.inference import infer
     from uncertainty.analyses.inference.api import new_subject_values, settings
-    from uncertainty.analyses.inference.result import flat
+    from uncertainty.analyses.inference.summaries import flat
 
     opts = settings(study, sampler=sampler, chains=chains, tune=tune)  # None: the study's [infer], else defaults
     opts["draws"] = max(250, math.ceil(samples / opts["chains"]))
