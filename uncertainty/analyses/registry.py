@@ -7,6 +7,7 @@ below plus its folder (core, ``result.py``, ``figure.py``, ``table.py``, ``repor
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 from uncertainty.analyses import design as design_
@@ -30,7 +31,7 @@ from uncertainty.analyses.sensitivity import report_section as sensitivity_repor
 from uncertainty.analyses.sensitivity.result import SensitivityResult
 
 
-def _has_section(name: str) -> Any:
+def _has_section(name: str) -> Callable[[Any], bool]:
     def present(study: Any) -> bool:
         return getattr(study, name, None) is not None
 
