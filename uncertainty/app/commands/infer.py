@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import click
 
-from uncertainty.analyses.inference.api import infer, settings
+from uncertainty.analyses import inference
+from uncertainty.analyses.inference.api import settings
 from uncertainty.app.commands.common import handle_errors, show_result, study_options
 from uncertainty.core.errors import QualityGateError
 from uncertainty.study import load_study
@@ -57,7 +58,7 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     gate.update({k: v for k, v in (("r_hat_max", r_hat_max), ("ess_bulk_min", ess_min),
                                    ("divergences_max", divergences_max)) if v is not None})
     try:
-        result = infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
+        result = inference.infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
                        compare_models=compare_models, checks=not no_checks, target_accept=target_accept,
                        start=start)
     except QualityGateError as exc:
