@@ -13,7 +13,7 @@ import pytest
 from inference_helpers import FIXED, lognormal, normal, problem
 
 from uncertainty.analyses.inference.api import fit
-from uncertainty.analyses.inference.result import flat
+from uncertainty.analyses.inference.summaries import flat
 
 pytestmark = pytest.mark.slow
 

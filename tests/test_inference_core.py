@@ -8,7 +8,7 @@ from inference_helpers import FIXED, lognormal, normal, problem
 
 from uncertainty.analyses.inference.diagnostics import Gate, diagnose
 from uncertainty.analyses.inference.model_builder import build_model
-from uncertainty.analyses.inference.result import summarise
+from uncertainty.analyses.inference.summaries import summarise
 from uncertainty.core.errors import InputError
 
 

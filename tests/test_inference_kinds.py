@@ -22,7 +22,7 @@ from inference_helpers import FIXED, lognormal, normal, problem, starling_output
 from scipy import integrate, stats
 
 from uncertainty.analyses.inference.api import fit
-from uncertainty.analyses.inference.result import flat
+from uncertainty.analyses.inference.summaries import flat
 from uncertainty.physiology import solute
 from uncertainty.priors import Prior
 

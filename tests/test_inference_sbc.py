@@ -15,7 +15,7 @@ from inference_helpers import FIXED, lognormal, normal, problem, starling_output
 from scipy import stats
 
 from uncertainty.analyses.inference.api import Session
-from uncertainty.analyses.inference.result import flat
+from uncertainty.analyses.inference.summaries import flat
 
 pytestmark = pytest.mark.slow
 

@@ -236,7 +236,7 @@ def test_lymph_subject_linearised_at_its_own_curve_fit():
 def test_simulated_subjects_recovered_with_default_gate():
     """Four simulated subjects (invented truths) are each recovered inside their 95% interval."""
     from uncertainty.analyses.inference.api import Session
-    from uncertainty.analyses.inference.result import flat
+    from uncertainty.analyses.inference.summaries import flat
 
     kf = np.array([0.0025, 0.0035, 0.0045, 0.0030])   # mL/min/mmHg/100 mL, invented truths
     pvi = np.array([10.0, 14.0, 18.0, 22.0])           # mmHg, invented truths
@@ -271,7 +271,7 @@ def test_sbc_cuff_curves_ranks_uniform_and_coverage_binomial():
     from scipy import stats
 
     from uncertainty.analyses.inference.api import Session
-    from uncertainty.analyses.inference.result import flat
+    from uncertainty.analyses.inference.summaries import flat
 
     shape = simulate(np.array([0.003, 0.004, 0.0035]), np.array([12.0, 16.0, 20.0]),
                      np.array([0.04, 0.05, 0.045]), np.random.default_rng(11))  # layout only

@@ -14,10 +14,8 @@ from __future__ import annotations
 
 import contextlib
 import fcntl
-import functools
 import hashlib
 import json
-import math
 import os
 import shutil
 import tempfile
@@ -27,6 +25,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from uncertainty.core.errors import InputError
+from uncertainty.core.serialise import jsonable, to_json
 
 SCHEMA = "fluidshift-results/1"
 RESULTS = "results.json"
@@ -36,9 +35,6 @@ LOCK = ".lock"
 #: What a bundle folder may hold besides results.json; a folder with anything else and no results.json is
 #: someone else's and is refused unless --force.
 BUNDLE_ENTRIES = frozenset({RESULTS, REPORT, "tables", "figures", "posterior.nc", STAGING, LOCK})
-#: dependencies whose versions go into the provenance (looked up by distribution metadata only).
-DEPENDENCIES = ("numpy", "scipy", "SALib", "pymc", "pytensor", "arviz", "nutpie", "pint", "pydantic",
-                "click", "rich", "matplotlib", "pandas", "xarray", "netCDF4", "h5netcdf", "dask")
 
 SectionName = Literal["check", "propagate", "sensitivity", "infer", "rank", "design", "schedule"]
 
@@ -166,35 +162,12 @@ def validate(doc: dict[str, Any], *, file: str | None = None) -> ResultsDoc:
 def dump(doc: dict[str, Any]) -> str:
     """Validate and serialise a results document (JSON, 2-space indent, NaN as null)."""
     model = validate(jsonable(doc))
-    return json.dumps(model.model_dump(by_alias=True, mode="json"), indent=2, allow_nan=False) + "\n"
+    return to_json(model.model_dump(by_alias=True, mode="json")) + "\n"
 
 
 # --------------------------------------------------------------------------------------------
 # Helpers
 # --------------------------------------------------------------------------------------------
-
-def jsonable(obj: Any) -> Any:
-    """A JSON-safe copy: numpy scalars/arrays to Python, tuples to lists, NaN/inf to None, keys to str."""
-    if isinstance(obj, dict):
-        return {str(k): jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple | set | frozenset):
-        return [jsonable(v) for v in obj]
-    if isinstance(obj, bool | str | int) or obj is None:
-        return obj
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, Path):
-        return str(obj)
-    tolist = getattr(obj, "tolist", None)  # numpy arrays and scalars
-    if callable(tolist):
-        return jsonable(tolist())
-    item = getattr(obj, "item", None)
-    if callable(item):
-        return jsonable(item())
-    if hasattr(obj, "model_dump"):
-        return jsonable(obj.model_dump())
-    return str(obj)
-
 
 #: First characters that make a spreadsheet program read a cell as a formula (OWASP "CSV injection"; common
 #: practice): such text cells are written with a leading apostrophe, which the programs show as text.
@@ -224,41 +197,6 @@ def sha256_file(path: str | os.PathLike) -> str:
         for chunk in iter(lambda: fh.read(1 << 20), b""):
             h.update(chunk)
     return h.hexdigest()
-
-
-def versions() -> dict[str, str | None]:
-    """Installed versions of the dependencies (None when not installed), without importing them."""
-    from importlib.metadata import PackageNotFoundError, version
-
-    out: dict[str, str | None] = {}
-    for name in DEPENDENCIES:
-        try:
-            out[name] = version(name)
-        except PackageNotFoundError:
-            out[name] = None
-    return out
-
-
-@functools.lru_cache(maxsize=1)
-def code_hash() -> str:
-    """SHA-256 over the package's Python sources (sorted paths and bytes): a code change within one version
-    number must not reuse results computed by the old code."""
-    root = Path(__file__).resolve().parents[1]  # the uncertainty package
-    h = hashlib.sha256()
-    for f in sorted(root.rglob("*.py")):
-        h.update(str(f.relative_to(root)).encode("utf-8"))
-        h.update(f.read_bytes())
-    return h.hexdigest()
-
-
-def package_version() -> str:
-    """Version of the installed fluidshift distribution ("0+unknown" from a bare source tree)."""
-    from importlib.metadata import PackageNotFoundError, version
-
-    try:
-        return version("fluidshift")
-    except PackageNotFoundError:
-        return "0+unknown"
 
 
 # --------------------------------------------------------------------------------------------

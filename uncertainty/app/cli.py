@@ -38,17 +38,7 @@ class LazyGroup(click.Group):
         if cmd_name not in COMMANDS:
             return None
         module_name, short_help = COMMANDS[cmd_name]
-        try:
-            module = importlib.import_module(f"uncertainty.app.commands.{module_name}")
-        except ModuleNotFoundError as exc:
-            if exc.name != f"uncertainty.app.commands.{module_name}":
-                raise
-
-            @click.command(cmd_name, short_help=short_help + " (not built yet)")
-            def missing() -> None:
-                raise click.ClickException(f"'{cmd_name}' is not available in this version yet")
-
-            return missing
+        module = importlib.import_module(f"uncertainty.app.commands.{module_name}")
         command = module.command
         command.short_help = command.short_help or short_help
         return command
@@ -58,15 +48,6 @@ class LazyGroup(click.Group):
         rows = [(name, help_) for name, (_, help_) in COMMANDS.items()]
         with formatter.section("Commands"):
             formatter.write_dl(rows)
-
-
-def _version() -> str:
-    from importlib.metadata import PackageNotFoundError, version
-
-    try:
-        return version("fluidshift")
-    except PackageNotFoundError:  # running from a source tree without installation
-        return "0+unknown"
 
 
 @click.group(cls=LazyGroup, context_settings={"help_option_names": ["-h", "--help"]})

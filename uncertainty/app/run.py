@@ -26,83 +26,26 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from uncertainty.app.bundle import (
-    REPORT,
-    SCHEMA,
-    Bundle,
-    FileRecord,
-    code_hash,
-    jsonable,
-    package_version,
-    table_csv,
-    versions,
-)
+from uncertainty.analyses import registry
+from uncertainty.app.bundle import REPORT, SCHEMA, Bundle, FileRecord, sha256_file, table_csv
+from uncertainty.app.report import summary_lines, write_report
+from uncertainty.app.section_checks import check_sections
 from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError
+from uncertainty.core.provenance import code_hash, package_version, versions
+from uncertainty.core.serialise import jsonable
+from uncertainty.priors import prior_rows as declared_rows
 from uncertainty.study import Study, load_study
 
-ORDER = ("check", "propagate", "sensitivity", "infer", "rank", "design", "schedule")
+ORDER = ("check", *(a.name for a in registry.ANALYSES))
 #: study-file sections that belong to one analysis (the rest of the file is shared by all)
 ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule")
 #: the study-file sections each analysis depends on, beyond the shared part
-DEPENDS = {
-    "check": (),
-    "propagate": ("propagate",),
-    "sensitivity": ("sensitivity",),
-    "infer": ("observations", "infer"),
-    "rank": ("rank", "observations"),
-    "design": ("design", "observations"),
-    "schedule": ("schedule", "observations"),
-}
-LABELS = {"check": "check study", "propagate": "propagate uncertainty", "sensitivity": "global sensitivity",
-          "infer": "Bayesian updating", "rank": "rank measurements", "design": "trial design",
-          "schedule": "cuff schedule"}
+DEPENDS = {"check": (), **{a.name: a.depends for a in registry.ANALYSES}}
+LABELS = {"check": "check study", **{a.name: a.label for a in registry.ANALYSES}}
 
-
-# --------------------------------------------------------------------------------------------
-# The analyses, called exactly as the Python API and the single commands call them
-# --------------------------------------------------------------------------------------------
-
-def _propagate(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.propagate import propagate
-
-    return propagate(study, seed=seed)
-
-
-def _sensitivity(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.sensitivity import sensitivity
-
-    return sensitivity(study, seed=seed)
-
-
-def _infer(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.inference import infer
-
-    return infer(study, seed=seed)
-
-
-def _rank(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.rank import rank
-
-    return rank(study, seed=seed)
-
-
-def _design(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.design import design
-
-    return design(study, seed=seed)
-
-
-def _schedule(study: Any, seed: int | None) -> Any:
-    from uncertainty.analyses.schedule import schedule
-
-    return schedule(study, seed=seed)
-
-
-#: section -> callable(study, seed) returning a result object (to_dict, to_dataframe, plot)
-ANALYSES: dict[str, Callable[[Any, int | None], Any]] = {
-    "propagate": _propagate, "sensitivity": _sensitivity, "infer": _infer, "rank": _rank, "design": _design,
-    "schedule": _schedule,
-}
+#: section -> callable(study, seed) returning a result object (to_dict, to_dataframe, plot), called
+#: exactly as the Python API and the single commands call the analyses; replaceable (tests use stand-ins)
+ANALYSES: dict[str, Callable[[Any, int | None], Any]] = {a.name: a.run for a in registry.ANALYSES}
 
 
 def load(study_path: str | os.PathLike) -> Study:
@@ -116,11 +59,8 @@ LOADER: Callable[[str | os.PathLike], Any] = load
 
 def present(study: Any, name: str) -> bool:
     """True when the study has the analysis section ``name`` (check is always present)."""
-    if name == "check":
-        return True
-    if name == "infer":
-        return bool(getattr(study, "observations", None))
-    return getattr(study, name, None) is not None
+    a = registry.analysis(name)
+    return True if a is None else a.present(study)
 
 
 # --------------------------------------------------------------------------------------------
@@ -154,9 +94,7 @@ def prior_rows(study: Any) -> list[dict[str, Any]]:
     basis, between_subject, origin; plus params), then one row per derived quantity; canonical units."""
     priors = getattr(study, "priors", None) or {}
     try:
-        from uncertainty.priors import prior_rows as _rows
-
-        rows = _rows(priors, getattr(study, "derived", None))
+        rows = declared_rows(priors, getattr(study, "derived", None))
         for row in rows:
             p = priors.get(row.get("symbol"))
             if p is not None and row.get("dist") != "derived":
@@ -180,8 +118,6 @@ def prior_rows(study: Any) -> list[dict[str, Any]]:
 
 def _data_files(study: Any, raw: Mapping[str, Any] | None) -> dict[str, str]:
     """SHA-256 of every data file the observations name (relative to the study file)."""
-    from uncertainty.app.bundle import sha256_file
-
     out: dict[str, str] = {}
     base = Path(getattr(study, "path", None) or ".").parent
     for obs in (raw or {}).get("observations", []) or []:
@@ -304,8 +240,6 @@ class _Progress:
 
 def _check(study: Any) -> dict[str, Any]:
     if isinstance(study, Study):  # tests pass light stand-ins, which have no analysis sections to check
-        from uncertainty.app.section_checks import check_sections
-
         check_sections(study)
     names = list(getattr(study, "names", None) or [])
     return jsonable({
@@ -480,8 +414,6 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
     section's quality gate failed, FluidshiftError (exit 1) when a section raised an error; in both
     cases the complete bundle and report are written first.
     """
-    from uncertainty.app.report import summary_lines, write_report
-
     started = _now()
     study = LOADER(study_path)
     seed = getattr(study, "seed", None) if seed is None else seed

@@ -35,7 +35,9 @@ import numpy as np
 from scipy import stats
 
 from uncertainty.analyses.design import trial_power as tp
+from uncertainty.analyses.design.result import DesignResult
 from uncertainty.core.errors import InputError
+from uncertainty.core.provenance import code_hash, package_version
 from uncertainty.distributions import REGISTRY, Distribution, Normal, Spread, TruncNormal, Uniform, log_sd_from_cv
 from uncertainty.forms.catalogue import all_outputs
 from uncertainty.forms.evaluate import evaluate as model_evaluate
@@ -589,8 +591,6 @@ class _PointTask:
         import dataclasses
         import hashlib
 
-        from uncertainty.app.bundle import code_hash, package_version
-
         release = (package_version(), code_hash())
         st = self.study
         spec = {f.name: getattr(self.spec, f.name) for f in dataclasses.fields(self.spec) if f.name != "prior_frozen"}
@@ -669,30 +669,6 @@ def pilot_sd(study: Any, spec: DesignSpec, seed: int, n: int = 4000) -> tuple[fl
 
 # --------------------------------------------------------------------------------------------
 # the analysis
-
-
-@dataclass
-class DesignResult:
-    """Result of :func:`design`: the JSON of DESIGN.md section 5 plus the curves."""
-
-    doc: dict[str, Any]
-
-    def to_dict(self) -> dict[str, Any]:
-        """The JSON document (canonical units; n per arm, power and assurance dimensionless)."""
-        return self.doc
-
-    def to_dataframe(self) -> Any:
-        """The power / assurance curve as a pandas DataFrame (one row per sample size)."""
-        import pandas as pd
-
-        return pd.DataFrame(self.doc["curve"])
-
-    def plot(self, out_dir: str) -> list[str]:
-        """Power and assurance curves as figures in ``out_dir``; returns the file paths."""
-        from uncertainty.analyses.design.figure import plot_design
-
-        return plot_design(self.doc, out_dir)
-
 
 def design(study: Any, seed: int | None = None, exact: bool = False, executor: Any = None,
            trials: int | None = None) -> DesignResult:

@@ -9,12 +9,12 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.propagate.figure import _pyplot, save
+from uncertainty.core.plotting import pyplot, save_figure
 
 
 def plot_design(doc: dict[str, Any], out_dir: str) -> list[str]:
     """Power (simulated, with +-2 MC se, and analytic) and assurance curves; PNG and SVG paths."""
-    plt = _pyplot()
+    plt = pyplot()
     curve = doc["curve"]
     n = np.array([r["n_per_arm"] for r in curve], dtype=float)
     fig, ax = plt.subplots(figsize=(5.2, 3.4))
@@ -39,4 +39,4 @@ def plot_design(doc: dict[str, Any], out_dir: str) -> list[str]:
     ax.legend(frameon=False, fontsize=8)
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
-    return save(fig, out_dir, f"design_{doc['endpoint']}")
+    return save_figure(fig, out_dir, f"design_{doc['endpoint']}")

@@ -13,17 +13,13 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.inference.compare import compare_forms
 from uncertainty.analyses.inference.diagnostics import Gate, diagnose
-from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, spread_ratio
+from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, is_positive, spread_ratio
 from uncertainty.analyses.inference.problem import Problem, problem_from_study
-from uncertainty.analyses.inference.result import (
-    CONFOUNDED_CORRELATION,
-    PRIOR_BOUND_CONTRACTION,
-    InferenceResult,
-    flat,
-    summarise,
-)
+from uncertainty.analyses.inference.result import InferenceResult
 from uncertainty.analyses.inference.samplers import SampleRun, sample
+from uncertainty.analyses.inference.summaries import CONFOUNDED_CORRELATION, PRIOR_BOUND_CONTRACTION, flat, summarise
 from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.forms.catalogue import note_outputs, output_notes
 from uncertainty.study import InferSection
@@ -116,8 +112,6 @@ def infer(study: Any, sampler: str | None = None, seed: int | None = None, chain
                     target_accept=target_accept, start=start)
     result = fit(study, observations, seed=seed, checks=checks, **opts)
     if compare_models:
-        from uncertainty.analyses.inference.compare import compare_forms
-
         result.doc["comparison"] = compare_forms(study, fit=fit, sampler=opts["sampler"], seed=seed,
                                                  chains=opts["chains"], draws=opts["draws"], tune=opts["tune"],
                                                  observations=observations)
@@ -143,12 +137,6 @@ def _start_point(built: BuiltModel, start: str) -> tuple[dict[str, Any] | None, 
 
 
 # ---------------------------------------------------------------------------------------------
-def _positive_prior(prior: Any) -> bool:
-    from uncertainty.analyses.inference.model_builder import _positive
-
-    return _positive(prior)
-
-
 def _prior_draws(built: BuiltModel, rng: np.random.Generator, n: int) -> dict[str, np.ndarray]:
     """Prior draws (numpy) of the reported quantities at their reported level, and of Jv."""
     problem = built.problem
@@ -227,7 +215,7 @@ def identifiability(built: BuiltModel, post: dict[str, np.ndarray], prior: dict[
     """
     names = [n for n in built.quantities if n in post and n in prior]
     prior_bound = [n for n in names if contraction.get(n, 0.0) < PRIOR_BOUND_CONTRACTION]
-    pos = {n: _positive_prior(built.problem.priors[n]) for n in names}
+    pos = {n: is_positive(built.problem.priors[n]) for n in names}
     pairs = []
     for a_i, a in enumerate(names):
         for b in names[a_i + 1:]:

@@ -7,14 +7,13 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.propagate.figure import _pyplot, save
+from uncertainty.analyses.inference.summaries import flat
+from uncertainty.core.plotting import pyplot, save_figure
 
 
 def prior_vs_posterior(result: Any, out_dir: str) -> list[str]:
     """One panel per quantity: prior and posterior histograms (canonical units), contraction in the title."""
-    from uncertainty.analyses.inference.result import flat
-
-    plt = _pyplot()
+    plt = pyplot()
     built, idata, doc = result.built, result.idata, result.doc
     names = [n for n in doc["parameters"] if n in result.prior_draws]
     if not names:
@@ -37,12 +36,12 @@ def prior_vs_posterior(result: Any, out_dir: str) -> list[str]:
         ax.axis("off")
     axes.ravel()[0].legend(fontsize=7)
     fig.tight_layout()
-    return save(fig, out_dir, "inference_prior_posterior")
+    return save_figure(fig, out_dir, "inference_prior_posterior")
 
 
 def jv_by_subject(result: Any, out_dir: str) -> list[str]:
     """Jv posterior mean and 95% interval per subject, with the typical and a new subject."""
-    plt = _pyplot()
+    plt = pyplot()
     doc = result.doc
     rows = [(sid, b["Jv"]) for sid, b in doc["subjects"].items()]
     rows += [("typical", doc["typical"]["Jv"]), ("new subject", doc["new_subject"]["Jv"])]
@@ -59,12 +58,12 @@ def jv_by_subject(result: Any, out_dir: str) -> list[str]:
     ax.invert_yaxis()
     ax.set_xlabel(f"Jv ({doc['units'].get('Jv', '')}), mean and 95% credible interval")
     fig.tight_layout()
-    return save(fig, out_dir, "inference_jv_subjects")
+    return save_figure(fig, out_dir, "inference_jv_subjects")
 
 
 def curves_overlay(result: Any, out_dir: str) -> list[str]:
     """Observed limb volume against time per subject with the posterior predictive 95% band."""
-    plt = _pyplot()
+    plt = pyplot()
     ctx = result.built.context
     if ctx is None or not ctx.curves or "posterior_predictive" not in result.idata.groups():
         return []
@@ -93,7 +92,7 @@ def curves_overlay(result: Any, out_dir: str) -> list[str]:
         fig.supxlabel("time (min)", fontsize=8)
         fig.supylabel("limb volume change (mL/100 mL)", fontsize=8)
         fig.tight_layout()
-        paths += save(fig, out_dir, f"inference_curves_{name}")
+        paths += save_figure(fig, out_dir, f"inference_curves_{name}")
     return paths
 
 

@@ -161,7 +161,19 @@ class BuildContext:
             shared.set_value(np.asarray(values, dtype=float)[index])
 
 
-def _positive(prior: Any) -> bool:
+def is_positive(prior: Any) -> bool:
+    """Whether a prior puts (almost) all its mass above zero.
+
+    Parameters
+    ----------
+    prior : Prior
+        A declared prior (its distribution's support, else its scipy form's 1e-9 quantile, decides).
+
+    Returns
+    -------
+    bool
+        True for a positive support or a positive far-left quantile; False when unknown.
+    """
     if getattr(getattr(prior, "distribution", None), "positive_support", False):
         return True
     frozen = prior.frozen() if hasattr(prior, "frozen") else None
@@ -353,7 +365,7 @@ def build_model(problem: Problem) -> BuiltModel:
             base = typ * pt.ones(n_subj)
             if name in effects:
                 vec, gidx = effects[name]
-                if _positive(prior):
+                if is_positive(prior):
                     base = base * pt.exp(vec[gidx])
                 else:
                     base = base + float(prior.sd()) * vec[gidx]

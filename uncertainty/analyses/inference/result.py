@@ -12,69 +12,33 @@ from __future__ import annotations
 
 import dataclasses
 import os
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
 
-#: contraction below which a quantity is reported as prior-bound (common practice: the data
-#: leave at least 90% of the prior variance in place).
-PRIOR_BOUND_CONTRACTION = 0.1
-#: posterior |correlation| above which an (a priori uncorrelated) pair is reported as confounded
-#: (common practice).
-CONFOUNDED_CORRELATION = 0.7
-
-
-def summarise(draws: Any, *, hdi: bool = True) -> dict[str, Any]:
-    """Mean, sd, equal-tailed 95% interval and 95% highest-density interval of 1-d draws."""
-    x = np.asarray(draws, dtype=float).ravel()
-    x = x[np.isfinite(x)]
-    if x.size == 0:
-        return {"mean": float("nan"), "sd": float("nan"), "ci95": [float("nan")] * 2,
-                "hdi95": [float("nan")] * 2}
-    out = {"mean": float(x.mean()), "sd": float(x.std(ddof=1)) if x.size > 1 else 0.0,
-           "ci95": [float(v) for v in np.quantile(x, [0.025, 0.975])]}
-    if hdi:
-        out["hdi95"] = _hdi(x, 0.95)
-    return out
-
-
-def _hdi(x: np.ndarray, prob: float) -> list[float]:
-    """Shortest interval holding ``prob`` of the draws (unimodal HDI, as ArviZ computes it)."""
-    s = np.sort(x)
-    n = s.size
-    k = int(np.floor(prob * n))
-    if k < 1 or k >= n:
-        return [float(s[0]), float(s[-1])]
-    widths = s[k:] - s[: n - k]
-    i = int(np.argmin(widths))
-    return [float(s[i]), float(s[i + k])]
-
-
-def flat(idata: Any, name: str, group: str = "posterior") -> np.ndarray:
-    """Draws of ``name`` with chain and draw stacked into the first axis."""
-    arr = np.asarray(getattr(idata, group)[name].values)
-    return arr.reshape((-1,) + arr.shape[2:])
+from uncertainty.analyses.inference.figure import plot_all
+from uncertainty.analyses.inference.report_section import section_html
+from uncertainty.analyses.inference.table import table
+from uncertainty.analyses.result import DocumentResult
+from uncertainty.core.serialise import jsonable, to_json
 
 
 @dataclasses.dataclass
-class InferenceResult:
+class InferenceResult(DocumentResult):
     """Posterior summaries of one study (see the module docstring for the JSON layout)."""
 
-    doc: dict[str, Any]
     idata: Any = None
     built: Any = None
     prior_draws: dict[str, np.ndarray] = dataclasses.field(default_factory=dict)
     new_subject_draws: np.ndarray | None = None
     timing: dict[str, float] = dataclasses.field(default_factory=dict)   # not in to_dict (varies per run)
 
+    saved_note: ClassVar[str | None] = "posterior.nc, tables and figures written to {out}"
+
     @property
     def passed(self) -> bool:
         """True when the quality gate passed."""
         return bool(self.doc["diagnostics"]["passed"])
-
-    def to_dict(self) -> dict[str, Any]:
-        """The JSON document (DESIGN.md section 5, ``infer``)."""
-        return self.doc
 
     def to_dataframe(self) -> Any:
         """One row per quantity: prior and posterior mean, sd, 95% interval and contraction."""
@@ -100,8 +64,6 @@ class InferenceResult:
 
     def save(self, out_dir: str) -> dict[str, str]:
         """Write posterior.nc (ArviZ netCDF), inference.json and inference.csv into ``out_dir``."""
-        from uncertainty.app.commands.common import to_json
-
         os.makedirs(out_dir, exist_ok=True)
         paths = {}
         if self.idata is not None:
@@ -116,6 +78,12 @@ class InferenceResult:
 
     def plot(self, out_dir: str) -> list[str]:
         """Figures: prior vs posterior per quantity, Jv per subject, posterior predictive overlay."""
-        from uncertainty.analyses import inference as fig
+        return plot_all(self, out_dir)
 
-        return fig.plot_all(self, out_dir)
+    def table(self) -> str:
+        """The plain-text summary ``fluidshift infer`` prints."""
+        return table(self.doc)
+
+    def html_section(self) -> str:
+        """This result's section of report.html."""
+        return section_html(jsonable(self.doc))

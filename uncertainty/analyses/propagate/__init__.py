@@ -15,11 +15,11 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.propagate.result import PropagateResult, Summary
 from uncertainty.analyses.sampling import (
     METHODS,
     cube_columns,
@@ -103,34 +103,6 @@ def _t975(df: int) -> float:
     return float(t.ppf(0.975, df))
 
 
-@dataclass
-class Summary:
-    """Distribution summary of one output in one layer, with Monte Carlo standard errors.
-
-    Values are in the output's canonical unit (``unit``). ``mc_se`` holds the standard error of
-    ``mean``, ``sd``, ``median`` and of each end of ``ci95`` (from R replicates); ``p_negative``
-    is P(output < 0); ``n`` counts finite draws, ``nan_draws`` the non-finite ones left out.
-    """
-
-    name: str
-    unit: str
-    mean: float
-    sd: float
-    median: float
-    ci95: tuple[float, float]
-    mc_se: dict[str, Any]
-    p_negative: float
-    p_negative_se: float
-    n: int
-    nan_draws: int
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-ready dict: mean, sd, median, ci95, mc_se (DESIGN.md section 5) plus extras."""
-        return {"mean": self.mean, "sd": self.sd, "median": self.median, "ci95": list(self.ci95),
-                "mc_se": self.mc_se, "p_negative": self.p_negative, "unit": self.unit,
-                "n": self.n, "nan_draws": self.nan_draws}
-
-
 def _stats(y: np.ndarray) -> np.ndarray:
     """mean, sd, median, q2.5, q97.5, P(y<0) of the finite values of y (NaN when none)."""
     if y.size == 0:
@@ -160,106 +132,24 @@ def summarize(name: str, replicates: Sequence[np.ndarray], unit: str = "") -> Su
 
 
 # --------------------------------------------------------------------------------------------
-# Result
-# --------------------------------------------------------------------------------------------
-
-@dataclass
-class PropagateResult:
-    """Forward-uncertainty result: summaries and draws per layer and output, names and units.
-
-    ``summaries[layer][output]`` is a :class:`Summary`; ``draws[layer][output]`` the pooled draws
-    (canonical units, non-finite draws kept as NaN); ``units[output]`` the canonical unit;
-    :meth:`to_xarray` gives the draws as one labelled Dataset (names, units, replicate labels).
-    """
-
-    method: str
-    samples: int
-    replicates: int
-    seed: Any
-    outputs: list[str]
-    units: dict[str, str]
-    summaries: dict[str, dict[str, Summary]]
-    draws: dict[str, dict[str, np.ndarray]]
-    notes: list[str] = field(default_factory=list)
-    warnings: list[str] = field(default_factory=list)
-    flags: list[dict[str, Any]] = field(default_factory=list)
-    tol: float | None = None
-    converged: bool | None = None
-    history: list[dict[str, Any]] = field(default_factory=list)
-    study: dict[str, Any] = field(default_factory=dict)
-
-    @property
-    def p_absorption(self) -> float:
-        """P(Jv < 0) for the study's individual (both layers of uncertainty)."""
-        return self.summaries["individual"]["Jv"].p_negative if "Jv" in self.summaries["individual"] \
-            else float("nan")
-
-    def to_dict(self) -> dict[str, Any]:
-        """The JSON document of DESIGN.md section 5 (``outputs``, ``typical``, ``p_absorption``)."""
-        ind, typ = self.summaries["individual"], self.summaries["typical"]
-        doc: dict[str, Any] = {
-            "outputs": {k: ind[k].to_dict() for k in self.outputs},
-            "typical": {k: typ[k].to_dict() for k in self.outputs},
-        }
-        if "Jv" in ind:
-            doc["p_absorption"] = ind["Jv"].p_negative
-            doc["p_absorption_mc_se"] = ind["Jv"].p_negative_se
-            doc["typical_p_absorption"] = typ["Jv"].p_negative
-        doc.update({
-            "units": {k: self.units.get(k, "") for k in self.outputs},
-            "method": self.method, "samples": self.samples, "replicates": self.replicates,
-            "seed": self.seed,
-            "nan_draws": {layer: {k: s.nan_draws for k, s in self.summaries[layer].items()}
-                          for layer in ("individual", "typical")},
-            "tol": self.tol, "converged": self.converged, "history": self.history,
-            "notes": self.notes, "warnings": self.warnings, "flags": self.flags, "study": self.study,
-        })
-        return doc
-
-    def to_dataframe(self) -> Any:
-        """A pandas DataFrame, one row per (layer, output), columns for each statistic and SE."""
-        import pandas as pd
-
-        rows = []
-        for layer in ("individual", "typical"):
-            for k in self.outputs:
-                s = self.summaries[layer][k]
-                rows.append({"layer": layer, "output": k, "unit": s.unit, "mean": s.mean, "sd": s.sd,
-                             "median": s.median, "ci95_low": s.ci95[0], "ci95_high": s.ci95[1],
-                             "mc_se_mean": s.mc_se["mean"], "mc_se_ci95_low": s.mc_se["ci95"][0],
-                             "mc_se_ci95_high": s.mc_se["ci95"][1], "p_negative": s.p_negative,
-                             "n": s.n, "nan_draws": s.nan_draws})
-        return pd.DataFrame(rows).set_index(["layer", "output"])
-
-    def to_xarray(self) -> Any:
-        """The draws as a labelled ``xarray.Dataset``: one variable per output over the dimensions
-        ``layer`` (individual, typical) and ``draw``, its canonical unit in ``attrs["units"]``; the
-        coordinate ``replicate`` says which independent replicate each draw belongs to (non-finite
-        draws kept as NaN)."""
-        import xarray as xr
-
-        layers = ["individual", "typical"]
-        # pooled draws are replicate after replicate (propagate_arrays), each samples / R long
-        replicate = np.repeat(np.arange(self.replicates), self.samples // self.replicates)
-        data = {name: (("layer", "draw"), np.vstack([self.draws[layer][name] for layer in layers]),
-                       {"units": self.units.get(name, "")}) for name in self.outputs}
-        return xr.Dataset(data, coords={"layer": layers, "draw": np.arange(self.samples),
-                                        "replicate": ("draw", replicate)},
-                          attrs={"method": self.method, "samples": self.samples,
-                                 "replicates": self.replicates, "seed": str(self.seed)})
-
-    def plot(self, out_dir: str) -> list[str]:
-        """Write the Jv distribution figure (individual beside typical) as PNG and SVG; paths."""
-        from uncertainty.analyses.propagate.figure import plot_distribution
-
-        return plot_distribution(self, out_dir)
-
-
-# --------------------------------------------------------------------------------------------
 # Core: any sampler of the cube + any model
 # --------------------------------------------------------------------------------------------
 
-def _section(study: Any, name: str) -> dict[str, Any]:
+def section_settings(study: Any, name: str) -> dict[str, Any]:
+    """The keys a study file sets in its section ``name`` (our defaults are not filled in).
+
+    Parameters
+    ----------
+    study : Study
+        The study (or a stand-in whose section is a mapping).
+    name : str
+        The analysis section, e.g. "propagate" or "sensitivity".
+
+    Returns
+    -------
+    dict
+        Key -> value (canonical units) for the keys set; {} when the section is absent.
+    """
     sec = getattr(study, name, None)
     if sec is None:
         return {}
@@ -395,7 +285,19 @@ def available_outputs(study: Any, evaluate: Callable | None = None) -> list[str]
     return study_outputs(study)
 
 
-def _evaluator(evaluate: Callable | None) -> Callable:
+def model_evaluator(evaluate: Callable | None) -> Callable:
+    """``evaluate`` itself, or the model-form evaluation when it is None.
+
+    Parameters
+    ----------
+    evaluate : callable or None
+        ``evaluate(study, values) -> {output: array}`` (canonical units), or None.
+
+    Returns
+    -------
+    callable
+        The evaluation to use.
+    """
     return model_evaluate if evaluate is None else evaluate
 
 
@@ -415,7 +317,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     :func:`propagate_arrays`. Raises InputError for an unknown output, zero samples or an unknown
     method; QualityGateError when ``tol`` is not reached within ``max_samples``.
     """
-    sec = _section(study, "propagate")
+    sec = section_settings(study, "propagate")
     samples = sec.get("samples", DEFAULT_SAMPLES) if samples is None else samples
     method = sec.get("method", DEFAULT_METHOD) if method is None else method
     if method not in METHODS:
@@ -430,7 +332,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         raise InputError(f"at least {REPLICATES} independent replicates are needed for the Monte Carlo "
                          "standard errors (DESIGN.md: at least 16 scrambles)", file=_file(study),
                          key="propagate.replicates", value=replicates)
-    evaluate = _evaluator(evaluate)
+    evaluate = model_evaluator(evaluate)
     have = available_outputs(study, evaluate)
     if outputs is None:
         outputs = sec.get("outputs") or [o for o in DEFAULT_OUTPUTS if o in have] + \
@@ -469,7 +371,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
                                   units=_output_units(outputs))
     except QualityGateError as exc:
         if exc.result is not None:
-            exc.result.study = _study_meta(study)
+            exc.result.study = study_meta(study)
             add_form_notes(exc.result)
             flag_implausible_flux(exc.result, getattr(study, "tissue_mass_kg", None), form)
         raise
@@ -477,7 +379,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         if exc.file is None and _file(study):
             raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc
         raise
-    result.study = _study_meta(study)
+    result.study = study_meta(study)
     add_form_notes(result)
     flag_implausible_flux(result, getattr(study, "tissue_mass_kg", None), form)
     if not has_bs:
@@ -530,7 +432,19 @@ def _file(study: Any) -> str | None:
     return str(p) if p else None
 
 
-def _study_meta(study: Any) -> dict[str, Any]:
+def study_meta(study: Any) -> dict[str, Any]:
+    """What a result records about its study: title, path, hash, model form and tissue.
+
+    Parameters
+    ----------
+    study : Study
+        The study.
+
+    Returns
+    -------
+    dict
+        The five entries (None where the study has none).
+    """
     return {"title": getattr(study, "title", None), "path": _file(study),
             "hash": getattr(study, "hash", None), "model": getattr(study, "model", None),
             "tissue": getattr(study, "tissue", None)}

@@ -1,43 +1,23 @@
 """Figure of a forward-uncertainty result: the Jv distribution, individual beside typical.
 
-matplotlib is imported here only (Agg back-end), so the command line stays light.
+matplotlib is imported inside core.plotting only (Agg back-end), so the command line stays light.
 """
 
 from __future__ import annotations
 
-import os
 from typing import Any
 
 import numpy as np
 
+from uncertainty.core.plotting import pyplot, save_figure
+
 STYLE = {"individual": "#3b6ea5", "typical": "#b5651d", "zero": "#444444", "interval": "#222222"}
-
-
-def _pyplot() -> Any:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
-def save(fig: Any, out_dir: str, stem: str) -> list[str]:
-    """Save a figure as PNG and SVG under out_dir; return the paths."""
-    os.makedirs(out_dir, exist_ok=True)
-    paths = []
-    for ext in ("png", "svg"):
-        p = os.path.join(out_dir, f"{stem}.{ext}")
-        fig.savefig(p, dpi=150 if ext == "png" else None, bbox_inches="tight")
-        paths.append(p)
-    _pyplot().close(fig)
-    return paths
 
 
 def plot_distribution(result: Any, out_dir: str, output: str = "Jv") -> list[str]:
     """Histogram of one output (default Jv, canonical unit) for the individual and the typical
     subject, side by side, each with its 95% interval and the zero line; PNG and SVG paths."""
-    plt = _pyplot()
+    plt = pyplot()
     if output not in result.outputs:
         output = result.outputs[0]
     unit = result.units.get(output, "")
@@ -64,4 +44,4 @@ def plot_distribution(result: Any, out_dir: str, output: str = "Jv") -> list[str
     if p is not None:
         fig.suptitle(f"P(absorption, Jv < 0) for the individual: {p:.3g}", fontsize=10)
     fig.tight_layout()
-    return save(fig, out_dir, f"propagate_{output}")
+    return save_figure(fig, out_dir, f"propagate_{output}")

@@ -40,6 +40,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.rank.result import RankResult
 from uncertainty.core.errors import InputError
 from uncertainty.distributions import is_normal_frozen, log_sd_from_cv
 from uncertainty.forms.catalogue import output_unit
@@ -488,29 +489,6 @@ def candidates_of(study: Any) -> list[Reading]:
     return out
 
 
-@dataclass
-class RankResult:
-    """Result of :func:`rank`: the JSON of DESIGN.md section 5."""
-
-    doc: dict[str, Any]
-
-    def to_dict(self) -> dict[str, Any]:
-        """The JSON document (variances in the output's unit squared, widths in its unit)."""
-        return self.doc
-
-    def to_dataframe(self) -> Any:
-        """One row per single candidate."""
-        import pandas as pd
-
-        return pd.DataFrame(self.doc["candidates"])
-
-    def plot(self, out_dir: str) -> list[str]:
-        """Bar chart of expected interval narrowing per candidate (and its bound) in ``out_dir``."""
-        from uncertainty.analyses.rank.figure import plot_rank
-
-        return plot_rank(self.doc, out_dir)
-
-
 def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler: str | None = None,
                    chains: int | None = None, tune: int | None = None
                    ) -> tuple[dict[str, np.ndarray], np.ndarray, dict[str, Any]]:
@@ -529,7 +507,7 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
 
     from uncertainty.analyses.inference import infer
     from uncertainty.analyses.inference.api import new_subject_values, settings
-    from uncertainty.analyses.inference.result import flat
+    from uncertainty.analyses.inference.summaries import flat
 
     opts = settings(study, sampler=sampler, chains=chains, tune=tune)  # None: the study's [infer], else defaults
     opts["draws"] = max(250, math.ceil(samples / opts["chains"]))

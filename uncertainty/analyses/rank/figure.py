@@ -9,12 +9,12 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.propagate.figure import _pyplot, save
+from uncertainty.core.plotting import pyplot, save_figure
 
 
 def plot_rank(doc: dict[str, Any], out_dir: str) -> list[str]:
     """Horizontal bars: expected variance reduction (with +-2 MC se) and the perfect-information bound."""
-    plt = _pyplot()
+    plt = pyplot()
     rows = doc["candidates"]
     names = [f"{r['name']} ({r['parameter']}, cost {r['cost']:g})" for r in rows][::-1]
     red = np.array([r["expected_variance_reduction"] for r in rows])[::-1]
@@ -37,4 +37,4 @@ def plot_rank(doc: dict[str, Any], out_dir: str) -> list[str]:
     ax.legend(frameon=False, fontsize=8)
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
-    return save(fig, out_dir, f"rank_{doc.get('output', 'Jv')}")
+    return save_figure(fig, out_dir, f"rank_{doc.get('output', 'Jv')}")

@@ -42,6 +42,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.schedule.result import ScheduleResult
 from uncertainty.core.errors import InputError
 
 #: parameters of the linear cuff model, in the order of phi
@@ -419,36 +420,6 @@ def _ratio(kind: str, opt: float, base: float) -> float:
     if kind == "D":
         return float(math.exp(opt - base))
     return opt / base if base else float("nan")
-
-
-@dataclass
-class ScheduleResult:
-    """Result of :func:`schedule`: the JSON document (see :func:`schedule`)."""
-
-    doc: dict[str, Any]
-    model: CuffModel | None = None
-
-    def to_dict(self) -> dict[str, Any]:
-        """The JSON document (pressures mmHg, times min, sds in canonical units)."""
-        return self.doc
-
-    def to_dataframe(self) -> Any:
-        """One row per schedule (optimised, equal spacing): pressures, times, posterior sds."""
-        import pandas as pd
-
-        rows = []
-        for label in ("optimised", "equal_spacing"):
-            d = self.doc[label]
-            rows.append({"schedule": label, "pressures": " ".join(f"{p:g}" for p in d["pressures"]),
-                         "times": " ".join(f"{t:g}" for t in d["times"]), "criterion": d["criterion"],
-                         **{f"sd_{k}": v for k, v in d["posterior_sd"].items()}})
-        return pd.DataFrame(rows)
-
-    def plot(self, out_dir: str) -> list[str]:
-        """Protocol and expected limb-volume course with the reading times, optimised vs equal spacing."""
-        from uncertainty.analyses.schedule.figure import plot_schedule
-
-        return plot_schedule(self.doc, self.model, out_dir)
 
 
 def schedule(study: Any, seed: int | None = None) -> ScheduleResult:

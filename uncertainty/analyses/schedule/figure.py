@@ -9,13 +9,13 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.propagate.figure import _pyplot, save
+from uncertainty.core.plotting import pyplot, save_figure
 
 
 def plot_schedule(doc: dict[str, Any], model: Any, out_dir: str) -> list[str]:
     """Two panels: cuff pressure (mmHg) against time (min), and the limb-volume change (mL per basis) at
     the prior median with the readings marked, for the optimised schedule and for equal spacing."""
-    plt = _pyplot()
+    plt = pyplot()
     fig, (ax_p, ax_v) = plt.subplots(2, 1, figsize=(6.4, 5.2), sharex=True)
     total = doc["steps"] * doc["step_min"]
     t = np.linspace(0.0, total, 400)
@@ -42,4 +42,4 @@ def plot_schedule(doc: dict[str, Any], model: Any, out_dir: str) -> list[str]:
         ax.spines[["top", "right"]].set_visible(False)
     fig.suptitle(f"cuff schedule, criterion {doc['criterion']} (prior median)", fontsize=9)
     fig.tight_layout()
-    return save(fig, out_dir, "schedule")
+    return save_figure(fig, out_dir, "schedule")

@@ -26,11 +26,13 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.propagate import available_outputs, model_evaluator, section_settings, study_meta
+from uncertainty.analyses.sensitivity.result import SensitivityResult
 from uncertainty.core.errors import InputError
 from uncertainty.forms.catalogue import output_unit
 
@@ -116,10 +118,9 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
     every quantity with a between-subject spread; a quantity's typical and between-subject columns
     form one group (the individual's value of that quantity).
     """
-    from uncertainty.analyses.propagate import _evaluator, available_outputs
     from uncertainty.analyses.sampling import correlation_of, cube_columns, from_scores
 
-    evaluate = _evaluator(evaluate)
+    evaluate = model_evaluator(evaluate)
     have = available_outputs(study, evaluate)
     if output not in have:
         raise InputError(f"no such output; the model gives {', '.join(have)}",
@@ -139,80 +140,6 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
 
     unit = output_unit(output)
     return Problem(players=players, groups=groups, corr=corr, model=model, output=output, unit=unit)
-
-
-# --------------------------------------------------------------------------------------------
-# Result
-# --------------------------------------------------------------------------------------------
-
-@dataclass
-class SensitivityResult:
-    """Indices per player with intervals, a ranking, a convergence table, warnings and notes.
-
-    ``indices[player]`` holds, by method: Sobol' ``S1, S1_ci, ST, ST_ci`` (+ ``S1_se, ST_se``);
-    Morris ``mu_star, mu_star_ci, sigma, mu``; Shapley ``Sh, Sh_ci`` plus the full first-order
-    ``S1`` and the total ``ST`` under dependence, each with ``_ci``. Intervals are 95%.
-    ``convergence`` rows ``{samples, evaluations, indices}`` at doubling sample sizes: prefixes of
-    each scrambled design (Sobol'), the first R/4, R/2, R replicates (Shapley), the first T/4, T/2,
-    T trajectories (Morris).
-    """
-
-    method: str
-    output: str
-    unit: str
-    players: list[str]
-    indices: dict[str, dict[str, Any]]
-    ranking: list[str]
-    samples: int
-    evaluations: int
-    replicates: int
-    convergence: list[dict[str, Any]] = field(default_factory=list)
-    second_order: dict[str, dict[str, Any]] | None = None
-    warnings: list[str] = field(default_factory=list)
-    notes: list[str] = field(default_factory=list)
-    nan_draws: int = 0
-    layer: str | None = None
-    seed: Any = None
-    study: dict[str, Any] = field(default_factory=dict)
-
-    @property
-    def rank_key(self) -> str:
-        """The index the ranking sorts by."""
-        return {"sobol": "ST", "morris": "mu_star", "shapley": "Sh"}[self.method]
-
-    def to_dict(self) -> dict[str, Any]:
-        """The JSON document of DESIGN.md section 5 (method, output, indices, ranking) plus extras."""
-        doc: dict[str, Any] = {"method": self.method, "output": self.output, "indices": self.indices,
-                               "ranking": self.ranking, "ranked_by": self.rank_key, "unit": self.unit,
-                               "layer": self.layer, "samples": self.samples,
-                               "evaluations": self.evaluations, "replicates": self.replicates,
-                               "seed": self.seed, "nan_draws": self.nan_draws,
-                               "convergence": self.convergence, "warnings": self.warnings,
-                               "notes": self.notes, "study": self.study}
-        if self.second_order is not None:
-            doc["second_order"] = self.second_order
-        return doc
-
-    def to_dataframe(self) -> Any:
-        """A pandas DataFrame, one row per player, flattened index columns, in ranking order."""
-        import pandas as pd
-
-        rows = []
-        for p in self.ranking:
-            row: dict[str, Any] = {"parameter": p}
-            for key, v in self.indices[p].items():
-                if isinstance(v, list | tuple):
-                    row[f"{key}_low"], row[f"{key}_high"] = v
-                else:
-                    row[key] = v
-            rows.append(row)
-        return pd.DataFrame(rows).set_index("parameter")
-
-    def plot(self, out_dir: str) -> list[str]:
-        """Write index bars with interval whiskers (and convergence, when present); PNG and SVG."""
-        from uncertainty.analyses.sensitivity.figure import plot_indices
-
-        return plot_indices(self, out_dir)
 
 
 # --------------------------------------------------------------------------------------------
@@ -764,9 +691,7 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
     (InputError, exit 2). ``layer`` ``individual`` (default) treats each quantity's typical and
     between-subject parts as one factor; ``typical`` uses the typical-subject uncertainty only.
     """
-    from uncertainty.analyses.propagate import _section, _study_meta
-
-    sec = _section(study, "sensitivity")
+    sec = section_settings(study, "sensitivity")
     method = method or sec.get("method")
     output = output or sec.get("output") or "Jv"
     layer = layer or sec.get("layer") or "individual"
@@ -802,5 +727,5 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
         raise
     res.notes = notes + res.notes
     res.layer = layer
-    res.study = _study_meta(study)
+    res.study = study_meta(study)
     return res

@@ -9,7 +9,7 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.propagate.figure import _pyplot, save
+from uncertainty.core.plotting import pyplot, save_figure
 
 COLOURS = {"S1": "#3b6ea5", "ST": "#b5651d", "Sh": "#4d7f3b", "mu_star": "#3b6ea5"}
 
@@ -17,7 +17,7 @@ COLOURS = {"S1": "#3b6ea5", "ST": "#b5651d", "Sh": "#4d7f3b", "mu_star": "#3b6ea
 def plot_indices(result: Any, out_dir: str) -> list[str]:
     """Bars of the indices (in ranking order) with 95% whiskers, and the convergence table when
     there is one; PNG and SVG paths."""
-    plt = _pyplot()
+    plt = pyplot()
     keys = {"sobol": ["S1", "ST"], "shapley": ["Sh", "S1", "ST"], "morris": ["mu_star"]}[result.method]
     names = list(result.ranking)
     x = np.arange(len(names))
@@ -37,7 +37,7 @@ def plot_indices(result: Any, out_dir: str) -> list[str]:
     ax.legend(frameon=False, fontsize=8)
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
-    paths = save(fig, out_dir, f"sensitivity_{result.output}")
+    paths = save_figure(fig, out_dir, f"sensitivity_{result.output}")
     if result.convergence:
         paths += plot_convergence(result, out_dir)
     return paths
@@ -46,7 +46,7 @@ def plot_indices(result: Any, out_dir: str) -> list[str]:
 def plot_convergence(result: Any, out_dir: str) -> list[str]:
     """The ranking index (ST for Sobol', Sh for Shapley, mu* for Morris) of each input with its 95%
     interval against the sample size (log2 axis)."""
-    plt = _pyplot()
+    plt = pyplot()
     key = result.rank_key
     fig, ax = plt.subplots(figsize=(6, 3.4))
     n = np.array([row["samples"] for row in result.convergence])
@@ -63,4 +63,4 @@ def plot_convergence(result: Any, out_dir: str) -> list[str]:
     ax.legend(frameon=False, fontsize=8, ncol=2)
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
-    return save(fig, out_dir, f"sensitivity_{result.output}_convergence")
+    return save_figure(fig, out_dir, f"sensitivity_{result.output}_convergence")

@@ -8,15 +8,15 @@ from __future__ import annotations
 
 import contextlib
 import functools
-import json
-import math
 import sys
 from collections.abc import Callable
 from typing import Any
 
 import click
 
+from uncertainty.analyses.result import Result
 from uncertainty.core.errors import FluidshiftError, QualityGateError
+from uncertainty.core.serialise import to_json
 
 
 def study_options(func: Callable) -> Callable:
@@ -31,34 +31,44 @@ def study_options(func: Callable) -> Callable:
     return func
 
 
-def _clean(obj: Any) -> Any:
-    """Make numpy scalars/arrays and non-finite floats JSON-safe (NaN -> null)."""
-    try:
-        import numpy as np
-    except ImportError:  # pragma: no cover
-        np = None
-    if isinstance(obj, dict):
-        return {str(k): _clean(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_clean(v) for v in obj]
-    if np is not None:
-        if isinstance(obj, np.ndarray):
-            return _clean(obj.tolist())
-        if isinstance(obj, np.generic):
-            return _clean(obj.item())
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None
-    return obj
-
-
-def to_json(doc: dict[str, Any]) -> str:
-    """Serialise a result document: snake_case keys, canonical units, NaN as null."""
-    return json.dumps(_clean(doc), indent=2, sort_keys=False, allow_nan=False)
-
-
 def emit_json(doc: dict[str, Any]) -> None:
-    """Print one JSON document on stdout."""
+    """Print one JSON document on stdout (the one serialiser: snake_case keys, NaN as null).
+
+    Parameters
+    ----------
+    doc : dict
+        A result document (canonical units).
+    """
     click.echo(to_json(doc))
+
+
+def show_result(result: Result, *, as_json: bool, out: str | None, quiet: bool) -> None:
+    """The output block every analysis command shares.
+
+    With ``out`` the result's tables (``save``) and figures (``plot``) go into that folder; then
+    either its JSON document on stdout (``as_json``) or, unless ``quiet``, its plain-text table and
+    the result's note of where the files went.
+
+    Parameters
+    ----------
+    result : Result
+        The analysis result (also a quality-gate-flagged one, before the error is raised).
+    as_json : bool
+        Print the JSON document and nothing else.
+    out : str or None
+        Folder for tables and figures.
+    quiet : bool
+        Print nothing (JSON still printed with ``as_json``).
+    """
+    if out:
+        result.save(out)
+        result.plot(out)
+    if as_json:
+        emit_json(result.to_dict())
+    elif not quiet:
+        click.echo(result.table())
+        if out and result.saved_note:
+            click.echo(result.saved_note.format(out=out))
 
 
 @contextlib.contextmanager

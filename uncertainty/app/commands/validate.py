@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import click
 
-from uncertainty.app.commands.common import emit_json, handle_errors, to_json
+from uncertainty.app.commands.common import emit_json, handle_errors
 from uncertainty.core.errors import QualityGateError
+from uncertainty.core.serialise import to_json
 
 
 @click.command("validate", short_help="Published measurements beside the model's predictions.")

@@ -1,0 +1,166 @@
+"""Inference's part of report.html (its section and its sampler diagnostics and checks) and of the
+one-screen summary, from its stored document; every function reads the document defensively."""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from uncertainty.analyses.result import Caption
+from uncertainty.core.formatting import cell, fmt, interval
+from uncertainty.core.html import escape, kv_table, table
+
+CAPTIONS: tuple[Caption, ...] = (
+    ("curves", "", "Observed limb-volume readings (dots) against the posterior predictive median and 95% "
+                   "band for each subject: readings inside the band mean the model reproduces what was "
+                   "seen."),
+    ("jv_subjects", "", "Posterior mean and 95% credible interval of Jv for the study's individual or each "
+                        "subject, the typical subject and a new subject from the population; left of the "
+                        "dotted zero line is absorption."),
+    ("", "", "Prior (grey) beside posterior (blue) for each updated quantity, with the contraction in "
+             "the title: the narrower the posterior than the prior, the more the observations taught "
+             "about that quantity."),
+)
+
+
+def section_html(res: dict[str, Any]) -> str:
+    """The report section: Jv after the observations, a new subject, updated quantities, subjects.
+
+    Parameters
+    ----------
+    res : dict
+        The stored ``InferenceResult.to_dict()`` (canonical units).
+
+    Returns
+    -------
+    str
+        HTML paragraphs and tables.
+    """
+    parts = []
+    jv = res.get("Jv")
+    if isinstance(jv, dict):
+        parts.append(f"<p><strong>Jv after the observations</strong>: mean {fmt(jv.get('mean'))}, sd "
+                     f"{fmt(jv.get('sd'))}, 95% credible interval {escape(interval(jv.get('ci95'), 4))}, "
+                     f"95% HDI {escape(interval(jv.get('hdi95'), 4))}.</p>")
+    new = (res.get("new_subject") or {}).get("Jv") if isinstance(res.get("new_subject"), dict) else None
+    if isinstance(new, dict):
+        parts.append(f"<p>A new subject from the population: Jv 95% interval {escape(interval(new.get('ci95'), 4))}."
+                     "</p>")
+    params = res.get("parameters") or {}
+    if params:
+        rows = [[p, fmt(v.get("mean")), fmt(v.get("sd")), interval(v.get("ci95"), 4), fmt(v.get("contraction"), 3)]
+                for p, v in params.items() if isinstance(v, dict)]
+        parts.append("<h3>Updated quantities</h3><p>Contraction is 1 - posterior variance / prior variance: "
+                     "near 1 the data determined the quantity, near 0 they said little about it.</p>")
+        parts.append(table(["quantity", "mean", "sd", "95% credible interval", "contraction"], rows,
+                           num_cols={1, 2, 4}))
+    subjects = res.get("subjects") or {}
+    if isinstance(subjects, dict) and subjects:
+        rows = [[s, interval((v.get("Jv") or {}).get("ci95"), 4)] for s, v in subjects.items() if isinstance(v, dict)]
+        parts.append("<h3>Subjects</h3>" + table(["subject", "Jv 95% credible interval"], rows))
+    return "".join(parts)
+
+
+def summary(inf: dict[str, Any]) -> list[str]:
+    """One-screen summary line: Jv after the observations and whether the diagnostics passed.
+
+    Parameters
+    ----------
+    inf : dict
+        The stored ``InferenceResult.to_dict()`` (Jv in its canonical unit, printed beside it).
+
+    Returns
+    -------
+    list of str
+        One line, or none without a Jv block.
+    """
+    if not isinstance(inf.get("Jv"), dict):
+        return []
+    jv = inf["Jv"]
+    diag = inf.get("diagnostics") or {}
+    unit = (inf.get("units") or {}).get("Jv", "")
+    level = f" ({inf['level']})" if inf.get("level") else ""
+    return [f"Jv after the observations{level}: mean {fmt(jv.get('mean'), 3)}, 95% credible interval "
+            f"{interval(jv.get('ci95'))} {unit}".rstrip()
+            + (f"  (diagnostics {'passed' if diag.get('passed') else 'FAILED'})" if diag else "")]
+
+
+def _diag_number(key: str, v: Any) -> str:
+    """R-hat with three decimals, effective sample sizes as whole draws."""
+    if not isinstance(v, int | float) or isinstance(v, bool) or not math.isfinite(v):
+        return fmt(v)
+    return f"{v:.3f}" if key == "r_hat" else str(round(v))
+
+
+def _checks(inf: dict[str, Any]) -> str:
+    """The inference checks: prior-data conflict, posterior predictive, prior sensitivity, identifiability."""
+    checks = inf.get("checks") or {}
+    parts = []
+    conflict = [c for c in checks.get("prior_data_conflict") or [] if isinstance(c, dict)]
+    if conflict:
+        parts.append("<h3>Prior-data conflict</h3><p>Where each observation falls in its prior predictive "
+                     "distribution: a two-sided tail probability below 0.01 flags a reading the priors did not "
+                     "expect (Evans and Moshonov 2006; the threshold is common practice).</p>")
+        parts.append(table(["observation", "kind", "tail probability", "conflict", "prior predictive 95%"],
+                           [[c.get("label") or c.get("observation"), c.get("kind"), fmt(c.get("p_tail"), 3),
+                             fmt(c.get("conflict")), interval((c.get("prior_predictive") or {}).get("ci95"), 3)]
+                            for c in conflict], num_cols={2}))
+    ppc = checks.get("posterior_predictive") or {}
+    labels = {c.get("observation"): c.get("label") for c in conflict if c.get("label")}
+    ppc_rows = [[labels.get(v.get("observation")) or v.get("observation") or k, v.get("kind"),
+                 fmt(v.get("p_value_mean"), 3), fmt(v.get("coverage95"), 3),
+                 fmt(v.get("n"))] for k, v in ppc.items() if isinstance(v, dict)]
+    if ppc_rows:
+        parts.append("<h3>Posterior predictive check</h3><p>Posterior predictive p-values near 0 or 1, or "
+                     "coverage of the 95% predictive interval well below 0.95, mean the fitted model does not "
+                     "reproduce the data.</p>")
+        parts.append(table(["observation", "kind", "p-value (mean)", "95% coverage", "readings"], ppc_rows,
+                           num_cols={2, 3, 4}))
+    sens = checks.get("prior_sensitivity") or {}
+    sens_rows = [[q, fmt(v.get("prior"), 3), fmt(v.get("likelihood"), 3), v.get("diagnosis") or ""]
+                 for q, v in sens.items() if isinstance(v, dict)]
+    if sens_rows:
+        parts.append("<h3>Prior sensitivity</h3><p>Power-scaling sensitivity (Kallioinen et al. 2024): how far "
+                     "each posterior moves per unit log power when the prior or the likelihood is raised to a "
+                     "power near one; above about 0.05 the quantity leans on that part.</p>")
+        parts.append(table(["quantity", "prior", "likelihood", "diagnosis"], sens_rows, num_cols={1, 2}))
+    elif isinstance(sens.get("error"), str):
+        parts.append(f"<p>Prior sensitivity could not be computed: {escape(sens['error'])}</p>")
+    ident = inf.get("identifiability") or {}
+    if isinstance(ident, dict) and ident:
+        parts.append("<p>Quantities the data barely inform (posterior near the prior): "
+                     f"{escape(cell(ident.get('prior_bound') or []))}; confounded pairs: "
+                     f"{escape(cell(ident.get('confounded') or []))}.</p>")
+    if inf.get("trustworthy") is not None:
+        parts.append(f"<p>Inference judged trustworthy by these checks: <strong>{fmt(inf.get('trustworthy'))}"
+                     "</strong>.</p>")
+    return "".join(parts)
+
+
+def diagnostics(inf: dict[str, Any]) -> str:
+    """The sampler part of the report's Diagnostics: R-hat, ESS, divergences per quantity, then the checks.
+
+    Parameters
+    ----------
+    inf : dict
+        The stored ``InferenceResult.to_dict()``.
+
+    Returns
+    -------
+    str
+        Headings, tables and paragraphs; "" without a diagnostics block.
+    """
+    diag = inf.get("diagnostics")
+    if not isinstance(diag, dict):
+        return ""
+    parts = ["<h3>Sampler diagnostics</h3><p>r_hat_max should be below about 1.01, ess_bulk_min above "
+             "about 400 and divergences zero (common practice).</p>"]
+    per = diag.get("per_quantity")
+    parts.append(kv_table({k: v for k, v in diag.items() if k != "per_quantity"}))
+    if isinstance(per, dict) and per:
+        keys = [k for k in ("r_hat", "ess_bulk", "ess_tail") if any(k in (v or {}) for v in per.values())]
+        parts.append(table(["quantity", *[k.replace("_", " ") for k in keys]],
+                           [[q, *[_diag_number(k, (v or {}).get(k)) for k in keys]] for q, v in per.items()],
+                           num_cols=set(range(1, len(keys) + 1))))
+    parts.append(_checks(inf))
+    return "".join(parts)

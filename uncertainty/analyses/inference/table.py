@@ -1,0 +1,77 @@
+"""The plain-text summary ``fluidshift infer`` prints, from an inference result's document."""
+
+from __future__ import annotations
+
+from typing import Any
+
+
+def _fmt(x: Any) -> str:
+    if x is None:
+        return "-"
+    x = float(x)
+    return "nan" if x != x else f"{x:.4g}"
+
+
+def _ci(block: dict[str, Any], key: str = "ci95") -> str:
+    lo, hi = block[key]
+    return f"[{_fmt(lo)}, {_fmt(hi)}]"
+
+
+def table(doc: dict[str, Any]) -> str:
+    """Plain-text summary of an inference result document.
+
+    Parameters
+    ----------
+    doc : dict
+        ``InferenceResult.to_dict()`` (canonical units; Jv's unit printed beside it).
+
+    Returns
+    -------
+    str
+        Jv's intervals, one row per subject and per updated quantity, diagnostics, flagged checks,
+        the model comparison, notes and the sampler settings.
+    """
+    u = doc["units"].get("Jv", "")
+    lines = [f"Jv ({doc['level']}): mean {_fmt(doc['Jv']['mean'])} {u}, sd {_fmt(doc['Jv']['sd'])}, "
+             f"95% equal-tailed {_ci(doc['Jv'])}, 95% HDI {_ci(doc['Jv'], 'hdi95')}"]
+    lines.append(f"Jv typical subject: {_ci(doc['typical']['Jv'])}   new subject: "
+                 f"{_ci(doc['new_subject']['Jv'])}")
+    if doc["subjects"]:
+        lines.append("")
+        lines.append(f"{'subject':<10}{'group':<8}{'Jv mean':>11}{'95% interval':>26}")
+        for sid, b in doc["subjects"].items():
+            lines.append(f"{sid:<10}{b.get('group', ''):<8}{_fmt(b['Jv']['mean']):>11}{_ci(b['Jv']):>26}")
+    lines.append("")
+    head = f"{'quantity':<24}{'prior mean':>11}{'prior sd':>11}{'post mean':>11}{'post sd':>11}" \
+           f"{'95% interval':>26}{'contraction':>13}"
+    lines += [head, "-" * len(head)]
+    rows = list(doc["parameters"].items()) + [(k, v) for k, v in doc["other_parameters"].items()
+                                              if "prior" in v]
+    for name, p in rows:
+        flag = "  prior-bound" if p.get("prior_bound") else ""
+        lines.append(f"{name:<24}{_fmt(p['prior']['mean']):>11}{_fmt(p['prior']['sd']):>11}"
+                     f"{_fmt(p['mean']):>11}{_fmt(p['sd']):>11}{_ci(p):>26}{_fmt(p['contraction']):>13}{flag}")
+    d = doc["diagnostics"]
+    lines.append("")
+    lines.append(f"diagnostics: R-hat max {_fmt(d['r_hat_max'])}, bulk ESS min {_fmt(d['ess_bulk_min'])}, "
+                 f"tail ESS min {_fmt(d['ess_tail_min'])}, divergences {d['divergences']}, "
+                 f"BFMI min {_fmt(d['bfmi_min'])}: {'passed' if d['passed'] else 'FAILED'}")
+    checks = doc.get("checks", {})
+    for row in checks.get("prior_data_conflict", []) if isinstance(checks.get("prior_data_conflict"), list) \
+            else []:
+        if row["conflict"]:
+            lines.append(f"prior-data conflict: {row['observation']} ({row['label']}), tail p {_fmt(row['p_tail'])}")
+    sens = checks.get("prior_sensitivity", {})
+    flagged = [k for k, v in sens.items() if isinstance(v, dict) and v.get("diagnosis", "-") != "-"]
+    if flagged:
+        lines.append("prior-sensitive (power scaling): " + ", ".join(
+            f"{k} ({sens[k]['diagnosis']})" for k in flagged))
+    if "comparison" in doc:
+        c = doc["comparison"]
+        lines.append(f"model comparison ({c.get('method', '')}): " + ", ".join(
+            f"{m} elpd {_fmt(v['elpd'])} (se {_fmt(v['se'])})" for m, v in c.get("models", {}).items())
+            + (f"; preferred {c['preferred']}" if c.get("preferred") else ""))
+    for n in doc["notes"]:
+        lines.append(f"note: {n}")
+    lines.append(f"{doc['chains']} chains x {doc['draws']} draws, sampler {doc['sampler']}, seed {doc['seed']}")
+    return "\n".join(lines)

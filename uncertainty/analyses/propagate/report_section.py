@@ -1,0 +1,113 @@
+"""Propagate's part of report.html and of the one-screen summary, from its stored document.
+
+Every function takes the section's ``result`` as stored in results.json (NaN already null) and reads
+it defensively, so a partial document still renders.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from uncertainty.analyses.result import Caption
+from uncertainty.core.formatting import fmt, interval
+from uncertainty.core.html import escape, kv_table, table
+
+CAPTIONS: tuple[Caption, ...] = (
+    ("", "", "Histograms of {output} for this study's individual (typical-subject uncertainty "
+             "plus between-subject spread) and for the typical subject (uncertainty only), with "
+             "the median and 95% interval as solid lines; for Jv the mass left of the dashed zero "
+             "line is the probability of absorption rather than filtration."),
+)
+
+
+def _summary_rows(d: dict[str, Any], units: dict[str, str], layer: str) -> list[list[Any]]:
+    rows = []
+    for name, s in d.items():
+        if not isinstance(s, dict):
+            continue
+        se = s.get("mc_se") or {}
+        se_ci = se.get("ci95") if isinstance(se, dict) else None
+        rows.append([name, layer, fmt(s.get("mean")), fmt(s.get("sd")), fmt(s.get("median")),
+                     interval(s.get("ci95"), 4), fmt(se_ci, 2), units.get(name, s.get("unit", ""))])
+    return rows
+
+
+def section_html(res: dict[str, Any]) -> str:
+    """The report section: the sampling settings, P(absorption) and one row per output and layer.
+
+    Parameters
+    ----------
+    res : dict
+        The stored ``PropagateResult.to_dict()`` (canonical units, shown in the unit column).
+
+    Returns
+    -------
+    str
+        HTML paragraphs and a table.
+    """
+    units = res.get("units") or {}
+    rows = _summary_rows(res.get("outputs") or {}, units, "individual")
+    rows += _summary_rows(res.get("typical") or {}, units, "typical")
+    parts = ["<p>Monte Carlo propagation of the priors "
+             f"({escape(res.get('method', ''))}, {fmt(res.get('samples'))} samples in {fmt(res.get('replicates'))} "
+             "independent replicates). The individual carries both the uncertainty about the typical value and "
+             "the between-subject spread; the typical subject carries only the first. MC s.e. is the Monte "
+             "Carlo standard error of the interval ends, from the replicates.</p>"]
+    if res.get("p_absorption") is not None:
+        parts.append(f"<p><strong>P(absorption, Jv &lt; 0)</strong> for the individual: "
+                     f"{fmt(res['p_absorption'], 3)} (MC s.e. {fmt(res.get('p_absorption_mc_se'), 2)}); "
+                     f"typical subject: {fmt(res.get('typical_p_absorption'), 3)}.</p>")
+    parts.append(table(["output", "layer", "mean", "sd", "median", "95% interval", "MC s.e. of ends", "unit"],
+                       rows, num_cols={2, 3, 4, 6}))
+    return "".join(parts)
+
+
+def summary(prop: dict[str, Any]) -> list[str]:
+    """One-screen summary lines: Jv for the individual and the typical subject, P(absorption).
+
+    Parameters
+    ----------
+    prop : dict
+        The stored ``PropagateResult.to_dict()``; Jv in its canonical unit (printed beside it).
+
+    Returns
+    -------
+    list of str
+        Nothing when Jv is not among the outputs.
+    """
+    lines: list[str] = []
+    if isinstance(prop.get("outputs"), dict) and "Jv" in prop["outputs"]:
+        unit = (prop.get("units") or {}).get("Jv", "")
+        ind, typ = prop["outputs"]["Jv"], (prop.get("typical") or {}).get("Jv", {})
+        lines.append(f"Jv, individual: median {fmt(ind.get('median'), 3)}, 95% interval "
+                     f"{interval(ind.get('ci95'))} {unit}")
+        if typ:
+            lines.append(f"Jv, typical subject: median {fmt(typ.get('median'), 3)}, 95% interval "
+                         f"{interval(typ.get('ci95'))} {unit}")
+        if prop.get("p_absorption") is not None:
+            lines.append(f"P(absorption, Jv < 0) for the individual: {fmt(prop['p_absorption'], 3)}")
+    return lines
+
+
+def diagnostics(prop: dict[str, Any]) -> str:
+    """The Monte Carlo part of the report's Diagnostics: stopping, sample size, non-finite draws.
+
+    Parameters
+    ----------
+    prop : dict
+        The stored ``PropagateResult.to_dict()`` (``tol`` in the first output's unit).
+
+    Returns
+    -------
+    str
+        A heading and a key/value table.
+    """
+    if prop.get("tol") is None:  # a fixed sample size: nothing to converge to
+        bits: dict[str, Any] = {"stopping": "fixed sample size (no tolerance asked)"}
+    else:
+        bits = {"converged": prop.get("converged"), "tolerance": prop.get("tol")}
+    bits.update({"samples": prop.get("samples"), "independent replicates": prop.get("replicates")})
+    nan = prop.get("nan_draws") or {}
+    bad = {f"{layer}.{k}": v for layer, d in nan.items() if isinstance(d, dict) for k, v in d.items() if v}
+    bits.update({f"non-finite draws {k}": v for k, v in bad.items()})
+    return "<h3>Monte Carlo</h3>" + kv_table(bits)
