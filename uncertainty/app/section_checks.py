@@ -10,14 +10,15 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.design import parse_design
+from uncertainty.analyses.rank import candidates_of
+
 
 def check_sections(study: Any) -> None:
     """Raise InputError (file, key, value) when the study's [design] or [rank] section cannot run."""
     if getattr(study, "design", None) is not None:
-        from uncertainty.analyses.design import parse_design
 
         parse_design(study)
     if getattr(study, "rank", None) is not None:
-        from uncertainty.analyses.rank import candidates_of
 
         candidates_of(study)

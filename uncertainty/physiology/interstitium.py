@@ -35,6 +35,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.core.errors import InputError
 from uncertainty.physiology.capillary import mean_capillary_pressure
 
 Array = Any
@@ -246,7 +247,6 @@ def slow_phase_slope(t: Array, V: Array, t_from: float, t_to: float, *, t_step: 
     included and b is the slope extrapolated back to the step (s = 0), before interstitial pressure has
     risen; otherwise b is the window's mean slope (the conventional straight-line fit). Numpy only.
     """
-    from uncertainty.core.errors import InputError
 
     t = np.asarray(t, dtype=float)
     V = np.asarray(V, dtype=float)
@@ -280,7 +280,6 @@ def kf_pvi_regression(cuff_pressures: Sequence[float], slopes: Sequence[float], 
     y = np.asarray(slopes, dtype=float)
     n = P.size
     if n < 2 or np.ptp(P) == 0:
-        from uncertainty.core.errors import InputError
 
         raise InputError("need at least two different cuff pressures", key="cuff_pressures", value=list(P))
     X = np.column_stack([np.ones(n), P])

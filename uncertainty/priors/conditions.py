@@ -11,6 +11,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from uncertainty.core import units
 from uncertainty.core.errors import StudyError, UnitError, study_error
 from uncertainty.core.toml_io import read_toml
 from uncertainty.distributions import distribution
@@ -185,7 +186,6 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                     raise study_error("expected a number", path_str, f"{rkey}.{k}", v)
                 v = float(v)
                 if k in ("shift", "extra_sd", "per_cm") and row.get("unit"):
-                    from uncertainty.core import units
 
                     try:
                         v = units.to_canonical(sym, v, row["unit"])

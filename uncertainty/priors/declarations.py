@@ -44,6 +44,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.core import units
 from uncertainty.core.errors import UnitError, study_error
 from uncertainty.distributions import (
     REGISTRY,
@@ -273,7 +274,6 @@ def convert_unit(symbol: str, value: Any, unit: str | None = None, *, density: f
                  tissue_mass_kg: float | None = None) -> float:
     """``units.to_canonical``, but a unit of the wrong dimension is reported as such even when the
     missing basis suffix would otherwise be read as "per organ" (which needs a tissue mass)."""
-    from uncertainty.core import units
 
     try:
         return units.to_canonical(symbol, value, unit, density=density, tissue_mass_kg=tissue_mass_kg)
@@ -285,7 +285,6 @@ def convert_unit(symbol: str, value: Any, unit: str | None = None, *, density: f
 
 def unit_info(symbol: str, unit: str | None, ctx: Context, key: str) -> tuple[float, str, str | None]:
     """(factor to canonical, canonical unit, basis of the declared unit) for ``symbol`` in ``unit``."""
-    from uncertainty.core import units
 
     try:
         factor = convert_unit(symbol, 1.0, unit, density=ctx.density, tissue_mass_kg=ctx.tissue_mass_kg)
@@ -309,7 +308,6 @@ def number_in_unit(symbol: str, raw: Any, unit: str | None, ctx: Context, key: s
             raise study_error("must be a finite number", ctx.file, key, raw)
         return x, None
     if isinstance(raw, str):
-        from uncertainty.core import units
 
         try:
             x, text_unit = units.parse(raw, symbol=symbol)

@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.core.errors import study_error
+from uncertainty.physiology import capillary, oncotic
 from uncertainty.priors.declarations import is_number, join_key
 
 
@@ -38,7 +39,6 @@ class Derivation:
 
     def compute(self, values: Mapping[str, Any], xp: Any = np) -> Any:
         """The derived value (canonical unit) from ``values`` of its inputs (numpy or PyTensor)."""
-        from uncertainty.physiology import capillary, oncotic
 
         args = [values[k] for k in self.inputs]
         if self.formula == "total":

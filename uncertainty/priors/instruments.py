@@ -8,6 +8,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
+from uncertainty.core import units
 from uncertainty.core.errors import UnitError, study_error
 from uncertainty.core.toml_io import read_toml
 from uncertainty.priors.declarations import Context, Prior, is_number, parse_prior
@@ -45,7 +46,6 @@ class Instrument:
 
 @functools.lru_cache(maxsize=8)
 def _load_instruments_cached(path_str: str) -> dict[str, Instrument]:
-    from uncertainty.core import units
 
     path = Path(path_str)
     doc = read_toml(path)

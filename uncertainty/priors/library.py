@@ -12,7 +12,9 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.core import units
 from uncertainty.core.errors import UnitError, study_error
+from uncertainty.core.resources import priors_dir
 from uncertainty.core.toml_io import read_toml
 from uncertainty.forms.catalogue import GENERAL_FORMS, MODEL_FORMS
 from uncertainty.priors.declarations import (
@@ -120,7 +122,6 @@ NOT_PRIOR_SETS = ("conditions", "instruments", "validation")
 def data_dir(directory: str | Path | None) -> Path:
     if directory is not None:
         return Path(directory)
-    from uncertainty.core.resources import priors_dir
 
     return priors_dir()
 
@@ -153,7 +154,6 @@ def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str |
     density_origin = ""
     if isinstance(dens, Mapping):
         density_origin = str(dens.get("origin", ""))
-        from uncertainty.core import units
 
         try:
             density = units.to_canonical("density", dens.get("value"), dens.get("unit"))
@@ -259,7 +259,6 @@ def prior_rows(priors: Mapping[str, Prior], derived: Mapping[str, Derivation] | 
 
 
 def canonical_unit(symbol: str) -> str:
-    from uncertainty.core import units
 
     return units.CANONICAL.get(symbol, "")
 

@@ -34,9 +34,12 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
+from uncertainty.analyses import sampling
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.analyses.design.result import DesignResult
+from uncertainty.core import units
 from uncertainty.core.errors import InputError
+from uncertainty.core.parallel import InProcess
 from uncertainty.core.provenance import code_hash, package_version
 from uncertainty.distributions import REGISTRY, Distribution, Normal, Spread, TruncNormal, Uniform, log_sd_from_cv
 from uncertainty.forms.catalogue import all_outputs
@@ -253,7 +256,6 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
         kind = kinds[0]
         val = e[kind]
         if kind == "shift" and e.get("unit"):
-            from uncertainty.core import units
 
             val = units.to_canonical(par, val, e["unit"])
         if not isinstance(val, int | float) or (kind == "multiply" and val <= 0):
@@ -320,7 +322,6 @@ def _model_outputs() -> set[str]:
 
 def _typical(study: Any, trials: int, rng: np.random.Generator) -> dict[str, np.ndarray]:
     """Typical-subject values, one per simulated trial (canonical units)."""
-    from uncertainty.analyses import sampling
 
     seed = int(rng.integers(2**63 - 1))
     return sampling.draw(study, trials, method="mc", seed=seed, layer="typical")
@@ -678,7 +679,6 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
     exact path ``exact_trials`` or 40). ``executor``: an :mod:`uncertainty.core.parallel` executor
     (in-process when None). Returns a :class:`DesignResult`.
     """
-    from uncertainty.core.parallel import InProcess
 
     spec = parse_design(study)
     seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
@@ -812,7 +812,6 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
 
 def _unit_of(spec: DesignSpec) -> str:
     try:
-        from uncertainty.core import units
 
         return units.CANONICAL.get(spec.output, "")
     except ImportError:  # pragma: no cover

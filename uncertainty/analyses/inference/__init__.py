@@ -14,28 +14,29 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference import api
+from uncertainty.analyses.inference.diagnostics import Gate
+from uncertainty.analyses.inference.model_builder import build_model
+from uncertainty.analyses.inference.problem import problem_from_study
+from uncertainty.analyses.inference.result import InferenceResult
+
 __all__ = ["infer", "fit", "Session", "build_model", "problem_from_study", "Gate", "InferenceResult"]
 
 
 def __getattr__(name: str) -> Any:
     if name in ("infer", "fit", "Session"):
-        from uncertainty.analyses.inference import api
 
         return getattr(api, name)
     if name == "build_model":
-        from uncertainty.analyses.inference.model_builder import build_model
 
         return build_model
     if name == "problem_from_study":
-        from uncertainty.analyses.inference.problem import problem_from_study
 
         return problem_from_study
     if name == "Gate":
-        from uncertainty.analyses.inference.diagnostics import Gate
 
         return Gate
     if name == "InferenceResult":
-        from uncertainty.analyses.inference.result import InferenceResult
 
         return InferenceResult
     raise AttributeError(name)

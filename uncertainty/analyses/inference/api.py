@@ -13,13 +13,16 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.inference import checks as checks_mod
 from uncertainty.analyses.inference.compare import compare_forms
 from uncertainty.analyses.inference.diagnostics import Gate, diagnose
 from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, is_positive, spread_ratio
-from uncertainty.analyses.inference.problem import Problem, problem_from_study
+from uncertainty.analyses.inference.observations import kind_module
+from uncertainty.analyses.inference.problem import Problem, normalise_observations, problem_from_study
 from uncertainty.analyses.inference.result import InferenceResult
-from uncertainty.analyses.inference.samplers import SampleRun, sample
+from uncertainty.analyses.inference.samplers import SampleRun, compile_model, posterior_mode, sample
 from uncertainty.analyses.inference.summaries import CONFOUNDED_CORRELATION, PRIOR_BOUND_CONTRACTION, flat, summarise
+from uncertainty.core import units
 from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.forms.catalogue import note_outputs, output_notes
 from uncertainty.study import InferSection
@@ -38,7 +41,6 @@ def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) 
         if observations is not None:
             import dataclasses
 
-            from uncertainty.analyses.inference.problem import normalise_observations
 
             return dataclasses.replace(study, observations=normalise_observations(
                 observations, file=study.file, density=study.density))
@@ -72,7 +74,6 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
                                    "with uniform jitter of +/-1 on the unconstrained scale")
     if checks:
-        from uncertainty.analyses.inference import checks as checks_mod
 
         result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
     return result
@@ -125,8 +126,6 @@ def infer(study: Any, sampler: str | None = None, seed: int | None = None, chain
 
 def _start_point(built: BuiltModel, start: str) -> tuple[dict[str, Any] | None, float]:
     """The posterior mode to start the chains from (and the seconds it took), or (None, 0)."""
-    from uncertainty.analyses.inference.observations import kind_module
-    from uncertainty.analyses.inference.samplers import posterior_mode
 
     if start not in STARTS:
         raise InputError(f"start must be one of {', '.join(STARTS)}", file=built.problem.file, key="start",
@@ -189,7 +188,6 @@ def new_subject_values(built: BuiltModel, idata: Any, rng: np.random.Generator) 
 
 
 def _kind_hooks(built: BuiltModel, attr: str) -> list[Any]:
-    from uncertainty.analyses.inference.observations import kind_module
 
     seen, hooks = set(), []
     for obs in built.problem.observations:
@@ -252,7 +250,6 @@ def posterior_output_notes(problem: Problem, post: dict[str, np.ndarray]) -> lis
 
 def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | None) -> InferenceResult:
     """Turn posterior draws into the result document (intervals, contraction, diagnostics)."""
-    from uncertainty.core import units
 
     idata = run.idata
     problem = built.problem
@@ -320,7 +317,6 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
             draws = flat(idata, var)
             for k, sid in enumerate(built.subjects):
                 subjects[sid][label] = summarise(draws[:, k])
-    from uncertainty.analyses.inference.observations import kind_module
 
     notes = list(built.notes)
     for obs in problem.observations:
@@ -378,7 +374,6 @@ class Session:
 
     def __init__(self, study: Any, observations: Sequence[Any] | None = None, *,
                  sampler: str = "nutpie", model: str | None = None, gate: Any = None) -> None:
-        from uncertainty.analyses.inference.samplers import compile_model
 
         self.problem = _problem(study, observations, model)
         self.built = build_model(self.problem)
@@ -393,7 +388,6 @@ class Session:
 
     def data_from(self, observations: Sequence[Any]) -> dict[str, np.ndarray]:
         """Data arrays (canonical units) for each term from study-form observation records."""
-        from uncertainty.analyses.inference.problem import normalise_observations
 
         obs = normalise_observations(observations, file=self.problem.file, density=self.problem.density)
         if len(obs) != len(self.problem.observations):

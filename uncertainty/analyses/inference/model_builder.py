@@ -29,6 +29,8 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.inference.observations import kind_module
+from uncertainty.analyses.inference.observations.base import prior_centres
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.core.errors import InputError
 from uncertainty.distributions import Spread
@@ -249,7 +251,6 @@ def _probit(logp: Any) -> Any:
 
 def _collect_subjects(problem: Problem) -> tuple[list[str], dict[str, str]]:
     """Subject labels (from the observations and data files) and each subject's group."""
-    from uncertainty.analyses.inference.observations import kind_module
 
     labels: dict[str, None] = {}     # insertion-ordered set (cohorts of thousands of readings)
     groups: dict[str, str] = {}
@@ -284,7 +285,6 @@ def build_model(problem: Problem) -> BuiltModel:
     import pymc as pm
     import pytensor.tensor as pt
 
-    from uncertainty.analyses.inference.observations import kind_module
 
     for obs in problem.observations:
         mod = kind_module(obs)
@@ -424,7 +424,6 @@ PIN_STEP = 1e-4
 def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
     """(observation, output, log scale) of every reading with a kind's ``pinned_output`` hook (one
     single-value record per data-file row)."""
-    from uncertainty.analyses.inference.observations import kind_module
 
     out = []
     for obs in problem.observations:
@@ -446,7 +445,6 @@ def _repeat_note(obs: Observation) -> list[str]:
 def _output_at(problem: Problem, names: list[str], value_of: Any, output: str, z: np.ndarray) -> float:
     """An output of the forward map (numpy) with the quantities ``names`` at scores z (``value_of(q,
     z_q)``) and every other quantity at its prior centre."""
-    from uncertainty.analyses.inference.observations.base import prior_centres
 
     vals = {**problem.fixed, **prior_centres(problem)}
     vals.update({q: value_of(q, z[j]) for j, q in enumerate(names)})
@@ -513,7 +511,6 @@ def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> d
     priors' medians (finite differences), where the output equals the reading (a root in
     [-ANCHOR_MAX, ANCHOR_MAX], else the nearer end): the subject's scores are linearised there, not at
     the typical subject, since a reading far from the typical value is where the posterior is."""
-    from uncertainty.analyses.inference.observations.base import prior_centres
 
     centre = prior_centres(problem)
 
@@ -608,7 +605,6 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     import pytensor
     import pytensor.tensor as pt
 
-    from uncertainty.analyses.inference.observations.base import prior_centres
 
     names = list(scored)
     pinned = _pinned_subjects(problem, names, labels) if hierarchical and names else {}

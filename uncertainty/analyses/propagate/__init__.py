@@ -26,6 +26,7 @@ from uncertainty.analyses.sampling import (
     from_cube,
     is_power_of_two,
     next_power_of_two,
+    open_cube,
     replicate_seeds,
 )
 from uncertainty.core.errors import InputError, QualityGateError
@@ -77,7 +78,6 @@ class CubeStream:
         """The next m points (m, k) of every replicate, in the open cube."""
         from scipy.stats import qmc
 
-        from uncertainty.analyses.sampling import open_cube
 
         out = []
         for i, rng in enumerate(self._rngs):

@@ -40,11 +40,17 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses import sampling
+from uncertainty.analyses.inference import infer
+from uncertainty.analyses.inference.api import new_subject_values, settings
+from uncertainty.analyses.inference.summaries import flat
 from uncertainty.analyses.rank.result import RankResult
+from uncertainty.analyses.sensitivity import first_order_given_data
 from uncertainty.core.errors import InputError
 from uncertainty.distributions import is_normal_frozen, log_sd_from_cv
 from uncertainty.forms.catalogue import output_unit
 from uncertainty.forms.evaluate import evaluate as model_evaluate
+from uncertainty.priors import load_instruments
 
 _BLOCKS = 8
 
@@ -307,7 +313,6 @@ def evaluate_set(readings: np.ndarray, y: np.ndarray, rng: np.random.Generator |
 def perfect_information(theta: np.ndarray, y: np.ndarray) -> tuple[float, float]:
     """(S1, se): first-order index of theta for y from the draws (given-data estimate)."""
     try:
-        from uncertainty.analyses.sensitivity import first_order_given_data
 
         s1, se = first_order_given_data(theta, y)
         return float(s1), float(se)
@@ -448,7 +453,6 @@ def candidates_of(study: Any) -> list[Reading]:
     (or list none) and they read an uncertain input of the study. Bias priors come from the
     instrument a candidate names.
     """
-    from uncertainty.priors import load_instruments
 
     file = str(getattr(study, "path", None) or "") or None
     section = getattr(study, "rank", None)
@@ -505,9 +509,6 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
     """
     import arviz as az
 
-    from uncertainty.analyses.inference import infer
-    from uncertainty.analyses.inference.api import new_subject_values, settings
-    from uncertainty.analyses.inference.summaries import flat
 
     opts = settings(study, sampler=sampler, chains=chains, tune=tune)  # None: the study's [infer], else defaults
     opts["draws"] = max(250, math.ceil(samples / opts["chains"]))
@@ -548,7 +549,6 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     which. ``samples``: draws (default ``[rank] samples`` or 4096, at least 4096 for the prior path;
     the posterior path samples about that many and keeps the thinned ones).
     """
-    from uncertainty.analyses import sampling
 
     section = getattr(study, "rank", None)
     output = getattr(section, "output", "Jv") or "Jv"

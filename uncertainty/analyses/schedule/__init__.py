@@ -44,6 +44,9 @@ import numpy as np
 
 from uncertainty.analyses.schedule.result import ScheduleResult
 from uncertainty.core.errors import InputError
+from uncertainty.physiology.interstitium import volume_time_course
+from uncertainty.priors import load_prior_set, parse_prior
+from uncertainty.study import ScheduleSection
 
 #: parameters of the linear cuff model, in the order of phi
 PARAMS = ("Kf", "C_tis", "L", "C_v", "Pv", "r", "tau_v")
@@ -187,7 +190,6 @@ class CuffModel:
 
     def forward(self, pressures: Sequence[float], times: np.ndarray) -> Callable[[np.ndarray], np.ndarray]:
         """phi (M, p) -> limb volume change (mL per basis) at ``times`` (min), (M, G)."""
-        from uncertainty.physiology.interstitium import volume_time_course
 
         steps = [k * self.step_min for k in range(len(pressures))]
         t = np.asarray(times, dtype=float)[None, :]
@@ -219,7 +221,6 @@ def cuff_model(study: Any, section: Any, seed: int, draws: int = 20000) -> CuffM
     Moments of phi are matched to individual-level prior draws (``draws``); correlations between
     these quantities are not carried (the prior sets declare none among them).
     """
-    from uncertainty.priors import load_prior_set, parse_prior
 
     rng = np.random.default_rng(seed)
     file = getattr(study, "file", None)
@@ -431,7 +432,6 @@ def schedule(study: Any, seed: int | None = None) -> ScheduleResult:
     (optimised / equal spacing per target; below 1 is a gain), ``parameters`` (prior moments and
     origins) and the settings. Seeded by ``seed`` (default the study seed).
     """
-    from uncertainty.study import ScheduleSection
 
     section = getattr(study, "schedule", None) or ScheduleSection()
     file = getattr(study, "file", None)

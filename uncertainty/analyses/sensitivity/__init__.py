@@ -32,6 +32,15 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.propagate import available_outputs, model_evaluator, section_settings, study_meta
+from uncertainty.analyses.sampling import (
+    correlation_of,
+    cube_columns,
+    from_scores,
+    is_power_of_two,
+    next_power_of_two,
+    open_cube,
+    replicate_seeds,
+)
 from uncertainty.analyses.sensitivity.result import SensitivityResult
 from uncertainty.core.errors import InputError
 from uncertainty.forms.catalogue import output_unit
@@ -118,7 +127,6 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
     every quantity with a between-subject spread; a quantity's typical and between-subject columns
     form one group (the individual's value of that quantity).
     """
-    from uncertainty.analyses.sampling import correlation_of, cube_columns, from_scores
 
     evaluate = model_evaluator(evaluate)
     have = available_outputs(study, evaluate)
@@ -187,7 +195,6 @@ def _index_warnings(indices: dict[str, dict[str, Any]], keys: Sequence[str]) -> 
 
 
 def _per_replicate_size(samples: int, replicates: int, notes: list[str], key: str) -> int:
-    from uncertainty.analyses.sampling import is_power_of_two, next_power_of_two
 
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer):
         raise InputError("the number of samples must be a whole number", key=key, value=samples)
@@ -246,7 +253,6 @@ def sobol_core(problem: Problem, samples: int = 8192, *, seed: Any = None, repli
     """
     from SALib.sample import sobol as sobol_sample
 
-    from uncertainty.analyses.sampling import open_cube, replicate_seeds
 
     _refuse_correlated(problem, "Sobol'")
     notes: list[str] = []
@@ -519,7 +525,6 @@ def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_i
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer) or samples <= 0:
         raise InputError("the number of samples must be a positive whole number", key="sensitivity.samples",
                          value=samples)
-    from uncertainty.analyses.sampling import replicate_seeds
 
     d = len(problem.players)
     notes: list[str] = []

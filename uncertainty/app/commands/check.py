@@ -5,6 +5,9 @@ from __future__ import annotations
 import click
 
 from uncertainty.app.commands.common import emit_json, handle_errors
+from uncertainty.app.commands.priors import rows_table
+from uncertainty.app.section_checks import check_sections
+from uncertainty.study import TOP_LEVEL, data_notes, load_study, resolved_rows
 
 
 @click.command("check", short_help="Validate a study file and show the resolved priors.")
@@ -14,9 +17,6 @@ from uncertainty.app.commands.common import emit_json, handle_errors
 @handle_errors
 def command(study: str, as_json: bool, quiet: bool) -> None:
     """Validate STUDY: priors after tissue, conditions and overrides; correlations; sections; data files."""
-    from uncertainty.app.commands.priors import rows_table
-    from uncertainty.app.section_checks import check_sections
-    from uncertainty.study import TOP_LEVEL, data_notes, load_study, resolved_rows
 
     s = load_study(study)
     check_sections(s)

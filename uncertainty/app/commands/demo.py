@@ -6,6 +6,8 @@ import click
 
 from uncertainty.app.commands.common import handle_errors
 from uncertainty.app.commands.run import execute
+from uncertainty.core.errors import InputError
+from uncertainty.core.resources import studies_dir
 
 DEMO = "demo.toml"
 
@@ -30,8 +32,6 @@ def command(out: str, seed: int | None, as_json: bool, quiet: bool, force: bool)
       fluidshift demo
       fluidshift demo --out /tmp/demo --force
     """
-    from uncertainty.core.errors import InputError
-    from uncertainty.core.resources import studies_dir
 
     study = studies_dir() / DEMO
     if not study.is_file():

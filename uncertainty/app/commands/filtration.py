@@ -9,6 +9,9 @@ import click
 
 from uncertainty.app.commands.common import emit_json, handle_errors
 from uncertainty.core.errors import InputError
+from uncertainty.core.units import CANONICAL, takes_basis, to_canonical
+from uncertainty.physiology import capillary, oncotic, starling
+from uncertainty.priors import load_conditions, load_prior_set
 
 SIX = ("Pc", "Pi", "pi_c", "pi_i", "sigma", "Kf")
 #: quantities --set accepts beyond the six: Pc from Pa, Pv, r; pi_c / pi_i from protein.
@@ -25,7 +28,6 @@ FORCE_LABEL = {
 
 def parse_settings(settings: tuple[str, ...], basis: str, density: float) -> dict[str, float]:
     """Parse ``SYMBOL=VALUE[ UNIT]`` pairs into canonical values; bad ones raise InputError."""
-    from uncertainty.core.units import to_canonical
 
     values: dict[str, float] = {}
     for item in settings:
@@ -83,7 +85,6 @@ def tissue_medians(tissue: str, conditions: Sequence[str] = (),
     InputError
         An unknown condition, one listed twice, or one that does not apply to ``tissue`` (exit 2).
     """
-    from uncertainty.priors import load_conditions, load_prior_set
 
     pset = load_prior_set(tissue)
     priors = dict(pset.priors)
@@ -145,7 +146,6 @@ def resolve(values: dict[str, float], tissue: str | None, basis: str = "100g",
         A quantity that cannot be filled, a value outside its range, conditions without a tissue or an
         unknown condition (exit 2).
     """
-    from uncertainty.physiology import capillary, oncotic
 
     if conditions and not tissue:
         raise InputError("--conditions modify a tissue's priors: give --tissue too", key="--conditions",
@@ -174,7 +174,6 @@ def resolve(values: dict[str, float], tissue: str | None, basis: str = "100g",
         source["pi_i"] = "derived from Ci"
     missing = [s for s in SIX if s not in out]
     if missing and tissue:
-        from uncertainty.core.units import CANONICAL, takes_basis, to_canonical
 
         for s in missing:
             if s in medians:
@@ -263,7 +262,6 @@ def command(settings: tuple[str, ...], tissue: str | None, conditions: tuple[str
     A --set quantity that the evaluation does not use (Pa, Pv or r when Pc is set; Cp when pi_c is set)
     gives a warning line on stderr.
     """
-    from uncertainty.physiology import starling
 
     values = parse_settings(settings, basis, density)
     names = [c.strip() for item in conditions for c in item.split(",") if c.strip()]

@@ -6,6 +6,8 @@ import click
 
 from uncertainty.app.commands.common import emit_json, handle_errors
 from uncertainty.core.errors import InputError
+from uncertainty.core.units import to_canonical
+from uncertainty.physiology import oncotic
 
 RELATIONS = {
     "total": "Landis & Pappenheimer 1963 total-protein polynomial",
@@ -29,8 +31,6 @@ def command(value: str, unit: str | None, protein: str, as_json: bool) -> None:
       fluidshift oncotic 70 g/L --json
       fluidshift oncotic 4 g/dL --protein albumin
     """
-    from uncertainty.core.units import to_canonical
-    from uncertainty.physiology import oncotic
 
     c = to_canonical("Cp", value if unit is None else f"{value} {unit}")
     if c < 0:

@@ -9,6 +9,7 @@ import numpy as np
 
 from uncertainty.analyses.sampling import draw
 from uncertainty.app.commands.common import emit_json, handle_errors
+from uncertainty.priors import list_prior_sets, load_conditions, load_instruments, load_prior_set, prior_rows
 from uncertainty.study import Study
 
 #: Draws (scrambled Sobol') and seed for the ranges derived quantities imply; fixed so the table repeats.
@@ -115,7 +116,6 @@ def command() -> None:
 @handle_errors
 def list_cmd(as_json: bool) -> None:
     """List the prior sets (tissues), the conditions and the instruments."""
-    from uncertainty.priors import list_prior_sets, load_conditions, load_instruments, load_prior_set
 
     sets = [load_prior_set(n) for n in list_prior_sets()]
     conditions = load_conditions()
@@ -151,7 +151,6 @@ def list_cmd(as_json: bool) -> None:
 @handle_errors
 def show_cmd(tissue: str, as_json: bool) -> None:
     """Show the priors of TISSUE: distribution, median, 95 % interval, unit, spread and origin."""
-    from uncertainty.priors import load_prior_set, prior_rows
 
     pset = load_prior_set(tissue)
     rows = prior_rows(pset.priors, pset.derived)

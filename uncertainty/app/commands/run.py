@@ -7,6 +7,8 @@ from pathlib import Path
 import click
 
 from uncertainty.app.commands.common import emit_json, handle_errors, study_options
+from uncertainty.app.run import run
+from uncertainty.core.errors import FluidshiftError
 
 
 def print_summary(result: object, quiet: bool) -> None:
@@ -26,8 +28,6 @@ def print_summary(result: object, quiet: bool) -> None:
 
 def execute(study: str, out: str, *, seed: int | None, as_json: bool, quiet: bool, force: bool) -> None:
     """Call uncertainty.app.run.run and print its summary or JSON (also when a gate failed)."""
-    from uncertainty.app.run import run
-    from uncertainty.core.errors import FluidshiftError
 
     try:
         result = run(study, out, force=force, progress=not (quiet or as_json), seed=seed)

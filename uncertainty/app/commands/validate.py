@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from uncertainty.analyses.validation import markdown, table, validate
 from uncertainty.app.commands.common import emit_json, handle_errors
 from uncertainty.core.errors import QualityGateError
 from uncertainty.core.serialise import to_json
@@ -20,7 +21,6 @@ def command(tissue: str | None, as_json: bool, out: str | None, sources: bool) -
     """Each published measurement of the validation table (quantity, tissue, conditions, band, source)
     beside the model's median and 95 % interval for the typical subject, with a verdict: inside, outside
     or known gap. Exit status 3 when a row not marked as a known gap lies outside its band."""
-    from uncertainty.analyses.validation import markdown, table, validate
 
     result = validate(tissue)
     doc = result.to_dict()

@@ -6,6 +6,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty import priors as priors_mod
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.core.errors import InputError
 from uncertainty.distributions import log_sd_from_cv
@@ -74,7 +75,6 @@ def declared_prior(decl: Any, symbol: str, obs: Observation, field: str) -> Any:
 
     Read with ``uncertainty.priors.parse_prior`` (any declaration a prior file accepts).
     """
-    from uncertainty import priors as priors_mod
 
     try:
         return priors_mod.parse_prior(symbol, decl, key=f"{obs.key}.{field}",

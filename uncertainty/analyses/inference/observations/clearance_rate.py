@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference.model_builder import ObservedTerm
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     check_positive_value,
@@ -41,7 +42,6 @@ def add(ctx: Any, obs: Observation) -> None:
     """k ~ error(Jv / V_dist), one V_dist per observation."""
     import pymc as pm
 
-    from uncertainty.analyses.inference.model_builder import ObservedTerm
 
     i = ctx.subject_index(obs)
     name = term_name(obs)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference.model_builder import ObservedTerm
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     check_positive_value,
@@ -48,7 +49,6 @@ def add(ctx: Any, obs: Observation) -> None:
     """reading ~ error(GFR, RPF or FF of the observation's subject)."""
     import pymc as pm
 
-    from uncertainty.analyses.inference.model_builder import ObservedTerm
 
     i = ctx.subject_index(obs)
     pred = ctx.value(QUANTITY[obs.kind])[i]

@@ -11,9 +11,11 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference.model_builder import ObservedTerm
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     check_positive_value,
+    output_names,
     require_error,
     term_name,
     term_subjects,
@@ -36,7 +38,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 def pinned_output(obs: Observation, problem: Problem) -> tuple[str, bool]:
     """The output a reading pins (JL where the form has one, else Jv) and whether its error is on the
     log scale (cv): the model builder samples the subject's between-subject scores centred along it."""
-    from uncertainty.analyses.inference.observations.base import output_names
 
     return ("JL" if "JL" in output_names(problem) else "Jv"), obs.cv is not None
 
@@ -46,7 +47,6 @@ def add(ctx: Any, obs: Observation) -> None:
     has one (steady forms; JL = Jv + J_epi in the absorbing mucosa), else Jv (lymph = Jv)."""
     import pymc as pm
 
-    from uncertainty.analyses.inference.model_builder import ObservedTerm
 
     i = ctx.subject_index(obs)
     pred = ctx.value("JL" if "JL" in ctx.outputs() else "Jv")[i]

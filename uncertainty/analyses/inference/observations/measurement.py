@@ -12,6 +12,8 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty import priors as priors_mod
+from uncertainty.analyses.inference.model_builder import ObservedTerm
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     check_positive_value,
@@ -27,7 +29,6 @@ NOTE = ""
 
 
 def _instrument(obs: Observation) -> Any:
-    from uncertainty import priors as priors_mod
 
     table = priors_mod.load_instruments()
     inst = table.get(obs.instrument)
@@ -90,7 +91,6 @@ def add(ctx: Any, obs: Observation) -> None:
     """Add the reading's likelihood for its subject (or the study's individual)."""
     import pymc as pm
 
-    from uncertainty.analyses.inference.model_builder import ObservedTerm
 
     i = ctx.subject_index(obs)
     pred = ctx.value(obs.parameter)[i]

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference.model_builder import ObservedTerm
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     check_positive_value,
@@ -17,6 +18,7 @@ from uncertainty.analyses.inference.observations.base import (
     term_subjects,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
+from uncertainty.physiology import solute
 
 NOTE = "protein_ratio: lymph/plasma protein ratio from the Patlak steady state (sigma, PS, Jv)."
 
@@ -36,8 +38,6 @@ def add(ctx: Any, obs: Observation) -> None:
     import pymc as pm
     import pytensor.tensor as pt
 
-    from uncertainty.analyses.inference.model_builder import ObservedTerm
-    from uncertainty.physiology import solute
 
     i = ctx.subject_index(obs)
     name = term_name(obs)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference.model_builder import ObservedTerm
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     declared_prior,
@@ -18,6 +19,7 @@ from uncertainty.analyses.inference.observations.base import (
     term_subjects,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
+from uncertainty.physiology import interstitium
 
 NOTE = "swelling_rate: dV/dt = Jv - JL, with JL from the lymph relation or the declared lymph prior."
 
@@ -39,8 +41,6 @@ def add(ctx: Any, obs: Observation) -> None:
     import pymc as pm
     import pytensor.tensor as pt
 
-    from uncertainty.analyses.inference.model_builder import ObservedTerm
-    from uncertainty.physiology import interstitium
 
     i = ctx.subject_index(obs)
     name = term_name(obs)

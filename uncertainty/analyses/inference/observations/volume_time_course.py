@@ -27,8 +27,12 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.inference.model_builder import SPREAD_LOG_SD, ObservedTerm
+from uncertainty.analyses.inference.observations.base import add_reading, prior_rv, term_name
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.distributions import log_sd_from_cv
+from uncertainty.physiology import interstitium
+from uncertainty.priors import Prior
 
 LABELLED = True
 #: Start the chains around the posterior mode (inference.api.fit, start="auto"): from the priors'
@@ -166,7 +170,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 
 def _side_prior(name: str) -> Any:
-    from uncertainty.priors import Prior
 
     spec = SIDE_PRIORS[name]
     params = {k: float(v) for k, v in spec.items() if k in ("mean", "sd", "median", "gsd")}
@@ -187,8 +190,6 @@ def _hyper(ctx: Any, name: str, prior: Any) -> tuple[Any, Any]:
     import pymc as pm
     import pytensor.tensor as pt
 
-    from uncertainty.analyses.inference.model_builder import SPREAD_LOG_SD
-    from uncertainty.analyses.inference.observations.base import prior_rv
 
     typ = prior_rv(name, prior)
     ctx.extra_params.append(name)
@@ -265,7 +266,6 @@ def _frame(entries: list[_Entry], centre: dict[str, Any], t: np.ndarray, y: np.n
     ``_globals``."""
     from scipy.optimize import least_squares
 
-    from uncertainty.physiology import interstitium
 
     mean = np.array([np.broadcast_to(centre[f"mean:{e.label}"], (len(centre["r"]),)) for e in entries]).T
     sd = np.array([np.broadcast_to(centre[f"sd:{e.label}"], (len(centre["r"]),)) for e in entries]).T
@@ -415,7 +415,6 @@ def _curve(t: np.ndarray, sidx: np.ndarray, n: int, times: list[float], cuffs: l
     ``tau`` (min) replaces C_tis and L when given."""
     import pytensor.tensor as pt
 
-    from uncertainty.physiology import interstitium
 
     grid, tidx = np.unique(t, return_inverse=True)
     on_grid = n * grid.size <= GRID_CELLS_PER_READING * t.size
@@ -441,8 +440,6 @@ def add(ctx: Any, obs: Observation) -> None:
     import pymc as pm
     import pytensor.tensor as pt
 
-    from uncertainty.analyses.inference.model_builder import ObservedTerm
-    from uncertainty.analyses.inference.observations.base import add_reading, prior_rv, term_name
 
     data = _data(obs, ctx.problem)
     name = term_name(obs)
