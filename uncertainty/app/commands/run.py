@@ -47,7 +47,7 @@ def execute(study: str, out: str, *, seed: int | None, as_json: bool, quiet: boo
 
 @click.command("run")
 @study_options
-@click.option("--force", is_flag=True, help="Recompute every section, even those unchanged since the last run.")
+@click.option("--force", is_flag=True, help="Recompute every section, and write into a folder that is not a bundle.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, force: bool) -> None:
     """Run every analysis section of STUDY and write a results bundle.
