@@ -78,14 +78,32 @@ def test_rqmc_beats_mc_at_equal_budget(capsys):
 
 
 def test_tol_doubles_until_reached_and_gate_fails_at_max():
-    r = propagate(classic_study(), samples=1024, seed=3, tol=2e-3, evaluate=evaluate)
+    r = propagate(classic_study(), samples=2048, seed=3, tol=2e-3, evaluate=evaluate)
     assert r.converged is True
-    assert max(r.summaries["individual"]["Jv"].mc_se["ci95"]) < 2e-3
-    assert [h["samples"] for h in r.history] == [1024 * 2**i for i in range(len(r.history))]
+    # the gate is the 95% Monte Carlo margin: t quantile with R - 1 = 15 df (scipy.stats.t) x replicate se
+    assert stats.t.ppf(0.975, 15) * max(r.summaries["individual"]["Jv"].mc_se["ci95"]) < 2e-3
+    assert [h["samples"] for h in r.history] == [2048 * 2**i for i in range(len(r.history))]
     with pytest.raises(QualityGateError) as exc:
         propagate(classic_study(), samples=1024, seed=3, tol=1e-9, max_samples=8192, evaluate=evaluate)
     assert exc.value.exit_code == 3 and exc.value.result is not None
     assert exc.value.result.converged is False and exc.value.result.samples == 8192
+
+
+def test_too_few_samples_are_raised_with_a_note():
+    r = propagate(classic_study(), samples=1, method="mc", seed=2, evaluate=evaluate)
+    assert r.samples == 16 * 128 and any("raised to 2048" in n for n in r.notes)
+
+
+def test_interval_end_errors_are_calibrated_at_the_smallest_size():
+    # Normal draws with known quantiles (scipy.stats.norm.ppf): at 128 draws per replicate the t interval
+    # (15 df) of each 95%-interval end covers the true quantile close to 95% of the time.
+    rng = np.random.default_rng(11)
+    truth = stats.norm.ppf([0.025, 0.975])
+    t15, hits, reps = stats.t.ppf(0.975, 15), 0, 600
+    for _ in range(reps):
+        s = summarize("y", [rng.standard_normal(128) for _ in range(16)])
+        hits += sum(abs(s.ci95[i] - truth[i]) < t15 * s.mc_se["ci95"][i] for i in (0, 1))
+    assert 0.91 <= hits / (2 * reps) <= 0.985
 
 
 def test_nan_draws_are_counted_not_averaged():
@@ -104,11 +122,11 @@ def test_nan_draws_are_counted_not_averaged():
 
 
 def test_json_keys_and_labels(tmp_path):
-    r = propagate(classic_study(), samples=1000, method="lhs", seed=1, evaluate=evaluate)
+    r = propagate(classic_study(), samples=3000, method="lhs", seed=1, evaluate=evaluate)
     d = r.to_dict()
     assert set(d["outputs"]["Jv"]) >= {"mean", "sd", "median", "ci95", "mc_se"}
     assert set(d["typical"]["Jv"]) >= {"mean", "sd", "median", "ci95", "mc_se"}
-    assert "p_absorption" in d and d["samples"] == 1008  # 16 x 63, rounded up with a note
+    assert "p_absorption" in d and d["samples"] == 3008  # 16 x 188, rounded up with a note
     assert any("rounded up" in n for n in d["notes"])
     df = r.to_dataframe()
     assert ("typical", "Jv") in df.index

@@ -84,8 +84,8 @@ MEANINGS: dict[str, str] = {
     "propagate.samples": "total number of draws over all replicates (rounded up to a power of two per replicate "
                          "for qmc)",
     "propagate.method": "mc (pseudo-random), qmc (scrambled Sobol'), lhs (Latin hypercube)",
-    "propagate.tol": "optional: double the sample until the MC standard error of both 95% interval ends is below "
-                     "this, in the first output's canonical unit",
+    "propagate.tol": "optional: double the sample until the 95% Monte Carlo margin (t x standard error over the "
+                     "replicates) of both 95% interval ends is below this, in the first output's canonical unit",
     "propagate.max_samples": "optional: upper limit for the doubling under `tol` (quality gate, exit 3, when "
                              "reached)",
     "observations.kind": "measurement (a direct noisy reading of one quantity), lymph_flow (pre-nodal JL = Jv at "

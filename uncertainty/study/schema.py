@@ -55,7 +55,8 @@ class PropagateSection(BaseModel):
     replicates: int = Field(default=16, ge=16, le=1024, description=(
         "independent randomised replicates for the Monte Carlo standard errors (at least 16 scrambles)"))
     tol: float | None = Field(default=None, gt=0, description=(
-        "keep doubling the sample until the standard error of the 95% interval ends is below tol (output units)"))
+        "keep doubling the sample until the 95% Monte Carlo margin of the 95% interval ends is below tol "
+        "(output units)"))
     max_samples: int | None = Field(default=None, gt=0, description=(
         "with tol: the largest sample; reaching it first exits 3"))
 

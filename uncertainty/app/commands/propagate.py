@@ -17,8 +17,9 @@ from uncertainty.study import load_study
               help="Sampling design: scrambled Sobol' QMC (default), plain MC, Latin hypercube.")
 @click.option("--output", "outputs", multiple=True, help="An output to summarise (repeatable).")
 @click.option("--tol", type=float, default=None,
-              help="Double the sample until the MC standard error of the 95%-interval ends of the "
-                   "first output is below TOL (its unit); exit 3 if --max-samples comes first.")
+              help="Double the sample until the 95% Monte Carlo margin (t x standard error) of the "
+                   "95%-interval ends of the first output is below TOL (its unit); exit 3 if --max-samples "
+                   "comes first.")
 @click.option("--max-samples", type=int, default=None, help="Upper limit for --tol doubling.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool,
