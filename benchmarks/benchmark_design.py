@@ -25,7 +25,7 @@ def _study() -> SimpleNamespace:
     pri = {"Kf": parse_prior("Kf", {"dist": "lognormal", "median": 0.004, "gsd": 1.3, "unit": "mL/min/mmHg/100g",
                                     "between_subject": {"cv": 0.35}})}
     sec = {"design": "parallel", "endpoint": "Kf", "effect": {"parameter": "Kf", "multiply": 0.7},
-           "measurement": {"cv": 0.2}, "n_range": [10, 100], "n_points": 10, "trials": 1000, "exact_trials": 8}
+           "measurement": {"cv": 0.2}, "n_range": [10, 100], "n_points": 10, "trials": 1000, "exact_trials": 20}
     return SimpleNamespace(path="bench.toml", seed=1, priors=pri, names=["Kf"], correlation=None, design=sec)
 
 
