@@ -90,9 +90,9 @@ def test_demo_runs_the_bundled_study(fakes, tmp_path):
     assert doc["study"]["path"] == str(studies_dir() / "demo.toml")
 
 
-def test_quiet_hides_library_chatter(capfd):
-    """--quiet prints nothing but errors: PyMC's "Sampling: [...]" log lines and library warnings (PyTensor's
-    BLAS UserWarning) are hidden; without --quiet they still show, so this test can fail."""
+def test_library_chatter_is_hidden_unless_verbose(capfd):
+    """PyMC's "Sampling: [...]" log lines and library warnings (PyTensor's BLAS UserWarning) are hidden by
+    default and with --quiet; with --verbose they show, so this test can fail."""
     import logging
     import sys
     import warnings
@@ -103,6 +103,7 @@ def test_quiet_hides_library_chatter(capfd):
 
     @click.command()
     @click.option("--quiet", is_flag=True)
+    @click.option("--verbose", is_flag=True)
     @handle_errors
     def chatty(quiet: bool) -> None:
         log = logging.getLogger("pymc")
@@ -115,12 +116,13 @@ def test_quiet_hides_library_chatter(capfd):
         finally:
             log.removeHandler(handler)
 
-    with warnings.catch_warnings(record=True) as seen, pytest.raises(SystemExit) as info:
-        warnings.simplefilter("always")
-        chatty.main(["--quiet"], standalone_mode=True)
-    assert info.value.code == 0
-    assert capfd.readouterr().err == "" and seen == []
+    for args in (["--quiet"], []):
+        with warnings.catch_warnings(record=True) as seen, pytest.raises(SystemExit) as info:
+            warnings.simplefilter("always")
+            chatty.main(args, standalone_mode=True)
+        assert info.value.code == 0
+        assert capfd.readouterr().err == "" and seen == []
     with pytest.warns(UserWarning, match="BLAS"), pytest.raises(SystemExit):
-        chatty.main([], standalone_mode=True)
+        chatty.main(["--verbose"], standalone_mode=True)
     assert "Sampling: [Kf__z]" in capfd.readouterr().err
     assert logging.root.manager.disable == logging.NOTSET  # restored after the command

@@ -20,7 +20,9 @@ from uncertainty.core.serialise import to_json
 
 
 def study_options(func: Callable) -> Callable:
-    """Add the options every analysis command takes: STUDY, --seed, --json, --out, --quiet."""
+    """Add the options every analysis command takes: STUDY, --seed, --json, --out, --quiet, --verbose."""
+    func = click.option("--verbose", is_flag=True,
+                        help="Show the libraries' own messages (PyMC, PyTensor warnings), hidden by default.")(func)
     func = click.option("--quiet", is_flag=True, help="Print nothing but errors (and JSON with --json).")(func)
     func = click.option("--out", "out", type=click.Path(file_okay=False), default=None,
                         help="Folder for tables and figures.")(func)
@@ -73,8 +75,9 @@ def show_result(result: Result, *, as_json: bool, out: str | None, quiet: bool) 
 
 @contextlib.contextmanager
 def _libraries_silenced() -> Any:
-    """For --quiet: hide the libraries' own chatter on stderr (PyMC's "Sampling: [...]" log lines,
-    PyTensor's BLAS UserWarning and other warnings); our own error line is printed after this ends."""
+    """Hide the libraries' own chatter on stderr (PyMC's "Sampling: [...]" log lines, PyTensor's BLAS
+    UserWarning and other warnings) unless --verbose; our own messages are printed with click, and the
+    error line after this ends."""
     import logging
     import warnings
 
@@ -89,15 +92,16 @@ def _libraries_silenced() -> Any:
 
 
 def handle_errors(func: Callable) -> Callable:
-    """Turn FluidshiftError into a one-line message and its exit status; no traceback."""
+    """Turn FluidshiftError into a one-line message and its exit status; no traceback. Library chatter is
+    hidden unless the command was given ``--verbose`` (that option is consumed here)."""
 
     @functools.wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
         try:
-            if kwargs.get("quiet"):
-                with _libraries_silenced():
-                    return func(*args, **kwargs)
-            return func(*args, **kwargs)
+            if kwargs.pop("verbose", False):
+                return func(*args, **kwargs)
+            with _libraries_silenced():
+                return func(*args, **kwargs)
         except QualityGateError as exc:
             click.echo(f"fluidshift: quality gate failed: {exc}", err=True)
             sys.exit(exc.exit_code)

@@ -18,6 +18,7 @@ DEMO = "demo.toml"
 @click.option("--seed", type=int, default=None, help="Override the demo study's seed.")
 @click.option("--json", "as_json", is_flag=True, help="Print the results document on stdout and nothing else.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@click.option("--verbose", is_flag=True, help="Show the libraries' own messages, hidden by default.")
 @click.option("--force", is_flag=True, help="Recompute every section, and write into a folder that is not a bundle.")
 @handle_errors
 def command(out: str, seed: int | None, as_json: bool, quiet: bool, force: bool) -> None:
