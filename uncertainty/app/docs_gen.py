@@ -256,7 +256,6 @@ def fields_of(model: Any) -> list[tuple[str, str, str, str]]:
 
 
 def _parameters() -> str:
-
     rows = []
     for dist, (required, optional) in priors.DISTRIBUTIONS.items():
         params = ", ".join(f"`{p}`" for p in required)

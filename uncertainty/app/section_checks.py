@@ -17,8 +17,6 @@ from uncertainty.analyses.rank import candidates_of
 def check_sections(study: Any) -> None:
     """Raise InputError (file, key, value) when the study's [design] or [rank] section cannot run."""
     if getattr(study, "design", None) is not None:
-
         parse_design(study)
     if getattr(study, "rank", None) is not None:
-
         candidates_of(study)

@@ -280,7 +280,6 @@ def kf_pvi_regression(cuff_pressures: Sequence[float], slopes: Sequence[float], 
     y = np.asarray(slopes, dtype=float)
     n = P.size
     if n < 2 or np.ptp(P) == 0:
-
         raise InputError("need at least two different cuff pressures", key="cuff_pressures", value=list(P))
     X = np.column_stack([np.ones(n), P])
     coef, *_ = np.linalg.lstsq(X, y, rcond=None)

@@ -186,7 +186,6 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                     raise study_error("expected a number", path_str, f"{rkey}.{k}", v)
                 v = float(v)
                 if k in ("shift", "extra_sd", "per_cm") and row.get("unit"):
-
                     try:
                         v = units.to_canonical(sym, v, row["unit"])
                     except UnitError as exc:

@@ -308,7 +308,6 @@ def number_in_unit(symbol: str, raw: Any, unit: str | None, ctx: Context, key: s
             raise study_error("must be a finite number", ctx.file, key, raw)
         return x, None
     if isinstance(raw, str):
-
         try:
             x, text_unit = units.parse(raw, symbol=symbol)
         except UnitError:

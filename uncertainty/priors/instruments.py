@@ -46,7 +46,6 @@ class Instrument:
 
 @functools.lru_cache(maxsize=8)
 def _load_instruments_cached(path_str: str) -> dict[str, Instrument]:
-
     path = Path(path_str)
     doc = read_toml(path)
     for k in doc:

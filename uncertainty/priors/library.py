@@ -259,7 +259,6 @@ def prior_rows(priors: Mapping[str, Prior], derived: Mapping[str, Derivation] | 
 
 
 def canonical_unit(symbol: str) -> str:
-
     return units.CANONICAL.get(symbol, "")
 
 

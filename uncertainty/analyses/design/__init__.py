@@ -256,7 +256,6 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
         kind = kinds[0]
         val = e[kind]
         if kind == "shift" and e.get("unit"):
-
             val = units.to_canonical(par, val, e["unit"])
         if not isinstance(val, int | float) or (kind == "multiply" and val <= 0):
             raise InputError("multiply must be a ratio > 0" if kind == "multiply" else "shift must be a number",
@@ -811,8 +810,4 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
 
 
 def _unit_of(spec: DesignSpec) -> str:
-    try:
-
-        return units.CANONICAL.get(spec.output, "")
-    except ImportError:  # pragma: no cover
-        return ""
+    return units.CANONICAL.get(spec.output, "")

@@ -25,18 +25,13 @@ __all__ = ["infer", "fit", "Session", "build_model", "problem_from_study", "Gate
 
 def __getattr__(name: str) -> Any:
     if name in ("infer", "fit", "Session"):
-
         return getattr(api, name)
     if name == "build_model":
-
         return build_model
     if name == "problem_from_study":
-
         return problem_from_study
     if name == "Gate":
-
         return Gate
     if name == "InferenceResult":
-
         return InferenceResult
     raise AttributeError(name)

@@ -74,7 +74,6 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
                                    "with uniform jitter of +/-1 on the unconstrained scale")
     if checks:
-
         result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
     return result
 
@@ -188,7 +187,6 @@ def new_subject_values(built: BuiltModel, idata: Any, rng: np.random.Generator) 
 
 
 def _kind_hooks(built: BuiltModel, attr: str) -> list[Any]:
-
     seen, hooks = set(), []
     for obs in built.problem.observations:
         mod = kind_module(obs)
@@ -374,7 +372,6 @@ class Session:
 
     def __init__(self, study: Any, observations: Sequence[Any] | None = None, *,
                  sampler: str = "nutpie", model: str | None = None, gate: Any = None) -> None:
-
         self.problem = _problem(study, observations, model)
         self.built = build_model(self.problem)
         self.sampler = sampler

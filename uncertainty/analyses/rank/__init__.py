@@ -312,13 +312,8 @@ def evaluate_set(readings: np.ndarray, y: np.ndarray, rng: np.random.Generator |
 
 def perfect_information(theta: np.ndarray, y: np.ndarray) -> tuple[float, float]:
     """(S1, se): first-order index of theta for y from the draws (given-data estimate)."""
-    try:
-
-        s1, se = first_order_given_data(theta, y)
-        return float(s1), float(se)
-    except ImportError:  # pragma: no cover - sensitivity.py is part of the package
-        fit, _, _ = regression_fit(theta, y)
-        return float(np.var(fit) / np.var(y)), float("nan")
+    s1, se = first_order_given_data(theta, y)
+    return float(s1), float(se)
 
 
 def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Reading], *,

@@ -195,7 +195,6 @@ def _index_warnings(indices: dict[str, dict[str, Any]], keys: Sequence[str]) -> 
 
 
 def _per_replicate_size(samples: int, replicates: int, notes: list[str], key: str) -> int:
-
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer):
         raise InputError("the number of samples must be a whole number", key=key, value=samples)
     if samples <= 0:

@@ -174,7 +174,6 @@ def resolve(values: dict[str, float], tissue: str | None, basis: str = "100g",
         source["pi_i"] = "derived from Ci"
     missing = [s for s in SIX if s not in out]
     if missing and tissue:
-
         for s in missing:
             if s in medians:
                 x = float(medians[s])

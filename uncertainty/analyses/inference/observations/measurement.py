@@ -29,7 +29,6 @@ NOTE = ""
 
 
 def _instrument(obs: Observation) -> Any:
-
     table = priors_mod.load_instruments()
     inst = table.get(obs.instrument)
     if inst is None:

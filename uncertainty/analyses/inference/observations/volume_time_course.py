@@ -170,7 +170,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 
 def _side_prior(name: str) -> Any:
-
     spec = SIDE_PRIORS[name]
     params = {k: float(v) for k, v in spec.items() if k in ("mean", "sd", "median", "gsd")}
     return Prior(name, spec["dist"], params, between_subject=spec.get("between_subject"),
