@@ -137,15 +137,16 @@ def tissue_compliance(Pi: Array, C_tis: Array, C_high: Array, P_break: Array, wi
 
 def oedema_beyond_break(Pi: Array, C_tis: Array, C_high: Array, P_break: Array, width: Array = BREAK_WIDTH,
                         xp: Any = np) -> Array:
-    """Oedema (mL per basis): the volume the interstitium holds at Pi beyond its normally hydrated state,
-    i.e. what the high-compliance limb of ``smooth_tissue_volume`` adds above the low-compliance line,
-    (C_high - C_tis) width softplus((Pi - P_break)/width).
+    """Oedema (mL per basis): the volume the interstitium holds at Pi beyond the break of its own
+    pressure-volume curve, max(V(Pi) - V(P_break), 0) with V of ``smooth_tissue_volume``.
 
-    Measured from each subject's own curve, not from a population reference: a subject whose Pi sits
-    below his break (normally hydrated) has almost none (about (C_high - C_tis) width e^-(P_break - Pi)/width).
-    Pi, P_break, width in mmHg; compliances mL/mmHg per basis.
+    Measured from each subject's own curve (the break marks the end of the normally hydrated, low-compliance
+    range), not from a population reference Pi: a subject whose Pi lies below his break holds none.
+    Pi, P_break, width in mmHg; compliances mL/mmHg per basis. Continuous; the slope jumps at the break
+    from 0 to the compliance there.
     """
-    return (C_high - C_tis) * width * _softplus((Pi - P_break) / width, xp)
+    V = smooth_tissue_volume(Pi, C_tis, P_break, C_high, P_break, width, xp)
+    return xp.maximum(V, 0.0)
 
 
 def volume_lymph_flow(Pi: Array, L: Array, Pi_L0: Array, C_tis: Array | None = None, C_high: Array | None = None,
