@@ -99,8 +99,9 @@ CASES = {
     "interstitium.oedema_beyond_break": (interstitium.oedema_beyond_break, dict(
         Pi=u(-6, 10), C_tis=u(0.3, 2), C_high=u(3, 20), P_break=u(-2, 3))),
     "interstitium.volume_lymph_flow": (
-        lambda Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=np: dict(zip(("JL", "slope"), interstitium.volume_lymph_flow(
-            Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp), strict=True)),
+        lambda Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=np: dict(zip(
+            ("JL", "slope"), interstitium.volume_lymph_flow(Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp),
+            strict=True)),
         dict(Pi=u(-6, 10), L=u(0.001, 0.05), Pi_L0=u(-6, -1), C_tis=u(0.3, 2), C_high=u(3, 20), P_break=u(-1, 3),
              JL_max=u(0.01, 0.3))),
     "interstitium.volume_lymph_flow[linear]": (

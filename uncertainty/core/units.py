@@ -33,7 +33,8 @@ CANONICAL: dict[str, str] = {
     # pressures (mmHg)
     "Pc": "mmHg", "Pi": "mmHg", "pi_c": "mmHg", "pi_i": "mmHg", "pi_g": "mmHg",
     "Pa": "mmHg", "Pv": "mmHg", "Pvi": "mmHg", "LAP": "mmHg", "PAP": "mmHg",
-    "Pi_L0": "mmHg", "Pi_break": "mmHg", "P_flood": "mmHg", "safety_margin": "mmHg", "net_pressure": "mmHg", "Pcuff": "mmHg",
+    "Pi_L0": "mmHg", "Pi_break": "mmHg", "P_flood": "mmHg", "safety_margin": "mmHg", "net_pressure": "mmHg",
+    "Pcuff": "mmHg",
     "Pgc": "mmHg", "Pbs": "mmHg", "pi_bs": "mmHg", "pi_e": "mmHg", "dP": "mmHg",
     "bias": "mmHg", "osmotic_pressure": "mmHg",
     # dimensionless

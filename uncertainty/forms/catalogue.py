@@ -441,13 +441,14 @@ GLOMERULAR_KINDS = FORMS["glomerular"].observation_kinds
 # ---- study vocabulary that is not per form
 
 #: Quantities that are results, never inputs.
-OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "flooding", "safety_margin", "Jv_organ", "GFR", "ratio", "volume",
-                         "swelling_rate", "time", "tissue_mass", "density", "osmotic_pressure"})
+OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "flooding", "safety_margin",
+                         "Jv_organ", "GFR", "ratio", "volume", "swelling_rate", "time", "tissue_mass", "density",
+                         "osmotic_pressure"})
 
 #: Display order of inputs (others follow alphabetically).
 INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C_alb", "C_glob", "pi_i",
-               "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0", "JL_max",
-               "G_flood", "P_flood")
+               "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0",
+               "JL_max", "G_flood", "P_flood")
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "

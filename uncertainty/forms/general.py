@@ -20,7 +20,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 
 from uncertainty.forms.spec import Array, FormContext, FormResult, Starling
-from uncertainty.physiology import balance, interstitium, lung, mucosa, starling
+from uncertainty.physiology import balance, interstitium, mucosa, starling
 
 Volume = Callable[[Array, Mapping[str, Array], FormContext, object], dict[str, Array]]
 
