@@ -268,7 +268,7 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
     def step(_i: Array, lo: Array, hi: Array, *p: Array) -> tuple[Array, Array]:
         b, t, c = unpack(p)
         mid = 0.5 * (lo + hi)
-        g, _ = _safety_residual(mid, *b, t, c, xp)
+        g, _ = _safety_residual(mid, b[0], b[1], b[2], b[3], b[4], b[5], b[6], t, c, xp)
         pos = g > 0
         return xp.where(pos, mid, lo), xp.where(pos, hi, mid)
 
