@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 from uncertainty.forms.evaluate import OUTPUT_UNITS, evaluate, required_inputs
+from uncertainty.forms.general import SAFETY_INPUTS
 from uncertainty.study import Study
 
 
@@ -21,6 +22,13 @@ def _study(model: str = "classic", tissue: str = "skeletal_muscle", **extra) -> 
     doc = {"study": {"tissue": tissue, "model": model, **extra.pop("head", {})}}
     doc.update(extra)
     return Study.from_dict(doc)
+
+
+def _linear(study: Study) -> Study:
+    """The study without the safety factors (compliance break, JL_max): the linear lymph line."""
+    for k in SAFETY_INPUTS:
+        study.priors.pop(k, None)
+    return study
 
 
 def _medians(study: Study) -> dict[str, float]:
@@ -60,7 +68,7 @@ def test_lung_pc_from_gaar() -> None:
 
 @pytest.mark.parametrize("model", ["steady_state", "revised"])
 def test_steady_forms_balance_fluid_and_protein(model: str) -> None:
-    s = _study(model)
+    s = _linear(_study(model))
     assert "Pi" not in s.priors and "pi_i" not in s.priors
     from uncertainty.analyses.sampling import draw
 
@@ -146,9 +154,44 @@ def test_output_units_cover_outputs_and_required_inputs() -> None:
 
 
 def test_oedema_volume_uses_reference_pi() -> None:
-    s = _study("steady_state")
+    s = _linear(_study("steady_state"))
     v = _medians(s)
     out = evaluate(s, v)
     assert s.Pi_ref == pytest.approx(-1.0)  # skeletal_muscle Pi prior median (priors/skeletal_muscle.toml)
     assert out["oedema_volume"] == pytest.approx(v["C_tis"] * (out["Pi"] - s.Pi_ref))
     assert math.isfinite(out["oedema_volume"])
+
+
+@pytest.mark.parametrize("model", ["steady_state", "revised"])
+def test_safety_factor_steady_state_balances_fluid_and_protein(model: str) -> None:
+    """With the muscle set's safety factors: lymph (volume-driven, capped at JL_max) equals Jv, the Patlak
+    ratio holds at the solved Jv, Starling holds with the solved pressures, and Jv never exceeds JL_max."""
+    from uncertainty.analyses.sampling import draw
+    from uncertainty.physiology.interstitium import volume_lymph_flow
+
+    s = _study(model)
+    assert {"C_tis_high", "Pi_break", "JL_max"} <= set(s.priors)
+    v = draw(s, 256, method="mc", seed=11, layer="typical")
+    out = evaluate(s, v)
+    jv, pi = out["Jv"], out["Pi"]
+    jl, _ = volume_lymph_flow(pi, v["L"], v["Pi_L0"], v["C_tis"], v["C_tis_high"], v["Pi_break"], v["JL_max"])
+    np.testing.assert_allclose(jl, jv, rtol=1e-8, atol=1e-12)
+    assert np.all(jv <= v["JL_max"] * (1 + 1e-12))
+    pe = jv * (1 - v["sigma"]) / v["PS"]
+    np.testing.assert_allclose(out["ratio"], (1 - v["sigma"]) / (1 - v["sigma"] * np.exp(-pe)), rtol=1e-6)
+    opposing = out["pi_g"] if model == "revised" else out["pi_i"]
+    np.testing.assert_allclose(jv, v["Kf"] * ((out["Pc"] - pi) - v["sigma"] * (out["pi_c"] - opposing)),
+                               rtol=1e-8, atol=1e-12)
+    assert set(out) == set(s.outputs()) and "safety_margin" in out
+
+
+def test_oedema_is_measured_from_the_subjects_own_curve() -> None:
+    """A normally hydrated subject (Pi below the break of his pressure-volume curve) holds no oedema, whatever
+    the population's reference Pi; venous congestion (+20 mmHg) gives oedema and uses up the safety margin."""
+    s = _study("steady_state")
+    v = _medians(s)
+    out = evaluate(s, v)
+    assert out["Pi"] < v["Pi_break"] and out["oedema_volume"] == 0.0 and out["safety_margin"] > 0
+    c = _study("steady_state", head={"conditions": ["venous_congestion"]})
+    oc = evaluate(c, _medians(c))
+    assert oc["Pi"] > v["Pi_break"] and oc["oedema_volume"] > 0 and oc["safety_margin"] < 0

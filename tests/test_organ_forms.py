@@ -19,6 +19,7 @@ from uncertainty.analyses.propagate import propagate
 from uncertainty.app.cli import main
 from uncertainty.core.errors import StudyError
 from uncertainty.forms.evaluate import evaluate, required_inputs
+from uncertainty.forms.general import SAFETY_INPUTS
 from uncertainty.physiology import lung, mucosa
 from uncertainty.study import Study
 
@@ -102,6 +103,8 @@ def test_lung_water_is_an_output_of_the_steady_forms(model):
     s = _study("lung", model)
     assert {"EVLW", "oedema_volume", "Pc"} <= set(s.outputs()) and "EVLW0" in s.names
     assert "EVLW" not in _study("skeletal_muscle", model).outputs()
+    for k in SAFETY_INPUTS:  # the linear lung of this closed form: without the safety factors
+        s.priors.pop(k, None)
     rng = np.random.default_rng(7)
     v = {k: p.median() * rng.uniform(0.8, 1.2, 16) for k, p in s.priors.items()}
     out = evaluate(s, v)
@@ -129,3 +132,25 @@ def test_left_heart_failure_raises_lung_water_and_pc_follows_gaar():
         # (priors/lung.toml); left-sided failure shifts them by +12 and +14 mmHg (priors/conditions.toml)
         for r, lap, pap in ((b, 8.0, 14.0), (h, 20.0, 28.0)):
             assert abs(r["Pc"].mean - (lap + 0.4 * (pap - lap))) < 5 * r["Pc"].mc_se["mean"] + 1e-9, layer
+
+
+@pytest.mark.parametrize("model", ["steady_state", "revised"])
+def test_lung_safety_factors_match_the_physiology_function(model):
+    """With the lung set's safety factors (compliance break, JL_max, alveolar flooding) the form gives the
+    numbers of physiology.lung.lung_water, and a normally hydrated lung holds no oedema."""
+    s = _study("lung", model)
+    assert {"flooding", "safety_margin"} <= set(s.outputs())
+    rng = np.random.default_rng(11)
+    v = {k: p.median() * rng.uniform(0.8, 1.2, 16) for k, p in s.priors.items()}
+    for k in ("Pi_break", "P_flood"):  # pressures: spread around their median additively
+        v[k] = s.priors[k].median() + rng.uniform(-1.0, 1.0, 16)
+    out = evaluate(s, v)
+    ref = lung.lung_water(v["Kf"], v["LAP"], v["PAP"], v["sigma"], v["PS"], out["pi_c"], v["L"], v["Pi_L0"],
+                          v["C_tis"], s.Pi_ref, v["EVLW0"], Cp=v["Cp"], revised=model == "revised",
+                          C_high=v["C_tis_high"], P_break=v["Pi_break"], JL_max=v["JL_max"],
+                          G_flood=v["G_flood"], P_flood=v["P_flood"])
+    for k in ("Jv", "Pi", "oedema_volume", "EVLW", "flooding"):
+        np.testing.assert_allclose(out[k], ref[k], rtol=1e-12, atol=1e-12, err_msg=k)
+    # at LAP 8 / PAP 14 the lung sits below its break: no oedema, no flooding (by construction of the curve)
+    low = out["Pi"] < v["Pi_break"]
+    assert low.any() and np.all(out["oedema_volume"][low] == 0.0)

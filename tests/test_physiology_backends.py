@@ -90,7 +90,72 @@ CASES = {
     "balance.oncotic_from_ratio[proportional]": (
         lambda R, pi_c: dict(zip(("pi", "dpi_dR"), balance.oncotic_from_ratio(R, pi_c, None), strict=True)),
         dict(R=u(0.05, 1), pi_c=u(18, 32))),
+    # safety factors of the steady forms (smooth compliance break, volume-driven lymph, overflow)
+    "interstitium.smooth_tissue_volume": (interstitium.smooth_tissue_volume, dict(
+        Pi=u(-6, 10), C_tis=u(0.3, 2), Pi_ref=u(-4, 0), C_high=u(3, 20), P_break=u(-2, 3), width=u(0.2, 1))),
+    "interstitium.tissue_compliance": (interstitium.tissue_compliance, dict(
+        Pi=np.r_[u(-6, 10)[:-2], -400.0, 400.0], C_tis=u(0.3, 2), C_high=u(3, 20), P_break=u(-2, 3),
+        width=u(0.2, 1))),
+    "interstitium.oedema_beyond_break": (interstitium.oedema_beyond_break, dict(
+        Pi=u(-6, 10), C_tis=u(0.3, 2), C_high=u(3, 20), P_break=u(-2, 3))),
+    "interstitium.volume_lymph_flow": (
+        lambda Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=np: dict(zip(
+            ("JL", "slope"), interstitium.volume_lymph_flow(Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp),
+            strict=True)),
+        dict(Pi=u(-6, 10), L=u(0.001, 0.05), Pi_L0=u(-6, -1), C_tis=u(0.3, 2), C_high=u(3, 20), P_break=u(-1, 3),
+             JL_max=u(0.01, 0.3))),
+    "interstitium.volume_lymph_flow[linear]": (
+        lambda Pi, L, Pi_L0, xp=np: interstitium.volume_lymph_flow(Pi, L, Pi_L0, xp=xp)[0],
+        dict(Pi=u(-6, 10), L=u(0.001, 0.05), Pi_L0=u(-6, -1))),
+    "interstitium.overflow": (
+        lambda Pi, G, P_over, xp=np: dict(zip(("J", "slope"), interstitium.overflow(Pi, G, P_over, xp=xp),
+                                              strict=True)),
+        dict(Pi=u(-6, 10), G=u(0.1, 3), P_over=u(0, 5))),
+    "balance.safety_steady_state": (
+        lambda Kf, Pc, sigma, PS, pi_c, L, Pi_L0, C_tis, C_high, P_break, JL_max, G, P_fl, xp=np:
+        balance.safety_steady_state(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, C_tis=C_tis, C_high=C_high,
+                                    P_break=P_break, JL_max=JL_max, G_flood=G, P_flood=P_fl, xp=xp),
+        dict(Kf=u(0.002, 0.05), Pc=np.r_[u(8, 45)[:-1], -8.0], sigma=u(0.6, 0.95), PS=u(0.001, 0.03),
+             pi_c=u(15, 30), L=u(0.002, 0.02), Pi_L0=u(-6, -1), C_tis=u(0.3, 2), C_high=u(3, 10),
+             P_break=u(-1, 2), JL_max=u(0.03, 0.5), G=u(0.3, 2), P_fl=u(2, 5))),
+    "balance.safety_steady_state[revised, Cp]": (
+        lambda Kf, Pc, sigma, PS, pi_c, L, Pi_L0, C_tis, C_high, P_break, JL_max, PS_large, Cp, xp=np:
+        balance.safety_steady_state(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, C_tis=C_tis, C_high=C_high,
+                                    P_break=P_break, JL_max=JL_max, PS_large=PS_large, revised=True, Cp=Cp, xp=xp),
+        dict(Kf=u(0.002, 0.01), Pc=u(8, 45), sigma=u(0.6, 0.95), PS=u(0.001, 0.01), pi_c=u(15, 30),
+             L=u(0.002, 0.02), Pi_L0=u(-6, -1), C_tis=u(0.3, 2), C_high=u(3, 10), P_break=u(-1, 2),
+             JL_max=u(0.03, 0.5), PS_large=u(0, 0.002), Cp=u(4, 8))),
+    "balance.safety_margin": (
+        lambda Kf, Pc, sigma, PS, pi_c, L, Pi_L0, P_accel, C_tis, C_high, JL_max, xp=np: balance.safety_margin(
+            Kf, Pc, sigma, PS, pi_c, L, Pi_L0, P_accel, C_tis=C_tis, C_high=C_high, P_break=P_accel,
+            JL_max=JL_max, xp=xp),
+        dict(Kf=u(0.002, 0.05), Pc=u(8, 45), sigma=u(0.6, 0.95), PS=u(0.001, 0.03), pi_c=u(15, 30),
+             L=u(0.002, 0.02), Pi_L0=u(-6, -1), P_accel=u(-1, 4), C_tis=u(0.3, 2), C_high=u(3, 10),
+             JL_max=u(0.03, 0.5))),
 }
+
+
+def test_safety_steady_state_gradient_is_the_implicit_one():
+    """PyTensor gradients of the safety-factor steady state (bisection + one Newton step) against central
+    differences of the numpy solution."""
+    names = ("Kf", "Pc", "PS", "C_high", "JL_max")
+    base = dict(Kf=0.004, Pc=30.0, sigma=0.9, PS=0.003, pi_c=25.0, L=0.003, Pi_L0=-3.0, C_tis=1.4,
+                C_high=7.0, P_break=0.0, JL_max=0.05)
+
+    def solve(xp, **kw):
+        a = {**base, **kw}
+        return balance.safety_steady_state(a["Kf"], a["Pc"], a["sigma"], a["PS"], a["pi_c"], a["L"], a["Pi_L0"],
+                                           C_tis=a["C_tis"], C_high=a["C_high"], P_break=a["P_break"],
+                                           JL_max=a["JL_max"], xp=xp)
+
+    sym = {n: pt.dscalar(n) for n in names}
+    out = solve(pt, **sym)
+    f = pytensor.function(list(sym.values()), pytensor.grad(out["Pi"], list(sym.values())))
+    grads = f(*[base[n] for n in names])
+    for n, g in zip(names, grads, strict=True):
+        h = 1e-6 * abs(base[n])
+        fd = (solve(np, **{n: base[n] + h})["Pi"] - solve(np, **{n: base[n] - h})["Pi"]) / (2 * h)
+        np.testing.assert_allclose(g, fd, rtol=1e-5, err_msg=n)
 
 # Functions that are documented as numpy only (labels, root finding, ODEs, regressions).
 NUMPY_ONLY = {"starling.direction", "oncotic.protein_from_pi", "interstitium.volume_time_course_ode",

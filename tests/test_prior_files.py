@@ -34,11 +34,14 @@ SYMBOLS = {
     "RPF",  # renal plasma flow, an input of the glomerular form (issue 8)
     "J_epi",  # epithelial fluid into the mucosal interstitium, revised form of the intestinal mucosa
     "EVLW0",  # extravascular lung water at the reference Pi, steady lung forms (physiology.lung)
+    # safety factors of the steady forms (issue 15 item 1): compliance past the break of the pressure-volume
+    # curve, the break pressure, and in the lung the alveolar flooding pressure and conductance
+    "C_tis_high", "Pi_break", "P_flood", "G_flood",
 }
 
 #: Quantities that may be negative (DESIGN.md section 4: "Negative pressures are valid where the
 #: physiology allows them (Pi)"); Pi_L0 is an interstitial pressure too.
-MAY_BE_NEGATIVE = {"Pi", "Pi_L0"}
+MAY_BE_NEGATIVE = {"Pi", "Pi_L0", "Pi_break", "P_flood"}
 
 #: Positive scale quantities that DESIGN/issue 3 want lognormal (or fixed).
 LOGNORMAL = {"Kf", "PS", "C_tis", "L"}

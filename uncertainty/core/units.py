@@ -33,7 +33,8 @@ CANONICAL: dict[str, str] = {
     # pressures (mmHg)
     "Pc": "mmHg", "Pi": "mmHg", "pi_c": "mmHg", "pi_i": "mmHg", "pi_g": "mmHg",
     "Pa": "mmHg", "Pv": "mmHg", "Pvi": "mmHg", "LAP": "mmHg", "PAP": "mmHg",
-    "Pi_L0": "mmHg", "Pi_break": "mmHg", "net_pressure": "mmHg", "Pcuff": "mmHg",
+    "Pi_L0": "mmHg", "Pi_break": "mmHg", "P_flood": "mmHg", "safety_margin": "mmHg", "net_pressure": "mmHg",
+    "Pcuff": "mmHg",
     "Pgc": "mmHg", "Pbs": "mmHg", "pi_bs": "mmHg", "pi_e": "mmHg", "dP": "mmHg",
     "bias": "mmHg", "osmotic_pressure": "mmHg",
     # dimensionless
@@ -48,7 +49,7 @@ CANONICAL: dict[str, str] = {
     "J_epi": "mL/min/100g",
     "PS": "mL/min/100g",
     "C_tis": "mL/mmHg/100g", "C_tis_high": "mL/mmHg/100g", "C_v": "mL/mmHg/100g",
-    "L": "mL/min/mmHg/100g",
+    "L": "mL/min/mmHg/100g", "G_flood": "mL/min/mmHg/100g", "flooding": "mL/min/100g",
     "volume": "mL/100g", "oedema_volume": "mL/100g", "V_dist": "mL/100g", "EVLW": "mL/100g", "EVLW0": "mL/100g",
     # whole-organ quantities
     "GFR": "mL/min", "RPF": "mL/min", "Kf_organ": "mL/min/mmHg", "Jv_organ": "mL/min",

@@ -40,12 +40,19 @@ WHOLE_TISSUE_OUTPUTS = (
 
 _VOLUME_NEEDS = ("C_tis", PI_REF)
 _STEADY_OUTPUTS = (Output("Pi", "mmHg"), Output("pi_i", "mmHg"), Output("ratio", "1"),
-                   Output("JL", "mL/min/100g"), Output("oedema_volume", "mL/100g", _VOLUME_NEEDS))
+                   Output("JL", "mL/min/100g"), Output("oedema_volume", "mL/100g", _VOLUME_NEEDS),
+                   Output("safety_margin", "mmHg", ("Pi_break",)))
+#: The safety factors of the steady forms (``general.SAFETY_INPUTS``): the break of the pressure-volume
+#: curve (C_tis_high above Pi_break) and the lymph capacity JL_max.
+_SAFETY_OPTIONAL = ("C_tis", "C_tis_high", "Pi_break", "JL_max")
 
 
 def _lung(evaluate: FormFunction) -> TissueExtras:
     """The steady forms in the lung: EVLW0 (mL/100g) in, the extravascular lung water EVLW out."""
-    return TissueExtras(optional=("EVLW0",), outputs=(Output("EVLW", "mL/100g", _VOLUME_NEEDS),), evaluate=evaluate)
+    return TissueExtras(optional=("EVLW0", "G_flood", "P_flood"),
+                        outputs=(Output("EVLW", "mL/100g", _VOLUME_NEEDS),
+                                 Output("flooding", "mL/min/100g", ("G_flood", "P_flood"))),
+                        evaluate=evaluate)
 
 
 #: The model forms (``[study] model``), in display order.
@@ -62,7 +69,7 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
         summary="Pi and pi_i solved from the lymph and protein balance",
         evaluate=general.steady_state,
         required=("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0"),
-        optional=("C_tis", "C_tis_high", "Pi_break"),
+        optional=_SAFETY_OPTIONAL,
         solved=("Pi", "pi_i", "pi_g"),
         outputs=_STEADY_OUTPUTS,
         per_tissue={"lung": _lung(general.steady_state_lung)},
@@ -72,13 +79,13 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
         summary="glycocalyx filter, pi_g solved",
         evaluate=general.revised,
         required=("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0"),
-        optional=("C_tis", "C_tis_high", "Pi_break", "PS_large"),
+        optional=(*_SAFETY_OPTIONAL, "PS_large"),
         solved=("Pi", "pi_i", "pi_g"),
         outputs=(Output("pi_g", "mmHg"), *_STEADY_OUTPUTS),
         per_tissue={
             "lung": _lung(general.revised_lung),
             # the absorbing mucosa: epithelial fluid J_epi, no large-pore route (physiology.mucosa)
-            "intestinal_mucosa": TissueExtras(inputs=("J_epi",), unused=("PS_large",),
+            "intestinal_mucosa": TissueExtras(inputs=("J_epi",), unused=("PS_large", "JL_max"),
                                               evaluate=general.absorbing_revised),
         },
     ),
@@ -434,12 +441,14 @@ GLOMERULAR_KINDS = FORMS["glomerular"].observation_kinds
 # ---- study vocabulary that is not per form
 
 #: Quantities that are results, never inputs.
-OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "Jv_organ", "GFR", "ratio", "volume",
-                         "swelling_rate", "time", "tissue_mass", "density", "osmotic_pressure"})
+OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "flooding", "safety_margin",
+                         "Jv_organ", "GFR", "ratio", "volume", "swelling_rate", "time", "tissue_mass", "density",
+                         "osmotic_pressure"})
 
 #: Display order of inputs (others follow alphabetically).
 INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C_alb", "C_glob", "pi_i",
-               "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "L", "Pi_L0", "JL_max")
+               "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0",
+               "JL_max", "G_flood", "P_flood")
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "

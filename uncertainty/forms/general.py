@@ -20,7 +20,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 
 from uncertainty.forms.spec import Array, FormContext, FormResult, Starling
-from uncertainty.physiology import balance, interstitium, lung, mucosa, starling
+from uncertainty.physiology import balance, interstitium, mucosa, starling
 
 Volume = Callable[[Array, Mapping[str, Array], FormContext, object], dict[str, Array]]
 
@@ -44,23 +44,60 @@ def _Cp(v: Mapping[str, Array], ctx: FormContext) -> Array | None:
 
 
 def oedema(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Array]:
-    """``oedema_volume`` (mL/100g): interstitial volume at the solved Pi (mmHg) above that at the
-    tissue's reference Pi (``physiology.interstitium.oedema_volume``; two-slope compliance when
-    C_tis_high and Pi_break are inputs); empty without C_tis or a reference Pi."""
+    """``oedema_volume`` (mL/100g). With the break of the pressure-volume curve (C_tis_high and Pi_break
+    inputs): the volume each subject's own interstitium holds beyond its normally hydrated state
+    (``physiology.interstitium.oedema_beyond_break``; near 0 for a normally hydrated subject). Without
+    them: the volume at the solved Pi (mmHg) above that at the tissue's reference Pi
+    (``physiology.interstitium.oedema_volume``). Empty without C_tis or a reference Pi."""
     if "C_tis" not in v or ctx.Pi_ref is None:
         return {}
+    if "C_tis_high" in v and "Pi_break" in v:
+        return {"oedema_volume": interstitium.oedema_beyond_break(Pi, v["C_tis"], v["C_tis_high"], v["Pi_break"],
+                                                                  xp=xp)}
     return {"oedema_volume": interstitium.oedema_volume(Pi, ctx.Pi_ref, v["C_tis"], v.get("C_tis_high"),
                                                         v.get("Pi_break"), xp=xp)}
 
 
 def lung_water(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Array]:
-    """``oedema_volume`` and ``EVLW`` (mL/100g, ``physiology.lung.extravascular_water``; EVLW0 the
-    water at the reference Pi, 0 when not an input); empty without C_tis or a reference Pi."""
-    if "C_tis" not in v or ctx.Pi_ref is None:
+    """``oedema_volume`` (as :func:`oedema`) and ``EVLW`` = EVLW0 + oedema_volume (mL/100g; EVLW0 the water
+    of the normally hydrated lung, 0 when not an input); empty without C_tis or a reference Pi."""
+    got = oedema(Pi, v, ctx, xp)
+    if not got:
         return {}
-    water = lung.extravascular_water(Pi, ctx.Pi_ref, v["C_tis"], v.get("EVLW0", 0.0), C_high=v.get("C_tis_high"),
-                                     P_break=v.get("Pi_break"), xp=xp)
-    return {"oedema_volume": water["oedema_volume"], "EVLW": water["EVLW"]}
+    return {"oedema_volume": got["oedema_volume"], "EVLW": v.get("EVLW0", 0.0) + got["oedema_volume"]}
+
+
+#: Inputs that switch the steady forms to the safety-factor steady state (``balance.safety_steady_state``).
+SAFETY_INPUTS = ("C_tis_high", "Pi_break", "JL_max", "G_flood", "P_flood")
+
+
+def _safety(v: Mapping[str, Array]) -> bool:
+    return any(k in v for k in SAFETY_INPUTS)
+
+
+def _solve(v: Mapping[str, Array], ctx: FormContext, xp: object, revised: bool) -> dict[str, Array]:
+    """The steady state: with any safety input, ``balance.safety_steady_state`` (compliance break,
+    volume-driven lymph saturating at JL_max, alveolar flooding); else the classic solvers."""
+    if _safety(v):
+        return balance.safety_steady_state(
+            *_args(v), C_tis=v.get("C_tis"), C_high=v.get("C_tis_high"), P_break=v.get("Pi_break"),
+            JL_max=v.get("JL_max"), G_flood=v.get("G_flood"), P_flood=v.get("P_flood"),
+            PS_large=v.get("PS_large") if revised else None, revised=revised, Cp=_Cp(v, ctx), xp=xp)
+    if revised:
+        return balance.revised_steady_state(*_args(v), v.get("PS_large", 0.0), Cp=_Cp(v, ctx), xp=xp)
+    return balance.steady_state(*_args(v), Cp=_Cp(v, ctx), xp=xp)
+
+
+def margin(v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Array]:
+    """``safety_margin`` (mmHg): the rise of Pc the subject tolerates before oedema accelerates
+    (``balance.safety_margin``): before Pi reaches the alveolar flooding pressure P_flood in the lung,
+    the break Pi_break of the pressure-volume curve elsewhere. Empty without either."""
+    P_accel = v.get("P_flood", v.get("Pi_break"))
+    if P_accel is None:
+        return {}
+    return {"safety_margin": balance.safety_margin(
+        *_args(v), P_accel, C_tis=v.get("C_tis"), C_high=v.get("C_tis_high"), P_break=v.get("Pi_break"),
+        JL_max=v.get("JL_max"), Cp=_Cp(v, ctx), xp=xp)}
 
 
 def _steady_result(res: Mapping[str, Array], pi_o: Array, v: Mapping[str, Array], ctx: FormContext, xp: object,
@@ -68,19 +105,28 @@ def _steady_result(res: Mapping[str, Array], pi_o: Array, v: Mapping[str, Array]
     Jv, Pi = res["Jv"], res["Pi"]
     out: dict[str, Array] = {"Jv": Jv, **first, "Pi": Pi, "pi_i": res["pi_i"], "ratio": res["ratio"],
                              "JL": res.get("JL", Jv)}  # lymph balance: JL = Jv, or Jv + J_epi (mucosa)
-    out.update(volume(Pi, v, ctx, xp))
+    got = volume(Pi, v, ctx, xp)
+    if "oedema_volume" in got:
+        out["oedema_volume"] = got["oedema_volume"]
+    out.update(margin(v, ctx, xp))
+    if "EVLW" in got:
+        out["EVLW"] = got["EVLW"]
+    if "G_flood" in v and "P_flood" in v:
+        out["flooding"] = res["flooding"]
     return FormResult(out, Starling(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"]))
 
 
 def steady_state(v: Mapping[str, Array], ctx: FormContext, xp: object, volume: Volume = oedema) -> FormResult:
-    """Coupled steady state (``balance.steady_state``): Jv, Pi, pi_i, ratio, JL = Jv and the volume."""
-    res = balance.steady_state(*_args(v), Cp=_Cp(v, ctx), xp=xp)
+    """Coupled steady state (``balance.steady_state``, or ``balance.safety_steady_state`` when the study has
+    the safety-factor inputs): Jv, Pi, pi_i, ratio, JL, the oedema volume and the safety margin."""
+    res = _solve(v, ctx, xp, revised=False)
     return _steady_result(res, res["pi_i"], v, ctx, xp, volume, {})
 
 
 def revised(v: Mapping[str, Array], ctx: FormContext, xp: object, volume: Volume = oedema) -> FormResult:
-    """Glycocalyx steady state (``balance.revised_steady_state``; PS_large 0 when not an input)."""
-    res = balance.revised_steady_state(*_args(v), v.get("PS_large", 0.0), Cp=_Cp(v, ctx), xp=xp)
+    """Glycocalyx steady state (``balance.revised_steady_state`` or, with the safety-factor inputs,
+    ``balance.safety_steady_state(revised=True)``; PS_large 0 when not an input)."""
+    res = _solve(v, ctx, xp, revised=True)
     return _steady_result(res, res["pi_g"], v, ctx, xp, volume, {"pi_g": res["pi_g"]})
 
 
@@ -92,10 +138,11 @@ def absorbing_revised(v: Mapping[str, Array], ctx: FormContext, xp: object) -> F
 
 
 def steady_state_lung(v: Mapping[str, Array], ctx: FormContext, xp: object) -> FormResult:
-    """``steady_state`` with the extravascular lung water (EVLW, mL/100g)."""
+    """``steady_state`` with the extravascular lung water (EVLW, mL/100g) and alveolar flooding
+    (``flooding``, mL/min/100g, with G_flood and P_flood)."""
     return steady_state(v, ctx, xp, volume=lung_water)
 
 
 def revised_lung(v: Mapping[str, Array], ctx: FormContext, xp: object) -> FormResult:
-    """``revised`` with the extravascular lung water (EVLW, mL/100g)."""
+    """``revised`` with the extravascular lung water (EVLW, mL/100g) and alveolar flooding."""
     return revised(v, ctx, xp, volume=lung_water)

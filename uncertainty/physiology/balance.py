@@ -49,6 +49,8 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.physiology.interstitium import overflow, volume_lymph_flow
+from uncertainty.physiology.iteration import fixed_steps
 from uncertainty.physiology.oncotic import pi_cubic, pi_cubic_slope
 from uncertainty.physiology.solute import ratio_and_slope, steady_state_ratio
 
@@ -164,3 +166,152 @@ def revised_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Ar
     pi_i, _ = oncotic_from_ratio(Ri, pi_c, Cp)
     return {"Jv": Jv, "Pi": _steady_pi(Jv, Pc, L, Pi_L0, xp), "pi_i": pi_i, "pi_g": pi_g, "ratio": Ri,
             "ratio_g": Rg}
+
+
+# --- steady state with the safety factors -------------------------------------------------------------
+
+BISECTION_STEPS = 48  # halvings of a bracket of at most a few hundred mmHg: below 1e-12 mmHg, then Newton
+
+
+def _safety_outflow(Pi: Array, L: Array, Pi_L0: Array, tissue: tuple[Array | None, ...], xp: Any
+                    ) -> tuple[Array, Array, Array, Array]:
+    """Lymph JL, overflow (flooding) Jf and their slopes d/dPi at Pi (mL/min, mL/min/mmHg per basis)."""
+    C_tis, C_high, P_break, JL_max, G_flood, P_flood = tissue
+    JL, dJL = volume_lymph_flow(Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp)
+    if G_flood is None or P_flood is None:
+        zero = 0.0 * Pi
+        return JL, zero, dJL, zero
+    Jf, dJf = overflow(Pi, G_flood, P_flood, xp=xp)
+    return JL, Jf, dJL, dJf
+
+
+def _safety_residual(Pi: Array, Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
+                     tissue: tuple[Array | None, ...], Cp: Array | None, xp: Any) -> tuple[Array, Array]:
+    """G(Pi) = Starling filtration at Pi minus the outflow (lymph + overflow) at Pi, and dG/dPi."""
+    JL, Jf, dJL, dJf = _safety_outflow(Pi, L, Pi_L0, tissue, xp)
+    J = JL + Jf
+    dJ = dJL + dJf
+    R, dR = ratio_and_slope(J, sigma, PS, xp)
+    pi_o, dpi_dR = oncotic_from_ratio(R, pi_c, Cp)
+    g = Kf * ((Pc - Pi) - sigma * (pi_c - pi_o)) - J
+    dg = Kf * (-1.0 + sigma * dpi_dR * dR * dJ) - dJ
+    return g, dg
+
+
+def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array, *,
+                        C_tis: Array | None = None, C_high: Array | None = None, P_break: Array | None = None,
+                        JL_max: Array | None = None, G_flood: Array | None = None, P_flood: Array | None = None,
+                        PS_large: Array | None = None, revised: bool = False, Cp: Array | None = None,
+                        xp: Any = np, n_steps: int = BISECTION_STEPS) -> dict[str, Array]:
+    """Coupled steady state with the three safety factors against oedema (Guyton's; Aukland & Reed 1993
+    Physiol Rev 73:1, from memory): interstitial pressure (compliance low until a break, several-fold higher
+    past it), lymph flow (driven by interstitial volume, saturating at JL_max) and protein washout (Patlak),
+    and optionally an overflow path (alveolar flooding in the lung: G_flood above P_flood).
+
+    Unknown Pi: filtration Kf [(Pc - Pi) - sigma (pi_c - pi_o)] equals the outflow J(Pi) = JL(Pi) + Jf(Pi)
+    (``interstitium.volume_lymph_flow`` and ``interstitium.overflow``), with pi_o the oncotic pressure of the
+    filtrate, Ci/Cp = R(J) (``solute.steady_state_ratio``). The residual falls monotonically in Pi, so the
+    root is bracketed by [Pi_L0, Pc] and found by ``n_steps`` bisection halvings (a fixed count: one
+    ``pytensor.scan`` on PyTensor), then one Newton step whose incoming iterate is cut from differentiation
+    (the PyTensor gradient is then the implicit-function gradient). Without C_high, P_break, JL_max and the
+    overflow this is the state of ``steady_state`` (linear lymph line). When Pc <= Pi_L0 no lymph flows:
+    Jv = 0, Pi = Pc, pi_i = pi_c (as ``steady_state``).
+
+    Parameters
+    ----------
+    Kf, L : array
+        Filtration coefficient and lymph conductance (mL/min/mmHg per basis).
+    Pc, pi_c, Pi_L0 : array
+        Capillary pressure, plasma oncotic pressure, zero-lymph pressure (mmHg).
+    sigma, PS : array
+        Reflection coefficient (1) and protein permeability-surface product (mL/min per basis).
+    C_tis, C_high, P_break : array, optional
+        Pressure-volume curve: compliances (mL/mmHg per basis) below and above the break P_break (mmHg).
+    JL_max : array, optional
+        Maximal lymph flow (mL/min per basis).
+    G_flood, P_flood : array, optional
+        Overflow conductance (mL/min/mmHg per basis) and the pressure at which it opens (mmHg).
+    PS_large : array, optional
+        With ``revised``: the diffusive large-pore route of ``revised_steady_state`` (mL/min per basis).
+    revised : bool
+        Glycocalyx reading (``revised_steady_state``): the filtrate's oncotic pressure is pi_g beneath the
+        glycocalyx; pi_i follows from the large-pore mixing.
+    Cp : array, optional
+        Plasma protein (g/dL) for the Landis-Pappenheimer scaling of pi_i (``oncotic_from_ratio``).
+    xp : module
+        numpy or pytensor.tensor.
+    n_steps : int
+        Bisection halvings.
+
+    Returns
+    -------
+    dict
+        ``Jv`` (mL/min per basis, = JL + flooding), ``Pi``, ``pi_i`` (mmHg), ``ratio`` (Ci/Cp), ``JL`` (lymph),
+        ``flooding`` (overflow, mL/min per basis; 0 without the overflow path), and with ``revised`` also
+        ``pi_g`` and ``ratio_g``.
+    """
+    tissue = (C_tis, C_high, P_break, JL_max, G_flood, P_flood)
+    present = [i for i, a in enumerate(tissue) if a is not None]
+    full = 0.0 * (Kf + Pc + sigma + PS + pi_c + L + Pi_L0)
+    lo0 = Pi_L0 + full
+    hi0 = xp.maximum(Pc + full, lo0)
+    base = [Kf + full, Pc + full, sigma + full, PS + full, pi_c + full, L + full, Pi_L0 + full]
+    extra = [tissue[i] + full for i in present]
+    cp = [] if Cp is None else [Cp + full]
+
+    def unpack(p: tuple[Array, ...]) -> tuple[list[Array], tuple[Array | None, ...], Array | None]:
+        t: list[Array | None] = [None] * 6
+        for k, i in enumerate(present):
+            t[i] = p[7 + k]
+        return list(p[:7]), tuple(t), (p[7 + len(present)] if Cp is not None else None)
+
+    def step(_i: Array, lo: Array, hi: Array, *p: Array) -> tuple[Array, Array]:
+        b, t, c = unpack(p)
+        mid = 0.5 * (lo + hi)
+        g, _ = _safety_residual(mid, b[0], b[1], b[2], b[3], b[4], b[5], b[6], t, c, xp)
+        pos = g > 0
+        return xp.where(pos, mid, lo), xp.where(pos, hi, mid)
+
+    lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp, params=tuple(base + extra + cp))
+    x = _stop_gradient(0.5 * (lo + hi), xp)
+    g, dg = _safety_residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, tissue, Cp, xp)
+    safe = xp.where(dg < 0, dg, -1.0)
+    x = x - g / safe
+    flowing = Pc - Pi_L0 + full > 0
+    Pi = xp.where(flowing, x, Pc + full)
+    JL, Jf, _, _ = _safety_outflow(Pi, L, Pi_L0, tissue, xp)
+    JL = xp.where(flowing, JL, full)
+    Jf = xp.where(flowing, Jf, full)
+    Jv = JL + Jf
+    R = steady_state_ratio(Jv, sigma, PS, xp)
+    pi_f, _ = oncotic_from_ratio(R, pi_c, Cp)
+    out = {"Jv": Jv, "Pi": Pi, "JL": JL, "flooding": Jf}
+    if not revised:
+        out.update({"pi_i": pi_f, "ratio": R})
+        return out
+    J = xp.maximum(Jv, 0.0)
+    PSl = 0.0 if PS_large is None else PS_large
+    den = J + PSl
+    Ri = 1.0 - J * (1.0 - R) / xp.where(den > 0, den, 1.0)
+    pi_i, _ = oncotic_from_ratio(Ri, pi_c, Cp)
+    out.update({"pi_i": pi_i, "ratio": Ri, "pi_g": pi_f, "ratio_g": R})
+    return out
+
+
+def safety_margin(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
+                  P_accel: Array, *, C_tis: Array | None = None, C_high: Array | None = None,
+                  P_break: Array | None = None, JL_max: Array | None = None, Cp: Array | None = None,
+                  xp: Any = np) -> Array:
+    """Safety margin (mmHg): how far Pc can rise before oedema accelerates, i.e. before the steady Pi
+    reaches P_accel (mmHg; the break of the pressure-volume curve, or in the lung the pressure at which
+    the alveoli flood).
+
+    At Pi = P_accel the outflow J* = JL(P_accel) (``interstitium.volume_lymph_flow``) and the filtrate
+    ratio R(J*) are known, so the capillary pressure that holds the steady state there is, in closed form,
+    Pc* = P_accel + sigma (pi_c - pi_o(R(J*))) + J*/Kf; the margin is Pc* - Pc (negative: already past it).
+    Other arguments and units as ``safety_steady_state``.
+    """
+    J, _ = volume_lymph_flow(P_accel, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp)
+    R = steady_state_ratio(J, sigma, PS, xp)
+    pi_o, _ = oncotic_from_ratio(R, pi_c, Cp)
+    return P_accel + sigma * (pi_c - pi_o) + J / Kf - Pc

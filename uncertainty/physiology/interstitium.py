@@ -95,6 +95,97 @@ def oedema_volume(Pi: Array, Pi_ref: Array, C_tis: Array, C_high: Array | None =
     return tissue_volume(Pi, C_tis, Pi_ref, C_high, P_break, xp)
 
 
+# --- smooth pressure-volume relation and volume-driven lymph (the safety factors) -------------------
+
+BREAK_WIDTH = 0.5  # mmHg: the bend of the smooth two-slope curve spans about +/- 3 widths (from memory:
+# Guyton's interstitial pressure-volume curves bend over 1-3 mmHg near atmospheric pressure, Guyton AC 1965
+# Circ Res 16:452; a shape parameter, not a measured value)
+
+
+def _softplus(x: Array, xp: Any) -> Array:
+    """log(1 + e^x), written so that it cannot overflow (numpy and PyTensor)."""
+    return xp.maximum(x, 0.0) + xp.log1p(xp.exp(-xp.abs(x)))
+
+
+def _sigmoid(x: Array, xp: Any) -> Array:
+    """1 / (1 + e^-x), the derivative of ``_softplus``, as (1 + tanh(x/2))/2 (no overflow, no branch, so
+    plain numbers work on PyTensor too)."""
+    return 0.5 * (1.0 + xp.tanh(0.5 * x))
+
+
+def smooth_tissue_volume(Pi: Array, C_tis: Array, Pi_ref: Array, C_high: Array, P_break: Array,
+                         width: Array = BREAK_WIDTH, xp: Any = np) -> Array:
+    """Interstitial volume (mL per basis) above that at Pi_ref on a smooth two-slope pressure-volume curve.
+
+    V(Pi) = C_tis (Pi - Pi_ref) + (C_high - C_tis) [s(Pi) - s(Pi_ref)], s(P) = width softplus((P - P_break)/width):
+    compliance C_tis well below the break pressure P_break and C_high well above it, bending over a few
+    ``width`` (the shape of Guyton's curves: low compliance in the normally hydrated, sub-atmospheric range,
+    several-fold higher once the gel is expanded; Guyton AC 1965 Circ Res 16:452, Wiig H, Reed RK 1981 Acta
+    Physiol Scand 113:297). Pressures and width in mmHg; compliances in mL/mmHg per basis. The sharp
+    ``tissue_volume`` is the limit width -> 0.
+    """
+    s = width * (_softplus((Pi - P_break) / width, xp) - _softplus((Pi_ref - P_break) / width, xp))
+    return C_tis * (Pi - Pi_ref) + (C_high - C_tis) * s
+
+
+def tissue_compliance(Pi: Array, C_tis: Array, C_high: Array, P_break: Array, width: Array = BREAK_WIDTH,
+                      xp: Any = np) -> Array:
+    """Interstitial compliance dV/dPi (mL/mmHg per basis) of ``smooth_tissue_volume`` at Pi (mmHg):
+    C_tis + (C_high - C_tis) / (1 + exp(-(Pi - P_break)/width))."""
+    return C_tis + (C_high - C_tis) * _sigmoid((Pi - P_break) / width, xp)
+
+
+def oedema_beyond_break(Pi: Array, C_tis: Array, C_high: Array, P_break: Array, width: Array = BREAK_WIDTH,
+                        xp: Any = np) -> Array:
+    """Oedema (mL per basis): the volume the interstitium holds at Pi beyond the break of its own
+    pressure-volume curve, max(V(Pi) - V(P_break), 0) with V of ``smooth_tissue_volume``.
+
+    Measured from each subject's own curve (the break marks the end of the normally hydrated, low-compliance
+    range), not from a population reference Pi: a subject whose Pi lies below his break holds none.
+    Pi, P_break, width in mmHg; compliances mL/mmHg per basis. Continuous; the slope jumps at the break
+    from 0 to the compliance there.
+    """
+    V = smooth_tissue_volume(Pi, C_tis, P_break, C_high, P_break, width, xp)
+    return xp.maximum(V, 0.0)
+
+
+def volume_lymph_flow(Pi: Array, L: Array, Pi_L0: Array, C_tis: Array | None = None, C_high: Array | None = None,
+                      P_break: Array | None = None, JL_max: Array | None = None, width: Array = BREAK_WIDTH,
+                      xp: Any = np) -> tuple[Array, Array]:
+    """Lymph flow (mL/min per basis) driven by interstitial volume, and its slope dJL/dPi (mL/min/mmHg per basis).
+
+    The initial lymphatics fill as the interstitium swells (anchoring filaments open them; Aukland K, Reed RK
+    1993 Physiol Rev 73:1, from memory), so lymph is taken to follow the volume above that at Pi_L0:
+    u = (L / C_tis) [V(Pi) - V(Pi_L0)] with V of ``smooth_tissue_volume``; in the normally hydrated range
+    u = L (Pi - Pi_L0), the linear lymph line. Past the break of the pressure-volume curve the same lymph rise
+    costs C_tis/C_high as much pressure: the compliance and lymph safety factors act together. With JL_max the
+    flow saturates, JL = JL_max tanh(u / JL_max) (the lymph pumps' capacity). Without C_high / P_break the
+    linear pressure relation is used; without JL_max no cap. Pressures mmHg, L mL/min/mmHg per basis.
+    """
+    if C_high is None or P_break is None or C_tis is None:
+        u = L * (Pi - Pi_L0)
+        du = L + 0.0 * Pi
+    else:
+        u = (L / C_tis) * smooth_tissue_volume(Pi, C_tis, Pi_L0, C_high, P_break, width, xp)
+        du = (L / C_tis) * tissue_compliance(Pi, C_tis, C_high, P_break, width, xp)
+    if JL_max is None:
+        return u, du
+    t = xp.tanh(u / JL_max)
+    return JL_max * t, du * (1.0 - t * t)
+
+
+def overflow(Pi: Array, G: Array, P_over: Array, width: Array = BREAK_WIDTH, xp: Any = np) -> tuple[Array, Array]:
+    """Flow (mL/min per basis) out of a full interstitium by a path that opens at P_over, and its slope.
+
+    G width softplus((Pi - P_over)/width): about G (Pi - P_over) once Pi exceeds P_over by a few widths,
+    negligible below it. In the lung this is alveolar flooding: when the interstitium is full the alveolar
+    walls give way and further filtrate floods the air spaces (Staub NC 1974 Physiol Rev 54:678, from
+    memory). G in mL/min/mmHg per basis, pressures in mmHg.
+    """
+    z = (Pi - P_over) / width
+    return G * width * _softplus(z, xp), G * _sigmoid(z, xp)
+
+
 # --- venous-cuff protocol ------------------------------------------------------------------------------
 
 def venous_pressure(P_cuff: Array, Pv0: Array, transmission: Array = TRANSMISSION, xp: Any = np,

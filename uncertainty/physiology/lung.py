@@ -20,9 +20,9 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.physiology.balance import revised_steady_state, steady_state
+from uncertainty.physiology.balance import revised_steady_state, safety_steady_state, steady_state
 from uncertainty.physiology.capillary import pulmonary_capillary_pressure
-from uncertainty.physiology.interstitium import oedema_volume
+from uncertainty.physiology.interstitium import oedema_beyond_break, oedema_volume
 
 Array = Any
 
@@ -31,31 +31,44 @@ def extravascular_water(Pi: Array, Pi_ref: Array, C_tis: Array, EVLW0: Array = 0
                         P_break: Array | None = None, xp: Any = np) -> dict[str, Array]:
     """Extravascular lung water (mL per basis) at a steady-state interstitial pressure Pi (mmHg).
 
-    ``oedema_volume``: interstitial water above that at the reference Pi_ref (mmHg), by
-    ``interstitium.oedema_volume`` (C_tis, optional two-slope C_high above P_break; mL/mmHg per basis, mmHg);
-    ``EVLW`` = EVLW0 (the water at Pi_ref, mL per basis) + oedema_volume.
+    ``oedema_volume``: with the break of the pressure-volume curve (C_high above P_break) the water held beyond
+    the break (``interstitium.oedema_beyond_break``, each subject's own curve); without it the interstitial water
+    above that at the reference Pi_ref (``interstitium.oedema_volume``, linear). C_tis and C_high in mL/mmHg per
+    basis, pressures mmHg. ``EVLW`` = EVLW0 (the water of the normally hydrated lung, mL per basis) + oedema_volume.
     """
-    extra = oedema_volume(Pi, Pi_ref, C_tis, C_high, P_break, xp=xp)
+    if C_high is not None and P_break is not None:
+        extra = oedema_beyond_break(Pi, C_tis, C_high, P_break, xp=xp)
+    else:
+        extra = oedema_volume(Pi, Pi_ref, C_tis, C_high, P_break, xp=xp)
     return {"oedema_volume": extra, "EVLW": EVLW0 + extra}
 
 
 def lung_water(Kf: Array, LAP: Array, PAP: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
                C_tis: Array, Pi_ref: Array, EVLW0: Array = 0.0, *, fraction: Array = 0.4,
-               C_high: Array | None = None, P_break: Array | None = None, Cp: Array | None = None,
+               C_high: Array | None = None, P_break: Array | None = None, JL_max: Array | None = None,
+               G_flood: Array | None = None, P_flood: Array | None = None, Cp: Array | None = None,
                revised: bool = False, xp: Any = np) -> dict[str, Array]:
     """Steady-state pulmonary exchange and extravascular lung water (EVLW).
 
     LAP, PAP: left atrial and mean pulmonary arterial pressure (mmHg); fraction: Gaar's 0.4 (1);
     Kf, sigma, PS, pi_c, L, Pi_L0 (and optional Cp) as ``balance.steady_state``; C_tis (mL/mmHg per
     basis) with optional two-slope C_high and P_break, and Pi_ref (mmHg, normally hydrated reference) as
-    ``interstitium.oedema_volume``; EVLW0 (mL per basis) the water at Pi_ref.
-    Returns dict ``Pc``, ``Jv``, ``Pi``, ``pi_i``, ``ratio``, ``JL`` (= Jv at steady state), ``oedema_volume``
-    (mL per basis above the reference), ``EVLW`` (EVLW0 + oedema_volume), ``tau`` (min, C_tis/(Kf + L),
-    linear model), and ``pi_g`` when ``revised``.
+    ``extravascular_water``; EVLW0 (mL per basis) the water of the normally hydrated lung. With any of
+    C_high/P_break, JL_max (mL/min per basis), G_flood (mL/min/mmHg per basis) and P_flood (mmHg) the steady
+    state has the safety factors and alveolar flooding (``balance.safety_steady_state``).
+    Returns dict ``Pc``, ``Jv``, ``Pi``, ``pi_i``, ``ratio``, ``JL`` (lymph), ``flooding`` (mL/min per basis into
+    the alveoli; 0 without the overflow), ``oedema_volume``, ``EVLW``, ``tau`` (min, C_tis/(Kf + L), linear
+    model), and ``pi_g`` when ``revised``.
     """
     Pc = pulmonary_capillary_pressure(LAP, PAP, fraction)
-    solve = revised_steady_state if revised else steady_state
-    out = dict(solve(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp=Cp, xp=xp))
+    if any(a is not None for a in (C_high, P_break, JL_max, G_flood, P_flood)):
+        out = dict(safety_steady_state(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, C_tis=C_tis, C_high=C_high,
+                                       P_break=P_break, JL_max=JL_max, G_flood=G_flood, P_flood=P_flood,
+                                       revised=revised, Cp=Cp, xp=xp))
+    else:
+        solve = revised_steady_state if revised else steady_state
+        out = dict(solve(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp=Cp, xp=xp))
+        out.update({"JL": out["Jv"], "flooding": 0.0 * out["Jv"]})
     out.update(extravascular_water(out["Pi"], Pi_ref, C_tis, EVLW0, C_high=C_high, P_break=P_break, xp=xp))
-    out.update({"Pc": Pc, "JL": out["Jv"], "tau": C_tis / (Kf + L)})
+    out.update({"Pc": Pc, "tau": C_tis / (Kf + L)})
     return out
