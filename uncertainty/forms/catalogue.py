@@ -432,11 +432,6 @@ TISSUE_OUTPUTS: dict[tuple[str, str], tuple[str, ...]] = {
 #: Quantities a form solves (never sampled there).
 SOLVED: dict[str, tuple[str, ...]] = {n: s.solved for n, s in FORMS.items()}
 
-# Transitional, for callers not yet switched (study/resolve.py on the study branch): use
-# forms_predicting(kind) and form(name).outputs instead. Remove once nothing imports them.
-GLOMERULAR_OUTPUTS = [o.name for o in FORMS["glomerular"].outputs]
-GLOMERULAR_KINDS = FORMS["glomerular"].observation_kinds
-
 
 # ---- study vocabulary that is not per form
 
