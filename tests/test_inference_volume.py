@@ -242,7 +242,9 @@ def test_simulated_subjects_recovered_with_default_gate():
     pvi = np.array([10.0, 14.0, 18.0, 22.0])           # mmHg, invented truths
     cv = np.array([0.035, 0.045, 0.050, 0.040])        # mL/mmHg/100 mL, invented truths
     data = simulate(kf, pvi, cv, np.random.default_rng(7))
-    result = Session(stand_in(data)).fit(seed=3, chains=4, draws=1000, tune=1000)
+    # target_accept 0.99 (the gate stays the default): in a full-suite run one divergent transition in
+    # 4000 draws appeared at 0.95 although the same fit passed on its own
+    result = Session(stand_in(data)).fit(seed=3, chains=4, draws=1000, tune=1000, target_accept=0.99)
     assert result.passed, result.doc["diagnostics"]["failing"]
     for var, truth in ((f"{CURVE}__Kf_100mL__subject", kf), (f"{CURVE}__Pvi__subject", pvi)):
         lo, hi = np.quantile(flat(result.idata, var), [0.025, 0.975], axis=0)
