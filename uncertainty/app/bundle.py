@@ -281,7 +281,7 @@ class Bundle:
         target = self.path(rel)
         target.parent.mkdir(parents=True, exist_ok=True)
         os.replace(staged, target)
-        _fsync_dir(target.parent)
+        _fsync(target.parent)
         return FileRecord(path=rel, kind=kind, sha256=sha256_file(target), bytes=target.stat().st_size)
 
     def write_bytes(self, rel: str, data: bytes, kind: str) -> FileRecord:
@@ -368,6 +368,7 @@ def _umask() -> int:
 
 
 def _fsync(path: Path) -> None:
+    """Flush a file or a folder (its entries) to disk; best effort."""
     with contextlib.suppress(OSError):
         fd = os.open(path, os.O_RDONLY)
         try:
@@ -375,11 +376,3 @@ def _fsync(path: Path) -> None:
         finally:
             os.close(fd)
 
-
-def _fsync_dir(path: Path) -> None:
-    with contextlib.suppress(OSError):
-        fd = os.open(path, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)
