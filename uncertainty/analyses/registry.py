@@ -7,12 +7,14 @@ below plus its folder (core, ``result.py``, ``figure.py``, ``table.py``, ``repor
 
 from __future__ import annotations
 
+import weakref
 from collections.abc import Callable
 from typing import Any
 
 from uncertainty.analyses import design as design_
 from uncertainty.analyses import propagate as propagate_
 from uncertainty.analyses import rank as rank_
+from uncertainty.analyses import scenarios as scenarios_
 from uncertainty.analyses import schedule as schedule_
 from uncertainty.analyses import sensitivity as sensitivity_
 from uncertainty.analyses.design import report_section as design_report
@@ -25,10 +27,13 @@ from uncertainty.analyses.propagate.result import PropagateResult
 from uncertainty.analyses.rank import report_section as rank_report
 from uncertainty.analyses.rank.result import RankResult
 from uncertainty.analyses.result import Analysis, Result
+from uncertainty.analyses.scenarios import report_section as scenarios_report
+from uncertainty.analyses.scenarios.result import ScenariosResult
 from uncertainty.analyses.schedule import report_section as schedule_report
 from uncertainty.analyses.schedule.result import ScheduleResult
 from uncertainty.analyses.sensitivity import report_section as sensitivity_report
 from uncertainty.analyses.sensitivity.result import SensitivityResult
+from uncertainty.core.errors import QualityGateError
 
 
 def _has_section(name: str) -> Callable[[Any], bool]:
@@ -50,8 +55,38 @@ def _run_sensitivity(study: Any, seed: int | None) -> Result:
     return sensitivity_.sensitivity(study, seed=seed)
 
 
+#: the last posterior computed for a study in this session (study -> InferenceResult), read by scenarios
+_POSTERIORS: weakref.WeakKeyDictionary[Any, Any] = weakref.WeakKeyDictionary()
+
+
 def _run_infer(study: Any, seed: int | None) -> Result:
-    return inference_api.infer(study, seed=seed)
+    try:
+        result = inference_api.infer(study, seed=seed)
+    except QualityGateError as exc:  # a flagged posterior is still the posterior the run reports
+        if exc.result is not None:
+            _remember(study, exc.result)
+        raise
+    _remember(study, result)
+    return result
+
+
+def _remember(study: Any, result: Any) -> None:
+    try:
+        _POSTERIORS[study] = result
+    except TypeError:  # a stand-in study that cannot be weakly referenced
+        pass
+
+
+def _has_scenarios(study: Any) -> bool:
+    return bool(getattr(study, "scenarios", None))
+
+
+def _run_scenarios(study: Any, seed: int | None) -> Result:
+    try:
+        posterior = _POSTERIORS.get(study)
+    except TypeError:
+        posterior = None
+    return scenarios_.scenarios(study, seed=seed, posterior=posterior)
 
 
 def _run_rank(study: Any, seed: int | None) -> Result:
@@ -93,6 +128,10 @@ ANALYSES: tuple[Analysis, ...] = (
              depends=("schedule", "observations"), run=_run_schedule, from_dict=ScheduleResult.from_dict,
              present=_has_section("schedule"), section_html=schedule_report.section_html,
              summary=schedule_report.summary, captions=schedule_report.CAPTIONS),
+    Analysis(name="scenarios", title="What if: scenarios", label="scenarios",
+             depends=("scenarios", "observations", "infer"), run=_run_scenarios, from_dict=ScenariosResult.from_dict,
+             present=_has_scenarios, section_html=scenarios_report.section_html, summary=scenarios_report.summary,
+             captions=scenarios_report.CAPTIONS),
 )
 
 #: the analyses whose diagnostics the report shows, in its order: the sampler's, then Monte Carlo's
@@ -107,7 +146,7 @@ def analysis(name: str) -> Analysis | None:
     ----------
     name : str
         A section name of results.json ("propagate", "sensitivity", "infer", "rank", "design",
-        "schedule").
+        "schedule", "scenarios").
 
     Returns
     -------

@@ -38,7 +38,7 @@ from uncertainty.study import Study, load_study
 
 ORDER = ("check", *(a.name for a in registry.ANALYSES))
 #: study-file sections that belong to one analysis (the rest of the file is shared by all)
-ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule")
+ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule", "scenarios")
 #: the study-file sections each analysis depends on, beyond the shared part
 DEPENDS = {"check": (), **{a.name: a.depends for a in registry.ANALYSES}}
 LABELS = {"check": "check study", **{a.name: a.label for a in registry.ANALYSES}}

@@ -48,6 +48,8 @@ from uncertainty.study.schema import (  # noqa: F401
     Observation,
     PropagateSection,
     RankSection,
+    Scenario,
+    ScenarioChange,
     ScheduleSection,
     SensitivitySection,
     Spread,

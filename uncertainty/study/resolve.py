@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import copy
 import math
+import re
 from collections.abc import Mapping, Sequence, Set
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -76,6 +77,8 @@ from uncertainty.study.schema import (
     Observation,
     PropagateSection,
     RankSection,
+    Scenario,
+    ScenarioChange,
     ScheduleSection,
     SensitivitySection,
     StepSpec,
@@ -120,6 +123,8 @@ class StudyInput:
     document : Mapping of str to Any
         The document as written (read-only), kept for provenance only (cache keys and data-file
         hashes of a run); the resolution never reads it.
+    scenarios : tuple of Scenario
+        ``[[scenarios]]`` as written (empty without them).
     """
 
     head: StudySection
@@ -132,6 +137,7 @@ class StudyInput:
     base_dir: Path
     file_hash: str | None
     document: Mapping[str, Any] = field(default_factory=dict, repr=False, compare=False)
+    scenarios: tuple[Scenario, ...] = ()
 
     def section(self, name: str, kind: type[M]) -> M | None:
         """The validated section ``name`` as ``kind``, or None when the study has none.
@@ -176,7 +182,7 @@ class StudyInput:
         return StudyInput(head=head, parameters=self.parameters, correlations=self.correlations,
                           sections=self.sections, observations=self.observations, file=self.file,
                           path=self.path, base_dir=self.base_dir, file_hash=self.file_hash,
-                          document=_read_only(doc))
+                          document=_read_only(doc), scenarios=self.scenarios)
 
     def with_parameters(self, overrides: Mapping[str, Any]) -> StudyInput:
         """A copy with ``[parameters]`` entries added or replaced (a whole declaration each).
@@ -204,7 +210,7 @@ class StudyInput:
         return StudyInput(head=self.head, parameters=_read_only(params), correlations=self.correlations,
                           sections=self.sections, observations=self.observations, file=self.file,
                           path=self.path, base_dir=self.base_dir, file_hash=self.file_hash,
-                          document=_read_only(doc))
+                          document=_read_only(doc), scenarios=self.scenarios)
 
 
 def _read_only(doc: Mapping[str, Any]) -> Mapping[str, Any]:
@@ -310,10 +316,20 @@ def validate_document(doc: Any, file: str, path: Path | None, base_dir: Path,
                              for i, o in enumerate(obs))
     correlations = (validate_section(CorrelationsSection, doc["correlations"], file, "correlations")
                     if "correlations" in doc else None)
+    scenarios: tuple[Scenario, ...] = ()
+    if "scenarios" in doc:
+        if not isinstance(doc["scenarios"], list):
+            raise study_error("scenarios are [[scenarios]] tables", file, "scenarios", None)
+        scenarios = tuple(validate_section(Scenario, sc, file, f"scenarios[{i}]")
+                          for i, sc in enumerate(doc["scenarios"]))
+        names = [sc.name for sc in scenarios]
+        for i, name in enumerate(names):
+            if name in names[:i]:
+                raise study_error("scenario names must be unique", file, f"scenarios[{i}].name", name)
     kept = copy.deepcopy(dict(doc))
     return StudyInput(head=head, parameters=_read_only(kept.get("parameters", {})), correlations=correlations,
                       sections=MappingProxyType(sections), observations=observations, file=file, path=path,
-                      base_dir=base_dir, file_hash=file_hash, document=_read_only(kept))
+                      base_dir=base_dir, file_hash=file_hash, document=_read_only(kept), scenarios=scenarios)
 
 
 # --------------------------------------------------------------------------------------------
@@ -1245,3 +1261,120 @@ def resolve_correlations(priors: Mapping[str, Prior], derived: Mapping[str, Deri
                               f"smallest eigenvalue {eig:.3g}; revise the pairs (it is not repaired)", file,
                               "correlations.pairs", [list(p) for p in kept.values()])
     return Correlations(names=names, matrix=corr, pairs=list(kept.values()), notes=tuple(notes))
+
+
+# --------------------------------------------------------------------------------------------
+# 8. Scenarios (what-ifs on the same draws)
+# --------------------------------------------------------------------------------------------
+
+#: a scenario change: a sign and a number with an optional unit (a shift), or x / * and a number (a multiplier)
+_CHANGE = re.compile(r"^\s*(?P<op>[+\-x*\u00d7])\s*(?P<num>(?:\d+\.?\d*|\.\d+)(?:[eE][+\-]?\d+)?)\s*(?P<unit>.*?)\s*$")
+
+
+def parse_change(symbol: str, text: str, file: str, key: str, density: float = 1.05,
+                 tissue_mass_kg: float | None = None) -> ScenarioChange:
+    """One scenario change as written (``"+1 g/dL"``, ``"-5 mmHg"``, ``"x0.9"``) in canonical units.
+
+    Parameters
+    ----------
+    symbol : str
+        The quantity changed (a trade symbol with a canonical unit).
+    text : str
+        The change as written.
+    file, key : str
+        The study file and the change's key path, for messages.
+    density : float
+        Tissue density (g/mL), for per-100 mL units.
+    tissue_mass_kg : float or None
+        Organ mass (kg), for per-organ units.
+
+    Returns
+    -------
+    ScenarioChange
+        A shift in the canonical unit of ``symbol``, or a multiplier (dimensionless, > 0).
+
+    Raises
+    ------
+    StudyError
+        A change that is neither form, a multiplier with a unit or not above 0, a unit that does not
+        convert to the quantity's canonical unit.
+    """
+    m = _CHANGE.match(text)
+    if m is None:
+        raise study_error("a change is \"+1 g/dL\" / \"-5 mmHg\" (a shift) or \"x0.9\" (a multiplier)",
+                          file, key, text)
+    op, num, unit = m.group("op"), float(m.group("num")), m.group("unit") or None
+    if op in "x*\u00d7":
+        if unit is not None:
+            raise study_error("a multiplier takes no unit (\"x0.9\")", file, key, text)
+        if not (math.isfinite(num) and num > 0):
+            raise study_error("a multiplier must be above 0", file, key, text)
+        return ScenarioChange(symbol=symbol, text=text, multiply=num)
+    try:
+        shift = convert_unit(symbol, num, unit, density=density, tissue_mass_kg=tissue_mass_kg)
+    except UnitError as exc:
+        raise study_error(exc.reason, file, key, text) from None
+    if not math.isfinite(shift):
+        raise study_error("the shift is not a finite number", file, key, text)
+    return ScenarioChange(symbol=symbol, text=text, shift=-shift if op == "-" else shift)
+
+
+def resolve_scenarios(scenarios: Sequence[Scenario], head: StudySection, inputs: Set[str], base: TissueBase,
+                      file: str) -> list[Scenario]:
+    """``[[scenarios]]`` with their changes parsed into canonical units and their conditions checked.
+
+    Parameters
+    ----------
+    scenarios : sequence of Scenario
+        As written (not changed).
+    head : StudySection
+        ``[study]`` (tissue and the conditions a scenario adds to or removes from).
+    inputs : set of str
+        The quantities the study's model form reads (priors and derived quantities).
+    base : TissueBase
+        Density (g/mL) and tissue mass (kg), for unit conversion.
+    file : str
+        The study file, for messages.
+
+    Returns
+    -------
+    list of Scenario
+        Copies carrying ``changes_resolved``.
+
+    Raises
+    ------
+    StudyError
+        An unknown quantity (not an input of the model), a bad change or unit, an unknown condition,
+        one for another tissue, one added that the study already has or removed that it has not.
+    """
+    out: list[Scenario] = []
+    conditions = load_conditions() if any(sc.conditions_add for sc in scenarios) else {}
+    for i, sc in enumerate(scenarios):
+        key = f"scenarios[{i}]"
+        changes = []
+        for sym, text in sc.changes.items():
+            ckey = f"{key}.changes.{sym}"
+            if sym not in inputs:
+                raise study_error(f"not an input of this study's model (inputs: {', '.join(sorted(inputs))})",
+                                  file, ckey, sym)
+            changes.append(parse_change(sym, text, file, ckey, density=base.density,
+                                        tissue_mass_kg=base.tissue_mass_kg))
+        for j, cname in enumerate(sc.conditions_add):
+            ckey = f"{key}.conditions_add[{j}]"
+            if cname not in conditions:
+                known = ", ".join(sorted(conditions)) or "none installed"
+                raise study_error(f"unknown condition (known: {known})", file, ckey, cname)
+            if cname in head.conditions:
+                raise study_error("the study already has this condition (remove it with conditions_remove)",
+                                  file, ckey, cname)
+            cond = conditions[cname]
+            if cond.applies_to is not None and head.tissue not in cond.applies_to:
+                raise study_error(f"condition {cname} applies to {', '.join(cond.applies_to)} only", file, ckey,
+                                  cname)
+        for j, cname in enumerate(sc.conditions_remove):
+            if cname not in head.conditions:
+                raise study_error("not a condition of this study ([study] conditions: "
+                                  f"{', '.join(head.conditions) or 'none'})", file, f"{key}.conditions_remove[{j}]",
+                                  cname)
+        out.append(sc.with_changes(tuple(changes)))
+    return out

@@ -452,6 +452,70 @@ class ScheduleSection(BaseModel):
         return v
 
 
+class ScenarioChange(BaseModel):
+    """One resolved change of a scenario: ``symbol`` shifted by ``shift`` (its canonical unit) or
+    multiplied by ``multiply`` (dimensionless); ``text`` is the change as written (``"+1 g/dL"``)."""
+
+    model_config = ConfigDict(frozen=True, extra="forbid")
+    symbol: str
+    text: str
+    shift: float | None = None
+    multiply: float | None = None
+
+
+class Scenario(BaseModel):
+    """One ``[[scenarios]]`` entry: a what-if evaluated on the same draws as the baseline.
+
+    ``changes`` maps a quantity to a change written as a string: ``"+1 g/dL"`` / ``"-5 mmHg"`` (a shift,
+    any unit pint converts to the quantity's canonical unit; no unit means the canonical one) or
+    ``"x0.9"`` (a multiplier > 0, no unit). ``conditions_add`` / ``conditions_remove`` name conditions of
+    ``priors/conditions.toml`` to add to or take from ``[study] conditions``. The changes are parsed and
+    converted when the study is resolved (``changes_resolved``)."""
+
+    model_config = STRICT_CONFIG
+    name: str = Field(min_length=1, description="the scenario's label in tables, JSON and the report")
+    changes: dict[str, str] = Field(default_factory=dict, description=(
+        "quantity -> change: \"+1 g/dL\" or \"-5 mmHg\" (a shift, any unit pint converts to the quantity's "
+        "canonical unit; no unit: the canonical one) or \"x0.9\" (a multiplier > 0)"))
+    conditions_add: list[str] = Field(default_factory=list, description=(
+        "conditions (priors/conditions.toml) added to [study] conditions in this scenario"))
+    conditions_remove: list[str] = Field(default_factory=list, description=(
+        "conditions of [study] conditions taken away in this scenario"))
+    note: str = Field(default="", description="free text")
+    _resolved: tuple[ScenarioChange, ...] = PrivateAttr(default=())
+
+    @property
+    def changes_resolved(self) -> tuple[ScenarioChange, ...]:
+        """The changes in canonical units (set when the study is resolved; empty before)."""
+        return self._resolved
+
+    def with_changes(self, changes: tuple[ScenarioChange, ...]) -> Scenario:
+        """A copy that carries its resolved changes.
+
+        Parameters
+        ----------
+        changes : tuple of ScenarioChange
+            The changes in canonical units, in the order written.
+
+        Returns
+        -------
+        Scenario
+            A new record; this one is not changed.
+        """
+        new = self.model_copy()
+        new._resolved = tuple(changes)
+        return new
+
+    @model_validator(mode="after")
+    def _something(self) -> Scenario:
+        if not self.changes and not self.conditions_add and not self.conditions_remove:
+            raise ValueError("a scenario changes something: give changes, conditions_add or conditions_remove")
+        both = sorted(set(self.conditions_add) & set(self.conditions_remove))
+        if both:
+            raise ValueError(f"a condition is both added and removed: {', '.join(both)}")
+        return self
+
+
 SECTIONS: dict[str, type[BaseModel]] = {
     "propagate": PropagateSection,
     "sensitivity": SensitivitySection,
@@ -463,7 +527,7 @@ SECTIONS: dict[str, type[BaseModel]] = {
 
 
 TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", "observations", "infer",
-             "rank", "design", "schedule")
+             "rank", "design", "schedule", "scenarios")
 
 
 #: Required CSV columns per observation kind; a time column is one of TIME_COLUMNS.

@@ -20,6 +20,7 @@ strict types, never changed once validated). The resolution is a chain of pure s
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
@@ -37,6 +38,7 @@ from uncertainty.study.resolve import (
     apply_conditions,
     apply_overrides,
     resolve_correlations,
+    resolve_scenarios,
     resolve_sections,
     select_inputs,
     steady_references,
@@ -49,6 +51,7 @@ from uncertainty.study.schema import (
     Observation,
     PropagateSection,
     RankSection,
+    Scenario,
     ScheduleSection,
     SensitivitySection,
 )
@@ -79,6 +82,7 @@ class Study:
             or None for proportional scaling.
         Pi_ref: reference (normally hydrated) interstitial pressure for ``oedema_volume`` in the steady
             forms: the median of the tissue prior set's own Pi prior, before conditions (mmHg), or None.
+        scenarios: the ``[[scenarios]]`` what-ifs with their changes in canonical units (empty without them).
         source: the validated sections as written that the study was resolved from (and, for
             provenance, the document as written: ``source.document``), or None.
     """
@@ -110,6 +114,7 @@ class Study:
     steady_Cp: str | None = None
     Pi_ref: float | None = None
     source: StudyInput | None = field(default=None, repr=False)
+    scenarios: list[Scenario] = field(default_factory=list)
 
     @property
     def file(self) -> str | None:
@@ -169,6 +174,29 @@ class Study:
         """
         source = self._source()
         return _resolving(source.file, lambda: _study_from(source.with_parameters(overrides)))
+
+    def with_conditions(self, conditions: list[str]) -> Study:
+        """The same study with other ``[study] conditions``, resolved again (without its scenarios).
+
+        Parameters
+        ----------
+        conditions : list of str
+            Condition names of ``priors/conditions.toml``, in the order they apply.
+
+        Returns
+        -------
+        Study
+            A new study, equal to the one the study file with ``conditions = [...]`` gives, less its
+            ``[[scenarios]]`` (a scenario study is not itself a set of scenarios).
+
+        Raises
+        ------
+        StudyError
+            A condition the study file would refuse, naming the file, key path and value.
+        """
+        source = self._source()
+        changed = dataclasses.replace(source.with_head(conditions=list(conditions)), scenarios=())
+        return _resolving(source.file, lambda: _study_from(changed))
 
     def _source(self) -> StudyInput:
         if self.source is None:
@@ -233,6 +261,7 @@ def _study_from(inp: StudyInput) -> Study:
     Pi_ref, steady_Cp = steady_references(head, base, form.derived)
     sections = resolve_sections(inp, form, base, Pi_ref)
     priors = {**form.priors, **dict(sections.kept.priors)}
+    scenarios = resolve_scenarios(inp.scenarios, head, set(form.priors) | set(form.derived), base, file)
     corr = resolve_correlations(priors, form.declared.derived, base.prior_set.correlations, declared.overridden,
                                 inp.correlations, head.model, file)
     return Study(path=inp.path, hash=inp.file_hash, title=head.title, tissue=head.tissue,
@@ -243,7 +272,7 @@ def _study_from(inp: StudyInput) -> Study:
                  propagate=sections.propagate, sensitivity=sections.sensitivity,
                  observations=sections.observations, rank=sections.rank, design=sections.design,
                  schedule=sections.schedule, infer=sections.infer, instruments=dict(sections.kept.instruments),
-                 steady_Cp=steady_Cp, Pi_ref=Pi_ref, source=inp)
+                 steady_Cp=steady_Cp, Pi_ref=Pi_ref, source=inp, scenarios=scenarios)
 
 
 def load_study(path: str | Path) -> Study:
