@@ -7,7 +7,7 @@ The Python API for notebooks (each analysis returns a result object with ``to_di
     study = fs.load_study("studies/demo.toml")
     fs.propagate(study).to_dataframe()
 
-``load_study, propagate, sensitivity, infer, rank, design, schedule, scenarios, run`` are resolved lazily on first
+``load_study, propagate, sensitivity, infer, rank, design, schedule, run`` are resolved lazily on first
 use, so ``import uncertainty`` stays light (no numpy, pymc or matplotlib until an analysis is called).
 """
 
@@ -25,7 +25,6 @@ API: dict[str, str] = {
     "rank": "uncertainty.analyses.rank",
     "design": "uncertainty.analyses.design",
     "schedule": "uncertainty.analyses.schedule",
-    "scenarios": "uncertainty.analyses.scenarios",
     "run": "uncertainty.app.run",
 }
 

@@ -63,6 +63,13 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "Venous-cuff measurement schedule: the cuff pressures and K reading times that minimise the expected "
      "posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision), against equal "
      "spacing. Run by `fluidshift design STUDY --schedule`; defaults apply when the section is absent."),
+    ("scenarios", "[[scenarios]]", "Scenario",
+     "What-ifs, one table per scenario: quantities shifted or scaled and conditions added or removed. Each is "
+     "evaluated on the same draws as the baseline (the prior draws, and the posterior draws when inference "
+     "ran), so its effect is the paired change of every output (scenario minus baseline on one draw): median, "
+     "95% interval and P(change < 0) / P(change > 0), for the typical subject, the individual and each "
+     "subject of the posterior. A changed condition keeps each draw's quantile of the prior. Run by "
+     "`fluidshift run`; in Python `uncertainty.analyses.scenarios.scenarios(study, posterior=...)`."),
 ]
 
 #: "section.key" -> meaning, with the unit where there is one

@@ -82,7 +82,7 @@ class Study:
             or None for proportional scaling.
         Pi_ref: reference (normally hydrated) interstitial pressure for ``oedema_volume`` in the steady
             forms: the median of the tissue prior set's own Pi prior, before conditions (mmHg), or None.
-        scenarios: the ``[[scenarios]]`` what-ifs with their changes in canonical units (empty without them).
+        scenarios: the ``[[scenarios]]`` what-ifs with their changes in canonical units, or None without them.
         source: the validated sections as written that the study was resolved from (and, for
             provenance, the document as written: ``source.document``), or None.
     """
@@ -114,7 +114,7 @@ class Study:
     steady_Cp: str | None = None
     Pi_ref: float | None = None
     source: StudyInput | None = field(default=None, repr=False)
-    scenarios: list[Scenario] = field(default_factory=list)
+    scenarios: list[Scenario] | None = None
 
     @property
     def file(self) -> str | None:
@@ -272,7 +272,7 @@ def _study_from(inp: StudyInput) -> Study:
                  propagate=sections.propagate, sensitivity=sections.sensitivity,
                  observations=sections.observations, rank=sections.rank, design=sections.design,
                  schedule=sections.schedule, infer=sections.infer, instruments=dict(sections.kept.instruments),
-                 steady_Cp=steady_Cp, Pi_ref=Pi_ref, source=inp, scenarios=scenarios)
+                 steady_Cp=steady_Cp, Pi_ref=Pi_ref, source=inp, scenarios=scenarios or None)
 
 
 def load_study(path: str | Path) -> Study:
