@@ -56,6 +56,7 @@ CANONICAL: dict[str, str] = {
     # other
     "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
     "k_clear": "1/min",
+    "body_weight": "kg", "fluid_balance": "L", "organ_share": "1",
 }
 
 _BASIS_RE = re.compile(r"\s*(?:/|\bper\b)\s*\(?\s*100\s*(g|mL|ml)\s*\)?\s*(?:tissue)?\s*$")

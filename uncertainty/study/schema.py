@@ -132,7 +132,7 @@ class Observation(BaseModel):
 
     model_config = STRICT_CONFIG
     kind: Literal["measurement", "lymph_flow", "clearance_rate", "swelling_rate", "volume_time_course",
-                  "protein_ratio", "GFR", "RPF", "filtration_fraction"]
+                  "protein_ratio", "GFR", "RPF", "filtration_fraction", "body_weight", "fluid_balance"]
     name: str | None = None
     parameter: str | None = None
     value: float | None = None
@@ -155,6 +155,8 @@ class Observation(BaseModel):
     lymph: Any = None
     effects: list[str] | None = None
     site: Literal["pre_nodal", "post_nodal"] | None = None
+    # body_weight / fluid_balance: the organ's share of the body's net fluid gain (a prior declaration)
+    share: Any = None
     # volume_time_course: fit every k-th reading of each subject (1 = all)
     every: int | None = Field(default=None, ge=1)
     _data: dict[str, list] | None = PrivateAttr(default=None)
@@ -224,6 +226,14 @@ class Observation(BaseModel):
                 raise ValueError("give value or file, not both")
             if self.sd is None and self.cv is None and self.instrument is None and self.file is None:
                 raise ValueError("give the measurement error: sd, cv or instrument")
+        if k in ("body_weight", "fluid_balance"):
+            if self.file is None:
+                raise ValueError(f"a {k} observation needs a data file (subject, time, value)")
+            if self.share is None:
+                raise ValueError(f"a {k} observation needs share = {{ <prior of the organ's share of the body's "
+                                 "net fluid gain> }}")
+        elif self.share is not None:
+            raise ValueError(f"a {k} observation takes no share (body_weight / fluid_balance only)")
         if k == "filtration_fraction" and self.value is not None and not 0 < self.value < 1:
             raise ValueError("a filtration fraction lies strictly between 0 and 1 (GFR below renal plasma flow)")
         if k == "protein_ratio" and self.value is not None and not 0 < self.value <= 1.5:
@@ -541,6 +551,8 @@ CSV_COLUMNS: dict[str, tuple[str, ...]] = {
     "GFR": ("subject", "value"),
     "RPF": ("subject", "value"),
     "filtration_fraction": ("subject", "value"),
+    "body_weight": ("subject", "value"),
+    "fluid_balance": ("subject", "value"),
 }
 
 
@@ -553,4 +565,5 @@ TEXT_COLUMNS = ("subject", "group", "arm", "note")
 
 #: Quantity whose canonical unit an observation's value takes.
 OBS_SYMBOL = {"lymph_flow": "JL", "swelling_rate": "swelling_rate", "protein_ratio": "ratio",
-              "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF"}
+              "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF",
+              "body_weight": "body_weight", "fluid_balance": "fluid_balance"}

@@ -438,6 +438,8 @@ def _repeat_note(obs: Observation) -> list[str]:
     """A note where a data file holds several readings of one subject (fitted as repeats of one value)."""
     if obs.rows is None or len(set(obs.rows.subject)) == len(obs.rows.subject):
         return []
+    if getattr(kind_module(obs), "TIMED", False):  # the kind models the readings' times itself
+        return []
     return [f"{obs.key}: several readings of one subject are fitted as repeated readings of one steady value "
             "(times are not modelled)"]
 

@@ -24,7 +24,7 @@ from uncertainty.forms import evaluate as model_mod
 
 #: fields an observation record may carry (study files spell them the same way)
 _FIELDS = ("kind", "parameter", "value", "sd", "cv", "unit", "instrument", "subject", "group",
-           "file", "step", "steps", "volume", "lymph", "effects", "site", "data")
+           "file", "step", "steps", "volume", "lymph", "effects", "site", "data", "share")
 
 
 @dataclasses.dataclass
@@ -202,6 +202,8 @@ def _symbol_for(kind: str, parameter: str | None) -> str | None:
         "GFR": "GFR",
         "RPF": "RPF",
         "filtration_fraction": "FF",
+        "body_weight": "body_weight",
+        "fluid_balance": "fluid_balance",
     }.get(kind)
 
 

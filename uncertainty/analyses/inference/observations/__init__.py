@@ -24,6 +24,8 @@ KINDS: dict[str, str] = {
     "GFR": "glomerular",
     "RPF": "glomerular",
     "filtration_fraction": "glomerular",
+    "body_weight": "fluid_balance",
+    "fluid_balance": "fluid_balance",
 }
 
 
