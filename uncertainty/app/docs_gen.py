@@ -99,7 +99,11 @@ MEANINGS: dict[str, str] = {
                          "steady state), clearance_rate, swelling_rate, volume_time_course (limb volume after "
                          "venous-cuff steps), protein_ratio (lymph/plasma protein); glomerular form only: GFR, "
                          "RPF (renal plasma flow), filtration_fraction (strictly between 0 and 1); lymph_flow is "
-                         "refused for brain",
+                         "refused for brain; body_weight (bed-scale weights, kg: each subject's changes from its "
+                         "first reading, 1 kg = 1 L) and fluid_balance (charted cumulative balance since time 0, L), "
+                         "from a data file with times: the organ's Jv x tissue mass x days is the declared `share` "
+                         "of the body's net fluid gain, filtration constant over the period, charted balances "
+                         "omitting insensible losses (needs [study] tissue_mass; sd only)",
     "observations.name": "optional label",
     "observations.parameter": "the quantity a measurement reads (a trade symbol)",
     "observations.value": "the observed value, in `unit`",
@@ -134,6 +138,9 @@ MEANINGS: dict[str, str] = {
     "observations.volume": "clearance_rate: a prior declaration of the tracer's distribution volume (mL/100g)",
     "observations.lymph": "swelling_rate: a prior declaration of the lymph flow (mL/min/100g)",
     "observations.effects": "quantities given a group effect (with grouped data)",
+    "observations.share": "body_weight / fluid_balance: a prior declaration (e.g. { dist = \"beta\", mean = 0.4, "
+                          "sd = 0.15 }) of the organ's share of the body's net fluid gain over the period "
+                          "(dimensionless); it carries the other tissues, lymph return and plasma-volume change",
     "observations.site": "lymph_flow: where lymph was collected, pre_nodal or post_nodal",
     "observations.every": "volume_time_course: fit every k-th reading of each subject (1 = all; fewer is faster)",
     "observations.step.parameter": "the stepped pressure (Pv)",
