@@ -920,6 +920,9 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
     if ob.kind == "lymph_flow" and ctx.tissue in NO_LYMPH:
         raise study_error(f"lymph-flow observations are refused for {ctx.tissue}: {NO_LYMPH[ctx.tissue]}",
                           ctx.file, f"{key}.kind", ob.kind)
+    if ob.kind in ("body_weight", "fluid_balance") and ctx.tissue_mass_kg is None:
+        raise study_error(f"a {ob.kind} observation ties the organ's flow to the body's: set [study] tissue_mass",
+                          ctx.file, f"{key}.kind", ob.kind)
     predicting = forms_predicting(ob.kind)
     if predicting and ctx.model not in predicting:
         wanted = " or ".join(f"model = \"{m}\"" for m in predicting)

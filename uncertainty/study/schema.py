@@ -232,6 +232,8 @@ class Observation(BaseModel):
             if self.share is None:
                 raise ValueError(f"a {k} observation needs share = {{ <prior of the organ's share of the body's "
                                  "net fluid gain> }}")
+            if self.cv is not None:
+                raise ValueError(f"a {k} reading takes a normal error (sd): a change can be zero or negative")
         elif self.share is not None:
             raise ValueError(f"a {k} observation takes no share (body_weight / fluid_balance only)")
         if k == "filtration_fraction" and self.value is not None and not 0 < self.value < 1:
