@@ -106,6 +106,22 @@ def arm_swelling(rng: np.random.Generator, n: int = 12) -> tuple[list[dict[str, 
     return rows, summary
 
 
+def icu_weights(n: int = 6) -> list[dict[str, object]]:
+    """Invented daily bed-scale weights (kg) of n septic patients over four days (studies/icu_fluid_balance.toml).
+
+    Its own random stream, so that the other files do not change when this one does.
+    """
+    rng = np.random.default_rng([SEED, 16])
+    rows: list[dict[str, object]] = []
+    for p in range(1, n + 1):
+        w0 = 70.0 + rng.normal(0.0, 8.0)      # invented admission weight, kg
+        gain = rng.uniform(0.3, 1.2)          # invented weight gain, kg/day
+        for day in range(4):
+            rows.append({"patient_id": f"ICU{p:02d}", "day": day,
+                         "weight_kg": f"{w0 + gain * day + rng.normal(0.0, 0.4):.1f}"})  # invented scale noise
+    return rows
+
+
 def _write(name: str, rows: list[dict[str, object]]) -> None:
     with (HERE / name).open("w", newline="") as fh:
         w = csv.DictWriter(fh, fieldnames=list(rows[0]))
@@ -130,6 +146,7 @@ def main() -> None:
     print("# arm_after_node_surgery (invented)")
     for row in summary:
         print({**row, "swelling_rate": f"{row['swelling_rate']:.3g}"})
+    _write("icu_weights_invented.csv", icu_weights())
 
 
 if __name__ == "__main__":
