@@ -114,7 +114,8 @@ def test_kf_posterior_from_weights_matches_conjugate_normal(tmp_path: Path) -> N
     data = Study.from_dict({"study": {"tissue": "skeletal_muscle", "tissue_mass": "25 kg"},
                             "observations": [ob]}, base_dir=tmp_path).observations
     prior_m, prior_s = 0.004, 0.002  # invented normal prior of Kf (mL/min/mmHg/100g)
-    fixed = {**{k: v for k, v in FIXED.items() if k != "Kf"}, "Pc": pc}
+    # tissue_mass among the fixed values makes the catalogue list the organ's flow (Jv_L_per_day)
+    fixed = {**{k: v for k, v in FIXED.items() if k != "Kf"}, "Pc": pc, "tissue_mass": MASS_KG}
     problem = Problem(priors={"Kf": normal("Kf", prior_m, prior_s)}, fixed=fixed,
                       evaluate=_organ_outputs, observations=normalise_observations(data, file="stand-in.toml"),
                       file="stand-in.toml")
