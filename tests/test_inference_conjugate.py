@@ -102,4 +102,4 @@ def test_power_scaling_flags_the_prior_only_where_the_reading_is_weak(reading_sd
     sens = power_scaling(result.built, result.idata, ["Pc__subject"])["Pc"]
     assert (sens["prior"] >= PSENS_THRESHOLD) is prior_flagged, sens
     assert (sens["likelihood"] >= PSENS_THRESHOLD) is not prior_flagged, sens
-    assert sens["diagnosis"] == ("prior dominates (weak likelihood)" if prior_flagged else "-")
+    assert sens["diagnosis"] == ("prior-driven" if prior_flagged else "-")

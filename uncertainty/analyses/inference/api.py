@@ -141,6 +141,7 @@ def _prior_draws(built: BuiltModel, rng: np.random.Generator, n: int) -> dict[st
     typical: dict[str, np.ndarray] = {}
     for name, prior in problem.priors.items():
         typical[name] = np.asarray(prior.frozen().rvs(size=n, random_state=rng), dtype=float)
+    typical.update(checks_mod.correlate_prior_draws(problem, typical))   # the study's copula
     level = dict(typical)
     if not built.hierarchical:
         for name in built.spreads:
@@ -209,6 +210,8 @@ def identifiability(built: BuiltModel, post: dict[str, np.ndarray], prior: dict[
     exceeds CONFOUNDED_CORRELATION in size while the prior correlation is below 0.3; the
     contraction along the pair's least-informed direction (prior-standardised) is reported.
     """
+    import scipy.linalg
+
     names = [n for n in built.quantities if n in post and n in prior]
     prior_bound = [n for n in names if contraction.get(n, 0.0) < PRIOR_BOUND_CONTRACTION]
     pos = {n: is_positive(built.problem.priors[n]) for n in names}
@@ -223,8 +226,10 @@ def identifiability(built: BuiltModel, post: dict[str, np.ndarray], prior: dict[
             r_prior = float(np.corrcoef(pa, pb)[0, 1])
             if abs(r_post) < CONFOUNDED_CORRELATION or abs(r_prior) > 0.3:
                 continue
-            u = np.vstack([(qa - pa.mean()) / pa.std(), (qb - pb.mean()) / pb.std()])
-            lam = np.linalg.eigvalsh(np.cov(u))
+            # posterior variance relative to the prior's along each direction (the prior's own
+            # correlation included): generalised eigenvalues of the two covariance matrices
+            lam = scipy.linalg.eigh(np.cov(np.vstack([qa, qb])), np.cov(np.vstack([pa, pb])),
+                                    eigvals_only=True)
             pairs.append({
                 "pair": [a, b], "posterior_correlation": r_post,
                 "contraction_unidentified": float(1.0 - lam[-1]),

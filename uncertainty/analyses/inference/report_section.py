@@ -99,12 +99,16 @@ def _checks(inf: dict[str, Any]) -> str:
     conflict = [c for c in checks.get("prior_data_conflict") or [] if isinstance(c, dict)]
     if conflict:
         parts.append("<h3>Prior-data conflict</h3><p>Where each observation falls in its prior predictive "
-                     "distribution: a two-sided tail probability below 0.01 flags a reading the priors did not "
-                     "expect (Evans and Moshonov 2006; the threshold is common practice).</p>")
-        parts.append(table(["observation", "kind", "tail probability", "conflict", "prior predictive 95%"],
+                     "distribution (Evans and Moshonov 2006): a reading the priors did not expect has a small "
+                     "two-sided tail probability; allowing for the number of readings (single-step max-T, "
+                     "Westfall and Young 1993), an adjusted probability below 0.01 flags a conflict "
+                     "(the threshold is common practice).</p>")
+        parts.append(table(["observation", "kind", "tail probability", "adjusted", "conflict",
+                            "prior predictive 95%"],
                            [[c.get("label") or c.get("observation"), c.get("kind"), fmt(c.get("p_tail"), 3),
-                             fmt(c.get("conflict")), interval((c.get("prior_predictive") or {}).get("ci95"), 3)]
-                            for c in conflict], num_cols={2}))
+                             fmt(c.get("p_adjusted"), 3), fmt(c.get("conflict")),
+                             interval((c.get("prior_predictive") or {}).get("ci95"), 3)]
+                            for c in conflict], num_cols={2, 3}))
     ppc = checks.get("posterior_predictive") or {}
     labels = {c.get("observation"): c.get("label") for c in conflict if c.get("label")}
     ppc_rows = [[labels.get(v.get("observation")) or v.get("observation") or k, v.get("kind"),
@@ -117,13 +121,13 @@ def _checks(inf: dict[str, Any]) -> str:
         parts.append(table(["observation", "kind", "p-value (mean)", "95% coverage", "readings"], ppc_rows,
                            num_cols={2, 3, 4}))
     sens = checks.get("prior_sensitivity") or {}
-    sens_rows = [[q, fmt(v.get("prior"), 3), fmt(v.get("likelihood"), 3), v.get("diagnosis") or ""]
-                 for q, v in sens.items() if isinstance(v, dict)]
-    if sens_rows:
-        parts.append("<h3>Prior sensitivity</h3><p>Power-scaling sensitivity (Kallioinen et al. 2024): how far "
-                     "each posterior moves per unit log power when the prior or the likelihood is raised to a "
-                     "power near one; above about 0.05 the quantity leans on that part.</p>")
-        parts.append(table(["quantity", "prior", "likelihood", "diagnosis"], sens_rows, num_cols={1, 2}))
+    sentences = [v.get("sentence") or f"{q}: {v.get('diagnosis')}" for q, v in sens.items() if isinstance(v, dict)]
+    if sentences:
+        parts.append("<h3>Prior sensitivity: how much each answer leans on its prior</h3>"
+                     "<p>Each posterior is reweighted as if the prior, or the readings, counted a little "
+                     "more or less (power scaling, Kallioinen et al. "
+                     "2024); the figures are how far it shifts per unit log weight.</p>")
+        parts.append("<ul>" + "".join(f"<li>{escape(t)}</li>" for t in sentences) + "</ul>")
     elif isinstance(sens.get("error"), str):
         parts.append(f"<p>Prior sensitivity could not be computed: {escape(sens['error'])}</p>")
     ident = inf.get("identifiability") or {}

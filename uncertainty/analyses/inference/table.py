@@ -60,12 +60,12 @@ def table(doc: dict[str, Any]) -> str:
     for row in checks.get("prior_data_conflict", []) if isinstance(checks.get("prior_data_conflict"), list) \
             else []:
         if row["conflict"]:
-            lines.append(f"prior-data conflict: {row['observation']} ({row['label']}), tail p {_fmt(row['p_tail'])}")
+            lines.append(f"prior-data conflict: {row['observation']} ({row['label']}), tail p "
+                         f"{_fmt(row['p_tail'])}, {_fmt(row.get('p_adjusted'))} allowing for all readings")
     sens = checks.get("prior_sensitivity", {})
-    flagged = [k for k, v in sens.items() if isinstance(v, dict) and v.get("diagnosis", "-") != "-"]
-    if flagged:
-        lines.append("prior-sensitive (power scaling): " + ", ".join(
-            f"{k} ({sens[k]['diagnosis']})" for k in flagged))
+    for v in sens.values():
+        if isinstance(v, dict) and v.get("diagnosis", "-") != "-":
+            lines.append(f"power scaling: {v.get('sentence', v['diagnosis'])}")
     if "comparison" in doc:
         c = doc["comparison"]
         lines.append(f"model comparison ({c.get('method', '')}): " + ", ".join(
