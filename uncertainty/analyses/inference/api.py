@@ -15,7 +15,7 @@ import numpy as np
 
 from uncertainty.analyses.inference import checks as checks_mod
 from uncertainty.analyses.inference.compare import compare_forms
-from uncertainty.analyses.inference.diagnostics import Gate, diagnose
+from uncertainty.analyses.inference.diagnostics import Gate, contraction_note, diagnose, gate_message, summary_mcse
 from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, is_positive, spread_ratio
 from uncertainty.analyses.inference.observations import kind_module
 from uncertainty.analyses.inference.problem import Problem, normalise_observations, problem_from_study
@@ -116,9 +116,8 @@ def infer(study: Any, sampler: str | None = None, seed: int | None = None, chain
                                                  chains=opts["chains"], draws=opts["draws"], tune=opts["tune"],
                                                  observations=observations)
     if not result.passed:
-        failing = "; ".join(result.doc["diagnostics"]["failing"][:8])
         result.doc["trustworthy"] = False
-        raise QualityGateError(f"chains did not converge, intervals not trustworthy: {failing}",
+        raise QualityGateError(f"intervals not trustworthy: {gate_message(result.doc['diagnostics'])}",
                                result=result)
     return result
 
@@ -158,6 +157,13 @@ def _reported(built: BuiltModel, idata: Any, name: str) -> np.ndarray:
     if built.hierarchical:
         return flat(idata, name)
     return flat(idata, f"{name}__subject")[:, 0]
+
+
+def _chains(built: BuiltModel, idata: Any, name: str) -> np.ndarray:
+    """(chain, draw) draws of a reported quantity (typical value with subjects, else the individual's)."""
+    if built.hierarchical:
+        return np.asarray(idata.posterior[name].values)
+    return np.asarray(idata.posterior[f"{name}__subject"].values)[..., 0]
 
 
 def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> np.ndarray:
@@ -280,6 +286,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         s = summarise(x)
         c = float(1.0 - s["sd"] ** 2 / prior_sd**2) if prior_sd > 0 else float("nan")
         contraction[name] = c
+        s["mcse"] = summary_mcse(_chains(built, idata, name))
         parameters[name] = {**s, "contraction": c,
                             "prior": {"mean": prior_mean, "sd": prior_sd, "ci95": prior_ci},
                             "prior_bound": bool(c < PRIOR_BOUND_CONTRACTION)}
@@ -295,6 +302,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
     jv_main = jv_typical if built.hierarchical else jv_subject[:, 0]
     new = _new_subject(built, idata, rng)
     jv_block = summarise(jv_main)
+    jv_block["mcse"] = summary_mcse(_chains(built, idata, "Jv__typical" if built.hierarchical else "Jv"))
     if "Jv" in prior:
         pv = float(np.var(prior["Jv"], ddof=1))
         jv_block["contraction"] = float(1.0 - jv_block["sd"] ** 2 / pv) if pv > 0 else float("nan")
@@ -333,6 +341,12 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
     ident["prior_bound"] += [v for v, e in extras.items() if e.get("prior_bound")]
     for pair in ident["confounded"]:
         notes.append(pair["note"])
+    for name, p in parameters.items():
+        note = contraction_note(name, p["contraction"], p["mcse"]["ess_bulk"])
+        if note:
+            notes.append(note)
+    if not diagnostics["passed"]:
+        notes.insert(0, "QUALITY GATE FAILED, these figures are not trustworthy: " + gate_message(diagnostics))
     if ident["prior_bound"]:
         notes.append("prior-bound (the data barely inform them): " + ", ".join(ident["prior_bound"]))
     unit_map = {}

@@ -2,8 +2,12 @@
 
 R-hat (rank-normalised split R-hat), bulk and tail ESS (Vehtari et al. 2021, Bayesian Analysis
 16:667-718), divergent transitions and the energy BFMI (Betancourt 2016) for every free quantity.
-The gate's defaults: R-hat <= 1.01 and bulk ESS >= 400 (Vehtari et al. 2021 recommendations,
-from memory), no divergences (common practice).
+The gate's defaults: R-hat <= 1.01, bulk and tail ESS >= 400 (Vehtari et al. 2021 recommendations,
+from memory; the tail ESS is gated because the 95 % intervals are the headline), no divergences
+(common practice). With one chain R-hat compares the chain's two halves (it cannot see chains that
+settle in different places). Each failed check is named with what to raise (:func:`gate_message`,
+:func:`describe`), and the Monte Carlo error of the posterior summaries (mean and the 95 % interval
+ends, ArviZ ``mcse``) goes beside them (:func:`summary_mcse`).
 """
 
 from __future__ import annotations
@@ -20,7 +24,7 @@ class Gate:
 
     r_hat_max: float = 1.01          # Vehtari et al. 2021 (from memory)
     ess_bulk_min: float = 400.0      # Vehtari et al. 2021 (from memory)
-    ess_tail_min: float = 0.0        # tail ESS reported, not gated by default
+    ess_tail_min: float = 400.0      # Vehtari et al. 2021 (from memory)
     divergences_max: int = 0         # common practice
     bfmi_min: float = 0.0            # reported; 0.3 is the usual warning level (common practice)
 
@@ -30,7 +34,7 @@ class Gate:
         if gate is None or gate is True:
             return cls()
         if gate is False:
-            return cls(r_hat_max=np.inf, ess_bulk_min=0.0, divergences_max=2**31)
+            return cls(r_hat_max=np.inf, ess_bulk_min=0.0, ess_tail_min=0.0, divergences_max=2**31)
         if isinstance(gate, Gate):
             return gate
         return cls(**dict(gate))
@@ -39,18 +43,33 @@ class Gate:
 def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
     """Diagnostics per quantity and the gate's verdict.
 
-    Returns ``{r_hat_max, ess_bulk_min, ess_tail_min, divergences, bfmi_min, passed, failing,
-    per_quantity: {name: {r_hat, ess_bulk, ess_tail}}}``.
+    Parameters
+    ----------
+    idata : arviz.InferenceData
+        Posterior draws (and sample stats).
+    var_names : list of str
+        Quantities to check (those not in the posterior are skipped).
+    gate : Gate
+        Thresholds.
+
+    Returns
+    -------
+    dict
+        ``{r_hat_max, ess_bulk_min, ess_tail_min, divergences, bfmi_min, passed, failing,
+        failed_checks, failed_quantities, chains, gate, per_quantity: {name: {r_hat, ess_bulk,
+        ess_tail}}}`` (``failed_checks`` among r_hat, ess_bulk, ess_tail, divergences, bfmi).
     """
     import arviz as az
 
     post = idata.posterior
     names = [v for v in var_names if v in post]
-    rhat = az.rhat(idata, var_names=names)
+    one_chain = int(post.sizes.get("chain", 1)) < 2
+    rhat = az.rhat(_halves(post[names]) if one_chain else idata, var_names=names)
     ess_b = az.ess(idata, var_names=names, method="bulk")
     ess_t = az.ess(idata, var_names=names, method="tail")
     per: dict[str, dict[str, float]] = {}
     failing: list[str] = []
+    failed: dict[str, list[str]] = {}
     for v in names:
         r = np.atleast_1d(np.asarray(rhat[v].values, dtype=float)).ravel()
         eb = np.atleast_1d(np.asarray(ess_b[v].values, dtype=float)).ravel()
@@ -60,10 +79,13 @@ def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
         reasons = []
         if not per[v]["r_hat"] <= gate.r_hat_max:
             reasons.append(f"R-hat {per[v]['r_hat']:.3f} > {gate.r_hat_max}")
+            failed.setdefault("r_hat", []).append(v)
         if not per[v]["ess_bulk"] >= gate.ess_bulk_min:
             reasons.append(f"bulk ESS {per[v]['ess_bulk']:.0f} < {gate.ess_bulk_min:.0f}")
+            failed.setdefault("ess_bulk", []).append(v)
         if gate.ess_tail_min and not per[v]["ess_tail"] >= gate.ess_tail_min:
             reasons.append(f"tail ESS {per[v]['ess_tail']:.0f} < {gate.ess_tail_min:.0f}")
+            failed.setdefault("ess_tail", []).append(v)
         if reasons:
             failing.append(f"{v} ({', '.join(reasons)})")
     stats = idata.sample_stats
@@ -76,8 +98,10 @@ def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
         bfmi_min = float("nan")
     if divergences > gate.divergences_max:
         failing.append(f"{divergences} divergent transitions (allowed {gate.divergences_max})")
+        failed["divergences"] = []
     if gate.bfmi_min and not bfmi_min >= gate.bfmi_min:
         failing.append(f"BFMI {bfmi_min:.2f} < {gate.bfmi_min}")
+        failed["bfmi"] = []
     r_all = [p["r_hat"] for p in per.values()]
     eb_all = [p["ess_bulk"] for p in per.values()]
     et_all = [p["ess_tail"] for p in per.values()]
@@ -89,5 +113,162 @@ def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
         "bfmi_min": bfmi_min,
         "passed": not failing,
         "failing": failing,
+        "failed_checks": sorted(failed),
+        "failed_quantities": failed,
+        "chains": int(post.sizes.get("chain", 1)),
+        "gate": {"r_hat_max": float(gate.r_hat_max), "ess_bulk_min": float(gate.ess_bulk_min),
+                 "ess_tail_min": float(gate.ess_tail_min), "divergences_max": int(gate.divergences_max)},
         "per_quantity": per,
     }
+
+
+def _halves(post: Any) -> Any:
+    """One chain's draws as two chains (its first and second half), for R-hat with a single chain."""
+    import xarray as xr
+
+    h = int(post.sizes["draw"]) // 2
+    first = post.isel(draw=slice(0, h))
+    second = post.isel(draw=slice(h, 2 * h)).assign_coords(draw=first["draw"].values)
+    return xr.concat([first, second], dim="chain").assign_coords(chain=[0, 1])
+
+
+#: what each failed check means and what to raise (our own wording)
+REMEDIES = {
+    "r_hat": ("the chains disagree with each other (R-hat above {r_hat_max:g})",
+              "run more warm-up and draws (--tune, --draws); if it persists, the posterior may have several "
+              "modes or a poorly identified direction"),
+    "ess_bulk": ("too few effectively independent draws for the centre of the posterior (bulk ESS below "
+                 "{ess_bulk_min:.0f})", "raise --draws (or --chains)"),
+    "ess_tail": ("too few effectively independent draws in the tails, where the 95 % interval ends lie "
+                 "(tail ESS below {ess_tail_min:.0f})", "raise --draws (or --chains)"),
+    "divergences": ("the sampler diverged ({divergences} transitions; {divergences_max} allowed), so it "
+                    "may have missed part of the posterior", "raise --target-accept (e.g. 0.99)"),
+    "bfmi": ("the sampler explored the energy levels poorly (BFMI low)", "more warm-up (--tune)"),
+}
+
+
+def gate_message(diag: dict[str, Any]) -> str:
+    """One line saying which checks of the quality gate failed, for which quantities, and what to raise.
+
+    Parameters
+    ----------
+    diag : dict
+        The output of :func:`diagnose`.
+
+    Returns
+    -------
+    str
+        E.g. ``"tail ESS: too few ... (Kf, Pc); raise --draws (or --chains)"``; empty when it passed.
+    """
+    gate = {**Gate().__dict__, **(diag.get("gate") or {}), "divergences": diag.get("divergences", 0)}
+    parts = []
+    for check in diag.get("failed_checks") or []:
+        what, fix = REMEDIES.get(check, (check, ""))
+        who = list((diag.get("failed_quantities") or {}).get(check) or [])
+        parts.append(what.format(**gate) + (f" ({', '.join(who[:6])}{', ...' if len(who) > 6 else ''})"
+                                            if who else "") + (f": {fix}" if fix else ""))
+    return "; ".join(parts)
+
+
+def describe(diag: dict[str, Any]) -> list[str]:
+    """One sentence per sampler check (our own wording), each ending in whether it was met.
+
+    Parameters
+    ----------
+    diag : dict
+        The output of :func:`diagnose`.
+
+    Returns
+    -------
+    list of str
+        Sentences on chain agreement (R-hat), effective draws in the bulk and the tails (ESS),
+        divergent transitions and the energy (BFMI).
+    """
+    gate = {**Gate().__dict__, **(diag.get("gate") or {})}
+    failed = set(diag.get("failed_checks") or [])
+
+    def verdict(key: str) -> str:
+        return "not met" if key in failed else "met"
+
+    def num(x: Any, f: str) -> str:
+        x = float(x) if x is not None else float("nan")
+        return "not available" if x != x else format(x, f)
+
+    halves = " (one chain: its two halves compared)" if diag.get("chains") == 1 else ""
+    lines = [f"Chains agree{halves}: largest R-hat {num(diag.get('r_hat_max'), '.3f')}, needs at most "
+             f"{gate['r_hat_max']:g}: {verdict('r_hat')}.",
+             f"Effective draws for the centre: smallest bulk ESS {num(diag.get('ess_bulk_min'), '.0f')}, needs "
+             f"{gate['ess_bulk_min']:.0f}: {verdict('ess_bulk')}.",
+             f"Effective draws for the interval ends: smallest tail ESS {num(diag.get('ess_tail_min'), '.0f')}, "
+             f"needs {gate['ess_tail_min']:.0f}: " + (verdict("ess_tail") if gate["ess_tail_min"] else "not gated")
+             + ".",
+             f"Divergent transitions: {diag.get('divergences', 0)}, at most {int(gate['divergences_max'])} "
+             f"allowed: {verdict('divergences')}."]
+    bfmi = diag.get("bfmi_min")
+    if bfmi is not None and bfmi == bfmi:
+        lines.append(f"Energy exploration: smallest BFMI {bfmi:.2f} (below 0.3 is poor): "
+                     + (verdict("bfmi") if gate.get("bfmi_min") else "reported, not gated") + ".")
+    return lines
+
+
+def summary_mcse(draws: Any) -> dict[str, Any]:
+    """Monte Carlo standard errors of a posterior mean and of its 95 % interval ends (ArviZ ``mcse``,
+    which allows for the draws' autocorrelation; Vehtari et al. 2021).
+
+    Parameters
+    ----------
+    draws : array
+        (chains, draws) of one scalar quantity (any unit).
+
+    Returns
+    -------
+    dict
+        ``{"mean": se, "ci95": [se of the 2.5 % quantile, se of the 97.5 % quantile], "ess_bulk": ESS}``
+        in the draws' unit (nan where it cannot be computed).
+    """
+    import warnings
+
+    import arviz as az
+
+    x = np.asarray(draws, dtype=float)
+    x = x.reshape(1, -1) if x.ndim == 1 else x.reshape(x.shape[0], -1)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            mean = float(np.ravel(az.mcse(x, method="mean"))[0])
+            ends = [float(np.ravel(az.mcse(x, method="quantile", prob=q))[0]) for q in (0.025, 0.975)]
+            ess = float(np.ravel(az.ess(x, method="bulk"))[0])
+        except Exception:  # noqa: BLE001 - too few draws
+            return {"mean": float("nan"), "ci95": [float("nan"), float("nan")], "ess_bulk": float("nan")}
+    return {"mean": mean, "ci95": ends, "ess_bulk": ess}
+
+
+def contraction_note(name: str, contraction: float, ess: float) -> str | None:
+    """A sentence explaining a negative contraction (posterior wider than the prior), or None.
+
+    The Monte Carlo standard error of a contraction c = 1 - s_post^2 / s_prior^2 is taken as
+    (1 - c) sqrt(2 / ESS) (normal-theory error of a variance from ESS effective draws; from memory).
+
+    Parameters
+    ----------
+    name : str
+        The quantity.
+    contraction : float
+        1 - posterior variance / prior variance (dimensionless).
+    ess : float
+        Bulk effective sample size of the quantity's draws.
+
+    Returns
+    -------
+    str or None
+        The note; None for a contraction of zero or more (or not finite).
+    """
+    if not contraction < 0 or not np.isfinite(contraction):
+        return None
+    se = (1.0 - contraction) * np.sqrt(2.0 / ess) if ess and ess > 0 else float("inf")
+    head = f"{name}: the posterior is wider than the prior (contraction {contraction:.2f})"
+    if contraction > -2.0 * se:
+        return (f"{head}, within Monte Carlo error of no change (2 se {2 * se:.2f}): the readings barely inform "
+                "it")
+    return (f"{head}: the readings move it into a part of its prior that is wider than the prior as a whole "
+            "(a skewed prior's long tail, or readings at odds with the prior; see the prior-data conflict check)")

@@ -34,6 +34,11 @@ class InferenceResult(DocumentResult):
     timing: dict[str, float] = dataclasses.field(default_factory=dict)   # not in to_dict (varies per run)
 
     saved_note: ClassVar[str | None] = "posterior.nc, tables and figures written to {out}"
+    #: file-name prefix of everything ``save`` and ``plot`` write when the quality gate failed
+    failed_prefix: ClassVar[str] = "GATE-FAILED_"
+
+    def _flag(self) -> str:
+        return "" if self.passed else self.failed_prefix
 
     @property
     def passed(self) -> bool:
@@ -63,22 +68,33 @@ class InferenceResult(DocumentResult):
         return pd.DataFrame(rows)
 
     def save(self, out_dir: str) -> dict[str, str]:
-        """Write posterior.nc (ArviZ netCDF), inference.json and inference.csv into ``out_dir``."""
+        """Write posterior.nc (ArviZ netCDF), inference.json and inference.csv into ``out_dir``; each name
+        starts with :attr:`failed_prefix` when the quality gate failed."""
         os.makedirs(out_dir, exist_ok=True)
         paths = {}
+        flag = self._flag()
         if self.idata is not None:
-            paths["posterior"] = os.path.join(out_dir, "posterior.nc")
+            paths["posterior"] = os.path.join(out_dir, f"{flag}posterior.nc")
             self.idata.to_netcdf(paths["posterior"])
-        paths["json"] = os.path.join(out_dir, "inference.json")
+        paths["json"] = os.path.join(out_dir, f"{flag}inference.json")
         with open(paths["json"], "w", encoding="utf-8") as fh:
             fh.write(to_json(self.doc))
-        paths["table"] = os.path.join(out_dir, "inference.csv")
+        paths["table"] = os.path.join(out_dir, f"{flag}inference.csv")
         self.to_dataframe().to_csv(paths["table"], index=False)
         return paths
 
     def plot(self, out_dir: str) -> list[str]:
-        """Figures: prior vs posterior per quantity, Jv per subject, posterior predictive overlay."""
-        return plot_all(self, out_dir)
+        """Figures: prior vs posterior per quantity, Jv per subject, posterior predictive overlay (names
+        starting with :attr:`failed_prefix` when the quality gate failed)."""
+        paths = plot_all(self, out_dir)
+        if self.passed:
+            return paths
+        flagged = []
+        for path in paths:
+            new = os.path.join(os.path.dirname(path), self.failed_prefix + os.path.basename(path))
+            os.replace(path, new)
+            flagged.append(new)
+        return flagged
 
     def table(self) -> str:
         """The plain-text summary ``fluidshift infer`` prints."""

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference.diagnostics import describe, gate_message
+
 
 def _fmt(x: Any) -> str:
     if x is None:
@@ -32,7 +34,10 @@ def table(doc: dict[str, Any]) -> str:
         the model comparison, notes and the sampler settings.
     """
     u = doc["units"].get("Jv", "")
-    lines = [f"Jv ({doc['level']}): mean {_fmt(doc['Jv']['mean'])} {u}, sd {_fmt(doc['Jv']['sd'])}, "
+    flag = [] if doc["diagnostics"].get("passed", True) else [
+        f"QUALITY GATE FAILED ({gate_message(doc['diagnostics']) or 'see the sampler checks'}); "
+        "nothing below is trustworthy", ""]
+    lines = flag + [f"Jv ({doc['level']}): mean {_fmt(doc['Jv']['mean'])} {u}, sd {_fmt(doc['Jv']['sd'])}, "
              f"95% equal-tailed {_ci(doc['Jv'])}, 95% HDI {_ci(doc['Jv'], 'hdi95')}"]
     lines.append(f"Jv typical subject: {_ci(doc['typical']['Jv'])}   new subject: "
                  f"{_ci(doc['new_subject']['Jv'])}")
@@ -53,9 +58,7 @@ def table(doc: dict[str, Any]) -> str:
                      f"{_fmt(p['mean']):>11}{_fmt(p['sd']):>11}{_ci(p):>26}{_fmt(p['contraction']):>13}{flag}")
     d = doc["diagnostics"]
     lines.append("")
-    lines.append(f"diagnostics: R-hat max {_fmt(d['r_hat_max'])}, bulk ESS min {_fmt(d['ess_bulk_min'])}, "
-                 f"tail ESS min {_fmt(d['ess_tail_min'])}, divergences {d['divergences']}, "
-                 f"BFMI min {_fmt(d['bfmi_min'])}: {'passed' if d['passed'] else 'FAILED'}")
+    lines += [f"sampler check: {line}" for line in describe(d)]
     checks = doc.get("checks", {})
     for row in checks.get("prior_data_conflict", []) if isinstance(checks.get("prior_data_conflict"), list) \
             else []:
