@@ -73,7 +73,8 @@ def table(doc: dict[str, Any]) -> str:
         c = doc["comparison"]
         lines.append(f"model comparison ({c.get('method', '')}): " + ", ".join(
             f"{m} elpd {_fmt(v['elpd'])} (se {_fmt(v['se'])})" for m, v in c.get("models", {}).items())
-            + (f"; preferred {c['preferred']}" if c.get("preferred") else ""))
+            + (f"; {c['verdict']}" if c.get("verdict") else
+               f"; preferred {c['preferred']}" if c.get("preferred") else ""))
     for n in doc["notes"]:
         lines.append(f"note: {n}")
     lines.append(f"{doc['chains']} chains x {doc['draws']} draws, sampler {doc['sampler']}, seed {doc['seed']}")
