@@ -37,6 +37,7 @@ from scipy import stats
 from uncertainty.analyses import sampling
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.analyses.design.result import DesignResult
+from uncertainty.analyses.inference.diagnostics import Gate, diagnose
 from uncertainty.core import units
 from uncertainty.core.errors import InputError
 from uncertainty.core.parallel import InProcess
@@ -492,6 +493,9 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
     an effect in the direction of benefit exceeds 1 - alpha/2 (the Bayesian analogue of the two-sided
     test counted in that direction);
     ``bayes``: the posterior probability of benefit exceeds 1 - alpha/2 under the analysis prior.
+    Each refit passes the inference quality gate (R-hat, bulk and tail ESS of the effect and sigma,
+    no divergences) or is marked in ``converged`` (False), so that it is counted as a failed refit
+    and left out of the power estimate rather than trusted.
     """
     import nutpie
 
@@ -500,6 +504,8 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
     trials, n = y0.shape
     success = np.zeros(trials, dtype=bool)
     bayes = np.zeros(trials, dtype=bool)
+    converged = np.ones(trials, dtype=bool)
+    gate = Gate()
     for i in range(trials):
         if analysis == "paired":
             y = y1[i] - y0[i]
@@ -523,12 +529,13 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
         fit = compiled.with_data(**{k: v for k, v in updates.items() if k in compiled.shared_data})
         trace = nutpie.sample(fit, draws=draws, tune=tune, chains=2, cores=1, seed=int(seed) + i,
                               progress_bar=False)
+        converged[i] = diagnose(trace, ["delta", "sigma"], gate)["passed"]
         d = np.asarray(trace.posterior["delta"]).ravel()
         p_pos = float(np.mean(d > 0))
         p_benefit = p_pos if spec.direction > 0 else 1 - p_pos
         success[i] = p_benefit > 1 - spec.alpha / 2
         bayes[i] = p_benefit > 1 - spec.alpha / 2
-    out = {"success": success}
+    out = {"success": success, "converged": converged}
     if spec.analysis_prior is not None:
         out["bayes"] = bayes
     return out
@@ -721,9 +728,18 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
 
     by_n: dict[int, dict[str, Any]] = {n: {"n_per_arm": n, "n_enrolled": enrolled(n, spec.dropout)} for n in sizes}
     path = "exact" if exact else "fast"
+    refits_failed = 0
     for r in results:
         row = by_n[r["n"]]
         res = r[path]
+        if exact and "converged" in res:
+            # refits that failed the quality gate are counted and left out, never trusted
+            ok = np.asarray(res["converged"], dtype=bool)
+            row["refits_failed" if r["what"] == "power" else "assurance_refits_failed"] = int((~ok).sum())
+            refits_failed += int((~ok).sum())
+            res = {k: np.asarray(v)[ok] for k, v in res.items() if k != "converged"}
+            r = {**r, "fast": {k: np.asarray(v)[ok] if np.shape(v)[:1] == ok.shape else v
+                               for k, v in r["fast"].items()}}
         if r["what"] == "power":
             row["power"], row["power_mc_se"] = _mean_se(res["success"])
             if exact:
@@ -739,6 +755,9 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             row["assurance"], row["assurance_mc_se"] = _mean_se(res["success"])
             if "bayes" in res:
                 row["bayesian_success"], row["bayesian_success_mc_se"] = _mean_se(res["bayes"])
+    if refits_failed:
+        notes.append(f"{refits_failed} MCMC refits failed the quality gate (R-hat, bulk or tail ESS, divergences) "
+                     "and were left out of the exact power and assurance; see refits_failed per design point")
     for n, row in by_n.items():
         row["power_analytic"] = (float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis, spec.direction))
                                  if sd > 0 else None)
