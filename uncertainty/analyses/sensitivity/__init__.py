@@ -194,6 +194,38 @@ def _index_warnings(indices: dict[str, dict[str, Any]], keys: Sequence[str]) -> 
     return out
 
 
+def negative_index_notes(indices: dict[str, dict[str, Any]], keys: Sequence[str]) -> list[str]:
+    """Notes for indices whose estimate is below zero although the index cannot be.
+
+    The full first-order index Var(E[Y | X_i]) / Var(Y) and the total index E[Var(Y | X_-i)] / Var(Y)
+    are ratios of variances, never negative, with or without dependence among the inputs; a negative
+    estimate is Monte Carlo error.
+
+    Parameters
+    ----------
+    indices : dict
+        Per input, the index values and their ``<key>_ci`` intervals (dimensionless).
+    keys : sequence of str
+        The index names to look at (e.g. ``("S1", "ST")``).
+
+    Returns
+    -------
+    list of str
+        One note per negative estimate.
+    """
+    out = []
+    for p, ix in indices.items():
+        for key in keys:
+            v = ix.get(key)
+            if v is None or not np.isfinite(v) or v >= 0:
+                continue
+            lo, hi = ix.get(f"{key}_ci", [float("nan"), float("nan")])
+            out.append(f"{key} of {p} is estimated at {v:.3g} (interval [{lo:.3g}, {hi:.3g}]), below zero, "
+                       "which a ratio of variances cannot be, correlated inputs or not: this is Monte Carlo "
+                       "error, so read it as about zero, or raise the samples to narrow it")
+    return out
+
+
 def _per_replicate_size(samples: int, replicates: int, notes: list[str], key: str) -> int:
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer):
         raise InputError("the number of samples must be a whole number", key=key, value=samples)
@@ -613,6 +645,7 @@ def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_i
     if nan_runs:
         warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; their conditional "
                         "blocks are left out")
+    notes += negative_index_notes(indices, ("S1", "ST"))
     notes.append("Shapley effects share the variance among correlated inputs and sum to 1; S1 and ST "
                  "here are the full first-order and total indices under the correlation"
                  + ("" if exact else f"; random-permutation estimator ({per * replicates} orders)"))
