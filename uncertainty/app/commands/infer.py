@@ -44,8 +44,10 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     """Update the study's priors from its [[observations]]: credible intervals for Jv (individual,
     per subject, typical and new subject), prior vs posterior per quantity with contraction,
     diagnostics (R-hat, ESS, divergences, BFMI) and model checks. Exit 3 if the chains fail the
-    quality gate; the posterior is saved as posterior.nc with --out. Sampler settings and gate come
-    from the study's [infer] section where it has one; each flag overrides its key.
+    quality gate (its message names each failed check and what to raise); the posterior is saved as
+    posterior.nc with --out, and after a failed gate every file written starts with GATE-FAILED_.
+    Sampler settings and gate come from the study's [infer] section where it has one; each flag
+    overrides its key.
 
     \b
     Examples:
