@@ -6,6 +6,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from uncertainty.analyses.inference.diagnostics import describe
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import cell, fmt, interval
 from uncertainty.core.html import escape, kv_table, table
@@ -157,10 +158,11 @@ def diagnostics(inf: dict[str, Any]) -> str:
     diag = inf.get("diagnostics")
     if not isinstance(diag, dict):
         return ""
-    parts = ["<h3>Sampler diagnostics</h3><p>r_hat_max should be below about 1.01, ess_bulk_min above "
-             "about 400 and divergences zero (common practice).</p>"]
+    parts = ["<h3>Sampler diagnostics</h3><ul>" + "".join(f"<li>{escape(t)}</li>" for t in describe(diag))
+             + "</ul>"]
     per = diag.get("per_quantity")
-    parts.append(kv_table({k: v for k, v in diag.items() if k != "per_quantity"}))
+    parts.append(kv_table({k: v for k, v in diag.items()
+                           if k not in ("per_quantity", "gate", "failed_quantities")}))
     if isinstance(per, dict) and per:
         keys = [k for k in ("r_hat", "ess_bulk", "ess_tail") if any(k in (v or {}) for v in per.values())]
         parts.append(table(["quantity", *[k.replace("_", " ") for k in keys]],
