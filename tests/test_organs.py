@@ -38,6 +38,16 @@ def test_lung_water_closed_form_without_protein_reflection():
     assert out["tau"] == pytest.approx(p["C_tis"] / (p["Kf"] + p["L"]))
 
 
+def test_evlw_index_of_the_icrp_reference_lung():
+    # ICRP Publication 89 reference male (Turner, Atoms, Radiation, and Radiation Protection, Table 16.1):
+    # 500 g of blood-free lung; predicted body weight at 176 cm, 50 + 0.91 (176 - 152.4) = 71.5 kg (ARDSNet,
+    # common practice). At 75 mL water per 100 g tissue (lung.toml EVLW0, from memory) EVLW is 375 mL, so
+    # EVLWI = 375 / 71.5 = 5.24 mL/kg, inside the normal 7.4 +/- 3.3 mL/kg (Tagami et al. 2010 Crit Care 14:R162).
+    M = 500.0 / 71.5
+    assert lung.evlw_index(75.0, M) == pytest.approx(375.0 / 71.5, rel=1e-12)
+    assert 7.4 - 3.3 < lung.evlw_index(75.0, M) < 7.4 + 3.3
+
+
 def test_left_heart_failure_acts_through_lap():
     # Raised LAP (left-sided failure; 25 mmHg, from memory a typical pulmonary oedema threshold) raises Pc,
     # filtration, lymph flow and lung water; the steady state keeps fluid and protein balances closed.
@@ -173,6 +183,7 @@ CASES = {
         lambda Pi, Pi_ref, C_tis, EVLW0, C_high, P_break, xp=np: lung.extravascular_water(
             Pi, Pi_ref, C_tis, EVLW0, C_high=C_high, P_break=P_break, xp=xp),
         dict(Pi=u(-6, 10), Pi_ref=u(-5, -1), C_tis=u(0.5, 2), EVLW0=u(60, 90), C_high=u(5, 20), P_break=u(-2, 3))),
+    "lung.evlw_index": (lung.evlw_index, dict(EVLW=u(50, 120), M_lung=u(5, 10))),
     "osmotic.crystalloid_sum": (lambda s1, c1, i1, s2, c2, i2: osmotic.crystalloid_sum(
         [(s1, c1, i1), (s2, c2, i2)]), dict(s1=u(0, 1), c1=u(270, 330), i1=u(270, 330), s2=u(0, 1),
                                           c2=u(0, 20), i2=u(0, 20))),

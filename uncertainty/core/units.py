@@ -55,6 +55,7 @@ CANONICAL: dict[str, str] = {
     "GFR": "mL/min", "RPF": "mL/min", "Kf_organ": "mL/min/mmHg", "Jv_organ": "mL/min",
     # other
     "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
+    "M_lung": "g/kg", "EVLWI": "mL/kg",
     "k_clear": "1/min",
     "body_weight": "kg", "fluid_balance": "L", "organ_share": "1",
 }

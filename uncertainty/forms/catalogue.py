@@ -48,9 +48,11 @@ _SAFETY_OPTIONAL = ("C_tis", "C_tis_high", "Pi_break", "JL_max")
 
 
 def _lung(evaluate: FormFunction) -> TissueExtras:
-    """The steady forms in the lung: EVLW0 (mL/100g) in, the extravascular lung water EVLW out."""
-    return TissueExtras(optional=("EVLW0", "G_flood", "P_flood"),
+    """The steady forms in the lung: EVLW0 (mL/100g) and M_lung (g/kg) in, the extravascular lung water EVLW
+    (mL/100g) and its index EVLWI (mL/kg predicted body weight) out."""
+    return TissueExtras(optional=("EVLW0", "M_lung", "G_flood", "P_flood"),
                         outputs=(Output("EVLW", "mL/100g", _VOLUME_NEEDS),
+                                 Output("EVLWI", "mL/kg", (*_VOLUME_NEEDS, "M_lung")),
                                  Output("flooding", "mL/min/100g", ("G_flood", "P_flood"))),
                         evaluate=evaluate)
 
@@ -436,7 +438,7 @@ SOLVED: dict[str, tuple[str, ...]] = {n: s.solved for n, s in FORMS.items()}
 # ---- study vocabulary that is not per form
 
 #: Quantities that are results, never inputs.
-OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "flooding", "safety_margin",
+OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "EVLWI", "flooding", "safety_margin",
                          "Jv_organ", "GFR", "ratio", "volume", "swelling_rate", "time", "tissue_mass", "density",
                          "osmotic_pressure"})
 

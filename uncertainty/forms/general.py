@@ -20,7 +20,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 
 from uncertainty.forms.spec import Array, FormContext, FormResult, Starling
-from uncertainty.physiology import balance, interstitium, mucosa, starling
+from uncertainty.physiology import balance, interstitium, lung, mucosa, starling
 
 Volume = Callable[[Array, Mapping[str, Array], FormContext, object], dict[str, Array]]
 
@@ -60,11 +60,15 @@ def oedema(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> d
 
 def lung_water(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Array]:
     """``oedema_volume`` (as :func:`oedema`) and ``EVLW`` = EVLW0 + oedema_volume (mL/100g; EVLW0 the water
-    of the normally hydrated lung, 0 when not an input); empty without C_tis or a reference Pi."""
+    of the normally hydrated lung, 0 when not an input), and with M_lung (g of blood-free lung per kg predicted
+    body weight) ``EVLWI`` (mL/kg, ``physiology.lung.evlw_index``); empty without C_tis or a reference Pi."""
     got = oedema(Pi, v, ctx, xp)
     if not got:
         return {}
-    return {"oedema_volume": got["oedema_volume"], "EVLW": v.get("EVLW0", 0.0) + got["oedema_volume"]}
+    out = {"oedema_volume": got["oedema_volume"], "EVLW": v.get("EVLW0", 0.0) + got["oedema_volume"]}
+    if "M_lung" in v:  # EVLWI (mL/kg predicted body weight) from the blood-free lung mass per kg (g/kg)
+        out["EVLWI"] = lung.evlw_index(out["EVLW"], v["M_lung"])
+    return out
 
 
 #: Inputs that switch the steady forms to the safety-factor steady state (``balance.safety_steady_state``).
@@ -111,6 +115,8 @@ def _steady_result(res: Mapping[str, Array], pi_o: Array, v: Mapping[str, Array]
     out.update(margin(v, ctx, xp))
     if "EVLW" in got:
         out["EVLW"] = got["EVLW"]
+    if "EVLWI" in got:
+        out["EVLWI"] = got["EVLWI"]
     if "G_flood" in v and "P_flood" in v:
         out["flooding"] = res["flooding"]
     return FormResult(out, Starling(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"]))
