@@ -9,6 +9,8 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 
+from uncertainty.forms import general
+from uncertainty.forms.spec import FormContext
 from uncertainty.physiology import balance, lung, mucosa, osmotic, starling
 from uncertainty.physiology.solute import protein_flux
 
@@ -245,3 +247,20 @@ def test_mucosa_gradient_matches_finite_difference():
     fd = (mucosa.absorbing_steady_state(Pc=22.0 + h, **p, J_epi=J_EPI)["Jv"]
           - mucosa.absorbing_steady_state(Pc=22.0 - h, **p, J_epi=J_EPI)["Jv"]) / (2 * h)
     assert g == pytest.approx(fd, rel=1e-5)
+
+
+def test_brain_classic_form_reaches_the_crystalloid_term():
+    # van 't Hoff at 37 C: R T = 19.34 mmHg per mOsm/kg (common practice). A 10 mOsm/kg plasma excess at
+    # sigma_s 0.95 opposes filtration by 0.95 x 193.4 = 183.7 mmHg, dwarfing the protein term.
+    v = {"Kf": 4e-5, "Pc": 25.0, "Pi": 10.0, "pi_c": 25.6, "pi_i": 0.07, "sigma": 0.995, "sigma_s": 0.95,
+         "Osm_p": 300.0, "Osm_i": 290.0}
+    res = general.brain_classic(v, FormContext(tissue="brain"), np)
+    assert res.outputs["force_osm"] == pytest.approx(-0.95 * 10.0 * osmotic.MMHG_PER_MOSM, rel=1e-12)
+    assert osmotic.MMHG_PER_MOSM == pytest.approx(19.34, abs=0.01)
+    protein = 25.0 - 10.0 - 0.995 * (25.6 - 0.07)
+    assert res.outputs["net_pressure"] == pytest.approx(protein + res.outputs["force_osm"], rel=1e-12)
+    assert res.outputs["Jv"] == pytest.approx(4e-5 * res.outputs["net_pressure"], rel=1e-12)
+    # without the osmolalities the form is Starling's (protein terms only)
+    plain = general.brain_classic({k: v[k] for k in ("Kf", "Pc", "Pi", "pi_c", "pi_i", "sigma")},
+                                  FormContext(tissue="brain"), np)
+    assert plain.outputs["Jv"] == pytest.approx(4e-5 * protein, rel=1e-12)

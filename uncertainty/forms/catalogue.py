@@ -65,6 +65,10 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
         evaluate=general.classic,
         required=("Kf", "Pc", "Pi", "pi_c", "pi_i", "sigma"),
         solved=("pi_g",),
+        # the blood-brain barrier reflects small solutes too: the crystalloid osmotic term (physiology.osmotic)
+        per_tissue={"brain": TissueExtras(optional=general.CRYSTALLOID_INPUTS,
+                                          outputs=(Output("force_osm", "mmHg", general.CRYSTALLOID_INPUTS),),
+                                          evaluate=general.brain_classic)},
     ),
     FormSpec(
         name="steady_state",
@@ -445,7 +449,7 @@ OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "E
 #: Display order of inputs (others follow alphabetically).
 INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C_alb", "C_glob", "pi_i",
                "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0",
-               "JL_max", "G_flood", "P_flood")
+               "JL_max", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s")
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "
