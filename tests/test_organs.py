@@ -9,6 +9,8 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 
+from uncertainty.forms import general
+from uncertainty.forms.spec import FormContext
 from uncertainty.physiology import balance, lung, mucosa, osmotic, starling
 from uncertainty.physiology.solute import protein_flux
 
@@ -36,6 +38,16 @@ def test_lung_water_closed_form_without_protein_reflection():
     assert out["Jv"] == pytest.approx(Jv, rel=1e-10)
     assert out["EVLW"] == pytest.approx(50.0 + p["C_tis"] * (p["Pi_L0"] + Jv / p["L"] - p["Pi_ref"]), rel=1e-10)
     assert out["tau"] == pytest.approx(p["C_tis"] / (p["Kf"] + p["L"]))
+
+
+def test_evlw_index_of_the_icrp_reference_lung():
+    # ICRP Publication 89 reference male (Turner, Atoms, Radiation, and Radiation Protection, Table 16.1):
+    # 500 g of blood-free lung; predicted body weight at 176 cm, 50 + 0.91 (176 - 152.4) = 71.5 kg (ARDSNet,
+    # common practice). At 75 mL water per 100 g tissue (lung.toml EVLW0, from memory) EVLW is 375 mL, so
+    # EVLWI = 375 / 71.5 = 5.24 mL/kg, inside the normal 7.4 +/- 3.3 mL/kg (Tagami et al. 2010 Crit Care 14:R162).
+    M = 500.0 / 71.5
+    assert lung.evlw_index(75.0, M) == pytest.approx(375.0 / 71.5, rel=1e-12)
+    assert 7.4 - 3.3 < lung.evlw_index(75.0, M) < 7.4 + 3.3
 
 
 def test_left_heart_failure_acts_through_lap():
@@ -173,6 +185,7 @@ CASES = {
         lambda Pi, Pi_ref, C_tis, EVLW0, C_high, P_break, xp=np: lung.extravascular_water(
             Pi, Pi_ref, C_tis, EVLW0, C_high=C_high, P_break=P_break, xp=xp),
         dict(Pi=u(-6, 10), Pi_ref=u(-5, -1), C_tis=u(0.5, 2), EVLW0=u(60, 90), C_high=u(5, 20), P_break=u(-2, 3))),
+    "lung.evlw_index": (lung.evlw_index, dict(EVLW=u(50, 120), M_lung=u(5, 10))),
     "osmotic.crystalloid_sum": (lambda s1, c1, i1, s2, c2, i2: osmotic.crystalloid_sum(
         [(s1, c1, i1), (s2, c2, i2)]), dict(s1=u(0, 1), c1=u(270, 330), i1=u(270, 330), s2=u(0, 1),
                                           c2=u(0, 20), i2=u(0, 20))),
@@ -234,3 +247,20 @@ def test_mucosa_gradient_matches_finite_difference():
     fd = (mucosa.absorbing_steady_state(Pc=22.0 + h, **p, J_epi=J_EPI)["Jv"]
           - mucosa.absorbing_steady_state(Pc=22.0 - h, **p, J_epi=J_EPI)["Jv"]) / (2 * h)
     assert g == pytest.approx(fd, rel=1e-5)
+
+
+def test_brain_classic_form_reaches_the_crystalloid_term():
+    # van 't Hoff at 37 C: R T = 19.34 mmHg per mOsm/kg (common practice). A 10 mOsm/kg plasma excess at
+    # sigma_s 0.95 opposes filtration by 0.95 x 193.4 = 183.7 mmHg, dwarfing the protein term.
+    v = {"Kf": 4e-5, "Pc": 25.0, "Pi": 10.0, "pi_c": 25.6, "pi_i": 0.07, "sigma": 0.995, "sigma_s": 0.95,
+         "Osm_p": 300.0, "Osm_i": 290.0}
+    res = general.brain_classic(v, FormContext(tissue="brain"), np)
+    assert res.outputs["force_osm"] == pytest.approx(-0.95 * 10.0 * osmotic.MMHG_PER_MOSM, rel=1e-12)
+    assert osmotic.MMHG_PER_MOSM == pytest.approx(19.34, abs=0.01)
+    protein = 25.0 - 10.0 - 0.995 * (25.6 - 0.07)
+    assert res.outputs["net_pressure"] == pytest.approx(protein + res.outputs["force_osm"], rel=1e-12)
+    assert res.outputs["Jv"] == pytest.approx(4e-5 * res.outputs["net_pressure"], rel=1e-12)
+    # without the osmolalities the form is Starling's (protein terms only)
+    plain = general.brain_classic({k: v[k] for k in ("Kf", "Pc", "Pi", "pi_c", "pi_i", "sigma")},
+                                  FormContext(tissue="brain"), np)
+    assert plain.outputs["Jv"] == pytest.approx(4e-5 * protein, rel=1e-12)

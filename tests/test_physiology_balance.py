@@ -7,7 +7,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import brentq
 
-from uncertainty.physiology.balance import revised_steady_state, steady_state
+from uncertainty.physiology.balance import revised_steady_state, safety_steady_state, steady_state
 from uncertainty.physiology.oncotic import pi_total_protein
 from uncertainty.physiology.solute import protein_flux, steady_state_ratio
 from uncertainty.physiology.starling import filtration
@@ -168,3 +168,14 @@ def test_no_lymph_state_when_capillary_pressure_is_below_the_lymph_zero() -> Non
         assert np.allclose(low["pi_i"], 25.0)
         edge = fn(Pc=np.array([2.0 + 1e-9]), **args)
         assert edge["Jv"][0] >= 0 and abs(edge["Pi"][0] - 2.0) < 1e-6
+
+
+def test_safety_state_keeps_lymph_forward_when_flooding_opens_near_pi_l0():
+    # A lung prior draw whose flooding pressure lies only 1.7 mmHg (3.4 smoothing widths) above Pi_L0: the
+    # softplus tail of the overflow once pushed the root below Pi_L0, with lymph running backwards (Jv < 0).
+    # Levick & Michel 2010 (Cardiovasc Res 87:198): no sustained absorption at steady state in an ordinary
+    # tissue, so Jv >= 0 and Pi >= Pi_L0 (lymph cannot flow backwards).
+    out = safety_steady_state(0.0308, 5.29, 0.811, 0.0171, 28.0, 0.00596, -0.233, C_tis=0.125, C_high=6.02,
+                              P_break=1.07, JL_max=0.288, G_flood=3.82, P_flood=1.49, Cp=7.64)
+    assert out["Jv"] >= 0.0 and out["JL"] >= 0.0 and out["flooding"] >= 0.0
+    assert out["Pi"] >= -0.233

@@ -37,6 +37,8 @@ SYMBOLS = {
     # safety factors of the steady forms (issue 15 item 1): compliance past the break of the pressure-volume
     # curve, the break pressure, and in the lung the alveolar flooding pressure and conductance
     "C_tis_high", "Pi_break", "P_flood", "G_flood",
+    "sigma_s",  # reflection coefficient of the blood-brain barrier to small solutes (crystalloid term)
+    "M_lung",  # blood-free lung mass per kg predicted body weight: EVLW -> EVLWI (issue 15 item 1)
 }
 
 #: Quantities that may be negative (DESIGN.md section 4: "Negative pressures are valid where the

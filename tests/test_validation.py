@@ -134,7 +134,8 @@ def test_validate_command_json_shape() -> None:
     assert res.exit_code == 0, res.output
     doc = json.loads(res.output)
     assert set(doc) >= {"rows", "counts", "samples", "seed", "layer", "closed_gaps"}
-    assert doc["layer"] == "typical" and len(doc["rows"]) == 3
+    # every brain row of the shipped table (3 before the crystalloid-term rows of issue 15 item 2)
+    assert doc["layer"] == "typical" and len(doc["rows"]) == len(load_table(tissue="brain")) == 5
     for row in doc["rows"]:
         assert set(row) >= {"id", "quantity", "tissue", "model", "conditions", "low", "high", "unit", "source",
                             "median", "ci95", "verdict", "known_gap", "kind"}

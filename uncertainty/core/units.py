@@ -34,15 +34,16 @@ CANONICAL: dict[str, str] = {
     "Pc": "mmHg", "Pi": "mmHg", "pi_c": "mmHg", "pi_i": "mmHg", "pi_g": "mmHg",
     "Pa": "mmHg", "Pv": "mmHg", "Pvi": "mmHg", "LAP": "mmHg", "PAP": "mmHg",
     "Pi_L0": "mmHg", "Pi_break": "mmHg", "P_flood": "mmHg", "safety_margin": "mmHg", "net_pressure": "mmHg",
+    "force_osm": "mmHg",
     "Pcuff": "mmHg",
     "Pgc": "mmHg", "Pbs": "mmHg", "pi_bs": "mmHg", "pi_e": "mmHg", "dP": "mmHg",
     "bias": "mmHg", "osmotic_pressure": "mmHg",
     # dimensionless
     "sigma": "1", "r": "1", "transmission": "1", "FF": "1", "sigma_osm": "1", "ratio": "1",
-    "sigma_g": "1",
+    "sigma_g": "1", "sigma_s": "1",
     # concentrations
     "Cp": "g/dL", "Ci": "g/dL", "C_alb": "g/dL", "C_glob": "g/dL", "Ci_alb": "g/dL", "Ci_glob": "g/dL",
-    "osmolality": "mOsm/kg", "d_osmolality": "mOsm/kg",
+    "osmolality": "mOsm/kg", "d_osmolality": "mOsm/kg", "Osm_p": "mOsm/kg", "Osm_i": "mOsm/kg",
     # per-tissue quantities (basis suffix)
     "Kf": "mL/min/mmHg/100g",
     "Jv": "mL/min/100g", "JL": "mL/min/100g", "JL_max": "mL/min/100g", "swelling_rate": "mL/min/100g",
@@ -55,6 +56,7 @@ CANONICAL: dict[str, str] = {
     "GFR": "mL/min", "RPF": "mL/min", "Kf_organ": "mL/min/mmHg", "Jv_organ": "mL/min",
     # other
     "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
+    "M_lung": "g/kg", "EVLWI": "mL/kg",
     "k_clear": "1/min",
     "body_weight": "kg", "fluid_balance": "L", "organ_share": "1",
 }

@@ -48,9 +48,11 @@ _SAFETY_OPTIONAL = ("C_tis", "C_tis_high", "Pi_break", "JL_max")
 
 
 def _lung(evaluate: FormFunction) -> TissueExtras:
-    """The steady forms in the lung: EVLW0 (mL/100g) in, the extravascular lung water EVLW out."""
-    return TissueExtras(optional=("EVLW0", "G_flood", "P_flood"),
+    """The steady forms in the lung: EVLW0 (mL/100g) and M_lung (g/kg) in, the extravascular lung water EVLW
+    (mL/100g) and its index EVLWI (mL/kg predicted body weight) out."""
+    return TissueExtras(optional=("EVLW0", "M_lung", "G_flood", "P_flood"),
                         outputs=(Output("EVLW", "mL/100g", _VOLUME_NEEDS),
+                                 Output("EVLWI", "mL/kg", (*_VOLUME_NEEDS, "M_lung")),
                                  Output("flooding", "mL/min/100g", ("G_flood", "P_flood"))),
                         evaluate=evaluate)
 
@@ -63,6 +65,10 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
         evaluate=general.classic,
         required=("Kf", "Pc", "Pi", "pi_c", "pi_i", "sigma"),
         solved=("pi_g",),
+        # the blood-brain barrier reflects small solutes too: the crystalloid osmotic term (physiology.osmotic)
+        per_tissue={"brain": TissueExtras(optional=general.CRYSTALLOID_INPUTS,
+                                          outputs=(Output("force_osm", "mmHg", general.CRYSTALLOID_INPUTS),),
+                                          evaluate=general.brain_classic)},
     ),
     FormSpec(
         name="steady_state",
@@ -436,14 +442,14 @@ SOLVED: dict[str, tuple[str, ...]] = {n: s.solved for n, s in FORMS.items()}
 # ---- study vocabulary that is not per form
 
 #: Quantities that are results, never inputs.
-OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "flooding", "safety_margin",
+OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "EVLWI", "flooding", "safety_margin",
                          "Jv_organ", "GFR", "ratio", "volume", "swelling_rate", "time", "tissue_mass", "density",
                          "osmotic_pressure"})
 
 #: Display order of inputs (others follow alphabetically).
 INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C_alb", "C_glob", "pi_i",
                "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0",
-               "JL_max", "G_flood", "P_flood")
+               "JL_max", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s")
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "

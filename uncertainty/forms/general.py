@@ -20,7 +20,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 
 from uncertainty.forms.spec import Array, FormContext, FormResult, Starling
-from uncertainty.physiology import balance, interstitium, mucosa, starling
+from uncertainty.physiology import balance, interstitium, lung, mucosa, osmotic, starling
 
 Volume = Callable[[Array, Mapping[str, Array], FormContext, object], dict[str, Array]]
 
@@ -29,6 +29,28 @@ def classic(v: Mapping[str, Array], ctx: FormContext, xp: object) -> FormResult:
     """Jv (mL/min/100g) from Kf, Pc, Pi, pi_c, pi_i (mmHg) and sigma (Starling 1896)."""
     Jv = starling.filtration(v["Kf"], v["Pc"], v["Pi"], v["pi_c"], v["pi_i"], v["sigma"])
     return FormResult({"Jv": Jv}, Starling(v["Pc"], v["Pi"], v["pi_c"], v["pi_i"], v["sigma"]))
+
+
+#: Inputs of the brain's crystalloid (small-solute) osmotic term: plasma and interstitial osmolality (mOsm/kg)
+#: and the barrier's reflection coefficient to small solutes (1).
+CRYSTALLOID_INPUTS = ("Osm_p", "Osm_i", "sigma_s")
+
+
+def brain_classic(v: Mapping[str, Array], ctx: FormContext, xp: object) -> FormResult:
+    """Starling's equation at the blood-brain barrier: with Osm_p, Osm_i (mOsm/kg) and sigma_s (1) the
+    crystalloid term sigma_s R T (Osm_p - Osm_i) (about 19.3 mmHg per mOsm/kg at 37 C) opposes filtration
+    beside the protein term (``physiology.osmotic.brain_filtration``), and ``force_osm`` (mmHg) is its signed
+    share of ``net_pressure``; without them, :func:`classic`. Jv in mL/min/100g."""
+    if not all(k in v for k in CRYSTALLOID_INPUTS):
+        return classic(v, ctx, xp)
+    args = (v["Pc"], v["Pi"], v["pi_c"], v["pi_i"], v["sigma"], v["sigma_s"], v["Osm_p"], v["Osm_i"])
+    f = osmotic.brain_forces(*args)
+    out: dict[str, Array] = {"Jv": osmotic.brain_filtration(v["Kf"], *args),
+                             "net_pressure": osmotic.brain_net_pressure(*args)}
+    for k in ("Pc", "Pi", "pi_c", "pi_i"):
+        out[f"force_{k}"] = f[k]
+    out["force_osm"] = f["osm"]
+    return FormResult(out)
 
 
 Args7 = tuple[Array, Array, Array, Array, Array, Array, Array]
@@ -60,11 +82,15 @@ def oedema(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> d
 
 def lung_water(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Array]:
     """``oedema_volume`` (as :func:`oedema`) and ``EVLW`` = EVLW0 + oedema_volume (mL/100g; EVLW0 the water
-    of the normally hydrated lung, 0 when not an input); empty without C_tis or a reference Pi."""
+    of the normally hydrated lung, 0 when not an input), and with M_lung (g of blood-free lung per kg predicted
+    body weight) ``EVLWI`` (mL/kg, ``physiology.lung.evlw_index``); empty without C_tis or a reference Pi."""
     got = oedema(Pi, v, ctx, xp)
     if not got:
         return {}
-    return {"oedema_volume": got["oedema_volume"], "EVLW": v.get("EVLW0", 0.0) + got["oedema_volume"]}
+    out = {"oedema_volume": got["oedema_volume"], "EVLW": v.get("EVLW0", 0.0) + got["oedema_volume"]}
+    if "M_lung" in v:  # EVLWI (mL/kg predicted body weight) from the blood-free lung mass per kg (g/kg)
+        out["EVLWI"] = lung.evlw_index(out["EVLW"], v["M_lung"])
+    return out
 
 
 #: Inputs that switch the steady forms to the safety-factor steady state (``balance.safety_steady_state``).
@@ -111,6 +137,8 @@ def _steady_result(res: Mapping[str, Array], pi_o: Array, v: Mapping[str, Array]
     out.update(margin(v, ctx, xp))
     if "EVLW" in got:
         out["EVLW"] = got["EVLW"]
+    if "EVLWI" in got:
+        out["EVLWI"] = got["EVLWI"]
     if "G_flood" in v and "P_flood" in v:
         out["flooding"] = res["flooding"]
     return FormResult(out, Starling(v["Pc"], Pi, v["pi_c"], pi_o, v["sigma"]))

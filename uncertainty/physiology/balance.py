@@ -175,14 +175,20 @@ BISECTION_STEPS = 48  # halvings of a bracket of at most a few hundred mmHg: bel
 
 def _safety_outflow(Pi: Array, L: Array, Pi_L0: Array, tissue: tuple[Array | None, ...], xp: Any
                     ) -> tuple[Array, Array, Array, Array]:
-    """Lymph JL, overflow (flooding) Jf and their slopes d/dPi at Pi (mL/min, mL/min/mmHg per basis)."""
+    """Lymph JL, overflow (flooding) Jf and their slopes d/dPi at Pi (mL/min, mL/min/mmHg per basis).
+
+    The overflow is counted from its (smoothing) value at Pi_L0, so that both flows are 0 there: the outflow
+    vanishes at the low end of the bracket [Pi_L0, Pc] and the root stays inside it even when P_flood lies only
+    a few smoothing widths above Pi_L0 (the softplus tail of ``interstitium.overflow`` is otherwise a small
+    flow at pressures where no alveolus floods)."""
     C_tis, C_high, P_break, JL_max, G_flood, P_flood = tissue
     JL, dJL = volume_lymph_flow(Pi, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp)
     if G_flood is None or P_flood is None:
         zero = 0.0 * Pi
         return JL, zero, dJL, zero
     Jf, dJf = overflow(Pi, G_flood, P_flood, xp=xp)
-    return JL, Jf, dJL, dJf
+    Jf0, _ = overflow(Pi_L0, G_flood, P_flood, xp=xp)
+    return JL, Jf - Jf0, dJL, dJf
 
 
 def _safety_residual(Pi: Array, Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
@@ -276,7 +282,7 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
     x = _stop_gradient(0.5 * (lo + hi), xp)
     g, dg = _safety_residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, tissue, Cp, xp)
     safe = xp.where(dg < 0, dg, -1.0)
-    x = x - g / safe
+    x = xp.maximum(x - g / safe, lo0)  # the root lies in [Pi_L0, Pc]: keep the Newton step there
     flowing = Pc - Pi_L0 + full > 0
     Pi = xp.where(flowing, x, Pc + full)
     JL, Jf, _, _ = _safety_outflow(Pi, L, Pi_L0, tissue, xp)

@@ -43,6 +43,26 @@ def extravascular_water(Pi: Array, Pi_ref: Array, C_tis: Array, EVLW0: Array = 0
     return {"oedema_volume": extra, "EVLW": EVLW0 + extra}
 
 
+def evlw_index(EVLW: Array, M_lung: Array) -> Array:
+    """Extravascular lung water index EVLWI (mL per kg predicted body weight).
+
+    Parameters
+    ----------
+    EVLW : array
+        Extravascular lung water (mL per 100 g of blood-free lung tissue).
+    M_lung : array
+        Blood-free lung tissue mass per kg of predicted body weight (g/kg).
+
+    Returns
+    -------
+    array
+        EVLW M_lung / 100 (mL/kg): the quantity transpulmonary thermodilution reports (indexed to predicted
+        body weight; Tagami T et al. 2010 Crit Care 14:R162, abstract: normal about 7.4 +/- 3.3 mL/kg).
+        Plain arithmetic (numpy arrays or PyTensor tensors).
+    """
+    return EVLW * M_lung / 100.0
+
+
 def lung_water(Kf: Array, LAP: Array, PAP: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
                C_tis: Array, Pi_ref: Array, EVLW0: Array = 0.0, *, fraction: Array = 0.4,
                C_high: Array | None = None, P_break: Array | None = None, JL_max: Array | None = None,

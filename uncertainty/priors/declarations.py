@@ -83,7 +83,7 @@ POSITIVE = frozenset({
     "Kf", "PS", "C_tis", "C_tis_high", "C_v", "L", "sigma", "sigma_g", "sigma_osm", "pi_c", "pi_i",
     "pi_g", "Cp", "Ci", "C_alb", "C_glob", "Ci_alb", "Ci_glob", "r", "JL_max", "tissue_mass",
     "density", "Pa", "PAP", "tau_v", "k_clear", "Kf_organ", "transmission", "osmolality", "V_dist",
-    "J_epi", "EVLW0", "G_flood",
+    "J_epi", "EVLW0", "G_flood", "M_lung", "Osm_p", "Osm_i",
 })
 
 
@@ -97,11 +97,11 @@ ZERO_ALLOWED = frozenset({"pi_i", "pi_g", "Ci", "Ci_alb", "Ci_glob", "PS", "PS_l
 
 
 #: Quantities confined to 0..1.
-UNIT_INTERVAL = frozenset({"sigma", "sigma_g", "sigma_osm", "transmission", "FF"})
+UNIT_INTERVAL = frozenset({"sigma", "sigma_g", "sigma_osm", "sigma_s", "transmission", "FF"})
 
 
 #: Quantities whose between-subject spread is applied on the logit scale.
-LOGIT_LAYER = frozenset({"sigma", "sigma_g", "sigma_osm", "transmission"})
+LOGIT_LAYER = frozenset({"sigma", "sigma_g", "sigma_osm", "sigma_s", "transmission"})
 
 
 #: A normal prior on a positive quantity is accepted when its mass below zero is below this.
