@@ -59,6 +59,14 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "The treatment effect on one quantity: a ratio (`multiply`) or a difference (`shift`)."),
     ("design.spread", "between_subject / within_subject / measurement = { sd | cv }", "Spread",
      "A spread: `sd` in the quantity's canonical unit, or `cv` (a fraction)."),
+    ("interventions", "[[interventions]]", "Intervention",
+     "The `whole_body` form's infusions and bleeds, one table each, in any order. Refused (exit 2, naming the "
+     "key and value): a volume that is not positive, a start at or after the timeline's end, an unknown fluid, "
+     "bleeds that together reach the blood volume (70 mL/kg of `[study] body_mass`), interventions in another "
+     "form."),
+    ("timeline", "[timeline]", "TimelineSection",
+     "How long the `whole_body` time courses run and how often `propagate` reports them (its `timeline` entry: "
+     "median and 95% interval per reported time for the typical subject and the individual)."),
     ("schedule", "[schedule]", "ScheduleSection",
      "Venous-cuff measurement schedule: the cuff pressures and K reading times that minimise the expected "
      "posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision), against equal "
@@ -85,6 +93,18 @@ MEANINGS: dict[str, str] = {
     "study.seed": "random seed; the same study and seed give the same numbers",
     "study.tissue_mass": "mass of the limb or organ for whole-tissue shifts (Jv in mL/h and L/day); a number in "
                          "kg or a string with a unit (\"3.2 kg\")",
+    "study.body_mass": "whole_body form: body mass, which scales the tissue beds, blood volume and vascular "
+                       "compliance; a number in kg or a string with a unit (\"73 kg\"); default 70 kg",
+    "interventions.kind": "infusion (of `fluid`) or bleed (whole blood lost at the current haematocrit)",
+    "interventions.fluid": "infusions: crystalloid (no protein), albumin_5 (5 g/dL), albumin_20 (20 g/dL)",
+    "interventions.volume": "volume given or lost: a number in mL or a string with a unit (\"1750 mL\")",
+    "interventions.start": "when it starts: a number in min or a string with a unit (\"0 min\")",
+    "interventions.duration": "how long it lasts (constant rate): min or a string with a unit; 0 gives it at once",
+    "interventions.note": "free text",
+    "timeline.end": "end of the time courses: a number in min or a string with a unit (\"4 h\")",
+    "timeline.report_every": "reporting interval: min or a string with a unit; the solver's fixed step (at most "
+                             "0.5 min) divides it",
+    "timeline.draws": "draws per layer (typical, individual) of the time courses in propagate",
     "study.description": "free text",
     "study.note": "free text",
     "correlations.pairs": "[[a, b, rho], ...]: normal-score correlation rho (-1..1) between inputs a and b",

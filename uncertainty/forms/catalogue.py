@@ -18,7 +18,7 @@ from typing import Any
 
 from uncertainty.core.errors import StudyError
 from uncertainty.core.units import CANONICAL
-from uncertainty.forms import general, glomerular
+from uncertainty.forms import general, glomerular, whole_body
 from uncertainty.forms.spec import PI_REF, TISSUE_MASS, FormFunction, FormSpec, Output, TissueExtras
 from uncertainty.forms.study_like import StudyLike
 
@@ -110,6 +110,17 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
         notes=glomerular.notes,
         tissue_mass="(the kidney mass) to relate renal plasma flow (mL/min) to Kf per 100 g",
         observation_kinds=("GFR", "RPF", "filtration_fraction"),
+    ),
+    FormSpec(
+        name="whole_body",
+        summary=("plasma, red cells and two interstitial beds over time after infusions and bleeds "
+                 "([[interventions]], [timeline]); scalar outputs: the resting state of the study's bed"),
+        evaluate=whole_body.evaluate,
+        required=("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0", "C_tis"),
+        optional=("C_tis_high", "Pi_break", "JL_max", "r", "Cp"),
+        solved=("Pi", "pi_i", "pi_g"),
+        outputs=_STEADY_OUTPUTS,
+        tissues=("skeletal_muscle",),
     ),
 )}
 

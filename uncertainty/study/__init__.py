@@ -44,6 +44,8 @@ from uncertainty.study.schema import (  # noqa: F401
     DesignSection,
     Effect,
     InferSection,
+    Intervention,
+    InterventionList,
     Number,
     Observation,
     PropagateSection,
@@ -56,6 +58,7 @@ from uncertainty.study.schema import (  # noqa: F401
     StepSpec,
     StudySection,
     TimeColumn,
+    TimelineSection,
 )
 from uncertainty.study.study import (  # noqa: F401
     Study,

@@ -64,6 +64,7 @@ from uncertainty.priors import (
     parse_prior,
 )
 from uncertainty.study.data_files import read_csv
+from uncertainty.study.interventions import validate_interventions
 from uncertainty.study.schema import (
     CSV_COLUMNS,
     OBS_SYMBOL,
@@ -326,6 +327,8 @@ def validate_document(doc: Any, file: str, path: Path | None, base_dir: Path,
         for i, name in enumerate(names):
             if name in names[:i]:
                 raise study_error("scenario names must be unique", file, f"scenarios[{i}].name", name)
+    if "interventions" in doc:  # a list of tables (whole_body form), resolved by study.interventions
+        sections["interventions"] = validate_interventions(doc["interventions"], file)
     kept = copy.deepcopy(dict(doc))
     return StudyInput(head=head, parameters=_read_only(kept.get("parameters", {})), correlations=correlations,
                       sections=MappingProxyType(sections), observations=observations, file=file, path=path,

@@ -7,7 +7,7 @@ import math
 from pathlib import Path
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, RootModel, field_validator, model_validator
 
 from uncertainty.forms.catalogue import MODEL_FORMS
 from uncertainty.priors import (
@@ -31,6 +31,7 @@ class StudySection(BaseModel):
     seed: int = Field(default=1, ge=0, lt=2**63)
     tissue_mass: float | str | None = None
     posture_height: float | str | None = None
+    body_mass: float | str | None = None  # whole_body form: body mass (kg, or "73 kg"); scales the tissue beds
     description: str = ""
     note: str = ""
 
@@ -528,6 +529,50 @@ class Scenario(BaseModel):
         return self
 
 
+#: Fluids an infusion may give, with their protein content (``physiology.whole_body.FLUID_PROTEIN_G_PER_DL``).
+FLUIDS = ("crystalloid", "albumin_5", "albumin_20")
+
+
+class Intervention(BaseModel):
+    """One ``[[interventions]]`` entry of the ``whole_body`` form: an infusion of a fluid or a bleed.
+
+    ``volume`` (e.g. ``"1750 mL"``, or a number in mL), ``start`` and ``duration`` (e.g. ``"30 min"``, or a
+    number in min) are converted to canonical units (mL, min) when the study is resolved
+    (``uncertainty.study.interventions``)."""
+
+    model_config = STRICT_CONFIG
+    kind: Literal["infusion", "bleed"] = Field(description="infusion (of ``fluid``) or bleed (whole blood lost)")
+    fluid: Literal["crystalloid", "albumin_5", "albumin_20"] | None = Field(default=None, description=(
+        "infused fluid: crystalloid (no protein), albumin_5 (5 g/dL), albumin_20 (20 g/dL); infusions only"))
+    volume: float | str = Field(description="volume given or lost, mL (a number) or a string with its unit")
+    start: float | str = Field(default=0.0, description="when it starts, min (a number) or with its unit")
+    duration: float | str = Field(default=0.0, description=(
+        "how long it lasts, min (0: given at once, within the first time step)"))
+    note: str = ""
+
+    @model_validator(mode="after")
+    def _fluid(self) -> Intervention:
+        if self.kind == "infusion" and self.fluid is None:
+            raise ValueError("an infusion names its fluid: crystalloid, albumin_5 or albumin_20")
+        if self.kind == "bleed" and self.fluid is not None:
+            raise ValueError("a bleed takes no fluid")
+        return self
+
+
+class InterventionList(RootModel[list[Intervention]]):
+    """``[[interventions]]``: the infusions and bleeds of a ``whole_body`` study, in any order."""
+
+
+class TimelineSection(BaseModel):
+    """``[timeline]``: how long the ``whole_body`` time courses run and how often they are reported."""
+
+    model_config = STRICT_CONFIG
+    end: float | str = Field(default=240.0, description="end of the time courses, min (or with its unit)")
+    report_every: float | str = Field(default=5.0, description="reporting interval, min (or with its unit)")
+    draws: int = Field(default=2048, ge=16, le=2**20, description=(
+        "draws of the time courses per layer (typical, individual) in propagate"))
+
+
 SECTIONS: dict[str, type[BaseModel]] = {
     "propagate": PropagateSection,
     "sensitivity": SensitivitySection,
@@ -535,11 +580,12 @@ SECTIONS: dict[str, type[BaseModel]] = {
     "design": DesignSection,
     "schedule": ScheduleSection,
     "infer": InferSection,
+    "timeline": TimelineSection,
 }
 
 
 TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", "observations", "infer",
-             "rank", "design", "schedule", "scenarios")
+             "rank", "design", "schedule", "scenarios", "interventions", "timeline")
 
 
 #: Required CSV columns per observation kind; a time column is one of TIME_COLUMNS.

@@ -33,6 +33,7 @@ from uncertainty.core.errors import StudyError, UnitError
 from uncertainty.core.toml_io import parse_toml_bytes
 from uncertainty.forms.catalogue import study_outputs
 from uncertainty.priors import Derivation, Instrument, Prior, prior_rows
+from uncertainty.study.interventions import TimelinePlan, resolve_timeline
 from uncertainty.study.resolve import (
     StudyInput,
     apply_conditions,
@@ -48,12 +49,14 @@ from uncertainty.study.resolve import (
 from uncertainty.study.schema import (
     DesignSection,
     InferSection,
+    InterventionList,
     Observation,
     PropagateSection,
     RankSection,
     Scenario,
     ScheduleSection,
     SensitivitySection,
+    TimelineSection,
 )
 
 
@@ -85,6 +88,7 @@ class Study:
         scenarios: the ``[[scenarios]]`` what-ifs with their changes in canonical units, or None without them.
         source: the validated sections as written that the study was resolved from (and, for
             provenance, the document as written: ``source.document``), or None.
+        timeline: the ``whole_body`` form's interventions and timeline in canonical units, or None.
     """
 
     path: Path | None
@@ -115,6 +119,12 @@ class Study:
     Pi_ref: float | None = None
     source: StudyInput | None = field(default=None, repr=False)
     scenarios: list[Scenario] | None = None
+    timeline: TimelinePlan | None = None
+
+    @property
+    def interventions(self) -> tuple[Any, ...] | None:
+        """The ``whole_body`` form's interventions in canonical units (``physiology.whole_body.Dose``), or None."""
+        return self.timeline.doses if self.timeline is not None and self.timeline.doses else None
 
     @property
     def file(self) -> str | None:
@@ -262,17 +272,21 @@ def _study_from(inp: StudyInput) -> Study:
     sections = resolve_sections(inp, form, base, Pi_ref)
     priors = {**form.priors, **dict(sections.kept.priors)}
     scenarios = resolve_scenarios(inp.scenarios, head, set(form.priors) | set(form.derived), base, file)
+    plan = resolve_timeline(head, inp.section("interventions", InterventionList),
+                            inp.section("timeline", TimelineSection), file)
     corr = resolve_correlations(priors, form.declared.derived, base.prior_set.correlations, declared.overridden,
                                 inp.correlations, head.model, file)
     return Study(path=inp.path, hash=inp.file_hash, title=head.title, tissue=head.tissue,
                  conditions=list(head.conditions), model=head.model, seed=head.seed,
                  tissue_mass_kg=base.tissue_mass_kg, basis=base.prior_set.basis, density=base.density,
                  priors=priors, derived=dict(form.derived), names=corr.names, correlation=corr.matrix,
-                 correlations=corr.pairs, notes=[*form.declared.notes, *sections.kept.notes, *corr.notes],
+                 correlations=corr.pairs, notes=[*form.declared.notes, *sections.kept.notes, *corr.notes,
+                        *(plan.notes if plan is not None else ())],
                  propagate=sections.propagate, sensitivity=sections.sensitivity,
                  observations=sections.observations, rank=sections.rank, design=sections.design,
                  schedule=sections.schedule, infer=sections.infer, instruments=dict(sections.kept.instruments),
-                 steady_Cp=steady_Cp, Pi_ref=Pi_ref, source=inp, scenarios=scenarios or None)
+                 steady_Cp=steady_Cp, Pi_ref=Pi_ref, source=inp, scenarios=scenarios or None,
+                 timeline=plan)
 
 
 def load_study(path: str | Path) -> Study:

@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.propagate.result import PropagateResult, Summary
+from uncertainty.analyses.propagate.timeline import timeline as whole_body_timeline
 from uncertainty.analyses.sampling import (
     METHODS,
     cube_columns,
@@ -395,6 +396,8 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     result.study = study_meta(study)
     add_form_notes(result)
     flag_implausible_flux(result, getattr(study, "tissue_mass_kg", None), form)
+    if getattr(study, "timeline", None) is not None:  # whole_body form: time courses after the interventions
+        result.timeline = whole_body_timeline(study, seed)
     if not has_bs:
         result.notes.append("no between-subject spread declared: the individual equals the typical "
                             "subject")

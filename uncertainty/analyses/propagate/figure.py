@@ -45,3 +45,37 @@ def plot_distribution(result: Any, out_dir: str, output: str = "Jv") -> list[str
         fig.suptitle(f"P(absorption, Jv < 0) for the individual: {p:.3g}", fontsize=10)
     fig.tight_layout()
     return save_figure(fig, out_dir, f"propagate_{output}")
+
+
+def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> list[str]:
+    """Fan charts of a ``whole_body`` timeline: for each reported time course the median line and the 95%
+    band over time (min) for the typical subject (``layer``), units as ``tl["units"]``; the interventions are
+    shaded. Observed points are drawn when ``tl["observed"]`` maps a name to ``{"times_min", "values"}``.
+    PNG and SVG paths."""
+    plt = pyplot()
+    names = list((tl.get(layer) or {}).keys())
+    t = np.asarray(tl.get("times_min") or [], dtype=float)
+    cols = 3
+    rows = max(1, -(-len(names) // cols))
+    fig, axes = plt.subplots(rows, cols, figsize=(11, 3.0 * rows), squeeze=False)
+    for ax, name in zip(axes.ravel(), names, strict=False):
+        d = tl[layer][name]
+        med = np.array([np.nan if m is None else m for m in d["median"]], dtype=float)
+        ci = np.array([[np.nan if x is None else x for x in pair] for pair in d["ci95"]], dtype=float)
+        ax.fill_between(t, ci[:, 0], ci[:, 1], color=STYLE["typical"], alpha=0.25, lw=0, label="95% interval")
+        ax.plot(t, med, color=STYLE["typical"], lw=1.6, label="median")
+        for iv in tl.get("interventions") or []:
+            a = iv["start_min"]
+            b = a + max(iv["duration_min"], 0.5)
+            ax.axvspan(a, b, color="#dd3333" if iv["kind"] == "bleed" else "#3b6ea5", alpha=0.08, lw=0)
+        obs = (tl.get("observed") or {}).get(name)
+        if obs:
+            ax.plot(obs["times_min"], obs["values"], "o", color=STYLE["interval"], ms=3, label="observed")
+        unit = (tl.get("units") or {}).get(name, "")
+        ax.set_title(f"{name} ({unit})" if unit and unit != "1" else name, fontsize=9)
+        ax.set_xlabel("time (min)", fontsize=8)
+        ax.spines[["top", "right"]].set_visible(False)
+    for ax in axes.ravel()[len(names):]:
+        ax.set_visible(False)
+    fig.tight_layout()
+    return save_figure(fig, out_dir, "propagate_timeline")

@@ -13,6 +13,9 @@ from uncertainty.core.formatting import fmt, interval
 from uncertainty.core.html import escape, kv_table, table
 
 CAPTIONS: tuple[Caption, ...] = (
+    ("timeline", "", "Fan charts of the whole-body time courses for the typical subject: median (line) and "
+                     "95% interval (band) at each reported time; shaded spans mark the infusions (blue) and "
+                     "bleeds (red)."),
     ("", "", "Histograms of {output} for this study's individual (typical-subject uncertainty "
              "plus between-subject spread) and for the typical subject (uncertainty only), with "
              "the median and 95% interval as solid lines; for Jv the mass left of the dashed zero "
@@ -59,7 +62,42 @@ def section_html(res: dict[str, Any]) -> str:
                      f"typical subject: {fmt(res.get('typical_p_absorption'), 3)}.</p>")
     parts.append(table(["output", "layer", "mean", "sd", "median", "95% interval", "MC s.e. of ends", "unit"],
                        rows, num_cols={2, 3, 4, 6}))
+    tl = res.get("timeline")
+    if isinstance(tl, dict):
+        parts.append(timeline_html(tl))
     return "".join(parts)
+
+
+def timeline_html(tl: dict[str, Any], every: int = 6) -> str:
+    """The whole-body time courses as a table: typical subject, median and 95% interval at every ``every``-th
+    reported time (all of them in results.json).
+
+    Parameters
+    ----------
+    tl : dict
+        The stored ``timeline`` entry (``times_min``, ``units``, ``typical``).
+    every : int
+        Show one reported time in ``every``.
+
+    Returns
+    -------
+    str
+        A paragraph and a table.
+    """
+    times = tl.get("times_min") or []
+    typ = tl.get("typical") or {}
+    units = tl.get("units") or {}
+    idx = list(range(0, len(times), max(1, every)))
+    if times and idx[-1] != len(times) - 1:
+        idx.append(len(times) - 1)
+    rows = []
+    for name, d in typ.items():
+        for i in idx:
+            rows.append([name, fmt(times[i]), fmt((d.get("median") or [None] * len(times))[i], 3),
+                         interval((d.get("ci95") or [[None, None]] * len(times))[i], 3), units.get(name, "")])
+    intro = (f"<p>Whole-body time courses after the interventions ({fmt(tl.get('draws'))} draws per layer, "
+             f"body mass {fmt(tl.get('body_mass_kg'))} kg), typical subject.</p>")
+    return intro + table(["quantity", "time (min)", "median", "95% interval", "unit"], rows, num_cols={1, 2})
 
 
 def summary(prop: dict[str, Any]) -> list[str]:

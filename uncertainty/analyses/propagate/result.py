@@ -7,7 +7,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from uncertainty.analyses.propagate.figure import plot_distribution
+from uncertainty.analyses.propagate.figure import plot_distribution, plot_timeline
 from uncertainty.analyses.propagate.report_section import section_html
 from uncertainty.analyses.propagate.table import table
 from uncertainty.analyses.result import Result
@@ -67,6 +67,7 @@ class PropagateResult(Result):
     converged: bool | None = None
     history: list[dict[str, Any]] = field(default_factory=list)
     study: dict[str, Any] = field(default_factory=dict)
+    timeline: dict[str, Any] | None = None  # whole_body form: time courses (analyses.propagate.timeline)
 
     table_file: ClassVar[str] = "propagate_summary.csv"
     table_index: ClassVar[bool] = True
@@ -98,6 +99,8 @@ class PropagateResult(Result):
             "tol": self.tol, "converged": self.converged, "history": self.history,
             "notes": self.notes, "warnings": self.warnings, "flags": self.flags, "study": self.study,
         })
+        if self.timeline is not None:
+            doc["timeline"] = self.timeline
         return doc
 
     def to_dataframe(self) -> Any:
@@ -133,8 +136,12 @@ class PropagateResult(Result):
                                  "replicates": self.replicates, "seed": str(self.seed)})
 
     def plot(self, out_dir: str) -> list[str]:
-        """Write the Jv distribution figure (individual beside typical) as PNG and SVG; paths."""
-        return plot_distribution(self, out_dir)
+        """Write the Jv distribution figure (individual beside typical) as PNG and SVG, and with a timeline
+        the fan charts of the time courses; paths."""
+        paths = plot_distribution(self, out_dir)
+        if self.timeline is not None:
+            paths += plot_timeline(self.timeline, out_dir)
+        return paths
 
     def table(self) -> str:
         """The plain-text table ``fluidshift propagate`` prints."""
@@ -172,4 +179,5 @@ class PropagateResult(Result):
         return cls(method=doc["method"], samples=doc["samples"], replicates=doc["replicates"], seed=doc["seed"],
                    outputs=outputs, units=dict(doc["units"]), summaries=summaries, draws={},
                    notes=list(doc["notes"]), warnings=list(doc["warnings"]), flags=list(doc["flags"]), tol=doc["tol"],
-                   converged=doc["converged"], history=list(doc["history"]), study=dict(doc["study"]))
+                   converged=doc["converged"], history=list(doc["history"]), study=dict(doc["study"]),
+                   timeline=doc.get("timeline"))

@@ -1,0 +1,120 @@
+"""Time courses of a ``whole_body`` study: draws of the priors through ``physiology.whole_body.simulate``.
+
+For each layer (the typical subject: uncertainty only; the individual: uncertainty plus between-subject spread)
+``TimelinePlan.draws`` points are drawn (scrambled Sobol', the study's seed), every input is evaluated
+(derived Pc and pi_c included), the skin-and-subcutis bed takes the draws scaled by the ratio of the
+``skin_subcutis`` prior set's medians to the study tissue's (``forms.whole_body``), and the time courses are
+summarised per report time by their median and 95% interval.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from uncertainty.analyses.sampling import draw
+from uncertainty.forms.evaluate import input_values
+from uncertainty.forms.whole_body import timeline_parameters
+from uncertainty.physiology.whole_body import TIMELINE_UNITS, simulate
+from uncertainty.priors import prior_medians
+
+#: The prior set of the second bed.
+SKIN_SET = "skin_subcutis"
+#: Quantities scaled (ratio of medians) and shifted (difference of medians) from the study's bed to the skin bed.
+SCALED = ("Kf", "sigma", "PS", "L", "C_tis", "C_tis_high", "JL_max")
+SHIFTED = ("Pc", "Pi_L0", "Pi_break")
+
+
+def bed_ratios(tissue: str) -> dict[str, float]:
+    """Skin-bed value relative to the study bed's: median ratios (SCALED) and differences (``<symbol>_shift``,
+    SHIFTED, mmHg) of ``priors/skin_subcutis.toml`` against ``priors/<tissue>.toml``.
+
+    Parameters
+    ----------
+    tissue : str
+        The study's tissue (prior set).
+
+    Returns
+    -------
+    dict
+        symbol -> ratio (1), ``<symbol>_shift`` -> difference (mmHg).
+    """
+    own, skin = prior_medians(tissue), prior_medians(SKIN_SET)
+    out = {s: skin[s] / own[s] for s in SCALED if s in own and s in skin and own[s] != 0}
+    out.update({f"{s}_shift": skin[s] - own[s] for s in SHIFTED if s in own and s in skin})
+    return out
+
+
+def _summary(series: list[np.ndarray]) -> dict[str, list[Any]]:
+    med, ci = [], []
+    for y in series:
+        y = np.asarray(y, dtype=float)
+        y = y[np.isfinite(y)]
+        if y.size == 0:
+            med.append(None)
+            ci.append([None, None])
+            continue
+        q = np.quantile(y, [0.5, 0.025, 0.975])
+        med.append(float(q[0]))
+        ci.append([float(q[1]), float(q[2])])
+    return {"median": med, "ci95": ci}
+
+
+def run_layer(study: Any, layer: str, n: int, seed: Any) -> dict[str, Any]:
+    """Simulate ``n`` draws of one layer of a ``whole_body`` study.
+
+    Parameters
+    ----------
+    study : Study
+        With ``timeline`` (a ``TimelinePlan``).
+    layer : str
+        ``typical`` or ``individual``.
+    n : int
+        Draws.
+    seed : Any
+        Seed of the draws.
+
+    Returns
+    -------
+    dict
+        The output of ``physiology.whole_body.simulate`` (lists of arrays over the draws per report time).
+    """
+    plan = study.timeline
+    values = draw(study, n, method="qmc", seed=seed, layer=layer)
+    v = input_values(study, values)
+    body, beds, Cp0 = timeline_parameters(v, plan.body_mass_kg, bed_ratios(study.tissue))
+    return simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every)
+
+
+def timeline(study: Any, seed: Any = None, draws: int | None = None) -> dict[str, Any]:
+    """The ``timeline`` entry of propagate's result for a ``whole_body`` study.
+
+    Parameters
+    ----------
+    study : Study
+        With ``timeline``.
+    seed : Any, optional
+        Defaults to the study's seed.
+    draws : int, optional
+        Draws per layer (default: ``[timeline] draws``).
+
+    Returns
+    -------
+    dict
+        ``times_min`` (list), ``units`` (name -> unit), ``typical`` and ``individual`` (name -> ``median``
+        list and ``ci95`` list of [low, high]), ``draws`` (per layer), ``interventions`` (as resolved).
+    """
+    plan = study.timeline
+    seed = getattr(study, "seed", None) if seed is None else seed
+    n = plan.draws if draws is None else draws
+    out: dict[str, Any] = {"units": dict(TIMELINE_UNITS), "draws": n,
+                           "interventions": [{"kind": d.kind, "volume_mL": d.volume, "start_min": d.start,
+                                              "duration_min": d.duration, "protein_g_per_dL": d.protein}
+                                             for d in plan.doses],
+                           "body_mass_kg": plan.body_mass_kg}
+    for layer in ("typical", "individual"):
+        sim = run_layer(study, layer, n, seed)
+        out["times_min"] = list(sim["times_min"])
+        out[layer] = {name: _summary(sim[name]) for name in TIMELINE_UNITS}
+    return out

@@ -1,0 +1,441 @@
+"""Whole-body fluid shifts over time: plasma, red cells and two interstitial beds (model form ``whole_body``).
+
+State (one value per draw; shape ``(n,)`` arrays or scalars):
+
+- plasma volume ``Vp`` (mL) and plasma protein mass ``Qp`` (g); red-cell volume ``Vrbc`` (mL), constant
+  except when blood is lost (whole blood leaves at the current haematocrit);
+- for each tissue bed (skeletal muscle; skin and subcutis): interstitial pressure ``Pi`` (mmHg; the volume
+  follows from the bed's pressure-volume curve) and interstitial protein mass ``Qi`` (g);
+- cumulative urine ``U`` (mL) and cumulative plasma lost by bleeding ``B`` (mL).
+
+Exchange in each bed uses the steady forms' physiology: Starling filtration (``starling.filtration``) with
+the capillary pressure raised by blood-volume expansion (``capillary``: a venous pressure change dPv gives
+dPc = dPv/(1 + r)); the smooth two-slope pressure-volume curve and volume-driven saturating lymph of the
+safety factors (``interstitium.smooth_tissue_volume``, ``tissue_compliance``, ``volume_lymph_flow``); protein
+by convection and diffusion (``solute.protein_flux``, Patlak); oncotic pressures from concentration by the
+Landis-Pappenheimer total-protein cubic (``oncotic.pi_cubic``). Each bed starts in its own safety-factor
+steady state (``balance.safety_steady_state``), so without interventions nothing moves.
+
+Renal elimination follows volume kinetics (Hahn's one-volume model): the rate of fluid elimination is the
+plasma dilution (v - V)/V times a clearance constant k_r (mL/min); Svensen C, Hahn RG 1997 (volunteers given
+25 mL/kg Ringer's, abstract read): "the product of plasma dilution and a constant averaging 95 (95% CI
+68-122) ml min-1"; Drobin D, Hahn RG 1999 Anesthesiology 90:81-91 (abstract): k_r 133 (SEM 22) mL/min in
+normovolaemic male volunteers, falling with hypovolaemia. Here urine = max(u_basal + k_r (Vp - Vp0)/Vp0, 0);
+the basal urine is taken as balanced by basal intake, so only the excess leaves the plasma.
+
+Units: volumes mL, protein mass g, concentrations g/dL (g per 100 mL), pressures mmHg, flows mL/min, times
+min. Per-bed conductances and compliances are per 100 g of tissue (as in the prior sets) and are scaled by
+the bed mass ``m`` in units of 100 g. Everything is ``xp`` arithmetic (numpy or pytensor.tensor);
+:func:`simulate` steps a fixed number of classical fourth-order Runge-Kutta steps (a Python loop, the same
+count for every draw), with the intervention rates held at their mean over each step.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from uncertainty.physiology.balance import safety_steady_state
+from uncertainty.physiology.interstitium import smooth_tissue_volume, tissue_compliance, volume_lymph_flow
+from uncertainty.physiology.oncotic import pi_cubic, pi_cubic_slope
+from uncertainty.physiology.solute import protein_flux
+from uncertainty.physiology.starling import filtration
+
+Array = Any
+
+# --- whole-body constants (each with its origin) ------------------------------------------------------
+
+#: Clearance constant of volume kinetics, mL/min: Drobin D, Hahn RG 1999 Anesthesiology 90:81-91 (abstract):
+#: k_r 133 (SEM 22) mL/min in ten normovolaemic male volunteers given 25 mL/kg Ringer's acetate.
+K_R_ML_MIN = 133.0
+#: Basal urine flow, mL/min: common practice (about 1 mL/kg/h in an adult, 1.2 mL/min at 70 kg).
+U_BASAL_ML_MIN_PER_KG = 1.0 / 60.0
+#: Blood volume, mL/kg: common practice (about 70 mL/kg in an adult man).
+BLOOD_VOLUME_ML_PER_KG = 70.0
+#: Haematocrit (large-vessel), 1: common practice (adult reference about 0.40-0.45).
+HAEMATOCRIT = 0.42
+#: Whole-body vascular compliance, mL/mmHg per kg: from memory (Guyton: about 100 mL/mmHg for the systemic
+#: circulation of an adult, i.e. about 1.5 mL/mmHg/kg; Rothe CF 1993 J Appl Physiol 74:499 reviews the
+#: measurement of mean circulatory filling pressure).
+VASCULAR_COMPLIANCE_ML_PER_MMHG_PER_KG = 1.5
+
+#: Protein content of the fluids, g/dL (common practice: the labelled concentrations).
+FLUID_PROTEIN_G_PER_DL: dict[str, float] = {"crystalloid": 0.0, "albumin_5": 5.0, "albumin_20": 20.0}
+
+#: The tissue beds, in order.
+BEDS = ("muscle", "skin")
+
+
+@dataclass(frozen=True)
+class Dose:
+    """One intervention in canonical units.
+
+    Attributes
+    ----------
+    kind : str
+        ``infusion`` or ``bleed``.
+    volume : float
+        mL (> 0).
+    start, duration : float
+        min (duration 0: given within the step that contains ``start``).
+    protein : float
+        Protein concentration of an infused fluid, g/dL (0 for crystalloid and for bleeds).
+    """
+
+    kind: str
+    volume: float
+    start: float
+    duration: float
+    protein: float = 0.0
+
+
+def step_rates(doses: Sequence[Dose], t0: float, dt: float) -> tuple[float, float, float]:
+    """Mean infusion rate (mL/min), infused protein (g/min) and bleeding rate (mL/min of whole blood)
+    over the step [t0, t0 + dt) (min).
+
+    Parameters
+    ----------
+    doses : sequence of Dose
+        The interventions.
+    t0, dt : float
+        Step start and length, min.
+
+    Returns
+    -------
+    tuple of float
+        (infusion mL/min, protein g/min, bleed mL/min), each the volume delivered in the step over dt.
+    """
+    inf = prot = bleed = 0.0
+    for d in doses:
+        if d.duration > 0:
+            overlap = max(0.0, min(t0 + dt, d.start + d.duration) - max(t0, d.start))
+            vol = d.volume * overlap / d.duration
+        else:
+            vol = d.volume if t0 <= d.start < t0 + dt else 0.0
+        if d.kind == "bleed":
+            bleed += vol / dt
+        else:
+            inf += vol / dt
+            prot += vol * d.protein / 100.0 / dt
+    return inf, prot, bleed
+
+
+def protein_from_oncotic(pi: Array, xp: Any = np, n_steps: int = 8) -> Array:
+    """Total protein (g/dL) whose Landis-Pappenheimer oncotic pressure is ``pi`` (mmHg), by fixed Newton steps.
+
+    The cubic is increasing and convex for C >= 0, and the start pi/a1 lies at or right of the root, so the
+    steps fall monotonically to it (``xp`` arithmetic; 8 steps reach double precision over 0-60 mmHg).
+
+    Parameters
+    ----------
+    pi : array
+        Oncotic pressure, mmHg (>= 0).
+    xp : module
+        numpy or pytensor.tensor.
+    n_steps : int
+        Newton steps.
+
+    Returns
+    -------
+    array
+        Protein concentration, g/dL.
+    """
+    C = pi / 2.1  # a1 of the total-protein cubic (oncotic.COEFFICIENTS)
+    for _ in range(n_steps):
+        C = C - (pi_cubic(C, "total") - pi) / pi_cubic_slope(C, "total")
+    return C
+
+
+def body_parameters(body_mass_kg: float, *, haematocrit: Array = HAEMATOCRIT,
+                    blood_volume_per_kg: Array = BLOOD_VOLUME_ML_PER_KG, k_r: Array = K_R_ML_MIN,
+                    compliance_per_kg: Array = VASCULAR_COMPLIANCE_ML_PER_MMHG_PER_KG) -> dict[str, Array]:
+    """The plasma and renal parameters of a body of ``body_mass_kg`` (kg).
+
+    Parameters
+    ----------
+    body_mass_kg : float
+        Body mass, kg.
+    haematocrit, blood_volume_per_kg, k_r, compliance_per_kg : array, optional
+        Haematocrit (1), blood volume (mL/kg), clearance constant (mL/min), vascular compliance
+        (mL/mmHg/kg); defaults are the module constants.
+
+    Returns
+    -------
+    dict
+        ``Vp0`` and ``Vrbc0`` (mL), ``C_vasc`` (mL/mmHg), ``k_r`` and ``u_basal`` (mL/min).
+    """
+    bv = blood_volume_per_kg * body_mass_kg
+    return {"Vp0": bv * (1.0 - haematocrit), "Vrbc0": bv * haematocrit, "C_vasc": compliance_per_kg * body_mass_kg,
+            "k_r": k_r, "u_basal": U_BASAL_ML_MIN_PER_KG * body_mass_kg}
+
+
+def blood_volume(body_mass_kg: float) -> float:
+    """Blood volume (mL) of a body of ``body_mass_kg`` kg at :data:`BLOOD_VOLUME_ML_PER_KG` (common practice)."""
+    return BLOOD_VOLUME_ML_PER_KG * body_mass_kg
+
+
+# --- initial state and right-hand side --------------------------------------------------------------
+
+def _bed_curve(b: Mapping[str, Array]) -> tuple[Array, Array, Array]:
+    """C_tis, C_high, P_break of a bed (no break: C_high = C_tis)."""
+    C = b["C_tis"]
+    return C, b.get("C_tis_high", C), b.get("Pi_break", 0.0 * C)
+
+
+def initial_state(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]], Cp0: Array,
+                  xp: Any = np) -> tuple[dict[str, Array], dict[str, Array]]:
+    """The resting state: each bed at its safety-factor steady state.
+
+    Parameters
+    ----------
+    body : mapping
+        :func:`body_parameters` (plus ``r``, 1, the post- to pre-capillary resistance ratio).
+    beds : mapping
+        bed name -> ``m`` (mass, units of 100 g), ``Vi0`` (interstitial fluid volume, mL), ``Kf``
+        (mL/min/mmHg/100g), ``Pc`` (mmHg), ``sigma`` (1), ``PS`` (mL/min/100g), ``L`` (mL/min/mmHg/100g),
+        ``Pi_L0`` (mmHg), ``C_tis`` (mL/mmHg/100g) and optionally ``C_tis_high``, ``Pi_break``, ``JL_max``.
+    Cp0 : array
+        Resting plasma total protein, g/dL.
+    xp : module
+        numpy or pytensor.tensor.
+
+    Returns
+    -------
+    state : dict
+        ``Vp``, ``Qp``, ``Vrbc``, ``U``, ``B`` and per bed ``Pi_<bed>``, ``Qi_<bed>``.
+    rest : dict
+        Resting references: ``Pi0_<bed>`` (mmHg), ``Cp0``.
+    """
+    pi_c0 = pi_cubic(Cp0, "total")
+    zero = 0.0 * Cp0
+    state = {"Vp": body["Vp0"] + zero, "Qp": body["Vp0"] * Cp0 / 100.0, "Vrbc": body["Vrbc0"] + zero,
+             "U": zero, "B": zero}
+    rest: dict[str, Array] = {"Cp0": Cp0}
+    for name, b in beds.items():
+        C, Ch, Pb = _bed_curve(b)
+        ss = safety_steady_state(b["Kf"], b["Pc"], b["sigma"], b["PS"], pi_c0, b["L"], b["Pi_L0"], C_tis=C,
+                                 C_high=Ch, P_break=Pb, JL_max=b.get("JL_max"), Cp=Cp0, xp=xp)
+        state[f"Pi_{name}"] = ss["Pi"] + zero
+        state[f"Qi_{name}"] = ss["ratio"] * Cp0 * b["Vi0"] / 100.0 + zero
+        rest[f"Pi0_{name}"] = ss["Pi"] + zero
+    return state, rest
+
+
+def fluxes(state: Mapping[str, Array], body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
+           rest: Mapping[str, Array], xp: Any = np) -> dict[str, Array]:
+    """Flows (mL/min, g/min) and derived quantities at ``state`` (arguments as :func:`initial_state`).
+
+    Returns
+    -------
+    dict
+        ``Cp`` (g/dL), ``urine`` (mL/min), per bed ``Jv_<bed>``, ``JL_<bed>`` (mL/min), ``Js_<bed>``,
+        ``JLs_<bed>`` (protein by filtration and by lymph, g/min), ``Vx_<bed>`` (interstitial volume above
+        rest, mL).
+    """
+    Vp, Qp = state["Vp"], state["Qp"]
+    Cp = 100.0 * Qp / Vp
+    pi_c = pi_cubic(Cp, "total")
+    dVb = Vp + state["Vrbc"] - body["Vp0"] - body["Vrbc0"]
+    dPc = dVb / (body["C_vasc"] * (1.0 + body["r"]))  # dPv = dVb / C_vasc, dPc = dPv / (1 + r)
+    dil = (Vp - body["Vp0"]) / body["Vp0"]
+    out: dict[str, Array] = {"Cp": Cp, "urine": xp.maximum(body["u_basal"] + body["k_r"] * dil, 0.0)}
+    for name, b in beds.items():
+        C, Ch, Pb = _bed_curve(b)
+        Pi, Qi, m = state[f"Pi_{name}"], state[f"Qi_{name}"], b["m"]
+        Vx = m * smooth_tissue_volume(Pi, C, rest[f"Pi0_{name}"], Ch, Pb, xp=xp)
+        Ci = 100.0 * Qi / (b["Vi0"] + Vx)
+        jv = filtration(b["Kf"], b["Pc"] + dPc, Pi, pi_c, pi_cubic(Ci, "total"), b["sigma"])  # per 100 g
+        jl, _ = volume_lymph_flow(Pi, b["L"], b["Pi_L0"], C, Ch, Pb, b.get("JL_max"), xp=xp)
+        js = protein_flux(jv, b["sigma"], b["PS"], Cp, Ci, xp=xp)  # (g/dL)(mL/min) per 100 g
+        out[f"Jv_{name}"] = m * jv
+        out[f"JL_{name}"] = m * jl
+        out[f"Js_{name}"] = m * js / 100.0
+        out[f"JLs_{name}"] = m * jl * Ci / 100.0
+        out[f"Vx_{name}"] = Vx
+        out[f"C_{name}"] = m * tissue_compliance(Pi, C, Ch, Pb, xp=xp)
+    return out
+
+
+def derivatives(state: Mapping[str, Array], rates: tuple[Array, Array, Array], body: Mapping[str, Array],
+                beds: Mapping[str, Mapping[str, Array]], rest: Mapping[str, Array], xp: Any = np
+                ) -> dict[str, Array]:
+    """Time derivatives (per min) of every state variable.
+
+    Parameters
+    ----------
+    state, body, beds, rest : mapping
+        As :func:`initial_state`.
+    rates : tuple
+        (infusion mL/min, infused protein g/min, bleeding mL/min of whole blood), :func:`step_rates`.
+    xp : module
+        numpy or pytensor.tensor.
+
+    Returns
+    -------
+    dict
+        d/dt of each key of ``state`` (mL/min, g/min, mmHg/min).
+    """
+    inf, prot, bleed = rates
+    f = fluxes(state, body, beds, rest, xp)
+    Vp, Vrbc = state["Vp"], state["Vrbc"]
+    hct = Vrbc / (Vp + Vrbc)
+    bleed_plasma = bleed * (1.0 - hct)
+    renal = f["urine"] - body["u_basal"]  # the basal part is balanced by basal intake
+    dVp = inf - bleed_plasma - renal
+    dQp = prot - bleed_plasma * f["Cp"] / 100.0
+    d: dict[str, Array] = {}
+    for name in beds:
+        dVp = dVp - f[f"Jv_{name}"] + f[f"JL_{name}"]
+        dQp = dQp - f[f"Js_{name}"] + f[f"JLs_{name}"]
+        d[f"Pi_{name}"] = (f[f"Jv_{name}"] - f[f"JL_{name}"]) / f[f"C_{name}"]
+        d[f"Qi_{name}"] = f[f"Js_{name}"] - f[f"JLs_{name}"]
+    d.update({"Vp": dVp, "Qp": dQp, "Vrbc": -bleed * hct, "U": f["urine"], "B": bleed_plasma})
+    return d
+
+
+Args3 = tuple[Mapping[str, Array], Mapping[str, Mapping[str, Array]], Mapping[str, Array]]
+
+
+def _rk4(state: dict[str, Array], rates: tuple[Array, Array, Array], dt: float, args: Args3, xp: Any
+         ) -> dict[str, Array]:
+    body, beds, rest = args
+    k1 = derivatives(state, rates, body, beds, rest, xp=xp)
+    s2 = {k: v + 0.5 * dt * k1[k] for k, v in state.items()}
+    k2 = derivatives(s2, rates, body, beds, rest, xp=xp)
+    s3 = {k: v + 0.5 * dt * k2[k] for k, v in state.items()}
+    k3 = derivatives(s3, rates, body, beds, rest, xp=xp)
+    s4 = {k: v + dt * k3[k] for k, v in state.items()}
+    k4 = derivatives(s4, rates, body, beds, rest, xp=xp)
+    return {k: v + dt / 6.0 * (k1[k] + 2.0 * k2[k] + 2.0 * k3[k] + k4[k]) for k, v in state.items()}
+
+
+#: Time courses :func:`simulate` reports (units).
+TIMELINE_UNITS: dict[str, str] = {
+    "plasma_volume_change": "mL", "infused_retained_fraction": "1", "hb_ratio": "1",
+    "interstitial_volume_change_muscle": "mL", "interstitial_volume_change_skin": "mL",
+    "urine_volume": "mL", "lymph_flow": "mL/min",
+}
+
+
+def report(state: Mapping[str, Array], given: float, body: Mapping[str, Array],
+           beds: Mapping[str, Mapping[str, Array]], rest: Mapping[str, Array], xp: Any = np) -> dict[str, Array]:
+    """The reported quantities (:data:`TIMELINE_UNITS`) at ``state``.
+
+    Parameters
+    ----------
+    state, body, beds, rest : mapping
+        As :func:`initial_state`.
+    given : float
+        Volume infused so far, mL.
+    xp : module
+        numpy or pytensor.tensor.
+
+    Returns
+    -------
+    dict
+        ``plasma_volume_change`` (mL), ``infused_retained_fraction`` (1: plasma volume change over the net
+        volume put into the plasma, infused minus plasma bled; for a bleed alone, the share of the plasma lost
+        still missing; NaN before anything is given), ``hb_ratio`` (haemoglobin concentration relative to
+        rest), ``interstitial_volume_change_<bed>`` (mL), ``urine_volume`` (mL since 0), ``lymph_flow``
+        (both beds, mL/min).
+    """
+    f = fluxes(state, body, beds, rest, xp)
+    dVp = state["Vp"] - body["Vp0"]
+    net = given - state["B"]
+    safe = xp.where(xp.abs(net) > 1e-9, net, 1.0)
+    hct = state["Vrbc"] / (state["Vp"] + state["Vrbc"])
+    hct0 = body["Vrbc0"] / (body["Vp0"] + body["Vrbc0"])
+    out = {"plasma_volume_change": dVp,
+           "infused_retained_fraction": xp.where(xp.abs(net) > 1e-9, dVp / safe, np.nan),
+           "hb_ratio": hct / hct0}
+    for name in beds:
+        out[f"interstitial_volume_change_{name}"] = f[f"Vx_{name}"]
+    out["urine_volume"] = state["U"]
+    out["lymph_flow"] = sum(f[f"JL_{name}"] for name in beds)
+    return out
+
+
+def time_grid(end: float, report_every: float, max_step: float = 0.5) -> tuple[float, int, int]:
+    """The fixed step (min), the number of steps and the steps per report for a timeline.
+
+    Parameters
+    ----------
+    end, report_every : float
+        Timeline end and report interval, min.
+    max_step : float
+        Largest step, min.
+
+    Returns
+    -------
+    tuple
+        (dt min, n_steps, steps_per_report): dt divides report_every.
+    """
+    per = max(1, math.ceil(report_every / max_step - 1e-9))
+    dt = report_every / per
+    n_reports = max(1, math.ceil(end / report_every - 1e-9))
+    return dt, n_reports * per, per
+
+
+def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]], Cp0: Array,
+             doses: Sequence[Dose], end: float, report_every: float, *, max_step: float = 0.5,
+             xp: Any = np) -> dict[str, Any]:
+    """Time courses after the interventions ``doses``, every ``report_every`` min from 0 to ``end``.
+
+    Parameters
+    ----------
+    body, beds, Cp0 : as :func:`initial_state`
+        Arrays broadcast (one value per draw, shape (n,)).
+    doses : sequence of Dose
+        The interventions.
+    end, report_every : float
+        Timeline end and reporting interval, min.
+    max_step : float
+        Largest Runge-Kutta step, min (the step divides ``report_every``).
+    xp : module
+        numpy or pytensor.tensor.
+
+    Returns
+    -------
+    dict
+        ``times_min`` (list of float) and, for each name of :data:`TIMELINE_UNITS`, a list of arrays (one
+        per report time, each over the draws).
+    """
+    dt, n_steps, per = time_grid(end, report_every, max_step)
+    state, rest = initial_state(body, beds, Cp0, xp)
+    args: Args3 = (body, beds, rest)
+    given = 0.0
+    times = [0.0]
+    series: dict[str, list[Array]] = {k: [v] for k, v in report(state, given, body, beds, rest, xp=xp).items()}
+    for i in range(n_steps):
+        t0 = i * dt
+        rates = step_rates(doses, t0, dt)
+        state = _rk4(state, rates, dt, args, xp)
+        given += rates[0] * dt
+        if (i + 1) % per == 0:
+            times.append((i + 1) * dt)
+            for k, v in report(state, given, body, beds, rest, xp=xp).items():
+                series[k].append(v)
+    return {"times_min": times, **series}
+
+
+def rhs_vector(t: float, y: np.ndarray, keys: Sequence[str], doses: Sequence[Dose], dt: float,
+               body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]], rest: Mapping[str, Array]
+               ) -> np.ndarray:
+    """The right-hand side as a flat vector for ``scipy.integrate.solve_ivp`` (one draw; numpy only).
+
+    The intervention rates are those :func:`simulate` uses on the step of length ``dt`` (min) containing
+    ``t`` (min), so the two integrate the same equations. ``keys`` orders the state variables.
+
+    Returns
+    -------
+    numpy.ndarray
+        d/dt of the state in ``keys`` order.
+    """
+    t0 = math.floor(t / dt + 1e-12) * dt
+    rates = step_rates(doses, t0, dt)
+    d = derivatives(dict(zip(keys, y, strict=True)), rates, body, beds, rest, xp=np)
+    return np.array([float(d[k]) for k in keys])
