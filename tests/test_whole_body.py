@@ -1,0 +1,308 @@
+"""The whole_body form: solver accuracy against scipy's solve_ivp, conservation of water and protein, numpy
+against PyTensor, the study keys ([[interventions]], [timeline], body_mass) and their refusals, propagate's
+timeline entry, and the published time courses (each check names its source; checks the model does not yet
+meet are strict xfails with the reason, never tuned away).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from scipy.integrate import solve_ivp
+
+from uncertainty.analyses.propagate import propagate
+from uncertainty.analyses.propagate.timeline import bed_ratios
+from uncertainty.app.cli import main
+from uncertainty.forms.whole_body import timeline_parameters
+from uncertainty.physiology import whole_body as wb
+from uncertainty.priors import prior_medians
+from uncertainty.study import Study
+
+BODY_KG = 73.0  # ICRP Publication 89 (2002) reference adult male
+
+
+def _params(n: int = 1, scale: dict[str, float] | None = None):
+    """Body, beds and Cp0 at the skeletal-muscle prior medians (n equal draws, some optionally scaled)."""
+    m = prior_medians("skeletal_muscle")
+    v = {k: np.full(n, val) for k, val in m.items()}
+    for k, f in (scale or {}).items():
+        v[k] = v[k] * np.asarray(f)
+    return timeline_parameters(v, BODY_KG, bed_ratios("skeletal_muscle"))
+
+
+def _dose(fluid: str, volume: float, duration: float, start: float = 0.0) -> list[wb.Dose]:
+    if fluid == "bleed":
+        return [wb.Dose("bleed", volume, start, duration)]
+    return [wb.Dose("infusion", volume, start, duration, wb.FLUID_PROTEIN_G_PER_DL[fluid])]
+
+
+# --- solver -----------------------------------------------------------------------------------------------
+
+def test_rk4_agrees_with_solve_ivp_on_three_draws() -> None:
+    # three different subjects (Kf and L scaled), crystalloid then a bleed; reference: DOP853 at rtol 1e-8,
+    # integrated piecewise between the intervention boundaries (the rates are constant on each piece)
+    body, beds, Cp0 = _params(3, {"Kf": [0.6, 1.0, 1.8], "L": [1.5, 1.0, 0.7]})
+    doses = _dose("crystalloid", 1500.0, 30.0) + _dose("bleed", 400.0, 10.0, start=60.0)
+    end, every = 90.0, 10.0
+    sim = wb.simulate(body, beds, Cp0, doses, end, every, max_step=0.5)
+    for j in range(3):
+        b = {k: (v[j] if np.ndim(v) else v) for k, v in body.items()}
+        bd = {name: {k: (v[j] if np.ndim(v) else v) for k, v in p.items()} for name, p in beds.items()}
+        state, rest = wb.initial_state(b, bd, Cp0[j])
+        keys = list(state)
+        y = np.array([float(state[k]) for k in keys])
+        ref_pvc = [0.0]
+        knots = [0.0, 30.0, 60.0, 70.0, end]  # where the intervention rates change
+        for a, c in zip(knots[:-1], knots[1:], strict=True):
+            t_eval = [t for t in np.arange(every, end + 1e-9, every) if a < t <= c]
+            sol = solve_ivp(wb.rhs_vector, (a, c), y, method="DOP853", rtol=1e-8, atol=1e-8,
+                            t_eval=t_eval if t_eval else None, args=(keys, doses, 0.5, b, bd, rest))
+            if t_eval:
+                ref_pvc += list(sol.y[keys.index("Vp")] - b["Vp0"])
+            y = sol.y[:, -1] if not t_eval or t_eval[-1] == c else solve_ivp(
+                wb.rhs_vector, (a, c), y, method="DOP853", rtol=1e-8, atol=1e-8,
+                args=(keys, doses, 0.5, b, bd, rest)).y[:, -1]
+        ours = [float(x[j]) for x in sim["plasma_volume_change"]]
+        np.testing.assert_allclose(ours, ref_pvc, atol=0.05)  # mL, against changes of hundreds of mL
+
+
+def test_rest_stays_at_rest() -> None:
+    body, beds, Cp0 = _params()
+    sim = wb.simulate(body, beds, Cp0, [], 120.0, 30.0, max_step=1.0)
+    for name in ("plasma_volume_change", "interstitial_volume_change_muscle", "interstitial_volume_change_skin"):
+        assert abs(float(sim[name][-1][0])) < 1e-6, name
+    assert abs(float(sim["hb_ratio"][-1][0]) - 1.0) < 1e-12
+
+
+def _run(doses: list[wb.Dose], end: float):
+    body, beds, Cp0 = _params()
+    state, rest = wb.initial_state(body, beds, Cp0)
+    start = dict(state)
+    dt, n, _ = wb.time_grid(end, 1.0, 0.5)
+    given = protein = 0.0
+    for i in range(n):
+        rates = wb.step_rates(doses, i * dt, dt)
+        state = wb._rk4(state, rates, dt, (body, beds, rest), np)
+        given += rates[0] * dt
+        protein += rates[1] * dt
+    return body, beds, rest, start, state, given, protein
+
+
+def test_water_is_conserved() -> None:
+    # infused = plasma change + interstitial change + urine above basal + plasma bled (a conservation law)
+    body, beds, rest, _, state, given, _ = _run(
+        _dose("albumin_20", 200.0, 20.0) + _dose("bleed", 500.0, 15.0, start=40.0), 90.0)
+    f = wb.fluxes(state, body, beds, rest)
+    water = (state["Vp"] - body["Vp0"]) + f["Vx_muscle"] + f["Vx_skin"] + (state["U"] - body["u_basal"] * 90.0)
+    assert float(water[0] + state["B"][0]) == pytest.approx(given, abs=1e-6)
+
+
+def test_protein_is_conserved() -> None:
+    # without bleeding, protein only enters (infused) and moves between plasma and interstitium
+    _, _, _, start, state, _, protein = _run(_dose("albumin_20", 200.0, 20.0), 90.0)
+    total = [float(s["Qp"][0] + s["Qi_muscle"][0] + s["Qi_skin"][0]) for s in (start, state)]
+    assert protein == pytest.approx(40.0)
+    assert total[1] == pytest.approx(total[0] + protein, abs=1e-8)
+
+
+def test_step_rates_deliver_the_volume() -> None:
+    doses = _dose("albumin_5", 1000.0, 45.0, start=2.3) + _dose("bleed", 450.0, 0.0, start=7.0)
+    dt = 0.5
+    totals = np.sum([wb.step_rates(doses, i * dt, dt) for i in range(200)], axis=0) * dt
+    assert totals == pytest.approx([1000.0, 50.0, 450.0])
+
+
+def test_protein_from_oncotic_inverts_the_cubic() -> None:
+    C = np.linspace(0.5, 12.0, 30)
+    from uncertainty.physiology.oncotic import pi_cubic
+
+    np.testing.assert_allclose(wb.protein_from_oncotic(pi_cubic(C, "total")), C, rtol=1e-12)
+
+
+def test_numpy_and_pytensor_agree() -> None:
+    # the right-hand side and the reported quantities at a state away from rest, with Kf symbolic
+    # (FAST_COMPILE: the graph is large and only its values are compared)
+    pytensor = pytest.importorskip("pytensor")
+    pt = pytest.importorskip("pytensor.tensor")
+    body, beds, Cp0 = _params(4, {"Kf": [0.5, 1.0, 1.5, 2.0]})
+    state, rest = wb.initial_state(body, beds, Cp0)
+    state = {**state, "Vp": state["Vp"] + 600.0, "Pi_muscle": state["Pi_muscle"] + 0.7}
+    kf = pt.dvector("kf")
+    beds_sym = {name: {**p, "Kf": kf * (p["Kf"] / beds["muscle"]["Kf"])} for name, p in beds.items()}
+    rates = (60.0, 0.0, 0.0)
+    d_sym = wb.derivatives(state, rates, body, beds_sym, rest, xp=pt)
+    r_sym = wb.report(state, 900.0, body, beds_sym, rest, xp=pt)
+    keys = sorted(d_sym)
+    outs = [d_sym[k] for k in keys] + [r_sym[k] for k in wb.TIMELINE_UNITS]
+    f = pytensor.function([kf], [pt.as_tensor_variable(o) + 0.0 * kf for o in outs], mode="FAST_COMPILE")
+    got = f(beds["muscle"]["Kf"])
+    d_np = wb.derivatives(state, rates, body, beds, rest)
+    r_np = wb.report(state, 900.0, body, beds, rest)
+    want = [d_np[k] for k in keys] + [r_np[k] for k in wb.TIMELINE_UNITS]
+    for g, w in zip(got, want, strict=True):
+        np.testing.assert_allclose(g, np.broadcast_to(w, (4,)), rtol=1e-12, atol=1e-12)
+    assert math.isclose(float(wb.protein_from_oncotic(25.0)), float(pytensor.function(
+        [], wb.protein_from_oncotic(pt.constant(25.0), xp=pt), mode="FAST_COMPILE")()), rel_tol=1e-12)
+
+
+# --- published time courses (typical subject at the prior medians) ------------------------------------------
+
+@pytest.fixture(scope="module")
+def courses() -> dict[str, dict]:
+    body, beds, Cp0 = _params()
+    runs = {"ringer": (_dose("crystalloid", 25.0 * BODY_KG, 30.0), 120.0),
+            "albumin_5": (_dose("albumin_5", 1000.0, 30.0), 240.0),
+            "albumin_20": (_dose("albumin_20", 100.0, 30.0), 240.0),
+            "bleed": (_dose("bleed", 450.0, 10.0), 360.0)}
+    out = {}
+    for name, (doses, end) in runs.items():
+        sim = wb.simulate(body, beds, Cp0, doses, end, 5.0, max_step=1.0)
+        out[name] = {k: (np.array(sim["times_min"]) if k == "times_min" else np.array([float(x[0]) for x in v]))
+                     for k, v in sim.items()}
+    return out
+
+
+def _at(c: dict, name: str, t: float) -> float:
+    return float(c[name][list(c["times_min"]).index(t)])
+
+
+def test_ringer_half_stays_in_plasma_while_it_runs(courses) -> None:
+    # Hahn RG 2020 Acta Anaesthesiol Scand 64:570 "Understanding volume kinetics" (abstract, DOI
+    # 10.1111/aas.13533): plasma volume expansion 50%-60% of the infused volume as long as the infusion lasts;
+    # Hahn RG 2010 Anesthesiology 113:470 (abstract): 50-75% larger dilution during infusion than with
+    # immediate distribution. Band 0.4-0.7 (the reported 50-60% widened by 0.1 for a typical-subject model).
+    c = courses["ringer"]
+    for t in (15.0, 30.0):
+        assert 0.4 <= _at(c, "infused_retained_fraction", t) <= 0.7, t
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known gap: renal elimination too fast early. The volume-kinetics clearance constant (k_r 133 mL/min, "
+    "Drobin & Hahn 1999) times the plasma dilution removes about 1.2 L by 60 min, while conscious volunteers "
+    "peak at about 19 mL/min of urine (Rodhe P et al. 2010 Comput Math Methods Med 11:341, abstract)"))
+def test_ringer_15_to_20_percent_thirty_minutes_after(courses) -> None:
+    # Hahn RG 2020 Acta Anaesthesiol Scand 64:570 (abstract): reduced to 15%-20% within 30 min after the
+    # infusion ends (Svensen C, Hahn RG 1997 not re-read). Band 0.10-0.25.
+    assert 0.10 <= _at(courses["ringer"], "infused_retained_fraction", 60.0) <= 0.25
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known gap: the crystalloid clearance constant is applied to colloids too; volume kinetics gives colloids "
+    "a far smaller one (7.1 +/- 3.5 mL/min for starch after a 400 mL donation in conscious volunteers: Lee EH "
+    "et al. 2010 Korean J Anesthesiol 58:514, abstract)"))
+def test_albumin_5_mostly_stays_for_hours(courses) -> None:
+    # Hahn RG 2020 Acta Anaesthesiol Scand 64:570 (abstract): colloid fluids have no distribution phase and an
+    # intravascular persistence half-life of 2-3 hours: more than half still in plasma at 120 min.
+    assert _at(courses["albumin_5"], "infused_retained_fraction", 120.0) > 0.5
+
+
+def test_colloid_stays_longer_than_crystalloid(courses) -> None:
+    # Hahn RG 2020 (abstract): colloids have no distribution phase, crystalloids do: at 60 min a larger share
+    # of 5% albumin than of Ringer's is in the plasma.
+    assert _at(courses["albumin_5"], "infused_retained_fraction", 60.0) > \
+        2.0 * _at(courses["ringer"], "infused_retained_fraction", 60.0)
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known gap: with the forearm Kf medians the whole-body recruitment of interstitial fluid is slow (about "
+    "300 mL over 4 h) and the dilution-driven urine removes much of it"))
+def test_albumin_20_expands_plasma_several_times_its_volume(courses) -> None:
+    # common practice: 100 mL of 20% albumin expands plasma by several (3-4) times its volume; check >= 2x.
+    assert np.max(courses["albumin_20"]["plasma_volume_change"]) >= 200.0
+
+
+def test_bleed_haemodilution_over_hours(courses) -> None:
+    # Ruttman TG, Roche AM, Gasson J, James MFM 2003 (one-unit, 480 mL donation; abstract read through the
+    # search tool): haematocrit falls about 4% during donation, then slowly and progressively to 8.3% below
+    # the pre-donation value at 6 h; refill takes 6-8 h. Check: Hb at 6 h 4-12% below rest, lower than at 1 h.
+    c = courses["bleed"]
+    h60, h360 = _at(c, "hb_ratio", 60.0), _at(c, "hb_ratio", 360.0)
+    assert 0.88 <= h360 <= 0.96
+    assert h360 < h60
+    # plasma refills: the share of the plasma lost still missing falls over the hours
+    assert _at(c, "infused_retained_fraction", 360.0) < 0.5 * _at(c, "infused_retained_fraction", 15.0)
+
+
+# --- study keys and refusals ----------------------------------------------------------------------------------
+
+def _doc(interventions: list[dict] | None = None, **head) -> dict:
+    doc = {"study": {"tissue": "skeletal_muscle", "model": "whole_body", "body_mass": "73 kg", **head},
+           "timeline": {"end": "60 min", "report_every": "10 min", "draws": 16},
+           "propagate": {"samples": 256, "outputs": ["Jv"]}}
+    doc["interventions"] = interventions if interventions is not None else [
+        {"kind": "infusion", "fluid": "crystalloid", "volume": "1000 mL", "start": "0 min", "duration": "20 min"}]
+    return doc
+
+
+def _toml(doc: dict) -> str:
+    """The small documents of these tests as TOML (tables of scalars and lists of such tables)."""
+    def val(x):
+        return json.dumps(x) if isinstance(x, str | list) else repr(x)
+
+    lines = []
+    for name, table in doc.items():
+        rows = table if isinstance(table, list) else [table]
+        for row in rows:
+            lines.append(f"[[{name}]]" if isinstance(table, list) else f"[{name}]")
+            lines += [f"{k} = {val(v)}" for k, v in row.items()]
+    return "\n".join(lines) + "\n"
+
+
+def test_study_resolves_interventions_in_canonical_units() -> None:
+    s = Study.from_dict(_doc([{"kind": "infusion", "fluid": "albumin_20", "volume": "0.1 L", "duration": "0.5 h"},
+                              {"kind": "bleed", "volume": 450, "start": 30, "duration": 10}]))
+    assert s.timeline is not None and s.timeline.body_mass_kg == 73.0 and s.timeline.end == 60.0
+    inf, bleed = s.interventions
+    assert (inf.volume, inf.duration, inf.protein) == pytest.approx((100.0, 30.0, 20.0))
+    assert (bleed.kind, bleed.volume, bleed.start) == ("bleed", 450.0, 30.0)
+
+
+@pytest.mark.parametrize("entry, key", [
+    ({"kind": "infusion", "fluid": "crystalloid", "volume": "-5 mL"}, "interventions[0].volume"),
+    ({"kind": "infusion", "fluid": "crystalloid", "volume": "500 mL", "start": "2 h"}, "interventions[0].start"),
+    ({"kind": "infusion", "fluid": "plasma", "volume": "500 mL"}, "interventions[0].fluid"),
+    ({"kind": "bleed", "volume": "6 L"}, "interventions[0].volume"),
+    ({"kind": "infusion", "fluid": "crystalloid", "volume": "5 mmHg"}, "interventions[0].volume"),
+])
+def test_bad_interventions_exit_2_naming_key_and_value(tmp_path: Path, entry: dict, key: str) -> None:
+    path = tmp_path / "bad.toml"
+    path.write_text(_toml(_doc([entry])), encoding="utf-8")
+    res = CliRunner().invoke(main, ["check", str(path)])
+    assert res.exit_code == 2, res.output
+    assert key in res.output and "Traceback" not in res.output
+
+
+def test_overlapping_bleeds_beyond_blood_volume_are_refused() -> None:
+    # 70 mL/kg x 73 kg = 5110 mL of blood: two bleeds of 3 L reach it at the second
+    from uncertainty.core.errors import StudyError
+
+    with pytest.raises(StudyError) as exc:
+        Study.from_dict(_doc([{"kind": "bleed", "volume": "3 L", "duration": "30 min"},
+                              {"kind": "bleed", "volume": "3 L", "start": "10 min", "duration": "30 min"}]))
+    assert exc.value.key == "interventions[1].volume"
+
+
+def test_interventions_need_the_whole_body_form() -> None:
+    from uncertainty.core.errors import StudyError
+
+    with pytest.raises(StudyError) as exc:
+        Study.from_dict(_doc(model="steady_state"))
+    assert exc.value.key == "interventions"
+
+
+def test_propagate_returns_the_timeline() -> None:
+    s = Study.from_dict(_doc())
+    doc = json.loads(json.dumps(propagate(s).to_dict()))
+    tl = doc["timeline"]
+    assert tl["times_min"] == [0.0, 10.0, 20.0, 30.0, 40.0, 50.0, 60.0]
+    for layer in ("typical", "individual"):
+        for name in wb.TIMELINE_UNITS:
+            d = tl[layer][name]
+            assert len(d["median"]) == len(d["ci95"]) == 7
+        lo, hi = tl[layer]["plasma_volume_change"]["ci95"][2]
+        assert 0 < lo <= tl[layer]["plasma_volume_change"]["median"][2] <= hi < 1000.0
