@@ -8,7 +8,7 @@ from __future__ import annotations
 from typing import Any
 
 #: Longest value an error message shows (characters of its repr); longer ones are cut with "...".
-MAX_VALUE_CHARS = 80
+MAX_VALUE_CHARS = 200
 
 #: Longest error line printed (characters): a message stays one readable line whatever the input.
 MAX_LINE_CHARS = 600

@@ -37,7 +37,7 @@ import numpy as np
 from pydantic import BaseModel, ValidationError
 
 from uncertainty.core import units
-from uncertainty.core.bounds import magnitude_problem
+from uncertainty.core.bounds import magnitude_problem, plausible
 from uncertainty.core.errors import StudyError, UnitError, study_error
 from uncertainty.forms.catalogue import (
     INPUT_ORDER,
@@ -1065,11 +1065,13 @@ def _check_data_magnitudes(ob: Observation, sym: str | None, data: Mapping[str, 
                 canon = convert_unit(sym, x, ob.unit, density=ctx.density, tissue_mass_kg=ctx.tissue_mass_kg)
             except UnitError:
                 return  # the unit is checked where it is declared
-            problem = magnitude_problem(sym, canon, spread=spread)
-            if problem is not None:
+            if magnitude_problem(sym, canon, spread=spread) is not None:
+                rng = plausible(sym)
                 header = getattr(data, "headers", {}).get(col if col != role else "value", col)
-                raise study_error(f"{path.name} line {line}, column {shorten(header)}: {problem}", ctx.file,
-                                  f"{key}.file", ob.file)
+                what = "an sd wider than" if spread else "outside"
+                span = f"{rng.low:.4g} to {rng.high:.4g} {units.CANONICAL[sym]}" if rng else "its range"
+                raise study_error(f"{path.name} line {line}, column {shorten(header)}: {what} the plausible range "
+                                  f"of {sym} ({span})", ctx.file, f"{key}.file", ob.file)
 
 
 def resolve_rank(rank: RankSection, kept: Kept, ctx: SectionContext) -> tuple[RankSection, Kept]:
