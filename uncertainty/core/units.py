@@ -222,9 +222,8 @@ def _convert(symbol: str, number: float, unit: str, target: str) -> float:
     except pint.DimensionalityError:
         raise UnitError(f"unit of the wrong dimension for '{symbol}' (expects {target})", key=symbol,
                         value=unit) from None
-    except (pint.UndefinedUnitError, pint.errors.DefinitionSyntaxError, AttributeError, TypeError,
-            ValueError, AssertionError, ArithmeticError, KeyError, IndexError, RecursionError):
-        # ArithmeticError: "mmHg/0" (division by zero), "mmHg**1e9" (overflow)
+    except Exception:  # noqa: BLE001 - any unit text pint cannot read: "mmHg/0" (ZeroDivisionError),
+        # "(((" (tokenize.TokenError), "mmHg**1e9" (OverflowError), undefined names, syntax errors
         raise UnitError(f"unknown unit for '{symbol}'", key=symbol, value=unit) from None
 
 

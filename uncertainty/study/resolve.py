@@ -67,6 +67,7 @@ from uncertainty.priors import (
 from uncertainty.study.data_files import read_csv, shorten
 from uncertainty.study.schema import (
     CSV_COLUMNS,
+    MAX_CV,
     OBS_SYMBOL,
     SECTIONS,
     TOP_LEVEL,
@@ -954,6 +955,13 @@ def check_prior_magnitudes(priors: Mapping[str, Prior], derived: Mapping[str, De
             points = [math.nan]
         for x in points:
             check_plausible(sym, x, file, key)
+        spread = prior.spread
+        if spread is not None and spread.kind == "sd":
+            check_plausible(sym, spread.value, file, f"{key}.between_subject.sd" if key.startswith("parameters.")
+                            else key, spread=True)
+        elif spread is not None and not spread.value <= MAX_CV:
+            raise study_error(f"a between-subject cv above {MAX_CV:g} ({MAX_CV:.0%}) is implausible", file,
+                              f"{key}.between_subject.cv" if key.startswith("parameters.") else key, spread.value)
 
 
 def _step_canonical(st: StepSpec, skey: str, ctx: SectionContext) -> StepSpec:
@@ -962,6 +970,7 @@ def _step_canonical(st: StepSpec, skey: str, ctx: SectionContext) -> StepSpec:
     to = ctx.convert(st.parameter, st.to, st.unit, f"{skey}.unit" if st.unit is not None else f"{skey}.to",
                     f"{skey}.to")
     check_plausible(st.parameter, to, ctx.file, f"{skey}.to", st.to)
+    check_plausible("time", st.at_min, ctx.file, f"{skey}.at_min")
     return st.model_copy(update={"to": to, "unit": units.CANONICAL[st.parameter]})
 
 
@@ -1029,6 +1038,9 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
         check_plausible(sym, update.get("sd"), ctx.file, f"{key}.sd", ob.sd, spread=True)
         if ob.sd is None and ob.cv is None and inst is not None:
             update["sd"], update["cv"] = inst.sd, inst.cv
+            if inst.cv is not None and ob.value is not None and not ob.value > 0:
+                raise study_error(f"instrument {ob.instrument} has a cv (lognormal) error, which needs a positive "
+                                  "value", ctx.file, f"{key}.value", ob.value)
         update["unit"] = units.CANONICAL[sym]
     if ob.kind == "volume_time_course":
         if ob.step is not None:
@@ -1044,6 +1056,14 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
     if ob.file is not None:
         path, data = read_csv(ob, ctx.base_dir, ctx.file, key)
         _check_data_magnitudes(ob, sym, data, path, key, ctx)
+        if inst is not None and inst.cv is not None and ob.sd is None and ob.cv is None:
+            role = "volume" if ob.kind == "volume_time_course" else "value"
+            sds = data.get("sd") or [math.nan] * len(data.get(role, []))
+            for v, sd, line in zip(data.get(role, []), sds, data.get("line", []), strict=False):
+                if not v > 0 and not sd > 0:
+                    raise study_error(f"{path.name} line {line}, column {shorten(data.headers.get('value', role))}: "
+                                      f"instrument {ob.instrument} has a cv (lognormal) error, which needs positive "
+                                      "values", ctx.file, f"{key}.file", ob.file)
         new = new.with_data(path, data)
     return new, kept
 
