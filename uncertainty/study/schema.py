@@ -169,7 +169,7 @@ class Observation(BaseModel):
     sd: float | None = Field(default=None, gt=0)
     cv: float | None = Field(default=None, gt=0, le=MAX_CV)
     unit: str | None = None
-    instrument: str | None = None
+    instrument: str | None = Field(default=None, min_length=1, max_length=MAX_NAME)
     file: str | None = Field(default=None, max_length=MAX_NAME)
     columns: ColumnMap | None = None
     subject: str | int | None = None
@@ -285,12 +285,12 @@ class Candidate(BaseModel):
     """One ``[rank]`` candidate measurement: parameter, noise (sd / cv / instrument), cost (default 1)."""
 
     model_config = STRICT_CONFIG
-    name: str
+    name: str = Field(min_length=1, max_length=MAX_NAME)
     parameter: str
     sd: float | None = Field(default=None, gt=0)
     cv: float | None = Field(default=None, gt=0, le=MAX_CV)
     unit: str | None = None
-    instrument: str | None = None
+    instrument: str | None = Field(default=None, min_length=1, max_length=MAX_NAME)
     cost: float = Field(default=1.0, gt=0)
     n: int = Field(default=1, gt=0, le=10**6)
 
