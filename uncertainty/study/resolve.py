@@ -1061,7 +1061,8 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
             sds = data.get("sd") or [math.nan] * len(data.get(role, []))
             for v, sd, line in zip(data.get(role, []), sds, data.get("line", []), strict=False):
                 if not v > 0 and not sd > 0:
-                    raise study_error(f"{path.name} line {line}, column {shorten(data.headers.get('value', role))}: "
+                    column = shorten(getattr(data, "headers", {}).get("value", role))
+                    raise study_error(f"{path.name} line {line}, column {column}: "
                                       f"instrument {ob.instrument} has a cv (lognormal) error, which needs positive "
                                       "values", ctx.file, f"{key}.file", ob.file)
         new = new.with_data(path, data)
