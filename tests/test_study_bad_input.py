@@ -8,6 +8,7 @@ documents to ``Study.from_dict``: it returns a Study or raises StudyError, never
 from __future__ import annotations
 
 import math
+import os
 import re
 from pathlib import Path
 
@@ -17,10 +18,13 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from uncertainty.app.cli import main
-from uncertainty.core.errors import StudyError
+from uncertainty.core.errors import MAX_LINE_CHARS, StudyError
+from uncertainty.core.files import MAX_STUDY_BYTES
+from uncertainty.core.toml_io import MAX_KEYS
 from uncertainty.study import Study
 
 BAD = Path(__file__).parent / "bad_studies"
+STUDIES = Path(__file__).parents[1] / "studies"
 FILES = sorted(BAD.glob("*.toml"))
 
 
@@ -161,3 +165,95 @@ def test_random_documents_give_study_or_study_error(doc: dict) -> None:
     # a returned study is internally consistent
     assert study.correlation.shape == (len(study.names),) * 2
     assert all(math.isfinite(x) for p in study.priors.values() for x in p.params.values())
+
+
+# ----------------------------------------------------------------------------- files that are not study files
+
+def _check_one_line(path: Path | str, *more: str) -> str:
+    result = CliRunner().invoke(main, ["check", str(path), *more])
+    assert result.exit_code == 2, result.output
+    err = result.stderr.strip()
+    assert "Traceback" not in err and len(err.splitlines()) == 1, err
+    assert result.stdout == ""
+    return err
+
+
+def test_study_path_fifo_is_refused_not_read(tmp_path: Path) -> None:
+    fifo = tmp_path / "study.toml"
+    os.mkfifo(fifo)
+    assert "not a regular file" in _check_one_line(fifo)
+
+
+def test_study_path_to_dev_zero_is_refused(tmp_path: Path) -> None:
+    link = tmp_path / "study.toml"
+    link.symlink_to("/dev/zero")
+    assert "not a regular file" in _check_one_line(link)
+
+
+def test_study_path_folder_and_symlink_loop_are_named(tmp_path: Path) -> None:
+    (tmp_path / "folder.toml").mkdir()
+    assert "is a folder" in _check_one_line(tmp_path / "folder.toml")
+    (tmp_path / "a.toml").symlink_to(tmp_path / "b.toml")
+    (tmp_path / "b.toml").symlink_to(tmp_path / "a.toml")
+    assert "symbolic-link loop" in _check_one_line(tmp_path / "a.toml")
+
+
+def test_study_file_too_large_too_many_keys_too_deep(tmp_path: Path) -> None:
+    head = '[study]\ntissue = "skeletal_muscle"\n'
+    big = tmp_path / "big.toml"
+    big.write_text(head + "# " + "x" * (MAX_STUDY_BYTES + 10) + "\n")
+    assert "larger than the 1 MB accepted" in _check_one_line(big)
+    many = tmp_path / "many.toml"
+    many.write_text(head + "[parameters]\n" + "".join(f"a{i}.b.c = 1\n" for i in range(50_000)))
+    assert f"more than {MAX_KEYS:,} keys" in _check_one_line(many)
+    deep = tmp_path / "deep.toml"
+    deep.write_text(head + "title = " + "[" * 1000 + "]" * 1000 + "\n")
+    assert "nested more than" in _check_one_line(deep)
+
+
+def test_utf8_bom_study_is_accepted(tmp_path: Path) -> None:
+    bom = tmp_path / "bom.toml"
+    bom.write_bytes(b"\xef\xbb\xbf" + b'[study]\ntissue = "skeletal_muscle"\n')
+    result = CliRunner().invoke(main, ["check", str(bom), "--quiet"])
+    assert result.exit_code == 0, result.output
+
+
+def test_truncated_study_names_a_line(tmp_path: Path) -> None:
+    cut = tmp_path / "cut.toml"
+    cut.write_text('[study]\ntissue = "skeletal_muscle"\ntitle = """an unfinished\n')
+    err = _check_one_line(cut)
+    assert "line None" not in err and re.search(r"line \d+", err), err
+
+
+def test_data_file_content_is_never_echoed(tmp_path: Path) -> None:
+    (tmp_path / "secret.csv").write_text("subject,value\nA,1\nB,hunter2-secret\n")
+    study = tmp_path / "s.toml"
+    study.write_text('[study]\ntissue = "skeletal_muscle"\n[[observations]]\nkind = "lymph_flow"\n'
+                     'file = "secret.csv"\nsd = 0.001\n')
+    err = _check_one_line(study)
+    assert "hunter2" not in err and "secret.csv line 3, column value" in err
+
+
+def test_long_values_are_shortened_in_the_message(tmp_path: Path) -> None:
+    study = tmp_path / "s.toml"
+    study.write_text('[study]\ntissue = "skeletal_muscle"\nseed = "' + "9" * 100_000 + '"\n')
+    assert len(_check_one_line(study)) <= MAX_LINE_CHARS
+
+
+@pytest.mark.parametrize("option", [["propagate", "--samples", "1e12"], ["rank", "--samples", "1e12"],
+                                    ["sensitivity", "--samples", "1000000000000"], ["design", "--trials", "1e12"]])
+def test_huge_counts_are_refused_with_a_memory_estimate(option: list[str]) -> None:
+    result = CliRunner().invoke(main, [*option, str(STUDIES / "demo.toml")])
+    assert result.exit_code == 2, result.output
+    err = result.stderr.strip()
+    assert len(err.splitlines()) == 1 and "of memory" in err and option[1] in err, err
+    assert "max-samples" not in err
+
+
+def test_run_stops_at_check_before_writing_a_bundle(tmp_path: Path) -> None:
+    out = tmp_path / "out"
+    result = CliRunner().invoke(main, ["run", str(BAD / "max_samples_below_start.toml"), "--out", str(out),
+                                       "--quiet"])
+    assert result.exit_code == 2, result.output
+    assert "propagate.max_samples" in result.stderr
+    assert not (out / "results.json").exists()

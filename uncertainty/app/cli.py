@@ -8,8 +8,11 @@ matplotlib imports.
 from __future__ import annotations
 
 import importlib
+import sys
 
 import click
+
+from uncertainty.core.errors import FluidshiftError, one_line
 
 # name -> (module under uncertainty.app.commands, one-line help shown by `fluidshift --help`)
 COMMANDS: dict[str, tuple[str, str]] = {
@@ -42,6 +45,15 @@ class LazyGroup(click.Group):
         command = module.command
         command.short_help = command.short_help or short_help
         return command
+
+    def invoke(self, ctx: click.Context) -> object:
+        """Run the command; bad input found while its options are parsed (a ``Count`` too large for
+        memory) is reported like any other: one line on stderr and its exit status, no traceback."""
+        try:
+            return super().invoke(ctx)
+        except FluidshiftError as exc:
+            click.echo(one_line(f"fluidshift: error: {exc}"), err=True)
+            sys.exit(exc.exit_code)
 
     def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
         # Short help from the table above, so that --help imports no command module.

@@ -416,6 +416,8 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
     """
     started = _now()
     study = LOADER(study_path)
+    if isinstance(study, Study):  # every check `fluidshift check` runs, before the bundle is touched
+        check_sections(study)
     seed = getattr(study, "seed", None) if seed is None else seed
     bundle = Bundle(out_dir).open(force=force)
     try:
@@ -446,7 +448,7 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
         doc["provenance"]["finished"] = _now()
         report = write_report(doc, bundle)
         doc["files"] = [report.model_dump()]
-        doc["complete"] = True
+        doc["complete"] = not input_errors  # a section refused its input: not complete, exit 2 below
         bundle.write_results(doc)
     except OSError as exc:  # a full disk or a folder made read-only mid-run: the last checkpoint stays valid
         raise InputError(f"cannot write the bundle ({exc.strerror or exc}); the last complete checkpoint is kept",

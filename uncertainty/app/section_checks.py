@@ -11,11 +11,28 @@ from __future__ import annotations
 from typing import Any
 
 from uncertainty.analyses.design import parse_design
+from uncertainty.analyses.propagate import starting_samples
 from uncertainty.analyses.rank import candidates_of
+from uncertainty.core.errors import InputError
+
+
+def check_propagate(study: Any) -> None:
+    """Raise InputError when ``[propagate]`` max_samples lies below the sample size propagation starts
+    from (``samples`` rounded up to a power of two per replicate for qmc, at least 128 a replicate)."""
+    sec = getattr(study, "propagate", None)
+    if sec is None or sec.max_samples is None:
+        return
+    start = starting_samples(sec.samples, sec.method, sec.replicates)
+    if sec.max_samples < start:
+        raise InputError(f"max_samples is below the sample size propagation starts from ({start:,}: samples "
+                         f"rounded up to {sec.replicates} replicates of a power of two, at least 128 each)",
+                         file=getattr(study, "file", None), key="propagate.max_samples", value=sec.max_samples)
 
 
 def check_sections(study: Any) -> None:
-    """Raise InputError (file, key, value) when the study's [design] or [rank] section cannot run."""
+    """Raise InputError (file, key, value) when the study's [propagate], [design] or [rank] section cannot
+    run."""
+    check_propagate(study)
     if getattr(study, "design", None) is not None:
         parse_design(study)
     if getattr(study, "rank", None) is not None:

@@ -7,6 +7,68 @@ from __future__ import annotations
 
 from typing import Any
 
+#: Longest value an error message shows (characters of its repr); longer ones are cut with "...".
+MAX_VALUE_CHARS = 200
+
+#: Longest error line printed (characters): a message stays one readable line whatever the input.
+MAX_LINE_CHARS = 600
+
+
+def shorten(text: str, limit: int) -> str:
+    """``text`` on one line (line breaks and other control characters as spaces), cut to ``limit`` characters.
+
+    Parameters
+    ----------
+    text : str
+        Any text.
+    limit : int
+        Largest number of characters kept (at least 4).
+
+    Returns
+    -------
+    str
+        The text, ending in ``...`` where it was cut.
+    """
+    flat = "".join(c if c.isprintable() else " " for c in str(text))
+    return flat if len(flat) <= limit else flat[: max(limit - 3, 1)] + "..."
+
+
+def short_value(value: Any) -> str:
+    """The repr of ``value`` as a message shows it: at most :data:`MAX_VALUE_CHARS` characters.
+
+    Parameters
+    ----------
+    value : Any
+        The offending value.
+
+    Returns
+    -------
+    str
+        Its (shortened) repr.
+    """
+    try:
+        text = repr(value) if not isinstance(value, str) or len(value) <= 4 * MAX_VALUE_CHARS \
+            else repr(value[: 4 * MAX_VALUE_CHARS])
+    except (ValueError, RecursionError):  # an int past Python's digit limit, a deeply nested list
+        text = f"<{type(value).__name__}>"
+    return shorten(text, MAX_VALUE_CHARS)
+
+
+def one_line(message: str) -> str:
+    """A message as the command line prints it: one line of at most :data:`MAX_LINE_CHARS` characters.
+
+    Parameters
+    ----------
+    message : str
+        The full message.
+
+    Returns
+    -------
+    str
+        The message on one line, shortened.
+    """
+    return shorten(message, MAX_LINE_CHARS)
+
 
 class FluidshiftError(Exception):
     """Base class for errors the command line reports in one line, without a traceback."""
@@ -34,7 +96,7 @@ class InputError(FluidshiftError):
         if key:
             parts.append(key)
         head = ": ".join(parts)
-        shown = "" if value is None else f" (value: {value!r})"
+        shown = "" if value is None else f" (value: {short_value(value)})"
         super().__init__(f"{head}: {message}{shown}" if head else f"{message}{shown}")
 
 

@@ -177,7 +177,10 @@ def to_canonical(symbol: str, value: float | int | str, unit: str | None = None,
         raise UnitError("expected a number", key=symbol, value=value) from None
     if math.isnan(number):
         raise UnitError("value is NaN", key=symbol, value=value)
-    if unit is None or unit.strip() in ("", "canonical"):
+    if unit is not None and not unit.strip():
+        raise UnitError(f"empty unit for '{symbol}' (leave the unit out for {CANONICAL[symbol]})", key=symbol,
+                        value=unit)
+    if unit is None or unit.strip() == "canonical":
         return number
 
     target = canonical_unit(symbol, basis)
@@ -191,11 +194,19 @@ def to_canonical(symbol: str, value: float | int | str, unit: str | None = None,
             if exc.value is not None:
                 raise
             raise UnitError(exc.reason, key=exc.key, value=given) from None
-        return _convert(symbol, number, stem, target_stem) * factor
+        return _finite(symbol, _convert(symbol, number, stem, target_stem) * factor, given)
     if basis_of(unit) is not None:
         raise UnitError(f"'{symbol}' is not a per-tissue quantity; its unit takes no basis", key=symbol,
                         value=unit)
-    return _convert(symbol, number, unit, target)
+    return _finite(symbol, _convert(symbol, number, unit, target), given)
+
+
+def _finite(symbol: str, x: float, given: Any) -> float:
+    """``x``, or UnitError when the conversion overflowed (``1e308 kPa`` is infinite in mmHg)."""
+    if not math.isfinite(x):
+        raise UnitError(f"'{symbol}' is out of range once converted to {CANONICAL[symbol]}", key=symbol,
+                        value=given)
+    return x
 
 
 def _convert(symbol: str, number: float, unit: str, target: str) -> float:
@@ -213,8 +224,8 @@ def _convert(symbol: str, number: float, unit: str, target: str) -> float:
     except pint.DimensionalityError:
         raise UnitError(f"unit of the wrong dimension for '{symbol}' (expects {target})", key=symbol,
                         value=unit) from None
-    except (pint.UndefinedUnitError, pint.errors.DefinitionSyntaxError, AttributeError, TypeError,
-            ValueError, AssertionError):
+    except Exception:  # noqa: BLE001 - any unit text pint cannot read: "mmHg/0" (ZeroDivisionError),
+        # "(((" (tokenize.TokenError), "mmHg**1e9" (OverflowError), undefined names, syntax errors
         raise UnitError(f"unknown unit for '{symbol}'", key=symbol, value=unit) from None
 
 

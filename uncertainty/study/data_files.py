@@ -19,7 +19,8 @@ import re
 from pathlib import Path
 from typing import Any
 
-from uncertainty.core.errors import StudyError, study_error
+from uncertainty.core.errors import InputError, StudyError, study_error
+from uncertainty.core.files import MAX_DATA_BYTES, read_limited
 from uncertainty.study.schema import CSV_COLUMNS, TIME_COLUMNS, TIME_UNITS, Observation, TimeColumn
 
 #: Longest cell (characters) an error message shows; longer cells are cut with "...".
@@ -106,10 +107,10 @@ def _where(p: Path, line: int | None = None, column: str | None = None) -> str:
 
 def _decode(ob: Observation, p: Path, file: str, fkey: str) -> str:
     try:
-        raw = p.read_bytes()
-    except OSError as exc:
-        raise study_error(f"cannot read the data file ({exc.strerror or type(exc).__name__})", file, fkey,
-                          ob.file) from None
+        raw = read_limited(p, MAX_DATA_BYTES, what="data file", label=file, key=fkey, value=ob.file)
+    except InputError as exc:  # missing, a folder, a FIFO or device, a loop, unreadable, too large
+        looked = f" (looked for {shorten(p, 120)})" if exc.reason.startswith("no such") else ""
+        raise study_error(exc.reason + looked, file, fkey, ob.file) from None
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -133,12 +134,15 @@ def _rows(text: str, delimiter: str) -> list[tuple[int, list[str]]]:
     reader = csv.reader(io.StringIO(text), delimiter=delimiter)
     out = []
     start = 1
-    for cells in reader:
-        line = start
-        start = reader.line_num + 1
-        if not cells or not any(c.strip() for c in cells) or cells[0].lstrip().startswith("#"):
-            continue
-        out.append((line, cells))
+    try:
+        for cells in reader:
+            line = start
+            start = reader.line_num + 1
+            if not cells or not any(c.strip() for c in cells) or cells[0].lstrip().startswith("#"):
+                continue
+            out.append((line, cells))
+    except csv.Error as exc:  # name the line the reader stopped at
+        raise csv.Error(f"{exc}; line {start}") from None
     return out
 
 
@@ -240,14 +244,15 @@ def read_csv(ob: Observation, base_dir: Path, file: str, key: str) -> tuple[Path
         raise study_error("the observation names no data file", file, fkey, None)
     p = Path(ob.file)
     p = p if p.is_absolute() else (base_dir / p)
-    if not p.is_file():
-        raise study_error(f"data file not found (looked for {p})", file, fkey, ob.file)
     text = _decode(ob, p, file, fkey)
     delimiter = _delimiter(text)
     try:
         rows = _rows(text, delimiter)
-    except csv.Error as exc:
-        raise study_error(f"{p.name}: not a readable CSV file ({exc})", file, fkey, ob.file) from None
+    except csv.Error as exc:  # a cell past the csv module's field limit (131,072 characters), a NUL byte
+        why = "a cell longer than 131,072 characters" if "field larger" in str(exc) else "malformed CSV"
+        m = re.search(r"; line (\d+)$", str(exc))
+        where = _where(p, int(m.group(1))) if m else p.name
+        raise study_error(f"{where}: not a readable CSV file ({why})", file, fkey, ob.file) from None
     if not rows:
         raise study_error("the data file is empty", file, fkey, ob.file)
     header = [h.strip() for h in rows[0][1]]
@@ -295,17 +300,17 @@ def read_csv(ob: Observation, base_dir: Path, file: str, key: str) -> tuple[Path
                 x = _number(get[r], decimal_comma)
             except ValueError:
                 raise study_error(f"{_where(p, line, header[roles[r]])}: not a number", file, fkey,
-                                  shorten(get[r])) from None
+                                  ob.file) from None
             if not math.isfinite(x):
                 raise study_error(f"{_where(p, line, header[roles[r]])}: NaN or infinite value", file, fkey,
-                                  shorten(get[r]))
+                                  ob.file)
             parsed[r] = x
         _check_row(ob, parsed, has_error, value_role, p, line, header, roles, get, file, fkey)
         if ob.kind == "volume_time_course":
             s_, t_ = get["subject"], parsed["time"]
             if s_ in last_time and not t_ > last_time[s_]:
-                raise study_error(f"{_where(p, line, header[roles['time']])}: time must increase within subject "
-                                  f"{shorten(s_)}", file, fkey, shorten(get["time"]))
+                raise study_error(f"{_where(p, line, header[roles['time']])}: time must increase within each "
+                                  "subject (it does not on this row)", file, fkey, ob.file)
             last_time[s_] = t_
         data["subject"].append(get["subject"])
         data[value_role].append(parsed[value_role])
@@ -336,7 +341,7 @@ def _check_row(ob: Observation, parsed: dict[str, float], has_error: bool, value
                header: list[str], roles: dict[str, int], get: dict[str, str], file: str, fkey: str) -> None:
     """Per-row checks: sd positive (or a default error), values inside the kind's range."""
     def fail(role: str, message: str) -> StudyError:
-        return study_error(f"{_where(p, line, header[roles[role]])}: {message}", file, fkey, shorten(get[role]))
+        return study_error(f"{_where(p, line, header[roles[role]])}: {message}", file, fkey, ob.file)
 
     if "sd" in parsed and not parsed["sd"] > 0:
         raise fail("sd", "sd must be positive")

@@ -37,6 +37,7 @@ import numpy as np
 from pydantic import BaseModel, ValidationError
 
 from uncertainty.core import units
+from uncertainty.core.bounds import magnitude_problem, plausible
 from uncertainty.core.errors import StudyError, UnitError, study_error
 from uncertainty.forms.catalogue import (
     INPUT_ORDER,
@@ -63,10 +64,11 @@ from uncertainty.priors import (
     parse_entry,
     parse_prior,
 )
-from uncertainty.study.data_files import read_csv
+from uncertainty.study.data_files import read_csv, shorten
 from uncertainty.study.interventions import validate_interventions
 from uncertainty.study.schema import (
     CSV_COLUMNS,
+    MAX_CV,
     OBS_SYMBOL,
     SECTIONS,
     TOP_LEVEL,
@@ -804,11 +806,17 @@ class SectionContext:
     known: Set[str]
     pool: Mapping[str, Prior]
 
-    def convert(self, sym: str, value: float, unit: str | None, key: str) -> float:
-        """``value`` in ``unit`` to the canonical unit of ``sym`` (StudyError at ``key``)."""
+    def convert(self, sym: str, value: float, unit: str | None, key: str, value_key: str | None = None) -> float:
+        """``value`` in ``unit`` to the canonical unit of ``sym``.
+
+        A StudyError names ``key`` (the unit's key when a unit is given) for a bad unit, and ``value_key``
+        (when given) for a value that is out of range once converted, so each is reported where it is.
+        """
         try:
             return convert_unit(sym, value, unit, density=self.density, tissue_mass_kg=self.tissue_mass_kg)
         except UnitError as exc:
+            if value_key is not None and (unit is None or exc.value != unit):
+                raise study_error(exc.reason, self.file, value_key, value) from None
             raise study_error(exc.reason, self.file, key, unit if unit is not None else value) from None
 
 
@@ -885,10 +893,87 @@ def use_instrument(name: str, key: str, measures: str | None, kept: Kept, ctx: S
     return inst, kept.plus(instrument=(name, inst))
 
 
+def check_plausible(symbol: str, x: float | None, file: str, key: str, value: Any = None, *,
+                    spread: bool = False) -> None:
+    """Refuse a physically impossible magnitude (the table in :mod:`uncertainty.core.bounds`).
+
+    Parameters
+    ----------
+    symbol : str
+        The quantity.
+    x : float or None
+        The value in the canonical unit of ``symbol`` (an sd or a shift with ``spread``); None is skipped.
+    file, key : str
+        The study file and the key path, for the message.
+    value : Any
+        The value as written (default ``x``).
+    spread : bool
+        ``x`` is an sd or a shift, compared with the width of the plausible range.
+
+    Raises
+    ------
+    StudyError
+        ``x`` lies outside the plausible range (the message names the range and its unit).
+    """
+    if x is None:
+        return
+    problem = magnitude_problem(symbol, float(x), spread=spread)
+    if problem is not None:
+        raise study_error(problem, file, key, x if value is None else value)
+
+
+def check_prior_magnitudes(priors: Mapping[str, Prior], derived: Mapping[str, Derivation],
+                           overridden: Set[str], head: StudySection, file: str) -> None:
+    """Refuse a prior whose median or 95% interval ends lie outside the quantity's plausible range.
+
+    Parameters
+    ----------
+    priors : Mapping of str to Prior
+        The study's priors after tissue, conditions and overrides (canonical units).
+    derived : Mapping of str to Derivation
+        Its derivations (a protein input is reported under the oncotic pressure declared).
+    overridden : Set of str
+        The quantities ``[parameters]`` declares.
+    head : StudySection
+        ``[study]`` (a prior changed by a condition is reported under ``study.conditions``).
+    file : str
+        The study file, for messages.
+
+    Raises
+    ------
+    StudyError
+        At ``parameters.<symbol>`` (or ``study.conditions`` / ``study.tissue``), naming the range.
+    """
+    owner = {inp: t for t, d in derived.items() for inp in d.inputs if t in overridden}
+    for sym, prior in priors.items():
+        if sym in overridden:
+            key = f"parameters.{sym}"
+        elif sym in owner:
+            key = f"parameters.{owner[sym]}"
+        else:
+            key = "study.conditions" if head.conditions else "study.tissue"
+        try:
+            points = [prior.median()] if prior.is_fixed else [prior.median(), *prior.interval(0.95)]
+        except (ValueError, ArithmeticError):  # pragma: no cover - parse_prior checked the parameters
+            points = [math.nan]
+        for x in points:
+            check_plausible(sym, x, file, key)
+        spread = prior.spread
+        if spread is not None and spread.kind == "sd":
+            check_plausible(sym, spread.value, file, f"{key}.between_subject.sd" if key.startswith("parameters.")
+                            else key, spread=True)
+        elif spread is not None and not spread.value <= MAX_CV:
+            raise study_error(f"a between-subject cv above {MAX_CV:g} ({MAX_CV:.0%}) is implausible", file,
+                              f"{key}.between_subject.cv" if key.startswith("parameters.") else key, spread.value)
+
+
 def _step_canonical(st: StepSpec, skey: str, ctx: SectionContext) -> StepSpec:
     if st.parameter not in units.CANONICAL:
         raise study_error("unknown quantity", ctx.file, f"{skey}.parameter", st.parameter)
-    to = ctx.convert(st.parameter, st.to, st.unit, f"{skey}.unit" if st.unit else f"{skey}.to")
+    to = ctx.convert(st.parameter, st.to, st.unit, f"{skey}.unit" if st.unit is not None else f"{skey}.to",
+                    f"{skey}.to")
+    check_plausible(st.parameter, to, ctx.file, f"{skey}.to", st.to)
+    check_plausible("time", st.at_min, ctx.file, f"{skey}.at_min")
     return st.model_copy(update={"to": to, "unit": units.CANONICAL[st.parameter]})
 
 
@@ -947,22 +1032,70 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
     if ob.kind != "volume_time_course" and sym is not None:
         update["declared_unit"] = ob.unit
         if ob.value is not None:
-            update["value"] = ctx.convert(sym, ob.value, ob.unit, f"{key}.unit" if ob.unit else f"{key}.value")
+            update["value"] = ctx.convert(sym, ob.value, ob.unit, f"{key}.unit" if ob.unit is not None
+                                          else f"{key}.value", f"{key}.value")
         if ob.sd is not None:
-            update["sd"] = ctx.convert(sym, ob.sd, ob.unit, f"{key}.unit" if ob.unit else f"{key}.sd")
+            update["sd"] = ctx.convert(sym, ob.sd, ob.unit, f"{key}.unit" if ob.unit is not None else f"{key}.sd",
+                                       f"{key}.sd")
+        check_plausible(sym, update.get("value"), ctx.file, f"{key}.value", ob.value)
+        check_plausible(sym, update.get("sd"), ctx.file, f"{key}.sd", ob.sd, spread=True)
         if ob.sd is None and ob.cv is None and inst is not None:
             update["sd"], update["cv"] = inst.sd, inst.cv
+            if inst.cv is not None and ob.value is not None and not ob.value > 0:
+                raise study_error(f"instrument {ob.instrument} has a cv (lognormal) error, which needs a positive "
+                                  "value", ctx.file, f"{key}.value", ob.value)
         update["unit"] = units.CANONICAL[sym]
     if ob.kind == "volume_time_course":
         if ob.step is not None:
             update["step"] = _step_canonical(ob.step, f"{key}.step", ctx)
         else:
             update["steps"] = [_step_canonical(st, f"{key}.steps[{j}]", ctx) for j, st in enumerate(ob.steps or [])]
+    for j, q in enumerate(ob.effects or []):
+        if q not in ctx.known or q not in ctx.pool or ctx.pool[q].is_fixed:
+            known_q = ", ".join(sorted(s for s in ctx.known if s in ctx.pool and not ctx.pool[s].is_fixed))
+            raise study_error(f"a group effect names a quantity that is not uncertain in this study (uncertain: "
+                              f"{known_q})", ctx.file, f"{key}.effects[{j}]", q)
     new = ob.model_copy(update=update)
     if ob.file is not None:
         path, data = read_csv(ob, ctx.base_dir, ctx.file, key)
+        _check_data_magnitudes(ob, sym, data, path, key, ctx)
+        if inst is not None and inst.cv is not None and ob.sd is None and ob.cv is None:
+            role = "volume" if ob.kind == "volume_time_course" else "value"
+            sds = data.get("sd") or [math.nan] * len(data.get(role, []))
+            for v, sd, line in zip(data.get(role, []), sds, data.get("line", []), strict=False):
+                if not v > 0 and not sd > 0:
+                    column = shorten(getattr(data, "headers", {}).get("value", role))
+                    raise study_error(f"{path.name} line {line}, column {column}: "
+                                      f"instrument {ob.instrument} has a cv (lognormal) error, which needs positive "
+                                      "values", ctx.file, f"{key}.file", ob.file)
         new = new.with_data(path, data)
     return new, kept
+
+
+def _check_data_magnitudes(ob: Observation, sym: str | None, data: Mapping[str, list], path: Path, key: str,
+                           ctx: SectionContext) -> None:
+    """Refuse a data-file reading (or sd) outside the plausible range, naming its file and line only."""
+    if sym is None and ob.kind == "volume_time_course":
+        sym = "volume"
+    if sym is None:
+        return
+    role = "volume" if ob.kind == "volume_time_course" else "value"
+    for col, spread in ((role, False), ("sd", True)):
+        values = data.get(col) or []
+        for x, line in zip(values, data.get("line", []), strict=False):
+            if not math.isfinite(x):
+                continue
+            try:
+                canon = convert_unit(sym, x, ob.unit, density=ctx.density, tissue_mass_kg=ctx.tissue_mass_kg)
+            except UnitError:
+                return  # the unit is checked where it is declared
+            if magnitude_problem(sym, canon, spread=spread) is not None:
+                rng = plausible(sym)
+                header = getattr(data, "headers", {}).get(col if col != role else "value", col)
+                what = "an sd wider than" if spread else "outside"
+                span = f"{rng.low:.4g} to {rng.high:.4g} {units.CANONICAL[sym]}" if rng else "its range"
+                raise study_error(f"{path.name} line {line}, column {shorten(header)}: {what} the plausible range "
+                                  f"of {sym} ({span})", ctx.file, f"{key}.file", ob.file)
 
 
 def resolve_rank(rank: RankSection, kept: Kept, ctx: SectionContext) -> tuple[RankSection, Kept]:
@@ -998,8 +1131,10 @@ def resolve_rank(rank: RankSection, kept: Kept, ctx: SectionContext) -> tuple[Ra
             inst, kept = use_instrument(c.instrument, f"{key}.instrument", c.parameter, kept, ctx)
         update: dict[str, Any] = {}
         if c.sd is not None:
-            update["sd"] = ctx.convert(c.parameter, c.sd, c.unit, f"{key}.unit" if c.unit else f"{key}.sd")
+            update["sd"] = ctx.convert(c.parameter, c.sd, c.unit, f"{key}.unit" if c.unit is not None
+                                       else f"{key}.sd", f"{key}.sd")
             update["unit"] = units.CANONICAL[c.parameter]
+            check_plausible(c.parameter, update["sd"], ctx.file, f"{key}.sd", c.sd, spread=True)
         elif c.cv is None and inst is not None:
             update["sd"], update["cv"] = inst.sd, inst.cv
         candidates.append(c.model_copy(update=update))
@@ -1034,17 +1169,19 @@ def resolve_design(dsn: DesignSection, kept: Kept, ctx: SectionContext) -> tuple
     for ekey, eff in [("design.effect", dsn.effect)] + [
             (f"design.extra_effects[{i}]", e) for i, e in enumerate(dsn.extra_effects)]:
         kept = keep_known(eff.parameter, f"{ekey}.parameter", kept, ctx)
-        if eff.shift is not None and eff.unit:
-            eff = eff.model_copy(update={"shift": ctx.convert(eff.parameter, eff.shift, eff.unit, f"{ekey}.unit"),
+        if eff.shift is not None and eff.unit is not None:
+            eff = eff.model_copy(update={"shift": ctx.convert(eff.parameter, eff.shift, eff.unit, f"{ekey}.unit",
+                                                                  f"{ekey}.shift"),
                                          "unit": units.CANONICAL[eff.parameter]})
+        check_plausible(eff.parameter, eff.shift, ctx.file, f"{ekey}.shift", spread=True)
         effects.append(eff)
     known = set(ctx.known) | {s for s, _ in kept.priors}
     if dsn.endpoint not in known and dsn.endpoint not in CSV_COLUMNS:
         kept = keep_known(dsn.endpoint, "design.endpoint", kept, ctx)
-    for sym in dsn.between_subject:
-        kept = keep_known(sym, f"design.between_subject.{sym}", kept, ctx)
-    for sym in dsn.within_subject:
-        kept = keep_known(sym, f"design.within_subject.{sym}", kept, ctx)
+    for part, spreads in (("between_subject", dsn.between_subject), ("within_subject", dsn.within_subject)):
+        for sym, spread in spreads.items():
+            kept = keep_known(sym, f"design.{part}.{sym}", kept, ctx)
+            check_plausible(sym, spread.sd, ctx.file, f"design.{part}.{sym}.sd", spread=True)
     parsed: dict[str, Prior | None] = {}
     for part in ("design_prior", "analysis_prior"):
         spec = getattr(dsn, part)

@@ -7,17 +7,40 @@ import math
 from pathlib import Path
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, RootModel, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    RootModel,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
 
 from uncertainty.forms.catalogue import MODEL_FORMS
 from uncertainty.priors import (
     Prior,
 )
 
-STRICT_CONFIG = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False)
+#: Longest text a study key may hold (characters): titles and descriptions are a few hundred
+#: (common practice: an absurdity bound); names have their own, shorter bound (:data:`MAX_NAME`).
+MAX_TEXT = 10_000
+#: Longest name (tissue, quantity, file, candidate...), characters (common practice: file systems cap a
+#: file name at 255 bytes).
+MAX_NAME = 200
+#: Largest coefficient of variation accepted for an error or a spread (dimensionless): 10 is 1000 %,
+#: past any measurement or between-subject spread (common practice: an absurdity bound).
+MAX_CV = 10.0
+
+STRICT_CONFIG = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False, str_max_length=MAX_TEXT)
 
 
 Number = float  # strict mode accepts int for float
+
+#: Most subjects per arm a design may consider (common practice: an absurdity bound; the largest
+#: trials enrol tens of thousands).
+MAX_ARM = 100_000
 
 
 class StudySection(BaseModel):
@@ -25,8 +48,8 @@ class StudySection(BaseModel):
 
     model_config = STRICT_CONFIG
     title: str = ""
-    tissue: str
-    conditions: list[str] = Field(default_factory=list)
+    tissue: str = Field(max_length=64, pattern=r"^[A-Za-z0-9_-]+$")
+    conditions: list[str] = Field(default_factory=list, max_length=50)
     model: Literal[MODEL_FORMS] = "classic"  # type: ignore[valid-type]  # the form catalogue's names
     seed: int = Field(default=1, ge=0, lt=2**63)
     tissue_mass: float | str | None = None
@@ -51,15 +74,23 @@ class PropagateSection(BaseModel):
         "draws per randomised replicate set in all; a power of two for qmc (rounded up with a note)"))
     method: Literal["mc", "qmc", "lhs"] = Field(default="qmc", description=(
         "mc (plain Monte Carlo), qmc (scrambled Sobol' points), lhs (Latin hypercube)"))
-    outputs: list[str] | None = Field(default=None, min_length=1, description=(
+    outputs: list[str] | None = Field(default=None, min_length=1, max_length=100, description=(
         "outputs to summarise; default every output of the model form (Jv, net_pressure and each force first)"))
     replicates: int = Field(default=16, ge=16, le=1024, description=(
         "independent randomised replicates for the Monte Carlo standard errors (at least 16 scrambles)"))
     tol: float | None = Field(default=None, gt=0, description=(
         "keep doubling the sample until the 95% Monte Carlo margin of the 95% interval ends is below tol "
         "(output units)"))
-    max_samples: int | None = Field(default=None, gt=0, description=(
+    max_samples: int | None = Field(default=None, gt=0, le=2**26, description=(
         "with tol: the largest sample; reaching it first exits 3"))
+
+    @field_validator("max_samples")
+    @classmethod
+    def _max_at_least_samples(cls, v: int | None, info: ValidationInfo) -> int | None:
+        samples = info.data.get("samples")
+        if v is not None and isinstance(samples, int) and v < samples:
+            raise ValueError(f"max_samples is below samples ({samples})")
+        return v
 
 
 class SensitivitySection(BaseModel):
@@ -138,10 +169,10 @@ class Observation(BaseModel):
     parameter: str | None = None
     value: float | None = None
     sd: float | None = Field(default=None, gt=0)
-    cv: float | None = Field(default=None, gt=0)
+    cv: float | None = Field(default=None, gt=0, le=MAX_CV)
     unit: str | None = None
-    instrument: str | None = None
-    file: str | None = None
+    instrument: str | None = Field(default=None, min_length=1, max_length=MAX_NAME)
+    file: str | None = Field(default=None, max_length=MAX_NAME)
     columns: ColumnMap | None = None
     subject: str | int | None = None
     group: str | None = None
@@ -154,7 +185,7 @@ class Observation(BaseModel):
     # and where lymph was collected for lymph_flow
     volume: Any = None
     lymph: Any = None
-    effects: list[str] | None = None
+    effects: list[str] | None = Field(default=None, max_length=20)
     site: Literal["pre_nodal", "post_nodal"] | None = None
     # body_weight / fluid_balance: the organ's share of the body's net fluid gain (a prior declaration)
     share: Any = None
@@ -162,6 +193,14 @@ class Observation(BaseModel):
     every: int | None = Field(default=None, ge=1)
     _data: dict[str, list] | None = PrivateAttr(default=None)
     _path: Path | None = PrivateAttr(default=None)
+
+    @field_validator("cv")
+    @classmethod
+    def _cv_needs_positive_value(cls, v: float | None, info: ValidationInfo) -> float | None:
+        value = info.data.get("value")
+        if v is not None and isinstance(value, int | float) and not value > 0:
+            raise ValueError(f"a cv (lognormal) error needs a positive value (value = {value:g})")
+        return v
 
     @property
     def data(self) -> dict[str, list] | None:
@@ -248,14 +287,14 @@ class Candidate(BaseModel):
     """One ``[rank]`` candidate measurement: parameter, noise (sd / cv / instrument), cost (default 1)."""
 
     model_config = STRICT_CONFIG
-    name: str
+    name: str = Field(min_length=1, max_length=MAX_NAME)
     parameter: str
     sd: float | None = Field(default=None, gt=0)
-    cv: float | None = Field(default=None, gt=0)
+    cv: float | None = Field(default=None, gt=0, le=MAX_CV)
     unit: str | None = None
-    instrument: str | None = None
+    instrument: str | None = Field(default=None, min_length=1, max_length=MAX_NAME)
     cost: float = Field(default=1.0, gt=0)
-    n: int = Field(default=1, gt=0)
+    n: int = Field(default=1, gt=0, le=10**6)
 
     @model_validator(mode="after")
     def _noise(self) -> Candidate:
@@ -271,7 +310,7 @@ class RankSection(BaseModel):
     """``[rank]``: candidate measurements; optional ``budget``; output Jv; 4096 samples by default."""
 
     model_config = STRICT_CONFIG
-    candidates: list[Candidate] = Field(default_factory=list)  # empty: instruments.toml for the tissue
+    candidates: list[Candidate] = Field(default_factory=list, max_length=100)  # empty: instruments.toml for the tissue
     budget: float | None = Field(default=None, gt=0)
     output: str = "Jv"
     samples: int = Field(default=4096, gt=0, le=2**22)
@@ -291,7 +330,7 @@ class Spread(BaseModel):
 
     model_config = STRICT_CONFIG
     sd: float | None = Field(default=None, gt=0)
-    cv: float | None = Field(default=None, gt=0)
+    cv: float | None = Field(default=None, gt=0, le=MAX_CV)
 
     @model_validator(mode="after")
     def _one(self) -> Spread:
@@ -305,7 +344,7 @@ class Effect(BaseModel):
 
     model_config = STRICT_CONFIG
     parameter: str
-    multiply: float | None = Field(default=None, gt=0)
+    multiply: float | None = Field(default=None, gt=0, le=1000, ge=1e-3)  # absurdity bound: a 1000-fold change
     shift: float | None = None
     unit: str | None = None
 
@@ -380,6 +419,8 @@ class DesignSection(BaseModel):
     def _range(cls, v: list[int]) -> list[int]:
         if not 2 <= v[0] <= v[1]:
             raise ValueError("n_range is [low, high] with 2 <= low <= high")
+        if v[1] > MAX_ARM:
+            raise ValueError(f"n_range goes up to {MAX_ARM:,} subjects per arm at most")
         return v
 
 
@@ -427,17 +468,18 @@ class ScheduleSection(BaseModel):
     venous compliance C_v and filling time constant tau_v are lognormal with the medians and gsds here."""
 
     model_config = STRICT_CONFIG
+    # the upper bounds (le=) of the settings below are absurdity bounds (common practice)
     steps: int = Field(default=5, ge=1, le=12, description="number of cumulative cuff steps")
     step_min: float = Field(default=4.0, gt=0, le=60, description=(
         "duration of each step, min (from memory: cumulative protocols hold each step about 4 min)"))
     pressure_grid: list[float] = Field(
-        default_factory=lambda: [10.0, 20.0, 30.0, 40.0, 50.0, 60.0, 70.0, 80.0], min_length=1,
+        default_factory=lambda: [10.0, 20.0, 30.0, 40.0, 50.0, 60.0, 70.0, 80.0], min_length=1, max_length=100,
         description="cuff pressures allowed for a step, mmHg (common practice: up to about 80 mmHg, below "
                     "diastolic pressure, in 10 mmHg steps)")
     increasing: bool = Field(default=True, description="each step at or above the previous (cumulative protocol)")
     measurements: int = Field(default=10, ge=1, le=200, description="number K of limb-volume readings")
-    time_step_min: float = Field(default=0.5, gt=0, description="spacing of the candidate reading times, min")
-    noise_sd: float = Field(default=0.01, gt=0, description=(
+    time_step_min: float = Field(default=0.5, gt=0, le=60, description="spacing of the candidate reading times, min")
+    noise_sd: float = Field(default=0.01, gt=0, le=100, description=(
         "sd of one limb-volume reading, mL per 100 g of tissue (from memory: strain-gauge resolution about "
         "0.01 mL/100 mL)"))
     criterion: Literal["A", "D"] = Field(default="A", description=(
@@ -449,13 +491,13 @@ class ScheduleSection(BaseModel):
         "prior points (the median and further prior draws) the criterion is averaged over"))
     transmission: float = Field(default=0.9, gt=0, le=1, description=(
         "cuff-to-vein pressure transmission (Christ et al. 1997 J Physiol 503:463, abstract: 0.91)"))
-    C_v_median: float = Field(default=0.06, gt=0, description=(
+    C_v_median: float = Field(default=0.06, gt=0, le=100, description=(
         "median venous compliance, mL/mmHg per 100 g (from memory: forearm venous volume rises about "
         "2-3 mL/100 mL under 40 mmHg congestion)"))
-    C_v_gsd: float = Field(default=1.5, gt=1, description="geometric sd of the venous compliance (from memory)")
-    tau_v_median: float = Field(default=1.0, gt=0, description=(
+    C_v_gsd: float = Field(default=1.5, gt=1, le=10, description="geometric sd of the venous compliance (from memory)")
+    tau_v_median: float = Field(default=1.0, gt=0, le=1000, description=(
         "median venous filling time constant, min (from memory: veins fill within 1-2 min)"))
-    tau_v_gsd: float = Field(default=1.5, gt=1, description="geometric sd of tau_v (from memory)")
+    tau_v_gsd: float = Field(default=1.5, gt=1, le=10, description="geometric sd of tau_v (from memory)")
 
     @field_validator("pressure_grid")
     @classmethod

@@ -29,7 +29,8 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.core.errors import StudyError, UnitError
+from uncertainty.core.errors import InputError, StudyError, UnitError
+from uncertainty.core.files import MAX_STUDY_BYTES, read_limited
 from uncertainty.core.toml_io import parse_toml_bytes
 from uncertainty.forms.catalogue import study_outputs
 from uncertainty.priors import Derivation, Instrument, Prior, prior_rows
@@ -38,6 +39,7 @@ from uncertainty.study.resolve import (
     StudyInput,
     apply_conditions,
     apply_overrides,
+    check_prior_magnitudes,
     resolve_correlations,
     resolve_scenarios,
     resolve_sections,
@@ -271,6 +273,7 @@ def _study_from(inp: StudyInput) -> Study:
     Pi_ref, steady_Cp = steady_references(head, base, form.derived)
     sections = resolve_sections(inp, form, base, Pi_ref)
     priors = {**form.priors, **dict(sections.kept.priors)}
+    check_prior_magnitudes(priors, form.derived, declared.overridden, head, file)
     scenarios = resolve_scenarios(inp.scenarios, head, set(form.priors) | set(form.derived), base, file)
     plan = resolve_timeline(head, inp.section("interventions", InterventionList),
                             inp.section("timeline", TimelineSection), file)
@@ -305,15 +308,14 @@ def load_study(path: str | Path) -> Study:
     Raises
     ------
     StudyError
-        Naming the file, the key path and the value.
+        Naming the file, the key path and the value; also a path that is missing, a folder, a FIFO or
+        device, a symbolic-link loop, or a file over 1 MB (read without blocking, never past the bound).
     """
     p = Path(path)
     try:
-        data = p.read_bytes()
-    except FileNotFoundError:
-        raise StudyError("no such study file", file=str(p)) from None
-    except OSError as exc:
-        raise StudyError(f"cannot read the study file ({exc.strerror})", file=str(p)) from None
+        data = read_limited(p, MAX_STUDY_BYTES, what="study file")
+    except InputError as exc:
+        raise StudyError(exc.reason, file=exc.file) from None
     doc = parse_toml_bytes(data, str(p))
     return Study.from_dict(doc, p, p.parent, file_hash=hashlib.sha256(data).hexdigest())
 

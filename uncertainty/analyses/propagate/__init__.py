@@ -182,6 +182,32 @@ def _resolve_samples(samples: int, method: str, replicates: int, notes: list[str
     return per
 
 
+def starting_samples(samples: int, method: str, replicates: int = REPLICATES) -> int:
+    """The sample size propagation starts from (the total over the replicates), as :func:`propagate_arrays`
+    rounds and raises it.
+
+    Parameters
+    ----------
+    samples : int
+        Draws asked for (total over the replicates).
+    method : str
+        ``qmc`` (per-replicate size a power of two), ``mc`` or ``lhs``.
+    replicates : int
+        Independent replicates.
+
+    Returns
+    -------
+    int
+        The starting total (draws).
+
+    Raises
+    ------
+    InputError
+        ``samples`` is not a positive whole number.
+    """
+    return max(_resolve_samples(samples, method, replicates, []), MIN_PER_REPLICATE) * replicates
+
+
 def propagate_arrays(
     sample_layers: Callable[[np.ndarray], dict[str, dict[str, np.ndarray]]],
     k: int,
@@ -218,7 +244,8 @@ def propagate_arrays(
         per = MIN_PER_REPLICATE
     if tol is not None and not (tol > 0):
         raise InputError("the tolerance must be positive", key="tol", value=tol)
-    max_samples = DEFAULT_MAX_SAMPLES if max_samples is None else max_samples
+    # without a stated max-samples the doubling stops at the default, never below the starting size
+    max_samples = max(DEFAULT_MAX_SAMPLES, per * replicates) if max_samples is None else max_samples
     if max_samples < per * replicates:
         raise InputError(f"max-samples is below the starting sample size {per * replicates}",
                          key="max_samples", value=max_samples)

@@ -11,7 +11,7 @@ from uncertainty.study import TOP_LEVEL, data_notes, load_study, resolved_rows
 
 
 @click.command("check", short_help="Validate a study file and show the resolved priors.")
-@click.argument("study", type=click.Path(dir_okay=False))
+@click.argument("study", type=click.Path())
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout and nothing else.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
 @handle_errors

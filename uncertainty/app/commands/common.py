@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import contextlib
 import functools
+import math
 import sys
 from collections.abc import Callable
 from typing import Any
@@ -15,7 +16,8 @@ from typing import Any
 import click
 
 from uncertainty.analyses.result import Result
-from uncertainty.core.errors import FluidshiftError, QualityGateError
+from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError, one_line
+from uncertainty.core.limits import memory_problem
 from uncertainty.core.serialise import to_json
 
 
@@ -29,8 +31,61 @@ def study_options(func: Callable) -> Callable:
     func = click.option("--json", "as_json", is_flag=True,
                         help="Print one JSON document on stdout and nothing else.")(func)
     func = click.option("--seed", type=int, default=None, help="Override the study's seed.")(func)
-    func = click.argument("study", type=click.Path(dir_okay=False))(func)
+    func = click.argument("study", type=click.Path())(func)  # the reader says what is wrong with it
     return func
+
+
+#: Estimated memory per unit of work, bytes (estimates, common practice: the arrays each keeps).
+#: propagate: the cube row and every output in both layers, with evaluation temporaries (~1 KiB a draw);
+#: sensitivity: a Sobol' base sample evaluates 2k + 2 rows of inputs and outputs (~16 KiB);
+#: rank: a prior draw, its simulated readings for each candidate and the regressions (~2 KiB);
+#: design: one simulated trial's subjects and its fitted estimates (~4 KiB).
+PROPAGATE_BYTES = 1024
+SENSITIVITY_BYTES = 16 * 1024
+RANK_BYTES = 2 * 1024
+TRIAL_BYTES = 4 * 1024
+
+
+class Count(click.ParamType):
+    """A positive whole number of draws, trials or samples, bounded by the memory it would take.
+
+    Accepts ``4096``, ``1e6`` or ``1_000_000``; refuses (exit 2, one line naming the option) a number that
+    is not whole, not positive, or whose estimated memory exceeds the budget of
+    :func:`uncertainty.core.limits.memory_budget`, with the estimate in the message.
+    """
+
+    name = "count"
+
+    def __init__(self, bytes_each: int, what: str = "draws") -> None:
+        self.bytes_each = bytes_each
+        self.what = what
+
+    def convert(self, value: Any, param: click.Parameter | None, ctx: click.Context | None) -> int:
+        """The count as an int; InputError (exit 2) for a bad or too large one."""
+        if isinstance(value, int) and not isinstance(value, bool):
+            n = value
+        else:
+            text = str(value).strip().replace("_", "")
+            try:
+                n = int(text)
+            except ValueError:
+                try:
+                    x = float(text)
+                except ValueError:
+                    x = math.nan
+                if not math.isfinite(x) or x != int(x):
+                    raise InputError("expected a whole number", key=self._key(param), value=value) from None
+                n = int(x)
+        if n <= 0:
+            raise InputError("must be positive", key=self._key(param), value=value)
+        problem = memory_problem(n, self.bytes_each, self.what)
+        if problem is not None:
+            raise InputError(problem, key=self._key(param), value=value)
+        return n
+
+    @staticmethod
+    def _key(param: click.Parameter | None) -> str:
+        return f"--{param.name.replace('_', '-')}" if param is not None and param.name else "count"
 
 
 def emit_json(doc: dict[str, Any]) -> None:
@@ -103,10 +158,10 @@ def handle_errors(func: Callable) -> Callable:
             with _libraries_silenced():
                 return func(*args, **kwargs)
         except QualityGateError as exc:
-            click.echo(f"fluidshift: quality gate failed: {exc}", err=True)
+            click.echo(one_line(f"fluidshift: quality gate failed: {exc}"), err=True)
             sys.exit(exc.exit_code)
         except FluidshiftError as exc:
-            click.echo(f"fluidshift: error: {exc}", err=True)
+            click.echo(one_line(f"fluidshift: error: {exc}"), err=True)
             sys.exit(exc.exit_code)
         except KeyboardInterrupt:
             click.echo("fluidshift: interrupted", err=True)

@@ -8,7 +8,7 @@ import click
 
 from uncertainty.analyses.design import MAX_TRIALS, MIN_TRIALS, MIN_TRIALS_REASON, design
 from uncertainty.analyses.schedule import schedule
-from uncertainty.app.commands.common import handle_errors, show_result, study_options
+from uncertainty.app.commands.common import TRIAL_BYTES, Count, handle_errors, show_result, study_options
 from uncertainty.core.errors import InputError
 from uncertainty.core.parallel import make_executor
 from uncertainty.study import load_study
@@ -17,7 +17,7 @@ from uncertainty.study import load_study
 @click.command("design", short_help="Power, assurance and sample size for a trial.")
 @study_options
 @click.option("--exact", is_flag=True, help="Refit every simulated trial with full MCMC (slow).")
-@click.option("--trials", type=int, default=None, help="Simulated trials per design point.")
+@click.option("--trials", type=Count(TRIAL_BYTES, "trials"), default=None, help="Simulated trials per design point.")
 @click.option("--workers", type=int, default=None, help="Run design points on a local dask cluster of N processes.")
 @click.option("--scheduler", default=None, help="Join a running dask scheduler at ADDRESS.")
 @click.option("--checkpoint", type=click.Path(file_okay=False), default=None,

@@ -5,14 +5,14 @@ from __future__ import annotations
 import click
 
 from uncertainty.analyses.propagate import propagate
-from uncertainty.app.commands.common import handle_errors, show_result, study_options
+from uncertainty.app.commands.common import PROPAGATE_BYTES, Count, handle_errors, show_result, study_options
 from uncertainty.core.errors import QualityGateError
 from uncertainty.study import load_study
 
 
 @click.command("propagate", short_help="Distribution of Jv and other outputs (Monte Carlo / QMC).")
 @study_options
-@click.option("--samples", type=int, default=None, help="Total draws (split over 16 replicates).")
+@click.option("--samples", type=Count(PROPAGATE_BYTES), default=None, help="Total draws (split over 16 replicates).")
 @click.option("--method", type=click.Choice(["qmc", "mc", "lhs"]), default=None,
               help="Sampling design: scrambled Sobol' QMC (default), plain MC, Latin hypercube.")
 @click.option("--output", "outputs", multiple=True, help="An output to summarise (repeatable).")
@@ -20,7 +20,7 @@ from uncertainty.study import load_study
               help="Double the sample until the 95% Monte Carlo margin (t x standard error) of the "
                    "95%-interval ends of the first output is below TOL (its unit); exit 3 if --max-samples "
                    "comes first.")
-@click.option("--max-samples", type=int, default=None, help="Upper limit for --tol doubling.")
+@click.option("--max-samples", type=Count(PROPAGATE_BYTES), default=None, help="Upper limit for --tol doubling.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool,
             samples: int | None, method: str | None, outputs: tuple[str, ...], tol: float | None,

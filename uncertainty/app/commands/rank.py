@@ -5,13 +5,13 @@ from __future__ import annotations
 import click
 
 from uncertainty.analyses.rank import rank
-from uncertainty.app.commands.common import handle_errors, show_result, study_options
+from uncertainty.app.commands.common import RANK_BYTES, Count, handle_errors, show_result, study_options
 from uncertainty.study import load_study
 
 
 @click.command("rank", short_help="Which measurement would narrow the Jv interval most.")
 @study_options
-@click.option("--samples", type=int, default=None, help="Prior draws (at least 4096).")
+@click.option("--samples", type=Count(RANK_BYTES), default=None, help="Prior draws (at least 4096).")
 @click.option("--method", type=click.Choice(["auto", "regression", "importance"]), default="auto",
               help="EVSI estimator: regression on the simulated reading, likelihood reweighting, or auto.")
 @click.option("--from-prior", "from_prior", is_flag=True,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from uncertainty.analyses.sensitivity import sensitivity
-from uncertainty.app.commands.common import handle_errors, show_result, study_options
+from uncertainty.app.commands.common import SENSITIVITY_BYTES, Count, handle_errors, show_result, study_options
 from uncertainty.study import load_study
 
 
@@ -13,7 +13,7 @@ from uncertainty.study import load_study
 @study_options
 @click.option("--method", type=click.Choice(["sobol", "morris", "shapley"]), default=None,
               help="Sobol' (independent inputs), Morris screening, or Shapley effects (correlated inputs).")
-@click.option("--samples", type=int, default=None,
+@click.option("--samples", type=Count(SENSITIVITY_BYTES), default=None,
               help="Base samples N (Sobol', a power of two), trajectories (Morris) or outer draws (Shapley).")
 @click.option("--output", default=None, help="The model output to analyse (default Jv).")
 @click.option("--layer", type=click.Choice(["individual", "typical"]), default=None,
