@@ -43,7 +43,7 @@ def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) 
 
 
             return dataclasses.replace(study, observations=normalise_observations(
-                observations, file=study.file, density=study.density))
+                observations, file=study.file, density=study.density, tissue_mass_kg=study.tissue_mass_kg))
         return study
     return problem_from_study(study, observations=observations, model=model)
 
@@ -76,6 +76,40 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     if checks:
         result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
     return result
+
+
+def check_model(study: Any) -> dict[str, Any]:
+    """Declare the inference model of ``study`` without compiling or sampling it, so that every
+    refusal :func:`infer` would make (an observation the model cannot use, a group effect on a
+    quantity that is not uncertain, a quantity a kind needs and the study lacks) is raised now.
+
+    Parameters
+    ----------
+    study : Study or Problem
+        A study with ``[[observations]]`` (and optionally ``[infer]``).
+
+    Returns
+    -------
+    dict
+        ``subjects`` (count), ``groups`` (labels), ``terms`` (likelihood terms, one per observation
+        entry), ``readings`` (values they hold), ``free_variables`` (PyMC free random variables).
+
+    Raises
+    ------
+    InputError
+        The refusal, naming the study file, the key path and the value (exit 2 on the command line).
+    """
+    problem = _problem(study, None, None)
+    if not problem.observations:
+        raise InputError("the study has no [[observations]] to update the priors from",
+                         file=problem.file, key="observations", value=None)
+    settings(study)
+    built = build_model(problem, structure_only=True)
+    readings = sum(int(np.size(t.subjects)) if t.observation.kind == "volume_time_course"
+                   else int(np.size(t.observation.values)) for t in built.terms)
+    return {"subjects": len(built.subjects) if built.hierarchical else 1, "groups": list(built.groups),
+            "terms": [t.name for t in built.terms], "readings": readings,
+            "free_variables": len(built.model.free_RVs)}
 
 
 def settings(study: Any, **given: Any) -> dict[str, Any]:
@@ -386,7 +420,8 @@ class Session:
     def data_from(self, observations: Sequence[Any]) -> dict[str, np.ndarray]:
         """Data arrays (canonical units) for each term from study-form observation records."""
 
-        obs = normalise_observations(observations, file=self.problem.file, density=self.problem.density)
+        obs = normalise_observations(observations, file=self.problem.file, density=self.problem.density,
+                                     tissue_mass_kg=self.problem.tissue_mass_kg)
         if len(obs) != len(self.problem.observations):
             raise InputError("a refit needs as many observations as the session was built with",
                              key="observations", value=len(obs))
