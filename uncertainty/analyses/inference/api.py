@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference import checks as checks_mod
+from uncertainty.analyses.inference.answers import add_answers
 from uncertainty.analyses.inference.compare import compare_forms
 from uncertainty.analyses.inference.diagnostics import Gate, diagnose
 from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, is_positive, spread_ratio
@@ -193,9 +194,9 @@ def _reported(built: BuiltModel, idata: Any, name: str) -> np.ndarray:
     return flat(idata, f"{name}__subject")[:, 0]
 
 
-def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> np.ndarray:
+def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> tuple[np.ndarray, dict[str, Any]]:
     vals = new_subject_values(built, idata, rng)
-    return np.asarray(built.problem.evaluate(vals, np)["Jv"], dtype=float)
+    return np.asarray(built.problem.evaluate(vals, np)["Jv"], dtype=float), vals
 
 
 def new_subject_values(built: BuiltModel, idata: Any, rng: np.random.Generator) -> dict[str, Any]:
@@ -322,7 +323,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
                 block["group"] = built.subject_group[sid]
             subjects[sid] = block
     jv_main = jv_typical if built.hierarchical else jv_subject[:, 0]
-    new = _new_subject(built, idata, rng)
+    new, new_values = _new_subject(built, idata, rng)
     jv_block = summarise(jv_main)
     if "Jv" in prior:
         pv = float(np.var(prior["Jv"], ddof=1))
@@ -390,6 +391,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         "notes": notes,
         "units": unit_map,
     }
+    add_answers(doc, built, idata, new_values)
     return InferenceResult(doc=doc, idata=idata, built=built, prior_draws=prior,
                            new_subject_draws=new,
                            timing={"compile_s": run.compile_seconds, "sample_s": run.sample_seconds})

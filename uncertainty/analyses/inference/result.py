@@ -16,6 +16,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from uncertainty.analyses.inference import answers_table
 from uncertainty.analyses.inference.figure import plot_all
 from uncertainty.analyses.inference.report_section import section_html
 from uncertainty.analyses.inference.table import table
@@ -41,7 +42,22 @@ class InferenceResult(DocumentResult):
         return bool(self.doc["diagnostics"]["passed"])
 
     def to_dataframe(self) -> Any:
-        """One row per quantity: prior and posterior mean, sd, 95% interval and contraction."""
+        """Tidy tables, one per kind of row: ``""`` (one row per quantity: prior and posterior mean, sd,
+        95% interval and contraction; Jv per level and subject), ``subjects`` (subject x subject-level
+        quantity), ``cohort`` (typical subject, new subject, cohort total or the study's individual x
+        quantity) and ``group_effects``; the last three only when the result has them. Each row names
+        its unit (per-tissue quantities per 100 g; whole-tissue flows mL/h, L/day)."""
+        import pandas as pd
+
+        frames = {"": self._main_frame()}
+        for key, rows in (("subjects", answers_table.subject_rows(self.doc)),
+                          ("cohort", answers_table.cohort_rows(self.doc)),
+                          ("group_effects", answers_table.effect_rows(self.doc))):
+            if rows:
+                frames[key] = pd.DataFrame(rows)
+        return frames
+
+    def _main_frame(self) -> Any:
         import pandas as pd
 
         rows = []
@@ -63,7 +79,8 @@ class InferenceResult(DocumentResult):
         return pd.DataFrame(rows)
 
     def save(self, out_dir: str) -> dict[str, str]:
-        """Write posterior.nc (ArviZ netCDF), inference.json and inference.csv into ``out_dir``."""
+        """Write posterior.nc (ArviZ netCDF), inference.json, inference.csv and inference-<table>.csv (the
+        answers' tidy tables) into ``out_dir``."""
         os.makedirs(out_dir, exist_ok=True)
         paths = {}
         if self.idata is not None:
@@ -72,8 +89,10 @@ class InferenceResult(DocumentResult):
         paths["json"] = os.path.join(out_dir, "inference.json")
         with open(paths["json"], "w", encoding="utf-8") as fh:
             fh.write(to_json(self.doc))
-        paths["table"] = os.path.join(out_dir, "inference.csv")
-        self.to_dataframe().to_csv(paths["table"], index=False)
+        for key, frame in self.to_dataframe().items():
+            name = "table" if not key else key
+            paths[name] = os.path.join(out_dir, "inference.csv" if not key else f"inference-{key}.csv")
+            frame.to_csv(paths[name], index=False)
         return paths
 
     def plot(self, out_dir: str) -> list[str]:
