@@ -52,13 +52,13 @@ def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) 
 def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str = "nutpie",
         seed: int | None = None, chains: int = 4, draws: int = 1000, tune: int = 1000,
         gate: Any = None, model: str | None = None, checks: bool = False,
-        target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto") -> InferenceResult:
+        target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto", progress: bool = False) -> InferenceResult:
     """Build and sample the posterior of ``study`` (a Study or a Problem); never raises on the gate.
 
     ``observations`` replaces the study's own observation list (records in study-file form);
     ``model`` replaces its model form; ``start`` is one of :data:`STARTS`. Returns an
     :class:`InferenceResult` whose ``doc["diagnostics"]["passed"]`` says whether the gate passed.
-    Jv in mL/min per basis.
+    Jv in mL/min per basis. ``progress`` shows the sampler's live per-chain table on stderr.
     """
     problem = _problem(study, observations, model)
     if not problem.observations:
@@ -69,7 +69,7 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     built = build_model(problem)
     mode, mode_seconds = _start_point(built, start)
     run = sample(built.model, sampler=sampler, chains=chains, draws=draws, tune=tune, seed=seed,
-                 target_accept=target_accept, start=mode)
+                 target_accept=target_accept, start=mode, progress=progress)
     result = summarise_run(built, run, Gate.coerce(gate), seed=seed)
     if mode is not None:
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
@@ -134,18 +134,19 @@ def settings(study: Any, **given: Any) -> dict[str, Any]:
 def infer(study: Any, sampler: str | None = None, seed: int | None = None, chains: int | None = None,
           draws: int | None = None, tune: int | None = None, gate: Any = None, compare_models: bool = False,
           checks: bool = True, observations: Sequence[Any] | None = None,
-          target_accept: float | None = None, start: str | None = None) -> InferenceResult:
+          target_accept: float | None = None, start: str | None = None, progress: bool = False) -> InferenceResult:
     """Posterior of a study from its observations, with diagnostics and model checks.
 
     Settings left as None come from the study's ``[infer]`` section, else the defaults (nutpie,
     4 chains x (1000 + 1000), target_accept 0.95, start "auto"; gate R-hat <= 1.01, bulk ESS >= 400,
     no divergences). Raises QualityGateError (exit 3, naming the failing quantities, the result
     attached) when the chains fail the gate. Intervals are in canonical units (Jv in mL/min per the
-    study's basis).
+    study's basis). ``progress`` shows the sampler's live per-chain table (draws, divergences so far,
+    time left) on stderr while the main fit samples.
     """
     opts = settings(study, sampler=sampler, chains=chains, draws=draws, tune=tune, gate=gate,
                     target_accept=target_accept, start=start)
-    result = fit(study, observations, seed=seed, checks=checks, **opts)
+    result = fit(study, observations, seed=seed, checks=checks, progress=progress, **opts)
     if compare_models:
         result.doc["comparison"] = compare_forms(study, fit=fit, sampler=opts["sampler"], seed=seed,
                                                  chains=opts["chains"], draws=opts["draws"], tune=opts["tune"],
