@@ -5,7 +5,12 @@
 of the population), ``typical.Jv``, ``subjects.<id>.Jv``, ``new_subject.Jv``,
 ``parameters.<param>.{mean, sd, ci95, hdi95, contraction, prior, prior_bound}``,
 ``diagnostics.{r_hat_max, ess_bulk_min, ess_tail_min, divergences, bfmi_min, passed, failing}``,
-``identifiability``, ``checks``, ``notes`` and a ``units`` map. Values are in canonical units.
+``identifiability``, ``checks``, ``notes`` and a ``units`` map. The answers (``answers.py``): with
+subjects, ``subject_quantities`` (the quantities with a subject layer), ``subjects.<id>.<quantity>``
+for each of them, ``typical.<quantity>`` and ``new_subject.<quantity>``, ``cohort_total`` (whole-tissue
+Jv in mL/h and L/day summed over the subjects, with ``tissue_mass``) and ``group_effects`` (rows:
+quantity, group, reference, measure, of, estimate, ci95, direction, p_direction, unit); for the study's
+one individual, ``individual.<quantity>``. Values are in canonical units.
 """
 
 from __future__ import annotations
