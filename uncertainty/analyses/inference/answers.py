@@ -245,5 +245,12 @@ def add_answers(doc: dict[str, Any], built: Any, idata: Any, new_values: Mapping
             total[name] = _summary(per[name].sum(axis=1))
     doc["cohort_total"] = total
     doc["group_effects"] = group_effects(built, idata, per, names, basis) if built.hierarchical else []
+    model_effects = sorted({e["quantity"] for e in doc["group_effects"] if e["of"].startswith("typical")})
+    if model_effects:
+        ref = doc["group_effects"][0]["reference"]
+        note = (f"typical subject and new subject are those of the reference group {ref!r} (the group "
+                f"effects on {', '.join(model_effects)} shift the other groups)")
+        if note not in doc.setdefault("notes", []):
+            doc["notes"].append(note)
     for name in set(names) | set(doc["typical"]) | set(total):
         doc["units"].setdefault(name, unit_of(name, basis))

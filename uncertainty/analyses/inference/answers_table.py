@@ -5,6 +5,7 @@ stored document, so a bundle's answers can be shown again without the draws."""
 from __future__ import annotations
 
 import io
+import shutil
 from typing import Any
 
 from uncertainty.core.formatting import fmt
@@ -98,9 +99,29 @@ def _p(e: dict[str, Any]) -> str:
     return f"{p:.3f} {e.get('direction', '')}" if isinstance(p, float) and p == p else "-"
 
 
+def _chunks(doc: dict[str, Any], lead: list[tuple[str, list[str]]], cells: dict[str, list[str]],
+            width: int) -> list[list[str]]:
+    """Quantities split into runs whose table (the ``lead`` columns repeated) fits ``width`` characters."""
+    def w(head: str, col: list[str]) -> int:
+        return max([len(head), *map(len, col)]) + 2
+
+    base = sum(w(h, c) for h, c in lead)
+    chunks: list[list[str]] = [[]]
+    used = base
+    for name, col in cells.items():
+        need = w(_head(doc, name), col)
+        if chunks[-1] and used + need > width:
+            chunks.append([])
+            used = base
+        chunks[-1].append(name)
+        used += need
+    return chunks
+
+
 def text(doc: dict[str, Any]) -> str:
     """The answers as compact rich tables rendered to plain text: per-subject values (mean and 95%
-    interval), the cohort (typical subject, a new subject, the cohort total) and group effects.
+    interval), the cohort (typical subject, a new subject, the cohort total) and group effects. Wide
+    tables are split into several, each as wide as the terminal (120 characters when not a terminal).
 
     Parameters
     ----------
@@ -119,31 +140,36 @@ def text(doc: dict[str, Any]) -> str:
     tables: list[Any] = []
     names = list(doc.get("subject_quantities") or [])
     subjects = doc.get("subjects") or {}
+    width = shutil.get_terminal_size((120, 24)).columns
     if names and subjects:
-        t = Table(title="Per subject: posterior mean [95% interval]", box=box.SIMPLE_HEAD, pad_edge=False,
-                  title_justify="left")
-        t.add_column("subject")
-        if any(b.get("group") for b in subjects.values()):
-            t.add_column("group")
-        for name in names:
-            t.add_column(_head(doc, name), justify="right")
-        with_group = len(t.columns) > len(names) + 1
-        for sid, b in subjects.items():
-            t.add_row(sid, *([b.get("group", "")] if with_group else []), *[_cell(b.get(n)) for n in names])
-        tables.append(t)
+        with_group = any(b.get("group") for b in subjects.values())
+        lead = [("subject", list(subjects))] + ([("group", [b.get("group", "") for b in subjects.values()])]
+                                                 if with_group else [])
+        cells = {n: [_cell(b.get(n)) for b in subjects.values()] for n in names}
+        for part, chunk in enumerate(_chunks(doc, lead, cells, width)):
+            t = Table(title="Per subject: posterior mean [95% interval]" + (" (continued)" if part else ""),
+                      box=box.SIMPLE_HEAD, pad_edge=False, title_justify="left")
+            for head, _ in lead:
+                t.add_column(head)
+            for name in chunk:
+                t.add_column(_head(doc, name), justify="right")
+            for k in range(len(subjects)):
+                t.add_row(*[col[k] for _, col in lead], *[cells[n][k] for n in chunk])
+            tables.append(t)
     levels = [("individual", "the study's individual")] if doc.get("individual") else list(LEVELS)
-    cols = list(dict.fromkeys(n for key, _ in levels for n in (doc.get(key) or {})
-                              if isinstance((doc.get(key) or {}).get(n), dict)))
+    found = [n for key, _ in levels for n in (doc.get(key) or {}) if isinstance((doc.get(key) or {}).get(n), dict)]
+    cols = [n for n in names if n in found] + [n for n in dict.fromkeys(found) if n not in names]
     if cols and (names or doc.get("individual") or doc.get("cohort_total")):
-        t = Table(title="Cohort: posterior mean [95% interval]" if not doc.get("individual")
-                  else "Posterior mean [95% interval]", box=box.SIMPLE_HEAD, pad_edge=False, title_justify="left")
-        t.add_column("")
+        shown = [(key, label) for key, label in levels
+                 if any(isinstance((doc.get(key) or {}).get(n), dict) for n in cols)]
+        title = "Cohort" if not doc.get("individual") else "The study's individual"
+        t = Table(title=f"{title}: posterior mean [95% interval]", box=box.SIMPLE_HEAD, pad_edge=False,
+                  title_justify="left")
+        t.add_column("quantity")
+        for _, label in shown:
+            t.add_column(label, justify="right")
         for name in cols:
-            t.add_column(_head(doc, name), justify="right")
-        for key, label in levels:
-            block = doc.get(key) or {}
-            if any(isinstance(block.get(n), dict) for n in cols):
-                t.add_row(label, *[_cell(block.get(n)) for n in cols])
+            t.add_row(_head(doc, name), *[_cell((doc.get(key) or {}).get(name)) for key, _ in shown])
         tables.append(t)
     effects = doc.get("group_effects") or []
     if effects:
