@@ -121,7 +121,7 @@ def _typical_draws(built: Any, idata: Any, names: list[str]) -> dict[str, np.nda
             if _reportable(name):
                 out.setdefault(name, np.array(arr))
         out["Jv"] = flat(idata, "Jv__typical")
-    return {k: v for k, v in out.items() if k in names}
+    return {k: v for k, v in out.items() if k in names and np.ndim(v) == 1}
 
 
 def _new_subject_draws(built: Any, values: Mapping[str, Any] | None, names: list[str]) -> dict[str, np.ndarray]:
@@ -134,7 +134,14 @@ def _new_subject_draws(built: Any, values: Mapping[str, Any] | None, names: list
     for name, arr in _outputs(problem.evaluate, dict(values), (n,)).items():
         if _reportable(name):
             out.setdefault(name, np.array(arr))
-    return {k: np.broadcast_to(v, (n,)) for k, v in out.items() if k in names}
+    found = {}
+    for k, v in out.items():
+        if k in names:
+            try:
+                found[k] = np.broadcast_to(v, (n,))
+            except ValueError:   # a value that is not one per draw: left out
+                continue
+    return found
 
 
 def _direction(x: np.ndarray, ratio: bool) -> tuple[str, float]:

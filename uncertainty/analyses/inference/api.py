@@ -392,7 +392,10 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         "notes": notes,
         "units": unit_map,
     }
-    add_answers(doc, built, idata, new_values)
+    try:
+        add_answers(doc, built, idata, new_values)
+    except Exception as exc:  # noqa: BLE001 - the answers are summaries; a failure must not lose the fit
+        doc["notes"].append(f"per-subject and group answers not computed: {type(exc).__name__}: {exc}")
     return InferenceResult(doc=doc, idata=idata, built=built, prior_draws=prior,
                            new_subject_draws=new,
                            timing={"compile_s": run.compile_seconds, "sample_s": run.sample_seconds})
