@@ -340,7 +340,8 @@ of that analysis (DESIGN.md section 5, the same as `fluidshift <analysis> --json
 canonical units with a `units` map beside them. The JSON Schema itself:
 `python -c "import json, uncertainty.app.bundle as b; print(json.dumps(b.results_schema(), indent=2))"`.
 
-Other files of the bundle: `tables/<section>.csv` (each result's `to_dataframe()`),
+Other files of the bundle: `tables/<section>.csv` (each result's `to_dataframe()`; a result with several
+kinds of row also writes `tables/<section>-<kind>.csv`, e.g. infer's `subjects`, `cohort` and `group_effects`),
 `figures/<section>-*.png` and `.svg`, `posterior.nc` (ArviZ InferenceData, where inference ran) and
 `report.html` (self-contained). A hidden `.partial/` folder holds temporary files during a run.
 """

@@ -31,6 +31,7 @@ from uncertainty.study.resolve import (  # noqa: F401
 )
 from uncertainty.study.schema import (  # noqa: F401
     CSV_COLUMNS,
+    OBS_NEEDS,
     OBS_SYMBOL,
     SECTIONS,
     STRICT_CONFIG,

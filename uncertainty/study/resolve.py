@@ -69,6 +69,7 @@ from uncertainty.study.interventions import validate_interventions
 from uncertainty.study.schema import (
     CSV_COLUMNS,
     MAX_CV,
+    OBS_NEEDS,
     OBS_SYMBOL,
     SECTIONS,
     TOP_LEVEL,
@@ -1019,6 +1020,12 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
     sym = ob.parameter if ob.kind == "measurement" else OBS_SYMBOL.get(ob.kind)
     if ob.kind == "measurement" and ob.parameter is not None:
         kept = keep_known(ob.parameter, f"{key}.parameter", kept, ctx)
+    if not (ob.kind == "swelling_rate" and ob.lymph is not None):
+        # keep the declared priors the kind's likelihood needs and the form does not use (the
+        # inference refuses the observation, naming the quantity, when one is not declared at all)
+        for q in OBS_NEEDS.get(ob.kind, ()):
+            if q in ctx.pool:
+                kept = keep_known(q, f"{key}.kind", kept, ctx)
     inst = None
     if ob.instrument:
         inst, kept = use_instrument(ob.instrument, f"{key}.instrument", sym if ob.kind == "measurement" else None,

@@ -653,6 +653,12 @@ TIME_COLUMNS = ("time_s", "time_min", "time_h", "time_day")
 TEXT_COLUMNS = ("subject", "group", "arm", "note")
 
 
+#: Quantities an observation kind's likelihood needs beyond the model form's inputs: a declared prior
+#: of one of them that the form does not use is kept (uncertain) for the inference. swelling_rate's
+#: lymph relation JL = L (Pi - Pi_L0) applies only without ``lymph = {...}`` on the observation.
+OBS_NEEDS: dict[str, tuple[str, ...]] = {"swelling_rate": ("Pi", "L", "Pi_L0"), "protein_ratio": ("sigma", "PS")}
+
+
 #: Quantity whose canonical unit an observation's value takes.
 OBS_SYMBOL = {"lymph_flow": "JL", "swelling_rate": "swelling_rate", "protein_ratio": "ratio",
               "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF",

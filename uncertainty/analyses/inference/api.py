@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference import checks as checks_mod
+from uncertainty.analyses.inference.answers import add_answers
 from uncertainty.analyses.inference.compare import compare_forms
 from uncertainty.analyses.inference.diagnostics import Gate, contraction_note, diagnose, gate_message, summary_mcse
 from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, is_positive, spread_ratio
@@ -43,7 +44,7 @@ def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) 
 
 
             return dataclasses.replace(study, observations=normalise_observations(
-                observations, file=study.file, density=study.density))
+                observations, file=study.file, density=study.density, tissue_mass_kg=study.tissue_mass_kg))
         return study
     return problem_from_study(study, observations=observations, model=model)
 
@@ -51,13 +52,13 @@ def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) 
 def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str = "nutpie",
         seed: int | None = None, chains: int = 4, draws: int = 1000, tune: int = 1000,
         gate: Any = None, model: str | None = None, checks: bool = False,
-        target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto") -> InferenceResult:
+        target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto", progress: bool = False) -> InferenceResult:
     """Build and sample the posterior of ``study`` (a Study or a Problem); never raises on the gate.
 
     ``observations`` replaces the study's own observation list (records in study-file form);
     ``model`` replaces its model form; ``start`` is one of :data:`STARTS`. Returns an
     :class:`InferenceResult` whose ``doc["diagnostics"]["passed"]`` says whether the gate passed.
-    Jv in mL/min per basis.
+    Jv in mL/min per basis. ``progress`` shows the sampler's live per-chain table on stderr.
     """
     problem = _problem(study, observations, model)
     if not problem.observations:
@@ -68,7 +69,7 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     built = build_model(problem)
     mode, mode_seconds = _start_point(built, start)
     run = sample(built.model, sampler=sampler, chains=chains, draws=draws, tune=tune, seed=seed,
-                 target_accept=target_accept, start=mode)
+                 target_accept=target_accept, start=mode, progress=progress)
     result = summarise_run(built, run, Gate.coerce(gate), seed=seed)
     if mode is not None:
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
@@ -76,6 +77,40 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     if checks:
         result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
     return result
+
+
+def check_model(study: Any) -> dict[str, Any]:
+    """Declare the inference model of ``study`` without compiling or sampling it, so that every
+    refusal :func:`infer` would make (an observation the model cannot use, a group effect on a
+    quantity that is not uncertain, a quantity a kind needs and the study lacks) is raised now.
+
+    Parameters
+    ----------
+    study : Study or Problem
+        A study with ``[[observations]]`` (and optionally ``[infer]``).
+
+    Returns
+    -------
+    dict
+        ``subjects`` (count), ``groups`` (labels), ``terms`` (likelihood terms, one per observation
+        entry), ``readings`` (values they hold), ``free_variables`` (PyMC free random variables).
+
+    Raises
+    ------
+    InputError
+        The refusal, naming the study file, the key path and the value (exit 2 on the command line).
+    """
+    problem = _problem(study, None, None)
+    if not problem.observations:
+        raise InputError("the study has no [[observations]] to update the priors from",
+                         file=problem.file, key="observations", value=None)
+    settings(study)
+    built = build_model(problem, structure_only=True)
+    readings = sum(int(np.size(t.subjects)) if t.observation.kind == "volume_time_course"
+                   else int(np.size(t.observation.values)) for t in built.terms)
+    return {"subjects": len(built.subjects) if built.hierarchical else 1, "groups": list(built.groups),
+            "terms": [t.name for t in built.terms], "readings": readings,
+            "free_variables": len(built.model.free_RVs)}
 
 
 def settings(study: Any, **given: Any) -> dict[str, Any]:
@@ -99,18 +134,19 @@ def settings(study: Any, **given: Any) -> dict[str, Any]:
 def infer(study: Any, sampler: str | None = None, seed: int | None = None, chains: int | None = None,
           draws: int | None = None, tune: int | None = None, gate: Any = None, compare_models: bool = False,
           checks: bool = True, observations: Sequence[Any] | None = None,
-          target_accept: float | None = None, start: str | None = None) -> InferenceResult:
+          target_accept: float | None = None, start: str | None = None, progress: bool = False) -> InferenceResult:
     """Posterior of a study from its observations, with diagnostics and model checks.
 
     Settings left as None come from the study's ``[infer]`` section, else the defaults (nutpie,
     4 chains x (1000 + 1000), target_accept 0.95, start "auto"; gate R-hat <= 1.01, bulk ESS >= 400,
     no divergences). Raises QualityGateError (exit 3, naming the failing quantities, the result
     attached) when the chains fail the gate. Intervals are in canonical units (Jv in mL/min per the
-    study's basis).
+    study's basis). ``progress`` shows the sampler's live per-chain table (draws, divergences so far,
+    time left) on stderr while the main fit samples.
     """
     opts = settings(study, sampler=sampler, chains=chains, draws=draws, tune=tune, gate=gate,
                     target_accept=target_accept, start=start)
-    result = fit(study, observations, seed=seed, checks=checks, **opts)
+    result = fit(study, observations, seed=seed, checks=checks, progress=progress, **opts)
     if compare_models:
         result.doc["comparison"] = compare_forms(study, fit=fit, sampler=opts["sampler"], seed=seed,
                                                  chains=opts["chains"], draws=opts["draws"], tune=opts["tune"],
@@ -166,9 +202,9 @@ def _chains(built: BuiltModel, idata: Any, name: str) -> np.ndarray:
     return np.asarray(idata.posterior[f"{name}__subject"].values)[..., 0]
 
 
-def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> np.ndarray:
+def _new_subject(built: BuiltModel, idata: Any, rng: np.random.Generator) -> tuple[np.ndarray, dict[str, Any]]:
     vals = new_subject_values(built, idata, rng)
-    return np.asarray(built.problem.evaluate(vals, np)["Jv"], dtype=float)
+    return np.asarray(built.problem.evaluate(vals, np)["Jv"], dtype=float), vals
 
 
 def new_subject_values(built: BuiltModel, idata: Any, rng: np.random.Generator) -> dict[str, Any]:
@@ -300,7 +336,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
                 block["group"] = built.subject_group[sid]
             subjects[sid] = block
     jv_main = jv_typical if built.hierarchical else jv_subject[:, 0]
-    new = _new_subject(built, idata, rng)
+    new, new_values = _new_subject(built, idata, rng)
     jv_block = summarise(jv_main)
     jv_block["mcse"] = summary_mcse(_chains(built, idata, "Jv__typical" if built.hierarchical else "Jv"))
     if "Jv" in prior:
@@ -375,6 +411,10 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         "notes": notes,
         "units": unit_map,
     }
+    try:
+        add_answers(doc, built, idata, new_values)
+    except Exception as exc:  # noqa: BLE001 - the answers are summaries; a failure must not lose the fit
+        doc["notes"].append(f"per-subject and group answers not computed: {type(exc).__name__}: {exc}")
     return InferenceResult(doc=doc, idata=idata, built=built, prior_draws=prior,
                            new_subject_draws=new,
                            timing={"compile_s": run.compile_seconds, "sample_s": run.sample_seconds})
@@ -405,7 +445,8 @@ class Session:
     def data_from(self, observations: Sequence[Any]) -> dict[str, np.ndarray]:
         """Data arrays (canonical units) for each term from study-form observation records."""
 
-        obs = normalise_observations(observations, file=self.problem.file, density=self.problem.density)
+        obs = normalise_observations(observations, file=self.problem.file, density=self.problem.density,
+                                     tissue_mass_kg=self.problem.tissue_mass_kg)
         if len(obs) != len(self.problem.observations):
             raise InputError("a refit needs as many observations as the session was built with",
                              key="observations", value=len(obs))

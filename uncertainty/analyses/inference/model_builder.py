@@ -85,8 +85,12 @@ class BuildContext:
     (a PyTensor vector), ``output(name, subject_index)`` an output of the forward map.
     """
 
-    def __init__(self, problem: Problem, subjects: list[str], hierarchical: bool) -> None:
+    def __init__(self, problem: Problem, subjects: list[str], hierarchical: bool,
+                 structure_only: bool = False) -> None:
         self.problem = problem
+        # True when the model is declared only to be checked (``fluidshift check``): kinds skip the
+        # numerical fits that place their sampling frames (the model's variables and shapes are the same)
+        self.structure_only = structure_only
         self.subjects = subjects
         self.hierarchical = hierarchical
         self.typical: dict[str, Any] = {}
@@ -270,18 +274,43 @@ def _collect_subjects(problem: Problem) -> tuple[list[str], dict[str, str]]:
 
 
 def _group_effect_targets(problem: Problem) -> list[str]:
+    """Quantities given a group effect (``effects`` of any observation), each checked to be uncertain:
+    an effect on a fixed or unknown quantity raises InputError naming the observation's ``effects``."""
     targets: list[str] = []
     for obs in problem.observations:
         eff = obs.extra.get("effects")
         if eff:
             for q in eff:
+                if str(q) not in problem.priors:
+                    what = "fixed" if str(q) in problem.fixed else "not a quantity of this study"
+                    raise obs.error(f"a group effect needs an uncertain quantity; {q} is {what} "
+                                    f"(uncertain: {', '.join(problem.priors)})", "effects", q)
                 if q not in targets:
                     targets.append(str(q))
     return targets
 
 
-def build_model(problem: Problem) -> BuiltModel:
-    """Declare the PyMC model of ``problem`` (no sampling). See the module docstring for layers."""
+def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
+    """Declare the PyMC model of ``problem`` (no sampling). See the module docstring for layers.
+
+    Parameters
+    ----------
+    problem : Problem
+        Priors, forward map and observations (canonical units).
+    structure_only : bool
+        Declare the model only to check it (every refusal raised, same variables and shapes): kinds
+        skip the numerical fits that place their sampling frames, so the model is not for sampling.
+
+    Returns
+    -------
+    BuiltModel
+        The PyMC model and its bookkeeping.
+
+    Raises
+    ------
+    InputError
+        An observation the model cannot use (naming the study file, its key path and value).
+    """
     import pymc as pm
     import pytensor.tensor as pt
 
@@ -301,7 +330,7 @@ def build_model(problem: Problem) -> BuiltModel:
         raise o.error("the study has subject labels; give this observation a subject too", "subject",
                       None)
     groups = sorted(set(subject_group.values()))
-    ctx = BuildContext(problem, labels, hierarchical)
+    ctx = BuildContext(problem, labels, hierarchical, structure_only)
     n_subj = len(labels)
     spreads: dict[str, tuple[str, float]] = {}
     with pm.Model(coords={"subject": labels}) as model:
@@ -344,9 +373,6 @@ def build_model(problem: Problem) -> BuiltModel:
             gidx = np.array([others.index(subject_group[s]) + 1 if subject_group.get(s) in others
                              else 0 for s in labels])
             for q in targets:
-                if q not in problem.priors:
-                    raise InputError("a group effect names a quantity that is not uncertain in this study",
-                                     file=problem.file, key="observations.effects", value=q)
                 eff = pm.Normal(f"{q}__effect", 0.0, GROUP_EFFECT_SD, dims="group")
                 ctx.extra_params.append(f"{q}__effect")
                 effects[q] = (pt.concatenate([pt.zeros(1), eff]), gidx)

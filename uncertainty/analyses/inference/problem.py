@@ -163,6 +163,7 @@ class Problem:
     basis: str = "100g"
     density: float = 1.05
     study: Any = None
+    tissue_mass_kg: float | None = None
     base_dir: str | None = None
     notes: list[str] = dataclasses.field(default_factory=list)
 
@@ -216,25 +217,27 @@ def _converts(symbol: str, unit: str) -> bool:
 
 
 def _canonical_factor(symbol: str | None, unit: str | None, obs: Observation,
-                      density: float) -> float:
-    """Multiplicative factor from ``unit`` to the canonical unit of ``symbol`` (1 without a unit)."""
+                      density: float, tissue_mass_kg: float | None = None) -> float:
+    """Multiplicative factor from ``unit`` to the canonical unit of ``symbol`` (1 without a unit); a
+    per-organ unit converts through ``tissue_mass_kg`` (kg)."""
     if not unit or symbol is None:
         return 1.0
     try:
-        return float(units.to_canonical(symbol, 1.0, unit, density=density))
+        return float(units.to_canonical(symbol, 1.0, unit, density=density, tissue_mass_kg=tissue_mass_kg))
     except InputError as exc:
         raise obs.error(exc.reason, "unit", unit) from None
 
 
 def normalise_observations(records: Sequence[Any] | None, *, file: str | None = None,
-                           density: float = 1.05) -> list[Observation]:
+                           density: float = 1.05, tissue_mass_kg: float | None = None) -> list[Observation]:
     """Turn study observation records (pydantic models or dicts) into :class:`Observation` records.
 
     Values and sd are converted to the canonical unit of the observed quantity (cv is unitless);
     records that come from a validated Study (they carry ``declared_unit``) are canonical already.
     A record with a data file (columns subject, value; optional group, time, sd) keeps all its readings
     in ``rows`` (one record, one likelihood term). Raises InputError (file, key, value) for an sd or cv
-    that is not positive.
+    that is not positive. ``density`` (g/mL) and ``tissue_mass_kg`` (kg) convert per-100-mL and
+    per-organ units to the per-100-g canonical ones.
     """
     out: list[Observation] = []
     for i, rec in enumerate(records or []):
@@ -257,7 +260,7 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
         if obs.kind == "clearance_rate" and unit and not _converts("k_clear", unit):
             symbol = "JL"  # a clearance given as a flow (mL/min per basis)
             obs.extra["as_flow"] = True
-        factor = _canonical_factor(symbol, unit, obs, density)
+        factor = _canonical_factor(symbol, unit, obs, density, tissue_mass_kg)
         for name in ("value", "sd", "cv"):
             v = raw.get(name)
             if v is None:
@@ -322,9 +325,10 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
     if file:
         base_dir = os.path.dirname(os.path.abspath(file))
     corr = getattr(study, "correlation", None)
+    mass = getattr(study, "tissue_mass_kg", None)
     return Problem(priors=priors, fixed=fixed, evaluate=evaluate,
-                   observations=normalise_observations(records, file=file, density=density),
+                   observations=normalise_observations(records, file=file, density=density, tissue_mass_kg=mass),
                    correlation=None if corr is None else np.asarray(corr, dtype=float),
                    file=file, model_form=form, basis=getattr(study, "basis", "100g"),
-                   density=density, study=target, base_dir=base_dir,
+                   density=density, study=target, base_dir=base_dir, tissue_mass_kg=mass,
                    notes=list(getattr(study, "notes", []) or []))

@@ -6,6 +6,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from uncertainty.analyses.inference import answers_table
 from uncertainty.analyses.inference.diagnostics import describe
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import cell, fmt, interval
@@ -55,8 +56,11 @@ def section_html(res: dict[str, Any]) -> str:
                      "near 1 the data determined the quantity, near 0 they said little about it.</p>")
         parts.append(table(["quantity", "mean", "sd", "95% credible interval", "contraction"], rows,
                            num_cols={1, 2, 4}))
+    answers = answers_table.html(res)
     subjects = res.get("subjects") or {}
-    if isinstance(subjects, dict) and subjects:
+    if answers:
+        parts.append(answers)
+    elif isinstance(subjects, dict) and subjects:
         rows = [[s, interval((v.get("Jv") or {}).get("ci95"), 4)] for s, v in subjects.items() if isinstance(v, dict)]
         parts.append("<h3>Subjects</h3>" + table(["subject", "Jv 95% credible interval"], rows))
     return "".join(parts)

@@ -5,7 +5,12 @@
 of the population), ``typical.Jv``, ``subjects.<id>.Jv``, ``new_subject.Jv``,
 ``parameters.<param>.{mean, sd, ci95, hdi95, contraction, prior, prior_bound}``,
 ``diagnostics.{r_hat_max, ess_bulk_min, ess_tail_min, divergences, bfmi_min, passed, failing}``,
-``identifiability``, ``checks``, ``notes`` and a ``units`` map. Values are in canonical units.
+``identifiability``, ``checks``, ``notes`` and a ``units`` map. The answers (``answers.py``): with
+subjects, ``subject_quantities`` (the quantities with a subject layer), ``subjects.<id>.<quantity>``
+for each of them, ``typical.<quantity>`` and ``new_subject.<quantity>``, ``cohort_total`` (whole-tissue
+Jv in mL/h and L/day summed over the subjects, with ``tissue_mass``) and ``group_effects`` (rows:
+quantity, group, reference, measure, of, estimate, ci95, direction, p_direction, unit); for the study's
+one individual, ``individual.<quantity>``. Values are in canonical units.
 """
 
 from __future__ import annotations
@@ -16,6 +21,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from uncertainty.analyses.inference import answers_table
 from uncertainty.analyses.inference.figure import plot_all
 from uncertainty.analyses.inference.report_section import section_html
 from uncertainty.analyses.inference.table import table
@@ -46,7 +52,22 @@ class InferenceResult(DocumentResult):
         return bool(self.doc["diagnostics"]["passed"])
 
     def to_dataframe(self) -> Any:
-        """One row per quantity: prior and posterior mean, sd, 95% interval and contraction."""
+        """Tidy tables, one per kind of row: ``""`` (one row per quantity: prior and posterior mean, sd,
+        95% interval and contraction; Jv per level and subject), ``subjects`` (subject x subject-level
+        quantity), ``cohort`` (typical subject, new subject, cohort total or the study's individual x
+        quantity) and ``group_effects``; the last three only when the result has them. Each row names
+        its unit (per-tissue quantities per 100 g; whole-tissue flows mL/h, L/day)."""
+        import pandas as pd
+
+        frames = {"": self._main_frame()}
+        for key, rows in (("subjects", answers_table.subject_rows(self.doc)),
+                          ("cohort", answers_table.cohort_rows(self.doc)),
+                          ("group_effects", answers_table.effect_rows(self.doc))):
+            if rows:
+                frames[key] = pd.DataFrame(rows)
+        return frames
+
+    def _main_frame(self) -> Any:
         import pandas as pd
 
         rows = []
@@ -68,8 +89,9 @@ class InferenceResult(DocumentResult):
         return pd.DataFrame(rows)
 
     def save(self, out_dir: str) -> dict[str, str]:
-        """Write posterior.nc (ArviZ netCDF), inference.json and inference.csv into ``out_dir``; each name
-        starts with :attr:`failed_prefix` when the quality gate failed."""
+        """Write posterior.nc (ArviZ netCDF), inference.json, inference.csv and inference-<table>.csv (the
+        answers' tidy tables) into ``out_dir``; each name starts with :attr:`failed_prefix` when the
+        quality gate failed."""
         os.makedirs(out_dir, exist_ok=True)
         paths = {}
         flag = self._flag()
@@ -79,8 +101,10 @@ class InferenceResult(DocumentResult):
         paths["json"] = os.path.join(out_dir, f"{flag}inference.json")
         with open(paths["json"], "w", encoding="utf-8") as fh:
             fh.write(to_json(self.doc))
-        paths["table"] = os.path.join(out_dir, f"{flag}inference.csv")
-        self.to_dataframe().to_csv(paths["table"], index=False)
+        for key, frame in self.to_dataframe().items():
+            name = "table" if not key else key
+            paths[name] = os.path.join(out_dir, f"{flag}inference.csv" if not key else f"{flag}inference-{key}.csv")
+            frame.to_csv(paths[name], index=False)
         return paths
 
     def plot(self, out_dir: str) -> list[str]:

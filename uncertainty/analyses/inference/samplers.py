@@ -91,8 +91,12 @@ def _jittered_start(model: Any, start: dict[str, Any]) -> Any:
 def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int = 1000,
            tune: int = 1000, seed: int | None = None, compiled: Any = None,
            data: dict[str, Any] | None = None, target_accept: float | None = None,
-           low_rank: bool = False, start: dict[str, Any] | None = None) -> SampleRun:
+           low_rank: bool = False, start: dict[str, Any] | None = None, progress: bool = False) -> SampleRun:
     """Draw ``chains`` x ``draws`` posterior samples after ``tune`` warm-up steps, seeded.
+
+    ``progress`` shows the sampler's own live table on the terminal (stderr) while it samples: per
+    chain the draws, the divergences so far, the step size and the time left (nutpie's terminal
+    display; PyMC's rich progress bars); the caller decides (e.g. only when stderr is a terminal).
 
     ``compiled`` reuses a nutpie compiled model (``data`` then replaces its ``pm.Data``
     values, e.g. simulated readings in a trial loop). ``start`` (from :func:`posterior_mode`)
@@ -119,7 +123,7 @@ def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int =
         t0 = time.perf_counter()
         try:
             idata = nutpie.sample(run_model, chains=chains, draws=draws, tune=tune, seed=seed,
-                                  progress_bar=False, save_warmup=False, **kwargs)
+                                  progress_bar=progress, save_warmup=False, **kwargs)
         except Exception as exc:  # noqa: BLE001
             raise SamplerError(f"nutpie failed: {type(exc).__name__}: {exc}") from None
         return SampleRun(idata, sampler, compile_s, time.perf_counter() - t0, compiled)
@@ -135,7 +139,7 @@ def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int =
                 # PyMC takes start values on the constrained scale (posterior_mode gives both)
                 initvals = None if start is None else {v.name: start[v.name] for v in model.free_RVs}
                 idata = pm.sample(draws=draws, tune=tune, chains=chains, cores=min(chains, 2),
-                                  random_seed=seed, progressbar=False, compute_convergence_checks=False,
+                                  random_seed=seed, progressbar=progress, compute_convergence_checks=False,
                                   target_accept=target_accept or 0.8, initvals=initvals)
     except Exception as exc:  # noqa: BLE001
         raise SamplerError(f"PyMC NUTS failed: {type(exc).__name__}: {exc}") from None

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.inference import answers_table
 from uncertainty.analyses.inference.diagnostics import describe, gate_message
 
 
@@ -41,7 +42,10 @@ def table(doc: dict[str, Any]) -> str:
              f"95% equal-tailed {_ci(doc['Jv'])}, 95% HDI {_ci(doc['Jv'], 'hdi95')}"]
     lines.append(f"Jv typical subject: {_ci(doc['typical']['Jv'])}   new subject: "
                  f"{_ci(doc['new_subject']['Jv'])}")
-    if doc["subjects"]:
+    answers = answers_table.text(doc)
+    if answers:
+        lines += ["", answers]
+    elif doc["subjects"]:
         lines.append("")
         lines.append(f"{'subject':<10}{'group':<8}{'Jv mean':>11}{'95% interval':>26}")
         for sid, b in doc["subjects"].items():

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from uncertainty.analyses.inference.api import check_model
 from uncertainty.app.commands.common import emit_json, handle_errors
 from uncertainty.app.commands.priors import rows_table
 from uncertainty.app.section_checks import check_sections
@@ -16,10 +17,13 @@ from uncertainty.study import TOP_LEVEL, data_notes, load_study, resolved_rows
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
 @handle_errors
 def command(study: str, as_json: bool, quiet: bool) -> None:
-    """Validate STUDY: priors after tissue, conditions and overrides; correlations; sections; data files."""
+    """Validate STUDY: priors after tissue, conditions and overrides; correlations; sections; data files.
+    With [[observations]] or [infer], the inference model is declared (not compiled, not sampled), so
+    that whatever `infer` would refuse stops here (exit 2)."""
 
     s = load_study(study)
     check_sections(s)
+    model = check_model(s) if (s.observations or s.infer is not None) else None
     rows = resolved_rows(s)
     notes = list(s.notes) + data_notes(s.observations)
     sections = [n for n in TOP_LEVEL if n not in ("study", "parameters", "correlations")
@@ -29,7 +33,7 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
                    "conditions": s.conditions, "model": s.model, "seed": s.seed,
                    "tissue_mass_kg": s.tissue_mass_kg, "names": s.names, "priors": rows,
                    "correlations": [list(p) for p in s.correlations], "sections": sections,
-                   "outputs": s.outputs(), "notes": notes})
+                   "outputs": s.outputs(), "notes": notes, "inference_model": model})
         return
     if quiet:
         return
@@ -42,5 +46,10 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
         click.echo("correlations (normal scores): " + "; ".join(f"{a}-{b} {r:g}" for a, b, r in s.correlations))
     click.echo(f"uncertain inputs: {', '.join(s.names)}")
     click.echo(f"sections: {', '.join(sections) or 'none'}")
+    if model is not None:
+        click.echo(f"inference model (declared, not sampled): {model['subjects']} subject(s)"
+                   + (f" in groups {', '.join(model['groups'])}" if model["groups"] else "")
+                   + f", {len(model['terms'])} likelihood term(s) over {model['readings']} reading(s), "
+                   f"{model['free_variables']} free variable(s)")
     for n in notes:
         click.echo(f"note: {n}")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sys
+
 import click
 
 from uncertainty.analyses import inference
@@ -9,6 +11,17 @@ from uncertainty.analyses.inference.api import settings
 from uncertainty.app.commands.common import handle_errors, show_result, study_options
 from uncertainty.core.errors import QualityGateError
 from uncertainty.study import load_study
+
+
+def stderr_is_terminal() -> bool:
+    """True when stderr is a terminal (the sampler's live progress table goes there).
+
+    Returns
+    -------
+    bool
+        ``sys.stderr.isatty()``.
+    """
+    return sys.stderr.isatty()
 
 
 @click.command("infer", short_help="Posterior from the study's observations, with diagnostics.")
@@ -46,8 +59,9 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     diagnostics (R-hat, ESS, divergences, BFMI) and model checks. Exit 3 if the chains fail the
     quality gate (its message names each failed check and what to raise); the posterior is saved as
     posterior.nc with --out, and after a failed gate every file written starts with GATE-FAILED_.
-    Sampler settings and gate come from the study's [infer] section where it has one; each flag
-    overrides its key.
+    On a terminal the sampler shows its progress on stderr (per chain: draws, divergences so far,
+    time left). Sampler settings and gate come from the study's [infer] section where it has one;
+    each flag overrides its key.
 
     \b
     Examples:
@@ -62,7 +76,7 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     try:
         result = inference.infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
                        compare_models=compare_models, checks=not no_checks, target_accept=target_accept,
-                       start=start)
+                       start=start, progress=not quiet and stderr_is_terminal())
     except QualityGateError as exc:
         if exc.result is not None:
             show_result(exc.result, as_json=as_json, out=out, quiet=quiet)

@@ -20,6 +20,7 @@ from uncertainty.analyses.inference.observations.base import (
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.physiology import interstitium
+from uncertainty.study import OBS_NEEDS
 
 NOTE = "swelling_rate: dV/dt = Jv - JL, with JL from the lymph relation or the declared lymph prior."
 
@@ -32,7 +33,7 @@ def validate(obs: Observation, problem: Problem) -> None:
     if "lymph" in obs.extra:
         declared_prior(obs.extra["lymph"], "JL", obs, "lymph")
         return
-    for q in ("Pi", "L", "Pi_L0"):
+    for q in OBS_NEEDS["swelling_rate"]:
         require_quantity(obs, problem, q, "for the lymph flow JL(Pi); or give lymph = {...}")
 
 

@@ -518,13 +518,17 @@ def add(ctx: Any, obs: Observation) -> None:
         given = {"r": r, "trans": trans, "tau": tau, "tau_v": tau_v,
                  "kf": ctx.value("Kf") * density if layer is None else pt.zeros(n),
                  "pv0": pv0 if pv_layer is None else pt.zeros(n)}
-        centre = _at_prior_centre(given | {f"mean:{e.label}": e.mean for e in entries}
-                                  | {f"sd:{e.label}": e.sd for e in entries})
-        frame = _frame(entries, centre, t, y, sidx, times, cuffs, noise, t_bend)
-        at_fit = _physical(entries, list(frame[0].T), centre["r"], frame[3][2], frame[3][0], np)
-        for q in ("Kf", "Pv"):       # the fit's estimates, for subjects with other readings (ctx.guess)
-            if q in at_fit:
-                ctx.guess(q, at_fit[q] / density if q == "Kf" else at_fit[q])
+        if getattr(ctx, "structure_only", False):   # checked, not sampled: a unit frame, no fits
+            k = len(entries)
+            frame = (np.zeros((n, k)), np.tile(np.eye(k), (n, 1, 1)), np.zeros((n, k, 3)), np.zeros(3))
+        else:
+            centre = _at_prior_centre(given | {f"mean:{e.label}": e.mean for e in entries}
+                                      | {f"sd:{e.label}": e.sd for e in entries})
+            frame = _frame(entries, centre, t, y, sidx, times, cuffs, noise, t_bend)
+            at_fit = _physical(entries, list(frame[0].T), centre["r"], frame[3][2], frame[3][0], np)
+            for q in ("Kf", "Pv"):       # the fit's estimates, for subjects with other readings (ctx.guess)
+                if q in at_fit:
+                    ctx.guess(q, at_fit[q] / density if q == "Kf" else at_fit[q])
         values = _subject_block(ctx, name, entries, frame[:3], _globals(tau, tau_v, trans, pt, t_bend), frame[3])
         phys = _physical(entries, [values[e.label] for e in entries], r, trans, bend, pt)
         if layer is not None:
