@@ -344,6 +344,7 @@ class DesignSection(BaseModel):
     target_half_width: float | None = Field(default=None, gt=0)
     half_width_probability: float = Field(default=0.8, gt=0, lt=1)
     benefit: Literal["increase", "decrease"] | None = None
+    typical: dict[str, float] = Field(default_factory=dict)
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 
