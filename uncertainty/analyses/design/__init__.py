@@ -1147,6 +1147,12 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
     for sym, sp in spec.within.items():
         rows.append({"what": f"within-subject (occasion) spread of {sym}", "value": str(sp), "source": src})
     rows.append({"what": "measurement error", "value": str(spec.measurement or "none"), "source": src})
+    for sym, v in (doc.get("typical_values") or {}).items():
+        pr = study.priors[sym]
+        unit = units.CANONICAL.get(sym, "")
+        rows.append({"what": f"typical {sym} (conditional power)", "value": f"{v:.4g} {unit}".strip(),
+                     "source": src + " typical" if sym in spec.typical else
+                     f"prior median; {getattr(pr, 'origin', '') or 'study [parameters]'}"})
     rows.append({"what": "sd of the endpoint (analysis scale)", "value": f"{doc['sd_analysis_scale']:.4g}",
                  "source": doc["sd_method"]})
     if spec.design_prior is not None:
