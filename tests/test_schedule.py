@@ -55,13 +55,14 @@ def test_linear_regression_posterior_matches_gaussian_conditioning() -> None:
 
 def test_jacobian_of_the_cuff_model_matches_the_initial_filtration_slope() -> None:
     # d(filtration volume)/dKf at time s after one step, Kf << C_tis/s: about dPc s (initial slope Kf dPc,
-    # interstitium docstring); venous part independent of Kf. dPc = (T P - Pv0)/(1 + r) (Pappenheimer 1948).
+    # interstitium docstring); venous part independent of Kf. dPc = (T P - Pvi)/(1 + r) (Pappenheimer 1948), the
+    # filtration part referred to the isovolumetric venous pressure Pvi as in the inference model (cuff_curve)
     m = sch.cuff_model(_study(), ScheduleSection(linearisation_draws=1), seed=1)
     k = m.names.index("Kf")
     t = np.array([0.05])
     J = sch.jacobian(m.forward([40.0], t), m.points)[0, 0, k]
     v = {n: float(x[0, 0]) for n, x in m.values(m.points).items()}
-    dPc = (m.transmission * 40.0 - v["Pv"]) / (1 + v["r"])
+    dPc = (m.transmission * 40.0 - v["Pvi"]) / (1 + v["r"])
     assert J / v["Kf"] == pytest.approx(dPc * 0.05, rel=0.02)  # phi = log Kf: dV/dlogKf = Kf dV/dKf
 
 
