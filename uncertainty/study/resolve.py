@@ -66,6 +66,7 @@ from uncertainty.priors import (
 from uncertainty.study.data_files import read_csv
 from uncertainty.study.schema import (
     CSV_COLUMNS,
+    NAMED_ENDPOINTS,
     OBS_SYMBOL,
     SECTIONS,
     TOP_LEVEL,
@@ -1036,8 +1037,9 @@ def resolve_design(dsn: DesignSection, kept: Kept, ctx: SectionContext) -> tuple
                                          "unit": units.CANONICAL[eff.parameter]})
         effects.append(eff)
     known = set(ctx.known) | {s for s, _ in kept.priors}
-    if dsn.endpoint not in known and dsn.endpoint not in CSV_COLUMNS:
-        kept = keep_known(dsn.endpoint, "design.endpoint", kept, ctx)
+    endpoint = NAMED_ENDPOINTS.get(dsn.endpoint, dsn.endpoint)
+    if endpoint not in known and endpoint not in CSV_COLUMNS:
+        kept = keep_known(endpoint, "design.endpoint", kept, ctx)
     for sym in dsn.between_subject:
         kept = keep_known(sym, f"design.between_subject.{sym}", kept, ctx)
     for sym in dsn.within_subject:

@@ -544,6 +544,10 @@ TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", 
 
 
 #: Required CSV columns per observation kind; a time column is one of TIME_COLUMNS.
+#: Clinical endpoint names a ``[design]`` may use for a model output: the limb volume a lymphoedema trial
+#: measures (e.g. by perometry) is the steady forms' ``oedema_volume`` (mL per 100 g).
+NAMED_ENDPOINTS: dict[str, str] = {"limb_volume": "oedema_volume"}
+
 CSV_COLUMNS: dict[str, tuple[str, ...]] = {
     "volume_time_course": ("subject", "volume"),
     "measurement": ("subject", "value"),

@@ -44,6 +44,7 @@ from uncertainty.core.provenance import code_hash, package_version
 from uncertainty.distributions import REGISTRY, Distribution, Normal, Spread, TruncNormal, Uniform, log_sd_from_cv
 from uncertainty.forms.catalogue import all_outputs
 from uncertainty.forms.evaluate import evaluate as model_evaluate
+from uncertainty.study.schema import NAMED_ENDPOINTS
 
 #: Families a design prior (over the analysis-scale effect) may take; an analysis prior is normal.
 #: Every parameter of these families is required here (a truncnormal gives both bounds).
@@ -55,7 +56,7 @@ ANALYSIS_PRIOR_FAMILIES: tuple[type[Distribution], ...] = (Normal,)
 #: analyses/inference/observations), so the endpoint is Kf read with the cuff method's error (``measurement``);
 #: ``limb_volume`` (the volume a lymphoedema trial measures, e.g. by perometry) is the model's
 #: ``oedema_volume`` (mL per 100 g, steady forms).
-OBSERVATION_ENDPOINTS = {"lymph_flow": "Jv", "volume_time_course": "Kf", "limb_volume": "oedema_volume"}
+OBSERVATION_ENDPOINTS = {"lymph_flow": "Jv", "volume_time_course": "Kf", **NAMED_ENDPOINTS}
 #: of those, the ones read as a study quantity rather than a model output
 QUANTITY_ENDPOINTS = frozenset({"volume_time_course"})
 _DEFAULT_TRIALS = 1000
