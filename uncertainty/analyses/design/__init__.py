@@ -906,8 +906,11 @@ def _refined(curve: list[dict[str, Any]], key: str, target: float) -> tuple[int 
     if n_star is None:
         return None, None, "not reached within n_range"
     lo_hi = (int(ns[0]), int(ns[-1]))
-    n_int = int(min(max(math.ceil(n_star - 1e-9), lo_hi[0]), lo_hi[1]))
-    return n_int, se, "simulated: probit fit in sqrt(n) between the grid points around the crossing"
+    # allow for the Monte Carlo error: one standard error above the fitted crossing (about 84 % sure that the
+    # target is reached there), rounded up
+    n_int = int(min(max(math.ceil(n_star + (se or 0.0) - 1e-9), lo_hi[0]), lo_hi[1]))
+    return n_int, se, ("simulated: probit fit in sqrt(n) between the grid points around the crossing, plus one "
+                       "Monte Carlo standard error of n")
 
 
 def design(study: Any, seed: int | None = None, exact: bool = False, executor: Any = None,
