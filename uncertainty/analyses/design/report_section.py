@@ -12,9 +12,9 @@ from uncertainty.core.html import escape, table
 
 CAPTIONS: tuple[Caption, ...] = (
     ("", "", "Simulated power, assurance and Bayesian success (bands of twice the Monte Carlo error) against "
-             "enrolled subjects per arm (after dropout), with the noncentral-t power dashed and the target "
-             "power and assurance as dotted lines; the dotted vertical line is the headline n per arm "
-             "(enrolled). The line under the figure states the assumptions."),
+             "enrolled subjects per arm (after dropout), with the noncentral-t power dashed, the target power and "
+             "assurance as dotted lines, the headline n per arm (enrolled) as the dotted vertical line and the "
+             "assumptions in the line under the figure."),
 )
 
 _CURVE_COLS = ("n_per_arm_enrolled", "n_per_arm_completing", "total_n_enrolled", "power", "power_mc_se",

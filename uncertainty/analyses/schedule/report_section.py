@@ -11,9 +11,9 @@ from uncertainty.core.html import escape, table
 
 CAPTIONS: tuple[Caption, ...] = (
     ("", "", "The searched venous-cuff protocol beside the user's own protocol (when the study has one) and "
-             "true equal spacing: cuff pressure steps and the expected limb-volume course (mL/100 g), with the "
-             "reading times marked. It is called optimised only when its criterion is lower than the "
-             "comparison's and no target's posterior sd is higher."),
+             "true equal spacing: cuff pressure steps and the expected limb-volume course (mL/100 g) with the "
+             "reading times marked, called optimised only when its criterion is lower than the comparison's and "
+             "no target's posterior sd is higher."),
 )
 
 
