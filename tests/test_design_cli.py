@@ -71,3 +71,10 @@ def test_check_and_run_stop_on_section_rules_before_any_work(tmp_path, extra: st
     res = CliRunner().invoke(main, ["run", str(f), "--out", str(out), "--quiet"])
     assert res.exit_code == 2 and key in res.output
     assert not out.exists() or not any(p.suffix in (".json", ".csv", ".png") for p in out.rglob("*"))
+
+
+def test_design_protocol_summary_in_markdown(tmp_path) -> None:
+    res = _run(tmp_path, HEAD + DESIGN + "dropout = 0.1\n", "design", "--protocol")
+    assert res.exit_code == 0, res.output
+    assert "## Sample size" in res.output and "total N = " in res.output
+    assert "| assumption | value | source |" in res.output and "| dropout | 0.1 |" in res.output

@@ -55,13 +55,14 @@ def test_linear_regression_posterior_matches_gaussian_conditioning() -> None:
 
 def test_jacobian_of_the_cuff_model_matches_the_initial_filtration_slope() -> None:
     # d(filtration volume)/dKf at time s after one step, Kf << C_tis/s: about dPc s (initial slope Kf dPc,
-    # interstitium docstring); venous part independent of Kf. dPc = (T P - Pv0)/(1 + r) (Pappenheimer 1948).
+    # interstitium docstring); venous part independent of Kf. dPc = (T P - Pvi)/(1 + r) (Pappenheimer 1948), the
+    # filtration part referred to the isovolumetric venous pressure Pvi as in the inference model (cuff_curve)
     m = sch.cuff_model(_study(), ScheduleSection(linearisation_draws=1), seed=1)
     k = m.names.index("Kf")
     t = np.array([0.05])
     J = sch.jacobian(m.forward([40.0], t), m.points)[0, 0, k]
     v = {n: float(x[0, 0]) for n, x in m.values(m.points).items()}
-    dPc = (m.transmission * 40.0 - v["Pv"]) / (1 + v["r"])
+    dPc = (m.transmission * 40.0 - v["Pvi"]) / (1 + v["r"])
     assert J / v["Kf"] == pytest.approx(dPc * 0.05, rel=0.02)  # phi = log Kf: dV/dlogKf = Kf dV/dKf
 
 
@@ -154,3 +155,68 @@ def test_run_includes_the_schedule_section(tmp_path) -> None:
     html = (tmp_path / "out" / "report.html").read_text()
     assert 'id="section-schedule"' in html and "equal spacing" in html
     assert any(line.startswith("Cuff schedule:") for line in res.summary)
+
+
+# ---------------------------------------------------------------------------------------------
+# issue 19 item 8: naming of the rows, the verdict, Pvi as in the inference model, group comparison
+
+_SMALL = {"steps": 5, "step_min": 1.0, "pressure_grid": [20.0, 40.0, 60.0, 80.0], "measurements": 3,
+          "time_step_min": 1.0, "linearisation_draws": 1}
+
+
+def test_user_protocol_and_true_equal_spacing_are_separate_rows() -> None:
+    res = sch.schedule(_study(**_SMALL))
+    doc = res.to_dict()
+    assert doc["comparison"] == "user_protocol"
+    assert doc["user_protocol"]["pressures"] == [20.0, 30.0, 40.0, 50.0, 60.0]  # the study's own cuff steps
+    # equal spacing: linspace(20, 80, 5) = 20, 35, 50, 65, 80 moved to the nearest grid point (ties to the lower)
+    assert doc["equal_spacing"]["pressures"] == [20.0, 40.0, 40.0, 60.0, 80.0]
+    for t in doc["targets"]:  # the search may not leave any target worse than the comparison
+        assert doc["sd_ratio"][t] <= 1 + 1e-9
+    better = doc["criterion_ratio"] < 1 - 1e-9
+    assert (doc["status"] == "optimised") == better
+    assert "mL/100 g" in res.table() and "per basis" not in res.table()
+
+
+def test_a_schedule_no_better_than_the_comparison_is_not_called_optimised(monkeypatch) -> None:
+    def no_search(prob, pressures, times, **_):
+        return list(pressures), sorted(times), prob.value(pressures, times)
+
+    monkeypatch.setattr(sch, "optimise", no_search)
+    doc = sch.schedule(_study(**_SMALL)).to_dict()
+    assert doc["status"] == "no_better_schedule" and "no better schedule" in doc["verdict"]
+    assert "optimised:" not in doc["verdict"]
+
+
+def test_pvi_enters_as_the_isovolumetric_pressure_of_the_inference_model() -> None:
+    # filtration part of cuff_curve (inference model): initial slope Kf (T P - Pvi) / (1 + r), so
+    # dV/dPvi = -Kf s / (1 + r) shortly after a step (s << tau; interstitium docstring); veins do not see Pvi
+    m = sch.cuff_model(_study(), ScheduleSection(linearisation_draws=1), seed=1)
+    k = m.names.index("Pvi")
+    s = 0.05
+    J = sch.jacobian(m.forward([40.0], np.array([s])), m.points)[0, 0, k]
+    v = {n: float(x[0, 0]) for n, x in m.values(m.points).items()}
+    assert J == pytest.approx(-v["Kf"] * s / (1 + v["r"]), rel=0.02)
+    assert not m.log[k]  # Pvi on its natural scale (normal prior, as in the inference side prior)
+
+
+def test_split_jacobian_equals_the_whole_curve_jacobian() -> None:
+    m = sch.cuff_model(_study(), ScheduleSection(linearisation_draws=2), seed=2)
+    t = np.arange(0.5, 8.01, 0.5)
+    P = [20.0, 40.0]
+    whole = sch.information(sch.jacobian(m.forward(P, t), m.points), 0.01)
+    np.testing.assert_allclose(m.information(P, t, 0.01), whole, rtol=1e-6, atol=1e-12 * np.abs(whole).max())
+
+
+def test_group_comparison_size_against_the_normal_formula() -> None:
+    # n per group = 2 (z_{0.975} + z_{0.8})^2 (b^2 + p^2) / b^2 for a difference of one between-subject sd b
+    # measured with per-subject error p (normal approximation; common practice)
+    from scipy import stats
+
+    m = sch.cuff_model(_study(), ScheduleSection(linearisation_draws=1), seed=1)
+    g = sch.group_comparison(m, {"Kf": 0.0005, "Pvi": 2.0})
+    z = stats.norm.ppf(0.975) + stats.norm.ppf(0.8)
+    for t, post in (("Kf", 0.0005), ("Pvi", 2.0)):
+        b = g[t]["between_sd"]
+        assert g[t]["n_per_group"] == int(np.ceil(2 * z**2 * (b**2 + post**2) / b**2))
+        assert g[t]["n_per_group_perfect"] == int(np.ceil(2 * z**2))

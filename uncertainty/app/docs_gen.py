@@ -199,6 +199,8 @@ MEANINGS: dict[str, str] = {
     "design.exact_trials": "trials refitted by full MCMC on the exact path",
     "design.target_half_width": "optional: interval half-width to reach, in the endpoint's unit",
     "design.half_width_probability": "probability of reaching `target_half_width`",
+    "design.typical": "stated typical subject for a model-output endpoint (canonical units; default each prior's "
+                      "median): the conditional power is computed at these values, the expected power over the prior",
     "design.benefit": "direction of benefit, `increase` or `decrease` (default: the sign of the effect); power, "
                       "assurance and Bayesian success count only significant results in this direction",
     "design.effect.parameter": "the quantity the treatment changes",

@@ -69,6 +69,7 @@ from uncertainty.study.interventions import validate_interventions
 from uncertainty.study.schema import (
     CSV_COLUMNS,
     MAX_CV,
+    NAMED_ENDPOINTS,
     OBS_NEEDS,
     OBS_SYMBOL,
     SECTIONS,
@@ -1183,8 +1184,9 @@ def resolve_design(dsn: DesignSection, kept: Kept, ctx: SectionContext) -> tuple
         check_plausible(eff.parameter, eff.shift, ctx.file, f"{ekey}.shift", spread=True)
         effects.append(eff)
     known = set(ctx.known) | {s for s, _ in kept.priors}
-    if dsn.endpoint not in known and dsn.endpoint not in CSV_COLUMNS:
-        kept = keep_known(dsn.endpoint, "design.endpoint", kept, ctx)
+    endpoint = NAMED_ENDPOINTS.get(dsn.endpoint, dsn.endpoint)
+    if endpoint not in known and endpoint not in CSV_COLUMNS:
+        kept = keep_known(endpoint, "design.endpoint", kept, ctx)
     for part, spreads in (("between_subject", dsn.between_subject), ("within_subject", dsn.within_subject)):
         for sym, spread in spreads.items():
             kept = keep_known(sym, f"design.{part}.{sym}", kept, ctx)

@@ -384,6 +384,7 @@ class DesignSection(BaseModel):
     target_half_width: float | None = Field(default=None, gt=0)
     half_width_probability: float = Field(default=0.8, gt=0, lt=1)
     benefit: Literal["increase", "decrease"] | None = None
+    typical: dict[str, float] = Field(default_factory=dict)
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 
@@ -631,6 +632,10 @@ TOP_LEVEL = ("study", "parameters", "correlations", "propagate", "sensitivity", 
 
 
 #: Required CSV columns per observation kind; a time column is one of TIME_COLUMNS.
+#: Clinical endpoint names a ``[design]`` may use for a model output: the limb volume a lymphoedema trial
+#: measures (e.g. by perometry) is the steady forms' ``oedema_volume`` (mL per 100 g).
+NAMED_ENDPOINTS: dict[str, str] = {"limb_volume": "oedema_volume"}
+
 CSV_COLUMNS: dict[str, tuple[str, ...]] = {
     "volume_time_course": ("subject", "volume"),
     "measurement": ("subject", "value"),

@@ -45,13 +45,21 @@ from uncertainty.core.provenance import code_hash, package_version
 from uncertainty.distributions import REGISTRY, Distribution, Normal, Spread, TruncNormal, Uniform, log_sd_from_cv
 from uncertainty.forms.catalogue import all_outputs
 from uncertainty.forms.evaluate import evaluate as model_evaluate
+from uncertainty.study.schema import NAMED_ENDPOINTS
 
 #: Families a design prior (over the analysis-scale effect) may take; an analysis prior is normal.
 #: Every parameter of these families is required here (a truncnormal gives both bounds).
 DESIGN_PRIOR_FAMILIES: tuple[type[Distribution], ...] = (Normal, TruncNormal, Uniform)
 ANALYSIS_PRIOR_FAMILIES: tuple[type[Distribution], ...] = (Normal,)
 
-OBSERVATION_ENDPOINTS = {"lymph_flow": "Jv"}  # observation kind -> model output it measures
+#: observation kind (or named clinical endpoint) -> (kind, what is read). ``lymph_flow`` measures Jv at steady
+#: state; ``volume_time_course`` (venous-cuff plethysmography) identifies Kf per subject (its NOTE in
+#: analyses/inference/observations), so the endpoint is Kf read with the cuff method's error (``measurement``);
+#: ``limb_volume`` (the volume a lymphoedema trial measures, e.g. by perometry) is the model's
+#: ``oedema_volume`` (mL per 100 g, steady forms).
+OBSERVATION_ENDPOINTS = {"lymph_flow": "Jv", "volume_time_course": "Kf", **NAMED_ENDPOINTS}
+#: of those, the ones read as a study quantity rather than a model output
+QUANTITY_ENDPOINTS = frozenset({"volume_time_course"})
 _DEFAULT_TRIALS = 1000
 _DEFAULT_EXACT_TRIALS = 40
 
@@ -114,6 +122,8 @@ class DesignSpec:
     prior_frozen: Any = None
     scale_forced: str | None = None
     benefit: str | None = None  # "increase" | "decrease"; None: the sign of the point effect
+    notes: list[str] = field(default_factory=list)  # remarks found while parsing (kept in the result)
+    typical: dict[str, float] = field(default_factory=dict)  # stated typical values (canonical units)
 
     @property
     def analysis(self) -> str:
@@ -232,7 +242,11 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
     if endpoint in priors:
         spec.endpoint_kind, spec.output = "quantity", endpoint
     elif endpoint in OBSERVATION_ENDPOINTS:
-        spec.endpoint_kind, spec.output = "output", OBSERVATION_ENDPOINTS[endpoint]
+        spec.output = OBSERVATION_ENDPOINTS[endpoint]
+        spec.endpoint_kind = "quantity" if endpoint in QUANTITY_ENDPOINTS else "output"
+        if spec.endpoint_kind == "quantity" and spec.output not in priors:
+            raise InputError(f"endpoint {endpoint} reads {spec.output}: declare it under [parameters]", file=file,
+                             key="design.endpoint", value=endpoint)
     elif endpoint in _model_outputs():
         spec.endpoint_kind, spec.output = "output", endpoint
     else:
@@ -262,7 +276,7 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
             raise InputError("multiply must be a ratio > 0" if kind == "multiply" else "shift must be a number",
                              file=file, key=f"{key}.{kind}", value=val)
         spec.effects.append(Effect(par, kind, float(val)))
-    if spec.endpoint_kind == "quantity" and spec.effects[0].parameter != spec.endpoint:
+    if spec.endpoint_kind == "quantity" and spec.effects[0].parameter != spec.output:
         raise InputError("for a quantity endpoint the (first) effect must be on that quantity", file=file,
                          key="design.effect.parameter", value=spec.effects[0].parameter)
 
@@ -303,12 +317,78 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
     if spec.target_assurance is not None and spec.design_prior is None:
         raise InputError("target_assurance needs a design_prior", file=file, key="design.design_prior", value=None)
 
+    for sym, v in _section_dict(doc.get("typical")).items():
+        if sym not in priors:
+            raise InputError("typical value for an unknown quantity", file=file, key=f"design.typical.{sym}", value=sym)
+        if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+            raise InputError("a typical value is a number (canonical unit)", file=file,
+                             key=f"design.typical.{sym}", value=v)
+        spec.typical[sym] = float(v)
+    check_prior_scale(spec)
+
     hw = doc.get("target_half_width")
     if hw is not None:
         if not isinstance(hw, int | float) or hw <= 0:
             raise InputError("target_half_width must be > 0", file=file, key="design.target_half_width", value=hw)
         spec.target_half_width = float(hw)
     return spec
+
+
+def check_prior_scale(spec: DesignSpec) -> None:
+    """Check the design prior against the point effect; refuse one on the wrong scale, note an odd one.
+
+    The design prior is over the analysis-scale effect: the shift itself, or the natural log of a
+    ratio. A prior whose median lies nearer the ratio than its log while the log lies outside the
+    prior's central 99.9 % (e.g. ``mean = 0.75`` for ``multiply = 0.75``) was written on the ratio
+    scale: InputError. Otherwise a point effect outside the prior's central 99 % is kept with a note
+    in ``spec.notes`` (a prior that disagrees with the effect it is meant to describe).
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        A parsed section (design prior, effects; effect on its analysis scale: canonical unit or log ratio).
+
+    Raises
+    ------
+    InputError
+        For a design prior on the ratio scale (key ``design.design_prior``).
+    """
+    prior = spec.design_prior_frozen()
+    if prior is None or not spec.effects:
+        return
+    eff = spec.effects[0]
+    point = eff.analysis_value()
+    lo, hi = (float(v) for v in prior.ppf([0.0005, 0.9995]))
+    med = float(prior.median())
+    outside = not lo <= point <= hi
+    if eff.kind == "multiply" and outside and abs(med - eff.value) < abs(med - point):
+        raise InputError(f"design_prior is over the log ratio, but its median {med:.3g} is near the ratio "
+                         f"{eff.value:g} itself: for a ratio {eff.value:g} use mean = ln({eff.value:g}) = "
+                         f"{point:.3f} (sd on the log scale)", file=spec.file, key="design.design_prior",
+                         value=spec.design_prior)
+    lo, hi = (float(v) for v in prior.ppf([0.005, 0.995]))
+    if not lo <= point <= hi:
+        scale = "log ratio" if eff.kind == "multiply" else "shift"
+        spec.notes.append(f"the point effect ({scale} {point:.3g}) lies outside the design prior's central 99 % "
+                          f"[{lo:.3g}, {hi:.3g}]: check that the prior is on the {scale} scale")
+
+
+def typical_values(study: Any, spec: DesignSpec) -> dict[str, float]:
+    """The stated typical subject: ``[design] typical`` where given, else each prior's median.
+
+    Parameters
+    ----------
+    study : Study
+        The study (its priors).
+    spec : DesignSpec
+        The parsed section.
+
+    Returns
+    -------
+    dict
+        Quantity -> typical value (canonical units) at which conditional power is computed.
+    """
+    return {sym: spec.typical.get(sym, float(p.median())) for sym, p in study.priors.items()}
 
 
 def _model_outputs() -> set[str]:
@@ -351,14 +431,20 @@ def _measure(study: Any, spec: DesignSpec, y: np.ndarray, rng: np.random.Generat
 
 
 def simulate_trials(study: Any, spec: DesignSpec, n: int, trials: int, rng: np.random.Generator,
-                    delta: np.ndarray | None = None) -> dict[str, np.ndarray]:
+                    delta: np.ndarray | None = None, typical: dict[str, float] | None = None) -> dict[str, np.ndarray]:
     """Simulated trial data on the analysis scale: arrays (trials, n).
 
     Keys: ``y0``, ``y1`` (control and treated follow-up; for paired, before and after in the same
     subjects) and, for ANCOVA, ``x0``, ``x1`` (baselines). ``delta`` (trials,) replaces the first
-    effect's point value (analysis scale), e.g. drawn from the design prior.
+    effect's point value (analysis scale), e.g. drawn from the design prior. ``typical`` (canonical
+    units) fixes the typical subject in every trial (conditional power); None draws it from the prior
+    once per trial (expected power). The random draws do not depend on the effect, so the same
+    generator state gives the same subjects and errors with and without treatment.
     """
-    typ = _typical(study, trials, rng)
+    if typical is None:
+        typ = _typical(study, trials, rng)
+    else:
+        typ = {k: np.full(trials, float(v)) for k, v in typical.items()}
     two_occasions = spec.design == "paired" or spec.baseline
     groups = 1 if spec.design == "paired" else 2
     shape = (trials, groups * n)
@@ -551,6 +637,7 @@ class _Point:
     trials: int
     exact: bool
     what: str  # "power" (point effect) | "assurance" (effect from the design prior)
+    conditional: bool = False  # typical subject fixed at the stated values (else drawn per trial)
 
 
 def _mean_se(x: np.ndarray) -> tuple[float, float]:
@@ -572,9 +659,11 @@ def _run_point(study: Any, spec: DesignSpec, point: _Point, ss: np.random.SeedSe
     delta = None
     if point.what == "assurance":
         delta = spec.design_prior_frozen().ppf(rng.uniform(size=point.trials))
-    data = simulate_trials(study, spec, point.n, point.trials, rng, delta)
+    typ = typical_values(study, spec) if point.conditional else None
+    data = simulate_trials(study, spec, point.n, point.trials, rng, delta, typical=typ)
     fast = _fast_success(*analyse_fast(data, spec.analysis), spec)
-    out: dict[str, Any] = {"n": point.n, "what": point.what, "fast": {k: np.asarray(v) for k, v in fast.items()}}
+    out: dict[str, Any] = {"n": point.n, "what": point.what, "conditional": point.conditional,
+                           "fast": {k: np.asarray(v) for k, v in fast.items()}}
     if point.exact:
         seed = int(ss.generate_state(1)[0])
         out["exact"] = analyse_mcmc(data, spec.analysis, spec, seed)
@@ -660,73 +749,125 @@ def analytic_sd(study: Any, spec: DesignSpec) -> tuple[float | None, str]:
     return math.sqrt(total2), "closed form"
 
 
-def pilot_sd(study: Any, spec: DesignSpec, seed: int, n: int = 4000) -> tuple[float, float]:
-    """(sd, effect) of the endpoint on the analysis scale from one large simulated pilot trial.
+#: Subjects per arm in the pilot that gives the sd and effect at the typical values (sd error about
+#: 1/sqrt(2 * 2 * 20000) = 0.35 %, so n, proportional to sd^2, moves well under 10 % between seeds).
+PILOT_N = 20000
 
-    The sd is that of the analysed contrast per subject (control arm, differences, or ANCOVA
-    residuals), the effect the estimated difference at the point effect: the normal approximation
-    for endpoints without a closed form.
+
+def pilot_sd(study: Any, spec: DesignSpec, seed: int, n: int = PILOT_N) -> tuple[float, float]:
+    """(sd, effect) of the endpoint on the analysis scale at the stated typical values.
+
+    One large simulated trial with the typical subject fixed at :func:`typical_values`: the sd is
+    that of the analysed contrast per subject (pooled arms, differences, or ANCOVA residuals); the
+    effect is the mean per-subject effect, from the same subjects and errors simulated again without
+    treatment (common random numbers: no sampling noise from between-subject spread). Used for the
+    conditional (analytic, noncentral t) power of endpoints without a closed form.
+
+    Parameters
+    ----------
+    study, spec : the study and its parsed section.
+    seed : int
+        Seed of the pilot.
+    n : int
+        Subjects per arm (default :data:`PILOT_N`).
+
+    Returns
+    -------
+    tuple of float
+        (sd, effect) on the analysis scale (log units, or the endpoint's canonical unit).
     """
-    rng = np.random.default_rng(seed)
-    data = simulate_trials(study, spec, n, 1, rng)
-    est, se, _ = analyse_fast(data, spec.analysis)
+    import dataclasses
+
+    typ = typical_values(study, spec)
+    data = simulate_trials(study, spec, n, 1, np.random.default_rng(seed), typical=typ)
+    null = dataclasses.replace(spec, effects=[Effect(e.parameter, e.kind, 1.0 if e.kind == "multiply" else 0.0)
+                                              for e in spec.effects])
+    data0 = simulate_trials(study, null, n, 1, np.random.default_rng(seed), typical=typ)
+    _, se, _ = analyse_fast(data, spec.analysis)
     k = math.sqrt(n) if spec.analysis == "paired" else math.sqrt(n / 2)
-    return float(se[0] * k), float(est[0])
+    diff = data["y1"] - data0["y1"]
+    effect = float(np.nanmean(diff))
+    return float(se[0] * k), effect
+
+
+def refine_n(ns: np.ndarray, k: np.ndarray, m: np.ndarray, target: float) -> tuple[float | None, float | None]:
+    """n where a simulated success probability reaches ``target``, between the grid points.
+
+    Fits P(n) = Phi(a + b sqrt(n)) by maximum likelihood to ``k`` successes of ``m`` trials at each
+    n (the normal-approximation shape of power, Phi(|delta| sqrt(n/2)/sd - z), common practice), over
+    the grid points around the crossing, and solves P(n) = target. The Monte Carlo error of that n
+    comes from the fit's inverse information (delta method).
+
+    Parameters
+    ----------
+    ns : array
+        Subjects per arm (completing) at the grid points.
+    k, m : array
+        Successes and trials at each point.
+    target : float
+        Target probability (power or assurance).
+
+    Returns
+    -------
+    tuple
+        (n, its Monte Carlo standard error) in subjects per arm (not rounded), or (None, None) when
+        the fit does not cross the target inside the grid.
+    """
+    from scipy import optimize
+
+    ns, k, m = (np.asarray(v, dtype=float) for v in (ns, k, m))
+    p = k / m
+    above = np.nonzero(p >= target)[0]
+    if above.size == 0 or np.all(p >= target):
+        return None, None
+    j = int(above[0])
+    sel = slice(max(j - 2, 0), min(j + 2, len(ns)))
+    x, kk, mm = np.sqrt(ns[sel]), k[sel], m[sel]
+    if len(x) < 2:
+        return None, None
+
+    def nll(th: np.ndarray) -> float:
+        q = np.clip(stats.norm.cdf(th[0] + th[1] * x), 1e-12, 1 - 1e-12)
+        return float(-(kk * np.log(q) + (mm - kk) * np.log1p(-q)).sum())
+
+    z = stats.norm.ppf(np.clip((kk + 0.5) / (mm + 1), 1e-6, 1 - 1e-6))
+    b0 = np.polyfit(x, z, 1) if len(x) > 1 and np.ptp(x) > 0 else (1.0, 0.0)
+    fit = optimize.minimize(nll, np.array([b0[1], b0[0]]), method="Nelder-Mead",
+                            options={"xatol": 1e-8, "fatol": 1e-10, "maxiter": 4000})
+    a, b = fit.x
+    if not b > 0:
+        return None, None
+    zt = stats.norm.ppf(target)
+    root = (zt - a) / b
+    n_star = root**2
+    # observed information by finite differences, then the delta method for n* = ((zt - a)/b)^2
+    h = 1e-4 * np.maximum(1.0, np.abs(fit.x))
+    H = np.zeros((2, 2))
+    for i in range(2):
+        for j2 in range(2):
+            e_i, e_j = np.eye(2)[i] * h[i], np.eye(2)[j2] * h[j2]
+            H[i, j2] = (nll(fit.x + e_i + e_j) - nll(fit.x + e_i - e_j) - nll(fit.x - e_i + e_j)
+                        + nll(fit.x - e_i - e_j)) / (4 * h[i] * h[j2])
+    try:
+        cov = np.linalg.inv(H)
+    except np.linalg.LinAlgError:
+        return float(n_star), None
+    grad = np.array([-2 * root / b, -2 * root**2 / b])
+    var = float(grad @ cov @ grad)
+    return float(n_star), (math.sqrt(var) if var > 0 else None)
 
 
 # --------------------------------------------------------------------------------------------
 # the analysis
 
-def design(study: Any, seed: int | None = None, exact: bool = False, executor: Any = None,
-           trials: int | None = None) -> DesignResult:
-    """Power, assurance, Bayesian success and sample size for the study's ``[design]`` section.
+def _groups(spec: DesignSpec) -> int:
+    return 1 if spec.analysis == "paired" else 2
 
-    ``trials``: simulated trials per design point (default ``[design] trials`` or 1000; on the
-    exact path ``exact_trials`` or 40). ``executor``: an :mod:`uncertainty.core.parallel` executor
-    (in-process when None). Returns a :class:`DesignResult`.
-    """
 
-    spec = parse_design(study)
-    seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
-    executor = executor or InProcess()
-    notes: list[str] = []
-    n_trials = int(trials or (spec.exact_trials if exact else spec.trials))
-
-    # analytic figures
-    sd, sd_method = analytic_sd(study, spec)
-    effect = spec.effects[0].analysis_value()
-    if sd is None and spec.scale == "log":
-        spec.scale_forced = "natural"
-        probe = simulate_trials(study, spec, 500, 4, np.random.default_rng(seed + 104729))
-        if all(np.all(v > 0) for v in probe.values()):
-            spec.scale_forced = None
-        else:
-            notes.append(f"{spec.endpoint} takes values <= 0 in this population: analysed on the natural scale")
-    if sd is None:
-        sd, effect = pilot_sd(study, spec, seed + 7919)
-        sd_method = "normal approximation from a simulated pilot of 4000 subjects per arm"
-        notes.append("power_analytic is a normal approximation; the simulated power is the figure to use")
-    lo, hi = spec.n_range
-    prior = spec.design_prior_frozen()
-    n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi,
-                                                spec.direction) if sd > 0 else lo
-    n_ass = None
-    if spec.target_assurance is not None and spec.endpoint_kind == "quantity":
-        ns = np.arange(lo, hi + 1)
-        a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis, direction=spec.direction)
-        hit = np.nonzero(a >= spec.target_assurance)[0]
-        n_ass = int(ns[hit[0]]) if hit.size else None
-
-    sizes = curve_sizes(spec.n_range, spec.n_points)
-    for extra in (n_pow, n_ass):
-        if extra is not None and extra not in sizes:
-            sizes = sorted({*sizes, extra})
-    points = [_Point(n, n_trials, exact, "power") for n in sizes]
-    if prior is not None:
-        points += [_Point(n, n_trials, exact, "assurance") for n in sizes]
-    results = executor.map(_PointTask(study, spec), points, seed=seed, label=f"design-{'exact' if exact else 'fast'}")
-
-    by_n: dict[int, dict[str, Any]] = {n: {"n_per_arm": n, "n_enrolled": enrolled(n, spec.dropout)} for n in sizes}
+def _fill_rows(by_n: dict[int, dict[str, Any]], results: list[dict[str, Any]], spec: DesignSpec, exact: bool,
+               prior: Any) -> int:
+    """Put simulated figures (with Monte Carlo errors and success counts) into the curve rows; return the
+    number of exact refits that failed the quality gate (left out of the figures)."""
     path = "exact" if exact else "fast"
     refits_failed = 0
     for r in results:
@@ -740,8 +881,12 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             res = {k: np.asarray(v)[ok] for k, v in res.items() if k != "converged"}
             r = {**r, "fast": {k: np.asarray(v)[ok] if np.shape(v)[:1] == ok.shape else v
                                for k, v in r["fast"].items()}}
+        if r.get("conditional"):
+            row["power_conditional"], row["power_conditional_mc_se"] = _mean_se(res["success"])
+            continue
         if r["what"] == "power":
             row["power"], row["power_mc_se"] = _mean_se(res["success"])
+            row["_power_k"] = (int(np.sum(res["success"])), len(res["success"]))
             if exact:
                 row["power_fast"], _ = _mean_se(r["fast"]["success"])
                 row["power_exact_minus_fast_mc_se"] = _mean_se(res["success"].astype(float)
@@ -753,59 +898,207 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
                     r["fast"]["half_width"] <= spec.target_half_width)
         else:
             row["assurance"], row["assurance_mc_se"] = _mean_se(res["success"])
+            row["_assurance_k"] = (int(np.sum(res["success"])), len(res["success"]))
             if "bayes" in res:
                 row["bayesian_success"], row["bayesian_success_mc_se"] = _mean_se(res["bayes"])
+    return refits_failed
+
+
+def _new_row(n: int, spec: DesignSpec) -> dict[str, Any]:
+    e = enrolled(n, spec.dropout)
+    return {"n_per_arm": n, "n_enrolled": e, "n_per_arm_completing": n, "n_per_arm_enrolled": e,
+            "total_n_enrolled": _groups(spec) * e}
+
+
+def _refined(curve: list[dict[str, Any]], key: str, target: float) -> tuple[int | None, float | None, str]:
+    """(n, its MC error, how) for the simulated ``key`` (power or assurance) to reach ``target``."""
+    rows = [r for r in curve if f"_{key}_k" in r]
+    if not rows:
+        return None, None, "not simulated"
+    ns = np.array([r["n_per_arm"] for r in rows])
+    k = np.array([r[f"_{key}_k"][0] for r in rows])
+    m = np.array([r[f"_{key}_k"][1] for r in rows])
+    if k[0] / m[0] >= target:
+        return int(ns[0]), None, "reached at the lowest n of n_range"
+    n_star, se = refine_n(ns, k, m, target)
+    if n_star is None:
+        return None, None, "not reached within n_range"
+    lo_hi = (int(ns[0]), int(ns[-1]))
+    # allow for the Monte Carlo error: one standard error above the fitted crossing (about 84 % sure that the
+    # target is reached there), rounded up
+    n_int = int(min(max(math.ceil(n_star + (se or 0.0) - 1e-9), lo_hi[0]), lo_hi[1]))
+    return n_int, se, ("simulated: probit fit in sqrt(n) between the grid points around the crossing, plus one "
+                       "Monte Carlo standard error of n")
+
+
+def design(study: Any, seed: int | None = None, exact: bool = False, executor: Any = None,
+           trials: int | None = None) -> DesignResult:
+    """Power, assurance, Bayesian success and sample size for the study's ``[design]`` section.
+
+    Parameters
+    ----------
+    study : Study
+        A study with a ``[design]`` section.
+    seed : int, optional
+        Seed (default the study's).
+    exact : bool
+        Refit every simulated trial with full MCMC.
+    executor : optional
+        An :mod:`uncertainty.core.parallel` executor (in-process when None).
+    trials : int, optional
+        Simulated trials per design point (default ``[design] trials`` or 1000; on the exact path
+        ``exact_trials`` or 40).
+
+    Returns
+    -------
+    DesignResult
+        n per arm enrolled and completing, total N, power (analytic and simulated; for model-output
+        endpoints conditional at the typical values and expected over the prior), assurance, Bayesian
+        success, curves (dimensionless probabilities, subjects).
+    """
+
+    spec = parse_design(study)
+    seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
+    executor = executor or InProcess()
+    notes: list[str] = list(spec.notes)
+    n_trials = int(trials or (spec.exact_trials if exact else spec.trials))
+    output = spec.endpoint_kind != "quantity"
+
+    # analytic figures
+    sd, sd_method = analytic_sd(study, spec)
+    effect = spec.effects[0].analysis_value()
+    if sd is None and spec.scale == "log":
+        spec.scale_forced = "natural"
+        probe = simulate_trials(study, spec, 500, 4, np.random.default_rng(seed + 104729))
+        if all(np.all(v > 0) for v in probe.values()):
+            spec.scale_forced = None
+        else:
+            notes.append(f"{spec.endpoint} takes values <= 0 in this population: analysed on the natural scale")
+    typical = typical_values(study, spec) if output else None
+    if sd is None:
+        sd, effect = pilot_sd(study, spec, seed + 7919)
+        sd_method = (f"conditional at the typical values: simulated pilot of {PILOT_N} subjects per arm "
+                     "(the effect from the same subjects without treatment)")
+        notes.append("power_analytic and power_conditional are conditional on the typical subject (its values in "
+                     "typical_values); power is the expected power, the typical subject drawn from the prior in "
+                     "every trial; the headline n is for the expected power")
+        if effect * spec.direction <= 0:
+            notes.append(f"at the typical values the effect on {spec.endpoint} ({effect:.3g}) is not in the direction "
+                         "of benefit")
+    lo, hi = spec.n_range
+    prior = spec.design_prior_frozen()
+    n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi,
+                           spec.direction) if sd > 0 else lo
+    n_pow_analytic = n_pow
+    n_ass = None
+    if spec.target_assurance is not None and not output:
+        ns = np.arange(lo, hi + 1)
+        a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis, direction=spec.direction)
+        hit = np.nonzero(a >= spec.target_assurance)[0]
+        n_ass = int(ns[hit[0]]) if hit.size else None
+
+    sizes = curve_sizes(spec.n_range, spec.n_points)
+    for extra in (n_pow, n_ass):
+        if extra is not None and extra not in sizes:
+            sizes = sorted({*sizes, extra})
+
+    def points_for(ns: list[int]) -> list[_Point]:
+        pts = [_Point(n, n_trials, exact, "power") for n in ns]
+        if output:
+            pts += [_Point(n, n_trials, exact, "power", conditional=True) for n in ns]
+        if prior is not None:
+            pts += [_Point(n, n_trials, exact, "assurance") for n in ns]
+        return pts
+
+    label = f"design-{'exact' if exact else 'fast'}"
+    results = executor.map(_PointTask(study, spec), points_for(sizes), seed=seed, label=label)
+    by_n: dict[int, dict[str, Any]] = {n: _new_row(n, spec) for n in sizes}
+    refits_failed = _fill_rows(by_n, results, spec, exact, prior)
+    path = "exact" if exact else "fast"
+
+    n_pow_se = n_ass_se = None
+    n_method = ("analytic: exact noncentral t (the smallest n whose power reaches the target); simulated figures "
+                "at that n beside it")
+    n_ass_method = "analytic: exact t power averaged over the design prior (quadrature)" if n_ass else None
+    if output:
+        # the simulated (expected) curve decides; refined between grid points, then simulated at the refined n
+        curve0 = [by_n[n] for n in sizes]
+        n_pow, n_pow_se, n_method = _refined(curve0, "power", spec.target_power)
+        if spec.target_assurance is not None:
+            n_ass, n_ass_se, n_ass_method = _refined(curve0, "assurance", spec.target_assurance)
+        new = sorted({n for n in (n_pow, n_ass) if n is not None and n not in by_n})
+        if new:
+            more = executor.map(_PointTask(study, spec), points_for(new), seed=seed + 1, label=label + "-refine")
+            for n in new:
+                by_n[n] = _new_row(n, spec)
+            refits_failed += _fill_rows(by_n, more, spec, exact, prior)
+            sizes = sorted(by_n)
     if refits_failed:
         notes.append(f"{refits_failed} MCMC refits failed the quality gate (R-hat, bulk or tail ESS, divergences) "
                      "and were left out of the exact power and assurance; see refits_failed per design point")
     for n, row in by_n.items():
         row["power_analytic"] = (float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis, spec.direction))
                                  if sd > 0 else None)
+        if output:
+            row["power_expected"], row["power_expected_mc_se"] = row.get("power"), row.get("power_mc_se")
         if prior is not None:
             row.setdefault("assurance", None)
             row.setdefault("assurance_mc_se", None)
-            if spec.endpoint_kind == "quantity":
+            if not output:
                 row["assurance_analytic"] = float(tp.t_assurance(n, prior, sd, spec.alpha, spec.analysis,
-                                                                      direction=spec.direction))
+                                                                 direction=spec.direction))
         else:
             row["assurance"], row["assurance_mc_se"] = None, None
-    curve = [by_n[n] for n in sizes]
-
-    if spec.endpoint_kind != "quantity":
-        # the simulated curve decides; the analytic n only seeded the grid
-        hit = [row["n_per_arm"] for row in curve if row["power"] >= spec.target_power]
-        n_pow = hit[0] if hit else None
-        if spec.target_assurance is not None:
-            hit = [row["n_per_arm"] for row in curve if (row["assurance"] or 0) >= spec.target_assurance]
-            n_ass = hit[0] if hit else None
+    curve = [{k: v for k, v in by_n[n].items() if not k.startswith("_")} for n in sizes]
     if n_pow is None:
         notes.append(f"target power {spec.target_power} not reached within n_range {list(spec.n_range)}")
 
     at = by_n.get(n_pow) if n_pow is not None else None
+    at_a = by_n.get(n_ass) if n_ass is not None else None
+    groups = _groups(spec)
+    e_pow, e_ass = enrolled(n_pow, spec.dropout), enrolled(n_ass, spec.dropout)
     doc: dict[str, Any] = {
         "design": spec.design,
         "analysis": {"parallel": "two-sample t test", "ancova": "ANCOVA on baseline",
                      "paired": "paired t test"}[spec.analysis],
         "endpoint": spec.endpoint,
+        "endpoint_reads": spec.output,
         "scale": spec.scale,
         "benefit": "increase" if spec.direction > 0 else "decrease",
         "effect": [{"parameter": e.parameter, e.kind: e.value, "analysis_scale": e.analysis_value()}
                    for e in spec.effects],
+        "effect_analysis_scale": effect,
         "alpha": spec.alpha,
+        "sided": "two-sided test, success only in the direction of benefit",
         "target_power": spec.target_power,
         "target_assurance": spec.target_assurance,
         "dropout": spec.dropout,
         "sd_analysis_scale": sd,
         "sd_method": sd_method,
-        "n_per_arm": enrolled(n_pow, spec.dropout),
+        "n_per_arm": e_pow,
         "n_per_arm_analysed": n_pow,
-        "n_per_arm_assurance": enrolled(n_ass, spec.dropout),
+        "n_per_arm_enrolled": e_pow,
+        "n_per_arm_completing": n_pow,
+        "total_n_enrolled": None if e_pow is None else groups * e_pow,
+        "total_n_completing": None if n_pow is None else groups * n_pow,
+        "groups": groups,
+        "n_method": n_method,
+        "n_per_arm_mc_se": n_pow_se,
+        "n_per_arm_assurance": e_ass,
         "n_per_arm_assurance_analysed": n_ass,
+        "n_per_arm_assurance_enrolled": e_ass,
+        "n_per_arm_assurance_completing": n_ass,
+        "total_n_assurance_enrolled": None if e_ass is None else groups * e_ass,
+        "n_assurance_method": n_ass_method,
+        "n_per_arm_assurance_mc_se": n_ass_se,
         "power": at["power"] if at else None,
         "power_mc_se": at["power_mc_se"] if at else None,
         "power_analytic": at["power_analytic"] if at else None,
         "assurance": at["assurance"] if at else None,
         "assurance_mc_se": at["assurance_mc_se"] if at else None,
+        "assurance_at_n_assurance": at_a["assurance"] if at_a else None,
+        "assurance_at_n_assurance_mc_se": at_a["assurance_mc_se"] if at_a else None,
+        "assurance_analytic_at_n_assurance": at_a.get("assurance_analytic") if at_a else None,
         "bayesian_success": at.get("bayesian_success") if at else None,
         "bayesian_success_mc_se": at.get("bayesian_success_mc_se") if at else None,
         "path": path,
@@ -813,9 +1106,20 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
         "seed": seed,
         "curve": curve,
         "notes": notes,
-        "units": {"n_per_arm": "subjects per arm (enrolled, after dropout)", "power": "1",
+        "units": {"n_per_arm": "subjects per arm (enrolled, after dropout); the curve's n_per_arm is completing",
+                  "n_per_arm_enrolled": "subjects per arm to enrol: ceil(completing / (1 - dropout))",
+                  "n_per_arm_completing": "subjects per arm analysed (completing)",
+                  "total_n_enrolled": "subjects in all arms together (enrolled)", "power": "1",
                   "sd_analysis_scale": "log units" if spec.scale == "log" else _unit_of(spec)},
     }
+    if output:
+        doc["power_conditional"] = at.get("power_conditional") if at else None
+        doc["power_conditional_mc_se"] = at.get("power_conditional_mc_se") if at else None
+        doc["power_expected"] = doc["power"]
+        doc["power_expected_mc_se"] = doc["power_mc_se"]
+        doc["typical_values"] = typical
+        doc["n_per_arm_conditional_completing"] = n_pow_analytic
+        doc["n_per_arm_conditional_enrolled"] = enrolled(n_pow_analytic, spec.dropout)
     if spec.target_half_width is not None and sd > 0:
         n_hw = tp.n_for_half_width(sd, spec.target_half_width, spec.half_width_probability, spec.alpha,
                                    spec.analysis, lo, hi)
@@ -825,7 +1129,62 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             "probability": (float(tp.half_width_probability(n_hw, sd, spec.target_half_width, spec.alpha,
                                                             spec.analysis)) if n_hw else None),
         }
+    doc["assumptions"] = assumptions(study, spec, doc)
     return DesignResult(doc)
+
+
+def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[str, str]]:
+    """The design assumptions a protocol states, each with its value and where it comes from.
+
+    Parameters
+    ----------
+    study : Study
+        The study (priors with their origins).
+    spec : DesignSpec
+        The parsed section.
+    doc : dict
+        The result document so far (sd, effect on the analysis scale).
+
+    Returns
+    -------
+    list of dict
+        ``{"what", "value", "source"}`` rows (values in canonical units, log units for ratios).
+    """
+    src = "study [design]" + (f" ({spec.file})" if spec.file else "")
+    rows = [{"what": "design and analysis", "value": f"{spec.design}, {doc['analysis']}", "source": src},
+            {"what": "endpoint", "value": f"{spec.endpoint} (reads {spec.output}, {spec.scale} scale)", "source": src}]
+    for e in spec.effects:
+        rows.append({"what": f"effect on {e.parameter}", "value": f"{e.kind} {e.value:g}", "source": src})
+    rows.append({"what": "direction of benefit", "value": doc["benefit"],
+                 "source": src if spec.benefit else "the sign of the effect"})
+    rows.append({"what": "significance", "value": f"alpha {spec.alpha:g}, two-sided; success in the direction of "
+                                                  "benefit only", "source": src})
+    rows.append({"what": "target power", "value": f"{spec.target_power:g}", "source": src})
+    if spec.target_assurance is not None:
+        rows.append({"what": "target assurance", "value": f"{spec.target_assurance:g}", "source": src})
+    rows.append({"what": "dropout", "value": f"{spec.dropout:g}", "source": src})
+    for sym in sorted({spec.output, *(e.parameter for e in spec.effects)} & set(study.priors)):
+        pr = study.priors[sym]
+        bs = spec.between.get(sym) or pr.between_subject
+        origin = getattr(pr, "origin", "") or "study [parameters]"
+        rows.append({"what": f"between-subject spread of {sym}", "value": str(bs or "none"),
+                     "source": "study [design]" if spec.between.get(sym) else origin})
+    for sym, sp in spec.within.items():
+        rows.append({"what": f"within-subject (occasion) spread of {sym}", "value": str(sp), "source": src})
+    rows.append({"what": "measurement error", "value": str(spec.measurement or "none"), "source": src})
+    for sym, v in (doc.get("typical_values") or {}).items():
+        pr = study.priors[sym]
+        unit = units.CANONICAL.get(sym, "")
+        rows.append({"what": f"typical {sym} (conditional power)", "value": f"{v:.4g} {unit}".strip(),
+                     "source": src + " typical" if sym in spec.typical else
+                     f"prior median; {getattr(pr, 'origin', '') or 'study [parameters]'}"})
+    rows.append({"what": "sd of the endpoint (analysis scale)", "value": f"{doc['sd_analysis_scale']:.4g}",
+                 "source": doc["sd_method"]})
+    if spec.design_prior is not None:
+        rows.append({"what": "design prior (analysis-scale effect)", "value": str(spec.design_prior), "source": src})
+    if spec.analysis_prior is not None:
+        rows.append({"what": "analysis prior", "value": str(spec.analysis_prior), "source": src})
+    return rows
 
 
 def _unit_of(spec: DesignSpec) -> str:

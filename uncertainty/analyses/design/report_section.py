@@ -1,48 +1,60 @@
-"""Design's part of report.html and of the one-screen summary, from its stored document."""
+"""Design's part of report.html, of the one-screen summary and of the protocol summary (Markdown)."""
 
 from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.design.figure import caption, title
+from uncertainty.analyses.design.table import headline
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import fmt
-from uncertainty.core.html import table
+from uncertainty.core.html import escape, table
 
 CAPTIONS: tuple[Caption, ...] = (
-    ("", "", "Simulated power and assurance (bands of twice the Monte Carlo error) against completing "
-             "subjects per arm, with the noncentral-t power dashed: the trial size is the first n where "
-             "power crosses the dotted target line, enlarged for dropout when enrolling."),
+    ("", "", "Simulated power, assurance and Bayesian success (bands of twice the Monte Carlo error) against "
+             "enrolled subjects per arm (after dropout), with the noncentral-t power dashed, the target power and "
+             "assurance as dotted lines, the headline n per arm (enrolled) as the dotted vertical line and the "
+             "assumptions in the line under the figure."),
 )
+
+_CURVE_COLS = ("n_per_arm_enrolled", "n_per_arm_completing", "total_n_enrolled", "power", "power_mc_se",
+               "power_analytic", "power_conditional", "assurance", "assurance_mc_se", "bayesian_success")
 
 
 def section_html(res: dict[str, Any]) -> str:
-    """The report section: the trial size for each target, power, assurance and the curve.
+    """The report section: the headline n (enrolled, completing, total N), the design assumptions and the curve.
 
     Parameters
     ----------
     res : dict
-        The stored ``DesignResult.to_dict()`` (n per arm, power and assurance dimensionless).
+        The stored ``DesignResult.to_dict()`` (n in subjects, power and assurance dimensionless).
 
     Returns
     -------
     str
-        An HTML paragraph and a table.
+        HTML paragraphs and two tables (assumptions, curve).
     """
-    parts = [f"<p>Subjects per arm for the target power: <strong>{fmt(res.get('n_per_arm'))}</strong>"]
+    parts = [f"<p><strong>{escape(title(res))}</strong>. {escape(headline(res))}.</p>"]
     if res.get("n_per_arm_assurance") is not None:
-        parts.append(f"; for the target assurance: <strong>{fmt(res.get('n_per_arm_assurance'))}</strong>")
-    parts.append(f". Power {fmt(res.get('power'), 3)}, assurance {fmt(res.get('assurance'), 3)} "
-                 "(assurance: the probability of success averaged over the design prior).</p>")
+        parts.append(f"<p>For the target assurance {fmt(res.get('target_assurance'))}: "
+                     f"<strong>{fmt(res.get('n_per_arm_assurance'))}</strong> enrolled per arm "
+                     f"({fmt(res.get('n_per_arm_assurance_analysed'))} completing), assurance at that n "
+                     f"{fmt(res.get('assurance_at_n_assurance'), 3)} (the probability of a significant result in "
+                     "the direction of benefit averaged over the design prior).</p>")
+    rows = [[a["what"], a["value"], a["source"]] for a in res.get("assumptions") or [] if isinstance(a, dict)]
+    if rows:
+        parts.append("<p>Design assumptions:</p>" + table(["assumption", "value", "source"], rows))
     curve = [c for c in res.get("curve") or [] if isinstance(c, dict)]
     if curve:
-        cols = ["n_per_arm", "power", "power_mc_se", "assurance", "assurance_mc_se"]
+        cols = [c for c in _CURVE_COLS if any(r.get(c) is not None for r in curve)]
         parts.append(table([c.replace("_", " ") for c in cols], [[fmt(c.get(k), 3) for k in cols] for c in curve],
                            num_cols=set(range(len(cols)))))
+        parts.append(f"<p><small>{escape(caption(res))}</small></p>")
     return "".join(parts)
 
 
 def summary(des: dict[str, Any]) -> list[str]:
-    """One-screen summary line: the trial size for the target power (and assurance).
+    """One-screen summary line: the trial size (enrolled and completing per arm, total N) for each target.
 
     Parameters
     ----------
@@ -54,7 +66,62 @@ def summary(des: dict[str, Any]) -> list[str]:
     list of str
         One line.
     """
-    part = f"Trial size: {fmt(des.get('n_per_arm'))} per arm for the target power"
+    part = (f"Trial size: {fmt(des.get('n_per_arm'))} per arm enrolled "
+            f"({fmt(des.get('n_per_arm_analysed'))} completing; total N {fmt(des.get('total_n_enrolled'))}) "
+            "for the target power")
     if des.get("n_per_arm_assurance") is not None:
-        part += f", {fmt(des.get('n_per_arm_assurance'))} per arm for the target assurance"
+        part += f", {fmt(des.get('n_per_arm_assurance'))} per arm enrolled for the target assurance"
     return [part]
+
+
+def _p(x: Any, se: Any = None) -> str:
+    if x is None:
+        return "-"
+    return f"{x:.3f}" + (f" +- {se:.3f} (MC error)" if se is not None else "")
+
+
+def protocol_markdown(doc: dict[str, Any]) -> str:
+    """A protocol-ready sample-size paragraph and tables in Markdown, from a design result's document.
+
+    Parameters
+    ----------
+    doc : dict
+        ``DesignResult.to_dict()`` (n in subjects; power, assurance dimensionless).
+
+    Returns
+    -------
+    str
+        Markdown: the sample-size statement, every assumption with its source, n enrolled and
+        completing, total N, power and assurance with their Monte Carlo errors, notes.
+    """
+    n_e, n_c = doc.get("n_per_arm_enrolled"), doc.get("n_per_arm_completing")
+    groups = doc.get("groups", 2)
+    per = "per arm" if groups == 2 else "subjects"
+    how = "by simulation" if str(doc.get("n_method", "")).startswith("simulated") else "from the exact noncentral t"
+    lines = ["## Sample size", "",
+             f"Design: {title(doc)}.", "",
+             (f"With {n_c} completing {per} ({n_e} enrolled {per} allowing for {doc.get('dropout', 0):.0%} dropout; "
+              f"total N = {doc.get('total_n_enrolled')} enrolled, {doc.get('total_n_completing')} completing) the "
+              f"two-sided test at alpha = {doc['alpha']:g} has power {_p(doc.get('power'), doc.get('power_mc_se'))} "
+              f"(simulated; {_p(doc.get('power_analytic'))} from the noncentral t) to show a "
+              f"{doc.get('benefit', '')} in {doc['endpoint']}; n found {how} for a target power of "
+              f"{doc['target_power']:g}." if n_e else
+              f"The target power {doc['target_power']:g} is not reached within the n range studied."), ""]
+    if doc.get("power_conditional") is not None:
+        cond = _p(doc["power_conditional"], doc.get("power_conditional_mc_se"))
+        lines += [f"Power at the stated typical values: {cond}; the power above is the expected power over "
+                  "the prior of the typical subject.", ""]
+    if doc.get("target_assurance") is not None:
+        lines += [f"Assurance (probability of a significant benefit averaged over the design prior) at that n: "
+                  f"{_p(doc.get('assurance'), doc.get('assurance_mc_se'))}; for a target assurance of "
+                  f"{doc['target_assurance']:g}: {doc.get('n_per_arm_assurance') or '-'} enrolled {per} "
+                  f"({doc.get('n_per_arm_assurance_analysed') or '-'} completing), assurance there "
+                  f"{_p(doc.get('assurance_at_n_assurance'), doc.get('assurance_at_n_assurance_mc_se'))}.", ""]
+    if doc.get("bayesian_success") is not None:
+        lines += [f"Bayesian success at that n: {_p(doc['bayesian_success'], doc.get('bayesian_success_mc_se'))}.", ""]
+    lines += ["| assumption | value | source |", "|---|---|---|"]
+    lines += [f"| {a['what']} | {a['value']} | {a['source']} |" for a in doc.get("assumptions") or []]
+    lines += ["", f"Simulation: {doc['trials_per_point']} trials per design point, seed {doc.get('seed')}, "
+                  f"{doc['path']} path."]
+    lines += [f"- note: {n}" for n in doc.get("notes", [])]
+    return "\n".join(lines) + "\n"

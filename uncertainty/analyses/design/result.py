@@ -6,7 +6,7 @@ from dataclasses import dataclass
 from typing import Any, ClassVar
 
 from uncertainty.analyses.design.figure import plot_design
-from uncertainty.analyses.design.report_section import section_html
+from uncertainty.analyses.design.report_section import protocol_markdown, section_html
 from uncertainty.analyses.design.table import table
 from uncertainty.analyses.result import DocumentResult
 from uncertainty.core.serialise import jsonable
@@ -36,3 +36,8 @@ class DesignResult(DocumentResult):
     def html_section(self) -> str:
         """This result's section of report.html."""
         return section_html(jsonable(self.doc))
+
+    def protocol(self) -> str:
+        """The protocol-ready sample-size summary in Markdown (assumptions with sources, n enrolled and
+        completing, total N, power and assurance with their Monte Carlo errors)."""
+        return protocol_markdown(jsonable(self.doc))

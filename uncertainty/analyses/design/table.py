@@ -9,6 +9,37 @@ def _f(x: float | None, fmt: str = ".3f") -> str:
     return "-" if x is None else format(x, fmt)
 
 
+def _n(x: int | None) -> str:
+    return "-" if x is None else str(x)
+
+
+def headline(doc: dict[str, Any]) -> str:
+    """One sentence: n per arm enrolled and completing, total N, how n was found, power at that n.
+
+    Parameters
+    ----------
+    doc : dict
+        ``DesignResult.to_dict()`` (subjects; power dimensionless).
+
+    Returns
+    -------
+    str
+        The headline the table, the report and the summary share.
+    """
+    se = doc.get("n_per_arm_mc_se")
+    how = "simulated" if str(doc.get("n_method", "")).startswith("simulated") else "analytic"
+    err = f", MC error of n +- {se:.1f}" if se else ""
+    text = (f"n per arm for power {doc['target_power']:g}: {_n(doc.get('n_per_arm_enrolled'))} enrolled "
+            f"({_n(doc.get('n_per_arm_completing'))} completing, dropout {doc.get('dropout', 0):g}); total N "
+            f"{_n(doc.get('total_n_enrolled'))} enrolled [{how}{err}]; power at that n "
+            f"{_f(doc.get('power'))} +- {_f(doc.get('power_mc_se'))} simulated, {_f(doc.get('power_analytic'))} "
+            f"noncentral t")
+    if doc.get("power_conditional") is not None:
+        text += (f" (conditional at the typical values {_f(doc['power_conditional'])} +- "
+                 f"{_f(doc.get('power_conditional_mc_se'))}; the simulated power is the expected power)")
+    return text
+
+
 def table(doc: dict[str, Any]) -> str:
     """Plain-text summary and curve of a design result.
 
@@ -24,21 +55,29 @@ def table(doc: dict[str, Any]) -> str:
         The design, the sample sizes for each target, one row per curve point, notes.
     """
     lines = [f"{doc['design']} design ({doc['analysis']}), endpoint {doc['endpoint']} on the {doc['scale']} scale, "
-             f"alpha {doc['alpha']:g} two-sided, {doc['path']} path, {doc['trials_per_point']} trials per point",
-             f"n per arm for power {doc['target_power']:g}: {_f(doc['n_per_arm'], 'd') if doc['n_per_arm'] else '-'}"
-             f" enrolled ({_f(doc['n_per_arm_analysed'], 'd') if doc['n_per_arm_analysed'] else '-'} completing);"
-             f" power {_f(doc['power'])} +- {_f(doc['power_mc_se'])} (noncentral t {_f(doc['power_analytic'])})"]
+             f"alpha {doc['alpha']:g} two-sided (success only for benefit: {doc.get('benefit', '-')}), "
+             f"{doc['path']} path, {doc['trials_per_point']} trials per point",
+             headline(doc)]
     if doc.get("target_assurance") is not None:
-        n_a = doc["n_per_arm_assurance"]
-        lines.append(f"n per arm for assurance {doc['target_assurance']:g}: {n_a if n_a else '-'} enrolled")
+        n_a = doc.get("n_per_arm_assurance_enrolled", doc.get("n_per_arm_assurance"))
+        se = doc.get("n_per_arm_assurance_mc_se")
+        lines.append(f"n per arm for assurance {doc['target_assurance']:g}: {_n(n_a)} enrolled "
+                     f"({_n(doc.get('n_per_arm_assurance_analysed'))} completing"
+                     f"{f', MC error of n +- {se:.1f}' if se else ''}); assurance at that n "
+                     f"{_f(doc.get('assurance_at_n_assurance'))} +- {_f(doc.get('assurance_at_n_assurance_mc_se'))}"
+                     f" simulated, {_f(doc.get('assurance_analytic_at_n_assurance'))} analytic")
     if doc.get("half_width"):
         hw = doc["half_width"]
         lines.append(f"n per arm for a 95% half-width <= {hw['target']:g} with probability "
                      f"{hw['probability_target']:g}: {hw['n_per_arm'] or '-'} enrolled")
-    lines.append(f"{'n/arm':>6}{'enrol':>7}{'power':>8}{'+-':>7}{'nct':>8}{'assur.':>8}{'+-':>7}{'Bayes':>8}")
+    cond = any(r.get("power_conditional") is not None for r in doc["curve"])
+    lines.append(f"{'compl.':>6}{'enrol':>7}{'power':>8}{'+-':>7}{'nct':>8}"
+                 + (f"{'cond.':>8}" if cond else "") + f"{'assur.':>8}{'+-':>7}{'Bayes':>8}")
     for r in doc["curve"]:
         lines.append(f"{r['n_per_arm']:>6}{r['n_enrolled']:>7}{_f(r.get('power')):>8}{_f(r.get('power_mc_se')):>7}"
-                     f"{_f(r.get('power_analytic')):>8}{_f(r.get('assurance')):>8}{_f(r.get('assurance_mc_se')):>7}"
+                     f"{_f(r.get('power_analytic')):>8}"
+                     + (f"{_f(r.get('power_conditional')):>8}" if cond else "")
+                     + f"{_f(r.get('assurance')):>8}{_f(r.get('assurance_mc_se')):>7}"
                      f"{_f(r.get('bayesian_success')):>8}")
     lines += [f"note: {n}" for n in doc.get("notes", [])]
     return "\n".join(lines)

@@ -15,10 +15,12 @@ uncertainty and between-subject spread). J is taken by central finite difference
 ``linearisation_draws`` points (the prior median and further prior draws) and the criterion is
 averaged over them (pseudo-Bayesian design), so "expected posterior sd" is an average over the prior.
 
-Pvi: in this linear model the limb is at steady state before the first step and the cuff changes
-nothing below Pv0 / transmission, so the slow-phase slope is Kf (T P_cuff - Pv0) / (1 + r) and its
-zero, the isovolumetric venous pressure, is Pv0: sd(Pvi) is the posterior sd of Pv0 (the resting
-venous pressure, prior ``Pv``).
+Pvi is defined as in the inference model (``volume_time_course`` observation,
+``physiology.interstitium.cuff_curve``): the isovolumetric venous pressure, the venous pressure above
+which filtration starts (Gamble et al. 1993, J Physiol 464:407). The veins fill from the resting venous
+pressure Pv; the filtration part responds to venous pressure above Pvi. Its prior is the study's
+``Pvi`` when declared, else the inference model's side prior; the corner of max(Pvi, T P_cuff) is
+rounded by the same ``SMOOTH_MMHG`` as there. sd(Pvi) is the posterior sd of that Pvi.
 
 Criteria over the targets (Kf, Pvi): ``A`` = mean over the linearisation points of
 sum_k Var_post(phi_k) / Var_prior(phi_k) (prior-standardised trace, Bayesian A-optimal);
@@ -28,8 +30,11 @@ Search: reading times by greedy forward selection on the time grid followed by e
 style: swap a chosen time for an unchosen one while the criterion falls), started both from the
 greedy set and from equal spacing; cuff pressures by coordinate exchange over the pressure grid (one
 step at a time, times re-optimised for each trial value), started from the equal-spacing protocol.
-Every move is accepted only when it lowers the criterion, so the result is never worse than equal
-spacing. :func:`brute_force` enumerates a small grid exactly (for checks).
+Every move is accepted only when it lowers the criterion and leaves no target's posterior sd above
+the comparison schedule's (the user's own protocol from the study's ``volume_time_course`` when it has
+the same number of steps, else true equal spacing), so the result is never worse than the comparison
+for any target; it is called optimised only when its criterion is lower. :func:`brute_force` enumerates
+a small grid exactly (for checks).
 """
 
 from __future__ import annotations
@@ -42,16 +47,21 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.design.trial_power import z_sample_size
+from uncertainty.analyses.inference.observations.volume_time_course import SIDE_PRIORS, SMOOTH_MMHG
 from uncertainty.analyses.schedule.result import ScheduleResult
 from uncertainty.core.errors import InputError
-from uncertainty.physiology.interstitium import volume_time_course
+from uncertainty.physiology.interstitium import cuff_curve, volume_time_course
 from uncertainty.priors import load_prior_set, parse_prior
 from uncertainty.study import ScheduleSection
 
 #: parameters of the linear cuff model, in the order of phi
-PARAMS = ("Kf", "C_tis", "L", "C_v", "Pv", "r", "tau_v")
-#: the study quantity behind each target
-TARGETS = {"Kf": "Kf", "Pvi": "Pv"}
+PARAMS = ("Kf", "C_tis", "L", "C_v", "Pv", "Pvi", "r", "tau_v")
+#: the study quantity behind each target (Pvi: the isovolumetric venous pressure, as in inference)
+TARGETS = {"Kf": "Kf", "Pvi": "Pvi"}
+#: what the report calls each comparison schedule
+LABELS = {"user_protocol": "your protocol (the study's cuff steps, readings equally spaced)",
+          "equal_spacing": "equal spacing (pressures equally spaced over the grid, readings equally spaced)"}
 _FD_STEP = 1e-5
 
 
@@ -59,22 +69,28 @@ _FD_STEP = 1e-5
 # generic linearised Bayesian design core
 
 
-def jacobian(forward: Callable[[np.ndarray], np.ndarray], phi: np.ndarray, step: float = _FD_STEP) -> np.ndarray:
+def jacobian(forward: Callable[[np.ndarray], np.ndarray], phi: np.ndarray, step: float = _FD_STEP,
+             only: Sequence[int] | None = None) -> np.ndarray:
     """Central finite-difference Jacobian of ``forward`` at ``phi``.
 
     ``forward`` maps (M, p) parameter points to (M, G) predictions; returns (M, G, p), in the
-    predictions' unit per unit of phi. Steps are ``step * max(1, |phi|)``.
+    predictions' unit per unit of phi. Steps are ``step * max(1, |phi|)``. ``only``: the columns to
+    difference (the others are zero: parameters ``forward`` does not depend on).
     """
     phi = np.atleast_2d(np.asarray(phi, dtype=float))
     M, p = phi.shape
     cols = []
     for k in range(p):
+        if only is not None and k not in only:
+            cols.append(None)
+            continue
         h = step * np.maximum(1.0, np.abs(phi[:, k]))
         up, dn = phi.copy(), phi.copy()
         up[:, k] += h
         dn[:, k] -= h
         cols.append((forward(up) - forward(dn)) / (2.0 * h[:, None]))
-    return np.stack(cols, axis=-1)
+    shape = next(c for c in cols if c is not None).shape
+    return np.stack([np.zeros(shape) if c is None else c for c in cols], axis=-1)
 
 
 def posterior_cov(info: np.ndarray, prior_prec: np.ndarray) -> np.ndarray:
@@ -189,21 +205,47 @@ class CuffModel:
         return out
 
     def forward(self, pressures: Sequence[float], times: np.ndarray) -> Callable[[np.ndarray], np.ndarray]:
-        """phi (M, p) -> limb volume change (mL per basis) at ``times`` (min), (M, G)."""
+        """phi (M, p) -> limb volume change (mL/100 g) at ``times`` (min), (M, G): the curve the inference
+        model fits (veins from Pv, filtration above Pvi)."""
 
         steps = [k * self.step_min for k in range(len(pressures))]
         t = np.asarray(times, dtype=float)[None, :]
 
         def f(phi: np.ndarray) -> np.ndarray:
             v = self.values(phi)
-            return volume_time_course(t, steps, [float(p) for p in pressures], v["Kf"], v["C_tis"], v["L"],
-                                      v["C_v"], Pv0=v["Pv"], tau_v=v["tau_v"], r=v["r"],
-                                      transmission=self.transmission) * np.ones_like(t)
+            return cuff_curve(t, steps, [float(p) for p in pressures], v["Kf"], v["C_tis"], v["L"], v["C_v"],
+                              Pv_rest=v["Pv"], Pvi=v["Pvi"], tau_v=v["tau_v"], r=v["r"],
+                              transmission=self.transmission, smooth=SMOOTH_MMHG) * np.ones_like(t)
         return f
 
+    def parts(self, pressures: Sequence[float], times: np.ndarray) -> tuple[Callable, Callable]:
+        """(venous, filtration) parts of :meth:`forward` (mL/100 g), each phi (M, p) -> (M, G): the veins
+        fill from Pv with C_v and tau_v; filtration depends on Kf, C_tis, L, Pvi and r only."""
+        steps = [k * self.step_min for k in range(len(pressures))]
+        t = np.asarray(times, dtype=float)[None, :]
+        cuffs = [float(p) for p in pressures]
+
+        def part(name: str, base: str) -> Callable[[np.ndarray], np.ndarray]:
+            def f(phi: np.ndarray) -> np.ndarray:
+                v = self.values(phi)
+                res = volume_time_course(t, steps, cuffs, v["Kf"], v["C_tis"], v["L"], v["C_v"], Pv0=v[base],
+                                         tau_v=v["tau_v"], r=v["r"], transmission=self.transmission, parts=True,
+                                         smooth=SMOOTH_MMHG)
+                return res[name] * np.ones_like(t)
+            return f
+        return part("venous", "Pv"), part("filtration", "Pvi")
+
     def information(self, pressures: Sequence[float], times: np.ndarray, noise_sd: float) -> np.ndarray:
-        """Per-reading Fisher information at every linearisation point: (M, G, p, p)."""
-        return information(jacobian(self.forward(pressures, times), self.points), noise_sd)
+        """Per-reading Fisher information at every linearisation point: (M, G, p, p).
+
+        The Jacobian of the curve is the sum of its venous and filtration parts' Jacobians, each
+        differenced only over the parameters it depends on (half the curve evaluations of differencing
+        the whole curve over every parameter)."""
+        ven, fil = self.parts(pressures, times)
+        ix = {n: k for k, n in enumerate(self.names)}
+        J = (jacobian(ven, self.points, only=[ix[n] for n in ("C_v", "Pv", "tau_v")])
+             + jacobian(fil, self.points, only=[ix[n] for n in ("Kf", "C_tis", "L", "Pvi", "r")]))
+        return information(J, noise_sd)
 
 
 def _moments(prior: Any, rng: np.random.Generator, n: int) -> tuple[bool, np.ndarray]:
@@ -240,13 +282,17 @@ def cuff_model(study: Any, section: Any, seed: int, draws: int = 20000) -> CuffM
             if pset is None:
                 pset = load_prior_set(study.tissue)
             prior = pset.priors.get(name)
+        if prior is None and name == "Pvi":
+            side = {k: v for k, v in SIDE_PRIORS["Pvi"].items() if k != "origin"}
+            prior = parse_prior("Pvi", side)
+            origins[name] = "inference side prior: " + SIDE_PRIORS["Pvi"]["origin"]
         if prior is None:
             if name == "r" and "r" not in (pset.priors if pset else {}):
                 prior = parse_prior("r", {"dist": "fixed", "value": 0.2})
             else:
                 raise InputError(f"the cuff model needs a prior for {name}: give it under [parameters]",
                                  file=file, key=f"parameters.{name}", value=None)
-        origins[name] = getattr(prior, "origin", "") or ""
+        origins[name] = origins.get(name) or getattr(prior, "origin", "") or ""
         if prior.is_fixed:
             logs.append(False)
             samples.append(np.full(draws, float(prior.median())))
@@ -326,15 +372,21 @@ def equal_times(times: np.ndarray, K: int) -> list[int]:
 
 
 def optimise(prob: Problem, start_pressures: Sequence[float], start_times: Sequence[int],
-             max_passes: int = 10, pair_moves: bool = True) -> tuple[list[float], list[int], float]:
+             max_passes: int = 10, pair_moves: bool = True,
+             feasible: Callable[[Sequence[float], Sequence[int]], bool] | None = None
+             ) -> tuple[list[float], list[int], float]:
     """Coordinate exchange over the cuff pressures (times re-optimised per trial), from a start schedule.
 
     Single-step moves first; when none improves and ``pair_moves``, moves of two adjacent steps at once
-    (which escape optima that the ``increasing`` constraint makes local to single moves). Returns
-    (pressures, reading indices, criterion); never worse than the start.
+    (which escape optima that the ``increasing`` constraint makes local to single moves). ``feasible``
+    (pressures, reading indices) -> bool, when given, must hold for every accepted schedule (e.g. no
+    target worse than a comparison); the start is taken as it is when its re-optimised times fail it.
+    Returns (pressures, reading indices, criterion); never worse than the start.
     """
     pressures = [float(p) for p in start_pressures]
     times, best = prob.best_times(pressures, start_times)  # the exchange from start_times never loses
+    if feasible is not None and not feasible(pressures, times):
+        times, best = sorted(int(i) for i in start_times), prob.value(pressures, start_times)
 
     def moves(order: int):
         # single steps, or two adjacent steps (enough to pass the increasing constraint's local optima)
@@ -354,7 +406,7 @@ def optimise(prob: Problem, start_pressures: Sequence[float], start_times: Seque
         for order in (1, 2) if pair_moves and prob.steps > 1 else (1,):
             for trial in moves(order):
                 t_idx, v = prob.best_times(trial, times)
-                if v < best - 1e-12 * max(1.0, abs(best)):
+                if v < best - 1e-12 * max(1.0, abs(best)) and (feasible is None or feasible(trial, t_idx)):
                     pressures, times, best, improved = trial, t_idx, v, True
             if improved:
                 break  # back to single moves from the new protocol
@@ -384,16 +436,34 @@ def brute_force(prob: Problem) -> tuple[list[float], list[int], float]:
 # on a study
 
 
-def _baseline_pressures(study: Any, grid: Sequence[float], steps: int) -> list[float]:
-    """The study's volume_time_course protocol when it has ``steps`` steps, else equal spacing over the grid."""
+def user_protocol(study: Any, steps: int) -> list[float] | None:
+    """The cuff pressures (mmHg) of the study's ``volume_time_course`` observation when it has ``steps`` steps."""
     for ob in getattr(study, "observations", None) or []:
         if getattr(ob, "kind", None) == "volume_time_course" and getattr(ob, "steps", None):
             vals = [float(s.to) for s in ob.steps]
             if len(vals) == steps:
                 return vals
+    return None
+
+
+def equal_pressures(grid: Sequence[float], steps: int) -> list[float]:
+    """``steps`` pressures equally spaced from the lowest to the highest grid pressure, each moved to the
+    nearest grid point (mmHg)."""
     g = np.asarray(sorted(grid), dtype=float)
     target = np.linspace(g[0], g[-1], steps)
     return [float(g[np.argmin(np.abs(g - x))]) for x in target]
+
+
+def _target_sd(prob: Problem, pressures: Sequence[float], idx: Sequence[int]) -> dict[str, float]:
+    """Posterior sd of each target (canonical units) for one schedule, as :func:`_summary` reports it."""
+    m = prob.model
+    cov = posterior_cov(prob.info(pressures)[:, list(idx)].sum(axis=1), prob.prior_prec)
+    out = {}
+    for target, q in TARGETS.items():
+        k = m.names.index(q)
+        s = np.sqrt(cov[:, k, k])
+        out[target] = float((np.exp(m.points[:, k]) * s).mean()) if m.log[k] else float(s.mean())
+    return out
 
 
 def _summary(prob: Problem, pressures: Sequence[float], idx: Sequence[int]) -> dict[str, Any]:
@@ -423,12 +493,51 @@ def _ratio(kind: str, opt: float, base: float) -> float:
     return opt / base if base else float("nan")
 
 
+def group_comparison(model: CuffModel, posterior_sd: dict[str, float], alpha: float = 0.05,
+                     power: float = 0.8) -> dict[str, dict[str, float]]:
+    """Subjects per group to detect a difference of one between-subject sd in a target, measured with this
+    schedule, against perfect measurement.
+
+    Each subject's estimate is the true value plus an error of the schedule's posterior sd, so the sd
+    of the estimates is sqrt(between^2 + posterior_sd^2) and n per group is the normal-approximation
+    2 (z_{1-a/2} + z_{1-b})^2 sd^2 / delta^2 with delta = the between-subject sd (common practice).
+
+    Parameters
+    ----------
+    model : CuffModel
+        The cuff model (prior sds; the between-subject part is approximated by the prior sd of phi on
+        the natural scale at the median).
+    posterior_sd : dict
+        Per-subject posterior sd of each target (Kf in mL/min/mmHg/100g, Pvi mmHg).
+    alpha, power : float
+        Two-sided level and power.
+
+    Returns
+    -------
+    dict
+        Per target: ``between_sd``, ``posterior_sd``, ``n_per_group`` (with this schedule) and
+        ``n_per_group_perfect`` (error-free measurement), subjects per group.
+    """
+    out = {}
+    for target, q in TARGETS.items():
+        k = model.names.index(q)
+        s = math.sqrt(model.prior_cov[k, k])
+        between = float(np.exp(model.points[0, k]) * s) if model.log[k] else s
+        post = float(posterior_sd[target])
+        out[target] = {"between_sd": between, "posterior_sd": post,
+                       "n_per_group": z_sample_size(between, math.hypot(between, post), alpha, power),
+                       "n_per_group_perfect": z_sample_size(between, between, alpha, power)}
+    return out
+
+
 def schedule(study: Any, seed: int | None = None) -> ScheduleResult:
     """Optimise the venous-cuff schedule of a study (``[schedule]`` section; defaults when absent).
 
-    Returns a :class:`ScheduleResult` whose JSON holds ``optimised`` and ``equal_spacing``
+    Returns a :class:`ScheduleResult` whose JSON holds ``optimised`` (the searched schedule; ``status``
+    says whether it is better: ``optimised``, ``trade_off`` or ``no_better_schedule``), ``equal_spacing``
+    (true equal spacing), ``user_protocol`` (the study's own cuff steps, when it has them), ``comparison``
     (``pressures`` mmHg per step, reading ``times`` min, ``criterion``, ``posterior_sd`` of Kf in
-    mL/min/mmHg per basis and Pvi in mmHg, ``posterior_sd_log`` of Kf), ``prior_sd``, ``sd_ratio``
+    mL/min/mmHg/100g and Pvi in mmHg, ``posterior_sd_log`` of Kf), ``prior_sd``, ``sd_ratio``
     (optimised / equal spacing per target; below 1 is a gain), ``parameters`` (prior moments and
     origins) and the settings. Seeded by ``seed`` (default the study seed).
     """
@@ -448,17 +557,44 @@ def schedule(study: Any, seed: int | None = None) -> ScheduleResult:
     crit = Criterion(section.criterion, idx, model.prior_cov)
     prob = Problem(model, grid, section.steps, times, section.measurements, float(section.noise_sd), crit,
                    increasing=section.increasing)
-    base_p = _baseline_pressures(study, grid, section.steps)
     base_t = equal_times(times, section.measurements)
-    opt_p, opt_t, _ = optimise(prob, base_p, base_t)
+    rows = {"equal_spacing": (equal_pressures(grid, section.steps), base_t)}
+    user = user_protocol(study, section.steps)
+    if user is not None:
+        rows["user_protocol"] = (user, base_t)
+    comparison = "user_protocol" if user is not None else "equal_spacing"
+    summaries = {k: _summary(prob, p, t) for k, (p, t) in rows.items()}
+    caps = summaries[comparison]["posterior_sd"]
+
+    def feasible(pressures: Sequence[float], idx: Sequence[int]) -> bool:
+        sd = _target_sd(prob, pressures, idx)
+        return all(sd[t] <= caps[t] * (1 + 1e-9) for t in section.targets)
+
+    # one search, from the better (lower criterion) of the comparison and equal spacing when both qualify
+    starts = [k for k in rows if k == comparison or feasible(*rows[k])]
+    start = min(starts, key=lambda k: summaries[k]["criterion"])
+    opt_p, opt_t, _ = optimise(prob, *rows[start], feasible=feasible)
     opt = _summary(prob, opt_p, opt_t)
-    base = _summary(prob, base_p, base_t)
+    base = summaries[comparison]
     prior_sd = {}
     for target, q in TARGETS.items():
         k = model.names.index(q)
         s = math.sqrt(model.prior_cov[k, k])
         prior_sd[target] = float((np.exp(model.points[:, k]) * s).mean()) if model.log[k] else s
     ratio = {t: opt["posterior_sd"][t] / base["posterior_sd"][t] for t in TARGETS}
+    crit_ratio = _ratio(section.criterion, opt["criterion"], base["criterion"])
+    better = opt["criterion"] < base["criterion"] - 1e-9 * max(1.0, abs(base["criterion"]))
+    worse = [t for t in TARGETS if ratio[t] > 1 + 1e-6]
+    if not better:
+        status = "no_better_schedule"
+        verdict = f"no better schedule found: keep {LABELS[comparison]}"
+    elif worse:
+        status = "trade_off"
+        verdict = (f"better on criterion {section.criterion} than {LABELS[comparison]} but worse for "
+                   f"{', '.join(worse)} (not a target)")
+    else:
+        status = "optimised"
+        verdict = f"optimised: no target worse than {LABELS[comparison]}, criterion ratio {crit_ratio:.3g}"
     params = {}
     for k, n in enumerate(model.names):
         entry = {"scale": "log" if model.log[k] else "linear",
@@ -466,17 +602,29 @@ def schedule(study: Any, seed: int | None = None) -> ScheduleResult:
                  "sd_phi": float(math.sqrt(model.prior_cov[k, k])), "origin": model.origins.get(n, "")}
         params[n] = entry
     notes = ["linearised (Laplace) posterior of the linear cuff model, averaged over "
-             f"{len(model.points)} prior points; Pvi is the resting venous pressure Pv0 of that model",
+             f"{len(model.points)} prior points; Pvi is the isovolumetric venous pressure as in the inference "
+             "model (filtration above Pvi, veins from the resting Pv)",
              "r (Rv/Ra) and Kf enter the slow phase only as Kf/(1 + r): the prior of r bounds how far sd(Kf) "
-             "can fall"]
+             "can fall",
+             "the linearised sd is a lower bound on what a fitted posterior shows when the curve model has "
+             "ridges (Pvi against Cv) or the noise sd is underestimated"]
     doc = {"criterion": section.criterion, "targets": list(section.targets), "steps": section.steps,
            "step_min": section.step_min, "measurements": section.measurements, "noise_sd": section.noise_sd,
            "pressure_grid": list(grid), "time_grid_min": section.time_step_min, "increasing": section.increasing,
-           "optimised": opt, "equal_spacing": base, "prior_sd": prior_sd, "sd_ratio": ratio,
-           "criterion_ratio": _ratio(section.criterion, opt["criterion"], base["criterion"]),
-           "search": {"method": "coordinate exchange (pressures) + greedy/exchange (times)",
+           "optimised": opt, "equal_spacing": summaries["equal_spacing"], "comparison": comparison,
+           "comparison_label": LABELS[comparison], "status": status, "verdict": verdict,
+           "prior_sd": prior_sd, "sd_ratio": ratio,
+           "sd_ratio_equal_spacing": {t: opt["posterior_sd"][t] / summaries["equal_spacing"]["posterior_sd"][t]
+                                      for t in TARGETS},
+           "criterion_ratio": crit_ratio,
+           "group_comparison": group_comparison(model, opt["posterior_sd"]),
+           "search": {"method": "coordinate exchange (pressures) + greedy/exchange (times), from the comparison "
+                                "and equal spacing; no target may end worse than the comparison",
                       "evaluations": prob.evaluations},
            "parameters": params, "seed": seed, "notes": notes,
            "units": {"pressures": "mmHg", "times": "min", "Kf": "mL/min/mmHg/100g", "Pvi": "mmHg",
-                     "noise_sd": "mL/100g", "posterior_sd_log": "1 (sd of the natural log)"}}
+                     "noise_sd": "mL/100g (one limb-volume reading)", "posterior_sd_log": "1 (sd of the natural log)",
+                     "group_comparison": "subjects per group"}}
+    if user is not None:
+        doc["user_protocol"] = summaries["user_protocol"]
     return ScheduleResult(doc, model)

@@ -8,7 +8,7 @@ from typing import Any, ClassVar
 from uncertainty.analyses.result import DocumentResult
 from uncertainty.analyses.schedule.figure import plot_schedule
 from uncertainty.analyses.schedule.report_section import section_html
-from uncertainty.analyses.schedule.table import table
+from uncertainty.analyses.schedule.table import row_labels, table
 from uncertainty.core.serialise import jsonable
 
 
@@ -27,7 +27,7 @@ class ScheduleResult(DocumentResult):
         import pandas as pd
 
         rows = []
-        for label in ("optimised", "equal_spacing"):
+        for label in row_labels(self.doc):
             d = self.doc[label]
             rows.append({"schedule": label, "pressures": " ".join(f"{p:g}" for p in d["pressures"]),
                          "times": " ".join(f"{t:g}" for t in d["times"]), "criterion": d["criterion"],

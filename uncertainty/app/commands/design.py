@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import click
@@ -25,10 +26,13 @@ from uncertainty.study import load_study
 @click.option("--schedule", "cuff_schedule", is_flag=True,
               help="Instead of the trial: optimise the venous-cuff measurement schedule ([schedule] section, "
                    "defaults when absent); JSON keys optimised, equal_spacing, sd_ratio, prior_sd.")
+@click.option("--protocol", "protocol", is_flag=True,
+              help="Print the protocol-ready summary (Markdown) instead of the table; with --out also "
+                   "write it to protocol.md there.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, exact: bool,
             trials: int | None, workers: int | None, scheduler: str | None, checkpoint: str | None,
-            cuff_schedule: bool) -> None:
+            cuff_schedule: bool, protocol: bool) -> None:
     """Power of the two-sided test (simulated, with Monte Carlo error, and exact noncentral t),
     assurance over the design prior, Bayesian success, n per arm for the targets, and the curves.
 
@@ -45,6 +49,15 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     s = load_study(study)
     with make_executor(workers, scheduler, checkpoint_dir=checkpoint, progress=not (quiet or as_json)) as ex:
         result = design(s, seed=seed, exact=exact, executor=ex, trials=trials)
+    if protocol and not as_json:
+        text = result.protocol()
+        if out:
+            result.save(out)
+            result.plot(out)
+            Path(out, "protocol.md").write_text(text, encoding="utf-8")
+        if not quiet:
+            click.echo(text)
+        return
     show_result(result, as_json=as_json, out=out, quiet=quiet)
 
 

@@ -1,0 +1,193 @@
+"""Group-sequential designs: two-sided symmetric boundaries by Lan-DeMets alpha spending, exit
+probabilities, power and expected sample size (normal test statistics with independent increments).
+
+At information fractions 0 < t_1 < ... < t_K = 1 the score process S(t) = Z(t) sqrt(t) is Brownian
+motion with drift theta (theta = the effect over its standard error at full information). The trial
+stops at look k when |Z_k| >= c_k. Boundaries are chosen so that the type I error spent by look k is
+the spending function alpha(t_k) (Lan & DeMets 1983, Biometrika 70:659):
+
+- O'Brien-Fleming shape: per side 2 - 2 Phi(z_{1-alpha/4} / sqrt(t)) (the one-sided function at alpha/2);
+- Pocock shape: alpha(t) = alpha ln(1 + (e - 1) t).
+
+Crossing probabilities come from the recursive integration of Armitage, McPherson & Rowe (1969, J R
+Stat Soc A 132:235): the sub-density of S on the continuation region is carried from look to look by
+the normal transition kernel, on a grid (trapezoid rule).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+
+import numpy as np
+from scipy import optimize, stats
+
+_GRID = 401  # grid points over a continuation interval (boundaries to about 1e-4; a test compares 1601)
+
+
+def obf_spending(t: np.ndarray | float, alpha: float) -> np.ndarray:
+    """Lan-DeMets O'Brien-Fleming-shaped two-sided alpha spent by information fraction ``t`` (dimensionless).
+
+    Each side spends the one-sided function at alpha/2, 2 - 2 Phi(z_{1 - alpha/4} / sqrt(t)), the
+    convention of symmetric two-sided designs (Reboussin, DeMets, Kim & Lan 2000, Control Clin Trials
+    21:190); the two sides together spend twice that.
+    """
+    t = np.asarray(t, dtype=float)
+    z = stats.norm.ppf(1 - alpha / 4)
+    return np.where(t > 0, 2 * (2 - 2 * stats.norm.cdf(z / np.sqrt(np.maximum(t, 1e-300)))), 0.0)
+
+
+def pocock_spending(t: np.ndarray | float, alpha: float) -> np.ndarray:
+    """Lan-DeMets Pocock-shaped two-sided alpha spent by information fraction ``t``: alpha ln(1 + (e - 1) t)."""
+    return alpha * np.log1p((math.e - 1) * np.asarray(t, dtype=float))
+
+
+SPENDING: dict[str, Callable[[np.ndarray | float, float], np.ndarray]] = {
+    "obrien_fleming": obf_spending, "pocock": pocock_spending}
+
+
+def _cross(f: np.ndarray | None, x: np.ndarray | None, w: np.ndarray | None, b: float, dt: float,
+           mean: float) -> tuple[float, float]:
+    """(upper, lower) crossing probabilities at the next look, boundary ``b`` on the S scale."""
+    sd = math.sqrt(dt)
+    if f is None:
+        return float(stats.norm.sf((b - mean) / sd)), float(stats.norm.cdf((-b - mean) / sd))
+    up = stats.norm.sf((b - x - mean) / sd)
+    lo = stats.norm.cdf((-b - x - mean) / sd)
+    return float(np.sum(w * f * up)), float(np.sum(w * f * lo))
+
+
+def _carry(f: np.ndarray | None, x: np.ndarray | None, w: np.ndarray | None, b: float, dt: float,
+           mean: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sub-density of S at the next look on (-b, b): grid, weights, values."""
+    xn = np.linspace(-b, b, _GRID)
+    wn = np.full(_GRID, xn[1] - xn[0])
+    wn[[0, -1]] *= 0.5
+    sd = math.sqrt(dt)
+    if f is None:
+        fn = stats.norm.pdf((xn - mean) / sd) / sd
+    else:
+        fn = (stats.norm.pdf((xn[:, None] - x[None, :] - mean) / sd) / sd) @ (w * f)
+    return xn, wn, fn
+
+
+def boundaries(t: Sequence[float], alpha: float = 0.05, shape: str = "obrien_fleming") -> np.ndarray:
+    """Two-sided symmetric Z boundaries c_k at information fractions ``t`` (last = 1) by alpha spending.
+
+    Parameters
+    ----------
+    t : sequence of float
+        Increasing information fractions in (0, 1], the last 1.
+    alpha : float
+        Two-sided type I error over the whole trial.
+    shape : str
+        ``obrien_fleming`` or ``pocock`` (Lan-DeMets spending functions).
+
+    Returns
+    -------
+    numpy.ndarray
+        Z boundaries (dimensionless), one per look.
+
+    Raises
+    ------
+    ValueError
+        For fractions that do not increase to 1 or an unknown shape.
+    """
+    t = np.asarray(t, dtype=float)
+    if np.any(np.diff(t) <= 0) or t[0] <= 0 or abs(t[-1] - 1) > 1e-12:
+        raise ValueError("information fractions must increase from above 0 to 1")
+    spend = SPENDING[shape](t, alpha)
+    inc = np.diff(np.concatenate([[0.0], spend]))
+    f = x = w = None
+    prev = 0.0
+    out = []
+    for tk, a in zip(t, inc, strict=True):
+        dt = tk - prev
+
+        def excess(c: float, tk: float = tk, dt: float = dt, a: float = a, f=f, x=x, w=w) -> float:
+            up, lo = _cross(f, x, w, c * math.sqrt(tk), dt, 0.0)
+            return up + lo - a
+
+        c = optimize.brentq(excess, 0.1, 40.0, xtol=1e-10) if a > 1e-15 else 40.0
+        out.append(c)
+        x, w, f = _carry(f, x, w, c * math.sqrt(tk), dt, 0.0)
+        prev = tk
+    return np.array(out)
+
+
+def exit_probabilities(t: Sequence[float], c: Sequence[float], drift: float = 0.0) -> dict[str, np.ndarray]:
+    """Probabilities of stopping at each look (upper and lower boundary) under drift ``theta``.
+
+    Parameters
+    ----------
+    t : sequence of float
+        Information fractions (last 1).
+    c : sequence of float
+        Z boundaries per look.
+    drift : float
+        theta: the effect over its standard error at full information (0 under the null).
+
+    Returns
+    -------
+    dict
+        ``upper``, ``lower`` (per look, dimensionless).
+    """
+    f = x = w = None
+    prev = 0.0
+    up_all, lo_all = [], []
+    for tk, ck in zip(t, c, strict=True):
+        dt = tk - prev
+        up, lo = _cross(f, x, w, ck * math.sqrt(tk), dt, drift * dt)
+        up_all.append(up)
+        lo_all.append(lo)
+        x, w, f = _carry(f, x, w, ck * math.sqrt(tk), dt, drift * dt)
+        prev = tk
+    return {"upper": np.array(up_all), "lower": np.array(lo_all)}
+
+
+def design_summary(t: Sequence[float], alpha: float, power: float, shape: str,
+                   n_fixed: float) -> dict[str, object]:
+    """Boundaries, inflation factor, maximum and expected n of a group-sequential design.
+
+    The drift giving ``power`` (rejections in the direction of benefit, the upper boundary) is solved
+    for; the maximum n is ``n_fixed`` times (drift / (z_{1-a/2} + z_{power}))^2 (the inflation factor);
+    the expected n under the alternative and under the null sum the stopping probabilities times the
+    n at each look.
+
+    Parameters
+    ----------
+    t : sequence of float
+        Information fractions of the looks (last 1).
+    alpha, power : float
+        Two-sided type I error and target power.
+    shape : str
+        ``obrien_fleming`` or ``pocock``.
+    n_fixed : float
+        n per arm of the fixed (single-look) design for the same alpha and power.
+
+    Returns
+    -------
+    dict
+        ``boundaries`` (Z), ``inflation``, ``n_max`` (per arm), ``expected_n_alternative`` and
+        ``expected_n_null`` (per arm), ``alpha_spent`` (cumulative).
+    """
+    c = boundaries(t, alpha, shape)
+    tt = np.asarray(t, dtype=float)
+
+    def pw(theta: float) -> float:
+        return float(exit_probabilities(tt, c, theta)["upper"].sum()) - power
+
+    z = stats.norm.ppf(1 - alpha / 2) + stats.norm.ppf(power)
+    theta = optimize.brentq(pw, 0.9 * z, 1.5 * z, xtol=1e-5)  # never below the fixed design's drift z
+    infl = (theta / z) ** 2
+    n_max = n_fixed * infl
+    ex_a = exit_probabilities(tt, c, theta)
+    ex_0 = exit_probabilities(tt, c, 0.0)
+
+    def expected(ex: dict[str, np.ndarray]) -> float:
+        stop = ex["upper"] + ex["lower"]
+        stop[-1] = 1 - stop[:-1].sum()
+        return float(np.sum(stop * tt * n_max))
+
+    return {"boundaries": c, "inflation": infl, "n_max": n_max, "expected_n_alternative": expected(ex_a),
+            "expected_n_null": expected(ex_0), "alpha_spent": SPENDING[shape](tt, alpha)}
