@@ -1,0 +1,143 @@
+"""A real dask cluster: a scheduler and two workers started as separate processes on 127.0.0.1 (the
+`dask scheduler` / `dask worker` commands of the cluster extra); study sections sent to it with
+`--scheduler` give the in-process numbers. The processes are always shut down, and every wait has
+a time limit, so a hung cluster fails the test instead of hanging CI.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+import sys
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from uncertainty.app.cli import main
+
+pytestmark = pytest.mark.slow
+
+ROOT = Path(__file__).resolve().parents[1]
+LIMIT = 120.0  # seconds any single step may take before the test gives up (a hung cluster)
+
+# invented study (small sizes so that each section takes a second or two)
+STUDY = """# INVENTED study for the cluster test: invented numbers, no real subject.
+[study]
+title = "Cluster test: resting forearm muscle (invented)"
+tissue = "skeletal_muscle"
+model = "classic"
+seed = {seed}
+
+[propagate]
+samples = 256
+
+[sensitivity]
+method = "shapley"
+samples = 128
+
+[design]
+design = "parallel"
+endpoint = "Kf"
+effect = {{ parameter = "Kf", multiply = 0.7 }}
+between_subject = {{ Kf = {{ cv = 0.38 }} }}
+measurement = {{ cv = 0.2 }}
+n_range = [10, 60]
+n_points = 3
+simulations = 200
+"""
+
+
+def _dask() -> str:
+    return shutil.which("dask") or str(Path(sys.executable).with_name("dask"))
+
+
+def _env() -> dict[str, str]:
+    """The test's environment, with this checkout first on the workers' import path."""
+    path = os.pathsep.join(p for p in (str(ROOT), os.environ.get("PYTHONPATH", "")) if p)
+    return {**os.environ, "PYTHONPATH": path}
+
+
+def _stop(procs: list[subprocess.Popen]) -> None:
+    for p in reversed(procs):
+        if p.poll() is None:
+            p.terminate()
+    for p in procs:
+        try:
+            p.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            p.kill()
+            p.wait(timeout=10)
+
+
+@pytest.fixture(scope="module")
+def scheduler(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
+    """Address of a scheduler on 127.0.0.1 with two single-threaded workers, each its own process."""
+    from dask.distributed import Client
+
+    folder = tmp_path_factory.mktemp("cluster")
+    info = folder / "scheduler.json"
+    log = open(folder / "cluster.log", "wb")  # noqa: SIM115 - closed in finally
+    procs: list[subprocess.Popen] = []
+    try:
+        procs.append(subprocess.Popen(
+            [_dask(), "scheduler", "--host", "127.0.0.1", "--port", "0", "--no-dashboard",
+             "--scheduler-file", str(info), "--idle-timeout", "600"],
+            env=_env(), cwd=folder, stdout=log, stderr=log))
+        deadline = time.monotonic() + LIMIT
+        while not info.is_file() or not info.read_text().strip():
+            if procs[0].poll() is not None or time.monotonic() > deadline:
+                pytest.fail("the dask scheduler did not start: " + (folder / "cluster.log").read_text()[-2000:])
+            time.sleep(0.2)
+        time.sleep(0.2)  # the file is written whole, but give the writer a moment
+        address = json.loads(info.read_text())["address"]
+        assert address.startswith("tcp://127.0.0.1:")
+        for name in ("worker-a", "worker-b"):
+            procs.append(subprocess.Popen(
+                [_dask(), "worker", address, "--name", name, "--nthreads", "1", "--no-nanny",
+                 "--no-dashboard", "--local-directory", str(folder), "--death-timeout", "60"],
+                env=_env(), cwd=folder, stdout=log, stderr=log))
+        with Client(address, timeout=f"{int(LIMIT)}s") as client:
+            client.wait_for_workers(2, timeout=LIMIT)
+        yield address
+    finally:
+        _stop(procs)
+        log.close()
+
+
+def _cluster_json(args: list[str], cwd: Path) -> dict:
+    """Run `fluidshift ARGS --json` as its own process (time-limited) and parse its document."""
+    code = "from uncertainty.app.cli import main; main()"
+    done = subprocess.run([sys.executable, "-c", code, *args, "--json"], cwd=cwd, env=_env(),
+                          capture_output=True, text=True, timeout=LIMIT)
+    assert done.returncode == 0, done.stderr[-2000:]
+    return json.loads(done.stdout)
+
+
+def _in_process_json(args: list[str]) -> dict:
+    res = CliRunner().invoke(main, [*args, "--json"])
+    assert res.exit_code == 0, res.output
+    return json.loads(res.stdout)
+
+
+@pytest.fixture
+def study(tmp_path: Path) -> Path:
+    p = tmp_path / "study.toml"
+    p.write_text(STUDY.format(seed=7))
+    return p
+
+
+def test_design_on_the_cluster_gives_the_in_process_numbers(scheduler: str, study: Path) -> None:
+    ref = _in_process_json(["design", str(study)])
+    got = _cluster_json(["design", str(study), "--scheduler", scheduler], study.parent)
+    assert got == ref
+
+
+def test_sensitivity_on_the_cluster_gives_the_in_process_numbers(scheduler: str, study: Path) -> None:
+    ref = _in_process_json(["sensitivity", str(study)])
+    got = _cluster_json(["sensitivity", str(study), "--scheduler", scheduler], study.parent)
+    assert got == ref
