@@ -19,6 +19,7 @@ import pytest
 from click.testing import CliRunner
 
 from uncertainty.app.cli import main
+from uncertainty.app.run import run
 
 pytestmark = pytest.mark.slow
 
@@ -47,8 +48,8 @@ effect = {{ parameter = "Kf", multiply = 0.7 }}
 between_subject = {{ Kf = {{ cv = 0.38 }} }}
 measurement = {{ cv = 0.2 }}
 n_range = [10, 60]
-n_points = 3
-simulations = 200
+n_points = 2
+simulations = 100
 """
 
 
@@ -68,7 +69,7 @@ def _stop(procs: list[subprocess.Popen]) -> None:
             p.terminate()
     for p in procs:
         try:
-            p.wait(timeout=10)
+            p.wait(timeout=5)
         except subprocess.TimeoutExpired:
             p.kill()
             p.wait(timeout=10)
@@ -141,3 +142,18 @@ def test_sensitivity_on_the_cluster_gives_the_in_process_numbers(scheduler: str,
     ref = _in_process_json(["sensitivity", str(study)])
     got = _cluster_json(["sensitivity", str(study), "--scheduler", scheduler], study.parent)
     assert got == ref
+
+
+def test_run_over_two_studies_on_the_cluster_gives_the_one_by_one_numbers(scheduler: str, tmp_path: Path) -> None:
+    studies = []
+    for seed in (7, 8):  # two propagate-only studies (a whole run per task; the sections are tested above)
+        p = tmp_path / f"study-{seed}.toml"
+        p.write_text(STUDY.format(seed=seed).split("[sensitivity]")[0])
+        studies.append(p)
+    out = tmp_path / "cluster"
+    runs = _cluster_json(["run", *map(str, studies), "--out", str(out), "--scheduler", scheduler], tmp_path)["runs"]
+    for path, doc in zip(studies, runs, strict=True):
+        alone = run(path, tmp_path / f"alone-{path.stem}", progress=False).doc
+        assert {n: r["result"] for n, r in doc["sections"].items()} == \
+            {n: r["result"] for n, r in alone["sections"].items()}
+        assert (out / path.stem / "report.html").is_file()
