@@ -11,6 +11,7 @@ import os
 import shutil
 import subprocess
 import sys
+import threading
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -110,13 +111,19 @@ def scheduler(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
         log.close()
 
 
-def _cluster_json(args: list[str], cwd: Path) -> dict:
-    """Run `fluidshift ARGS --json` as its own process (time-limited) and parse its document."""
-    code = "from uncertainty.app.cli import main; main()"
-    done = subprocess.run([sys.executable, "-c", code, *args, "--json"], cwd=cwd, env=_env(),
-                          capture_output=True, text=True, timeout=LIMIT)
-    assert done.returncode == 0, done.stderr[-2000:]
-    return json.loads(done.stdout)
+def _cluster_json(args: list[str]) -> dict:
+    """`fluidshift ARGS --json` (its client joins the cluster) in a thread with a time limit: a hung
+    cluster fails the test, and the fixture still stops the processes."""
+    box: dict = {}
+    worker = threading.Thread(target=lambda: box.update(res=CliRunner().invoke(main, [*args, "--json"])),
+                              daemon=True)
+    worker.start()
+    worker.join(LIMIT)
+    if worker.is_alive():
+        pytest.fail(f"fluidshift {args[0]} on the cluster did not finish within {LIMIT:.0f} s")
+    res = box["res"]
+    assert res.exit_code == 0, res.output
+    return json.loads(res.stdout)
 
 
 def _in_process_json(args: list[str]) -> dict:
@@ -134,13 +141,13 @@ def study(tmp_path: Path) -> Path:
 
 def test_design_on_the_cluster_gives_the_in_process_numbers(scheduler: str, study: Path) -> None:
     ref = _in_process_json(["design", str(study)])
-    got = _cluster_json(["design", str(study), "--scheduler", scheduler], study.parent)
+    got = _cluster_json(["design", str(study), "--scheduler", scheduler])
     assert got == ref
 
 
 def test_sensitivity_on_the_cluster_gives_the_in_process_numbers(scheduler: str, study: Path) -> None:
     ref = _in_process_json(["sensitivity", str(study)])
-    got = _cluster_json(["sensitivity", str(study), "--scheduler", scheduler], study.parent)
+    got = _cluster_json(["sensitivity", str(study), "--scheduler", scheduler])
     assert got == ref
 
 
@@ -151,7 +158,7 @@ def test_run_over_two_studies_on_the_cluster_gives_the_one_by_one_numbers(schedu
         p.write_text(STUDY.format(seed=seed).split("[sensitivity]")[0])
         studies.append(p)
     out = tmp_path / "cluster"
-    runs = _cluster_json(["run", *map(str, studies), "--out", str(out), "--scheduler", scheduler], tmp_path)["runs"]
+    runs = _cluster_json(["run", *map(str, studies), "--out", str(out), "--scheduler", scheduler])["runs"]
     for path, doc in zip(studies, runs, strict=True):
         alone = run(path, tmp_path / f"alone-{path.stem}", progress=False).doc
         assert {n: r["result"] for n, r in doc["sections"].items()} == \
