@@ -28,10 +28,11 @@ per task, so the numbers are those of one call on the whole array.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import os
 import pickle
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -158,6 +159,9 @@ class DaskExecutor(InProcess):
         except ImportError as exc:  # pragma: no cover - dask is installed in our environment
             raise InputError("dask.distributed is not installed (pip install 'fluidshift[cluster]')",
                              key="--workers", value=workers) from exc
+        import logging
+
+        self._logging: int = logging.root.manager.disable  # the level close() restores
         self.retries = int(retries)
         self.cluster = None
         self.client = None
@@ -171,8 +175,11 @@ class DaskExecutor(InProcess):
             n = int(workers or 1)
             if n < 1:
                 raise InputError("need at least one worker", key="--workers", value=workers)
-            self.cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                                        dashboard_address=None)
+            import logging
+
+            with _children_ignore_sigint():  # (Ctrl-C during these few seconds of start-up is ignored)
+                self.cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                            dashboard_address=None, silence_logs=logging.ERROR)
             self.client = Client(self.cluster)
         self.workers = len(self.client.scheduler_info().get("workers", {})) or int(workers or 1)
 
@@ -199,8 +206,14 @@ class DaskExecutor(InProcess):
                 ckpt.add(futures[fut], fut.result())
                 bar.step()
         except BaseException:
-            if futures:
-                self.client.cancel(list(futures))
+            import logging
+
+            # interrupted (Ctrl-C) or failed: the run ends here; the libraries' messages about the
+            # cancelled tasks are held back until close() has shut the cluster down
+            logging.disable(logging.CRITICAL)
+            with contextlib.suppress(Exception):
+                if futures:
+                    self.client.cancel(list(futures))
             raise
         finally:
             bar.close()
@@ -211,7 +224,7 @@ class DaskExecutor(InProcess):
         on Ctrl-C: the libraries' log messages are held back while they shut down)."""
         import logging
 
-        previous = logging.root.manager.disable
+        previous = self._logging
         logging.disable(logging.CRITICAL)
         try:
             if self.client is not None:
@@ -222,6 +235,24 @@ class DaskExecutor(InProcess):
             pass
         finally:
             logging.disable(previous)
+
+
+@contextlib.contextmanager
+def _children_ignore_sigint() -> Iterator[None]:
+    """Worker processes started inside inherit an ignored SIGINT: Ctrl-C reaches only this process,
+    which cancels the tasks and closes the cluster (no traceback from every worker). Outside the
+    main thread, where signals cannot be set, nothing changes."""
+    import signal
+
+    try:
+        previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    except ValueError:
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _apply(fn: TaskFn, task: Any, ss: np.random.SeedSequence) -> Any:
