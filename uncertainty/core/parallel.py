@@ -163,6 +163,7 @@ class DaskExecutor(InProcess):
 
         self._logging: int = logging.root.manager.disable  # the level close() restores
         self.retries = int(retries)
+        self._sent: dict[int, tuple[Any, Any]] = {}  # id(task function) -> (it, its scattered future)
         self.cluster = None
         self.client = None
         if scheduler:
@@ -199,7 +200,9 @@ class DaskExecutor(InProcess):
         futures: dict[Any, int] = {}
         try:
             if todo:  # the task function (often holding a study) goes to every worker once, not per task
-                shared = self.client.scatter(fn, broadcast=True, hash=False)
+                if id(fn) not in self._sent:  # kept (with fn, so its id stays unique) until close()
+                    self._sent[id(fn)] = (fn, self.client.scatter(fn, broadcast=True, hash=False))
+                shared = self._sent[id(fn)][1]
                 futures = {self.client.submit(_apply, shared, tasks[i], seeds[i], pure=False,
                                               retries=self.retries): i for i in todo}
             for fut in as_completed(list(futures)):
@@ -226,6 +229,7 @@ class DaskExecutor(InProcess):
 
         previous = self._logging
         logging.disable(logging.CRITICAL)
+        self._sent.clear()
         try:
             if self.client is not None:
                 self.client.close()
@@ -271,15 +275,16 @@ class ChunkedModel:
     def __init__(self, model: Callable[[np.ndarray], np.ndarray], executor: InProcess, *,
                  rows: int = CHUNK_ROWS, label: str = "model runs") -> None:
         self.model, self.executor, self.rows, self.label = model, executor, int(rows), label
+        self.task = _Rows(model)  # one task function for every call (sent to the workers once)
 
     def __call__(self, z: np.ndarray) -> np.ndarray:
         """The model's output (n,) on the rows of ``z`` (n, k), evaluated chunk by chunk."""
         z = np.asarray(z)
         if z.shape[0] <= self.rows:
-            parts = self.executor.map(_Rows(self.model), [z], seed=0, label=self.label)
+            parts = self.executor.map(self.task, [z], seed=0, label=self.label)
         else:
             chunks = [z[i:i + self.rows] for i in range(0, z.shape[0], self.rows)]
-            parts = self.executor.map(_Rows(self.model), chunks, seed=0, label=self.label)
+            parts = self.executor.map(self.task, chunks, seed=0, label=self.label)
         return np.concatenate([np.asarray(p, dtype=float) for p in parts])
 
 
