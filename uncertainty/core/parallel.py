@@ -165,7 +165,7 @@ class DaskExecutor(InProcess):
         self.retries = int(retries)
         self._sent: dict[int, tuple[Any, Any]] = {}  # id(task function) -> (it, its scattered future)
         self.cluster = None
-        self.client = None
+        self.client: Any = None
         if scheduler:
             try:
                 self.client = Client(scheduler, timeout="20s")
