@@ -2,10 +2,25 @@
 
 from __future__ import annotations
 
+import importlib
+import json
+from pathlib import Path
+
 import numpy as np
 import pytest
+import run_fakes
+from click.testing import CliRunner
 
-from uncertainty.core.parallel import InProcess, make_executor, task_seeds
+from uncertainty.analyses.sensitivity import sensitivity
+from uncertainty.app.cli import main
+from uncertainty.core.parallel import ChunkedModel, InProcess, make_executor, task_seeds
+from uncertainty.core.resources import studies_dir
+from uncertainty.core.serialise import to_json
+from uncertainty.study import load_study
+
+# the module itself: the package attribute uncertainty.app.run is the API function
+run_mod = importlib.import_module("uncertainty.app.run")
+DEMO = studies_dir() / "demo.toml"
 
 
 def _draw(task: int, ss: np.random.SeedSequence) -> float:
@@ -63,3 +78,103 @@ def test_one_and_two_dask_workers_give_identical_results() -> None:
         r2 = two.map(_draw, tasks, seed=2024)
     assert r1 == ref
     assert r2 == ref
+
+
+# --------------------------------------------------------------------------------------------
+# Row chunks (sensitivity model runs)
+# --------------------------------------------------------------------------------------------
+
+def _rowwise(z: np.ndarray) -> np.ndarray:
+    return z[:, 0] * 2.0 + z[:, 1] ** 2  # any row-wise function serves
+
+
+def test_chunked_model_splits_rows_in_fixed_chunks_and_keeps_their_order() -> None:
+    z = np.random.default_rng(5).standard_normal((1000, 2))
+    seen: list[int] = []
+
+    def model(chunk: np.ndarray) -> np.ndarray:
+        seen.append(chunk.shape[0])
+        return _rowwise(chunk)
+
+    out = ChunkedModel(model, InProcess(), rows=300)(z)
+    assert seen == [300, 300, 300, 100]  # the split is fixed by the row count, not by any worker count
+    assert np.array_equal(out, _rowwise(z))
+
+
+def test_sensitivity_through_an_executor_gives_the_default_numbers() -> None:
+    study = load_study(DEMO)
+    kw = {"method": "shapley", "samples": 128, "seed": 5}
+    ref = to_json(sensitivity(study, **kw).to_dict())
+    assert to_json(sensitivity(study, executor=InProcess(), **kw).to_dict()) == ref
+
+
+@pytest.mark.slow
+def test_sensitivity_on_one_and_two_workers_gives_the_in_process_numbers() -> None:
+    study = load_study(DEMO)
+    kw = {"method": "shapley", "samples": 128, "seed": 5}
+    ref = to_json(sensitivity(study, **kw).to_dict())
+    for n in (1, 2):
+        with make_executor(workers=n) as ex:
+            assert to_json(sensitivity(study, executor=ex, **kw).to_dict()) == ref
+
+
+# --------------------------------------------------------------------------------------------
+# `fluidshift run` over several studies (stand-in analyses, tests/run_fakes.py)
+# --------------------------------------------------------------------------------------------
+
+@pytest.fixture
+def fakes(monkeypatch):
+    monkeypatch.setattr(run_mod, "LOADER", run_fakes.load_fake)
+    monkeypatch.setattr(run_mod, "ANALYSES", {**run_mod.ANALYSES, **run_fakes.FAKES})
+    run_fakes.CALLS.clear()
+
+
+def _studies(folder: Path, *names: str) -> list[Path]:
+    paths = []
+    for name in names:
+        p = folder / f"{name}.toml"
+        p.write_text(run_fakes.STUDY_TEXT)
+        paths.append(p)
+    return paths
+
+
+def _numbers(doc: dict) -> dict:
+    return {n: r["result"] for n, r in doc["sections"].items()}
+
+
+def test_run_over_several_studies_gives_the_one_by_one_numbers(fakes, tmp_path) -> None:
+    a, b = _studies(tmp_path, "a", "b")
+    res = CliRunner().invoke(main, ["run", str(a), str(b), "--out", str(tmp_path / "many"), "--json", "--seed", "4"])
+    assert res.exit_code == 0, res.output
+    runs = json.loads(res.stdout)["runs"]
+    assert [Path(r["study"]["path"]).name for r in runs] == ["a.toml", "b.toml"]
+    assert (tmp_path / "many" / "a" / "report.html").is_file()
+    alone = run_mod.run(b, tmp_path / "alone", progress=False, seed=4)  # the second study, run on its own
+    assert _numbers(runs[1]) == _numbers(alone.doc) and _numbers(runs[0]) == _numbers(runs[1])
+
+
+def test_run_over_several_studies_checks_every_file_first(fakes, tmp_path) -> None:
+    a, = _studies(tmp_path, "a")
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[study\n")
+    res = CliRunner().invoke(main, ["run", str(a), str(bad), "--out", str(tmp_path / "many")])
+    assert res.exit_code == 2 and "Traceback" not in res.output
+    assert len(res.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "many").exists() and run_fakes.CALLS == []  # nothing ran, nothing written
+
+
+def test_run_over_studies_with_the_same_name_is_refused(fakes, tmp_path) -> None:
+    (tmp_path / "x").mkdir()
+    a, = _studies(tmp_path, "a")
+    b, = _studies(tmp_path / "x", "a")
+    res = CliRunner().invoke(main, ["run", str(a), str(b), "--out", str(tmp_path / "many")])
+    assert res.exit_code == 2 and "same name" in res.stderr
+
+
+def test_a_failing_study_keeps_the_others_and_sets_the_exit_status(fakes, tmp_path) -> None:
+    a, b = _studies(tmp_path, "a", "b")
+    b.write_text(run_fakes.STUDY_TEXT + "fail_gate = true\n")
+    res = CliRunner().invoke(main, ["run", str(a), str(b), "--out", str(tmp_path / "many")])
+    assert res.exit_code == 3 and "b.toml" in res.stderr
+    assert (tmp_path / "many" / "a" / "report.html").is_file()
+    assert (tmp_path / "many" / "b" / "report.html").is_file()

@@ -31,6 +31,7 @@ from uncertainty.app.bundle import REPORT, SCHEMA, Bundle, FileRecord, sha256_fi
 from uncertainty.app.report import summary_lines, write_report
 from uncertainty.app.section_checks import check_sections
 from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError
+from uncertainty.core.parallel import InProcess
 from uncertainty.core.provenance import code_hash, package_version, versions
 from uncertainty.core.serialise import jsonable
 from uncertainty.priors import prior_rows as declared_rows
@@ -481,3 +482,93 @@ def _remove_stale(prev: dict[str, Any] | None, doc: dict[str, Any], bundle: Bund
         for f in rec.get("files", []):
             if f["path"] not in keep:
                 bundle.remove(f["path"])
+
+
+# --------------------------------------------------------------------------------------------
+# Several studies at once (one study per task of an executor)
+# --------------------------------------------------------------------------------------------
+
+class _StudyTask:
+    """Picklable task function: one whole-study :func:`run` (on a worker), its outcome as plain data.
+
+    The seed argument of the executor is not used: a study's numbers come from its own seed (or the
+    ``seed`` override), never from the worker or the task's position."""
+
+    def __init__(self, force: bool, seed: int | None) -> None:
+        self.force, self.seed = force, seed
+
+    def __call__(self, task: tuple[str, str], ss: Any) -> dict[str, Any]:
+        study_path, out_dir = task
+        try:
+            res = run(study_path, out_dir, force=self.force, progress=False, seed=self.seed)
+        except FluidshiftError as exc:
+            partial = getattr(exc, "result", None)
+            return {"doc": getattr(partial, "doc", None), "out": out_dir, "error": str(exc),
+                    "exit_code": exc.exit_code}
+        return {"doc": res.doc, "out": out_dir, "error": None, "exit_code": 0}
+
+
+def run_many(study_paths: list[str | os.PathLike], out_dirs: list[str | os.PathLike], force: bool = False,
+             progress: bool = True, seed: int | None = None, executor: Any = None) -> list[RunResult]:
+    """Run several studies, one study per task of ``executor``; each writes its own bundle.
+
+    Parameters
+    ----------
+    study_paths : list of path
+        Study files (on a file system every worker sees; passed to the workers as absolute paths).
+    out_dirs : list of path
+        One bundle folder per study, all different.
+    force : bool
+        Recompute every section (as :func:`run`).
+    progress : bool
+        A progress bar of studies done on stderr.
+    seed : int or None
+        Overrides every study's seed.
+    executor : InProcess or DaskExecutor or None
+        From :func:`uncertainty.core.parallel.make_executor`; default in-process, one study after another.
+
+    Returns
+    -------
+    list of RunResult
+        In the order of ``study_paths``; the numbers are those of running each study on its own.
+
+    Raises
+    ------
+    StudyError, InputError
+        (exit 2) A study file is invalid or two studies share a bundle folder: before any work.
+    FluidshiftError, QualityGateError
+        After every study ran and wrote its bundle, when one failed: the first failure (in the
+        order given), naming its study; ``.results`` holds every study's RunResult or None.
+    """
+    paths = [Path(p).resolve() for p in study_paths]
+    outs = [Path(o).resolve() for o in out_dirs]
+    if len(paths) != len(outs):
+        raise InputError("one bundle folder per study is needed", key="--out", value=len(outs))
+    seen: dict[Path, Path] = {}
+    for p, o in zip(paths, outs, strict=True):
+        if o in seen:
+            raise InputError(f"two studies ({seen[o].name}, {p.name}) would write the same bundle folder",
+                             key="--out", value=str(o))
+        seen[o] = p
+    for p in paths:  # every study file is checked before any work starts (exit 2, nothing written)
+        LOADER(p)
+    executor = executor if executor is not None else InProcess(progress=progress)
+    tasks = [(str(p), str(o)) for p, o in zip(paths, outs, strict=True)]
+    outcomes = executor.map(_StudyTask(force, seed), tasks, seed=0, label="studies")
+    results: list[RunResult | None] = [None if o["doc"] is None else RunResult(doc=o["doc"], out_dir=Path(o["out"]))
+                                       for o in outcomes]
+    failed = [(p, o) for p, o in zip(study_paths, outcomes, strict=True) if o["error"] is not None]
+    if failed:
+        p, o = failed[0]
+        more = f" ({len(failed) - 1} more failed)" if len(failed) > 1 else ""
+        message = f"{p}: {o['error']}{more}"
+        err: FluidshiftError
+        if o["exit_code"] == QualityGateError.exit_code:
+            err = QualityGateError(message, result=results)
+        elif o["exit_code"] == InputError.exit_code:
+            err = InputError(message)
+        else:
+            err = FluidshiftError(message)
+        err.results = results  # type: ignore[attr-defined]
+        raise err
+    return [r for r in results if r is not None]

@@ -26,7 +26,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -43,6 +43,7 @@ from uncertainty.analyses.sampling import (
 )
 from uncertainty.analyses.sensitivity.result import SensitivityResult
 from uncertainty.core.errors import InputError
+from uncertainty.core.parallel import ChunkedModel, InProcess
 from uncertainty.forms.catalogue import output_unit
 
 METHODS = ("sobol", "morris", "shapley")
@@ -719,7 +720,8 @@ def _file(study: Any) -> str | None:
 
 def sensitivity(study: Any, method: str | None = None, samples: int | None = None, output: str | None = None,
                 seed: int | None = None, *, layer: str | None = None, second_order: bool | None = None,
-                evaluate: Callable | None = None, replicates: int = REPLICATES) -> SensitivityResult:
+                evaluate: Callable | None = None, replicates: int = REPLICATES,
+                executor: Any = None) -> SensitivityResult:
     """Global sensitivity of one study output (default Jv) to the study's quantities.
 
     Arguments override the study's ``[sensitivity]`` section (``method``, ``samples``, ``output``,
@@ -727,6 +729,9 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
     study correlates inputs (with a note). Sobol' or Morris on correlated inputs refuse
     (InputError, exit 2). ``layer`` ``individual`` (default) treats each quantity's typical and
     between-subject parts as one factor; ``typical`` uses the typical-subject uncertainty only.
+    ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): the model runs go through it
+    in row chunks of a fixed size (the samples are drawn here and the split never depends on the
+    executor, so the numbers are identical in-process and on any number of workers).
     """
     sec = section_settings(study, "sensitivity")
     method = method or sec.get("method")
@@ -738,6 +743,9 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
         raise InputError("layer must be individual or typical", file=_file(study), key="sensitivity.layer",
                          value=layer)
     problem = problem_from_study(study, output=output, layer=layer, evaluate=evaluate)
+    # model runs in fixed row chunks through the executor (also in-process: a matrix product's last
+    # bits depend on the rows it is given, so every executor sees the same chunks)
+    problem = replace(problem, model=ChunkedModel(problem.model, executor or InProcess(), label="sensitivity"))
     notes = []
     if method is None:
         method = "sobol" if problem.independent() else "shapley"

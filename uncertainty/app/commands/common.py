@@ -23,6 +23,16 @@ from uncertainty.core.serialise import to_json
 
 def study_options(func: Callable) -> Callable:
     """Add the options every analysis command takes: STUDY, --seed, --json, --out, --quiet, --verbose."""
+    # any path: the study reader says in one line what is wrong with a folder, a FIFO or a missing file
+    return click.argument("study", type=click.Path())(_shared_options(func))
+
+
+def studies_options(func: Callable) -> Callable:
+    """As :func:`study_options`, with one or more study files (STUDY..., a tuple ``studies``)."""
+    return click.argument("studies", nargs=-1, required=True, type=click.Path())(_shared_options(func))
+
+
+def _shared_options(func: Callable) -> Callable:
     func = click.option("--verbose", is_flag=True,
                         help="Show the libraries' own messages (PyMC, PyTensor warnings), hidden by default.")(func)
     func = click.option("--quiet", is_flag=True, help="Print nothing but errors (and JSON with --json).")(func)
@@ -31,7 +41,6 @@ def study_options(func: Callable) -> Callable:
     func = click.option("--json", "as_json", is_flag=True,
                         help="Print one JSON document on stdout and nothing else.")(func)
     func = click.option("--seed", type=int, default=None, help="Override the study's seed.")(func)
-    func = click.argument("study", type=click.Path())(func)  # the reader says what is wrong with it
     return func
 
 

@@ -1,0 +1,140 @@
+"""Ratio benchmark for the executor (printed, not asserted).
+
+[1] Sensitivity (Sobol', N = 16384, the six-quantity classic study) with its model runs in row chunks
+    on a local dask cluster: time on 1 worker / time on 2 workers. Target: at least 1.7x.
+[2] `fluidshift run` over four small studies (propagate and Sobol' sensitivity each), one study per
+    task: time on 1 worker / time on 2 workers. Target: at least 1.6x.
+[3] Executor overhead for a small in-process propagate (4096 draws): propagate wrapped in one task of
+    the in-process executor against propagate called directly. Target: below 5 %.
+
+The clusters are started before the clock runs and warmed with one untimed pass; ratios need a machine
+with at least two free cores (on a shared machine they fall towards 1).
+
+Run: python benchmarks/benchmark_executor.py
+"""
+
+from __future__ import annotations
+
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+STUDY = """# INVENTED benchmark study: invented numbers, no real subject.
+[study]
+title = "executor benchmark {i} (invented)"
+tissue = "skeletal_muscle"
+model = "classic"
+seed = {i}
+
+[parameters]
+{params}
+
+[propagate]
+samples = 4096
+
+[sensitivity]
+method = "sobol"
+samples = 4096
+"""
+
+
+def _best(f, repeat: int = 3) -> float:
+    times = []
+    for _ in range(repeat):
+        t = time.perf_counter()
+        f()
+        times.append(time.perf_counter() - t)
+    return min(times)
+
+
+def _params_toml() -> str:
+    from benchmark_propagate import SIX
+
+    def value(v: object) -> str:
+        if isinstance(v, dict):
+            return "{ " + ", ".join(f"{k} = {value(x)}" for k, x in v.items()) + " }"
+        if isinstance(v, str):
+            return f'"{v}"'
+        if isinstance(v, list):
+            return "[" + ", ".join(value(x) for x in v) + "]"
+        return repr(v)
+
+    return "\n".join(f"{name} = {value(decl)}" for name, decl in SIX.items())
+
+
+def sensitivity_ratio() -> float:
+    from benchmark_propagate import study
+
+    from uncertainty.analyses.sensitivity import sensitivity
+    from uncertainty.core.parallel import make_executor
+
+    s = study()
+    times = {}
+    for n in (1, 2):
+        with make_executor(workers=n) as ex:
+            def go(ex=ex) -> None:
+                sensitivity(s, method="sobol", samples=16384, layer="typical", seed=1, executor=ex)
+
+            go()  # warm: the workers import the package and receive the study
+            times[n] = _best(go, 2)
+    ratio = times[1] / times[2]
+    print(f"[1] sensitivity Sobol' N=16384 in row chunks: 1 worker {times[1]:.2f} s, 2 workers {times[2]:.2f} s"
+          f" -> {ratio:.2f}x (target >= 1.7x)")
+    return ratio
+
+
+def run_ratio() -> float:
+    from uncertainty.app.run import run_many
+    from uncertainty.core.parallel import make_executor
+
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        params = _params_toml()
+        studies = []
+        for i in range(4):
+            p = folder / f"study{i}.toml"
+            p.write_text(STUDY.format(i=i + 1, params=params))
+            studies.append(p)
+        times = {}
+        for n in (1, 2):
+            outs = [folder / f"w{n}" / p.stem for p in studies]
+            with make_executor(workers=n) as ex:
+                run_many(studies, outs, force=True, progress=False, executor=ex)  # warm
+                times[n] = _best(lambda ex=ex, outs=outs: run_many(studies, outs, force=True, progress=False,
+                                                                   executor=ex), repeat=1)
+    ratio = times[1] / times[2]
+    print(f"[2] run over four studies: 1 worker {times[1]:.2f} s, 2 workers {times[2]:.2f} s -> {ratio:.2f}x"
+          " (target >= 1.6x)")
+    return ratio
+
+
+def overhead() -> float:
+    from benchmark_propagate import study
+
+    from uncertainty.analyses.propagate import propagate
+    from uncertainty.core.parallel import InProcess
+
+    s = study()
+
+    def direct() -> None:
+        propagate(s, samples=4096, seed=1)
+
+    def through() -> None:
+        InProcess().map(lambda task, ss: propagate(s, samples=4096, seed=1), [None], seed=1)
+
+    direct()
+    through()
+    t_direct, t_through = _best(direct, 7), _best(through, 7)
+    share = t_through / t_direct - 1
+    print(f"[3] small propagate (4096 draws): direct {t_direct * 1e3:.1f} ms, through the in-process executor "
+          f"{t_through * 1e3:.1f} ms -> overhead {100 * share:+.1f} % (target < 5 %)")
+    return share
+
+
+if __name__ == "__main__":
+    overhead()
+    sensitivity_ratio()
+    run_ratio()
