@@ -12,6 +12,7 @@ partners (a full first-order index).
 from __future__ import annotations
 
 import math
+import warnings
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -129,8 +130,8 @@ def threshold_probability(y: np.ndarray, direction: str, t: float, replicates: i
     blocks = np.split(ind, replicates)
     finite = np.isfinite(ind)
     p = float(np.nanmean(ind)) if finite.any() else float("nan")
-    with np.errstate(invalid="ignore"), np.testing.suppress_warnings() as sup:
-        sup.filter(RuntimeWarning)
+    with warnings.catch_warnings():  # a replicate with no finite draw gives NaN, said by n / nan_draws
+        warnings.simplefilter("ignore", RuntimeWarning)
         per = np.array([np.nanmean(b) for b in blocks])
         se = float(np.nanstd(per, ddof=1) / math.sqrt(replicates))
     sens: dict[str, dict[str, float]] = {}
