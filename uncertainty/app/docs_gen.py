@@ -31,6 +31,13 @@ SECTIONS: list[tuple[str, str, str, str]] = [
     ("propagate", "[propagate]", "PropagateSection",
      "Forward uncertainty: the distribution of Jv and other outputs, for the study's individual and for the "
      "typical subject. Its Monte Carlo error comes from independent randomised replicates."),
+    ("propagate.thresholds", "thresholds = [{ ... }]", "Threshold",
+     "A threshold question: P(output above or below a value), e.g. `{ output = \"oedema_volume\", above = \"50 "
+     "mL\" }` (a whole-organ value needs `[study] tissue_mass`) or `{ output = \"Jv\", below = 0 }` (absorption). "
+     "Answered for the individual and the typical subject, with the Monte Carlo standard error from the "
+     "replicates and, for each input, its first-order share of the variance of the event's indicator "
+     "(given-data estimate on the same draws), in the terminal table, results.json (`thresholds`) and the "
+     "report."),
     ("sensitivity", "[sensitivity]", "SensitivitySection",
      "Global sensitivity of one output to the uncertain inputs, with confidence intervals and a ranking."),
     ("observations", "[[observations]]", "Observation",

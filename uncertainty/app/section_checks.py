@@ -12,15 +12,21 @@ from typing import Any
 
 from uncertainty.analyses.design import parse_design
 from uncertainty.analyses.propagate import starting_samples
+from uncertainty.analyses.propagate.thresholds import threshold_specs
 from uncertainty.analyses.rank import candidates_of
 from uncertainty.core.errors import InputError
+from uncertainty.forms.catalogue import study_outputs
 
 
 def check_propagate(study: Any) -> None:
     """Raise InputError when ``[propagate]`` max_samples lies below the sample size propagation starts
-    from (``samples`` rounded up to a power of two per replicate for qmc, at least 128 a replicate)."""
+    from (``samples`` rounded up to a power of two per replicate for qmc, at least 128 a replicate), or a
+    threshold names an output the model lacks or a whole-organ value without a tissue mass."""
     sec = getattr(study, "propagate", None)
-    if sec is None or sec.max_samples is None:
+    if sec is None:
+        return
+    threshold_specs(study, study_outputs(study))
+    if sec.max_samples is None:
         return
     start = starting_samples(sec.samples, sec.method, sec.replicates)
     if sec.max_samples < start:

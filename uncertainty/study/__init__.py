@@ -58,6 +58,7 @@ from uncertainty.study.schema import (  # noqa: F401
     Spread,
     StepSpec,
     StudySection,
+    Threshold,
     TimeColumn,
     TimelineSection,
 )

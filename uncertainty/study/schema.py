@@ -18,10 +18,12 @@ from pydantic import (
     model_validator,
 )
 
-from uncertainty.forms.catalogue import MODEL_FORMS
+from uncertainty.core.errors import UnitError
+from uncertainty.forms.catalogue import MODEL_FORMS, OUTPUT_UNITS
 from uncertainty.priors import (
     Prior,
 )
+from uncertainty.study.thresholds import threshold_in_unit
 
 #: Longest text a study key may hold (characters): titles and descriptions are a few hundred
 #: (common practice: an absurdity bound); names have their own, shorter bound (:data:`MAX_NAME`).
@@ -66,6 +68,43 @@ class CorrelationsSection(BaseModel):
     pairs: list[list[str | float]] = Field(default_factory=list)
 
 
+class Threshold(BaseModel):
+    """One threshold question: ``{ output = "Jv", above = "0.02 mL/min/100g" }`` (or ``below =``)."""
+
+    model_config = STRICT_CONFIG
+    output: str = Field(description="the output asked about (an output name of the model form)")
+    above: float | str | None = Field(default=None, description=(
+        "P(output > above): a number in the output's canonical unit or a string with a unit"))
+    below: float | str | None = Field(default=None, description=(
+        "P(output < below): a number in the output's canonical unit or a string with a unit"))
+
+    @field_validator("output")
+    @classmethod
+    def _known(cls, v: str) -> str:
+        if v not in OUTPUT_UNITS:
+            raise ValueError(f"no such output; outputs are {', '.join(sorted(OUTPUT_UNITS))}")
+        return v
+
+    @field_validator("above", "below")
+    @classmethod
+    def _value(cls, v: float | str | None, info: ValidationInfo) -> float | str | None:
+        # a whole-organ value is converted with the study's tissue_mass when propagate runs; here the
+        # number and the unit's dimension are checked (1 kg stands in for the mass)
+        output = info.data.get("output")
+        if v is not None and output is not None:
+            try:
+                threshold_in_unit(output, v, tissue_mass_kg=1.0, key=info.field_name or "value")
+            except UnitError as exc:
+                raise ValueError(exc.reason) from None
+        return v
+
+    @model_validator(mode="after")
+    def _one_side(self) -> Threshold:
+        if (self.above is None) == (self.below is None):
+            raise ValueError("give exactly one of `above` and `below`")
+        return self
+
+
 class PropagateSection(BaseModel):
     """``[propagate]``: forward uncertainty; every key is optional (``uncertainty.analyses.propagate`` defaults)."""
 
@@ -83,6 +122,10 @@ class PropagateSection(BaseModel):
         "(output units)"))
     max_samples: int | None = Field(default=None, gt=0, le=2**26, description=(
         "with tol: the largest sample; reaching it first exits 3"))
+    thresholds: list[Threshold] = Field(default_factory=list, description=(
+        "threshold questions, e.g. [{ output = \"Jv\", above = \"0.02 mL/min/100g\" }]: P(output above or below "
+        "the value) per layer with its Monte Carlo error and each input's first-order share of the indicator's "
+        "variance"))
 
     @field_validator("max_samples")
     @classmethod

@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.propagate.result import PropagateResult, Summary
+from uncertainty.analyses.propagate.thresholds import pooled_order, threshold_results, threshold_specs
 from uncertainty.analyses.propagate.timeline import timeline as whole_body_timeline
 from uncertainty.analyses.sampling import (
     METHODS,
@@ -385,6 +386,8 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
                              f"{', '.join(have)}", file=_file(study), key="propagate.outputs", value=o)
     if "Jv" in have and "Jv" not in outputs:
         outputs.append("Jv")  # P(absorption) always reported
+    specs = threshold_specs(study, have)
+    outputs += [o for o in dict.fromkeys(s["output"] for s in specs) if o not in outputs]
     d = len(study.names)
     k = len(cube_columns(study, "individual"))
     has_bs = k > d
@@ -392,14 +395,29 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     form = getattr(study, "model", None)
     note_keys = note_outputs(form)  # outputs whose draws the form's notes read
     kept: list[dict[str, np.ndarray]] = []  # individual draws the form's notes read (output_notes)
+    players = {layer: list(dict.fromkeys(s for s, _ in cube_columns(study, layer))) for layer in ("individual",
+                                                                                               "typical")}
+    kept_inputs: list[dict[str, dict[str, np.ndarray]]] = []  # input draws of the threshold drivers
 
     def sample_layers(u: np.ndarray) -> dict[str, dict[str, np.ndarray]]:
-        typ = evaluate(study, from_cube(study, u[:, :d], "typical"))
-        ind = evaluate(study, from_cube(study, u, "individual")) if has_bs else typ
+        typ_values = from_cube(study, u[:, :d], "typical")
+        ind_values = from_cube(study, u, "individual") if has_bs else typ_values
+        typ = evaluate(study, typ_values)
+        ind = evaluate(study, ind_values) if has_bs else typ
+        if specs:
+            kept_inputs.append({layer: {s: np.broadcast_to(np.asarray(vals[s], dtype=float), (u.shape[0],))
+                                        for s in players[layer]}
+                                for layer, vals in (("individual", ind_values), ("typical", typ_values))})
         if note_keys and all(key in ind for key in note_keys):
             kept.append({key: np.broadcast_to(np.asarray(ind[key], dtype=float), (u.shape[0],))
                          for key in note_keys})
         return {"individual": ind, "typical": typ}
+
+    def add_thresholds(res: PropagateResult) -> None:
+        if specs and kept_inputs:
+            inputs = {layer: {s: pooled_order([b[layer][s] for b in kept_inputs], res.replicates)
+                              for s in players[layer]} for layer in ("individual", "typical")}
+            res.thresholds = threshold_results(specs, res.draws, inputs, res.replicates)
 
     def add_form_notes(res: PropagateResult) -> None:
         if kept:
@@ -414,6 +432,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         if exc.result is not None:
             exc.result.study = study_meta(study)
             add_form_notes(exc.result)
+            add_thresholds(exc.result)
             flag_implausible_flux(exc.result, getattr(study, "tissue_mass_kg", None), form)
         raise
     except InputError as exc:
@@ -422,6 +441,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         raise
     result.study = study_meta(study)
     add_form_notes(result)
+    add_thresholds(result)
     flag_implausible_flux(result, getattr(study, "tissue_mass_kg", None), form)
     if getattr(study, "timeline", None) is not None:  # whole_body form: time courses after the interventions
         result.timeline = whole_body_timeline(study, seed)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.propagate.thresholds import threshold_html
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import fmt, interval
 from uncertainty.core.html import escape, kv_table, table
@@ -65,6 +66,7 @@ def section_html(res: dict[str, Any]) -> str:
     tl = res.get("timeline")
     if isinstance(tl, dict):
         parts.append(timeline_html(tl))
+    parts.append(threshold_html(res.get("thresholds") or []))
     return "".join(parts)
 
 

@@ -68,6 +68,7 @@ class PropagateResult(Result):
     history: list[dict[str, Any]] = field(default_factory=list)
     study: dict[str, Any] = field(default_factory=dict)
     timeline: dict[str, Any] | None = None  # whole_body form: time courses (analyses.propagate.timeline)
+    thresholds: list[dict[str, Any]] = field(default_factory=list)
 
     table_file: ClassVar[str] = "propagate_summary.csv"
     table_index: ClassVar[bool] = True
@@ -101,6 +102,8 @@ class PropagateResult(Result):
         })
         if self.timeline is not None:
             doc["timeline"] = self.timeline
+        if self.thresholds:  # threshold questions ([propagate] thresholds), only when asked
+            doc["thresholds"] = self.thresholds
         return doc
 
     def to_dataframe(self) -> Any:
@@ -180,4 +183,4 @@ class PropagateResult(Result):
                    outputs=outputs, units=dict(doc["units"]), summaries=summaries, draws={},
                    notes=list(doc["notes"]), warnings=list(doc["warnings"]), flags=list(doc["flags"]), tol=doc["tol"],
                    converged=doc["converged"], history=list(doc["history"]), study=dict(doc["study"]),
-                   timeline=doc.get("timeline"))
+                   timeline=doc.get("timeline"), thresholds=list(doc.get("thresholds") or []))

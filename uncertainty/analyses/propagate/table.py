@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from uncertainty.analyses.propagate.thresholds import threshold_lines
+
 
 def _fmt(x: float) -> str:
     return "nan" if x != x else f"{x:.4g}"
@@ -40,6 +42,7 @@ def table(doc: dict[str, Any]) -> str:
         lines.append("")
         lines.append(f"P(absorption, Jv < 0): individual {_fmt(ind['p_negative'])} "
                      f"(MC se {_fmt(doc['p_absorption_mc_se'])}), typical subject {_fmt(typ['p_negative'])}")
+    lines += threshold_lines(doc.get("thresholds") or [])
     lines.append(f"{doc['samples']} draws, method {doc['method']}, {doc['replicates']} independent "
                  f"replicates, seed {doc['seed']}")
     for n in doc["notes"]:
