@@ -237,6 +237,15 @@ class Observation(BaseModel):
     _data: dict[str, list] | None = PrivateAttr(default=None)
     _path: Path | None = PrivateAttr(default=None)
 
+    @field_validator("declared_unit")
+    @classmethod
+    def _declared_unit_is_the_loaders(cls, v: str | None) -> str | None:
+        # the loader records the unit as written here after converting value and sd; written in a study
+        # file it would mark a reading as converted when it is not
+        if v is not None:
+            raise ValueError("declared_unit is set by the loader, not in a study file: give the unit as unit = ...")
+        return v
+
     @field_validator("cv")
     @classmethod
     def _cv_needs_positive_value(cls, v: float | None, info: ValidationInfo) -> float | None:
