@@ -310,17 +310,21 @@ def initial_state(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Arr
 class _Prepared:
     """What :func:`fluxes` needs that does not change over time, computed once per simulation.
 
-    Per bed: the curve constants (C_tis, C_high - C_tis, P_break, the softplus terms of the resting and lymph
-    reference pressures), L / C_tis, the bed mass; for the body: Vp0 + Vrbc0 and C_vasc (1 + r). The tissue
-    curve is that of ``interstitium.smooth_tissue_volume`` / ``tissue_compliance`` / ``volume_lymph_flow``
-    (softplus and logistic in the same expressions, so numbers agree to the last bit); the softplus of the
-    current pressure is computed once and shared by the volume and the lymph flow.
+    The tissue curve is that of ``interstitium.smooth_tissue_volume`` / ``tissue_compliance`` /
+    ``volume_lymph_flow`` with its terms regrouped per bed so that each stage costs one softplus and no
+    constant work: z = (Pi - P_break)/w; the bed's interstitial volume above rest
+    Vx = m C Pi + m (C_high - C) w sp(z) - [m C Pi0 + m (C_high - C) w sp(z0)]; the lymph drive
+    u = L Pi + (L/C)(C_high - C) w sp(z) - [L Pi_L0 + (L/C)(C_high - C) w sp(zL)] (mL/min per 100 g; with JL_max,
+    JL = m JL_max tanh(u / JL_max), else m u); the bed compliance m C + m (C_high - C) logistic(z), the
+    logistic sharing the softplus's exponential. Filtration and protein flux take the bed's Kf and PS
+    times its mass (the Peclet number is unchanged). Same quantities as the physiology functions, regrouped
+    (agreement to rounding, checked against the stored reference in the tests).
     """
 
     def __init__(self, body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
                  rest: Mapping[str, Array], xp: Any) -> None:
         w = BREAK_WIDTH
-        self.body = body
+        self.xp = xp
         self.Vp0, self.Vrbc0 = body["Vp0"], body["Vrbc0"]
         self.Vb0 = body["Vp0"] + body["Vrbc0"]
         self.vasc = body["C_vasc"] * (1.0 + body["r"])
@@ -328,13 +332,21 @@ class _Prepared:
         self.beds: list[tuple[str, dict[str, Array]]] = []
         for name, b in beds.items():
             C, Ch, Pb = _bed_curve(b)
+            m, L, jmax = b["m"], b["L"], b.get("JL_max")
             Pi0 = rest[f"Pi0_{name}"]
-            dC = Ch - C
+            dCw = (Ch - C) * w
+            sp0 = _softplus((Pi0 - Pb) / w, xp)
+            spL = _softplus((b["Pi_L0"] - Pb) / w, xp)
+            lv = (L / C) * dCw  # lymph drive per unit softplus
+            lin = (L, lv, L * b["Pi_L0"] + lv * spL) if jmax is None else (
+                L / jmax, lv / jmax, (L * b["Pi_L0"] + lv * spL) / jmax)
             self.beds.append((name, {
-                "m": b["m"], "Vi0": b["Vi0"], "Kf": b["Kf"], "Pc": b["Pc"], "sigma": b["sigma"], "PS": b["PS"],
-                "C": C, "dC": dC, "Pb": Pb, "Pi0": Pi0, "Pi_L0": b["Pi_L0"], "L_over_C": b["L"] / C,
-                "JL_max": b.get("JL_max"),
-                "sp0": _softplus((Pi0 - Pb) / w, xp), "spL": _softplus((b["Pi_L0"] - Pb) / w, xp)}))
+                "Pb": Pb, "inv_w": 1.0 / w,
+                "vC": m * C, "vS": m * dCw, "v0": m * C * Pi0 + m * dCw * sp0, "Vi0": b["Vi0"],
+                "lP": lin[0], "lS": lin[1], "l0": lin[2], "lm": m if jmax is None else m * jmax,
+                "sat": jmax is not None,
+                "cS": m * (Ch - C),
+                "mKf": m * b["Kf"], "mPS": m * b["PS"], "Pc": b["Pc"], "sigma": b["sigma"]}))
 
 
 def _softplus(x: Array, xp: Any) -> Array:
@@ -342,37 +354,41 @@ def _softplus(x: Array, xp: Any) -> Array:
     return xp.maximum(x, 0.0) + xp.log1p(xp.exp(-xp.abs(x)))
 
 
+def _softplus_and_logistic(x: Array, xp: Any) -> tuple[Array, Array]:
+    """log(1 + e^x) and 1 / (1 + e^-x) from one exponential e^-|x| (no overflow; numpy and PyTensor)."""
+    e = xp.exp(-xp.abs(x))
+    r = 1.0 / (1.0 + e)
+    return xp.maximum(x, 0.0) + xp.log1p(e), xp.where(x >= 0, r, e * r)
+
+
 def _fluxes(state: Mapping[str, Array], p: _Prepared, xp: Any, renal_scale: Array = 1.0,
             compliance: bool = True) -> dict[str, Array]:
     """:func:`fluxes` on prepared constants (``renal_scale`` multiplies k_r; without ``compliance`` the
     per-bed compliance ``C_<bed>`` is left out, as :func:`report` does not need it)."""
-    w = BREAK_WIDTH
     Vp, Qp = state["Vp"], state["Qp"]
     Cp = 100.0 * Qp / Vp
     pi_c = pi_cubic(Cp, "total")
-    dVb = Vp + state["Vrbc"] - p.Vp0 - p.Vrbc0
+    dVb = Vp + state["Vrbc"] - p.Vb0
     dPc = dVb / p.vasc  # dPv = dVb / C_vasc, dPc = dPv / (1 + r)
     dil = (Vp - p.Vp0) / p.Vp0
     out: dict[str, Array] = {"Cp": Cp, "urine": xp.maximum(p.u_basal + p.k_r * renal_scale * dil, 0.0)}
     for name, b in p.beds:
-        Pi, Qi, m, C, dC = state[f"Pi_{name}"], state[f"Qi_{name}"], b["m"], b["C"], b["dC"]
-        z = (Pi - b["Pb"]) / w
-        sp = _softplus(z, xp)
-        Vx = m * (C * (Pi - b["Pi0"]) + dC * (w * (sp - b["sp0"])))  # smooth_tissue_volume
-        Ci = 100.0 * Qi / (b["Vi0"] + Vx)
-        jv = filtration(b["Kf"], b["Pc"] + dPc, Pi, pi_c, pi_cubic(Ci, "total"), b["sigma"])  # per 100 g
-        jl = b["L_over_C"] * (C * (Pi - b["Pi_L0"]) + dC * (w * (sp - b["spL"])))  # volume_lymph_flow
-        if b["JL_max"] is not None:
-            jl = b["JL_max"] * xp.tanh(jl / b["JL_max"])
-        js = protein_flux(jv, b["sigma"], b["PS"], Cp, Ci, xp=xp)  # (g/dL)(mL/min) per 100 g
-        JL = m * jl
-        out[f"Jv_{name}"] = m * jv
+        Pi, Qi = state[f"Pi_{name}"], state[f"Qi_{name}"]
+        dP = Pi - b["Pb"]
+        sp, lg = _softplus_and_logistic(dP * b["inv_w"], xp)
+        Vx = b["vC"] * Pi + b["vS"] * sp - b["v0"]  # smooth_tissue_volume, whole bed (mL)
+        ci = Qi / (b["Vi0"] + Vx)  # g/mL
+        Ci = 100.0 * ci  # g/dL
+        Jv = filtration(b["mKf"], b["Pc"] + dPc, Pi, pi_c, pi_cubic(Ci, "total"), b["sigma"])  # whole bed
+        u = b["lP"] * Pi + b["lS"] * sp - b["l0"]  # volume_lymph_flow's drive (over JL_max when saturating)
+        JL = b["lm"] * (xp.tanh(u) if b["sat"] else u)
+        out[f"Jv_{name}"] = Jv
         out[f"JL_{name}"] = JL
-        out[f"Js_{name}"] = m * js / 100.0
-        out[f"JLs_{name}"] = JL * Ci / 100.0
+        out[f"Js_{name}"] = protein_flux(Jv, b["sigma"], b["mPS"], Cp, Ci, xp=xp) / 100.0  # g/min
+        out[f"JLs_{name}"] = JL * ci
         out[f"Vx_{name}"] = Vx
-        if compliance:  # tissue_compliance: C_tis + (C_high - C_tis) logistic((Pi - P_break)/width)
-            out[f"C_{name}"] = m * (C + dC * (0.5 * (1.0 + xp.tanh(0.5 * z))))
+        if compliance:  # tissue_compliance, whole bed (mL/mmHg)
+            out[f"C_{name}"] = b["vC"] + b["cS"] * lg
     return out
 
 
