@@ -182,6 +182,20 @@ def test_step_rates_deliver_the_volume() -> None:
     assert totals == pytest.approx([1000.0, 50.0, 450.0])
 
 
+def test_renal_clearance_follows_the_fluids_given() -> None:
+    # closed form of the volume-weighted rule: crystalloid alone 1, colloid alone 7.1/133 (Lee et al. 2010 over
+    # Drobin & Hahn 1999), 300 mL crystalloid then 100 mL albumin: (300 x 133 + 100 x 7.1) / (400 x 133)
+    cryst, alb = _dose("crystalloid", 300.0, 30.0), _dose("albumin_20", 100.0, 10.0, start=60.0)
+    assert wb.renal_scale([], 10.0) == 1.0
+    assert wb.renal_scale(cryst, 15.0) == pytest.approx(1.0)
+    assert wb.renal_scale(alb, 65.0) == pytest.approx(7.1 / 133.0)
+    assert wb.renal_scale(cryst + alb, 120.0) == pytest.approx((300.0 * 133.0 + 100.0 * 7.1) / (400.0 * 133.0))
+    assert wb.renal_scale(cryst + _dose("bleed", 450.0, 10.0, start=40.0), 60.0) == pytest.approx(1.0)
+    # the study file's fluid names carry the clearance through to the doses
+    s = Study.from_dict(_doc([{"kind": "infusion", "fluid": "albumin_5", "volume": "500 mL"}]))
+    assert s.interventions[0].clearance == wb.K_R_COLLOID_ML_MIN
+
+
 def test_protein_from_oncotic_inverts_the_cubic() -> None:
     C = np.linspace(0.5, 12.0, 30)
     from uncertainty.physiology.oncotic import pi_cubic
