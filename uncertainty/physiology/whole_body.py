@@ -589,7 +589,7 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
     plan = [(*step_rates(doses, i * dt, dt), renal_scale(doses, (i + 1) * dt)) for i in range(n_steps)]
     given = 0.0
     times = [0.0]
-    f = _fluxes(state, p, xp, plan[0][3] if plan else 1.0)
+    f: dict[str, Array] | None = _fluxes(state, p, xp, plan[0][3] if plan else 1.0)
     series: dict[str, list[Array]] = {k: [v] for k, v in _report(state, given, p, xp, f).items()}
     for i in range(n_steps):
         rates = plan[i]
