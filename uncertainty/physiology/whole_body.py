@@ -11,7 +11,8 @@ State (one value per draw; shape ``(n,)`` arrays or scalars):
 Exchange in each bed uses the steady forms' physiology: Starling filtration (``starling.filtration``) with
 the capillary pressure raised by blood-volume expansion (``capillary``: a venous pressure change dPv gives
 dPc = dPv/(1 + r)); the smooth two-slope pressure-volume curve and volume-driven saturating lymph of the
-safety factors (``interstitium.smooth_tissue_volume``, ``tissue_compliance``, ``volume_lymph_flow``); protein
+safety factors (the curve of ``interstitium.smooth_tissue_volume``, ``tissue_compliance`` and
+``volume_lymph_flow``, evaluated once per stage with its constant terms computed before the step loop); protein
 by convection and diffusion (``solute.protein_flux``, Patlak); oncotic pressures from concentration by the
 Landis-Pappenheimer total-protein cubic (``oncotic.pi_cubic``). Each bed starts in its own safety-factor
 steady state (``balance.safety_steady_state``), so without interventions nothing moves.
@@ -20,8 +21,11 @@ Renal elimination follows volume kinetics (Hahn's one-volume model): the rate of
 plasma dilution (v - V)/V times a clearance constant k_r (mL/min); Svensen C, Hahn RG 1997 (volunteers given
 25 mL/kg Ringer's, abstract read): "the product of plasma dilution and a constant averaging 95 (95% CI
 68-122) ml min-1"; Drobin D, Hahn RG 1999 Anesthesiology 90:81-91 (abstract): k_r 133 (SEM 22) mL/min in
-normovolaemic male volunteers, falling with hypovolaemia. Here urine = max(u_basal + k_r (Vp - Vp0)/Vp0, 0);
-the basal urine is taken as balanced by basal intake, so only the excess leaves the plasma.
+normovolaemic male volunteers, falling with hypovolaemia. Here urine = max(u_basal + k_r s(t) (Vp - Vp0)/Vp0, 0);
+the basal urine is taken as balanced by basal intake, so only the excess leaves the plasma. Each fluid has its
+own clearance constant (crystalloid 133 mL/min, colloids 7.1 mL/min, Lee et al. 2010, see
+:data:`K_R_COLLOID_ML_MIN`); s(t) (:func:`renal_scale`) is the volume-weighted mean of the constants of the
+fluids infused by t relative to the crystalloid's (1 before any infusion and for bleeds).
 
 Units: volumes mL, protein mass g, concentrations g/dL (g per 100 mL), pressures mmHg, flows mL/min, times
 min. Per-bed conductances and compliances are per 100 g of tissue (as in the prior sets) and are scaled by
@@ -40,7 +44,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.physiology.balance import safety_steady_state
-from uncertainty.physiology.interstitium import smooth_tissue_volume, tissue_compliance, volume_lymph_flow
+from uncertainty.physiology.interstitium import BREAK_WIDTH
 from uncertainty.physiology.oncotic import pi_cubic, pi_cubic_slope
 from uncertainty.physiology.solute import protein_flux
 from uncertainty.physiology.starling import filtration
@@ -63,8 +67,19 @@ HAEMATOCRIT = 0.42
 #: measurement of mean circulatory filling pressure).
 VASCULAR_COMPLIANCE_ML_PER_MMHG_PER_KG = 1.5
 
+#: Clearance constant of volume kinetics for a colloid, mL/min: Lee EH, Kim SK, Yeo YG, Choi KT 2010 Korean J
+#: Anesthesiol 58(6):514-520 (abstract, PMC2892583, read through the search tool): elimination rate constant
+#: 7.1 +/- 3.5 mL/min in wakeful volunteers given 500 mL of 6% hydroxyethyl starch over 20 min after donating
+#: 400 mL of blood (19.4 +/- 4.6 under desflurane). A starch value, used for albumin too (no volume-kinetic
+#: clearance constant for albumin found); their fluid space was 7.7 L, larger than the plasma volume whose
+#: dilution it multiplies here, so if anything it overstates the colloid's renal elimination in this model.
+K_R_COLLOID_ML_MIN = 7.1
+
 #: Protein content of the fluids, g/dL (common practice: the labelled concentrations).
 FLUID_PROTEIN_G_PER_DL: dict[str, float] = {"crystalloid": 0.0, "albumin_5": 5.0, "albumin_20": 20.0}
+#: Clearance constant of volume kinetics by fluid, mL/min (origins at K_R_ML_MIN and K_R_COLLOID_ML_MIN).
+FLUID_CLEARANCE_ML_MIN: dict[str, float] = {"crystalloid": K_R_ML_MIN, "albumin_5": K_R_COLLOID_ML_MIN,
+                                            "albumin_20": K_R_COLLOID_ML_MIN}
 
 #: The tissue beds, in order.
 BEDS = ("muscle", "skin")
@@ -84,6 +99,9 @@ class Dose:
         min (duration 0: given within the step that contains ``start``).
     protein : float
         Protein concentration of an infused fluid, g/dL (0 for crystalloid and for bleeds).
+    clearance : float
+        Volume-kinetic clearance constant of an infused fluid, mL/min (:data:`FLUID_CLEARANCE_ML_MIN`;
+        ignored for bleeds).
     """
 
     kind: str
@@ -91,6 +109,70 @@ class Dose:
     start: float
     duration: float
     protein: float = 0.0
+    clearance: float = K_R_ML_MIN
+
+
+def infusion(fluid: str, volume: float, start: float = 0.0, duration: float = 0.0) -> Dose:
+    """An infusion of ``fluid`` (a key of :data:`FLUID_PROTEIN_G_PER_DL`) with its protein and clearance.
+
+    Parameters
+    ----------
+    fluid : str
+        ``crystalloid``, ``albumin_5`` or ``albumin_20``.
+    volume : float
+        mL.
+    start, duration : float
+        min.
+
+    Returns
+    -------
+    Dose
+
+    Raises
+    ------
+    KeyError
+        An unknown fluid (the study schema refuses it first).
+    """
+    return Dose("infusion", volume, start, duration, FLUID_PROTEIN_G_PER_DL[fluid], FLUID_CLEARANCE_ML_MIN[fluid])
+
+
+def delivered(d: Dose, t: float) -> float:
+    """Volume (mL) of the dose ``d`` given by time ``t`` (min), as :func:`step_rates` delivers it."""
+    if d.duration > 0:
+        return d.volume * max(0.0, min(t, d.start + d.duration) - d.start) / d.duration
+    return d.volume if d.start < t else 0.0
+
+
+def renal_scale(doses: Sequence[Dose], t: float) -> float:
+    """Factor (1) on the crystalloid clearance constant ``k_r`` for the fluids infused by time ``t`` (min).
+
+    Each fluid has its own clearance (:data:`FLUID_CLEARANCE_ML_MIN`); a mixed or sequential regimen takes the
+    mean of the clearances of the fluids infused so far, weighted by the volume of each given by ``t``, so a
+    colloid alone is cleared at its own constant, a crystalloid alone at its own, and a crystalloid given after
+    a colloid is cleared more slowly than alone (the direction, not the size, of the interaction reported by
+    Hahn RG and colleagues 2013 Crit Care 17:R104, abstract: Ringer's elimination half-life five times longer
+    after 6% starch). Bleeds do not enter; before any infusion the factor is 1 (the crystalloid constant).
+
+    Parameters
+    ----------
+    doses : sequence of Dose
+        The interventions.
+    t : float
+        Time, min.
+
+    Returns
+    -------
+    float
+        sum_i V_i(t) k_i / (K_R_ML_MIN sum_i V_i(t)) over the infusions, or 1.
+    """
+    vol = weighted = 0.0
+    for d in doses:
+        if d.kind == "bleed":
+            continue
+        v = delivered(d, t)
+        vol += v
+        weighted += v * d.clearance
+    return weighted / (K_R_ML_MIN * vol) if vol > 0 else 1.0
 
 
 def step_rates(doses: Sequence[Dose], t0: float, dt: float) -> tuple[float, float, float]:
@@ -225,70 +307,126 @@ def initial_state(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Arr
     return state, rest
 
 
+class _Prepared:
+    """What :func:`fluxes` needs that does not change over time, computed once per simulation.
+
+    The tissue curve is that of ``interstitium.smooth_tissue_volume`` / ``tissue_compliance`` /
+    ``volume_lymph_flow`` with its terms regrouped per bed so that each stage costs one softplus and no
+    constant work: z = (Pi - P_break)/w; the bed's interstitial volume above rest
+    Vx = m C Pi + m (C_high - C) w sp(z) - [m C Pi0 + m (C_high - C) w sp(z0)]; the lymph drive
+    u = L Pi + (L/C)(C_high - C) w sp(z) - [L Pi_L0 + (L/C)(C_high - C) w sp(zL)] (mL/min per 100 g; with JL_max,
+    JL = m JL_max tanh(u / JL_max), else m u); the bed compliance m C + m (C_high - C) logistic(z), the
+    logistic sharing the softplus's exponential. Filtration and protein flux take the bed's Kf and PS
+    times its mass (the Peclet number is unchanged). Same quantities as the physiology functions, regrouped
+    (agreement to rounding, checked against the stored reference in the tests).
+    """
+
+    def __init__(self, body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
+                 rest: Mapping[str, Array], xp: Any) -> None:
+        w = BREAK_WIDTH
+        self.xp = xp
+        self.Vp0, self.Vrbc0 = body["Vp0"], body["Vrbc0"]
+        self.Vb0 = body["Vp0"] + body["Vrbc0"]
+        self.vasc = body["C_vasc"] * (1.0 + body["r"])
+        self.k_r, self.u_basal = body["k_r"], body["u_basal"]
+        self.beds: list[tuple[str, dict[str, Array]]] = []
+        for name, b in beds.items():
+            C, Ch, Pb = _bed_curve(b)
+            m, L, jmax = b["m"], b["L"], b.get("JL_max")
+            Pi0 = rest[f"Pi0_{name}"]
+            dCw = (Ch - C) * w
+            sp0 = _softplus((Pi0 - Pb) / w, xp)
+            spL = _softplus((b["Pi_L0"] - Pb) / w, xp)
+            lv = (L / C) * dCw  # lymph drive per unit softplus
+            lin = (L, lv, L * b["Pi_L0"] + lv * spL) if jmax is None else (
+                L / jmax, lv / jmax, (L * b["Pi_L0"] + lv * spL) / jmax)
+            self.beds.append((name, {
+                "Pb": Pb, "inv_w": 1.0 / w,
+                "vC": m * C, "vS": m * dCw, "v0": m * C * Pi0 + m * dCw * sp0, "Vi0": b["Vi0"],
+                "lP": lin[0], "lS": lin[1], "l0": lin[2], "lm": m if jmax is None else m * jmax,
+                "sat": jmax is not None,
+                "cS": m * (Ch - C),
+                "mKf": m * b["Kf"], "mPS": m * b["PS"], "Pc": b["Pc"], "sigma": b["sigma"]}))
+
+
+def _softplus(x: Array, xp: Any) -> Array:
+    """log(1 + e^x) without overflow (the expression of ``interstitium.smooth_tissue_volume``)."""
+    return xp.maximum(x, 0.0) + xp.log1p(xp.exp(-xp.abs(x)))
+
+
+def _softplus_and_logistic(x: Array, xp: Any) -> tuple[Array, Array]:
+    """log(1 + e^x) and 1 / (1 + e^-x) from one exponential e^-|x| (no overflow; numpy and PyTensor)."""
+    e = xp.exp(-xp.abs(x))
+    r = 1.0 / (1.0 + e)
+    return xp.maximum(x, 0.0) + xp.log1p(e), xp.where(x >= 0, r, e * r)
+
+
+def _fluxes(state: Mapping[str, Array], p: _Prepared, xp: Any, renal_scale: Array = 1.0,
+            compliance: bool = True) -> dict[str, Array]:
+    """:func:`fluxes` on prepared constants (``renal_scale`` multiplies k_r; without ``compliance`` the
+    per-bed compliance ``C_<bed>`` is left out, as :func:`report` does not need it)."""
+    Vp, Qp = state["Vp"], state["Qp"]
+    Cp = 100.0 * Qp / Vp
+    pi_c = pi_cubic(Cp, "total")
+    dVb = Vp + state["Vrbc"] - p.Vb0
+    dPc = dVb / p.vasc  # dPv = dVb / C_vasc, dPc = dPv / (1 + r)
+    dil = (Vp - p.Vp0) / p.Vp0
+    out: dict[str, Array] = {"Cp": Cp, "urine": xp.maximum(p.u_basal + p.k_r * renal_scale * dil, 0.0)}
+    for name, b in p.beds:
+        Pi, Qi = state[f"Pi_{name}"], state[f"Qi_{name}"]
+        dP = Pi - b["Pb"]
+        sp, lg = _softplus_and_logistic(dP * b["inv_w"], xp)
+        Vx = b["vC"] * Pi + b["vS"] * sp - b["v0"]  # smooth_tissue_volume, whole bed (mL)
+        ci = Qi / (b["Vi0"] + Vx)  # g/mL
+        Ci = 100.0 * ci  # g/dL
+        Jv = filtration(b["mKf"], b["Pc"] + dPc, Pi, pi_c, pi_cubic(Ci, "total"), b["sigma"])  # whole bed
+        u = b["lP"] * Pi + b["lS"] * sp - b["l0"]  # volume_lymph_flow's drive (over JL_max when saturating)
+        JL = b["lm"] * (xp.tanh(u) if b["sat"] else u)
+        out[f"Jv_{name}"] = Jv
+        out[f"JL_{name}"] = JL
+        out[f"Js_{name}"] = protein_flux(Jv, b["sigma"], b["mPS"], Cp, Ci, xp=xp) / 100.0  # g/min
+        out[f"JLs_{name}"] = JL * ci
+        out[f"Vx_{name}"] = Vx
+        if compliance:  # tissue_compliance, whole bed (mL/mmHg)
+            out[f"C_{name}"] = b["vC"] + b["cS"] * lg
+    return out
+
+
 def fluxes(state: Mapping[str, Array], body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
-           rest: Mapping[str, Array], xp: Any = np) -> dict[str, Array]:
+           rest: Mapping[str, Array], xp: Any = np, renal_scale: Array = 1.0) -> dict[str, Array]:
     """Flows (mL/min, g/min) and derived quantities at ``state`` (arguments as :func:`initial_state`).
+
+    Parameters
+    ----------
+    state, body, beds, rest : mapping
+        As :func:`initial_state`.
+    xp : module
+        numpy or pytensor.tensor.
+    renal_scale : array, optional
+        Factor on the clearance constant ``body["k_r"]`` for the fluid given (:func:`renal_scale`), 1.
 
     Returns
     -------
     dict
         ``Cp`` (g/dL), ``urine`` (mL/min), per bed ``Jv_<bed>``, ``JL_<bed>`` (mL/min), ``Js_<bed>``,
         ``JLs_<bed>`` (protein by filtration and by lymph, g/min), ``Vx_<bed>`` (interstitial volume above
-        rest, mL).
+        rest, mL), ``C_<bed>`` (bed compliance, mL/mmHg).
     """
-    Vp, Qp = state["Vp"], state["Qp"]
-    Cp = 100.0 * Qp / Vp
-    pi_c = pi_cubic(Cp, "total")
-    dVb = Vp + state["Vrbc"] - body["Vp0"] - body["Vrbc0"]
-    dPc = dVb / (body["C_vasc"] * (1.0 + body["r"]))  # dPv = dVb / C_vasc, dPc = dPv / (1 + r)
-    dil = (Vp - body["Vp0"]) / body["Vp0"]
-    out: dict[str, Array] = {"Cp": Cp, "urine": xp.maximum(body["u_basal"] + body["k_r"] * dil, 0.0)}
-    for name, b in beds.items():
-        C, Ch, Pb = _bed_curve(b)
-        Pi, Qi, m = state[f"Pi_{name}"], state[f"Qi_{name}"], b["m"]
-        Vx = m * smooth_tissue_volume(Pi, C, rest[f"Pi0_{name}"], Ch, Pb, xp=xp)
-        Ci = 100.0 * Qi / (b["Vi0"] + Vx)
-        jv = filtration(b["Kf"], b["Pc"] + dPc, Pi, pi_c, pi_cubic(Ci, "total"), b["sigma"])  # per 100 g
-        jl, _ = volume_lymph_flow(Pi, b["L"], b["Pi_L0"], C, Ch, Pb, b.get("JL_max"), xp=xp)
-        js = protein_flux(jv, b["sigma"], b["PS"], Cp, Ci, xp=xp)  # (g/dL)(mL/min) per 100 g
-        out[f"Jv_{name}"] = m * jv
-        out[f"JL_{name}"] = m * jl
-        out[f"Js_{name}"] = m * js / 100.0
-        out[f"JLs_{name}"] = m * jl * Ci / 100.0
-        out[f"Vx_{name}"] = Vx
-        out[f"C_{name}"] = m * tissue_compliance(Pi, C, Ch, Pb, xp=xp)
-    return out
+    return _fluxes(state, _Prepared(body, beds, rest, xp), xp, renal_scale)
 
 
-def derivatives(state: Mapping[str, Array], rates: tuple[Array, Array, Array], body: Mapping[str, Array],
-                beds: Mapping[str, Mapping[str, Array]], rest: Mapping[str, Array], xp: Any = np
-                ) -> dict[str, Array]:
-    """Time derivatives (per min) of every state variable.
-
-    Parameters
-    ----------
-    state, body, beds, rest : mapping
-        As :func:`initial_state`.
-    rates : tuple
-        (infusion mL/min, infused protein g/min, bleeding mL/min of whole blood), :func:`step_rates`.
-    xp : module
-        numpy or pytensor.tensor.
-
-    Returns
-    -------
-    dict
-        d/dt of each key of ``state`` (mL/min, g/min, mmHg/min).
-    """
-    inf, prot, bleed = rates
-    f = fluxes(state, body, beds, rest, xp)
+def _derivatives(state: Mapping[str, Array], f: Mapping[str, Array], rates: Sequence[Array], p: _Prepared
+                 ) -> dict[str, Array]:
+    """d/dt of the state from the fluxes ``f`` at it (``rates`` as in :func:`derivatives`)."""
+    inf, prot, bleed = rates[0], rates[1], rates[2]
     Vp, Vrbc = state["Vp"], state["Vrbc"]
     hct = Vrbc / (Vp + Vrbc)
     bleed_plasma = bleed * (1.0 - hct)
-    renal = f["urine"] - body["u_basal"]  # the basal part is balanced by basal intake
+    renal = f["urine"] - p.u_basal  # the basal part is balanced by basal intake
     dVp = inf - bleed_plasma - renal
     dQp = prot - bleed_plasma * f["Cp"] / 100.0
     d: dict[str, Array] = {}
-    for name in beds:
+    for name, _ in p.beds:
         dVp = dVp - f[f"Jv_{name}"] + f[f"JL_{name}"]
         dQp = dQp - f[f"Js_{name}"] + f[f"JLs_{name}"]
         d[f"Pi_{name}"] = (f[f"Jv_{name}"] - f[f"JL_{name}"]) / f[f"C_{name}"]
@@ -297,20 +435,49 @@ def derivatives(state: Mapping[str, Array], rates: tuple[Array, Array, Array], b
     return d
 
 
+def derivatives(state: Mapping[str, Array], rates: Sequence[Array], body: Mapping[str, Array],
+                beds: Mapping[str, Mapping[str, Array]], rest: Mapping[str, Array], xp: Any = np
+                ) -> dict[str, Array]:
+    """Time derivatives (per min) of every state variable.
+
+    Parameters
+    ----------
+    state, body, beds, rest : mapping
+        As :func:`initial_state`.
+    rates : sequence
+        (infusion mL/min, infused protein g/min, bleeding mL/min of whole blood) of :func:`step_rates`,
+        optionally followed by the renal scale (1) of :func:`renal_scale` (1 when absent).
+    xp : module
+        numpy or pytensor.tensor.
+
+    Returns
+    -------
+    dict
+        d/dt of each key of ``state`` (mL/min, g/min, mmHg/min).
+    """
+    p = _Prepared(body, beds, rest, xp)
+    scale = rates[3] if len(rates) > 3 else 1.0
+    return _derivatives(state, _fluxes(state, p, xp, scale), rates, p)
+
+
 Args3 = tuple[Mapping[str, Array], Mapping[str, Mapping[str, Array]], Mapping[str, Array]]
 
 
-def _rk4(state: dict[str, Array], rates: tuple[Array, Array, Array], dt: float, args: Args3, xp: Any
-         ) -> dict[str, Array]:
-    body, beds, rest = args
-    k1 = derivatives(state, rates, body, beds, rest, xp=xp)
-    s2 = {k: v + 0.5 * dt * k1[k] for k, v in state.items()}
-    k2 = derivatives(s2, rates, body, beds, rest, xp=xp)
-    s3 = {k: v + 0.5 * dt * k2[k] for k, v in state.items()}
-    k3 = derivatives(s3, rates, body, beds, rest, xp=xp)
-    s4 = {k: v + dt * k3[k] for k, v in state.items()}
-    k4 = derivatives(s4, rates, body, beds, rest, xp=xp)
-    return {k: v + dt / 6.0 * (k1[k] + 2.0 * k2[k] + 2.0 * k3[k] + k4[k]) for k, v in state.items()}
+def _rk4(state: dict[str, Array], rates: Sequence[Array], dt: float, args: Args3 | _Prepared, xp: Any,
+         f1: Mapping[str, Array] | None = None) -> dict[str, Array]:
+    """One classical Runge-Kutta step of length ``dt`` (min); ``f1``: the fluxes at ``state`` if known."""
+    p = args if isinstance(args, _Prepared) else _Prepared(*args, xp)
+    scale = rates[3] if len(rates) > 3 else 1.0
+    h, h2 = dt, 0.5 * dt
+    k1 = _derivatives(state, _fluxes(state, p, xp, scale) if f1 is None else f1, rates, p)
+    s2 = {k: v + h2 * k1[k] for k, v in state.items()}
+    k2 = _derivatives(s2, _fluxes(s2, p, xp, scale), rates, p)
+    s3 = {k: v + h2 * k2[k] for k, v in state.items()}
+    k3 = _derivatives(s3, _fluxes(s3, p, xp, scale), rates, p)
+    s4 = {k: v + h * k3[k] for k, v in state.items()}
+    k4 = _derivatives(s4, _fluxes(s4, p, xp, scale), rates, p)
+    h6 = dt / 6.0
+    return {k: v + h6 * (k1[k] + 2.0 * k2[k] + 2.0 * k3[k] + k4[k]) for k, v in state.items()}
 
 
 #: Time courses :func:`simulate` reports (units).
@@ -343,19 +510,26 @@ def report(state: Mapping[str, Array], given: float, body: Mapping[str, Array],
         rest), ``interstitial_volume_change_<bed>`` (mL), ``urine_volume`` (mL since 0), ``lymph_flow``
         (both beds, mL/min).
     """
-    f = fluxes(state, body, beds, rest, xp)
-    dVp = state["Vp"] - body["Vp0"]
+    return _report(state, given, _Prepared(body, beds, rest, xp), xp)
+
+
+def _report(state: Mapping[str, Array], given: float, p: _Prepared, xp: Any,
+            f: Mapping[str, Array] | None = None) -> dict[str, Array]:
+    """:func:`report` on prepared constants; ``f``: the fluxes at ``state`` if known."""
+    if f is None:
+        f = _fluxes(state, p, xp, compliance=False)
+    dVp = state["Vp"] - p.Vp0
     net = given - state["B"]
     safe = xp.where(xp.abs(net) > 1e-9, net, 1.0)
     hct = state["Vrbc"] / (state["Vp"] + state["Vrbc"])
-    hct0 = body["Vrbc0"] / (body["Vp0"] + body["Vrbc0"])
+    hct0 = p.Vrbc0 / (p.Vp0 + p.Vrbc0)
     out = {"plasma_volume_change": dVp,
            "infused_retained_fraction": xp.where(xp.abs(net) > 1e-9, dVp / safe, np.nan),
            "hb_ratio": hct / hct0}
-    for name in beds:
+    for name, _ in p.beds:
         out[f"interstitial_volume_change_{name}"] = f[f"Vx_{name}"]
     out["urine_volume"] = state["U"]
-    out["lymph_flow"] = sum(f[f"JL_{name}"] for name in beds)
+    out["lymph_flow"] = sum(f[f"JL_{name}"] for name, _ in p.beds)
     return out
 
 
@@ -405,21 +579,35 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
         per report time, each over the draws).
     """
     dt, n_steps, per = time_grid(end, report_every, max_step)
+    if xp is np:  # float64, contiguous: one memory layout for every operand of the step loop
+        body = {k: _f64(v) for k, v in body.items()}
+        beds = {name: {k: _f64(v) for k, v in b.items()} for name, b in beds.items()}
+        Cp0 = _f64(Cp0)
     state, rest = initial_state(body, beds, Cp0, xp)
-    args: Args3 = (body, beds, rest)
+    p = _Prepared(body, beds, rest, xp)
+    # the intervention rates of every step depend on time only: computed once, before the loop
+    plan = [(*step_rates(doses, i * dt, dt), renal_scale(doses, (i + 1) * dt)) for i in range(n_steps)]
     given = 0.0
     times = [0.0]
-    series: dict[str, list[Array]] = {k: [v] for k, v in report(state, given, body, beds, rest, xp=xp).items()}
+    f: dict[str, Array] | None = _fluxes(state, p, xp, plan[0][3] if plan else 1.0)
+    series: dict[str, list[Array]] = {k: [v] for k, v in _report(state, given, p, xp, f).items()}
     for i in range(n_steps):
-        t0 = i * dt
-        rates = step_rates(doses, t0, dt)
-        state = _rk4(state, rates, dt, args, xp)
+        rates = plan[i]
+        state = _rk4(state, rates, dt, p, xp, f1=f)
         given += rates[0] * dt
+        f = None
         if (i + 1) % per == 0:
             times.append((i + 1) * dt)
-            for k, v in report(state, given, body, beds, rest, xp=xp).items():
+            # the fluxes at the reported state are the first stage of the next step (same renal scale)
+            f = _fluxes(state, p, xp, plan[i + 1][3] if i + 1 < n_steps else 1.0)
+            for k, v in _report(state, given, p, xp, f).items():
                 series[k].append(v)
     return {"times_min": times, **series}
+
+
+def _f64(v: Array) -> Array:
+    """A numpy array as float64 and C-contiguous (None and Python scalars pass through)."""
+    return np.ascontiguousarray(v, dtype=np.float64) if isinstance(v, np.ndarray) else v
 
 
 def rhs_vector(t: float, y: np.ndarray, keys: Sequence[str], doses: Sequence[Dose], dt: float,
@@ -436,6 +624,6 @@ def rhs_vector(t: float, y: np.ndarray, keys: Sequence[str], doses: Sequence[Dos
         d/dt of the state in ``keys`` order.
     """
     t0 = math.floor(t / dt + 1e-12) * dt
-    rates = step_rates(doses, t0, dt)
+    rates = (*step_rates(doses, t0, dt), renal_scale(doses, t0 + dt))
     d = derivatives(dict(zip(keys, y, strict=True)), rates, body, beds, rest, xp=np)
     return np.array([float(d[k]) for k in keys])

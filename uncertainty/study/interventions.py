@@ -16,7 +16,7 @@ from typing import Any
 
 from uncertainty.core import units
 from uncertainty.core.errors import StudyError, study_error
-from uncertainty.physiology.whole_body import FLUID_PROTEIN_G_PER_DL, Dose, blood_volume
+from uncertainty.physiology.whole_body import Dose, blood_volume, infusion
 from uncertainty.study.schema import Intervention, InterventionList, StudySection, TimelineSection
 
 #: Body mass when ``[study] body_mass`` is not given, kg (common practice: ICRP Publication 23, 1975,
@@ -180,7 +180,7 @@ def _doses(items: Sequence[Intervention], end: float, mass: float, file: str) ->
                                   f"{mass:g} kg)", file, f"{key}.volume", it.volume)
             doses.append(Dose("bleed", vol, start, dur))
         else:
-            doses.append(Dose("infusion", vol, start, dur, FLUID_PROTEIN_G_PER_DL[str(it.fluid)]))
+            doses.append(infusion(str(it.fluid), vol, start, dur))  # protein and clearance of the fluid
     return doses
 
 
