@@ -98,11 +98,12 @@ def protocol_markdown(doc: dict[str, Any]) -> str:
     groups = doc.get("groups", 2)
     per = "per arm" if groups == 2 else "subjects"
     how = "by simulation" if str(doc.get("n_method", "")).startswith("simulated") else "from the exact noncentral t"
+    test = doc.get("test_text") or f"two-sided test at alpha = {doc['alpha']:g}"
     lines = ["## Sample size", "",
              f"Design: {title(doc)}.", "",
              (f"With {n_c} completing {per} ({n_e} enrolled {per} allowing for {doc.get('dropout', 0):.0%} dropout; "
               f"total N = {doc.get('total_n_enrolled')} enrolled, {doc.get('total_n_completing')} completing) the "
-              f"two-sided test at alpha = {doc['alpha']:g} has power {_p(doc.get('power'), doc.get('power_mc_se'))} "
+              f"{test} has power {_p(doc.get('power'), doc.get('power_mc_se'))} "
               f"(simulated; {_p(doc.get('power_analytic'))} from the noncentral t) to show a "
               f"{doc.get('benefit', '')} in {doc['endpoint']}; n found {how} for a target power of "
               f"{doc['target_power']:g}." if n_e else
