@@ -12,7 +12,7 @@ import pytest
 from scipy import stats
 
 from uncertainty.analyses.design import trial_power as tp
-from uncertainty.analyses.design.table import headline
+from uncertainty.analyses.design.table import headline, table
 from uncertainty.core.errors import InputError
 from uncertainty.priors import parse_prior
 
@@ -137,3 +137,40 @@ def test_ratio_margin_side_follows_the_direction_of_benefit() -> None:
     spec = dz.parse_design(_study(dict(BASE, test="non_inferiority", margin=0.002,
                                        effect={"parameter": "Kf", "shift": -0.001})))
     assert spec.margin_analysis == 0.002 and spec.direction == -1.0
+
+
+# ----------------------------------------------------------------------------- group-sequential looks
+
+@pytest.mark.parametrize(("shape", "published", "tol"), [
+    # inflation factor R for K = 5 equally spaced looks, alpha 0.05 two-sided, power 0.9: O'Brien-Fleming 1.026,
+    # Pocock 1.207 (Jennison & Turnbull 2000, Group Sequential Methods with Applications to Clinical Trials,
+    # tables 2.4 and 2.2, for the classical boundaries; from memory). The Lan-DeMets spending versions wired
+    # here are close to, not equal to, the classical boundaries: O'Brien-Fleming within 0.005; the Pocock-shaped
+    # spending spends more early than the constant boundary and needs slightly less (within 0.02)
+    ("obrien_fleming", 1.026, 0.005),
+    ("pocock", 1.207, 0.02),
+])
+def test_inflation_factor_for_five_looks(shape: str, published: float, tol: float) -> None:
+    spec = dz.parse_design(_study(dict(BASE, looks=5, spending=shape, target_power=0.9)))
+    plan = dz.sequential_plan(spec, 100)
+    assert plan["inflation"] == pytest.approx(published, abs=tol)
+    assert plan["n_per_arm_max_completing"] == math.ceil(100 * plan["inflation"])
+    assert plan["n_per_arm_at_looks"][-1] == plan["n_per_arm_max_completing"]
+    # expected n: below the maximum under H1 and H0 (a trial can stop early under either)
+    assert plan["expected_n_per_arm_alternative"] < plan["n_per_arm_max_completing"]
+    assert plan["expected_n_per_arm_null"] <= plan["n_per_arm_max_completing"]
+    assert len(plan["boundaries_z"]) == 5 and plan["alpha_spent"][-1] == pytest.approx(0.05)
+
+
+def test_looks_in_the_result_and_bad_looks() -> None:
+    res = dz.design(_study(dict(BASE, looks=3, n_points=2, trials=300))).to_dict()
+    gsq = res["group_sequential"]
+    assert gsq["n_per_arm_fixed_completing"] == res["n_per_arm_completing"]
+    assert gsq["n_per_arm_max_completing"] >= res["n_per_arm_completing"]
+    assert "group-sequential, 3 looks" in table(res)
+    for patch, key, value in (({"looks": 0}, "design.looks", 0), ({"looks": 2.5}, "design.looks", 2.5),
+                              ({"spending": "haybittle"}, "design.spending", "haybittle"),
+                              ({"looks": 3, "test": "one_sided"}, "design.looks", 3)):
+        with pytest.raises(InputError) as err:
+            dz.parse_design(_study(dict(BASE, **patch)))
+        assert (err.value.key, err.value.value) == (key, value)

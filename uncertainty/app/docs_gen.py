@@ -215,6 +215,10 @@ MEANINGS: dict[str, str] = {
     "design.margin": "non-inferiority margin (needed by and only for `test = \"non_inferiority\"`): the loss of "
                      "benefit tolerated, > 0 in the endpoint's canonical unit for a shift effect; for a ratio "
                      "effect a ratio on the harmful side of 1 (e.g. 1.1 when a decrease is the benefit)",
+    "design.looks": "group-sequential analyses at K equally spaced information fractions (1, the default: a fixed "
+                    "design; more than 1 needs `test = \"two_sided\"`): the maximum n is the fixed n times the "
+                    "inflation factor; boundaries and expected n under H0 and H1 are in `group_sequential`",
+    "design.spending": "Lan-DeMets alpha-spending shape for `looks` > 1: `obrien_fleming` (default) or `pocock`",
     "design.effect.parameter": "the quantity the treatment changes",
     "design.effect.multiply": "ratio of treated to control (e.g. 0.7)",
     "design.effect.shift": "difference treated minus control, in `unit`",

@@ -441,6 +441,9 @@ class DesignSection(BaseModel):
     # margin: the loss of benefit tolerated, in the endpoint's unit for a shift, a ratio for a ratio effect
     test: Literal["two_sided", "one_sided", "non_inferiority"] = "two_sided"
     margin: float | None = None
+    # group-sequential: K equally spaced looks (1 = a fixed design), Lan-DeMets alpha spending shape
+    looks: int = Field(default=1, ge=1, le=20)
+    spending: Literal["obrien_fleming", "pocock"] = "obrien_fleming"
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 

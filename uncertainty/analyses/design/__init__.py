@@ -35,6 +35,7 @@ import numpy as np
 from scipy import stats
 
 from uncertainty.analyses import sampling
+from uncertainty.analyses.design import group_sequential as gs
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.analyses.design.result import DesignResult
 from uncertainty.analyses.inference.diagnostics import Gate, diagnose
@@ -126,6 +127,8 @@ class DesignSpec:
     typical: dict[str, float] = field(default_factory=dict)  # stated typical values (canonical units)
     test: str = "two_sided"  # two_sided | one_sided | non_inferiority (trial_power.TESTS)
     margin: float | None = None  # non-inferiority margin as written: endpoint unit (shift) or a ratio
+    looks: int = 1  # group-sequential looks at equally spaced information fractions (1: fixed design)
+    spending: str = "obrien_fleming"  # Lan-DeMets spending shape (group_sequential.SPENDING)
 
     @property
     def margin_analysis(self) -> float:
@@ -395,6 +398,18 @@ def parse_test(spec: DesignSpec, doc: dict[str, Any]) -> None:
         raise InputError("test must be two_sided, one_sided or non_inferiority", file=file, key="design.test",
                          value=test)
     spec.test = test
+    looks = doc.get("looks", 1)
+    if isinstance(looks, bool) or not isinstance(looks, int) or not 1 <= looks <= 20:
+        raise InputError("looks must be an integer from 1 (a fixed design) to 20", file=file, key="design.looks",
+                         value=looks)
+    spending = doc.get("spending", "obrien_fleming")
+    if spending not in gs.SPENDING:
+        raise InputError("spending must be obrien_fleming or pocock", file=file, key="design.spending",
+                         value=spending)
+    if looks > 1 and test != "two_sided":
+        raise InputError("group-sequential looks are for test = \"two_sided\" (symmetric boundaries)", file=file,
+                         key="design.looks", value=looks)
+    spec.looks, spec.spending = int(looks), spending
     margin = doc.get("margin")
     if test != "non_inferiority":
         if margin is not None:
@@ -1226,8 +1241,47 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             "probability": (float(tp.half_width_probability(n_hw, sd, spec.target_half_width, spec.alpha,
                                                             spec.analysis)) if n_hw else None),
         }
+    if spec.looks > 1 and n_pow is not None:
+        doc["group_sequential"] = sequential_plan(spec, n_pow)
     doc["assumptions"] = assumptions(study, spec, doc)
     return DesignResult(doc)
+
+
+def sequential_plan(spec: DesignSpec, n_fixed: int) -> dict[str, Any]:
+    """The group-sequential version of a fixed design of ``n_fixed`` completing subjects per arm.
+
+    ``spec.looks`` equally spaced looks, two-sided Lan-DeMets boundaries of ``spec.spending`` shape at
+    ``spec.alpha``, power ``spec.target_power`` at the upper (benefit) boundary
+    (:func:`group_sequential.design_summary`, normal statistics with independent increments).
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The parsed section (looks, spending, alpha, target power, dropout).
+    n_fixed : int
+        Completing subjects per arm of the fixed design.
+
+    Returns
+    -------
+    dict
+        ``looks``, ``spending``, ``information_fractions``, ``boundaries_z`` (dimensionless),
+        ``alpha_spent`` (cumulative), ``inflation`` (dimensionless), ``n_per_arm_max_completing`` /
+        ``_enrolled`` (subjects per arm, rounded up), ``n_per_arm_at_looks`` (completing, cumulative),
+        ``expected_n_per_arm_null`` / ``_alternative`` (completing, subjects per arm).
+    """
+    t = np.arange(1, spec.looks + 1) / spec.looks
+    s = gs.design_summary(t, spec.alpha, spec.target_power, spec.spending, float(n_fixed))
+    n_max = int(math.ceil(float(s["n_max"]) - 1e-9))
+    return {"looks": spec.looks, "spending": spec.spending, "information_fractions": t.tolist(),
+            "boundaries_z": [float(c) for c in s["boundaries"]],
+            "alpha_spent": [float(a) for a in s["alpha_spent"]], "inflation": float(s["inflation"]),
+            "n_per_arm_fixed_completing": int(n_fixed), "n_per_arm_max_completing": n_max,
+            "n_per_arm_max_enrolled": enrolled(n_max, spec.dropout),
+            "n_per_arm_at_looks": [int(math.ceil(n_max * f - 1e-9)) for f in t],
+            "expected_n_per_arm_null": float(s["expected_n_null"]) * n_max / float(s["n_max"]),
+            "expected_n_per_arm_alternative": float(s["expected_n_alternative"]) * n_max / float(s["n_max"]),
+            "method": "Lan-DeMets alpha spending, equally spaced looks, normal approximation (independent "
+                      "increments); the maximum n is the fixed n times the inflation factor"}
 
 
 def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[str, str]]:
@@ -1259,6 +1313,9 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
         rows.append({"what": "non-inferiority margin", "value": f"{spec.margin:g} ({doc['margin_analysis_scale']:.4g} "
                      f"on the {spec.scale} scale)", "source": src})
     rows.append({"what": "target power", "value": f"{spec.target_power:g}", "source": src})
+    if spec.looks > 1:
+        rows.append({"what": "interim analyses", "value": f"{spec.looks} equally spaced looks, Lan-DeMets "
+                     f"{spec.spending} spending", "source": src})
     if spec.target_assurance is not None:
         rows.append({"what": "target assurance", "value": f"{spec.target_assurance:g}", "source": src})
     rows.append({"what": "dropout", "value": f"{spec.dropout:g}", "source": src})

@@ -61,6 +61,14 @@ def table(doc: dict[str, Any]) -> str:
              f"{test}, "
              f"{doc['path']} path, {doc['trials_per_point']} trials per point",
              headline(doc)]
+    gsq = doc.get("group_sequential")
+    if gsq:
+        lines.append(f"group-sequential, {gsq['looks']} looks ({gsq['spending']} spending): n per arm at most "
+                     f"{gsq['n_per_arm_max_enrolled']} enrolled ({gsq['n_per_arm_max_completing']} completing, "
+                     f"inflation {gsq['inflation']:.3f}); expected completing n per arm "
+                     f"{gsq['expected_n_per_arm_null']:.1f} under H0, "
+                     f"{gsq['expected_n_per_arm_alternative']:.1f} under H1; |Z| boundaries "
+                     + ", ".join(f"{c:.3f}" for c in gsq["boundaries_z"]))
     if doc.get("target_assurance") is not None:
         n_a = doc.get("n_per_arm_assurance_enrolled", doc.get("n_per_arm_assurance"))
         se = doc.get("n_per_arm_assurance_mc_se")
