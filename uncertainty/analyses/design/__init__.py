@@ -153,14 +153,14 @@ class DesignSpec:
     @property
     def test_text(self) -> str:
         """The test in words, as printed in the headline, the report and results.json."""
-        d = "increase" if self.direction > 0 else "decrease"
+        d = "an increase" if self.direction > 0 else "a decrease"
         if self.test == "one_sided":
-            return f"one-sided test at alpha {self.alpha:g} for an {d}"
+            return f"one-sided test at alpha {self.alpha:g} for {d}"
         if self.test == "non_inferiority":
             unit = "ratio" if self.effects and self.effects[0].kind == "multiply" else "margin"
             return (f"non-inferiority test at one-sided alpha {self.alpha:g} ({unit} {self.margin:g}; benefit is "
-                    f"an {d})")
-        return f"two-sided test at alpha {self.alpha:g}, success only for an {d}"
+                    f"{d})")
+        return f"two-sided test at alpha {self.alpha:g}, success only for {d}"
 
     @property
     def analysis(self) -> str:
