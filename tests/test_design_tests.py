@@ -12,6 +12,7 @@ import pytest
 from scipy import stats
 
 from uncertainty.analyses.design import trial_power as tp
+from uncertainty.analyses.design.report_section import protocol_markdown
 from uncertainty.analyses.design.table import headline, table
 from uncertainty.core.errors import InputError
 from uncertainty.priors import parse_prior
@@ -168,6 +169,7 @@ def test_looks_in_the_result_and_bad_looks() -> None:
     assert gsq["n_per_arm_fixed_completing"] == res["n_per_arm_completing"]
     assert gsq["n_per_arm_max_completing"] >= res["n_per_arm_completing"]
     assert "group-sequential, 3 looks" in table(res)
+    assert "Group-sequential: 3 equally spaced analyses" in protocol_markdown(res)
     for patch, key, value in (({"looks": 0}, "design.looks", 0), ({"looks": 2.5}, "design.looks", 2.5),
                               ({"spending": "haybittle"}, "design.spending", "haybittle"),
                               ({"looks": 3, "test": "one_sided"}, "design.looks", 3)):
