@@ -210,6 +210,15 @@ MEANINGS: dict[str, str] = {
                       "median): the conditional power is computed at these values, the expected power over the prior",
     "design.benefit": "direction of benefit, `increase` or `decrease` (default: the sign of the effect); power, "
                       "assurance and Bayesian success count only significant results in this direction",
+    "design.test": "the test of each trial: `two_sided` (default; `alpha` two-sided), `one_sided` or "
+                   "`non_inferiority` (`alpha` one-sided, success only in the direction of benefit)",
+    "design.margin": "non-inferiority margin (needed by and only for `test = \"non_inferiority\"`): the loss of "
+                     "benefit tolerated, > 0 in the endpoint's canonical unit for a shift effect; for a ratio "
+                     "effect a ratio on the harmful side of 1 (e.g. 1.1 when a decrease is the benefit)",
+    "design.looks": "group-sequential analyses at K equally spaced information fractions (1, the default: a fixed "
+                    "design; more than 1 needs `test = \"two_sided\"`): the maximum n is the fixed n times the "
+                    "inflation factor; boundaries and expected n under H0 and H1 are in `group_sequential`",
+    "design.spending": "Lan-DeMets alpha-spending shape for `looks` > 1: `obrien_fleming` (default) or `pocock`",
     "design.effect.parameter": "the quantity the treatment changes",
     "design.effect.multiply": "ratio of treated to control (e.g. 0.7)",
     "design.effect.shift": "difference treated minus control, in `unit`",

@@ -408,7 +408,7 @@ class Effect(BaseModel):
 
 
 class DesignSection(BaseModel):
-    """``[design]``: trial sizing. Defaults: parallel, endpoint Jv, alpha 0.05 (two-sided), power 0.8,
+    """``[design]``: trial sizing. Defaults: parallel, endpoint Jv, two-sided test, alpha 0.05, power 0.8,
     no dropout, n from 10 to 200 per arm; ``design_prior`` / ``analysis_prior`` are declarations
     (parsed into ``Prior`` objects in ``design_prior_obj`` / ``analysis_prior_obj``)."""
 
@@ -437,6 +437,13 @@ class DesignSection(BaseModel):
     half_width_probability: float = Field(default=0.8, gt=0, lt=1)
     benefit: Literal["increase", "decrease"] | None = None
     typical: dict[str, float] = Field(default_factory=dict)
+    # the test of one trial: two-sided (alpha two-sided), one-sided or non-inferiority (alpha one-sided);
+    # margin: the loss of benefit tolerated, in the endpoint's unit for a shift, a ratio for a ratio effect
+    test: Literal["two_sided", "one_sided", "non_inferiority"] = "two_sided"
+    margin: float | None = None
+    # group-sequential: K equally spaced looks (1 = a fixed design), Lan-DeMets alpha spending shape
+    looks: int = Field(default=1, ge=1, le=20)
+    spending: Literal["obrien_fleming", "pocock"] = "obrien_fleming"
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 

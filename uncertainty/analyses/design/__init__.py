@@ -35,6 +35,7 @@ import numpy as np
 from scipy import stats
 
 from uncertainty.analyses import sampling
+from uncertainty.analyses.design import group_sequential as gs
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.analyses.design.result import DesignResult
 from uncertainty.analyses.inference.diagnostics import Gate, diagnose
@@ -124,6 +125,42 @@ class DesignSpec:
     benefit: str | None = None  # "increase" | "decrease"; None: the sign of the point effect
     notes: list[str] = field(default_factory=list)  # remarks found while parsing (kept in the result)
     typical: dict[str, float] = field(default_factory=dict)  # stated typical values (canonical units)
+    test: str = "two_sided"  # two_sided | one_sided | non_inferiority (trial_power.TESTS)
+    margin: float | None = None  # non-inferiority margin as written: endpoint unit (shift) or a ratio
+    looks: int = 1  # group-sequential looks at equally spaced information fractions (1: fixed design)
+    spending: str = "obrien_fleming"  # Lan-DeMets spending shape (group_sequential.SPENDING)
+
+    @property
+    def margin_analysis(self) -> float:
+        """The non-inferiority margin on the analysis scale (>= 0): the margin itself for a shift, |ln ratio|
+        for a ratio effect analysed on the log scale; 0 for the other tests.
+
+        Raises
+        ------
+        InputError
+            A ratio margin while the endpoint is analysed on the natural scale (it takes values <= 0).
+        """
+        if self.test != "non_inferiority" or self.margin is None:
+            return 0.0
+        if self.effects and self.effects[0].kind == "multiply":
+            if self.scale != "log":
+                raise InputError("a ratio margin needs an endpoint analysed on the log scale; this one takes "
+                                 "values <= 0: give the effect as a shift and the margin in the endpoint's unit",
+                                 file=self.file, key="design.margin", value=self.margin)
+            return abs(math.log(self.margin))
+        return float(self.margin)
+
+    @property
+    def test_text(self) -> str:
+        """The test in words, as printed in the headline, the report and results.json."""
+        d = "an increase" if self.direction > 0 else "a decrease"
+        if self.test == "one_sided":
+            return f"one-sided test at alpha {self.alpha:g} for {d}"
+        if self.test == "non_inferiority":
+            unit = "ratio" if self.effects and self.effects[0].kind == "multiply" else "margin"
+            return (f"non-inferiority test at one-sided alpha {self.alpha:g} ({unit} {self.margin:g}; benefit is "
+                    f"{d})")
+        return f"two-sided test at alpha {self.alpha:g}, success only for {d}"
 
     @property
     def analysis(self) -> str:
@@ -279,6 +316,7 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
     if spec.endpoint_kind == "quantity" and spec.effects[0].parameter != spec.output:
         raise InputError("for a quantity endpoint the (first) effect must be on that quantity", file=file,
                          key="design.effect.parameter", value=spec.effects[0].parameter)
+    parse_test(spec, doc)
 
     for name in ("between_subject", "within_subject"):
         target = spec.between if name == "between_subject" else spec.within
@@ -332,6 +370,67 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
             raise InputError("target_half_width must be > 0", file=file, key="design.target_half_width", value=hw)
         spec.target_half_width = float(hw)
     return spec
+
+
+def parse_test(spec: DesignSpec, doc: dict[str, Any]) -> None:
+    """Set ``spec.test`` and ``spec.margin`` from the section, checking the margin against the effect.
+
+    ``margin`` is needed by ``non_inferiority`` and refused for the other tests. For a shift effect it is
+    a number > 0 in the endpoint's canonical unit (the loss of benefit tolerated); for a ratio effect a
+    ratio on the harmful side of 1: above 1 when a decrease is the benefit, below 1 when an increase is.
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The section parsed so far (effects and benefit set); changed in place.
+    doc : dict
+        The section as a dict.
+
+    Raises
+    ------
+    InputError
+        An unknown test, a missing or superfluous margin, a margin <= 0 or on the wrong side of 1
+        (keys ``design.test``, ``design.margin``).
+    """
+    file = spec.file
+    test = doc.get("test", "two_sided")
+    if test not in tp.TESTS:
+        raise InputError("test must be two_sided, one_sided or non_inferiority", file=file, key="design.test",
+                         value=test)
+    spec.test = test
+    looks = doc.get("looks", 1)
+    if isinstance(looks, bool) or not isinstance(looks, int) or not 1 <= looks <= 20:
+        raise InputError("looks must be an integer from 1 (a fixed design) to 20", file=file, key="design.looks",
+                         value=looks)
+    spending = doc.get("spending", "obrien_fleming")
+    if spending not in gs.SPENDING:
+        raise InputError("spending must be obrien_fleming or pocock", file=file, key="design.spending",
+                         value=spending)
+    if looks > 1 and test != "two_sided":
+        raise InputError("group-sequential looks are for test = \"two_sided\" (symmetric boundaries)", file=file,
+                         key="design.looks", value=looks)
+    spec.looks, spec.spending = int(looks), spending
+    margin = doc.get("margin")
+    if test != "non_inferiority":
+        if margin is not None:
+            raise InputError("margin is only for test = \"non_inferiority\"", file=file, key="design.margin",
+                             value=margin)
+        return
+    if margin is None:
+        raise InputError("a non-inferiority test needs a margin (the loss of benefit tolerated)", file=file,
+                         key="design.margin", value=None)
+    if isinstance(margin, bool) or not isinstance(margin, int | float) or not math.isfinite(margin):
+        raise InputError("margin must be a number", file=file, key="design.margin", value=margin)
+    if spec.effects[0].kind == "multiply":
+        harmful_above = spec.direction < 0
+        if margin <= 0 or margin == 1 or (margin > 1) != harmful_above:
+            side = "above 1 (a decrease is the benefit)" if harmful_above else "below 1 (an increase is the benefit)"
+            raise InputError(f"for a ratio effect the margin is a ratio {side}", file=file, key="design.margin",
+                             value=margin)
+    elif margin <= 0:
+        raise InputError("margin must be > 0, in the endpoint's canonical unit (the loss of benefit tolerated)",
+                         file=file, key="design.margin", value=margin)
+    spec.margin = float(margin)
 
 
 def check_prior_scale(spec: DesignSpec) -> None:
@@ -520,18 +619,21 @@ def analyse_fast(data: dict[str, np.ndarray], analysis: str) -> tuple[np.ndarray
 
 
 def _fast_success(est: np.ndarray, se: np.ndarray, df: np.ndarray, spec: DesignSpec) -> dict[str, np.ndarray]:
-    tc = stats.t.ppf(1 - spec.alpha / 2, df)
+    a_tail = tp.tail_alpha(spec.alpha, spec.test)
+    tc = stats.t.ppf(1 - a_tail, df)
+    m = spec.margin_analysis
     ok = np.isfinite(est) & np.isfinite(se) & (se > 0)
-    # a significant result counts only in the direction of benefit (a harmful one is never a success)
-    out = {"success": ok & (spec.direction * est > tc * np.where(ok, se, 1.0)),
-           "half_width": np.where(ok, tc * se, np.inf)}
+    # a significant result counts only in the direction of benefit (a harmful one is never a success);
+    # non-inferiority: direction * estimate + margin significant at the one-sided level
+    out = {"success": ok & (spec.direction * est + m > tc * np.where(ok, se, 1.0)),
+           "half_width": np.where(ok, stats.t.ppf(1 - spec.alpha / 2, df) * se, np.inf)}
     if spec.analysis_prior is not None:
         a0, s0 = spec.analysis_prior["mean"], spec.analysis_prior["sd"]
         with np.errstate(all="ignore"):
             prec = 1 / s0**2 + 1 / se**2
             pm = (a0 / s0**2 + est / se**2) / prec
-            p_benefit = stats.norm.cdf(spec.direction * pm * np.sqrt(prec))
-        out["bayes"] = ok & (p_benefit > 1 - spec.alpha / 2)
+            p_benefit = stats.norm.cdf((spec.direction * pm + m) * np.sqrt(prec))
+        out["bayes"] = ok & (p_benefit > 1 - a_tail)
     return out
 
 
@@ -576,9 +678,10 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
     The data are standardised (centred, divided by the pooled sd) so that the vague priors
     (Normal(0, 10) on mean and effect, HalfNormal(5) on sigma) are vague for any unit; the
     analysis prior, when given, is carried to the same scale. Success: the posterior probability of
-    an effect in the direction of benefit exceeds 1 - alpha/2 (the Bayesian analogue of the two-sided
-    test counted in that direction);
-    ``bayes``: the posterior probability of benefit exceeds 1 - alpha/2 under the analysis prior.
+    an effect in the direction of benefit (beyond minus the margin, for non-inferiority) exceeds 1 - a'
+    (a' = alpha/2 for a two-sided test, alpha for the one-sided ones: the Bayesian analogue of the test
+    counted in that direction);
+    ``bayes``: the posterior probability of benefit exceeds 1 - a' under the analysis prior.
     Each refit passes the inference quality gate (R-hat, bulk and tail ESS of the effect and sigma,
     no divergences) or is marked in ``converged`` (False), so that it is counted as a failed refit
     and left out of the power estimate rather than trusted.
@@ -616,11 +719,11 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
         trace = nutpie.sample(fit, draws=draws, tune=tune, chains=2, cores=1, seed=int(seed) + i,
                               progress_bar=False)
         converged[i] = diagnose(trace, ["delta", "sigma"], gate)["passed"]
-        d = np.asarray(trace.posterior["delta"]).ravel()
-        p_pos = float(np.mean(d > 0))
-        p_benefit = p_pos if spec.direction > 0 else 1 - p_pos
-        success[i] = p_benefit > 1 - spec.alpha / 2
-        bayes[i] = p_benefit > 1 - spec.alpha / 2
+        d = np.asarray(trace.posterior["delta"]).ravel() * scale
+        # benefit: direction * effect > -margin (0 but for non-inferiority), in the endpoint's unit
+        p_benefit = float(np.mean(spec.direction * d > -spec.margin_analysis))
+        success[i] = p_benefit > 1 - tp.tail_alpha(spec.alpha, spec.test)
+        bayes[i] = success[i]
     out = {"success": success, "converged": converged}
     if spec.analysis_prior is not None:
         out["bayes"] = bayes
@@ -987,13 +1090,15 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
                          "of benefit")
     lo, hi = spec.n_range
     prior = spec.design_prior_frozen()
+    test, margin = spec.test, spec.margin_analysis
     n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi,
-                           spec.direction) if sd > 0 else lo
+                           spec.direction, test, margin) if sd > 0 else lo
     n_pow_analytic = n_pow
     n_ass = None
     if spec.target_assurance is not None and not output:
         ns = np.arange(lo, hi + 1)
-        a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis, direction=spec.direction)
+        a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis, direction=spec.direction, test=test,
+                           margin=margin)
         hit = np.nonzero(a >= spec.target_assurance)[0]
         n_ass = int(ns[hit[0]]) if hit.size else None
 
@@ -1037,7 +1142,8 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
         notes.append(f"{refits_failed} MCMC refits failed the quality gate (R-hat, bulk or tail ESS, divergences) "
                      "and were left out of the exact power and assurance; see refits_failed per design point")
     for n, row in by_n.items():
-        row["power_analytic"] = (float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis, spec.direction))
+        row["power_analytic"] = (float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis, spec.direction, test,
+                                                  margin))
                                  if sd > 0 else None)
         if output:
             row["power_expected"], row["power_expected_mc_se"] = row.get("power"), row.get("power_mc_se")
@@ -1046,7 +1152,8 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             row.setdefault("assurance_mc_se", None)
             if not output:
                 row["assurance_analytic"] = float(tp.t_assurance(n, prior, sd, spec.alpha, spec.analysis,
-                                                                 direction=spec.direction))
+                                                                 direction=spec.direction, test=test,
+                                                                 margin=margin))
         else:
             row["assurance"], row["assurance_mc_se"] = None, None
     curve = [{k: v for k, v in by_n[n].items() if not k.startswith("_")} for n in sizes]
@@ -1069,7 +1176,12 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
                    for e in spec.effects],
         "effect_analysis_scale": effect,
         "alpha": spec.alpha,
-        "sided": "two-sided test, success only in the direction of benefit",
+        "sided": ("two-sided test, success only in the direction of benefit" if test == "two_sided" else
+                  "one-sided test in the direction of benefit"),
+        "test": test,
+        "test_text": spec.test_text,
+        "margin": spec.margin,
+        "margin_analysis_scale": margin if test == "non_inferiority" else None,
         "target_power": spec.target_power,
         "target_assurance": spec.target_assurance,
         "dropout": spec.dropout,
@@ -1129,8 +1241,47 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             "probability": (float(tp.half_width_probability(n_hw, sd, spec.target_half_width, spec.alpha,
                                                             spec.analysis)) if n_hw else None),
         }
+    if spec.looks > 1 and n_pow is not None:
+        doc["group_sequential"] = sequential_plan(spec, n_pow)
     doc["assumptions"] = assumptions(study, spec, doc)
     return DesignResult(doc)
+
+
+def sequential_plan(spec: DesignSpec, n_fixed: int) -> dict[str, Any]:
+    """The group-sequential version of a fixed design of ``n_fixed`` completing subjects per arm.
+
+    ``spec.looks`` equally spaced looks, two-sided Lan-DeMets boundaries of ``spec.spending`` shape at
+    ``spec.alpha``, power ``spec.target_power`` at the upper (benefit) boundary
+    (:func:`group_sequential.design_summary`, normal statistics with independent increments).
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The parsed section (looks, spending, alpha, target power, dropout).
+    n_fixed : int
+        Completing subjects per arm of the fixed design.
+
+    Returns
+    -------
+    dict
+        ``looks``, ``spending``, ``information_fractions``, ``boundaries_z`` (dimensionless),
+        ``alpha_spent`` (cumulative), ``inflation`` (dimensionless), ``n_per_arm_max_completing`` /
+        ``_enrolled`` (subjects per arm, rounded up), ``n_per_arm_at_looks`` (completing, cumulative),
+        ``expected_n_per_arm_null`` / ``_alternative`` (completing, subjects per arm).
+    """
+    t = np.arange(1, spec.looks + 1) / spec.looks
+    s = gs.design_summary(t, spec.alpha, spec.target_power, spec.spending, float(n_fixed))
+    n_max = int(math.ceil(float(s["n_max"]) - 1e-9))
+    return {"looks": spec.looks, "spending": spec.spending, "information_fractions": t.tolist(),
+            "boundaries_z": [float(c) for c in s["boundaries"]],
+            "alpha_spent": [float(a) for a in s["alpha_spent"]], "inflation": float(s["inflation"]),
+            "n_per_arm_fixed_completing": int(n_fixed), "n_per_arm_max_completing": n_max,
+            "n_per_arm_max_enrolled": enrolled(n_max, spec.dropout),
+            "n_per_arm_at_looks": [int(math.ceil(n_max * f - 1e-9)) for f in t],
+            "expected_n_per_arm_null": float(s["expected_n_null"]) * n_max / float(s["n_max"]),
+            "expected_n_per_arm_alternative": float(s["expected_n_alternative"]) * n_max / float(s["n_max"]),
+            "method": "Lan-DeMets alpha spending, equally spaced looks, normal approximation (independent "
+                      "increments); the maximum n is the fixed n times the inflation factor"}
 
 
 def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[str, str]]:
@@ -1157,9 +1308,14 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
         rows.append({"what": f"effect on {e.parameter}", "value": f"{e.kind} {e.value:g}", "source": src})
     rows.append({"what": "direction of benefit", "value": doc["benefit"],
                  "source": src if spec.benefit else "the sign of the effect"})
-    rows.append({"what": "significance", "value": f"alpha {spec.alpha:g}, two-sided; success in the direction of "
-                                                  "benefit only", "source": src})
+    rows.append({"what": "significance", "value": spec.test_text, "source": src})
+    if spec.test == "non_inferiority":
+        rows.append({"what": "non-inferiority margin", "value": f"{spec.margin:g} ({doc['margin_analysis_scale']:.4g} "
+                     f"on the {spec.scale} scale)", "source": src})
     rows.append({"what": "target power", "value": f"{spec.target_power:g}", "source": src})
+    if spec.looks > 1:
+        rows.append({"what": "interim analyses", "value": f"{spec.looks} equally spaced looks, Lan-DeMets "
+                     f"{spec.spending} spending", "source": src})
     if spec.target_assurance is not None:
         rows.append({"what": "target assurance", "value": f"{spec.target_assurance:g}", "source": src})
     rows.append({"what": "dropout", "value": f"{spec.dropout:g}", "source": src})

@@ -27,8 +27,9 @@ def caption(doc: dict[str, Any]) -> str:
     """One-line assumptions caption under the figure: effect, sd, alpha, benefit, dropout, trials."""
     eff = ", ".join(f"{e['parameter']} {'x' if 'multiply' in e else '+'}"
                     f"{e.get('multiply', e.get('shift'))}" for e in doc.get("effect", []))
-    return (f"effect {eff}; sd {doc['sd_analysis_scale']:.3g} ({doc['scale']} scale); alpha {doc['alpha']:g} "
-            f"two-sided, success = benefit ({doc.get('benefit', '-')}); dropout {doc.get('dropout', 0):g}; "
+    test = doc.get("test_text") or f"alpha {doc['alpha']:g} two-sided, success = benefit ({doc.get('benefit', '-')})"
+    return (f"effect {eff}; sd {doc['sd_analysis_scale']:.3g} ({doc['scale']} scale); {test}; "
+            f"dropout {doc.get('dropout', 0):g}; "
             f"{doc['trials_per_point']} trials per point, bands +-2 MC se")
 
 

@@ -98,15 +98,24 @@ def protocol_markdown(doc: dict[str, Any]) -> str:
     groups = doc.get("groups", 2)
     per = "per arm" if groups == 2 else "subjects"
     how = "by simulation" if str(doc.get("n_method", "")).startswith("simulated") else "from the exact noncentral t"
+    test = doc.get("test_text") or f"two-sided test at alpha = {doc['alpha']:g}"
     lines = ["## Sample size", "",
              f"Design: {title(doc)}.", "",
              (f"With {n_c} completing {per} ({n_e} enrolled {per} allowing for {doc.get('dropout', 0):.0%} dropout; "
               f"total N = {doc.get('total_n_enrolled')} enrolled, {doc.get('total_n_completing')} completing) the "
-              f"two-sided test at alpha = {doc['alpha']:g} has power {_p(doc.get('power'), doc.get('power_mc_se'))} "
+              f"{test} has power {_p(doc.get('power'), doc.get('power_mc_se'))} "
               f"(simulated; {_p(doc.get('power_analytic'))} from the noncentral t) to show a "
               f"{doc.get('benefit', '')} in {doc['endpoint']}; n found {how} for a target power of "
               f"{doc['target_power']:g}." if n_e else
               f"The target power {doc['target_power']:g} is not reached within the n range studied."), ""]
+    gsq = doc.get("group_sequential")
+    if gsq:
+        lines += [f"Group-sequential: {gsq['looks']} equally spaced analyses with Lan-DeMets {gsq['spending']} "
+                  f"alpha spending (|Z| boundaries {', '.join(f'{c:.3f}' for c in gsq['boundaries_z'])}); at most "
+                  f"{gsq['n_per_arm_max_enrolled']} enrolled {per} ({gsq['n_per_arm_max_completing']} completing, "
+                  f"inflation factor {gsq['inflation']:.3f}); expected completing n {per} "
+                  f"{gsq['expected_n_per_arm_null']:.1f} under no effect and "
+                  f"{gsq['expected_n_per_arm_alternative']:.1f} under the stated effect.", ""]
     if doc.get("power_conditional") is not None:
         cond = _p(doc["power_conditional"], doc.get("power_conditional_mc_se"))
         lines += [f"Power at the stated typical values: {cond}; the power above is the expected power over "

@@ -29,7 +29,8 @@ def headline(doc: dict[str, Any]) -> str:
     se = doc.get("n_per_arm_mc_se")
     how = "simulated" if str(doc.get("n_method", "")).startswith("simulated") else "analytic"
     err = f", MC error of n +- {se:.1f}" if se else ""
-    text = (f"n per arm for power {doc['target_power']:g}: {_n(doc.get('n_per_arm_enrolled'))} enrolled "
+    test = f" ({doc['test_text']})" if doc.get("test_text") else ""
+    text = (f"n per arm for power {doc['target_power']:g}{test}: {_n(doc.get('n_per_arm_enrolled'))} enrolled "
             f"({_n(doc.get('n_per_arm_completing'))} completing, dropout {doc.get('dropout', 0):g}); total N "
             f"{_n(doc.get('total_n_enrolled'))} enrolled [{how}{err}]; power at that n "
             f"{_f(doc.get('power'))} +- {_f(doc.get('power_mc_se'))} simulated, {_f(doc.get('power_analytic'))} "
@@ -54,10 +55,20 @@ def table(doc: dict[str, Any]) -> str:
     str
         The design, the sample sizes for each target, one row per curve point, notes.
     """
+    test = doc.get("test_text") or (f"alpha {doc['alpha']:g} two-sided (success only for benefit: "
+                                    f"{doc.get('benefit', '-')})")
     lines = [f"{doc['design']} design ({doc['analysis']}), endpoint {doc['endpoint']} on the {doc['scale']} scale, "
-             f"alpha {doc['alpha']:g} two-sided (success only for benefit: {doc.get('benefit', '-')}), "
+             f"{test}, "
              f"{doc['path']} path, {doc['trials_per_point']} trials per point",
              headline(doc)]
+    gsq = doc.get("group_sequential")
+    if gsq:
+        lines.append(f"group-sequential, {gsq['looks']} looks ({gsq['spending']} spending): n per arm at most "
+                     f"{gsq['n_per_arm_max_enrolled']} enrolled ({gsq['n_per_arm_max_completing']} completing, "
+                     f"inflation {gsq['inflation']:.3f}); expected completing n per arm "
+                     f"{gsq['expected_n_per_arm_null']:.1f} under H0, "
+                     f"{gsq['expected_n_per_arm_alternative']:.1f} under H1; |Z| boundaries "
+                     + ", ".join(f"{c:.3f}" for c in gsq["boundaries_z"]))
     if doc.get("target_assurance") is not None:
         n_a = doc.get("n_per_arm_assurance_enrolled", doc.get("n_per_arm_assurance"))
         se = doc.get("n_per_arm_assurance_mc_se")

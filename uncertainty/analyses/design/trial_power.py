@@ -12,10 +12,18 @@ ratio). ``design`` is one of
 - ``paired``: before/after in the same ``n`` subjects, one-sample t test on the differences,
   ``df = n - 1``, standard error ``sd_diff / sqrt(n)``.
 
-Power is the probability of the desired outcome: the two-sided test at ``alpha`` rejects *in the
-direction of benefit* (``direction`` +1: the effect raises the endpoint, -1: lowers it). A
-significant result in the harmful direction is never a success. Exact from the noncentral t
-distribution for a normal endpoint. Assurance averages that same power over a design prior on the
+Power is the probability of the desired outcome: the test rejects *in the direction of benefit*
+(``direction`` +1: the effect raises the endpoint, -1: lowers it). A significant result in the
+harmful direction is never a success. Exact from the noncentral t distribution for a normal
+endpoint. ``test`` is one of
+
+- ``two_sided`` (default): reject when ``direction * T > t_{1-alpha/2, df}``;
+- ``one_sided``: reject when ``direction * T > t_{1-alpha, df}`` (alpha is one-sided);
+- ``non_inferiority``: H0 ``direction * delta <= -margin`` (``margin`` >= 0 on the analysis scale: the
+  loss of benefit tolerated), rejected when ``(direction * estimate + margin) / se > t_{1-alpha, df}``,
+  so the noncentrality is ``(direction * delta + margin) / se``.
+
+Assurance averages that same power over a design prior on the
 effect (O'Hagan, Stevens & Campbell 2005, Pharm Stat 4:187-201).
 """
 
@@ -27,6 +35,36 @@ import numpy as np
 from scipy import stats
 
 DESIGNS = ("parallel", "ancova", "paired")
+TESTS = ("two_sided", "one_sided", "non_inferiority")
+
+
+def tail_alpha(alpha: float, test: str = "two_sided") -> float:
+    """The tail area of the critical value: ``alpha / 2`` for ``two_sided``, ``alpha`` for the one-sided tests.
+
+    Parameters
+    ----------
+    alpha : float
+        Significance level as stated (two-sided for ``two_sided``, one-sided otherwise; dimensionless).
+    test : str
+        ``two_sided``, ``one_sided`` or ``non_inferiority``.
+
+    Returns
+    -------
+    float
+        The upper-tail probability of the critical value (dimensionless).
+
+    Raises
+    ------
+    ValueError
+        For an unknown test.
+    """
+    if test not in TESTS:
+        raise ValueError(f"unknown test {test!r}")
+    return alpha / 2 if test == "two_sided" else alpha
+
+
+def _shift(margin: float, test: str) -> float:
+    return float(margin) if test == "non_inferiority" else 0.0
 
 
 def _df_se(n: np.ndarray | int, sd: float, design: str) -> tuple[np.ndarray, np.ndarray]:
@@ -41,14 +79,46 @@ def _df_se(n: np.ndarray | int, sd: float, design: str) -> tuple[np.ndarray, np.
 
 
 def z_sample_size(delta: float, sd: float, alpha: float = 0.05, power: float = 0.8,
-                  design: str = "parallel") -> int:
-    """Normal-approximation n per arm: 2 (z_{1-a/2} + z_{1-b})^2 sd^2 / delta^2 (paired: without the 2).
+                  design: str = "parallel", test: str = "two_sided", margin: float = 0.0,
+                  direction: float | None = None) -> int:
+    """Normal-approximation n per arm: 2 (z_{1-a'} + z_{1-b})^2 sd^2 / (d delta + m)^2 (paired: without the 2).
 
-    ``delta`` and ``sd`` in the endpoint's analysis unit; returns subjects per arm (rounded up).
+    a' is ``alpha / 2`` for a two-sided test and ``alpha`` for the one-sided and non-inferiority tests;
+    m is ``margin`` for non-inferiority (else 0), d the direction of benefit (Julious 2004, Stat Med
+    23:1921, the normal-data formulas for superiority and non-inferiority; from memory).
+
+    Parameters
+    ----------
+    delta, sd : float
+        Effect and the endpoint's sd, in the endpoint's analysis unit.
+    alpha, power : float
+        Significance level (see ``test``) and target power (dimensionless).
+    design : str
+        ``parallel``, ``ancova`` or ``paired``.
+    test : str
+        ``two_sided``, ``one_sided`` or ``non_inferiority``.
+    margin : float
+        Non-inferiority margin (>= 0, analysis unit).
+    direction : float, optional
+        +1 or -1, the direction of benefit; None takes the sign of ``delta``.
+
+    Returns
+    -------
+    int
+        Subjects per arm (rounded up).
+
+    Raises
+    ------
+    ValueError
+        For an unknown test, or when ``d delta + m`` is not positive (no n reaches the power).
     """
-    z = stats.norm.ppf(1 - alpha / 2) + stats.norm.ppf(power)
+    z = stats.norm.ppf(1 - tail_alpha(alpha, test)) + stats.norm.ppf(power)
     k = 1.0 if design == "paired" else 2.0
-    return int(math.ceil(k * z**2 * sd**2 / delta**2))
+    sign = benefit_sign(delta) if direction is None else float(direction)
+    gap = sign * delta + _shift(margin, test)
+    if gap <= 0:
+        raise ValueError("the effect in the direction of benefit plus the margin must be > 0")
+    return int(math.ceil(k * z**2 * sd**2 / gap**2))
 
 
 def benefit_sign(effect: float) -> float:
@@ -57,25 +127,29 @@ def benefit_sign(effect: float) -> float:
 
 
 def t_power(n: np.ndarray | int, delta: np.ndarray | float, sd: float, alpha: float = 0.05,
-            design: str = "parallel", direction: float | None = None) -> np.ndarray:
-    """Exact probability that the two-sided t test rejects in the direction of benefit (noncentral t).
+            design: str = "parallel", direction: float | None = None, test: str = "two_sided",
+            margin: float = 0.0) -> np.ndarray:
+    """Exact probability that the t test rejects in the direction of benefit (noncentral t).
 
     Parameters
     ----------
     n : subjects per arm (completing).
     delta, sd : true effect and the endpoint's sd, in the analysis unit.
-    alpha : two-sided significance level.
+    alpha : significance level (two-sided for ``two_sided``, one-sided for the others).
     design : ``parallel``, ``ancova`` or ``paired``.
     direction : +1 or -1, the direction of benefit; None takes the sign of ``delta``.
+    test : ``two_sided``, ``one_sided`` or ``non_inferiority``.
+    margin : non-inferiority margin, >= 0 in the analysis unit (ignored by the other tests).
 
     Returns
     -------
-    Power, dimensionless: P(direction * T > t_{1-alpha/2, df}).
+    Power, dimensionless: P((direction * estimate + margin) / se > t_{1-a', df}), a' = alpha/2 (two-sided)
+    or alpha.
     """
     df, se = _df_se(n, sd, design)
     sign = benefit_sign(float(np.mean(delta))) if direction is None else float(direction)
-    ncp = sign * np.asarray(delta) / se
-    tc = stats.t.ppf(1 - alpha / 2, df)
+    ncp = (sign * np.asarray(delta) + _shift(margin, test)) / se
+    tc = stats.t.ppf(1 - tail_alpha(alpha, test), df)
     with np.errstate(all="ignore"):
         p = stats.nct.sf(tc, df, ncp)
     # far in the tails scipy's nct can return nan; the normal approximation is exact to print there
@@ -84,34 +158,37 @@ def t_power(n: np.ndarray | int, delta: np.ndarray | float, sd: float, alpha: fl
 
 
 def n_for_power(delta: float, sd: float, alpha: float, target: float, design: str,
-                n_min: int, n_max: int, direction: float | None = None) -> int | None:
-    """Smallest n per arm in [n_min, n_max] whose exact power (in the direction of benefit) reaches
-    ``target``; None if none does."""
+                n_min: int, n_max: int, direction: float | None = None, test: str = "two_sided",
+                margin: float = 0.0) -> int | None:
+    """Smallest n per arm in [n_min, n_max] whose exact power (in the direction of benefit, ``test`` and
+    ``margin`` as in :func:`t_power`) reaches ``target``; None if none does."""
     n = np.arange(int(n_min), int(n_max) + 1)
-    p = t_power(n, delta, sd, alpha, design, direction)
+    p = t_power(n, delta, sd, alpha, design, direction, test, margin)
     hit = np.nonzero(p >= target)[0]
     return int(n[hit[0]]) if hit.size else None
 
 
 def z_assurance(n: np.ndarray | int, prior_mean: float, prior_sd: float, sd: float,
-                alpha: float = 0.05, design: str = "parallel", direction: float | None = None) -> np.ndarray:
+                alpha: float = 0.05, design: str = "parallel", direction: float | None = None,
+                test: str = "two_sided", margin: float = 0.0) -> np.ndarray:
     """Assurance of the two-sided z test with known sd under a normal design prior (closed form).
 
     The estimate D is marginally N(m, tau^2 + s^2) with tau the standard error; success is a
     significant result in the direction of benefit d (default: the sign of m), so
     P(d D > z tau) = Phi((d m - z tau)/r), r = sqrt(tau^2 + s^2)
-    (O'Hagan, Stevens & Campbell 2005, Pharm Stat 4:187, section 2).
+    (O'Hagan, Stevens & Campbell 2005, Pharm Stat 4:187, section 2); z is z_{1-alpha/2} for a two-sided
+    test, z_{1-alpha} otherwise, and a non-inferiority margin m adds m to d m in the numerator.
     """
     _, tau = _df_se(n, sd, design)
-    z = stats.norm.ppf(1 - alpha / 2)
+    z = stats.norm.ppf(1 - tail_alpha(alpha, test))
     r = np.sqrt(tau**2 + prior_sd**2)
     sign = benefit_sign(prior_mean) if direction is None else float(direction)
-    return stats.norm.cdf((sign * prior_mean - z * tau) / r)
+    return stats.norm.cdf((sign * prior_mean + _shift(margin, test) - z * tau) / r)
 
 
 def t_assurance(n: np.ndarray | int, prior: stats.rv_continuous | None, sd: float,
                 alpha: float = 0.05, design: str = "parallel", nodes: int = 400,
-                direction: float | None = None) -> np.ndarray:
+                direction: float | None = None, test: str = "two_sided", margin: float = 0.0) -> np.ndarray:
     """Exact t power in the direction of benefit averaged over a design prior (scipy frozen) by quadrature.
 
     Midpoint rule in probability: the prior's ppf at (k + 1/2)/nodes; exact enough for smooth
@@ -123,7 +200,7 @@ def t_assurance(n: np.ndarray | int, prior: stats.rv_continuous | None, sd: floa
     deltas = prior.ppf(u)
     sign = benefit_sign(float(prior.median())) if direction is None else float(direction)
     n_arr = np.atleast_1d(np.asarray(n))
-    out = np.array([np.mean(t_power(int(k), deltas, sd, alpha, design, sign)) for k in n_arr])
+    out = np.array([np.mean(t_power(int(k), deltas, sd, alpha, design, sign, test, margin)) for k in n_arr])
     return out if np.ndim(n) else out[0]
 
 
@@ -150,19 +227,22 @@ def n_for_half_width(sd: float, half_width: float, probability: float, alpha: fl
 
 def bayes_success_probability(n: np.ndarray | int, delta_mean: float, delta_sd: float, sd: float,
                               analysis_mean: float, analysis_sd: float, alpha: float = 0.05,
-                              design: str = "parallel", direction: float = 1.0) -> np.ndarray:
-    """Probability that the posterior probability of benefit exceeds 1 - alpha/2 (known sd, conjugate).
+                              design: str = "parallel", direction: float = 1.0, test: str = "two_sided",
+                              margin: float = 0.0) -> np.ndarray:
+    """Probability that the posterior probability of benefit exceeds 1 - a' (known sd, conjugate).
 
     The estimate D ~ N(delta, tau^2) with delta ~ N(delta_mean, delta_sd^2) (delta_sd = 0 for a fixed
     effect); the analysis prior N(analysis_mean, analysis_sd^2) gives the posterior
     N((a/s0^2 + D/tau^2)/(1/s0^2 + 1/tau^2), 1/(1/s0^2 + 1/tau^2)); benefit means
-    ``direction * effect > 0``. Success when direction * post_mean / post_sd > z_{1-a/2}.
+    ``direction * effect > -m`` (m the non-inferiority margin, else 0). Success when
+    (direction * post_mean + m) / post_sd > z_{1-a'}, a' = alpha/2 (two-sided) or alpha.
     """
     _, tau = _df_se(n, sd, design)
-    z = stats.norm.ppf(1 - alpha / 2)
+    z = stats.norm.ppf(1 - tail_alpha(alpha, test))
+    m = _shift(margin, test)
     prec = 1 / analysis_sd**2 + 1 / tau**2
     post_sd = 1 / np.sqrt(prec)
-    # direction * (a/s0^2 + D/tau^2)/prec > z post_sd  <=>  direction * D > threshold
-    thr = tau**2 * (z * post_sd * prec - direction * analysis_mean / analysis_sd**2)
+    # direction * (a/s0^2 + D/tau^2)/prec + m > z post_sd  <=>  direction * D > threshold
+    thr = tau**2 * ((z * post_sd - m) * prec - direction * analysis_mean / analysis_sd**2)
     r = np.sqrt(tau**2 + delta_sd**2)
     return stats.norm.sf((thr - direction * delta_mean) / r)
