@@ -33,7 +33,7 @@ from uncertainty.study import load_study
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, exact: bool,
             trials: int | None, workers: int | None, scheduler: str | None, checkpoint: str | None,
             cuff_schedule: bool, protocol: bool) -> None:
-    """Power of the two-sided test (simulated, with Monte Carlo error, and exact noncentral t),
+    """Power of the stated test (simulated, with Monte Carlo error, and exact noncentral t),
     assurance over the design prior, Bayesian success, n per arm for the targets, and the curves.
 
     With --schedule: the cuff pressures and K reading times of a venous-cuff protocol that minimise
