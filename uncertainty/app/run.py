@@ -29,7 +29,7 @@ from typing import Any
 from uncertainty.analyses import registry
 from uncertainty.app.bundle import REPORT, SCHEMA, Bundle, FileRecord, sha256_file, table_csv
 from uncertainty.app.report import summary_lines, write_report
-from uncertainty.app.section_checks import check_sections
+from uncertainty.app.section_checks import check_study
 from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError
 from uncertainty.core.parallel import InProcess
 from uncertainty.core.provenance import code_hash, package_version, versions
@@ -240,8 +240,7 @@ class _Progress:
 # --------------------------------------------------------------------------------------------
 
 def _check(study: Any) -> dict[str, Any]:
-    if isinstance(study, Study):  # tests pass light stand-ins, which have no analysis sections to check
-        check_sections(study)
+    # the checks themselves ran in `run` (check_study) before the bundle was opened
     names = list(getattr(study, "names", None) or [])
     return jsonable({
         "title": getattr(study, "title", None), "model": getattr(study, "model", None),
@@ -410,15 +409,17 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
     stderr. Returns a :class:`RunResult`.
 
     Raises StudyError/InputError (exit 2) on bad input: before any file is written when the study
-    file is invalid; after the bundle is written (that section flagged as an error, the others run)
-    when an analysis refuses its input. QualityGateError (exit 3, ``.result`` the RunResult) when a
+    file is invalid or any check `fluidshift check` runs refuses it (the section rules and the inference
+    model declared without sampling, :func:`uncertainty.app.section_checks.check_study`); after the
+    bundle is written (that section flagged as an error, the others run) when an analysis refuses its
+    input all the same. QualityGateError (exit 3, ``.result`` the RunResult) when a
     section's quality gate failed, FluidshiftError (exit 1) when a section raised an error; in both
     cases the complete bundle and report are written first.
     """
     started = _now()
     study = LOADER(study_path)
     if isinstance(study, Study):  # every check `fluidshift check` runs, before the bundle is touched
-        check_sections(study)
+        check_study(study)
     seed = getattr(study, "seed", None) if seed is None else seed
     bundle = Bundle(out_dir).open(force=force)
     try:

@@ -1,6 +1,9 @@
 """Checks of analysis sections that need their analysis module's rules (run by `fluidshift check` and by
 the check step of `fluidshift run`, so that bad input stops before any work starts, exit 2).
 
+:func:`check_study` is the one up-front check both commands call: the section rules below and, with
+observations or ``[infer]``, the inference model declared without sampling.
+
 The pydantic schema in ``uncertainty.study`` checks each key on its own; the rules here need the
 resolved study as well: a paired design without within-subject spread, an effect on an unknown
 quantity (``design.parse_design``), a rank budget below the cheapest candidate (``rank.candidates_of``).
@@ -11,6 +14,7 @@ from __future__ import annotations
 from typing import Any
 
 from uncertainty.analyses.design import parse_design
+from uncertainty.analyses.inference.api import check_model
 from uncertainty.analyses.propagate import starting_samples
 from uncertainty.analyses.propagate.thresholds import threshold_specs
 from uncertainty.analyses.rank import candidates_of
@@ -43,3 +47,29 @@ def check_sections(study: Any) -> None:
         parse_design(study)
     if getattr(study, "rank", None) is not None:
         candidates_of(study)
+
+
+def check_study(study: Any) -> dict[str, Any] | None:
+    """Every check `fluidshift check` runs on a loaded study, shared with the check step of `fluidshift run`
+    (called there before the bundle is opened, so a refused study leaves nothing written).
+
+    Parameters
+    ----------
+    study : Study
+        A loaded, schema-valid study.
+
+    Returns
+    -------
+    dict or None
+        With ``[[observations]]`` or ``[infer]``, the summary of the declared (not compiled, not sampled)
+        inference model from :func:`uncertainty.analyses.inference.api.check_model`; otherwise None.
+
+    Raises
+    ------
+    InputError
+        (exit 2) A section cannot run or the inference model refuses the study, naming file, key and value.
+    """
+    check_sections(study)
+    if getattr(study, "observations", None) or getattr(study, "infer", None) is not None:
+        return check_model(study)
+    return None

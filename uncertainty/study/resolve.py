@@ -12,7 +12,8 @@ validated pydantic sections are never modified (a step that converts units retur
 4. :func:`apply_overrides`: ``[parameters]`` on top. An override replaces the whole declaration,
    its between-subject spread included, unless it states one (DESIGN.md section 2).
 5. :func:`select_inputs`: what the model form needs (:class:`FormInputs`); the quantities the form
-   solves are set aside.
+   solves are set aside. (:func:`unused_declarations`, after step 6, notes the declared quantities
+   neither the form nor a section uses.)
 6. :func:`resolve_sections`: the analysis sections and observations, converted to canonical units,
    with their data files and instruments (:class:`Sections`).
 7. :func:`resolve_correlations`: the prior set's and the study's normal-score correlations over the
@@ -656,12 +657,34 @@ def select_inputs(declared: Declared, head: StudySection, file: str) -> FormInpu
             why = f" for {tissue}" if s in tissue_only else ""
             raise study_error(f"the {tissue} prior set gives no prior for {s}, which the {model} form needs"
                               f"{why}; declare it under [parameters]", file, f"parameters.{s}", None)
-    unused_changed = sorted(s for s in priors if s not in needed and s in declared.overridden)
-    if unused_changed:
-        notes.append(f"declared but not used by the {model} form: {', '.join(unused_changed)}")
     return FormInputs(priors={s: priors[s] for s in sorted(needed, key=_input_order)}, derived=used_derived,
                       declared=Declared(priors=priors, derived=derived, notes=tuple(notes),
                                         overridden=declared.overridden))
+
+
+def unused_declarations(form: FormInputs, kept: Kept, model: str) -> tuple[str, ...]:
+    """The note on quantities ``[parameters]`` declares that nothing uses: neither the model form nor a
+    section that keeps a declared quantity (an observation kind's needs, ``OBS_NEEDS``; a rank
+    candidate; a design effect). Made after :func:`resolve_sections`, so a kept quantity is not called
+    unused.
+
+    Parameters
+    ----------
+    form : FormInputs
+        What the form takes (:func:`select_inputs`), with the declarations left after it.
+    kept : Kept
+        What the sections kept (:func:`resolve_sections`).
+    model : str
+        The model form, for the message.
+
+    Returns
+    -------
+    tuple of str
+        One note naming the unused overridden quantities, or none.
+    """
+    used = set(form.priors) | {s for s, _ in kept.priors}
+    unused = sorted(s for s in form.declared.priors if s not in used and s in form.declared.overridden)
+    return (f"declared but not used by the {model} form: {', '.join(unused)}",) if unused else ()
 
 
 def steady_references(head: StudySection, base: TissueBase, derived: Mapping[str, Derivation]

@@ -46,6 +46,7 @@ from uncertainty.study.resolve import (
     select_inputs,
     steady_references,
     tissue_base,
+    unused_declarations,
     validate_document,
 )
 from uncertainty.study.schema import (
@@ -283,8 +284,9 @@ def _study_from(inp: StudyInput) -> Study:
                  conditions=list(head.conditions), model=head.model, seed=head.seed,
                  tissue_mass_kg=base.tissue_mass_kg, basis=base.prior_set.basis, density=base.density,
                  priors=priors, derived=dict(form.derived), names=corr.names, correlation=corr.matrix,
-                 correlations=corr.pairs, notes=[*form.declared.notes, *sections.kept.notes, *corr.notes,
-                        *(plan.notes if plan is not None else ())],
+                 correlations=corr.pairs, notes=[*form.declared.notes,
+                        *unused_declarations(form, sections.kept, head.model), *sections.kept.notes,
+                        *corr.notes, *(plan.notes if plan is not None else ())],
                  propagate=sections.propagate, sensitivity=sections.sensitivity,
                  observations=sections.observations, rank=sections.rank, design=sections.design,
                  schedule=sections.schedule, infer=sections.infer, instruments=dict(sections.kept.instruments),

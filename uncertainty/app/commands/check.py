@@ -4,10 +4,9 @@ from __future__ import annotations
 
 import click
 
-from uncertainty.analyses.inference.api import check_model
 from uncertainty.app.commands.common import emit_json, handle_errors
 from uncertainty.app.commands.priors import rows_table
-from uncertainty.app.section_checks import check_sections
+from uncertainty.app.section_checks import check_study
 from uncertainty.study import TOP_LEVEL, data_notes, load_study, resolved_rows
 
 
@@ -22,8 +21,7 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
     that whatever `infer` would refuse stops here (exit 2)."""
 
     s = load_study(study)
-    check_sections(s)
-    model = check_model(s) if (s.observations or s.infer is not None) else None
+    model = check_study(s)
     rows = resolved_rows(s)
     notes = list(s.notes) + data_notes(s.observations)
     sections = [n for n in TOP_LEVEL if n not in ("study", "parameters", "correlations")
