@@ -230,3 +230,9 @@ def test_prior_delegates_to_its_family():
     np.testing.assert_array_equal(p.from_normal_scores(Z), p.distribution.from_scores(Z))
     sg = parse_prior("sigma", {"dist": "beta", "mean": 0.9, "sd": 0.03, "between_subject": {"sd": 0.02}})
     assert sg.spread is not None and sg.spread.logit
+
+
+@pytest.mark.parametrize("sd", [5e-324, 1e-170])  # sd^2 underflows to 0, or to a subnormal that overflows nu
+def test_beta_with_an_underflowing_sd_is_refused_not_divided_by_zero(sd: float) -> None:
+    with pytest.raises(D.ParameterError, match="too small"):
+        D.Beta(0.4, sd).check()

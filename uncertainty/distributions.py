@@ -647,6 +647,10 @@ class Beta(Distribution):
         if not self.sd ** 2 < self.mean * (1 - self.mean):
             m = (shown or {}).get("mean", self.mean)
             raise ParameterError(f"sd too large for a beta with mean {m:g} (needs sd^2 < mean (1 - mean))", "sd")
+        var = self.sd ** 2
+        if var == 0 or not math.isfinite(self.mean * (1 - self.mean) / var):
+            # sd^2 underflows (e.g. sd = 5e-324): the shape parameters would divide by zero or overflow
+            raise ParameterError("sd too small for a beta (its shape parameters overflow); give a fixed value", "sd")
 
     def _scipy(self, stats: Any) -> Any:
         a, b = self.shapes
