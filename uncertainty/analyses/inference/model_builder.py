@@ -470,11 +470,12 @@ def _repeat_note(obs: Observation) -> list[str]:
             "(times are not modelled)"]
 
 
-def _output_at(problem: Problem, names: list[str], value_of: Any, output: str, z: np.ndarray) -> float:
+def _output_at(problem: Problem, names: list[str], value_of: Any, output: str, z: np.ndarray,
+               centre: dict[str, float] | None = None) -> float:
     """An output of the forward map (numpy) with the quantities ``names`` at scores z (``value_of(q,
-    z_q)``) and every other quantity at its prior centre."""
+    z_q)``) and every other quantity at its prior centre (``centre``, ``prior_centres`` when None)."""
 
-    vals = {**problem.fixed, **prior_centres(problem)}
+    vals = {**problem.fixed, **(prior_centres(problem) if centre is None else centre)}
     vals.update({q: value_of(q, z[j]) for j, q in enumerate(names)})
     return float(np.asarray(problem.evaluate(vals, np)[output]))
 
@@ -483,8 +484,10 @@ def _gradient(problem: Problem, names: list[str], value_of: Any, output: str, lo
     """Gradient of an output (its log when ``log``) with respect to the scores of ``names`` at 0
     (central finite differences, ``_output_at``). None where it is zero or not finite."""
 
+    centre = prior_centres(problem)
+
     def predict(z: np.ndarray) -> float:
-        v = _output_at(problem, names, value_of, output, z)
+        v = _output_at(problem, names, value_of, output, z, centre)
         return float(np.log(v)) if log else v
 
     grad = np.zeros(len(names))
@@ -546,17 +549,20 @@ def _pinned_subjects(problem: Problem, names: list[str], labels: list[str]) -> d
         return problem.priors[q].individual(centre[q], z)
 
     out: dict[int, tuple[str, np.ndarray]] = {}
+    grads: dict[str, np.ndarray | None] = {}   # at the medians: the same for every reading of an output
     for obs, output, _log in _pinned_readings(problem):
         if obs.subject not in labels or labels.index(obs.subject) in out:
             continue
-        grad = _gradient(problem, names, value_of, output, False)
+        if output not in grads:
+            grads[output] = _gradient(problem, names, value_of, output, False)
+        grad = grads[output]
         reading_sd = obs.sd if obs.sd is not None else obs.cv * abs(float(obs.value))
         if grad is None or not reading_sd < PIN_RATIO * np.linalg.norm(grad):
             continue
         w = grad / np.linalg.norm(grad)
 
         def miss(lam: float, w: np.ndarray = w, output: str = output, reading: float = float(obs.value)) -> float:
-            return _output_at(problem, names, value_of, output, lam * w) - reading
+            return _output_at(problem, names, value_of, output, lam * w, centre) - reading
 
         lam = _anchor(miss)
         out[labels.index(obs.subject)] = (output, lam * w)
