@@ -219,6 +219,10 @@ MEANINGS: dict[str, str] = {
                     "design; more than 1 needs `test = \"two_sided\"`): the maximum n is the fixed n times the "
                     "inflation factor; boundaries and expected n under H0 and H1 are in `group_sequential`",
     "design.spending": "Lan-DeMets alpha-spending shape for `looks` > 1: `obrien_fleming` (default) or `pocock`",
+    "design.futility": "optional non-binding futility bound for `looks` > 1: the beta-spending shape, "
+                       "`obrien_fleming` or `pocock` (Pampallona, Tsiatis & Kim 2001); the efficacy bounds ignore it, "
+                       "the maximum n gives the target power with it followed; per-look stopping probabilities and "
+                       "expected n under no effect and the stated effect are reported",
     "design.effect.parameter": "the quantity the treatment changes",
     "design.effect.multiply": "ratio of treated to control (e.g. 0.7)",
     "design.effect.shift": "difference treated minus control, in `unit`",

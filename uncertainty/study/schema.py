@@ -444,6 +444,8 @@ class DesignSection(BaseModel):
     # group-sequential: K equally spaced looks (1 = a fixed design), Lan-DeMets alpha spending shape
     looks: int = Field(default=1, ge=1, le=20)
     spending: Literal["obrien_fleming", "pocock"] = "obrien_fleming"
+    # non-binding futility bound for looks > 1: the beta-spending shape (none by default)
+    futility: Literal["obrien_fleming", "pocock"] | None = None
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 

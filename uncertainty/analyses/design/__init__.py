@@ -129,6 +129,7 @@ class DesignSpec:
     margin: float | None = None  # non-inferiority margin as written: endpoint unit (shift) or a ratio
     looks: int = 1  # group-sequential looks at equally spaced information fractions (1: fixed design)
     spending: str = "obrien_fleming"  # Lan-DeMets spending shape (group_sequential.SPENDING)
+    futility: str | None = None  # non-binding beta-spending futility bound shape (group_sequential.SPENDING)
 
     @property
     def margin_analysis(self) -> float:
@@ -410,6 +411,15 @@ def parse_test(spec: DesignSpec, doc: dict[str, Any]) -> None:
         raise InputError("group-sequential looks are for test = \"two_sided\" (symmetric boundaries)", file=file,
                          key="design.looks", value=looks)
     spec.looks, spec.spending = int(looks), spending
+    futility = doc.get("futility")
+    if futility is not None:
+        if futility not in gs.SPENDING:
+            raise InputError("futility must be obrien_fleming or pocock (the beta-spending shape)", file=file,
+                             key="design.futility", value=futility)
+        if looks < 2:
+            raise InputError("a futility bound needs looks >= 2 (interim analyses)", file=file,
+                             key="design.futility", value=futility)
+    spec.futility = futility
     margin = doc.get("margin")
     if test != "non_inferiority":
         if margin is not None:
@@ -1252,36 +1262,67 @@ def sequential_plan(spec: DesignSpec, n_fixed: int) -> dict[str, Any]:
 
     ``spec.looks`` equally spaced looks, two-sided Lan-DeMets boundaries of ``spec.spending`` shape at
     ``spec.alpha``, power ``spec.target_power`` at the upper (benefit) boundary
-    (:func:`group_sequential.design_summary`, normal statistics with independent increments).
+    (:func:`group_sequential.design_summary`, normal statistics with independent increments). With
+    ``spec.futility`` a non-binding beta-spending futility bound of that shape is added
+    (:func:`group_sequential.futility_design`): the power then holds with the futility rule followed, and
+    the type I error stays at most ``alpha`` whether or not it is followed.
 
     Parameters
     ----------
     spec : DesignSpec
-        The parsed section (looks, spending, alpha, target power, dropout).
+        The parsed section (looks, spending, futility, alpha, target power, dropout).
     n_fixed : int
         Completing subjects per arm of the fixed design.
 
     Returns
     -------
     dict
-        ``looks``, ``spending``, ``information_fractions``, ``boundaries_z`` (dimensionless),
-        ``alpha_spent`` (cumulative), ``inflation`` (dimensionless), ``n_per_arm_max_completing`` /
-        ``_enrolled`` (subjects per arm, rounded up), ``n_per_arm_at_looks`` (completing, cumulative),
-        ``expected_n_per_arm_null`` / ``_alternative`` (completing, subjects per arm).
+        ``looks``, ``spending``, ``futility``, ``information_fractions``, ``boundaries_z`` (dimensionless),
+        ``futility_z`` (Z in the direction of benefit, or None), ``alpha_spent`` / ``beta_spent``
+        (cumulative), ``inflation`` (dimensionless), ``n_per_arm_max_completing`` / ``_enrolled`` (subjects
+        per arm, rounded up), ``n_per_arm_at_looks`` (completing, cumulative), ``expected_n_per_arm_null`` /
+        ``_alternative`` (completing, subjects per arm), ``stop_null`` / ``stop_alternative`` (per look: the
+        probability of stopping for efficacy, for futility or harm, and in all, dimensionless).
     """
     t = np.arange(1, spec.looks + 1) / spec.looks
-    s = gs.design_summary(t, spec.alpha, spec.target_power, spec.spending, float(n_fixed))
+    if spec.futility:
+        s = gs.futility_design(t, spec.alpha, spec.target_power, spec.spending, spec.futility, float(n_fixed))
+        ex0, ex1 = s["stop_null"], s["stop_alternative"]
+        stop0 = {"efficacy": ex0["efficacy"], "futility": ex0["futility"]}
+        stop1 = {"efficacy": ex1["efficacy"], "futility": ex1["futility"]}
+        method = ("Lan-DeMets alpha spending, equally spaced looks, normal approximation (independent increments); "
+                  f"non-binding futility bound by {spec.futility} beta spending (Pampallona, Tsiatis & Kim 2001): "
+                  "the efficacy bounds ignore it, the maximum n gives the target power with it followed")
+    else:
+        s = gs.design_summary(t, spec.alpha, spec.target_power, spec.spending, float(n_fixed))
+        theta = (stats.norm.ppf(1 - spec.alpha / 2) + stats.norm.ppf(spec.target_power)) * math.sqrt(s["inflation"])
+        e0, e1 = gs.exit_probabilities(t, s["boundaries"], 0.0), gs.exit_probabilities(t, s["boundaries"], theta)
+        stop0 = {"efficacy": e0["upper"], "futility": e0["lower"]}
+        stop1 = {"efficacy": e1["upper"], "futility": e1["lower"]}
+        method = ("Lan-DeMets alpha spending, equally spaced looks, normal approximation (independent "
+                  "increments); the maximum n is the fixed n times the inflation factor")
+
+    def stops(d: dict[str, np.ndarray]) -> dict[str, list[float]]:
+        tot = d["efficacy"] + d["futility"]
+        tot[-1] = 1 - tot[:-1].sum()
+        return {"efficacy": [float(v) for v in d["efficacy"]], "futility_or_harm": [float(v) for v in d["futility"]],
+                "any": [float(v) for v in tot]}
+
     n_max = int(math.ceil(float(s["n_max"]) - 1e-9))
-    return {"looks": spec.looks, "spending": spec.spending, "information_fractions": t.tolist(),
+    return {"looks": spec.looks, "spending": spec.spending, "futility": spec.futility,
+            "information_fractions": t.tolist(),
             "boundaries_z": [float(c) for c in s["boundaries"]],
-            "alpha_spent": [float(a) for a in s["alpha_spent"]], "inflation": float(s["inflation"]),
+            "futility_z": [float(b) for b in s["futility_z"]] if spec.futility else None,
+            "alpha_spent": [float(a) for a in s["alpha_spent"]],
+            "beta_spent": [float(a) for a in s["beta_spent"]] if spec.futility else None,
+            "inflation": float(s["inflation"]),
             "n_per_arm_fixed_completing": int(n_fixed), "n_per_arm_max_completing": n_max,
             "n_per_arm_max_enrolled": enrolled(n_max, spec.dropout),
             "n_per_arm_at_looks": [int(math.ceil(n_max * f - 1e-9)) for f in t],
             "expected_n_per_arm_null": float(s["expected_n_null"]) * n_max / float(s["n_max"]),
             "expected_n_per_arm_alternative": float(s["expected_n_alternative"]) * n_max / float(s["n_max"]),
-            "method": "Lan-DeMets alpha spending, equally spaced looks, normal approximation (independent "
-                      "increments); the maximum n is the fixed n times the inflation factor"}
+            "stop_null": stops(stop0), "stop_alternative": stops(stop1),
+            "method": method}
 
 
 def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[str, str]]:
@@ -1316,6 +1357,9 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
     if spec.looks > 1:
         rows.append({"what": "interim analyses", "value": f"{spec.looks} equally spaced looks, Lan-DeMets "
                      f"{spec.spending} spending", "source": src})
+        if spec.futility:
+            rows.append({"what": "futility rule", "value": f"non-binding, {spec.futility}-shaped beta spending",
+                         "source": src})
     if spec.target_assurance is not None:
         rows.append({"what": "target assurance", "value": f"{spec.target_assurance:g}", "source": src})
     rows.append({"what": "dropout", "value": f"{spec.dropout:g}", "source": src})

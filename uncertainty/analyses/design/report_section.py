@@ -80,6 +80,43 @@ def _p(x: Any, se: Any = None) -> str:
     return f"{x:.3f}" + (f" +- {se:.3f} (MC error)" if se is not None else "")
 
 
+def sequential_markdown(gsq: dict[str, Any], per: str = "per arm") -> list[str]:
+    """Markdown lines of a group-sequential plan: the futility rule and a per-look table of n, bounds and
+    the probabilities of stopping at that look under no effect (H0) and the stated effect (H1).
+
+    Parameters
+    ----------
+    gsq : dict
+        The ``group_sequential`` entry of a design result (subjects; Z and probabilities dimensionless).
+    per : str
+        How n is counted ("per arm", "per sequence" or "subjects").
+
+    Returns
+    -------
+    list of str
+        Markdown lines (empty for a plan without per-look probabilities).
+    """
+    if not gsq.get("stop_null"):
+        return []
+    fut = gsq.get("futility_z")
+    out = []
+    if fut:
+        out += [f"Futility: at each interim analysis the trial may stop when the Z statistic in the direction of "
+                f"benefit falls below the futility bound ({gsq['futility']}-shaped beta spending of 1 - power "
+                "under the stated effect; Pampallona, Tsiatis & Kim 2001). The bound is non-binding: the efficacy "
+                "bounds ignore it, so the type I error holds whether or not the trial stops; the power and the "
+                "expected n assume it is followed.", ""]
+    low = "futility" if fut else "harm"
+    out += [f"| look | n {per} (completing) | efficacy Z | {low} Z | stop H0: efficacy | stop H0: {low} | "
+            f"stop H1: efficacy | stop H1: {low} |", "|---|---|---|---|---|---|---|---|"]
+    s0, s1 = gsq["stop_null"], gsq["stop_alternative"]
+    for k, n in enumerate(gsq["n_per_arm_at_looks"]):
+        b = fut[k] if fut else -gsq["boundaries_z"][k]
+        out.append(f"| {k + 1} | {n} | {gsq['boundaries_z'][k]:.3f} | {b:.3f} | {s0['efficacy'][k]:.4f} | "
+                   f"{s0['futility_or_harm'][k]:.4f} | {s1['efficacy'][k]:.4f} | {s1['futility_or_harm'][k]:.4f} |")
+    return out + [""]
+
+
 def protocol_markdown(doc: dict[str, Any]) -> str:
     """A protocol-ready sample-size paragraph and tables in Markdown, from a design result's document.
 
@@ -116,6 +153,7 @@ def protocol_markdown(doc: dict[str, Any]) -> str:
                   f"inflation factor {gsq['inflation']:.3f}); expected completing n {per} "
                   f"{gsq['expected_n_per_arm_null']:.1f} under no effect and "
                   f"{gsq['expected_n_per_arm_alternative']:.1f} under the stated effect.", ""]
+        lines += sequential_markdown(gsq, per)
     if doc.get("power_conditional") is not None:
         cond = _p(doc["power_conditional"], doc.get("power_conditional_mc_se"))
         lines += [f"Power at the stated typical values: {cond}; the power above is the expected power over "

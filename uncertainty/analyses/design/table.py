@@ -41,6 +41,34 @@ def headline(doc: dict[str, Any]) -> str:
     return text
 
 
+def sequential_lines(gsq: dict[str, Any]) -> list[str]:
+    """Per-look lines of a group-sequential plan: n, bounds and the probabilities of stopping there.
+
+    Parameters
+    ----------
+    gsq : dict
+        The ``group_sequential`` entry of a design result (subjects per arm; Z and probabilities dimensionless).
+
+    Returns
+    -------
+    list of str
+        A header and one line per look.
+    """
+    if not gsq.get("stop_null"):
+        return []
+    fut = gsq.get("futility_z")
+    lines = [("futility rule: non-binding, " + f"{gsq['futility']}-shaped beta spending" if fut else
+              "no futility rule (the lower column is stopping for harm)"),
+             f"{'look':>5}{'n/arm':>7}{'eff. Z':>8}{'fut. Z':>8}{'H0 eff.':>9}{'H0 fut.':>9}{'H1 eff.':>9}"
+             f"{'H1 fut.':>9}"]
+    s0, s1 = gsq["stop_null"], gsq["stop_alternative"]
+    for k, n in enumerate(gsq["n_per_arm_at_looks"]):
+        b = f"{fut[k]:.3f}" if fut else f"{-gsq['boundaries_z'][k]:.3f}"
+        lines.append(f"{k + 1:>5}{n:>7}{gsq['boundaries_z'][k]:>8.3f}{b:>8}{s0['efficacy'][k]:>9.4f}"
+                     f"{s0['futility_or_harm'][k]:>9.4f}{s1['efficacy'][k]:>9.4f}{s1['futility_or_harm'][k]:>9.4f}")
+    return lines
+
+
 def table(doc: dict[str, Any]) -> str:
     """Plain-text summary and curve of a design result.
 
@@ -69,6 +97,7 @@ def table(doc: dict[str, Any]) -> str:
                      f"{gsq['expected_n_per_arm_null']:.1f} under H0, "
                      f"{gsq['expected_n_per_arm_alternative']:.1f} under H1; |Z| boundaries "
                      + ", ".join(f"{c:.3f}" for c in gsq["boundaries_z"]))
+        lines += sequential_lines(gsq)
     if doc.get("target_assurance") is not None:
         n_a = doc.get("n_per_arm_assurance_enrolled", doc.get("n_per_arm_assurance"))
         se = doc.get("n_per_arm_assurance_mc_se")
