@@ -186,7 +186,8 @@ MEANINGS: dict[str, str] = {
     "rank.candidates.instrument": "noise from priors/instruments.toml",
     "rank.candidates.cost": "relative cost (any consistent unit), used by `per_cost` and `budget`",
     "rank.candidates.n": "number of repeated readings averaged",
-    "design.design": "parallel (two arms) or paired (each subject before and after)",
+    "design.design": "parallel (two arms), paired (each subject before and after) or crossover (AB/BA two-period "
+                     "crossover, n per sequence; needs `within_subject`; no carry-over assumed)",
     "design.endpoint": "a quantity, \"Jv\", or an observation kind",
     "design.effect": "the treatment effect to detect",
     "design.between_subject": "spread of individuals around the typical value, per quantity",

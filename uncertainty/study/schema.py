@@ -413,7 +413,7 @@ class DesignSection(BaseModel):
     (parsed into ``Prior`` objects in ``design_prior_obj`` / ``analysis_prior_obj``)."""
 
     model_config = STRICT_CONFIG
-    design: Literal["parallel", "paired"] = "parallel"
+    design: Literal["parallel", "paired", "crossover"] = "parallel"
     endpoint: str = "Jv"
     effect: Effect
     between_subject: dict[str, Spread] = Field(default_factory=dict)

@@ -1,7 +1,10 @@
 """Trial design: power, assurance, Bayesian success and sample size for a study's ``[design]``.
 
 Designs: ``parallel`` (two arms; with ``baseline = true`` analysed by ANCOVA on the baseline) and
-``paired`` (before/after in the same subjects; needs ``within_subject`` test-retest spread).
+``paired`` (before/after in the same subjects; needs ``within_subject`` test-retest spread) and
+``crossover`` (AB/BA two-period crossover: n subjects per sequence, each treated in one period and not in
+the other; analysed by the two-sample t test on the halved period differences, which removes a period
+effect; needs ``within_subject`` spread; no carry-over assumed).
 The effect is a ``shift`` (natural units, analysed on the natural scale) or a ``multiply`` (a
 ratio, analysed on the log scale: sd of a log endpoint from a cv is sqrt(ln(1 + cv^2))) on one or
 more quantities. ``design_prior`` is over the first effect's shift or log ratio.
@@ -165,9 +168,9 @@ class DesignSpec:
 
     @property
     def analysis(self) -> str:
-        """``parallel`` (t test), ``ancova`` or ``paired``: the analysis of one trial."""
-        if self.design == "paired":
-            return "paired"
+        """``parallel`` (t test), ``ancova``, ``paired`` or ``crossover``: the analysis of one trial."""
+        if self.design in ("paired", "crossover"):
+            return self.design
         return "ancova" if self.baseline else "parallel"
 
     @property
@@ -245,9 +248,13 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
     priors = getattr(study, "priors", {}) or {}
     spec = DesignSpec(file=file)
     spec.design = doc.get("design", "parallel")
-    if spec.design not in ("parallel", "paired"):
-        raise InputError("design must be parallel or paired", file=file, key="design.design", value=spec.design)
+    if spec.design not in ("parallel", "paired", "crossover"):
+        raise InputError("design must be parallel, paired or crossover", file=file, key="design.design",
+                         value=spec.design)
     spec.baseline = bool(doc.get("baseline", False))
+    if spec.baseline and spec.design != "parallel":
+        raise InputError("baseline (ANCOVA) is for design = \"parallel\"", file=file, key="design.baseline",
+                         value=spec.baseline)
     spec.benefit = doc.get("benefit")
     if spec.benefit not in (None, "increase", "decrease"):
         raise InputError("benefit must be increase or decrease", file=file, key="design.benefit", value=spec.benefit)
@@ -327,8 +334,8 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
             target[sym] = _spread(sp, file, f"design.{name}.{sym}")
     if doc.get("measurement") is not None:
         spec.measurement = _spread(doc["measurement"], file, "design.measurement")
-    if spec.design == "paired" and not spec.within:
-        raise InputError("a paired design needs within_subject (test-retest) variability", file=file,
+    if spec.design in ("paired", "crossover") and not spec.within:
+        raise InputError(f"a {spec.design} design needs within_subject (test-retest) variability", file=file,
                          key="design.within_subject",
                          value=_section_dict(doc.get("within_subject")))
 
@@ -581,6 +588,16 @@ def simulate_trials(study: Any, spec: DesignSpec, n: int, trials: int, rng: np.r
         return _measure(study, spec, _endpoint(study, spec, vals, shape), rng)
 
     none = np.zeros(shape, dtype=bool)
+    if spec.design == "crossover":
+        # sequence AB (the first n subjects): treated in period 1; sequence BA: treated in period 2
+        seq_ab = np.zeros(shape, dtype=bool)
+        seq_ab[:, :n] = True
+        p1, p2 = occasion(seq_ab), occasion(~seq_ab)
+        if spec.scale == "log":
+            with np.errstate(invalid="ignore", divide="ignore"):
+                p1, p2 = (np.log(np.where(v > 0, v, np.nan)) for v in (p1, p2))
+        d = (p1 - p2) / 2  # halved period differences: AB has mean (delta + period) / 2, BA (-delta + period) / 2
+        return {"y0": d[:, n:], "y1": d[:, :n]}
     if spec.design == "paired":
         before = occasion(none)
         after = occasion(~none)
@@ -604,8 +621,12 @@ def analyse_fast(data: dict[str, np.ndarray], analysis: str) -> tuple[np.ndarray
     """Closed-form analysis of each simulated trial: (estimate, standard error, df), each (trials,).
 
     ``parallel``: difference of means, pooled sd; ``ancova``: pooled within-arm regression on the
-    baseline; ``paired``: mean and sd of the differences. Trials with non-finite data give NaN.
+    baseline; ``paired``: mean and sd of the differences; ``crossover``: the two-sample t test on the halved
+    period differences of the two sequences (``y1`` sequence AB, ``y0`` BA, as :func:`simulate_trials` gives
+    them). Trials with non-finite data give NaN.
     """
+    if analysis == "crossover":
+        analysis = "parallel"
     y0, y1 = data["y0"], data["y1"]
     n = y0.shape[1]
     if analysis == "paired":
@@ -655,6 +676,8 @@ _COMPILED: dict[str, Any] = {}
 
 def _compiled_model(analysis: str) -> Any:
     """The PyMC trial model for one analysis, compiled once per process (nutpie)."""
+    if analysis == "crossover":
+        analysis = "parallel"  # a two-group model of the halved period differences
     if analysis in _COMPILED:
         return _COMPILED[analysis]
     import nutpie
@@ -699,6 +722,8 @@ def analyse_mcmc(data: dict[str, np.ndarray], analysis: str, spec: DesignSpec, s
     import nutpie
 
     compiled = _compiled_model(analysis)
+    if analysis == "crossover":
+        analysis = "parallel"
     y0, y1 = data["y0"], data["y1"]
     trials, n = y0.shape
     success = np.zeros(trials, dtype=bool)
@@ -856,6 +881,11 @@ def analytic_sd(study: Any, spec: DesignSpec) -> tuple[float | None, str]:
     total2 = b**2 + w**2 + m**2
     if spec.analysis == "paired":
         return math.sqrt(2 * (w**2 + m**2)), "closed form (paired differences)"
+    if spec.analysis == "crossover":
+        rho = b**2 / total2 if total2 > 0 else 0.0
+        return (math.sqrt(2 * (w**2 + m**2)),
+                f"closed form (crossover: sd of a period difference sqrt(2 (1 - rho)) sigma, sigma "
+                f"{math.sqrt(total2):.4g}, between-period correlation rho {rho:.3f})")
     if spec.analysis == "ancova":
         rho = b**2 / total2 if total2 > 0 else 0.0
         return math.sqrt(total2 * (1 - rho**2)), "closed form (ANCOVA residual)"
@@ -897,9 +927,9 @@ def pilot_sd(study: Any, spec: DesignSpec, seed: int, n: int = PILOT_N) -> tuple
                                               for e in spec.effects])
     data0 = simulate_trials(study, null, n, 1, np.random.default_rng(seed), typical=typ)
     _, se, _ = analyse_fast(data, spec.analysis)
-    k = math.sqrt(n) if spec.analysis == "paired" else math.sqrt(n / 2)
+    k = {"paired": math.sqrt(n), "crossover": math.sqrt(2 * n)}.get(spec.analysis, math.sqrt(n / 2))
     diff = data["y1"] - data0["y1"]
-    effect = float(np.nanmean(diff))
+    effect = float(np.nanmean(diff)) * (2.0 if spec.analysis == "crossover" else 1.0)
     return float(se[0] * k), effect
 
 
@@ -1177,7 +1207,8 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
     doc: dict[str, Any] = {
         "design": spec.design,
         "analysis": {"parallel": "two-sample t test", "ancova": "ANCOVA on baseline",
-                     "paired": "paired t test"}[spec.analysis],
+                     "paired": "paired t test",
+                     "crossover": "AB/BA crossover, t test on period differences"}[spec.analysis],
         "endpoint": spec.endpoint,
         "endpoint_reads": spec.output,
         "scale": spec.scale,
@@ -1371,6 +1402,9 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
                      "source": "study [design]" if spec.between.get(sym) else origin})
     for sym, sp in spec.within.items():
         rows.append({"what": f"within-subject (occasion) spread of {sym}", "value": str(sp), "source": src})
+    if spec.design == "crossover":
+        rows.append({"what": "crossover periods", "value": "two periods, sequences AB and BA of equal size; no "
+                     "carry-over (an adequate washout); a period effect cancels in the analysis", "source": src})
     rows.append({"what": "measurement error", "value": str(spec.measurement or "none"), "source": src})
     for sym, v in (doc.get("typical_values") or {}).items():
         pr = study.priors[sym]

@@ -14,7 +14,9 @@ from uncertainty.core.plotting import pyplot, save_figure
 #: what the figure title calls each analysis
 DESIGN_NAMES = {"two-sample t test": "parallel groups, two-sample t test",
                 "ANCOVA on baseline": "parallel groups, ANCOVA on baseline",
-                "paired t test": "paired (before/after), paired t test"}
+                "paired t test": "paired (before/after), paired t test",
+                "AB/BA crossover, t test on period differences": "AB/BA two-period crossover, t test on period "
+                                                                  "differences"}
 
 
 def title(doc: dict[str, Any]) -> str:

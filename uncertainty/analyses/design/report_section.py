@@ -133,7 +133,7 @@ def protocol_markdown(doc: dict[str, Any]) -> str:
     """
     n_e, n_c = doc.get("n_per_arm_enrolled"), doc.get("n_per_arm_completing")
     groups = doc.get("groups", 2)
-    per = "per arm" if groups == 2 else "subjects"
+    per = "per sequence" if doc.get("design") == "crossover" else "per arm" if groups == 2 else "subjects"
     how = "by simulation" if str(doc.get("n_method", "")).startswith("simulated") else "from the exact noncentral t"
     test = doc.get("test_text") or f"two-sided test at alpha = {doc['alpha']:g}"
     lines = ["## Sample size", "",

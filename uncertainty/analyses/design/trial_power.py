@@ -10,7 +10,12 @@ ratio). ``design`` is one of
   estimated baseline slope, a factor ``1 + 1/(2n - 4)`` on the variance (the mean of
   dx^2 / Sxx with dx ~ N(0, 2 s_x^2/n) and Sxx ~ s_x^2 chi2_{2n-2}, E[1/chi2_k] = 1/(k - 2));
 - ``paired``: before/after in the same ``n`` subjects, one-sample t test on the differences,
-  ``df = n - 1``, standard error ``sd_diff / sqrt(n)``.
+  ``df = n - 1``, standard error ``sd_diff / sqrt(n)``;
+- ``crossover``: AB/BA two-period crossover with ``n`` subjects per sequence (N = 2n), ``sd`` the sd of
+  a period difference, sqrt(2) sigma_w = sqrt(2 (1 - rho)) sigma (sigma_w the within-subject sd, rho the
+  between-period correlation); ``df = 2n - 2``, standard error ``sd / sqrt(2n)``, i.e. the variance
+  2 sigma_w^2 / N of the crossover estimate (Julious 2004, Stat Med 23:1921, section on crossover trials;
+  from memory).
 
 Power is the probability of the desired outcome: the test rejects *in the direction of benefit*
 (``direction`` +1: the effect raises the endpoint, -1: lowers it). A significant result in the
@@ -34,7 +39,7 @@ import math
 import numpy as np
 from scipy import stats
 
-DESIGNS = ("parallel", "ancova", "paired")
+DESIGNS = ("parallel", "ancova", "paired", "crossover")
 TESTS = ("two_sided", "one_sided", "non_inferiority")
 
 
@@ -75,13 +80,17 @@ def _df_se(n: np.ndarray | int, sd: float, design: str) -> tuple[np.ndarray, np.
         return 2 * n - 3, sd * np.sqrt(2.0 / n * (1.0 + 1.0 / (2 * n - 4)))
     if design == "paired":
         return n - 1, sd / np.sqrt(n)
+    if design == "crossover":
+        return 2 * n - 2, sd / np.sqrt(2 * n)
     raise ValueError(f"unknown design {design!r}")
 
 
 def z_sample_size(delta: float, sd: float, alpha: float = 0.05, power: float = 0.8,
                   design: str = "parallel", test: str = "two_sided", margin: float = 0.0,
                   direction: float | None = None) -> int:
-    """Normal-approximation n per arm: 2 (z_{1-a'} + z_{1-b})^2 sd^2 / (d delta + m)^2 (paired: without the 2).
+    """Normal-approximation n per arm: 2 (z_{1-a'} + z_{1-b})^2 sd^2 / (d delta + m)^2 (paired: without the 2;
+    crossover, n per sequence with ``sd`` the sd of a period difference: a half instead of the 2, i.e. the
+    total N = 2 (z_{1-a'} + z_{1-b})^2 sigma_w^2 / delta^2 of Julious 2004).
 
     a' is ``alpha / 2`` for a two-sided test and ``alpha`` for the one-sided and non-inferiority tests;
     m is ``margin`` for non-inferiority (else 0), d the direction of benefit (Julious 2004, Stat Med
@@ -113,7 +122,7 @@ def z_sample_size(delta: float, sd: float, alpha: float = 0.05, power: float = 0
         For an unknown test, or when ``d delta + m`` is not positive (no n reaches the power).
     """
     z = stats.norm.ppf(1 - tail_alpha(alpha, test)) + stats.norm.ppf(power)
-    k = 1.0 if design == "paired" else 2.0
+    k = {"paired": 1.0, "crossover": 0.5}.get(design, 2.0)
     sign = benefit_sign(delta) if direction is None else float(direction)
     gap = sign * delta + _shift(margin, test)
     if gap <= 0:
@@ -209,7 +218,7 @@ def half_width_probability(n: np.ndarray | int, sd: float, half_width: float, al
     """Probability that the (1 - alpha) t interval's half-width is at most ``half_width``.
 
     Half-width = t_{1-a/2,df} s k with s^2 ~ sd^2 chi2_df / df, so the probability is
-    P(chi2_df <= df (w / (t sd k))^2), k = sqrt(2/n) (two arms) or 1/sqrt(n) (paired).
+    P(chi2_df <= df (w / (t sd k))^2), k = sqrt(2/n) (two arms), 1/sqrt(n) (paired) or 1/sqrt(2n) (crossover).
     """
     df, se = _df_se(n, sd, design)
     tc = stats.t.ppf(1 - alpha / 2, df)
