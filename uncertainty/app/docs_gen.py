@@ -66,6 +66,10 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "The treatment effect on one quantity: a ratio (`multiply`) or a difference (`shift`)."),
     ("design.spread", "between_subject / within_subject / measurement = { sd | cv }", "Spread",
      "A spread: `sd` in the quantity's canonical unit, or `cv` (a fraction)."),
+    ("design.responder", "responder = { cut = ..., side = ... }", "Responder",
+     "A binary responder endpoint: a subject responds when the endpoint lies below or above `cut`; the arms' "
+     "response proportions are compared by the z test with continuity correction (n by its exact binomial power, "
+     "Fleiss' formula beside it). Parallel groups without baseline; two-sided or one-sided test."),
     ("interventions", "[[interventions]]", "Intervention",
      "The `whole_body` form's infusions and bleeds, one table each, in any order. Refused (exit 2, naming the "
      "key and value): a volume that is not positive, a start at or after the timeline's end, an unknown fluid, "
@@ -224,6 +228,10 @@ MEANINGS: dict[str, str] = {
                        "`obrien_fleming` or `pocock` (Pampallona, Tsiatis & Kim 2001); the efficacy bounds ignore it, "
                        "the maximum n gives the target power with it followed; per-look stopping probabilities and "
                        "expected n under no effect and the stated effect are reported",
+    "design.responder": "optional binary endpoint: responder when the endpoint lies `side` of `cut` (canonical "
+                        "unit); power from the exact binomial distribution of the corrected z test of two proportions",
+    "design.responder.cut": "the responder cut in the endpoint's canonical unit (> 0 for a ratio effect)",
+    "design.responder.side": "`below` or `above` the cut (default: the side the benefit moves the endpoint to)",
     "design.effect.parameter": "the quantity the treatment changes",
     "design.effect.multiply": "ratio of treated to control (e.g. 0.7)",
     "design.effect.shift": "difference treated minus control, in `unit`",

@@ -51,6 +51,7 @@ from uncertainty.study.schema import (  # noqa: F401
     Observation,
     PropagateSection,
     RankSection,
+    Responder,
     Scenario,
     ScenarioChange,
     ScheduleSection,

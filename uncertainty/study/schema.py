@@ -407,6 +407,14 @@ class Effect(BaseModel):
         return self
 
 
+class Responder(BaseModel):
+    """``[design] responder``: a binary endpoint; a subject responds when the endpoint lies ``side`` of ``cut``."""
+
+    model_config = STRICT_CONFIG
+    cut: float = Field(allow_inf_nan=False)
+    side: Literal["below", "above"] | None = None
+
+
 class DesignSection(BaseModel):
     """``[design]``: trial sizing. Defaults: parallel, endpoint Jv, two-sided test, alpha 0.05, power 0.8,
     no dropout, n from 10 to 200 per arm; ``design_prior`` / ``analysis_prior`` are declarations
@@ -446,6 +454,8 @@ class DesignSection(BaseModel):
     spending: Literal["obrien_fleming", "pocock"] = "obrien_fleming"
     # non-binding futility bound for looks > 1: the beta-spending shape (none by default)
     futility: Literal["obrien_fleming", "pocock"] | None = None
+    # binary responder endpoint: responder when the endpoint (canonical unit) lies below / above the cut
+    responder: Responder | None = None
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 

@@ -38,6 +38,7 @@ import numpy as np
 from scipy import stats
 
 from uncertainty.analyses import sampling
+from uncertainty.analyses.design import binary
 from uncertainty.analyses.design import group_sequential as gs
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.analyses.design.result import DesignResult
@@ -133,6 +134,20 @@ class DesignSpec:
     looks: int = 1  # group-sequential looks at equally spaced information fractions (1: fixed design)
     spending: str = "obrien_fleming"  # Lan-DeMets spending shape (group_sequential.SPENDING)
     futility: str | None = None  # non-binding beta-spending futility bound shape (group_sequential.SPENDING)
+    responder: dict[str, Any] | None = None  # {"cut": canonical unit, "side": "below" | "above"}: binary endpoint
+
+    @property
+    def responder_sign(self) -> float:
+        """+1 when more responders on treatment is the benefit (the cut lies on the side of benefit), else -1."""
+        if self.responder is None:
+            return 1.0
+        return 1.0 if (self.responder["side"] == "below") == (self.direction < 0) else -1.0
+
+    @property
+    def responder_cut_analysis(self) -> float:
+        """The responder cut on the analysis scale (its natural log on the log scale)."""
+        cut = float(self.responder["cut"]) if self.responder else 0.0
+        return math.log(cut) if self.scale == "log" else cut
 
     @property
     def margin_analysis(self) -> float:
@@ -377,7 +392,59 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
         if not isinstance(hw, int | float) or hw <= 0:
             raise InputError("target_half_width must be > 0", file=file, key="design.target_half_width", value=hw)
         spec.target_half_width = float(hw)
+    parse_responder(spec, doc)
     return spec
+
+
+def parse_responder(spec: DesignSpec, doc: dict[str, Any]) -> None:
+    """Set ``spec.responder`` from ``[design] responder = { cut = .., side = .. }`` (a binary endpoint).
+
+    A subject responds when the endpoint (canonical unit) lies below or above ``cut``; ``side`` defaults to
+    the direction of benefit (below when a decrease is the benefit). Responder endpoints are analysed by
+    the continuity-corrected z test of two proportions, so they need parallel groups without a baseline, a
+    two-sided or one-sided test, and neither ``target_half_width`` nor ``analysis_prior``.
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The section parsed so far; changed in place.
+    doc : dict
+        The section as a dict.
+
+    Raises
+    ------
+    InputError
+        A cut that is not a finite number (or not > 0 on the log scale), an unknown side, or a design, test
+        or target that does not go with a binary endpoint (keys ``design.responder...``).
+    """
+    raw = _section_dict(doc.get("responder"))
+    if not raw:
+        return
+    file = spec.file
+    extra = set(raw) - {"cut", "side"}
+    if extra:
+        raise InputError("responder takes cut and side only", file=file, key=f"design.responder.{sorted(extra)[0]}",
+                         value=raw[sorted(extra)[0]])
+    cut = raw.get("cut")
+    if isinstance(cut, bool) or not isinstance(cut, int | float) or not math.isfinite(cut):
+        raise InputError("responder cut must be a number in the endpoint's canonical unit", file=file,
+                         key="design.responder.cut", value=cut)
+    if spec.scale == "log" and cut <= 0:
+        raise InputError("responder cut must be > 0 for an endpoint analysed on the log scale", file=file,
+                         key="design.responder.cut", value=cut)
+    side = raw.get("side") or ("below" if spec.direction < 0 else "above")
+    if side not in ("below", "above"):
+        raise InputError("responder side must be below or above", file=file, key="design.responder.side", value=side)
+    why = None
+    if spec.analysis != "parallel":
+        why = "a responder endpoint needs design = \"parallel\" without baseline"
+    elif spec.test == "non_inferiority":
+        why = "a responder endpoint takes test = \"two_sided\" or \"one_sided\""
+    elif spec.target_half_width is not None or spec.analysis_prior is not None:
+        why = "a responder endpoint takes neither target_half_width nor analysis_prior"
+    if why:
+        raise InputError(why, file=file, key="design.responder", value=raw)
+    spec.responder = {"cut": float(cut), "side": side}
 
 
 def parse_test(spec: DesignSpec, doc: dict[str, Any]) -> None:
@@ -649,6 +716,17 @@ def analyse_fast(data: dict[str, np.ndarray], analysis: str) -> tuple[np.ndarray
     return est, se, np.full(len(y0), 2 * n - 3.0)
 
 
+def _responder_success(data: dict[str, np.ndarray], spec: DesignSpec) -> dict[str, np.ndarray]:
+    """Per-trial success of a responder endpoint: counts beyond the cut, continuity-corrected z test."""
+    cut = spec.responder_cut_analysis
+    below = spec.responder["side"] == "below"
+    with np.errstate(invalid="ignore"):
+        x0, x1 = ((np.nan_to_num(y, nan=-np.inf) < cut) if below else (y > cut) for y in (data["y0"], data["y1"]))
+    n = data["y0"].shape[1]
+    ok = binary.success(x0.sum(axis=1), x1.sum(axis=1), n, spec.alpha, spec.test, spec.responder_sign)
+    return {"success": ok, "half_width": np.full(len(ok), np.inf)}
+
+
 def _fast_success(est: np.ndarray, se: np.ndarray, df: np.ndarray, spec: DesignSpec) -> dict[str, np.ndarray]:
     a_tail = tp.tail_alpha(spec.alpha, spec.test)
     tc = stats.t.ppf(1 - a_tail, df)
@@ -797,9 +875,13 @@ def _run_point(study: Any, spec: DesignSpec, point: _Point, ss: np.random.SeedSe
     delta = None
     if point.what == "assurance":
         delta = spec.design_prior_frozen().ppf(rng.uniform(size=point.trials))
-    typ = typical_values(study, spec) if point.conditional else None
+    fixed = point.conditional or (spec.responder is not None and spec.endpoint_kind == "quantity")
+    typ = typical_values(study, spec) if fixed else None
     data = simulate_trials(study, spec, point.n, point.trials, rng, delta, typical=typ)
-    fast = _fast_success(*analyse_fast(data, spec.analysis), spec)
+    if spec.responder is not None:
+        fast = _responder_success(data, spec)
+    else:
+        fast = _fast_success(*analyse_fast(data, spec.analysis), spec)
     out: dict[str, Any] = {"n": point.n, "what": point.what, "conditional": point.conditional,
                            "fast": {k: np.asarray(v) for k, v in fast.items()}}
     if point.exact:
@@ -1131,11 +1213,23 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
     lo, hi = spec.n_range
     prior = spec.design_prior_frozen()
     test, margin = spec.test, spec.margin_analysis
-    n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi,
-                           spec.direction, test, margin) if sd > 0 else lo
+    resp = responder_plan(study, spec, sd, effect, seed + 7919) if spec.responder is not None else None
+    if resp is not None:
+        p0, p1, sgn = resp["p_control"], resp["p_treated"], spec.responder_sign
+        n_pow = binary.n_for_power(p0, p1, spec.alpha, spec.target_power, test, lo, hi, sgn)
+        resp["n_per_arm_fleiss"] = (binary.fleiss_n(p0, p1, spec.alpha, spec.target_power, test)
+                                    if sgn * (p1 - p0) > 0 else None)
+        if not output:
+            typical = typical_values(study, spec)
+            notes.append("responder endpoint: the response probabilities, the exact power and the simulated power are "
+                         f"at the typical value of {spec.output} (typical_values); assurance draws the effect from "
+                         "the design prior at that value")
+    else:
+        n_pow = tp.n_for_power(effect, sd, spec.alpha, spec.target_power, spec.analysis, lo, hi,
+                               spec.direction, test, margin) if sd > 0 else lo
     n_pow_analytic = n_pow
     n_ass = None
-    if spec.target_assurance is not None and not output:
+    if spec.target_assurance is not None and not output and resp is None:
         ns = np.arange(lo, hi + 1)
         a = tp.t_assurance(ns, prior, sd, spec.alpha, spec.analysis, direction=spec.direction, test=test,
                            margin=margin)
@@ -1165,6 +1259,17 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
     n_method = ("analytic: exact noncentral t (the smallest n whose power reaches the target); simulated figures "
                 "at that n beside it")
     n_ass_method = "analytic: exact t power averaged over the design prior (quadrature)" if n_ass else None
+    if resp is not None and not output:
+        n_method = ("analytic: exact power of the continuity-corrected z test of two proportions (binomial sums; the "
+                    "smallest n whose power reaches the target); simulated figures at that n beside it")
+        if spec.target_assurance is not None:
+            n_ass, n_ass_se, n_ass_method = _refined([by_n[n] for n in sizes], "assurance", spec.target_assurance)
+            if n_ass is not None and n_ass not in by_n:
+                more = executor.map(_PointTask(study, spec), points_for([n_ass]), seed=seed + 1,
+                                    label=label + "-refine")
+                by_n[n_ass] = _new_row(n_ass, spec)
+                refits_failed += _fill_rows(by_n, more, spec, exact, prior)
+                sizes = sorted(by_n)
     if output:
         # the simulated (expected) curve decides; refined between grid points, then simulated at the refined n
         curve0 = [by_n[n] for n in sizes]
@@ -1182,15 +1287,19 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
         notes.append(f"{refits_failed} MCMC refits failed the quality gate (R-hat, bulk or tail ESS, divergences) "
                      "and were left out of the exact power and assurance; see refits_failed per design point")
     for n, row in by_n.items():
-        row["power_analytic"] = (float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis, spec.direction, test,
-                                                  margin))
-                                 if sd > 0 else None)
+        if resp is not None:
+            row["power_analytic"] = float(binary.exact_power(n, resp["p_control"], resp["p_treated"], spec.alpha,
+                                                             test, spec.responder_sign))
+        else:
+            row["power_analytic"] = (float(tp.t_power(n, effect, sd, spec.alpha, spec.analysis, spec.direction,
+                                                      test, margin))
+                                     if sd > 0 else None)
         if output:
             row["power_expected"], row["power_expected_mc_se"] = row.get("power"), row.get("power_mc_se")
         if prior is not None:
             row.setdefault("assurance", None)
             row.setdefault("assurance_mc_se", None)
-            if not output:
+            if not output and resp is None:
                 row["assurance_analytic"] = float(tp.t_assurance(n, prior, sd, spec.alpha, spec.analysis,
                                                                  direction=spec.direction, test=test,
                                                                  margin=margin))
@@ -1282,10 +1391,56 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
             "probability": (float(tp.half_width_probability(n_hw, sd, spec.target_half_width, spec.alpha,
                                                             spec.analysis)) if n_hw else None),
         }
+    if resp is not None:
+        doc["analysis"] = "responders, z test of two proportions with continuity correction"
+        doc["responder"] = resp
+        doc.setdefault("typical_values", typical)
     if spec.looks > 1 and n_pow is not None:
         doc["group_sequential"] = sequential_plan(spec, n_pow)
     doc["assumptions"] = assumptions(study, spec, doc)
     return DesignResult(doc)
+
+
+def responder_plan(study: Any, spec: DesignSpec, sd: float, effect: float, seed: int) -> dict[str, Any]:
+    """Response probabilities of a responder endpoint in the control and treated arms.
+
+    Quantity endpoint: the endpoint is normal on the analysis scale (log for a ratio effect), centred on the
+    typical value (``[design] typical`` or the prior median) with the total sd ``sd`` (between-subject,
+    within-subject and measurement spreads), shifted by ``effect`` on treatment
+    (:func:`binary.proportions`). Model-output endpoint: the fractions beyond the cut in a pilot of
+    :data:`PILOT_N` subjects per arm at the typical values.
+
+    Parameters
+    ----------
+    study, spec : the study and its parsed section (``spec.responder`` set).
+    sd, effect : float
+        sd and effect on the analysis scale (log units or the endpoint's canonical unit).
+    seed : int
+        Seed of the pilot (model-output endpoints).
+
+    Returns
+    -------
+    dict
+        ``cut`` (canonical unit), ``side``, ``p_control``, ``p_treated`` (dimensionless), ``more_is_benefit``
+        (bool), ``method``.
+    """
+    cut, side = spec.responder["cut"], spec.responder["side"]
+    if spec.endpoint_kind == "quantity":
+        level = typical_values(study, spec)[spec.output]
+        mean = math.log(level) if spec.scale == "log" else level
+        p0, p1 = binary.proportions(mean, sd, effect, spec.responder_cut_analysis, side)
+        how = (f"normal on the {spec.scale} scale around the typical {spec.output} {level:.4g} with sd {sd:.4g} "
+               "(closed form)")
+    else:
+        typ = typical_values(study, spec)
+        data = simulate_trials(study, spec, PILOT_N, 1, np.random.default_rng(seed), typical=typ)
+        c = spec.responder_cut_analysis
+        with np.errstate(invalid="ignore"):
+            frac = [float(np.mean(data[k] < c if side == "below" else data[k] > c)) for k in ("y0", "y1")]
+        p0, p1 = frac
+        how = f"fractions beyond the cut in a simulated pilot of {PILOT_N} subjects per arm at the typical values"
+    return {"cut": cut, "side": side, "p_control": p0, "p_treated": p1,
+            "more_is_benefit": spec.responder_sign > 0, "method": how}
 
 
 def sequential_plan(spec: DesignSpec, n_fixed: int) -> dict[str, Any]:
@@ -1406,6 +1561,13 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
         rows.append({"what": "crossover periods", "value": "two periods, sequences AB and BA of equal size; no "
                      "carry-over (an adequate washout); a period effect cancels in the analysis", "source": src})
     rows.append({"what": "measurement error", "value": str(spec.measurement or "none"), "source": src})
+    resp = doc.get("responder")
+    if resp:
+        unit = units.CANONICAL.get(spec.output, "")
+        rows.append({"what": "responder", "value": f"{spec.output} {resp['side']} {resp['cut']:g} {unit}".strip(),
+                     "source": src})
+        rows.append({"what": "response probabilities (control, treated)",
+                     "value": f"{resp['p_control']:.4f}, {resp['p_treated']:.4f}", "source": resp["method"]})
     for sym, v in (doc.get("typical_values") or {}).items():
         pr = study.priors[sym]
         unit = units.CANONICAL.get(sym, "")

@@ -15,6 +15,8 @@ from uncertainty.core.plotting import pyplot, save_figure
 DESIGN_NAMES = {"two-sample t test": "parallel groups, two-sample t test",
                 "ANCOVA on baseline": "parallel groups, ANCOVA on baseline",
                 "paired t test": "paired (before/after), paired t test",
+                "responders, z test of two proportions with continuity correction":
+                    "parallel groups, responders (two proportions)",
                 "AB/BA crossover, t test on period differences": "AB/BA two-period crossover, t test on period "
                                                                   "differences"}
 

@@ -134,17 +134,27 @@ def protocol_markdown(doc: dict[str, Any]) -> str:
     n_e, n_c = doc.get("n_per_arm_enrolled"), doc.get("n_per_arm_completing")
     groups = doc.get("groups", 2)
     per = "per sequence" if doc.get("design") == "crossover" else "per arm" if groups == 2 else "subjects"
-    how = "by simulation" if str(doc.get("n_method", "")).startswith("simulated") else "from the exact noncentral t"
+    resp = doc.get("responder")
+    exact = "the exact binomial power" if resp else "the exact noncentral t"
+    how = "by simulation" if str(doc.get("n_method", "")).startswith("simulated") else f"from {exact}"
     test = doc.get("test_text") or f"two-sided test at alpha = {doc['alpha']:g}"
     lines = ["## Sample size", "",
              f"Design: {title(doc)}.", "",
              (f"With {n_c} completing {per} ({n_e} enrolled {per} allowing for {doc.get('dropout', 0):.0%} dropout; "
               f"total N = {doc.get('total_n_enrolled')} enrolled, {doc.get('total_n_completing')} completing) the "
               f"{test} has power {_p(doc.get('power'), doc.get('power_mc_se'))} "
-              f"(simulated; {_p(doc.get('power_analytic'))} from the noncentral t) to show a "
+              f"(simulated; {_p(doc.get('power_analytic'))} from {exact}) to show a "
               f"{doc.get('benefit', '')} in {doc['endpoint']}; n found {how} for a target power of "
               f"{doc['target_power']:g}." if n_e else
               f"The target power {doc['target_power']:g} is not reached within the n range studied."), ""]
+    if resp:
+        more = "more" if resp.get("more_is_benefit") else "fewer"
+        lines += [f"Responder endpoint: a subject responds when {doc['endpoint']} is {resp['side']} {resp['cut']:g}; "
+                  f"expected response probabilities {resp['p_control']:.3f} (control) and {resp['p_treated']:.3f} "
+                  f"(treated; {resp['method']}); success is {more} responders on treatment, significant by the "
+                  "z test of two proportions with continuity correction. The normal approximation with continuity "
+                  f"correction (Fleiss, Tytun & Ury 1980) gives {resp.get('n_per_arm_fleiss') or '-'} completing "
+                  f"{per}.", ""]
     gsq = doc.get("group_sequential")
     if gsq:
         lines += [f"Group-sequential: {gsq['looks']} equally spaced analyses with Lan-DeMets {gsq['spending']} "

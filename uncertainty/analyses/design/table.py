@@ -35,7 +35,7 @@ def headline(doc: dict[str, Any]) -> str:
             f"({_n(doc.get('n_per_arm_completing'))} completing, dropout {doc.get('dropout', 0):g}); total N "
             f"{_n(doc.get('total_n_enrolled'))} enrolled [{how}{err}]; power at that n "
             f"{_f(doc.get('power'))} +- {_f(doc.get('power_mc_se'))} simulated, {_f(doc.get('power_analytic'))} "
-            f"noncentral t")
+            + ("exact binomial" if doc.get("responder") else "noncentral t"))
     if doc.get("power_conditional") is not None:
         text += (f" (conditional at the typical values {_f(doc['power_conditional'])} +- "
                  f"{_f(doc.get('power_conditional_mc_se'))}; the simulated power is the expected power)")
@@ -99,6 +99,11 @@ def table(doc: dict[str, Any]) -> str:
                      f"{gsq['expected_n_per_arm_alternative']:.1f} under H1; |Z| boundaries "
                      + ", ".join(f"{c:.3f}" for c in gsq["boundaries_z"]))
         lines += sequential_lines(gsq)
+    resp = doc.get("responder")
+    if resp:
+        lines.append(f"responder: {doc['endpoint']} {resp['side']} {resp['cut']:g}; response probabilities "
+                     f"{resp['p_control']:.4f} control, {resp['p_treated']:.4f} treated; n per arm by Fleiss' formula "
+                     f"with continuity correction {_n(resp.get('n_per_arm_fleiss'))} completing")
     if doc.get("target_assurance") is not None:
         n_a = doc.get("n_per_arm_assurance_enrolled", doc.get("n_per_arm_assurance"))
         se = doc.get("n_per_arm_assurance_mc_se")
