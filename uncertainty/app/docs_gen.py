@@ -230,6 +230,10 @@ MEANINGS: dict[str, str] = {
                        "expected n under no effect and the stated effect are reported",
     "design.responder": "optional binary endpoint: responder when the endpoint lies `side` of `cut` (canonical "
                         "unit); power from the exact binomial distribution of the corrected z test of two proportions",
+    "design.followups": "repeated measures: follow-up readings per subject (parallel designs, with or without "
+                        "`baseline`), their mean analysed; the sd shrinks by the compound-symmetry factor "
+                        "(1 + (k - 1) rho) / k, less rho^2 with a baseline (rho: the between-subject share of the "
+                        "variance)",
     "design.responder.cut": "the responder cut in the endpoint's canonical unit (> 0 for a ratio effect)",
     "design.responder.side": "`below` or `above` the cut (default: the side the benefit moves the endpoint to)",
     "design.effect.parameter": "the quantity the treatment changes",

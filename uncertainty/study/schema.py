@@ -456,6 +456,8 @@ class DesignSection(BaseModel):
     futility: Literal["obrien_fleming", "pocock"] | None = None
     # binary responder endpoint: responder when the endpoint (canonical unit) lies below / above the cut
     responder: Responder | None = None
+    # repeated measures: follow-up readings per subject (parallel designs), their mean analysed
+    followups: int = Field(default=1, ge=1, le=50)
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 

@@ -135,6 +135,7 @@ class DesignSpec:
     spending: str = "obrien_fleming"  # Lan-DeMets spending shape (group_sequential.SPENDING)
     futility: str | None = None  # non-binding beta-spending futility bound shape (group_sequential.SPENDING)
     responder: dict[str, Any] | None = None  # {"cut": canonical unit, "side": "below" | "above"}: binary endpoint
+    followups: int = 1  # repeated measures: follow-up readings per subject, their mean analysed (parallel only)
 
     @property
     def responder_sign(self) -> float:
@@ -393,6 +394,13 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
             raise InputError("target_half_width must be > 0", file=file, key="design.target_half_width", value=hw)
         spec.target_half_width = float(hw)
     parse_responder(spec, doc)
+    k = doc.get("followups", 1)
+    if isinstance(k, bool) or not isinstance(k, int) or not 1 <= k <= 50:
+        raise InputError("followups must be an integer from 1 to 50", file=file, key="design.followups", value=k)
+    if k > 1 and (spec.design != "parallel" or spec.responder is not None):
+        raise InputError("repeated follow-ups are for design = \"parallel\" (with or without baseline) and a "
+                         "continuous endpoint", file=file, key="design.followups", value=k)
+    spec.followups = int(k)
     return spec
 
 
@@ -672,16 +680,26 @@ def simulate_trials(study: Any, spec: DesignSpec, n: int, trials: int, rng: np.r
     else:
         arm = np.zeros(shape, dtype=bool)
         arm[:, n:] = True
-        follow = occasion(arm)
+        # repeated measures: the mean of the follow-ups on the analysis scale (one follow-up: that reading)
+        follow = np.mean([_to_scale(occasion(arm), spec.scale) for _ in range(spec.followups)], axis=0)
         out = {"y0": follow[:, :n], "y1": follow[:, n:]}
         if two_occasions:
-            base = occasion(none)
+            base = _to_scale(occasion(none), spec.scale)
             out.update(x0=base[:, :n], x1=base[:, n:])
+        return out
     if spec.scale == "log":
         for k, v in out.items():
             with np.errstate(invalid="ignore", divide="ignore"):
                 out[k] = np.log(np.where(v > 0, v, np.nan))
     return out
+
+
+def _to_scale(v: np.ndarray, scale: str) -> np.ndarray:
+    """Endpoint values on the analysis scale: their natural log (NaN where <= 0) on the log scale."""
+    if scale != "log":
+        return v
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.log(np.where(v > 0, v, np.nan))
 
 
 def analyse_fast(data: dict[str, np.ndarray], analysis: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -961,6 +979,20 @@ def analytic_sd(study: Any, spec: DesignSpec) -> tuple[float | None, str]:
     w = _sd_on_scale(spec.within.get(sym), spec.scale, level)
     m = _sd_on_scale(spec.measurement, spec.scale, level)
     total2 = b**2 + w**2 + m**2
+    if spec.followups > 1:
+        # compound symmetry across occasions: sigma^2 = total2, rho = between^2 / total2; the mean of k follow-ups
+        # has variance sigma^2 (1 + (k - 1) rho) / k (Diggle, Heagerty, Liang & Zeger 2002, Analysis of
+        # Longitudinal Data, 2nd ed.; from memory) and, adjusted for one baseline, sigma^2 ((1 + (k - 1) rho) / k
+        # - rho^2) (Frison & Pocock 1992, Stat Med 11:1685; from memory)
+        k = spec.followups
+        rho = b**2 / total2 if total2 > 0 else 0.0
+        f = (1 + (k - 1) * rho) / k
+        if spec.analysis == "ancova":
+            return (math.sqrt(total2 * (f - rho**2)),
+                    f"closed form (ANCOVA of the mean of {k} follow-ups on baseline, compound symmetry rho {rho:.3f}: "
+                    f"variance factor (1 + (k - 1) rho) / k - rho^2 = {f - rho**2:.4f})")
+        return (math.sqrt(total2 * f), f"closed form (mean of {k} follow-ups, compound symmetry rho {rho:.3f}: "
+                                       f"variance factor (1 + (k - 1) rho) / k = {f:.4f})")
     if spec.analysis == "paired":
         return math.sqrt(2 * (w**2 + m**2)), "closed form (paired differences)"
     if spec.analysis == "crossover":
@@ -1318,6 +1350,7 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
         "analysis": {"parallel": "two-sample t test", "ancova": "ANCOVA on baseline",
                      "paired": "paired t test",
                      "crossover": "AB/BA crossover, t test on period differences"}[spec.analysis],
+        "followups": spec.followups,
         "endpoint": spec.endpoint,
         "endpoint_reads": spec.output,
         "scale": spec.scale,
@@ -1557,6 +1590,10 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
                      "source": "study [design]" if spec.between.get(sym) else origin})
     for sym, sp in spec.within.items():
         rows.append({"what": f"within-subject (occasion) spread of {sym}", "value": str(sp), "source": src})
+    if spec.followups > 1:
+        rows.append({"what": "repeated measures", "value": f"{spec.followups} follow-up readings per subject, their "
+                     "mean analysed; compound symmetry (one between-subject correlation rho for every pair of "
+                     "occasions)", "source": src})
     if spec.design == "crossover":
         rows.append({"what": "crossover periods", "value": "two periods, sequences AB and BA of equal size; no "
                      "carry-over (an adequate washout); a period effect cancels in the analysis", "source": src})

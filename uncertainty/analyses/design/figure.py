@@ -24,6 +24,8 @@ DESIGN_NAMES = {"two-sample t test": "parallel groups, two-sample t test",
 def title(doc: dict[str, Any]) -> str:
     """Figure title naming the design and its analysis, the endpoint and the path."""
     name = DESIGN_NAMES.get(doc.get("analysis", ""), f"{doc['design']} design")
+    if (doc.get("followups") or 1) > 1:
+        name += f", mean of {doc['followups']} follow-ups"
     return f"{name}; endpoint {doc['endpoint']} ({doc['path']} path)"
 
 
