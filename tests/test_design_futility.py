@@ -102,3 +102,11 @@ def test_bad_futility_names_the_key(patch: dict, value: str) -> None:
     with pytest.raises(InputError) as err:
         dz.parse_design(_study(dict(BASE, **patch)))
     assert (err.value.key, err.value.value) == ("design.futility", value)
+
+
+def test_report_section_has_the_per_look_table() -> None:
+    from uncertainty.analyses.design.report_section import section_html
+
+    res = dz.design(_study(dict(BASE, looks=3, futility="pocock", n_points=2, trials=200))).to_dict()
+    html = section_html(res)
+    assert "beta-spending futility bound" in html and "H1 stop: futility" in html

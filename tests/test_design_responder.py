@@ -113,3 +113,9 @@ def test_bad_responder_sections_name_the_key(patch: dict, key: str, value: objec
     with pytest.raises(InputError) as err:
         dz.parse_design(_study(dict(RESP, **patch)))
     assert (err.value.key, err.value.value) == (key, value)
+
+
+def test_exact_path_is_refused_for_responders() -> None:
+    with pytest.raises(InputError) as err:
+        dz.design(_study(RESP), exact=True)
+    assert err.value.key == "design.responder"

@@ -1215,6 +1215,10 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
     """
 
     spec = parse_design(study)
+    if exact and spec.responder is not None:
+        raise InputError("the exact (MCMC) path refits a continuous endpoint; a responder endpoint's power is already "
+                         "exact (binomial sums): leave out --exact", file=spec.file, key="design.responder",
+                         value=spec.responder)
     seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
     executor = executor or InProcess()
     notes: list[str] = list(spec.notes)

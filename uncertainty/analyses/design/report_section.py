@@ -41,6 +41,29 @@ def section_html(res: dict[str, Any]) -> str:
                      f"({fmt(res.get('n_per_arm_assurance_analysed'))} completing), assurance at that n "
                      f"{fmt(res.get('assurance_at_n_assurance'), 3)} (the probability of a significant result in "
                      "the direction of benefit averaged over the design prior).</p>")
+    resp = res.get("responder")
+    if isinstance(resp, dict):
+        parts.append(f"<p>Responder endpoint: {escape(str(res.get('endpoint')))} {escape(str(resp.get('side')))} "
+                     f"{fmt(resp.get('cut'))}; response probabilities {fmt(resp.get('p_control'), 3)} (control) and "
+                     f"{fmt(resp.get('p_treated'), 3)} (treated); n per arm by Fleiss' formula with continuity "
+                     f"correction {fmt(resp.get('n_per_arm_fleiss'))} completing.</p>")
+    gsq = res.get("group_sequential")
+    if isinstance(gsq, dict) and gsq.get("stop_null"):
+        fut = gsq.get("futility_z")
+        low = "futility" if fut else "harm"
+        fut_text = f", non-binding {escape(str(gsq['futility']))} beta-spending futility bound" if fut else ""
+        parts.append(f"<p>Group-sequential: {gsq['looks']} looks, Lan-DeMets {escape(str(gsq['spending']))} alpha "
+                     f"spending{fut_text}; "
+                     f"at most {fmt(gsq['n_per_arm_max_enrolled'])} enrolled per arm; expected completing n per arm "
+                     f"{fmt(gsq['expected_n_per_arm_null'], 3)} under no effect (H0), "
+                     f"{fmt(gsq['expected_n_per_arm_alternative'], 3)} under the stated effect (H1).</p>")
+        s0, s1 = gsq["stop_null"], gsq["stop_alternative"]
+        look_rows = [[str(k + 1), fmt(n), fmt(gsq["boundaries_z"][k], 4),
+                      fmt(fut[k] if fut else -gsq["boundaries_z"][k], 4), fmt(s0["efficacy"][k], 3),
+                      fmt(s0["futility_or_harm"][k], 3), fmt(s1["efficacy"][k], 3), fmt(s1["futility_or_harm"][k], 3)]
+                     for k, n in enumerate(gsq["n_per_arm_at_looks"])]
+        parts.append(table(["look", "n per arm", "efficacy Z", f"{low} Z", "H0 stop: efficacy", f"H0 stop: {low}",
+                            "H1 stop: efficacy", f"H1 stop: {low}"], look_rows, num_cols=set(range(8))))
     rows = [[a["what"], a["value"], a["source"]] for a in res.get("assumptions") or [] if isinstance(a, dict)]
     if rows:
         parts.append("<p>Design assumptions:</p>" + table(["assumption", "value", "source"], rows))
