@@ -43,7 +43,7 @@ from uncertainty.analyses.sampling import (
     replicate_seeds,
 )
 from uncertainty.analyses.sensitivity.result import SensitivityResult
-from uncertainty.core.errors import InputError
+from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.core.parallel import ChunkedModel, InProcess
 from uncertainty.forms.catalogue import output_unit
 
@@ -51,6 +51,9 @@ METHODS = ("sobol", "morris", "shapley")
 DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 2048}
 REPLICATES = 16
 EXACT_MAX_PLAYERS = 7
+#: default cap on the Sobol' base sample of the ``tol`` doubling: 16 x the default N, a bound on memory and
+#: run time chosen here (about 10^6 model runs for six inputs), not a statistical figure
+DEFAULT_MAX_SAMPLES = 2**17
 MORRIS_LEVELS = 4
 
 
@@ -274,32 +277,13 @@ def _sobol_estimates(Y: np.ndarray, D: int, second: bool) -> tuple[np.ndarray, n
     return S1, ST, S2
 
 
-def sobol_core(problem: Problem, samples: int = 8192, *, seed: Any = None, replicates: int = REPLICATES,
-               second_order: bool = False, convergence: bool = True) -> SensitivityResult:
-    """Sobol' first-order and total indices (and optionally second order) of ``problem``.
-
-    ``samples`` is the number of base points N over all replicates (total model runs
-    N (D + 2), or N (2D + 2) with second order). R scrambled Saltelli designs of N / R points each
-    (a power of two, rounded up with a note) give the point estimate (pooled) and a t-based 95%
-    interval (spread across replicates). Base points where any run is not finite are dropped and
-    counted. Refuses correlated inputs (InputError).
-    """
-    from SALib.sample import sobol as sobol_sample
-
-
-    _refuse_correlated(problem, "Sobol'")
-    notes: list[str] = []
-    per = _per_replicate_size(samples, replicates, notes, "sensitivity.samples")
+def _sobol_fit(problem: Problem, Y: np.ndarray, second_order: bool, convergence: bool
+               ) -> tuple[dict[str, dict[str, Any]], dict[str, dict[str, Any]] | None, list[dict[str, Any]],
+                          list[str], int]:
+    """Indices, second order, convergence rows, warnings and the dropped base points from Saltelli-ordered
+    outputs ``Y`` of shape (replicates, base points, runs per point)."""
+    replicates, per, _ = Y.shape
     D = len(problem.players)
-    salib = {"num_vars": problem.k, "names": [f"c{c}" for c in range(problem.k)],
-             "bounds": [[0.0, 1.0]] * problem.k}
-    if D != problem.k:
-        salib["groups"] = [problem.players[g] for g in problem.groups]
-    step = 2 * D + 2 if second_order else D + 2
-    X = np.vstack([sobol_sample.sample(salib, per, calc_second_order=second_order, scramble=True,
-                                       seed=np.random.default_rng(s))
-                   for s in replicate_seeds(seed, replicates)])
-    Y = problem.evaluate_cube(open_cube(X)).reshape(replicates, per, step)
     ok = np.all(np.isfinite(Y), axis=2)  # (R, per)
     nan_draws = int((~ok).sum())
     warnings: list[str] = []
@@ -314,7 +298,7 @@ def sobol_core(problem: Problem, samples: int = 8192, *, seed: Any = None, repli
     sd = sd if sd > 0 else 1.0
     Yc = (Y - mu) / sd  # centring as SALib's analyze does (estimators are not shift invariant)
 
-    def estimate(prefix: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
+    def estimate(prefix: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, Any]:
         reps = [_sobol_estimates(Yc[r, :prefix][ok[r, :prefix]].ravel(), D, second_order)
                 for r in range(replicates)]
         pooled = _sobol_estimates(np.concatenate([Yc[r, :prefix][ok[r, :prefix]].ravel()
@@ -340,6 +324,7 @@ def sobol_core(problem: Problem, samples: int = 8192, *, seed: Any = None, repli
                for j in range(D) for m in range(j + 1, D)}
     conv = []
     if convergence:
+        step = Y.shape[2]
         prefix = per
         sizes = []
         while prefix >= 16 and len(sizes) < 6:
@@ -354,12 +339,158 @@ def sobol_core(problem: Problem, samples: int = 8192, *, seed: Any = None, repli
                                          "ST": float(ct[j]), "ST_ci": [float(lt[j]), float(ht[j])]}
                                      for j, p in enumerate(problem.players)}})
     warnings += _index_warnings(indices, ("S1", "ST"))
-    return SensitivityResult(method="sobol", output=problem.output, unit=problem.unit,
-                             players=list(problem.players), indices=indices,
-                             ranking=_ranking(indices, "ST"), samples=per * replicates,
-                             evaluations=int(Y.size), replicates=replicates, convergence=conv,
-                             second_order=S2d, warnings=warnings, notes=notes, nan_draws=nan_draws,
-                             seed=seed if isinstance(seed, int | type(None)) else str(seed))
+    return indices, S2d, conv, warnings, nan_draws
+
+
+def widest_half_width(indices: dict[str, dict[str, Any]], keys: Sequence[str] = ("S1", "ST"),
+                      replicates: int = REPLICATES) -> tuple[float, str]:
+    """The widest 95% half-width t_{0.975, R-1} x se among the headline indices, and which index it is.
+
+    Parameters
+    ----------
+    indices : dict
+        Per input, the indices and their replicate standard errors ``<key>_se`` (dimensionless).
+    keys : sequence of str
+        The headline indices (Sobol': ``S1`` and ``ST``).
+    replicates : int
+        Number of independent replicates R behind each standard error.
+
+    Returns
+    -------
+    tuple of (float, str)
+        The half-width (dimensionless; inf when a standard error is not finite) and ``"<key> of <input>"``.
+    """
+    t = _t975(replicates - 1)
+    worst, where = -1.0, ""
+    for p, ix in indices.items():
+        for key in keys:
+            se = ix.get(f"{key}_se", float("nan"))
+            h = t * se if np.isfinite(se) else float("inf")
+            if h > worst:
+                worst, where = h, f"{key} of {p}"
+    return worst, where
+
+
+def _check_tol(tol: float | None, max_samples: int | None, start: int) -> int:
+    """The cap on base points for the ``tol`` doubling (default :data:`DEFAULT_MAX_SAMPLES`, never below
+    the start); InputError for a tolerance or cap that cannot be met."""
+    if tol is not None and (isinstance(tol, bool) or not isinstance(tol, int | float | np.floating)
+                            or not math.isfinite(tol) or not tol > 0):
+        raise InputError("the tolerance must be a positive number", key="tol", value=tol)
+    if max_samples is None:
+        return max(DEFAULT_MAX_SAMPLES, start)
+    if isinstance(max_samples, bool) or not isinstance(max_samples, int | np.integer) or max_samples < start:
+        raise InputError(f"max-samples is below the starting sample size {start}", key="max_samples",
+                         value=max_samples)
+    return int(max_samples)
+
+
+def sobol_core(problem: Problem, samples: int = 8192, *, seed: Any = None, replicates: int = REPLICATES,
+               second_order: bool = False, convergence: bool = True, tol: float | None = None,
+               max_samples: int | None = None) -> SensitivityResult:
+    """Sobol' first-order and total indices (and optionally second order) of ``problem``.
+
+    Parameters
+    ----------
+    problem : Problem
+        Independent inputs only (correlated ones are refused).
+    samples : int
+        Base points N over all replicates (total model runs N (D + 2), or N (2D + 2) with second order).
+        R scrambled Saltelli designs of N / R points each (a power of two, rounded up with a note) give
+        the point estimate (pooled) and a t-based 95% interval (spread across replicates). Base points
+        where any run is not finite are dropped and counted.
+    seed : int or SeedSequence, optional
+        Seed of the R scrambles.
+    replicates : int
+        Independent scrambles R.
+    second_order : bool
+        Also the second-order indices.
+    convergence : bool
+        Re-analyse the prefixes of each design (doubling sizes) for the convergence table.
+    tol : float, optional
+        Precision on demand (dimensionless, absolute): the base sample doubles, each design extended by its
+        next points (a scrambled Sobol' design's first N points are the design of size N, so no run is
+        repeated), until the 95% half-width t_{0.975, R-1} x se of every S1 and ST is below ``tol``.
+    max_samples : int, optional
+        Cap on the base points for the doubling (default :data:`DEFAULT_MAX_SAMPLES`).
+
+    Returns
+    -------
+    SensitivityResult
+        With ``tol``: ``converged`` and a ``history`` row per size (samples, evaluations, widest
+        half-width and which index it is).
+
+    Raises
+    ------
+    InputError
+        Correlated inputs, a bad sample size, tolerance or cap.
+    QualityGateError
+        ``tol`` still not met when the next doubling would exceed ``max_samples`` (exit 3; the result,
+        flagged, is attached).
+    """
+    from SALib.sample import sobol as sobol_sample
+
+    _refuse_correlated(problem, "Sobol'")
+    notes: list[str] = []
+    per = _per_replicate_size(samples, replicates, notes, "sensitivity.samples")
+    cap = _check_tol(tol, max_samples, per * replicates)
+    D = len(problem.players)
+    salib = {"num_vars": problem.k, "names": [f"c{c}" for c in range(problem.k)],
+             "bounds": [[0.0, 1.0]] * problem.k}
+    if D != problem.k:
+        salib["groups"] = [problem.players[g] for g in problem.groups]
+    step = 2 * D + 2 if second_order else D + 2
+    seeds = replicate_seeds(seed, replicates)
+
+    def design(n: int) -> np.ndarray:
+        """The R scrambled designs of n base points each, (R, n, runs per point, k). Each call seeds from
+        unspent copies of the replicate seeds (the sampler spawns from the seed it is given), so the same
+        scrambles come back and a larger design starts with the smaller one."""
+        return np.stack([sobol_sample.sample(salib, n, calc_second_order=second_order, scramble=True,
+                                             seed=np.random.default_rng(np.random.SeedSequence(
+                                                 s.entropy, spawn_key=s.spawn_key, pool_size=s.pool_size))
+                                             ).reshape(n, step, problem.k)
+                         for s in seeds])
+
+    Y = np.empty((replicates, 0, step))
+    history: list[dict[str, Any]] = []
+    converged: bool | None = None
+    worst, where = float("nan"), ""
+    while True:
+        X = design(per)[:, Y.shape[1]:]  # only the new base points of each design
+        new = problem.evaluate_cube(open_cube(X.reshape(-1, problem.k)))
+        Y = np.concatenate([Y, new.reshape(replicates, -1, step)], axis=1)
+        if tol is None:
+            break
+        indices, *_ = _sobol_fit(problem, Y, second_order, convergence=False)
+        worst, where = widest_half_width(indices, replicates=replicates)
+        history.append({"samples": per * replicates, "evaluations": int(Y.size), "widest_half_width": worst,
+                        "widest": where})
+        if worst < tol:
+            converged = True
+            break
+        if 2 * per * replicates > cap:
+            converged = False
+            break
+        per *= 2
+    indices, S2d, conv, warnings, nan_draws = _sobol_fit(problem, Y, second_order, convergence)
+    if tol is not None:
+        notes.append(f"tolerance {tol:g} on the 95% half-width of every S1 and ST "
+                     + (f"met at {per * replicates} base samples" if converged else
+                        f"NOT met: the cap max-samples={cap} stopped the doubling at {per * replicates} base "
+                        f"samples (widest half-width {worst:.3g}, {where})"))
+    result = SensitivityResult(method="sobol", output=problem.output, unit=problem.unit,
+                               players=list(problem.players), indices=indices,
+                               ranking=_ranking(indices, "ST"), samples=per * replicates,
+                               evaluations=int(Y.size), replicates=replicates, convergence=conv,
+                               second_order=S2d, warnings=warnings, notes=notes, nan_draws=nan_draws,
+                               seed=seed if isinstance(seed, int | type(None)) else str(seed),
+                               tol=tol, converged=converged, history=history)
+    if converged is False:
+        raise QualityGateError(
+            f"95% half-width of {where} ({worst:.3g}) is still above tol={tol:g} at {per * replicates} base "
+            f"samples; the next doubling would exceed max-samples={cap}", result=result)
+    return result
 
 
 # --------------------------------------------------------------------------------------------
@@ -671,7 +802,8 @@ def _file(study: Any) -> str | None:
 def sensitivity(study: Any, method: str | None = None, samples: int | None = None, output: str | None = None,
                 seed: int | None = None, *, layer: str | None = None, second_order: bool | None = None,
                 evaluate: Callable | None = None, replicates: int = REPLICATES,
-                executor: Any = None) -> SensitivityResult:
+                executor: Any = None, tol: float | None = None,
+                max_samples: int | None = None) -> SensitivityResult:
     """Global sensitivity of one study output (default Jv) to the study's quantities.
 
     Arguments override the study's ``[sensitivity]`` section (``method``, ``samples``, ``output``,
@@ -682,6 +814,9 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
     ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): the model runs go through it
     in row chunks of a fixed size (the samples are drawn here and the split never depends on the
     executor, so the numbers are identical in-process and on any number of workers).
+    ``tol`` (dimensionless, absolute) and ``max_samples`` (base points): Sobol' only, precision on demand
+    as in :func:`sobol_core`; QualityGateError (exit 3, the result attached) when the cap stops the
+    doubling first.
     """
     sec = section_settings(study, "sensitivity")
     method = method or sec.get("method")
@@ -709,17 +844,30 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
         samples = sec.get("samples", DEFAULT_SAMPLES[method])
         if method == "shapley" and "samples" not in sec and len(problem.players) > EXACT_MAX_PLAYERS:
             samples = 8192  # random orders: one outer draw each, cheap per order
+    if (tol is not None or max_samples is not None) and method != "sobol":
+        raise InputError("a tolerance (tol, max-samples) is offered for Sobol' indices only; give a sample "
+                         "size instead", file=_file(study), key="sensitivity.method", value=method)
     try:
         if method == "sobol":
-            res = sobol_core(problem, samples, seed=seed, replicates=replicates, second_order=second_order)
+            res = sobol_core(problem, samples, seed=seed, replicates=replicates, second_order=second_order,
+                             tol=tol, max_samples=max_samples)
         elif method == "morris":
             res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS))
         else:
             res = shapley_core(problem, samples, seed=seed, replicates=replicates)
+    except QualityGateError as exc:
+        if isinstance(exc.result, SensitivityResult):
+            _finish(exc.result, notes, layer, study)
+        raise
     except InputError as exc:
         if exc.file is None and _file(study):
             raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc
         raise
+    return _finish(res, notes, layer, study)
+
+
+def _finish(res: SensitivityResult, notes: list[str], layer: str, study: Any) -> SensitivityResult:
+    """The study-level notes, layer and study record added to a core result."""
     res.notes = notes + res.notes
     res.layer = layer
     res.study = study_meta(study)

@@ -21,7 +21,8 @@ class SensitivityResult(Result):
     ``S1`` and the total ``ST`` under dependence, each with ``_ci``. Intervals are 95%.
     ``convergence`` rows ``{samples, evaluations, indices}`` at doubling sample sizes: prefixes of
     each scrambled design (Sobol'), the first R/4, R/2, R replicates (Shapley), the first T/4, T/2,
-    T trajectories (Morris).
+    T trajectories (Morris). With a tolerance (Sobol'): ``tol`` (dimensionless), ``converged`` and
+    ``history`` rows ``{samples, evaluations, widest_half_width, widest}``, one per base sample tried.
     """
 
     method: str
@@ -41,6 +42,9 @@ class SensitivityResult(Result):
     layer: str | None = None
     seed: Any = None
     study: dict[str, Any] = field(default_factory=dict)
+    tol: float | None = None
+    converged: bool | None = None
+    history: list[dict[str, Any]] = field(default_factory=list)
 
     table_file: ClassVar[str] = "sensitivity_{output}.csv"
     table_index: ClassVar[bool] = True
@@ -62,6 +66,8 @@ class SensitivityResult(Result):
                                "notes": self.notes, "study": self.study}
         if self.second_order is not None:
             doc["second_order"] = self.second_order
+        if self.tol is not None:  # precision on demand: the tolerance, whether it was met, each size tried
+            doc.update({"tol": self.tol, "converged": self.converged, "history": self.history})
         return doc
 
     def to_dataframe(self) -> Any:
@@ -110,4 +116,5 @@ class SensitivityResult(Result):
                    evaluations=doc["evaluations"], replicates=doc["replicates"],
                    convergence=list(doc["convergence"]), second_order=doc.get("second_order"),
                    warnings=list(doc["warnings"]), notes=list(doc["notes"]), nan_draws=doc["nan_draws"],
-                   layer=doc["layer"], seed=doc["seed"], study=dict(doc["study"]))
+                   layer=doc["layer"], seed=doc["seed"], study=dict(doc["study"]), tol=doc.get("tol"),
+                   converged=doc.get("converged"), history=list(doc.get("history") or []))

@@ -49,6 +49,9 @@ def table(doc: dict[str, Any]) -> str:
         lines.append(row)
     lines.append(f"{doc['samples']} base samples, {doc['evaluations']} model runs, "
                  f"{doc['replicates']} independent replicates, seed {doc['seed']}")
+    if doc.get("tol") is not None:  # whether the tolerance was met is one of the notes below
+        lines.append(f"tolerance {doc['tol']:g}, base samples tried (widest 95% half-width): " + ", ".join(
+            f"{h['samples']} ({_fmt(h['widest_half_width'])})" for h in doc.get("history") or []))
     if doc["convergence"]:
         key = doc["ranked_by"]
         cell = (lambda v: f"{v:.3g}") if method == "morris" else _fmt

@@ -6,6 +6,7 @@ import click
 
 from uncertainty.analyses.sensitivity import sensitivity
 from uncertainty.app.commands.common import SENSITIVITY_BYTES, Count, handle_errors, show_result, study_options
+from uncertainty.core.errors import QualityGateError
 from uncertainty.core.parallel import make_executor
 from uncertainty.study import load_study
 
@@ -20,23 +21,35 @@ from uncertainty.study import load_study
 @click.option("--layer", type=click.Choice(["individual", "typical"]), default=None,
               help="The individual (default: typical and between-subject parts together) or the typical subject.")
 @click.option("--second-order", is_flag=True, default=None, help="Also Sobol' second-order indices.")
+@click.option("--tol", type=float, default=None, is_flag=False, flag_value=0.01,
+              help="Sobol': double the base sample until the 95% half-width of every S1 and ST is below TOL "
+                   "(absolute; --tol alone means 0.01); exit 3 if --max-samples comes first.")
+@click.option("--max-samples", type=Count(SENSITIVITY_BYTES), default=None,
+              help="Upper limit on the base samples for --tol doubling (default 131072).")
 @click.option("--workers", type=int, default=None, help="Model runs in chunks on a local dask cluster of N processes.")
 @click.option("--scheduler", default=None, help="Model runs in chunks on a running dask scheduler at ADDRESS.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, method: str | None,
             samples: int | None, output: str | None, layer: str | None, second_order: bool | None,
-            workers: int | None, scheduler: str | None) -> None:
+            tol: float | None, max_samples: int | None, workers: int | None, scheduler: str | None) -> None:
     """Which input drives the output's uncertainty: indices with 95% intervals, a ranking by total
     index (Shapley effect for correlated inputs), warnings and a convergence table.
 
     With --workers or --scheduler the model runs go to dask workers in fixed chunks of rows; the
-    samples are drawn here, so the numbers are the same as in-process."""
+    samples are drawn here, so the numbers are the same as in-process. With --tol (Sobol') the base
+    sample doubles until every index is known to within TOL; the output says whether the tolerance was
+    met or the --max-samples cap stopped it (then exit 3)."""
     s = load_study(study)
-    if workers is None and scheduler is None:
-        result = sensitivity(s, method=method, samples=samples, output=output, seed=seed, layer=layer,
-                             second_order=second_order or None)
-    else:
-        with make_executor(workers, scheduler) as ex:
-            result = sensitivity(s, method=method, samples=samples, output=output, seed=seed, layer=layer,
-                                 second_order=second_order or None, executor=ex)
+    opts = {"method": method, "samples": samples, "output": output, "seed": seed, "layer": layer,
+            "second_order": second_order or None, "tol": tol, "max_samples": max_samples}
+    try:
+        if workers is None and scheduler is None:
+            result = sensitivity(s, **opts)
+        else:
+            with make_executor(workers, scheduler) as ex:
+                result = sensitivity(s, **opts, executor=ex)
+    except QualityGateError as exc:  # the cap stopped --tol: show what was computed, then exit 3
+        if exc.result is not None:
+            show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
+        raise
     show_result(result, as_json=as_json, out=out, quiet=quiet)
