@@ -1,12 +1,14 @@
 """A first-order sensitivity index from any set of paired draws (the given-data, binning estimator).
 
-Shared by sensitivity (``first_order_given_data``), rank and propagate's threshold probabilities
-(``uncertainty.analyses.propagate.thresholds``), so that none of them imports another analysis.
+Shared by sensitivity (``first_order_given_data``), rank, propagate's threshold probabilities
+(``uncertainty.analyses.propagate.thresholds``) and inference's sensitivity of the posterior
+(``given_data_indices`` on posterior and prior draws), so that none of them imports another analysis.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 
 import numpy as np
 
@@ -90,3 +92,46 @@ def first_order_given_data(x: np.ndarray, y: np.ndarray, bins: int | None = None
         idx = np.sort(rng.integers(0, n, n))  # x is pre-sorted: sorted indices keep the order
         boot[b] = binned_first_order(order[idx], y, bins)
     return float(s1), float(np.std(boot, ddof=1))
+
+
+def given_data_indices(inputs: Mapping[str, np.ndarray], y: np.ndarray, *, se_factor: float = 1.0,
+                       n_boot: int = 200, seed: int = 0) -> dict[str, dict[str, float]]:
+    """First-order given-data index of ``y`` for each input, in decreasing order, with standard errors.
+
+    Each index is :func:`first_order_given_data` on the pairs (input, y); inputs that do not vary
+    (a fixed quantity) are left out. Dimensionless.
+
+    Parameters
+    ----------
+    inputs : mapping of str to ndarray
+        Draws of each input, paired row by row with ``y`` (any unit).
+    y : ndarray
+        Draws of the output (any unit).
+    se_factor : float
+        Multiplies every bootstrap standard error (>= 1): sqrt(n / ESS) for autocorrelated draws such as
+        MCMC output, whose bootstrap over pairs would treat n correlated draws as independent.
+    n_boot : int
+        Bootstrap resamples per index.
+    seed : int
+        Seed of the bootstrap.
+
+    Returns
+    -------
+    dict
+        ``{input: {"S1": index, "se": standard error}}``, largest index first (NaN last).
+
+    Raises
+    ------
+    InputError
+        Fewer than 20 finite pairs, or lengths that differ.
+    """
+    y = np.asarray(y, dtype=float).ravel()
+    out: dict[str, dict[str, float]] = {}
+    for name, x in inputs.items():
+        x = np.broadcast_to(np.asarray(x, dtype=float), y.shape) if np.ndim(x) == 0 else np.asarray(x, float)
+        finite = x[np.isfinite(x)]
+        if finite.size == 0 or np.ptp(finite) == 0:
+            continue
+        s1, se = first_order_given_data(x, y, n_boot=n_boot, seed=seed)
+        out[name] = {"S1": s1, "se": se * max(1.0, float(se_factor))}
+    return dict(sorted(out.items(), key=lambda kv: -kv[1]["S1"] if np.isfinite(kv[1]["S1"]) else np.inf))

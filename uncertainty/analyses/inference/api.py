@@ -19,6 +19,7 @@ from uncertainty.analyses.inference.compare import compare_forms
 from uncertainty.analyses.inference.diagnostics import Gate, contraction_note, diagnose, gate_message, summary_mcse
 from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, is_positive, spread_ratio
 from uncertainty.analyses.inference.observations import kind_module
+from uncertainty.analyses.inference.posterior_sensitivity import posterior_sensitivity
 from uncertainty.analyses.inference.problem import Problem, normalise_observations, problem_from_study
 from uncertainty.analyses.inference.result import InferenceResult
 from uncertainty.analyses.inference.samplers import SampleRun, compile_model, posterior_mode, sample
@@ -52,13 +53,15 @@ def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) 
 def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str = "nutpie",
         seed: int | None = None, chains: int = 4, draws: int = 1000, tune: int = 1000,
         gate: Any = None, model: str | None = None, checks: bool = False,
-        target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto", progress: bool = False) -> InferenceResult:
+        target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto", progress: bool = False,
+        sensitivity: bool = False) -> InferenceResult:
     """Build and sample the posterior of ``study`` (a Study or a Problem); never raises on the gate.
 
     ``observations`` replaces the study's own observation list (records in study-file form);
     ``model`` replaces its model form; ``start`` is one of :data:`STARTS`. Returns an
     :class:`InferenceResult` whose ``doc["diagnostics"]["passed"]`` says whether the gate passed.
     Jv in mL/min per basis. ``progress`` shows the sampler's live per-chain table on stderr.
+    ``sensitivity`` adds the sensitivity of the posterior (``summarise_run``; left out of refit loops).
     """
     problem = _problem(study, observations, model)
     if not problem.observations:
@@ -70,7 +73,7 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     mode, mode_seconds = _start_point(built, start)
     run = sample(built.model, sampler=sampler, chains=chains, draws=draws, tune=tune, seed=seed,
                  target_accept=target_accept, start=mode, progress=progress)
-    result = summarise_run(built, run, Gate.coerce(gate), seed=seed)
+    result = summarise_run(built, run, Gate.coerce(gate), seed=seed, sensitivity=sensitivity)
     if mode is not None:
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
                                    "with uniform jitter of +/-1 on the unconstrained scale")
@@ -146,7 +149,7 @@ def infer(study: Any, sampler: str | None = None, seed: int | None = None, chain
     """
     opts = settings(study, sampler=sampler, chains=chains, draws=draws, tune=tune, gate=gate,
                     target_accept=target_accept, start=start)
-    result = fit(study, observations, seed=seed, checks=checks, progress=progress, **opts)
+    result = fit(study, observations, seed=seed, checks=checks, progress=progress, sensitivity=True, **opts)
     if compare_models:
         result.doc["comparison"] = compare_forms(study, fit=fit, sampler=opts["sampler"], seed=seed,
                                                  chains=opts["chains"], draws=opts["draws"], tune=opts["tune"],
@@ -293,8 +296,14 @@ def posterior_output_notes(problem: Problem, post: dict[str, np.ndarray]) -> lis
     return output_notes(problem.model_form, outs)
 
 
-def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | None) -> InferenceResult:
-    """Turn posterior draws into the result document (intervals, contraction, diagnostics)."""
+def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | None,
+                  sensitivity: bool = False) -> InferenceResult:
+    """Turn posterior draws into the result document (intervals, contraction, diagnostics).
+
+    With ``sensitivity`` the document also holds ``posterior_sensitivity``: given-data first-order
+    indices of Jv on the posterior draws beside the same indices on the prior draws (a second or two
+    of bootstrap; :func:`infer` asks for it, refit loops do not).
+    """
 
     idata = run.idata
     problem = built.problem
@@ -415,9 +424,45 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
         add_answers(doc, built, idata, new_values)
     except Exception as exc:  # noqa: BLE001 - the answers are summaries; a failure must not lose the fit
         doc["notes"].append(f"per-subject and group answers not computed: {type(exc).__name__}: {exc}")
+    try:
+        if sensitivity:
+            doc["posterior_sensitivity"] = _posterior_sensitivity(built, post, jv_main, prior, new_values, new,
+                                                                  diagnostics, seed)
+    except Exception as exc:  # noqa: BLE001 - a summary; a failure must not lose the fit
+        doc["notes"].append(f"sensitivity of the posterior not computed: {type(exc).__name__}: {exc}")
     return InferenceResult(doc=doc, idata=idata, built=built, prior_draws=prior,
                            new_subject_draws=new,
                            timing={"compile_s": run.compile_seconds, "sample_s": run.sample_seconds})
+
+
+def _posterior_sensitivity(built: BuiltModel, post: dict[str, np.ndarray], jv: np.ndarray,
+                           prior: dict[str, np.ndarray], new_values: dict[str, Any], new_jv: np.ndarray,
+                           diagnostics: dict[str, Any], seed: int | None) -> dict[str, Any]:
+    """The ``posterior_sensitivity`` block: given-data indices of Jv on the posterior and prior draws, for
+    the reported level and a new subject (whose prior adds a fresh between-subject layer where the
+    reported level is the typical subject)."""
+    problem = built.problem
+    names = [q for q in built.quantities if q in post]
+    ess = (diagnostics.get("per_quantity") or {}).get("Jv__typical" if built.hierarchical else "Jv__subject",
+                                                       {}).get("ess_bulk")
+    new_prior: dict[str, np.ndarray] | None = None
+    new_prior_jv = prior.get("Jv")
+    if built.hierarchical and "Jv" in prior:
+        rng = np.random.default_rng(None if seed is None else seed + 104729)
+        new_prior = {q: prior[q] for q in names}
+        for q in built.spreads:
+            if q in new_prior:
+                new_prior[q] = apply_layer(problem.priors[q], prior[q], rng.standard_normal(prior[q].shape[0]), np)
+        n = prior["Jv"].shape[0]
+        new_prior_jv = np.asarray(problem.evaluate({**problem.fixed, **{k: v for k, v in prior.items() if k != "Jv"},
+                                                     **new_prior}, np)["Jv"], dtype=float) * np.ones(n)
+    new_post = {q: np.asarray(new_values[q], dtype=float) for q in names
+                if q in new_values and np.size(new_values[q]) == np.size(new_jv)}
+    return posterior_sensitivity({q: post[q] for q in names}, jv, level="typical subject" if built.hierarchical
+                                 else "the study's individual", prior=prior if "Jv" in prior else None,
+                                 prior_jv=prior.get("Jv"), ess=ess, new_post=new_post, new_jv=new_jv,
+                                 new_prior=new_prior if built.hierarchical else prior, new_prior_jv=new_prior_jv,
+                                 seed=0 if seed is None else int(seed))
 
 
 class Session:

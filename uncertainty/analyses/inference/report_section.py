@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from uncertainty.analyses.inference import answers_table
+from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import cell, fmt, interval
@@ -56,6 +56,7 @@ def section_html(res: dict[str, Any]) -> str:
                      "near 1 the data determined the quantity, near 0 they said little about it.</p>")
         parts.append(table(["quantity", "mean", "sd", "95% credible interval", "contraction"], rows,
                            num_cols={1, 2, 4}))
+    parts.append(posterior_sensitivity.html(res))
     answers = answers_table.html(res)
     subjects = res.get("subjects") or {}
     if answers:

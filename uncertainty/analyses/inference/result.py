@@ -10,7 +10,9 @@ subjects, ``subject_quantities`` (the quantities with a subject layer), ``subjec
 for each of them, ``typical.<quantity>`` and ``new_subject.<quantity>``, ``cohort_total`` (whole-tissue
 Jv in mL/h and L/day summed over the subjects, with ``tissue_mass``) and ``group_effects`` (rows:
 quantity, group, reference, measure, of, estimate, ci95, direction, p_direction, unit); for the study's
-one individual, ``individual.<quantity>``. Values are in canonical units.
+one individual, ``individual.<quantity>``. Values are in canonical units. ``posterior_sensitivity``
+(``posterior_sensitivity.py``): first-order given-data indices of Jv (reported level, ``Jv``, and a new
+subject, ``new_subject``) on posterior and on prior draws, ``{quantity: {S1, se}}``, with a ranking.
 """
 
 from __future__ import annotations

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from uncertainty.analyses.inference import answers_table
+from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe, gate_message
 
 
@@ -60,6 +60,9 @@ def table(doc: dict[str, Any]) -> str:
         flag = "  prior-bound" if p.get("prior_bound") else ""
         lines.append(f"{name:<24}{_fmt(p['prior']['mean']):>11}{_fmt(p['prior']['sd']):>11}"
                      f"{_fmt(p['mean']):>11}{_fmt(p['sd']):>11}{_ci(p):>26}{_fmt(p['contraction']):>13}{flag}")
+    sens = posterior_sensitivity.text(doc)
+    if sens:
+        lines += ["", sens]
     d = doc["diagnostics"]
     lines.append("")
     lines += [f"sampler check: {line}" for line in describe(d)]
