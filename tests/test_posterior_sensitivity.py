@@ -72,6 +72,16 @@ def test_indices_are_the_shared_estimator_and_ess_widens_the_errors() -> None:
     assert any("sqrt(n / ESS)" in n for n in doc["notes"])
 
 
+def test_a_pure_interaction_leaves_no_first_order_share_and_says_so() -> None:
+    # Y = X1 X2, independent zero-mean inputs: E[Y | X1] = X1 E[X2] = 0, so S1 = 0 for both (closed form)
+    rng = np.random.default_rng(2)
+    x = rng.standard_normal((3000, 2))
+    doc = posterior_sensitivity({"a": x[:, 0], "b": x[:, 1]}, x[:, 0] * x[:, 1], level="typical subject")
+    for v in doc["Jv"]["posterior"].values():
+        assert abs(v["S1"]) < 4 * v["se"] + 0.01, v
+    assert any("combinations of quantities" in n for n in doc["notes"])
+
+
 def test_table_and_report_show_prior_beside_posterior() -> None:
     rng = np.random.default_rng(5)
     x = rng.standard_normal((500, 2))

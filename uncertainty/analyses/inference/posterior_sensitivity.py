@@ -82,6 +82,15 @@ def posterior_sensitivity(post: Mapping[str, np.ndarray], jv: np.ndarray, *, lev
         keys = [k for k in post if k in new_post]
         doc["new_subject"] = _entry({k: new_post[k] for k in keys}, new_jv, new_prior, new_prior_jv, factor, seed)
     doc["notes"] = [NOTE_CORRELATED]
+    total = sum(v["S1"] for v in doc["Jv"]["posterior"].values() if np.isfinite(v["S1"]))
+    if total < 0.5:  # less than half of Var(Jv) explained one quantity at a time
+        doc["notes"].append(f"the posterior indices sum to {total:.2f}: most of what remains of Var(Jv) lies in "
+                            "combinations of quantities (interactions, or the directions the data left open), "
+                            "not in any one quantity alone")
+    if any(v["S1"] < 0 for e in (doc["Jv"], doc.get("new_subject") or {}) for k in ("posterior", "prior")
+           for v in (e.get(k) or {}).values()):
+        doc["notes"].append("an index estimated below zero is Monte Carlo error around zero (a share of the "
+                            "variance cannot be negative)")
     if factor > 1.0:
         doc["notes"].append(f"posterior standard errors multiplied by sqrt(n / ESS) = {factor:.2f} for the "
                             "autocorrelation of the chains")
@@ -132,6 +141,7 @@ def text(doc: Mapping[str, Any]) -> str:
         if new_rows:
             row += "".join(f"{c:>18}" for c in new_rows.get(q, ("-", "-")))
         lines.append(row)
+    lines += [f"  ({n})" for n in block.get("notes") or [] if isinstance(n, str)]
     return "\n".join(lines)
 
 
