@@ -97,22 +97,23 @@ def test_table_and_report_show_prior_beside_posterior() -> None:
     assert text({}) == "" and html({"posterior_sensitivity": "x"}) == ""
 
 
-def test_inference_document_carries_the_block(monkeypatch: pytest.MonkeyPatch) -> None:
-    # summarise_run on posterior draws written here (two uncertain pressures, no between-subject layer);
-    # the chain diagnostics are stubbed (they are tested elsewhere) so that no MCMC library is loaded
+def _summarised(monkeypatch: pytest.MonkeyPatch, hierarchical: bool) -> tuple[dict, np.ndarray, object]:
+    """summarise_run on posterior draws written here: two uncertain pressures, Pc - Pi read once (sd 1),
+    Pc with a between-subject sd of 2 mmHg in the hierarchical case (all invented). The chain
+    diagnostics are stubbed (tested elsewhere) so that no MCMC library is loaded."""
     import xarray as xr
     from inference_helpers import normal, problem
 
     from uncertainty.analyses.inference import api
     from uncertainty.analyses.inference.diagnostics import Gate
-    from uncertainty.analyses.inference.result import InferenceResult
 
     ess = 500.0  # stubbed bulk ESS of Jv, of 2000 draws: the posterior errors double
     monkeypatch.setattr(api, "diagnose", lambda idata, names, gate: {
         "passed": True, "failing": [], "per_quantity": {n: {"r_hat": 1.0, "ess_bulk": ess, "ess_tail": ess}
                                                         for n in names}})
     monkeypatch.setattr(api, "summary_mcse", lambda draws: {"ess_bulk": ess, "ess_tail": ess})
-    pr = problem({"Pc": normal("Pc", 20.0, 3.0), "Pi": normal("Pi", -1.0, 2.0)}, [])
+    pc = normal("Pc", 20.0, 3.0, between_subject={"sd": 2.0}) if hierarchical else normal("Pc", 20.0, 3.0)
+    pr = problem({"Pc": pc, "Pi": normal("Pi", -1.0, 2.0)}, [])
     c0 = np.diag([9.0, 4.0])
     h = np.array([[1.0, -1.0]])
     c = np.linalg.inv(np.linalg.inv(c0) + h.T @ h)
@@ -124,13 +125,19 @@ def test_inference_document_carries_the_block(monkeypatch: pytest.MonkeyPatch) -
     post = xr.Dataset({"Pc": (cd, z[..., 0]), "Pi": (cd, z[..., 1]), "Pc__subject": (cds, z[..., :1]),
                        "Pi__subject": (cds, z[..., 1:]), "Jv__subject": (cds, jv[..., None]),
                        "Jv__typical": (cd, jv)})
-    built = SimpleNamespace(problem=pr, quantities=["Pc", "Pi"], spreads={}, extra_params=[], extra_priors={},
-                            hierarchical=False, subjects=["s1"], subject_group={}, context=None, notes=[],
-                            groups=[])
+    built = SimpleNamespace(problem=pr, quantities=["Pc", "Pi"], spreads={"Pc": ("sd", 2.0)} if hierarchical
+                            else {}, extra_params=[], extra_priors={}, hierarchical=hierarchical, subjects=["s1"],
+                            subject_group={}, context=None, notes=[], groups=[])
     run = SimpleNamespace(idata=SimpleNamespace(posterior=post), sampler="numpy draws", compile_seconds=0.0,
                           sample_seconds=0.0)
-    res = api.summarise_run(built, run, Gate.coerce(None), seed=1, sensitivity=True)
     assert "posterior_sensitivity" not in api.summarise_run(built, run, Gate.coerce(None), seed=1).doc
+    return api.summarise_run(built, run, Gate.coerce(None), seed=1, sensitivity=True), c, api
+
+
+def test_inference_document_carries_the_block(monkeypatch: pytest.MonkeyPatch) -> None:
+    from uncertainty.analyses.inference.result import InferenceResult
+
+    res, c, _ = _summarised(monkeypatch, hierarchical=False)
     block = res.doc["posterior_sensitivity"]
     assert block["Jv"]["level"] == "the study's individual" and set(block["Jv"]["posterior"]) == {"Pc", "Pi"}
     assert block["Jv"]["se_factor"] == pytest.approx(2.0)   # sqrt(2000 / 500)
@@ -145,3 +152,17 @@ def test_inference_document_carries_the_block(monkeypatch: pytest.MonkeyPatch) -
     doc = json.loads(json.dumps(res.to_dict()))
     assert doc["posterior_sensitivity"]["Jv"]["ranking"] == block["Jv"]["ranking"]
     assert "what still drives Jv after the data" in InferenceResult.table(res)
+
+
+def test_new_subject_adds_the_between_subject_layer(monkeypatch: pytest.MonkeyPatch) -> None:
+    res, c, _ = _summarised(monkeypatch, hierarchical=True)
+    block = res.doc["posterior_sensitivity"]
+    assert block["Jv"]["level"] == "typical subject"
+    a = np.array([1.0, -1.0])
+    layer = np.diag([4.0, 0.0])  # a new subject's Pc = typical + N(0, 2^2), independent of the rest
+    cases = (("Jv", "prior", np.diag([9.0, 4.0])), ("Jv", "posterior", c),
+             ("new_subject", "prior", np.diag([9.0, 4.0]) + layer), ("new_subject", "posterior", c + layer))
+    for entry, key, cov in cases:
+        truth = dict(zip(["Pc", "Pi"], _closed_form(cov, a), strict=True))
+        for q, v in block[entry][key].items():
+            assert abs(v["S1"] - truth[q]) < 4 * v["se"] + 0.01, (entry, key, q, v, truth[q])
