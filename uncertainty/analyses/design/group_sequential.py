@@ -46,31 +46,6 @@ SPENDING: dict[str, Callable[[np.ndarray | float, float], np.ndarray]] = {
     "obrien_fleming": obf_spending, "pocock": pocock_spending}
 
 
-def _cross(f: np.ndarray | None, x: np.ndarray | None, w: np.ndarray | None, b: float, dt: float,
-           mean: float) -> tuple[float, float]:
-    """(upper, lower) crossing probabilities at the next look, boundary ``b`` on the S scale."""
-    sd = math.sqrt(dt)
-    if f is None:
-        return float(stats.norm.sf((b - mean) / sd)), float(stats.norm.cdf((-b - mean) / sd))
-    up = stats.norm.sf((b - x - mean) / sd)
-    lo = stats.norm.cdf((-b - x - mean) / sd)
-    return float(np.sum(w * f * up)), float(np.sum(w * f * lo))
-
-
-def _carry(f: np.ndarray | None, x: np.ndarray | None, w: np.ndarray | None, b: float, dt: float,
-           mean: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Sub-density of S at the next look on (-b, b): grid, weights, values."""
-    xn = np.linspace(-b, b, _GRID)
-    wn = np.full(_GRID, xn[1] - xn[0])
-    wn[[0, -1]] *= 0.5
-    sd = math.sqrt(dt)
-    if f is None:
-        fn = stats.norm.pdf((xn - mean) / sd) / sd
-    else:
-        fn = (stats.norm.pdf((xn[:, None] - x[None, :] - mean) / sd) / sd) @ (w * f)
-    return xn, wn, fn
-
-
 def boundaries(t: Sequence[float], alpha: float = 0.05, shape: str = "obrien_fleming") -> np.ndarray:
     """Two-sided symmetric Z boundaries c_k at information fractions ``t`` (last = 1) by alpha spending.
 
@@ -105,12 +80,12 @@ def boundaries(t: Sequence[float], alpha: float = 0.05, shape: str = "obrien_fle
         dt = tk - prev
 
         def excess(c: float, tk: float = tk, dt: float = dt, a: float = a, f=f, x=x, w=w) -> float:
-            up, lo = _cross(f, x, w, c * math.sqrt(tk), dt, 0.0)
+            up, lo = _cross_interval(f, x, w, -c * math.sqrt(tk), c * math.sqrt(tk), dt, 0.0)
             return up + lo - a
 
         c = optimize.brentq(excess, 0.1, 40.0, xtol=1e-10) if a > 1e-15 else 40.0
         out.append(c)
-        x, w, f = _carry(f, x, w, c * math.sqrt(tk), dt, 0.0)
+        x, w, f = _carry_interval(f, x, w, -c * math.sqrt(tk), c * math.sqrt(tk), dt, 0.0)
         prev = tk
     return np.array(out)
 
@@ -132,17 +107,8 @@ def exit_probabilities(t: Sequence[float], c: Sequence[float], drift: float = 0.
     dict
         ``upper``, ``lower`` (per look, dimensionless).
     """
-    f = x = w = None
-    prev = 0.0
-    up_all, lo_all = [], []
-    for tk, ck in zip(t, c, strict=True):
-        dt = tk - prev
-        up, lo = _cross(f, x, w, ck * math.sqrt(tk), dt, drift * dt)
-        up_all.append(up)
-        lo_all.append(lo)
-        x, w, f = _carry(f, x, w, ck * math.sqrt(tk), dt, drift * dt)
-        prev = tk
-    return {"upper": np.array(up_all), "lower": np.array(lo_all)}
+    out = exit_probabilities_futility(t, c, -np.asarray(c, dtype=float), drift)
+    return {"upper": out["efficacy"], "lower": out["futility"]}
 
 
 def design_summary(t: Sequence[float], alpha: float, power: float, shape: str,
