@@ -154,3 +154,22 @@ def test_result_frames_one_per_kind(tmp_path: Any) -> None:
     frames = InferenceResult(doc=doc).to_dataframe()
     assert set(frames) == {"", "subjects", "cohort", "group_effects"}
     assert list(frames["subjects"].columns)[:4] == ["subject", "group", "quantity", "unit"]
+
+
+def test_posterior_flux_beyond_lymph_return_is_flagged() -> None:
+    # the limit is propagate's guard (8 L/day, Levick & Michel 2010, from memory); the draws are made here
+    from uncertainty.analyses.inference.answers import flag_implausible_flux
+    from uncertainty.analyses.propagate import WHOLE_BODY_LYMPH_L_PER_DAY
+
+    rng = np.random.default_rng(3)
+    subjects = rng.lognormal(np.log([2.0, 12.0, 7.0]), 0.3, size=(400, 3))   # medians 2, 12, 7 L/day
+    doc: dict[str, Any] = {"notes": []}
+    flag_implausible_flux(doc, {"subjects": subjects, "typical": rng.lognormal(np.log(5.0), 0.2, 400)},
+                          ["A", "B", "C"])
+    assert [f["who"] for f in doc["flags"]] == ["B"]
+    assert doc["flags"][0]["median"] == pytest.approx(np.median(subjects[:, 1]))
+    assert doc["flags"][0]["limit"] == WHOLE_BODY_LYMPH_L_PER_DAY
+    assert len(doc["notes"]) == 1 and "B 1" in doc["notes"][0]
+    quiet: dict[str, Any] = {"notes": []}
+    flag_implausible_flux(quiet, {"subjects": subjects[:, :1], "typical": None}, ["A"])
+    assert "flags" not in quiet and not quiet["notes"]

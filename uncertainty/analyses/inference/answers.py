@@ -23,6 +23,7 @@ import numpy as np
 
 from uncertainty.analyses.inference.model_builder import is_positive
 from uncertainty.analyses.inference.summaries import flat, summarise
+from uncertainty.analyses.propagate import WHOLE_BODY_LYMPH_L_PER_DAY, WHOLE_BODY_LYMPH_ORIGIN
 from uncertainty.core import units
 
 #: whole-tissue flows the forward map returns with a tissue mass, and their units
@@ -240,12 +241,14 @@ def add_answers(doc: dict[str, Any], built: Any, idata: Any, new_values: Mapping
         for name in names:
             block.setdefault(name, _summary(per[name][:, k]))
     wanted = names or ["Jv", *WHOLE_TISSUE]
-    for key, draws in (("typical", _typical_draws(built, idata, wanted)),
-                       ("new_subject", _new_subject_draws(built, new_values, wanted))):
+    typical = _typical_draws(built, idata, wanted)
+    for key, draws in (("typical", typical), ("new_subject", _new_subject_draws(built, new_values, wanted))):
         block = doc.setdefault(key, {})
         for name in wanted:
             if name in draws:
                 block.setdefault(name, _summary(draws[name]))
+    flag_implausible_flux(doc, {"subjects": per.get("Jv_L_per_day"), "typical": typical.get("Jv_L_per_day")},
+                          list(built.subjects) if built.hierarchical else [])
     total = {}
     for name in WHOLE_TISSUE:
         if name in per:
@@ -261,3 +264,42 @@ def add_answers(doc: dict[str, Any], built: Any, idata: Any, new_values: Mapping
             doc["notes"].append(note)
     for name in set(names) | set(doc["typical"]) | set(total):
         doc["units"].setdefault(name, unit_of(name, basis))
+
+
+def flag_implausible_flux(doc: dict[str, Any], per_day: Mapping[str, np.ndarray | None], subjects: list[str]) -> None:
+    """Flag posterior organ-level filtration beyond what the body can return (the plausibility guard of
+    ``propagate``, :data:`uncertainty.analyses.propagate.WHOLE_BODY_LYMPH_L_PER_DAY`), in place.
+
+    A subject or the typical subject whose posterior median of Jv in L/day exceeds the limit adds a flag
+    (``kind``, ``who``, ``median``, ``limit``, ``unit``, ``source``) to ``doc["flags"]`` and one note naming
+    them to ``doc["notes"]`` (shown by the terminal, the JSON and the report).
+
+    Parameters
+    ----------
+    doc : dict
+        The inference document.
+    per_day : mapping
+        ``subjects``: draws x subjects of Jv (L/day), ``typical``: draws (L/day); either None without a
+        tissue mass.
+    subjects : list of str
+        Subject labels, in the columns' order.
+    """
+    over: list[tuple[str, float]] = []
+    x = per_day.get("subjects")
+    if x is not None and subjects:
+        over += [(sid, float(m)) for sid, m in zip(subjects, np.nanmedian(x, axis=0), strict=True)
+                 if m > WHOLE_BODY_LYMPH_L_PER_DAY]
+    t = per_day.get("typical")
+    if t is not None and np.nanmedian(t) > WHOLE_BODY_LYMPH_L_PER_DAY:
+        over.append(("typical subject", float(np.nanmedian(t))))
+    if not over:
+        return
+    flags = doc.setdefault("flags", [])
+    for who, median in over:
+        flags.append({"kind": "implausible_flux", "output": "Jv_L_per_day", "who": who, "median": median,
+                      "limit": WHOLE_BODY_LYMPH_L_PER_DAY, "unit": "L/day", "source": WHOLE_BODY_LYMPH_ORIGIN})
+    shown = ", ".join(f"{who} {median:.3g}" for who, median in over[:8]) + (" ..." if len(over) > 8 else "")
+    doc.setdefault("notes", []).append(
+        f"implausible organ-level filtration after updating: posterior median Jv above the "
+        f"{WHOLE_BODY_LYMPH_L_PER_DAY:g} L/day the whole body's lymph can return ({shown} L/day), so it cannot "
+        f"be a steady state; check the form, the tissue mass and the readings (source: {WHOLE_BODY_LYMPH_ORIGIN})")
