@@ -32,7 +32,7 @@ BASES = ("100g", "100mL", "organ")
 CANONICAL: dict[str, str] = {
     # pressures (mmHg)
     "Pc": "mmHg", "Pi": "mmHg", "pi_c": "mmHg", "pi_i": "mmHg", "pi_g": "mmHg",
-    "Pa": "mmHg", "Pv": "mmHg", "Pvi": "mmHg", "LAP": "mmHg", "PAP": "mmHg",
+    "Pa": "mmHg", "Pv": "mmHg", "Pvi": "mmHg", "LAP": "mmHg", "PAP": "mmHg", "TPG": "mmHg",
     "Pi_L0": "mmHg", "Pi_break": "mmHg", "P_flood": "mmHg", "safety_margin": "mmHg", "net_pressure": "mmHg",
     "force_osm": "mmHg",
     "Pcuff": "mmHg",

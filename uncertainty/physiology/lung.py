@@ -1,7 +1,10 @@
 """Lung: capillary pressure from left atrial and pulmonary arterial pressure, and extravascular lung water.
 
 Pc = LAP + 0.4 (PAP - LAP) (Gaar et al. 1967, Am J Physiol 213:910; ``capillary.pulmonary_capillary_pressure``).
-Left-sided heart failure acts through LAP: a raised LAP raises Pc, filtration, Pi and lymph flow.
+Mean pulmonary arterial pressure is the left atrial pressure plus the transpulmonary gradient,
+PAP = LAP + TPG (``pulmonary_arterial_pressure``): with TPG > 0 (lognormal in the prior set) no subject has
+PAP below LAP, which independent LAP and PAP draws allowed. Left-sided heart failure acts through LAP: a raised
+LAP raises Pc, filtration, Pi and lymph flow.
 
 Extravascular lung water at steady state: the coupled balance of filtration, lymph and interstitial
 protein (``balance.steady_state``, or ``balance.revised_steady_state`` with ``revised=True``) gives Pi; the
@@ -25,6 +28,26 @@ from uncertainty.physiology.capillary import pulmonary_capillary_pressure
 from uncertainty.physiology.interstitium import oedema_beyond_break, oedema_volume
 
 Array = Any
+
+
+def pulmonary_arterial_pressure(LAP: Array, TPG: Array) -> Array:
+    """Mean pulmonary arterial pressure (mmHg) from left atrial pressure and the transpulmonary gradient.
+
+    Parameters
+    ----------
+    LAP : array
+        Left atrial (pulmonary artery wedge) pressure (mmHg).
+    TPG : array
+        Transpulmonary gradient, mean PAP - LAP (mmHg; positive: blood flows from the pulmonary artery to the
+        left atrium).
+
+    Returns
+    -------
+    array
+        PAP = LAP + TPG (mmHg), the definition of the gradient (Naeije R et al. 2013 Eur Respir J 41:217,
+        abstract). Plain arithmetic (numpy arrays or PyTensor tensors).
+    """
+    return LAP + TPG
 
 
 def extravascular_water(Pi: Array, Pi_ref: Array, C_tis: Array, EVLW0: Array = 0.0, *, C_high: Array | None = None,
