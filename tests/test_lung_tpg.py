@@ -62,3 +62,31 @@ def test_priors_show_gives_pap_its_implied_range() -> None:
     assert r["PAP"]["median"] == pytest.approx(14.0, abs=0.5)
     lo, hi = r["PAP"]["individual"]["ci95"]
     assert lo > 5.0 and hi < 25.0  # individuals within the published normal range +/- 3 SD
+
+
+def test_alveolar_water_balances_flooding_and_clearance() -> None:
+    from uncertainty.physiology import lung
+
+    # 13 %/h clearance (Ware & Matthay 2001 Am J Respir Crit Care Med 163:1376) of 0.13 mL/min/100 g flooding:
+    # the alveoli hold 0.13 / (0.13 / 60) = 60 mL/100 g at steady state (closed form)
+    assert lung.alveolar_water(0.13, 0.13 / 60.0) == pytest.approx(60.0)
+
+
+def test_lung_floods_past_the_guyton_lindsey_threshold_not_below() -> None:
+    from uncertainty.physiology import lung
+    from uncertainty.priors import prior_medians
+
+    m = prior_medians("lung")
+    args = dict(Cp=m["Cp"], C_high=m["C_tis_high"], P_break=m["Pi_break"], JL_max=m["JL_max"],
+                G_flood=m["G_flood"], P_flood=m["P_flood"], k_AFC=m["k_AFC"])
+
+    def at(lap: float) -> dict:
+        return lung.lung_water(m["Kf"], lap, lap + m["TPG"], m["sigma"], m["PS"], m["pi_c"], m["L"], m["Pi_L0"],
+                               m["C_tis"], -3.0, m["EVLW0"], **args)
+
+    # Guyton & Lindsey 1959 Circ Res 7:649 (abstract): no transudation below LAP about 24 mmHg, accumulation in
+    # proportion to the excess above it; at the medians no flooding at 20, flooding and EVLW >= 1.3 x at 35
+    normal, below, above = at(8.0), at(20.0), at(35.0)
+    assert float(below["flooding"]) < 0.0125  # < 1 % of the normal lung water an hour (validation.toml band)
+    assert float(above["flooding"]) > 0.0125
+    assert float(above["EVLW"]) > 1.3 * float(normal["EVLW"])

@@ -153,7 +153,7 @@ def test_lung_safety_factors_match_the_physiology_function(model):
     ref = lung.lung_water(v["Kf"], v["LAP"], v["PAP"], v["sigma"], v["PS"], out["pi_c"], v["L"], v["Pi_L0"],
                           v["C_tis"], s.Pi_ref, v["EVLW0"], Cp=v["Cp"], revised=model == "revised",
                           C_high=v["C_tis_high"], P_break=v["Pi_break"], JL_max=v["JL_max"],
-                          G_flood=v["G_flood"], P_flood=v["P_flood"])
+                          G_flood=v["G_flood"], P_flood=v["P_flood"], k_AFC=v["k_AFC"])
     for k in ("Jv", "Pi", "oedema_volume", "EVLW", "flooding"):
         np.testing.assert_allclose(out[k], ref[k], rtol=1e-12, atol=1e-12, err_msg=k)
     # at LAP 8 / PAP 14 the lung sits below its break: no oedema, no flooding (by construction of the curve)
