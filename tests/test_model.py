@@ -63,7 +63,9 @@ def test_lung_pc_from_gaar() -> None:
     s = _study(tissue="lung")
     v = _medians(s)
     out = evaluate(s, v)
-    assert out["Pc"] == pytest.approx(v["LAP"] + 0.4 * (v["PAP"] - v["LAP"]))
+    pap = v["LAP"] + v["TPG"]  # PAP = LAP + TPG (priors/lung.toml, issue 15 item 9)
+    assert out["PAP"] == pytest.approx(pap)
+    assert out["Pc"] == pytest.approx(v["LAP"] + 0.4 * (pap - v["LAP"]))
 
 
 @pytest.mark.parametrize("model", ["steady_state", "revised"])

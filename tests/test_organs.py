@@ -186,6 +186,8 @@ CASES = {
             Pi, Pi_ref, C_tis, EVLW0, C_high=C_high, P_break=P_break, xp=xp),
         dict(Pi=u(-6, 10), Pi_ref=u(-5, -1), C_tis=u(0.5, 2), EVLW0=u(60, 90), C_high=u(5, 20), P_break=u(-2, 3))),
     "lung.evlw_index": (lung.evlw_index, dict(EVLW=u(50, 120), M_lung=u(5, 10))),
+    "lung.alveolar_water": (lung.alveolar_water, dict(flooding=u(0, 0.5), k_AFC=u(0.0005, 0.01))),
+    "lung.pulmonary_arterial_pressure": (lung.pulmonary_arterial_pressure, dict(LAP=u(2, 35), TPG=u(1, 20))),
     "osmotic.crystalloid_sum": (lambda s1, c1, i1, s2, c2, i2: osmotic.crystalloid_sum(
         [(s1, c1, i1), (s2, c2, i2)]), dict(s1=u(0, 1), c1=u(270, 330), i1=u(270, 330), s2=u(0, 1),
                                           c2=u(0, 20), i2=u(0, 20))),

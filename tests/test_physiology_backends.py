@@ -40,6 +40,7 @@ CASES = {
     "capillary.mean_capillary_pressure": (capillary.mean_capillary_pressure, dict(
         Pa=u(60, 110), Pv=u(2, 30), r=u(0.05, 2))),
     "capillary.hydrostatic_offset": (capillary.hydrostatic_offset, dict(height_cm=u(-50, 120), density=u(1, 1.1))),
+    "interstitium.imbibition_pressure": (interstitium.imbibition_pressure, dict(Pi0=u(-4, 2), P_imb=u(-60, 0))),
     "capillary.pulmonary_capillary_pressure": (capillary.pulmonary_capillary_pressure, dict(
         LAP=u(2, 25), PAP=u(10, 45), fraction=u(0.3, 0.5))),
     "capillary.axial_pressure": (capillary.axial_pressure, dict(x=u(0, 1), Pc_art=u(25, 40), Pc_ven=u(5, 20))),

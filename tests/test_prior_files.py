@@ -31,6 +31,9 @@ TISSUES = {"skeletal_muscle", "skin_subcutis", "lung", "myocardium", "intestinal
 SYMBOLS = {
     "Pc", "Pi", "pi_c", "pi_i", "pi_g", "sigma", "Kf", "Jv", "JL", "Pa", "Pv", "r", "Cp", "Ci", "PS",
     "C_tis", "L", "Pvi", "tissue_mass", "LAP", "PAP", "Pi_L0", "JL_max",
+    "k_AFC",  # alveolar fluid clearance rate (1/min): alveolar water of the flooded lung (physiology.lung)
+    "P_imb",  # shift of the interstitial pressure-volume relation of an injured matrix (burns)
+    "TPG",  # transpulmonary gradient PAP - LAP: the lung's PAP = LAP + TPG (issue 15 item 9)
     "RPF",  # renal plasma flow, an input of the glomerular form (issue 8)
     "J_epi",  # epithelial fluid into the mucosal interstitium, revised form of the intestinal mucosa
     "EVLW0",  # extravascular lung water at the reference Pi, steady lung forms (physiology.lung)
@@ -115,7 +118,8 @@ def test_prior_set_names_and_plausibility(path: Path) -> None:
     for sym in list(priors) + list(derived):
         assert sym in SYMBOLS, f"{path.name}: {sym} is not a DESIGN.md trade symbol"
     for sym, spec in derived.items():
-        assert all(i in priors for i in spec["inputs"]), (sym, spec["inputs"])
+        # an input is a prior, or another derived quantity (the lung's Pc reads PAP = LAP + TPG)
+        assert all(i in priors or (i in derived and i != sym) for i in spec["inputs"]), (sym, spec["inputs"])
     for row in doc.get("correlations", []):
         assert set(row["pair"]) <= SYMBOLS and -1 < row["rho"] < 1
     for sym, decl in priors.items():
@@ -147,7 +151,9 @@ def test_tissue_specific_statements() -> None:
     assert "flushes interstitial protein" in gut and "sustained" in gut.lower()
     lung = _load(PRIORS / "lung.toml")
     assert lung["derived"]["Pc"]["rule"] == "gaar" and lung["derived"]["Pc"]["fraction"] == 0.4
-    assert {"LAP", "PAP"} <= set(lung["priors"]) and "Pc" not in lung["priors"]
+    # issue 15 item 9: PAP = LAP + TPG (derived), so no subject has PAP below LAP
+    assert {"LAP", "TPG"} <= set(lung["priors"]) and "Pc" not in lung["priors"] and "PAP" not in lung["priors"]
+    assert lung["derived"]["PAP"]["rule"] == "transpulmonary" and lung["derived"]["Pc"]["inputs"] == ["LAP", "PAP"]
 
 
 def test_condition_and_instrument_names() -> None:

@@ -33,6 +33,7 @@ CANONICAL: dict[str, str] = {
     # pressures (mmHg)
     "Pc": "mmHg", "Pi": "mmHg", "pi_c": "mmHg", "pi_i": "mmHg", "pi_g": "mmHg",
     "Pa": "mmHg", "Pv": "mmHg", "Pvi": "mmHg", "LAP": "mmHg", "PAP": "mmHg",
+    "TPG": "mmHg", "P_imb": "mmHg", "Pi_early": "mmHg",
     "Pi_L0": "mmHg", "Pi_break": "mmHg", "P_flood": "mmHg", "safety_margin": "mmHg", "net_pressure": "mmHg",
     "force_osm": "mmHg",
     "Pcuff": "mmHg",
@@ -57,7 +58,7 @@ CANONICAL: dict[str, str] = {
     # other
     "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
     "M_lung": "g/kg", "EVLWI": "mL/kg",
-    "k_clear": "1/min",
+    "k_clear": "1/min", "k_AFC": "1/min",
     "body_weight": "kg", "fluid_balance": "L", "organ_share": "1",
 }
 

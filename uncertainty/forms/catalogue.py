@@ -41,16 +41,17 @@ WHOLE_TISSUE_OUTPUTS = (
 _VOLUME_NEEDS = ("C_tis", PI_REF)
 _STEADY_OUTPUTS = (Output("Pi", "mmHg"), Output("pi_i", "mmHg"), Output("ratio", "1"),
                    Output("JL", "mL/min/100g"), Output("oedema_volume", "mL/100g", _VOLUME_NEEDS),
-                   Output("safety_margin", "mmHg", ("Pi_break",)))
+                   Output("safety_margin", "mmHg", ("Pi_break",)), Output("Pi_early", "mmHg", ("P_imb",)))
 #: The safety factors of the steady forms (``general.SAFETY_INPUTS``): the break of the pressure-volume
 #: curve (C_tis_high above Pi_break) and the lymph capacity JL_max.
-_SAFETY_OPTIONAL = ("C_tis", "C_tis_high", "Pi_break", "JL_max")
+#: P_imb: the shift of the pressure-volume relation of an injured matrix (burns), giving the early Pi (Pi_early).
+_SAFETY_OPTIONAL = ("C_tis", "C_tis_high", "Pi_break", "JL_max", "P_imb")
 
 
 def _lung(evaluate: FormFunction) -> TissueExtras:
     """The steady forms in the lung: EVLW0 (mL/100g) and M_lung (g/kg) in, the extravascular lung water EVLW
     (mL/100g) and its index EVLWI (mL/kg predicted body weight) out."""
-    return TissueExtras(optional=("EVLW0", "M_lung", "G_flood", "P_flood"),
+    return TissueExtras(optional=("EVLW0", "M_lung", "G_flood", "P_flood", "k_AFC"),
                         outputs=(Output("EVLW", "mL/100g", _VOLUME_NEEDS),
                                  Output("EVLWI", "mL/kg", (*_VOLUME_NEEDS, "M_lung")),
                                  Output("flooding", "mL/min/100g", ("G_flood", "P_flood"))),

@@ -66,7 +66,7 @@ def input_values(study: StudyLike, values: Mapping[str, Array], xp: Any = np) ->
     """
     v: dict[str, Array] = {s: _value(study, values, s) for s in study.priors}
     derived: Mapping[str, Any] = getattr(study, "derived", None) or {}
-    for target, d in derived.items():
+    for target, d in derived.items():  # in computation order (PAP before the Pc that reads it)
         v[target] = d.compute(v, xp)
     return v
 

@@ -80,14 +80,19 @@ def oedema(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> d
                                                         v.get("Pi_break"), xp=xp)}
 
 
-def lung_water(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Array]:
+def lung_water(Pi: Array, v: Mapping[str, Array], ctx: FormContext, xp: object,
+               flooding: Array | None = None) -> dict[str, Array]:
     """``oedema_volume`` (as :func:`oedema`) and ``EVLW`` = EVLW0 + oedema_volume (mL/100g; EVLW0 the water
-    of the normally hydrated lung, 0 when not an input), and with M_lung (g of blood-free lung per kg predicted
-    body weight) ``EVLWI`` (mL/kg, ``physiology.lung.evlw_index``); empty without C_tis or a reference Pi."""
+    of the normally hydrated lung, 0 when not an input) + with ``flooding`` (mL/min/100g) and k_AFC (1/min) the
+    alveolar water the epithelium's clearance holds at steady state (``physiology.lung.alveolar_water``), and
+    with M_lung (g of blood-free lung per kg predicted body weight) ``EVLWI`` (mL/kg,
+    ``physiology.lung.evlw_index``); empty without C_tis or a reference Pi."""
     got = oedema(Pi, v, ctx, xp)
     if not got:
         return {}
     out = {"oedema_volume": got["oedema_volume"], "EVLW": v.get("EVLW0", 0.0) + got["oedema_volume"]}
+    if flooding is not None and "k_AFC" in v:
+        out["EVLW"] = out["EVLW"] + lung.alveolar_water(flooding, v["k_AFC"])
     if "M_lung" in v:  # EVLWI (mL/kg predicted body weight) from the blood-free lung mass per kg (g/kg)
         out["EVLWI"] = lung.evlw_index(out["EVLW"], v["M_lung"])
     return out
@@ -131,10 +136,12 @@ def _steady_result(res: Mapping[str, Array], pi_o: Array, v: Mapping[str, Array]
     Jv, Pi = res["Jv"], res["Pi"]
     out: dict[str, Array] = {"Jv": Jv, **first, "Pi": Pi, "pi_i": res["pi_i"], "ratio": res["ratio"],
                              "JL": res.get("JL", Jv)}  # lymph balance: JL = Jv, or Jv + J_epi (mucosa)
-    got = volume(Pi, v, ctx, xp)
+    got = lung_water(Pi, v, ctx, xp, res.get("flooding")) if volume is lung_water else volume(Pi, v, ctx, xp)
     if "oedema_volume" in got:
         out["oedema_volume"] = got["oedema_volume"]
     out.update(margin(v, ctx, xp))
+    if "P_imb" in v and ctx.Pi_ref is not None:  # burns: the early Pi of the injured matrix at its pre-injury volume
+        out["Pi_early"] = interstitium.imbibition_pressure(ctx.Pi_ref, v["P_imb"])
     if "EVLW" in got:
         out["EVLW"] = got["EVLW"]
     if "EVLWI" in got:

@@ -149,6 +149,31 @@ def oedema_beyond_break(Pi: Array, C_tis: Array, C_high: Array, P_break: Array, 
     return xp.maximum(V, 0.0)
 
 
+def imbibition_pressure(Pi0: Array, P_imb: Array) -> Array:
+    """Interstitial pressure (mmHg) of an injured matrix that still holds its pre-injury volume.
+
+    Parameters
+    ----------
+    Pi0 : array
+        Interstitial pressure of the intact, normally hydrated tissue (mmHg): a point (V0, Pi0) of its
+        pressure-volume curve.
+    P_imb : array
+        Shift of the pressure-volume relation by the injury (mmHg, negative: a raised imbibition pressure). The
+        injured matrix holds at Pi the volume the intact one held at Pi - P_imb, V_inj(Pi) = V(Pi - P_imb), as
+        when heat-denatured collagen and hyaluronan expand their gel (Lund T, Onarheim H, Wiig H, Reed RK 1989
+        Am J Physiol 256:H940, abstract: excised rat skin, no filtration possible, Pif -1.5 to -33.3 mmHg after a
+        10-s scald).
+
+    Returns
+    -------
+    array
+        Pi0 + P_imb (mmHg): the inverse of the shifted curve at the pre-injury volume V0, i.e. the pressure
+        early after the injury, before filtration has had time to swell the tissue (the suction that drives
+        the first hour's oedema). Plain arithmetic (numpy arrays or PyTensor tensors).
+    """
+    return Pi0 + P_imb
+
+
 def volume_lymph_flow(Pi: Array, L: Array, Pi_L0: Array, C_tis: Array | None = None, C_high: Array | None = None,
                       P_break: Array | None = None, JL_max: Array | None = None, width: Array = BREAK_WIDTH,
                       xp: Any = np) -> tuple[Array, Array]:
@@ -174,7 +199,13 @@ def volume_lymph_flow(Pi: Array, L: Array, Pi_L0: Array, C_tis: Array | None = N
     return JL_max * t, du * (1.0 - t * t)
 
 
-def overflow(Pi: Array, G: Array, P_over: Array, width: Array = BREAK_WIDTH, xp: Any = np) -> tuple[Array, Array]:
+FLOOD_WIDTH = 0.1  # mmHg: the rounding of the alveolar flooding onset (a numerical shape parameter, not a measured
+# value): with the curve's BREAK_WIDTH (0.5 mmHg) the flooding path's large conductance made its softplus tail flood
+# the alveoli while Pi lay 1-2 mmHg below P_flood, i.e. some 5 mmHg of left atrial pressure below the threshold that
+# Guyton & Lindsey 1959 (Circ Res 7:649, abstract) measured; 0.1 mmHg keeps the onset smooth (gradients) but sharp
+
+
+def overflow(Pi: Array, G: Array, P_over: Array, width: Array = FLOOD_WIDTH, xp: Any = np) -> tuple[Array, Array]:
     """Flow (mL/min per basis) out of a full interstitium by a path that opens at P_over, and its slope.
 
     G width softplus((Pi - P_over)/width): about G (Pi - P_over) once Pi exceeds P_over by a few widths,

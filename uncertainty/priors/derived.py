@@ -1,4 +1,8 @@
-"""Derived quantities: a quantity computed from others (Pc from Pa, Pv and r; pi_c from protein).
+"""Derived quantities: a quantity computed from others (Pc from Pa, Pv and r; pi_c from protein; in the lung
+PAP from LAP and the transpulmonary gradient TPG, and Pc from LAP and PAP).
+
+A derivation may read another derived quantity (the lung's Pc reads the derived PAP): dictionaries of
+derivations are kept in the order they are computed (:func:`computation_order`).
 """
 
 from __future__ import annotations
@@ -10,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.core.errors import study_error
-from uncertainty.physiology import capillary, oncotic
+from uncertainty.physiology import capillary, lung, oncotic
 from uncertainty.priors.declarations import is_number, join_key
 
 
@@ -22,7 +26,8 @@ class Derivation:
         target: the derived quantity (``pi_c``, ``pi_i``, ``Pc``).
         formula: ``total`` / ``albumin`` / ``albumin_globulin`` (oncotic pressure from protein,
             Landis & Pappenheimer relations), ``resistance_ratio`` (Pc from Pa, Pv, r;
-            Pappenheimer & Soto-Rivera 1948) or ``gaar`` (lung Pc from LAP, PAP; Gaar et al. 1967).
+            Pappenheimer & Soto-Rivera 1948), ``gaar`` (lung Pc from LAP, PAP; Gaar et al. 1967) or
+            ``transpulmonary`` (lung PAP = LAP + TPG).
         inputs: the quantities it reads, in the order the formula takes them.
         shift: added after the formula (canonical unit of the target), from a condition.
         multiply: multiplies the result of the formula, from a condition.
@@ -51,6 +56,8 @@ class Derivation:
             out = capillary.mean_capillary_pressure(*args)
         elif self.formula == "gaar":
             out = capillary.pulmonary_capillary_pressure(*args, fraction=self.fraction)
+        elif self.formula == "transpulmonary":
+            out = lung.pulmonary_arterial_pressure(*args)
         else:  # pragma: no cover
             raise ValueError(self.formula)
         if self.multiply != 1.0:
@@ -64,7 +71,8 @@ class Derivation:
         names = {"total": "oncotic pressure of total protein", "albumin": "oncotic pressure of albumin",
                  "albumin_globulin": "oncotic pressure of albumin + globulin",
                  "resistance_ratio": "(r Pa + Pv)/(1 + r)",
-                 "gaar": f"LAP + {self.fraction:g} (PAP - LAP)"}
+                 "gaar": f"LAP + {self.fraction:g} (PAP - LAP)",
+                 "transpulmonary": "LAP + TPG"}
         text = f"{self.target} = {names[self.formula]} from {', '.join(self.inputs)}"
         if self.multiply != 1.0:
             text += f", x {self.multiply:g}"
@@ -77,7 +85,59 @@ class Derivation:
 PRESSURE_DERIVATIONS: dict[str, tuple[str, tuple[str, ...]]] = {
     "resistance_ratio": ("Pc", ("Pa", "Pv", "r")),
     "gaar": ("Pc", ("LAP", "PAP")),
+    "transpulmonary": ("PAP", ("LAP", "TPG")),
 }
+
+
+def computation_order(derived: Mapping[str, Derivation]) -> dict[str, Derivation]:
+    """The derivations reordered so that each comes after the derived quantities it reads (PAP before Pc).
+
+    Parameters
+    ----------
+    derived : mapping of str to Derivation
+        target -> derivation, in any order.
+
+    Returns
+    -------
+    dict of str to Derivation
+        The same derivations, each after those among its inputs (a stable depth-first order).
+    """
+    out: dict[str, Derivation] = {}
+
+    def visit(target: str, depth: int) -> None:
+        if target in out or depth > len(derived):
+            return
+        for inp in derived[target].inputs:
+            if inp in derived:
+                visit(inp, depth + 1)
+        out[target] = derived[target]
+
+    for t in derived:
+        visit(t, 0)
+    return out
+
+
+def compute_all(derived: Mapping[str, Derivation], values: Mapping[str, Any], xp: Any = np) -> dict[str, Any]:
+    """``values`` with every derived quantity added (canonical units), each computed after its inputs.
+
+    Parameters
+    ----------
+    derived : mapping of str to Derivation
+        target -> derivation.
+    values : mapping of str to array
+        The sampled or fixed quantities the derivations read (numbers, numpy arrays or PyTensor tensors).
+    xp : module
+        ``numpy`` or ``pytensor.tensor``.
+
+    Returns
+    -------
+    dict of str to array
+        A copy of ``values`` with the derived quantities.
+    """
+    out = dict(values)
+    for target, d in computation_order(derived).items():
+        out[target] = d.compute(out, xp)
+    return out
 
 
 def parse_derived(symbol: str, spec: Any, *, file: Any = None, key: str | None = None) -> Derivation:

@@ -25,7 +25,7 @@ from uncertainty.priors.declarations import (
     join_key,
     parse_prior,
 )
-from uncertainty.priors.derived import Derivation, parse_derived
+from uncertainty.priors.derived import Derivation, computation_order, parse_derived
 
 
 def parse_entry(symbol: str, decl: Any, *, ctx: Context | None = None, key: str | None = None,
@@ -189,9 +189,10 @@ def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str |
         pset.derived[sym] = parse_derived(sym, spec, file=file, key=f"derived.{sym}")
     for sym, d in pset.derived.items():
         for inp in d.inputs:
-            if inp not in pset.priors:
+            if inp not in pset.priors and (inp not in pset.derived or inp == sym):
                 raise study_error(f"input {inp} of derived {sym} has no prior in this set", file,
                            f"derived.{sym}.inputs", inp)
+    pset.derived = computation_order(pset.derived)
     rows = doc.get("correlations", [])
     if not isinstance(rows, list):
         raise study_error("[[correlations]] rows: pair = [a, b], rho, origin", file, "correlations", rows)
@@ -242,7 +243,7 @@ def prior_medians(tissue: str, directory: str | Path | None = None) -> dict[str,
     """
     pset = load_prior_set(tissue, directory)
     out = {s: p.median() for s, p in pset.priors.items()}
-    for target, d in pset.derived.items():
+    for target, d in computation_order(pset.derived).items():
         out[target] = float(d.compute(out))
     return out
 

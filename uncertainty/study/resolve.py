@@ -641,15 +641,22 @@ def select_inputs(declared: Declared, head: StudySection, file: str) -> FormInpu
     wanted = list(required_inputs(model, tissue)) + [s for s in optional_inputs(model, tissue)
                                                      if s in priors or s in derived]
     tissue_only = tissue_inputs(model, tissue)
+
+    def use(s: str) -> None:  # a derivation and what it reads, a derived input (PAP of the lung's Pc) first
+        for inp in derived[s].inputs:
+            if inp in derived and inp not in priors:
+                if inp not in used_derived:
+                    use(inp)
+            elif inp not in priors:
+                raise study_error(f"{s} is derived from {inp}, which has no prior", file, f"parameters.{inp}",
+                                  None)
+            elif inp not in needed:
+                needed.append(inp)
+        used_derived[s] = derived[s]
+
     for s in wanted:
         if s in derived:
-            used_derived[s] = derived[s]
-            for inp in derived[s].inputs:
-                if inp not in priors:
-                    raise study_error(f"{s} is derived from {inp}, which has no prior", file, f"parameters.{inp}",
-                                      None)
-                if inp not in needed:
-                    needed.append(inp)
+            use(s)
         elif s in priors:
             if s not in needed:
                 needed.append(s)

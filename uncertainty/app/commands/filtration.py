@@ -12,6 +12,7 @@ from uncertainty.core.errors import InputError
 from uncertainty.core.units import CANONICAL, takes_basis, to_canonical
 from uncertainty.physiology import capillary, oncotic, starling
 from uncertainty.priors import load_conditions, load_prior_set
+from uncertainty.priors.derived import computation_order
 
 SIX = ("Pc", "Pi", "pi_c", "pi_i", "sigma", "Kf")
 #: quantities --set accepts beyond the six: Pc from Pa, Pv, r; pi_c / pi_i from protein.
@@ -101,7 +102,7 @@ def tissue_medians(tissue: str, conditions: Sequence[str] = (),
             raise InputError(f"condition {name} applies to {', '.join(cond.applies_to)} only", key=key, value=name)
         priors = cond.apply(priors, tissue=tissue, notes=notes, derived=derived, density=pset.density)
     out = {s: float(p.median()) for s, p in priors.items()}
-    for target, d in derived.items():
+    for target, d in computation_order(derived).items():
         out[target] = float(d.compute(out))
     return out, derived
 

@@ -91,9 +91,10 @@ def implied_ranges(tissue: str, model: str = "classic", *, samples: int = IMPLIE
                                        "model": model, "seed": seed}})
     out: dict[str, dict[str, Any]] = {}
     for layer in ("typical", "individual"):
-        values = draw(study, samples, seed=seed, layer=layer)
-        for target, d in study.derived.items():
-            y = np.asarray(d.compute(values), dtype=float)
+        values = dict(draw(study, samples, seed=seed, layer=layer))
+        for target, d in study.derived.items():  # in computation order: PAP before the Pc that reads it
+            values[target] = d.compute(values)
+            y = np.asarray(values[target], dtype=float)
             y = y[np.isfinite(y)]
             if y.size == 0:
                 continue
