@@ -416,3 +416,21 @@ def test_propagate_returns_the_timeline() -> None:
             assert len(d["median"]) == len(d["ci95"]) == 7
         lo, hi = tl[layer]["plasma_volume_change"]["ci95"][2]
         assert 0 < lo <= tl[layer]["plasma_volume_change"]["median"][2] <= hi < 1000.0
+
+
+def test_shipped_bleed_study_refills_over_hours() -> None:
+    # studies/blood_loss_volunteer.toml (invented subject, 450 mL over 10 min), 32 draws per layer. Ruttman TG,
+    # Roche AM, Gasson J, James MFM 2003 (one-unit, 480 mL donation; abstract read through the search tool):
+    # haematocrit 8.3% below the pre-donation value at 6 h after a progressive fall. Check: the typical subject's
+    # median Hb at 6 h lies 4-12% below rest and below its value at 1 h; the plasma deficit shrinks over the hours.
+    from uncertainty.analyses.propagate.timeline import timeline
+    from uncertainty.core.resources import studies_dir
+    from uncertainty.study import load_study
+
+    tl = timeline(load_study(studies_dir() / "blood_loss_volunteer.toml"), draws=32)
+    times = tl["times_min"]
+    hb = tl["typical"]["hb_ratio"]["median"]
+    pv = tl["typical"]["plasma_volume_change"]["median"]
+    assert 0.88 <= hb[times.index(360.0)] <= 0.96
+    assert hb[times.index(360.0)] < hb[times.index(60.0)]
+    assert pv[times.index(10.0)] < pv[times.index(60.0)] < pv[times.index(360.0)] < 0.0
