@@ -134,7 +134,10 @@ MEANINGS: dict[str, str] = {
                          "first reading, 1 kg = 1 L) and fluid_balance (charted cumulative balance since time 0, L), "
                          "from a data file with times: the organ's Jv x tissue mass x days is the declared `share` "
                          "of the body's net fluid gain, filtration constant over the period, charted balances "
-                         "omitting insensible losses (needs [study] tissue_mass; sd only)",
+                         "omitting insensible losses (needs [study] tissue_mass; sd only); whole_body form only: "
+                         "haemoglobin (serial blood Hb per subject from a data file with times, g/dL, sd only: each "
+                         "subject's readings relative to its earliest one against the time course of Hb relative "
+                         "to rest)",
     "observations.name": "optional label",
     "observations.parameter": "the quantity a measurement reads (a trade symbol)",
     "observations.value": "the observed value, in `unit`",

@@ -43,7 +43,7 @@ CANONICAL: dict[str, str] = {
     "sigma": "1", "r": "1", "transmission": "1", "FF": "1", "sigma_osm": "1", "ratio": "1",
     "sigma_g": "1", "sigma_s": "1",
     # concentrations
-    "Cp": "g/dL", "Ci": "g/dL", "C_alb": "g/dL", "C_glob": "g/dL", "Ci_alb": "g/dL", "Ci_glob": "g/dL",
+    "Cp": "g/dL", "Hb": "g/dL", "Ci": "g/dL", "C_alb": "g/dL", "C_glob": "g/dL", "Ci_alb": "g/dL", "Ci_glob": "g/dL",
     "osmolality": "mOsm/kg", "d_osmolality": "mOsm/kg", "Osm_p": "mOsm/kg", "Osm_i": "mOsm/kg",
     # per-tissue quantities (basis suffix)
     "Kf": "mL/min/mmHg/100g",

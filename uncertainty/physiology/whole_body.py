@@ -17,15 +17,28 @@ by convection and diffusion (``solute.protein_flux``, Patlak); oncotic pressures
 Landis-Pappenheimer total-protein cubic (``oncotic.pi_cubic``). Each bed starts in its own safety-factor
 steady state (``balance.safety_steady_state``), so without interventions nothing moves.
 
-Renal elimination follows volume kinetics (Hahn's one-volume model): the rate of fluid elimination is the
-plasma dilution (v - V)/V times a clearance constant k_r (mL/min); Svensen C, Hahn RG 1997 (volunteers given
-25 mL/kg Ringer's, abstract read): "the product of plasma dilution and a constant averaging 95 (95% CI
-68-122) ml min-1"; Drobin D, Hahn RG 1999 Anesthesiology 90:81-91 (abstract): k_r 133 (SEM 22) mL/min in
-normovolaemic male volunteers, falling with hypovolaemia. Here urine = max(u_basal + k_r s(t) (Vp - Vp0)/Vp0, 0);
-the basal urine is taken as balanced by basal intake, so only the excess leaves the plasma. Each fluid has its
-own clearance constant (crystalloid 133 mL/min, colloids 7.1 mL/min, Lee et al. 2010, see
-:data:`K_R_COLLOID_ML_MIN`); s(t) (:func:`renal_scale`) is the volume-weighted mean of the constants of the
-fluids infused by t relative to the crystalloid's (1 before any infusion and for bleeds).
+Renal elimination follows volume kinetics (Hahn's models): above a basal urine flow, fluid leaves at a
+clearance constant k_r (mL/min) times the relative plasma dilution (Vp - Vp0)/Vp0, i.e. at the rate constant
+k_r/Vp0 (1/min) times the plasma volume expansion. The crystalloid's rate constant is ln 2 over the elimination
+half-life of infused Ringer's acetate in male volunteers, 38 min (95% CI 33-42; 24 min in females), which Hahn RG
+2016 Biol Sex Differ 7:54 (abstract) defines exactly so: excreted urine divided by the modelled plasma volume
+expansion over time, from 67 infusions in male volunteers (population kinetics, urine measured). An older
+single-study constant multiplied the dilution of a larger expandable space (Svensen C, Hahn RG 1997, 95 mL/min on
+a 4.8 L space; Drobin D, Hahn RG 1999 Anesthesiology 90:81, 133 mL/min in a two-volume model); applied to the
+plasma dilution it doubles the early urine (about 720 mL by 30 min after 25 mL/kg against a peak of 19 (13-31)
+mL/min of urine in conscious volunteers, Rodhe P et al. 2010 Comput Math Methods Med 11:341, abstract), which is
+why the half-life form is used. Here urine = max(u_basal + k_r(t) (Vp - Vp0)/Vp0, 0); the basal urine is taken as
+balanced by basal intake, so only the excess leaves the plasma. Colloids have their own clearance constant on the
+plasma dilution (7.1 mL/min, Lee et al. 2010, see :data:`K_R_COLLOID_ML_MIN`); k_r(t) (:func:`renal_terms`) is the
+volume-weighted mean of the constants of the fluids infused by t (the crystalloid's before any infusion and for
+bleeds).
+
+Infused albumin enters the plasma protein mass (total protein, whose oncotic pressure the Landis-Pappenheimer
+total-protein cubic gives) as the total-protein mass of equal oncotic pressure: the fluid's oncotic pressure from
+its albumin concentration by the albumin cubic, then the total-protein concentration with that pressure
+(:data:`FLUID_TOTAL_PROTEIN_EQUIVALENT_G_PER_DL`; 5% albumin, 20 mmHg, counts as about 6.0 g/dL of plasma
+protein, not 5). Albumin is the more effective protein per gram (smaller molecule), which treating its grams as
+total protein ignores.
 
 Units: volumes mL, protein mass g, concentrations g/dL (g per 100 mL), pressures mmHg, flows mL/min, times
 min. Per-bed conductances and compliances are per 100 g of tissue (as in the prior sets) and are scaled by
@@ -53,9 +66,10 @@ Array = Any
 
 # --- whole-body constants (each with its origin) ------------------------------------------------------
 
-#: Clearance constant of volume kinetics, mL/min: Drobin D, Hahn RG 1999 Anesthesiology 90:81-91 (abstract):
-#: k_r 133 (SEM 22) mL/min in ten normovolaemic male volunteers given 25 mL/kg Ringer's acetate.
-K_R_ML_MIN = 133.0
+#: Elimination half-life of infused crystalloid, min: Hahn RG 2016 Biol Sex Differ 7:54 (abstract; population
+#: kinetics of 67 infusions of Ringer's acetate in male volunteers): 38 min (95% CI 33-42), defined as excreted urine
+#: over the modelled plasma volume expansion; 24 min (21-27) in females.
+ELIMINATION_HALF_LIFE_MIN = 38.0
 #: Basal urine flow, mL/min: common practice (about 1 mL/kg/h in an adult, 1.2 mL/min at 70 kg).
 U_BASAL_ML_MIN_PER_KG = 1.0 / 60.0
 #: Blood volume, mL/kg: common practice (about 70 mL/kg in an adult man).
@@ -75,11 +89,31 @@ VASCULAR_COMPLIANCE_ML_PER_MMHG_PER_KG = 1.5
 #: dilution it multiplies here, so if anything it overstates the colloid's renal elimination in this model.
 K_R_COLLOID_ML_MIN = 7.1
 
-#: Protein content of the fluids, g/dL (common practice: the labelled concentrations).
+#: Protein content of the fluids, g/dL (common practice: the labelled concentrations; albumin solutions).
 FLUID_PROTEIN_G_PER_DL: dict[str, float] = {"crystalloid": 0.0, "albumin_5": 5.0, "albumin_20": 20.0}
-#: Clearance constant of volume kinetics by fluid, mL/min (origins at K_R_ML_MIN and K_R_COLLOID_ML_MIN).
-FLUID_CLEARANCE_ML_MIN: dict[str, float] = {"crystalloid": K_R_ML_MIN, "albumin_5": K_R_COLLOID_ML_MIN,
-                                            "albumin_20": K_R_COLLOID_ML_MIN}
+#: Clearance constant of volume kinetics by colloid, mL/min on the relative plasma dilution (origin at
+#: K_R_COLLOID_ML_MIN); the crystalloid's is the body's own (:func:`body_parameters`).
+FLUID_CLEARANCE_ML_MIN: dict[str, float] = {"albumin_5": K_R_COLLOID_ML_MIN, "albumin_20": K_R_COLLOID_ML_MIN}
+
+
+def total_protein_equivalent(albumin_g_per_dl: float) -> float:
+    """Total-protein concentration (g/dL) with the oncotic pressure of an albumin solution of ``albumin_g_per_dl``.
+
+    The albumin Landis-Pappenheimer cubic gives the solution's oncotic pressure (mmHg), the total-protein cubic
+    inverted gives the plasma-protein concentration of equal pressure (``oncotic.COEFFICIENTS``).
+
+    Parameters
+    ----------
+    albumin_g_per_dl : float
+        Albumin concentration, g/dL (>= 0).
+
+    Returns
+    -------
+    float
+        Total-protein concentration of equal oncotic pressure, g/dL.
+    """
+    return float(protein_from_oncotic(pi_cubic(float(albumin_g_per_dl), "albumin"), n_steps=40))
+
 
 #: The tissue beds, in order.
 BEDS = ("muscle", "skin")
@@ -98,10 +132,13 @@ class Dose:
     start, duration : float
         min (duration 0: given within the step that contains ``start``).
     protein : float
-        Protein concentration of an infused fluid, g/dL (0 for crystalloid and for bleeds).
-    clearance : float
-        Volume-kinetic clearance constant of an infused fluid, mL/min (:data:`FLUID_CLEARANCE_ML_MIN`;
-        ignored for bleeds).
+        Protein concentration of an infused fluid as labelled, g/dL (0 for crystalloid and for bleeds).
+    clearance : float or None
+        Volume-kinetic clearance constant of an infused colloid on the relative plasma dilution, mL/min
+        (:data:`FLUID_CLEARANCE_ML_MIN`); None for a crystalloid (the body's own constant) and for bleeds.
+    protein_equivalent : float
+        Total-protein concentration of equal oncotic pressure, g/dL (:func:`total_protein_equivalent`; what
+        :func:`simulate` adds to the plasma protein mass).
     """
 
     kind: str
@@ -109,7 +146,8 @@ class Dose:
     start: float
     duration: float
     protein: float = 0.0
-    clearance: float = K_R_ML_MIN
+    clearance: float | None = None
+    protein_equivalent: float = 0.0
 
 
 def infusion(fluid: str, volume: float, start: float = 0.0, duration: float = 0.0) -> Dose:
@@ -133,7 +171,9 @@ def infusion(fluid: str, volume: float, start: float = 0.0, duration: float = 0.
     KeyError
         An unknown fluid (the study schema refuses it first).
     """
-    return Dose("infusion", volume, start, duration, FLUID_PROTEIN_G_PER_DL[fluid], FLUID_CLEARANCE_ML_MIN[fluid])
+    c = FLUID_PROTEIN_G_PER_DL[fluid]
+    return Dose("infusion", volume, start, duration, c, FLUID_CLEARANCE_ML_MIN.get(fluid),
+                total_protein_equivalent(c) if c > 0 else 0.0)
 
 
 def delivered(d: Dose, t: float) -> float:
@@ -143,15 +183,16 @@ def delivered(d: Dose, t: float) -> float:
     return d.volume if d.start < t else 0.0
 
 
-def renal_scale(doses: Sequence[Dose], t: float) -> float:
-    """Factor (1) on the crystalloid clearance constant ``k_r`` for the fluids infused by time ``t`` (min).
+def renal_terms(doses: Sequence[Dose], t: float) -> tuple[float, float]:
+    """The clearance constant for the fluids infused by time ``t`` (min), as k_r(t) = a k_r + b.
 
-    Each fluid has its own clearance (:data:`FLUID_CLEARANCE_ML_MIN`); a mixed or sequential regimen takes the
-    mean of the clearances of the fluids infused so far, weighted by the volume of each given by ``t``, so a
-    colloid alone is cleared at its own constant, a crystalloid alone at its own, and a crystalloid given after
-    a colloid is cleared more slowly than alone (the direction, not the size, of the interaction reported by
-    Hahn RG and colleagues 2013 Crit Care 17:R104, abstract: Ringer's elimination half-life five times longer
-    after 6% starch). Bleeds do not enter; before any infusion the factor is 1 (the crystalloid constant).
+    Each fluid has its own clearance constant (the body's crystalloid constant ``k_r``, or a colloid's
+    :data:`FLUID_CLEARANCE_ML_MIN`); a mixed or sequential regimen takes the mean of the constants of the fluids
+    infused so far, weighted by the volume of each given by ``t``, so a colloid alone is cleared at its own
+    constant, a crystalloid alone at its own, and a crystalloid given after a colloid more slowly than alone (the
+    direction, not the size, of the interaction reported by Hahn RG and colleagues 2013 Crit Care 17:R104,
+    abstract: Ringer's elimination half-life five times longer after 6% starch). Bleeds do not enter; before any
+    infusion the constant is the crystalloid's (a = 1, b = 0).
 
     Parameters
     ----------
@@ -162,20 +203,26 @@ def renal_scale(doses: Sequence[Dose], t: float) -> float:
 
     Returns
     -------
-    float
-        sum_i V_i(t) k_i / (K_R_ML_MIN sum_i V_i(t)) over the infusions, or 1.
+    a : float
+        Volume share of the crystalloids among the fluids given by ``t`` (1).
+    b : float
+        Volume-weighted colloid clearance, sum over colloids V_i(t) k_i / sum over fluids V_i(t), mL/min.
     """
-    vol = weighted = 0.0
+    vol = cryst = weighted = 0.0
     for d in doses:
         if d.kind == "bleed":
             continue
         v = delivered(d, t)
         vol += v
-        weighted += v * d.clearance
-    return weighted / (K_R_ML_MIN * vol) if vol > 0 else 1.0
+        if d.clearance is None:
+            cryst += v
+        else:
+            weighted += v * d.clearance
+    return (cryst / vol, weighted / vol) if vol > 0 else (1.0, 0.0)
 
 
-def step_rates(doses: Sequence[Dose], t0: float, dt: float) -> tuple[float, float, float]:
+def step_rates(doses: Sequence[Dose], t0: float, dt: float, equivalent: bool = False
+               ) -> tuple[float, float, float]:
     """Mean infusion rate (mL/min), infused protein (g/min) and bleeding rate (mL/min of whole blood)
     over the step [t0, t0 + dt) (min).
 
@@ -185,6 +232,9 @@ def step_rates(doses: Sequence[Dose], t0: float, dt: float) -> tuple[float, floa
         The interventions.
     t0, dt : float
         Step start and length, min.
+    equivalent : bool
+        Protein as total-protein mass of equal oncotic pressure (``Dose.protein_equivalent``, what
+        :func:`simulate` uses) rather than as labelled (``Dose.protein``).
 
     Returns
     -------
@@ -202,7 +252,7 @@ def step_rates(doses: Sequence[Dose], t0: float, dt: float) -> tuple[float, floa
             bleed += vol / dt
         else:
             inf += vol / dt
-            prot += vol * d.protein / 100.0 / dt
+            prot += vol * (d.protein_equivalent if equivalent else d.protein) / 100.0 / dt
     return inf, prot, bleed
 
 
@@ -233,7 +283,7 @@ def protein_from_oncotic(pi: Array, xp: Any = np, n_steps: int = 8) -> Array:
 
 
 def body_parameters(body_mass_kg: float, *, haematocrit: Array = HAEMATOCRIT,
-                    blood_volume_per_kg: Array = BLOOD_VOLUME_ML_PER_KG, k_r: Array = K_R_ML_MIN,
+                    blood_volume_per_kg: Array = BLOOD_VOLUME_ML_PER_KG, k_r: Array | None = None,
                     compliance_per_kg: Array = VASCULAR_COMPLIANCE_ML_PER_MMHG_PER_KG) -> dict[str, Array]:
     """The plasma and renal parameters of a body of ``body_mass_kg`` (kg).
 
@@ -242,8 +292,9 @@ def body_parameters(body_mass_kg: float, *, haematocrit: Array = HAEMATOCRIT,
     body_mass_kg : float
         Body mass, kg.
     haematocrit, blood_volume_per_kg, k_r, compliance_per_kg : array, optional
-        Haematocrit (1), blood volume (mL/kg), clearance constant (mL/min), vascular compliance
-        (mL/mmHg/kg); defaults are the module constants.
+        Haematocrit (1), blood volume (mL/kg), crystalloid clearance constant on the relative plasma dilution
+        (mL/min; default ln 2 / :data:`ELIMINATION_HALF_LIFE_MIN` times the resting plasma volume), vascular
+        compliance (mL/mmHg/kg); other defaults are the module constants.
 
     Returns
     -------
@@ -251,7 +302,10 @@ def body_parameters(body_mass_kg: float, *, haematocrit: Array = HAEMATOCRIT,
         ``Vp0`` and ``Vrbc0`` (mL), ``C_vasc`` (mL/mmHg), ``k_r`` and ``u_basal`` (mL/min).
     """
     bv = blood_volume_per_kg * body_mass_kg
-    return {"Vp0": bv * (1.0 - haematocrit), "Vrbc0": bv * haematocrit, "C_vasc": compliance_per_kg * body_mass_kg,
+    vp0 = bv * (1.0 - haematocrit)
+    if k_r is None:
+        k_r = math.log(2.0) / ELIMINATION_HALF_LIFE_MIN * vp0
+    return {"Vp0": vp0, "Vrbc0": bv * haematocrit, "C_vasc": compliance_per_kg * body_mass_kg,
             "k_r": k_r, "u_basal": U_BASAL_ML_MIN_PER_KG * body_mass_kg}
 
 
@@ -361,9 +415,9 @@ def _softplus_and_logistic(x: Array, xp: Any) -> tuple[Array, Array]:
     return xp.maximum(x, 0.0) + xp.log1p(e), xp.where(x >= 0, r, e * r)
 
 
-def _fluxes(state: Mapping[str, Array], p: _Prepared, xp: Any, renal_scale: Array = 1.0,
+def _fluxes(state: Mapping[str, Array], p: _Prepared, xp: Any, renal: Sequence[float] = (1.0, 0.0),
             compliance: bool = True) -> dict[str, Array]:
-    """:func:`fluxes` on prepared constants (``renal_scale`` multiplies k_r; without ``compliance`` the
+    """:func:`fluxes` on prepared constants (``renal``: (a, b) of :func:`renal_terms`; without ``compliance`` the
     per-bed compliance ``C_<bed>`` is left out, as :func:`report` does not need it)."""
     Vp, Qp = state["Vp"], state["Qp"]
     Cp = 100.0 * Qp / Vp
@@ -371,7 +425,7 @@ def _fluxes(state: Mapping[str, Array], p: _Prepared, xp: Any, renal_scale: Arra
     dVb = Vp + state["Vrbc"] - p.Vb0
     dPc = dVb / p.vasc  # dPv = dVb / C_vasc, dPc = dPv / (1 + r)
     dil = (Vp - p.Vp0) / p.Vp0
-    out: dict[str, Array] = {"Cp": Cp, "urine": xp.maximum(p.u_basal + p.k_r * renal_scale * dil, 0.0)}
+    out: dict[str, Array] = {"Cp": Cp, "urine": xp.maximum(p.u_basal + (p.k_r * renal[0] + renal[1]) * dil, 0.0)}
     for name, b in p.beds:
         Pi, Qi = state[f"Pi_{name}"], state[f"Qi_{name}"]
         dP = Pi - b["Pb"]
@@ -393,7 +447,7 @@ def _fluxes(state: Mapping[str, Array], p: _Prepared, xp: Any, renal_scale: Arra
 
 
 def fluxes(state: Mapping[str, Array], body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
-           rest: Mapping[str, Array], xp: Any = np, renal_scale: Array = 1.0) -> dict[str, Array]:
+           rest: Mapping[str, Array], xp: Any = np, renal: Sequence[float] = (1.0, 0.0)) -> dict[str, Array]:
     """Flows (mL/min, g/min) and derived quantities at ``state`` (arguments as :func:`initial_state`).
 
     Parameters
@@ -402,8 +456,8 @@ def fluxes(state: Mapping[str, Array], body: Mapping[str, Array], beds: Mapping[
         As :func:`initial_state`.
     xp : module
         numpy or pytensor.tensor.
-    renal_scale : array, optional
-        Factor on the clearance constant ``body["k_r"]`` for the fluid given (:func:`renal_scale`), 1.
+    renal : pair of float, optional
+        (a, b) of :func:`renal_terms`: the clearance constant is a ``body["k_r"]`` + b (mL/min); (1, 0).
 
     Returns
     -------
@@ -412,7 +466,7 @@ def fluxes(state: Mapping[str, Array], body: Mapping[str, Array], beds: Mapping[
         ``JLs_<bed>`` (protein by filtration and by lymph, g/min), ``Vx_<bed>`` (interstitial volume above
         rest, mL), ``C_<bed>`` (bed compliance, mL/mmHg).
     """
-    return _fluxes(state, _Prepared(body, beds, rest, xp), xp, renal_scale)
+    return _fluxes(state, _Prepared(body, beds, rest, xp), xp, renal)
 
 
 def _derivatives(state: Mapping[str, Array], f: Mapping[str, Array], rates: Sequence[Array], p: _Prepared
@@ -446,7 +500,7 @@ def derivatives(state: Mapping[str, Array], rates: Sequence[Array], body: Mappin
         As :func:`initial_state`.
     rates : sequence
         (infusion mL/min, infused protein g/min, bleeding mL/min of whole blood) of :func:`step_rates`,
-        optionally followed by the renal scale (1) of :func:`renal_scale` (1 when absent).
+        optionally followed by (a, b) of :func:`renal_terms` ((1, 0) when absent).
     xp : module
         numpy or pytensor.tensor.
 
@@ -456,8 +510,12 @@ def derivatives(state: Mapping[str, Array], rates: Sequence[Array], body: Mappin
         d/dt of each key of ``state`` (mL/min, g/min, mmHg/min).
     """
     p = _Prepared(body, beds, rest, xp)
-    scale = rates[3] if len(rates) > 3 else 1.0
-    return _derivatives(state, _fluxes(state, p, xp, scale), rates, p)
+    return _derivatives(state, _fluxes(state, p, xp, _renal(rates)), rates, p)
+
+
+def _renal(rates: Sequence[Array]) -> tuple[float, float]:
+    """(a, b) of :func:`renal_terms` from a rates tuple ((1, 0) when it has only the three rates)."""
+    return (rates[3], rates[4]) if len(rates) > 4 else (1.0, 0.0)
 
 
 Args3 = tuple[Mapping[str, Array], Mapping[str, Mapping[str, Array]], Mapping[str, Array]]
@@ -467,7 +525,7 @@ def _rk4(state: dict[str, Array], rates: Sequence[Array], dt: float, args: Args3
          f1: Mapping[str, Array] | None = None) -> dict[str, Array]:
     """One classical Runge-Kutta step of length ``dt`` (min); ``f1``: the fluxes at ``state`` if known."""
     p = args if isinstance(args, _Prepared) else _Prepared(*args, xp)
-    scale = rates[3] if len(rates) > 3 else 1.0
+    scale = _renal(rates)
     h, h2 = dt, 0.5 * dt
     k1 = _derivatives(state, _fluxes(state, p, xp, scale) if f1 is None else f1, rates, p)
     s2 = {k: v + h2 * k1[k] for k, v in state.items()}
@@ -586,10 +644,11 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
     state, rest = initial_state(body, beds, Cp0, xp)
     p = _Prepared(body, beds, rest, xp)
     # the intervention rates of every step depend on time only: computed once, before the loop
-    plan = [(*step_rates(doses, i * dt, dt), renal_scale(doses, (i + 1) * dt)) for i in range(n_steps)]
+    plan = [(*step_rates(doses, i * dt, dt, equivalent=True), *renal_terms(doses, (i + 1) * dt))
+            for i in range(n_steps)]
     given = 0.0
     times = [0.0]
-    f: dict[str, Array] | None = _fluxes(state, p, xp, plan[0][3] if plan else 1.0)
+    f: dict[str, Array] | None = _fluxes(state, p, xp, _renal(plan[0]) if plan else (1.0, 0.0))
     series: dict[str, list[Array]] = {k: [v] for k, v in _report(state, given, p, xp, f).items()}
     for i in range(n_steps):
         rates = plan[i]
@@ -599,7 +658,7 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
         if (i + 1) % per == 0:
             times.append((i + 1) * dt)
             # the fluxes at the reported state are the first stage of the next step (same renal scale)
-            f = _fluxes(state, p, xp, plan[i + 1][3] if i + 1 < n_steps else 1.0)
+            f = _fluxes(state, p, xp, _renal(plan[i + 1]) if i + 1 < n_steps else (1.0, 0.0))
             for k, v in _report(state, given, p, xp, f).items():
                 series[k].append(v)
     return {"times_min": times, **series}
@@ -624,6 +683,6 @@ def rhs_vector(t: float, y: np.ndarray, keys: Sequence[str], doses: Sequence[Dos
         d/dt of the state in ``keys`` order.
     """
     t0 = math.floor(t / dt + 1e-12) * dt
-    rates = (*step_rates(doses, t0, dt), renal_scale(doses, t0 + dt))
+    rates = (*step_rates(doses, t0, dt, equivalent=True), *renal_terms(doses, t0 + dt))
     d = derivatives(dict(zip(keys, y, strict=True)), rates, body, beds, rest, xp=np)
     return np.array([float(d[k]) for k in keys])

@@ -26,6 +26,7 @@ KINDS: dict[str, str] = {
     "filtration_fraction": "glomerular",
     "body_weight": "fluid_balance",
     "fluid_balance": "fluid_balance",
+    "haemoglobin": "haemoglobin",
 }
 
 

@@ -1,0 +1,96 @@
+"""The ``haemoglobin`` observation kind of the whole_body form: readings as ratios to each subject's first one
+(closed forms), interpolation on the report grid, refusals, the time course it fits, and (slow: PyTensor takes
+about a minute to build the graph) the model it builds, its terms counted.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from uncertainty.analyses.inference.model_builder import build_model
+from uncertainty.analyses.inference.observations import kind_module
+from uncertainty.analyses.inference.observations.haemoglobin import design, hb_ratio_course, interpolation
+from uncertainty.analyses.inference.problem import problem_from_study
+from uncertainty.core.errors import InputError, StudyError
+from uncertainty.study import Study
+
+
+def _doc(obs: dict | None = None, model: str = "whole_body") -> dict:
+    doc = {"study": {"tissue": "skeletal_muscle", "model": model, "body_mass": "73 kg", "seed": 3},
+           "observations": [obs or {"kind": "haemoglobin", "file": "hb.csv", "sd": 0.2, "unit": "g/dL"}]}
+    if model == "whole_body":
+        doc["interventions"] = [{"kind": "infusion", "fluid": "crystalloid", "volume": "1500 mL",
+                                 "duration": "30 min"}]
+        doc["timeline"] = {"end": "90 min", "report_every": "10 min", "draws": 16}
+    return doc
+
+
+def _write(tmp: Path, rows: str) -> None:
+    (tmp / "hb.csv").write_text("subject,time_min,value\n" + rows)
+
+
+ROWS = "A,0,14.0\nA,30,12.6\nA,60,13.3\nB,0,15.0\nB,45,13.5\nC,20,14.1\n"
+
+
+def test_readings_become_ratios_to_each_subjects_first(tmp_path: Path) -> None:
+    _write(tmp_path, ROWS)
+    problem = problem_from_study(Study.from_dict(_doc(), base_dir=tmp_path))
+    obs = problem.observations[0]
+    kind_module(obs).validate(obs, problem)
+    d = design(obs, ["A", "B", "C"])
+    np.testing.assert_allclose(d["value"], [12.6 / 14.0, 13.3 / 14.0, 13.5 / 15.0])
+    np.testing.assert_allclose(d["time"], [30.0, 60.0, 45.0])
+    np.testing.assert_allclose(d["ref_time"], [0.0, 0.0, 0.0])
+    # delta method: sd_y = sqrt(sd^2 + (y sd)^2) / Hb_ref
+    y = 12.6 / 14.0
+    assert d["sd"][0] == pytest.approx(np.sqrt(0.2**2 + (y * 0.2) ** 2) / 14.0)
+    assert list(d["subject"]) == [0, 0, 1] and list(d["skipped"]) == [2]
+
+
+def test_interpolation_on_the_report_grid() -> None:
+    lo, hi, w = interpolation(np.array([0.0, 5.0, 10.0, 25.0]), [0.0, 10.0, 20.0, 30.0])
+    f = np.array([1.0, 0.9, 0.8, 0.85])
+    np.testing.assert_allclose((1 - w) * f[lo] + w * f[hi], [1.0, 0.95, 0.9, 0.825])
+
+
+def test_refusals(tmp_path: Path) -> None:
+    _write(tmp_path, ROWS)
+    with pytest.raises(StudyError):  # no data file
+        Study.from_dict(_doc({"kind": "haemoglobin", "value": 13.0, "sd": 0.2}), base_dir=tmp_path)
+    problem = problem_from_study(Study.from_dict(_doc(model="steady_state"), base_dir=tmp_path))
+    obs = problem.observations[0]
+    with pytest.raises(InputError) as exc:
+        kind_module(obs).validate(obs, problem)
+    assert exc.value.key.endswith("kind")
+    _write(tmp_path, "A,0,14\nA,200,13\n")  # after the timeline's 90 min
+    problem = problem_from_study(Study.from_dict(_doc(), base_dir=tmp_path))
+    obs = problem.observations[0]
+    with pytest.raises(InputError):
+        kind_module(obs).validate(obs, problem)
+
+
+def test_numpy_course_dilutes_then_recovers(tmp_path: Path) -> None:
+    # the prediction the term interpolates, in numpy at the prior medians: Hb falls during the 1500 mL crystalloid
+    # (30 min) and recovers part of the way by 90 min
+    from uncertainty.priors import prior_medians
+
+    _write(tmp_path, ROWS)
+    study = Study.from_dict(_doc(), base_dir=tmp_path)
+    v = {k: np.array([val]) for k, val in prior_medians("skeletal_muscle").items()}
+    c = hb_ratio_course(v, study, np)
+    assert c["times_min"][-1] == 90.0
+    hb = [float(np.ravel(x)[0]) for x in c["hb_ratio"]]
+    assert hb[0] == 1.0 and hb[3] == min(hb) < 0.95 and hb[3] < hb[-1] < 1.0
+
+
+@pytest.mark.slow
+def test_model_builds_with_one_term(tmp_path: Path) -> None:
+    # structure only (no sampling): one likelihood term over the three later readings. Slow because PyTensor
+    # takes about a minute to build the graph (the steady state of each bed and 45 Runge-Kutta steps)
+    _write(tmp_path, ROWS)
+    built = build_model(problem_from_study(Study.from_dict(_doc(), base_dir=tmp_path)), structure_only=True)
+    assert len(built.terms) == 1
+    assert built.terms[0].label == "haemoglobin relative to the first reading"

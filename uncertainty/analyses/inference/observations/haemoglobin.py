@@ -1,0 +1,183 @@
+"""``haemoglobin``: serial blood haemoglobin per subject of a ``whole_body`` study (subject, time, value).
+
+Haemoglobin concentration falls as the plasma is diluted and rises as it concentrates; the form's time
+course ``hb_ratio`` (haemoglobin relative to rest, ``physiology.whole_body``) predicts the ratio of any two
+readings of one subject. Each subject's readings are taken relative to its earliest one, so no baseline
+haemoglobin is sampled: the term fits y_k = Hb_k / Hb_ref against hb_ratio(t_k) / hb_ratio(t_ref), with the
+normal error of the ratio by the delta method, sd_y = sqrt(sd_k^2 + (y_k sd_ref)^2) / Hb_ref (the reference's
+error shared by the subject's ratios is neglected as a correlation; a first-order approximation, good while the
+reading error is a few per cent of the value).
+
+The time course is the study's ``[[interventions]]`` and ``[timeline]`` solved in PyTensor per subject
+(``physiology.whole_body.simulate`` with ``xp=pytensor.tensor``), with Runge-Kutta steps of at most
+:data:`MAX_STEP_MIN` and linear interpolation between the report times to each reading's time.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from uncertainty.analyses.inference.model_builder import ObservedTerm
+from uncertainty.analyses.inference.observations.base import add_reading, check_sds, term_name
+from uncertainty.analyses.inference.problem import Observation, Problem
+from uncertainty.analyses.propagate.timeline import bed_ratios
+from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
+from uncertainty.physiology import whole_body as wb
+
+NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitted to the whole-body time "
+        "course of haemoglobin relative to rest (no baseline haemoglobin sampled).")
+#: Largest Runge-Kutta step of the time course inside the model, min: a numerical choice (the numpy solver's
+#: default is 0.5 min; 2 min keeps the graph a quarter as long, and the fastest rate constant of the state,
+#: renal elimination at ln 2 / 38 min, is far inside the classical RK4 stability region at that step).
+MAX_STEP_MIN = 2.0
+#: Inputs of the time course besides the per-bed ones (forms.whole_body.timeline_parameters).
+_BODY_INPUTS = ("pi_c", "Cp", "r")
+
+
+def validate(obs: Observation, problem: Problem) -> None:
+    """A whole_body study with interventions, a data file with a time for every reading, a normal sd.
+
+    Raises
+    ------
+    InputError
+        Another model form, no data file, a cv error, no sd, a reading without a time or after the timeline's
+        end, a non-positive reading.
+    """
+    if problem.model_form != "whole_body" or getattr(problem.study, "timeline", None) is None:
+        raise obs.error("a haemoglobin observation needs a whole_body study (its [[interventions]] and "
+                        "[timeline])", "kind", obs.kind)
+    if obs.rows is None:
+        raise obs.error("a haemoglobin observation needs a data file (subject, time, value)", "file", None)
+    if obs.cv is not None:
+        raise obs.error("a haemoglobin reading takes a normal error (sd, g/dL)", "cv", obs.cv)
+    sds = obs.sds
+    if sds is None:
+        raise obs.error("give the reading's error as sd (on the observation or an sd column)", "sd", None)
+    check_sds(obs, sds)
+    t = np.asarray(obs.rows.time_min, dtype=float)
+    obs.check_values(np.isfinite(t), "no time for this reading (a time column is required)", "file")
+    end = float(problem.study.timeline.end)
+    obs.check_values((t >= 0) & (t <= end), f"a reading's time lies outside the timeline (0 to {end:g} min)",
+                     "file")
+    obs.check_values(np.asarray(obs.rows.value, dtype=float) > 0, "a haemoglobin reading must be positive",
+                     "file")
+
+
+def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
+    """The readings as the term uses them (numpy).
+
+    Parameters
+    ----------
+    obs : Observation
+        A ``haemoglobin`` observation with data-file rows (g/dL, min).
+    subjects : list of str
+        The model's subject labels (index 0 is the study's individual when a row has none).
+
+    Returns
+    -------
+    dict
+        ``subject`` (index of each reading's subject), ``time`` and ``ref_time`` (min, the reading's and its
+        subject's earliest reading's), ``value`` (ratio to the earliest reading, 1), ``sd`` (its normal error,
+        1), ``skipped`` (subjects with a single reading).
+    """
+    rows = obs.rows
+    where = {s: k for k, s in enumerate(subjects)}
+    subj = np.array([0 if s is None else where[s] for s in rows.subject], dtype=int)
+    t = np.asarray(rows.time_min, dtype=float)
+    value = np.asarray(rows.value, dtype=float)
+    sd = np.broadcast_to(np.asarray(obs.sds, dtype=float), value.shape).astype(float)
+    keep, ref, skipped = [], [], []
+    for s in np.unique(subj):
+        idx = np.flatnonzero(subj == s)
+        first = idx[np.argmin(t[idx])]
+        later = [k for k in idx if k != first]
+        if not later:
+            skipped.append(int(s))
+        keep += later
+        ref += [first] * len(later)
+    k, r = np.asarray(keep, dtype=int), np.asarray(ref, dtype=int)
+    y = value[k] / value[r]
+    return {"subject": subj[k], "time": t[k], "ref_time": t[r], "value": y,
+            "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": np.asarray(skipped, dtype=int)}
+
+
+def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Linear interpolation of ``times`` (min) on the report ``grid`` (min, increasing, from 0).
+
+    Returns
+    -------
+    lo, hi : numpy.ndarray
+        Indices of the grid points either side (int).
+    w : numpy.ndarray
+        Weight of ``hi`` (1): value = (1 - w) f[lo] + w f[hi].
+    """
+    g = np.asarray(grid, dtype=float)
+    hi = np.clip(np.searchsorted(g, times, side="left"), 1, len(g) - 1)
+    lo = hi - 1
+    w = np.clip((times - g[lo]) / (g[hi] - g[lo]), 0.0, 1.0)
+    return lo, hi, w
+
+
+def hb_ratio_course(values: dict[str, Any], study: Any, xp: Any) -> dict[str, Any]:
+    """The whole-body time course of haemoglobin relative to rest for the ``values`` given (one per subject).
+
+    Parameters
+    ----------
+    values : dict
+        Per-subject inputs of the time course (canonical units; ``forms.whole_body.timeline_parameters``).
+    study : Study
+        A ``whole_body`` study (its ``timeline`` plan and tissue).
+    xp : module
+        numpy or pytensor.tensor.
+
+    Returns
+    -------
+    dict
+        ``times_min`` (list of float) and ``hb_ratio`` (list over the report times of arrays over subjects, 1).
+    """
+    plan = study.timeline
+    body, beds, Cp0 = timeline_parameters(values, plan.body_mass_kg, bed_ratios(study.tissue), xp=xp)
+    sim = wb.simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every,
+                      max_step=min(MAX_STEP_MIN, plan.report_every), xp=xp)
+    return {"times_min": sim["times_min"], "hb_ratio": sim["hb_ratio"]}
+
+
+def add(ctx: Any, obs: Observation) -> None:
+    """y ~ Normal(hb_ratio(t) / hb_ratio(t_ref) of the reading's subject, sd_y) over all later readings."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    d = design(obs, ctx.subjects)
+    name = term_name(obs)
+    if d["skipped"].size:
+        ctx.notes.append(f"{obs.key}: {d['skipped'].size} subject(s) with a single reading carry no ratio and are "
+                         "skipped")
+    if d["value"].size == 0:
+        ctx.notes.append(f"{obs.key}: no haemoglobin ratios to fit (every subject has one reading)")
+        return
+    values: dict[str, Any] = {}
+    for q in (*BED_INPUTS, *_BODY_INPUTS):
+        try:
+            values[q] = ctx.value(q)
+        except KeyError:
+            continue
+    course = hb_ratio_course(values, ctx.problem.study, pt)
+    n = len(ctx.subjects)
+    series = pt.stack([pt.as_tensor_variable(x) * pt.ones(n) for x in course["hb_ratio"]])  # (time, subject)
+    i = d["subject"]
+
+    def at(times: np.ndarray) -> Any:
+        lo, hi, w = interpolation(times, course["times_min"])
+        return (1.0 - w) * series[lo, i] + w * series[hi, i]
+
+    pred = at(d["time"]) / at(d["ref_time"])
+    pm.Deterministic(f"{name}__pred", pred)
+    add_reading(name, pred, d["value"], sd=d["sd"])
+    ctx.notes.append(f"{obs.key}: {NOTE}")
+    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i,
+                              label="haemoglobin relative to the first reading"))
+
+
+__all__ = ["MAX_STEP_MIN", "NOTE", "add", "design", "hb_ratio_course", "interpolation", "validate"]
