@@ -41,14 +41,14 @@ CANONICAL: dict[str, str] = {
     "bias": "mmHg", "osmotic_pressure": "mmHg",
     # dimensionless
     "sigma": "1", "r": "1", "transmission": "1", "FF": "1", "sigma_osm": "1", "ratio": "1",
-    "sigma_g": "1", "sigma_s": "1",
+    "sigma_g": "1", "sigma_s": "1", "alpha_L": "1", "sigma_eff": "1",
     # concentrations
     "Cp": "g/dL", "Hb": "g/dL", "Ci": "g/dL", "C_alb": "g/dL", "C_glob": "g/dL", "Ci_alb": "g/dL", "Ci_glob": "g/dL",
     "osmolality": "mOsm/kg", "d_osmolality": "mOsm/kg", "Osm_p": "mOsm/kg", "Osm_i": "mOsm/kg",
     # per-tissue quantities (basis suffix)
     "Kf": "mL/min/mmHg/100g",
     "Jv": "mL/min/100g", "JL": "mL/min/100g", "JL_max": "mL/min/100g", "swelling_rate": "mL/min/100g",
-    "J_epi": "mL/min/100g",
+    "J_epi": "mL/min/100g", "Jv_large": "mL/min/100g",
     "PS": "mL/min/100g",
     "C_tis": "mL/mmHg/100g", "C_tis_high": "mL/mmHg/100g", "C_v": "mL/mmHg/100g",
     "L": "mL/min/mmHg/100g", "G_flood": "mL/min/mmHg/100g", "flooding": "mL/min/100g",
@@ -56,6 +56,7 @@ CANONICAL: dict[str, str] = {
     # whole-organ quantities
     "GFR": "mL/min", "RPF": "mL/min", "Kf_organ": "mL/min/mmHg", "Jv_organ": "mL/min",
     # other
+    "r_S": "nm", "r_L": "nm",
     "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
     "M_lung": "g/kg", "EVLWI": "mL/kg",
     "k_clear": "1/min", "k_AFC": "1/min",

@@ -18,7 +18,7 @@ from typing import Any
 
 from uncertainty.core.errors import StudyError
 from uncertainty.core.units import CANONICAL
-from uncertainty.forms import general, glomerular, whole_body
+from uncertainty.forms import general, glomerular, two_pore, whole_body
 from uncertainty.forms.spec import PI_REF, TISSUE_MASS, FormFunction, FormSpec, Output, TissueExtras
 from uncertainty.forms.study_like import StudyLike
 
@@ -95,6 +95,19 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
             "intestinal_mucosa": TissueExtras(inputs=("J_epi",), unused=("PS_large", "JL_max"),
                                               evaluate=general.absorbing_revised),
         },
+    ),
+    FormSpec(
+        name="two_pore",
+        summary=("small and large pores in parallel (Rippe & Haraldsson 1994): Pi and pi_i solved; "
+                 "inflammation raises the large-pore share alpha_L"),
+        evaluate=two_pore.evaluate,
+        required=("Kf", "Pc", "pi_c", "L", "Pi_L0", *two_pore.PORE_INPUTS),
+        optional=_SAFETY_OPTIONAL,
+        solved=("Pi", "pi_i", "pi_g"),
+        outputs=(Output("Pi", "mmHg"), Output("pi_i", "mmHg"), Output("ratio", "1"), Output("JL", "mL/min/100g"),
+                 Output("oedema_volume", "mL/100g", _VOLUME_NEEDS), Output("Jv_large", "mL/min/100g"),
+                 Output("sigma_eff", "1")),
+        tissues=("skin_subcutis", "skeletal_muscle"),
     ),
     FormSpec(
         name="glomerular",
@@ -456,12 +469,12 @@ SOLVED: dict[str, tuple[str, ...]] = {n: s.solved for n, s in FORMS.items()}
 #: Quantities that are results, never inputs.
 OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "EVLWI", "flooding", "safety_margin",
                          "Jv_organ", "GFR", "ratio", "volume", "swelling_rate", "time", "tissue_mass", "density",
-                         "osmotic_pressure"})
+                         "osmotic_pressure", "Jv_large", "sigma_eff"})
 
 #: Display order of inputs (others follow alphabetically).
 INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C_alb", "C_glob", "pi_i",
                "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0",
-               "JL_max", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s")
+               "JL_max", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s", "alpha_L", "r_S", "r_L")
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "

@@ -94,7 +94,7 @@ from uncertainty.study.schema import (
 M = TypeVar("M", bound=BaseModel)
 
 #: the model forms that solve the interstitial pressures (a reference Pi and the protein input matter)
-STEADY_FORMS = ("steady_state", "revised")
+STEADY_FORMS = ("steady_state", "revised", "two_pore")
 
 
 # --------------------------------------------------------------------------------------------
