@@ -234,6 +234,7 @@ OTHER_FILES = {
     "iteration.fixed_steps": "tests/test_glomerulus.py, tests/test_organs.py",
     "iteration.stop_gradient": "tests/test_organs.py (mucosa)",
     "iteration.is_pytensor": "back-end switch",
+    "two_pore": "tests/test_two_pore.py",
     "whole_body": "tests/test_whole_body.py (simulate through PyTensor; step_rates and rhs_vector numpy only)",
 }
 

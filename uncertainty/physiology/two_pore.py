@@ -241,7 +241,7 @@ def ratio_from_oncotic(pi: Array, pi_c: Array, Cp: Array | None, xp: Any = np,
         numpy or pytensor.tensor.
     n_steps : int
         Newton steps on the cubic, started right of the root (the cubic lies above its linear term), where
-        its convexity makes them fall monotonically to the root.
+        its convexity makes them fall monotonically to the root; on PyTensor only the last is differentiated.
 
     Returns
     -------
@@ -252,8 +252,11 @@ def ratio_from_oncotic(pi: Array, pi_c: Array, Cp: Array | None, xp: Any = np,
         return pi / pi_c
     t = xp.maximum(pi * pi_cubic(Cp, "total") / pi_c, 0.0)  # the cubic's value at C = R Cp
     c = t / COEFFICIENTS["total"][0]
-    for _ in range(n_steps):
+    for _ in range(max(int(n_steps), 1) - 1):
         c = c - (pi_cubic(c, "total") - t) / pi_cubic_slope(c, "total")
+    # the last step from an iterate cut from differentiation: the implicit-function gradient, one step long
+    c = stop_gradient(c, xp)
+    c = c - (pi_cubic(c, "total") - t) / pi_cubic_slope(c, "total")
     return c / Cp
 
 
