@@ -260,7 +260,7 @@ def ratio_from_oncotic(pi: Array, pi_c: Array, Cp: Array | None, xp: Any = np,
     return c / Cp
 
 
-def _residual(Pi: Array, p: dict[str, Array | None], xp: Any) -> tuple[Array, dict[str, Array]]:
+def _residual(Pi: Array, p: dict[str, Any], xp: Any) -> tuple[Array, dict[str, Array]]:
     """G(Pi) of the module docstring (protein in minus protein out, per unit Cp) and the state at Pi."""
     J, _ = volume_lymph_flow(Pi, p["L"], p["Pi_L0"], p["C_tis"], p["C_high"], p["P_break"], p["JL_max"], xp=xp)
     aL = p["alpha_L"]
@@ -319,8 +319,8 @@ def pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array,
     lo0 = Pi_L0 + full
     hi0 = xp.maximum(Pc + full, lo0)
 
-    def params(vals: tuple[Array, ...]) -> dict[str, Array | None]:
-        p: dict[str, Array | None] = dict.fromkeys(_NAMES)
+    def params(vals: tuple[Array, ...]) -> dict[str, Any]:
+        p: dict[str, Any] = dict.fromkeys(_NAMES)
         p.update(zip(present, vals, strict=True))
         return p
 
