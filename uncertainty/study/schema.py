@@ -461,6 +461,10 @@ class DesignSection(BaseModel):
     responder: Responder | None = None
     # repeated measures: follow-up readings per subject (parallel designs), their mean analysed
     followups: int = Field(default=1, ge=1, le=50)
+    # Bayesian sample size (normal design prior): target width of the 95 % posterior interval (analysis scale)
+    # and target probability that the interval excludes no effect in the direction of benefit
+    bayes_width: float | None = Field(default=None, gt=0, allow_inf_nan=False)
+    bayes_success: float | None = Field(default=None, gt=0, lt=1)
     _design_prior: Prior | None = PrivateAttr(default=None)
     _analysis_prior: Prior | None = PrivateAttr(default=None)
 

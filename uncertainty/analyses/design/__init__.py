@@ -38,7 +38,7 @@ import numpy as np
 from scipy import stats
 
 from uncertainty.analyses import sampling
-from uncertainty.analyses.design import binary
+from uncertainty.analyses.design import bayes_n, binary
 from uncertainty.analyses.design import group_sequential as gs
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.analyses.design.result import DesignResult
@@ -135,6 +135,8 @@ class DesignSpec:
     spending: str = "obrien_fleming"  # Lan-DeMets spending shape (group_sequential.SPENDING)
     futility: str | None = None  # non-binding beta-spending futility bound shape (group_sequential.SPENDING)
     responder: dict[str, Any] | None = None  # {"cut": canonical unit, "side": "below" | "above"}: binary endpoint
+    bayes_width: float | None = None  # target width of the 95 % posterior interval (analysis scale)
+    bayes_success: float | None = None  # target probability that the interval excludes no effect
     followups: int = 1  # repeated measures: follow-up readings per subject, their mean analysed (parallel only)
 
     @property
@@ -393,7 +395,14 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
         if not isinstance(hw, int | float) or hw <= 0:
             raise InputError("target_half_width must be > 0", file=file, key="design.target_half_width", value=hw)
         spec.target_half_width = float(hw)
+    bw = doc.get("bayes_width")
+    if bw is not None:
+        if isinstance(bw, bool) or not isinstance(bw, int | float) or not 0 < bw < math.inf:
+            raise InputError("bayes_width must be a number > 0", file=file, key="design.bayes_width", value=bw)
+        spec.bayes_width = float(bw)
+    spec.bayes_success = _prob(doc, "bayes_success", file, None)
     parse_responder(spec, doc)
+    check_bayes(spec)
     k = doc.get("followups", 1)
     if isinstance(k, bool) or not isinstance(k, int) or not 1 <= k <= 50:
         raise InputError("followups must be an integer from 1 to 50", file=file, key="design.followups", value=k)
@@ -523,6 +532,39 @@ def parse_test(spec: DesignSpec, doc: dict[str, Any]) -> None:
         raise InputError("margin must be > 0, in the endpoint's canonical unit (the loss of benefit tolerated)",
                          file=file, key="design.margin", value=margin)
     spec.margin = float(margin)
+
+
+def check_bayes(spec: DesignSpec) -> None:
+    """Refuse ``bayes_width`` / ``bayes_success`` where the Bayesian sample size does not apply.
+
+    It needs a normal design prior over the effect on the endpoint itself: a quantity endpoint (the prior is
+    over the effect on that quantity), not a model output (the prior is over the effect on a parameter) and
+    not a responder endpoint.
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        A parsed section.
+
+    Raises
+    ------
+    InputError
+        Naming the key (``design.bayes_width`` or ``design.bayes_success``).
+    """
+    if spec.bayes_width is None and spec.bayes_success is None:
+        return
+    key, value = (("design.bayes_width", spec.bayes_width) if spec.bayes_width is not None else
+                  ("design.bayes_success", spec.bayes_success))
+    why = None
+    if spec.design_prior is None or spec.design_prior.get("dist", Normal.name) != Normal.name:
+        why = "the Bayesian sample size needs a normal design_prior"
+    elif spec.endpoint_kind != "quantity":
+        why = (f"the Bayesian sample size needs a quantity endpoint: the design prior is over the effect on "
+               f"{spec.effects[0].parameter}, not on {spec.endpoint}")
+    elif spec.responder is not None:
+        why = "the Bayesian sample size is for a normal endpoint, not a responder endpoint"
+    if why:
+        raise InputError(why, file=spec.file, key=key, value=value)
 
 
 def check_prior_scale(spec: DesignSpec) -> None:
@@ -1432,6 +1474,10 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
         doc["analysis"] = "responders, z test of two proportions with continuity correction"
         doc["responder"] = resp
         doc.setdefault("typical_values", typical)
+    if resp is None and not output:
+        bayes = bayes_n.plan(spec, sd, n_pow, spec.bayes_width, spec.bayes_success)
+        if bayes is not None:
+            doc["bayesian_sample_size"] = bayes
     if spec.looks > 1 and n_pow is not None:
         doc["group_sequential"] = sequential_plan(spec, n_pow)
     doc["assumptions"] = assumptions(study, spec, doc)

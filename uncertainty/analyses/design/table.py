@@ -42,6 +42,45 @@ def headline(doc: dict[str, Any]) -> str:
     return text
 
 
+def bayes_sentences(b: dict[str, Any]) -> list[str]:
+    """Sentences of a ``bayesian_sample_size`` entry, shared by the table, the protocol page and the report.
+
+    Parameters
+    ----------
+    b : dict
+        The entry (n in subjects per arm; width, posterior sd, EVSI and EVPI in units of the effect on the
+        analysis scale; probabilities dimensionless).
+
+    Returns
+    -------
+    list of str
+        One sentence per target, then the EVSI at each n, then the prior and method.
+    """
+    dp, ap = b["design_prior"], b["analysis_prior"]
+    out = []
+    if b.get("width_target") is not None:
+        out.append(f"Bayesian n per arm for a 95% posterior interval no wider than {b['width_target']:g}: "
+                   f"{_n(b.get('n_per_arm_width_enrolled'))} enrolled ({_n(b.get('n_per_arm_width_completing'))} "
+                   "completing).")
+    if b.get("success_target") is not None:
+        out.append(f"Bayesian n per arm for probability {b['success_target']:g} that the 95% posterior interval "
+                   f"excludes no effect in the direction of benefit: {_n(b.get('n_per_arm_success_enrolled'))} "
+                   f"enrolled ({_n(b.get('n_per_arm_success_completing'))} completing; the probability cannot "
+                   f"exceed {b['success_limit']:.3f}, the prior probability of benefit).")
+    for key, what in (("at_n_power", "the n for the target power"), ("at_n_width", "the width n"),
+                      ("at_n_success", "the success n")):
+        a = b.get(key)
+        if a:
+            out.append(f"At {what} ({a['n_per_arm_completing']} completing per arm): posterior sd "
+                       f"{a['posterior_sd']:.4g}, 95% interval width {a['width']:.4g}, probability of success "
+                       f"{a['success_probability']:.3f}, EVSI {a['evsi']:.4g} (units of the effect).")
+    out.append(f"EVPI {b['evpi']:.4g} (units of the effect; the most any trial can be worth). Design prior "
+               f"N({dp['mean']:g}, {dp['sd']:g}^2), analysis prior N({ap['mean']:g}, {ap['sd']:g}^2) "
+               f"({b['analysis_prior_source']}); endpoint sd {b['sd_analysis_scale']:.4g}, variance of the "
+               f"estimate {b['variance_of_estimate']}; {b['method']}.")
+    return out
+
+
 def sequential_lines(gsq: dict[str, Any]) -> list[str]:
     """Per-look lines of a group-sequential plan: n, bounds and the probabilities of stopping there.
 
@@ -116,6 +155,8 @@ def table(doc: dict[str, Any]) -> str:
         hw = doc["half_width"]
         lines.append(f"n per arm for a 95% half-width <= {hw['target']:g} with probability "
                      f"{hw['probability_target']:g}: {hw['n_per_arm'] or '-'} enrolled")
+    if doc.get("bayesian_sample_size"):
+        lines += bayes_sentences(doc["bayesian_sample_size"])
     cond = any(r.get("power_conditional") is not None for r in doc["curve"])
     lines.append(f"{'compl.':>6}{'enrol':>7}{'power':>8}{'+-':>7}{'nct':>8}"
                  + (f"{'cond.':>8}" if cond else "") + f"{'assur.':>8}{'+-':>7}{'Bayes':>8}")

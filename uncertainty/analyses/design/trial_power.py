@@ -85,6 +85,27 @@ def _df_se(n: np.ndarray | int, sd: float, design: str) -> tuple[np.ndarray, np.
     raise ValueError(f"unknown design {design!r}")
 
 
+def standard_error(n: np.ndarray | int, sd: float, design: str = "parallel") -> np.ndarray:
+    """Standard error of the estimated effect with ``n`` subjects per arm (per sequence for a crossover).
+
+    Parameters
+    ----------
+    n : int or array of int
+        Subjects per arm (completing).
+    sd : float
+        sd of the endpoint on the analysis scale (endpoint unit, or log units).
+    design : str
+        ``parallel``, ``ancova``, ``paired`` or ``crossover`` (see the module docstring).
+
+    Returns
+    -------
+    numpy.ndarray
+        The standard error (unit of ``sd``): ``sd sqrt(2/n)`` for two arms, ``sd / sqrt(n)`` paired,
+        ``sd / sqrt(2n)`` crossover.
+    """
+    return np.asarray(_df_se(np.asarray(n, dtype=float), sd, design)[1], dtype=float)
+
+
 def z_sample_size(delta: float, sd: float, alpha: float = 0.05, power: float = 0.8,
                   design: str = "parallel", test: str = "two_sided", margin: float = 0.0,
                   direction: float | None = None) -> int:
