@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from uncertainty.analyses.design.figure import caption, title
-from uncertainty.analyses.design.table import headline
+from uncertainty.analyses.design.table import bayes_sentences, headline
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import fmt
 from uncertainty.core.html import escape, table
@@ -19,6 +19,8 @@ CAPTIONS: tuple[Caption, ...] = (
 
 _CURVE_COLS = ("n_per_arm_enrolled", "n_per_arm_completing", "total_n_enrolled", "power", "power_mc_se",
                "power_analytic", "power_conditional", "assurance", "assurance_mc_se", "bayesian_success")
+#: keys protocol_markdown reads without a default
+_PROTOCOL_KEYS = ("alpha", "target_power", "endpoint", "trials_per_point", "path")
 
 
 def section_html(res: dict[str, Any]) -> str:
@@ -73,7 +75,71 @@ def section_html(res: dict[str, Any]) -> str:
         parts.append(table([c.replace("_", " ") for c in cols], [[fmt(c.get(k), 3) for k in cols] for c in curve],
                            num_cols=set(range(len(cols)))))
         parts.append(f"<p><small>{escape(caption(res))}</small></p>")
+    if res.get("assumptions") is not None and all(k in res for k in _PROTOCOL_KEYS):
+        parts.append(protocol_html(res))
     return "".join(parts)
+
+
+def markdown_html(md: str) -> str:
+    """HTML of the small Markdown subset :func:`protocol_markdown` writes: headings, pipe tables, ``- `` list
+    items and paragraphs (text escaped; a heading's level goes one down, under the report's section heading).
+
+    Parameters
+    ----------
+    md : str
+        The Markdown.
+
+    Returns
+    -------
+    str
+        HTML.
+    """
+    out: list[str] = []
+    rows: list[list[str]] = []
+    items: list[str] = []
+
+    def flush() -> None:
+        if rows:
+            out.append(table(rows[0], rows[1:]))
+            rows.clear()
+        if items:
+            out.append("<ul>" + "".join(f"<li>{escape(i)}</li>" for i in items) + "</ul>")
+            items.clear()
+
+    for line in md.splitlines():
+        text = line.strip()
+        if text.startswith("|"):
+            cells = [c.strip() for c in text.strip("|").split("|")]
+            if not all(set(c) <= {"-", ":"} and c for c in cells):
+                rows.append(cells)
+            continue
+        if text.startswith("- "):
+            items.append(text[2:])
+            continue
+        flush()
+        if text.startswith("#"):
+            level = min(len(text) - len(text.lstrip("#")) + 1, 6)
+            out.append(f"<h{level}>{escape(text.lstrip('#').strip())}</h{level}>")
+        elif text:
+            out.append(f"<p>{escape(text)}</p>")
+    flush()
+    return "".join(out)
+
+
+def protocol_html(res: dict[str, Any]) -> str:
+    """The protocol summary (:func:`protocol_markdown`, the one source of its numbers) as an HTML block.
+
+    Parameters
+    ----------
+    res : dict
+        The stored ``DesignResult.to_dict()``.
+
+    Returns
+    -------
+    str
+        A ``div#design-protocol`` holding the rendered Markdown.
+    """
+    return '<div class="protocol" id="design-protocol">' + markdown_html(protocol_markdown(res)) + "</div>"
 
 
 def summary(des: dict[str, Any]) -> list[str]:
@@ -199,6 +265,11 @@ def protocol_markdown(doc: dict[str, Any]) -> str:
                   f"{_p(doc.get('assurance_at_n_assurance'), doc.get('assurance_at_n_assurance_mc_se'))}.", ""]
     if doc.get("bayesian_success") is not None:
         lines += [f"Bayesian success at that n: {_p(doc['bayesian_success'], doc.get('bayesian_success_mc_se'))}.", ""]
+    bayes = doc.get("bayesian_sample_size")
+    if bayes:
+        lines += ["### Bayesian sample size", ""]
+        for sentence in bayes_sentences(bayes):
+            lines += [sentence, ""]
     lines += ["| assumption | value | source |", "|---|---|---|"]
     lines += [f"| {a['what']} | {a['value']} | {a['source']} |" for a in doc.get("assumptions") or []]
     lines += ["", f"Simulation: {doc['trials_per_point']} trials per design point, seed {doc.get('seed')}, "
