@@ -237,6 +237,12 @@ MEANINGS: dict[str, str] = {
                         "`baseline`), their mean analysed; the sd shrinks by the compound-symmetry factor "
                         "(1 + (k - 1) rho) / k, less rho^2 with a baseline (rho: the between-subject share of the "
                         "variance)",
+    "design.bayes_width": "optional Bayesian sample size (needs a normal `design_prior` on a quantity endpoint): "
+                          "the target width of the 95 % posterior interval of the effect on the analysis scale "
+                          "(conjugate normal analysis prior, `analysis_prior` or else the design prior); the "
+                          "`bayesian_sample_size` entry also gives the EVSI of adopting on the posterior mean",
+    "design.bayes_success": "optional Bayesian sample size: the target probability (prior predictive) that the 95 % "
+                            "posterior interval excludes no effect in the direction of benefit",
     "design.responder.cut": "the responder cut in the endpoint's canonical unit (> 0 for a ratio effect)",
     "design.responder.side": "`below` or `above` the cut (default: the side the benefit moves the endpoint to)",
     "design.effect.parameter": "the quantity the treatment changes",
