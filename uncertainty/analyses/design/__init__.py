@@ -31,6 +31,7 @@ study seed and its index; a checkpoint is keyed by the study and the section as 
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -1636,10 +1637,10 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
         pr = study.priors[sym]
         bs = spec.between.get(sym) or pr.between_subject
         origin = getattr(pr, "origin", "") or "study [parameters]"
-        rows.append({"what": f"between-subject spread of {sym}", "value": str(bs or "none"),
+        rows.append({"what": f"between-subject spread of {sym}", "value": _spec_text(bs),
                      "source": "study [design]" if spec.between.get(sym) else origin})
     for sym, sp in spec.within.items():
-        rows.append({"what": f"within-subject (occasion) spread of {sym}", "value": str(sp), "source": src})
+        rows.append({"what": f"within-subject (occasion) spread of {sym}", "value": _spec_text(sp), "source": src})
     if spec.followups > 1:
         rows.append({"what": "repeated measures", "value": f"{spec.followups} follow-up readings per subject, their "
                      "mean analysed; compound symmetry (one between-subject correlation rho for every pair of "
@@ -1647,7 +1648,7 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
     if spec.design == "crossover":
         rows.append({"what": "crossover periods", "value": "two periods, sequences AB and BA of equal size; no "
                      "carry-over (an adequate washout); a period effect cancels in the analysis", "source": src})
-    rows.append({"what": "measurement error", "value": str(spec.measurement or "none"), "source": src})
+    rows.append({"what": "measurement error", "value": _spec_text(spec.measurement), "source": src})
     resp = doc.get("responder")
     if resp:
         unit = units.CANONICAL.get(spec.output, "")
@@ -1659,16 +1660,37 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
         pr = study.priors[sym]
         unit = units.CANONICAL.get(sym, "")
         rows.append({"what": f"typical {sym} (conditional power)", "value": f"{v:.4g} {unit}".strip(),
-                     "source": src + " typical" if sym in spec.typical else
-                     f"prior median; {getattr(pr, 'origin', '') or 'study [parameters]'}"})
+                     "source": src + " typical" if sym in spec.typical else _prior_source(pr)})
     rows.append({"what": "sd of the endpoint (analysis scale)", "value": f"{doc['sd_analysis_scale']:.4g}",
                  "source": doc["sd_method"]})
     if spec.design_prior is not None:
-        rows.append({"what": "design prior (analysis-scale effect)", "value": str(spec.design_prior), "source": src})
+        rows.append({"what": "design prior (analysis-scale effect)", "value": _spec_text(spec.design_prior),
+                     "source": src})
     if spec.analysis_prior is not None:
-        rows.append({"what": "analysis prior", "value": str(spec.analysis_prior), "source": src})
+        rows.append({"what": "analysis prior", "value": _spec_text(spec.analysis_prior), "source": src})
     return rows
 
 
 def _unit_of(spec: DesignSpec) -> str:
     return units.CANONICAL.get(spec.output, "")
+
+
+def _spec_text(spec: Any) -> str:
+    """A spread, error or prior specification as protocol text: ``{'dist': 'normal', 'mean': -0.29, 'sd':
+    0.15}`` -> ``normal, mean -0.29, sd 0.15``; ``{'cv': 0.38}`` -> ``cv 0.38``; nothing -> ``none``."""
+    if not spec:
+        return "none"
+    if isinstance(spec, Mapping):
+        parts = [str(spec["dist"])] if "dist" in spec else []
+        parts += [f"{k} {v:g}" if isinstance(v, float | int) else f"{k} {v}" for k, v in spec.items() if k != "dist"]
+        return ", ".join(parts)
+    return str(spec)
+
+
+def _prior_source(prior: Any) -> str:
+    """Source of a prior median in the protocol table: its origin, and a condition's change where the
+    study's conditions moved it (recorded in the prior's note)."""
+    origin = getattr(prior, "origin", "") or "study [parameters]"
+    note = getattr(prior, "note", "") or ""
+    changed = f"; {note.strip('[]')}" if "modified by condition" in note else ""
+    return f"prior median{changed}; {origin}"
