@@ -7,7 +7,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import brentq
 
-from uncertainty.physiology.balance import revised_steady_state, safety_steady_state, steady_state
+from uncertainty.physiology.balance import BISECTION_STEPS, revised_steady_state, safety_steady_state, steady_state
 from uncertainty.physiology.oncotic import pi_total_protein
 from uncertainty.physiology.solute import protein_flux, steady_state_ratio
 from uncertainty.physiology.starling import filtration
@@ -179,3 +179,22 @@ def test_safety_state_keeps_lymph_forward_when_flooding_opens_near_pi_l0():
                               P_break=1.07, JL_max=0.288, G_flood=3.82, P_flood=1.49, Cp=7.64)
     assert out["Jv"] >= 0.0 and out["JL"] >= 0.0 and out["flooding"] >= 0.0
     assert out["Pi"] >= -0.233
+
+
+def test_safety_state_bisection_count_is_at_solver_precision():
+    # BISECTION_STEPS halvings and one Newton step give the root that twice as many halvings give, on random
+    # draws across wide ranges (ranges from memory, as in test_physiology_backends). Tolerance 1e-11 mmHg:
+    # common practice, a few hundred ulps of pressures of tens of mmHg.
+    rng = np.random.default_rng(3)
+    n = 2000
+
+    def u(a: float, b: float) -> np.ndarray:
+        return rng.uniform(a, b, n)
+
+    args = (u(0.002, 0.05), u(-8, 45), u(0.6, 0.95), u(0.001, 0.03), u(15, 30), u(0.002, 0.02), u(-6, -1))
+    kw = dict(C_tis=u(0.3, 2), C_high=u(3, 10), P_break=u(-1, 2), JL_max=u(0.03, 0.5), G_flood=u(0.3, 2),
+              P_flood=u(2, 5), Cp=u(4, 8))
+    ref = safety_steady_state(*args, **kw, n_steps=2 * BISECTION_STEPS)
+    out = safety_steady_state(*args, **kw)
+    assert np.max(np.abs(out["Pi"] - ref["Pi"])) < 1e-11
+    assert np.max(np.abs(out["Jv"] - ref["Jv"])) < 1e-11 * np.max(np.abs(ref["Jv"])) + 1e-15
