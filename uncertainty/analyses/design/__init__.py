@@ -1658,7 +1658,7 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
                      "value": f"{resp['p_control']:.4f}, {resp['p_treated']:.4f}", "source": resp["method"]})
     for sym, v in (doc.get("typical_values") or {}).items():
         pr = study.priors[sym]
-        unit = units.CANONICAL.get(sym, "")
+        unit = "" if units.CANONICAL.get(sym) == "1" else units.CANONICAL.get(sym, "")   # no "1" after a ratio
         rows.append({"what": f"typical {sym} (conditional power)", "value": f"{v:.4g} {unit}".strip(),
                      "source": src + " typical" if sym in spec.typical else _prior_source(pr)})
     rows.append({"what": "sd of the endpoint (analysis scale)", "value": f"{doc['sd_analysis_scale']:.4g}",
