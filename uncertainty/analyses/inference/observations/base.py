@@ -138,3 +138,57 @@ def output_names(problem: Problem) -> set[str]:
     if problem.study is not None and getattr(problem.study, "model", None) == problem.model_form:
         return set(study_outputs(problem.study))
     return set(outputs(problem.model_form, have=(*problem.priors, *problem.fixed)))
+
+
+def timed_readings(obs: Observation, subjects: list[str]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """A timed observation's data-file rows as arrays: subject index (0 for the study's individual when a
+    row has none), time (min), value and sd (the observation's units).
+
+    Parameters
+    ----------
+    obs : Observation
+        An observation with data-file rows (subject, time, value).
+    subjects : list of str
+        The model's subject labels.
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``subject`` (int), ``time_min``, ``value``, ``sd``, one entry per row.
+    """
+    rows = obs.rows
+    where = {s: k for k, s in enumerate(subjects)}
+    subj = np.array([0 if s is None else where[s] for s in rows.subject], dtype=int)
+    value = np.asarray(rows.value, dtype=float)
+    sd = np.broadcast_to(np.asarray(obs.sds, dtype=float), value.shape).astype(float)
+    return subj, np.asarray(rows.time_min, dtype=float), value, sd
+
+
+def pair_with_first(subject: np.ndarray, time: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each reading after its subject's earliest, paired with that earliest reading (for kinds that fit a
+    change or a ratio from a subject's own baseline).
+
+    Parameters
+    ----------
+    subject : numpy.ndarray
+        Subject index of each reading.
+    time : numpy.ndarray
+        Time of each reading (any unit).
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``later`` (row indices of the readings after the first), ``first`` (the row of each one's subject's
+        earliest reading) and ``skipped`` (subjects with a single reading), all int.
+    """
+    later, first, skipped = [], [], []
+    for s in np.unique(subject):
+        idx = np.flatnonzero(subject == s)
+        f = idx[np.argmin(time[idx])]
+        rest = [k for k in idx if k != f]
+        if not rest:
+            skipped.append(int(s))
+        later += rest
+        first += [f] * len(rest)
+    return np.asarray(later, dtype=int), np.asarray(first, dtype=int), np.asarray(skipped, dtype=int)
+

@@ -44,8 +44,10 @@ from uncertainty.analyses.inference.observations.base import (
     check_sds,
     declared_prior,
     output_names,
+    pair_with_first,
     prior_rv,
     term_name,
+    timed_readings,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
 
@@ -100,27 +102,13 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
         earliest reading for body weight, time 0 for fluid balance), ``value`` (change since the reference,
         kg or L), ``sd`` (its normal error) and ``skipped`` (subjects with a single weight, no change).
     """
-    rows = obs.rows
-    where = {s: k for k, s in enumerate(subjects)}
-    subj = np.array([0 if s is None else where[s] for s in rows.subject], dtype=int)
-    days = np.asarray(rows.time_min, dtype=float) / MIN_PER_DAY
-    value = np.asarray(rows.value, dtype=float)
-    sd = np.broadcast_to(np.asarray(obs.sds, dtype=float), value.shape).astype(float)
+    subj, t_min, value, sd = timed_readings(obs, subjects)
+    days = t_min / MIN_PER_DAY
     if obs.kind == "fluid_balance":
         return {"subject": subj, "days": days, "value": value, "sd": sd, "skipped": np.array([], dtype=int)}
-    keep, ref = [], []
-    skipped = []
-    for s in np.unique(subj):
-        idx = np.flatnonzero(subj == s)
-        first = idx[np.argmin(days[idx])]
-        later = [k for k in idx if k != first]
-        if not later:
-            skipped.append(int(s))
-        keep += later
-        ref += [first] * len(later)
-    k, r = np.asarray(keep, dtype=int), np.asarray(ref, dtype=int)
+    k, r, skipped = pair_with_first(subj, days)
     return {"subject": subj[k], "days": days[k] - days[r], "value": value[k] - value[r],
-            "sd": np.sqrt(sd[k] ** 2 + sd[r] ** 2), "skipped": np.asarray(skipped, dtype=int)}
+            "sd": np.sqrt(sd[k] ** 2 + sd[r] ** 2), "skipped": skipped}
 
 
 def predicted(flow_L_per_day: Any, days: Any, share: Any, kind: str) -> Any:

@@ -20,7 +20,13 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.model_builder import ObservedTerm
-from uncertainty.analyses.inference.observations.base import add_reading, check_sds, term_name
+from uncertainty.analyses.inference.observations.base import (
+    add_reading,
+    check_sds,
+    pair_with_first,
+    term_name,
+    timed_readings,
+)
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.analyses.propagate.timeline import bed_ratios
 from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
@@ -82,25 +88,11 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
         subject's earliest reading's), ``value`` (ratio to the earliest reading, 1), ``sd`` (its normal error,
         1), ``skipped`` (subjects with a single reading).
     """
-    rows = obs.rows
-    where = {s: k for k, s in enumerate(subjects)}
-    subj = np.array([0 if s is None else where[s] for s in rows.subject], dtype=int)
-    t = np.asarray(rows.time_min, dtype=float)
-    value = np.asarray(rows.value, dtype=float)
-    sd = np.broadcast_to(np.asarray(obs.sds, dtype=float), value.shape).astype(float)
-    keep, ref, skipped = [], [], []
-    for s in np.unique(subj):
-        idx = np.flatnonzero(subj == s)
-        first = idx[np.argmin(t[idx])]
-        later = [k for k in idx if k != first]
-        if not later:
-            skipped.append(int(s))
-        keep += later
-        ref += [first] * len(later)
-    k, r = np.asarray(keep, dtype=int), np.asarray(ref, dtype=int)
+    subj, t, value, sd = timed_readings(obs, subjects)
+    k, r, skipped = pair_with_first(subj, t)
     y = value[k] / value[r]
     return {"subject": subj[k], "time": t[k], "ref_time": t[r], "value": y,
-            "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": np.asarray(skipped, dtype=int)}
+            "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": skipped}
 
 
 def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
