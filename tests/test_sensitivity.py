@@ -318,16 +318,54 @@ def test_result_tables_and_figures(tmp_path):
     assert any(p.endswith("_convergence.png") for p in sh.plot(str(tmp_path / "sh")))
 
 
-def test_shapley_random_permutation_estimator_closed_form():
-    beta = np.array([1.0, 1.0, 2.0])
-    cov = np.array([[1, 0, 0], [0, 1, 0.5], [0, 0.5, 1.0]])
+def test_shapley_chain_estimator_closed_form_six_correlated_inputs():
+    # six inputs in three correlated pairs (invented test values), linear model: exact effects from the
+    # Gaussian conditional costs (linear_gaussian_shapley above)
+    beta = np.array([1.0, 1.0, 2.0, 0.5, 1.5, 0.3])
+    cov = np.eye(6)
+    for i, j, rho in ((1, 2, 0.5), (3, 4, -0.6), (0, 5, 0.8)):
+        cov[i, j] = cov[j, i] = rho
     exact = linear_gaussian_shapley(beta, cov)
-    prob = Problem(players=["a", "b", "c"], groups=[0, 1, 2], corr=cov, model=lambda z: z @ beta)
-    r = shapley_core(prob, 16384, seed=8, exact_max_players=0)
-    sh = np.array([r.indices[p]["Sh"] for p in "abc"])
-    se = np.array([r.indices[p]["Sh_se"] for p in "abc"])
-    assert np.all(np.abs(sh - exact) < 4 * se + 0.01), (sh, exact, se)
-    assert "random-permutation" in r.notes[-1]
+    prob = Problem(players=list("abcdef"), groups=list(range(6)), corr=cov, model=lambda z: z @ beta)
+    r = shapley_core(prob, 16384, seed=8)
+    sh = np.array([r.indices[p]["Sh"] for p in "abcdef"])
+    se = np.array([r.indices[p]["Sh_se"] for p in "abcdef"])
+    assert np.all(np.abs(sh - exact) < 4 * se + 0.005), (sh, exact, se)
+    assert sh.sum() == pytest.approx(1.0, abs=1e-9)  # efficiency holds in every order (telescoping)
+    assert r.evaluations == 16384 * 7  # d + 1 runs per order
+    assert "coupled chain" in r.notes[-1]
+    # full first-order and total indices: Var(E[Y|X_i]) = (cov beta)_i^2 and E[Var(Y|X_-i)] =
+    # beta_i^2 / (cov^-1)_ii for a Gaussian linear model (closed form)
+    V = beta @ cov @ beta
+    S1 = (cov @ beta) ** 2 / V
+    ST = beta**2 / np.diag(np.linalg.inv(cov)) / V
+    for key, want in (("S1", S1), ("ST", ST)):
+        got = np.array([r.indices[p][key] for p in "abcdef"])
+        err = np.array([r.indices[p][f"{key}_se"] for p in "abcdef"])
+        assert np.all(np.abs(got - want) < 4 * err + 0.005), (key, got, want, err)
+
+
+def test_shapley_ishigami_shares_the_interaction_equally():
+    # independent inputs: Sh_i = S_i + half of each pairwise interaction it takes part in (Owen 2014,
+    # SIAM/ASA JUQ 2:245-251). Ishigami (a = 7, b = 0.1) partial variances in closed form (Ishigami &
+    # Homma 1990; also SALib's test function): V1 = (1 + b pi^4 / 5)^2 / 2, V2 = a^2 / 8,
+    # V13 = 8 b^2 pi^8 / 225, V = V1 + V2 + V13.
+    from SALib.test_functions import Ishigami
+    from scipy import stats
+
+    a, b = 7.0, 0.1
+    V1, V2, V13 = (1 + b * np.pi**4 / 5) ** 2 / 2, a**2 / 8, 8 * b**2 * np.pi**8 / 225
+    V = V1 + V2 + V13
+    want = np.array([V1 + V13 / 2, V2, V13 / 2]) / V
+
+    def model(z):
+        return Ishigami.evaluate(-np.pi + 2 * np.pi * stats.norm.cdf(z))
+
+    prob = Problem(players=["x1", "x2", "x3"], groups=[0, 1, 2], corr=np.eye(3), model=model)
+    r = shapley_core(prob, 32768, seed=2)
+    sh = np.array([r.indices[p]["Sh"] for p in ("x1", "x2", "x3")])
+    se = np.array([r.indices[p]["Sh_se"] for p in ("x1", "x2", "x3")])
+    assert np.all(np.abs(sh - want) < 4 * se + 0.005), (sh, want, se)
 
 
 def _steady(tissue="skeletal_muscle"):

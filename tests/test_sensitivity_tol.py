@@ -99,7 +99,7 @@ def test_bad_tolerance_cap_or_method_is_refused() -> None:
     with pytest.raises(InputError):
         sobol_core(_linear(), 1024, seed=1, tol=TOL, max_samples=512)
     study = Study.from_dict(_study_doc())
-    with pytest.raises(InputError, match="Sobol' indices only"):
+    with pytest.raises(InputError, match="give Morris a number of trajectories"):
         sensitivity(study, method="morris", samples=8, tol=TOL)
 
 
@@ -133,3 +133,36 @@ def test_command_tol_flag_default_and_cap(tmp_path) -> None:
     res = runner.invoke(main, ["sensitivity", str(path), "--method", "sobol", "--samples", "256", "--tol",
                                "1e-20", "--max-samples", "512"])
     assert res.exit_code == 3 and "NOT met" in res.stdout and "quality gate failed" in res.stderr
+
+
+def _correlated_linear():
+    """The linear test function with x2, x3 correlated (rho = 0.5, invented): Shapley effects in closed
+    form from the Gaussian conditional costs (tests/test_sensitivity.py, linear_gaussian_shapley)."""
+    from uncertainty.analyses.sensitivity import Problem
+
+    beta = np.array(list(COEF.values()))
+    corr = np.array([[1, 0, 0], [0, 1, 0.5], [0, 0.5, 1.0]])
+    return Problem(players=list(COEF), groups=[0, 1, 2], corr=corr, model=lambda z: z @ beta), beta, corr
+
+
+def test_shapley_orders_double_until_every_effect_is_within_tol() -> None:
+    from test_sensitivity import linear_gaussian_shapley
+
+    from uncertainty.analyses.sensitivity import shapley_core
+
+    prob, beta, corr = _correlated_linear()
+    r = shapley_core(prob, 64, seed=3, tol=TOL)
+    assert r.converged is True
+    sizes = [h["samples"] for h in r.history]
+    assert sizes == [64 * 2**i for i in range(len(sizes))] and len(sizes) > 1 and sizes[-1] == r.samples
+    assert r.history[-1]["widest_half_width"] < TOL <= r.history[-2]["widest_half_width"]
+    t15 = stats.t.ppf(0.975, r.replicates - 1)
+    assert max(t15 * r.indices[p]["Sh_se"] for p in COEF) == pytest.approx(r.history[-1]["widest_half_width"])
+    exact = linear_gaussian_shapley(beta, corr)
+    for p, want in zip(COEF, exact, strict=True):
+        assert abs(r.indices[p]["Sh"] - want) < TOL, (p, r.indices[p]["Sh"], want)
+    assert r.evaluations == r.samples * (len(COEF) + 1)  # no order run twice
+    with pytest.raises(QualityGateError) as exc:
+        shapley_core(prob, 64, seed=3, tol=1e-5, max_samples=256)
+    assert exc.value.result.converged is False and exc.value.result.samples == 256
+    assert any("NOT met" in n for n in exc.value.result.notes)

@@ -144,7 +144,7 @@ class SensitivitySection(BaseModel):
         "default: sobol for independent inputs, shapley when the study correlates inputs (sobol and morris "
         "refuse correlated inputs)"))
     samples: int | None = Field(default=None, gt=0, le=2**24, description=(
-        "base sample size; default 8192 (sobol), 64 trajectories (morris), 2048 outer draws (shapley)"))
+        "base sample size; default 8192 (sobol), 64 trajectories (morris), 8192 random orders (shapley)"))
     output: str = Field(default="Jv", description="the output whose variance is apportioned")
     layer: Literal["individual", "typical"] = Field(default="individual", description=(
         "individual: each quantity's typical and between-subject parts as one factor; typical: the "

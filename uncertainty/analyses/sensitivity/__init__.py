@@ -13,10 +13,11 @@ output. :func:`sensitivity` builds the problem from a Study; the machinery below
 - Morris (independent inputs only): SALib's trajectories and mu*, sigma (Campolongo et al. 2007);
   the p grid levels are moved to the cell centres (i + 1/2)/p so that no level lies on a face of
   the cube (a level at 0 or 1 sends a normal marginal to infinity).
-- Shapley effects (any Gaussian-copula correlation): Song, Nelson and Staum (2016) SIAM/ASA JUQ
-  4:1060-1083, cost c(J) = E[Var(Y | X_-J)], all subsets for up to ``EXACT_MAX_PLAYERS`` players
-  (the exact-permutation estimator) and random permutations beyond; conditional sampling of the
-  normal scores is exact under the Gaussian copula.
+- Shapley effects (any Gaussian-copula correlation; Owen 2014, SIAM/ASA JUQ 2:245-251; Song, Nelson
+  and Staum 2016, SIAM/ASA JUQ 4:1060-1083): random orders of the players, each walked along a
+  coupled chain of d + 1 runs (Goda 2021, Reliab Eng Syst Safety 213:107702, for independent inputs;
+  carried here to the Gaussian copula through the Cholesky factor in the order's column order, which
+  makes every conditional draw exact).
 - :func:`first_order_given_data`: a first-order index from any set of draws (binning estimator
   with an ANOVA bias correction).
 """
@@ -48,9 +49,8 @@ from uncertainty.core.parallel import ChunkedModel, InProcess
 from uncertainty.forms.catalogue import output_unit
 
 METHODS = ("sobol", "morris", "shapley")
-DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 2048}
+DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 8192}
 REPLICATES = 16
-EXACT_MAX_PLAYERS = 7
 #: default cap on the Sobol' base sample of the ``tol`` doubling: 16 x the default N, a bound on memory and
 #: run time chosen here (about 10^6 model runs for six inputs), not a statistical figure
 DEFAULT_MAX_SAMPLES = 2**17
@@ -622,139 +622,143 @@ def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
 # Shapley effects (Song, Nelson & Staum 2016)
 # --------------------------------------------------------------------------------------------
 
-def _conditional(corr: np.ndarray, J: list[int], K: list[int]) -> tuple[np.ndarray, np.ndarray]:
-    """Gaussian conditional of z_J given z_K: (regression matrix (|J|,|K|), Cholesky of the cov)."""
-    if not K:
-        return np.zeros((len(J), 0)), np.linalg.cholesky(corr[np.ix_(J, J)])
-    Ckk = corr[np.ix_(K, K)]
-    Cjk = corr[np.ix_(J, K)]
-    W = np.linalg.solve(Ckk, Cjk.T).T
-    cov = corr[np.ix_(J, J)] - W @ Cjk.T
-    cov = 0.5 * (cov + cov.T)
-    # jitter guards exact degeneracy (rho = +-1 is refused upstream; this is numerical only)
-    L = np.linalg.cholesky(cov + 1e-12 * np.eye(len(J)))
-    return W, L
+def _chain_permutations(problem: Problem, per: int, rng: np.random.Generator
+                        ) -> tuple[np.ndarray, np.ndarray]:
+    """One replicate of the random-permutation estimator along a coupled chain (d + 1 runs per order).
+
+    For a random order pi of the players, two independent innovation vectors u, u' ~ N(0, I) and the
+    Cholesky factor L of the correlation with its columns in that order, run m (m = 0..d) is the model
+    at z = L [u over the columns of the first m players, u' over the rest]. As L is lower triangular,
+    run m keeps the first m players of the base run d and redraws the others exactly from their
+    Gaussian conditional given them, and runs m - 1 and m differ in one player's innovations only.
+    The increment of the closed cost Var(E[Y | X_J]) when player pi_m joins is then estimated by
+    0.5 [(y_d - y_{m-1})^2 - (y_d - y_m)^2] (a Jansen-type difference), which telescopes to
+    0.5 (y_d - y_0)^2, an estimate of Var(Y), in every order: the effects sum to one exactly. This is
+    the estimator of Goda (2021, Reliab Eng Syst Safety 213:107702) for independent inputs, carried to
+    a Gaussian copula by ordering the Cholesky factor along the permutation. The full first-order index
+    of i comes from the orders that start with i (first increment), the total index from those that end
+    with i (last increment).
+
+    Returns the sums of one batch, so that batches add up: (5, d) per player (the increments, the first
+    increments and their count per starting player, the last increments and their count per ending
+    player) and (4,) totals (sum of 0.5 (y_d - y_0)^2, finite orders, non-finite runs, runs).
+    """
+    d, k = len(problem.players), problem.k
+    perms = np.argsort(rng.random((per, d)), axis=1)  # uniform random orders
+    groups = np.asarray(problem.groups)
+    # column order of each permutation, and the step m (1..d) at which each column's player joins
+    rank = np.empty_like(perms)
+    rank[np.arange(per)[:, None], perms] = np.arange(1, d + 1)
+    joins = rank[:, groups]  # (per, k): the step at which column c's player joins
+    order = np.argsort(joins, axis=1, kind="stable")  # columns in permutation order
+    C = problem.corr[order[:, :, None], order[:, None, :]]
+    try:
+        L = np.linalg.cholesky(C)
+    except np.linalg.LinAlgError as exc:
+        raise InputError("correlation matrix is not positive definite", key="correlations") from exc
+    u = rng.standard_normal((per, k))
+    u2 = rng.standard_normal((per, k))
+    joins_sorted = np.take_along_axis(joins, order, axis=1)  # (per, k), non-decreasing
+    steps = np.arange(d + 1)
+    # innovations of run m: u where the column's player joined by step m, else u'
+    w = np.where(joins_sorted[:, None, :] <= steps[None, :, None], u[:, None, :], u2[:, None, :])
+    z_sorted = np.einsum("pij,pmj->pmi", L, w)  # (per, d + 1, k)
+    z = np.empty_like(z_sorted)
+    z[np.arange(per)[:, None, None], steps[None, :, None], order[:, None, :]] = z_sorted
+    y = problem.model(z.reshape(-1, k)).reshape(per, d + 1)
+    ok = np.all(np.isfinite(y), axis=1)
+    bad = int((~np.isfinite(y)).sum())
+    y, perms = y[ok], perms[ok]
+    gap = 0.5 * (y[:, -1:] - y) ** 2  # 0.5 (y_d - y_m)^2, m = 0..d
+    inc = gap[:, :-1] - gap[:, 1:]  # increment of player pi_m, m = 1..d
+    sums = np.zeros((5, d))
+    np.add.at(sums[0], perms, inc)
+    np.add.at(sums[1], perms[:, 0], inc[:, 0])
+    np.add.at(sums[2], perms[:, 0], 1.0)
+    np.add.at(sums[3], perms[:, -1], inc[:, -1])
+    np.add.at(sums[4], perms[:, -1], 1.0)
+    return sums, np.array([gap[:, 0].sum(), len(y), bad, per * (d + 1)])
 
 
-class _Conditioner:
-    """Exact Gaussian-copula conditional sampling of the columns of player subsets (cached)."""
+def shapley_core(problem: Problem, samples: int = 8192, *, seed: Any = None, replicates: int = REPLICATES,
+                 tol: float | None = None, max_samples: int | None = None) -> SensitivityResult:
+    """Shapley effects Sh_i = sum over J not containing i of |J|!(d-|J|-1)!/d! [v(J+i) - v(J)] / Var(Y)
+    (Owen 2014; Song, Nelson & Staum 2016), with the full first-order index S1_i = Var(E[Y | X_i]) / V
+    and the total index ST_i = E[Var(Y | X_-i)] / V under the correlation.
 
-    def __init__(self, problem: Problem) -> None:
-        self.problem = problem
-        try:
-            self.L_full = np.linalg.cholesky(problem.corr)
-        except np.linalg.LinAlgError as exc:
-            raise InputError("correlation matrix is not positive definite", key="correlations") from exc
-        self._cache: dict[tuple[int, ...], tuple[list[int], list[int], np.ndarray, np.ndarray]] = {}
+    Parameters
+    ----------
+    problem : Problem
+        Inputs under any Gaussian-copula correlation (positive definite).
+    samples : int
+        Random orders of the players over all replicates, d + 1 model runs each (see
+        :func:`_chain_permutations`).
+    seed : int or SeedSequence, optional
+        Seed of the R replicates.
+    replicates : int
+        Independent replicates R: point = their mean, t-based 95% interval from their spread; the
+        convergence table uses the first R/4, R/2 and R replicates.
+    tol : float, optional
+        Precision on demand (dimensionless, absolute): each replicate adds as many new orders again
+        (no run is repeated) until the 95% half-width t_{0.975, R-1} x se of every Sh is below ``tol``.
+    max_samples : int, optional
+        Cap on the orders for the doubling (default :data:`DEFAULT_MAX_SAMPLES`).
 
-    def joint(self, n: int, rng: np.random.Generator) -> np.ndarray:
-        """n joint draws of the correlated normal scores."""
-        return rng.standard_normal((n, self.problem.k)) @ self.L_full.T
+    Returns
+    -------
+    SensitivityResult
+        ``Sh``, ``S1`` and ``ST`` per player (dimensionless), their standard errors and intervals; with
+        ``tol``, ``converged`` and a ``history`` row per size.
 
-    def rows(self, subset: tuple[int, ...], n_outer: int, n_inner: int, rng: np.random.Generator) -> np.ndarray:
-        """(n_outer * n_inner, k) scores: X_-J drawn n_outer times, X_J | X_-J n_inner times each."""
-        if subset not in self._cache:
-            J = self.problem.columns_of(subset)
-            K = [c for c in range(self.problem.k) if c not in set(J)]
-            self._cache[subset] = (J, K, *_conditional(self.problem.corr, J, K))
-        J, K, W, L = self._cache[subset]
-        z = np.repeat(self.joint(n_outer, rng), n_inner, axis=0)
-        mean_J = z[:, K] @ W.T if K else 0.0
-        z[:, J] = mean_J + rng.standard_normal((n_outer * n_inner, len(J))) @ L.T
-        return z
-
-
-def _inner_variances(y: np.ndarray, n_inner: int) -> np.ndarray:
-    """Per outer draw, the sample variance of its n_inner conditional runs (NaN if any is not finite)."""
-    y = y.reshape(-1, n_inner)
-    v = np.var(y, axis=1, ddof=1)
-    v[~np.all(np.isfinite(y), axis=1)] = np.nan
-    return v
-
-
-def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_inner: int = 3,
-                 n_var: int | None = None, replicates: int = REPLICATES,
-                 exact_max_players: int = EXACT_MAX_PLAYERS) -> SensitivityResult:
-    """Shapley effects Sh_i = sum over J not containing i of |J|!(d-|J|-1)!/d! [c(J+i) - c(J)] / Var(Y),
-    c(J) = E[Var(Y | X_-J)], after Song, Nelson and Staum (2016).
-
-    Up to ``exact_max_players`` players: every subset's cost from ``samples`` outer draws in all
-    (split over ``replicates``), ``n_inner`` conditional draws each (exact-permutation estimator).
-    Beyond: ``samples`` random permutations in all, one outer and ``n_inner`` inner draws per step
-    (their random-permutation estimator, No = 1, Ni = 3). ``n_var`` joint draws per replicate for
-    Var(Y). Also returns the full first-order index S1_i = 1 - c(-i)/V and the total index
-    ST_i = c({i})/V under dependence. Intervals: t-based across independent replicates; the
-    convergence table uses the first R/4, R/2 and R replicates.
+    Raises
+    ------
+    InputError
+        A sample size, tolerance or cap that is not usable, or a correlation that is not positive definite.
+    QualityGateError
+        ``tol`` still not met when the next doubling would exceed ``max_samples`` (exit 3, result attached).
     """
     if isinstance(samples, bool) or not isinstance(samples, int | np.integer) or samples <= 0:
         raise InputError("the number of samples must be a positive whole number", key="sensitivity.samples",
                          value=samples)
-
-    d = len(problem.players)
     notes: list[str] = []
     per = max(2, math.ceil(samples / replicates))
     if per * replicates != samples:
         notes.append(f"samples rounded up from {samples} to {per * replicates} ({replicates} replicates)")
-    cond = _Conditioner(problem)
-    exact = d <= exact_max_players
-    n_var = n_var or max(4096, per * n_inner)
-    full = tuple(range(d))
-    w = [math.factorial(s) * math.factorial(d - s - 1) / math.factorial(d) for s in range(d)]
-    subsets = [J for s in range(1, d) for J in itertools.combinations(range(d), s)]
-    Sh_r, S1_r, ST_r = [], [], []
-    evaluations = nan_runs = 0
-    for ss in replicate_seeds(seed, replicates):
-        rng = np.random.default_rng(ss)
-        y = problem.model(cond.joint(n_var, rng))
-        evaluations += y.size
-        nan_runs += int((~np.isfinite(y)).sum())
-        V = float(np.var(y[np.isfinite(y)], ddof=1))
-        if exact:
-            zs = [cond.rows(J, per, n_inner, rng) for J in subsets]
-            yy = problem.model(np.vstack(zs))
-            evaluations += yy.size
-            nan_runs += int((~np.isfinite(yy)).sum())
-            c = {(): 0.0, full: V}
-            for J, part in zip(subsets, np.split(yy, len(subsets)), strict=True):
-                c[J] = float(np.nanmean(_inner_variances(part, n_inner)))
-            sh = np.zeros(d)
-            for i in range(d):
-                others = [j for j in range(d) if j != i]
-                for s in range(d):
-                    for J in itertools.combinations(others, s):
-                        sh[i] += w[s] * (c[tuple(sorted(J + (i,)))] - c[J])
-            st = np.array([c[(i,)] for i in range(d)])
-            c_minus = np.array([c[tuple(j for j in range(d) if j != i)] for i in range(d)])
-        else:
-            perms = np.array([rng.permutation(d) for _ in range(per)])
-            codes = np.cumsum(np.left_shift(1, perms.astype(np.int64)), axis=1)[:, : d - 1]  # subset bitmasks
-            flat = codes.ravel()
-            order = np.argsort(flat, kind="stable")
-            uniq, counts = np.unique(flat[order], return_counts=True)
-            zs = [cond.rows(tuple(int(b) for b in range(d) if code >> b & 1), int(n), n_inner, rng)
-                  for code, n in zip(uniq, counts, strict=True)]
-            yy = problem.model(np.vstack(zs))
-            evaluations += yy.size
-            nan_runs += int((~np.isfinite(yy)).sum())
-            cost = np.empty((per, d))
-            cost[:, d - 1] = V
-            v = _inner_variances(yy, n_inner)  # in the order of the sorted subset codes
-            vals = np.empty(flat.size)
-            vals[order] = v
-            cost[:, : d - 1] = vals.reshape(per, d - 1)
-            delta = np.diff(np.concatenate([np.zeros((per, 1)), cost], axis=1), axis=1)
-            contrib = np.full((per, d), np.nan)
-            contrib[np.arange(per)[:, None], perms] = delta
-            sh = np.nanmean(contrib, axis=0)
-            st = np.array([np.nanmean(cost[perms[:, 0] == i, 0]) if np.any(perms[:, 0] == i) else np.nan
-                           for i in range(d)])
-            # c(-i): the step before the last, in the orders that end with i
-            c_minus = np.array([np.nanmean(cost[perms[:, -1] == i, d - 2]) if np.any(perms[:, -1] == i)
-                                else np.nan for i in range(d)])
-        Sh_r.append(sh / V)
-        S1_r.append(1.0 - c_minus / V)
-        ST_r.append(st / V)
-    Sh_r, S1_r, ST_r = np.array(Sh_r), np.array(S1_r), np.array(ST_r)
+    cap = _check_tol(tol, max_samples, per * replicates)
+    d = len(problem.players)
+    rngs = [np.random.default_rng(ss) for ss in replicate_seeds(seed, replicates)]
+    player_sums = np.zeros((replicates, 5, d))
+    totals = np.zeros((replicates, 4))
+    history: list[dict[str, Any]] = []
+    converged: bool | None = None
+    done, batch = 0, per
+    while True:
+        for r, rng in enumerate(rngs):
+            ps, tot = _chain_permutations(problem, batch, rng)
+            player_sums[r] += ps
+            totals[r] += tot
+        done += batch
+        with np.errstate(invalid="ignore", divide="ignore"):
+            V = totals[:, 0] / totals[:, 1]
+            Sh_r = player_sums[:, 0] / totals[:, 1:2] / V[:, None]
+            S1_r = player_sums[:, 1] / player_sums[:, 2] / V[:, None]
+            ST_r = player_sums[:, 3] / player_sums[:, 4] / V[:, None]
+        if tol is None:
+            break
+        se = np.nanstd(Sh_r, axis=0, ddof=1) / math.sqrt(replicates)
+        worst_j = int(np.nanargmax(np.where(np.isfinite(se), se, np.inf)))
+        worst = _t975(replicates - 1) * float(se[worst_j]) if np.isfinite(se[worst_j]) else float("inf")
+        history.append({"samples": done * replicates, "evaluations": int(totals[:, 3].sum()),
+                        "widest_half_width": worst, "widest": f"Sh of {problem.players[worst_j]}"})
+        if worst < tol:
+            converged = True
+            break
+        if 2 * done * replicates > cap:
+            converged = False
+            break
+        batch = done  # double: as many new orders again
+    per = done
+    evaluations, nan_runs = int(totals[:, 3].sum()), int(totals[:, 2].sum())
 
     def summarise(r: int, with_se: bool) -> dict[str, dict[str, Any]]:
         """Indices from the first r replicates: point = their mean, t-based 95% interval."""
@@ -776,18 +780,31 @@ def shapley_core(problem: Problem, samples: int = 4096, *, seed: Any = None, n_i
             for r in sizes] if len(sizes) > 1 else []
     warnings = _index_warnings(indices, ("Sh",))
     if nan_runs:
-        warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; their conditional "
-                        "blocks are left out")
+        warnings.append(f"{nan_runs} model runs gave a non-finite {problem.output}; the orders they "
+                        "belong to are left out")
     notes += negative_index_notes(indices, ("S1", "ST"))
     notes.append("Shapley effects share the variance among correlated inputs and sum to 1; S1 and ST "
-                 "here are the full first-order and total indices under the correlation"
-                 + ("" if exact else f"; random-permutation estimator ({per * replicates} orders)"))
-    return SensitivityResult(method="shapley", output=problem.output, unit=problem.unit,
-                             players=list(problem.players), indices=indices,
-                             ranking=_ranking(indices, "Sh"), samples=per * replicates,
-                             evaluations=evaluations, replicates=replicates, convergence=conv,
-                             warnings=warnings, notes=notes, nan_draws=nan_runs,
-                             seed=seed if isinstance(seed, int | type(None)) else str(seed))
+                 "here are the full first-order and total indices under the correlation; "
+                 f"random-permutation estimator on a coupled chain ({per * replicates} orders)")
+    if tol is not None:
+        last = history[-1]
+        notes.append(f"tolerance {tol:g} on the 95% half-width of every Sh "
+                     + (f"met at {per * replicates} orders" if converged else
+                        f"NOT met: the cap max-samples={cap} stopped the doubling at {per * replicates} orders "
+                        f"(widest half-width {last['widest_half_width']:.3g}, {last['widest']})"))
+    result = SensitivityResult(method="shapley", output=problem.output, unit=problem.unit,
+                               players=list(problem.players), indices=indices,
+                               ranking=_ranking(indices, "Sh"), samples=per * replicates,
+                               evaluations=evaluations, replicates=replicates, convergence=conv,
+                               warnings=warnings, notes=notes, nan_draws=nan_runs,
+                               seed=seed if isinstance(seed, int | type(None)) else str(seed),
+                               tol=tol, converged=converged, history=history)
+    if converged is False:
+        last = history[-1]
+        raise QualityGateError(
+            f"95% half-width of {last['widest']} ({last['widest_half_width']:.3g}) is still above tol={tol:g} "
+            f"at {per * replicates} orders; the next doubling would exceed max-samples={cap}", result=result)
+    return result
 
 
 # --------------------------------------------------------------------------------------------
@@ -842,11 +859,10 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
                          key="sensitivity.method", value=method)
     if samples is None:
         samples = sec.get("samples", DEFAULT_SAMPLES[method])
-        if method == "shapley" and "samples" not in sec and len(problem.players) > EXACT_MAX_PLAYERS:
-            samples = 8192  # random orders: one outer draw each, cheap per order
-    if (tol is not None or max_samples is not None) and method != "sobol":
-        raise InputError("a tolerance (tol, max-samples) is offered for Sobol' indices only; give a sample "
-                         "size instead", file=_file(study), key="sensitivity.method", value=method)
+    if (tol is not None or max_samples is not None) and method == "morris":
+        raise InputError("a tolerance (tol, max-samples) is offered for Sobol' indices and Shapley effects; "
+                         "give Morris a number of trajectories instead", file=_file(study),
+                         key="sensitivity.method", value=method)
     try:
         if method == "sobol":
             res = sobol_core(problem, samples, seed=seed, replicates=replicates, second_order=second_order,
@@ -854,7 +870,8 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
         elif method == "morris":
             res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS))
         else:
-            res = shapley_core(problem, samples, seed=seed, replicates=replicates)
+            res = shapley_core(problem, samples, seed=seed, replicates=replicates, tol=tol,
+                               max_samples=max_samples)
     except QualityGateError as exc:
         if isinstance(exc.result, SensitivityResult):
             _finish(exc.result, notes, layer, study)

@@ -57,7 +57,7 @@ def plot_convergence(result: Any, out_dir: str) -> list[str]:
         ax.fill_between(n, ci[:, 0], ci[:, 1], color=line.get_color(), alpha=0.15)
     ax.set_xscale("log", base=2)
     ax.set_xlabel({"sobol": "base samples N", "morris": "trajectories",
-                   "shapley": "samples (outer draws or orders)"}[result.method])
+                   "shapley": "random orders"}[result.method])
     ax.set_ylabel(key)
     ax.set_title(f"convergence of {key} of {result.output}", fontsize=10)
     ax.legend(frameon=False, fontsize=8, ncol=2)

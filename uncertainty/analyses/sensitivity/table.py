@@ -7,7 +7,7 @@ from typing import Any
 #: the indices shown per method, in column order
 COLUMNS = {"sobol": ["S1", "ST"], "shapley": ["Sh", "S1", "ST"], "morris": ["mu_star", "sigma"]}
 #: what the convergence table's sample size counts, per method
-SIZES = {"sobol": "base samples N", "morris": "trajectories", "shapley": "samples (outer draws or orders)"}
+SIZES = {"sobol": "base samples N", "morris": "trajectories", "shapley": "random orders"}
 
 
 def _fmt(x: float) -> str:
@@ -47,10 +47,11 @@ def table(doc: dict[str, Any]) -> str:
                 ci = f"[{lo:.3g}, {hi:.3g}]" if method == "morris" else f"[{_fmt(lo)}, {_fmt(hi)}]"
                 row += f"{ci:>22}"
         lines.append(row)
-    lines.append(f"{doc['samples']} base samples, {doc['evaluations']} model runs, "
+    size = SIZES[method].removesuffix(" N")
+    lines.append(f"{doc['samples']} {size}, {doc['evaluations']} model runs, "
                  f"{doc['replicates']} independent replicates, seed {doc['seed']}")
     if doc.get("tol") is not None:  # whether the tolerance was met is one of the notes below
-        lines.append(f"tolerance {doc['tol']:g}, base samples tried (widest 95% half-width): " + ", ".join(
+        lines.append(f"tolerance {doc['tol']:g}, {size} tried (widest 95% half-width): " + ", ".join(
             f"{h['samples']} ({_fmt(h['widest_half_width'])})" for h in doc.get("history") or []))
     if doc["convergence"]:
         key = doc["ranked_by"]

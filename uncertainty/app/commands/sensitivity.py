@@ -16,16 +16,17 @@ from uncertainty.study import load_study
 @click.option("--method", type=click.Choice(["sobol", "morris", "shapley"]), default=None,
               help="Sobol' (independent inputs), Morris screening, or Shapley effects (correlated inputs).")
 @click.option("--samples", type=Count(SENSITIVITY_BYTES), default=None,
-              help="Base samples N (Sobol', a power of two), trajectories (Morris) or outer draws (Shapley).")
+              help="Base samples N (Sobol', a power of two), trajectories (Morris) or random orders (Shapley).")
 @click.option("--output", default=None, help="The model output to analyse (default Jv).")
 @click.option("--layer", type=click.Choice(["individual", "typical"]), default=None,
               help="The individual (default: typical and between-subject parts together) or the typical subject.")
 @click.option("--second-order", is_flag=True, default=None, help="Also Sobol' second-order indices.")
 @click.option("--tol", type=float, default=None, is_flag=False, flag_value=0.01,
-              help="Sobol': double the base sample until the 95% half-width of every S1 and ST is below TOL "
-                   "(absolute; --tol alone means 0.01); exit 3 if --max-samples comes first.")
+              help="Sobol' or Shapley: double the samples until the 95% half-width of every S1 and ST "
+                   "(Sobol') or Sh (Shapley) is below TOL (absolute; --tol alone means 0.01); exit 3 if "
+                   "--max-samples comes first.")
 @click.option("--max-samples", type=Count(SENSITIVITY_BYTES), default=None,
-              help="Upper limit on the base samples for --tol doubling (default 131072).")
+              help="Upper limit on the samples for --tol doubling (default 131072).")
 @click.option("--workers", type=int, default=None, help="Model runs in chunks on a local dask cluster of N processes.")
 @click.option("--scheduler", default=None, help="Model runs in chunks on a running dask scheduler at ADDRESS.")
 @handle_errors
@@ -36,9 +37,14 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     index (Shapley effect for correlated inputs), warnings and a convergence table.
 
     With --workers or --scheduler the model runs go to dask workers in fixed chunks of rows; the
-    samples are drawn here, so the numbers are the same as in-process. With --tol (Sobol') the base
-    sample doubles until every index is known to within TOL; the output says whether the tolerance was
-    met or the --max-samples cap stopped it (then exit 3)."""
+    samples are drawn here, so the numbers are the same as in-process. With --tol (Sobol', Shapley) the
+    samples double, no model run repeated, until every headline index is known to within TOL; the
+    output says whether the tolerance was met or the --max-samples cap stopped it (then exit 3).
+
+    \b
+    Examples:
+      fluidshift sensitivity studies/demo.toml --method shapley --tol
+      fluidshift sensitivity studies/demo.toml --method sobol --tol 0.005 --max-samples 65536"""
     s = load_study(study)
     opts = {"method": method, "samples": samples, "output": output, "seed": seed, "layer": layer,
             "second_order": second_order or None, "tol": tol, "max_samples": max_samples}
