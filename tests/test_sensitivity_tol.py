@@ -99,8 +99,8 @@ def test_bad_tolerance_cap_or_method_is_refused() -> None:
     with pytest.raises(InputError):
         sobol_core(_linear(), 1024, seed=1, tol=TOL, max_samples=512)
     study = Study.from_dict(_study_doc())
-    with pytest.raises(InputError, match="give Morris a number of trajectories"):
-        sensitivity(study, method="morris", samples=8, tol=TOL)
+    with pytest.raises(InputError, match="max-samples is below"):
+        sensitivity(study, method="morris", samples=8, tol=TOL, max_samples=4)
 
 
 def _study_doc() -> dict:
@@ -165,4 +165,26 @@ def test_shapley_orders_double_until_every_effect_is_within_tol() -> None:
     with pytest.raises(QualityGateError) as exc:
         shapley_core(prob, 64, seed=3, tol=1e-5, max_samples=256)
     assert exc.value.result.converged is False and exc.value.result.samples == 256
+    assert any("NOT met" in n for n in exc.value.result.notes)
+
+
+def test_morris_trajectories_double_until_mu_star_is_within_tol_of_the_largest() -> None:
+    from uncertainty.analyses.sensitivity import morris_core
+
+    r = morris_core(_ishigami_problem(), 8, seed=3, tol=0.1)
+    assert r.converged is True
+    sizes = [h["samples"] for h in r.history]
+    assert sizes == [8 * 2**i for i in range(len(sizes))] and len(sizes) > 1 and sizes[-1] == r.samples
+    top = max(ix["mu_star"] for ix in r.indices.values())
+    widest = max(ix["mu_star_ci"][1] - ix["mu_star"] for ix in r.indices.values()) / top
+    assert widest == pytest.approx(r.history[-1]["widest_half_width"]) and widest < 0.1
+    assert r.history[-2]["widest_half_width"] >= 0.1
+    assert r.evaluations == sum(4 * n for n in sizes)  # a new design per size: D + 1 = 4 runs a trajectory
+    # a linear function's elementary effects are the same everywhere: zero width at once, mu* ranks the
+    # coefficients
+    lin = morris_core(_linear(), 8, seed=3, tol=0.05)
+    assert lin.converged is True and len(lin.history) == 1 and lin.ranking == ["x3", "x2", "x1"]
+    with pytest.raises(QualityGateError) as exc:
+        morris_core(_ishigami_problem(), 8, seed=3, tol=1e-4, max_samples=32)
+    assert exc.value.result.converged is False and exc.value.result.samples == 32
     assert any("NOT met" in n for n in exc.value.result.notes)

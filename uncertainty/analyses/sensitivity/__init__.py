@@ -560,14 +560,50 @@ def _halvings(n: int, smallest: int = 4, most: int = 6) -> list[int]:
 
 
 def morris_core(problem: Problem, trajectories: int = 64, *, seed: Any = None,
-                levels: int = MORRIS_LEVELS) -> SensitivityResult:
+                levels: int = MORRIS_LEVELS, tol: float | None = None,
+                max_samples: int | None = None) -> SensitivityResult:
     """Morris screening: mu*, sigma and mu per player (output units per unit of the cube).
 
     SALib's trajectories on a p-level grid, the levels moved to cell centres inside the open cube;
     the elementary effects are rescaled to the moved step (p/(p-1) times SALib's). mu* intervals are
     SALib's bootstrap over the independent trajectories; the convergence table re-analyses the
     first T/2^k trajectories (at least 4). Refuses correlated inputs (InputError).
+
+    ``tol`` (dimensionless, relative): precision on demand, the trajectories double (a new design of
+    twice the size each time) until the widest mu* half-width is below ``tol`` times the largest mu*;
+    ``max_samples`` caps the trajectories (default :data:`DEFAULT_MAX_SAMPLES`). When the cap comes
+    first, QualityGateError (exit 3) carries the flagged result.
     """
+    cap = _check_tol(tol, max_samples, trajectories if isinstance(trajectories, int) else 0)
+    history: list[dict[str, Any]] = []
+    while True:
+        res = _morris_once(problem, trajectories, seed=seed, levels=levels)
+        if tol is None:
+            return res
+        top = max(ix["mu_star"] for ix in res.indices.values())
+        worst, where = max(((ix["mu_star_ci"][1] - ix["mu_star"]) / top if top > 0 else float("inf"), p)
+                           for p, ix in res.indices.items())
+        history.append({"samples": int(trajectories), "evaluations": res.evaluations,
+                        "widest_half_width": float(worst), "widest": f"mu_star of {where}"})
+        converged = bool(worst < tol)
+        if converged or 2 * trajectories > cap:
+            break
+        trajectories *= 2
+    res.tol, res.converged, res.history = tol, converged, history
+    res.evaluations = sum(h["evaluations"] for h in history)
+    res.notes.append(f"tolerance {tol:g} on the widest mu* half-width over the largest mu* "
+                     + (f"met at {trajectories} trajectories" if converged else
+                        f"NOT met: the cap max-samples={cap} stopped the doubling at {trajectories} "
+                        f"trajectories (widest {worst:.3g} of the largest mu*, {where})"))
+    if not converged:
+        raise QualityGateError(f"the mu* half-width of {where} is still {worst:.3g} of the largest mu*, above "
+                               f"tol={tol:g}, at {trajectories} trajectories; the next doubling would exceed "
+                               f"max-samples={cap}", result=res)
+    return res
+
+
+def _morris_once(problem: Problem, trajectories: int, *, seed: Any, levels: int) -> SensitivityResult:
+    """One Morris design of ``trajectories`` trajectories, analysed (see :func:`morris_core`)."""
     from SALib.analyze import morris as morris_analyze
 
     _refuse_correlated(problem, "Morris")
@@ -831,9 +867,9 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
     ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): the model runs go through it
     in row chunks of a fixed size (the samples are drawn here and the split never depends on the
     executor, so the numbers are identical in-process and on any number of workers).
-    ``tol`` (dimensionless, absolute) and ``max_samples`` (base points): Sobol' only, precision on demand
-    as in :func:`sobol_core`; QualityGateError (exit 3, the result attached) when the cap stops the
-    doubling first.
+    ``tol`` (dimensionless) and ``max_samples``: precision on demand as in :func:`sobol_core` (absolute,
+    on S1 and ST), :func:`shapley_core` (absolute, on Sh) and :func:`morris_core` (relative to the largest
+    mu*); QualityGateError (exit 3, the result attached) when the cap stops the doubling first.
     """
     sec = section_settings(study, "sensitivity")
     method = method or sec.get("method")
@@ -859,16 +895,13 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
                          key="sensitivity.method", value=method)
     if samples is None:
         samples = sec.get("samples", DEFAULT_SAMPLES[method])
-    if (tol is not None or max_samples is not None) and method == "morris":
-        raise InputError("a tolerance (tol, max-samples) is offered for Sobol' indices and Shapley effects; "
-                         "give Morris a number of trajectories instead", file=_file(study),
-                         key="sensitivity.method", value=method)
     try:
         if method == "sobol":
             res = sobol_core(problem, samples, seed=seed, replicates=replicates, second_order=second_order,
                              tol=tol, max_samples=max_samples)
         elif method == "morris":
-            res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS))
+            res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS), tol=tol,
+                              max_samples=max_samples)
         else:
             res = shapley_core(problem, samples, seed=seed, replicates=replicates, tol=tol,
                                max_samples=max_samples)

@@ -22,9 +22,9 @@ from uncertainty.study import load_study
               help="The individual (default: typical and between-subject parts together) or the typical subject.")
 @click.option("--second-order", is_flag=True, default=None, help="Also Sobol' second-order indices.")
 @click.option("--tol", type=float, default=None, is_flag=False, flag_value=0.01,
-              help="Sobol' or Shapley: double the samples until the 95% half-width of every S1 and ST "
-                   "(Sobol') or Sh (Shapley) is below TOL (absolute; --tol alone means 0.01); exit 3 if "
-                   "--max-samples comes first.")
+              help="Double the samples until the 95% half-width of every S1 and ST (Sobol') or Sh "
+                   "(Shapley) is below TOL (absolute), or every mu* half-width below TOL x the largest mu* "
+                   "(Morris); --tol alone means 0.01; exit 3 if --max-samples comes first.")
 @click.option("--max-samples", type=Count(SENSITIVITY_BYTES), default=None,
               help="Upper limit on the samples for --tol doubling (default 131072).")
 @click.option("--workers", type=int, default=None, help="Model runs in chunks on a local dask cluster of N processes.")
@@ -37,8 +37,8 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     index (Shapley effect for correlated inputs), warnings and a convergence table.
 
     With --workers or --scheduler the model runs go to dask workers in fixed chunks of rows; the
-    samples are drawn here, so the numbers are the same as in-process. With --tol (Sobol', Shapley) the
-    samples double, no model run repeated, until every headline index is known to within TOL; the
+    samples are drawn here, so the numbers are the same as in-process. With --tol the samples
+    double (Sobol' and Shapley keep every earlier run) until every headline figure is within TOL; the
     output says whether the tolerance was met or the --max-samples cap stopped it (then exit 3).
 
     \b
