@@ -129,6 +129,9 @@ def table(doc: dict[str, Any]) -> str:
              f"{test}, "
              f"{doc['path']} path, {doc['trials_per_point']} trials per point",
              headline(doc)]
+    if doc.get("precision_history"):  # whether the tolerance was met is one of the notes
+        lines.append(f"tolerance {doc['tol']:g}, trials per point tried (widest 95% half-width): " + ", ".join(
+            f"{h['trials']} ({h['widest_half_width']:.3g})" for h in doc["precision_history"]))
     gsq = doc.get("group_sequential")
     if gsq:
         lines.append(f"group-sequential, {gsq['looks']} looks ({gsq['spending']} spending): n per arm at most "

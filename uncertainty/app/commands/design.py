@@ -8,9 +8,10 @@ from typing import Any
 import click
 
 from uncertainty.analyses.design import MAX_TRIALS, MIN_TRIALS, MIN_TRIALS_REASON, design
+from uncertainty.analyses.design.precision import design_within
 from uncertainty.analyses.schedule import schedule
 from uncertainty.app.commands.common import TRIAL_BYTES, Count, handle_errors, show_result, study_options
-from uncertainty.core.errors import InputError
+from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.core.parallel import make_executor
 from uncertainty.study import load_study
 
@@ -19,6 +20,12 @@ from uncertainty.study import load_study
 @study_options
 @click.option("--exact", is_flag=True, help="Refit every simulated trial with full MCMC (slow).")
 @click.option("--trials", type=Count(TRIAL_BYTES, "trials"), default=None, help="Simulated trials per design point.")
+@click.option("--tol", type=float, default=None, is_flag=False, flag_value=0.01,
+              help="Double the simulated trials per point until the 95% Monte Carlo half-width of power, "
+                   "assurance and Bayesian success is below TOL (absolute; --tol alone means 0.01); exit 3 "
+                   "if --max-trials comes first.")
+@click.option("--max-trials", type=Count(TRIAL_BYTES, "trials"), default=None,
+              help=f"Upper limit on the trials per point for --tol doubling (default {MAX_TRIALS}).")
 @click.option("--workers", type=int, default=None, help="Run design points on a local dask cluster of N processes.")
 @click.option("--scheduler", default=None, help="Join a running dask scheduler at ADDRESS.")
 @click.option("--checkpoint", type=click.Path(file_okay=False), default=None,
@@ -31,15 +38,21 @@ from uncertainty.study import load_study
                    "write it to protocol.md there.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, exact: bool,
-            trials: int | None, workers: int | None, scheduler: str | None, checkpoint: str | None,
-            cuff_schedule: bool, protocol: bool) -> None:
+            trials: int | None, tol: float | None, max_trials: int | None, workers: int | None,
+            scheduler: str | None, checkpoint: str | None, cuff_schedule: bool, protocol: bool) -> None:
     """Power of the stated test (simulated, with Monte Carlo error, and exact noncentral t),
     assurance over the design prior, Bayesian success, n per arm for the targets, and the curves.
 
     With --schedule: the cuff pressures and K reading times of a venous-cuff protocol that minimise
     the expected posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision),
     and the ratio of those sds to equal spacing (sd_ratio below 1 is a gain); the [design] section
-    is not needed then."""
+    is not needed then.
+
+    \b
+    Examples:
+      fluidshift design studies/heart_failure_trial.toml
+      fluidshift design studies/heart_failure_trial.toml --tol 0.005 --out plan/
+      fluidshift design studies/heart_failure_trial.toml --protocol"""
     if cuff_schedule:
         _schedule(load_study(study), seed, as_json, out, quiet)
         return
@@ -48,7 +61,16 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
                          f"({MIN_TRIALS_REASON})", key="--trials", value=trials)
     s = load_study(study)
     with make_executor(workers, scheduler, checkpoint_dir=checkpoint, progress=not (quiet or as_json)) as ex:
-        result = design(s, seed=seed, exact=exact, executor=ex, trials=trials)
+        try:
+            if tol is None:
+                result = design(s, seed=seed, exact=exact, executor=ex, trials=trials)
+            else:
+                result = design_within(s, tol, max_trials=max_trials, seed=seed, exact=exact, executor=ex,
+                                       trials=trials)
+        except QualityGateError as exc:  # the cap stopped --tol: show what was computed, then exit 3
+            if exc.result is not None:
+                show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
+            raise
     if protocol and not as_json:
         text = result.protocol()
         if out:
