@@ -4,6 +4,7 @@ spacing, greedy/exchange against brute force, study section and CLI."""
 from __future__ import annotations
 
 import json
+import math
 import tomllib
 from pathlib import Path
 
@@ -220,3 +221,32 @@ def test_group_comparison_size_against_the_normal_formula() -> None:
         b = g[t]["between_sd"]
         assert g[t]["n_per_group"] == int(np.ceil(2 * z**2 * (b**2 + post**2) / b**2))
         assert g[t]["n_per_group_perfect"] == int(np.ceil(2 * z**2))
+
+
+def test_the_studys_correlations_carry_into_the_prior_precision() -> None:
+    # Kf and Pv lognormal without a between-subject spread, their normal scores correlated at rho: the
+    # logs are then bivariate normal with correlation exactly rho (Gaussian copula, closed form). Invented
+    # test values: rho = 0.6, Kf 0.0035 (gsd 1.35), Pv 12 mmHg (gsd 1.3).
+    rho = 0.6
+
+    def study(r: float) -> Study:
+        doc = tomllib.loads(FOREARM.read_text(encoding="utf-8"))
+        doc["parameters"]["Kf"] = {"dist": "lognormal", "median": 0.0035, "gsd": 1.35,
+                                   "unit": "mL/min/mmHg/100mL", "origin": "invented test value"}
+        doc["parameters"]["Pv"] = {"dist": "lognormal", "median": 12.0, "gsd": 1.3, "unit": "mmHg",
+                                   "origin": "invented test value"}
+        doc["correlations"] = {"pairs": [["Kf", "Pv", r]]}
+        doc["schedule"] = {**doc.get("schedule", {}), "linearisation_draws": 2}
+        return Study.from_dict(doc, path=FOREARM)
+
+    s = study(rho)
+    model = sch.cuff_model(s, s.schedule, seed=3)
+    i, j = model.names.index("Kf"), model.names.index("Pv")
+    c = model.prior_cov
+    assert model.log[i] and model.log[j]
+    # 20,000 draws: the sample correlation's se is about (1 - rho^2) / sqrt(n) = 0.0045
+    assert c[i, j] / math.sqrt(c[i, i] * c[j, j]) == pytest.approx(rho, abs=0.02)
+    assert math.sqrt(c[i, i]) == pytest.approx(math.log(1.35), rel=0.02)
+    s0 = study(0.0)
+    c0 = sch.cuff_model(s0, s0.schedule, seed=3).prior_cov
+    assert abs(c0[i, j] / math.sqrt(c0[i, i] * c0[j, j])) < 0.03

@@ -49,6 +49,7 @@ import numpy as np
 
 from uncertainty.analyses.design.trial_power import z_sample_size
 from uncertainty.analyses.inference.observations.volume_time_course import SIDE_PRIORS, SMOOTH_MMHG
+from uncertainty.analyses.sampling import draw
 from uncertainty.analyses.schedule.result import ScheduleResult
 from uncertainty.core.errors import InputError
 from uncertainty.physiology.interstitium import cuff_curve, volume_time_course
@@ -260,11 +261,15 @@ def cuff_model(study: Any, section: Any, seed: int, draws: int = 20000) -> CuffM
     """The linearised cuff model of a study: priors of Kf, C_tis, L, Pv, r from the study (else its
     tissue's prior set), C_v and tau_v lognormal from the ``[schedule]`` section.
 
-    Moments of phi are matched to individual-level prior draws (``draws``); correlations between
-    these quantities are not carried (the prior sets declare none among them).
+    Moments of phi (mean and full covariance, on the log scale for a positive quantity) are matched to
+    individual-level prior draws (``draws``). The study's own quantities are drawn jointly, through its
+    Gaussian-copula correlations, so a correlation the study declares between them carries into the prior
+    precision and hence into the chosen schedule.
     """
 
     rng = np.random.default_rng(seed)
+    joint = draw(study, draws, method="mc", seed=np.random.default_rng(seed + 1)) if getattr(
+        study, "priors", None) else {}
     file = getattr(study, "file", None)
     pset = None
     logs, samples, origins = [], [], {}
@@ -297,18 +302,26 @@ def cuff_model(study: Any, section: Any, seed: int, draws: int = 20000) -> CuffM
             logs.append(False)
             samples.append(np.full(draws, float(prior.median())))
             continue
+        if name in joint and prior is study.priors.get(name):  # drawn with the study's correlations
+            ind = np.asarray(joint[name], dtype=float)
+            lg = prior.distribution.positive_support and bool(np.all(ind > 0))
+            logs.append(lg)
+            samples.append(np.log(ind) if lg else ind)
+            continue
         lg, s = _moments(prior, rng, draws)
         logs.append(lg)
         samples.append(s)
     S = np.column_stack(samples)
     mean = S.mean(axis=0)
-    var = S.var(axis=0, ddof=1)
-    fixed = var <= 0
-    var = np.where(fixed, 1e-24, var)  # a fixed quantity: (numerically) known exactly
+    cov = np.cov(S, rowvar=False)
+    fixed = np.diag(cov) <= 0
+    cov[fixed, :] = 0.0
+    cov[:, fixed] = 0.0
+    cov[fixed, fixed] = 1e-24  # a fixed quantity: (numerically) known exactly
     M = int(section.linearisation_draws)
     centre = np.median(S, axis=0)
     points = np.vstack([centre, S[1:M]]) if M > 1 else centre[None, :]
-    return CuffModel(names=PARAMS, log=np.array(logs), prior_mean=mean, prior_cov=np.diag(var),
+    return CuffModel(names=PARAMS, log=np.array(logs), prior_mean=mean, prior_cov=cov,
                      points=points, step_min=float(section.step_min), transmission=float(section.transmission),
                      origins=origins)
 
