@@ -32,6 +32,7 @@ from uncertainty.analyses.sampling import (
     replicate_seeds,
 )
 from uncertainty.core.errors import InputError, QualityGateError
+from uncertainty.core.parallel import InProcess
 from uncertainty.core.units import basis_factor
 from uncertainty.forms.catalogue import note_outputs, output_notes, output_unit, study_outputs
 from uncertainty.forms.evaluate import evaluate as model_evaluate
@@ -57,42 +58,120 @@ NOT_LYMPH_RETURNED = ("glomerular",)
 # Replicated cube streams
 # --------------------------------------------------------------------------------------------
 
+#: replicates drawn and evaluated in one task of the executor (fixed: the split never depends on the
+#: number of workers, so the numbers are the same in-process and on any cluster)
+REPLICATES_PER_TASK = 4
+
+
+def replicate_points(k: int, method: str, seed: np.random.SeedSequence, before: Sequence[int], m: int
+                     ) -> np.ndarray:
+    """The next ``m`` points (m, k) of one replicate's stream in the open cube, after takes of ``before``.
+
+    The stream is rebuilt from the replicate's own seed and the earlier takes replayed (drawing points
+    costs little beside the model), so a take can run on any worker: ``qmc`` continues the scrambled
+    Sobol' sequence (the union after doubling is again a balanced Sobol' prefix), ``mc`` more
+    pseudo-random points, ``lhs`` a fresh independent Latin hypercube per take.
+
+    Parameters
+    ----------
+    k : int
+        Cube dimension (uncertain inputs plus between-subject scores).
+    method : str
+        ``qmc``, ``mc`` or ``lhs``.
+    seed : numpy.random.SeedSequence
+        The replicate's seed (child of the study seed).
+    before : sequence of int
+        Sizes of the earlier takes of this stream.
+    m : int
+        Points wanted.
+
+    Returns
+    -------
+    ndarray
+        (m, k) points in (0, 1), no unit.
+
+    Raises
+    ------
+    InputError
+        For an unknown method.
+    """
+    from scipy.stats import qmc
+
+    if method not in METHODS:
+        raise InputError(f"unknown sampling method; use one of {', '.join(METHODS)}",
+                         key="propagate.method", value=method)
+    if k == 0:
+        return np.empty((m, 0))
+    rng = np.random.default_rng(seed)
+    if method == "qmc":
+        sobol = qmc.Sobol(k, scramble=True, rng=rng)
+        skip = int(sum(before))
+        if skip:
+            sobol.fast_forward(skip)
+        return open_cube(sobol.random(m))
+    if method == "lhs":
+        for size in before:
+            qmc.LatinHypercube(k, rng=rng).random(size)
+        return open_cube(qmc.LatinHypercube(k, rng=rng).random(m))
+    skip = int(sum(before))
+    if skip:
+        rng.random((skip, k))
+    return open_cube(rng.random((m, k)))
+
+
 class CubeStream:
     """R independent replicated streams of points in the open cube (0,1)^k.
 
-    ``take(m)`` returns the next m points of each replicate: for ``qmc`` the continuation of each
-    scrambled Sobol' sequence (so the union after doubling is again a balanced Sobol' prefix), for
-    ``mc`` more pseudo-random points, for ``lhs`` a fresh independent Latin hypercube per replicate.
+    ``take(m)`` returns the next m points of each replicate (:func:`replicate_points`): for ``qmc``
+    the continuation of each scrambled Sobol' sequence, for ``mc`` more pseudo-random points, for
+    ``lhs`` a fresh independent Latin hypercube per replicate.
     """
 
     def __init__(self, k: int, method: str, seed: Any, replicates: int = REPLICATES) -> None:
-        from scipy.stats import qmc
-
         if method not in METHODS:
             raise InputError(f"unknown sampling method; use one of {', '.join(METHODS)}",
                              key="propagate.method", value=method)
         self.k, self.method, self.replicates = k, method, replicates
-        self._rngs = [np.random.default_rng(s) for s in replicate_seeds(seed, replicates)]
-        self._sobol = ([qmc.Sobol(k, scramble=True, rng=r) for r in self._rngs]
-                       if method == "qmc" and k > 0 else None)
+        self.seeds = replicate_seeds(seed, replicates)
+        self.before: list[int] = []
 
     def take(self, m: int) -> list[np.ndarray]:
         """The next m points (m, k) of every replicate, in the open cube."""
-        from scipy.stats import qmc
-
-
-        out = []
-        for i, rng in enumerate(self._rngs):
-            if self.k == 0:
-                u = np.empty((m, 0))
-            elif self.method == "qmc":
-                u = self._sobol[i].random(m)
-            elif self.method == "lhs":
-                u = qmc.LatinHypercube(self.k, rng=rng).random(m)
-            else:
-                u = rng.random((m, self.k))
-            out.append(open_cube(u))
+        out = [replicate_points(self.k, self.method, ss, self.before, m) for ss in self.seeds]
+        self.before.append(int(m))
         return out
+
+
+class _Take:
+    """Task function of propagation: draw a chunk of replicates' next points and evaluate them.
+
+    A task is (replicate seeds, sizes of the earlier takes, points per replicate); the result is
+    ``sample_layers`` on those points (replicate after replicate) with the gated outputs as full
+    arrays, plus the ``_``-prefixed extras the sampler returns. The executor's seed is not used: each
+    replicate's stream comes from its own seed, a child of the study seed.
+    """
+
+    def __init__(self, sample_layers: Callable[[np.ndarray], dict[str, Any]], k: int, method: str,
+                 outputs: Sequence[str]) -> None:
+        self.sample_layers, self.k, self.method, self.outputs = sample_layers, k, method, list(outputs)
+
+    def __call__(self, task: tuple[tuple[np.random.SeedSequence, ...], tuple[int, ...], int],
+                 ss: np.random.SeedSequence) -> dict[str, Any]:
+        seeds, before, m = task
+        u = np.vstack([replicate_points(self.k, self.method, s, before, m) for s in seeds])
+        res = self.sample_layers(u)
+        rows = u.shape[0]
+        return {layer: (outs if layer.startswith("_") else
+                        {name: np.broadcast_to(np.asarray(outs[name], dtype=float), (rows,)).copy()
+                         for name in self.outputs})
+                for layer, outs in res.items()}
+
+
+def _join(parts: Sequence[Any]) -> Any:
+    """Chunk results joined in chunk order: dicts key by key, arrays end to end."""
+    if isinstance(parts[0], dict):
+        return {key: _join([p[key] for p in parts]) for key in parts[0]}
+    return np.concatenate([np.asarray(p) for p in parts])
 
 
 # --------------------------------------------------------------------------------------------
@@ -222,6 +301,8 @@ def propagate_arrays(
     replicates: int = REPLICATES,
     units: dict[str, str] | None = None,
     tol_outputs: Sequence[str] | None = None,
+    executor: Any = None,
+    on_batch: Callable[[dict[str, Any]], None] | None = None,
 ) -> PropagateResult:
     """Replicated forward propagation over any cube -> outputs map.
 
@@ -232,6 +313,13 @@ def propagate_arrays(
     doubles until the 95% Monte Carlo margin of both 95%-interval ends, t_{0.975, R-1} x their
     replicate standard error, is below ``tol`` in both layers; QualityGateError (exit 3, carrying the
     result) if ``max_samples`` would be exceeded first.
+
+    Every take runs through ``executor`` (:mod:`uncertainty.core.parallel`, in-process when None) in
+    tasks of :data:`REPLICATES_PER_TASK` replicates, each drawing its replicates' points from their
+    own seeds (children of ``seed``), so the numbers are the same on any executor and any number of
+    workers. ``sample_layers`` must then be picklable for a cluster and free of side effects: what
+    the caller wants kept besides the outputs it returns under keys starting with ``_`` (arrays, or
+    dicts of arrays, one row per point), and ``on_batch`` receives each take's joined result here.
     """
     if replicates < 2:
         raise InputError("at least 2 replicates are needed for a Monte Carlo error", key="replicates",
@@ -250,7 +338,11 @@ def propagate_arrays(
     if max_samples < per * replicates:
         raise InputError(f"max-samples is below the starting sample size {per * replicates}",
                          key="max_samples", value=max_samples)
-    stream = CubeStream(k, method, seed, replicates)
+    seeds = tuple(replicate_seeds(seed, replicates))
+    chunks = [seeds[i:i + REPLICATES_PER_TASK] for i in range(0, replicates, REPLICATES_PER_TASK)]
+    task_fn = _Take(sample_layers, k, method, outputs)  # one task function for every take (sent once)
+    executor = executor if executor is not None else InProcess()
+    before: list[int] = []
     units = dict(units or {})
     gate = list(tol_outputs or outputs[:1])
     store: dict[str, dict[str, list[list[np.ndarray]]]] = {}
@@ -258,9 +350,15 @@ def propagate_arrays(
     take = per
     total_per = 0
     while True:
-        # all replicates in one batch (vectorised evaluation), split back afterwards
-        res = sample_layers(np.vstack(stream.take(take)))
+        # replicates in chunks (vectorised evaluation within a chunk), joined in replicate order
+        parts = executor.map(task_fn, [(c, tuple(before), take) for c in chunks], seed=0, label="propagate")
+        before.append(take)
+        res = _join(parts)
+        if on_batch is not None:
+            on_batch(res)
         for layer, outs in res.items():
+            if layer.startswith("_"):
+                continue
             for name in outputs:
                 store.setdefault(layer, {}).setdefault(name, [[] for _ in range(replicates)])
                 parts = np.split(np.broadcast_to(np.asarray(outs[name], dtype=float), (take * replicates,)),
@@ -350,7 +448,7 @@ def _output_units(outputs: Sequence[str]) -> dict[str, str]:
 def propagate(study: Any, samples: int | None = None, method: str | None = None, seed: int | None = None,
               tol: float | None = None, max_samples: int | None = None,
               outputs: Sequence[str] | None = None, *, replicates: int = REPLICATES,
-              evaluate: Callable | None = None) -> PropagateResult:
+              evaluate: Callable | None = None, executor: Any = None) -> PropagateResult:
     """Distribution of the study's outputs (Jv in its canonical unit and the rest) for its
     individual and its typical subject.
 
@@ -358,6 +456,10 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     ``seed`` defaults to the study's. ``tol`` is in the unit of the first output; see
     :func:`propagate_arrays`. Raises InputError for an unknown output, zero samples or an unknown
     method; QualityGateError when ``tol`` is not reached within ``max_samples``.
+
+    ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): the draws go through it in
+    chunks of :data:`REPLICATES_PER_TASK` replicates, each replicate's stream from its own child of
+    the seed, so the numbers are identical in-process and on any number of workers.
     """
     sec = section_settings(study, "propagate")
     samples = sec.get("samples", DEFAULT_SAMPLES) if samples is None else samples
@@ -398,20 +500,13 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     players = {layer: list(dict.fromkeys(s for s, _ in cube_columns(study, layer))) for layer in ("individual",
                                                                                                "typical")}
     kept_inputs: list[dict[str, dict[str, np.ndarray]]] = []  # input draws of the threshold drivers
+    sample_layers = _StudyLayers(study, evaluate, d, has_bs, players if specs else None, note_keys)
 
-    def sample_layers(u: np.ndarray) -> dict[str, dict[str, np.ndarray]]:
-        typ_values = from_cube(study, u[:, :d], "typical")
-        ind_values = from_cube(study, u, "individual") if has_bs else typ_values
-        typ = evaluate(study, typ_values)
-        ind = evaluate(study, ind_values) if has_bs else typ
-        if specs:
-            kept_inputs.append({layer: {s: np.broadcast_to(np.asarray(vals[s], dtype=float), (u.shape[0],))
-                                        for s in players[layer]}
-                                for layer, vals in (("individual", ind_values), ("typical", typ_values))})
-        if note_keys and all(key in ind for key in note_keys):
-            kept.append({key: np.broadcast_to(np.asarray(ind[key], dtype=float), (u.shape[0],))
-                         for key in note_keys})
-        return {"individual": ind, "typical": typ}
+    def keep(batch: dict[str, Any]) -> None:
+        if "_inputs" in batch:
+            kept_inputs.append(batch["_inputs"])
+        if "_notes" in batch:
+            kept.append(batch["_notes"])
 
     def add_thresholds(res: PropagateResult) -> None:
         if specs and kept_inputs:
@@ -427,7 +522,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     try:
         result = propagate_arrays(sample_layers, k, outputs, samples=samples, method=method, seed=seed,
                                   tol=tol, max_samples=max_samples, replicates=replicates,
-                                  units=_output_units(outputs))
+                                  units=_output_units(outputs), executor=executor, on_batch=keep)
     except QualityGateError as exc:
         if exc.result is not None:
             exc.result.study = study_meta(study)
@@ -449,6 +544,36 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
         result.notes.append("no between-subject spread declared: the individual equals the typical "
                             "subject")
     return result
+
+
+class _StudyLayers:
+    """The study's outputs for its individual and its typical subject at cube points (picklable).
+
+    Returns ``{"individual": {...}, "typical": {...}}`` plus ``_inputs`` (layer -> input draws of the
+    threshold drivers, when ``players`` is given) and ``_notes`` (the individual draws the form's
+    notes read), one row per point.
+    """
+
+    def __init__(self, study: Any, evaluate: Callable, d: int, has_bs: bool,
+                 players: dict[str, list[str]] | None, note_keys: Sequence[str]) -> None:
+        self.study, self.evaluate, self.d, self.has_bs = study, evaluate, d, has_bs
+        self.players, self.note_keys = players, list(note_keys)
+
+    def __call__(self, u: np.ndarray) -> dict[str, Any]:
+        study, n = self.study, u.shape[0]
+        typ_values = from_cube(study, u[:, :self.d], "typical")
+        ind_values = from_cube(study, u, "individual") if self.has_bs else typ_values
+        typ = self.evaluate(study, typ_values)
+        ind = self.evaluate(study, ind_values) if self.has_bs else typ
+        out: dict[str, Any] = {"individual": ind, "typical": typ}
+        if self.players is not None:
+            out["_inputs"] = {layer: {s: np.broadcast_to(np.asarray(vals[s], dtype=float), (n,)).copy()
+                                      for s in self.players[layer]}
+                              for layer, vals in (("individual", ind_values), ("typical", typ_values))}
+        if self.note_keys and all(key in ind for key in self.note_keys):
+            out["_notes"] = {key: np.broadcast_to(np.asarray(ind[key], dtype=float), (n,)).copy()
+                             for key in self.note_keys}
+        return out
 
 
 def flag_implausible_flux(result: PropagateResult, tissue_mass_kg: float | None, form: str | None) -> None:
