@@ -47,6 +47,7 @@ from uncertainty.analyses.inference.summaries import flat
 from uncertainty.analyses.rank.result import RankResult
 from uncertainty.analyses.sensitivity import first_order_given_data
 from uncertainty.core.errors import InputError
+from uncertainty.core.parallel import InProcess, task_seeds
 from uncertainty.distributions import is_normal_frozen, log_sd_from_cv
 from uncertainty.forms.catalogue import output_unit
 from uncertainty.forms.evaluate import evaluate as model_evaluate
@@ -316,33 +317,23 @@ def perfect_information(theta: np.ndarray, y: np.ndarray) -> tuple[float, float]
     return float(s1), float(se)
 
 
-def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Reading], *,
-               seed: int = 0, budget: float | None = None, method: str = "auto",
-               max_set_size: int = 6) -> dict[str, Any]:
-    """Rank candidate readings on draws ``values`` (name -> array) of the inputs and ``y`` (output).
+class _CandidateTask:
+    """Task function of ranking: one candidate's preposterior figures on the draws (picklable).
 
-    Returns the ``rank`` JSON (DESIGN.md section 5): ``candidates`` sorted by expected variance
-    reduction, ``prior`` figures, ``best_pair`` and ``best_set`` (joint fits). Units: those of y
-    (variances in y's unit squared); ``per_cost`` is the 95% interval narrowing per unit cost.
+    A task is a :class:`Reading`; its simulated readings, the importance outer readings and the
+    regression blocks use the task's own random stream (a child of the ranking seed by candidate
+    index, never by worker), so the figures are the same on any executor.
     """
-    rng = np.random.default_rng(seed)
-    y = np.asarray(y, dtype=float)
-    ok = np.isfinite(y)
-    y = y[ok]
-    var_y = float(np.var(y, ddof=1))
-    lo, hi = np.quantile(y, [0.025, 0.975])
-    prior_width = float(hi - lo)
-    # one simulated reading per draw and candidate: shared by singles, pairs and sets
-    reads: dict[str, np.ndarray] = {}
-    rows = []
-    notes: list[str] = []
-    for c in candidates:
-        if c.parameter not in values:
-            raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
-                             value=c.parameter)
-        theta = np.asarray(values[c.parameter], dtype=float)[ok]
-        reads[c.name] = c.simulate(theta, rng)
-        m = choose_method(c, theta) if method == "auto" else method
+
+    def __init__(self, values: dict[str, np.ndarray], y: np.ndarray, method: str) -> None:
+        self.values, self.y, self.method = values, y, method
+
+    def __call__(self, c: Reading, ss: np.random.SeedSequence) -> dict[str, Any]:
+        rng = np.random.default_rng(ss)
+        y = self.y
+        theta = self.values[c.parameter]
+        read = c.simulate(theta, rng)
+        m = choose_method(c, theta) if self.method == "auto" else self.method
         fig = None
         if m == "importance":
             fig = importance_figures(c, theta, y, rng)
@@ -353,8 +344,86 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
                 fig["var_post_mc_se"] = fig["mc_se"]
                 fig["narrowing_mc_se"] = fig["ci95_width_mc_se"]
         if fig is None:
-            fig = evaluate_set(reads[c.name][:, None], y, rng)
+            fig = evaluate_set(read[:, None], y, rng)
         s1, s1_se = perfect_information(theta, y)
+        return {"read": read, "method": m, "fig": fig, "s1": s1, "s1_se": s1_se}
+
+
+class _JointTask:
+    """Task function of ranking: the joint regression fit of a set of readings (no Monte Carlo error)."""
+
+    def __init__(self, reads: dict[str, np.ndarray], y: np.ndarray) -> None:
+        self.reads, self.y = reads, y
+
+    def __call__(self, names: tuple[str, ...], ss: np.random.SeedSequence) -> dict[str, float]:
+        return evaluate_set(np.column_stack([self.reads[n] for n in names]), self.y, None)
+
+
+def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Reading], *,
+               seed: int = 0, budget: float | None = None, method: str = "auto",
+               max_set_size: int = 6, executor: Any = None) -> dict[str, Any]:
+    """Rank candidate readings on draws ``values`` (name -> array) of the inputs and ``y`` (output).
+
+    Returns the ``rank`` JSON (DESIGN.md section 5): ``candidates`` sorted by expected variance
+    reduction, ``prior`` figures, ``best_pair`` and ``best_set`` (joint fits). Units: those of y
+    (variances in y's unit squared); ``per_cost`` is the 95% interval narrowing per unit cost.
+
+    Each candidate's figures (its simulated readings and the preposterior loop over them) are one
+    task of ``executor`` (:mod:`uncertainty.core.parallel`, in-process when None) with the random
+    stream of its index (child ``i`` of ``seed``); the joint fits of pairs and sets are tasks too and
+    the Monte Carlo errors of the best pair and set use child ``len(candidates)``. The numbers are
+    the same on any executor and any number of workers.
+
+    Parameters
+    ----------
+    values : dict of str to ndarray
+        Draws of the quantities the candidates read (canonical units).
+    y : ndarray
+        Draws of the output, aligned with ``values``.
+    candidates : list of Reading
+        The candidate measurements.
+    seed : int
+        Seed of the simulated readings and the Monte Carlo error blocks.
+    budget : float or None
+        Largest total cost of ``best_set`` (relative cost units); no set without it.
+    method : str
+        ``auto``, ``regression`` or ``importance``.
+    max_set_size : int
+        Most readings in ``best_set``.
+    executor : InProcess or DaskExecutor or None
+        Where the candidate and joint-fit tasks run.
+
+    Returns
+    -------
+    dict
+        The ranking document.
+
+    Raises
+    ------
+    InputError
+        A candidate reads a quantity that is not among ``values``.
+    """
+    executor = executor if executor is not None else InProcess()
+    y = np.asarray(y, dtype=float)
+    ok = np.isfinite(y)
+    y = y[ok]
+    var_y = float(np.var(y, ddof=1))
+    lo, hi = np.quantile(y, [0.025, 0.975])
+    prior_width = float(hi - lo)
+    for c in candidates:
+        if c.parameter not in values:
+            raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
+                             value=c.parameter)
+    read_values = {c.parameter: np.asarray(values[c.parameter], dtype=float)[ok] for c in candidates}
+    done = executor.map(_CandidateTask(read_values, y, method), candidates, seed=seed, label="rank candidates")
+    rng = np.random.default_rng(task_seeds(seed, len(candidates) + 1)[len(candidates)])  # joint fits' errors
+    # one simulated reading per draw and candidate: shared by singles, pairs and sets
+    reads: dict[str, np.ndarray] = {}
+    rows = []
+    notes: list[str] = []
+    for c, got in zip(candidates, done, strict=True):
+        reads[c.name] = got["read"]
+        m, fig, s1, s1_se = got["method"], got["fig"], got["s1"], got["s1_se"]
         reduction = var_y - fig["expected_var_post"]
         row = {
             "name": c.name, "parameter": c.parameter, "cost": c.cost,
@@ -385,25 +454,31 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
                          f"({m}; above {100 * _IS_REL_TOL:.0f}%, more samples would sharpen it)")
         rows.append(row)
     rows.sort(key=lambda r: -r["expected_variance_reduction"])
+    fit_task = _JointTask(reads, y)
 
-    def joint(names: tuple[str, ...], with_se: bool = False) -> dict[str, Any]:
-        X = np.column_stack([reads[n] for n in names])
-        fig = evaluate_set(X, y, rng if with_se else None)
+    def row_of(names: tuple[str, ...], fig: dict[str, Any]) -> dict[str, Any]:
         cost = sum(c.cost for c in candidates if c.name in names)
         return {"names": list(names), "cost": cost, "expected_var_post": fig["expected_var_post"],
                 "expected_variance_reduction": var_y - fig["expected_var_post"],
                 "expected_ci95_width": fig["expected_ci95_width"], "mc_se": fig.get("mc_se"),
                 "expected_ci95_width_mc_se": fig.get("ci95_width_mc_se")}
 
+    def joints(sets: list[tuple[str, ...]]) -> list[dict[str, Any]]:
+        figs = executor.map(fit_task, sets, seed=seed, label="rank sets") if sets else []
+        return [row_of(n, f) for n, f in zip(sets, figs, strict=True)]
+
+    def joint(names: tuple[str, ...]) -> dict[str, Any]:  # the chosen set, with its Monte Carlo errors
+        return row_of(names, evaluate_set(np.column_stack([reads[n] for n in names]), y, rng))
+
     names = [c.name for c in candidates]
     cost_of = {c.name: c.cost for c in candidates}
     best_pair = None
     if len(names) >= 2:
-        pairs = [joint(p) for p in itertools.combinations(names, 2)
-                 if budget is None or cost_of[p[0]] + cost_of[p[1]] <= budget + 1e-12]
+        pairs = joints([p for p in itertools.combinations(names, 2)
+                        if budget is None or cost_of[p[0]] + cost_of[p[1]] <= budget + 1e-12])
         best_pair = min(pairs, key=lambda r: r["expected_var_post"]) if pairs else None
         if best_pair is not None:
-            best_pair = joint(tuple(best_pair["names"]), with_se=True)
+            best_pair = joint(tuple(best_pair["names"]))
     best_set = None
     if budget is not None:
         affordable = [n for n in names if cost_of[n] <= budget + 1e-12]
@@ -411,7 +486,7 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
                    for s in itertools.combinations(affordable, k)
                    if sum(cost_of[n] for n in s) <= budget + 1e-12]
         if len(subsets) <= 64:
-            fits = [joint(s) for s in subsets]
+            fits = joints(subsets)
             best_set = min(fits, key=lambda r: r["expected_var_post"])
             best_set["search"] = "exhaustive"
         else:  # greedy forward selection, each step a joint fit
@@ -422,7 +497,7 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
                 options = [n for n in affordable if n not in chosen and spent + cost_of[n] <= budget + 1e-12]
                 if not options or len(chosen) >= max_set_size:
                     break
-                fits = [joint((*chosen, n)) for n in options]
+                fits = joints([(*chosen, n) for n in options])
                 step = min(fits, key=lambda r: r["expected_var_post"])
                 if best_set is not None and step["expected_var_post"] >= best_set["expected_var_post"]:
                     break
@@ -431,7 +506,7 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
                 best_set["search"] = "greedy"
         if best_set is not None:
             search = best_set["search"]
-            best_set = joint(tuple(best_set["names"]), with_se=True)
+            best_set = joint(tuple(best_set["names"]))
             best_set["search"], best_set["budget"] = search, budget
     return {"prior": {"var": var_y, "ci95_width": prior_width, "draws": int(len(y))},
             "candidates": rows, "best_pair": best_pair, "best_set": best_set, "notes": notes}
@@ -539,7 +614,7 @@ MIN_SAMPLES = 4096
 
 
 def rank(study: Any, seed: int | None = None, samples: int | None = None, method: str = "auto",
-         from_prior: bool = False) -> RankResult:
+         from_prior: bool = False, executor: Any = None) -> RankResult:
     """Rank candidate measurements for the study's output (``[rank] output``, default Jv).
 
     Without observations (or with ``from_prior``) draws come from the prior (individual layer: a
@@ -548,6 +623,8 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     perfect-information bound as the given-data first-order index on them. JSON key ``from`` says
     which. ``samples``: draws (default ``[rank] samples`` or 4096; fewer than :data:`MIN_SAMPLES` are
     raised to it with a note; the posterior path samples about that many and keeps the thinned ones).
+    ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): each candidate's figures and
+    each joint fit run as one task (:func:`rank_draws`); the numbers do not depend on it.
     """
 
     section = getattr(study, "rank", None)
@@ -574,7 +651,7 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
         pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
         if getattr(study, "observations", None):
             notes.append("figures are from the prior (--from-prior): the observations are not folded in")
-    doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method)
+    doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method, executor=executor)
     unit = output_unit(output)
     notes += doc.pop("notes", [])
     doc = {"output": output, "samples": int(len(y)), "seed": seed, "from": "prior" if posterior is None else

@@ -7,6 +7,7 @@ import click
 from uncertainty.analyses.propagate import propagate
 from uncertainty.app.commands.common import PROPAGATE_BYTES, Count, handle_errors, show_result, study_options
 from uncertainty.core.errors import QualityGateError
+from uncertainty.core.parallel import make_executor
 from uncertainty.study import load_study
 
 
@@ -21,16 +22,28 @@ from uncertainty.study import load_study
                    "95%-interval ends of the first output is below TOL (its unit); exit 3 if --max-samples "
                    "comes first.")
 @click.option("--max-samples", type=Count(PROPAGATE_BYTES), default=None, help="Upper limit for --tol doubling.")
+@click.option("--workers", type=int, default=None,
+              help="Draw and evaluate the replicates in chunks on a local dask cluster of N processes.")
+@click.option("--scheduler", default=None,
+              help="Draw and evaluate the replicates in chunks on a running dask scheduler at ADDRESS.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool,
             samples: int | None, method: str | None, outputs: tuple[str, ...], tol: float | None,
-            max_samples: int | None) -> None:
+            max_samples: int | None, workers: int | None, scheduler: str | None) -> None:
     """Distribution of Jv (and net pressure, forces, solved quantities) for the study's
-    individual and its typical subject, with Monte Carlo errors and P(absorption)."""
+    individual and its typical subject, with Monte Carlo errors and P(absorption).
+
+    With --workers or --scheduler the replicates are drawn and evaluated on dask workers, four
+    replicates per task, each from its own stream of the seed: the numbers are those in-process."""
     s = load_study(study)
+    opts = {"samples": samples, "method": method, "seed": seed, "tol": tol, "max_samples": max_samples,
+            "outputs": list(outputs) or None}
     try:
-        result = propagate(s, samples=samples, method=method, seed=seed, tol=tol,
-                           max_samples=max_samples, outputs=list(outputs) or None)
+        if workers is None and scheduler is None:
+            result = propagate(s, **opts)
+        else:
+            with make_executor(workers, scheduler) as ex:
+                result = propagate(s, **opts, executor=ex)
     except QualityGateError as exc:
         if exc.result is not None:
             show_result(exc.result, as_json=as_json, out=out, quiet=quiet)

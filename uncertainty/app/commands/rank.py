@@ -6,6 +6,7 @@ import click
 
 from uncertainty.analyses.rank import rank
 from uncertainty.app.commands.common import RANK_BYTES, Count, handle_errors, show_result, study_options
+from uncertainty.core.parallel import make_executor
 from uncertainty.study import load_study
 
 
@@ -16,12 +17,26 @@ from uncertainty.study import load_study
               help="EVSI estimator: regression on the simulated reading, likelihood reweighting, or auto.")
 @click.option("--from-prior", "from_prior", is_flag=True,
               help="Rank from the prior even when the study has observations (no MCMC).")
+@click.option("--workers", type=int, default=None,
+              help="Each candidate's figures and each joint fit as a task on a local dask cluster of N processes.")
+@click.option("--scheduler", default=None,
+              help="Each candidate's figures and each joint fit as a task on a running dask scheduler at ADDRESS.")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, samples: int | None,
-            method: str, from_prior: bool) -> None:
+            method: str, from_prior: bool, workers: int | None, scheduler: str | None) -> None:
     """Expected posterior variance and 95% interval width of the output after each candidate
     measurement, the perfect-information bound, narrowing per cost, and the best pair / set within
     the budget (fitted jointly). With [[observations]] the figures start from the current posterior
-    (thinned MCMC draws; exit 3 if the chains fail the gate) unless --from-prior is given."""
-    result = rank(load_study(study), seed=seed, samples=samples, method=method, from_prior=from_prior)
+    (thinned MCMC draws; exit 3 if the chains fail the gate) unless --from-prior is given.
+
+    With --workers or --scheduler the candidates (their simulated readings and the preposterior
+    loop over them) and the joint fits run on dask workers, each candidate with its own stream of
+    the seed: the numbers are those in-process."""
+    s = load_study(study)
+    opts = {"seed": seed, "samples": samples, "method": method, "from_prior": from_prior}
+    if workers is None and scheduler is None:
+        result = rank(s, **opts)
+    else:
+        with make_executor(workers, scheduler) as ex:
+            result = rank(s, **opts, executor=ex)
     show_result(result, as_json=as_json, out=out, quiet=quiet)
