@@ -384,10 +384,26 @@ def equal_times(times: np.ndarray, K: int) -> list[int]:
     return sorted(out)
 
 
+class _BestTimes:
+    """Task function of the schedule search: the best reading times for one trial protocol (picklable).
+
+    A task is (trial pressures, the current reading indices the exchange also starts from); the
+    result is that of :meth:`Problem.best_times` (deterministic: no random stream is used).
+    """
+
+    def __init__(self, prob: Problem) -> None:
+        self.prob = prob
+
+    def __call__(self, task: tuple[list[float], list[int]], ss: Any = None) -> tuple[list[int], float]:
+        pressures, start = task
+        prob = self.prob
+        return select_times(prob.info(pressures), prob.K, prob.prior_prec, prob.crit, start=start)
+
+
 def optimise(prob: Problem, start_pressures: Sequence[float], start_times: Sequence[int],
              max_passes: int = 10, pair_moves: bool = True,
-             feasible: Callable[[Sequence[float], Sequence[int]], bool] | None = None
-             ) -> tuple[list[float], list[int], float]:
+             feasible: Callable[[Sequence[float], Sequence[int]], bool] | None = None,
+             executor: Any = None) -> tuple[list[float], list[int], float]:
     """Coordinate exchange over the cuff pressures (times re-optimised per trial), from a start schedule.
 
     Single-step moves first; when none improves and ``pair_moves``, moves of two adjacent steps at once
@@ -395,32 +411,82 @@ def optimise(prob: Problem, start_pressures: Sequence[float], start_times: Seque
     (pressures, reading indices) -> bool, when given, must hold for every accepted schedule (e.g. no
     target worse than a comparison); the start is taken as it is when its re-optimised times fail it.
     Returns (pressures, reading indices, criterion); never worse than the start.
+
+    With an ``executor`` (:mod:`uncertainty.core.parallel`) the next ``executor.workers`` trial
+    protocols (the moves from the current schedule, in the search's order) are evaluated at once, as
+    tasks; the moves are then accepted in that order and, once one is accepted, the rest of the batch
+    is dropped and the search goes on from the new schedule. The search is therefore the same move by
+    move as one after another, and so is the result; only the dropped trials are extra work.
+
+    Parameters
+    ----------
+    prob : Problem
+        The search (its ``evaluations`` counts the criterion evaluations the search used).
+    start_pressures : sequence of float
+        Cuff pressure of each step at the start, mmHg.
+    start_times : sequence of int
+        Reading indices on the time grid at the start.
+    max_passes : int
+        Most passes over the moves.
+    pair_moves : bool
+        Also moves of two adjacent steps.
+    feasible : callable or None
+        Condition every accepted schedule meets.
+    executor : InProcess or DaskExecutor or None
+        Where the trial protocols are evaluated (here, one at a time, when None).
+
+    Returns
+    -------
+    tuple
+        (pressures mmHg, reading indices, criterion value).
     """
     pressures = [float(p) for p in start_pressures]
     times, best = prob.best_times(pressures, start_times)  # the exchange from start_times never loses
     if feasible is not None and not feasible(pressures, times):
         times, best = sorted(int(i) for i in start_times), prob.value(pressures, start_times)
+    task_fn = _BestTimes(prob)
+    batch = max(1, int(getattr(executor, "workers", 1) or 1))
 
-    def moves(order: int):
+    def positions(order: int) -> list[tuple[tuple[int, ...], tuple[float, ...]]]:
         # single steps, or two adjacent steps (enough to pass the increasing constraint's local optima)
-        for steps in ([(k,) for k in range(prob.steps)] if order == 1
-                      else [(k, k + 1) for k in range(prob.steps - 1)]):
-            for vals in itertools.product(prob.pressure_grid, repeat=order):
-                if any(float(v) == pressures[s] for s, v in zip(steps, vals, strict=True)):
-                    continue
-                trial = list(pressures)
-                for s, v in zip(steps, vals, strict=True):
-                    trial[s] = float(v)
-                if prob.allowed(trial):
-                    yield trial
+        return [(steps, vals) for steps in ([(k,) for k in range(prob.steps)] if order == 1
+                                            else [(k, k + 1) for k in range(prob.steps - 1)])
+                for vals in itertools.product(prob.pressure_grid, repeat=order)]
+
+    def trial_at(steps: tuple[int, ...], vals: tuple[float, ...]) -> list[float] | None:
+        if any(float(v) == pressures[s] for s, v in zip(steps, vals, strict=True)):
+            return None
+        trial = list(pressures)
+        for s, v in zip(steps, vals, strict=True):
+            trial[s] = float(v)
+        return trial if prob.allowed(trial) else None
+
+    def evaluate(trials: list[list[float]]) -> list[tuple[list[int], float]]:
+        tasks = [(t, list(times)) for t in trials]
+        if executor is None:
+            return [task_fn(t) for t in tasks]
+        return executor.map(task_fn, tasks, seed=0, label="schedule candidates")
 
     for _ in range(max_passes):
         improved = False
         for order in (1, 2) if pair_moves and prob.steps > 1 else (1,):
-            for trial in moves(order):
-                t_idx, v = prob.best_times(trial, times)
-                if v < best - 1e-12 * max(1.0, abs(best)) and (feasible is None or feasible(trial, t_idx)):
-                    pressures, times, best, improved = trial, t_idx, v, True
+            moves = positions(order)
+            i = 0
+            while i < len(moves):
+                chunk: list[tuple[int, list[float]]] = []  # (position, trial) of the next few moves
+                j = i
+                while j < len(moves) and len(chunk) < batch:
+                    trial = trial_at(*moves[j])
+                    if trial is not None:
+                        chunk.append((j, trial))
+                    j += 1
+                i = j
+                for (at, trial), (t_idx, v) in zip(chunk, evaluate([t for _, t in chunk]), strict=True):
+                    prob.evaluations += 1
+                    if v < best - 1e-12 * max(1.0, abs(best)) and (feasible is None or feasible(trial, t_idx)):
+                        pressures, times, best, improved = trial, t_idx, v, True
+                        i = at + 1  # the later moves of the batch were from the old schedule: redo them
+                        break
             if improved:
                 break  # back to single moves from the new protocol
         if not improved:
@@ -543,7 +609,7 @@ def group_comparison(model: CuffModel, posterior_sd: dict[str, float], alpha: fl
     return out
 
 
-def schedule(study: Any, seed: int | None = None) -> ScheduleResult:
+def schedule(study: Any, seed: int | None = None, executor: Any = None) -> ScheduleResult:
     """Optimise the venous-cuff schedule of a study (``[schedule]`` section; defaults when absent).
 
     Returns a :class:`ScheduleResult` whose JSON holds ``optimised`` (the searched schedule; ``status``
@@ -552,7 +618,9 @@ def schedule(study: Any, seed: int | None = None) -> ScheduleResult:
     (``pressures`` mmHg per step, reading ``times`` min, ``criterion``, ``posterior_sd`` of Kf in
     mL/min/mmHg/100g and Pvi in mmHg, ``posterior_sd_log`` of Kf), ``prior_sd``, ``sd_ratio``
     (optimised / equal spacing per target; below 1 is a gain), ``parameters`` (prior moments and
-    origins) and the settings. Seeded by ``seed`` (default the study seed).
+    origins) and the settings. Seeded by ``seed`` (default the study seed). ``executor``
+    (:mod:`uncertainty.core.parallel`, default here one after another): the trial protocols of the
+    search are evaluated on it a few at a time (:func:`optimise`); the result does not depend on it.
     """
 
     section = getattr(study, "schedule", None) or ScheduleSection()
@@ -586,7 +654,7 @@ def schedule(study: Any, seed: int | None = None) -> ScheduleResult:
     # one search, from the better (lower criterion) of the comparison and equal spacing when both qualify
     starts = [k for k in rows if k == comparison or feasible(*rows[k])]
     start = min(starts, key=lambda k: summaries[k]["criterion"])
-    opt_p, opt_t, _ = optimise(prob, *rows[start], feasible=feasible)
+    opt_p, opt_t, _ = optimise(prob, *rows[start], feasible=feasible, executor=executor)
     opt = _summary(prob, opt_p, opt_t)
     base = summaries[comparison]
     prior_sd = {}

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any
 
 import click
 
@@ -26,7 +25,8 @@ from uncertainty.study import load_study
                    "if --max-trials comes first.")
 @click.option("--max-trials", type=Count(TRIAL_BYTES, "trials"), default=None,
               help=f"Upper limit on the trials per point for --tol doubling (default {MAX_TRIALS}).")
-@click.option("--workers", type=int, default=None, help="Run design points on a local dask cluster of N processes.")
+@click.option("--workers", type=int, default=None,
+              help="Run design points (or, with --schedule, trial protocols) on a local dask cluster of N processes.")
 @click.option("--scheduler", default=None, help="Join a running dask scheduler at ADDRESS.")
 @click.option("--checkpoint", type=click.Path(file_okay=False), default=None,
               help="Folder for finished design points (an interrupted run resumes).")
@@ -54,7 +54,12 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
       fluidshift design studies/heart_failure_trial.toml --tol 0.005 --out plan/
       fluidshift design studies/heart_failure_trial.toml --protocol"""
     if cuff_schedule:
-        _schedule(load_study(study), seed, as_json, out, quiet)
+        s = load_study(study)
+        if workers is None and scheduler is None:
+            show_result(schedule(s, seed=seed), as_json=as_json, out=out, quiet=quiet)
+        else:  # the search's trial protocols as tasks (the same schedule as in-process)
+            with make_executor(workers, scheduler) as ex:
+                show_result(schedule(s, seed=seed, executor=ex), as_json=as_json, out=out, quiet=quiet)
         return
     if trials is not None and not MIN_TRIALS <= trials <= MAX_TRIALS:
         raise InputError(f"simulated trials per point must lie between {MIN_TRIALS} and {MAX_TRIALS} "
@@ -82,6 +87,3 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
         return
     show_result(result, as_json=as_json, out=out, quiet=quiet)
 
-
-def _schedule(study: Any, seed: int | None, as_json: bool, out: str | None, quiet: bool) -> None:
-    show_result(schedule(study, seed=seed), as_json=as_json, out=out, quiet=quiet)
