@@ -13,6 +13,7 @@ from click.testing import CliRunner
 
 from uncertainty.analyses.sensitivity import sensitivity
 from uncertainty.app.cli import main
+from uncertainty.core.errors import QualityGateError
 from uncertainty.core.parallel import ChunkedModel, InProcess, make_executor, task_seeds
 from uncertainty.core.resources import studies_dir
 from uncertainty.core.serialise import to_json
@@ -178,3 +179,93 @@ def test_a_failing_study_keeps_the_others_and_sets_the_exit_status(fakes, tmp_pa
     assert res.exit_code == 3 and "b.toml" in res.stderr
     assert (tmp_path / "many" / "a" / "report.html").is_file()
     assert (tmp_path / "many" / "b" / "report.html").is_file()
+
+
+# --------------------------------------------------------------------------------------------
+# propagate, rank and schedule: their tasks carry no state from one to the next
+# --------------------------------------------------------------------------------------------
+
+class _Backwards(InProcess):
+    """A stand-in for a cluster of ``workers``: runs the tasks last first (as workers may finish them),
+    every task on a copy of the task function and of the task pickled as dask sends them (cloudpickle),
+    results in task order."""
+
+    def __init__(self, workers: int = 3) -> None:
+        super().__init__()
+        self.workers = workers
+
+    def map(self, fn, tasks, *, seed, label="tasks"):
+        import cloudpickle
+
+        tasks = list(tasks)
+        seeds = task_seeds(seed, len(tasks))
+        out = {i: cloudpickle.loads(cloudpickle.dumps(fn))(*cloudpickle.loads(cloudpickle.dumps((tasks[i], seeds[i]))))
+               for i in reversed(range(len(tasks)))}
+        return [out[i] for i in range(len(tasks))]
+
+
+@pytest.mark.parametrize("method", ["qmc", "mc", "lhs"])
+def test_replicate_stream_continues_where_the_earlier_takes_stopped(method) -> None:
+    from scipy.stats import qmc
+
+    from uncertainty.analyses.propagate import replicate_points
+    from uncertainty.analyses.sampling import open_cube
+
+    ss = task_seeds(4, 3)[2]
+    parts = [replicate_points(3, method, ss, before, m) for before, m in (((), 8), ((8,), 8), ((8, 8), 16))]
+    rng = np.random.default_rng(ss)
+    if method == "qmc":  # one scrambled Sobol' sequence of 32 points (scipy), split 8 + 8 + 16
+        whole = [qmc.Sobol(3, scramble=True, rng=rng).random(32)]
+    elif method == "mc":
+        whole = [rng.random((32, 3))]
+    else:  # a fresh Latin hypercube per take, from the one stream
+        whole = [qmc.LatinHypercube(3, rng=rng).random(m) for m in (8, 8, 16)]
+    assert np.array_equal(np.vstack(parts), open_cube(np.vstack(whole)))
+
+
+def test_propagate_gives_the_same_numbers_whatever_order_its_chunks_run_in() -> None:
+    from uncertainty.analyses.propagate import propagate
+
+    study = load_study(DEMO)
+    kw = {"samples": 2048, "seed": 5, "tol": 1e-9, "max_samples": 4096}  # one doubling, then the gate stops it
+    docs = []
+    for ex in (None, _Backwards()):
+        with pytest.raises(QualityGateError) as exc:
+            propagate(study, executor=ex, **kw)
+        docs.append(to_json(exc.value.result.to_dict()))
+    assert docs[0] == docs[1]
+
+
+def test_rank_gives_the_same_numbers_whatever_order_its_candidates_run_in() -> None:
+    from uncertainty.analyses.rank import Reading, rank_draws
+
+    rng = np.random.default_rng(0)
+    th = rng.standard_normal((600, 3))
+    vals, y = {"a": th[:, 0], "b": th[:, 1], "c": th[:, 2]}, th @ np.array([2.0, 1.0, 0.5])
+    cands = [Reading("A", "a", sd=1.0), Reading("B", "b", sd=0.2), Reading("C", "c", sd=3.0)]  # C: importance
+    ref = rank_draws(vals, y, cands, seed=1)
+    assert to_json(rank_draws(vals, y, cands, seed=1, executor=_Backwards())) == to_json(ref)
+    # a candidate's figures depend on its own stream only, not on the candidates before it
+    alone = rank_draws(vals, y, cands[:1], seed=1)["candidates"][0]
+    assert alone == next(r for r in ref["candidates"] if r["name"] == "A")
+
+
+def test_schedule_search_in_batches_takes_the_moves_of_the_sequential_search() -> None:
+    import tomllib
+
+    from uncertainty.analyses import schedule as sch
+    from uncertainty.study import ScheduleSection, Study
+
+    forearm = studies_dir() / "forearm_volunteers.toml"
+    model = sch.cuff_model(Study.from_dict(tomllib.loads(forearm.read_text(encoding="utf-8")), path=forearm),
+                           ScheduleSection(linearisation_draws=2, step_min=2.0), seed=3)
+    idx = tuple(model.names.index(sch.TARGETS[t]) for t in ("Kf", "Pvi"))
+    results = []
+    for ex in (None, _Backwards(workers=3), _Backwards(workers=7)):
+        prob = sch.Problem(model, (10.0, 20.0, 35.0, 50.0, 60.0), 3, 0.5 * np.arange(1, 13), 3, 0.01,
+                           sch.Criterion("A", idx, model.prior_cov))
+        start = [10.0, 10.0, 10.0]
+        res = sch.optimise(prob, start, sch.equal_times(prob.times, 3), executor=ex)
+        results.append((res, prob.evaluations))
+    assert results[0][0][0] != start  # the search moved (moves were accepted part-way through batches)
+    assert results[1] == results[0] and results[2] == results[0]

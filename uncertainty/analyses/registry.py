@@ -47,12 +47,12 @@ def _has_observations(study: Any) -> bool:
     return bool(getattr(study, "observations", None))
 
 
-def _run_propagate(study: Any, seed: int | None) -> Result:
-    return propagate_.propagate(study, seed=seed)
+def _run_propagate(study: Any, seed: int | None, executor: Any = None) -> Result:
+    return propagate_.propagate(study, seed=seed, executor=executor)
 
 
-def _run_sensitivity(study: Any, seed: int | None) -> Result:
-    return sensitivity_.sensitivity(study, seed=seed)
+def _run_sensitivity(study: Any, seed: int | None, executor: Any = None) -> Result:
+    return sensitivity_.sensitivity(study, seed=seed, executor=executor)
 
 
 #: the last posterior computed for a study in this session (study -> InferenceResult), read by scenarios
@@ -89,17 +89,21 @@ def _run_scenarios(study: Any, seed: int | None) -> Result:
     return scenarios_.scenarios(study, seed=seed, posterior=posterior)
 
 
-def _run_rank(study: Any, seed: int | None) -> Result:
-    return rank_.rank(study, seed=seed)
+def _run_rank(study: Any, seed: int | None, executor: Any = None) -> Result:
+    return rank_.rank(study, seed=seed, executor=executor)
 
 
-def _run_design(study: Any, seed: int | None) -> Result:
-    return design_.design(study, seed=seed)
+def _run_design(study: Any, seed: int | None, executor: Any = None) -> Result:
+    return design_.design(study, seed=seed, executor=executor)
 
 
-def _run_schedule(study: Any, seed: int | None) -> Result:
-    return schedule_.schedule(study, seed=seed)
+def _run_schedule(study: Any, seed: int | None, executor: Any = None) -> Result:
+    return schedule_.schedule(study, seed=seed, executor=executor)
 
+
+#: the analyses whose ``run`` also takes ``executor=`` (:mod:`uncertainty.core.parallel`): their
+#: independent tasks go through it, with the same numbers on any executor
+USES_EXECUTOR = frozenset({"propagate", "sensitivity", "rank", "design", "schedule"})
 
 #: the analyses in the order a whole-study run computes them
 ANALYSES: tuple[Analysis, ...] = (

@@ -321,7 +321,7 @@ def _close_figures() -> None:
         sys.modules["matplotlib.pyplot"].close("all")
 
 
-def _run_section(name: str, study: Any, seed: int | None, key: str, bundle: Bundle
+def _run_section(name: str, study: Any, seed: int | None, key: str, bundle: Bundle, executor: Any = None
                  ) -> tuple[dict[str, Any], InputError | None]:
     started, t0 = _now(), time.perf_counter()
     status, message, result = "done", None, None
@@ -333,7 +333,10 @@ def _run_section(name: str, study: Any, seed: int | None, key: str, bundle: Bund
                 "seconds": time.perf_counter() - t0, "reused": False, "result": doc, "files": [],
                 "message": None, "warnings": []}, None
     try:
-        result = ANALYSES[name](study, seed)
+        if executor is not None and name in registry.USES_EXECUTOR:
+            result = ANALYSES[name](study, seed, executor=executor)  # type: ignore[call-arg]
+        else:
+            result = ANALYSES[name](study, seed)
     except QualityGateError as exc:
         status, message, result = "gate_failed", str(exc), exc.result
     except InputError as exc:  # bad input found late: recorded, the other sections still run, exit 2 at the end
@@ -401,12 +404,15 @@ def _gate(sections: dict[str, Any]) -> dict[str, Any]:
 
 
 def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool = False, progress: bool = True,
-        seed: int | None = None) -> RunResult:
+        seed: int | None = None, executor: Any = None) -> RunResult:
     """Run every analysis section of the study at ``study_path`` and write the bundle to ``out_dir``.
 
     ``seed`` overrides the study's seed. Sections whose inputs are unchanged since the last run into
     the same folder are reused unless ``force``. ``progress`` shows one spinner line per section on
-    stderr. Returns a :class:`RunResult`.
+    stderr. ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): the sections that
+    split their work into independent tasks (:data:`uncertainty.analyses.registry.USES_EXECUTOR`)
+    send them there; the numbers, and so the reuse of unchanged sections, do not depend on it.
+    Returns a :class:`RunResult`.
 
     Raises StudyError/InputError (exit 2) on bad input: before any file is written when the study
     file is invalid or any check `fluidshift check` runs refuses it (the section rules and the inference
@@ -439,7 +445,7 @@ def run(study_path: str | os.PathLike, out_dir: str | os.PathLike, force: bool =
                 task = bar.start(name)
                 rec = _reusable(prev, name, key, bundle)
                 if rec is None:
-                    rec, bad = _run_section(name, study, seed, key, bundle)
+                    rec, bad = _run_section(name, study, seed, key, bundle, executor)
                     input_errors += [bad] if bad is not None else []
                 doc["sections"][name] = rec
                 doc["quality_gate"] = _gate(doc["sections"])

@@ -102,7 +102,11 @@ def replicate_points(k: int, method: str, seed: np.random.SeedSequence, before: 
                          key="propagate.method", value=method)
     if k == 0:
         return np.empty((m, 0))
-    rng = np.random.default_rng(seed)
+    # a fresh copy of the seed: scipy's QMC engines spawn their streams from the generator's seed
+    # sequence (child 0 for the Sobol' scramble, child j for the j-th Latin hypercube), which must not
+    # depend on what was drawn from this seed object before
+    rng = np.random.default_rng(np.random.SeedSequence(seed.entropy, spawn_key=seed.spawn_key,
+                                                       pool_size=seed.pool_size))
     if method == "qmc":
         sobol = qmc.Sobol(k, scramble=True, rng=rng)
         skip = int(sum(before))

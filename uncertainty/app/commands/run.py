@@ -30,11 +30,17 @@ def print_summary(result: object, quiet: bool) -> None:
     Console(highlight=False).print(Panel("\n".join(lines), title="fluidshift run", expand=False))
 
 
-def execute(study: str, out: str, *, seed: int | None, as_json: bool, quiet: bool, force: bool) -> None:
-    """Call uncertainty.app.run.run and print its summary or JSON (also when a gate failed)."""
+def execute(study: str, out: str, *, seed: int | None, as_json: bool, quiet: bool, force: bool,
+            workers: int | None = None, scheduler: str | None = None) -> None:
+    """Call uncertainty.app.run.run and print its summary or JSON (also when a gate failed); with
+    ``workers`` or ``scheduler`` the sections send their tasks to a dask cluster."""
 
     try:
-        result = run(study, out, force=force, progress=not (quiet or as_json), seed=seed)
+        if workers is None and scheduler is None:
+            result = run(study, out, force=force, progress=not (quiet or as_json), seed=seed)
+        else:
+            with make_executor(workers, scheduler) as ex:
+                result = run(study, out, force=force, progress=not (quiet or as_json), seed=seed, executor=ex)
     except FluidshiftError as exc:
         partial = getattr(exc, "result", None)
         if partial is not None and hasattr(partial, "to_dict"):
@@ -79,9 +85,11 @@ def _print_many(results: list, as_json: bool, quiet: bool) -> None:
 @studies_options
 @click.option("--force", is_flag=True, help="Recompute every section, and write into a folder that is not a bundle.")
 @click.option("--workers", type=int, default=None,
-              help="Run the studies (one per task) on a local dask cluster of N processes.")
+              help="On a local dask cluster of N processes: several studies one per task; one study, "
+                   "its sections' tasks.")
 @click.option("--scheduler", default=None,
-              help="Run the studies (one per task) on a running dask scheduler at ADDRESS.")
+              help="On a running dask scheduler at ADDRESS: several studies one per task; one study, "
+                   "its sections' tasks.")
 @handle_errors
 def command(studies: tuple[str, ...], seed: int | None, as_json: bool, out: str | None, quiet: bool, force: bool,
             workers: int | None, scheduler: str | None) -> None:
@@ -92,6 +100,10 @@ def command(studies: tuple[str, ...], seed: int | None, as_json: bool, out: str 
     results.json, tables/*.csv, figures/*.png and *.svg, posterior.nc when inference ran, and a
     self-contained report.html. Re-running the same study into the same folder reuses sections
     whose inputs and seed are unchanged; --force recomputes them.
+
+    One study with --workers or --scheduler: its sections run here and send their independent
+    tasks (propagate's replicate chunks, sensitivity's model runs, rank's candidates, design points,
+    schedule trials) to dask workers, with the in-process numbers.
 
     Several study files run one study per task, in-process or on dask workers (--workers,
     --scheduler; the study files and bundles must be on a file system every worker sees); each
@@ -106,19 +118,17 @@ def command(studies: tuple[str, ...], seed: int | None, as_json: bool, out: str 
       fluidshift run my-study.toml --out results --seed 7 --force
       fluidshift run a.toml b.toml c.toml --out results --workers 2
     """
-    if len(studies) == 1 and workers is None and scheduler is None:
+    if len(studies) == 1:  # one study: its sections here, their tasks on the cluster when one is given
         study = studies[0]
         out = out or f"{Path(study).stem}-results"
-        execute(study, out, seed=seed, as_json=as_json, quiet=quiet, force=force)
+        execute(study, out, seed=seed, as_json=as_json, quiet=quiet, force=force, workers=workers,
+                scheduler=scheduler)
         return
-    if len(studies) == 1:  # one study on a cluster: --out is still its bundle
-        outs = [out or f"{Path(studies[0]).stem}-results"]
-    else:
-        stems = [Path(s).stem for s in studies]
-        clash = sorted({s for s in stems if stems.count(s) > 1})
-        if clash:
-            raise InputError("two study files have the same name; their bundles would collide", key="STUDY",
-                             value=clash[0])
-        outs = [str(Path(out) / s) if out else f"{s}-results" for s in stems]
+    stems = [Path(s).stem for s in studies]
+    clash = sorted({s for s in stems if stems.count(s) > 1})
+    if clash:
+        raise InputError("two study files have the same name; their bundles would collide", key="STUDY",
+                         value=clash[0])
+    outs = [str(Path(out) / s) if out else f"{s}-results" for s in stems]
     execute_many(list(studies), outs, seed=seed, as_json=as_json, quiet=quiet, force=force, workers=workers,
                  scheduler=scheduler)
