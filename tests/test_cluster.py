@@ -164,3 +164,40 @@ def test_run_over_two_studies_on_the_cluster_gives_the_one_by_one_numbers(schedu
         assert {n: r["result"] for n, r in doc["sections"].items()} == \
             {n: r["result"] for n, r in alone["sections"].items()}
         assert (out / path.stem / "report.html").is_file()
+
+
+def test_propagate_on_the_cluster_gives_the_in_process_numbers(scheduler: str, study: Path) -> None:
+    args = ["propagate", str(study), "--tol", "1e-9", "--max-samples", "8192"]  # 4096 -> 8192: one doubling
+    ref = CliRunner().invoke(main, [*args, "--json"])
+    assert ref.exit_code == 3, ref.output  # the gate stops the doubling; the numbers are still printed
+    box: dict = {}
+    worker = threading.Thread(target=lambda: box.update(res=CliRunner().invoke(
+        main, [*args, "--scheduler", scheduler, "--json"])), daemon=True)
+    worker.start()
+    worker.join(LIMIT)
+    assert not worker.is_alive(), f"propagate on the cluster did not finish within {LIMIT:.0f} s"
+    got = box["res"]
+    assert got.exit_code == 3, got.output
+    assert json.loads(got.stdout) == json.loads(ref.stdout) and json.loads(ref.stdout)["samples"] == 8192
+
+
+def test_rank_on_the_cluster_gives_the_in_process_numbers(scheduler: str, tmp_path: Path) -> None:
+    p = tmp_path / "rank.toml"  # two candidates (each a task), their pair a joint-fit task
+    p.write_text(STUDY.format(seed=7).split("[sensitivity]")[0] + """
+[rank]
+candidates = [
+  { name = "invented Pc reading", parameter = "Pc", sd = 1.5, cost = 1 },
+  { name = "invented Kf reading", parameter = "Kf", cv = 0.3, cost = 1 },
+]
+""")
+    ref = _in_process_json(["rank", str(p)])
+    got = _cluster_json(["rank", str(p), "--scheduler", scheduler])
+    assert got == ref and len(ref["candidates"]) == 2 and ref["best_pair"] is not None
+
+
+def test_run_of_one_study_sends_its_sections_tasks_to_the_cluster(scheduler: str, tmp_path: Path) -> None:
+    p = tmp_path / "study.toml"
+    p.write_text(STUDY.format(seed=9).split("[sensitivity]")[0])  # propagate only: its replicate chunks
+    doc = _cluster_json(["run", str(p), "--out", str(tmp_path / "cluster"), "--scheduler", scheduler])
+    alone = run(p, tmp_path / "alone", progress=False).doc
+    assert doc["sections"]["propagate"]["result"] == alone["sections"]["propagate"]["result"]
