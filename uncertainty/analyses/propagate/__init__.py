@@ -543,7 +543,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     add_thresholds(result)
     flag_implausible_flux(result, getattr(study, "tissue_mass_kg", None), form)
     if getattr(study, "timeline", None) is not None:  # whole_body form: time courses after the interventions
-        result.timeline = whole_body_timeline(study, seed)
+        result.timeline = whole_body_timeline(study, seed, executor=executor)
     if not has_bs:
         result.notes.append("no between-subject spread declared: the individual equals the typical "
                             "subject")

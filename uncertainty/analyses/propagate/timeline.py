@@ -87,7 +87,19 @@ def run_layer(study: Any, layer: str, n: int, seed: Any) -> dict[str, Any]:
     return simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every)
 
 
-def timeline(study: Any, seed: Any = None, draws: int | None = None) -> dict[str, Any]:
+class _Layer:
+    """Task function of the time courses: one layer's draws simulated (picklable; the executor's seed is
+    not used, the draws come from the study seed)."""
+
+    def __init__(self, study: Any, n: int, seed: Any) -> None:
+        self.study, self.n, self.seed = study, n, seed
+
+    def __call__(self, layer: str, ss: Any = None) -> dict[str, Any]:
+        sim = run_layer(self.study, layer, self.n, self.seed)
+        return {"times_min": list(sim["times_min"]), "summary": {name: _summary(sim[name]) for name in TIMELINE_UNITS}}
+
+
+def timeline(study: Any, seed: Any = None, draws: int | None = None, executor: Any = None) -> dict[str, Any]:
     """The ``timeline`` entry of propagate's result for a ``whole_body`` study.
 
     Parameters
@@ -98,6 +110,9 @@ def timeline(study: Any, seed: Any = None, draws: int | None = None) -> dict[str
         Defaults to the study's seed.
     draws : int, optional
         Draws per layer (default: ``[timeline] draws``).
+    executor : InProcess or DaskExecutor, optional
+        Where the two layers are simulated, one task each (:mod:`uncertainty.core.parallel`; here,
+        one after the other, when None); the numbers do not depend on it.
 
     Returns
     -------
@@ -113,8 +128,11 @@ def timeline(study: Any, seed: Any = None, draws: int | None = None) -> dict[str
                                               "duration_min": d.duration, "protein_g_per_dL": d.protein}
                                              for d in plan.doses],
                            "body_mass_kg": plan.body_mass_kg}
-    for layer in ("typical", "individual"):
-        sim = run_layer(study, layer, n, seed)
-        out["times_min"] = list(sim["times_min"])
-        out[layer] = {name: _summary(sim[name]) for name in TIMELINE_UNITS}
+    layers = ("typical", "individual")
+    task = _Layer(study, n, seed)
+    done = [task(layer) for layer in layers] if executor is None else \
+        executor.map(task, list(layers), seed=0, label="time courses")
+    for layer, got in zip(layers, done, strict=True):
+        out["times_min"] = got["times_min"]
+        out[layer] = got["summary"]
     return out
