@@ -8,11 +8,11 @@
     the in-process executor against propagate called directly. Target: below 5 %. (Propagate itself
     now runs its replicate chunks through the in-process executor; the overhead of that split is in
     both times.)
-[4] Propagate (classic six-quantity study, 2^21 draws) in chunks of four replicates: time on 1 worker /
-    time on 2 workers (no target in the issue; the draws come back to this process, so the transfer and
-    the pooled summaries, done here, bound the gain).
-[5] Propagate of the time-course form (studies/ringer_infusion_volunteer.toml, whole_body: replicate
-    chunks and the two layers of the time courses as tasks): 1 worker / 2 workers.
+[4] Propagate (classic six-quantity study, 2^21 draws) in chunks of replicates (one replicate, 131072
+    draws, a task): time on 1 worker / time on 2 workers (no target in the issue; the draws come back
+    to this process, so the transfer and the pooled summaries, done here, bound the gain).
+[5] Propagate of the time-course form (studies/ringer_infusion_volunteer.toml, whole_body; its 2048
+    steady-state draws are one task, the two layers of the time courses two more): 1 worker / 2 workers.
 [6] Sensitivity of the time-course form (the same study, Shapley: its inputs are correlated, so
     Sobol' is refused; 1024 outer draws, model runs in row chunks): 1 worker / 2 workers. Target: at
     least 1.7x.

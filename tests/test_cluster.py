@@ -167,7 +167,9 @@ def test_run_over_two_studies_on_the_cluster_gives_the_one_by_one_numbers(schedu
 
 
 def test_propagate_on_the_cluster_gives_the_in_process_numbers(scheduler: str, study: Path) -> None:
-    args = ["propagate", str(study), "--tol", "1e-9", "--max-samples", "8192"]  # 4096 -> 8192: one doubling
+    # 2^17 -> 2^18 draws (one doubling): 8192 a replicate, so each take is four tasks of four replicates
+    args = ["propagate", str(study), "--output", "Jv", "--samples", "131072", "--tol", "1e-9",
+            "--max-samples", "262144"]
     ref = CliRunner().invoke(main, [*args, "--json"])
     assert ref.exit_code == 3, ref.output  # the gate stops the doubling; the numbers are still printed
     box: dict = {}
@@ -178,7 +180,7 @@ def test_propagate_on_the_cluster_gives_the_in_process_numbers(scheduler: str, s
     assert not worker.is_alive(), f"propagate on the cluster did not finish within {LIMIT:.0f} s"
     got = box["res"]
     assert got.exit_code == 3, got.output
-    assert json.loads(got.stdout) == json.loads(ref.stdout) and json.loads(ref.stdout)["samples"] == 8192
+    assert json.loads(got.stdout) == json.loads(ref.stdout) and json.loads(ref.stdout)["samples"] == 262144
 
 
 def test_rank_on_the_cluster_gives_the_in_process_numbers(scheduler: str, tmp_path: Path) -> None:

@@ -223,9 +223,19 @@ def test_replicate_stream_continues_where_the_earlier_takes_stopped(method) -> N
     assert np.array_equal(np.vstack(parts), open_cube(np.vstack(whole)))
 
 
-def test_propagate_gives_the_same_numbers_whatever_order_its_chunks_run_in() -> None:
+def test_propagate_chunks_depend_on_the_sample_size_only() -> None:
+    from uncertainty.analyses.propagate import TASK_ROWS, replicate_chunks
+
+    assert replicate_chunks(16, 256) == [range(16)]  # a small sample: one task
+    assert replicate_chunks(16, TASK_ROWS // 4) == [range(i, i + 4) for i in range(0, 16, 4)]
+    assert replicate_chunks(17, TASK_ROWS) == [range(i, i + 1) for i in range(17)]
+
+
+def test_propagate_gives_the_same_numbers_whatever_order_its_chunks_run_in(monkeypatch) -> None:
+    from uncertainty.analyses import propagate as prop
     from uncertainty.analyses.propagate import propagate
 
+    monkeypatch.setattr(prop, "TASK_ROWS", 512)  # 128, then 256 draws a replicate: 4, then 2 replicates a task
     study = load_study(DEMO)
     kw = {"samples": 2048, "seed": 5, "tol": 1e-9, "max_samples": 4096}  # one doubling, then the gate stops it
     docs = []

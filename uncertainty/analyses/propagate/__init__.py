@@ -58,9 +58,30 @@ NOT_LYMPH_RETURNED = ("glomerular",)
 # Replicated cube streams
 # --------------------------------------------------------------------------------------------
 
-#: replicates drawn and evaluated in one task of the executor (fixed: the split never depends on the
-#: number of workers, so the numbers are the same in-process and on any cluster)
-REPLICATES_PER_TASK = 4
+#: fewest points one task of the executor draws and evaluates: a take of m points per replicate goes in
+#: tasks of ceil(TASK_ROWS / m) consecutive replicates (all of them in one task for a small sample, so a
+#: small propagate pays no per-task cost). The split depends only on the sample sizes, never on the
+#: number of workers, so the numbers are the same in-process and on any cluster.
+TASK_ROWS = 2**15
+
+
+def replicate_chunks(replicates: int, m: int) -> list[range]:
+    """Consecutive replicates evaluated together in one task, for a take of ``m`` points each.
+
+    Parameters
+    ----------
+    replicates : int
+        Number of replicates R.
+    m : int
+        Points per replicate in this take.
+
+    Returns
+    -------
+    list of range
+        Replicate indices of each task, in order (the last may be shorter).
+    """
+    per_task = min(replicates, max(1, math.ceil(TASK_ROWS / max(int(m), 1))))
+    return [range(i, min(i + per_task, replicates)) for i in range(0, replicates, per_task)]
 
 
 def replicate_points(k: int, method: str, seed: np.random.SeedSequence, before: Sequence[int], m: int
@@ -165,14 +186,20 @@ class _Take:
         u = np.vstack([replicate_points(self.k, self.method, s, before, m) for s in seeds])
         res = self.sample_layers(u)
         rows = u.shape[0]
-        return {layer: (outs if layer.startswith("_") else
-                        {name: np.broadcast_to(np.asarray(outs[name], dtype=float), (rows,)).copy()
-                         for name in self.outputs})
+        return {layer: (outs if layer.startswith("_") else {name: _rows(outs[name], rows) for name in self.outputs})
                 for layer, outs in res.items()}
+
+
+def _rows(x: Any, n: int) -> np.ndarray:
+    """``x`` as a float array of n rows (a constant output repeated), copied only when it must be."""
+    a = np.asarray(x, dtype=float)
+    return a if a.shape == (n,) else np.broadcast_to(a, (n,)).copy()
 
 
 def _join(parts: Sequence[Any]) -> Any:
     """Chunk results joined in chunk order: dicts key by key, arrays end to end."""
+    if len(parts) == 1:
+        return parts[0]
     if isinstance(parts[0], dict):
         return {key: _join([p[key] for p in parts]) for key in parts[0]}
     return np.concatenate([np.asarray(p) for p in parts])
@@ -319,11 +346,12 @@ def propagate_arrays(
     result) if ``max_samples`` would be exceeded first.
 
     Every take runs through ``executor`` (:mod:`uncertainty.core.parallel`, in-process when None) in
-    tasks of :data:`REPLICATES_PER_TASK` replicates, each drawing its replicates' points from their
-    own seeds (children of ``seed``), so the numbers are the same on any executor and any number of
-    workers. ``sample_layers`` must then be picklable for a cluster and free of side effects: what
-    the caller wants kept besides the outputs it returns under keys starting with ``_`` (arrays, or
-    dicts of arrays, one row per point), and ``on_batch`` receives each take's joined result here.
+    tasks of consecutive replicates (:func:`replicate_chunks`: at least :data:`TASK_ROWS` points a
+    task), each drawing its replicates' points from their own seeds (children of ``seed``), so the
+    numbers are the same on any executor and any number of workers. ``sample_layers`` must then be
+    picklable for a cluster and free of side effects: what the caller wants kept besides the outputs
+    it returns under keys starting with ``_`` (arrays, or dicts of arrays, one row per point), and
+    ``on_batch`` receives each take's joined result here.
     """
     if replicates < 2:
         raise InputError("at least 2 replicates are needed for a Monte Carlo error", key="replicates",
@@ -343,7 +371,6 @@ def propagate_arrays(
         raise InputError(f"max-samples is below the starting sample size {per * replicates}",
                          key="max_samples", value=max_samples)
     seeds = tuple(replicate_seeds(seed, replicates))
-    chunks = [seeds[i:i + REPLICATES_PER_TASK] for i in range(0, replicates, REPLICATES_PER_TASK)]
     task_fn = _Take(sample_layers, k, method, outputs)  # one task function for every take (sent once)
     executor = executor if executor is not None else InProcess()
     before: list[int] = []
@@ -355,7 +382,8 @@ def propagate_arrays(
     total_per = 0
     while True:
         # replicates in chunks (vectorised evaluation within a chunk), joined in replicate order
-        parts = executor.map(task_fn, [(c, tuple(before), take) for c in chunks], seed=0, label="propagate")
+        tasks = [(tuple(seeds[r] for r in c), tuple(before), take) for c in replicate_chunks(replicates, take)]
+        parts = executor.map(task_fn, tasks, seed=0, label="propagate")
         before.append(take)
         res = _join(parts)
         if on_batch is not None:
@@ -462,7 +490,7 @@ def propagate(study: Any, samples: int | None = None, method: str | None = None,
     method; QualityGateError when ``tol`` is not reached within ``max_samples``.
 
     ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): the draws go through it in
-    chunks of :data:`REPLICATES_PER_TASK` replicates, each replicate's stream from its own child of
+    chunks of replicates (:func:`replicate_chunks`), each replicate's stream from its own child of
     the seed, so the numbers are identical in-process and on any number of workers.
     """
     sec = section_settings(study, "propagate")
@@ -571,12 +599,10 @@ class _StudyLayers:
         ind = self.evaluate(study, ind_values) if self.has_bs else typ
         out: dict[str, Any] = {"individual": ind, "typical": typ}
         if self.players is not None:
-            out["_inputs"] = {layer: {s: np.broadcast_to(np.asarray(vals[s], dtype=float), (n,)).copy()
-                                      for s in self.players[layer]}
+            out["_inputs"] = {layer: {s: _rows(vals[s], n) for s in self.players[layer]}
                               for layer, vals in (("individual", ind_values), ("typical", typ_values))}
         if self.note_keys and all(key in ind for key in self.note_keys):
-            out["_notes"] = {key: np.broadcast_to(np.asarray(ind[key], dtype=float), (n,)).copy()
-                             for key in self.note_keys}
+            out["_notes"] = {key: _rows(ind[key], n) for key in self.note_keys}
         return out
 
 

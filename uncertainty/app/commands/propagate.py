@@ -33,8 +33,9 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     """Distribution of Jv (and net pressure, forces, solved quantities) for the study's
     individual and its typical subject, with Monte Carlo errors and P(absorption).
 
-    With --workers or --scheduler the replicates are drawn and evaluated on dask workers, four
-    replicates per task, each from its own stream of the seed: the numbers are those in-process."""
+    With --workers or --scheduler the replicates are drawn and evaluated on dask workers, a few
+    replicates per task (at least 32768 draws a task: a small sample is one task), each from its own
+    stream of the seed: the numbers are those in-process."""
     s = load_study(study)
     opts = {"samples": samples, "method": method, "seed": seed, "tol": tol, "max_samples": max_samples,
             "outputs": list(outputs) or None}
