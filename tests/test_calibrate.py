@@ -164,3 +164,14 @@ def test_calibration_runs_and_is_the_same_on_two_workers(tmp_path: Path) -> None
     assert one.doc["failures"] == two.doc["failures"]
     files = one.plot(str(tmp_path / "out"))
     assert any(f.endswith("rank_histograms.png") for f in files) and all(Path(f).stat().st_size > 0 for f in files)
+
+
+def test_calibrate_section_is_checked(tmp_path: Path) -> None:
+    path = tmp_path / "s.toml"
+    path.write_text(STUDY + "\n[calibrate]\nreplicates = 100\nbins = 7\ndraws = 99\n")
+    result = CliRunner().invoke(main, ["check", str(path)])
+    assert result.exit_code == 2
+    assert "calibrate" in result.stderr and "\n" not in result.stderr.strip()
+    path.write_text(STUDY + "\n[calibrate]\nreplicates = 100\nbins = 5\ndraws = 19\n")
+    section = load_study(path).calibrate
+    assert (section.replicates, section.bins, section.draws) == (100, 5, 19)
