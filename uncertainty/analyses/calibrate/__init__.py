@@ -49,6 +49,7 @@ from uncertainty.analyses.inference.summaries import flat
 from uncertainty.core import units
 from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.core.parallel import InProcess
+from uncertainty.core.provenance import code_hash, package_version
 
 #: default replicates N, bins B and thinned posterior draws L (power: module docstring)
 REPLICATES = 200
@@ -150,6 +151,18 @@ class ReplicateTask:
         state = dict(self.__dict__)
         state["_session"] = None
         return state
+
+    @property
+    def checkpoint_key(self) -> str:
+        """Digest of what a replicate's result depends on beyond its readings and truths (the task): the
+        sampler settings, the gate, L, the quantities ranked, the package version and the hash of its
+        sources, so a checkpoint of other settings or other code is never reused."""
+        import hashlib
+
+        parts = (self.sampler, self.chains, self.draws, self.tune, self.target_accept, self.L,
+                 dataclasses.asdict(self.gate), sorted(self.variables.items()), self.gate_vars,
+                 package_version(), code_hash())
+        return hashlib.sha256(repr(parts).encode()).hexdigest()
 
     def session(self) -> Session:
         """The compiled model of this process (made on first use)."""
