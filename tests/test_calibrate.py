@@ -175,3 +175,11 @@ def test_calibrate_section_is_checked(tmp_path: Path) -> None:
     path.write_text(STUDY + "\n[calibrate]\nreplicates = 100\nbins = 5\ndraws = 19\n")
     section = load_study(path).calibrate
     assert (section.replicates, section.bins, section.draws) == (100, 5, 19)
+
+
+def test_too_few_usable_replicates_give_no_verdict() -> None:
+    outcomes = _conjugate_outcomes(20, 19, 0.3, seed=5)
+    for o in outcomes[:5]:
+        o["passed"] = False
+    q = summarise(outcomes, ["theta"], 19, 4)["quantities"]["theta"]
+    assert not q["flagged"] and "no verdict" in q["verdict"]

@@ -273,7 +273,12 @@ def summarise(outcomes: list[dict[str, Any]], names: list[str], L: int, bins: in
         q = {"ranks": ranks, "counts": counts.tolist(), "chi2": test["chi2"], "df": int(test["df"]),
              "p_value": test["p_value"], "mean_rank": float(np.mean(ranks) / L) if ranks else float("nan"),
              "coverage90": cov, "flagged": flagged}
-        q["verdict"] = _verdict(name, q, alpha)
+        if len(ranks) < MIN_PER_BIN * bins:
+            q["flagged"] = False
+            q["verdict"] = (f"{name}: no verdict, {len(ranks)} usable replicates where the test needs "
+                            f"{MIN_PER_BIN * bins}.")
+        else:
+            q["verdict"] = _verdict(name, q, alpha)
         quantities[name] = q
     return {"quantities": quantities, "alpha_per_test": alpha, "used": len(used),
             "band99": sbc.uniform_band(len(used), bins), "flagged": [n for n, q in quantities.items() if q["flagged"]]}

@@ -6,6 +6,7 @@ import click
 
 from uncertainty.analyses.calibrate import BINS, DRAWS, REPLICATES, calibrate, check_settings
 from uncertainty.app.commands.common import Count, handle_errors, show_result, study_options
+from uncertainty.core.errors import QualityGateError
 from uncertainty.core.parallel import make_executor
 from uncertainty.study import load_study
 
@@ -36,7 +37,8 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     [infer]) and rank each truth among L posterior draws. Per quantity and Jv: a chi-square test
     of the binned ranks, how often the 90 % interval held the truth against Binomial(N, 0.9), a
     verdict, and (with --out) the rank histograms. Replicates that fail the quality gate are
-    counted and left out. Same seed, same ranks on any number of workers."""
+    counted and left out; when too few pass for the test, the summary is printed without a verdict,
+    no files are written and the exit status is 3. Same seed, same ranks on any number of workers."""
     s = load_study(study)
     section = getattr(s, "calibrate", None)
     n = replicates or getattr(section, "replicates", REPLICATES)
@@ -44,5 +46,10 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     L = draws or getattr(section, "draws", DRAWS)
     check_settings(n, b, L)
     with make_executor(workers, scheduler, checkpoint_dir=checkpoint, progress=not (quiet or as_json)) as ex:
-        result = calibrate(s, seed=seed, replicates=n, bins=b, draws=L, executor=ex)
+        try:
+            result = calibrate(s, seed=seed, replicates=n, bins=b, draws=L, executor=ex)
+        except QualityGateError as exc:  # shown (it says there is no verdict), no files written
+            if exc.result is not None:
+                show_result(exc.result, as_json=as_json, out=None, quiet=quiet)
+            raise
     show_result(result, as_json=as_json, out=out, quiet=quiet)
