@@ -175,9 +175,12 @@ class ReplicateTask:
         seed = int(ss.generate_state(1)[0] % (2**31))
         rng = np.random.default_rng(ss.spawn(1)[0])
         out: dict[str, Any] = {"index": rep.index, "passed": False, "reason": "", "ranks": {}, "covered": {}}
+        session = self.session()
+        if set(rep.data) != set(session.terms):  # the same study declares the same observed terms
+            raise RuntimeError(f"simulated terms {sorted(rep.data)} differ from the model's {session.terms}")
         try:
-            run = self.session().fit(data=rep.data, seed=seed, chains=self.chains, draws=self.draws,
-                                     tune=self.tune, target_accept=self.target_accept, summarise_result=False)
+            run = session.fit(data=rep.data, seed=seed, chains=self.chains, draws=self.draws,
+                              tune=self.tune, target_accept=self.target_accept, summarise_result=False)
         except SamplerError as exc:
             out["reason"] = f"sampler failed: {exc}"
             return out
