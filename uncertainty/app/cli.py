@@ -25,6 +25,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "infer": ("infer", "Posterior from the study's observations, with diagnostics."),
     "rank": ("rank", "Which measurement would narrow the Jv interval most."),
     "design": ("design", "Power, assurance and sample size for a trial."),
+    "calibrate": ("calibrate", "Simulation-based calibration of the study's inference model."),
     "run": ("run", "Run every section of a study; results bundle and HTML report."),
     "demo": ("demo", "Run the bundled demo study (invented data) end to end."),
     "validate": ("validate", "Published measurements beside the model's predictions."),

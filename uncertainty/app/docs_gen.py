@@ -82,6 +82,13 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "Venous-cuff measurement schedule: the cuff pressures and K reading times that minimise the expected "
      "posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision), against equal "
      "spacing. Run by `fluidshift design STUDY --schedule`; defaults apply when the section is absent."),
+    ("calibrate", "[calibrate]", "CalibrateSection",
+     "Simulation-based calibration of the study's own inference model (Talts et al. 2018): truths from the "
+     "prior (correlations included), the study's observations simulated from them, a refit per replicate "
+     "(sampler settings and quality gate of `[infer]`; failed refits counted and left out) and the rank of "
+     "each truth among `draws` posterior draws, tested for uniformity (chi-square) with the 90% interval's "
+     "coverage against Binomial(N, 0.9). Run by `fluidshift calibrate STUDY` (not by `run`); its flags "
+     "override these keys; defaults apply when the section is absent."),
     ("scenarios", "[[scenarios]]", "Scenario",
      "What-ifs, one table per scenario: quantities shifted or scaled and conditions added or removed. Each is "
      "evaluated on the same draws as the baseline (the prior draws, and the posterior draws when inference "

@@ -39,6 +39,7 @@ from uncertainty.study.schema import (  # noqa: F401
     TIME_COLUMNS,
     TIME_UNITS,
     TOP_LEVEL,
+    CalibrateSection,
     Candidate,
     ColumnMap,
     CorrelationsSection,

@@ -75,6 +75,7 @@ from uncertainty.study.schema import (
     OBS_SYMBOL,
     SECTIONS,
     TOP_LEVEL,
+    CalibrateSection,
     Candidate,
     CorrelationsSection,
     DesignSection,
@@ -1236,7 +1237,7 @@ class Sections:
 
     Attributes
     ----------
-    propagate, sensitivity, rank, design, schedule, infer : section or None
+    propagate, sensitivity, rank, design, schedule, calibrate, infer : section or None
         The analysis sections (rank and design resolved to canonical units).
     observations : list of Observation, or None
         The observations in canonical units, with their data files.
@@ -1252,6 +1253,7 @@ class Sections:
     infer: InferSection | None
     observations: list[Observation] | None
     kept: Kept
+    calibrate: CalibrateSection | None = None
 
 
 def resolve_sections(inp: StudyInput, form: FormInputs, base: TissueBase, Pi_ref: float | None) -> Sections:
@@ -1316,7 +1318,7 @@ def resolve_sections(inp: StudyInput, form: FormInputs, base: TissueBase, Pi_ref
         design, kept = resolve_design(design, kept, ctx)
     return Sections(propagate=propagate, sensitivity=sensitivity, rank=rank, design=design,
                     schedule=inp.section("schedule", ScheduleSection), infer=infer, observations=observations,
-                    kept=kept)
+                    kept=kept, calibrate=inp.section("calibrate", CalibrateSection))
 
 
 # --------------------------------------------------------------------------------------------

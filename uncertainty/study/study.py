@@ -50,6 +50,7 @@ from uncertainty.study.resolve import (
     validate_document,
 )
 from uncertainty.study.schema import (
+    CalibrateSection,
     DesignSection,
     InferSection,
     InterventionList,
@@ -82,7 +83,7 @@ class Study:
         correlation: normal-score correlation matrix over ``names``.
         correlations: the (a, b, rho) pairs kept.
         notes: what was dropped or set aside, in plain words.
-        propagate, sensitivity, observations, infer, rank, design, schedule: section models or None.
+        propagate, sensitivity, observations, infer, rank, design, schedule, calibrate: section models or None.
         instruments: the instruments the observations and candidates name.
         steady_Cp: the plasma protein input passed to the steady state (pi_i through the protein cubic),
             or None for proportional scaling.
@@ -116,6 +117,7 @@ class Study:
     rank: RankSection | None = None
     design: DesignSection | None = None
     schedule: ScheduleSection | None = None
+    calibrate: CalibrateSection | None = None
     infer: InferSection | None = None
     instruments: dict[str, Instrument] = field(default_factory=dict)
     steady_Cp: str | None = None
@@ -289,7 +291,8 @@ def _study_from(inp: StudyInput) -> Study:
                         *corr.notes, *(plan.notes if plan is not None else ())],
                  propagate=sections.propagate, sensitivity=sections.sensitivity,
                  observations=sections.observations, rank=sections.rank, design=sections.design,
-                 schedule=sections.schedule, infer=sections.infer, instruments=dict(sections.kept.instruments),
+                 schedule=sections.schedule, calibrate=sections.calibrate, infer=sections.infer,
+                 instruments=dict(sections.kept.instruments),
                  steady_Cp=steady_Cp, Pi_ref=Pi_ref, source=inp, scenarios=scenarios or None,
                  timeline=plan)
 
