@@ -12,6 +12,7 @@ shift of the pressure-volume relation (P_imb) acts inside the solve as it does t
 from __future__ import annotations
 
 from collections.abc import Mapping
+from typing import Any
 
 from uncertainty.forms.general import early_pressure, oedema
 from uncertainty.forms.spec import Array, FormContext, FormResult, Starling
@@ -42,8 +43,9 @@ def evaluate(v: Mapping[str, Array], ctx: FormContext, xp: object) -> FormResult
         P_imb), ``Jv_large`` (mL/min/100g), ``sigma_eff`` (1). P_imb (mmHg, burns) shifts the interstitial
         pressure-volume relation inside the solve.
     """
-    tissue = dict(C_tis=v.get("C_tis"), C_high=v.get("C_tis_high"), P_break=v.get("Pi_break"), JL_max=v.get("JL_max"),
-                  Cp=v[ctx.steady_Cp] if ctx.steady_Cp else None, P_imb=v.get("P_imb"))
+    tissue: dict[str, Any] = dict(C_tis=v.get("C_tis"), C_high=v.get("C_tis_high"), P_break=v.get("Pi_break"),
+                                  JL_max=v.get("JL_max"), Cp=v[ctx.steady_Cp] if ctx.steady_Cp else None,
+                                  P_imb=v.get("P_imb"))
     args = (v["Kf"], v["Pc"], v["pi_c"], v["L"], v["Pi_L0"], v["alpha_L"], v["r_S"], v["r_L"])
     res = two_pore.two_pore_steady_state(*args, **tissue, xp=xp)
     out: dict[str, Array] = {"Jv": res["Jv"], "Pi": res["Pi"], "pi_i": res["pi_i"], "ratio": res["ratio"],
