@@ -126,6 +126,21 @@ CASES = {
         dict(Kf=u(0.002, 0.01), Pc=u(8, 45), sigma=u(0.6, 0.95), PS=u(0.001, 0.01), pi_c=u(15, 30),
              L=u(0.002, 0.02), Pi_L0=u(-6, -1), C_tis=u(0.3, 2), C_high=u(3, 10), P_break=u(-1, 2),
              JL_max=u(0.03, 0.5), PS_large=u(0, 0.002), Cp=u(4, 8))),
+    # the burns shift of the pressure-volume relation inside the solve (shifted_state through safety_steady_state)
+    "balance.shifted_state": (
+        lambda Kf, Pc, sigma, PS, pi_c, L, Pi_L0, C_tis, C_high, P_break, JL_max, P_imb, xp=np:
+        balance.safety_steady_state(Kf, Pc, sigma, PS, pi_c, L, Pi_L0, C_tis=C_tis, C_high=C_high,
+                                    P_break=P_break, JL_max=JL_max, P_imb=P_imb, xp=xp),
+        dict(Kf=u(0.002, 0.05), Pc=u(8, 45), sigma=u(0.4, 0.95), PS=u(0.001, 0.03), pi_c=u(15, 30),
+             L=u(0.002, 0.02), Pi_L0=u(-6, -1), C_tis=u(0.3, 2), C_high=u(3, 10), P_break=u(-1, 2),
+             JL_max=u(0.03, 0.5), P_imb=u(-45, 0))),
+    "balance.safety_margin[P_imb]": (
+        lambda Kf, Pc, sigma, PS, pi_c, L, Pi_L0, P_accel, C_tis, C_high, JL_max, P_imb, xp=np: balance.safety_margin(
+            Kf, Pc, sigma, PS, pi_c, L, Pi_L0, P_accel, C_tis=C_tis, C_high=C_high, P_break=P_accel,
+            JL_max=JL_max, P_imb=P_imb, xp=xp),
+        dict(Kf=u(0.002, 0.05), Pc=u(8, 45), sigma=u(0.6, 0.95), PS=u(0.001, 0.03), pi_c=u(15, 30),
+             L=u(0.002, 0.02), Pi_L0=u(-6, -1), P_accel=u(-1, 4), C_tis=u(0.3, 2), C_high=u(3, 10),
+             JL_max=u(0.03, 0.5), P_imb=u(-45, 0))),
     "balance.safety_margin": (
         lambda Kf, Pc, sigma, PS, pi_c, L, Pi_L0, P_accel, C_tis, C_high, JL_max, xp=np: balance.safety_margin(
             Kf, Pc, sigma, PS, pi_c, L, Pi_L0, P_accel, C_tis=C_tis, C_high=C_high, P_break=P_accel,

@@ -54,9 +54,16 @@ CASES = {
         two_pore.two_pore_steady_state(Kf, Pc, pi_c, L, Pi_L0, alpha_L, r_S, r_L, C_tis=C_tis, C_high=C_high,
                                        P_break=P_break, JL_max=JL_max, Cp=Cp, xp=xp),
         {**STEADY, "r_S": u(4, 5), "r_L": u(18, 30), **SAFETY}),
+    # the safety margin (bisection in the ratio + secant step), with the burns shift of the curve
+    "two_pore_safety_margin": (
+        lambda Kf, Pc, pi_c, L, Pi_L0, alpha_L, r_S, r_L, P_accel, C_tis, C_high, JL_max, Cp, P_imb, xp:
+        two_pore.two_pore_safety_margin(Kf, Pc, pi_c, L, Pi_L0, alpha_L, r_S, r_L, P_accel, C_tis=C_tis,
+                                        C_high=C_high, P_break=P_accel, JL_max=JL_max, Cp=Cp, P_imb=P_imb, xp=xp),
+        {**STEADY, "r_S": u(4, 5), "r_L": u(18, 30), "P_accel": np.r_[u(-1, 2)[:-1], -20.0], "P_imb": u(-40, 0),
+         **{k: SAFETY[k] for k in ("C_tis", "C_high", "JL_max", "Cp")}}),
 }
 #: public functions run on both back-ends through another case
-THROUGH = {"pore_steady_state": "two_pore_steady_state"}
+THROUGH = {"pore_steady_state": "two_pore_steady_state", "pore_safety_margin": "two_pore_safety_margin"}
 
 
 def _both(func, args):
@@ -219,3 +226,44 @@ def test_muscle_pi_i_row_inside_its_band() -> None:
     row = next(r for r in load_table(tissue="skeletal_muscle") if r.id == "skeletal_muscle.pi_i.rat_two_pore")
     assert not row.known_gap
     assert predict_row(row, samples=512).verdict == "inside"
+
+
+def test_safety_margin_is_the_rise_of_pc_that_brings_pi_to_the_break() -> None:
+    """The margin's definition (``balance.safety_margin``): at Pc + margin the steady Pi equals Pi_break; with
+    alpha_L = 0 it is the single-pore margin (closed-form reduction)."""
+    kw = dict(C_tis=1.5, C_high=7.5, P_break=0.0, JL_max=0.04, Cp=7.0)
+    Kf, Pc, pi_c, L, Pi_L0 = 0.0025, np.array([12.0, 21.5, 35.0]), 25.6, 0.003, -3.0
+    m = two_pore.two_pore_safety_margin(Kf, Pc, pi_c, L, Pi_L0, 0.097, 4.4, 24.0, 0.0, **kw)
+    at = two_pore.two_pore_steady_state(Kf, Pc + m, pi_c, L, Pi_L0, 0.097, 4.4, 24.0, **kw)
+    np.testing.assert_allclose(at["Pi"], 0.0, atol=1e-7)
+    p = two_pore.pore_properties(Kf, 0.0, 4.4, 24.0)
+    np.testing.assert_allclose(two_pore.two_pore_safety_margin(Kf, Pc, pi_c, L, Pi_L0, 0.0, 4.4, 24.0, 0.0, **kw),
+                               balance.safety_margin(Kf, Pc, p["sigma_S"], p["PS_S"], pi_c, L, Pi_L0, 0.0, **kw),
+                               rtol=1e-9, atol=1e-9)
+
+
+def test_imbibition_shift_is_the_intact_state_at_pc_minus_p_imb() -> None:
+    """P_imb acts inside the solve: the injured tissue's state is the intact one at Pc - P_imb with Pi lowered by
+    P_imb (filtration depends on Pi only through Pc - Pi); the margin shifts by -P_imb."""
+    kw = dict(C_tis=1.5, C_high=7.5, P_break=0.0, JL_max=0.04, Cp=7.0)
+    Kf, Pc, pi_c, L, Pi_L0 = 0.005, np.array([12.0, 42.0]), 25.6, 0.003, -3.0
+    shifted = two_pore.two_pore_steady_state(Kf, Pc, pi_c, L, Pi_L0, 0.097, 4.4, 24.0, P_imb=-31.8, **kw)
+    intact = two_pore.two_pore_steady_state(Kf, Pc + 31.8, pi_c, L, Pi_L0, 0.097, 4.4, 24.0, **kw)
+    np.testing.assert_allclose(shifted["Pi"], intact["Pi"] - 31.8, rtol=1e-12)
+    np.testing.assert_allclose(shifted["Pi_volume"], intact["Pi"], rtol=1e-12)
+    for k in ("Jv", "pi_i", "ratio"):
+        np.testing.assert_allclose(shifted[k], intact[k], rtol=1e-12)
+    m = two_pore.two_pore_safety_margin(Kf, Pc, pi_c, L, Pi_L0, 0.097, 4.4, 24.0, 0.0, P_imb=-31.8, **kw)
+    m0 = two_pore.two_pore_safety_margin(Kf, Pc, pi_c, L, Pi_L0, 0.097, 4.4, 24.0, 0.0, **kw)
+    np.testing.assert_allclose(m, m0 - 31.8, rtol=1e-12)
+
+
+def test_burns_steady_pi_stays_positive_with_the_shift_inside() -> None:
+    """Burned skin through the two_pore form: the outputs of the steady forms (safety_margin, Pi_early), and the
+    steady Pi stays positive although P_imb acts inside the solve (at steady state filtration must fall to what
+    the lymph carries; the gap of validation row skin_subcutis.Pi.burns_steady)."""
+    s = Study.from_dict({"study": {"title": "t (invented)", "tissue": "skin_subcutis", "model": "two_pore",
+                                   "conditions": ["burns"], "seed": 2}})
+    assert {"safety_margin", "Pi_early"} <= set(study_outputs(s))
+    d = propagate(s, samples=256, seed=2).draws["typical"]
+    assert np.median(d["Pi_early"]) < -10.0 < 0.0 < np.median(d["Pi"])

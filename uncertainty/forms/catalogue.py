@@ -44,7 +44,8 @@ _STEADY_OUTPUTS = (Output("Pi", "mmHg"), Output("pi_i", "mmHg"), Output("ratio",
                    Output("safety_margin", "mmHg", ("Pi_break",)), Output("Pi_early", "mmHg", ("P_imb",)))
 #: The safety factors of the steady forms (``general.SAFETY_INPUTS``): the break of the pressure-volume
 #: curve (C_tis_high above Pi_break) and the lymph capacity JL_max.
-#: P_imb: the shift of the pressure-volume relation of an injured matrix (burns), giving the early Pi (Pi_early).
+#: P_imb: the shift of the pressure-volume relation of an injured matrix (burns): it acts inside the steady solve
+#: (the injured tissue holds at Pi the volume the intact one holds at Pi - P_imb) and gives the early Pi (Pi_early).
 _SAFETY_OPTIONAL = ("C_tis", "C_tis_high", "Pi_break", "JL_max", "P_imb")
 
 
@@ -105,7 +106,8 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
         optional=_SAFETY_OPTIONAL,
         solved=("Pi", "pi_i", "pi_g"),
         outputs=(Output("Pi", "mmHg"), Output("pi_i", "mmHg"), Output("ratio", "1"), Output("JL", "mL/min/100g"),
-                 Output("oedema_volume", "mL/100g", _VOLUME_NEEDS), Output("Jv_large", "mL/min/100g"),
+                 Output("oedema_volume", "mL/100g", _VOLUME_NEEDS), Output("safety_margin", "mmHg", ("Pi_break",)),
+                 Output("Pi_early", "mmHg", ("P_imb",)), Output("Jv_large", "mL/min/100g"),
                  Output("sigma_eff", "1")),
         tissues=("skin_subcutis", "skeletal_muscle"),
     ),

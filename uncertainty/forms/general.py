@@ -108,15 +108,25 @@ def _safety(v: Mapping[str, Array]) -> bool:
 
 def _solve(v: Mapping[str, Array], ctx: FormContext, xp: object, revised: bool) -> dict[str, Array]:
     """The steady state: with any safety input, ``balance.safety_steady_state`` (compliance break,
-    volume-driven lymph saturating at JL_max, alveolar flooding); else the classic solvers."""
+    volume-driven lymph saturating at JL_max, alveolar flooding); else the classic solvers. With P_imb (burns)
+    the interstitial pressure-volume relation of the injured matrix is shifted inside the solve
+    (``balance.shifted_state``): ``Pi`` is the injured tissue's pressure, ``Pi_volume`` the intact curve's
+    pressure at the same volume."""
     if _safety(v):
         return balance.safety_steady_state(
             *_args(v), C_tis=v.get("C_tis"), C_high=v.get("C_tis_high"), P_break=v.get("Pi_break"),
             JL_max=v.get("JL_max"), G_flood=v.get("G_flood"), P_flood=v.get("P_flood"),
-            PS_large=v.get("PS_large") if revised else None, revised=revised, Cp=_Cp(v, ctx), xp=xp)
-    if revised:
-        return balance.revised_steady_state(*_args(v), v.get("PS_large", 0.0), Cp=_Cp(v, ctx), xp=xp)
-    return balance.steady_state(*_args(v), Cp=_Cp(v, ctx), xp=xp)
+            PS_large=v.get("PS_large") if revised else None, revised=revised, Cp=_Cp(v, ctx), P_imb=v.get("P_imb"),
+            xp=xp)
+    Kf, Pc, sigma, PS, pi_c, L, Pi_L0 = _args(v)
+
+    def solve(Pc_v: Array) -> dict[str, Array]:
+        if revised:
+            return balance.revised_steady_state(Kf, Pc_v, sigma, PS, pi_c, L, Pi_L0, v.get("PS_large", 0.0),
+                                                Cp=_Cp(v, ctx), xp=xp)
+        return balance.steady_state(Kf, Pc_v, sigma, PS, pi_c, L, Pi_L0, Cp=_Cp(v, ctx), xp=xp)
+
+    return balance.shifted_state(solve, Pc, v["P_imb"]) if "P_imb" in v else solve(Pc)
 
 
 def margin(v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Array]:
@@ -128,7 +138,17 @@ def margin(v: Mapping[str, Array], ctx: FormContext, xp: object) -> dict[str, Ar
         return {}
     return {"safety_margin": balance.safety_margin(
         *_args(v), P_accel, C_tis=v.get("C_tis"), C_high=v.get("C_tis_high"), P_break=v.get("Pi_break"),
-        JL_max=v.get("JL_max"), Cp=_Cp(v, ctx), xp=xp)}
+        JL_max=v.get("JL_max"), Cp=_Cp(v, ctx), P_imb=v.get("P_imb"), xp=xp)}
+
+
+def early_pressure(v: Mapping[str, Array], ctx: FormContext) -> dict[str, Array]:
+    """``Pi_early`` (mmHg) with P_imb (burns): the injured matrix's pressure at its pre-injury volume, the
+    tissue's reference Pi + P_imb (``interstitium.imbibition_pressure``), before filtration has swollen it;
+    the steady ``Pi`` is the pressure once filtration and outflow balance on the same shifted curve. Empty
+    without P_imb or a reference Pi."""
+    if "P_imb" not in v or ctx.Pi_ref is None:
+        return {}
+    return {"Pi_early": interstitium.imbibition_pressure(ctx.Pi_ref, v["P_imb"])}
 
 
 def _steady_result(res: Mapping[str, Array], pi_o: Array, v: Mapping[str, Array], ctx: FormContext, xp: object,
@@ -136,12 +156,12 @@ def _steady_result(res: Mapping[str, Array], pi_o: Array, v: Mapping[str, Array]
     Jv, Pi = res["Jv"], res["Pi"]
     out: dict[str, Array] = {"Jv": Jv, **first, "Pi": Pi, "pi_i": res["pi_i"], "ratio": res["ratio"],
                              "JL": res.get("JL", Jv)}  # lymph balance: JL = Jv, or Jv + J_epi (mucosa)
-    got = lung_water(Pi, v, ctx, xp, res.get("flooding")) if volume is lung_water else volume(Pi, v, ctx, xp)
+    Pi_v = res.get("Pi_volume", Pi)  # the intact curve's pressure at the tissue's volume (differs with P_imb)
+    got = lung_water(Pi_v, v, ctx, xp, res.get("flooding")) if volume is lung_water else volume(Pi_v, v, ctx, xp)
     if "oedema_volume" in got:
         out["oedema_volume"] = got["oedema_volume"]
     out.update(margin(v, ctx, xp))
-    if "P_imb" in v and ctx.Pi_ref is not None:  # burns: the early Pi of the injured matrix at its pre-injury volume
-        out["Pi_early"] = interstitium.imbibition_pressure(ctx.Pi_ref, v["P_imb"])
+    out.update(early_pressure(v, ctx))
     if "EVLW" in got:
         out["EVLW"] = got["EVLW"]
     if "EVLWI" in got:

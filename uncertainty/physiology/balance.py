@@ -212,7 +212,8 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
                         C_tis: Array | None = None, C_high: Array | None = None, P_break: Array | None = None,
                         JL_max: Array | None = None, G_flood: Array | None = None, P_flood: Array | None = None,
                         PS_large: Array | None = None, revised: bool = False, Cp: Array | None = None,
-                        xp: Any = np, n_steps: int = BISECTION_STEPS) -> dict[str, Array]:
+                        P_imb: Array | None = None, xp: Any = np, n_steps: int = BISECTION_STEPS
+                        ) -> dict[str, Array]:
     """Coupled steady state with the three safety factors against oedema (Guyton's; Aukland & Reed 1993
     Physiol Rev 73:1, from memory): interstitial pressure (compliance low until a break, several-fold higher
     past it), lymph flow (driven by interstitial volume, saturating at JL_max) and protein washout (Patlak),
@@ -248,6 +249,12 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
         glycocalyx; pi_i follows from the large-pore mixing.
     Cp : array, optional
         Plasma protein (g/dL) for the Landis-Pappenheimer scaling of pi_i (``oncotic_from_ratio``).
+    P_imb : array, optional
+        Shift of the interstitial pressure-volume relation by an injury (mmHg, negative: a raised imbibition
+        pressure of the matrix, ``interstitium.imbibition_pressure``): the injured interstitium holds at Pi the
+        volume the intact one holds at Pi - P_imb, so the volume-driven outflow is J(Pi - P_imb). Because
+        filtration depends on Pi only through Pc - Pi, the state is that of the intact tissue at Pc - P_imb,
+        with Pi lowered by P_imb (:func:`shifted_state`).
     xp : module
         numpy or pytensor.tensor.
     n_steps : int
@@ -260,6 +267,11 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
         ``flooding`` (overflow, mL/min per basis; 0 without the overflow path), and with ``revised`` also
         ``pi_g`` and ``ratio_g``.
     """
+    if P_imb is not None:
+        return shifted_state(lambda Pc_v: safety_steady_state(
+            Kf, Pc_v, sigma, PS, pi_c, L, Pi_L0, C_tis=C_tis, C_high=C_high, P_break=P_break, JL_max=JL_max,
+            G_flood=G_flood, P_flood=P_flood, PS_large=PS_large, revised=revised, Cp=Cp, xp=xp, n_steps=n_steps),
+            Pc, P_imb)
     tissue = (C_tis, C_high, P_break, JL_max, G_flood, P_flood)
     present = [i for i, a in enumerate(tissue) if a is not None]
     full = 0.0 * (Kf + Pc + sigma + PS + pi_c + L + Pi_L0)
@@ -308,10 +320,40 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
     return out
 
 
+def shifted_state(solve: Any, Pc: Array, P_imb: Array) -> dict[str, Array]:
+    """A steady state of a tissue whose interstitial pressure-volume relation is shifted by P_imb (mmHg).
+
+    The shifted interstitium holds at Pi the volume the intact one holds at Pi' = Pi - P_imb, and every outflow
+    (lymph, overflow) follows the volume, so it is J(Pi'). Filtration Kf [(Pc - Pi) - sigma (...)] equals
+    Kf [((Pc - P_imb) - Pi') - sigma (...)], so the state in Pi' is the intact tissue's state at the capillary
+    pressure Pc - P_imb: the imbibition pressure adds -P_imb to the pressure that drives filtration, exactly.
+
+    Parameters
+    ----------
+    solve : callable
+        Pc (mmHg) -> the intact tissue's steady-state dict (``Pi`` in mmHg among its entries).
+    Pc : array
+        Capillary pressure (mmHg).
+    P_imb : array
+        Shift of the pressure-volume relation (mmHg; negative: raised imbibition pressure).
+
+    Returns
+    -------
+    dict
+        ``solve(Pc - P_imb)`` with ``Pi`` (mmHg) lowered by P_imb (the others are unchanged: the outflow, protein
+        and oncotic pressures depend on the volume, not on the pressure that holds it). ``Pi_volume`` (mmHg) is
+        the pressure at which the intact curve holds the same volume, for volumes read off it.
+    """
+    res = dict(solve(Pc - P_imb))
+    res["Pi_volume"] = res["Pi"]
+    res["Pi"] = res["Pi"] + P_imb
+    return res
+
+
 def safety_margin(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array, Pi_L0: Array,
                   P_accel: Array, *, C_tis: Array | None = None, C_high: Array | None = None,
                   P_break: Array | None = None, JL_max: Array | None = None, Cp: Array | None = None,
-                  xp: Any = np) -> Array:
+                  P_imb: Array | None = None, xp: Any = np) -> Array:
     """Safety margin (mmHg): how far Pc can rise before oedema accelerates, i.e. before the steady Pi
     reaches P_accel (mmHg; the break of the pressure-volume curve, or in the lung the pressure at which
     the alveoli flood).
@@ -319,9 +361,12 @@ def safety_margin(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L:
     At Pi = P_accel the outflow J* = JL(P_accel) (``interstitium.volume_lymph_flow``) and the filtrate
     ratio R(J*) are known, so the capillary pressure that holds the steady state there is, in closed form,
     Pc* = P_accel + sigma (pi_c - pi_o(R(J*))) + J*/Kf; the margin is Pc* - Pc (negative: already past it).
-    Other arguments and units as ``safety_steady_state``.
+    P_accel is a point of the intact pressure-volume curve; with ``P_imb`` (the shift of an injured matrix, see
+    ``safety_steady_state``) the injured tissue reaches that volume at P_accel + P_imb, which is the margin of the
+    intact tissue at Pc - P_imb. Other arguments and units as ``safety_steady_state``.
     """
     J, _ = volume_lymph_flow(P_accel, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp)
     R = steady_state_ratio(J, sigma, PS, xp)
     pi_o, _ = oncotic_from_ratio(R, pi_c, Cp)
-    return P_accel + sigma * (pi_c - pi_o) + J / Kf - Pc
+    shift = 0.0 if P_imb is None else P_imb
+    return P_accel + sigma * (pi_c - pi_o) + J / Kf - (Pc - shift)

@@ -56,7 +56,7 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.physiology.balance import oncotic_from_ratio
+from uncertainty.physiology.balance import oncotic_from_ratio, shifted_state
 from uncertainty.physiology.interstitium import volume_lymph_flow
 from uncertainty.physiology.iteration import fixed_steps, stop_gradient
 from uncertainty.physiology.oncotic import COEFFICIENTS, pi_cubic, pi_cubic_slope
@@ -280,7 +280,8 @@ _NAMES = ("Kf", "Pc", "pi_c", "L", "Pi_L0", "alpha_L", "sigma_S", "sigma_L", "PS
 def pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array, alpha_L: Array,
                       sigma_S: Array, sigma_L: Array, PS_S: Array, PS_L: Array, *, C_tis: Array | None = None,
                       C_high: Array | None = None, P_break: Array | None = None, JL_max: Array | None = None,
-                      Cp: Array | None = None, xp: Any = np, n_steps: int = BISECTION_STEPS) -> dict[str, Array]:
+                      Cp: Array | None = None, P_imb: Array | None = None, xp: Any = np,
+                      n_steps: int = BISECTION_STEPS) -> dict[str, Array]:
     """Two-pore steady state from each pore's sigma and PS (module docstring).
 
     Parameters
@@ -301,6 +302,10 @@ def pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array,
         Maximal lymph flow (mL/min per basis).
     Cp : array, optional
         Plasma total protein (g/dL) for the Landis-Pappenheimer scaling of pi_i; None: proportional.
+    P_imb : array, optional
+        Shift of the interstitial pressure-volume relation of an injured matrix (mmHg, negative), as in
+        ``balance.safety_steady_state``: the state of the intact tissue at Pc - P_imb with Pi lowered by P_imb
+        (``balance.shifted_state``; both pores' flows depend on Pi only through Pc - Pi).
     xp : module
         numpy or pytensor.tensor.
     n_steps : int
@@ -310,8 +315,13 @@ def pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array,
     -------
     dict
         ``Jv`` (= ``JL``, mL/min per basis), ``Pi``, ``pi_i`` (mmHg), ``ratio`` (Ci/Cp), ``JL``, ``Jv_small``,
-        ``Jv_large`` (mL/min per basis) and ``sigma_eff`` (1, the conductance-weighted reflection).
+        ``Jv_large`` (mL/min per basis) and ``sigma_eff`` (1, the conductance-weighted reflection); with P_imb
+        also ``Pi_volume`` (mmHg, the intact curve's pressure at the same volume).
     """
+    if P_imb is not None:
+        return shifted_state(lambda Pc_v: pore_steady_state(
+            Kf, Pc_v, pi_c, L, Pi_L0, alpha_L, sigma_S, sigma_L, PS_S, PS_L, C_tis=C_tis, C_high=C_high,
+            P_break=P_break, JL_max=JL_max, Cp=Cp, xp=xp, n_steps=n_steps), Pc, P_imb)
     given = dict(zip(_NAMES, (Kf, Pc, pi_c, L, Pi_L0, alpha_L, sigma_S, sigma_L, PS_S, PS_L,
                               C_tis, C_high, P_break, JL_max, Cp), strict=True))
     present = [k for k in _NAMES if given[k] is not None]
@@ -354,7 +364,8 @@ def pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array,
 def two_pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array, alpha_L: Array, r_S: Array,
                           r_L: Array, *, C_tis: Array | None = None, C_high: Array | None = None,
                           P_break: Array | None = None, JL_max: Array | None = None, Cp: Array | None = None,
-                          xp: Any = np, n_steps: int = BISECTION_STEPS) -> dict[str, Array]:
+                          P_imb: Array | None = None, xp: Any = np, n_steps: int = BISECTION_STEPS
+                          ) -> dict[str, Array]:
     """Two-pore steady state from the pore radii (pore theory, module docstring): the form ``two_pore``.
 
     Parameters
@@ -367,7 +378,7 @@ def two_pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Ar
         Large pores' fraction of Kf (1).
     r_S, r_L : array
         Small- and large-pore radii (nm).
-    C_tis, C_high, P_break, JL_max, Cp : array, optional
+    C_tis, C_high, P_break, JL_max, Cp, P_imb : array, optional
         As ``pore_steady_state``.
     xp : module
         numpy or pytensor.tensor.
@@ -382,6 +393,126 @@ def two_pore_steady_state(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Ar
     pores = pore_properties(Kf, alpha_L, r_S, r_L, xp=xp)
     out = pore_steady_state(Kf, Pc, pi_c, L, Pi_L0, alpha_L, pores["sigma_S"], pores["sigma_L"], pores["PS_S"],
                             pores["PS_L"], C_tis=C_tis, C_high=C_high, P_break=P_break, JL_max=JL_max, Cp=Cp,
-                            xp=xp, n_steps=n_steps)
+                            P_imb=P_imb, xp=xp, n_steps=n_steps)
     out.update(pores)
     return out
+
+
+MARGIN_STEPS = 40  # halvings of the ratio bracket [0, 1] before the secant step: about 1e-12 wide
+
+
+def _margin_residual(R: Array, p: dict[str, Any], xp: Any) -> tuple[Array, Array]:
+    """H(R) of ``pore_safety_margin`` (protein in minus protein out, per unit Cp, at Pi = P_accel) and Pc*."""
+    aL = p["alpha_L"]
+    s_eff = (1.0 - aL) * p["sigma_S"] + aL * p["sigma_L"]
+    pi_i, _ = oncotic_from_ratio(R, p["pi_c"], p["Cp"])
+    Pc_star = p["P_accel"] + s_eff * (p["pi_c"] - pi_i) + p["J"] / p["Kf"]
+    J_S, J_L = pore_flows(p["Kf"], aL, p["sigma_S"], p["sigma_L"], Pc_star, p["P_accel"], p["pi_c"], pi_i)
+    js = two_pore_protein_flux(J_S, J_L, p["sigma_S"], p["sigma_L"], p["PS_S"], p["PS_L"], 1.0, R, xp)
+    return js - p["J"] * R, Pc_star
+
+
+_MARGIN_NAMES = ("Kf", "pi_c", "alpha_L", "sigma_S", "sigma_L", "PS_S", "PS_L", "P_accel", "J", "Cp")
+
+
+def pore_safety_margin(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array, alpha_L: Array, sigma_S: Array,
+                       sigma_L: Array, PS_S: Array, PS_L: Array, P_accel: Array, *, C_tis: Array | None = None,
+                       C_high: Array | None = None, P_break: Array | None = None, JL_max: Array | None = None,
+                       Cp: Array | None = None, P_imb: Array | None = None, xp: Any = np,
+                       n_steps: int = MARGIN_STEPS) -> Array:
+    """Safety margin of the two-pore steady state (mmHg): the rise of Pc before the steady Pi reaches P_accel,
+    the definition of ``balance.safety_margin``.
+
+    At Pi = P_accel the outflow J* = JL(P_accel) (``interstitium.volume_lymph_flow``) is known. For a trial
+    ratio R = Ci/Cp the fluid balance gives the capillary pressure Pc*(R) = P_accel + sigma_eff (pi_c - pi_i(R)) +
+    J*/Kf, and the protein residual H(R) = Js_S + Js_L - J* R is positive at R = 0 (protein enters an
+    interstitium without protein) and -(a_S sigma_S + a_L sigma_L) J* <= 0 at R = 1; its root is bracketed by
+    fixed bisection halvings and finished by one secant step cut from differentiation (as ``pore_steady_state``).
+    The margin is Pc*(R) - Pc (negative: already past it). When J* <= 0 (P_accel at or below the zero-lymph
+    pressure) the steady state at P_accel is the lymph-free one, Pc* = P_accel. With ``P_imb`` the margin is the
+    intact tissue's at Pc - P_imb (``balance.safety_margin``).
+
+    Parameters
+    ----------
+    Kf, L : array
+        Filtration coefficient and lymph conductance (mL/min/mmHg per basis).
+    Pc, pi_c, Pi_L0, P_accel : array
+        Capillary, plasma oncotic, zero-lymph pressures and the pressure at which oedema accelerates (mmHg).
+    alpha_L : array
+        Large pores' fraction of Kf (1).
+    sigma_S, sigma_L, PS_S, PS_L : array
+        Reflection coefficients (1) and PS (mL/min per basis) of the two pores.
+    C_tis, C_high, P_break, JL_max, Cp, P_imb : array, optional
+        As ``pore_steady_state``.
+    xp : module
+        numpy or pytensor.tensor.
+    n_steps : int
+        Bisection halvings of [0, 1].
+
+    Returns
+    -------
+    array
+        Pc* - Pc (mmHg).
+    """
+    J, _ = volume_lymph_flow(P_accel, L, Pi_L0, C_tis, C_high, P_break, JL_max, xp=xp)
+    full = 0.0 * (Kf + Pc + pi_c + alpha_L + sigma_S + sigma_L + PS_S + PS_L + P_accel + J)
+    flowing = J + full > 0
+    Jpos = xp.where(flowing, J + full, 1.0 + full)  # a placeholder flow where none flows (result replaced below)
+    given = dict(zip(_MARGIN_NAMES, (Kf, pi_c, alpha_L, sigma_S, sigma_L, PS_S, PS_L, P_accel, Jpos, Cp),
+                     strict=True))
+    present = [k for k in _MARGIN_NAMES if given[k] is not None]
+
+    def params(vals: tuple[Array, ...]) -> dict[str, Any]:
+        p: dict[str, Any] = dict.fromkeys(_MARGIN_NAMES)
+        p.update(zip(present, vals, strict=True))
+        return p
+
+    def step(_i: Array, lo: Array, hi: Array, *vals: Array) -> tuple[Array, Array]:
+        mid = 0.5 * (lo + hi)
+        h, _ = _margin_residual(mid, params(vals), xp)
+        pos = h > 0
+        return xp.where(pos, mid, lo), xp.where(pos, hi, mid)
+
+    lo, hi = fixed_steps(step, (full, 1.0 + full), n_steps, 1.0, xp, params=tuple(given[k] + full for k in present))
+    lo = stop_gradient(lo, xp)
+    hi = stop_gradient(hi, xp)
+    p = params(tuple(given[k] for k in present))
+    h_lo, _ = _margin_residual(lo, p, xp)
+    h_hi, _ = _margin_residual(hi, p, xp)
+    den = h_lo - h_hi
+    bracketed = (h_lo > 0) & (h_hi < 0) & (den > 0)
+    R = xp.where(bracketed, lo + h_lo * (hi - lo) / xp.where(bracketed, den, 1.0), 0.5 * (lo + hi))
+    _, Pc_star = _margin_residual(R, p, xp)
+    shift = 0.0 if P_imb is None else P_imb
+    return xp.where(flowing, Pc_star, P_accel + full) - (Pc - shift)
+
+
+def two_pore_safety_margin(Kf: Array, Pc: Array, pi_c: Array, L: Array, Pi_L0: Array, alpha_L: Array, r_S: Array,
+                           r_L: Array, P_accel: Array, *, C_tis: Array | None = None, C_high: Array | None = None,
+                           P_break: Array | None = None, JL_max: Array | None = None, Cp: Array | None = None,
+                           P_imb: Array | None = None, xp: Any = np, n_steps: int = MARGIN_STEPS) -> Array:
+    """``pore_safety_margin`` with each pore's sigma and PS from its radius (``pore_properties``): the
+    ``safety_margin`` output of the form ``two_pore``.
+
+    Parameters
+    ----------
+    Kf, Pc, pi_c, L, Pi_L0, alpha_L, P_accel : array
+        As ``pore_safety_margin`` (mL/min/mmHg per basis, mmHg, 1).
+    r_S, r_L : array
+        Small- and large-pore radii (nm).
+    C_tis, C_high, P_break, JL_max, Cp, P_imb : array, optional
+        As ``pore_steady_state``.
+    xp : module
+        numpy or pytensor.tensor.
+    n_steps : int
+        Bisection halvings.
+
+    Returns
+    -------
+    array
+        The safety margin (mmHg).
+    """
+    pores = pore_properties(Kf, alpha_L, r_S, r_L, xp=xp)
+    return pore_safety_margin(Kf, Pc, pi_c, L, Pi_L0, alpha_L, pores["sigma_S"], pores["sigma_L"], pores["PS_S"],
+                              pores["PS_L"], P_accel, C_tis=C_tis, C_high=C_high, P_break=P_break, JL_max=JL_max,
+                              Cp=Cp, P_imb=P_imb, xp=xp, n_steps=n_steps)
