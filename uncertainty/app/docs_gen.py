@@ -190,7 +190,8 @@ MEANINGS: dict[str, str] = {
     "observations.step.at_min": "start of the step, min (protocols)",
     "rank.candidates": "candidate measurements; empty: the tissue's instruments from priors/instruments.toml",
     "rank.budget": "optional: the best set of candidates whose total cost stays within this",
-    "rank.output": "the output whose interval should narrow",
+    "rank.output": "the output whose interval should narrow; in a whole_body study also a time course at a time, "
+                   "\"NAME at TIME\" (e.g. \"infused_retained_fraction at 60 min\"; after 0, at most [timeline] end)",
     "rank.samples": "Monte Carlo sample size of the value-of-information estimate",
     "rank.candidates.name": "label (unique)",
     "rank.candidates.parameter": "the quantity measured (a trade symbol)",
@@ -202,7 +203,8 @@ MEANINGS: dict[str, str] = {
     "rank.candidates.n": "number of repeated readings averaged",
     "design.design": "parallel (two arms), paired (each subject before and after) or crossover (AB/BA two-period "
                      "crossover, n per sequence; needs `within_subject`; no carry-over assumed)",
-    "design.endpoint": "a quantity, \"Jv\", or an observation kind",
+    "design.endpoint": "a quantity, \"Jv\", or an observation kind; in a whole_body study also a time course at a "
+                       "time, \"NAME at TIME\" (e.g. \"hb_ratio at 60 min\"; after 0, at most [timeline] end)",
     "design.effect": "the treatment effect to detect",
     "design.between_subject": "spread of individuals around the typical value, per quantity",
     "design.within_subject": "test-retest spread per quantity (paired designs)",

@@ -66,6 +66,7 @@ from uncertainty.priors import (
     parse_prior,
 )
 from uncertainty.study.data_files import read_csv, shorten
+from uncertainty.study.endpoints import is_time_endpoint
 from uncertainty.study.interventions import validate_interventions
 from uncertainty.study.schema import (
     CSV_COLUMNS,
@@ -1216,7 +1217,7 @@ def resolve_design(dsn: DesignSection, kept: Kept, ctx: SectionContext) -> tuple
         effects.append(eff)
     known = set(ctx.known) | {s for s, _ in kept.priors}
     endpoint = NAMED_ENDPOINTS.get(dsn.endpoint, dsn.endpoint)
-    if endpoint not in known and endpoint not in CSV_COLUMNS:
+    if endpoint not in known and endpoint not in CSV_COLUMNS and not is_time_endpoint(endpoint):
         kept = keep_known(endpoint, "design.endpoint", kept, ctx)
     for part, spreads in (("between_subject", dsn.between_subject), ("within_subject", dsn.within_subject)):
         for sym, spread in spreads.items():
@@ -1297,7 +1298,7 @@ def resolve_sections(inp: StudyInput, form: FormInputs, base: TissueBase, Pi_ref
             if o not in outputs:
                 raise study_error(f"unknown output (the {head.model} form gives {', '.join(outputs)})", file,
                                   f"propagate.outputs[{i}]", o)
-    if sensitivity is not None and sensitivity.output not in outputs:
+    if sensitivity is not None and sensitivity.output not in outputs and not is_time_endpoint(sensitivity.output):
         raise study_error(f"unknown output (the {head.model} form gives {', '.join(outputs)})", file,
                           "sensitivity.output", sensitivity.output)
     observations: list[Observation] | None = None
@@ -1310,8 +1311,8 @@ def resolve_sections(inp: StudyInput, form: FormInputs, base: TissueBase, Pi_ref
     if rank is not None:
         rank, kept = resolve_rank(rank, kept, ctx)
         with_kept = {**form.priors, **dict(kept.priors)}  # a kept C_tis offers the oedema volume
-        if rank.output not in form_outputs(head.model, head.tissue, base.tissue_mass_kg, form.derived, with_kept,
-                                           Pi_ref):
+        if not is_time_endpoint(rank.output) and rank.output not in form_outputs(
+                head.model, head.tissue, base.tissue_mass_kg, form.derived, with_kept, Pi_ref):
             raise study_error("unknown output", file, "rank.output", rank.output)
     design = inp.section("design", DesignSection)
     if design is not None:

@@ -145,7 +145,10 @@ class SensitivitySection(BaseModel):
         "refuse correlated inputs)"))
     samples: int | None = Field(default=None, gt=0, le=2**24, description=(
         "base sample size; default 8192 (sobol), 64 trajectories (morris), 8192 random orders (shapley)"))
-    output: str = Field(default="Jv", description="the output whose variance is apportioned")
+    output: str = Field(default="Jv", description=(
+        "the output whose variance is apportioned; in a whole_body study also a time course at a time, written "
+        "\"NAME at TIME\" (e.g. \"infused_retained_fraction at 60 min\", \"hb_ratio at 2 h\"; the time after 0 "
+        "and at most [timeline] end), or \"NAME over time\" for the indices at every report time"))
     layer: Literal["individual", "typical"] = Field(default="individual", description=(
         "individual: each quantity's typical and between-subject parts as one factor; typical: the "
         "typical-subject uncertainty only"))
@@ -367,7 +370,9 @@ class RankSection(BaseModel):
     model_config = STRICT_CONFIG
     candidates: list[Candidate] = Field(default_factory=list, max_length=100)  # empty: instruments.toml for the tissue
     budget: float | None = Field(default=None, gt=0)
-    output: str = "Jv"
+    output: str = Field(default="Jv", description=(
+        "the output whose interval the readings narrow; in a whole_body study also a time course at a time, "
+        "\"NAME at TIME\" (e.g. \"infused_retained_fraction at 60 min\")"))
     samples: int = Field(default=4096, gt=0, le=2**22)
 
     @field_validator("candidates")
@@ -425,7 +430,9 @@ class DesignSection(BaseModel):
 
     model_config = STRICT_CONFIG
     design: Literal["parallel", "paired", "crossover"] = "parallel"
-    endpoint: str = "Jv"
+    endpoint: str = Field(default="Jv", description=(
+        "a quantity, a model output or an observation kind; in a whole_body study also a time course at a time, "
+        "\"NAME at TIME\" (e.g. \"hb_ratio at 60 min\")"))
     effect: Effect
     between_subject: dict[str, Spread] = Field(default_factory=dict)
     within_subject: dict[str, Spread] = Field(default_factory=dict)

@@ -34,6 +34,7 @@ from uncertainty.core.files import MAX_STUDY_BYTES, read_limited
 from uncertainty.core.toml_io import parse_toml_bytes
 from uncertainty.forms.catalogue import study_outputs
 from uncertainty.priors import Derivation, Instrument, Prior, prior_rows
+from uncertainty.study.endpoints import check_time_endpoints
 from uncertainty.study.interventions import TimelinePlan, resolve_timeline
 from uncertainty.study.resolve import (
     StudyInput,
@@ -280,6 +281,7 @@ def _study_from(inp: StudyInput) -> Study:
     scenarios = resolve_scenarios(inp.scenarios, head, set(form.priors) | set(form.derived), base, file)
     plan = resolve_timeline(head, inp.section("interventions", InterventionList),
                             inp.section("timeline", TimelineSection), file)
+    check_time_endpoints(sections, plan, file)  # "NAME at 60 min" against the timeline's end
     corr = resolve_correlations(priors, form.declared.derived, base.prior_set.correlations, declared.overridden,
                                 inp.correlations, head.model, file)
     return Study(path=inp.path, hash=inp.file_hash, title=head.title, tissue=head.tissue,

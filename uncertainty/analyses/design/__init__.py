@@ -44,6 +44,7 @@ from uncertainty.analyses.design import group_sequential as gs
 from uncertainty.analyses.design import trial_power as tp
 from uncertainty.analyses.design.result import DesignResult
 from uncertainty.analyses.inference.diagnostics import Gate, diagnose
+from uncertainty.analyses.propagate.timeline import values_at
 from uncertainty.core import units
 from uncertainty.core.errors import InputError
 from uncertainty.core.parallel import InProcess
@@ -51,6 +52,7 @@ from uncertainty.core.provenance import code_hash, package_version
 from uncertainty.distributions import REGISTRY, Distribution, Normal, Spread, TruncNormal, Uniform, log_sd_from_cv
 from uncertainty.forms.catalogue import all_outputs
 from uncertainty.forms.evaluate import evaluate as model_evaluate
+from uncertainty.study.endpoints import TimePoint, parse_time_endpoint
 from uncertainty.study.schema import NAMED_ENDPOINTS
 
 #: Families a design prior (over the analysis-scale effect) may take; an analysis prior is normal.
@@ -138,6 +140,7 @@ class DesignSpec:
     responder: dict[str, Any] | None = None  # {"cut": canonical unit, "side": "below" | "above"}: binary endpoint
     bayes_width: float | None = None  # target width of the 95 % posterior interval (analysis scale)
     bayes_success: float | None = None  # target probability that the interval excludes no effect
+    timepoint: TimePoint | None = None  # a whole_body time course at a time (uncertainty.study.endpoints)
     followups: int = 1  # repeated measures: follow-up readings per subject, their mean analysed (parallel only)
 
     @property
@@ -303,7 +306,10 @@ def parse_design(study: Any, section: Any = None) -> DesignSpec:
     # endpoint
     endpoint = doc.get("endpoint", "Jv")
     spec.endpoint = endpoint
-    if endpoint in priors:
+    point = parse_time_endpoint(endpoint, getattr(study, "timeline", None), file=file, key="design.endpoint")
+    if point is not None:  # a whole_body time course at a time: "infused_retained_fraction at 60 min"
+        spec.endpoint_kind, spec.output, spec.timepoint = "output", endpoint, point
+    elif endpoint in priors:
         spec.endpoint_kind, spec.output = "quantity", endpoint
     elif endpoint in OBSERVATION_ENDPOINTS:
         spec.output = OBSERVATION_ENDPOINTS[endpoint]
@@ -651,6 +657,8 @@ def _endpoint(study: Any, spec: DesignSpec, values: dict[str, np.ndarray], shape
     if spec.endpoint_kind == "quantity":
         return np.broadcast_to(values[spec.output], shape)
     flat = {k: np.broadcast_to(v, shape).reshape(-1) for k, v in values.items()}
+    if spec.timepoint is not None:
+        return values_at(study, spec.timepoint, flat).reshape(shape)
     return np.asarray(model_evaluate(study, flat)[spec.output]).reshape(shape)
 
 
@@ -1672,6 +1680,8 @@ def assumptions(study: Any, spec: DesignSpec, doc: dict[str, Any]) -> list[dict[
 
 
 def _unit_of(spec: DesignSpec) -> str:
+    if spec.timepoint is not None:
+        return spec.timepoint.unit
     return units.CANONICAL.get(spec.output, "")
 
 

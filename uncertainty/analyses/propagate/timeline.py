@@ -9,6 +9,7 @@ summarised per report time by their median and 95% interval.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -18,6 +19,7 @@ from uncertainty.forms.evaluate import input_values
 from uncertainty.forms.whole_body import timeline_parameters
 from uncertainty.physiology.whole_body import TIMELINE_UNITS, simulate
 from uncertainty.priors import prior_medians
+from uncertainty.study.endpoints import TimePoint
 
 #: The prior set of the second bed.
 SKIN_SET = "skin_subcutis"
@@ -97,6 +99,92 @@ class _Layer:
     def __call__(self, layer: str, ss: Any = None) -> dict[str, Any]:
         sim = run_layer(self.study, layer, self.n, self.seed)
         return {"times_min": list(sim["times_min"]), "summary": {name: _summary(sim[name]) for name in TIMELINE_UNITS}}
+
+
+def _courses(study: Any, values: dict[str, Any], end: float, every: float) -> dict[str, Any]:
+    """``simulate`` of a study's draws ``values`` (name -> array, canonical units) from 0 to ``end`` (min)."""
+    plan = study.timeline
+    v = input_values(study, values)
+    body, beds, Cp0 = timeline_parameters(v, plan.body_mass_kg, bed_ratios(study.tissue))
+    return simulate(body, beds, Cp0, plan.doses, end, every)
+
+
+def _draw_count(values: dict[str, Any]) -> int:
+    return max([int(np.size(x)) for x in values.values()] or [1])
+
+
+def values_at(study: Any, point: TimePoint, values: dict[str, Any]) -> np.ndarray:
+    """One time course of a ``whole_body`` study at ``point.time_min`` for the draws ``values``.
+
+    The time courses are stepped as propagate's timeline steps them: when the time is a report time (a multiple of
+    ``[timeline] report_every``) the step grid is the timeline's, so the value equals the timeline's draws at that
+    time; otherwise the grid ends at the time itself (step at most 0.5 min, ``physiology.whole_body.time_grid``).
+
+    Parameters
+    ----------
+    study : Study
+        A ``whole_body`` study (``timeline`` set).
+    point : TimePoint
+        The time course and time (min); ``time_min`` not None.
+    values : dict
+        name -> array over the draws (canonical units), as ``analyses.sampling.draw`` gives.
+
+    Returns
+    -------
+    numpy.ndarray
+        Shape (n,), in the time course's unit (``point.unit``).
+    """
+    t = float(point.time_min)  # type: ignore[arg-type]
+    every = float(study.timeline.report_every)
+    k = t / every
+    step = every if abs(k - round(k)) < 1e-9 and round(k) >= 1 else t
+    sim = _courses(study, values, t, step)
+    return np.asarray(sim[point.name][-1], dtype=float) * np.ones(_draw_count(values))
+
+
+def values_over_time(study: Any, name: str, values: dict[str, Any]) -> tuple[list[float], np.ndarray]:
+    """One time course of a ``whole_body`` study at every report time after 0, for the draws ``values``.
+
+    Parameters
+    ----------
+    study : Study
+        A ``whole_body`` study.
+    name : str
+        The time course (``physiology.whole_body.TIMELINE_UNITS``).
+    values : dict
+        name -> array over the draws (canonical units).
+
+    Returns
+    -------
+    times : list of float
+        Report times, min (0 left out).
+    y : numpy.ndarray
+        Shape (n, len(times)), in the time course's unit.
+    """
+    plan = study.timeline
+    sim = _courses(study, values, plan.end, plan.report_every)
+    n = _draw_count(values)
+    y = np.stack([np.asarray(a, dtype=float) * np.ones(n) for a in sim[name][1:]], axis=1)
+    return list(sim["times_min"][1:]), y
+
+
+def timepoint_evaluator(point: TimePoint) -> Callable[[Any, dict[str, Any]], dict[str, np.ndarray]]:
+    """An ``evaluate(study, values) -> {point.text: array}`` for the analyses that take a forward map.
+
+    Parameters
+    ----------
+    point : TimePoint
+        The time course and time.
+
+    Returns
+    -------
+    callable
+        ``(study, values) -> {point.text: numpy.ndarray}`` (the time course's unit).
+    """
+    def evaluate(study: Any, values: dict[str, Any]) -> dict[str, np.ndarray]:
+        return {point.text: values_at(study, point, values)}
+
+    return evaluate
 
 
 def timeline(study: Any, seed: Any = None, draws: int | None = None, executor: Any = None) -> dict[str, Any]:

@@ -44,6 +44,7 @@ from uncertainty.analyses import sampling
 from uncertainty.analyses.inference import infer
 from uncertainty.analyses.inference.api import new_subject_values, settings
 from uncertainty.analyses.inference.summaries import flat
+from uncertainty.analyses.propagate.timeline import values_at
 from uncertainty.analyses.rank.result import RankResult
 from uncertainty.analyses.sensitivity import first_order_given_data
 from uncertainty.core.errors import InputError
@@ -52,8 +53,14 @@ from uncertainty.distributions import is_normal_frozen, log_sd_from_cv
 from uncertainty.forms.catalogue import output_unit
 from uncertainty.forms.evaluate import evaluate as model_evaluate
 from uncertainty.priors import load_instruments
+from uncertainty.study.endpoints import parse_time_endpoint
 
 _BLOCKS = 8
+
+
+def _file(study: Any) -> str | None:
+    p = getattr(study, "path", None)
+    return str(p) if p else None
 
 
 @dataclass(frozen=True)
@@ -600,6 +607,9 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
     vals = {k: (np.asarray(v, dtype=float)[keep] if np.ndim(v) and np.shape(v)[0] == total else v)
             for k, v in vals.items()}
     outputs = problem.evaluate(vals, np)
+    point = parse_time_endpoint(output, getattr(study, "timeline", None), file=_file(study), key="rank.output")
+    if point is not None:  # a whole_body time course at a time
+        outputs = {**outputs, output: values_at(study, point, {k: v for k, v in vals.items() if k in study.priors})}
     y = np.asarray(outputs[output], dtype=float) * np.ones(len(keep))
     pool = {**{k: np.asarray(v, dtype=float) for k, v in outputs.items() if np.shape(v) == y.shape},
             **{k: np.asarray(v, dtype=float) for k, v in vals.items() if np.shape(v) == y.shape}}
@@ -633,6 +643,7 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     n = int(samples or max(getattr(section, "samples", MIN_SAMPLES) or MIN_SAMPLES, MIN_SAMPLES))
     seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
     cands = candidates_of(study)
+    point = parse_time_endpoint(output, getattr(study, "timeline", None), file=_file(study), key="rank.output")
     notes = []
     if n < MIN_SAMPLES:
         notes.append(f"samples raised from {n} to {MIN_SAMPLES}, the fewest that keep the expected variance "
@@ -646,13 +657,15 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     else:
         values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
         outputs = model_evaluate(study, values)
+        if point is not None:  # a whole_body time course at a time: "infused_retained_fraction at 60 min"
+            outputs[output] = values_at(study, point, values)
         y = np.asarray(outputs[output], dtype=float)
         # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
         pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
         if getattr(study, "observations", None):
             notes.append("figures are from the prior (--from-prior): the observations are not folded in")
     doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method, executor=executor)
-    unit = output_unit(output)
+    unit = point.unit if point is not None else output_unit(output)
     notes += doc.pop("notes", [])
     doc = {"output": output, "samples": int(len(y)), "seed": seed, "from": "prior" if posterior is None else
            "posterior", **doc, "notes": notes,

@@ -34,6 +34,7 @@ import numpy as np
 
 from uncertainty.analyses.given_data import first_order_given_data as first_order_given_data
 from uncertainty.analyses.propagate import available_outputs, model_evaluator, section_settings, study_meta
+from uncertainty.analyses.propagate.timeline import timepoint_evaluator
 from uncertainty.analyses.sampling import (
     correlation_of,
     cube_columns,
@@ -47,6 +48,7 @@ from uncertainty.analyses.sensitivity.result import SensitivityResult
 from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.core.parallel import ChunkedModel, InProcess
 from uncertainty.forms.catalogue import output_unit
+from uncertainty.study.endpoints import parse_time_endpoint
 
 METHODS = ("sobol", "morris", "shapley")
 DEFAULT_SAMPLES = {"sobol": 8192, "morris": 64, "shapley": 8192}
@@ -128,16 +130,23 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
                        evaluate: Callable | None = None) -> Problem:
     """A problem over a study's quantities for one output.
 
+    ``output`` is a model output or, for a ``whole_body`` study, a time course at a time
+    (``"infused_retained_fraction at 60 min"``, ``uncertainty.study.endpoints``; ``evaluate`` is then not used).
     Players are the study's uncertain inputs (``study.names``) and, in the ``individual`` layer,
     every quantity with a between-subject spread; a quantity's typical and between-subject columns
     form one group (the individual's value of that quantity).
     """
 
-    evaluate = model_evaluator(evaluate)
-    have = available_outputs(study, evaluate)
-    if output not in have:
-        raise InputError(f"no such output; the model gives {', '.join(have)}",
-                         file=_file(study), key="sensitivity.output", value=output)
+    point = parse_time_endpoint(output, getattr(study, "timeline", None), file=_file(study),
+                                key="sensitivity.output")
+    if point is not None:  # a whole_body time course at a time: "infused_retained_fraction at 60 min"
+        evaluate = timepoint_evaluator(point)
+    else:
+        evaluate = model_evaluator(evaluate)
+        have = available_outputs(study, evaluate)
+        if output not in have:
+            raise InputError(f"no such output; the model gives {', '.join(have)}",
+                             file=_file(study), key="sensitivity.output", value=output)
     cols = cube_columns(study, layer)
     players: list[str] = []
     for s, _ in cols:
@@ -151,7 +160,7 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
     def model(z: np.ndarray) -> np.ndarray:
         return np.asarray(evaluate(study, from_scores(study, z, layer))[output], dtype=float)
 
-    unit = output_unit(output)
+    unit = point.unit if point is not None else output_unit(output)
     return Problem(players=players, groups=groups, corr=corr, model=model, output=output, unit=unit)
 
 

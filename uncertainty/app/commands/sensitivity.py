@@ -17,7 +17,8 @@ from uncertainty.study import load_study
               help="Sobol' (independent inputs), Morris screening, or Shapley effects (correlated inputs).")
 @click.option("--samples", type=Count(SENSITIVITY_BYTES), default=None,
               help="Base samples N (Sobol', a power of two), trajectories (Morris) or random orders (Shapley).")
-@click.option("--output", default=None, help="The model output to analyse (default Jv).")
+@click.option("--output", default=None,
+              help="The model output to analyse (default Jv); whole_body: 'NAME at 60 min' or 'NAME over time'.")
 @click.option("--layer", type=click.Choice(["individual", "typical"]), default=None,
               help="The individual (default: typical and between-subject parts together) or the typical subject.")
 @click.option("--second-order", is_flag=True, default=None, help="Also Sobol' second-order indices.")

@@ -1,0 +1,145 @@
+"""Whole-body time courses read at a chosen time: parsing, refusals and the values the analyses see.
+
+Small studies (timeline 60 min, a handful of draws) so each test stays well under a second or two.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from uncertainty.analyses.design import _endpoint, parse_design
+from uncertainty.analyses.propagate.timeline import run_layer, values_at, values_over_time
+from uncertainty.analyses.sampling import draw
+from uncertainty.analyses.sensitivity import problem_from_study
+from uncertainty.app.cli import main
+from uncertainty.core.errors import StudyError
+from uncertainty.physiology.whole_body import TIMELINE_UNITS
+from uncertainty.study import Study
+from uncertainty.study.endpoints import parse_time_endpoint
+
+
+def _doc(**sections) -> dict:
+    # invented settings: a 73 kg subject given 1000 mL of crystalloid over 20 min, 60 min of timeline
+    doc = {"study": {"tissue": "skeletal_muscle", "model": "whole_body", "body_mass": "73 kg"},
+           "interventions": [{"kind": "infusion", "fluid": "crystalloid", "volume": "1000 mL", "start": "0 min",
+                              "duration": "20 min"}],
+           "timeline": {"end": "60 min", "report_every": "10 min", "draws": 16}}
+    doc.update(sections)
+    return doc
+
+
+def _toml(doc: dict) -> str:
+    def val(x):
+        if isinstance(x, dict):
+            return "{ " + ", ".join(f"{k} = {val(v)}" for k, v in x.items()) + " }"
+        return json.dumps(x) if isinstance(x, str | list) else repr(x)
+
+    lines = []
+    for name, table in doc.items():
+        for row in table if isinstance(table, list) else [table]:
+            lines.append(f"[[{name}]]" if isinstance(table, list) else f"[{name}]")
+            lines += [f"{k} = {val(v)}" for k, v in row.items()]
+    return "\n".join(lines) + "\n"
+
+
+@pytest.fixture(scope="module")
+def study() -> Study:
+    return Study.from_dict(_doc())
+
+
+@pytest.mark.parametrize("text, name, minutes", [
+    ("infused_retained_fraction at 60 min", "infused_retained_fraction", 60.0),
+    ("hb_ratio at 0.5 h", "hb_ratio", 30.0),
+    ("  urine_volume   at 90 s ", "urine_volume", 1.5),
+])
+def test_endpoint_at_a_time_is_parsed_in_minutes(study: Study, text: str, name: str, minutes: float) -> None:
+    p = parse_time_endpoint(text, study.timeline, key="sensitivity.output")
+    assert p is not None and p.name == name and p.time_min == pytest.approx(minutes)
+    assert p.unit == TIMELINE_UNITS[name]
+
+
+def test_steady_outputs_are_not_time_endpoints(study: Study) -> None:
+    assert parse_time_endpoint("Jv", study.timeline) is None
+    over = parse_time_endpoint("hb_ratio over time", study.timeline, over_time=True)
+    assert over is not None and over.time_min is None
+
+
+@pytest.mark.parametrize("section, key, value", [
+    ("sensitivity", "output", "hb_ratio at 61 min"),                      # beyond the end (60 min)
+    ("sensitivity", "output", "hb_ratio at -5 min"),                      # negative
+    ("sensitivity", "output", "hb_ratio at 0 min"),                       # not after 0
+    ("sensitivity", "output", "hb_ratio at 30 mmHg"),                     # not a time unit
+    ("sensitivity", "output", "hb_ratio at soon"),                        # not a quantity
+    ("sensitivity", "output", "haemoglobin at 30 min"),                   # no such time course
+    ("sensitivity", "output", "hb_ratio"),                                # a time course without a time
+    ("rank", "output", "hb_ratio over time"),                             # over time: sensitivity only
+    ("rank", "output", "urine_volume at 2 h"),
+    ("design", "endpoint", "plasma_volume_change at 1 day"),
+])
+def test_bad_endpoint_times_exit_2_naming_key_and_value(tmp_path: Path, section: str, key: str, value: str) -> None:
+    table = {key: value}
+    if section == "design":
+        table["effect"] = {"parameter": "Kf", "multiply": 0.7}
+    path = tmp_path / "bad.toml"
+    path.write_text(_toml(_doc(**{section: table})), encoding="utf-8")
+    res = CliRunner().invoke(main, ["check", str(path)])
+    assert res.exit_code == 2, res.output
+    assert f"{section}.{key}" in res.output and value.split(" at ")[0] in res.output
+    assert "Traceback" not in res.output
+
+
+def test_time_endpoint_needs_a_whole_body_study() -> None:
+    with pytest.raises(StudyError) as exc:
+        parse_time_endpoint("hb_ratio at 30 min", None, key="rank.output")
+    assert exc.value.key == "rank.output"
+
+
+def test_cli_output_option_beyond_the_end_exits_2(tmp_path: Path) -> None:
+    path = tmp_path / "wb.toml"
+    path.write_text(_toml(_doc()), encoding="utf-8")
+    res = CliRunner().invoke(main, ["sensitivity", str(path), "--output", "hb_ratio at 3 h"])
+    assert res.exit_code == 2 and "sensitivity.output" in res.output and "Traceback" not in res.output
+
+
+def test_value_at_a_report_time_is_the_timeline_draw(study: Study) -> None:
+    # the same draws through propagate's timeline (run_layer) and through values_at: equal to rounding
+    sim = run_layer(study, "typical", 16, 7)
+    vals = draw(study, 16, method="qmc", seed=7, layer="typical")
+    for name, t in (("infused_retained_fraction", 30.0), ("hb_ratio", 60.0), ("urine_volume", 10.0)):
+        p = parse_time_endpoint(f"{name} at {t:g} min", study.timeline)
+        i = sim["times_min"].index(t)
+        np.testing.assert_allclose(values_at(study, p, vals), sim[name][i], rtol=1e-12, atol=1e-12)
+    times, y = values_over_time(study, "hb_ratio", vals)
+    assert times == sim["times_min"][1:] and y.shape == (16, len(times))
+    np.testing.assert_allclose(y[:, -1], sim["hb_ratio"][-1], rtol=1e-12)
+
+
+def test_value_between_report_times_lies_between_its_neighbours(study: Study) -> None:
+    # the plasma volume change rises during the 20-min infusion: its value at 15 min lies between 10 and 20 min
+    vals = draw(study, 8, method="qmc", seed=3, layer="typical")
+    at = {t: values_at(study, parse_time_endpoint(f"plasma_volume_change at {t} min", study.timeline), vals)
+          for t in (10, 15, 20)}
+    assert np.all(at[10] < at[15]) and np.all(at[15] < at[20])
+
+
+def test_sensitivity_problem_reads_the_time_course(study: Study) -> None:
+    prob = problem_from_study(study, output="hb_ratio at 30 min", layer="typical")
+    assert prob.unit == "1" and prob.output == "hb_ratio at 30 min"
+    z = np.random.default_rng(0).standard_normal((4, prob.k))
+    y = prob.model(z)
+    assert y.shape == (4,) and np.all((0.5 < y) & (y < 1.0))  # haemodilution after 1 L of crystalloid
+
+
+def test_design_endpoint_at_a_time(study: Study) -> None:
+    s = Study.from_dict(_doc(design={"endpoint": "hb_ratio at 60 min", "effect": {"parameter": "Kf",
+                                                                                   "multiply": 0.7}}))
+    spec = parse_design(s)
+    assert spec.endpoint_kind == "output" and spec.timepoint is not None and spec.timepoint.time_min == 60.0
+    vals = draw(s, 6, method="mc", seed=1, layer="individual")
+    y = _endpoint(s, spec, {k: v.reshape(2, 3) for k, v in vals.items()}, (2, 3))
+    np.testing.assert_allclose(y.ravel(), values_at(s, spec.timepoint, vals), rtol=1e-12)
