@@ -143,3 +143,40 @@ def test_design_endpoint_at_a_time(study: Study) -> None:
     vals = draw(s, 6, method="mc", seed=1, layer="individual")
     y = _endpoint(s, spec, {k: v.reshape(2, 3) for k, v in vals.items()}, (2, 3))
     np.testing.assert_allclose(y.ravel(), values_at(s, spec.timepoint, vals), rtol=1e-12)
+
+
+# --- observed points on the fan charts ------------------------------------------------------------------------
+
+HB_ROWS = "subject,time_min,value\nA,0,14.0\nA,30,12.6\nA,60,13.3\nB,10,15.0\nB,50,13.5\n"  # invented readings
+
+
+def test_fan_chart_overlays_the_observed_haemoglobin(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from uncertainty.analyses.propagate import figure
+    from uncertainty.analyses.propagate.timeline import timeline
+
+    (tmp_path / "hb.csv").write_text(HB_ROWS, encoding="utf-8")
+    s = Study.from_dict(_doc(observations=[{"kind": "haemoglobin", "file": "hb.csv", "sd": 0.2, "unit": "g/dL"}]),
+                        base_dir=tmp_path)
+    tl = timeline(s, draws=16)
+    obs = tl["observed"]["hb_ratio"]
+    assert obs["relative_to_first"] and obs["subjects"] == ["A", "A", "A", "B", "B"]
+    np.testing.assert_allclose(obs["times_min"], [0, 30, 60, 10, 50])
+    np.testing.assert_allclose(obs["values"], [1.0, 12.6 / 14.0, 13.3 / 14.0, 1.0, 13.5 / 15.0])
+    json.dumps(tl)  # stored in results.json as it is
+
+    shown = {}
+
+    def keep(fig, out_dir, stem):
+        shown["fig"] = fig
+        return [stem]
+
+    monkeypatch.setattr(figure, "save_figure", keep)
+    two = {layer: {k: tl[layer][k] for k in ("hb_ratio", "urine_volume")} for layer in ("typical", "individual")}
+    figure.plot_timeline({**tl, **two}, str(tmp_path))  # two panels keep the test light
+    ax = next(a for a in shown["fig"].axes if a.get_title().startswith("hb_ratio"))
+    lines = [ln for ln in ax.get_lines() if ln.get_marker() not in (None, "None", "")]
+    assert len(lines) == 2  # one marker line per subject
+    pts = sorted((float(x), float(y)) for ln in lines for x, y in zip(*ln.get_data(), strict=True))
+    assert pts == sorted(zip(obs["times_min"], obs["values"], strict=True))
+    other = next(a for a in shown["fig"].axes if a.get_title().startswith("urine_volume"))
+    assert not [ln for ln in other.get_lines() if ln.get_marker() not in (None, "None", "")]

@@ -77,7 +77,10 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "form."),
     ("timeline", "[timeline]", "TimelineSection",
      "How long the `whole_body` time courses run and how often `propagate` reports them (its `timeline` entry: "
-     "median and 95% interval per reported time for the typical subject and the individual)."),
+     "median and 95% interval per reported time for the typical subject and the individual; with timed "
+     "`haemoglobin` observations also `observed`: each subject's readings over its first, drawn on the fan chart). "
+     "`[sensitivity] output`, `[rank] output` and `[design] endpoint` read a time course at a time written "
+     "\"NAME at TIME\", e.g. \"infused_retained_fraction at 60 min\"."),
     ("schedule", "[schedule]", "ScheduleSection",
      "Venous-cuff measurement schedule: the cuff pressures and K reading times that minimise the expected "
      "posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision), against equal "

@@ -50,8 +50,9 @@ def plot_distribution(result: Any, out_dir: str, output: str = "Jv") -> list[str
 def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> list[str]:
     """Fan charts of a ``whole_body`` timeline: for each reported time course the median line and the 95%
     band over time (min) for the typical subject (``layer``), units as ``tl["units"]``; the interventions are
-    shaded. Observed points are drawn when ``tl["observed"]`` maps a name to ``{"times_min", "values"}``.
-    PNG and SVG paths."""
+    shaded. Observed points are drawn when ``tl["observed"]`` maps a name to ``{"times_min", "values"}`` (optional
+    ``subjects``: one marker line per subject; ``relative_to_first``: readings over each subject's first, said in the
+    legend). PNG and SVG paths."""
     plt = pyplot()
     names = list((tl.get(layer) or {}).keys())
     t = np.asarray(tl.get("times_min") or [], dtype=float)
@@ -70,7 +71,7 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> l
             ax.axvspan(a, b, color="#dd3333" if iv["kind"] == "bleed" else "#3b6ea5", alpha=0.08, lw=0)
         obs = (tl.get("observed") or {}).get(name)
         if obs:
-            ax.plot(obs["times_min"], obs["values"], "o", color=STYLE["interval"], ms=3, label="observed")
+            _observed(ax, obs)
         unit = (tl.get("units") or {}).get(name, "")
         ax.set_title(f"{name} ({unit})" if unit and unit != "1" else name, fontsize=9)
         ax.set_xlabel("time (min)", fontsize=8)
@@ -79,3 +80,21 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> l
         ax.set_visible(False)
     fig.tight_layout()
     return save_figure(fig, out_dir, "propagate_timeline")
+
+
+#: Marker cycle for the subjects of observed points.
+_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "*")
+
+
+def _observed(ax: Any, obs: dict[str, Any]) -> None:
+    """Observed points on one fan chart: each subject's readings joined by a thin line, a marker per subject (the
+    first ten subjects get their own marker, the rest share them); the legend says how they are scaled."""
+    t = np.asarray(obs.get("times_min") or [], dtype=float)
+    y = np.asarray([np.nan if v is None else v for v in obs.get("values") or []], dtype=float)
+    subjects = list(obs.get("subjects") or [""] * t.size)
+    label = "observed (over each subject's first)" if obs.get("relative_to_first") else "observed"
+    for k, s in enumerate(dict.fromkeys(subjects)):
+        idx = [i for i, x in enumerate(subjects) if x == s]
+        ax.plot(t[idx], y[idx], marker=_MARKERS[k % len(_MARKERS)], color=STYLE["interval"], ms=3.5, lw=0.6,
+                alpha=0.8, label=label if k == 0 else None)
+    ax.legend(fontsize=7, frameon=False)

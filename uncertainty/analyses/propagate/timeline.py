@@ -48,6 +48,56 @@ def bed_ratios(tissue: str) -> dict[str, float]:
     return out
 
 
+#: Observation kinds drawn on a fan chart: kind -> (time course, how its readings are shown). ``first``: each
+#: subject's readings over its earliest one (as the kind's likelihood takes them, ``haemoglobin``); ``as_read``: the
+#: readings themselves in the time course's unit.
+OBSERVED_COURSES: dict[str, tuple[str, str]] = {"haemoglobin": ("hb_ratio", "first"),
+                                                "urine": ("urine_volume", "as_read")}
+
+
+def observed_points(study: Any) -> dict[str, dict[str, Any]]:
+    """The study's timed observations as points on the fan charts of their time courses.
+
+    Parameters
+    ----------
+    study : Study
+        A ``whole_body`` study; its ``[[observations]]`` of the kinds in :data:`OBSERVED_COURSES` with a data file
+        (subject, time, value; canonical units) are read.
+
+    Returns
+    -------
+    dict
+        time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin`` each subject's reading over
+        its earliest one, 1; for ``urine`` mL), ``subjects`` (list of labels, "" for none), ``kinds`` (list),
+        ``relative_to_first`` (bool). Readings without a time are left out; empty without such observations.
+    """
+    out: dict[str, dict[str, Any]] = {}
+    for ob in getattr(study, "observations", None) or []:
+        kind = getattr(ob, "kind", None)
+        data = getattr(ob, "data", None)
+        if kind not in OBSERVED_COURSES or data is None or "value" not in data:
+            continue
+        name, how = OBSERVED_COURSES[kind]
+        value = np.asarray(data["value"], dtype=float)
+        n = value.size
+        time = np.asarray(data.get("time_min") or [np.nan] * n, dtype=float)
+        subject = [str(x) if x is not None else "" for x in (data.get("subject") or [None] * n)]
+        keep = np.isfinite(time) & np.isfinite(value)
+        entry = out.setdefault(name, {"times_min": [], "values": [], "subjects": [], "kinds": [],
+                                      "relative_to_first": how == "first"})
+        for label in dict.fromkeys(subject):
+            idx = [k for k in range(n) if subject[k] == label and keep[k]]
+            idx.sort(key=lambda k: time[k])
+            if not idx:
+                continue
+            ref = value[idx[0]] if how == "first" else 1.0
+            entry["times_min"] += [float(time[k]) for k in idx]
+            entry["values"] += [float(value[k] / ref) for k in idx]
+            entry["subjects"] += [label] * len(idx)
+            entry["kinds"] += [kind] * len(idx)
+    return {k: v for k, v in out.items() if v["times_min"]}
+
+
 def _summary(series: list[np.ndarray]) -> dict[str, list[Any]]:
     med, ci = [], []
     for y in series:
@@ -206,7 +256,8 @@ def timeline(study: Any, seed: Any = None, draws: int | None = None, executor: A
     -------
     dict
         ``times_min`` (list), ``units`` (name -> unit), ``typical`` and ``individual`` (name -> ``median``
-        list and ``ci95`` list of [low, high]), ``draws`` (per layer), ``interventions`` (as resolved).
+        list and ``ci95`` list of [low, high]), ``draws`` (per layer), ``interventions`` (as resolved) and, with
+        timed observations, ``observed`` (:func:`observed_points`).
     """
     plan = study.timeline
     seed = getattr(study, "seed", None) if seed is None else seed
@@ -216,6 +267,9 @@ def timeline(study: Any, seed: Any = None, draws: int | None = None, executor: A
                                               "duration_min": d.duration, "protein_g_per_dL": d.protein}
                                              for d in plan.doses],
                            "body_mass_kg": plan.body_mass_kg}
+    observed = observed_points(study)
+    if observed:
+        out["observed"] = observed
     layers = ("typical", "individual")
     task = _Layer(study, n, seed)
     done = [task(layer) for layer in layers] if executor is None else \
