@@ -180,3 +180,33 @@ def test_fan_chart_overlays_the_observed_haemoglobin(tmp_path: Path, monkeypatch
     assert pts == sorted(zip(obs["times_min"], obs["values"], strict=True))
     other = next(a for a in shown["fig"].axes if a.get_title().startswith("urine_volume"))
     assert not [ln for ln in other.get_lines() if ln.get_marker() not in (None, "None", "")]
+
+
+# --- sensitivity across time -----------------------------------------------------------------------------------
+
+def test_sensitivity_over_time_equals_the_index_at_each_time(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # Shapley (the prior set correlates inputs), tiny samples: the point is the bookkeeping, not the indices.
+    # One set of runs gives every time; each equals the analysis of that time alone (same seed, same design).
+    from uncertainty.analyses.sensitivity import sensitivity
+
+    doc = _doc()
+    doc["timeline"]["end"] = "20 min"
+    s = Study.from_dict(doc)
+    kw = {"method": "shapley", "samples": 8, "replicates": 2, "layer": "typical"}
+    over = sensitivity(s, output="hb_ratio over time", **kw)
+    at10 = sensitivity(s, output="hb_ratio at 10 min", **kw)
+    ot = over.over_time
+    assert ot["times_min"] == [10.0, 20.0] and ot["key"] == "Sh"
+    for p in over.players:
+        assert ot["indices"][p]["Sh"][0] == pytest.approx(at10.indices[p]["Sh"], rel=1e-12)
+    back = type(over).from_dict(json.loads(json.dumps(over.to_dict())))
+    assert back.over_time["times_min"] == ot["times_min"]
+    from uncertainty.analyses.sensitivity import figure
+
+    shown = {}
+    monkeypatch.setattr(figure, "save_figure", lambda fig, out, stem: shown.update(fig=fig, stem=stem) or [stem])
+    figure.plot_over_time(over, str(tmp_path))
+    assert shown["stem"] == "sensitivity_hb_ratio_over_time"
+    lines = shown["fig"].axes[0].get_lines()
+    assert len(lines) == 2 * min(6, len(over.players))  # Sh solid and S1 dashed per leading input
+    np.testing.assert_allclose(lines[0].get_xdata(), [10.0, 20.0])

@@ -34,7 +34,7 @@ import numpy as np
 
 from uncertainty.analyses.given_data import first_order_given_data as first_order_given_data
 from uncertainty.analyses.propagate import available_outputs, model_evaluator, section_settings, study_meta
-from uncertainty.analyses.propagate.timeline import timepoint_evaluator
+from uncertainty.analyses.propagate.timeline import timepoint_evaluator, values_over_time
 from uncertainty.analyses.sampling import (
     correlation_of,
     cube_columns,
@@ -889,10 +889,19 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
     if layer not in ("individual", "typical"):
         raise InputError("layer must be individual or typical", file=_file(study), key="sensitivity.layer",
                          value=layer)
-    problem = problem_from_study(study, output=output, layer=layer, evaluate=evaluate)
-    # model runs in fixed row chunks through the executor (also in-process: a matrix product's last
-    # bits depend on the rows it is given, so every executor sees the same chunks)
-    problem = replace(problem, model=ChunkedModel(problem.model, executor or InProcess(), label="sensitivity"))
+    point = parse_time_endpoint(output, getattr(study, "timeline", None), file=_file(study),
+                                key="sensitivity.output", over_time=True)
+    replay: _Replay | None = None
+    if point is not None and point.time_min is None:  # "NAME over time": one set of runs, indices per time
+        problem = problem_from_study(study, output=f"{point.name} at {study.timeline.end:g} min", layer=layer)
+        replay = _Replay(ChunkedModel(_course_model(study, point.name, layer), executor or InProcess(),
+                                      label="sensitivity"), over_time_indices(study.timeline))
+        problem = replace(problem, output=output, model=replay.column(0))
+    else:
+        problem = problem_from_study(study, output=output, layer=layer, evaluate=evaluate)
+        # model runs in fixed row chunks through the executor (also in-process: a matrix product's last
+        # bits depend on the rows it is given, so every executor sees the same chunks)
+        problem = replace(problem, model=ChunkedModel(problem.model, executor or InProcess(), label="sensitivity"))
     notes = []
     if method is None:
         method = "sobol" if problem.independent() else "shapley"
@@ -904,16 +913,23 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
                          key="sensitivity.method", value=method)
     if samples is None:
         samples = sec.get("samples", DEFAULT_SAMPLES[method])
-    try:
+    if replay is not None and (tol is not None or max_samples is not None):
+        raise InputError("a tolerance (tol, max-samples) is not offered over time; give a sample size",
+                         file=_file(study), key="sensitivity.output", value=output)
+
+    def run(prob: Problem) -> SensitivityResult:
         if method == "sobol":
-            res = sobol_core(problem, samples, seed=seed, replicates=replicates, second_order=second_order,
-                             tol=tol, max_samples=max_samples)
-        elif method == "morris":
-            res = morris_core(problem, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS), tol=tol,
-                              max_samples=max_samples)
-        else:
-            res = shapley_core(problem, samples, seed=seed, replicates=replicates, tol=tol,
+            return sobol_core(prob, samples, seed=seed, replicates=replicates, second_order=second_order,
+                              tol=tol, max_samples=max_samples, convergence=replay is None)
+        if method == "morris":
+            return morris_core(prob, samples, seed=seed, levels=sec.get("levels", MORRIS_LEVELS), tol=tol,
                                max_samples=max_samples)
+        return shapley_core(prob, samples, seed=seed, replicates=replicates, tol=tol, max_samples=max_samples)
+
+    try:
+        res = run(problem)
+        if replay is not None:
+            res = _over_time(res, replay, problem, float(study.timeline.report_every), run)
     except QualityGateError as exc:
         if isinstance(exc.result, SensitivityResult):
             _finish(exc.result, notes, layer, study)
@@ -923,6 +939,87 @@ def sensitivity(study: Any, method: str | None = None, samples: int | None = Non
             raise InputError(exc.reason, file=_file(study), key=exc.key, value=exc.value) from exc
         raise
     return _finish(res, notes, layer, study)
+
+
+#: Most report times at which ``NAME over time`` gives indices (every k-th report time, the last one always).
+MAX_TIMES = 24
+
+
+def over_time_indices(plan: Any) -> list[int]:
+    """Which report times (indices into the times after 0) ``NAME over time`` analyses: every k-th, at most
+    :data:`MAX_TIMES`, ending with the timeline's last.
+
+    Parameters
+    ----------
+    plan : TimelinePlan
+        The study's timeline (``end``, ``report_every`` in min).
+
+    Returns
+    -------
+    list of int
+    """
+    n = max(1, math.ceil(plan.end / plan.report_every - 1e-9))
+    k = math.ceil(n / MAX_TIMES)
+    return list(range(n - 1, -1, -k))[::-1]
+
+
+def _course_model(study: Any, name: str, layer: str) -> Callable[[np.ndarray], np.ndarray]:
+    """Normal scores (n, k) -> the time course ``name`` at every report time after 0, (n, times)."""
+    def model(z: np.ndarray) -> np.ndarray:
+        return values_over_time(study, name, from_scores(study, z, layer))[1]
+
+    return model
+
+
+class _Replay:
+    """One set of model runs for every report time: the first pass (column 0) evaluates the whole time course
+    and keeps it, and the later passes, which draw the same points in the same order (same seed), read their
+    column from what was kept (refused if the points differ)."""
+
+    def __init__(self, full: Callable[[np.ndarray], np.ndarray], columns: list[int]) -> None:
+        self.full, self.columns = full, columns
+        self.kept: list[tuple[tuple[int, ...], int, np.ndarray]] = []
+        self.pos = 0
+
+    def column(self, j: int) -> Callable[[np.ndarray], np.ndarray]:
+        """The model at the ``j``-th analysed time (0: evaluate and keep)."""
+        self.pos = 0
+        col = self.columns[j]
+
+        def model(z: np.ndarray) -> np.ndarray:
+            z = np.asarray(z)
+            if j == 0:
+                Y = np.asarray(self.full(z), dtype=float)
+                self.kept.append((z.shape, hash(z.tobytes()), Y[:, self.columns]))
+                return Y[:, col]
+            shape, h, Y = self.kept[self.pos]
+            self.pos += 1
+            if shape != z.shape or h != hash(z.tobytes()):
+                raise RuntimeError("sensitivity over time: the design was not drawn again in the same order")
+            return Y[:, j]
+
+        return model
+
+
+def _over_time(first: SensitivityResult, replay: _Replay, problem: Problem, every: float,
+               run: Callable[[Problem], SensitivityResult]) -> SensitivityResult:
+    """The indices at every analysed report time (``over_time`` of the result: ``times_min``, ``key`` and per
+    player each index and its interval per time); the headline indices are those at the last time."""
+    results = [first] + [run(replace(problem, model=replay.column(j))) for j in range(1, len(replay.columns))]
+    last = results[-1]
+    keys = [k for k in ("S1", "ST", "Sh", "mu_star") if k in next(iter(last.indices.values()))]
+    series: dict[str, dict[str, list[Any]]] = {}
+    for p in last.players:
+        series[p] = {}
+        for key in keys:
+            series[p][key] = [r.indices[p][key] for r in results]
+            series[p][f"{key}_ci"] = [r.indices[p].get(f"{key}_ci") for r in results]
+    times = [(c + 1) * every for c in replay.columns]
+    last.over_time = {"times_min": times, "key": last.rank_key, "indices": series}
+    last.warnings = sorted({w for r in results for w in r.warnings})
+    last.notes.append(f"indices at {len(times)} report times from {times[0]:g} to {times[-1]:g} min on one set of "
+                      f"model runs; the table and ranking are those at {times[-1]:g} min")
+    return last
 
 
 def _finish(res: SensitivityResult, notes: list[str], layer: str, study: Any) -> SensitivityResult:

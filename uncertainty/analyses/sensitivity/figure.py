@@ -64,3 +64,36 @@ def plot_convergence(result: Any, out_dir: str) -> list[str]:
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
     return save_figure(fig, out_dir, f"sensitivity_{result.output}_convergence")
+
+
+def plot_over_time(result: Any, out_dir: str, most: int = 6) -> list[str]:
+    """Indices against time for ``NAME over time``: the ranking index (ST, Sh or mu*) of the ``most`` players
+    that reach the largest values, each with its 95% band, and S1 dashed (Sobol', Shapley); PNG and SVG paths."""
+    plt = pyplot()
+    ot = result.over_time
+    t = np.asarray(ot["times_min"], dtype=float)
+    key = ot["key"]
+    ix = ot["indices"]
+
+    def arr(v: Any) -> np.ndarray:
+        return np.array([np.nan if x is None else x for x in v], dtype=float)
+
+    top = sorted(ix, key=lambda p: -np.nanmax(np.append(arr(ix[p][key]), -np.inf)))[:most]
+    fig, ax = plt.subplots(figsize=(7.5, 3.6))
+    cycle = plt.rcParams["axes.prop_cycle"].by_key().get("color", ["#333333"])
+    for k, p in enumerate(top):
+        c = cycle[k % len(cycle)]
+        ax.plot(t, arr(ix[p][key]), color=c, lw=1.6, label=f"{p} {key}")
+        ci = np.array([[np.nan, np.nan] if v is None else v for v in ix[p].get(f"{key}_ci") or []], dtype=float)
+        if ci.size:
+            ax.fill_between(t, ci[:, 0], ci[:, 1], color=c, alpha=0.15, lw=0)
+        if key != "S1" and "S1" in ix[p]:
+            ax.plot(t, arr(ix[p]["S1"]), color=c, lw=1.0, ls="--")
+    ax.set_xlabel("time (min)")
+    ax.set_ylabel(key + ("" if key == "mu_star" else " (share of variance)"))
+    ax.set_title(f"{result.output}: indices against time" + (" (S1 dashed)" if key != "mu_star" else ""),
+                 fontsize=9)
+    ax.spines[["top", "right"]].set_visible(False)
+    ax.legend(fontsize=7, frameon=False, ncol=2)
+    fig.tight_layout()
+    return save_figure(fig, out_dir, f"sensitivity_{result.output.replace(' over time', '')}_over_time")

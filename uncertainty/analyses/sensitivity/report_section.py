@@ -12,6 +12,8 @@ from uncertainty.core.formatting import fmt
 from uncertainty.core.html import escape, table
 
 CAPTIONS: tuple[Caption, ...] = (
+    ("over_time", "", "Indices against time: each leading input's ranking index (line, 95% band) and first-order "
+                      "index (dashed) of the time course at the report times, from one set of model runs."),
     ("convergence", "", "Each input's ranking index with its 95% band against the sample size: "
                         "flat, well separated lines mean the ranking has settled."),
     ("", "morris", "Morris screening: the mean absolute elementary effect (mu*) of each input on "

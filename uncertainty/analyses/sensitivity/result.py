@@ -6,7 +6,7 @@ from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
 from uncertainty.analyses.result import Result
-from uncertainty.analyses.sensitivity.figure import plot_indices
+from uncertainty.analyses.sensitivity.figure import plot_indices, plot_over_time
 from uncertainty.analyses.sensitivity.report_section import section_html
 from uncertainty.analyses.sensitivity.table import table
 from uncertainty.core.serialise import jsonable
@@ -45,6 +45,7 @@ class SensitivityResult(Result):
     tol: float | None = None
     converged: bool | None = None
     history: list[dict[str, Any]] = field(default_factory=list)
+    over_time: dict[str, Any] | None = None
 
     table_file: ClassVar[str] = "sensitivity_{output}.csv"
     table_index: ClassVar[bool] = True
@@ -68,6 +69,8 @@ class SensitivityResult(Result):
             doc["second_order"] = self.second_order
         if self.tol is not None:  # precision on demand: the tolerance, whether it was met, each size tried
             doc.update({"tol": self.tol, "converged": self.converged, "history": self.history})
+        if self.over_time is not None:  # "NAME over time": times_min, key, indices[player][index] per time
+            doc["over_time"] = self.over_time
         return doc
 
     def to_dataframe(self) -> Any:
@@ -86,8 +89,12 @@ class SensitivityResult(Result):
         return pd.DataFrame(rows).set_index("parameter")
 
     def plot(self, out_dir: str) -> list[str]:
-        """Write index bars with interval whiskers (and convergence, when present); PNG and SVG."""
-        return plot_indices(self, out_dir)
+        """Write index bars with interval whiskers (and convergence, when present; indices against time for
+        ``NAME over time``); PNG and SVG."""
+        paths = plot_indices(self, out_dir)
+        if self.over_time is not None:
+            paths += plot_over_time(self, out_dir)
+        return paths
 
     def table(self) -> str:
         """The plain-text table ``fluidshift sensitivity`` prints."""
@@ -117,4 +124,5 @@ class SensitivityResult(Result):
                    convergence=list(doc["convergence"]), second_order=doc.get("second_order"),
                    warnings=list(doc["warnings"]), notes=list(doc["notes"]), nan_draws=doc["nan_draws"],
                    layer=doc["layer"], seed=doc["seed"], study=dict(doc["study"]), tol=doc.get("tol"),
-                   converged=doc.get("converged"), history=list(doc.get("history") or []))
+                   converged=doc.get("converged"), history=list(doc.get("history") or []),
+                   over_time=doc.get("over_time"))
