@@ -210,3 +210,70 @@ def test_sensitivity_over_time_equals_the_index_at_each_time(tmp_path: Path, mon
     lines = shown["fig"].axes[0].get_lines()
     assert len(lines) == 2 * min(6, len(over.players))  # Sh solid and S1 dashed per leading input
     np.testing.assert_allclose(lines[0].get_xdata(), [10.0, 20.0])
+
+
+# --- the urine observation kind -------------------------------------------------------------------------------
+
+URINE_ROWS = "subject,time_min,value\nA,0,0\nA,30,0.12\nA,60,0.41\nB,20,0.05\nB,60,0.30\n"  # invented, in L
+
+
+def _urine_study(tmp_path: Path, rows: str = URINE_ROWS, **obs) -> Study:
+    (tmp_path / "urine.csv").write_text(rows, encoding="utf-8")
+    ob = {"kind": "urine", "file": "urine.csv", "sd": 0.02, "unit": "L", **obs}
+    return Study.from_dict(_doc(observations=[ob]), base_dir=tmp_path)
+
+
+def test_urine_readings_in_ml_after_time_0(tmp_path: Path) -> None:
+    from uncertainty.analyses.inference.observations import kind_module
+    from uncertainty.analyses.inference.observations.urine import design
+    from uncertainty.analyses.inference.problem import problem_from_study as inference_problem
+
+    problem = inference_problem(_urine_study(tmp_path))
+    obs = problem.observations[0]
+    kind_module(obs).validate(obs, problem)
+    d = design(obs, ["A", "B"])
+    np.testing.assert_allclose(d["value"], [120.0, 410.0, 50.0, 300.0])  # 1 L = 1000 mL
+    np.testing.assert_allclose(d["time"], [30.0, 60.0, 20.0, 60.0])
+    np.testing.assert_allclose(d["sd"], 20.0)
+    assert list(d["subject"]) == [0, 0, 1, 1]
+
+
+@pytest.mark.parametrize("rows, obs, key", [
+    ("subject,time_min,value\nA,30,0.1\nA,90,0.2\n", {}, "file"),         # after the timeline's 60 min
+    ("subject,time_min,value\nA,30,-0.1\n", {}, "file"),                   # negative volume
+    ("subject,time_min,value\nA,30,0.12\n", {"sd": None, "cv": 0.1}, "cv"),  # a normal error only
+])
+def test_urine_refusals(tmp_path: Path, rows: str, obs: dict, key: str) -> None:
+    from uncertainty.analyses.inference.observations import kind_module
+    from uncertainty.analyses.inference.problem import problem_from_study as inference_problem
+    from uncertainty.core.errors import InputError
+
+    with pytest.raises(InputError) as exc:
+        problem = inference_problem(_urine_study(tmp_path, rows, **obs))
+        o = problem.observations[0]
+        kind_module(o).validate(o, problem)
+    assert exc.value.key.startswith("observations[0]") and exc.value.key.endswith(key)
+
+
+def test_urine_prediction_is_the_timeline_course(tmp_path: Path) -> None:
+    # what the term interpolates (urine_course, here in numpy; the term builds the same in PyTensor with 2-min
+    # steps) against propagate's timeline of the same draws (0.5-min steps): equal to the Runge-Kutta error
+    from uncertainty.analyses.inference.observations.urine import urine_course
+    from uncertainty.forms.evaluate import input_values
+
+    s = _urine_study(tmp_path)
+    vals = draw(s, 8, method="qmc", seed=5, layer="typical")
+    sim = run_layer(s, "typical", 8, 5)
+    c = urine_course(input_values(s, vals), s, np)
+    assert c["times_min"] == sim["times_min"]
+    for got, want in zip(c["urine_volume"], sim["urine_volume"], strict=True):
+        np.testing.assert_allclose(got, want, rtol=1e-4, atol=1e-3)  # mL
+    assert float(np.min(sim["urine_volume"][-1])) > 0.0
+
+
+def test_urine_points_on_the_fan_chart(tmp_path: Path) -> None:
+    from uncertainty.analyses.propagate.timeline import observed_points
+
+    obs = observed_points(_urine_study(tmp_path))["urine_volume"]
+    assert not obs["relative_to_first"] and obs["subjects"] == ["A", "A", "A", "B", "B"]
+    np.testing.assert_allclose(obs["values"], [0.0, 120.0, 410.0, 50.0, 300.0])

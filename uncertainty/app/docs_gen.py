@@ -78,7 +78,8 @@ SECTIONS: list[tuple[str, str, str, str]] = [
     ("timeline", "[timeline]", "TimelineSection",
      "How long the `whole_body` time courses run and how often `propagate` reports them (its `timeline` entry: "
      "median and 95% interval per reported time for the typical subject and the individual; with timed "
-     "`haemoglobin` observations also `observed`: each subject's readings over its first, drawn on the fan chart). "
+     "`haemoglobin` or `urine` observations also `observed`: each subject's Hb readings over its first, urine "
+     "volumes as read, drawn on the fan chart). "
      "`[sensitivity] output`, `[rank] output` and `[design] endpoint` read a time course at a time written "
      "\"NAME at TIME\", e.g. \"infused_retained_fraction at 60 min\"."),
     ("schedule", "[schedule]", "ScheduleSection",
@@ -147,7 +148,8 @@ MEANINGS: dict[str, str] = {
                          "omitting insensible losses (needs [study] tissue_mass; sd only); whole_body form only: "
                          "haemoglobin (serial blood Hb per subject from a data file with times, g/dL, sd only: each "
                          "subject's readings relative to its earliest one against the time course of Hb relative "
-                         "to rest)",
+                         "to rest) and urine (cumulative urine volume since time 0 per subject from a data file "
+                         "with times, mL, sd only, against the time course of urine)",
     "observations.name": "optional label",
     "observations.parameter": "the quantity a measurement reads (a trade symbol)",
     "observations.value": "the observed value, in `unit`",

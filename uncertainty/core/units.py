@@ -60,7 +60,7 @@ CANONICAL: dict[str, str] = {
     "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
     "M_lung": "g/kg", "EVLWI": "mL/kg",
     "k_clear": "1/min", "k_AFC": "1/min",
-    "body_weight": "kg", "fluid_balance": "L", "organ_share": "1",
+    "body_weight": "kg", "fluid_balance": "L", "organ_share": "1", "urine_volume": "mL",
 }
 
 _BASIS_RE = re.compile(r"\s*(?:/|\bper\b)\s*\(?\s*100\s*(g|mL|ml)\s*\)?\s*(?:tissue)?\s*$")

@@ -211,7 +211,7 @@ class Observation(BaseModel):
     model_config = STRICT_CONFIG
     kind: Literal["measurement", "lymph_flow", "clearance_rate", "swelling_rate", "volume_time_course",
                   "protein_ratio", "GFR", "RPF", "filtration_fraction", "body_weight", "fluid_balance",
-                  "haemoglobin"]
+                  "haemoglobin", "urine"]
     name: str | None = None
     parameter: str | None = None
     value: float | None = None
@@ -322,8 +322,8 @@ class Observation(BaseModel):
                 raise ValueError("give value or file, not both")
             if self.sd is None and self.cv is None and self.instrument is None and self.file is None:
                 raise ValueError("give the measurement error: sd, cv or instrument")
-        if k == "haemoglobin" and self.file is None:
-            raise ValueError("a haemoglobin observation needs a data file (subject, time, value)")
+        if k in ("haemoglobin", "urine") and self.file is None:
+            raise ValueError(f"a {k} observation needs a data file (subject, time, value)")
         if k in ("body_weight", "fluid_balance"):
             if self.file is None:
                 raise ValueError(f"a {k} observation needs a data file (subject, time, value)")
@@ -762,6 +762,7 @@ CSV_COLUMNS: dict[str, tuple[str, ...]] = {
     "body_weight": ("subject", "value"),
     "fluid_balance": ("subject", "value"),
     "haemoglobin": ("subject", "value"),
+    "urine": ("subject", "value"),
 }
 
 
@@ -781,4 +782,5 @@ OBS_NEEDS: dict[str, tuple[str, ...]] = {"swelling_rate": ("Pi", "L", "Pi_L0"), 
 #: Quantity whose canonical unit an observation's value takes.
 OBS_SYMBOL = {"lymph_flow": "JL", "swelling_rate": "swelling_rate", "protein_ratio": "ratio",
               "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF",
-              "body_weight": "body_weight", "fluid_balance": "fluid_balance", "haemoglobin": "Hb"}
+              "body_weight": "body_weight", "fluid_balance": "fluid_balance", "haemoglobin": "Hb",
+              "urine": "urine_volume"}

@@ -205,6 +205,7 @@ def _symbol_for(kind: str, parameter: str | None) -> str | None:
         "filtration_fraction": "FF",
         "body_weight": "body_weight",
         "fluid_balance": "fluid_balance",
+        "urine": "urine_volume",
     }.get(kind)
 
 

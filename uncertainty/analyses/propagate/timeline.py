@@ -15,11 +15,13 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.sampling import draw
+from uncertainty.core import units
 from uncertainty.forms.evaluate import input_values
 from uncertainty.forms.whole_body import timeline_parameters
 from uncertainty.physiology.whole_body import TIMELINE_UNITS, simulate
 from uncertainty.priors import prior_medians
 from uncertainty.study.endpoints import TimePoint
+from uncertainty.study.schema import OBS_SYMBOL
 
 #: The prior set of the second bed.
 SKIN_SET = "skin_subcutis"
@@ -68,8 +70,9 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
     -------
     dict
         time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin`` each subject's reading over
-        its earliest one, 1; for ``urine`` mL), ``subjects`` (list of labels, "" for none), ``kinds`` (list),
-        ``relative_to_first`` (bool). Readings without a time are left out; empty without such observations.
+        its earliest one, 1; for ``urine`` the volumes since 0, mL), ``subjects`` (list of labels, "" for none),
+        ``kinds`` (list), ``relative_to_first`` (bool). Readings without a time are left out; empty without such
+        observations.
     """
     out: dict[str, dict[str, Any]] = {}
     for ob in getattr(study, "observations", None) or []:
@@ -78,7 +81,9 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
         if kind not in OBSERVED_COURSES or data is None or "value" not in data:
             continue
         name, how = OBSERVED_COURSES[kind]
-        value = np.asarray(data["value"], dtype=float)
+        declared = getattr(ob, "declared_unit", None)
+        factor = 1.0 if how == "first" or not declared else units.to_canonical(OBS_SYMBOL[kind], 1.0, declared)
+        value = np.asarray(data["value"], dtype=float) * factor
         n = value.size
         time = np.asarray(data.get("time_min") or [np.nan] * n, dtype=float)
         subject = [str(x) if x is not None else "" for x in (data.get("subject") or [None] * n)]

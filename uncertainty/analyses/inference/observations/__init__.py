@@ -27,6 +27,7 @@ KINDS: dict[str, str] = {
     "body_weight": "fluid_balance",
     "fluid_balance": "fluid_balance",
     "haemoglobin": "haemoglobin",
+    "urine": "urine",
 }
 
 
