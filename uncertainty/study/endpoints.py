@@ -8,8 +8,8 @@ One way of writing, shared by ``[sensitivity] output``, ``[rank] output``, ``[de
 the study's ``[timeline] end``. ``[sensitivity] output`` also takes ``"NAME over time"``: the indices at every
 report time of the timeline (:data:`OVER_TIME`).
 
-A time-course name without a time, a name that is no time course, a time without a time unit, a negative or zero
-time or one beyond the end is refused (:class:`~uncertainty.core.errors.StudyError`, exit 2) naming the key and
+A name that is no time course, a time without a time unit, a negative or zero time or one beyond the end is
+refused (:class:`~uncertainty.core.errors.StudyError`, exit 2) naming the key and
 the value.
 """
 
@@ -62,8 +62,8 @@ class TimePoint:
 
 
 def is_time_endpoint(text: Any) -> bool:
-    """True when ``text`` is written as a time-course endpoint (``NAME at TIME``, ``NAME over time``) or names a
-    time course of the ``whole_body`` form.
+    """True when ``text`` is written as a time-course endpoint (``NAME at TIME``, ``NAME over time``). A bare name
+    is not (``lymph_flow`` is also an observation kind and a steady output).
 
     Parameters
     ----------
@@ -74,8 +74,7 @@ def is_time_endpoint(text: Any) -> bool:
     -------
     bool
     """
-    return isinstance(text, str) and (bool(_AT.match(text)) or bool(_OVER.match(text))
-                                      or text.strip() in TIMELINE_UNITS)
+    return isinstance(text, str) and (bool(_AT.match(text)) or bool(_OVER.match(text)))
 
 
 def _time_min(text: str, file: Any, key: str, value: str) -> float:
@@ -116,8 +115,8 @@ def parse_time_endpoint(text: str, timeline: Any, *, file: Any = None, key: str 
     Raises
     ------
     StudyError
-        (exit 2) A time-course endpoint in a study without a timeline; a time course named without a time; a name
-        that is no time course; ``over time`` where it is not offered; a time that is not a time with its unit, at or
+        (exit 2) A time-course endpoint in a study without a timeline; a name that is no time course; ``over time``
+        where it is not offered; a time that is not a time with its unit, at or
         before 0, or after the timeline's end.
     """
     if not is_time_endpoint(text):
@@ -128,9 +127,6 @@ def parse_time_endpoint(text: str, timeline: Any, *, file: Any = None, key: str 
                           "[[interventions]] and [timeline])", file, key, text)
     over = _OVER.match(text)
     at = _AT.match(text)
-    if over is None and at is None:
-        raise study_error(f"{text.strip()} is a time course: give a time, e.g. \"{text.strip()} at 60 min\"",
-                          file, key, text)
     name = (over or at).group("name")  # type: ignore[union-attr]
     if name not in TIMELINE_UNITS:
         raise study_error(f"no such time course; the whole_body form reports {names}", file, key, text)
