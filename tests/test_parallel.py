@@ -279,3 +279,11 @@ def test_schedule_search_in_batches_takes_the_moves_of_the_sequential_search() -
         results.append((res, prob.evaluations))
     assert results[0][0][0] != start  # the search moved (moves were accepted part-way through batches)
     assert results[1] == results[0] and results[2] == results[0]
+
+
+def test_progress_stays_silent_when_stderr_is_not_a_terminal(capsys: pytest.CaptureFixture[str]) -> None:
+    """A live bar redirected to a file or pipe would leave only blank lines there (common practice: no
+    progress bars in logs)."""
+    out = InProcess(progress=True).map(_draw, [1, 2, 3], seed=1, label="draws")
+    assert len(out) == 3
+    assert capsys.readouterr().err == ""

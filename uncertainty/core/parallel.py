@@ -32,6 +32,7 @@ import contextlib
 import hashlib
 import os
 import pickle
+import sys
 from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
@@ -86,11 +87,14 @@ class _Checkpoint:
 
 
 class _Progress:
-    """A rich progress bar on stderr (tasks done of all, time left), or nothing."""
+    """A rich progress bar on stderr (tasks done of all, time left), or nothing.
+
+    Nothing unless stderr is a terminal: redirected to a file or a pipe, a live bar leaves only blank lines.
+    """
 
     def __init__(self, show: bool, label: str, total: int, already: int) -> None:
         self.bar = None
-        if show and total > 0:
+        if show and total > 0 and sys.stderr.isatty():
             from rich.console import Console
             from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
