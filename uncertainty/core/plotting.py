@@ -7,6 +7,7 @@ the command line, stays light.
 from __future__ import annotations
 
 import os
+import re
 from typing import Any
 
 
@@ -36,7 +37,8 @@ def save_figure(fig: Any, out_dir: str, stem: str) -> list[str]:
     out_dir : str
         Folder, created when missing.
     stem : str
-        File name without extension.
+        File name without extension; every character other than a letter, digit, ``_``, ``-`` or ``.`` becomes
+        ``_`` (an endpoint such as ``"hb_ratio at 60 min"`` gives ``hb_ratio_at_60_min``).
 
     Returns
     -------
@@ -44,6 +46,7 @@ def save_figure(fig: Any, out_dir: str, stem: str) -> list[str]:
         The PNG and SVG paths.
     """
     os.makedirs(out_dir, exist_ok=True)
+    stem = re.sub(r"[^A-Za-z0-9_.-]", "_", stem)
     paths = []
     for ext in ("png", "svg"):
         p = os.path.join(out_dir, f"{stem}.{ext}")
