@@ -1289,6 +1289,10 @@ def design(study: Any, seed: int | None = None, exact: bool = False, executor: A
     typical = typical_values(study, spec) if output else None
     if sd is None:
         sd, effect = pilot_sd(study, spec, seed + 7919)
+        if not math.isfinite(sd) and spec.scale == "log":  # the pilot met values <= 0 that the probe missed
+            spec.scale_forced = "natural"
+            notes.append(f"{spec.endpoint} takes values <= 0 in this population: analysed on the natural scale")
+            sd, effect = pilot_sd(study, spec, seed + 7919)
         sd_method = (f"conditional at the typical values: simulated pilot of {PILOT_N} subjects per arm "
                      "(the effect from the same subjects without treatment)")
         notes.append("power_analytic and power_conditional are conditional on the typical subject (its values in "
