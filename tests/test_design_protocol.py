@@ -33,12 +33,12 @@ def _linear_jv(tmp_path, **design) -> Study:
     return Study.from_dict(doc, base_dir=tmp_path)
 
 
-def _kf_jv(tmp_path, **design) -> Study:
+def _kf_jv(tmp_path, pc_mean: float = 22.0, **design) -> Study:
     # a Kf-lowering drug on Jv: Jv is proportional to Kf, so at fixed typical values a ratio 0.75 lowers Jv by 25 %
     # (Starling 1896); the typical Pc is uncertain, so the expected power differs from the conditional one
     doc = {"study": {"title": "Kf drug on Jv (invented)", "tissue": "skeletal_muscle", "model": "classic",
                      "seed": 5},
-           "parameters": {"Pc": {"dist": "normal", "mean": 22.0, "sd": 3.0, "unit": "mmHg",
+           "parameters": {"Pc": {"dist": "normal", "mean": pc_mean, "sd": 3.0, "unit": "mmHg",
                                  "between_subject": {"sd": 2.0}},
                           "Kf": {"dist": "lognormal", "median": 0.004, "gsd": 1.3, "unit": "mL/min/mmHg/100g",
                                  "between_subject": {"cv": 0.35}},
@@ -200,6 +200,6 @@ def test_a_pilot_meeting_values_at_or_below_zero_falls_back_to_the_natural_scale
         return (math.nan, math.nan) if spec.scale == "log" else real(study, spec, seed, n)
 
     monkeypatch.setattr(dz, "pilot_sd", pilot)
-    res = dz.design(_kf_jv(tmp_path, simulations=100, n_points=3)).to_dict()
+    res = dz.design(_kf_jv(tmp_path, pc_mean=40.0, simulations=100, n_points=3)).to_dict()  # Jv > 0 in every draw
     assert any("analysed on the natural scale" in n for n in res["notes"])
     assert math.isfinite(res["power"]) and res["n_per_arm_completing"] > 0
