@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 import run_fakes
 from click.testing import CliRunner
+from executor_fakes import Backwards
 
 from uncertainty.analyses.sensitivity import sensitivity
 from uncertainty.app.cli import main
@@ -185,25 +186,6 @@ def test_a_failing_study_keeps_the_others_and_sets_the_exit_status(fakes, tmp_pa
 # propagate, rank and schedule: their tasks carry no state from one to the next
 # --------------------------------------------------------------------------------------------
 
-class _Backwards(InProcess):
-    """A stand-in for a cluster of ``workers``: runs the tasks last first (as workers may finish them),
-    every task on a copy of the task function and of the task pickled as dask sends them (cloudpickle),
-    results in task order."""
-
-    def __init__(self, workers: int = 3) -> None:
-        super().__init__()
-        self.workers = workers
-
-    def map(self, fn, tasks, *, seed, label="tasks"):
-        import cloudpickle
-
-        tasks = list(tasks)
-        seeds = task_seeds(seed, len(tasks))
-        out = {i: cloudpickle.loads(cloudpickle.dumps(fn))(*cloudpickle.loads(cloudpickle.dumps((tasks[i], seeds[i]))))
-               for i in reversed(range(len(tasks)))}
-        return [out[i] for i in range(len(tasks))]
-
-
 @pytest.mark.parametrize("method", ["qmc", "mc", "lhs"])
 def test_replicate_stream_continues_where_the_earlier_takes_stopped(method) -> None:
     from scipy.stats import qmc
@@ -239,7 +221,7 @@ def test_propagate_gives_the_same_numbers_whatever_order_its_chunks_run_in(monke
     study = load_study(DEMO)
     kw = {"samples": 2048, "seed": 5, "tol": 1e-9, "max_samples": 4096}  # one doubling, then the gate stops it
     docs = []
-    for ex in (None, _Backwards()):
+    for ex in (None, Backwards()):
         with pytest.raises(QualityGateError) as exc:
             propagate(study, executor=ex, **kw)
         docs.append(to_json(exc.value.result.to_dict()))
@@ -254,7 +236,7 @@ def test_rank_gives_the_same_numbers_whatever_order_its_candidates_run_in() -> N
     vals, y = {"a": th[:, 0], "b": th[:, 1], "c": th[:, 2]}, th @ np.array([2.0, 1.0, 0.5])
     cands = [Reading("A", "a", sd=1.0), Reading("B", "b", sd=0.2), Reading("C", "c", sd=3.0)]  # C: importance
     ref = rank_draws(vals, y, cands, seed=1)
-    assert to_json(rank_draws(vals, y, cands, seed=1, executor=_Backwards())) == to_json(ref)
+    assert to_json(rank_draws(vals, y, cands, seed=1, executor=Backwards())) == to_json(ref)
     # a candidate's figures depend on its own stream only, not on the candidates before it
     alone = rank_draws(vals, y, cands[:1], seed=1)["candidates"][0]
     assert alone == next(r for r in ref["candidates"] if r["name"] == "A")
@@ -271,7 +253,7 @@ def test_schedule_search_in_batches_takes_the_moves_of_the_sequential_search() -
                            ScheduleSection(linearisation_draws=2, step_min=2.0), seed=3)
     idx = tuple(model.names.index(sch.TARGETS[t]) for t in ("Kf", "Pvi"))
     results = []
-    for ex in (None, _Backwards(workers=3), _Backwards(workers=7)):
+    for ex in (None, Backwards(workers=3), Backwards(workers=7)):
         prob = sch.Problem(model, (10.0, 20.0, 35.0, 50.0, 60.0), 3, 0.5 * np.arange(1, 13), 3, 0.01,
                            sch.Criterion("A", idx, model.prior_cov))
         start = [10.0, 10.0, 10.0]

@@ -24,6 +24,7 @@ from uncertainty.analyses.inference.problem import Problem, normalise_observatio
 from uncertainty.analyses.inference.result import InferenceResult
 from uncertainty.analyses.inference.samplers import SampleRun, compile_model, posterior_mode, sample
 from uncertainty.analyses.inference.summaries import CONFOUNDED_CORRELATION, PRIOR_BOUND_CONTRACTION, flat, summarise
+from uncertainty.analyses.inference.worker_chains import sample_on_workers
 from uncertainty.core import units
 from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.forms.catalogue import note_outputs, output_notes
@@ -54,7 +55,7 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
         seed: int | None = None, chains: int = 4, draws: int = 1000, tune: int = 1000,
         gate: Any = None, model: str | None = None, checks: bool = False,
         target_accept: float = DEFAULT_TARGET_ACCEPT, start: str = "auto", progress: bool = False,
-        sensitivity: bool = False) -> InferenceResult:
+        sensitivity: bool = False, executor: Any = None) -> InferenceResult:
     """Build and sample the posterior of ``study`` (a Study or a Problem); never raises on the gate.
 
     ``observations`` replaces the study's own observation list (records in study-file form);
@@ -62,6 +63,8 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     :class:`InferenceResult` whose ``doc["diagnostics"]["passed"]`` says whether the gate passed.
     Jv in mL/min per basis. ``progress`` shows the sampler's live per-chain table on stderr.
     ``sensitivity`` adds the sensitivity of the posterior (``summarise_run``; left out of refit loops).
+    ``executor`` (:mod:`uncertainty.core.parallel`) runs each chain as a task on its workers
+    (:mod:`~uncertainty.analyses.inference.worker_chains`); without it the sampler runs the chains here.
     """
     problem = _problem(study, observations, model)
     if not problem.observations:
@@ -71,8 +74,12 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
         seed = getattr(problem.study, "seed", None)
     built = build_model(problem)
     mode, mode_seconds = _start_point(built, start)
-    run = sample(built.model, sampler=sampler, chains=chains, draws=draws, tune=tune, seed=seed,
-                 target_accept=target_accept, start=mode, progress=progress)
+    if executor is None:
+        run = sample(built.model, sampler=sampler, chains=chains, draws=draws, tune=tune, seed=seed,
+                     target_accept=target_accept, start=mode, progress=progress)
+    else:
+        run = sample_on_workers(executor, problem, sampler=sampler, chains=chains, draws=draws, tune=tune,
+                                target_accept=target_accept, seed=seed, start=mode)
     result = summarise_run(built, run, Gate.coerce(gate), seed=seed, sensitivity=sensitivity)
     if mode is not None:
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
@@ -137,7 +144,8 @@ def settings(study: Any, **given: Any) -> dict[str, Any]:
 def infer(study: Any, sampler: str | None = None, seed: int | None = None, chains: int | None = None,
           draws: int | None = None, tune: int | None = None, gate: Any = None, compare_models: bool = False,
           checks: bool = True, observations: Sequence[Any] | None = None,
-          target_accept: float | None = None, start: str | None = None, progress: bool = False) -> InferenceResult:
+          target_accept: float | None = None, start: str | None = None, progress: bool = False,
+          executor: Any = None) -> InferenceResult:
     """Posterior of a study from its observations, with diagnostics and model checks.
 
     Settings left as None come from the study's ``[infer]`` section, else the defaults (nutpie,
@@ -145,11 +153,13 @@ def infer(study: Any, sampler: str | None = None, seed: int | None = None, chain
     no divergences). Raises QualityGateError (exit 3, naming the failing quantities, the result
     attached) when the chains fail the gate. Intervals are in canonical units (Jv in mL/min per the
     study's basis). ``progress`` shows the sampler's live per-chain table (draws, divergences so far,
-    time left) on stderr while the main fit samples.
+    time left) on stderr while the main fit samples. ``executor`` runs the main fit's chains as tasks on
+    its workers (one per chain; see :func:`fit`).
     """
     opts = settings(study, sampler=sampler, chains=chains, draws=draws, tune=tune, gate=gate,
                     target_accept=target_accept, start=start)
-    result = fit(study, observations, seed=seed, checks=checks, progress=progress, sensitivity=True, **opts)
+    result = fit(study, observations, seed=seed, checks=checks, progress=progress, sensitivity=True,
+                 executor=executor, **opts)
     if compare_models:
         result.doc["comparison"] = compare_forms(study, fit=fit, sampler=opts["sampler"], seed=seed,
                                                  chains=opts["chains"], draws=opts["draws"], tune=opts["tune"],

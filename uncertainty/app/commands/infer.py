@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import sys
 
 import click
@@ -10,6 +11,7 @@ from uncertainty.analyses import inference
 from uncertainty.analyses.inference.api import settings
 from uncertainty.app.commands.common import handle_errors, show_result, study_options
 from uncertainty.core.errors import QualityGateError
+from uncertainty.core.parallel import make_executor
 from uncertainty.study import load_study
 
 
@@ -49,11 +51,17 @@ def stderr_is_terminal() -> bool:
               "else 400]")
 @click.option("--divergences-max", type=int, default=None,
               help="Quality gate: divergent transitions allowed.  [default: [infer], else 0]")
+@click.option("--workers", type=int, default=None,
+              help="Run each chain as a task on a local dask cluster of N processes (each compiles the model "
+                   "once; on one machine the default, all chains in this process, is as fast).")
+@click.option("--scheduler", default=None,
+              help="Run each chain as a task on the workers of a running dask scheduler at ADDRESS (a long "
+                   "fit gains across machines).")
 @handle_errors
 def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet: bool, sampler: str | None,
             chains: int | None, draws: int | None, tune: int | None, target_accept: float | None, start: str | None,
             compare_models: bool, no_checks: bool, r_hat_max: float | None, ess_min: float | None,
-            divergences_max: int | None) -> None:
+            divergences_max: int | None, workers: int | None, scheduler: str | None) -> None:
     """Update the study's priors from its [[observations]]: credible intervals for Jv (individual,
     per subject, typical and new subject), prior vs posterior per quantity with contraction,
     diagnostics (R-hat, ESS, divergences, BFMI) and model checks. Exit 3 if the chains fail the
@@ -68,15 +76,20 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
       fluidshift infer studies/demo.toml
       fluidshift infer studies/demo.toml --json --out demo-posterior
       fluidshift infer my-study.toml --sampler pymc --target-accept 0.99
+      fluidshift infer my-study.toml --scheduler tcp://10.0.0.5:8786
     """
     s = load_study(study)
     gate = settings(s)["gate"]  # the study's [infer] thresholds (or the defaults), each flag overriding
     gate.update({k: v for k, v in (("r_hat_max", r_hat_max), ("ess_bulk_min", ess_min),
                                    ("divergences_max", divergences_max)) if v is not None})
+    distributed = workers is not None or scheduler is not None
     try:
-        result = inference.infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune, gate=gate,
-                       compare_models=compare_models, checks=not no_checks, target_accept=target_accept,
-                       start=start, progress=not quiet and stderr_is_terminal())
+        with make_executor(workers, scheduler, progress=not (quiet or as_json)) if distributed \
+                else contextlib.nullcontext() as ex:
+            result = inference.infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune,
+                                     gate=gate, compare_models=compare_models, checks=not no_checks,
+                                     target_accept=target_accept, start=start,
+                                     progress=not quiet and stderr_is_terminal() and not distributed, executor=ex)
     except QualityGateError as exc:
         if exc.result is not None:
             show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
