@@ -256,15 +256,15 @@ def test_urine_refusals(tmp_path: Path, rows: str, obs: dict, key: str) -> None:
 
 
 def test_urine_prediction_is_the_timeline_course(tmp_path: Path) -> None:
-    # what the term interpolates (urine_course, here in numpy; the term builds the same in PyTensor with 2-min
+    # what the term interpolates (whole_body_course, here in numpy; the term builds the same in PyTensor with 2-min
     # steps) against propagate's timeline of the same draws (0.5-min steps): equal to the Runge-Kutta error
-    from uncertainty.analyses.inference.observations.urine import urine_course
+    from uncertainty.analyses.inference.observations.course import whole_body_course
     from uncertainty.forms.evaluate import input_values
 
     s = _urine_study(tmp_path)
     vals = draw(s, 8, method="qmc", seed=5, layer="typical")
     sim = run_layer(s, "typical", 8, 5)
-    c = urine_course(input_values(s, vals), s, np)
+    c = whole_body_course(input_values(s, vals), s, "urine_volume", np)
     assert c["times_min"] == sim["times_min"]
     for got, want in zip(c["urine_volume"], sim["urine_volume"], strict=True):
         np.testing.assert_allclose(got, want, rtol=1e-4, atol=1e-3)  # mL

@@ -12,7 +12,8 @@ import pytest
 
 from uncertainty.analyses.inference.model_builder import build_model
 from uncertainty.analyses.inference.observations import kind_module
-from uncertainty.analyses.inference.observations.haemoglobin import design, hb_ratio_course, interpolation
+from uncertainty.analyses.inference.observations.course import interpolation, whole_body_course
+from uncertainty.analyses.inference.observations.haemoglobin import design
 from uncertainty.analyses.inference.problem import problem_from_study
 from uncertainty.core.errors import InputError, StudyError
 from uncertainty.study import Study
@@ -80,7 +81,7 @@ def test_numpy_course_dilutes_then_recovers(tmp_path: Path) -> None:
     _write(tmp_path, ROWS)
     study = Study.from_dict(_doc(), base_dir=tmp_path)
     v = {k: np.array([val]) for k, val in prior_medians("skeletal_muscle").items()}
-    c = hb_ratio_course(v, study, np)
+    c = whole_body_course(v, study, "hb_ratio", np)
     assert c["times_min"][-1] == 90.0
     hb = [float(np.ravel(x)[0]) for x in c["hb_ratio"]]
     assert hb[0] == 1.0 and hb[3] == min(hb) < 0.95 and hb[3] < hb[-1] < 1.0

@@ -9,8 +9,9 @@ error shared by the subject's ratios is neglected as a correlation; a first-orde
 reading error is a few per cent of the value).
 
 The time course is the study's ``[[interventions]]`` and ``[timeline]`` solved in PyTensor per subject
-(``physiology.whole_body.simulate`` with ``xp=pytensor.tensor``), with Runge-Kutta steps of at most
-:data:`MAX_STEP_MIN` and linear interpolation between the report times to each reading's time.
+(``observations.course.whole_body_course`` with ``xp=pytensor.tensor``), with Runge-Kutta steps of at most
+:data:`~uncertainty.analyses.inference.observations.course.MAX_STEP_MIN` and linear interpolation between the
+report times to each reading's time.
 """
 
 from __future__ import annotations
@@ -27,19 +28,11 @@ from uncertainty.analyses.inference.observations.base import (
     term_name,
     timed_readings,
 )
+from uncertainty.analyses.inference.observations.course import at_times, course_series
 from uncertainty.analyses.inference.problem import Observation, Problem
-from uncertainty.analyses.propagate.timeline import bed_ratios
-from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
-from uncertainty.physiology import whole_body as wb
 
 NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitted to the whole-body time "
         "course of haemoglobin relative to rest (no baseline haemoglobin sampled).")
-#: Largest Runge-Kutta step of the time course inside the model, min: a numerical choice (the numpy solver's
-#: default is 0.5 min; 2 min keeps the graph a quarter as long, and the fastest rate constant of the state,
-#: renal elimination at ln 2 / 38 min, is far inside the classical RK4 stability region at that step).
-MAX_STEP_MIN = 2.0
-#: Inputs of the time course besides the per-bed ones (forms.whole_body.timeline_parameters).
-_BODY_INPUTS = ("pi_c", "Cp", "r")
 
 
 def validate(obs: Observation, problem: Problem) -> None:
@@ -95,51 +88,9 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
             "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": skipped}
 
 
-def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Linear interpolation of ``times`` (min) on the report ``grid`` (min, increasing, from 0).
-
-    Returns
-    -------
-    lo, hi : numpy.ndarray
-        Indices of the grid points either side (int).
-    w : numpy.ndarray
-        Weight of ``hi`` (1): value = (1 - w) f[lo] + w f[hi].
-    """
-    g = np.asarray(grid, dtype=float)
-    hi = np.clip(np.searchsorted(g, times, side="left"), 1, len(g) - 1)
-    lo = hi - 1
-    w = np.clip((times - g[lo]) / (g[hi] - g[lo]), 0.0, 1.0)
-    return lo, hi, w
-
-
-def hb_ratio_course(values: dict[str, Any], study: Any, xp: Any) -> dict[str, Any]:
-    """The whole-body time course of haemoglobin relative to rest for the ``values`` given (one per subject).
-
-    Parameters
-    ----------
-    values : dict
-        Per-subject inputs of the time course (canonical units; ``forms.whole_body.timeline_parameters``).
-    study : Study
-        A ``whole_body`` study (its ``timeline`` plan and tissue).
-    xp : module
-        numpy or pytensor.tensor.
-
-    Returns
-    -------
-    dict
-        ``times_min`` (list of float) and ``hb_ratio`` (list over the report times of arrays over subjects, 1).
-    """
-    plan = study.timeline
-    body, beds, Cp0 = timeline_parameters(values, plan.body_mass_kg, bed_ratios(study.tissue), xp=xp)
-    sim = wb.simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every,
-                      max_step=min(MAX_STEP_MIN, plan.report_every), xp=xp)
-    return {"times_min": sim["times_min"], "hb_ratio": sim["hb_ratio"]}
-
-
 def add(ctx: Any, obs: Observation) -> None:
     """y ~ Normal(hb_ratio(t) / hb_ratio(t_ref) of the reading's subject, sd_y) over all later readings."""
     import pymc as pm
-    import pytensor.tensor as pt
 
     d = design(obs, ctx.subjects)
     name = term_name(obs)
@@ -149,22 +100,9 @@ def add(ctx: Any, obs: Observation) -> None:
     if d["value"].size == 0:
         ctx.notes.append(f"{obs.key}: no haemoglobin ratios to fit (every subject has one reading)")
         return
-    values: dict[str, Any] = {}
-    for q in (*BED_INPUTS, *_BODY_INPUTS):
-        try:
-            values[q] = ctx.value(q)
-        except KeyError:
-            continue
-    course = hb_ratio_course(values, ctx.problem.study, pt)
-    n = len(ctx.subjects)
-    series = pt.stack([pt.as_tensor_variable(x) * pt.ones(n) for x in course["hb_ratio"]])  # (time, subject)
+    times, series = course_series(ctx, "hb_ratio")  # (time, subject)
     i = d["subject"]
-
-    def at(times: np.ndarray) -> Any:
-        lo, hi, w = interpolation(times, course["times_min"])
-        return (1.0 - w) * series[lo, i] + w * series[hi, i]
-
-    pred = at(d["time"]) / at(d["ref_time"])
+    pred = at_times(series, times, i, d["time"]) / at_times(series, times, i, d["ref_time"])
     pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {NOTE}")
@@ -172,4 +110,4 @@ def add(ctx: Any, obs: Observation) -> None:
                               label="haemoglobin relative to the first reading"))
 
 
-__all__ = ["MAX_STEP_MIN", "NOTE", "add", "design", "hb_ratio_course", "interpolation", "validate"]
+__all__ = ["NOTE", "add", "design", "validate"]

@@ -4,7 +4,7 @@ Each reading is the volume passed since time 0 of the timeline (the bladder empt
 clock starts), the form's time course ``urine_volume`` (``physiology.whole_body``: basal flow plus volume-kinetic
 elimination, cumulative from 0). The term fits every reading y_k ~ Normal(urine_volume(t_k), sd_k) of its
 subject, the time course solved in PyTensor per subject as for ``haemoglobin`` (Runge-Kutta steps of at most
-:data:`~uncertainty.analyses.inference.observations.haemoglobin.MAX_STEP_MIN`, linear interpolation between the
+:data:`~uncertainty.analyses.inference.observations.course.MAX_STEP_MIN`, linear interpolation between the
 report times to each reading's time). Readings at time 0 carry no information (the course is 0 there) and are
 kept only for the fan chart.
 """
@@ -17,16 +17,11 @@ import numpy as np
 
 from uncertainty.analyses.inference.model_builder import ObservedTerm
 from uncertainty.analyses.inference.observations.base import add_reading, check_sds, term_name, timed_readings
-from uncertainty.analyses.inference.observations.haemoglobin import MAX_STEP_MIN, interpolation
+from uncertainty.analyses.inference.observations.course import at_times, course_series
 from uncertainty.analyses.inference.problem import Observation, Problem
-from uncertainty.analyses.propagate.timeline import bed_ratios
-from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
-from uncertainty.physiology import whole_body as wb
 
 NOTE = ("urine: each subject's cumulative urine volume since time 0, fitted to the whole-body time course of "
         "urine (basal flow plus volume-kinetic elimination).")
-#: Inputs of the time course besides the per-bed ones (forms.whole_body.timeline_parameters).
-BODY_INPUTS = ("pi_c", "Cp", "r")
 
 
 def validate(obs: Observation, problem: Problem) -> None:
@@ -78,52 +73,18 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
     return {"subject": subj[keep], "time": t[keep], "value": value[keep], "sd": sd[keep]}
 
 
-def urine_course(values: dict[str, Any], study: Any, xp: Any) -> dict[str, Any]:
-    """The whole-body time course of cumulative urine for the ``values`` given (one per subject).
-
-    Parameters
-    ----------
-    values : dict
-        Per-subject inputs of the time course (canonical units; ``forms.whole_body.timeline_parameters``).
-    study : Study
-        A ``whole_body`` study (its ``timeline`` plan and tissue).
-    xp : module
-        numpy or pytensor.tensor.
-
-    Returns
-    -------
-    dict
-        ``times_min`` (list of float) and ``urine_volume`` (list over the report times of arrays over subjects, mL).
-    """
-    plan = study.timeline
-    body, beds, Cp0 = timeline_parameters(values, plan.body_mass_kg, bed_ratios(study.tissue), xp=xp)
-    sim = wb.simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every,
-                      max_step=min(MAX_STEP_MIN, plan.report_every), xp=xp)
-    return {"times_min": sim["times_min"], "urine_volume": sim["urine_volume"]}
-
-
 def add(ctx: Any, obs: Observation) -> None:
     """y ~ Normal(urine_volume(t) of the reading's subject, sd) over the readings after time 0."""
     import pymc as pm
-    import pytensor.tensor as pt
 
     d = design(obs, ctx.subjects)
     name = term_name(obs)
     if d["value"].size == 0:
         ctx.notes.append(f"{obs.key}: no urine volumes after time 0 to fit")
         return
-    values: dict[str, Any] = {}
-    for q in (*BED_INPUTS, *BODY_INPUTS):
-        try:
-            values[q] = ctx.value(q)
-        except KeyError:
-            continue
-    course = urine_course(values, ctx.problem.study, pt)
-    n = len(ctx.subjects)
-    series = pt.stack([pt.as_tensor_variable(x) * pt.ones(n) for x in course["urine_volume"]])  # (time, subject)
+    times, series = course_series(ctx, "urine_volume")  # (time, subject)
     i = d["subject"]
-    lo, hi, w = interpolation(d["time"], course["times_min"])
-    pred = (1.0 - w) * series[lo, i] + w * series[hi, i]
+    pred = at_times(series, times, i, d["time"])
     pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {NOTE}")
@@ -131,4 +92,4 @@ def add(ctx: Any, obs: Observation) -> None:
                               label="cumulative urine volume since time 0"))
 
 
-__all__ = ["BODY_INPUTS", "NOTE", "add", "design", "urine_course", "validate"]
+__all__ = ["NOTE", "add", "design", "validate"]

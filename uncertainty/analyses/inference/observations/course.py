@@ -1,0 +1,140 @@
+"""The whole-body time course the timed observation kinds fit (``haemoglobin``, ``urine``, ``plasma_protein``).
+
+One function solves the study's ``[[interventions]]`` and ``[timeline]`` for per-subject inputs
+(``physiology.whole_body.simulate``, numpy or PyTensor) and returns the time course a kind names
+(a key of ``physiology.whole_body.TIMELINE_UNITS``); :func:`course_series` builds it inside the PyMC model as a
+(time, subject) tensor and :func:`interpolation` takes it to each reading's time (linear between report times).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from uncertainty.analyses.propagate.timeline import bed_ratios
+from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
+from uncertainty.physiology import whole_body as wb
+
+#: Largest Runge-Kutta step of the time course inside the model, min: a numerical choice (the numpy solver's
+#: default is 0.5 min; 2 min keeps the graph a quarter as long, and the fastest rate constant of the state,
+#: renal elimination at ln 2 / 38 min, is far inside the classical RK4 stability region at that step).
+MAX_STEP_MIN = 2.0
+#: Inputs of the time course besides the per-bed ones (forms.whole_body.timeline_parameters).
+BODY_INPUTS = ("pi_c", "Cp", "r")
+
+
+def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Linear interpolation of ``times`` (min) on the report ``grid`` (min, increasing, from 0).
+
+    Parameters
+    ----------
+    times : numpy.ndarray
+        Reading times, min.
+    grid : list of float
+        Report times, min.
+
+    Returns
+    -------
+    lo, hi : numpy.ndarray
+        Indices of the grid points either side (int).
+    w : numpy.ndarray
+        Weight of ``hi`` (1): value = (1 - w) f[lo] + w f[hi].
+    """
+    g = np.asarray(grid, dtype=float)
+    hi = np.clip(np.searchsorted(g, times, side="left"), 1, len(g) - 1)
+    lo = hi - 1
+    w = np.clip((times - g[lo]) / (g[hi] - g[lo]), 0.0, 1.0)
+    return lo, hi, w
+
+
+def whole_body_course(values: dict[str, Any], study: Any, name: str, xp: Any) -> dict[str, Any]:
+    """One whole-body time course for the ``values`` given (one per subject), on the study's report times.
+
+    Parameters
+    ----------
+    values : dict
+        Per-subject inputs of the time course (canonical units; ``forms.whole_body.timeline_parameters``).
+    study : Study
+        A ``whole_body`` study (its ``timeline`` plan and tissue).
+    name : str
+        The time course (a key of ``physiology.whole_body.TIMELINE_UNITS``, e.g. ``hb_ratio``).
+    xp : module
+        numpy or pytensor.tensor.
+
+    Returns
+    -------
+    dict
+        ``times_min`` (list of float, min) and ``name`` (list over the report times of arrays over subjects, in
+        the course's unit). Runge-Kutta steps of at most :data:`MAX_STEP_MIN`.
+
+    Raises
+    ------
+    KeyError
+        ``name`` is not a time course of the form.
+    """
+    if name not in wb.TIMELINE_UNITS:
+        raise KeyError(name)
+    plan = study.timeline
+    body, beds, Cp0 = timeline_parameters(values, plan.body_mass_kg, bed_ratios(study.tissue), xp=xp)
+    sim = wb.simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every,
+                      max_step=min(MAX_STEP_MIN, plan.report_every), xp=xp)
+    return {"times_min": sim["times_min"], name: sim[name]}
+
+
+def course_series(ctx: Any, name: str) -> tuple[list[float], Any]:
+    """The time course ``name`` inside the model being built: per-subject inputs from ``ctx``, PyTensor.
+
+    Parameters
+    ----------
+    ctx : BuildContext
+        The model under construction (``ctx.value`` gives each subject's input; inputs it lacks take the form's
+        defaults).
+    name : str
+        The time course (``physiology.whole_body.TIMELINE_UNITS``).
+
+    Returns
+    -------
+    times : list of float
+        Report times, min.
+    series : TensorVariable
+        Shape (time, subject), the course's unit.
+    """
+    import pytensor.tensor as pt
+
+    values: dict[str, Any] = {}
+    for q in (*BED_INPUTS, *BODY_INPUTS):
+        try:
+            values[q] = ctx.value(q)
+        except KeyError:
+            continue
+    course = whole_body_course(values, ctx.problem.study, name, pt)
+    n = len(ctx.subjects)
+    series = pt.stack([pt.as_tensor_variable(x) * pt.ones(n) for x in course[name]])
+    return course["times_min"], series
+
+
+def at_times(series: Any, times_min: list[float], subject: np.ndarray, t: np.ndarray) -> Any:
+    """``series`` (time, subject) at each reading's time ``t`` (min) for its ``subject`` (index), linearly.
+
+    Parameters
+    ----------
+    series : array or TensorVariable
+        Shape (report time, subject).
+    times_min : list of float
+        The report times, min.
+    subject : numpy.ndarray
+        Subject index of each reading (int).
+    t : numpy.ndarray
+        Each reading's time, min.
+
+    Returns
+    -------
+    array or TensorVariable
+        One value per reading (the course's unit).
+    """
+    lo, hi, w = interpolation(t, times_min)
+    return (1.0 - w) * series[lo, subject] + w * series[hi, subject]
+
+
+__all__ = ["BODY_INPUTS", "MAX_STEP_MIN", "at_times", "course_series", "interpolation", "whole_body_course"]
