@@ -78,8 +78,8 @@ SECTIONS: list[tuple[str, str, str, str]] = [
     ("timeline", "[timeline]", "TimelineSection",
      "How long the `whole_body` time courses run and how often `propagate` reports them (its `timeline` entry: "
      "median and 95% interval per reported time for the typical subject and the individual; with timed "
-     "`haemoglobin` or `urine` observations also `observed`: each subject's Hb readings over its first, urine "
-     "volumes as read, drawn on the fan chart). "
+     "`haemoglobin`, `plasma_protein` or `urine` observations also `observed`: each subject's Hb or protein "
+     "readings over its first, urine volumes as read, drawn on the fan chart). "
      "`[sensitivity] output`, `[rank] output` and `[design] endpoint` read a time course at a time written "
      "\"NAME at TIME\", e.g. \"infused_retained_fraction at 60 min\"."),
     ("schedule", "[schedule]", "ScheduleSection",
@@ -148,8 +148,12 @@ MEANINGS: dict[str, str] = {
                          "omitting insensible losses (needs [study] tissue_mass; sd only); whole_body form only: "
                          "haemoglobin (serial blood Hb per subject from a data file with times, g/dL, sd only: each "
                          "subject's readings relative to its earliest one against the time course of Hb relative "
-                         "to rest) and urine (cumulative urine volume since time 0 per subject from a data file "
-                         "with times, mL, sd only, against the time course of urine)",
+                         "to rest), urine (cumulative urine volume since time 0 per subject from a data file "
+                         "with times, mL, sd only, against the time course of urine) and plasma_protein (serial "
+                         "plasma total protein or albumin, `protein`, per subject from a data file with times, g/dL "
+                         "or any concentration unit, sd only: each subject's readings relative to its earliest one "
+                         "against the time course of plasma protein concentration, mass over plasma volume, relative "
+                         "to rest)",
     "observations.name": "optional label",
     "observations.parameter": "the quantity a measurement reads (a trade symbol)",
     "observations.value": "the observed value, in `unit`",
@@ -188,6 +192,8 @@ MEANINGS: dict[str, str] = {
                           "sd = 0.15 }) of the organ's share of the body's net fluid gain over the period "
                           "(dimensionless); it carries the other tissues, lymph return and plasma-volume change",
     "observations.site": "lymph_flow: where lymph was collected, pre_nodal or post_nodal",
+    "observations.protein": "plasma_protein: the protein read, total (default) or albumin (albumin readings are "
+                            "refused in a study that infuses albumin: the form has one plasma protein pool)",
     "observations.every": "volume_time_course: fit every k-th reading of each subject (1 = all; fewer is faster)",
     "observations.step.parameter": "the stepped pressure (Pv)",
     "observations.step.to": "the pressure after the step, in `unit` (default mmHg)",

@@ -380,6 +380,7 @@ class _Prepared:
         self.xp = xp
         self.Vp0, self.Vrbc0 = body["Vp0"], body["Vrbc0"]
         self.Vb0 = body["Vp0"] + body["Vrbc0"]
+        self.Cp0 = rest["Cp0"]
         self.vasc = body["C_vasc"] * (1.0 + body["r"])
         self.k_r, self.u_basal = body["k_r"], body["u_basal"]
         self.beds: list[tuple[str, dict[str, Array]]] = []
@@ -562,7 +563,7 @@ def _rk4(state: dict[str, Array], rates: Sequence[Array], dt: float, args: Args3
 TIMELINE_UNITS: dict[str, str] = {
     "plasma_volume_change": "mL", "infused_retained_fraction": "1", "hb_ratio": "1",
     "interstitial_volume_change_muscle": "mL", "interstitial_volume_change_skin": "mL",
-    "urine_volume": "mL", "lymph_flow": "mL/min",
+    "urine_volume": "mL", "lymph_flow": "mL/min", "plasma_protein_ratio": "1",
 }
 
 
@@ -586,7 +587,8 @@ def report(state: Mapping[str, Array], given: float, body: Mapping[str, Array],
         volume put into the plasma, infused minus plasma bled; for a bleed alone, the share of the plasma lost
         still missing; NaN before anything is given), ``hb_ratio`` (haemoglobin concentration relative to
         rest), ``interstitial_volume_change_<bed>`` (mL), ``urine_volume`` (mL since 0), ``lymph_flow``
-        (both beds, mL/min).
+        (both beds, mL/min), ``plasma_protein_ratio`` (plasma total-protein concentration 100 Qp / Vp relative to
+        rest, 1; infused albumin counted at its oncotic total-protein equivalent, ``Dose.protein_equivalent``).
     """
     return _report(state, given, _Prepared(body, beds, rest, xp), xp)
 
@@ -608,6 +610,7 @@ def _report(state: Mapping[str, Array], given: float, p: _Prepared, xp: Any,
         out[f"interstitial_volume_change_{name}"] = f[f"Vx_{name}"]
     out["urine_volume"] = state["U"]
     out["lymph_flow"] = sum(f[f"JL_{name}"] for name, _ in p.beds)
+    out["plasma_protein_ratio"] = f["Cp"] / p.Cp0
     return out
 
 

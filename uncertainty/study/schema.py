@@ -211,7 +211,7 @@ class Observation(BaseModel):
     model_config = STRICT_CONFIG
     kind: Literal["measurement", "lymph_flow", "clearance_rate", "swelling_rate", "volume_time_course",
                   "protein_ratio", "GFR", "RPF", "filtration_fraction", "body_weight", "fluid_balance",
-                  "haemoglobin", "urine"]
+                  "haemoglobin", "urine", "plasma_protein"]
     name: str | None = None
     parameter: str | None = None
     value: float | None = None
@@ -234,6 +234,8 @@ class Observation(BaseModel):
     lymph: Any = None
     effects: list[str] | None = Field(default=None, max_length=20)
     site: Literal["pre_nodal", "post_nodal"] | None = None
+    # plasma_protein: which plasma protein the readings measure (total protein when left out)
+    protein: Literal["total", "albumin"] | None = None
     # body_weight / fluid_balance: the organ's share of the body's net fluid gain (a prior declaration)
     share: Any = None
     # volume_time_course: fit every k-th reading of each subject (1 = all)
@@ -322,7 +324,9 @@ class Observation(BaseModel):
                 raise ValueError("give value or file, not both")
             if self.sd is None and self.cv is None and self.instrument is None and self.file is None:
                 raise ValueError("give the measurement error: sd, cv or instrument")
-        if k in ("haemoglobin", "urine") and self.file is None:
+        if self.protein is not None and k != "plasma_protein":
+            raise ValueError(f"a {k} observation takes no protein (plasma_protein only)")
+        if k in ("haemoglobin", "urine", "plasma_protein") and self.file is None:
             raise ValueError(f"a {k} observation needs a data file (subject, time, value)")
         if k in ("body_weight", "fluid_balance"):
             if self.file is None:
@@ -763,6 +767,7 @@ CSV_COLUMNS: dict[str, tuple[str, ...]] = {
     "fluid_balance": ("subject", "value"),
     "haemoglobin": ("subject", "value"),
     "urine": ("subject", "value"),
+    "plasma_protein": ("subject", "value"),
 }
 
 
@@ -783,4 +788,4 @@ OBS_NEEDS: dict[str, tuple[str, ...]] = {"swelling_rate": ("Pi", "L", "Pi_L0"), 
 OBS_SYMBOL = {"lymph_flow": "JL", "swelling_rate": "swelling_rate", "protein_ratio": "ratio",
               "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF",
               "body_weight": "body_weight", "fluid_balance": "fluid_balance", "haemoglobin": "Hb",
-              "urine": "urine_volume"}
+              "urine": "urine_volume", "plasma_protein": "Cp"}

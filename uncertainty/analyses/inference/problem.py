@@ -206,6 +206,8 @@ def _symbol_for(kind: str, parameter: str | None) -> str | None:
         "body_weight": "body_weight",
         "fluid_balance": "fluid_balance",
         "urine": "urine_volume",
+        "haemoglobin": "Hb",
+        "plasma_protein": "Cp",
     }.get(kind)
 
 

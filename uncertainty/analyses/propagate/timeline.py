@@ -54,7 +54,8 @@ def bed_ratios(tissue: str) -> dict[str, float]:
 #: subject's readings over its earliest one (as the kind's likelihood takes them, ``haemoglobin``); ``as_read``: the
 #: readings themselves in the time course's unit.
 OBSERVED_COURSES: dict[str, tuple[str, str]] = {"haemoglobin": ("hb_ratio", "first"),
-                                                "urine": ("urine_volume", "as_read")}
+                                                "urine": ("urine_volume", "as_read"),
+                                                "plasma_protein": ("plasma_protein_ratio", "first")}
 
 
 def observed_points(study: Any) -> dict[str, dict[str, Any]]:
@@ -69,10 +70,10 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
     Returns
     -------
     dict
-        time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin`` each subject's reading over
-        its earliest one, 1; for ``urine`` the volumes since 0, mL), ``subjects`` (list of labels, "" for none),
-        ``kinds`` (list), ``relative_to_first`` (bool). Readings without a time are left out; empty without such
-        observations.
+        time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin`` and ``plasma_protein`` each
+        subject's reading over its earliest one, 1; for ``urine`` the volumes since 0, mL), ``subjects`` (list of
+        labels, "" for none), ``kinds`` (list), ``relative_to_first`` (bool). Readings without a time are left
+        out; empty without such observations.
     """
     out: dict[str, dict[str, Any]] = {}
     for ob in getattr(study, "observations", None) or []:

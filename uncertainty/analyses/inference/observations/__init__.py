@@ -28,6 +28,7 @@ KINDS: dict[str, str] = {
     "fluid_balance": "fluid_balance",
     "haemoglobin": "haemoglobin",
     "urine": "urine",
+    "plasma_protein": "plasma_protein",
 }
 
 

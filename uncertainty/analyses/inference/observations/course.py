@@ -12,6 +12,8 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.inference.observations.base import pair_with_first, timed_readings
+from uncertainty.analyses.inference.problem import Observation
 from uncertainty.analyses.propagate.timeline import bed_ratios
 from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
 from uncertainty.physiology import whole_body as wb
@@ -22,6 +24,34 @@ from uncertainty.physiology import whole_body as wb
 MAX_STEP_MIN = 2.0
 #: Inputs of the time course besides the per-bed ones (forms.whole_body.timeline_parameters).
 BODY_INPUTS = ("pi_c", "Cp", "r")
+
+
+def ratios_to_first(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
+    """Each subject's later readings over its earliest one, with the ratio's normal error (numpy).
+
+    The error by the delta method, sd_y = sqrt(sd_k^2 + (y_k sd_ref)^2) / value_ref (the reference's error shared
+    by the subject's ratios is neglected as a correlation; first order, good while the reading error is a few per
+    cent of the value). The readings' unit cancels.
+
+    Parameters
+    ----------
+    obs : Observation
+        A timed observation with data-file rows (subject, time in min, value, sd; any one unit).
+    subjects : list of str
+        The model's subject labels (index 0 is the study's individual when a row has none).
+
+    Returns
+    -------
+    dict
+        ``subject`` (index of each ratio's subject), ``time`` and ``ref_time`` (min, the reading's and its
+        subject's earliest reading's), ``value`` (ratio to the earliest reading, 1), ``sd`` (its normal error,
+        1), ``skipped`` (subjects with a single reading).
+    """
+    subj, t, value, sd = timed_readings(obs, subjects)
+    k, r, skipped = pair_with_first(subj, t)
+    y = value[k] / value[r]
+    return {"subject": subj[k], "time": t[k], "ref_time": t[r], "value": y,
+            "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": skipped}
 
 
 def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -137,4 +167,5 @@ def at_times(series: Any, times_min: list[float], subject: np.ndarray, t: np.nda
     return (1.0 - w) * series[lo, subject] + w * series[hi, subject]
 
 
-__all__ = ["BODY_INPUTS", "MAX_STEP_MIN", "at_times", "course_series", "interpolation", "whole_body_course"]
+__all__ = ["BODY_INPUTS", "MAX_STEP_MIN", "at_times", "course_series", "interpolation", "ratios_to_first",
+           "whole_body_course"]

@@ -21,14 +21,8 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.model_builder import ObservedTerm
-from uncertainty.analyses.inference.observations.base import (
-    add_reading,
-    check_sds,
-    pair_with_first,
-    term_name,
-    timed_readings,
-)
-from uncertainty.analyses.inference.observations.course import at_times, course_series
+from uncertainty.analyses.inference.observations.base import add_reading, check_sds, term_name
+from uncertainty.analyses.inference.observations.course import at_times, course_series, ratios_to_first
 from uncertainty.analyses.inference.problem import Observation, Problem
 
 NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitted to the whole-body time "
@@ -81,11 +75,7 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
         subject's earliest reading's), ``value`` (ratio to the earliest reading, 1), ``sd`` (its normal error,
         1), ``skipped`` (subjects with a single reading).
     """
-    subj, t, value, sd = timed_readings(obs, subjects)
-    k, r, skipped = pair_with_first(subj, t)
-    y = value[k] / value[r]
-    return {"subject": subj[k], "time": t[k], "ref_time": t[r], "value": y,
-            "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": skipped}
+    return ratios_to_first(obs, subjects)
 
 
 def add(ctx: Any, obs: Observation) -> None:
