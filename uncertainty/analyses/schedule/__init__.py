@@ -71,25 +71,33 @@ _FD_STEP = 1e-5
 
 
 def jacobian(forward: Callable[[np.ndarray], np.ndarray], phi: np.ndarray, step: float = _FD_STEP,
-             only: Sequence[int] | None = None) -> np.ndarray:
+             only: Sequence[int] | None = None, batched: bool = False) -> np.ndarray:
     """Central finite-difference Jacobian of ``forward`` at ``phi``.
 
     ``forward`` maps (M, p) parameter points to (M, G) predictions; returns (M, G, p), in the
     predictions' unit per unit of phi. Steps are ``step * max(1, |phi|)``. ``only``: the columns to
-    difference (the others are zero: parameters ``forward`` does not depend on).
+    difference (the others are zero: parameters ``forward`` does not depend on). ``batched``: every shifted
+    point in one call of ``forward`` (for a forward map with a large cost per call, such as a time course
+    solved for many rows at once); the same numbers.
     """
     phi = np.atleast_2d(np.asarray(phi, dtype=float))
     M, p = phi.shape
-    cols = []
-    for k in range(p):
-        if only is not None and k not in only:
-            cols.append(None)
-            continue
+    ks = [k for k in range(p) if only is None or k in only]
+    shifted = []
+    for k in ks:
         h = step * np.maximum(1.0, np.abs(phi[:, k]))
         up, dn = phi.copy(), phi.copy()
         up[:, k] += h
         dn[:, k] -= h
-        cols.append((forward(up) - forward(dn)) / (2.0 * h[:, None]))
+        shifted.append((up, dn, h))
+    if batched:
+        out = forward(np.vstack([x for up, dn, _ in shifted for x in (up, dn)]))
+        diffs = {k: (out[2 * i * M:(2 * i + 1) * M] - out[(2 * i + 1) * M:(2 * i + 2) * M]) / (2.0 * h[:, None])
+                 for i, (k, (_, _, h)) in enumerate(zip(ks, shifted, strict=True))}
+    else:
+        diffs = {k: (forward(up) - forward(dn)) / (2.0 * h[:, None])
+                 for k, (up, dn, h) in zip(ks, shifted, strict=True)}
+    cols = [diffs.get(k) for k in range(p)]
     shape = next(c for c in cols if c is not None).shape
     return np.stack([np.zeros(shape) if c is None else c for c in cols], axis=-1)
 
