@@ -47,7 +47,7 @@ from uncertainty.analyses.inference.summaries import flat
 from uncertainty.analyses.propagate.timeline import values_at
 from uncertainty.analyses.rank.result import RankResult
 from uncertainty.analyses.sensitivity import first_order_given_data
-from uncertainty.core.errors import InputError
+from uncertainty.core.errors import InputError, QualityGateError
 from uncertainty.core.parallel import InProcess, task_seeds
 from uncertainty.distributions import is_normal_frozen, log_sd_from_cv
 from uncertainty.forms.catalogue import output_unit
@@ -216,7 +216,8 @@ _IS_START, _IS_MAX, _IS_CHUNK = 800, 4000, 250
 
 
 def importance_figures(reading: Reading, theta: np.ndarray, y: np.ndarray, rng: np.random.Generator,
-                       rel_tol: float = _IS_REL_TOL, max_outer: int = _IS_MAX) -> dict[str, float]:
+                       rel_tol: float = _IS_REL_TOL, max_outer: int = _IS_MAX, floor: float = 0.0,
+                       give_up: bool = False) -> dict[str, float]:
     """Expected posterior variance and 95% width of y after ``reading``, by likelihood reweighting.
 
     Outer: J readings simulated from distinct draws (800 at first, more until the MC error of the
@@ -227,7 +228,9 @@ def importance_figures(reading: Reading, theta: np.ndarray, y: np.ndarray, rng: 
     (of the reduction, = that of the posterior variance), ``expected_ci95_width`` and
     ``ci95_width_mc_se`` (y's unit; outer spread plus the inner draws' quantile error at each
     reading's effective sample), ``ess_fraction`` (smallest effective-sample fraction),
-    ``outer`` and ``rel_error`` (mc_se / reduction).
+    ``outer`` and ``rel_error`` (mc_se / reduction). ``floor`` (y's unit squared): a reduction below it is
+    held to ``rel_tol`` x ``floor`` instead (default 0: always relative to the reduction). ``give_up``: stop
+    as soon as the outer readings the target needs (projected from the error so far) exceed the cap.
     """
     n = len(theta)
     cap = max(2, min(n, int(max_outer)))
@@ -255,9 +258,12 @@ def importance_figures(reading: Reading, theta: np.ndarray, y: np.ndarray, rng: 
             used += len(idx)
         e = np.concatenate(expl)
         red, se = float(e.mean()), float(e.std(ddof=1) / math.sqrt(len(e)))
-        if used >= cap or (red > 0 and se <= rel_tol * red):
+        scale = max(red, floor)
+        if used >= cap or (scale > 0 and se <= rel_tol * scale):
             break
-        grow = (se / (rel_tol * red)) ** 2 * 1.1 if red > 0 else 2.0
+        grow = (se / (rel_tol * scale)) ** 2 * 1.1 if scale > 0 else 2.0
+        if give_up and used * grow > cap:
+            break
         target = min(cap, max(used + _IS_CHUNK, int(math.ceil(used * min(grow, 4.0)))))
     wd, ess = np.concatenate(widths), np.concatenate(esss)
     width = float(wd.mean())
@@ -324,6 +330,41 @@ def perfect_information(theta: np.ndarray, y: np.ndarray) -> tuple[float, float]
     return float(s1), float(se)
 
 
+def simulate_batches(reading: Reading, theta: np.ndarray, batches: tuple[int, ...] | None,
+                     rng: np.random.Generator, ss: np.random.SeedSequence) -> np.ndarray:
+    """Simulated readings of ``theta`` (canonical unit) drawn batch by batch, so that a grown sample keeps
+    the readings of its earlier draws.
+
+    Parameters
+    ----------
+    reading : Reading
+        The candidate.
+    theta : ndarray
+        The values it reads, the batches end to end (canonical unit).
+    batches : tuple of int or None
+        Draws in each batch (summing to ``len(theta)``); None: one batch.
+    rng : Generator
+        The task's own stream: the first batch's readings (the readings of a ranking without growth).
+    ss : SeedSequence
+        The task's seed: batch ``b`` >= 1 reads from its child ``b``, a stream no other figure uses.
+
+    Returns
+    -------
+    ndarray
+        One reading per value of ``theta`` (canonical unit).
+    """
+    if not batches or len(batches) == 1:
+        return reading.simulate(theta, rng)
+    if sum(batches) != len(theta):
+        raise ValueError("the batches do not add up to the draws")
+    edges = np.cumsum((0, *batches))
+    parts = [reading.simulate(theta[:edges[1]], rng)]
+    for b in range(1, len(batches)):
+        child = np.random.SeedSequence(ss.entropy, spawn_key=(*ss.spawn_key, b), pool_size=ss.pool_size)
+        parts.append(reading.simulate(theta[edges[b]:edges[b + 1]], np.random.default_rng(child)))
+    return np.concatenate(parts)
+
+
 class _CandidateTask:
     """Task function of ranking: one candidate's preposterior figures on the draws (picklable).
 
@@ -332,19 +373,28 @@ class _CandidateTask:
     index, never by worker), so the figures are the same on any executor.
     """
 
-    def __init__(self, values: dict[str, np.ndarray], y: np.ndarray, method: str) -> None:
+    def __init__(self, values: dict[str, np.ndarray], y: np.ndarray, method: str,
+                 batches: tuple[int, ...] | None = None, rel_tol: float = _IS_REL_TOL,
+                 max_outer: int = _IS_MAX, floor: float = 0.0) -> None:
         self.values, self.y, self.method = values, y, method
+        self.batches, self.rel_tol, self.max_outer, self.floor = batches, rel_tol, max_outer, floor
 
     def __call__(self, c: Reading, ss: np.random.SeedSequence) -> dict[str, Any]:
         rng = np.random.default_rng(ss)
         y = self.y
         theta = self.values[c.parameter]
-        read = c.simulate(theta, rng)
+        read = simulate_batches(c, theta, self.batches, rng, ss)
         m = choose_method(c, theta) if self.method == "auto" else self.method
         fig = None
         if m == "importance":
-            fig = importance_figures(c, theta, y, rng)
+            fig = importance_figures(c, theta, y, rng, rel_tol=self.rel_tol, max_outer=self.max_outer,
+                                     floor=self.floor, give_up=self.floor > 0 and self.method == "auto")
+            short = fig["mc_se"] > self.rel_tol * max(float(np.var(y, ddof=1)) - fig["expected_var_post"], self.floor)
             if fig["ess_fraction"] * len(theta) < 50:  # too few effective draws: fall back
+                m, fig = "regression", None
+            elif self.floor > 0 and self.method == "auto" and short:
+                # precision on demand: the importance error shrinks with its outer readings (at most
+                # max_outer, each weighing every draw), the regression's with the draws; past the cap, regress
                 m, fig = "regression", None
             else:
                 # the prior width is fixed by the draws here; the narrowing's error is the width's
@@ -368,7 +418,9 @@ class _JointTask:
 
 def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Reading], *,
                seed: int = 0, budget: float | None = None, method: str = "auto",
-               max_set_size: int = 6, executor: Any = None) -> dict[str, Any]:
+               max_set_size: int = 6, executor: Any = None, batches: tuple[int, ...] | None = None,
+               importance_tol: float | None = None, max_outer: int = _IS_MAX, joint: bool = True
+               ) -> dict[str, Any]:
     """Rank candidate readings on draws ``values`` (name -> array) of the inputs and ``y`` (output).
 
     Returns the ``rank`` JSON (DESIGN.md section 5): ``candidates`` sorted by expected variance
@@ -399,6 +451,18 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
         Most readings in ``best_set``.
     executor : InProcess or DaskExecutor or None
         Where the candidate and joint-fit tasks run.
+    batches : tuple of int or None
+        Draws in each batch of a grown sample (the batches end to end make ``values`` and ``y``): each
+        batch's simulated readings come from their own stream (:func:`simulate_batches`), so a grown
+        sample keeps its earlier readings. None: one batch.
+    importance_tol : float or None
+        Relative Monte Carlo error the importance estimate grows its outer readings to (dimensionless),
+        relative to the reduction or to :data:`SHARE_FLOOR` x Var(Y) when that is larger (precision on
+        demand); None: 5 % of the reduction.
+    max_outer : int
+        Cap on the importance estimate's outer readings.
+    joint : bool
+        Also the joint fits of ``best_pair`` and ``best_set`` (None when False).
 
     Returns
     -------
@@ -422,7 +486,13 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
             raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
                              value=c.parameter)
     read_values = {c.parameter: np.asarray(values[c.parameter], dtype=float)[ok] for c in candidates}
-    done = executor.map(_CandidateTask(read_values, y, method), candidates, seed=seed, label="rank candidates")
+    kept = None
+    if batches is not None and len(batches) > 1:  # finite draws in each batch
+        kept = tuple(int(np.sum(part)) for part in np.split(ok, np.cumsum(batches)[:-1]))
+    task = _CandidateTask(read_values, y, method, kept, max_outer=max_outer,
+                          rel_tol=_IS_REL_TOL if importance_tol is None else importance_tol,
+                          floor=0.0 if importance_tol is None else SHARE_FLOOR * var_y)
+    done = executor.map(task, candidates, seed=seed, label="rank candidates")
     rng = np.random.default_rng(task_seeds(seed, len(candidates) + 1)[len(candidates)])  # joint fits' errors
     # one simulated reading per draw and candidate: shared by singles, pairs and sets
     reads: dict[str, np.ndarray] = {}
@@ -450,6 +520,10 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
             "perfect_information_mc_se": var_y * s1_se,
             "method": m,
         }
+        # 95% half-width of the reduction: t quantile with the replicates behind its error (blocks or outer
+        # readings) less one degree of freedom
+        row["mc_df"] = int(fig["outer"]) - 1 if m == "importance" else _BLOCKS - 1
+        row["mc_half_width"] = t975(row["mc_df"]) * fig["mc_se"] if math.isfinite(fig["mc_se"]) else math.inf
         if m == "importance":
             row["importance_outer"] = fig["outer"]
             row["importance_ess_fraction"] = fig["ess_fraction"]
@@ -480,6 +554,9 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
     names = [c.name for c in candidates]
     cost_of = {c.name: c.cost for c in candidates}
     best_pair = None
+    if not joint:
+        return {"prior": {"var": var_y, "ci95_width": prior_width, "draws": int(len(y))},
+                "candidates": rows, "best_pair": None, "best_set": None, "notes": notes}
     if len(names) >= 2:
         pairs = joints([p for p in itertools.combinations(names, 2)
                         if budget is None or cost_of[p[0]] + cost_of[p[1]] <= budget + 1e-12])
@@ -621,10 +698,90 @@ def posterior_pool(study: Any, output: str, *, seed: int, samples: int, sampler:
 #: Fewest draws a ranking uses: fewer gave errors of 21-289 % in the expected variance reduction at 10-1000
 #: draws (issue 18 review; our measurement), 4096 the prior path's default (common practice: a power of two).
 MIN_SAMPLES = 4096
+#: Default cap on the draws of the ``tol`` doubling: 16 x the default (four doublings), a bound on memory and
+#: time (the same factor as sensitivity's cap; common practice).
+DEFAULT_MAX_SAMPLES = 16 * MIN_SAMPLES
+#: A candidate that removes less than this share of the output's variance is held to ``tol`` times this share
+#: of the variance, not to ``tol`` times its own reduction (a relative tolerance on a reduction near zero
+#: could never be met; a share this small does not change which measurement to make; common practice,
+#: the 0.01 absolute tolerance on indices of issue 18).
+SHARE_FLOOR = 0.01
+
+
+def t975(df: int) -> float:
+    """The 97.5 % quantile of Student's t with ``df`` degrees of freedom (dimensionless).
+
+    Parameters
+    ----------
+    df : int
+        Degrees of freedom (at least 1).
+
+    Returns
+    -------
+    float
+        The factor turning a standard error into a 95 % half-width.
+    """
+    from scipy.stats import t
+
+    return float(t.ppf(0.975, max(int(df), 1)))
+
+
+def widest_relative_half_width(doc: dict[str, Any]) -> tuple[float, float, str]:
+    """The candidate whose expected variance reduction is least precise, relative to its own size.
+
+    Parameters
+    ----------
+    doc : dict
+        A ranking document (:func:`rank_draws`): each candidate's ``mc_half_width`` (the output's unit
+        squared) and ``expected_variance_reduction``; ``prior.var``.
+
+    Returns
+    -------
+    tuple of (float, float, str)
+        The largest ratio of the 95 % half-width to max(reduction, :data:`SHARE_FLOOR` x Var(Y))
+        (dimensionless; inf for an error that is not finite), that half-width (the output's unit squared)
+        and the candidate's name.
+    """
+    floor = SHARE_FLOOR * float(doc["prior"]["var"])
+    worst, half, where = -1.0, float("nan"), ""
+    for row in doc["candidates"]:
+        h = float(row.get("mc_half_width", math.inf))
+        scale = max(float(row["expected_variance_reduction"]), floor)
+        r = h / scale if math.isfinite(h) and scale > 0 else math.inf
+        if r > worst:
+            worst, half, where = r, h, str(row["name"])
+    return worst, half, where
+
+
+def _check_tol(tol: float | None, max_samples: int | None, start: int, file: str | None) -> int:
+    """The cap on the draws of the ``tol`` doubling; InputError for a tolerance or cap that cannot be met."""
+    if tol is not None and (isinstance(tol, bool) or not isinstance(tol, int | float | np.floating)
+                            or not math.isfinite(tol) or not 0 < tol < 1):
+        raise InputError("the tolerance is relative: it must lie between 0 and 1", file=file, key="rank.tol",
+                         value=tol)
+    if max_samples is None:
+        return max(DEFAULT_MAX_SAMPLES, start)
+    if isinstance(max_samples, bool) or not isinstance(max_samples, int | np.integer) or max_samples < start:
+        raise InputError(f"max-samples is below the starting {start} draws", file=file, key="rank.max_samples",
+                         value=max_samples)
+    return int(max_samples)
+
+
+def _prior_batch(study: Any, n: int, seed: Any, output: str, point: Any) -> tuple[dict[str, np.ndarray], np.ndarray]:
+    """n prior draws (individual layer) of the study's quantities and outputs, and the output ``y``."""
+    values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
+    outputs = model_evaluate(study, values)
+    if point is not None:  # a whole_body time course at a time: "infused_retained_fraction at 60 min"
+        outputs[output] = values_at(study, point, values)
+    y = np.asarray(outputs[output], dtype=float)
+    # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
+    pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
+    return {k: np.asarray(v, dtype=float) * np.ones(len(y)) for k, v in pool.items()}, y
 
 
 def rank(study: Any, seed: int | None = None, samples: int | None = None, method: str = "auto",
-         from_prior: bool = False, executor: Any = None) -> RankResult:
+         from_prior: bool = False, executor: Any = None, tol: float | None = None,
+         max_samples: int | None = None) -> RankResult:
     """Rank candidate measurements for the study's output (``[rank] output``, default Jv).
 
     Without observations (or with ``from_prior``) draws come from the prior (individual layer: a
@@ -635,6 +792,48 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     raised to it with a note; the posterior path samples about that many and keeps the thinned ones).
     ``executor`` (:mod:`uncertainty.core.parallel`, default in-process): each candidate's figures and
     each joint fit run as one task (:func:`rank_draws`); the numbers do not depend on it.
+
+    Parameters
+    ----------
+    study : Study
+        The study (its ``[rank]`` section, or the tissue's instruments).
+    seed : int, optional
+        Seed (default the study's).
+    samples : int, optional
+        Draws to start from (default ``[rank] samples``).
+    method : str
+        ``auto``, ``regression`` or ``importance``.
+    from_prior : bool
+        Rank from the prior even when the study has observations.
+    executor : InProcess or DaskExecutor, optional
+        Where the candidate and joint-fit tasks run.
+    tol : float, optional
+        Precision on demand (dimensionless, relative; default ``[rank] tol``): the draws double until the
+        95 % Monte Carlo half-width (t quantile x standard error, t with the blocks or outer readings
+        less one degree of freedom) of every candidate's expected variance reduction is below ``tol``
+        times that reduction, or times :data:`SHARE_FLOOR` x Var(Y) for a candidate removing less. On the
+        prior path each doubling adds as many new draws as there are (their own stream, child ``k`` of the
+        seed; earlier draws, their model runs and their simulated readings are kept); on the posterior
+        path the sampler runs again for twice the draws. Pairs and sets are fitted once, at the end. With
+        ``method`` auto, a candidate whose importance estimate misses the tolerance at its cap of outer
+        readings (4000, each weighing every draw) is estimated by regression, whose error shrinks with the
+        draws.
+    max_samples : int, optional
+        Cap on the draws of the doubling (default ``[rank] max_samples`` or :data:`DEFAULT_MAX_SAMPLES`).
+
+    Returns
+    -------
+    RankResult
+        With ``tol``: JSON keys ``tol``, ``converged`` and ``precision_history`` (one row per size: samples,
+        the widest relative half-width, its absolute value in the output's unit squared, which candidate).
+
+    Raises
+    ------
+    InputError
+        A tolerance outside (0, 1) or a cap below the starting draws; bad candidates.
+    QualityGateError
+        The tolerance is not met when the next doubling would pass the cap (exit 3, result attached), or
+        the posterior's chains fail their gate.
     """
 
     section = getattr(study, "rank", None)
@@ -642,6 +841,8 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
     budget = getattr(section, "budget", None)
     n = int(samples or max(getattr(section, "samples", MIN_SAMPLES) or MIN_SAMPLES, MIN_SAMPLES))
     seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
+    tol = getattr(section, "tol", None) if tol is None else tol
+    max_samples = getattr(section, "max_samples", None) if max_samples is None else max_samples
     cands = candidates_of(study)
     point = parse_time_endpoint(output, getattr(study, "timeline", None), file=_file(study), key="rank.output")
     notes = []
@@ -649,27 +850,67 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
         notes.append(f"samples raised from {n} to {MIN_SAMPLES}, the fewest that keep the expected variance "
                      "reductions within a few per cent")
         n = MIN_SAMPLES
+    cap = _check_tol(tol, max_samples, n, _file(study))
+    use_posterior = bool(getattr(study, "observations", None)) and not from_prior
     posterior = None
-    if getattr(study, "observations", None) and not from_prior:
-        pool, y, posterior = posterior_pool(study, output, seed=seed, samples=n)
+    batches: list[int] = []
+    pool: dict[str, np.ndarray] = {}
+    y = np.empty(0)
+    history: list[dict[str, Any]] = []
+    converged: bool | None = None
+    # tolerance mode: the relative error the importance estimate grows its outer readings to (t with the fewest
+    # outer readings it uses); with ``auto``, a candidate whose importance error stays above it at the cap on
+    # outer readings is estimated by regression, whose error shrinks with the draws
+    is_tol = None if tol is None else min(_IS_REL_TOL, tol / t975(_IS_START - 1))
+    worst, half, where = math.nan, math.nan, ""
+    while True:
+        if use_posterior:  # the sampler again, for all the draws (MCMC draws cannot be topped up)
+            pool, y, posterior = posterior_pool(study, output, seed=seed, samples=n)
+            batches = [len(y)]
+        else:
+            add = n - sum(batches)
+            part_seed: Any = seed if not batches else np.random.SeedSequence(seed, spawn_key=(len(batches),))
+            new_pool, new_y = _prior_batch(study, add, part_seed, output, point)
+            pool = new_pool if not batches else {k: np.concatenate([pool[k], new_pool[k]]) for k in pool}
+            y = np.concatenate([y, new_y])
+            batches.append(add)
+        if tol is None:
+            doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method, executor=executor)
+            break
+        doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method, executor=executor,
+                         batches=tuple(batches), importance_tol=is_tol, joint=False)
+        worst, half, where = widest_relative_half_width(doc)
+        history.append({"samples": int(len(y)), "widest_half_width": worst, "widest_half_width_abs": half,
+                        "widest": where})
+        converged = bool(worst < tol)
+        if converged or 2 * n > cap:
+            doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method, executor=executor,
+                             batches=tuple(batches), importance_tol=is_tol)
+            break
+        n *= 2
+    if posterior is not None:
         notes.append(f"figures are from the current posterior: {posterior['draws']} MCMC draws of "
                      f"{posterior['level']}, thinned every {posterior['thin']} for autocorrelation")
-    else:
-        values = sampling.draw(study, n, method="mc", seed=seed, layer="individual")
-        outputs = model_evaluate(study, values)
-        if point is not None:  # a whole_body time course at a time: "infused_retained_fraction at 60 min"
-            outputs[output] = values_at(study, point, values)
-        y = np.asarray(outputs[output], dtype=float)
-        # derived quantities (Pc from Pa, Pv, r; pi_c from protein) can be read too
-        pool = {**{k: np.asarray(v) for k, v in outputs.items() if np.shape(v) == y.shape}, **values}
-        if getattr(study, "observations", None):
-            notes.append("figures are from the prior (--from-prior): the observations are not folded in")
-    doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method, executor=executor)
+    elif getattr(study, "observations", None):
+        notes.append("figures are from the prior (--from-prior): the observations are not folded in")
     unit = point.unit if point is not None else output_unit(output)
     notes += doc.pop("notes", [])
+    if tol is not None:
+        notes.append(f"tolerance {tol:g} on the 95% Monte Carlo half-width of every candidate's expected variance "
+                     f"reduction, relative to it (or to {SHARE_FLOOR:g} of the output's variance when smaller)"
+                     + (f": met at {len(y)} draws" if converged else
+                        f": NOT met, the cap max-samples={cap} stopped the doubling at {len(y)} draws "
+                        f"(widest relative half-width {worst:.3g}, {where})"))
     doc = {"output": output, "samples": int(len(y)), "seed": seed, "from": "prior" if posterior is None else
            "posterior", **doc, "notes": notes,
            "units": {"expected_var_post": f"({unit})^2", "expected_ci95_width": unit, "per_cost": f"{unit} per cost"}}
     if posterior is not None:
         doc["posterior_draws"] = posterior
-    return RankResult(doc)
+    if tol is not None:
+        doc["tol"], doc["converged"], doc["precision_history"] = tol, converged, history
+    result = RankResult(doc)
+    if converged is False:
+        raise QualityGateError(f"95% Monte Carlo half-width of {where}'s expected variance reduction is still "
+                               f"{worst:.3g} of it, above tol={tol:g}, at {len(y)} draws; the next doubling "
+                               f"would exceed max-samples={cap}", result=result)
+    return result
