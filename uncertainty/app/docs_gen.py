@@ -204,6 +204,12 @@ MEANINGS: dict[str, str] = {
     "rank.output": "the output whose interval should narrow; in a whole_body study also a time course at a time, "
                    "\"NAME at TIME\" (e.g. \"infused_retained_fraction at 60 min\"; after 0, at most [timeline] end)",
     "rank.samples": "Monte Carlo sample size of the value-of-information estimate",
+    "rank.tol": "optional: double the draws (earlier draws and their simulated readings kept) until the 95% Monte "
+                "Carlo half-width (t x standard error) of every candidate's expected variance reduction is below "
+                "tol times that reduction (relative; times 1% of the output's variance for a candidate that "
+                "removes less)",
+    "rank.max_samples": "optional: upper limit for the doubling under `tol` (default 65536; quality gate, exit 3, "
+                        "when reached)",
     "rank.candidates.name": "label (unique)",
     "rank.candidates.parameter": "the quantity measured (a trade symbol)",
     "rank.candidates.sd": "measurement noise, in `unit` (default the quantity's canonical unit)",

@@ -369,7 +369,8 @@ class Candidate(BaseModel):
 
 
 class RankSection(BaseModel):
-    """``[rank]``: candidate measurements; optional ``budget``; output Jv; 4096 samples by default."""
+    """``[rank]``: candidate measurements; optional ``budget``; output Jv; 4096 samples by default; optional
+    ``tol`` (relative) and ``max_samples`` for precision on demand."""
 
     model_config = STRICT_CONFIG
     candidates: list[Candidate] = Field(default_factory=list, max_length=100)  # empty: instruments.toml for the tissue
@@ -378,6 +379,19 @@ class RankSection(BaseModel):
         "the output whose interval the readings narrow; in a whole_body study also a time course at a time, "
         "\"NAME at TIME\" (e.g. \"infused_retained_fraction at 60 min\")"))
     samples: int = Field(default=4096, gt=0, le=2**22)
+    tol: float | None = Field(default=None, gt=0, lt=1, description=(
+        "keep doubling the draws until the 95% Monte Carlo half-width of every candidate's expected variance "
+        "reduction is below tol times that reduction (relative)"))
+    max_samples: int | None = Field(default=None, gt=0, le=2**22, description=(
+        "with tol: the most draws; reaching it first exits 3"))
+
+    @field_validator("max_samples")
+    @classmethod
+    def _max_at_least_samples(cls, v: int | None, info: ValidationInfo) -> int | None:
+        samples = info.data.get("samples")
+        if v is not None and isinstance(samples, int) and v < samples:
+            raise ValueError(f"max_samples is below samples ({samples})")
+        return v
 
     @field_validator("candidates")
     @classmethod

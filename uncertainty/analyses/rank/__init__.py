@@ -884,6 +884,8 @@ def rank(study: Any, seed: int | None = None, samples: int | None = None, method
                         "widest": where})
         converged = bool(worst < tol)
         if converged or 2 * n > cap:
+            if len(cands) < 2 and budget is None:  # nothing to fit jointly: the document is complete
+                break
             doc = rank_draws(pool, y, cands, seed=seed + 1, budget=budget, method=method, executor=executor,
                              batches=tuple(batches), importance_tol=is_tol)
             break

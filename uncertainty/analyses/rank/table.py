@@ -16,7 +16,7 @@ def table(doc: dict[str, Any]) -> str:
     Returns
     -------
     str
-        A heading, one row per candidate, the best pair and set, notes.
+        A heading, one row per candidate, the best pair and set, the sizes tried under a tolerance, notes.
     """
     lines = [f"expected effect of one measurement on {doc['output']} ({doc.get('from', 'prior')} 95% width "
              f"{doc['prior']['ci95_width']:.3g}; {doc['samples']} draws, seed {doc['seed']})",
@@ -32,5 +32,8 @@ def table(doc: dict[str, Any]) -> str:
             lines.append(f"{key}: {' + '.join(b['names'])} (cost {b['cost']:g}): Var reduction "
                          f"{b['expected_variance_reduction']:.3g} +- {b['mc_se']:.2g}, 95% width "
                          f"{b['expected_ci95_width']:.3g} (fitted jointly)")
+    if doc.get("precision_history"):  # whether the tolerance was met is one of the notes
+        lines.append(f"tolerance {doc['tol']:g}, draws tried (widest 95% half-width over the reduction): " + ", ".join(
+            f"{h['samples']} ({h['widest_half_width']:.3g})" for h in doc["precision_history"]))
     lines += [f"note: {n}" for n in doc.get("notes", [])]
     return "\n".join(lines)
