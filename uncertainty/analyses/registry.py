@@ -11,12 +11,15 @@ import weakref
 from collections.abc import Callable
 from typing import Any
 
+from uncertainty.analyses import calibrate as calibrate_
 from uncertainty.analyses import design as design_
 from uncertainty.analyses import propagate as propagate_
 from uncertainty.analyses import rank as rank_
 from uncertainty.analyses import scenarios as scenarios_
 from uncertainty.analyses import schedule as schedule_
 from uncertainty.analyses import sensitivity as sensitivity_
+from uncertainty.analyses.calibrate import report_section as calibrate_report
+from uncertainty.analyses.calibrate.result import CalibrationResult
 from uncertainty.analyses.design import report_section as design_report
 from uncertainty.analyses.design.result import DesignResult
 from uncertainty.analyses.inference import api as inference_api
@@ -101,9 +104,17 @@ def _run_schedule(study: Any, seed: int | None, executor: Any = None) -> Result:
     return schedule_.schedule(study, seed=seed, executor=executor)
 
 
+def _run_calibrate(study: Any, seed: int | None, executor: Any = None) -> Result:
+    section = getattr(study, "calibrate", None)
+    return calibrate_.calibrate(study, seed=seed, executor=executor,
+                                replicates=getattr(section, "replicates", calibrate_.REPLICATES),
+                                bins=getattr(section, "bins", calibrate_.BINS),
+                                draws=getattr(section, "draws", calibrate_.DRAWS))
+
+
 #: the analyses whose ``run`` also takes ``executor=`` (:mod:`uncertainty.core.parallel`): their
 #: independent tasks go through it, with the same numbers on any executor
-USES_EXECUTOR = frozenset({"propagate", "sensitivity", "rank", "design", "schedule"})
+USES_EXECUTOR = frozenset({"propagate", "sensitivity", "rank", "design", "schedule", "calibrate"})
 
 #: the analyses in the order a whole-study run computes them
 ANALYSES: tuple[Analysis, ...] = (
@@ -136,6 +147,12 @@ ANALYSES: tuple[Analysis, ...] = (
              depends=("scenarios", "observations", "infer"), run=_run_scenarios, from_dict=ScenariosResult.from_dict,
              present=_has_scenarios, section_html=scenarios_report.section_html, summary=scenarios_report.summary,
              captions=scenarios_report.CAPTIONS),
+    # heavy (one refit per replicate): only when the study file has a [calibrate] section
+    Analysis(name="calibrate", title="Calibration of the inference", label="simulation-based calibration",
+             depends=("calibrate", "observations", "infer"), run=_run_calibrate,
+             from_dict=CalibrationResult.from_dict, present=_has_section("calibrate"),
+             section_html=calibrate_report.section_html, summary=calibrate_report.summary,
+             captions=calibrate_report.CAPTIONS),
 )
 
 #: the analyses whose diagnostics the report shows, in its order: the sampler's, then Monte Carlo's

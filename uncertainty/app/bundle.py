@@ -36,7 +36,8 @@ LOCK = ".lock"
 #: someone else's and is refused unless --force.
 BUNDLE_ENTRIES = frozenset({RESULTS, REPORT, "tables", "figures", "posterior.nc", STAGING, LOCK})
 
-SectionName = Literal["check", "propagate", "sensitivity", "infer", "rank", "design", "schedule", "scenarios"]
+SectionName = Literal["check", "propagate", "sensitivity", "infer", "rank", "design", "schedule", "scenarios",
+                      "calibrate"]
 
 
 # --------------------------------------------------------------------------------------------

@@ -91,8 +91,10 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "prior (correlations included), the study's observations simulated from them, a refit per replicate "
      "(sampler settings and quality gate of `[infer]`; failed refits counted and left out) and the rank of "
      "each truth among `draws` posterior draws, tested for uniformity (chi-square) with the 90% interval's "
-     "coverage against Binomial(N, 0.9). Run by `fluidshift calibrate STUDY` (not by `run`); its flags "
-     "override these keys; defaults apply when the section is absent."),
+     "coverage against Binomial(N, 0.9). Run by `fluidshift calibrate STUDY` (its flags "
+     "override these keys; defaults apply when the section is absent) and by `fluidshift run` when the study "
+     "file has this section (heavy: one refit per replicate); the run's results.json then has a `calibrate` "
+     "section (ranks, bin counts, p-values, 90% coverage, verdict) and the report its rank histograms."),
     ("scenarios", "[[scenarios]]", "Scenario",
      "What-ifs, one table per scenario: quantities shifted or scaled and conditions added or removed. Each is "
      "evaluated on the same draws as the baseline (the prior draws, and the posterior draws when inference "

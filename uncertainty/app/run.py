@@ -1,8 +1,9 @@
 """Whole-study runner: every analysis section of a study, one results bundle, one HTML report.
 
 Order: check (load and validate), propagate, sensitivity, infer (when there are observations),
-rank, design, schedule (the venous-cuff measurement schedule); each section runs only when the study
-has it. After each section ``results.json`` is rewritten (atomically), so an interrupted run keeps
+rank, design, schedule (the venous-cuff measurement schedule), scenarios, calibrate (simulation-based
+calibration, heavy: only with a ``[calibrate]`` section); each section runs only when the study has it.
+After each section ``results.json`` is rewritten (atomically), so an interrupted run keeps
 what it finished, and the next run of the same study skips every section whose inputs are
 unchanged: the study content that section depends on (the study minus the other analysis sections,
 the resolved priors, data files), the seed and the package version. ``force=True`` recomputes everything.
@@ -39,7 +40,8 @@ from uncertainty.study import Study, load_study
 
 ORDER = ("check", *(a.name for a in registry.ANALYSES))
 #: study-file sections that belong to one analysis (the rest of the file is shared by all)
-ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule", "scenarios")
+ANALYSIS_KEYS = ("propagate", "sensitivity", "observations", "infer", "rank", "design", "schedule", "scenarios",
+                 "calibrate")
 #: the study-file sections each analysis depends on, beyond the shared part
 DEPENDS = {"check": (), **{a.name: a.depends for a in registry.ANALYSES}}
 LABELS = {"check": "check study", **{a.name: a.label for a in registry.ANALYSES}}

@@ -17,7 +17,7 @@ from uncertainty.analyses.design import parse_design
 from uncertainty.analyses.inference.api import check_model
 from uncertainty.analyses.propagate import starting_samples
 from uncertainty.analyses.propagate.thresholds import threshold_specs
-from uncertainty.analyses.rank import candidates_of
+from uncertainty.analyses.rank import MIN_SAMPLES, candidates_of
 from uncertainty.core.errors import InputError
 from uncertainty.forms.catalogue import study_outputs
 
@@ -40,13 +40,22 @@ def check_propagate(study: Any) -> None:
 
 
 def check_sections(study: Any) -> None:
-    """Raise InputError (file, key, value) when the study's [propagate], [design] or [rank] section cannot
-    run."""
+    """Raise InputError (file, key, value) when the study's [propagate], [design], [rank] or [calibrate]
+    section cannot run."""
     check_propagate(study)
     if getattr(study, "design", None) is not None:
         parse_design(study)
-    if getattr(study, "rank", None) is not None:
+    rank = getattr(study, "rank", None)
+    if rank is not None:
         candidates_of(study)
+        start = max(int(getattr(rank, "samples", MIN_SAMPLES) or MIN_SAMPLES), MIN_SAMPLES)
+        cap = getattr(rank, "max_samples", None)
+        if cap is not None and cap < start:
+            raise InputError(f"max_samples is below the draws ranking starts from ({start}: samples, at least "
+                             f"{MIN_SAMPLES})", file=getattr(study, "file", None), key="rank.max_samples", value=cap)
+    if getattr(study, "calibrate", None) is not None and not getattr(study, "observations", None):
+        raise InputError("calibration simulates the study's observations: the study has none",
+                         file=getattr(study, "file", None), key="calibrate", value=None)
 
 
 def check_study(study: Any) -> dict[str, Any] | None:
