@@ -83,6 +83,7 @@ def test_cap_stops_the_doubling_with_exit_3_and_the_flagged_result(tmp_path) -> 
     doc = exc.value.result.to_dict()
     assert doc["converged"] is False and doc["samples"] == 2 * MIN_SAMPLES
     assert any("NOT met" in n and "max-samples=8192" in n for n in doc["notes"])
+    assert "NOT met" in exc.value.result.html_section()  # the report says so too
     f = tmp_path / "rank.toml"
     f.write_text('[study]\ntitle = "rank cap (invented)"\ntissue = "skeletal_muscle"\nmodel = "classic"\nseed = 3\n'
                  '[parameters]\nPc = { dist = "normal", mean = 20.0, sd = 3.0, unit = "mmHg" }\nKf = 0.01\n'

@@ -55,6 +55,14 @@ def section_html(res: dict[str, Any]) -> str:
     parts = ["<p>Expected effect of one more measurement on the Jv estimate (value of information), "
              "before the measurement is made.</p>",
              table([c.replace("_", " ") for c in cols], rows, num_cols=set(range(2, len(cols))))]
+    if res.get("tol") is not None:
+        hist = [h for h in res.get("precision_history") or [] if isinstance(h, dict)]
+        last = hist[-1] if hist else {}
+        state = "met" if res.get("converged") else "NOT met (the cap on draws stopped the doubling)"
+        parts.append(f"<p>Precision: tolerance {escape(fmt(res.get('tol'), 3))} on the 95 % Monte Carlo half-width "
+                     f"of every expected variance reduction, relative to it, {escape(state)} at "
+                     f"{escape(fmt(last.get('samples')))} draws (widest "
+                     f"{escape(fmt(last.get('widest_half_width'), 3))}, {escape(str(last.get('widest', '')))}).</p>")
     for key, label in (("best_pair", "Best pair"), ("best_set", "Best set within the budget")):
         v = res.get(key)
         if v:
