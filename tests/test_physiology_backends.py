@@ -36,6 +36,10 @@ CASES = {
     "oncotic.pi_albumin": (oncotic.pi_albumin, dict(C=u(0, 6))),
     "oncotic.pi_globulin": (oncotic.pi_globulin, dict(C=u(0, 5))),
     "oncotic.pi_albumin_globulin": (oncotic.pi_albumin_globulin, dict(C_alb=u(0, 6), C_glob=u(0, 5))),
+    "oncotic.pi_albumin_globulin_parts": (
+        lambda C_alb, C_glob: dict(zip(("alb", "glob"), oncotic.pi_albumin_globulin_parts(C_alb, C_glob),
+                                       strict=True)),
+        dict(C_alb=u(0, 6), C_glob=u(0, 5))),
     "oncotic.pi_van_t_hoff": (oncotic.pi_van_t_hoff, dict(C=u(0, 8), molar_mass=u(5e4, 2e5), T=u(290, 315))),
     "capillary.mean_capillary_pressure": (capillary.mean_capillary_pressure, dict(
         Pa=u(60, 110), Pv=u(2, 30), r=u(0.05, 2))),
