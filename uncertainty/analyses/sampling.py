@@ -9,7 +9,8 @@ Everything samples the open unit cube (0, 1)^k. A point's columns are laid out a
 
 A cube column ``u`` becomes a normal score ``z = Phi^-1(u)``. The typical-subject scores are
 correlated through the study's correlation matrix (a Gaussian copula, Cholesky factor applied to
-independent scores); the between-subject scores stay independent. The priors' distribution
+independent scores); the between-subject scores are correlated likewise by the study's between-subject
+pairs (``Study.between_correlations``; independent without them). The priors' distribution
 families map scores to values (``uncertainty.distributions``: ``Distribution.from_scores``, with a
 spline of the exact map for large beta and gamma batches; ``Prior.individual`` for the
 between-subject layer).
@@ -97,6 +98,45 @@ def correlation_of(study: Any) -> np.ndarray:
     return corr
 
 
+def between_correlation_of(study: Any) -> np.ndarray | None:
+    """The normal-score correlation matrix of the between-subject layer, over
+    :func:`between_subject_names` (dimensionless), or None when the study declares no such pair.
+
+    Built from ``study.between_correlations`` (pairs checked positive definite when the study was
+    resolved); a pair on a quantity without a spread raises InputError.
+    """
+    pairs = list(getattr(study, "between_correlations", None) or ())
+    if not pairs:
+        return None
+    names = between_subject_names(study)
+    idx = {n: i for i, n in enumerate(names)}
+    corr = np.eye(len(names))
+    for a, b, rho in pairs:
+        if a not in idx or b not in idx:
+            raise InputError("a between-subject correlation names a quantity without a between-subject spread",
+                             key="correlations.between_subject", value=[a, b, rho])
+        corr[idx[a], idx[b]] = corr[idx[b], idx[a]] = float(rho)
+    return corr
+
+
+def correlate_scores(study: Any, z: np.ndarray, layer: str = "individual") -> np.ndarray:
+    """Independent normal scores (n, k) in the :func:`cube_columns` layout -> correlated ones, in place.
+
+    The typical columns through the Cholesky factor of :func:`correlation_of`; in the ``individual``
+    layer the between-subject columns through that of :func:`between_correlation_of`. Columns without
+    a declared correlation are left exactly as they are.
+    """
+    d = len(study.names)
+    corr = correlation_of(study)
+    if d and not is_independent(corr):
+        z[:, :d] = z[:, :d] @ cholesky(corr).T
+    if layer == "individual":
+        between = between_correlation_of(study)
+        if between is not None and not is_independent(between):
+            z[:, d:] = z[:, d:] @ cholesky(between).T
+    return z
+
+
 def is_independent(corr: np.ndarray, tol: float = 1e-12) -> bool:
     """True when a correlation matrix is the identity (within tol)."""
     return bool(np.all(np.abs(corr - np.eye(len(corr))) <= tol))
@@ -141,7 +181,7 @@ def replicate_seeds(seed: Any, replicates: int) -> list[np.random.SeedSequence]:
 
 
 def normal_scores(study: Any, u: np.ndarray, layer: str = "individual") -> np.ndarray:
-    """Cube points (n, k) -> normal scores (n, k), the typical part correlated (Gaussian copula)."""
+    """Cube points (n, k) -> normal scores (n, k), correlated (Gaussian copula) by :func:`correlate_scores`."""
     from scipy.special import ndtri
 
     cols = cube_columns(study, layer)
@@ -150,11 +190,7 @@ def normal_scores(study: Any, u: np.ndarray, layer: str = "individual") -> np.nd
         raise InputError(f"cube has {u.shape[1]} columns; the {layer} layer needs {len(cols)}",
                          key="u", value=u.shape)
     z = np.asfortranarray(ndtri(u))  # columns contiguous for the per-quantity maps
-    d = len(study.names)
-    corr = correlation_of(study)
-    if d and not is_independent(corr):
-        z[:, :d] = z[:, :d] @ cholesky(corr).T
-    return z
+    return correlate_scores(study, z, layer)
 
 
 def scores_to_values(prior: Any, z: np.ndarray, *, exact: bool = False) -> np.ndarray:
@@ -235,11 +271,7 @@ def draw(study: Any, n: int, *, method: str = "qmc", seed: Any = None,
     k = len(cube_columns(study, layer))
     if method == "mc":  # plain MC: normal scores drawn directly (same law as Phi^-1 of uniforms)
         z = np.random.default_rng(seed).standard_normal((k, n)).T  # columns contiguous
-        d = len(study.names)
-        corr = correlation_of(study)
-        if d and not is_independent(corr):
-            z[:, :d] = z[:, :d] @ cholesky(corr).T
-        return from_scores(study, z, layer)
+        return from_scores(study, correlate_scores(study, z, layer), layer)
     m = next_power_of_two(n) if method == "qmc" else n
     u = cube(m, k, method, seed)[:n]
     return from_cube(study, u, layer)

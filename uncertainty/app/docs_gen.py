@@ -132,6 +132,11 @@ MEANINGS: dict[str, str] = {
     "study.description": "free text",
     "study.note": "free text",
     "correlations.pairs": "[[a, b, rho], ...]: normal-score correlation rho (-1..1) between inputs a and b",
+    "correlations.between_subject": "[[a, b, rho], ...]: normal-score correlation rho (-1..1) between the "
+                                    "between-subject deviations of a and b (quantities coupled between people, "
+                                    "e.g. LAP and PAP); both need a `between_subject` spread. Used by the "
+                                    "individual draws of propagate and by inference's subject effects; replaces "
+                                    "a prior set's `layer = \"between_subject\"` value for the same pair",
     "propagate.samples": "total number of draws over all replicates (rounded up to a power of two per replicate "
                          "for qmc)",
     "propagate.method": "mc (pseudo-random), qmc (scrambled Sobol'), lhs (Latin hypercube)",

@@ -91,7 +91,11 @@ class PriorSet:
         priors: symbol -> Prior (canonical units), including the protein concentrations that derive
             pi_c / pi_i and the pressures that derive Pc.
         derived: target -> Derivation (from_protein entries).
-        correlations: (a, b, rho) normal-score correlations with their origins in ``correlation_origins``.
+        correlations: (a, b, rho) normal-score correlations with their origins in ``correlation_origins``
+            (typical-subject layer: uncertainty about the typical values).
+        between_correlations: (a, b, rho) normal-score correlations of the between-subject layer (rows with
+            ``layer = "between_subject"``: quantities coupled between people), origins in
+            ``between_correlation_origins``.
         path: the file read.
     """
 
@@ -104,6 +108,8 @@ class PriorSet:
     derived: dict[str, Derivation] = field(default_factory=dict)
     correlations: list[tuple[str, str, float]] = field(default_factory=list)
     correlation_origins: list[str] = field(default_factory=list)
+    between_correlations: list[tuple[str, str, float]] = field(default_factory=list)
+    between_correlation_origins: list[str] = field(default_factory=list)
     path: str | None = None
     models: tuple[str, ...] = GENERAL_FORMS
 
@@ -111,8 +117,13 @@ class PriorSet:
         """A copy whose dictionaries and lists may be changed freely."""
         return dataclasses.replace(self, priors=dict(self.priors), derived=dict(self.derived),
                                    correlations=list(self.correlations),
-                                   correlation_origins=list(self.correlation_origins))
+                                   correlation_origins=list(self.correlation_origins),
+                                   between_correlations=list(self.between_correlations),
+                                   between_correlation_origins=list(self.between_correlation_origins))
 
+
+#: Layers a ``[[correlations]]`` row may name: ``typical`` (the default) or ``between_subject``.
+CORRELATION_LAYERS = ("typical", "between_subject")
 
 #: TOML files in the priors folder that are not prior sets: the condition modifiers, the instruments and the
 #: validation table (``uncertainty.analyses.validation``).
@@ -198,15 +209,23 @@ def prior_set_from_dict(doc: Mapping[str, Any], *, file: Any = None, name: str |
         raise study_error("[[correlations]] rows: pair = [a, b], rho, origin", file, "correlations", rows)
     for i, row in enumerate(rows):
         k = f"correlations[{i}]"
-        if not isinstance(row, Mapping) or set(row) - {"pair", "rho", "origin", "note"}:
-            raise study_error("a correlation row has pair = [a, b], rho and origin", file, k, row)
+        if not isinstance(row, Mapping) or set(row) - {"pair", "rho", "origin", "note", "layer"}:
+            raise study_error("a correlation row has pair = [a, b], rho, origin (and layer)", file, k, row)
+        layer = row.get("layer", "typical")
+        if layer not in CORRELATION_LAYERS:
+            raise study_error("layer is typical (uncertainty about the typical values) or between_subject "
+                              "(coupling between people)", file, f"{k}.layer", layer)
         pair, rho = row.get("pair"), row.get("rho")
         if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str) for p in pair)):
             raise study_error("pair is two quantity names", file, f"{k}.pair", pair)
         if not is_number(rho) or not -1 < rho < 1:
             raise study_error("rho must lie strictly between -1 and 1", file, f"{k}.rho", rho)
-        pset.correlations.append((pair[0], pair[1], float(rho)))
-        pset.correlation_origins.append(str(row.get("origin", "")))
+        if layer == "between_subject":
+            pset.between_correlations.append((pair[0], pair[1], float(rho)))
+            pset.between_correlation_origins.append(str(row.get("origin", "")))
+        else:
+            pset.correlations.append((pair[0], pair[1], float(rho)))
+            pset.correlation_origins.append(str(row.get("origin", "")))
     return pset
 
 

@@ -17,7 +17,8 @@ validated pydantic sections are never modified (a step that converts units retur
 6. :func:`resolve_sections`: the analysis sections and observations, converted to canonical units,
    with their data files and instruments (:class:`Sections`).
 7. :func:`resolve_correlations`: the prior set's and the study's normal-score correlations over the
-   uncertain inputs (:class:`Correlations`).
+   uncertain inputs (:class:`Correlations`); :func:`resolve_between_correlations`: those of the
+   between-subject layer, over the quantities with a between-subject spread.
 
 Every error is a :class:`uncertainty.core.errors.StudyError` naming the file, the dotted key path
 and the offending value.
@@ -1349,12 +1350,14 @@ class Correlations:
 
 
 def _study_pairs(section: CorrelationsSection, names: Sequence[str], priors: Mapping[str, Prior],
-                 alias: Mapping[str, str], file: str) -> list[tuple[str, str, str, str, float]]:
-    """``[correlations]`` pairs as (written a, written b, input a, input b, rho), checked."""
+                 alias: Mapping[str, str], file: str, *, layer: str = "pairs",
+                 ) -> list[tuple[str, str, str, str, float]]:
+    """``[correlations]`` pairs (``layer``: ``pairs`` or ``between_subject``) as (written a, written b,
+    input a, input b, rho), checked."""
     out: list[tuple[str, str, str, str, float]] = []
     seen: set[frozenset[str]] = set()
-    for i, pair in enumerate(section.pairs):
-        key = f"correlations.pairs[{i}]"
+    for i, pair in enumerate(getattr(section, layer)):
+        key = f"correlations.{layer}[{i}]"
         if len(pair) != 3 or not isinstance(pair[0], str) or not isinstance(pair[1], str) \
                 or isinstance(pair[2], str):
             raise study_error("a pair is [quantity, quantity, rho]", file, key, pair)
@@ -1366,6 +1369,11 @@ def _study_pairs(section: CorrelationsSection, names: Sequence[str], priors: Map
         a2, b2 = alias.get(a, a), alias.get(b, b)
         for j, (s, s2) in enumerate(((a, a2), (b, b2))):
             if s2 not in names:
+                if layer == "between_subject":
+                    why = ("without a between-subject spread" if s2 in priors
+                           else "not a quantity of this study")
+                    raise study_error(f"cannot correlate {s} between subjects: it is {why}", file,
+                                      f"{key}[{j}]", s)
                 why = "fixed" if s2 in priors else "not an uncertain input of this study"
                 raise study_error(f"cannot correlate {s}: it is {why}", file, f"{key}[{j}]", s)
         fs = frozenset((a2, b2))
@@ -1563,3 +1571,78 @@ def resolve_scenarios(scenarios: Sequence[Scenario], head: StudySection, inputs:
                                   cname)
         out.append(sc.with_changes(tuple(changes)))
     return out
+
+
+def resolve_between_correlations(priors: Mapping[str, Prior], derived: Mapping[str, Derivation],
+                                 prior_set_pairs: Sequence[tuple[str, str, float]], overridden: Set[str],
+                                 section: CorrelationsSection | None, file: str) -> Correlations:
+    """The normal-score correlation matrix of the between-subject layer.
+
+    Over the quantities with a between-subject spread (``Prior.between_subject``), in ``priors`` order:
+    how the deviations of one person from the typical subject go together (quantities coupled between
+    people). The rules are those of :func:`resolve_correlations`: a prior-set pair involving an
+    overridden quantity, or a quantity without a spread, is dropped with a note; a pair named on a
+    derived quantity with a single input applies to that input; ``[correlations] between_subject``
+    pairs replace prior-set pairs over the same quantities; the matrix is refused, never repaired.
+
+    Parameters
+    ----------
+    priors : Mapping of str to Prior
+        The study's priors.
+    derived : Mapping of str to Derivation
+        Every derivation left after the solved quantities are set aside.
+    prior_set_pairs : Sequence of (str, str, float)
+        The prior set's ``layer = "between_subject"`` correlations.
+    overridden : Set of str
+        Quantities ``[parameters]`` declares.
+    section : CorrelationsSection or None
+        ``[correlations]`` as written (its ``between_subject`` pairs).
+    file : str
+        The study file, for messages.
+
+    Returns
+    -------
+    Correlations
+        Names (the quantities with a spread), matrix (dimensionless), kept pairs and notes; no pairs
+        leaves the identity, and the draws are exactly those of a study without the layer.
+
+    Raises
+    ------
+    StudyError
+        A malformed pair, a pair on a quantity without a spread or unknown, a pair given twice, or a
+        matrix that is not positive definite (``correlations.between_subject``).
+    """
+    names = [s for s, p in priors.items() if getattr(p, "between_subject", None)]
+    alias = {t: d.inputs[0] for t, d in derived.items() if len(d.inputs) == 1 and d.formula != "gaar"}
+    notes: list[str] = []
+    kept: dict[frozenset[str], tuple[str, str, float]] = {}
+    for (a, b, rho) in prior_set_pairs:
+        if a in overridden or b in overridden:
+            notes.append(f"prior-set between-subject correlation {a}-{b} ({rho:g}) dropped: "
+                         f"{a if a in overridden else b} is overridden by the study")
+            continue
+        a2, b2 = alias.get(a, a), alias.get(b, b)
+        if a2 not in names or b2 not in names:
+            missing = a if a2 not in names else b
+            notes.append(f"prior-set between-subject correlation {a}-{b} ({rho:g}) not used: {missing} has "
+                         "no between-subject spread in this study")
+            continue
+        kept[frozenset((a2, b2))] = (a2, b2, rho)
+    if section is not None:
+        for a, b, a2, b2, rho in _study_pairs(section, names, priors, alias, file, layer="between_subject"):
+            fs = frozenset((a2, b2))
+            if fs in kept:
+                notes.append(f"[correlations] between_subject {a}-{b} replaces the prior set's value "
+                             f"{kept[fs][2]:g}")
+            kept[fs] = (a2, b2, rho)
+    corr = np.eye(len(names))
+    idx = {n: i for i, n in enumerate(names)}
+    for a, b, rho in kept.values():
+        corr[idx[a], idx[b]] = corr[idx[b], idx[a]] = rho
+    if kept:
+        eig = float(np.linalg.eigvalsh(corr).min())
+        if not eig > 1e-10:
+            raise study_error("the between-subject correlations do not form a valid (positive-definite) "
+                              f"correlation matrix; smallest eigenvalue {eig:.3g}; revise the pairs (it is not "
+                              "repaired)", file, "correlations.between_subject", [list(p) for p in kept.values()])
+    return Correlations(names=names, matrix=corr, pairs=list(kept.values()), notes=tuple(notes))

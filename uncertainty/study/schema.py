@@ -62,10 +62,12 @@ class StudySection(BaseModel):
 
 
 class CorrelationsSection(BaseModel):
-    """``[correlations]``: ``pairs = [[a, b, rho], ...]`` (normal-score correlations)."""
+    """``[correlations]``: ``pairs = [[a, b, rho], ...]`` (normal-score correlations of the typical
+    values) and ``between_subject = [[a, b, rho], ...]`` (of the between-subject layer)."""
 
     model_config = STRICT_CONFIG
     pairs: list[list[str | float]] = Field(default_factory=list)
+    between_subject: list[list[str | float]] = Field(default_factory=list)
 
 
 class Threshold(BaseModel):

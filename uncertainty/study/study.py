@@ -41,6 +41,7 @@ from uncertainty.study.resolve import (
     apply_conditions,
     apply_overrides,
     check_prior_magnitudes,
+    resolve_between_correlations,
     resolve_correlations,
     resolve_scenarios,
     resolve_sections,
@@ -83,6 +84,8 @@ class Study:
         names: the uncertain inputs, in order (columns of ``correlation``).
         correlation: normal-score correlation matrix over ``names``.
         correlations: the (a, b, rho) pairs kept.
+        between_correlations: the (a, b, rho) normal-score correlations of the between-subject layer
+            kept (quantities with a between-subject spread; empty: independent deviations).
         notes: what was dropped or set aside, in plain words.
         propagate, sensitivity, observations, infer, rank, design, schedule, calibrate: section models or None.
         instruments: the instruments the observations and candidates name.
@@ -112,6 +115,7 @@ class Study:
     correlation: np.ndarray
     correlations: list[tuple[str, str, float]] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    between_correlations: list[tuple[str, str, float]] = field(default_factory=list)
     propagate: PropagateSection | None = None
     sensitivity: SensitivitySection | None = None
     observations: list[Observation] | None = None
@@ -284,13 +288,16 @@ def _study_from(inp: StudyInput) -> Study:
     check_time_endpoints(sections, plan, file)  # "NAME at 60 min" against the timeline's end
     corr = resolve_correlations(priors, form.declared.derived, base.prior_set.correlations, declared.overridden,
                                 inp.correlations, head.model, file)
+    between = resolve_between_correlations(priors, form.declared.derived, base.prior_set.between_correlations,
+                                           declared.overridden, inp.correlations, file)
     return Study(path=inp.path, hash=inp.file_hash, title=head.title, tissue=head.tissue,
                  conditions=list(head.conditions), model=head.model, seed=head.seed,
                  tissue_mass_kg=base.tissue_mass_kg, basis=base.prior_set.basis, density=base.density,
                  priors=priors, derived=dict(form.derived), names=corr.names, correlation=corr.matrix,
                  correlations=corr.pairs, notes=[*form.declared.notes,
                         *unused_declarations(form, sections.kept, head.model), *sections.kept.notes,
-                        *corr.notes, *(plan.notes if plan is not None else ())],
+                        *corr.notes, *between.notes, *(plan.notes if plan is not None else ())],
+                 between_correlations=between.pairs,
                  propagate=sections.propagate, sensitivity=sections.sensitivity,
                  observations=sections.observations, rank=sections.rank, design=sections.design,
                  schedule=sections.schedule, calibrate=sections.calibrate, infer=sections.infer,

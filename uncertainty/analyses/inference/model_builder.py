@@ -11,7 +11,10 @@ Layers (DESIGN.md section 2):
   ``q_s = q + spread * z_s`` (spread as sd) or ``q_s = q * exp(s * z_s)`` with
   ``s = sqrt(log(1 + cv^2))`` (spread as cv; median at the typical value). With two or more
   subjects the spread has its own prior (lognormal, median at the declared value); for one
-  individual it is the declared value.
+  individual it is the declared value. Between-subject correlations declared per pair
+  (``Problem.between_correlations``) correlate each subject's scores: z_s = L u_s with L the
+  Cholesky factor of their normal-score correlation matrix and u_s independent standard normals
+  (``between_cholesky``), so a subject's deviations go together as the pairs say.
 - *groups*: group labels give a group effect on named quantities, relative to the reference
   group (``control`` when present, else the first label in sorted order): a log ratio for
   positive quantities, a shift otherwise.
@@ -339,8 +342,9 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
         collapsed: dict[str, Any] = {}
         plain = [q for q, p in problem.priors.items() if _non_centred(p)]
         typical_z = _typical_scores(problem, plain) if hierarchical else {}
+        paired = {q for pair in problem.between_correlations for q in pair[:2]}
         for name, prior in problem.priors.items():
-            merged = None if hierarchical else _merged_layers(prior)
+            merged = None if hierarchical or name in paired else _merged_layers(prior)
             if merged is not None:
                 # one individual: sample the individual's value from the exact two-layer marginal
                 # and the typical value from its conditional given the individual (non-centred)
@@ -414,7 +418,9 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
                 ctx.per_subject[name] = base  # replaced by the claiming kind (ctx.override)
                 continue
             scored[name] = (prior, base, ratio)
-        z_scores = _subject_scores(problem, ctx, scored, labels, hierarchical)
+        chol, chol_notes = between_cholesky(problem, list(scored))
+        ctx.notes += [n for n in chol_notes if n not in ctx.notes]
+        z_scores = _subject_scores(problem, ctx, scored, labels, hierarchical, chol)
         for name, (prior, base, ratio) in scored.items():
             ctx.per_subject[name] = apply_layer(prior, base, z_scores[name], pt, ratio)
         # observation terms (kinds may re-parameterise per-subject quantities first)
@@ -445,6 +451,58 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
 #: Step (in standard-normal score units) of the finite differences that find a reading's direction in
 #: score space: our numerical choice.
 PIN_STEP = 1e-4
+
+
+def between_cholesky(problem: Problem, names: list[str]) -> tuple[np.ndarray | None, list[str]]:
+    """Lower Cholesky factor of the between-subject normal-score correlation over ``names`` (the
+    quantities given subject scores), or None when no declared pair lies within ``names``; and notes
+    on the pairs left out (a quantity a kind models itself, or without scores here).
+
+    Parameters
+    ----------
+    problem : Problem
+        Its ``between_correlations`` (a, b, rho), dimensionless.
+    names : list of str
+        The scored quantities, in score order.
+
+    Returns
+    -------
+    tuple
+        (L (k, k) or None, notes).
+
+    Raises
+    ------
+    InputError
+        The kept pairs do not form a positive-definite matrix.
+    """
+    idx = {n: i for i, n in enumerate(names)}
+    corr = np.eye(len(names))
+    notes: list[str] = []
+    used = False
+    for a, b, rho in problem.between_correlations:
+        if a in idx and b in idx:
+            corr[idx[a], idx[b]] = corr[idx[b], idx[a]] = float(rho)
+            used = True
+        else:
+            notes.append(f"between-subject correlation {a}-{b} ({rho:g}) not used in inference: "
+                         f"{a if a not in idx else b} has no subject scores in this model")
+    if not used:
+        return None, notes
+    try:
+        return np.linalg.cholesky(corr), notes
+    except np.linalg.LinAlgError:
+        raise InputError("the between-subject correlations are not positive definite",
+                         key="correlations.between_subject", value=problem.between_correlations) from None
+
+
+def _correlate(z: Any, chol: np.ndarray | None) -> Any:
+    """Scores (..., k) -> z L^T (each row correlated by the lower factor L); unchanged without L."""
+    import pytensor.tensor as pt
+
+    if chol is None:
+        return z
+    z = pt.as_tensor(z)
+    return pt.tensordot(z, pt.as_tensor(chol.T), axes=[[z.ndim - 1], [0]])
 
 
 def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
@@ -615,9 +673,10 @@ def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
 
 
 def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple[Any, Any, Any]],
-                    labels: list[str], hierarchical: bool) -> dict[str, Any]:
+                    labels: list[str], hierarchical: bool, chol: np.ndarray | None = None) -> dict[str, Any]:
     """Standard-normal between-subject scores ``q__subject_z`` (dim subject) of the quantities ``scored``
-    (name -> (prior, per-subject base, spread ratio)).
+    (name -> (prior, per-subject base, spread ratio)), correlated across quantities by ``chol`` (lower
+    Cholesky factor over ``scored``'s order; None: independent): z = L u with u independent.
 
     A subject with a reading of an output (``_pinned_subjects``: lymph flow pins Kf x net pressure, a
     thin slab across all the scores whose place and width move with the typical values and spreads) is
@@ -642,8 +701,14 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
 
     names = list(scored)
     pinned = _pinned_subjects(problem, names, labels) if hierarchical and names else {}
-    if not pinned:
+    if not pinned and chol is None:
         return {q: pm.Normal(f"{q}__subject_z", 0.0, 1.0, dims="subject") for q in names}
+    if not pinned:
+        model = pm.modelcontext(None)
+        model.add_coord("score", names)
+        u = pm.Normal("subject_scores_iid", 0.0, 1.0, dims=("subject", "score"))
+        zc = _correlate(u, chol)
+        return {q: pm.Deterministic(f"{q}__subject_z", zc[:, j], dims="subject") for j, q in enumerate(names)}
     model = pm.modelcontext(None)
     k, n = len(names), len(labels)
     pidx = np.array(sorted(pinned))
@@ -668,8 +733,9 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
                 vals[name] = ctx.guesses[name][0]
             elif name not in scored:
                 vals[name] = ctx.per_subject[name][pidx]
+        zc = _correlate(z, chol)
         for j, (name, (prior, base, ratio)) in enumerate(scored.items()):
-            vals[name] = apply_layer(prior, base[pidx], z[..., j], pt, ratio)
+            vals[name] = apply_layer(prior, base[pidx], zc[..., j], pt, ratio)
         outs = problem.evaluate(vals, pt)
         shape = pt.shape(z)[:-1]
         # one broadcast per output name, chosen per subject by a mask (a stack of one slice per subject
@@ -706,6 +772,7 @@ def _subject_scores(problem: Problem, ctx: BuildContext, scored: dict[str, tuple
     if free.size:
         model.add_coord("unpinned_subject", [labels[i] for i in free])
         z = pt.set_subtensor(z[free], pm.Normal("subject_scores", 0.0, 1.0, dims=("unpinned_subject", "score")))
+    z = _correlate(z, chol)
     return {q: pm.Deterministic(f"{q}__subject_z", z[:, j], dims="subject") for j, q in enumerate(names)}
 
 

@@ -159,6 +159,8 @@ class Problem:
     observations: list[Observation]
     correlation: np.ndarray | None = None
     file: str | None = None
+    #: (a, b, rho) normal-score correlations of the between-subject layer (``Study.between_correlations``).
+    between_correlations: list[tuple[str, str, float]] = dataclasses.field(default_factory=list)
     model_form: str = "classic"
     basis: str = "100g"
     density: float = 1.05
@@ -334,4 +336,5 @@ def problem_from_study(study: Any, observations: Sequence[Any] | None = None,
                    correlation=None if corr is None else np.asarray(corr, dtype=float),
                    file=file, model_form=form, basis=getattr(study, "basis", "100g"),
                    density=density, study=target, base_dir=base_dir, tissue_mass_kg=mass,
-                   notes=list(getattr(study, "notes", []) or []))
+                   notes=list(getattr(study, "notes", []) or []),
+                   between_correlations=list(getattr(study, "between_correlations", None) or []))

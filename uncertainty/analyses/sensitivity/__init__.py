@@ -36,6 +36,7 @@ from uncertainty.analyses.given_data import first_order_given_data as first_orde
 from uncertainty.analyses.propagate import available_outputs, model_evaluator, section_settings, study_meta
 from uncertainty.analyses.propagate.timeline import timepoint_evaluator, values_over_time
 from uncertainty.analyses.sampling import (
+    between_correlation_of,
     correlation_of,
     cube_columns,
     from_scores,
@@ -156,6 +157,9 @@ def problem_from_study(study: Any, output: str = "Jv", layer: str = "individual"
     d = len(study.names)
     corr = np.eye(len(cols))
     corr[:d, :d] = correlation_of(study)
+    between = between_correlation_of(study) if layer == "individual" else None
+    if between is not None:
+        corr[d:, d:] = between
 
     def model(z: np.ndarray) -> np.ndarray:
         return np.asarray(evaluate(study, from_scores(study, z, layer))[output], dtype=float)

@@ -27,11 +27,14 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
     sections = [n for n in TOP_LEVEL if n not in ("study", "parameters", "correlations")
                 and getattr(s, n) is not None]
     if as_json:
-        emit_json({"valid": True, "path": s.file, "hash": s.hash, "title": s.title, "tissue": s.tissue,
-                   "conditions": s.conditions, "model": s.model, "seed": s.seed,
-                   "tissue_mass_kg": s.tissue_mass_kg, "names": s.names, "priors": rows,
-                   "correlations": [list(p) for p in s.correlations], "sections": sections,
-                   "outputs": s.outputs(), "notes": notes, "inference_model": model})
+        doc = {"valid": True, "path": s.file, "hash": s.hash, "title": s.title, "tissue": s.tissue,
+               "conditions": s.conditions, "model": s.model, "seed": s.seed,
+               "tissue_mass_kg": s.tissue_mass_kg, "names": s.names, "priors": rows,
+               "correlations": [list(p) for p in s.correlations], "sections": sections,
+               "outputs": s.outputs(), "notes": notes, "inference_model": model}
+        if s.between_correlations:  # only when declared: the document is unchanged otherwise
+            doc["between_subject_correlations"] = [list(p) for p in s.between_correlations]
+        emit_json(doc)
         return
     if quiet:
         return
@@ -42,6 +45,9 @@ def command(study: str, as_json: bool, quiet: bool) -> None:
     click.echo(rows_table(rows, with_origin=False))
     if s.correlations:
         click.echo("correlations (normal scores): " + "; ".join(f"{a}-{b} {r:g}" for a, b, r in s.correlations))
+    if s.between_correlations:
+        click.echo("between-subject correlations (normal scores): "
+                   + "; ".join(f"{a}-{b} {r:g}" for a, b, r in s.between_correlations))
     click.echo(f"uncertain inputs: {', '.join(s.names)}")
     click.echo(f"sections: {', '.join(sections) or 'none'}")
     if model is not None:
