@@ -193,3 +193,13 @@ def test_check_lists_every_analysis_section_present() -> None:
     path = next(p for p in SHIPPED if p.stem == "forearm_volunteers")
     doc = json.loads(CliRunner().invoke(main, ["check", str(path), "--json"]).stdout)
     assert doc["sections"] == ["propagate", "sensitivity", "observations", "infer", "schedule"]
+
+
+def test_condition_rows_may_name_their_tissues() -> None:
+    # lymphatic_obstruction lowers L by 0.9 in the subcutis (measured drainage rate constant) and by
+    # 0.3 in muscle (judgement): rows with `tissues` in priors/conditions.toml
+    skin = load_prior_set("skin_subcutis")
+    s = Study.from_dict({"study": {"tissue": "skin_subcutis", "model": "steady_state",
+                                   "conditions": ["lymphatic_obstruction"]}})
+    assert s.priors["L"].params["median"] == pytest.approx(0.9 * skin.priors["L"].params["median"])
+    assert s.priors["JL_max"].params["median"] == pytest.approx(0.9 * skin.priors["JL_max"].params["median"])

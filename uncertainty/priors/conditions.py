@@ -40,6 +40,7 @@ class Modifier:
     origin: str = ""
     note: str = ""
     per_cm: float | None = None   # shift per cm of height below the heart (posture rows), canonical unit
+    tissues: tuple[str, ...] | None = None  # the row applies only to these tissues (None: every tissue)
 
 
 @dataclass(frozen=True)
@@ -67,7 +68,8 @@ class Condition:
         new one states its own); ``extra_sd`` / ``extra_gsd`` widen the prior by the uncertainty about
         the size of the change (variances added). A modifier of a derived quantity (pi_c from protein,
         Pc from pressures) changes the derivation's result (multiply / shift); a modifier of a quantity
-        absent from the set is skipped with a note in ``notes``.
+        absent from the set is skipped with a note in ``notes``. A row with ``tissues`` applies only to
+        those tissues (the same parameter may then change by different amounts in different tissues).
         """
         if isinstance(prior_set, PriorSet):
             priors = dict(prior_set.priors)
@@ -81,6 +83,8 @@ class Condition:
         for i, m in enumerate(self.modify):
             key = f"conditions.{self.name}.modify[{i}]"
             sym = m.parameter
+            if m.tissues is not None and tissue not in m.tissues:
+                continue  # a row for other tissues (``tissues`` in the file)
             if height_cm is not None and m.per_cm is not None:
                 m = dataclasses.replace(m, shift=m.per_cm * height_cm)
             if sym in priors and sym not in derived:
@@ -167,7 +171,7 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                 raise study_error("a modify row is a table", path_str, rkey, row)
             for k in row:
                 if k not in ("parameter", "shift", "multiply", "set", "extra_sd", "extra_gsd", "origin", "note",
-                             "unit", "per_cm"):
+                             "unit", "per_cm", "tissues"):
                     raise study_error("unknown key", path_str, f"{rkey}.{k}", row[k])
             if not isinstance(row.get("parameter"), str):
                 raise study_error("a modify row names its parameter",
@@ -197,9 +201,13 @@ def _load_conditions_cached(path_str: str) -> dict[str, Condition]:
                 if k == "extra_gsd" and not v > 1:
                     raise study_error("extra_gsd must be > 1", path_str, f"{rkey}.{k}", v)
                 vals[k] = v
+            tissues = row.get("tissues")
+            if tissues is not None and not (isinstance(tissues, list) and tissues
+                                            and all(isinstance(t, str) for t in tissues)):
+                raise study_error("tissues is a list of tissue names", path_str, f"{rkey}.tissues", tissues)
             rows.append(Modifier(sym, vals["shift"], vals["multiply"], row.get("set"), vals["extra_sd"],
                                  vals["extra_gsd"], str(row.get("origin", "")), str(row.get("note", "")),
-                                 vals["per_cm"]))
+                                 vals["per_cm"], tuple(tissues) if tissues is not None else None))
         applies = spec.get("applies_to")
         if applies is not None and not (isinstance(applies, list) and all(isinstance(a, str) for a in applies)):
             raise study_error("applies_to is a list of tissue names", path_str, f"{key}.applies_to", applies)
