@@ -1351,7 +1351,7 @@ class Correlations:
 
 def _study_pairs(section: CorrelationsSection, names: Sequence[str], priors: Mapping[str, Prior],
                  alias: Mapping[str, str], file: str, *, layer: str = "pairs",
-                 ) -> list[tuple[str, str, str, str, float]]:
+                 derived: Set[str] = frozenset()) -> list[tuple[str, str, str, str, float]]:
     """``[correlations]`` pairs (``layer``: ``pairs`` or ``between_subject``) as (written a, written b,
     input a, input b, rho), checked."""
     out: list[tuple[str, str, str, str, float]] = []
@@ -1370,9 +1370,10 @@ def _study_pairs(section: CorrelationsSection, names: Sequence[str], priors: Map
         for j, (s, s2) in enumerate(((a, a2), (b, b2))):
             if s2 not in names:
                 if layer == "between_subject":
-                    why = ("without a between-subject spread" if s2 in priors
-                           else "not a quantity of this study")
-                    raise study_error(f"cannot correlate {s} between subjects: it is {why}", file,
+                    why = ("it has no between-subject spread" if s2 in priors
+                           else "it is derived from other quantities (correlate those)" if s2 in derived
+                           else "it is not a quantity of this study")
+                    raise study_error(f"cannot correlate {s} between subjects: {why}", file,
                                       f"{key}[{j}]", s)
                 why = "fixed" if s2 in priors else "not an uncertain input of this study"
                 raise study_error(f"cannot correlate {s}: it is {why}", file, f"{key}[{j}]", s)
@@ -1629,7 +1630,8 @@ def resolve_between_correlations(priors: Mapping[str, Prior], derived: Mapping[s
             continue
         kept[frozenset((a2, b2))] = (a2, b2, rho)
     if section is not None:
-        for a, b, a2, b2, rho in _study_pairs(section, names, priors, alias, file, layer="between_subject"):
+        for a, b, a2, b2, rho in _study_pairs(section, names, priors, alias, file, layer="between_subject",
+                                              derived=set(derived)):
             fs = frozenset((a2, b2))
             if fs in kept:
                 notes.append(f"[correlations] between_subject {a}-{b} replaces the prior set's value "

@@ -172,3 +172,5 @@ def show_cmd(tissue: str, as_json: bool) -> None:
                    "subject has the priors' uncertainty, an individual adds the between-subject spread")
     for (a, b, rho), origin in zip(pset.correlations, pset.correlation_origins, strict=False):
         click.echo(f"correlation {a}-{b}: {rho:g}  (origin: {origin})")
+    for (a, b, rho), origin in zip(pset.between_correlations, pset.between_correlation_origins, strict=False):
+        click.echo(f"between-subject correlation {a}-{b}: {rho:g}  (origin: {origin})")
