@@ -52,7 +52,10 @@ def fixed_steps(step: Callable[..., tuple[Array, ...]], init: tuple[Array, ...],
     # numba back-end (nutpie) returned one parameter's gradient for another (pytensor 2.38, seen with the
     # glomerular RK4: dGFR/dC_A came back equal to dGFR/d(dP); the C and Python back-ends were right).
     xs = xp.arange(n_steps, dtype="float64") * h
-    rows = [xp.broadcast_to(p, (n_steps, p.shape[0])) for p in flat[k:]]
+    # ones * p rather than broadcast_to: Alloc's make_node folds the shape graph of p (its whole ancestry; half
+    # a minute for a whole-body steady state), an elementwise product reads only the static broadcast pattern
+    ones = xp.ones((n_steps, 1), dtype="float64")
+    rows = [ones * p[None, :] for p in flat[k:]]
 
     def inner(x0: Array, *args: Array) -> list[Array]:
         par, st = args[:len(rows)], args[len(rows):]
