@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 import time
+import weakref
 from typing import Any
 
 from uncertainty.core.errors import FluidshiftError
@@ -33,14 +34,118 @@ class SampleRun:
     compiled: Any = None
 
 
+def trace_names(model: Any) -> list[str]:
+    """Names of the variables nutpie stores while it samples ``model``: its free variables only.
+
+    The deterministics (per-subject values, the forward map's Jv for every subject and for the typical
+    subject, each observation's prediction) are left out of the compiled sampler and computed afterwards
+    from the draws in one vectorised evaluation (:func:`add_deterministics`): compiled into nutpie, each
+    forward map (a steady-state form's scan among them) was compiled by numba a second time, beside the
+    log density and its gradient, which already hold it.
+
+    Parameters
+    ----------
+    model : pymc.Model
+        The declared model.
+
+    Returns
+    -------
+    list of str
+        The free random variables' names (dimensionless labels).
+    """
+    return [v.name for v in model.free_RVs]
+
+
+#: compiled deterministics per model (a Session's refits reuse them): model -> {names: (function, inputs)}
+_DETERMINISTIC_FNS: weakref.WeakKeyDictionary[Any, dict[tuple[str, ...], tuple[Any, list[str]]]] = (
+    weakref.WeakKeyDictionary())
+
+
+def _deterministic_fn(model: Any, names: list[str]) -> tuple[Any, list[str]]:
+    """A PyTensor function (PyMC's default compile mode) of the free variables' value variables (the
+    unconstrained values nutpie stores) returning the deterministics ``names``: the model's own graph.
+    Returns it and the names of its inputs."""
+    from pymc.pytensorf import compile as compile_pymc
+
+    cache = _DETERMINISTIC_FNS.setdefault(model, {})
+    if tuple(names) not in cache:
+        values = [model.rvs_to_values[rv] for rv in model.free_RVs]
+        outs = model.replace_rvs_by_values([model[n] for n in names])
+        with model:
+            fn = compile_pymc(values, outs, on_unused_input="ignore")
+        cache[tuple(names)] = (fn, [v.name for v in values])
+    return cache[tuple(names)]
+
+
+def add_deterministics(model: Any, idata: Any) -> list[str]:
+    """Compute every deterministic of ``model`` missing from ``idata.posterior`` from the free variables'
+    draws there, and add it (same names, dims and coordinates as a sampler that stores them all).
+
+    One evaluation per draw of the model's own graph (:func:`_deterministic_fn`), compiled in PyMC's
+    default mode (C): a few seconds for a steady-state cohort, where compiling the same graph by numba
+    into the sampler took tens of seconds (a graph vectorised over the draws compiled slower still).
+    Values equal those the sampler computes up to floating-point rounding.
+
+    Parameters
+    ----------
+    model : pymc.Model
+        The model the draws come from.
+    idata : arviz.InferenceData
+        Its ``posterior`` holds every free variable's value variable (chain, draw, ...); changed in place.
+
+    Returns
+    -------
+    list of str
+        The names added, in the model's order.
+    """
+    import numpy as np
+
+    post = idata.posterior
+    names = [d.name for d in model.deterministics if d.name not in post]
+    if not names:
+        return []
+    n = post.sizes["chain"] * post.sizes["draw"]
+    fn, inputs = _deterministic_fn(model, names)
+    args = [np.asarray(post[k].values).reshape((n, *post[k].shape[2:])) for k in inputs]
+    per_draw = [fn(*[a[i] for a in args]) for i in range(n)]
+    values = [np.stack([np.asarray(d[j]) for d in per_draw]) for j in range(len(names))]
+    dims_of = model.named_vars_to_dims
+    for name, value in zip(names, values, strict=True):
+        value = value.reshape((post.sizes["chain"], post.sizes["draw"], *value.shape[1:]))
+        dims = list(dims_of.get(name) or [f"{name}_dim_{i}" for i in range(value.ndim - 2)])
+        post[name] = (("chain", "draw", *dims), value)
+        for d in dims:
+            if d not in post.coords:
+                known = model.coords.get(d)
+                post.coords[d] = list(known) if known is not None else np.arange(post.sizes[d])
+    return names
+
+
+def _with_data(model: Any, data: dict[str, Any] | None, fn: Any, *args: Any) -> Any:
+    """``fn(model, *args)`` with the model's ``pm.Data`` values replaced by ``data`` meanwhile (the
+    readings a reused compiled sampler was given), restored afterwards."""
+    old = {k: model[k].get_value() for k in (data or {})}
+    try:
+        for k, v in (data or {}).items():
+            model[k].set_value(v)
+        return fn(model, *args)
+    finally:
+        for k, v in old.items():
+            model[k].set_value(v)
+
+
 def compile_model(model: Any, sampler: str = "nutpie") -> tuple[Any, float]:
-    """Compile ``model`` for ``sampler``; returns (compiled object or None, seconds)."""
+    """Compile ``model`` for ``sampler``; returns (compiled object or None, seconds).
+
+    nutpie compiles the log density, its gradient and the free variables only (:func:`trace_names`);
+    :func:`sample` adds the deterministics afterwards.
+    """
     t0 = time.perf_counter()
     if sampler == "nutpie":
         import nutpie
 
         try:
-            compiled = nutpie.compile_pymc_model(model)
+            compiled = nutpie.compile_pymc_model(model, var_names=trace_names(model))
         except Exception as exc:  # noqa: BLE001 - reported with its reason, no traceback
             raise SamplerError(f"nutpie could not compile the model: {type(exc).__name__}: {exc}") from None
         return compiled, time.perf_counter() - t0
@@ -126,6 +231,7 @@ def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int =
                                   progress_bar=progress, save_warmup=False, **kwargs)
         except Exception as exc:  # noqa: BLE001
             raise SamplerError(f"nutpie failed: {type(exc).__name__}: {exc}") from None
+        _with_data(model, data, add_deterministics, idata)
         return SampleRun(idata, sampler, compile_s, time.perf_counter() - t0, compiled)
     import pymc as pm
 
