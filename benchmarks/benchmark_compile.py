@@ -9,7 +9,9 @@ left as it is; the first round may include filling it, so compare the later roun
 
 Variants:
 
-- ``default``: the settings ``fluidshift infer`` uses (``samplers.compile_model``);
+- ``default``: the settings ``fluidshift infer`` uses (``samplers.compile_model``: the free variables only,
+  the deterministics computed after sampling);
+- ``all``: nutpie's own default, every deterministic compiled into the sampler (the setting before);
 - ``steps=N``: ``safety_steady_state`` with N bisection halvings instead of ``BISECTION_STEPS`` (30; it was 48,
   so ``steps=48`` is the old setting);
 - ``exclude=NAME[:NAME]``: the NUMBA compile mode with these PyTensor rewrites excluded.
@@ -43,7 +45,11 @@ from uncertainty.analyses.inference.model_builder import build_model
 from uncertainty.analyses.inference.samplers import compile_model
 from uncertainty.study import load_study
 
-if variant.startswith("steps="):
+if variant == "all":
+    import uncertainty.analyses.inference.samplers as smp
+
+    smp.trace_names = lambda model: None   # nutpie's default: every deterministic compiled into the sampler
+elif variant.startswith("steps="):
     bal.safety_steady_state.__kwdefaults__["n_steps"] = int(variant.split("=", 1)[1])
 elif variant.startswith("exclude="):
     from pytensor.compile import mode as pt_mode
