@@ -17,6 +17,11 @@ Targets (issue 16): 40 subjects reach a passed gate at default settings in at mo
 at most 2 GB peak memory; wall time and memory grow no faster than linearly with the number of subjects
 (printed: seconds and MB per subject, and the ratio of each size's time per subject to the 40-subject one).
 
+Measured (40 subjects, shared 2-core machine, load average 2-4, numba and C caches warm): before the
+deterministics left the sampler 95 s wall (infer 78 s), 773 MB peak, gate passed; after, 79 s and 121 s wall in two
+runs (infer 67 s and 104 s), 733 MB peak, gate passed: wall time here moves by tens of seconds with the other
+users' load, so compare CPU (printed per run) and ``benchmark_compile.py``.
+
 Run: python benchmarks/benchmark_cohort.py [--sizes 40 200 1000] [--build-only] [--cap SECONDS]
 (``--cap``: stop a size's child after this many seconds; its figures are then lower bounds.)
 """

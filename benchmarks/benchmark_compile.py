@@ -23,6 +23,11 @@ whatever its count); excluding the ``fusion`` rewrites made it worse (stopped ab
 logp + gradient function and the function of the deterministics (nutpie compiles both; each holds the
 subjects' forward graph with its scan), 34 % PyTensor's graph rewrites.
 
+Deterministics out of the sampler (nutpie ``var_names``; ``samplers.trace_names``), one round each on the shared
+machine (load average 4-9): ``all`` 207 s CPU, ``default`` 153 s CPU (ratio 0.74) for the 10-subject septic study;
+the deterministics then take about 5 s to compile in PyMC's C mode and 2.7 s for 4,000 draws. For the 40-subject
+benchmark cohort (``benchmark_cohort.py``, no scan), with a warm numba cache: 29 s -> 22 s CPU.
+
 Run: python benchmarks/benchmark_compile.py [--rounds 2] [--variants steps=48 default exclude=fusion ...] [--study PATH]
 """
 
