@@ -8,6 +8,9 @@ from the draws. The reference here is the model's own graph evaluated by hand wi
 from __future__ import annotations
 
 import numpy as np
+import pytest
+
+pytestmark = pytest.mark.slow  # builds PyMC models and compiles their graphs (about 40 s)
 
 
 def _toy():
