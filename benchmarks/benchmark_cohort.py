@@ -188,6 +188,8 @@ def main() -> None:
         row["wall_s"] = wall
         rows.append(row)
         gate = "" if "gate_passed" not in row else f", gate {'passed' if row['gate_passed'] else 'FAILED'}"
+        if row.get("failing"):
+            gate += f" ({'; '.join(row['failing'])})"
         sample = "" if "infer_s" not in row else f", infer {row['infer_s']:.1f} s ({row['infer_cpu_s']:.0f} s CPU)"
         print(f"{n:>6} subjects: load {row['load_s']:.2f} s, build {row['build_s']:.2f} s{sample}, "
               f"wall {wall:.1f} s, peak {row['peak_mb']:.0f} MB, {row['free_variables']} free variables{gate}")
