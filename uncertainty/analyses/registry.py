@@ -139,7 +139,7 @@ ANALYSES: tuple[Analysis, ...] = (
              run=_run_design, from_dict=DesignResult.from_dict, present=_has_section("design"),
              section_html=design_report.section_html, summary=design_report.summary,
              captions=design_report.CAPTIONS),
-    Analysis(name="schedule", title="Cuff measurement schedule", label="cuff schedule",
+    Analysis(name="schedule", title="Measurement schedule", label="measurement schedule",
              depends=("schedule", "observations"), run=_run_schedule, from_dict=ScheduleResult.from_dict,
              present=_has_section("schedule"), section_html=schedule_report.section_html,
              summary=schedule_report.summary, captions=schedule_report.CAPTIONS),

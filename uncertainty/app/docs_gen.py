@@ -85,7 +85,14 @@ SECTIONS: list[tuple[str, str, str, str]] = [
     ("schedule", "[schedule]", "ScheduleSection",
      "Venous-cuff measurement schedule: the cuff pressures and K reading times that minimise the expected "
      "posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision), against equal "
-     "spacing. Run by `fluidshift design STUDY --schedule`; defaults apply when the section is absent."),
+     "spacing. Run by `fluidshift design STUDY --schedule` and by `fluidshift run`; defaults apply when the section "
+     "is absent. In a `whole_body` study the section chooses blood-sampling times instead: `samples` of the "
+     "`candidates` (a baseline at 0 min is always drawn) that most narrow `target` (an uncertain quantity or "
+     "\"NAME at TIME\") from serial haemoglobin read with sd `hb_sd`, against equal spacing, with a figure of the "
+     "prior haemoglobin-ratio band with the chosen times and of the posterior sd against the number of samples. "
+     "The venous-cuff keys are refused in a `whole_body` study and the blood-sampling keys (`candidates`, "
+     "`samples`, `target`, `hb_sd`, `hb_baseline`) in any other (exit 2); so are candidate times after the "
+     "timeline's end and more samples than candidates."),
     ("calibrate", "[calibrate]", "CalibrateSection",
      "Simulation-based calibration of the study's own inference model (Talts et al. 2018): truths from the "
      "prior (correlations included), the study's observations simulated from them, a refit per replicate "

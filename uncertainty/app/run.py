@@ -1,12 +1,13 @@
 """Whole-study runner: every analysis section of a study, one results bundle, one HTML report.
 
 Order: check (load and validate), propagate, sensitivity, infer (when there are observations),
-rank, design, schedule (the venous-cuff measurement schedule), scenarios, calibrate (simulation-based
-calibration, heavy: only with a ``[calibrate]`` section); each section runs only when the study has it.
-After each section ``results.json`` is rewritten (atomically), so an interrupted run keeps
-what it finished, and the next run of the same study skips every section whose inputs are
-unchanged: the study content that section depends on (the study minus the other analysis sections,
-the resolved priors, data files), the seed and the package version. ``force=True`` recomputes everything.
+rank, design, schedule (the venous-cuff measurement schedule, or blood-sampling times in a whole_body
+study), scenarios, calibrate (simulation-based calibration, heavy: only with a ``[calibrate]`` section);
+each section runs only when the study has it. After each section ``results.json`` is rewritten
+(atomically), so an interrupted run keeps what it finished, and the next run of the same study skips
+every section whose inputs are unchanged: the study content that section depends on (the study minus
+the other analysis sections, the resolved priors, data files), the seed and the package version.
+``force=True`` recomputes everything.
 
 A section whose quality gate fails keeps its result, flagged; the bundle and report are written and
 :func:`run` then raises QualityGateError (exit 3) carrying the :class:`RunResult`.

@@ -6,7 +6,8 @@ observations or ``[infer]``, the inference model declared without sampling.
 
 The pydantic schema in ``uncertainty.study`` checks each key on its own; the rules here need the
 resolved study as well: a paired design without within-subject spread, an effect on an unknown
-quantity (``design.parse_design``), a rank budget below the cheapest candidate (``rank.candidates_of``).
+quantity (``design.parse_design``), a rank budget below the cheapest candidate (``rank.candidates_of``), a
+``[schedule]`` that does not fit the study's form (``schedule.check_blood_section``).
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from uncertainty.analyses.inference.api import check_model
 from uncertainty.analyses.propagate import starting_samples
 from uncertainty.analyses.propagate.thresholds import threshold_specs
 from uncertainty.analyses.rank import MIN_SAMPLES, candidates_of
+from uncertainty.analyses.schedule import check_blood_section
 from uncertainty.core.errors import InputError
 from uncertainty.forms.catalogue import study_outputs
 
@@ -40,9 +42,11 @@ def check_propagate(study: Any) -> None:
 
 
 def check_sections(study: Any) -> None:
-    """Raise InputError (file, key, value) when the study's [propagate], [design], [rank] or [calibrate]
-    section cannot run."""
+    """Raise InputError (file, key, value) when the study's [propagate], [design], [rank], [schedule] or
+    [calibrate] section cannot run ([schedule]: keys of the other form's schedule, blood-sampling candidates
+    after the timeline's end, more samples than candidates, an unknown target)."""
     check_propagate(study)
+    check_blood_section(study)
     if getattr(study, "design", None) is not None:
         parse_design(study)
     rank = getattr(study, "rank", None)

@@ -18,6 +18,7 @@ from pydantic import (
     model_validator,
 )
 
+from uncertainty.core import units
 from uncertainty.core.errors import UnitError
 from uncertainty.forms.catalogue import MODEL_FORMS, OUTPUT_UNITS
 from uncertainty.priors import (
@@ -573,7 +574,12 @@ class ScheduleSection(BaseModel):
     --schedule`). ``steps`` cuff steps of ``step_min`` minutes each, pressures from ``pressure_grid``,
     ``measurements`` limb-volume readings on a grid of ``time_step_min``; criterion ``A`` (default) or
     ``D`` over ``targets`` (Kf, Pvi). Kf, C_tis, L, Pv and r priors come from the study / its tissue;
-    venous compliance C_v and filling time constant tau_v are lognormal with the medians and gsds here."""
+    venous compliance C_v and filling time constant tau_v are lognormal with the medians and gsds here.
+
+    In a ``whole_body`` study the section chooses blood-sampling times instead
+    (``uncertainty.analyses.schedule.blood``): ``samples`` of the ``candidates`` times (a baseline at 0 is always
+    drawn) that most narrow ``target`` from serial haemoglobin with reading sd ``hb_sd``; the venous-cuff keys are
+    refused there, and these keys in a study of another form (``linearisation_draws`` serves both)."""
 
     model_config = STRICT_CONFIG
     # the upper bounds (le=) of the settings below are absurdity bounds (common practice)
@@ -606,6 +612,35 @@ class ScheduleSection(BaseModel):
     tau_v_median: float = Field(default=1.0, gt=0, le=1000, description=(
         "median venous filling time constant, min (from memory: veins fill within 1-2 min)"))
     tau_v_gsd: float = Field(default=1.5, gt=1, le=10, description="geometric sd of tau_v (from memory)")
+    candidates: list[float | str] | None = Field(default=None, min_length=1, max_length=500, description=(
+        "whole_body: candidate blood-sampling times after 0, min (numbers) or strings with a unit (\"2 h\"), at or "
+        "before the [timeline] end; default every report time of the timeline after 0"))
+    samples: int = Field(default=4, ge=1, le=200, description=(
+        "whole_body: number K of blood samples chosen among the candidates, after the baseline at 0 min"))
+    target: str = Field(default="Kf", min_length=1, max_length=MAX_NAME, description=(
+        "whole_body: what the samples should narrow: an uncertain quantity of the study (e.g. \"Kf\") or a time "
+        "course at a time, \"NAME at TIME\" (e.g. \"infused_retained_fraction at 60 min\")"))
+    hb_sd: float = Field(default=0.2, gt=0, le=5, description=(
+        "whole_body: sd of one haemoglobin reading, g/dL (from memory: automated analysers repeat to about 1-2 % "
+        "at 14 g/dL)"))
+    hb_baseline: float = Field(default=14.0, gt=1, le=30, description=(
+        "whole_body: resting haemoglobin, g/dL, which scales the error of the ratio Hb(t)/Hb(0) (common practice: "
+        "adult reference about 12-17 g/dL)"))
+
+    @field_validator("candidates")
+    @classmethod
+    def _times(cls, v: list[float | str] | None) -> list[float | str] | None:
+        for x in v or []:
+            if isinstance(x, str):
+                try:
+                    t = float(units.registry().Quantity(x).to("min").magnitude)
+                except Exception:  # pint raises several error kinds for a bad string or dimension
+                    raise ValueError(f"{x!r} is not a time with its unit (e.g. \"30 min\", \"2 h\")") from None
+            else:
+                t = float(x)
+            if not (math.isfinite(t) and t > 0):
+                raise ValueError(f"candidate times lie after 0 (the baseline at 0 is always drawn): {x!r}")
+        return v
 
     @field_validator("pressure_grid")
     @classmethod

@@ -28,10 +28,12 @@ import numpy as np
 from uncertainty.analyses.inference.observations.course import interpolation, whole_body_course
 from uncertainty.analyses.propagate.timeline import values_at
 from uncertainty.analyses.sampling import draw
-from uncertainty.analyses.schedule import equal_times, information, jacobian, posterior_cov, select_times
+from uncertainty.analyses.schedule.blood_result import BloodScheduleResult
+from uncertainty.analyses.schedule.linear import equal_times, information, jacobian, posterior_cov, select_times
 from uncertainty.core import units
 from uncertainty.core.errors import InputError
 from uncertainty.forms.evaluate import input_values
+from uncertainty.study import ScheduleSection
 from uncertainty.study.endpoints import parse_time_endpoint
 
 #: One haemoglobin reading's sd, g/dL: from memory (automated analysers repeat to about 1-2% at 14 g/dL).
@@ -223,10 +225,9 @@ def blood_sampling_times(study: Any, candidates_min: Sequence[float], k: int, ta
                          file=getattr(study, "file", None), key="k", value=k)
     d = blood_design(study, candidates_min, target, noise_sd=noise_sd, hb_ref=hb_ref, points=points, draws=draws,
                      seed=seed)
-    base = equal_times(d.times, k)
-    chosen, value = select_times(d.info, k, np.linalg.inv(d.prior_cov), d.crit, start=base)
+    chosen, base, value = _choose(d, k)
     sd_opt, sd_base = d.sd(d.posterior(chosen)), d.sd(d.posterior(base))
-    prior = d.sd(np.broadcast_to(d.prior_cov, (len(d.crit.grads), *d.prior_cov.shape)))
+    prior = _prior_sd(d)
     return {"target": target, "unit": d.unit, "times_min": [float(d.times[i]) for i in chosen],
             "posterior_sd": sd_opt, "prior_sd": prior, "criterion": float(value),
             "equal_spacing": {"times_min": [float(d.times[i]) for i in base], "posterior_sd": sd_base,
@@ -235,5 +236,253 @@ def blood_sampling_times(study: Any, candidates_min: Sequence[float], k: int, ta
             "parameters": d.names, "noise_sd_g_per_dL": noise_sd, "hb_ref_g_per_dL": hb_ref}
 
 
-__all__ = ["HB_NOISE_SD_G_PER_DL", "HB_REF_G_PER_DL", "BloodDesign", "TargetCriterion", "blood_design",
-           "blood_sampling_times"]
+def _choose(d: BloodDesign, k: int) -> tuple[list[int], list[int], float]:
+    """(chosen indices, equal-spacing indices, criterion of the chosen) for ``k`` samples."""
+    base = equal_times(d.times, k)
+    chosen, value = select_times(d.info, k, np.linalg.inv(d.prior_cov), d.crit, start=base)
+    return chosen, base, float(value)
+
+
+def _prior_sd(d: BloodDesign) -> float:
+    """The target's prior sd (its unit), as :meth:`BloodDesign.sd` reports a posterior one."""
+    return d.sd(np.broadcast_to(d.prior_cov, (len(d.crit.grads), *d.prior_cov.shape)))
+
+
+# --------------------------------------------------------------------------------------------
+# the [schedule] section of a whole_body study
+
+#: ``[schedule]`` keys of the venous-cuff schedule only
+CUFF_KEYS = ("steps", "step_min", "pressure_grid", "increasing", "measurements", "time_step_min", "noise_sd",
+             "criterion", "targets", "transmission", "C_v_median", "C_v_gsd", "tau_v_median", "tau_v_gsd")
+#: ``[schedule]`` keys of the blood-sampling schedule only (``linearisation_draws`` serves both)
+BLOOD_KEYS = ("candidates", "samples", "target", "hb_sd", "hb_baseline")
+#: Most sample counts the posterior-sd-against-K curve of the result covers (common practice: a figure bound).
+MAX_CURVE_SAMPLES = 12
+#: Prior draws of the individual behind the haemoglobin-ratio band of the figure (common practice).
+BAND_DRAWS = 400
+
+
+def is_blood_study(study: Any) -> bool:
+    """True when ``[schedule]`` of ``study`` chooses blood-sampling times (a ``whole_body`` study).
+
+    Parameters
+    ----------
+    study : Study
+        A loaded study.
+
+    Returns
+    -------
+    bool
+    """
+    return getattr(study, "model", None) == "whole_body" and getattr(study, "timeline", None) is not None
+
+
+@dataclass(frozen=True)
+class BloodSettings:
+    """The blood-sampling settings of a study's ``[schedule]`` section, checked and in canonical units.
+
+    Attributes
+    ----------
+    candidates : tuple of float
+        Candidate sampling times after 0, min (sorted, distinct).
+    samples : int
+        Samples after the baseline.
+    target : str
+        A quantity of the study or ``"NAME at TIME"``.
+    hb_sd, hb_baseline : float
+        sd of one reading and resting haemoglobin, g/dL.
+    points : int
+        Linearisation points.
+    """
+
+    candidates: tuple[float, ...]
+    samples: int
+    target: str
+    hb_sd: float
+    hb_baseline: float
+    points: int
+
+
+def _time_min(value: float | str, file: Any, key: str) -> float:
+    """A candidate time in min: a number (min) or a string with a time unit."""
+    if not isinstance(value, str):
+        return float(value)
+    try:
+        return float(units.registry().Quantity(value).to("min").magnitude)
+    except Exception:  # pint raises several error kinds for a bad string or dimension
+        raise InputError("not a time with its unit (e.g. \"30 min\", \"2 h\")", file=file, key=key,
+                         value=value) from None
+
+
+def blood_settings(study: Any) -> BloodSettings:
+    """The checked blood-sampling settings of a ``whole_body`` study (``[schedule]``; defaults when absent).
+
+    Parameters
+    ----------
+    study : Study
+        A ``whole_body`` study.
+
+    Returns
+    -------
+    BloodSettings
+        Candidates default to every report time of ``[timeline]`` after 0 (min).
+
+    Raises
+    ------
+    InputError
+        (exit 2, naming ``schedule.<key>`` and the value) a venous-cuff key, a candidate time after the timeline's
+        end, more samples than distinct candidates, a target that is neither an uncertain quantity of the study nor
+        a time course at a time.
+    StudyError
+        A badly written ``"NAME at TIME"`` target (:func:`uncertainty.study.endpoints.parse_time_endpoint`).
+    """
+    sec = getattr(study, "schedule", None) or ScheduleSection()
+    file = getattr(study, "file", None)
+    plan = study.timeline
+    for key in CUFF_KEYS:
+        if key in sec.model_fields_set:
+            raise InputError("a venous-cuff key: in a whole_body study [schedule] chooses blood-sampling times ("
+                             + ", ".join(BLOOD_KEYS) + ", linearisation_draws)", file=file, key=f"schedule.{key}",
+                             value=getattr(sec, key))
+    end = float(plan.end)
+    if sec.candidates is None:
+        step = float(plan.report_every)
+        times = [step * j for j in range(1, int(np.floor(end / step + 1e-9)) + 1)]
+    else:
+        times = []
+        for i, v in enumerate(sec.candidates):
+            key = f"schedule.candidates[{i}]"
+            t = _time_min(v, file, key)
+            if not 0.0 < t <= end + 1e-9:
+                raise InputError(f"a candidate time lies after 0 and at or before the timeline's end ({end:g} min)",
+                                 file=file, key=key, value=v)
+            times.append(t)
+    cand = tuple(sorted({round(t, 9) for t in times}))
+    if sec.samples > len(cand):
+        raise InputError(f"more samples than distinct candidate times ({len(cand)})", file=file,
+                         key="schedule.samples", value=sec.samples)
+    if parse_time_endpoint(sec.target, plan, file=file, key="schedule.target") is None \
+            and sec.target not in (getattr(study, "names", None) or ()):
+        raise InputError("the target is an uncertain quantity of the study ("
+                         + ", ".join(getattr(study, "names", None) or ()) + ") or a time course at a time "
+                         "(\"NAME at TIME\", e.g. \"infused_retained_fraction at 60 min\")", file=file,
+                         key="schedule.target", value=sec.target)
+    return BloodSettings(candidates=cand, samples=int(sec.samples), target=sec.target, hb_sd=float(sec.hb_sd),
+                         hb_baseline=float(sec.hb_baseline), points=int(sec.linearisation_draws))
+
+
+def check_blood_section(study: Any) -> None:
+    """Refuse a ``[schedule]`` whose keys do not fit the study's form, before any work (exit 2).
+
+    A ``whole_body`` study: :func:`blood_settings`; another form: no blood-sampling key.
+
+    Parameters
+    ----------
+    study : Study
+        A loaded study.
+
+    Raises
+    ------
+    InputError
+        As :func:`blood_settings`, or a blood-sampling key in a study of another form.
+    """
+    sec = getattr(study, "schedule", None)
+    if is_blood_study(study):
+        blood_settings(study)
+        return
+    if sec is None:
+        return
+    for key in BLOOD_KEYS:
+        if key in sec.model_fields_set:
+            raise InputError("a blood-sampling key: only a whole_body study's [schedule] chooses blood-sampling "
+                             "times (this study's schedule is the venous-cuff one)", file=getattr(study, "file", None),
+                             key=f"schedule.{key}", value=getattr(sec, key))
+
+
+def _hb_band(study: Any, seed: int) -> dict[str, Any]:
+    """Median and 95% interval of the individual's prior haemoglobin ratio at the report times."""
+    vals = draw(study, BAND_DRAWS, method="mc", seed=seed, layer="individual")
+    c = whole_body_course(input_values(study, vals), study, "hb_ratio", np)
+    series = np.stack([np.asarray(x, dtype=float) * np.ones(BAND_DRAWS) for x in c["hb_ratio"]], axis=1)
+    lo, med, hi = np.percentile(series, [2.5, 50.0, 97.5], axis=0)
+    return {"times": [float(t) for t in c["times_min"]], "median": med.tolist(),
+            "ci95": [[float(a), float(b)] for a, b in zip(lo, hi, strict=True)], "draws": BAND_DRAWS}
+
+
+def blood_schedule(study: Any, seed: int | None = None) -> BloodScheduleResult:
+    """The blood-sampling schedule of a ``whole_body`` study's ``[schedule]`` section (defaults when absent).
+
+    Parameters
+    ----------
+    study : Study
+        A ``whole_body`` study.
+    seed : int, optional
+        Default the study's seed.
+
+    Returns
+    -------
+    BloodScheduleResult
+        Its JSON: ``kind`` ("blood_sampling"), ``target``, ``unit``, ``samples``, ``candidates`` (min),
+        ``optimised`` and ``equal_spacing`` (``times`` min, ``criterion``, ``posterior_sd`` {target: sd},
+        ``hb_ratio``: the prior-median haemoglobin ratio at those times), ``prior_sd`` and ``sd_ratio``
+        ({target: value}; searched over equal spacing, below 1 a gain), ``criterion_ratio``, ``status``,
+        ``verdict``, ``by_samples`` (``samples``, ``optimised``, ``equal_spacing``: the target's posterior sd
+        against the number of samples), ``hb_course`` (``times`` min, ``median``, ``ci95``: the individual's
+        prior haemoglobin ratio), ``parameters``, ``hb_sd`` and ``hb_baseline`` (g/dL), ``linearisation_draws``,
+        ``seed``, ``notes``, ``units``.
+
+    Raises
+    ------
+    InputError
+        As :func:`blood_settings` and :func:`blood_design`.
+    """
+    st = blood_settings(study)
+    seed = int(seed if seed is not None else getattr(study, "seed", 0) or 0)
+    d = blood_design(study, st.candidates, st.target, noise_sd=st.hb_sd, hb_ref=st.hb_baseline, points=st.points,
+                     seed=seed)
+    band = _hb_band(study, seed)
+    t_band, med = np.asarray(band["times"]), np.asarray(band["median"])
+
+    def row(idx: Sequence[int]) -> dict[str, Any]:
+        times = [float(d.times[i]) for i in idx]
+        return {"times": times, "criterion": float(d.crit(d.posterior(idx))),
+                "posterior_sd": {st.target: d.sd(d.posterior(idx))},
+                "hb_ratio": np.interp(times, t_band, med).tolist()}
+
+    chosen, base, _ = _choose(d, st.samples)
+    opt, eq = row(chosen), row(base)
+    ks = sorted(set(range(1, min(len(d.times), MAX_CURVE_SAMPLES) + 1)) | {st.samples})
+    curve_opt, curve_eq = [], []
+    for k in ks:
+        c, b, _ = _choose(d, k)
+        curve_opt.append(d.sd(d.posterior(c)))
+        curve_eq.append(d.sd(d.posterior(b)))
+    prior = _prior_sd(d)
+    sd_o, sd_e = opt["posterior_sd"][st.target], eq["posterior_sd"][st.target]
+    better = opt["criterion"] < eq["criterion"] - 1e-9 * max(1.0, abs(eq["criterion"]))
+    status = "optimised" if better else "no_better_schedule"
+    verdict = (f"optimised: posterior sd of {st.target} {sd_o / sd_e:.3g} times that of equal spacing" if better
+               else "no better schedule found: keep equal spacing")
+    notes = [f"linearised (Laplace) posterior over {len(d.names)} uncertain inputs, averaged over "
+             f"{len(d.crit.grads)} prior points; a baseline sample at 0 min is always drawn",
+             "each later sample reads Hb(t)/Hb(0), the haemoglobin observation kind's ratio, with the sd of that ratio "
+             "by the delta method (the baseline's shared error neglected, as the kind neglects it)",
+             "the linearised sd is a lower bound on what a fitted posterior shows when the model is far from linear "
+             "over the prior"]
+    doc = {"kind": "blood_sampling", "target": st.target, "unit": d.unit, "samples": st.samples,
+           "candidates": [float(t) for t in d.times], "baseline_time": 0.0, "optimised": opt, "equal_spacing": eq,
+           "comparison": "equal_spacing", "prior_sd": {st.target: prior},
+           "sd_ratio": {st.target: sd_o / sd_e if sd_e > 0 else float("nan")},
+           "criterion_ratio": opt["criterion"] / eq["criterion"] if eq["criterion"] > 0 else float("nan"),
+           "status": status, "verdict": verdict,
+           "by_samples": {"samples": ks, "optimised": curve_opt, "equal_spacing": curve_eq},
+           "hb_course": band, "parameters": list(d.names), "hb_sd": st.hb_sd, "hb_baseline": st.hb_baseline,
+           "linearisation_draws": st.points, "seed": seed, "notes": notes,
+           "units": {"times": "min", "candidates": "min", "posterior_sd": d.unit, "prior_sd": d.unit,
+                     "hb_ratio": "1 (Hb over its value at 0 min)", "hb_sd": "g/dL", "hb_baseline": "g/dL"}}
+    return BloodScheduleResult(doc)
+
+
+__all__ = ["BAND_DRAWS", "BLOOD_KEYS", "CUFF_KEYS", "HB_NOISE_SD_G_PER_DL", "HB_REF_G_PER_DL", "MAX_CURVE_SAMPLES",
+           "BloodDesign", "BloodScheduleResult", "BloodSettings", "TargetCriterion", "blood_design",
+           "blood_sampling_times", "blood_schedule", "blood_settings", "check_blood_section", "is_blood_study"]

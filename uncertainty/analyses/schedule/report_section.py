@@ -5,11 +5,13 @@ from __future__ import annotations
 from typing import Any
 
 from uncertainty.analyses.result import Caption
+from uncertainty.analyses.schedule import blood_report
 from uncertainty.analyses.schedule.table import row_labels
 from uncertainty.core.formatting import fmt
 from uncertainty.core.html import escape, table
 
 CAPTIONS: tuple[Caption, ...] = (
+    ("blood", "", blood_report.CAPTION),
     ("", "", "The searched venous-cuff protocol beside the user's own protocol (when the study has one) and "
              "true equal spacing: cuff pressure steps and the expected limb-volume course (mL/100 g) with the "
              "reading times marked, called optimised only when its criterion is lower than the comparison's and "
@@ -30,6 +32,8 @@ def section_html(res: dict[str, Any]) -> str:
     str
         An HTML paragraph and a table.
     """
+    if blood_report.is_blood_doc(res):
+        return blood_report.section_html(res)
     names = {"optimised": "searched (" + str(res.get("status", "optimised")).replace("_", " ") + ")",
              "user_protocol": "your protocol", "equal_spacing": "equal spacing"}
     rows = []
@@ -66,6 +70,8 @@ def summary(sch: dict[str, Any]) -> list[str]:
     list of str
         One line, or none without ratios.
     """
+    if blood_report.is_blood_doc(sch):
+        return blood_report.summary(sch)
     if not isinstance(sch.get("sd_ratio"), dict):
         return []
     comp = str(sch.get("comparison", "equal_spacing")).replace("_", " ")

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 from typing import Any, ClassVar
 
 from uncertainty.analyses.result import DocumentResult
+from uncertainty.analyses.schedule.blood_result import BloodScheduleResult, is_blood_doc
 from uncertainty.analyses.schedule.figure import plot_schedule
 from uncertainty.analyses.schedule.report_section import section_html
 from uncertainty.analyses.schedule.table import row_labels, table
@@ -21,6 +22,21 @@ class ScheduleResult(DocumentResult):
     model: Any = None
 
     table_file: ClassVar[str] = "schedule.csv"
+
+    @classmethod
+    def from_dict(cls, doc: dict[str, Any]) -> DocumentResult:
+        """The result around a stored document: a :class:`BloodScheduleResult` for a blood-sampling one.
+
+        Parameters
+        ----------
+        doc : dict
+            A ``to_dict()`` of either schedule.
+
+        Returns
+        -------
+        ScheduleResult or BloodScheduleResult
+        """
+        return BloodScheduleResult(doc=doc) if is_blood_doc(doc) else cls(doc=doc)
 
     def to_dataframe(self) -> Any:
         """One row per schedule (optimised, equal spacing): pressures, times, posterior sds."""

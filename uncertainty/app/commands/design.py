@@ -31,8 +31,9 @@ from uncertainty.study import load_study
 @click.option("--checkpoint", type=click.Path(file_okay=False), default=None,
               help="Folder for finished design points (an interrupted run resumes).")
 @click.option("--schedule", "cuff_schedule", is_flag=True,
-              help="Instead of the trial: optimise the venous-cuff measurement schedule ([schedule] section, "
-                   "defaults when absent); JSON keys optimised, equal_spacing, sd_ratio, prior_sd.")
+              help="Instead of the trial: optimise the venous-cuff measurement schedule, or in a whole_body "
+                   "study the blood-sampling times ([schedule] section, defaults when absent); JSON keys "
+                   "optimised, equal_spacing, sd_ratio, prior_sd.")
 @click.option("--protocol", "protocol", is_flag=True,
               help="Print the protocol-ready summary (Markdown) instead of the table; with --out also "
                    "write it to protocol.md there.")
@@ -46,13 +47,16 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     With --schedule: the cuff pressures and K reading times of a venous-cuff protocol that minimise
     the expected posterior sd of Kf and Pvi (linearised Fisher information plus the prior precision),
     and the ratio of those sds to equal spacing (sd_ratio below 1 is a gain); the [design] section
-    is not needed then.
+    is not needed then. In a whole_body study --schedule chooses the blood-sampling times instead:
+    [schedule] samples of its candidates (a baseline at 0 min always drawn) that most narrow its
+    target (a quantity such as Kf, or "NAME at TIME") from serial haemoglobin.
 
     \b
     Examples:
       fluidshift design studies/heart_failure_trial.toml
       fluidshift design studies/heart_failure_trial.toml --tol 0.005 --out plan/
-      fluidshift design studies/heart_failure_trial.toml --protocol"""
+      fluidshift design studies/heart_failure_trial.toml --protocol
+      fluidshift design studies/ringer_infusion_volunteer.toml --schedule"""
     if cuff_schedule:
         s = load_study(study)
         if workers is None and scheduler is None:
