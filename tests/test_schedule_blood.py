@@ -6,6 +6,7 @@ against exhaustive enumeration, and refusals. A 90-min timeline and few linearis
 from __future__ import annotations
 
 import itertools
+import json
 
 import numpy as np
 import pytest
@@ -82,3 +83,97 @@ def test_endpoint_beyond_the_end_is_refused(study: Study) -> None:
     with pytest.raises(StudyError) as exc:
         blood_sampling_times(study, [30.0], 1, "hb_ratio at 3 h", points=1, draws=200)
     assert exc.value.key == "target"
+
+
+# ---------------------------------------------------------------------------------------------
+# the [schedule] section of a whole_body study: `fluidshift design --schedule`, `fluidshift run`, refusals
+
+# invented settings: the fixture's subject and infusion, as a study file
+_WB = ('[study]\ntitle = "invented"\ntissue = "skeletal_muscle"\nmodel = "whole_body"\nbody_mass = "73 kg"\n'
+       'seed = 4\n[[interventions]]\nkind = "infusion"\nfluid = "crystalloid"\nvolume = "1000 mL"\n'
+       'duration = "30 min"\n[timeline]\nend = "90 min"\nreport_every = "10 min"\n')
+_SCHEDULE = ('[schedule]\ncandidates = [10, 20, "30 min", 45, 60, "1.5 h"]\nsamples = 2\n'
+             'target = "infused_retained_fraction at 60 min"\nlinearisation_draws = 2\n')
+
+
+def _write(tmp_path, text: str):
+    path = tmp_path / "s.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_cli_design_schedule_chooses_blood_times(tmp_path) -> None:
+    from click.testing import CliRunner
+
+    from uncertainty.app.cli import main
+
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, ["design", str(_write(tmp_path, _WB + _SCHEDULE)), "--schedule", "--json",
+                                    "--out", str(out)])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.output)
+    assert doc["kind"] == "blood_sampling"
+    assert set(doc) >= {"optimised", "equal_spacing", "sd_ratio", "prior_sd", "candidates", "samples", "target",
+                        "by_samples", "hb_course", "units"}
+    target = "infused_retained_fraction at 60 min"
+    assert doc["candidates"] == CANDIDATES  # "30 min" and "1.5 h" converted to min
+    chosen = doc["optimised"]["times"]
+    assert len(chosen) == 2 and set(chosen) <= set(CANDIDATES)
+    assert doc["optimised"]["criterion"] <= doc["equal_spacing"]["criterion"] + 1e-12
+    assert doc["sd_ratio"][target] <= 1 + 1e-9
+    assert 0 < doc["optimised"]["posterior_sd"][target] < doc["prior_sd"][target]
+    ks = doc["by_samples"]["samples"]
+    assert ks == list(range(1, len(CANDIDATES) + 1))
+    sds = doc["by_samples"]["optimised"]
+    assert all(b <= a + 1e-12 for a, b in itertools.pairwise(sds))  # more samples never widen the posterior
+    assert (out / "blood_schedule.png").stat().st_size > 0 and (out / "schedule.csv").exists()
+
+
+@pytest.mark.parametrize("section, key", [
+    ('[schedule]\ncandidates = [10, 30, 60]\nsamples = 4\n', "schedule.samples"),       # k above the candidates
+    ('[schedule]\ncandidates = [10, 30, 120]\n', "schedule.candidates[2]"),              # after the 90 min end
+    ('[schedule]\ncandidates = [10, "30 mmHg"]\n', "schedule.candidates"),              # not a time
+    ('[schedule]\ncandidates = [0, 30]\n', "schedule.candidates"),                      # the baseline itself
+    ('[schedule]\nsamples = 0\n', "schedule.samples"),
+    ('[schedule]\nsteps = 3\n', "schedule.steps"),                                      # a venous-cuff key
+    ('[schedule]\ntarget = "Jv_total"\n', "schedule.target"),                           # no quantity of the study
+    ('[schedule]\ntarget = "hb_ratio at 3 h"\n', "schedule.target"),                    # after the end
+])
+def test_cli_refuses_a_bad_blood_schedule(tmp_path, section: str, key: str) -> None:
+    from click.testing import CliRunner
+
+    from uncertainty.app.cli import main
+
+    path = _write(tmp_path, _WB + section)
+    for args in (["design", str(path), "--schedule", "--out", str(tmp_path / "out")], ["check", str(path)]):
+        res = CliRunner().invoke(main, args)
+        assert res.exit_code == 2, res.output
+        lines = [ln for ln in res.output.splitlines() if ln.strip()]
+        assert len(lines) == 1 and key in lines[0] and "s.toml" in lines[0], res.output
+    assert not (tmp_path / "out").exists()  # nothing half-written
+
+
+def test_blood_key_in_a_cuff_study_is_refused(tmp_path) -> None:
+    from click.testing import CliRunner
+
+    from uncertainty.app.cli import main
+
+    path = _write(tmp_path, '[study]\ntitle = "invented"\ntissue = "skeletal_muscle"\n[schedule]\nsamples = 3\n')
+    res = CliRunner().invoke(main, ["check", str(path)])
+    assert res.exit_code == 2 and "schedule.samples" in res.output, res.output
+
+
+def test_run_reports_the_blood_schedule(tmp_path) -> None:
+    from uncertainty.analyses.schedule.blood_result import BloodScheduleResult
+    from uncertainty.analyses.schedule.result import ScheduleResult
+    from uncertainty.app.run import run
+
+    res = run(_write(tmp_path, _WB + _SCHEDULE), tmp_path / "out", progress=False)
+    doc = json.loads((tmp_path / "out" / "results.json").read_text())
+    sec = doc["sections"]["schedule"]
+    assert sec["status"] == "done", sec.get("message")
+    assert any(f["kind"] == "figure" and "blood_schedule" in f["path"] for f in sec["files"])
+    assert isinstance(ScheduleResult.from_dict(sec["result"]), BloodScheduleResult)
+    html = (tmp_path / "out" / "report.html").read_text()
+    assert 'id="section-schedule"' in html and "Blood-sampling times" in html and "equal spacing" in html
+    assert any(line.startswith("Blood sampling: draw at 0 and") for line in res.summary)
