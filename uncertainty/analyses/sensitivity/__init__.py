@@ -58,6 +58,9 @@ REPLICATES = 16
 #: run time chosen here (about 10^6 model runs for six inputs), not a statistical figure
 DEFAULT_MAX_SAMPLES = 2**17
 MORRIS_LEVELS = 4
+#: most model runs of one Shapley model call: the replicates' runs go to the model together up to this many rows
+#: (64 row chunks of the executor; a bound on memory chosen here, about 40 MB of points for 20 columns)
+CHAIN_CALL_ROWS = 2**18
 
 
 # --------------------------------------------------------------------------------------------
@@ -671,8 +674,7 @@ def _morris_once(problem: Problem, trajectories: int, *, seed: Any, levels: int)
 # Shapley effects (Song, Nelson & Staum 2016)
 # --------------------------------------------------------------------------------------------
 
-def _chain_permutations(problem: Problem, per: int, rng: np.random.Generator
-                        ) -> tuple[np.ndarray, np.ndarray]:
+def _chain_design(problem: Problem, per: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
     """One replicate of the random-permutation estimator along a coupled chain (d + 1 runs per order).
 
     For a random order pi of the players, two independent innovation vectors u, u' ~ N(0, I) and the
@@ -688,9 +690,8 @@ def _chain_permutations(problem: Problem, per: int, rng: np.random.Generator
     of i comes from the orders that start with i (first increment), the total index from those that end
     with i (last increment).
 
-    Returns the sums of one batch, so that batches add up: (5, d) per player (the increments, the first
-    increments and their count per starting player, the last increments and their count per ending
-    player) and (4,) totals (sum of 0.5 (y_d - y_0)^2, finite orders, non-finite runs, runs).
+    Returns the points of the runs, (per * (d + 1), k), and the orders, (per, d); :func:`_chain_sums` turns
+    the model's outputs at those points into the replicate's sums.
     """
     d, k = len(problem.players), problem.k
     perms = np.argsort(rng.random((per, d)), axis=1)  # uniform random orders
@@ -714,7 +715,16 @@ def _chain_permutations(problem: Problem, per: int, rng: np.random.Generator
     z_sorted = np.einsum("pij,pmj->pmi", L, w)  # (per, d + 1, k)
     z = np.empty_like(z_sorted)
     z[np.arange(per)[:, None, None], steps[None, :, None], order[:, None, :]] = z_sorted
-    y = problem.model(z.reshape(-1, k)).reshape(per, d + 1)
+    return z.reshape(-1, k), perms
+
+
+def _chain_sums(y: np.ndarray, perms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sums of one batch of :func:`_chain_design` orders from the model's outputs ``y`` (per * (d + 1),),
+    so that batches add up: (5, d) per player (the increments, the first increments and their count per
+    starting player, the last increments and their count per ending player) and (4,) totals (sum of
+    0.5 (y_d - y_0)^2, finite orders, non-finite runs, runs)."""
+    per, d = perms.shape
+    y = np.asarray(y, dtype=float).reshape(per, d + 1)
     ok = np.all(np.isfinite(y), axis=1)
     bad = int((~np.isfinite(y)).sum())
     y, perms = y[ok], perms[ok]
@@ -741,7 +751,7 @@ def shapley_core(problem: Problem, samples: int = 8192, *, seed: Any = None, rep
         Inputs under any Gaussian-copula correlation (positive definite).
     samples : int
         Random orders of the players over all replicates, d + 1 model runs each (see
-        :func:`_chain_permutations`).
+        :func:`_chain_design`).
     seed : int or SeedSequence, optional
         Seed of the R replicates.
     replicates : int
@@ -782,10 +792,20 @@ def shapley_core(problem: Problem, samples: int = 8192, *, seed: Any = None, rep
     converged: bool | None = None
     done, batch = 0, per
     while True:
+        # the replicates' runs go to the model together (up to CHAIN_CALL_ROWS a call), so that an executor
+        # has row chunks to spread over its workers
+        group: list[tuple[int, np.ndarray, np.ndarray]] = []
         for r, rng in enumerate(rngs):
-            ps, tot = _chain_permutations(problem, batch, rng)
-            player_sums[r] += ps
-            totals[r] += tot
+            group.append((r, *_chain_design(problem, batch, rng)))
+            if r == replicates - 1 or sum(len(g[1]) for g in group) >= CHAIN_CALL_ROWS:
+                y = problem.model(np.concatenate([g[1] for g in group]))
+                at = 0
+                for rr, z, perms in group:
+                    ps, tot = _chain_sums(y[at:at + len(z)], perms)
+                    at += len(z)
+                    player_sums[rr] += ps
+                    totals[rr] += tot
+                group = []
         done += batch
         with np.errstate(invalid="ignore", divide="ignore"):
             V = totals[:, 0] / totals[:, 1]
