@@ -1,0 +1,78 @@
+"""Ratio benchmark for study calibration on the executor (printed, not asserted).
+
+`fluidshift calibrate` refits the study's model once per replicate, a task per replicate; each worker
+process compiles the model on its first replicate and reuses it. Timed here: the same calibration (an
+invented study with one uncertain quantity and one reading, so a compile takes seconds, not minutes) on a
+local dask cluster of 1 worker and of 2 workers, each cluster started before the clock runs. The compile is
+inside the timed run, as a user meets it. Target (issue 21): at least 1.7x on 2 workers against 1.
+
+Run: python benchmarks/benchmark_calibrate.py [--replicates 100]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import tempfile
+import time
+from pathlib import Path
+
+STUDY = """# INVENTED benchmark study: invented numbers, no real subject.
+[study]
+title = "calibration benchmark (invented)"
+tissue = "skeletal_muscle"
+model = "classic"
+seed = 21
+
+[parameters]
+Pc = { dist = "normal", mean = 20.0, sd = 3.0, unit = "mmHg" }
+Kf = 0.01
+Pi = -1.0
+pi_c = 25.0
+pi_i = 10.0
+sigma = 0.9
+
+[[observations]]
+kind = "measurement"
+parameter = "Pc"
+value = 24.0
+sd = 2.0
+unit = "mmHg"
+
+[infer]
+chains = 2
+draws = 500
+tune = 300
+"""
+
+
+def main() -> None:
+    """Time one calibration on 1 and on 2 workers and print the ratio."""
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--replicates", type=int, default=100, help="replicates N (a multiple of 5 x bins)")
+    args = ap.parse_args()
+
+    from uncertainty.analyses.calibrate import calibrate
+    from uncertainty.core.parallel import make_executor
+    from uncertainty.study import load_study
+
+    print(f"load average before: {os.getloadavg()[0]:.2f} (1 min) on {os.cpu_count()} cores", flush=True)
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "study.toml"
+        path.write_text(STUDY)
+        study = load_study(path)
+        times, verdicts = {}, {}
+        for n in (1, 2):
+            with make_executor(workers=n) as ex:
+                t0 = time.perf_counter()
+                res = calibrate(study, replicates=args.replicates, executor=ex)
+                times[n] = time.perf_counter() - t0
+                verdicts[n] = res.doc.get("verdict")
+            print(f"{n} worker(s): {times[n]:.1f} s ({args.replicates} replicates, verdict {verdicts[n]})",
+                  flush=True)
+    print(f"calibration on 2 workers against 1: {times[1] / times[2]:.2f}x (target >= 1.7x)")
+    print(f"load average after: {os.getloadavg()[0]:.2f} (1 min)")
+
+
+if __name__ == "__main__":
+    main()
