@@ -12,8 +12,8 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.inference.observations.base import pair_with_first, timed_readings
-from uncertainty.analyses.inference.problem import Observation
+from uncertainty.analyses.inference.observations.base import check_sds, pair_with_first, timed_readings
+from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.analyses.propagate.timeline import bed_ratios
 from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
 from uncertainty.physiology import whole_body as wb
@@ -24,6 +24,44 @@ from uncertainty.physiology import whole_body as wb
 MAX_STEP_MIN = 2.0
 #: Inputs of the time course besides the per-bed ones (forms.whole_body.timeline_parameters).
 BODY_INPUTS = ("pi_c", "Cp", "r")
+
+
+def check_timed_rows(obs: Observation, problem: Problem, what: str, sd_unit: str) -> None:
+    """The checks every timed kind shares: a whole_body study, a data file with a time inside the timeline for
+    every reading, and a normal error (sd) given on the observation or per row.
+
+    Parameters
+    ----------
+    obs : Observation
+        A timed observation (``haemoglobin``, ``urine``, ``plasma_protein``).
+    problem : Problem
+        The inference problem it belongs to.
+    what : str
+        The kind's name in the messages (e.g. ``"a urine"``).
+    sd_unit : str
+        The unit the messages give for the sd (e.g. ``"mL"``).
+
+    Raises
+    ------
+    InputError
+        Another model form, no data file, a cv error, no sd, a reading without a time or outside the timeline.
+    """
+    if problem.model_form != "whole_body" or getattr(problem.study, "timeline", None) is None:
+        raise obs.error(f"{what} observation needs a whole_body study (its [[interventions]] and [timeline])",
+                        "kind", obs.kind)
+    if obs.rows is None:
+        raise obs.error(f"{what} observation needs a data file (subject, time, value)", "file", None)
+    if obs.cv is not None:
+        raise obs.error(f"{what} reading takes a normal error (sd, {sd_unit})", "cv", obs.cv)
+    sds = obs.sds
+    if sds is None:
+        raise obs.error("give the reading's error as sd (on the observation or an sd column)", "sd", None)
+    check_sds(obs, sds)
+    t = np.asarray(obs.rows.time_min, dtype=float)
+    obs.check_values(np.isfinite(t), "no time for this reading (a time column is required)", "file")
+    end = float(problem.study.timeline.end)
+    obs.check_values((t >= 0) & (t <= end), f"a reading's time lies outside the timeline (0 to {end:g} min)",
+                     "file")
 
 
 def ratios_to_first(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:

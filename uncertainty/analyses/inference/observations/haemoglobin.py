@@ -21,8 +21,13 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.model_builder import ObservedTerm
-from uncertainty.analyses.inference.observations.base import add_reading, check_sds, term_name
-from uncertainty.analyses.inference.observations.course import at_times, course_series, ratios_to_first
+from uncertainty.analyses.inference.observations.base import add_reading, term_name
+from uncertainty.analyses.inference.observations.course import (
+    at_times,
+    check_timed_rows,
+    course_series,
+    ratios_to_first,
+)
 from uncertainty.analyses.inference.problem import Observation, Problem
 
 NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitted to the whole-body time "
@@ -38,22 +43,7 @@ def validate(obs: Observation, problem: Problem) -> None:
         Another model form, no data file, a cv error, no sd, a reading without a time or after the timeline's
         end, a non-positive reading.
     """
-    if problem.model_form != "whole_body" or getattr(problem.study, "timeline", None) is None:
-        raise obs.error("a haemoglobin observation needs a whole_body study (its [[interventions]] and "
-                        "[timeline])", "kind", obs.kind)
-    if obs.rows is None:
-        raise obs.error("a haemoglobin observation needs a data file (subject, time, value)", "file", None)
-    if obs.cv is not None:
-        raise obs.error("a haemoglobin reading takes a normal error (sd, g/dL)", "cv", obs.cv)
-    sds = obs.sds
-    if sds is None:
-        raise obs.error("give the reading's error as sd (on the observation or an sd column)", "sd", None)
-    check_sds(obs, sds)
-    t = np.asarray(obs.rows.time_min, dtype=float)
-    obs.check_values(np.isfinite(t), "no time for this reading (a time column is required)", "file")
-    end = float(problem.study.timeline.end)
-    obs.check_values((t >= 0) & (t <= end), f"a reading's time lies outside the timeline (0 to {end:g} min)",
-                     "file")
+    check_timed_rows(obs, problem, "a haemoglobin", "g/dL")
     obs.check_values(np.asarray(obs.rows.value, dtype=float) > 0, "a haemoglobin reading must be positive",
                      "file")
 

@@ -36,8 +36,13 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.model_builder import ObservedTerm
-from uncertainty.analyses.inference.observations.base import add_reading, check_sds, term_name
-from uncertainty.analyses.inference.observations.course import at_times, course_series, ratios_to_first
+from uncertainty.analyses.inference.observations.base import add_reading, term_name
+from uncertainty.analyses.inference.observations.course import (
+    at_times,
+    check_timed_rows,
+    course_series,
+    ratios_to_first,
+)
 from uncertainty.analyses.inference.problem import Observation, Problem
 
 NOTE = ("plasma_protein: each subject's plasma protein readings relative to its earliest one, fitted to the "
@@ -65,9 +70,7 @@ def validate(obs: Observation, problem: Problem) -> None:
         Another model form, no data file, a cv error, no sd, a reading without a time or outside the timeline, a
         non-positive reading, an unknown protein, albumin readings in a study that infuses protein.
     """
-    if problem.model_form != "whole_body" or getattr(problem.study, "timeline", None) is None:
-        raise obs.error("a plasma_protein observation needs a whole_body study (its [[interventions]] and "
-                        "[timeline])", "kind", obs.kind)
+    check_timed_rows(obs, problem, "a plasma_protein", "g/dL")
     protein = protein_of(obs)
     if protein not in PROTEINS:
         raise obs.error(f"protein is one of {', '.join(PROTEINS)}", "protein", protein)
@@ -75,19 +78,6 @@ def validate(obs: Observation, problem: Problem) -> None:
         raise obs.error("albumin readings cannot be fitted when albumin is infused: the form has one plasma "
                         "protein pool and infused albumin changes albumin's share of it (give total protein)",
                         "protein", protein)
-    if obs.rows is None:
-        raise obs.error("a plasma_protein observation needs a data file (subject, time, value)", "file", None)
-    if obs.cv is not None:
-        raise obs.error("a plasma protein reading takes a normal error (sd, g/dL)", "cv", obs.cv)
-    sds = obs.sds
-    if sds is None:
-        raise obs.error("give the reading's error as sd (on the observation or an sd column)", "sd", None)
-    check_sds(obs, sds)
-    t = np.asarray(obs.rows.time_min, dtype=float)
-    obs.check_values(np.isfinite(t), "no time for this reading (a time column is required)", "file")
-    end = float(problem.study.timeline.end)
-    obs.check_values((t >= 0) & (t <= end), f"a reading's time lies outside the timeline (0 to {end:g} min)",
-                     "file")
     obs.check_values(np.asarray(obs.rows.value, dtype=float) > 0, "a plasma protein reading must be positive",
                      "file")
 

@@ -16,8 +16,8 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.model_builder import ObservedTerm
-from uncertainty.analyses.inference.observations.base import add_reading, check_sds, term_name, timed_readings
-from uncertainty.analyses.inference.observations.course import at_times, course_series
+from uncertainty.analyses.inference.observations.base import add_reading, term_name, timed_readings
+from uncertainty.analyses.inference.observations.course import at_times, check_timed_rows, course_series
 from uncertainty.analyses.inference.problem import Observation, Problem
 
 NOTE = ("urine: each subject's cumulative urine volume since time 0, fitted to the whole-body time course of "
@@ -33,22 +33,7 @@ def validate(obs: Observation, problem: Problem) -> None:
         Another model form, no data file, a cv error, no sd, a reading without a time or outside the timeline, a
         negative volume.
     """
-    if problem.model_form != "whole_body" or getattr(problem.study, "timeline", None) is None:
-        raise obs.error("a urine observation needs a whole_body study (its [[interventions]] and [timeline])",
-                        "kind", obs.kind)
-    if obs.rows is None:
-        raise obs.error("a urine observation needs a data file (subject, time, value)", "file", None)
-    if obs.cv is not None:
-        raise obs.error("a urine reading takes a normal error (sd, mL)", "cv", obs.cv)
-    sds = obs.sds
-    if sds is None:
-        raise obs.error("give the reading's error as sd (on the observation or an sd column)", "sd", None)
-    check_sds(obs, sds)
-    t = np.asarray(obs.rows.time_min, dtype=float)
-    obs.check_values(np.isfinite(t), "no time for this reading (a time column is required)", "file")
-    end = float(problem.study.timeline.end)
-    obs.check_values((t >= 0) & (t <= end), f"a reading's time lies outside the timeline (0 to {end:g} min)",
-                     "file")
+    check_timed_rows(obs, problem, "a urine", "mL")
     obs.check_values(np.asarray(obs.rows.value, dtype=float) >= 0, "a cumulative urine volume cannot be negative",
                      "file")
 
