@@ -18,6 +18,7 @@ import click
 from uncertainty.analyses.result import Result
 from uncertainty.core.errors import FluidshiftError, InputError, QualityGateError, one_line
 from uncertainty.core.limits import memory_problem
+from uncertainty.core.parallel import make_executor
 from uncertainty.core.serialise import to_json
 
 
@@ -135,6 +136,50 @@ def show_result(result: Result, *, as_json: bool, out: str | None, quiet: bool) 
         click.echo(result.table())
         if out and result.saved_note:
             click.echo(result.saved_note.format(out=out))
+
+
+def run_and_show(analysis: Callable[..., Result], study: Any, opts: dict[str, Any], *, workers: int | None,
+                 scheduler: str | None, as_json: bool, out: str | None, quiet: bool, progress: bool = False) -> Result:
+    """``analysis(study, **opts)`` here, or with ``executor=`` a dask cluster when ``workers`` or ``scheduler``
+    is given; its result shown by :func:`show_result`, also one a quality gate stopped (whose error is then
+    raised again: exit 3).
+
+    Parameters
+    ----------
+    analysis : callable
+        The analysis function (takes the study, ``opts`` and, on a cluster, ``executor``).
+    study : Study
+        The loaded study.
+    opts : dict
+        Keyword arguments of the analysis.
+    workers, scheduler : int or str, optional
+        A local cluster of this many workers, or a running scheduler's address (``make_executor``).
+    as_json, out, quiet : as :func:`show_result`.
+    progress : bool
+        Show the executor's progress bar (on a terminal).
+
+    Returns
+    -------
+    Result
+        The analysis result.
+
+    Raises
+    ------
+    QualityGateError
+        The analysis stopped at its gate or cap (exit 3), after its result was shown.
+    """
+    try:
+        if workers is None and scheduler is None:
+            result = analysis(study, **opts)
+        else:
+            with make_executor(workers, scheduler, progress=progress) as ex:
+                result = analysis(study, **opts, executor=ex)
+    except QualityGateError as exc:  # a gate or cap stopped it: show what was computed, then exit 3
+        if exc.result is not None:
+            show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
+        raise
+    show_result(result, as_json=as_json, out=out, quiet=quiet)
+    return result
 
 
 @contextlib.contextmanager

@@ -2,16 +2,13 @@
 
 from __future__ import annotations
 
-import contextlib
 import sys
 
 import click
 
 from uncertainty.analyses import inference
 from uncertainty.analyses.inference.api import settings
-from uncertainty.app.commands.common import handle_errors, show_result, study_options
-from uncertainty.core.errors import QualityGateError
-from uncertainty.core.parallel import make_executor
+from uncertainty.app.commands.common import handle_errors, run_and_show, study_options
 from uncertainty.study import load_study
 
 
@@ -82,16 +79,9 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     gate = settings(s)["gate"]  # the study's [infer] thresholds (or the defaults), each flag overriding
     gate.update({k: v for k, v in (("r_hat_max", r_hat_max), ("ess_bulk_min", ess_min),
                                    ("divergences_max", divergences_max)) if v is not None})
-    distributed = workers is not None or scheduler is not None
-    try:
-        with make_executor(workers, scheduler, progress=not (quiet or as_json)) if distributed \
-                else contextlib.nullcontext() as ex:
-            result = inference.infer(s, sampler=sampler, seed=seed, chains=chains, draws=draws, tune=tune,
-                                     gate=gate, compare_models=compare_models, checks=not no_checks,
-                                     target_accept=target_accept, start=start,
-                                     progress=not quiet and stderr_is_terminal() and not distributed, executor=ex)
-    except QualityGateError as exc:
-        if exc.result is not None:
-            show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
-        raise
-    show_result(result, as_json=as_json, out=out, quiet=quiet)
+    local = workers is None and scheduler is None  # else a chain per task on the workers
+    opts = {"sampler": sampler, "seed": seed, "chains": chains, "draws": draws, "tune": tune, "gate": gate,
+            "compare_models": compare_models, "checks": not no_checks, "target_accept": target_accept,
+            "start": start, "progress": not quiet and stderr_is_terminal() and local}
+    run_and_show(inference.infer, s, opts, workers=workers, scheduler=scheduler, as_json=as_json, out=out,
+                 quiet=quiet, progress=not (quiet or as_json))

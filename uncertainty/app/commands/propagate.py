@@ -5,9 +5,7 @@ from __future__ import annotations
 import click
 
 from uncertainty.analyses.propagate import propagate
-from uncertainty.app.commands.common import PROPAGATE_BYTES, Count, handle_errors, show_result, study_options
-from uncertainty.core.errors import QualityGateError
-from uncertainty.core.parallel import make_executor
+from uncertainty.app.commands.common import PROPAGATE_BYTES, Count, handle_errors, run_and_show, study_options
 from uncertainty.study import load_study
 
 
@@ -39,14 +37,4 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     s = load_study(study)
     opts = {"samples": samples, "method": method, "seed": seed, "tol": tol, "max_samples": max_samples,
             "outputs": list(outputs) or None}
-    try:
-        if workers is None and scheduler is None:
-            result = propagate(s, **opts)
-        else:
-            with make_executor(workers, scheduler) as ex:
-                result = propagate(s, **opts, executor=ex)
-    except QualityGateError as exc:
-        if exc.result is not None:
-            show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
-        raise
-    show_result(result, as_json=as_json, out=out, quiet=quiet)
+    run_and_show(propagate, s, opts, workers=workers, scheduler=scheduler, as_json=as_json, out=out, quiet=quiet)

@@ -5,9 +5,7 @@ from __future__ import annotations
 import click
 
 from uncertainty.analyses.rank import DEFAULT_MAX_SAMPLES, rank
-from uncertainty.app.commands.common import RANK_BYTES, Count, handle_errors, show_result, study_options
-from uncertainty.core.errors import QualityGateError
-from uncertainty.core.parallel import make_executor
+from uncertainty.app.commands.common import RANK_BYTES, Count, handle_errors, run_and_show, study_options
 from uncertainty.study import load_study
 
 
@@ -52,14 +50,4 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     s = load_study(study)
     opts = {"seed": seed, "samples": samples, "method": method, "from_prior": from_prior, "tol": tol,
             "max_samples": max_samples}
-    try:
-        if workers is None and scheduler is None:
-            result = rank(s, **opts)
-        else:
-            with make_executor(workers, scheduler) as ex:
-                result = rank(s, **opts, executor=ex)
-    except QualityGateError as exc:  # the cap stopped --tol: show what was computed, then exit 3
-        if exc.result is not None:
-            show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
-        raise
-    show_result(result, as_json=as_json, out=out, quiet=quiet)
+    run_and_show(rank, s, opts, workers=workers, scheduler=scheduler, as_json=as_json, out=out, quiet=quiet)

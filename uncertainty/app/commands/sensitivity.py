@@ -5,9 +5,7 @@ from __future__ import annotations
 import click
 
 from uncertainty.analyses.sensitivity import sensitivity
-from uncertainty.app.commands.common import SENSITIVITY_BYTES, Count, handle_errors, show_result, study_options
-from uncertainty.core.errors import QualityGateError
-from uncertainty.core.parallel import make_executor
+from uncertainty.app.commands.common import SENSITIVITY_BYTES, Count, handle_errors, run_and_show, study_options
 from uncertainty.study import load_study
 
 
@@ -49,14 +47,5 @@ def command(study: str, seed: int | None, as_json: bool, out: str | None, quiet:
     s = load_study(study)
     opts = {"method": method, "samples": samples, "output": output, "seed": seed, "layer": layer,
             "second_order": second_order or None, "tol": tol, "max_samples": max_samples}
-    try:
-        if workers is None and scheduler is None:
-            result = sensitivity(s, **opts)
-        else:
-            with make_executor(workers, scheduler) as ex:
-                result = sensitivity(s, **opts, executor=ex)
-    except QualityGateError as exc:  # the cap stopped --tol: show what was computed, then exit 3
-        if exc.result is not None:
-            show_result(exc.result, as_json=as_json, out=out, quiet=quiet)
-        raise
-    show_result(result, as_json=as_json, out=out, quiet=quiet)
+    run_and_show(sensitivity, s, opts, workers=workers, scheduler=scheduler, as_json=as_json, out=out,
+                 quiet=quiet)
