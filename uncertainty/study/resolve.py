@@ -1423,37 +1423,52 @@ def resolve_correlations(priors: Mapping[str, Prior], derived: Mapping[str, Deri
         is not positive definite (``correlations.pairs``).
     """
     names = [s for s, p in priors.items() if not p.is_fixed]
-    alias = {t: d.inputs[0] for t, d in derived.items() if len(d.inputs) == 1 and d.formula != "gaar"}
+    alias = _single_input_aliases(derived)
+    given = _study_pairs(section, names, priors, alias, file) if section is not None else []
+    return _layer_correlations(names, alias, prior_set_pairs, overridden, given, file=file,
+                               what="prior-set correlation", unused=f"is not an uncertain input of the {model} form",
+                               replaces="[correlations]", matrix_of="the correlations", key="correlations.pairs")
+
+
+def _single_input_aliases(derived: Mapping[str, Derivation]) -> dict[str, str]:
+    """Derived quantities with a single input (pi_c from Cp): a correlation named on one applies to its input."""
+    return {t: d.inputs[0] for t, d in derived.items() if len(d.inputs) == 1 and d.formula != "gaar"}
+
+
+def _layer_correlations(names: list[str], alias: Mapping[str, str], prior_set_pairs: Sequence[tuple[str, str, float]],
+                        overridden: Set[str], given: Sequence[tuple[str, str, str, str, float]], *, file: str,
+                        what: str, unused: str, replaces: str, matrix_of: str, key: str) -> Correlations:
+    """One layer's correlation matrix over ``names``: the prior set's pairs (dropped with a note when they
+    involve an overridden quantity or one outside ``names``), then the study's ``given`` pairs replacing them;
+    refused, never repaired, when not positive definite. ``what``, ``unused``, ``replaces``, ``matrix_of`` and
+    ``key`` word the notes and the refusal for the layer."""
     notes: list[str] = []
     kept: dict[frozenset[str], tuple[str, str, float]] = {}
     for (a, b, rho) in prior_set_pairs:
         if a in overridden or b in overridden:
-            notes.append(f"prior-set correlation {a}-{b} ({rho:g}) dropped: {a if a in overridden else b} "
-                         "is overridden by the study")
+            notes.append(f"{what} {a}-{b} ({rho:g}) dropped: {a if a in overridden else b} is overridden by the "
+                         "study")
             continue
         a2, b2 = alias.get(a, a), alias.get(b, b)
         if a2 not in names or b2 not in names:
-            missing = a if a2 not in names else b
-            notes.append(f"prior-set correlation {a}-{b} ({rho:g}) not used: {missing} is not an uncertain "
-                         f"input of the {model} form")
+            notes.append(f"{what} {a}-{b} ({rho:g}) not used: {a if a2 not in names else b} {unused}")
             continue
         kept[frozenset((a2, b2))] = (a2, b2, rho)
-    if section is not None:
-        for a, b, a2, b2, rho in _study_pairs(section, names, priors, alias, file):
-            fs = frozenset((a2, b2))
-            if fs in kept:
-                notes.append(f"[correlations] {a}-{b} replaces the prior set's value {kept[fs][2]:g}")
-            kept[fs] = (a2, b2, rho)
+    for a, b, a2, b2, rho in given:
+        fs = frozenset((a2, b2))
+        if fs in kept:
+            notes.append(f"{replaces} {a}-{b} replaces the prior set's value {kept[fs][2]:g}")
+        kept[fs] = (a2, b2, rho)
     corr = np.eye(len(names))
     idx = {n: i for i, n in enumerate(names)}
     for a, b, rho in kept.values():
         corr[idx[a], idx[b]] = corr[idx[b], idx[a]] = rho
-    if names:
+    if kept:
         eig = float(np.linalg.eigvalsh(corr).min())
         if not eig > 1e-10:
-            raise study_error("the correlations do not form a valid (positive-definite) correlation matrix; "
-                              f"smallest eigenvalue {eig:.3g}; revise the pairs (it is not repaired)", file,
-                              "correlations.pairs", [list(p) for p in kept.values()])
+            raise study_error(f"{matrix_of} do not form a valid (positive-definite) correlation matrix; smallest "
+                              f"eigenvalue {eig:.3g}; revise the pairs (it is not repaired)", file, key,
+                              [list(p) for p in kept.values()])
     return Correlations(names=names, matrix=corr, pairs=list(kept.values()), notes=tuple(notes))
 
 
@@ -1614,37 +1629,11 @@ def resolve_between_correlations(priors: Mapping[str, Prior], derived: Mapping[s
         matrix that is not positive definite (``correlations.between_subject``).
     """
     names = [s for s, p in priors.items() if getattr(p, "between_subject", None)]
-    alias = {t: d.inputs[0] for t, d in derived.items() if len(d.inputs) == 1 and d.formula != "gaar"}
-    notes: list[str] = []
-    kept: dict[frozenset[str], tuple[str, str, float]] = {}
-    for (a, b, rho) in prior_set_pairs:
-        if a in overridden or b in overridden:
-            notes.append(f"prior-set between-subject correlation {a}-{b} ({rho:g}) dropped: "
-                         f"{a if a in overridden else b} is overridden by the study")
-            continue
-        a2, b2 = alias.get(a, a), alias.get(b, b)
-        if a2 not in names or b2 not in names:
-            missing = a if a2 not in names else b
-            notes.append(f"prior-set between-subject correlation {a}-{b} ({rho:g}) not used: {missing} has "
-                         "no between-subject spread in this study")
-            continue
-        kept[frozenset((a2, b2))] = (a2, b2, rho)
-    if section is not None:
-        for a, b, a2, b2, rho in _study_pairs(section, names, priors, alias, file, layer="between_subject",
-                                              derived=set(derived)):
-            fs = frozenset((a2, b2))
-            if fs in kept:
-                notes.append(f"[correlations] between_subject {a}-{b} replaces the prior set's value "
-                             f"{kept[fs][2]:g}")
-            kept[fs] = (a2, b2, rho)
-    corr = np.eye(len(names))
-    idx = {n: i for i, n in enumerate(names)}
-    for a, b, rho in kept.values():
-        corr[idx[a], idx[b]] = corr[idx[b], idx[a]] = rho
-    if kept:
-        eig = float(np.linalg.eigvalsh(corr).min())
-        if not eig > 1e-10:
-            raise study_error("the between-subject correlations do not form a valid (positive-definite) "
-                              f"correlation matrix; smallest eigenvalue {eig:.3g}; revise the pairs (it is not "
-                              "repaired)", file, "correlations.between_subject", [list(p) for p in kept.values()])
-    return Correlations(names=names, matrix=corr, pairs=list(kept.values()), notes=tuple(notes))
+    alias = _single_input_aliases(derived)
+    given = (_study_pairs(section, names, priors, alias, file, layer="between_subject", derived=set(derived))
+             if section is not None else [])
+    return _layer_correlations(names, alias, prior_set_pairs, overridden, given, file=file,
+                               what="prior-set between-subject correlation",
+                               unused="has no between-subject spread in this study",
+                               replaces="[correlations] between_subject", matrix_of="the between-subject correlations",
+                               key="correlations.between_subject")
