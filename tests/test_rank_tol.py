@@ -14,12 +14,13 @@ import json
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from executor_fakes import Backwards
 from scipy import stats
 
 from uncertainty.analyses.rank import MIN_SAMPLES, Reading, rank, simulate_batches, t975
 from uncertainty.app.cli import main
 from uncertainty.core.errors import InputError, QualityGateError
-from uncertainty.core.parallel import InProcess, task_seeds
+from uncertainty.core.parallel import task_seeds
 from uncertainty.core.serialise import to_json
 from uncertainty.study import Study
 
@@ -106,25 +107,12 @@ def test_bad_tolerance_or_cap_is_an_input_error(tmp_path) -> None:
         Study.from_dict(_doc(("Pc", 2.0), samples=8192, max_samples=4096), base_dir=tmp_path)
 
 
-class _Pickling(InProcess):
-    """Runs each task on a pickled copy of the task function and the task (as dask sends them), last first."""
-
-    def map(self, fn, tasks, *, seed, label="tasks"):
-        import cloudpickle
-
-        tasks = list(tasks)
-        seeds = task_seeds(seed, len(tasks))
-        out = {i: cloudpickle.loads(cloudpickle.dumps(fn))(*cloudpickle.loads(cloudpickle.dumps((tasks[i], seeds[i]))))
-               for i in reversed(range(len(tasks)))}
-        return [out[i] for i in range(len(tasks))]
-
-
 def test_same_numbers_in_process_and_on_a_pickling_executor(tmp_path) -> None:
     # noise above the prior sd: importance first, regression once importance cannot reach the tolerance; one
     # doubling, then the cap, so both runs stop at the same place
     study = Study.from_dict(_doc(("Pc sd 4", 4.0)), base_dir=tmp_path)
     docs = []
-    for ex in (None, _Pickling()):
+    for ex in (None, Backwards()):
         with pytest.raises(QualityGateError) as exc:
             rank(study, tol=0.001, max_samples=2 * MIN_SAMPLES, executor=ex)
         docs.append(to_json(exc.value.result.to_dict()))
