@@ -12,7 +12,14 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.inference.observations.base import check_sds, pair_with_first, timed_readings
+from uncertainty.analyses.inference.model_builder import ObservedTerm
+from uncertainty.analyses.inference.observations.base import (
+    add_reading,
+    check_sds,
+    pair_with_first,
+    term_name,
+    timed_readings,
+)
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.analyses.propagate.timeline import bed_ratios
 from uncertainty.forms.whole_body import BED_INPUTS, timeline_parameters
@@ -90,6 +97,45 @@ def ratios_to_first(obs: Observation, subjects: list[str]) -> dict[str, np.ndarr
     y = value[k] / value[r]
     return {"subject": subj[k], "time": t[k], "ref_time": t[r], "value": y,
             "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": skipped}
+
+
+def add_ratio_term(ctx: Any, obs: Observation, course: str, *, what: str, label: str, note: str,
+                   notes_when_fitted: tuple[str, ...] = ()) -> None:
+    """Likelihood of readings taken relative to each subject's first one (:func:`ratios_to_first`):
+    y ~ Normal(c(t) / c(t_ref), sd_y) over all later readings, c the whole-body course ``course`` of the
+    reading's subject (dimensionless).
+
+    Parameters
+    ----------
+    ctx : BuildContext
+        The model being built.
+    obs : Observation
+        A timed observation with data-file rows.
+    course : str
+        The time course the readings follow (a key of ``physiology.whole_body.TIMELINE_UNITS``).
+    what, label, note : str
+        The quantity in notes ("haemoglobin"), the term's label, and the kind's note.
+    notes_when_fitted : tuple of str
+        Further notes, added when there are ratios to fit.
+    """
+    import pymc as pm
+
+    d = ratios_to_first(obs, ctx.subjects)
+    name = term_name(obs)
+    if d["skipped"].size:
+        ctx.notes.append(f"{obs.key}: {d['skipped'].size} subject(s) with a single reading carry no ratio and are "
+                         "skipped")
+    if d["value"].size == 0:
+        ctx.notes.append(f"{obs.key}: no {what} ratios to fit (every subject has one reading)")
+        return
+    ctx.notes.extend(f"{obs.key}: {n}" for n in notes_when_fitted)
+    times, series = course_series(ctx, course)  # (time, subject)
+    i = d["subject"]
+    pred = at_times(series, times, i, d["time"]) / at_times(series, times, i, d["ref_time"])
+    pm.Deterministic(f"{name}__pred", pred)
+    add_reading(name, pred, d["value"], sd=d["sd"])
+    ctx.notes.append(f"{obs.key}: {note}")
+    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i, label=label))
 
 
 def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

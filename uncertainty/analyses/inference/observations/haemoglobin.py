@@ -20,14 +20,7 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.inference.model_builder import ObservedTerm
-from uncertainty.analyses.inference.observations.base import add_reading, term_name
-from uncertainty.analyses.inference.observations.course import (
-    at_times,
-    check_timed_rows,
-    course_series,
-    ratios_to_first,
-)
+from uncertainty.analyses.inference.observations.course import add_ratio_term, check_timed_rows, ratios_to_first
 from uncertainty.analyses.inference.problem import Observation, Problem
 
 NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitted to the whole-body time "
@@ -70,24 +63,8 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
 
 def add(ctx: Any, obs: Observation) -> None:
     """y ~ Normal(hb_ratio(t) / hb_ratio(t_ref) of the reading's subject, sd_y) over all later readings."""
-    import pymc as pm
-
-    d = design(obs, ctx.subjects)
-    name = term_name(obs)
-    if d["skipped"].size:
-        ctx.notes.append(f"{obs.key}: {d['skipped'].size} subject(s) with a single reading carry no ratio and are "
-                         "skipped")
-    if d["value"].size == 0:
-        ctx.notes.append(f"{obs.key}: no haemoglobin ratios to fit (every subject has one reading)")
-        return
-    times, series = course_series(ctx, "hb_ratio")  # (time, subject)
-    i = d["subject"]
-    pred = at_times(series, times, i, d["time"]) / at_times(series, times, i, d["ref_time"])
-    pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, d["value"], sd=d["sd"])
-    ctx.notes.append(f"{obs.key}: {NOTE}")
-    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i,
-                              label="haemoglobin relative to the first reading"))
+    add_ratio_term(ctx, obs, "hb_ratio", what="haemoglobin", label="haemoglobin relative to the first reading",
+                   note=NOTE)
 
 
 __all__ = ["NOTE", "add", "design", "validate"]

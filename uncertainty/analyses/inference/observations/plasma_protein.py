@@ -35,14 +35,7 @@ from typing import Any
 
 import numpy as np
 
-from uncertainty.analyses.inference.model_builder import ObservedTerm
-from uncertainty.analyses.inference.observations.base import add_reading, term_name
-from uncertainty.analyses.inference.observations.course import (
-    at_times,
-    check_timed_rows,
-    course_series,
-    ratios_to_first,
-)
+from uncertainty.analyses.inference.observations.course import add_ratio_term, check_timed_rows, ratios_to_first
 from uncertainty.analyses.inference.problem import Observation, Problem
 
 NOTE = ("plasma_protein: each subject's plasma protein readings relative to its earliest one, fitted to the "
@@ -103,29 +96,12 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
 
 def add(ctx: Any, obs: Observation) -> None:
     """y ~ Normal(plasma_protein_ratio(t) / plasma_protein_ratio(t_ref) of the reading's subject, sd_y)."""
-    import pymc as pm
-
-    d = design(obs, ctx.subjects)
-    name = term_name(obs)
     protein = PROTEINS[protein_of(obs)]
-    if d["skipped"].size:
-        ctx.notes.append(f"{obs.key}: {d['skipped'].size} subject(s) with a single reading carry no ratio and are "
-                         "skipped")
-    if d["value"].size == 0:
-        ctx.notes.append(f"{obs.key}: no plasma {protein} ratios to fit (every subject has one reading)")
-        return
-    if _protein_infused(ctx.problem):
-        ctx.notes.append(f"{obs.key}: the study infuses albumin, which the form counts at its oncotic total-protein "
-                         "equivalent (more grams than labelled), so the predicted rise of total protein is too large "
-                         "by that factor")
-    times, series = course_series(ctx, "plasma_protein_ratio")  # (time, subject)
-    i = d["subject"]
-    pred = at_times(series, times, i, d["time"]) / at_times(series, times, i, d["ref_time"])
-    pm.Deterministic(f"{name}__pred", pred)
-    add_reading(name, pred, d["value"], sd=d["sd"])
-    ctx.notes.append(f"{obs.key}: {NOTE}")
-    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i,
-                              label=f"plasma {protein} relative to the first reading"))
+    infused = ("the study infuses albumin, which the form counts at its oncotic total-protein equivalent (more "
+               "grams than labelled), so the predicted rise of total protein is too large by that factor",)
+    add_ratio_term(ctx, obs, "plasma_protein_ratio", what=f"plasma {protein}",
+                   label=f"plasma {protein} relative to the first reading", note=NOTE,
+                   notes_when_fitted=infused if _protein_infused(ctx.problem) else ())
 
 
 __all__ = ["NOTE", "PROTEINS", "add", "design", "protein_of", "validate"]
