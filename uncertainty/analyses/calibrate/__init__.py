@@ -141,8 +141,10 @@ class ReplicateTask:
     compiled model is made once per process on first use and never pickled)."""
 
     def __init__(self, study: Any, variables: dict[str, str], gate_vars: list[str], gate: Gate, *,
-                 sampler: str, chains: int, draws: int, tune: int, target_accept: float, L: int) -> None:
+                 sampler: str, chains: int, draws: int, tune: int, target_accept: float, L: int,
+                 cores: int | None = None) -> None:
         self.study, self.variables, self.gate_vars, self.gate = study, variables, gate_vars, gate
+        self.cores = cores  # sampler threads per refit (1 on cluster workers: the replicates are the parallel work)
         self.sampler, self.chains, self.draws, self.tune = sampler, chains, draws, tune
         self.target_accept, self.L = target_accept, L
         self._session: Session | None = None
@@ -180,7 +182,8 @@ class ReplicateTask:
             raise RuntimeError(f"simulated terms {sorted(rep.data)} differ from the model's {session.terms}")
         try:
             run = session.fit(data=rep.data, seed=seed, chains=self.chains, draws=self.draws,
-                              tune=self.tune, target_accept=self.target_accept, summarise_result=False)
+                              tune=self.tune, target_accept=self.target_accept, summarise_result=False,
+                              cores=self.cores)
         except SamplerError as exc:
             out["reason"] = f"sampler failed: {exc}"
             return out
@@ -305,7 +308,8 @@ def calibrate(study: Any, seed: int | None = None, *, replicates: int = REPLICAT
     draws : int
         L, thinned posterior draws each truth is ranked among.
     executor : optional
-        An :mod:`uncertainty.core.parallel` executor (in-process when None); one task per replicate.
+        An :mod:`uncertainty.core.parallel` executor (in-process when None); one task per replicate. On workers
+        each refit samples its chains in one thread (the replicates are the parallel work; the draws are the same).
     chains, posterior_draws, tune : int, optional
         Sampler settings of each refit (default: the study's ``[infer]`` section).
     gate : Gate or dict, optional
@@ -341,9 +345,10 @@ def calibrate(study: Any, seed: int | None = None, *, replicates: int = REPLICAT
     # the prior-predictive stream: its own child of the seed, apart from the task streams
     pp_seed = int(np.random.SeedSequence([seed, 5813]).generate_state(1)[0] % (2**31))
     reps = simulate_replicates(built, replicates, pp_seed)
-    task = ReplicateTask(study, variables, gate_vars, gate, sampler=opts["sampler"], chains=opts["chains"],
-                         draws=opts["draws"], tune=opts["tune"], target_accept=opts["target_accept"], L=draws)
     executor = executor or InProcess()
+    task = ReplicateTask(study, variables, gate_vars, gate, sampler=opts["sampler"], chains=opts["chains"],
+                         draws=opts["draws"], tune=opts["tune"], target_accept=opts["target_accept"], L=draws,
+                         cores=None if type(executor) is InProcess else 1)
     outcomes = executor.map(task, reps, seed=seed, label="calibration replicates")
     names = [n for n in variables if n in reps[0].truths]
     summary = summarise(outcomes, names, draws, bins)

@@ -513,7 +513,8 @@ class Session:
 
     def fit(self, *, observations: Sequence[Any] | None = None, data: dict[str, Any] | None = None,
             seed: int | None = None, chains: int = 4, draws: int = 1000, tune: int = 1000,
-            target_accept: float = DEFAULT_TARGET_ACCEPT, summarise_result: bool = True) -> Any:
+            target_accept: float = DEFAULT_TARGET_ACCEPT, summarise_result: bool = True,
+            cores: int | None = None) -> Any:
         """Sample with new readings; returns an InferenceResult (or the raw SampleRun). The sampler
         settings default to those of ``infer`` (target_accept as the ``[infer]`` section's default)."""
         if observations is not None:
@@ -522,7 +523,7 @@ class Session:
             data = {(k if k.endswith("__data") else f"{k}__data"): np.asarray(v, dtype=float)
                     for k, v in data.items()}
         run = sample(self.built.model, sampler=self.sampler, chains=chains, draws=draws, tune=tune,
-                     seed=seed, compiled=self.compiled, data=data, target_accept=target_accept)
+                     seed=seed, compiled=self.compiled, data=data, target_accept=target_accept, cores=cores)
         if not summarise_result:
             return run
         return summarise_run(self.built, run, self.gate, seed=seed)

@@ -196,12 +196,16 @@ def _jittered_start(model: Any, start: dict[str, Any]) -> Any:
 def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int = 1000,
            tune: int = 1000, seed: int | None = None, compiled: Any = None,
            data: dict[str, Any] | None = None, target_accept: float | None = None,
-           low_rank: bool = False, start: dict[str, Any] | None = None, progress: bool = False) -> SampleRun:
+           low_rank: bool = False, start: dict[str, Any] | None = None, progress: bool = False,
+           cores: int | None = None) -> SampleRun:
     """Draw ``chains`` x ``draws`` posterior samples after ``tune`` warm-up steps, seeded.
 
     ``progress`` shows the sampler's own live table on the terminal (stderr) while it samples: per
     chain the draws, the divergences so far, the step size and the time left (nutpie's terminal
     display; PyMC's rich progress bars); the caller decides (e.g. only when stderr is a terminal).
+
+    ``cores`` caps the threads nutpie samples the chains in (one on a cluster worker that has one core, so
+    that workers do not oversubscribe the machine); the draws do not depend on it (each chain has its own seed).
 
     ``compiled`` reuses a nutpie compiled model (``data`` then replaces its ``pm.Data``
     values, e.g. simulated readings in a trial loop). ``start`` (from :func:`posterior_mode`)
@@ -223,6 +227,8 @@ def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int =
         kwargs: dict[str, Any] = {}
         if target_accept is not None:
             kwargs["target_accept"] = target_accept
+        if cores is not None:  # threads for the chains (nutpie's default: every core of the machine)
+            kwargs["cores"] = int(cores)
         if low_rank:  # mass matrix that adapts to correlated directions (nutpie option)
             kwargs["low_rank_modified_mass_matrix"] = True
         t0 = time.perf_counter()
