@@ -22,6 +22,13 @@ deterministics left the sampler 95 s wall (infer 78 s), 773 MB peak, gate passed
 runs (infer 67 s and 104 s), 733 MB peak, gate passed: wall time here moves by tens of seconds with the other
 users' load, so compare CPU (printed per run) and ``benchmark_compile.py``.
 
+Measured 2026-12-04 (2-core machine, load about 0.6 at the start, after the deterministics left the sampler,
+main a55f492): 40 subjects 43.5 s wall (infer 35.8 s, 41 s CPU), 742 MB, gate passed; 200 subjects 55.8 s,
+1,054 MB, gate FAILED (Pa__spread bulk ESS 305, tail ESS 160; Pv__spread R-hat 1.010, tail ESS 336); 1,000
+subjects 146.7 s, 2,304 MB, gate FAILED (R-hat up to 1.14: Kf, r, sigma and five spreads). Time x1.28 and x3.4,
+memory x1.42 and x3.1 for x5 and x25 subjects: both grow slower than linearly, but at the default settings the
+chains do not mix for the between-subject spreads of larger cohorts.
+
 Run: python benchmarks/benchmark_cohort.py [--sizes 40 200 1000] [--build-only] [--cap SECONDS]
 (``--cap``: stop a size's child after this many seconds; its figures are then lower bounds.)
 """
