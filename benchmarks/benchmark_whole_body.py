@@ -43,7 +43,7 @@ def main() -> None:
     body, beds, Cp0 = timeline_parameters(v, BODY_KG, bed_ratios(study.tissue))
     plan = study.timeline
     t0, c0 = time.perf_counter(), time.process_time()
-    out = wb.simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every, max_step=args.step)
+    out = wb.simulate_blocks(body, beds, Cp0, plan.doses, plan.end, plan.report_every, max_step=args.step)
     t_tl, c_tl = time.perf_counter() - t0, time.process_time() - c0
     dt, n_steps, _ = wb.time_grid(plan.end, plan.report_every, args.step)
     t0 = time.perf_counter()

@@ -138,6 +138,20 @@ def test_simulate_matches_the_stored_reference() -> None:
         np.testing.assert_allclose(got, np.array(want), rtol=1e-10, atol=1e-10, equal_nan=True, err_msg=name)
 
 
+def test_blocks_on_threads_give_the_same_numbers(monkeypatch: pytest.MonkeyPatch) -> None:
+    """simulate_blocks (blocks of 4 draws here, the last one short, on 2 threads) equals one simulate call."""
+    body, beds, Cp0 = _params(10, {"Kf": np.linspace(0.5, 2.0, 10), "L": np.linspace(1.5, 0.7, 10)})
+    doses = _dose("crystalloid", 1500.0, 30.0) + _dose("bleed", 400.0, 10.0, start=60.0)
+    whole = wb.simulate(body, beds, Cp0, doses, 120.0, 30.0, max_step=1.0)
+    monkeypatch.setattr(wb, "BLOCK_DRAWS", 4)
+    blocks = wb.simulate_blocks(body, beds, Cp0, doses, 120.0, 30.0, max_step=1.0, threads=2)
+    assert blocks["times_min"] == whole["times_min"]
+    for name in wb.TIMELINE_UNITS:
+        got = np.array(blocks[name])
+        assert got.shape == (len(whole["times_min"]), 10), name
+        np.testing.assert_array_equal(got, np.array([np.broadcast_to(x, (10,)) for x in whole[name]]), err_msg=name)
+
+
 def test_rest_stays_at_rest() -> None:
     body, beds, Cp0 = _params()
     sim = wb.simulate(body, beds, Cp0, [], 120.0, 30.0, max_step=1.0)

@@ -18,7 +18,7 @@ from uncertainty.analyses.sampling import draw
 from uncertainty.core import units
 from uncertainty.forms.evaluate import input_values
 from uncertainty.forms.whole_body import timeline_parameters
-from uncertainty.physiology.whole_body import TIMELINE_UNITS, simulate
+from uncertainty.physiology.whole_body import TIMELINE_UNITS, simulate_blocks
 from uncertainty.priors import prior_medians
 from uncertainty.study.endpoints import TimePoint
 from uncertainty.study.schema import OBS_SYMBOL
@@ -142,7 +142,7 @@ def run_layer(study: Any, layer: str, n: int, seed: Any) -> dict[str, Any]:
     values = draw(study, n, method="qmc", seed=seed, layer=layer)
     v = input_values(study, values)
     body, beds, Cp0 = timeline_parameters(v, plan.body_mass_kg, bed_ratios(study.tissue))
-    return simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every)
+    return simulate_blocks(body, beds, Cp0, plan.doses, plan.end, plan.report_every)
 
 
 class _Layer:
@@ -162,7 +162,7 @@ def _courses(study: Any, values: dict[str, Any], end: float, every: float) -> di
     plan = study.timeline
     v = input_values(study, values)
     body, beds, Cp0 = timeline_parameters(v, plan.body_mass_kg, bed_ratios(study.tissue))
-    return simulate(body, beds, Cp0, plan.doses, end, every)
+    return simulate_blocks(body, beds, Cp0, plan.doses, end, every)
 
 
 def _draw_count(values: dict[str, Any]) -> int:
