@@ -67,6 +67,8 @@ BY_UNIT: dict[str, Plausible] = {
     "cm": Plausible(0.0, 300.0, _ABSURD + " (heights below the heart)"),
     "min": Plausible(0.0, 1e7, _ABSURD + " (times: 1e7 min is about 19 years)"),
     "1/min": Plausible(0.0, 1e3, _ABSURD + " (rate constants)"),
+    "%/h": Plausible(0.0, 1e4, _ABSURD + " (fractional escape rates: albumin escape about 5 %/h, Fleck A et al. "
+                                         "1985 Lancet 1:781)"),
 }
 
 #: Quantities narrower than their dimension.

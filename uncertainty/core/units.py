@@ -60,6 +60,8 @@ CANONICAL: dict[str, str] = {
     "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
     "M_lung": "g/kg", "EVLWI": "mL/kg",
     "k_clear": "1/min", "k_AFC": "1/min",
+    # whole-body albumin transcapillary escape rate: % of the plasma albumin mass leaving per hour
+    "TER": "%/h",
     "body_weight": "kg", "fluid_balance": "L", "organ_share": "1", "urine_volume": "mL",
 }
 

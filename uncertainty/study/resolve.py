@@ -1070,6 +1070,11 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
         except UnitError:
             sym = "JL"  # a clearance in flow units (mL/min per basis)
     update: dict[str, Any] = {}
+    # an instrument's readings are in the unit of what it reads (TER in %/h for the escape rate); a difference
+    # (the implanted osmometer's pi_i - Pi) is checked as a shift of its quantity
+    difference = False
+    if inst is not None and ob.kind == "measurement":
+        sym, difference = inst.reading_symbol, inst.minus is not None
     if ob.kind != "volume_time_course" and sym is not None:
         update["declared_unit"] = ob.unit
         if ob.value is not None:
@@ -1078,7 +1083,7 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
         if ob.sd is not None:
             update["sd"] = ctx.convert(sym, ob.sd, ob.unit, f"{key}.unit" if ob.unit is not None else f"{key}.sd",
                                        f"{key}.sd")
-        check_plausible(sym, update.get("value"), ctx.file, f"{key}.value", ob.value)
+        check_plausible(sym, update.get("value"), ctx.file, f"{key}.value", ob.value, spread=difference)
         check_plausible(sym, update.get("sd"), ctx.file, f"{key}.sd", ob.sd, spread=True)
         if ob.sd is None and ob.cv is None and inst is not None:
             update["sd"], update["cv"] = inst.sd, inst.cv
@@ -1099,7 +1104,7 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
     new = ob.model_copy(update=update)
     if ob.file is not None:
         path, data = read_csv(ob, ctx.base_dir, ctx.file, key)
-        _check_data_magnitudes(ob, sym, data, path, key, ctx)
+        _check_data_magnitudes(ob, sym, data, path, key, ctx, difference=difference)
         if inst is not None and inst.cv is not None and ob.sd is None and ob.cv is None:
             role = "volume" if ob.kind == "volume_time_course" else "value"
             sds = data.get("sd") or [math.nan] * len(data.get(role, []))
@@ -1114,14 +1119,15 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
 
 
 def _check_data_magnitudes(ob: Observation, sym: str | None, data: Mapping[str, list], path: Path, key: str,
-                           ctx: SectionContext) -> None:
-    """Refuse a data-file reading (or sd) outside the plausible range, naming its file and line only."""
+                           ctx: SectionContext, difference: bool = False) -> None:
+    """Refuse a data-file reading (or sd) outside the plausible range, naming its file and line only
+    (``difference``: the readings are a difference of two quantities, checked as a shift of ``sym``)."""
     if sym is None and ob.kind == "volume_time_course":
         sym = "volume"
     if sym is None:
         return
     role = "volume" if ob.kind == "volume_time_course" else "value"
-    for col, spread in ((role, False), ("sd", True)):
+    for col, spread in ((role, difference), ("sd", True)):
         values = data.get(col) or []
         for x, line in zip(values, data.get("line", []), strict=False):
             if not math.isfinite(x):
@@ -1171,11 +1177,12 @@ def resolve_rank(rank: RankSection, kept: Kept, ctx: SectionContext) -> tuple[Ra
         if c.instrument:
             inst, kept = use_instrument(c.instrument, f"{key}.instrument", c.parameter, kept, ctx)
         update: dict[str, Any] = {}
+        read_sym = inst.reading_symbol if inst is not None else c.parameter  # the unit of what it reads
         if c.sd is not None:
-            update["sd"] = ctx.convert(c.parameter, c.sd, c.unit, f"{key}.unit" if c.unit is not None
+            update["sd"] = ctx.convert(read_sym, c.sd, c.unit, f"{key}.unit" if c.unit is not None
                                        else f"{key}.sd", f"{key}.sd")
-            update["unit"] = units.CANONICAL[c.parameter]
-            check_plausible(c.parameter, update["sd"], ctx.file, f"{key}.sd", c.sd, spread=True)
+            update["unit"] = units.CANONICAL[read_sym]
+            check_plausible(read_sym, update["sd"], ctx.file, f"{key}.sd", c.sd, spread=True)
         elif c.cv is None and inst is not None:
             update["sd"], update["cv"] = inst.sd, inst.cv
         candidates.append(c.model_copy(update=update))

@@ -67,8 +67,11 @@ def _file(study: Any) -> str | None:
 class Reading:
     """A candidate measurement: ``parameter`` read with noise ``sd`` (additive) or ``cv`` (lognormal).
 
-    ``bias``: a scipy-frozen-like object with ``ppf`` (canonical unit, additive) or None;
-    ``n``: readings averaged (noise shrinks by sqrt(n), the bias does not); ``cost`` relative.
+    ``bias``: a scipy-frozen-like object with ``ppf`` (canonical unit of the reading, additive) or None;
+    ``n``: readings averaged (noise shrinks by sqrt(n), the bias does not); ``cost`` relative;
+    ``instrument``: the :class:`uncertainty.priors.Instrument` taken, whose reading model
+    (:meth:`~uncertainty.priors.Instrument.true_reading`: a difference such as pi_i - Pi, or a scaled
+    reading such as the escape rate TER from PS) gives the true value read; None: ``parameter`` itself.
     """
 
     name: str
@@ -78,6 +81,29 @@ class Reading:
     bias: Any = None
     cost: float = 1.0
     n: int = 1
+    instrument: Any = None
+
+    @property
+    def quantities(self) -> tuple[str, ...]:
+        """The sampled quantities the reading depends on (``parameter``, and ``minus`` for a difference)."""
+        return tuple(self.instrument.quantities) if self.instrument is not None else (self.parameter,)
+
+    def truth(self, values: dict[str, np.ndarray]) -> np.ndarray:
+        """The noise- and bias-free reading of each draw (canonical unit of the reading).
+
+        Parameters
+        ----------
+        values : dict of str to ndarray
+            Draws of the quantities in :attr:`quantities` (canonical units).
+
+        Returns
+        -------
+        ndarray
+            ``values[parameter]``, or what the instrument reads from the draws.
+        """
+        if self.instrument is None:
+            return np.asarray(values[self.parameter], dtype=float)
+        return np.asarray(self.instrument.true_reading(values.__getitem__), dtype=float)
 
     def simulate(self, theta: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """One simulated (averaged) reading per value of ``theta`` (canonical unit)."""
@@ -382,7 +408,7 @@ class _CandidateTask:
     def __call__(self, c: Reading, ss: np.random.SeedSequence) -> dict[str, Any]:
         rng = np.random.default_rng(ss)
         y = self.y
-        theta = self.values[c.parameter]
+        theta = c.truth(self.values)
         read = simulate_batches(c, theta, self.batches, rng, ss)
         m = choose_method(c, theta) if self.method == "auto" else self.method
         fig = None
@@ -482,10 +508,11 @@ def rank_draws(values: dict[str, np.ndarray], y: np.ndarray, candidates: list[Re
     lo, hi = np.quantile(y, [0.025, 0.975])
     prior_width = float(hi - lo)
     for c in candidates:
-        if c.parameter not in values:
-            raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
-                             value=c.parameter)
-    read_values = {c.parameter: np.asarray(values[c.parameter], dtype=float)[ok] for c in candidates}
+        for q in c.quantities:
+            if q not in values:
+                raise InputError("candidate reads a quantity that the study does not sample", key="rank.candidates",
+                                 value=q)
+    read_values = {q: np.asarray(values[q], dtype=float)[ok] for c in candidates for q in c.quantities}
     kept = None
     if batches is not None and len(batches) > 1:  # finite draws in each batch
         kept = tuple(int(np.sum(part)) for part in np.split(ok, np.cumsum(batches)[:-1]))
@@ -604,8 +631,25 @@ def candidates_of(study: Any) -> list[Reading]:
     """The study's ``[rank]`` candidates, or the instruments that apply to its tissue.
 
     Instruments (priors/instruments.toml) apply when their ``tissues`` include the study's tissue
-    (or list none) and they read an uncertain input of the study. Bias priors come from the
+    (or list none) and they read uncertain inputs of the study (both quantities of a difference). Bias
+    priors and the reading model (:meth:`uncertainty.priors.Instrument.true_reading`) come from the
     instrument a candidate names.
+
+    Parameters
+    ----------
+    study : Study
+        The study (its ``[rank]`` section, tissue, sampled names and derived quantities).
+
+    Returns
+    -------
+    list of Reading
+        The candidates, noise in the canonical unit of each reading.
+
+    Raises
+    ------
+    InputError
+        No candidate, a candidate reading a quantity the study does not sample, or a budget below the
+        cheapest candidate.
     """
 
     file = str(getattr(study, "path", None) or "") or None
@@ -619,17 +663,17 @@ def candidates_of(study: Any) -> list[Reading]:
             inst = instruments.get(c.instrument) if getattr(c, "instrument", None) else None
             bias = inst.bias.frozen() if inst is not None and inst.bias is not None else None
             out.append(Reading(c.name, c.parameter, sd=c.sd, cv=c.cv if c.sd is None else None, bias=bias,
-                               cost=float(c.cost), n=int(getattr(c, "n", 1) or 1)))
+                               cost=float(c.cost), n=int(getattr(c, "n", 1) or 1), instrument=inst))
     else:
         tissue = getattr(study, "tissue", None)
         for key, inst in instruments.items():
             if inst.tissues and tissue not in inst.tissues:
                 continue
-            if inst.measures not in names and inst.measures not in (getattr(study, "derived", None) or {}):
+            if any(q not in names and q not in (getattr(study, "derived", None) or {}) for q in inst.quantities):
                 continue
             bias = inst.bias.frozen() if inst.bias is not None else None
             out.append(Reading(key, inst.measures, sd=inst.sd, cv=inst.cv if inst.sd is None else None,
-                               bias=bias, cost=float(inst.cost)))
+                               bias=bias, cost=float(inst.cost), instrument=inst))
     if not out:
         raise InputError("no candidate measurements: give [rank] candidates, or no instrument applies to the tissue",
                          file=file, key="rank.candidates", value=getattr(study, "tissue", None))
@@ -638,6 +682,11 @@ def candidates_of(study: Any) -> list[Reading]:
         if c.parameter not in readable:
             raise InputError("a candidate must read an uncertain or derived quantity of the study", file=file,
                              key=f"rank.candidates[{i}].parameter", value=c.parameter)
+        for q in c.quantities[1:]:
+            if q not in readable:
+                raise InputError(f"instrument {c.instrument.name} reads {c.parameter} - {q}, so {q} must be an "
+                                 "uncertain or derived quantity of the study", file=file,
+                                 key=f"rank.candidates[{i}].instrument", value=c.instrument.name)
     budget = getattr(section, "budget", None)
     if budget is not None:
         cheapest = min(c.cost for c in out)

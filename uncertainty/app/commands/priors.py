@@ -9,7 +9,15 @@ import numpy as np
 
 from uncertainty.analyses.sampling import draw
 from uncertainty.app.commands.common import emit_json, handle_errors
-from uncertainty.priors import list_prior_sets, load_conditions, load_instruments, load_prior_set, prior_rows
+from uncertainty.core import units
+from uncertainty.priors import (
+    list_prior_sets,
+    load_conditions,
+    load_instruments,
+    load_prior_set,
+    prior_medians,
+    prior_rows,
+)
 from uncertainty.study import Study
 
 #: Draws (scrambled Sobol') and seed for the ranges derived quantities imply; fixed so the table repeats.
@@ -127,7 +135,8 @@ def list_cmd(as_json: bool) -> None:
                             "models": list(s.models)} for s in sets],
             "conditions": [{"name": c.name, "label": c.label, "applies_to": list(c.applies_to or [])}
                            for c in conditions.values()],
-            "instruments": [{"name": i.name, "label": i.label, "measures": i.measures}
+            "instruments": [{"name": i.name, "label": i.label, "measures": i.measures, "minus": i.minus,
+                             "reads": i.describe(), "unit": i.unit}
                             for i in instruments.values()],
         })
         return
@@ -143,7 +152,7 @@ def list_cmd(as_json: bool) -> None:
     if instruments:
         click.echo("instruments:")
         for i in instruments.values():
-            click.echo(f"  {i.name:<36}{i.label} ({i.measures})")
+            click.echo(f"  {i.name:<36}{i.label}; reads {i.describe()}")
 
 
 @command.command("show")
@@ -174,3 +183,46 @@ def show_cmd(tissue: str, as_json: bool) -> None:
         click.echo(f"correlation {a}-{b}: {rho:g}  (origin: {origin})")
     for (a, b, rho), origin in zip(pset.between_correlations, pset.between_correlation_origins, strict=False):
         click.echo(f"between-subject correlation {a}-{b}: {rho:g}  (origin: {origin})")
+    lines = instrument_lines(tissue)
+    if lines:
+        click.echo(f"instruments for {tissue} (what each reads, noise and bias in the unit of the reading):")
+        for line in lines:
+            click.echo(line)
+
+
+def instrument_lines(tissue: str) -> list[str]:
+    """Text lines describing the instruments listed for ``tissue`` (or for every tissue).
+
+    Parameters
+    ----------
+    tissue : str
+        A prior set's name.
+
+    Returns
+    -------
+    list of str
+        Per instrument: its name, what it reads (a difference such as pi_i - Pi, or a scaled reading with the
+        scale's value and origin, in the canonical unit of the reading), its noise (sd in that unit, or cv,
+        dimensionless) and its bias prior (mean and sd in that unit).
+    """
+    out = []
+    medians = prior_medians(tissue)
+    for inst in load_instruments().values():
+        if inst.tissues is not None and tissue not in inst.tissues:
+            continue
+        noise = f"sd {inst.sd:g} {inst.unit}" if inst.sd is not None else f"cv {inst.cv:g}"
+        bias = ""
+        if inst.bias is not None:
+            frozen = inst.bias.frozen()
+            bias = f", bias {float(frozen.mean()):+.3g} (sd {float(frozen.std()):.3g}) {inst.unit}"
+        out.append(f"  {inst.name:<36}reads {inst.describe()}; {noise}{bias}")
+        if inst.reads is not None:
+            at = ""
+            if all(q in medians for q in inst.quantities):
+                at = f"; at this set's median {inst.measures} it reads {inst.true_reading(medians.__getitem__):.3g} "
+                at += inst.unit
+            out.append(f"    scale {inst.scale:g} {inst.unit} per {units.CANONICAL[inst.measures]} of "
+                       f"{inst.measures}{at} (origin: {inst.scale_origin})")
+        if inst.minus is not None:
+            out.append(f"    a study using it needs {inst.minus} uncertain or solved by its form")
+    return out

@@ -3,7 +3,10 @@
 reading ~ Normal(q + bias, sd) for an sd error, LogNormal(log(q + bias), sqrt(log(1 + cv^2))) for a
 cv error. With ``instrument = "<name>"`` the noise (sd or cv) and the bias prior come from
 priors/instruments.toml unless the observation states its own sd or cv; one bias variable is
-shared by every reading taken with the same instrument (a systematic method error).
+shared by every reading taken with the same instrument (a systematic method error). q is then what
+the instrument reads (:meth:`uncertainty.priors.Instrument.true_reading`): scale x (measures - minus),
+e.g. pi_i - Pi for the implanted colloid osmometer, or the whole-body escape rate TER (%/h) from PS;
+the readings, their sd and the bias are in the unit of that reading.
 """
 
 from __future__ import annotations
@@ -77,6 +80,12 @@ def validate(obs: Observation, problem: Problem) -> None:
         if measures and measures != name:
             raise obs.error(f"instrument {obs.instrument!r} measures {measures}, not {name}",
                             "instrument", obs.instrument)
+        minus = getattr(inst, "minus", None)
+        if minus is not None and (minus not in problem.priors and minus not in output_names(problem)):
+            why = "it is fixed in this study: give it a prior in [parameters]" if minus in problem.fixed else \
+                "the study has no such quantity"
+            raise obs.error(f"instrument {obs.instrument!r} reads {name} - {minus}, so {minus} must be an uncertain "
+                            f"quantity or an output of the model ({why})", "instrument", obs.instrument)
     sd, cv = _noise(obs, problem)
     if sd is None and cv is None:
         raise obs.error("give sd (normal error), cv (lognormal error) or an instrument", "sd", None)
@@ -90,11 +99,13 @@ def add(ctx: Any, obs: Observation) -> None:
     """Add the reading's likelihood for its subject (or the study's individual)."""
     import pymc as pm
 
-
     i = ctx.subject_index(obs)
     pred = ctx.value(obs.parameter)[i]
+    label = f"{obs.parameter} reading"
     if obs.instrument is not None:
         inst = _instrument(obs)
+        pred = inst.true_reading(lambda q: ctx.value(q)[i])
+        label = f"{obs.parameter} reading ({inst.describe()})" if inst.minus or inst.reads else label
         bias_prior = getattr(inst, "bias", None)
         if bias_prior is not None:
             key = obs.instrument
@@ -109,4 +120,4 @@ def add(ctx: Any, obs: Observation) -> None:
     pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.values, sd=sd, cv=cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
-                              subjects=term_subjects(i), label=f"{obs.parameter} reading"))
+                              subjects=term_subjects(i), label=label))
