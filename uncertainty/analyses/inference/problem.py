@@ -21,6 +21,7 @@ import numpy as np
 from uncertainty.core import units
 from uncertainty.core.errors import InputError
 from uncertainty.forms import evaluate as model_mod
+from uncertainty.priors import load_instruments
 
 #: fields an observation record may carry (study files spell them the same way)
 _FIELDS = ("kind", "parameter", "value", "sd", "cv", "unit", "instrument", "subject", "group",
@@ -262,6 +263,9 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
             obs.extra["data"] = data
         unit = raw.get("declared_unit") if canonical else obs.unit
         symbol = _symbol_for(obs.kind, obs.parameter)
+        if obs.kind == "measurement" and obs.instrument is not None:
+            inst = load_instruments().get(obs.instrument)
+            symbol = inst.reading_symbol if inst is not None else symbol  # TER (%/h) for the escape rate
         if obs.kind == "clearance_rate" and unit and not _converts("k_clear", unit):
             symbol = "JL"  # a clearance given as a flow (mL/min per basis)
             obs.extra["as_flow"] = True
