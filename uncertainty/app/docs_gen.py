@@ -175,7 +175,9 @@ MEANINGS: dict[str, str] = {
                        "blank or absent)",
     "observations.cv": "lognormal measurement error, as a fraction",
     "observations.unit": "unit of `value` and `sd` (any unit pint converts to the quantity's canonical unit)",
-    "observations.instrument": "optional: noise (and bias prior) from priors/instruments.toml",
+    "observations.instrument": "optional: noise, bias prior and what it reads from priors/instruments.toml; "
+                               "value, sd and unit are then those of the reading (the implanted osmometer reads "
+                               "pi_i - Pi in mmHg, the albumin escape rate TER in %/h)",
     "observations.file": "CSV data file relative to the study file, long format, one reading a row: subject, "
                          "value (volume for volume_time_course), optional group, optional time (time_s, "
                          "time_min, time_h or time_day; required for volume_time_course), optional sd; other "
@@ -229,7 +231,8 @@ MEANINGS: dict[str, str] = {
     "rank.candidates.sd": "measurement noise, in `unit` (default the quantity's canonical unit)",
     "rank.candidates.cv": "measurement noise as a fraction (lognormal)",
     "rank.candidates.unit": "unit of `sd`",
-    "rank.candidates.instrument": "noise from priors/instruments.toml",
+    "rank.candidates.instrument": "noise, bias and what it reads from priors/instruments.toml (sd in the "
+                                  "reading's unit)",
     "rank.candidates.cost": "relative cost (any consistent unit), used by `per_cost` and `budget`",
     "rank.candidates.n": "number of repeated readings averaged",
     "design.design": "parallel (two arms), paired (each subject before and after) or crossover (AB/BA two-period "
