@@ -171,3 +171,10 @@ def test_check_refuses_an_osmometer_reading_without_an_uncertain_pi() -> None:
     assert result.exit_code == 2
     err = result.stderr.strip()
     assert len(err.splitlines()) == 1 and "observations[0].instrument" in err and "pi_i - Pi" in err
+
+
+def test_a_reading_named_for_the_other_quantity_is_still_refused() -> None:
+    with pytest.raises(StudyError) as info:
+        _study({"observations": [{"kind": "measurement", "parameter": "Pi", "value": 10.8,
+                                  "instrument": "implanted_osmometer"}]})
+    assert info.value.key == "observations[0].instrument" and "measures pi_i, not Pi" in info.value.reason
