@@ -133,3 +133,29 @@ def test_inference_subject_scores_take_the_declared_correlation():
     # without the pairs the scores stay the plain independent per-quantity variables
     prob.between_correlations = []
     assert "subject_scores_iid" not in build_model(prob).model.named_vars
+
+
+def test_design_trials_draw_subjects_with_the_declared_correlation(monkeypatch):
+    """Simulated trial subjects carry the between-subject pair: with the endpoint Pc - Pi, the spread among
+    subjects of one trial (typical subject fixed, no reading error) is s1^2 + s2^2 - 2 rho s1 s2 (variance of a
+    difference; common practice) = 9 + 4 - 7.2 = 5.8 mmHg^2 with the invented spreads above."""
+    import importlib
+    from types import SimpleNamespace
+
+    from uncertainty.priors import parse_prior
+
+    dz = importlib.import_module("uncertainty.analyses.design")
+    pri = {"Pc": parse_prior("Pc", PC), "Pi": parse_prior("Pi", PI)}
+    section = {"design": "parallel", "endpoint": "Pc", "effect": {"parameter": "Pc", "shift": 1.0},
+               "n_range": [8, 60], "n_points": 2, "trials": 200}
+    study = SimpleNamespace(path="trial.toml", seed=3, priors=pri, names=list(pri), correlation=None,
+                            design=section, between_correlations=[("Pc", "Pi", RHO_B)])
+    spec = dz.parse_design(study)
+    monkeypatch.setattr(dz, "_endpoint", lambda st, sp, values, shape: values["Pc"] - values["Pi"])
+    n = 20000
+    data = dz.simulate_trials(study, spec, n, 1, np.random.default_rng(5), typical={"Pc": 20.0, "Pi": -1.0})
+    var = float(np.var(data["y0"]))
+    assert var == pytest.approx(5.8, rel=4 * np.sqrt(2 / n))
+    study.between_correlations = []
+    data = dz.simulate_trials(study, spec, n, 1, np.random.default_rng(5), typical={"Pc": 20.0, "Pi": -1.0})
+    assert float(np.var(data["y0"])) == pytest.approx(13.0, rel=4 * np.sqrt(2 / n))

@@ -137,6 +137,37 @@ def correlate_scores(study: Any, z: np.ndarray, layer: str = "individual") -> np
     return z
 
 
+def correlate_between(study: Any, scores: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Independent between-subject normal scores (name -> array, all one shape) -> correlated as the study's
+    declared between-subject pairs say (:func:`between_correlation_of`, restricted to the names given; the
+    scores of other names and a study without pairs come back unchanged).
+
+    Parameters
+    ----------
+    study : Study
+        With ``between_correlations`` (pairs of quantities and their normal-score correlation).
+    scores : dict
+        Quantity -> standard-normal scores (dimensionless), every array the same shape.
+
+    Returns
+    -------
+    dict
+        The same names, scores z = L u over the correlated names (L the Cholesky factor of their correlation).
+    """
+    corr = between_correlation_of(study)
+    if corr is None:
+        return scores
+    names = between_subject_names(study)
+    keep = [i for i, n in enumerate(names) if n in scores]
+    sub = corr[np.ix_(keep, keep)]
+    if is_independent(sub):
+        return scores
+    picked = [names[i] for i in keep]
+    u = np.stack([scores[n] for n in picked], axis=-1)
+    z = u @ cholesky(sub).T
+    return {**scores, **{n: z[..., j] for j, n in enumerate(picked)}}
+
+
 def is_independent(corr: np.ndarray, tol: float = 1e-12) -> bool:
     """True when a correlation matrix is the identity (within tol)."""
     return bool(np.all(np.abs(corr - np.eye(len(corr))) <= tol))

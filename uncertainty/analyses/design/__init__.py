@@ -691,8 +691,8 @@ def simulate_trials(study: Any, spec: DesignSpec, n: int, trials: int, rng: np.r
     groups = 1 if spec.design == "paired" else 2
     shape = (trials, groups * n)
 
-    # subjects: typical + between-subject spread
-    subj = {}
+    # subjects: typical + between-subject spread (scores correlated as the study's between-subject pairs say)
+    subj, spread = {}, {}
     for sym, prior in study.priors.items():
         t = np.asarray(typ[sym], dtype=float)[:, None] if sym in typ else None
         if t is None:
@@ -700,9 +700,12 @@ def simulate_trials(study: Any, spec: DesignSpec, n: int, trials: int, rng: np.r
         sp = spec.between.get(sym)
         pr = _spread_prior(study, sym, sp) if sp is not None else prior
         if pr.between_subject:
-            subj[sym] = np.asarray(pr.individual(t, rng.standard_normal(shape)))
+            spread[sym] = (pr, t, rng.standard_normal(shape))
         else:
             subj[sym] = np.broadcast_to(t, shape)
+    scores = sampling.correlate_between(study, {sym: z for sym, (_, _, z) in spread.items()})
+    for sym, (pr, t, _) in spread.items():
+        subj[sym] = np.asarray(pr.individual(t, scores[sym]))
 
     def occasion(treated: np.ndarray) -> np.ndarray:
         vals = dict(subj)
