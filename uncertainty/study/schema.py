@@ -46,6 +46,14 @@ Number = float  # strict mode accepts int for float
 MAX_ARM = 100_000
 
 
+def max_at_least_samples(cls: type, v: int | None, info: ValidationInfo) -> int | None:
+    """Field validator of ``max_samples`` (propagate, rank): not below ``samples`` (draws)."""
+    samples = info.data.get("samples")
+    if v is not None and isinstance(samples, int) and v < samples:
+        raise ValueError(f"max_samples is below samples ({samples})")
+    return v
+
+
 class StudySection(BaseModel):
     """``[study]``: what the study is about. ``tissue`` is required; ``seed`` defaults to 1."""
 
@@ -130,13 +138,7 @@ class PropagateSection(BaseModel):
         "the value) per layer with its Monte Carlo error and each input's first-order share of the indicator's "
         "variance"))
 
-    @field_validator("max_samples")
-    @classmethod
-    def _max_at_least_samples(cls, v: int | None, info: ValidationInfo) -> int | None:
-        samples = info.data.get("samples")
-        if v is not None and isinstance(samples, int) and v < samples:
-            raise ValueError(f"max_samples is below samples ({samples})")
-        return v
+    _max_samples = field_validator("max_samples")(max_at_least_samples)
 
 
 class SensitivitySection(BaseModel):
@@ -388,13 +390,7 @@ class RankSection(BaseModel):
     max_samples: int | None = Field(default=None, gt=0, le=2**22, description=(
         "with tol: the most draws; reaching it first exits 3"))
 
-    @field_validator("max_samples")
-    @classmethod
-    def _max_at_least_samples(cls, v: int | None, info: ValidationInfo) -> int | None:
-        samples = info.data.get("samples")
-        if v is not None and isinstance(samples, int) and v < samples:
-            raise ValueError(f"max_samples is below samples ({samples})")
-        return v
+    _max_samples = field_validator("max_samples")(max_at_least_samples)
 
     @field_validator("candidates")
     @classmethod
