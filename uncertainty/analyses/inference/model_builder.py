@@ -551,6 +551,19 @@ def _pinned_readings(problem: Problem) -> list[tuple[Observation, str, bool]]:
     return out
 
 
+def _typical_pins(problem: Problem) -> list[tuple[Observation, str, bool]]:
+    """(observation, output, log scale) of every observation whose kind pins an output of the typical subject
+    only (a ``typical_output(obs, problem)`` hook: a cohort's weights fix the typical Jv over share, not one
+    subject's Jv); :func:`_typical_scores` reflects the typical scores along it as it does for lymph readings."""
+    out = []
+    for obs in problem.observations:
+        hook = getattr(kind_module(obs), "typical_output", None)
+        pinned = hook(obs, problem) if hook is not None else None
+        if pinned is not None:
+            out.append((obs, *pinned))
+    return out
+
+
 def _repeat_note(obs: Observation) -> list[str]:
     """A note where a data file holds several readings of one subject (fitted as repeats of one value)."""
     if obs.rows is None or len(set(obs.rows.subject)) == len(obs.rows.subject):
@@ -681,7 +694,7 @@ def _typical_scores(problem: Problem, names: list[str]) -> dict[str, Any]:
     is pinned or there are fewer than two scores."""
     import pymc as pm
 
-    pinned = _pinned_readings(problem)
+    pinned = _pinned_readings(problem) + _typical_pins(problem)
     if len(names) < 2 or not pinned:
         return {}
 

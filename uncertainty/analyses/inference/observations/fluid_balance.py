@@ -85,6 +85,13 @@ def validate(obs: Observation, problem: Problem) -> None:
                         obs.kind)
 
 
+def typical_output(obs: Observation, problem: Problem) -> tuple[str, bool]:
+    """The output a cohort's weights or balances pin at the typical subject: Jv (over the share), on the natural
+    scale (the model builder reflects the typical scores along its direction; the direction is the same on
+    either scale)."""
+    return "Jv", False
+
+
 def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
     """The readings as the term uses them (numpy; canonical units: kg or L, days).
 

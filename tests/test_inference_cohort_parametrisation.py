@@ -1,9 +1,15 @@
-"""Between-subject spreads the data reach only together share one factor (``model_builder._jointly_spread``).
+"""How the model builder parametrises a cohort the data reach through combinations (model declaration only).
+
+1. Between-subject spreads the data reach only together share one factor (``model_builder._jointly_spread``).
 
 A quantity read on its own per subject (a ``measurement`` of it, or of a quantity computed from it alone, as
 pi_c from Cp) keeps its own spread factor; the others that have a declared spread (here Kf, Pa, Pv, r, Pi and
 pi_i of the skeletal-muscle prior set, reached only through Jv by lymph flow) get ``joint__spread_z``.
-Model declaration only: nothing is sampled.
+
+2. Weights of a cohort pin the typical Jv (over the share): the typical scores are reflected along the direction
+   of Jv (``typical_scores``), as lymph readings do, so that the one narrow direction is a coordinate of the sampler.
+
+Nothing is sampled.
 """
 
 from __future__ import annotations
@@ -60,3 +66,28 @@ def test_quantities_reached_only_through_jv_share_one_spread_factor(tmp_path: Pa
 def test_a_study_without_subjects_keeps_the_declared_spreads(tmp_path: Path) -> None:
     built = _build(tmp_path, '[[observations]]\nkind = "lymph_flow"\nvalue = 0.004\nsd = 0.002\n')  # invented
     assert "joint__spread_z" not in set(built.model.named_vars)
+
+
+WEIGHTS = """
+[[observations]]
+kind = "body_weight"
+file = "weights.csv"
+columns = { subject = "patient_id", time = "day", value = "kg" }
+sd = 0.5
+share = { dist = "beta", mean = 0.4, sd = 0.15 }   # invented
+"""
+
+
+def test_a_cohorts_weights_reflect_the_typical_scores_along_jv(tmp_path: Path) -> None:
+    (tmp_path / "weights.csv").write_text("patient_id,day,kg\nP1,0,70\nP1,1,70.6\nP2,0,82\nP2,1,82.3\n")  # invented
+    path = tmp_path / "study.toml"
+    path.write_text('[study]\ntitle = "weights (invented)"\ntissue = "skeletal_muscle"\ntissue_mass = "25 kg"\n'
+                    + textwrap.dedent(WEIGHTS))
+    built = build_model(problem_from_study(load_study(path)))
+    names = set(built.model.named_vars)
+    assert "typical_scores" in names and "Kf__z" in names   # Kf__z is now a Deterministic of the reflected scores
+    assert built.model["Kf__z"] not in built.model.free_RVs
+    # the reflection is orthogonal: the scores keep their standard-normal prior (values equal in distribution)
+    u = built.model["typical_scores"]
+    z = np.array([float(built.model[f"{q}__z"].eval({u: np.eye(len(u.eval()))[0]})) for q in ("Kf", "Pa", "Pv")])
+    assert np.all(np.isfinite(z)) and np.linalg.norm(z) <= 1.0 + 1e-12
