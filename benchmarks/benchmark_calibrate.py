@@ -48,8 +48,8 @@ unit = "mmHg"
 
 [infer]
 chains = 4
-draws = 500
-tune = 300
+draws = DRAWS
+tune = TUNE
 """
 
 
@@ -57,6 +57,8 @@ def main() -> None:
     """Time one calibration on 1 and on 2 workers and print the ratio."""
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--replicates", type=int, default=100, help="replicates N (a multiple of 5 x bins)")
+    ap.add_argument("--draws", type=int, default=1000, help="draws per chain of each refit (default: infer's)")
+    ap.add_argument("--tune", type=int, default=1000, help="warm-up steps per chain (default: infer's)")
     args = ap.parse_args()
 
     from uncertainty.analyses.calibrate import calibrate
@@ -66,7 +68,7 @@ def main() -> None:
     print(f"load average before: {os.getloadavg()[0]:.2f} (1 min) on {os.cpu_count()} cores", flush=True)
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "study.toml"
-        path.write_text(STUDY)
+        path.write_text(STUDY.replace("DRAWS", str(args.draws)).replace("TUNE", str(args.tune)))
         study = load_study(path)
         times, verdicts = {}, {}
         for n in (1, 2):
@@ -75,7 +77,8 @@ def main() -> None:
                 res = calibrate(study, replicates=args.replicates, executor=ex)
                 times[n] = time.perf_counter() - t0
                 verdicts[n] = res.doc.get("verdict")
-            print(f"{n} worker(s): {times[n]:.1f} s ({args.replicates} replicates, verdict {verdicts[n]})",
+            print(f"{n} worker(s): {times[n]:.1f} s ({args.replicates} replicates, 4 chains x ({args.tune} + "
+                  f"{args.draws}) per refit, verdict {verdicts[n]})",
                   flush=True)
     print(f"calibration on 2 workers against 1: {times[1] / times[2]:.2f}x (target >= 1.7x)")
     print(f"load average after: {os.getloadavg()[0]:.2f} (1 min)")
