@@ -341,7 +341,9 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
         scores: dict[str, Any] = {}
         collapsed: dict[str, Any] = {}
         plain = [q for q, p in problem.priors.items() if _non_centred(p)]
-        typical_z = _typical_scores(problem, plain) if hierarchical else {}
+        # (a quantity read on its own keeps its own score: its readings pin it, not the outputs' direction)
+        typical_z = _typical_scores(problem, [q for q in plain if q not in _read_alone(problem)]) \
+            if hierarchical else {}
         paired = {q for pair in problem.between_correlations for q in pair[:2]}
         for name, prior in problem.priors.items():
             merged = None if hierarchical or name in paired else _merged_layers(prior)
@@ -423,6 +425,9 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
                 ctx.per_subject[name] = base  # replaced by the claiming kind (ctx.override)
                 continue
             scored[name] = (prior, base, ratio)
+        for name in _centred(problem, scored, labels, paired) if hierarchical else []:
+            ctx.per_subject[name] = _centred_layer(name, *scored.pop(name))
+            ctx.notes.append(f"{name}: every subject's readings pin it; its subject values are sampled centred")
         chol, chol_notes = between_cholesky(problem, list(scored))
         ctx.notes += [n for n in chol_notes if n not in ctx.notes]
         z_scores = _subject_scores(problem, ctx, scored, labels, hierarchical, chol)
@@ -465,6 +470,67 @@ def _jointly_spread(problem: Problem, own: set[str]) -> list[str]:
     the declared proportions and lets the data set their common size. With fewer than two such
     quantities each keeps its own factor.
     """
+    read = _read_alone(problem)
+    names = [q for q, p in problem.priors.items()
+             if _spread(p) is not None and q not in read and q not in own]
+    return names if len(names) >= 2 else []
+
+
+def _centred(problem: Problem, scored: dict[str, tuple[Any, Any, Any]], labels: list[str],
+             paired: set[str]) -> list[str]:
+    """Quantities whose subject values are sampled centred (:func:`_centred_layer`): read directly by a
+    ``measurement`` (sd, no instrument) in every subject, each reading's sd below PIN_RATIO times the declared
+    between-subject sd (a cv at the prior centre), on an additive (sd) or log (cv) layer, in no between-subject
+    pair, in a study without readings that pin a subject's output (those build their own scores over every
+    quantity).
+
+    Non-centred scores suit subjects the data say little about; when every subject's readings pin the value,
+    each score must move with the typical value and the spread, and the chains crawl (40 invented subjects
+    with plasma protein read to 0.2 g/dL against a spread of 0.45: bulk ESS of the typical Cp 374 in 4,000
+    draws). The usual remedy is the centred form (Betancourt & Girolami 2015, see :data:`PIN_RATIO`).
+    """
+    if _pinned_readings(problem):
+        return []
+    centre = prior_centres(problem)
+    covered: dict[str, set[Any]] = {}
+    precise: dict[str, bool] = {}
+    for o in problem.observations:
+        q = o.parameter
+        if o.kind != "measurement" or q not in scored or q in paired:
+            continue
+        spread = getattr(scored[q][0], "spread", None)
+        if spread is None or spread.logit or o.instrument is not None or o.cv is not None or o.sds is None:
+            precise[q] = False   # (an instrument may read through a bias or a difference)
+            continue
+        between = spread.value if spread.kind == "sd" else spread.value * abs(float(centre[q]))
+        precise[q] = precise.get(q, True) and bool(np.all(np.asarray(o.sds) < PIN_RATIO * between))
+        subjects = set(o.rows.subject) if o.rows is not None else {o.subject}
+        covered.setdefault(q, set()).update(subjects)
+    return [q for q in covered if precise.get(q) and covered[q] >= set(labels)]
+
+
+def _centred_layer(name: str, prior: Any, base: Any, ratio: Any) -> Any:
+    """Subject values of ``name`` sampled centred: ``q__subject_c`` ~ Normal(base, spread) for an sd layer, its
+    log ~ Normal(log base, log-sd) for a cv layer (the same distribution as ``Prior.individual`` of a
+    standard-normal score, which ``q__subject_z`` records as a Deterministic)."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    spread = prior.spread
+    if spread.kind == "sd":
+        s = spread.value * ratio
+        x = pm.Normal(f"{name}__subject_c", mu=base, sigma=s, dims="subject")
+        pm.Deterministic(f"{name}__subject_z", (x - base) / s, dims="subject")
+        return x
+    s = spread.log_sd() * ratio
+    lx = pm.Normal(f"{name}__subject_logc", mu=pt.log(base), sigma=s, dims="subject")
+    pm.Deterministic(f"{name}__subject_z", (lx - pt.log(base)) / s, dims="subject")
+    return pt.exp(lx)
+
+
+def _read_alone(problem: Problem) -> set[str]:
+    """Uncertain quantities a ``measurement`` reads on its own: the quantity itself, or one computed from it
+    alone (pi_c from Cp)."""
     derived = getattr(getattr(problem, "study", None), "derived", None) or {}
 
     def roots(q: str) -> set[str]:   # the uncertain quantities a quantity is computed from (itself if declared)
@@ -472,13 +538,11 @@ def _jointly_spread(problem: Problem, own: set[str]) -> list[str]:
         return {q} if d is None else set().union(*(roots(i) for i in d.inputs))
 
     read: set[str] = set()
-    for o in problem.observations:   # a reading of one quantity, or of one computed from it alone (pi_c from Cp)
+    for o in problem.observations:
         if o.kind == "measurement" and o.parameter:
             found = roots(o.parameter) & set(problem.priors)
             read |= found if len(found) == 1 else set()
-    names = [q for q, p in problem.priors.items()
-             if _spread(p) is not None and q not in read and q not in own]
-    return names if len(names) >= 2 else []
+    return read
 
 
 #: Step (in standard-normal score units) of the finite differences that find a reading's direction in
