@@ -690,9 +690,9 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
 
 
 #: Draws per block of :func:`simulate_blocks`: our measured choice (65,536 draws of a 4-hour infusion at 1-min
-#: steps took 13.7 s of CPU in blocks of 8,192 against 15.3 s in one block, whose temporaries of 512 kB each
-#: outgrow the cache, and 19.1 s in blocks of 2,048, where the per-step Python overhead shows).
-BLOCK_DRAWS = 8192
+#: steps on 2 threads of an idle 2-core machine: blocks of 2,048, 4,096, 8,192, 16,384 and 32,768 draws took 24.2,
+#: 17.0, 9.5, 7.3 and 7.1 s; the per-step Python overhead shows in small blocks).
+BLOCK_DRAWS = 16384
 
 
 def simulate_blocks(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]], Cp0: Array,
