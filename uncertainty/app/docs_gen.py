@@ -78,8 +78,10 @@ SECTIONS: list[tuple[str, str, str, str]] = [
     ("timeline", "[timeline]", "TimelineSection",
      "How long the `whole_body` time courses run and how often `propagate` reports them (its `timeline` entry: "
      "median and 95% interval per reported time for the typical subject and the individual; with timed "
-     "`haemoglobin`, `plasma_protein` or `urine` observations also `observed`: each subject's Hb or protein "
-     "readings over its first, urine volumes as read, drawn on the fan chart). "
+     "`haemoglobin`, `plasma_protein`, `urine` or `body_weight` observations also `observed`: each subject's Hb "
+     "or protein readings over its first, weights minus its first (kg), urine volumes as read, drawn on the fan "
+     "chart). Besides the volumes and ratios it reports `body_weight_change` (kg since 0: infused minus whole blood "
+     "bled minus all urine minus insensible loss, 1 kg per L). "
      "`[sensitivity] output`, `[rank] output` and `[design] endpoint` read a time course at a time written "
      "\"NAME at TIME\", e.g. \"infused_retained_fraction at 60 min\"."),
     ("schedule", "[schedule]", "ScheduleSection",
@@ -159,7 +161,11 @@ MEANINGS: dict[str, str] = {
                          "first reading, 1 kg = 1 L) and fluid_balance (charted cumulative balance since time 0, L), "
                          "from a data file with times: the organ's Jv x tissue mass x days is the declared `share` "
                          "of the body's net fluid gain, filtration constant over the period, charted balances "
-                         "omitting insensible losses (needs [study] tissue_mass; sd only); whole_body form only: "
+                         "omitting insensible losses (needs [study] tissue_mass; sd only); in a whole_body study "
+                         "body_weight takes no share and no tissue mass: each subject's weight change from its "
+                         "earliest reading (kg or any mass unit, sd only) against the body's own balance since time "
+                         "0, infused minus whole blood bled minus all urine minus insensible loss (0.52 mL/min, "
+                         "Institute of Medicine 2005), 1 kg per L, nothing taken by mouth; whole_body form only: "
                          "haemoglobin (serial blood Hb per subject from a data file with times, g/dL, sd only: each "
                          "subject's readings relative to its earliest one against the time course of Hb relative "
                          "to rest), urine (cumulative urine volume since time 0 per subject from a data file "
@@ -206,7 +212,8 @@ MEANINGS: dict[str, str] = {
     "observations.effects": "quantities given a group effect (with grouped data)",
     "observations.share": "body_weight / fluid_balance: a prior declaration (e.g. { dist = \"beta\", mean = 0.4, "
                           "sd = 0.15 }) of the organ's share of the body's net fluid gain over the period "
-                          "(dimensionless); it carries the other tissues, lymph return and plasma-volume change",
+                          "(dimensionless); it carries the other tissues, lymph return and plasma-volume change "
+                          "(refused for body_weight in a whole_body study, which balances the whole body itself)",
     "observations.site": "lymph_flow: where lymph was collected, pre_nodal or post_nodal",
     "observations.protein": "plasma_protein: the protein read, total (default) or albumin (albumin readings are "
                             "refused in a study that infuses albumin: the form has one plasma protein pool)",

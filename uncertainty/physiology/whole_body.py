@@ -82,6 +82,17 @@ HAEMATOCRIT = 0.42
 #: measurement of mean circulatory filling pressure).
 VASCULAR_COMPLIANCE_ML_PER_MMHG_PER_KG = 1.5
 
+#: Body weight per volume of fluid gained or lost, kg/L: common practice (1 kg for 1 L at the bedside; water and
+#: near-isotonic fluids are about 1.0 kg/L, whole blood about 1.06, a difference of 3% of a bleed's volume, from
+#: memory, within a scale's error for a single unit).
+KG_PER_L = 1.0
+#: Insensible water loss of a resting adult, mL/min: Institute of Medicine 2005, Dietary Reference Intakes for
+#: Water, Potassium, Sodium, Chloride, and Sulfate (National Academies Press), chapter 4 (read through the search
+#: tool): diffusion through the skin about 450 mL/day (p. 83, after Kuno 1956) and respiratory loss about 250-350
+#: mL/day for sedentary persons (p. 86, after Hoyt and Honig 1996); (450 + 300) mL/day over 1440 min/day. Not
+#: scaled by body mass; fever, sweating, a warm room and hyperpnoea raise it several-fold.
+INSENSIBLE_LOSS_ML_MIN = (450.0 + 300.0) / 1440.0
+
 #: Clearance constant of volume kinetics for a colloid, mL/min: Lee EH, Kim SK, Yeo YG, Choi KT 2010 Korean J
 #: Anesthesiol 58(6):514-520 (abstract, PMC2892583, read through the search tool): elimination rate constant
 #: 7.1 +/- 3.5 mL/min in wakeful volunteers given 500 mL of 6% hydroxyethyl starch over 20 min after donating
@@ -565,12 +576,13 @@ def _rk4(state: dict[str, Array], rates: Sequence[Array], dt: float, args: Args3
 TIMELINE_UNITS: dict[str, str] = {
     "plasma_volume_change": "mL", "infused_retained_fraction": "1", "hb_ratio": "1",
     "interstitial_volume_change_muscle": "mL", "interstitial_volume_change_skin": "mL",
-    "urine_volume": "mL", "lymph_flow": "mL/min", "plasma_protein_ratio": "1",
+    "urine_volume": "mL", "lymph_flow": "mL/min", "plasma_protein_ratio": "1", "body_weight_change": "kg",
 }
 
 
 def report(state: Mapping[str, Array], given: float, body: Mapping[str, Array],
-           beds: Mapping[str, Mapping[str, Array]], rest: Mapping[str, Array], xp: Any = np) -> dict[str, Array]:
+           beds: Mapping[str, Mapping[str, Array]], rest: Mapping[str, Array], xp: Any = np, t: float = 0.0
+           ) -> dict[str, Array]:
     """The reported quantities (:data:`TIMELINE_UNITS`) at ``state``.
 
     Parameters
@@ -581,6 +593,8 @@ def report(state: Mapping[str, Array], given: float, body: Mapping[str, Array],
         Volume infused so far, mL.
     xp : module
         numpy or pytensor.tensor.
+    t : float, optional
+        Time since 0, min (the insensible loss of ``body_weight_change``; 0 when not given).
 
     Returns
     -------
@@ -590,14 +604,40 @@ def report(state: Mapping[str, Array], given: float, body: Mapping[str, Array],
         still missing; NaN before anything is given), ``hb_ratio`` (haemoglobin concentration relative to
         rest), ``interstitial_volume_change_<bed>`` (mL), ``urine_volume`` (mL since 0), ``lymph_flow``
         (both beds, mL/min), ``plasma_protein_ratio`` (plasma total-protein concentration 100 Qp / Vp relative to
-        rest, 1; infused albumin counted at its oncotic total-protein equivalent, ``Dose.protein_equivalent``).
+        rest, 1; infused albumin counted at its oncotic total-protein equivalent, ``Dose.protein_equivalent``),
+        ``body_weight_change`` (kg since 0, :func:`weight_change`).
     """
-    return _report(state, given, _Prepared(body, beds, rest, xp), xp)
+    return _report(state, given, _Prepared(body, beds, rest, xp), xp, t=t)
+
+
+def weight_change(given: Array, bled: Array, urine: Array, t: Array) -> Array:
+    """Body weight change since time 0 (kg): what went in minus what came out, at :data:`KG_PER_L`.
+
+    (infused - whole blood bled - cumulative urine - insensible loss) x 1 kg/L. Every urine counts, the basal flow
+    included, and nothing is taken by mouth: a subject on a scale loses what it passes (the urine course the
+    ``urine`` observation kind fits) and its insensible loss at :data:`INSENSIBLE_LOSS_ML_MIN`, while the plasma
+    balance of :func:`derivatives` takes the basal urine as balanced by basal intake (a difference of at most the
+    basal flow, about 1 mL/kg/h, over the timeline). Weight changes by no other route (no sweating, stool or
+    vomiting; metabolic water and the mass of gases exchanged neglected).
+
+    Parameters
+    ----------
+    given, bled, urine : array
+        Volume infused, whole blood bled and urine passed since 0, mL.
+    t : array or float
+        Time since 0, min.
+
+    Returns
+    -------
+    array
+        Weight change, kg (negative: lighter than at 0).
+    """
+    return (given - bled - urine - INSENSIBLE_LOSS_ML_MIN * t) * (KG_PER_L / 1000.0)
 
 
 def _report(state: Mapping[str, Array], given: float, p: _Prepared, xp: Any,
-            f: Mapping[str, Array] | None = None) -> dict[str, Array]:
-    """:func:`report` on prepared constants; ``f``: the fluxes at ``state`` if known."""
+            f: Mapping[str, Array] | None = None, t: float = 0.0) -> dict[str, Array]:
+    """:func:`report` on prepared constants; ``f``: the fluxes at ``state`` if known; ``t``: time, min."""
     if f is None:
         f = _fluxes(state, p, xp, compliance=False)
     dVp = state["Vp"] - p.Vp0
@@ -613,6 +653,8 @@ def _report(state: Mapping[str, Array], given: float, p: _Prepared, xp: Any,
     out["urine_volume"] = state["U"]
     out["lymph_flow"] = sum(f[f"JL_{name}"] for name, _ in p.beds)
     out["plasma_protein_ratio"] = f["Cp"] / p.Cp0
+    bled = state["B"] + (p.Vrbc0 - state["Vrbc"])  # plasma and red cells lost, mL of whole blood
+    out["body_weight_change"] = weight_change(given, bled, state["U"], t)
     return out
 
 
@@ -684,7 +726,7 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
             times.append((i + 1) * dt)
             # the fluxes at the reported state are the first stage of the next step (same renal scale)
             f = _fluxes(state, p, xp, _renal(plan[i + 1]) if i + 1 < n_steps else (1.0, 0.0))
-            for k, v in _report(state, given, p, xp, f).items():
+            for k, v in _report(state, given, p, xp, f, t=(i + 1) * dt).items():
                 series[k].append(v)
     return {"times_min": times, **series}
 

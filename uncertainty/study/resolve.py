@@ -1043,9 +1043,17 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
     if ob.kind == "lymph_flow" and ctx.tissue in NO_LYMPH:
         raise study_error(f"lymph-flow observations are refused for {ctx.tissue}: {NO_LYMPH[ctx.tissue]}",
                           ctx.file, f"{key}.kind", ob.kind)
-    if ob.kind in ("body_weight", "fluid_balance") and ctx.tissue_mass_kg is None:
-        raise study_error(f"a {ob.kind} observation ties the organ's flow to the body's: set [study] tissue_mass",
-                          ctx.file, f"{key}.kind", ob.kind)
+    if ob.kind == "body_weight" and ctx.model == "whole_body":  # the body's own balance (no organ share)
+        if ob.share is not None:
+            raise study_error("a body_weight observation of a whole_body study takes no share: the form balances "
+                              "the whole body's intake and output itself", ctx.file, f"{key}.share", ob.share)
+    elif ob.kind in ("body_weight", "fluid_balance"):
+        if ctx.tissue_mass_kg is None:
+            raise study_error(f"a {ob.kind} observation ties the organ's flow to the body's: set [study] tissue_mass",
+                              ctx.file, f"{key}.kind", ob.kind)
+        if ob.share is None:
+            raise study_error(f"a {ob.kind} observation needs share = {{ <prior of the organ's share of the body's "
+                              "net fluid gain> }}", ctx.file, f"{key}.share", None)
     predicting = forms_predicting(ob.kind)
     if predicting and ctx.model not in predicting:
         wanted = " or ".join(f"model = \"{m}\"" for m in predicting)

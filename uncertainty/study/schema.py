@@ -336,7 +336,7 @@ class Observation(BaseModel):
         if k in ("body_weight", "fluid_balance"):
             if self.file is None:
                 raise ValueError(f"a {k} observation needs a data file (subject, time, value)")
-            if self.share is None:
+            if self.share is None and k == "fluid_balance":  # body_weight: in resolve (none in a whole_body study)
                 raise ValueError(f"a {k} observation needs share = {{ <prior of the organ's share of the body's "
                                  "net fluid gain> }}")
             if self.cv is not None:

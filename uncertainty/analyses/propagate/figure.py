@@ -51,8 +51,8 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> l
     """Fan charts of a ``whole_body`` timeline: for each reported time course the median line and the 95%
     band over time (min) for the typical subject (``layer``), units as ``tl["units"]``; the interventions are
     shaded. Observed points are drawn when ``tl["observed"]`` maps a name to ``{"times_min", "values"}`` (optional
-    ``subjects``: one marker line per subject; ``relative_to_first``: readings over each subject's first, said in the
-    legend). PNG and SVG paths."""
+    ``subjects``: one marker line per subject; ``relative_to_first`` / ``change_from_first``: readings over / minus
+    each subject's first, said in the legend). PNG and SVG paths."""
     plt = pyplot()
     names = list((tl.get(layer) or {}).keys())
     t = np.asarray(tl.get("times_min") or [], dtype=float)
@@ -92,7 +92,8 @@ def _observed(ax: Any, obs: dict[str, Any]) -> None:
     t = np.asarray(obs.get("times_min") or [], dtype=float)
     y = np.asarray([np.nan if v is None else v for v in obs.get("values") or []], dtype=float)
     subjects = list(obs.get("subjects") or [""] * t.size)
-    label = "observed (over each subject's first)" if obs.get("relative_to_first") else "observed"
+    label = ("observed (over each subject's first)" if obs.get("relative_to_first") else
+             "observed (minus each subject's first)" if obs.get("change_from_first") else "observed")
     for k, s in enumerate(dict.fromkeys(subjects)):
         idx = [i for i, x in enumerate(subjects) if x == s]
         ax.plot(t[idx], y[idx], marker=_MARKERS[k % len(_MARKERS)], color=STYLE["interval"], ms=3.5, lw=0.6,

@@ -51,11 +51,13 @@ def bed_ratios(tissue: str) -> dict[str, float]:
 
 
 #: Observation kinds drawn on a fan chart: kind -> (time course, how its readings are shown). ``first``: each
-#: subject's readings over its earliest one (as the kind's likelihood takes them, ``haemoglobin``); ``as_read``: the
+#: subject's readings over its earliest one (as the kind's likelihood takes them, ``haemoglobin``); ``change``: each
+#: subject's readings minus its earliest one, in the time course's unit (``body_weight``, kg); ``as_read``: the
 #: readings themselves in the time course's unit.
 OBSERVED_COURSES: dict[str, tuple[str, str]] = {"haemoglobin": ("hb_ratio", "first"),
                                                 "urine": ("urine_volume", "as_read"),
-                                                "plasma_protein": ("plasma_protein_ratio", "first")}
+                                                "plasma_protein": ("plasma_protein_ratio", "first"),
+                                                "body_weight": ("body_weight_change", "change")}
 
 
 def observed_points(study: Any) -> dict[str, dict[str, Any]]:
@@ -71,9 +73,10 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
     -------
     dict
         time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin`` and ``plasma_protein`` each
-        subject's reading over its earliest one, 1; for ``urine`` the volumes since 0, mL), ``subjects`` (list of
-        labels, "" for none), ``kinds`` (list), ``relative_to_first`` (bool). Readings without a time are left
-        out; empty without such observations.
+        subject's reading over its earliest one, 1; for ``body_weight`` each subject's reading minus its earliest
+        one, kg; for ``urine`` the volumes since 0, mL), ``subjects`` (list of labels, "" for none), ``kinds``
+        (list), ``relative_to_first`` (bool: readings over the first), ``change_from_first`` (bool: readings minus
+        the first). Readings without a time are left out; empty without such observations.
     """
     out: dict[str, dict[str, Any]] = {}
     for ob in getattr(study, "observations", None) or []:
@@ -90,15 +93,16 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
         subject = [str(x) if x is not None else "" for x in (data.get("subject") or [None] * n)]
         keep = np.isfinite(time) & np.isfinite(value)
         entry = out.setdefault(name, {"times_min": [], "values": [], "subjects": [], "kinds": [],
-                                      "relative_to_first": how == "first"})
+                                      "relative_to_first": how == "first", "change_from_first": how == "change"})
         for label in dict.fromkeys(subject):
             idx = [k for k in range(n) if subject[k] == label and keep[k]]
             idx.sort(key=lambda k: time[k])
             if not idx:
                 continue
             ref = value[idx[0]] if how == "first" else 1.0
+            shift = value[idx[0]] if how == "change" else 0.0
             entry["times_min"] += [float(time[k]) for k in idx]
-            entry["values"] += [float(value[k] / ref) for k in idx]
+            entry["values"] += [float((value[k] - shift) / ref) for k in idx]
             entry["subjects"] += [label] * len(idx)
             entry["kinds"] += [kind] * len(idx)
     return {k: v for k, v in out.items() if v["times_min"]}

@@ -1,13 +1,16 @@
-"""The whole-body time course the timed observation kinds fit (``haemoglobin``, ``urine``, ``plasma_protein``).
+"""The whole-body time course the timed observation kinds fit (``haemoglobin``, ``urine``, ``plasma_protein`` and,
+in a whole_body study, ``body_weight``).
 
 One function solves the study's ``[[interventions]]`` and ``[timeline]`` for per-subject inputs
 (``physiology.whole_body.simulate``, numpy or PyTensor) and returns the time course a kind names
 (a key of ``physiology.whole_body.TIMELINE_UNITS``); :func:`course_series` builds it inside the PyMC model as a
-(time, subject) tensor and :func:`interpolation` takes it to each reading's time (linear between report times).
+(time, subject) tensor (one solution per model, shared by the kinds) and :func:`interpolation` takes it to each
+reading's time (linear between report times).
 """
 
 from __future__ import annotations
 
+import weakref
 from typing import Any
 
 import numpy as np
@@ -99,11 +102,43 @@ def ratios_to_first(obs: Observation, subjects: list[str]) -> dict[str, np.ndarr
             "sd": np.sqrt(sd[k] ** 2 + (y * sd[r]) ** 2) / value[r], "skipped": skipped}
 
 
-def add_ratio_term(ctx: Any, obs: Observation, course: str, *, what: str, label: str, note: str,
-                   notes_when_fitted: tuple[str, ...] = ()) -> None:
-    """Likelihood of readings taken relative to each subject's first one (:func:`ratios_to_first`):
-    y ~ Normal(c(t) / c(t_ref), sd_y) over all later readings, c the whole-body course ``course`` of the
-    reading's subject (dimensionless).
+def changes_from_first(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
+    """Each subject's later readings minus its earliest one, with the difference's normal error (numpy).
+
+    sd_y = sqrt(sd_k^2 + sd_ref^2) (the reference's error shared by the subject's changes is neglected as a
+    correlation, as in :func:`ratios_to_first`). The readings keep their (canonical) unit.
+
+    Parameters
+    ----------
+    obs : Observation
+        A timed observation with data-file rows (subject, time in min, value, sd; one unit).
+    subjects : list of str
+        The model's subject labels (index 0 is the study's individual when a row has none).
+
+    Returns
+    -------
+    dict
+        ``subject``, ``time`` and ``ref_time`` (min), ``value`` (change from the earliest reading) and ``sd`` (its
+        normal error), both in the readings' unit, ``skipped`` (subjects with a single reading).
+    """
+    subj, t, value, sd = timed_readings(obs, subjects)
+    k, r, skipped = pair_with_first(subj, t)
+    return {"subject": subj[k], "time": t[k], "ref_time": t[r], "value": value[k] - value[r],
+            "sd": np.sqrt(sd[k] ** 2 + sd[r] ** 2), "skipped": skipped}
+
+
+#: How a reading is taken relative to its subject's first: readings -> (design, predicted from the course at the
+#: reading's time and at the reference's, what one such reading is called).
+RELATIVE = {"ratio": (ratios_to_first, lambda a, b: a / b, "ratio"),
+            "change": (changes_from_first, lambda a, b: a - b, "change")}
+
+
+def add_relative_term(ctx: Any, obs: Observation, course: str, *, what: str, label: str, note: str,
+                      how: str = "ratio", notes_when_fitted: tuple[str, ...] = ()) -> None:
+    """Likelihood of readings taken relative to each subject's first one: y ~ Normal(c(t) / c(t_ref), sd_y)
+    (``how = "ratio"``, :func:`ratios_to_first`, dimensionless) or y ~ Normal(c(t) - c(t_ref), sd_y) (``"change"``,
+    :func:`changes_from_first`, the course's unit) over all later readings, c the whole-body course ``course`` of
+    the reading's subject.
 
     Parameters
     ----------
@@ -115,27 +150,37 @@ def add_ratio_term(ctx: Any, obs: Observation, course: str, *, what: str, label:
         The time course the readings follow (a key of ``physiology.whole_body.TIMELINE_UNITS``).
     what, label, note : str
         The quantity in notes ("haemoglobin"), the term's label, and the kind's note.
+    how : str
+        ``ratio`` or ``change`` (:data:`RELATIVE`).
     notes_when_fitted : tuple of str
-        Further notes, added when there are ratios to fit.
+        Further notes, added when there are readings to fit.
     """
     import pymc as pm
 
-    d = ratios_to_first(obs, ctx.subjects)
+    design, relate, word = RELATIVE[how]
+    d = design(obs, ctx.subjects)
     name = term_name(obs)
     if d["skipped"].size:
-        ctx.notes.append(f"{obs.key}: {d['skipped'].size} subject(s) with a single reading carry no ratio and are "
+        ctx.notes.append(f"{obs.key}: {d['skipped'].size} subject(s) with a single reading carry no {word} and are "
                          "skipped")
     if d["value"].size == 0:
-        ctx.notes.append(f"{obs.key}: no {what} ratios to fit (every subject has one reading)")
+        ctx.notes.append(f"{obs.key}: no {what} {word}s to fit (every subject has one reading)")
         return
     ctx.notes.extend(f"{obs.key}: {n}" for n in notes_when_fitted)
     times, series = course_series(ctx, course)  # (time, subject)
     i = d["subject"]
-    pred = at_times(series, times, i, d["time"]) / at_times(series, times, i, d["ref_time"])
+    pred = relate(at_times(series, times, i, d["time"]), at_times(series, times, i, d["ref_time"]))
     pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {note}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i, label=label))
+
+
+def add_ratio_term(ctx: Any, obs: Observation, course: str, *, what: str, label: str, note: str,
+                   notes_when_fitted: tuple[str, ...] = ()) -> None:
+    """:func:`add_relative_term` with ``how = "ratio"``: y ~ Normal(c(t) / c(t_ref), sd_y) (dimensionless)."""
+    add_relative_term(ctx, obs, course, what=what, label=label, note=note, how="ratio",
+                      notes_when_fitted=notes_when_fitted)
 
 
 def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -162,7 +207,7 @@ def interpolation(times: np.ndarray, grid: list[float]) -> tuple[np.ndarray, np.
     return lo, hi, w
 
 
-def whole_body_course(values: dict[str, Any], study: Any, name: str, xp: Any) -> dict[str, Any]:
+def whole_body_course(values: dict[str, Any], study: Any, name: str | None, xp: Any) -> dict[str, Any]:
     """One whole-body time course for the ``values`` given (one per subject), on the study's report times.
 
     Parameters
@@ -171,29 +216,34 @@ def whole_body_course(values: dict[str, Any], study: Any, name: str, xp: Any) ->
         Per-subject inputs of the time course (canonical units; ``forms.whole_body.timeline_parameters``).
     study : Study
         A ``whole_body`` study (its ``timeline`` plan and tissue).
-    name : str
-        The time course (a key of ``physiology.whole_body.TIMELINE_UNITS``, e.g. ``hb_ratio``).
+    name : str or None
+        The time course (a key of ``physiology.whole_body.TIMELINE_UNITS``, e.g. ``hb_ratio``); None: every one.
     xp : module
         numpy or pytensor.tensor.
 
     Returns
     -------
     dict
-        ``times_min`` (list of float, min) and ``name`` (list over the report times of arrays over subjects, in
-        the course's unit). Runge-Kutta steps of at most :data:`MAX_STEP_MIN`.
+        ``times_min`` (list of float, min) and ``name`` (or every course: list over the report times of arrays over
+        subjects, in the course's unit). Runge-Kutta steps of at most :data:`MAX_STEP_MIN`.
 
     Raises
     ------
     KeyError
         ``name`` is not a time course of the form.
     """
-    if name not in wb.TIMELINE_UNITS:
+    if name is not None and name not in wb.TIMELINE_UNITS:
         raise KeyError(name)
     plan = study.timeline
     body, beds, Cp0 = timeline_parameters(values, plan.body_mass_kg, bed_ratios(study.tissue), xp=xp)
     sim = wb.simulate(body, beds, Cp0, plan.doses, plan.end, plan.report_every,
                       max_step=min(MAX_STEP_MIN, plan.report_every), xp=xp)
-    return {"times_min": sim["times_min"], name: sim[name]}
+    return sim if name is None else {"times_min": sim["times_min"], name: sim[name]}
+
+
+#: The time courses already built in a model (BuildContext -> ``whole_body_course`` of every course): the kinds of
+#: one study share one PyTensor solution instead of each building its own.
+_BUILT: weakref.WeakKeyDictionary[Any, dict[str, Any]] = weakref.WeakKeyDictionary()
 
 
 def course_series(ctx: Any, name: str) -> tuple[list[float], Any]:
@@ -216,13 +266,17 @@ def course_series(ctx: Any, name: str) -> tuple[list[float], Any]:
     """
     import pytensor.tensor as pt
 
-    values: dict[str, Any] = {}
-    for q in (*BED_INPUTS, *BODY_INPUTS):
-        try:
-            values[q] = ctx.value(q)
-        except KeyError:
-            continue
-    course = whole_body_course(values, ctx.problem.study, name, pt)
+    if name not in wb.TIMELINE_UNITS:
+        raise KeyError(name)
+    course = _BUILT.get(ctx)
+    if course is None:
+        values: dict[str, Any] = {}
+        for q in (*BED_INPUTS, *BODY_INPUTS):
+            try:
+                values[q] = ctx.value(q)
+            except KeyError:
+                continue
+        course = _BUILT[ctx] = whole_body_course(values, ctx.problem.study, None, pt)
     n = len(ctx.subjects)
     series = pt.stack([pt.as_tensor_variable(x) * pt.ones(n) for x in course[name]])
     return course["times_min"], series
@@ -251,5 +305,6 @@ def at_times(series: Any, times_min: list[float], subject: np.ndarray, t: np.nda
     return (1.0 - w) * series[lo, subject] + w * series[hi, subject]
 
 
-__all__ = ["BODY_INPUTS", "MAX_STEP_MIN", "at_times", "course_series", "interpolation", "ratios_to_first",
+__all__ = ["BODY_INPUTS", "MAX_STEP_MIN", "RELATIVE", "add_ratio_term", "add_relative_term", "at_times",
+           "changes_from_first", "check_timed_rows", "course_series", "interpolation", "ratios_to_first",
            "whole_body_course"]

@@ -30,6 +30,10 @@ Assumptions (each stated in the notes of a result):
 
 Errors: a normal sd (on the observation or per row); a cv is refused, since a balance or a weight change
 can be zero or negative.
+
+In a ``whole_body`` study ``body_weight`` takes no share and follows the body's own balance over time instead
+(infused - bled - urine - insensible loss; ``observations.weight_course``, to which :func:`validate` and :func:`add`
+hand it).
 """
 
 from __future__ import annotations
@@ -39,6 +43,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.model_builder import ObservedTerm
+from uncertainty.analyses.inference.observations import weight_course
 from uncertainty.analyses.inference.observations.base import (
     add_reading,
     check_sds,
@@ -50,10 +55,10 @@ from uncertainty.analyses.inference.observations.base import (
     timed_readings,
 )
 from uncertainty.analyses.inference.problem import Observation, Problem
+from uncertainty.physiology import whole_body as wb
 
-#: kg of body weight per L of fluid gained (density of water and near-isotonic body fluids about 1.0 kg/L;
-#: common practice at the bedside, from memory)
-KG_PER_L = 1.0
+#: kg of body weight per L of fluid gained (``physiology.whole_body.KG_PER_L``: 1 kg for 1 L, common practice)
+KG_PER_L = wb.KG_PER_L
 MIN_PER_DAY = 1440.0
 #: the readings' times are modelled (no "repeated readings of one steady value" note)
 TIMED = True
@@ -63,8 +68,23 @@ NOTE = ("body_weight / fluid_balance: the organ's filtration Jv x tissue mass ov
         "losses); filtration is taken as constant over the period.")
 
 
+def _whole_body(obs: Observation, problem: Problem) -> bool:
+    """A ``body_weight`` observation of a ``whole_body`` study (handed to ``observations.weight_course``)."""
+    return obs.kind == "body_weight" and problem.model_form == "whole_body"
+
+
 def validate(obs: Observation, problem: Problem) -> None:
-    """A data file with a time for every reading, a normal sd, a share prior and a study tissue mass."""
+    """A data file with a time for every reading, a normal sd, a share prior and a study tissue mass (a
+    ``body_weight`` of a ``whole_body`` study: ``observations.weight_course.validate``).
+
+    Raises
+    ------
+    InputError
+        No data file, a cv error, no sd, a reading without a time, no or a non-positive share, no tissue mass.
+    """
+    if _whole_body(obs, problem):
+        weight_course.validate(obs, problem)
+        return
     if obs.rows is None:
         raise obs.error(f"a {obs.kind} observation needs a data file (subject, time, value)", "file", None)
     if obs.cv is not None:
@@ -143,9 +163,13 @@ def predicted(flow_L_per_day: Any, days: Any, share: Any, kind: str) -> Any:
 
 
 def add(ctx: Any, obs: Observation) -> None:
-    """change ~ Normal(Jv_L_per_day[subject] x days / share (x 1 kg/L for weights), sd) over all rows."""
+    """change ~ Normal(Jv_L_per_day[subject] x days / share (x 1 kg/L for weights), sd) over all rows (a
+    ``body_weight`` of a ``whole_body`` study: ``observations.weight_course.add``)."""
     import pymc as pm
 
+    if _whole_body(obs, ctx.problem):
+        weight_course.add(ctx, obs)
+        return
     d = design(obs, ctx.subjects)
     name = term_name(obs)
     if d["skipped"].size:

@@ -23,6 +23,8 @@ import numpy as np
 from uncertainty.analyses.inference.observations.course import add_ratio_term, check_timed_rows, ratios_to_first
 from uncertainty.analyses.inference.problem import Observation, Problem
 
+#: the readings' times are modelled (no "repeated readings of one steady value" note)
+TIMED = True
 NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitted to the whole-body time "
         "course of haemoglobin relative to rest (no baseline haemoglobin sampled).")
 
@@ -67,4 +69,4 @@ def add(ctx: Any, obs: Observation) -> None:
                    note=NOTE)
 
 
-__all__ = ["NOTE", "add", "design", "validate"]
+__all__ = ["NOTE", "TIMED", "add", "design", "validate"]

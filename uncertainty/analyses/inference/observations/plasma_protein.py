@@ -38,6 +38,8 @@ import numpy as np
 from uncertainty.analyses.inference.observations.course import add_ratio_term, check_timed_rows, ratios_to_first
 from uncertainty.analyses.inference.problem import Observation, Problem
 
+#: the readings' times are modelled (no "repeated readings of one steady value" note)
+TIMED = True
 NOTE = ("plasma_protein: each subject's plasma protein readings relative to its earliest one, fitted to the "
         "whole-body time course of plasma total-protein concentration (protein mass over plasma volume) relative to "
         "rest (no baseline concentration sampled).")
@@ -104,4 +106,4 @@ def add(ctx: Any, obs: Observation) -> None:
                    notes_when_fitted=infused if _protein_infused(ctx.problem) else ())
 
 
-__all__ = ["NOTE", "PROTEINS", "add", "design", "protein_of", "validate"]
+__all__ = ["NOTE", "TIMED", "PROTEINS", "add", "design", "protein_of", "validate"]

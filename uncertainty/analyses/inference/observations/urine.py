@@ -20,6 +20,8 @@ from uncertainty.analyses.inference.observations.base import add_reading, term_n
 from uncertainty.analyses.inference.observations.course import at_times, check_timed_rows, course_series
 from uncertainty.analyses.inference.problem import Observation, Problem
 
+#: the readings' times are modelled (no "repeated readings of one steady value" note)
+TIMED = True
 NOTE = ("urine: each subject's cumulative urine volume since time 0, fitted to the whole-body time course of "
         "urine (basal flow plus volume-kinetic elimination).")
 
@@ -77,4 +79,4 @@ def add(ctx: Any, obs: Observation) -> None:
                               label="cumulative urine volume since time 0"))
 
 
-__all__ = ["NOTE", "add", "design", "validate"]
+__all__ = ["NOTE", "TIMED", "add", "design", "validate"]
