@@ -1,0 +1,204 @@
+"""Benchmark of whole-body inference from serial haemoglobin (printed, not asserted).
+
+An INVENTED study: 20 invented volunteers of 73 kg, each given crystalloid 25 mL/kg over 30 min (the published
+volunteer protocol, Hahn RG 2010 Anesthesiology 113:470, abstract; the subjects are invented), haemoglobin drawn 10
+times from 0 to 180 min. Each subject's readings are simulated with the numpy time course
+(``observations.course.whole_body_course``, the same equations the model solves in PyTensor) at that subject's
+values, drawn from the individual layer of the skeletal-muscle prior set (known values, seeded), times an invented
+baseline Hb (normal 14 g/dL, sd 1) plus normal reading noise of 0.2 g/dL (from memory: analysers repeat to about
+1-2% at 14 g/dL, as ``analyses.schedule.blood`` takes it).
+
+In a fresh interpreter (so that peak memory is the fit's own): the wall time of loading the study, of building the
+model (``problem_from_study`` + ``build_model``, no compiling), and of ``infer`` at the default settings (nutpie,
+4 chains x (1000 + 1000), target_accept 0.95) split into compile and sampling, the peak resident memory
+(``resource.getrusage``) and the quality gate's verdict as ``infer`` reports it (R-hat, ESS, divergences; the
+failing quantities). Target (issue 20): a passed gate in at most 5 minutes on 2 cores.
+
+Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
+[--cap SECONDS] (``--cap``: stop the child after this many seconds; its figures are then lower bounds.)
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+TARGET_SECONDS = 300.0     # issue 20: a passed gate in at most 5 minutes on 2 cores
+BODY_KG = 73.0             # invented subjects (the ICRP Publication 89 reference male's mass)
+TIMES_MIN = (0, 15, 30, 45, 60, 75, 90, 120, 150, 180)   # invented protocol: 10 samples
+HB_SD = 0.2                # g/dL, from memory (analyser repeatability about 1-2% at 14 g/dL)
+
+
+def write_study(folder: Path, n: int, samples: int, seed: int = 20) -> tuple[Path, dict[str, np.ndarray]]:
+    """Write an invented whole-body study of ``n`` subjects with ``samples`` haemoglobin readings each.
+
+    Parameters
+    ----------
+    folder : Path
+        Where the study file and its data file go (created when missing).
+    n : int
+        Number of subjects.
+    samples : int
+        Readings per subject (the first ``samples`` of :data:`TIMES_MIN`, at most 10).
+    seed : int
+        Seed of the subjects' values, baselines and noise.
+
+    Returns
+    -------
+    path : Path
+        The study file.
+    truth : dict
+        symbol -> the subjects' true values (canonical units), shape (n,).
+    """
+    from uncertainty.analyses.inference.observations.course import interpolation, whole_body_course
+    from uncertainty.analyses.sampling import draw
+    from uncertainty.forms.evaluate import input_values
+    from uncertainty.study import Study
+
+    folder.mkdir(parents=True, exist_ok=True)
+    times = np.asarray(TIMES_MIN[:samples], dtype=float)
+    text = f"""# INVENTED benchmark study (benchmarks/benchmark_whole_body_inference.py): {n} invented volunteers,
+# serial haemoglobin simulated from the whole-body time course at known values; no real subjects.
+[study]
+title = "Benchmark: {n} invented volunteers, crystalloid 25 mL/kg over 30 min, serial haemoglobin"
+tissue = "skeletal_muscle"
+model = "whole_body"
+seed = {seed}
+body_mass = "{BODY_KG:g} kg"        # invented
+
+[[interventions]]
+kind = "infusion"
+fluid = "crystalloid"
+volume = "{25.0 * BODY_KG:g} mL"    # 25 mL/kg (Hahn 2010 protocol; invented subjects)
+start = "0 min"
+duration = "30 min"
+
+[timeline]
+end = "{times[-1]:g} min"
+report_every = "15 min"
+
+[[observations]]
+kind = "haemoglobin"
+file = "hb.csv"
+unit = "g/dL"
+sd = {HB_SD}                         # from memory: analyser repeatability
+"""
+    path = folder / "study.toml"
+    path.write_text(text)
+    (folder / "hb.csv").write_text("subject,time_min,value\nS00,0,14\nS00,15,13\n")  # placeholder to load
+    study = Study.from_dict({"study": {"tissue": "skeletal_muscle", "model": "whole_body",
+                                       "body_mass": f"{BODY_KG:g} kg", "seed": seed},
+                             "interventions": [{"kind": "infusion", "fluid": "crystalloid",
+                                                "volume": f"{25.0 * BODY_KG:g} mL", "duration": "30 min"}],
+                             "timeline": {"end": f"{times[-1]:g} min", "report_every": "15 min"}})
+    truth = draw(study, n, method="mc", seed=seed, layer="individual")
+    course = whole_body_course(input_values(study, truth), study, "hb_ratio", np)
+    lo, hi, w = interpolation(times, course["times_min"])
+    grid = np.stack([np.ravel(x) * np.ones(n) for x in course["hb_ratio"]])     # (report time, subject)
+    ratio = (1.0 - w)[:, None] * grid[lo] + w[:, None] * grid[hi]                 # (reading, subject)
+    rng = np.random.default_rng(seed)
+    base = rng.normal(14.0, 1.0, n)                   # invented baseline Hb, g/dL
+    rows = ["subject,time_min,value"]
+    for s in range(n):
+        for k, t in enumerate(times):
+            rows.append(f"S{s:02d},{t:g},{base[s] * ratio[k, s] + rng.normal(0.0, HB_SD):.3f}")
+    (folder / "hb.csv").write_text("\n".join(rows) + "\n")
+    return path, {k: np.asarray(v, dtype=float) for k, v in truth.items()}
+
+
+def child(n: int, samples: int, build_only: bool) -> dict[str, object]:
+    """Load, build and (unless ``build_only``) infer the study in this interpreter; the figures as a dict."""
+    import resource
+
+    from uncertainty.analyses.inference.model_builder import build_model
+    from uncertainty.analyses.inference.problem import problem_from_study
+    from uncertainty.core.errors import QualityGateError
+    from uncertainty.study import load_study
+
+    out: dict[str, object] = {"subjects": n, "samples": samples}
+    with tempfile.TemporaryDirectory() as tmp:
+        path, _ = write_study(Path(tmp), n, samples)
+        t0 = time.perf_counter()
+        study = load_study(path)
+        out["load_s"] = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        built = build_model(problem_from_study(study))
+        out["build_s"] = time.perf_counter() - t0
+        out["free_variables"] = len(built.model.free_RVs)
+        del built
+        if not build_only:
+            from uncertainty.analyses.inference import infer
+
+            t0, c0 = time.perf_counter(), time.process_time()
+            try:
+                res = infer(study)
+            except QualityGateError as exc:
+                res = exc.result
+            out["infer_s"] = time.perf_counter() - t0
+            out["infer_cpu_s"] = time.process_time() - c0   # this process; nutpie's sampler threads included
+            out.update({k: float(v) for k, v in (res.timing or {}).items()})
+            diag = res.doc["diagnostics"]
+            out["gate_passed"] = bool(diag.get("passed"))
+            out["failing"] = diag.get("failing")
+            stats = res.idata.sample_stats
+            out["divergences"] = int(stats["diverging"].sum())
+            if "n_steps" in stats:
+                out["mean_leapfrog_steps"] = float(stats["n_steps"].mean())
+    out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: KiB
+    return out
+
+
+def main() -> None:
+    """Run the fit in a fresh interpreter and print the figures against the target."""
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--subjects", type=int, default=20)
+    ap.add_argument("--samples", type=int, default=10, help="haemoglobin readings per subject (at most 10)")
+    ap.add_argument("--build-only", action="store_true", help="load and build only; no sampling")
+    ap.add_argument("--cap", type=float, default=None, help="seconds after which the child is stopped")
+    ap.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
+    args = ap.parse_args()
+    if args.child:
+        print(json.dumps(child(args.subjects, args.samples, args.build_only)))
+        return
+    cmd = [sys.executable, __file__, "--child", "--subjects", str(args.subjects), "--samples", str(args.samples)]
+    cmd += ["--build-only"] if args.build_only else []
+    load = os.getloadavg()[0]
+    t0 = time.perf_counter()
+    try:
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=args.cap)
+    except subprocess.TimeoutExpired:
+        print(f"{args.subjects} subjects x {args.samples} Hb: stopped at the cap of {args.cap:g} s (load average "
+              f"{load:.1f} at the start; wall time is a lower bound)")
+        return
+    wall = time.perf_counter() - t0
+    last = (done.stdout.strip().splitlines() or ["{}"])[-1]
+    try:
+        row = json.loads(last)
+    except json.JSONDecodeError:
+        print(f"failed (exit {done.returncode}): {done.stderr.strip()[-500:]}")
+        return
+    gate = "" if "gate_passed" not in row else f", gate {'passed' if row['gate_passed'] else 'FAILED'}"
+    if row.get("failing"):
+        gate += f" ({'; '.join(row['failing'])})"
+    infer = "" if "infer_s" not in row else (
+        f", infer {row['infer_s']:.1f} s ({row['infer_cpu_s']:.0f} s CPU; compile {row.get('compile_s', 0):.1f} s, "
+        f"sampling {row.get('sample_s', 0):.1f} s; {row.get('divergences', 0)} divergences, "
+        f"{row.get('mean_leapfrog_steps', float('nan')):.0f} leapfrog steps per draw)")
+    print(f"{args.subjects} subjects x {args.samples} Hb (load average {load:.1f} at the start): load "
+          f"{row['load_s']:.2f} s, build {row['build_s']:.1f} s{infer}, wall {wall:.1f} s, "
+          f"peak {row['peak_mb']:.0f} MB, {row['free_variables']} free variables{gate}")
+    if "infer_s" in row:
+        met = row.get("gate_passed") and wall <= TARGET_SECONDS
+        print(f"target: a passed gate in at most {TARGET_SECONDS:.0f} s: {'met' if met else 'NOT met'}")
+
+
+if __name__ == "__main__":
+    main()
