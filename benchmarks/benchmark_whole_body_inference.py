@@ -133,6 +133,7 @@ def child(n: int, samples: int, build_only: bool) -> dict[str, object]:
         built = build_model(problem_from_study(study))
         out["build_s"] = time.perf_counter() - t0
         out["free_variables"] = len(built.model.free_RVs)
+        print(f"built in {out['build_s']:.1f} s; infer starts", file=sys.stderr, flush=True)
         del built
         if not build_only:
             from uncertainty.analyses.inference import infer
@@ -174,9 +175,10 @@ def main() -> None:
     t0 = time.perf_counter()
     try:
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=args.cap)
-    except subprocess.TimeoutExpired:
+    except subprocess.TimeoutExpired as exc:
+        said = exc.stderr.decode() if isinstance(exc.stderr, bytes) else (exc.stderr or "")
         print(f"{args.subjects} subjects x {args.samples} Hb: stopped at the cap of {args.cap:g} s (load average "
-              f"{load:.1f} at the start; wall time is a lower bound)")
+              f"{load:.1f} at the start; wall time is a lower bound); the child said: {said.strip()[-300:]}")
         return
     wall = time.perf_counter() - t0
     last = (done.stdout.strip().splitlines() or ["{}"])[-1]

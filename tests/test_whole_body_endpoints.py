@@ -256,7 +256,7 @@ def test_urine_refusals(tmp_path: Path, rows: str, obs: dict, key: str) -> None:
 
 
 def test_urine_prediction_is_the_timeline_course(tmp_path: Path) -> None:
-    # what the term interpolates (whole_body_course, here in numpy; the term builds the same in PyTensor with 2-min
+    # what the term interpolates (whole_body_course, here in numpy; the term builds the same in PyTensor with 4-min
     # steps) against propagate's timeline of the same draws (0.5-min steps): equal to the Runge-Kutta error
     from uncertainty.analyses.inference.observations.course import whole_body_course
     from uncertainty.forms.evaluate import input_values

@@ -27,9 +27,9 @@ WEIGHT_BASE = (70.0, 82.0, 66.0)  # kg, invented
 HB_SD = 0.15          # g/dL, from memory: analysers repeat to about 1-2% at 14 g/dL
 URINE_SD = 15.0       # mL, invented (a graduated collection read to a few tens of mL)
 WEIGHT_SD = 0.1       # kg, from memory: a ward or research scale reads to about 0.1 kg
-HB_TIMES = (0.0, 20.0, 30.0, 60.0)      # min, invented protocol
-URINE_TIMES = (30.0, 60.0)
-WEIGHT_TIMES = (0.0, 30.0, 60.0)
+HB_TIMES = (0.0, 20.0, 30.0, 40.0)      # min, invented protocol
+URINE_TIMES = (30.0, 40.0)
+WEIGHT_TIMES = (0.0, 30.0, 40.0)
 
 
 def _doc() -> dict:
@@ -39,7 +39,7 @@ def _doc() -> dict:
     return {"study": {"tissue": "skeletal_muscle", "model": "whole_body", "body_mass": "73 kg", "seed": 11},
             "interventions": [{"kind": "infusion", "fluid": "crystalloid", "volume": "1825 mL",
                                "duration": "30 min"}],
-            "timeline": {"end": "60 min", "report_every": "10 min", "draws": 16},
+            "timeline": {"end": "40 min", "report_every": "10 min", "draws": 16},
             "observations": obs}
 
 

@@ -171,7 +171,7 @@ def test_points_on_the_fan_chart(tmp_path: Path) -> None:
 @pytest.mark.parametrize("interventions", [
     CRYSTALLOID, [{"kind": "bleed", "volume": "450 mL", "duration": "10 min"}]])
 def test_the_models_step_is_accurate_against_a_fine_one(tmp_path: Path, interventions: list) -> None:
-    # the course inside the model takes steps of up to MAX_STEP_MIN (5 min); against steps of 0.25 min over 64
+    # the course inside the model takes steps of up to MAX_STEP_MIN (4 min); against steps of 0.25 min over 64
     # individual-layer draws its error stays a tenth or less of a reading's error: 1e-3 in the Hb ratio (an Hb
     # reading repeats to about 1-2%, from memory), 2 mL of urine, 2 g of weight (a scale reads to about 0.1 kg,
     # from memory)

@@ -6,7 +6,7 @@ applied to serial haemoglobin. A baseline sample at time 0 is always drawn; each
 reading the ``haemoglobin`` observation kind fits, y_j = Hb(t_j) / Hb(0) = hb_ratio(t_j), with the normal error
 of that ratio by the kind's delta method, sd_j = noise_sd sqrt(1 + y_j^2) / hb_ref (y_j at the prior median; the
 baseline's error shared by the ratios neglected, as the kind neglects it). The time course is the one the kind
-solves (``inference.observations.course.whole_body_course``, Runge-Kutta steps of at most 2 min, linear
+solves (``inference.observations.course.whole_body_course``, Runge-Kutta steps of at most ``MAX_STEP_MIN``, linear
 interpolation between report times).
 
 The parameters phi are the study's uncertain inputs, on the log scale for a positive quantity; their prior
