@@ -14,6 +14,13 @@ model (``problem_from_study`` + ``build_model``, no compiling), and of ``infer``
 (``resource.getrusage``) and the quality gate's verdict as ``infer`` reports it (R-hat, ESS, divergences; the
 failing quantities). Target (issue 20): a passed gate in at most 5 minutes on 2 cores.
 
+Measured 2026-12-04 (shared 2-core machine, load average 4-7, main 532663f + branch wbfit): NOT met. Building the
+model took 114 s (2-min steps; the course is now built in 4-min steps without tracebacks); ``infer`` then stayed in
+PyMC's ``Model.logp`` (``construct_ir_fgraph``: equilibrium rewrites with a toposort per replacement over the
+unrolled Runge-Kutta graph) until the 2400 s cap, before numba or the sampler started. A 3-subject, 12-step model
+spent over 7 min there; wrapped in an ``OpFromGraph`` it took 51 s, but numba then rewrote the inner graph for
+minutes. The graph, not the sampling, dominates: a ``scan`` over the steps would keep one step's graph.
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] (``--cap``: stop the child after this many seconds; its figures are then lower bounds.)
 """
