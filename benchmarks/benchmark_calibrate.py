@@ -13,6 +13,12 @@ every time): before refits on workers sampled in one thread each, 100 replicates
 1.06x, which the 100-replicate figures do not explain (run-to-run noise of this shared machine not ruled out).
 The 1.7x target is not shown met.
 
+Measured 2026-12-04 (idle 2-core machine, load 1.3 at the start; refits at infer's defaults, 4 x (1000 + 1000)):
+100 replicates 38.8 s on 1 worker, 31.1 s on 2, 1.25x; 400 replicates 96.1 s and 61.8 s, 1.55x. A refit of this
+one-quantity study takes about 0.2 s, so the compile of about 12 s per worker (nutpie's numba functions cannot be
+pickled to the workers or cached on disk: "dynamic globals") and the dask processes' own share of the 2 cores weigh
+on the 2-worker run; with 400 replicates the ideal would be 12 + 84 / 2 = 54 s (1.78x).
+
 Run: python benchmarks/benchmark_calibrate.py [--replicates 100]
 """
 

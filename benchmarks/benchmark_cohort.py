@@ -29,6 +29,16 @@ subjects 146.7 s, 2,304 MB, gate FAILED (R-hat up to 1.14: Kf, r, sigma and five
 memory x1.42 and x3.1 for x5 and x25 subjects: both grow slower than linearly, but at the default settings the
 chains do not mix for the between-subject spreads of larger cohorts.
 
+Measured 2026-12-04 after three changes to how a cohort is sampled (one spread factor for the quantities the data
+reach only together; the typical scores reflected along Jv for weights; centred subject values for a quantity every
+subject reads), idle 2-core machine: 40 subjects 45.5 s wall (infer 37.0 s), 715 MB, gate passed; 200 subjects
+68.1 s, 1,118 MB, gate passed; 1,000 subjects 163.6 s, 2,341 MB, gate FAILED (worst: r bulk ESS 101, tail ESS 84,
+R-hat 1.038; Kf, Pv, sigma, the joint spread and the share below 400 bulk ESS). Time x1.50 and x3.60, memory x1.56
+and x3.27 for x5 and x25 subjects. With the changes one at a time (loaded machine): the spread factor alone turned
+200 subjects from failed (Pa__spread bulk ESS 305) to passed; the reflection took the 1,000-subject worst bulk ESS
+from 36 to 165; nutpie's low-rank mass matrix instead took 21 min there and still failed (r bulk ESS 90); fixing
+the share did not help (r bulk ESS 75), so the ridge is in the typical Starling quantities themselves.
+
 Run: python benchmarks/benchmark_cohort.py [--sizes 40 200 1000] [--build-only] [--cap SECONDS]
 (``--cap``: stop a size's child after this many seconds; its figures are then lower bounds.)
 """
