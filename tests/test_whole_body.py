@@ -263,6 +263,30 @@ def test_numpy_and_pytensor_agree() -> None:
         [], wb.protein_from_oncotic(pt.constant(25.0), xp=pt), mode="FAST_COMPILE")()), rel_tol=1e-12)
 
 
+@pytest.mark.slow
+def test_pytensor_course_is_one_scan_and_agrees_with_numpy() -> None:
+    """simulate(xp=pytensor) solves the timeline as one scan over the report intervals: same numbers as the numpy
+    loop (to rounding), and a graph whose size does not grow with the timeline's length."""
+    pytensor = pytest.importorskip("pytensor")
+    pt = pytest.importorskip("pytensor.tensor")
+    body, beds, Cp0 = _params(4, {"Kf": [0.5, 1.0, 1.5, 2.0]})
+    kf = pt.dvector("kf")
+    beds_sym = {name: {**p, "Kf": kf * (p["Kf"] / beds["muscle"]["Kf"])} for name, p in beds.items()}
+    doses = _dose("crystalloid", 1500.0, 30.0) + _dose("bleed", 400.0, 10.0, start=40.0)
+    sizes = []
+    for end in (60.0, 240.0):
+        sym = wb.simulate(body, beds_sym, Cp0, doses, end, 15.0, max_step=4.0, xp=pt)
+        outs = [pt.as_tensor_variable(x) + 0.0 * kf for name in wb.TIMELINE_UNITS for x in sym[name]]
+        sizes.append(len(list(pytensor.graph.basic.ancestors([outs[-1]]))))
+    got = pytensor.function([kf], outs, mode="FAST_COMPILE")(beds["muscle"]["Kf"])
+    want = wb.simulate(body, beds, Cp0, doses, 240.0, 15.0, max_step=4.0)
+    assert sym["times_min"] == want["times_min"]
+    flat = [np.broadcast_to(x, (4,)) for name in wb.TIMELINE_UNITS for x in want[name]]
+    for g, w in zip(got, flat, strict=True):
+        np.testing.assert_allclose(g, w, rtol=1e-9, atol=1e-9, equal_nan=True)
+    assert sizes[1] < 1.2 * sizes[0]   # four times the timeline, about the same graph
+
+
 # --- published time courses (typical subject at the prior medians) ------------------------------------------
 
 @pytest.fixture(scope="module")

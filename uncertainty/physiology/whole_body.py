@@ -635,9 +635,10 @@ def weight_change(given: Array, bled: Array, urine: Array, t: Array) -> Array:
     return (given - bled - urine - INSENSIBLE_LOSS_ML_MIN * t) * (KG_PER_L / 1000.0)
 
 
-def _report(state: Mapping[str, Array], given: float, p: _Prepared, xp: Any,
-            f: Mapping[str, Array] | None = None, t: float = 0.0) -> dict[str, Array]:
-    """:func:`report` on prepared constants; ``f``: the fluxes at ``state`` if known; ``t``: time, min."""
+def _report(state: Mapping[str, Array], given: Array, p: _Prepared, xp: Any,
+            f: Mapping[str, Array] | None = None, t: Array = 0.0) -> dict[str, Array]:
+    """:func:`report` on prepared constants; ``f``: the fluxes at ``state`` if known; ``t``: time, min (``given`` and
+    ``t`` may be columns over report times, the state then (reports, draws))."""
     if f is None:
         f = _fluxes(state, p, xp, compliance=False)
     dVp = state["Vp"] - p.Vp0
@@ -703,6 +704,8 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
         ``times_min`` (list of float) and, for each name of :data:`TIMELINE_UNITS`, a list of arrays (one
         per report time, each over the draws).
     """
+    if xp is not np:
+        return _simulate_scan(body, beds, Cp0, doses, end, report_every, max_step)
     dt, n_steps, per = time_grid(end, report_every, max_step)
     if xp is np:  # float64, contiguous: one memory layout for every operand of the step loop
         body = {k: _f64(v) for k, v in body.items()}
@@ -729,6 +732,49 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
             for k, v in _report(state, given, p, xp, f, t=(i + 1) * dt).items():
                 series[k].append(v)
     return {"times_min": times, **series}
+
+
+def _simulate_scan(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]], Cp0: Array,
+                   doses: Sequence[Dose], end: float, report_every: float, max_step: float) -> dict[str, Any]:
+    """:func:`simulate` in PyTensor as one ``scan`` over the report intervals (the steps of one interval unrolled in
+    its body), so the graph holds one interval whatever the timeline's length: unrolled, the graph of a 4-hour
+    course had tens of thousands of nodes, which PyMC's log-density rewrites and the compilers traversed for tens of
+    minutes. The reports are taken afterwards, over all report times at once. Same arithmetic as the numpy loop."""
+    import pytensor
+    import pytensor.tensor as pt
+
+    dt, n_steps, per = time_grid(end, report_every, max_step)
+    state, rest = initial_state(body, beds, Cp0, pt)
+    p = _Prepared(body, beds, rest, pt)
+    keys = list(state)
+    like = sum(0.0 * pt.as_tensor_variable(v) for v in state.values())   # one shape for every state variable
+    start = [pt.as_tensor_variable(state[k]) + like for k in keys]
+    plan = np.array([(*step_rates(doses, i * dt, dt, equivalent=True), *renal_terms(doses, (i + 1) * dt))
+                     for i in range(n_steps)], dtype=float).reshape(n_steps // per, per, 5)
+    # the model's quantities enter the loop as explicit inputs (strict scan: PyMC must see every random variable
+    # the loop reads in order to replace it by its value variable in the log density)
+    inputs = {"body": body, "rest": rest, **{f"bed:{name}": b for name, b in beds.items()}}
+    leaves = [(group, k) for group, d in inputs.items() for k, v in d.items() if isinstance(v, pytensor.graph.Variable)]
+
+    def interval(rates: Any, *args: Any) -> list[Any]:
+        values, given = args[:len(keys)], dict(zip(leaves, args[len(keys):], strict=True))
+        inner = {group: {k: given.get((group, k), v) for k, v in d.items()} for group, d in inputs.items()}
+        q = _Prepared(inner["body"], {name: inner[f"bed:{name}"] for name in beds}, inner["rest"], pt)
+        st = dict(zip(keys, values, strict=True))
+        for j in range(per):
+            st = _rk4(st, tuple(rates[j, k] for k in range(5)), dt, q, pt)
+        return [st[k] for k in keys]
+
+    ends, _ = pytensor.scan(interval, sequences=[pt.constant(plan)], outputs_info=start,
+                            non_sequences=[inputs[g][k] for g, k in leaves], n_steps=n_steps // per,
+                            strict=True, return_list=True)
+    # every report time at once: rows 0 (rest) and the end of each interval, (reports, draws)
+    at = {k: pt.concatenate([v[None], e], axis=0) for k, v, e in zip(keys, start, ends, strict=True)}
+    times = [i * per * dt for i in range(n_steps // per + 1)]
+    given = np.concatenate([[0.0], np.cumsum(plan[:, :, 0].sum(axis=1) * dt)])[:, None]
+    t = np.array(times)[:, None]
+    rep = _report(at, given, p, pt, t=t)
+    return {"times_min": times, **{k: [rep[k][r] for r in range(len(times))] for k in TIMELINE_UNITS}}
 
 
 #: Draws per block of :func:`simulate_blocks`: our measured choice (65,536 draws of a 4-hour infusion at 1-min

@@ -341,8 +341,8 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
         scores: dict[str, Any] = {}
         collapsed: dict[str, Any] = {}
         plain = [q for q, p in problem.priors.items() if _non_centred(p)]
-        # (a quantity read on its own keeps its own score: its readings pin it, not the outputs' direction)
-        typical_z = _typical_scores(problem, [q for q in plain if q not in _read_alone(problem)]) \
+        # (a quantity every subject reads keeps its own score: its readings pin it, not the outputs' direction)
+        typical_z = _typical_scores(problem, [q for q in plain if q not in _read_alone(problem, labels)]) \
             if hierarchical else {}
         paired = {q for pair in problem.between_correlations for q in pair[:2]}
         for name, prior in problem.priors.items():
@@ -528,21 +528,22 @@ def _centred_layer(name: str, prior: Any, base: Any, ratio: Any) -> Any:
     return pt.exp(lx)
 
 
-def _read_alone(problem: Problem) -> set[str]:
+def _read_alone(problem: Problem, every: list[str] | None = None) -> set[str]:
     """Uncertain quantities a ``measurement`` reads on its own: the quantity itself, or one computed from it
-    alone (pi_c from Cp)."""
+    alone (pi_c from Cp); with ``every`` (subject labels), only those read in every one of those subjects."""
     derived = getattr(getattr(problem, "study", None), "derived", None) or {}
 
     def roots(q: str) -> set[str]:   # the uncertain quantities a quantity is computed from (itself if declared)
         d = derived.get(q)
         return {q} if d is None else set().union(*(roots(i) for i in d.inputs))
 
-    read: set[str] = set()
+    seen: dict[str, set[Any]] = {}
     for o in problem.observations:
         if o.kind == "measurement" and o.parameter:
             found = roots(o.parameter) & set(problem.priors)
-            read |= found if len(found) == 1 else set()
-    return read
+            if len(found) == 1:
+                seen.setdefault(found.pop(), set()).update(set(o.rows.subject) if o.rows is not None else {o.subject})
+    return {q for q, subjects in seen.items() if every is None or subjects >= set(every)}
 
 
 #: Step (in standard-normal score units) of the finite differences that find a reading's direction in
