@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 from scipy.integrate import solve_ivp
+from toml_text import toml_text
 
 from uncertainty.analyses.propagate import propagate
 from uncertainty.analyses.propagate.timeline import bed_ratios
@@ -388,17 +389,7 @@ def _doc(interventions: list[dict] | None = None, **head) -> dict:
 
 
 def _toml(doc: dict) -> str:
-    """The small documents of these tests as TOML (tables of scalars and lists of such tables)."""
-    def val(x):
-        return json.dumps(x) if isinstance(x, str | list) else repr(x)
-
-    lines = []
-    for name, table in doc.items():
-        rows = table if isinstance(table, list) else [table]
-        for row in rows:
-            lines.append(f"[[{name}]]" if isinstance(table, list) else f"[{name}]")
-            lines += [f"{k} = {val(v)}" for k, v in row.items()]
-    return "\n".join(lines) + "\n"
+    return toml_text(doc)
 
 
 def test_study_resolves_interventions_in_canonical_units() -> None:

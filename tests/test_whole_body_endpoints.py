@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from toml_text import toml_text
 
 from uncertainty.analyses.design import _endpoint, parse_design
 from uncertainty.analyses.propagate.timeline import run_layer, values_at, values_over_time
@@ -34,17 +35,7 @@ def _doc(**sections) -> dict:
 
 
 def _toml(doc: dict) -> str:
-    def val(x):
-        if isinstance(x, dict):
-            return "{ " + ", ".join(f"{k} = {val(v)}" for k, v in x.items()) + " }"
-        return json.dumps(x) if isinstance(x, str | list) else repr(x)
-
-    lines = []
-    for name, table in doc.items():
-        for row in table if isinstance(table, list) else [table]:
-            lines.append(f"[[{name}]]" if isinstance(table, list) else f"[{name}]")
-            lines += [f"{k} = {val(v)}" for k, v in row.items()]
-    return "\n".join(lines) + "\n"
+    return toml_text(doc)
 
 
 @pytest.fixture(scope="module")

@@ -5,12 +5,12 @@ subject's first, refusals (exit 2 naming file, key or line), and the observed po
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from toml_text import toml_text
 
 from uncertainty.analyses.inference.observations import kind_module
 from uncertainty.analyses.inference.observations.course import whole_body_course
@@ -42,17 +42,7 @@ def _study(tmp: Path, rows: str = ROWS, **kw) -> Study:
 
 
 def _toml(doc: dict) -> str:
-    def val(x):
-        if isinstance(x, dict):
-            return "{ " + ", ".join(f"{k} = {val(v)}" for k, v in x.items()) + " }"
-        return json.dumps(x) if isinstance(x, str | list) else repr(x)
-
-    lines = []
-    for name, table in doc.items():
-        for row in table if isinstance(table, list) else [table]:
-            lines.append(f"[[{name}]]" if isinstance(table, list) else f"[{name}]")
-            lines += [f"{k} = {val(v)}" for k, v in row.items()]
-    return "\n".join(lines) + "\n"
+    return toml_text(doc)
 
 
 def _one(series: list) -> np.ndarray:
