@@ -21,6 +21,12 @@ unrolled Runge-Kutta graph) until the 2400 s cap, before numba or the sampler st
 spent over 7 min there; wrapped in an ``OpFromGraph`` it took 51 s, but numba then rewrote the inner graph for
 minutes. The graph, not the sampling, dominates: a ``scan`` over the steps would keep one step's graph.
 
+Measured again 2026-12-04 after the course became one strict ``scan`` over the report intervals (main 54448ac, load
+0.8 at the start, the test suite running beside it for most of the time): the model built in seconds and ``infer``
+passed PyMC's log density, but nutpie's compile (PyTensor's rewrites of the log density and its gradient through
+the scan, then numba and LLVM) was still running at the 1400 s cap. NOT met; the compile, not the sampling, is what
+remains (a smaller scan body, e.g. one Runge-Kutta step per iteration, or a custom Op with a hand-written gradient).
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] (``--cap``: stop the child after this many seconds; its figures are then lower bounds.)
 """
