@@ -486,7 +486,7 @@ def _centred(problem: Problem, scored: dict[str, tuple[Any, Any, Any]], labels: 
 
     Non-centred scores suit subjects the data say little about; when every subject's readings pin the value,
     each score must move with the typical value and the spread, and the chains crawl (40 invented subjects
-    with plasma protein read to 0.2 g/dL against a spread of 0.45: bulk ESS of the typical Cp 374 in 4,000
+    with plasma protein read to 0.2 g/dL against a spread of 0.7 (sepsis): bulk ESS of the typical Cp 374 in 4,000
     draws). The usual remedy is the centred form (Betancourt & Girolami 2015, see :data:`PIN_RATIO`).
     """
     if _pinned_readings(problem):
