@@ -45,12 +45,7 @@ pi_c = 25.0
 pi_i = 10.0
 sigma = 0.9
 
-[[observations]]
-kind = "measurement"
-parameter = "Pc"
-value = 24.0
-sd = 2.0
-unit = "mmHg"
+OBSERVATIONS
 
 [infer]
 chains = 4
@@ -59,12 +54,34 @@ tune = TUNE
 """
 
 
+ONE_READING = """[[observations]]
+kind = "measurement"
+parameter = "Pc"
+value = 24.0
+sd = 2.0
+unit = "mmHg"
+"""
+
+
+def study_text(draws: int, tune: int, subjects: int) -> str:
+    """The invented benchmark study: one Pc reading, or one reading for each of ``subjects`` invented subjects (Pc
+    then with an invented between-subject sd of 2 mmHg, so each refit samples a hierarchical model)."""
+    text = STUDY.replace("DRAWS", str(draws)).replace("TUNE", str(tune))
+    if subjects <= 1:
+        return text.replace("OBSERVATIONS", ONE_READING)
+    text = text.replace('unit = "mmHg" }', 'unit = "mmHg", between_subject = { sd = 2.0 } }', 1)
+    readings = "".join(ONE_READING.replace("value = 24.0", f"value = {22.0 + 0.5 * k:g}") + f'subject = "S{k}"\n\n'
+                       for k in range(subjects))   # invented readings, mmHg
+    return text.replace("OBSERVATIONS", readings)
+
+
 def main() -> None:
     """Time one calibration on 1 and on 2 workers and print the ratio."""
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--replicates", type=int, default=100, help="replicates N (a multiple of 5 x bins)")
     ap.add_argument("--draws", type=int, default=1000, help="draws per chain of each refit (default: infer's)")
     ap.add_argument("--tune", type=int, default=1000, help="warm-up steps per chain (default: infer's)")
+    ap.add_argument("--subjects", type=int, default=1, help="invented subjects with one Pc reading each (default 1)")
     args = ap.parse_args()
 
     from uncertainty.analyses.calibrate import calibrate
@@ -74,7 +91,7 @@ def main() -> None:
     print(f"load average before: {os.getloadavg()[0]:.2f} (1 min) on {os.cpu_count()} cores", flush=True)
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "study.toml"
-        path.write_text(STUDY.replace("DRAWS", str(args.draws)).replace("TUNE", str(args.tune)))
+        path.write_text(study_text(args.draws, args.tune, args.subjects))
         study = load_study(path)
         times, verdicts = {}, {}
         for n in (1, 2):
