@@ -17,7 +17,10 @@ Measured 2026-12-04 (idle 2-core machine, load 1.3 at the start; refits at infer
 100 replicates 38.8 s on 1 worker, 31.1 s on 2, 1.25x; 400 replicates 96.1 s and 61.8 s, 1.55x. A refit of this
 one-quantity study takes about 0.2 s, so the compile of about 12 s per worker (nutpie's numba functions cannot be
 pickled to the workers or cached on disk: "dynamic globals") and the dask processes' own share of the 2 cores weigh
-on the 2-worker run; with 400 replicates the ideal would be 12 + 84 / 2 = 54 s (1.78x).
+on the 2-worker run; with 400 replicates the ideal would be 12 + 84 / 2 = 54 s (1.78x). With ``--subjects 12``
+(a hierarchical refit of about 1 s): 100 replicates 117.8 s and 74.5 s, 1.58x; 200 replicates 184.8 s and 125.9 s,
+1.47x. The 2-worker run grows by 51 s per 100 replicates against 67 s on 1 worker, so part of each replicate's cost
+is serial (dispatch and result handling on the client side, not yet profiled). Target not met.
 
 Run: python benchmarks/benchmark_calibrate.py [--replicates 100]
 """
