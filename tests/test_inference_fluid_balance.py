@@ -129,3 +129,17 @@ def test_kf_posterior_from_weights_matches_conjugate_normal(tmp_path: Path) -> N
     kf = res.idata.posterior["Kf"].values.ravel()
     assert abs(kf.mean() - mean) < 4 * np.sqrt(1 / prec) / np.sqrt(kf.size / 4)
     assert kf.std() == pytest.approx(np.sqrt(1 / prec), rel=0.2)
+
+
+def test_the_kinds_note_is_given_once() -> None:
+    """A kind that notes its NOTE after the observation's key is not noted again bare (the weights note appeared
+    twice in `fluidshift infer`); a kind whose note is absent still gets it."""
+    from types import SimpleNamespace
+
+    from uncertainty.analyses.inference.api import with_kind_notes
+    from uncertainty.analyses.inference.observations import fluid_balance, haemoglobin
+
+    weights = SimpleNamespace(kind="body_weight", extra={}, rows=None)
+    hb = SimpleNamespace(kind="haemoglobin", extra={}, rows=None)
+    notes = with_kind_notes([f"observations[3]: {fluid_balance.NOTE}"], [weights, hb])
+    assert notes == [f"observations[3]: {fluid_balance.NOTE}", haemoglobin.NOTE]

@@ -696,7 +696,7 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
     max_step : float
         Largest Runge-Kutta step, min (the step divides ``report_every``).
     xp : module
-        numpy or pytensor.tensor.
+        numpy or pytensor.tensor (PyTensor: one scan over the report intervals, :func:`_simulate_scan`).
 
     Returns
     -------
@@ -707,10 +707,10 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
     if xp is not np:
         return _simulate_scan(body, beds, Cp0, doses, end, report_every, max_step)
     dt, n_steps, per = time_grid(end, report_every, max_step)
-    if xp is np:  # float64, contiguous: one memory layout for every operand of the step loop
-        body = {k: _f64(v) for k, v in body.items()}
-        beds = {name: {k: _f64(v) for k, v in b.items()} for name, b in beds.items()}
-        Cp0 = _f64(Cp0)
+    # float64, contiguous: one memory layout for every operand of the step loop
+    body = {k: _f64(v) for k, v in body.items()}
+    beds = {name: {k: _f64(v) for k, v in b.items()} for name, b in beds.items()}
+    Cp0 = _f64(Cp0)
     state, rest = initial_state(body, beds, Cp0, xp)
     p = _Prepared(body, beds, rest, xp)
     # the intervention rates of every step depend on time only: computed once, before the loop

@@ -141,6 +141,30 @@ def settings(study: Any, **given: Any) -> dict[str, Any]:
     return out
 
 
+def with_kind_notes(notes: Sequence[str], observations: Sequence[Any]) -> list[str]:
+    """``notes`` plus each observation kind's ``NOTE`` that no note already ends with (a kind that noted it after
+    the observation's key, ``observations[3]: ...``, is not noted twice).
+
+    Parameters
+    ----------
+    notes : sequence of str
+        The notes of the built model.
+    observations : sequence of Observation
+        The problem's observations.
+
+    Returns
+    -------
+    list of str
+        The notes, each once.
+    """
+    out = list(notes)
+    for obs in observations:
+        note = getattr(kind_module(obs), "NOTE", "")
+        if note and not any(n.endswith(note) for n in out):
+            out.append(note)
+    return out
+
+
 def infer(study: Any, sampler: str | None = None, seed: int | None = None, chains: int | None = None,
           draws: int | None = None, tune: int | None = None, gate: Any = None, compare_models: bool = False,
           checks: bool = True, observations: Sequence[Any] | None = None,
@@ -384,11 +408,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
             for k, sid in enumerate(built.subjects):
                 subjects[sid][label] = summarise(draws[:, k])
 
-    notes = list(built.notes)
-    for obs in problem.observations:
-        note = getattr(kind_module(obs), "NOTE", "")
-        if note and note not in notes:
-            notes.append(note)
+    notes = with_kind_notes(built.notes, problem.observations)
     for note in posterior_output_notes(problem, post):
         if note not in notes:
             notes.append(note)
