@@ -78,9 +78,9 @@ SECTIONS: list[tuple[str, str, str, str]] = [
     ("timeline", "[timeline]", "TimelineSection",
      "How long the `whole_body` time courses run and how often `propagate` reports them (its `timeline` entry: "
      "median and 95% interval per reported time for the typical subject and the individual; with timed "
-     "`haemoglobin`, `plasma_protein`, `urine` or `body_weight` observations also `observed`: each subject's Hb "
-     "or protein readings over its first, weights minus its first (kg), urine volumes as read, drawn on the fan "
-     "chart). Besides the volumes and ratios it reports `body_weight_change` (kg since 0: infused minus whole blood "
+     "`haemoglobin`, `haematocrit`, `plasma_protein`, `urine` or `body_weight` observations also `observed`: each "
+     "subject's Hb, Hct or protein readings over its first, weights minus its first (kg), urine volumes as read "
+     "(urine flows as the volumes they add up to), drawn on the fan chart). Besides the volumes and ratios it reports `body_weight_change` (kg since 0: infused minus whole blood "
      "bled minus all urine minus insensible loss, 1 kg per L). "
      "`[sensitivity] output`, `[rank] output` and `[design] endpoint` read a time course at a time written "
      "\"NAME at TIME\", e.g. \"infused_retained_fraction at 60 min\"."),
@@ -162,14 +162,21 @@ MEANINGS: dict[str, str] = {
                          "from a data file with times: the organ's Jv x tissue mass x days is the declared `share` "
                          "of the body's net fluid gain, filtration constant over the period, charted balances "
                          "omitting insensible losses (needs [study] tissue_mass; sd only); in a whole_body study "
-                         "body_weight takes no share and no tissue mass: each subject's weight change from its "
-                         "earliest reading (kg or any mass unit, sd only) against the body's own balance since time "
-                         "0, infused minus whole blood bled minus all urine minus insensible loss (0.52 mL/min, "
-                         "Institute of Medicine 2005), 1 kg per L, nothing taken by mouth; whole_body form only: "
+                         "both take no share and no tissue mass: body_weight is each subject's weight change from "
+                         "its earliest reading (kg or any mass unit, sd only) against the body's own balance since "
+                         "time 0, infused minus whole blood bled minus all urine minus insensible loss (0.52 mL/min, "
+                         "Institute of Medicine 2005), 1 kg per L, nothing taken by mouth; fluid_balance is the "
+                         "charted balance since time 0 (L, sd only) against the same balance without the insensible "
+                         "loss a chart does not record (infused minus bled minus all urine); whole_body form only: "
                          "haemoglobin (serial blood Hb per subject from a data file with times, g/dL, sd only: each "
                          "subject's readings relative to its earliest one against the time course of Hb relative "
-                         "to rest), urine (cumulative urine volume since time 0 per subject from a data file "
-                         "with times, mL, sd only, against the time course of urine) and plasma_protein (serial "
+                         "to rest), haematocrit (serial Hct per subject from a data file with times, as a fraction, "
+                         "`unit = \"1\"` (default), or in per cent, `unit = \"%\"`, strictly between 0 and 1 "
+                         "(0 and 100 %), sd only: fitted as haemoglobin, to the same time course), urine (per subject "
+                         "from a data file with times, sd only, `how`: the cumulative volume since time 0, mL, "
+                         "against the time course of urine, or the mean flow since the subject's previous reading "
+                         "or time 0, mL/min or any flow unit, against the change of that course over the interval) "
+                         "and plasma_protein (serial "
                          "plasma total protein or albumin, `protein`, per subject from a data file with times, g/dL "
                          "or any concentration unit, sd only: each subject's readings relative to its earliest one "
                          "against the time course of plasma protein concentration, mass over plasma volume, relative "
@@ -217,6 +224,9 @@ MEANINGS: dict[str, str] = {
     "observations.site": "lymph_flow: where lymph was collected, pre_nodal or post_nodal",
     "observations.protein": "plasma_protein: the protein read, total (default) or albumin (albumin readings are "
                             "refused in a study that infuses albumin: the form has one plasma protein pool)",
+    "observations.how": "urine: what each reading is, cumulative (default: volume since time 0, mL) or rate (mean "
+                        "flow since the subject's previous reading or time 0, mL/min or any flow unit; a negative "
+                        "rate, a first rate at time 0 and two rates of one subject at one time are refused)",
     "observations.every": "volume_time_course: fit every k-th reading of each subject (1 = all; fewer is faster)",
     "observations.step.parameter": "the stepped pressure (Pv)",
     "observations.step.to": "the pressure after the step, in `unit` (default mmHg)",

@@ -63,6 +63,8 @@ CANONICAL: dict[str, str] = {
     # whole-body albumin transcapillary escape rate: % of the plasma albumin mass leaving per hour
     "TER": "%/h",
     "body_weight": "kg", "fluid_balance": "L", "organ_share": "1", "urine_volume": "mL",
+    # whole_body readings: haematocrit as a fraction of blood volume, urine flow (mean over an interval)
+    "Hct": "1", "urine_flow": "mL/min",
 }
 
 _BASIS_RE = re.compile(r"\s*(?:/|\bper\b)\s*\(?\s*100\s*(g|mL|ml)\s*\)?\s*(?:tissue)?\s*$")

@@ -33,6 +33,7 @@ from uncertainty.study.schema import (  # noqa: F401
     CSV_COLUMNS,
     OBS_NEEDS,
     OBS_SYMBOL,
+    OBS_SYMBOL_HOW,
     SECTIONS,
     STRICT_CONFIG,
     TEXT_COLUMNS,
@@ -63,6 +64,7 @@ from uncertainty.study.schema import (  # noqa: F401
     Threshold,
     TimeColumn,
     TimelineSection,
+    obs_symbol,
 )
 from uncertainty.study.study import (  # noqa: F401
     Study,

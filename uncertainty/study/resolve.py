@@ -74,7 +74,6 @@ from uncertainty.study.schema import (
     MAX_CV,
     NAMED_ENDPOINTS,
     OBS_NEEDS,
-    OBS_SYMBOL,
     SECTIONS,
     TOP_LEVEL,
     CalibrateSection,
@@ -92,6 +91,7 @@ from uncertainty.study.schema import (
     SensitivitySection,
     StepSpec,
     StudySection,
+    obs_symbol,
 )
 
 M = TypeVar("M", bound=BaseModel)
@@ -1043,9 +1043,9 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
     if ob.kind == "lymph_flow" and ctx.tissue in NO_LYMPH:
         raise study_error(f"lymph-flow observations are refused for {ctx.tissue}: {NO_LYMPH[ctx.tissue]}",
                           ctx.file, f"{key}.kind", ob.kind)
-    if ob.kind == "body_weight" and ctx.model == "whole_body":  # the body's own balance (no organ share)
+    if ob.kind in ("body_weight", "fluid_balance") and ctx.model == "whole_body":  # the body's own balance
         if ob.share is not None:
-            raise study_error("a body_weight observation of a whole_body study takes no share: the form balances "
+            raise study_error(f"a {ob.kind} observation of a whole_body study takes no share: the form balances "
                               "the whole body's intake and output itself", ctx.file, f"{key}.share", ob.share)
     elif ob.kind in ("body_weight", "fluid_balance"):
         if ctx.tissue_mass_kg is None:
@@ -1059,7 +1059,7 @@ def resolve_observation(ob: Observation, i: int, kept: Kept, ctx: SectionContext
         wanted = " or ".join(f"model = \"{m}\"" for m in predicting)
         raise study_error(f"a {ob.kind} observation needs {wanted} (the {ctx.model} form does not predict it)",
                           ctx.file, f"{key}.kind", ob.kind)
-    sym = ob.parameter if ob.kind == "measurement" else OBS_SYMBOL.get(ob.kind)
+    sym = ob.parameter if ob.kind == "measurement" else obs_symbol(ob.kind, ob.how)
     if ob.kind == "measurement" and ob.parameter is not None:
         kept = keep_known(ob.parameter, f"{key}.parameter", kept, ctx)
     if not (ob.kind == "swelling_rate" and ob.lymph is not None):

@@ -216,7 +216,7 @@ class Observation(BaseModel):
     model_config = STRICT_CONFIG
     kind: Literal["measurement", "lymph_flow", "clearance_rate", "swelling_rate", "volume_time_course",
                   "protein_ratio", "GFR", "RPF", "filtration_fraction", "body_weight", "fluid_balance",
-                  "haemoglobin", "urine", "plasma_protein"]
+                  "haemoglobin", "haematocrit", "urine", "plasma_protein"]
     name: str | None = None
     parameter: str | None = None
     value: float | None = None
@@ -241,6 +241,9 @@ class Observation(BaseModel):
     site: Literal["pre_nodal", "post_nodal"] | None = None
     # plasma_protein: which plasma protein the readings measure (total protein when left out)
     protein: Literal["total", "albumin"] | None = None
+    # urine: what each reading is, the cumulative volume since time 0 (default) or the mean flow since the
+    # subject's previous reading
+    how: Literal["cumulative", "rate"] | None = None
     # body_weight / fluid_balance: the organ's share of the body's net fluid gain (a prior declaration)
     share: Any = None
     # volume_time_course: fit every k-th reading of each subject (1 = all)
@@ -331,14 +334,14 @@ class Observation(BaseModel):
                 raise ValueError("give the measurement error: sd, cv or instrument")
         if self.protein is not None and k != "plasma_protein":
             raise ValueError(f"a {k} observation takes no protein (plasma_protein only)")
-        if k in ("haemoglobin", "urine", "plasma_protein") and self.file is None:
+        if self.how is not None and k != "urine":
+            raise ValueError(f"a {k} observation takes no how (urine only: cumulative or rate)")
+        if k in ("haemoglobin", "haematocrit", "urine", "plasma_protein") and self.file is None:
             raise ValueError(f"a {k} observation needs a data file (subject, time, value)")
         if k in ("body_weight", "fluid_balance"):
             if self.file is None:
                 raise ValueError(f"a {k} observation needs a data file (subject, time, value)")
-            if self.share is None and k == "fluid_balance":  # body_weight: in resolve (none in a whole_body study)
-                raise ValueError(f"a {k} observation needs share = {{ <prior of the organ's share of the body's "
-                                 "net fluid gain> }}")
+            # the share is required in resolve: a whole_body study balances the body itself and takes none
             if self.cv is not None:
                 raise ValueError(f"a {k} reading takes a normal error (sd): a change can be zero or negative")
         elif self.share is not None:
@@ -813,6 +816,7 @@ CSV_COLUMNS: dict[str, tuple[str, ...]] = {
     "body_weight": ("subject", "value"),
     "fluid_balance": ("subject", "value"),
     "haemoglobin": ("subject", "value"),
+    "haematocrit": ("subject", "value"),
     "urine": ("subject", "value"),
     "plasma_protein": ("subject", "value"),
 }
@@ -835,4 +839,26 @@ OBS_NEEDS: dict[str, tuple[str, ...]] = {"swelling_rate": ("Pi", "L", "Pi_L0"), 
 OBS_SYMBOL = {"lymph_flow": "JL", "swelling_rate": "swelling_rate", "protein_ratio": "ratio",
               "clearance_rate": "k_clear", "GFR": "GFR", "RPF": "RPF", "filtration_fraction": "FF",
               "body_weight": "body_weight", "fluid_balance": "fluid_balance", "haemoglobin": "Hb",
-              "urine": "urine_volume", "plasma_protein": "Cp"}
+              "haematocrit": "Hct", "urine": "urine_volume", "plasma_protein": "Cp"}
+#: Quantity whose canonical unit an observation's value takes when its ``how`` says what a reading is: urine read
+#: as a rate is a flow (mL/min), not a volume.
+OBS_SYMBOL_HOW = {("urine", "rate"): "urine_flow"}
+
+
+def obs_symbol(kind: str, how: str | None = None) -> str | None:
+    """The quantity whose canonical unit an observation's value (and sd) takes.
+
+    Parameters
+    ----------
+    kind : str
+        ``[[observations]] kind`` (not ``measurement``, whose ``parameter`` names it).
+    how : str or None
+        ``[[observations]] how`` (``urine``: ``cumulative`` or ``rate``).
+
+    Returns
+    -------
+    str or None
+        A key of ``core.units.CANONICAL`` (``urine_flow``, mL/min, for urine read as a rate), or None for a kind
+        without one.
+    """
+    return OBS_SYMBOL_HOW.get((kind, how or ""), OBS_SYMBOL.get(kind))

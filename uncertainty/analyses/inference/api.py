@@ -141,8 +141,8 @@ def settings(study: Any, **given: Any) -> dict[str, Any]:
     return out
 
 
-def with_kind_notes(notes: Sequence[str], observations: Sequence[Any]) -> list[str]:
-    """``notes`` plus each observation kind's ``NOTE`` that no note already ends with (a kind that noted it after
+def with_kind_notes(notes: Sequence[str], observations: Sequence[Any], problem: Any = None) -> list[str]:
+    """``notes`` plus each observation kind's note that no note already ends with (a kind that noted it after
     the observation's key, ``observations[3]: ...``, is not noted twice).
 
     Parameters
@@ -151,6 +151,10 @@ def with_kind_notes(notes: Sequence[str], observations: Sequence[Any]) -> list[s
         The notes of the built model.
     observations : sequence of Observation
         The problem's observations.
+    problem : Problem, optional
+        The problem they belong to: a kind whose note depends on the study or the observation (a
+        ``kind_note(obs, problem)`` hook: ``body_weight`` in a whole_body study, ``urine`` read as rates) gives
+        that note; without it, and for the other kinds, the kind's ``NOTE``.
 
     Returns
     -------
@@ -159,7 +163,9 @@ def with_kind_notes(notes: Sequence[str], observations: Sequence[Any]) -> list[s
     """
     out = list(notes)
     for obs in observations:
-        note = getattr(kind_module(obs), "NOTE", "")
+        module = kind_module(obs)
+        hook = getattr(module, "kind_note", None)
+        note = hook(obs, problem) if hook is not None else getattr(module, "NOTE", "")
         if note and not any(n.endswith(note) for n in out):
             out.append(note)
     return out
@@ -408,7 +414,7 @@ def summarise_run(built: BuiltModel, run: SampleRun, gate: Gate, seed: int | Non
             for k, sid in enumerate(built.subjects):
                 subjects[sid][label] = summarise(draws[:, k])
 
-    notes = with_kind_notes(built.notes, problem.observations)
+    notes = with_kind_notes(built.notes, problem.observations, problem)
     for note in posterior_output_notes(problem, post):
         if note not in notes:
             notes.append(note)

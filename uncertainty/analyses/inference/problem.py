@@ -195,8 +195,11 @@ def _as_dict(record: Any) -> dict[str, Any]:
     return {f: getattr(record, f) for f in _FIELDS if hasattr(record, f)}
 
 
-def _symbol_for(kind: str, parameter: str | None) -> str | None:
-    """The quantity whose canonical unit an observation's value is expressed in."""
+def _symbol_for(kind: str, parameter: str | None, how: str | None = None) -> str | None:
+    """The quantity whose canonical unit an observation's value is expressed in (``how``: urine read as a
+    ``rate`` is a flow, ``urine_flow``)."""
+    if kind == "urine" and how == "rate":
+        return "urine_flow"
     return {
         "measurement": parameter,
         "lymph_flow": "JL",
@@ -210,6 +213,7 @@ def _symbol_for(kind: str, parameter: str | None) -> str | None:
         "fluid_balance": "fluid_balance",
         "urine": "urine_volume",
         "haemoglobin": "Hb",
+        "haematocrit": "Hct",
         "plasma_protein": "Cp",
     }.get(kind)
 
@@ -262,7 +266,7 @@ def normalise_observations(records: Sequence[Any] | None, *, file: str | None = 
         if data is not None:
             obs.extra["data"] = data
         unit = raw.get("declared_unit") if canonical else obs.unit
-        symbol = _symbol_for(obs.kind, obs.parameter)
+        symbol = _symbol_for(obs.kind, obs.parameter, raw.get("how"))
         if obs.kind == "measurement" and obs.instrument is not None:
             inst = load_instruments().get(obs.instrument)
             symbol = inst.reading_symbol if inst is not None else symbol  # TER (%/h) for the escape rate

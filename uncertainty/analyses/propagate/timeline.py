@@ -21,7 +21,7 @@ from uncertainty.forms.whole_body import timeline_parameters
 from uncertainty.physiology.whole_body import TIMELINE_UNITS, simulate_blocks
 from uncertainty.priors import prior_medians
 from uncertainty.study.endpoints import TimePoint
-from uncertainty.study.schema import OBS_SYMBOL
+from uncertainty.study.schema import obs_symbol
 
 #: The prior set of the second bed.
 SKIN_SET = "skin_subcutis"
@@ -53,8 +53,10 @@ def bed_ratios(tissue: str) -> dict[str, float]:
 #: Observation kinds drawn on a fan chart: kind -> (time course, how its readings are shown). ``first``: each
 #: subject's readings over its earliest one (as the kind's likelihood takes them, ``haemoglobin``); ``change``: each
 #: subject's readings minus its earliest one, in the time course's unit (``body_weight``, kg); ``as_read``: the
-#: readings themselves in the time course's unit.
+#: readings themselves in the time course's unit. Urine read as rates (``how = "rate"``) is shown as the cumulative
+#: volumes the rates imply, sum_j rate_j (t_j - t_{j-1}) per subject (mL since 0).
 OBSERVED_COURSES: dict[str, tuple[str, str]] = {"haemoglobin": ("hb_ratio", "first"),
+                                                "haematocrit": ("hb_ratio", "first"),
                                                 "urine": ("urine_volume", "as_read"),
                                                 "plasma_protein": ("plasma_protein_ratio", "first"),
                                                 "body_weight": ("body_weight_change", "change")}
@@ -72,11 +74,12 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
     Returns
     -------
     dict
-        time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin`` and ``plasma_protein`` each
-        subject's reading over its earliest one, 1; for ``body_weight`` each subject's reading minus its earliest
-        one, kg; for ``urine`` the volumes since 0, mL), ``subjects`` (list of labels, "" for none), ``kinds``
-        (list), ``relative_to_first`` (bool: readings over the first), ``change_from_first`` (bool: readings minus
-        the first). Readings without a time are left out; empty without such observations.
+        time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin``, ``haematocrit`` and
+        ``plasma_protein`` each subject's reading over its earliest one, 1; for ``body_weight`` each subject's reading
+        minus its earliest one, kg; for ``urine`` the volumes since 0, mL, summed from the rates when read as
+        rates), ``subjects`` (list of labels, "" for none), ``kinds`` (list), ``relative_to_first`` (bool: readings
+        over the first), ``change_from_first`` (bool: readings minus the first). Readings without a time are left
+        out; empty without such observations.
     """
     out: dict[str, dict[str, Any]] = {}
     for ob in getattr(study, "observations", None) or []:
@@ -85,8 +88,10 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
         if kind not in OBSERVED_COURSES or data is None or "value" not in data:
             continue
         name, how = OBSERVED_COURSES[kind]
+        rates = kind == "urine" and getattr(ob, "how", None) == "rate"
         declared = getattr(ob, "declared_unit", None)
-        factor = 1.0 if how == "first" or not declared else units.to_canonical(OBS_SYMBOL[kind], 1.0, declared)
+        symbol = obs_symbol(kind, getattr(ob, "how", None))
+        factor = 1.0 if how == "first" or not declared else units.to_canonical(symbol, 1.0, declared)
         value = np.asarray(data["value"], dtype=float) * factor
         n = value.size
         time = np.asarray(data.get("time_min") or [np.nan] * n, dtype=float)
@@ -102,7 +107,11 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
             ref = value[idx[0]] if how == "first" else 1.0
             shift = value[idx[0]] if how == "change" else 0.0
             entry["times_min"] += [float(time[k]) for k in idx]
-            entry["values"] += [float((value[k] - shift) / ref) for k in idx]
+            if rates:  # mL/min over each interval since the previous reading (0 for the first) -> mL since 0
+                dt = np.diff(np.concatenate([[0.0], time[idx]]))
+                entry["values"] += [float(v) for v in np.cumsum(value[idx] * dt)]
+            else:
+                entry["values"] += [float((value[k] - shift) / ref) for k in idx]
             entry["subjects"] += [label] * len(idx)
             entry["kinds"] += [kind] * len(idx)
     return {k: v for k, v in out.items() if v["times_min"]}

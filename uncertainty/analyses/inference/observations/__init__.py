@@ -4,7 +4,7 @@ Each module exposes ``validate(obs, problem)`` (raises InputError naming file, k
 ``add(ctx, obs)`` (adds the likelihood inside the model context) and optionally
 ``subjects(obs, problem)`` (subject and group labels found in the observation's data),
 ``prepare(ctx, obs)`` (re-parameterise per-subject quantities before any term is added) and
-``NOTE`` (a sentence printed with the results).
+``NOTE`` (a sentence printed with the results; ``kind_note(obs, problem)`` where it depends on the study).
 """
 
 from __future__ import annotations
@@ -27,6 +27,7 @@ KINDS: dict[str, str] = {
     "body_weight": "fluid_balance",
     "fluid_balance": "fluid_balance",
     "haemoglobin": "haemoglobin",
+    "haematocrit": "haematocrit",
     "urine": "urine",
     "plasma_protein": "plasma_protein",
 }

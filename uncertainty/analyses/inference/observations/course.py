@@ -1,5 +1,5 @@
-"""The whole-body time course the timed observation kinds fit (``haemoglobin``, ``urine``, ``plasma_protein`` and,
-in a whole_body study, ``body_weight``).
+"""The whole-body time course the timed observation kinds fit (``haemoglobin``, ``haematocrit``, ``urine``,
+``plasma_protein`` and, in a whole_body study, ``body_weight`` and ``fluid_balance``).
 
 One function solves the study's ``[[interventions]]`` and ``[timeline]`` for per-subject inputs
 (``physiology.whole_body.simulate``, numpy or PyTensor) and returns the time course a kind names
@@ -164,7 +164,7 @@ def add_relative_term(ctx: Any, obs: Observation, course: str, *, what: str, lab
     """
     import pymc as pm
 
-    design, relate, word = RELATIVE[how]
+    design, _, word = RELATIVE[how]
     d = design(obs, ctx.subjects)
     name = term_name(obs)
     if d["skipped"].size:
@@ -176,11 +176,37 @@ def add_relative_term(ctx: Any, obs: Observation, course: str, *, what: str, lab
     ctx.notes.extend(f"{obs.key}: {n}" for n in notes_when_fitted)
     times, series = course_series(ctx, course)  # (time, subject)
     i = d["subject"]
-    pred = relate(at_times(series, times, i, d["time"]), at_times(series, times, i, d["ref_time"]))
+    pred = relative_prediction(series, times, d, how)
     pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {note}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i, label=label))
+
+
+def relative_prediction(series: Any, times_min: list[float], d: dict[str, np.ndarray], how: str = "ratio") -> Any:
+    """What a term of readings relative to each subject's first predicts: c(t) / c(t_ref) (``how = "ratio"``) or
+    c(t) - c(t_ref) (``"change"``), c the course ``series`` of the reading's subject, linear between report times.
+
+    Parameters
+    ----------
+    series : array or TensorVariable
+        The time course, shape (report time, subject), in its unit (numpy or PyTensor).
+    times_min : list of float
+        The report times, min.
+    d : dict
+        The readings (:func:`ratios_to_first` or :func:`changes_from_first`): ``subject``, ``time`` and ``ref_time``
+        (min).
+    how : str
+        ``ratio`` or ``change`` (:data:`RELATIVE`).
+
+    Returns
+    -------
+    array or TensorVariable
+        One value per reading: dimensionless (ratio) or in the course's unit (change).
+    """
+    relate = RELATIVE[how][1]
+    i = d["subject"]
+    return relate(at_times(series, times_min, i, d["time"]), at_times(series, times_min, i, d["ref_time"]))
 
 
 def add_ratio_term(ctx: Any, obs: Observation, course: str, *, what: str, label: str, note: str,
@@ -318,4 +344,4 @@ def at_times(series: Any, times_min: list[float], subject: np.ndarray, t: np.nda
 
 __all__ = ["BODY_INPUTS", "MAX_STEP_MIN", "RELATIVE", "add_ratio_term", "add_relative_term", "at_times",
            "changes_from_first", "check_timed_rows", "course_series", "interpolation", "ratios_to_first",
-           "whole_body_course"]
+           "relative_prediction", "whole_body_course"]

@@ -31,9 +31,9 @@ Assumptions (each stated in the notes of a result):
 Errors: a normal sd (on the observation or per row); a cv is refused, since a balance or a weight change
 can be zero or negative.
 
-In a ``whole_body`` study ``body_weight`` takes no share and follows the body's own balance over time instead
-(infused - bled - urine - insensible loss; ``observations.weight_course``, to which :func:`validate` and :func:`add`
-hand it).
+In a ``whole_body`` study both kinds take no share (and no tissue mass) and follow the body's own balance over
+time instead (body_weight: infused - bled - urine - insensible loss; fluid_balance: the same without the insensible
+loss a chart does not record; ``observations.weight_course``, to which :func:`validate` and :func:`add` hand them).
 """
 
 from __future__ import annotations
@@ -68,14 +68,20 @@ NOTE = ("body_weight / fluid_balance: the organ's filtration Jv x tissue mass ov
         "losses); filtration is taken as constant over the period.")
 
 
-def _whole_body(obs: Observation, problem: Problem) -> bool:
-    """A ``body_weight`` observation of a ``whole_body`` study (handed to ``observations.weight_course``)."""
-    return obs.kind == "body_weight" and problem.model_form == "whole_body"
+def _whole_body(obs: Observation, problem: Problem | None) -> bool:
+    """An observation of a ``whole_body`` study (handed to ``observations.weight_course``)."""
+    return getattr(problem, "model_form", None) == "whole_body"
+
+
+def kind_note(obs: Observation, problem: Problem | None = None) -> str:
+    """The note printed with the results: the steady one, or ``observations.weight_course``'s in a whole_body
+    study."""
+    return weight_course.kind_note(obs, problem) if _whole_body(obs, problem) else NOTE
 
 
 def validate(obs: Observation, problem: Problem) -> None:
-    """A data file with a time for every reading, a normal sd, a share prior and a study tissue mass (a
-    ``body_weight`` of a ``whole_body`` study: ``observations.weight_course.validate``).
+    """A data file with a time for every reading, a normal sd, a share prior and a study tissue mass (in a
+    ``whole_body`` study: ``observations.weight_course.validate``).
 
     Raises
     ------
@@ -105,10 +111,12 @@ def validate(obs: Observation, problem: Problem) -> None:
                         obs.kind)
 
 
-def typical_output(obs: Observation, problem: Problem) -> tuple[str, bool]:
+def typical_output(obs: Observation, problem: Problem) -> tuple[str, bool] | None:
     """The output a cohort's weights or balances pin at the typical subject: Jv (over the share), on the natural
     scale (the model builder reflects the typical scores along its direction; the direction is the same on
-    either scale)."""
+    either scale). None in a whole_body study, where the readings follow the time course, not the resting Jv."""
+    if _whole_body(obs, problem):
+        return None
     return "Jv", False
 
 
@@ -163,8 +171,8 @@ def predicted(flow_L_per_day: Any, days: Any, share: Any, kind: str) -> Any:
 
 
 def add(ctx: Any, obs: Observation) -> None:
-    """change ~ Normal(Jv_L_per_day[subject] x days / share (x 1 kg/L for weights), sd) over all rows (a
-    ``body_weight`` of a ``whole_body`` study: ``observations.weight_course.add``)."""
+    """change ~ Normal(Jv_L_per_day[subject] x days / share (x 1 kg/L for weights), sd) over all rows (in a
+    ``whole_body`` study: ``observations.weight_course.add``)."""
     import pymc as pm
 
     if _whole_body(obs, ctx.problem):

@@ -27,6 +27,10 @@ from uncertainty.analyses.inference.problem import Observation, Problem
 TIMED = True
 NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitted to the whole-body time "
         "course of haemoglobin relative to rest (no baseline haemoglobin sampled).")
+#: The time course the readings follow: the form's haematocrit over its resting value
+#: (``physiology.whole_body.TIMELINE_UNITS``; haemoglobin concentration is proportional to it while the mean
+#: corpuscular haemoglobin concentration stays constant).
+COURSE = "hb_ratio"
 
 
 def validate(obs: Observation, problem: Problem) -> None:
@@ -63,10 +67,27 @@ def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
     return ratios_to_first(obs, subjects)
 
 
+def add_red_cell_term(ctx: Any, obs: Observation, what: str, note: str) -> None:
+    """The likelihood of serial red-cell readings (haemoglobin or haematocrit), each subject's over its first:
+    y ~ Normal(hb_ratio(t) / hb_ratio(t_ref) of the reading's subject, sd_y) over all later readings.
+
+    Parameters
+    ----------
+    ctx : BuildContext
+        The model being built.
+    obs : Observation
+        A ``haemoglobin`` or ``haematocrit`` observation with data-file rows (any one unit; the ratio cancels it).
+    what : str
+        The quantity read, in the term's label and notes (``haemoglobin``, ``haematocrit``).
+    note : str
+        The kind's note.
+    """
+    add_ratio_term(ctx, obs, COURSE, what=what, label=f"{what} relative to the first reading", note=note)
+
+
 def add(ctx: Any, obs: Observation) -> None:
     """y ~ Normal(hb_ratio(t) / hb_ratio(t_ref) of the reading's subject, sd_y) over all later readings."""
-    add_ratio_term(ctx, obs, "hb_ratio", what="haemoglobin", label="haemoglobin relative to the first reading",
-                   note=NOTE)
+    add_red_cell_term(ctx, obs, "haemoglobin", NOTE)
 
 
-__all__ = ["NOTE", "TIMED", "add", "design", "validate"]
+__all__ = ["COURSE", "NOTE", "TIMED", "add", "add_red_cell_term", "design", "validate"]
