@@ -80,8 +80,9 @@ SECTIONS: list[tuple[str, str, str, str]] = [
      "median and 95% interval per reported time for the typical subject and the individual; with timed "
      "`haemoglobin`, `haematocrit`, `plasma_protein`, `urine` or `body_weight` observations also `observed`: each "
      "subject's Hb, Hct or protein readings over its first, weights minus its first (kg), urine volumes as read "
-     "(urine flows as the volumes they add up to), drawn on the fan chart). Besides the volumes and ratios it reports `body_weight_change` (kg since 0: infused minus whole blood "
-     "bled minus all urine minus insensible loss, 1 kg per L). "
+     "(urine flows as the volumes they add up to), drawn on the fan chart). Besides the volumes and ratios it "
+     "reports `body_weight_change` (kg since 0: infused minus whole blood bled minus all urine minus insensible "
+     "loss, 1 kg per L). "
      "`[sensitivity] output`, `[rank] output` and `[design] endpoint` read a time course at a time written "
      "\"NAME at TIME\", e.g. \"infused_retained_fraction at 60 min\"."),
     ("schedule", "[schedule]", "ScheduleSection",
