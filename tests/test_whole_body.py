@@ -266,7 +266,7 @@ def test_numpy_and_pytensor_agree() -> None:
 
 @pytest.mark.slow
 def test_pytensor_course_is_one_scan_and_agrees_with_numpy() -> None:
-    """simulate(xp=pytensor) solves the timeline as one scan over the report intervals: same numbers as the numpy
+    """simulate(xp=pytensor) solves the timeline as one scan of Runge-Kutta steps: same numbers as the numpy
     loop (to rounding), and a graph whose size does not grow with the timeline's length."""
     pytensor = pytest.importorskip("pytensor")
     pt = pytest.importorskip("pytensor.tensor")

@@ -143,9 +143,13 @@ def compile_model(model: Any, sampler: str = "nutpie") -> tuple[Any, float]:
     t0 = time.perf_counter()
     if sampler == "nutpie":
         import nutpie
+        import pytensor
 
         try:
-            compiled = nutpie.compile_pymc_model(model, var_names=trace_names(model))
+            # no creation traceback on each node of the log density and its gradient (pytensor records 8 stack
+            # levels per node by default; with a time course's loop that was about 40 % of the compile)
+            with pytensor.config.change_flags(traceback__limit=0):
+                compiled = nutpie.compile_pymc_model(model, var_names=trace_names(model))
         except Exception as exc:  # noqa: BLE001 - reported with its reason, no traceback
             raise SamplerError(f"nutpie could not compile the model: {type(exc).__name__}: {exc}") from None
         return compiled, time.perf_counter() - t0
