@@ -1,7 +1,9 @@
 """The shipped data folders (priors/, studies/) are found from a built wheel and an editable install."""
 
+import os
 import subprocess
 import sys
+import sysconfig
 import zipfile
 from pathlib import Path
 
@@ -54,8 +56,11 @@ def test_editable_install_finds_priors(tmp_path):
     venv = tmp_path / "venv"
     subprocess.run([sys.executable, "-m", "venv", "--system-site-packages", str(venv)], check=True)
     py = venv / "bin" / "python"
+    # the build tools (setuptools with its wheel command) come from this interpreter's environment: the base
+    # interpreter's own may be too old to build an editable install (setuptools 65 without the wheel package)
+    tools = {**os.environ, "PYTHONPATH": sysconfig.get_paths()["purelib"]}
     subprocess.run([str(py), "-m", "pip", "install", "-q", "--no-deps", "--no-build-isolation", "-e", str(ROOT)],
-                   check=True, capture_output=True)
+                   check=True, capture_output=True, env=tools)
     # The venv sees the base interpreter's site-packages (for the build tools), where CI has a regular
     # install of this package that the editable finder would never be asked about: hide it from the probe.
     hide_base = ("import sys; sys.path[:] = [p for p in sys.path "
