@@ -32,14 +32,13 @@ scan of single Runge-Kutta steps over one stacked state matrix (a scan with one 
 instead of a dozen of each; node creation tracebacks off during nutpie's compile). PyTensor's part is solved: the
 20-subject model's log density and gradient graph are built in 8-19 s, where the nested scan was still inside
 ``Scan.L_op`` (a shape inference through the loop's body per scan input and output) after 13 min for 3 subjects.
-What remains is the compiler: numba (nutpie's default) was still compiling the loop's gradient after 14 min, and
-after 21 min with NUMBA_OPT=0 (LLVM's passes on one very large function) and after 11 min with PyTensor's
-elementwise fusion off. nutpie's JAX backend
-(gradient by JAX) compiled in 2 min but took 54.7 ms per gradient for 20 subjects (XLA's per-operation cost on
-vectors of 20 inside the loop): at an assumed 30 leapfrog steps per draw, about 2 h on 2 cores for the default
-4 x 2000 draws. NOT met. Next step: the time course as
-one custom Op, its step and hand-written adjoint in module-level numba functions (compiled once per machine and
-cached on disk), so that neither PyTensor nor numba has to compile the loop's graph per model.
+What remains is the compiler. numba (nutpie's default) was still compiling the loop's gradient after 14 min (3
+subjects); for 20 subjects, after 21 min with NUMBA_OPT=0 and after 11 min with PyTensor's elementwise fusion off
+(LLVM's passes on one very large function). nutpie's JAX backend (gradient by JAX) compiled in 2 min but took 54.7
+ms per gradient for 20 subjects (XLA's per-operation cost on vectors of 20 inside the loop): at an assumed 30
+leapfrog steps per draw, about 2 h on 2 cores for the default 4 x 2000 draws. NOT met. Next step: the time course
+as one custom Op, its step and hand-written adjoint in module-level numba functions (compiled once per machine and
+cached on disk), so that neither PyTensor nor numba compiles the loop's graph per model.
 
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] (``--cap``: stop the child after this many seconds; its figures are then lower bounds.)
