@@ -24,8 +24,10 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.observations.course import check_timed_rows
-from uncertainty.analyses.inference.observations.haemoglobin import add_red_cell_term
-from uncertainty.analyses.inference.observations.haemoglobin import design as red_cell_design
+from uncertainty.analyses.inference.observations.haemoglobin import (
+    add_red_cell_term,
+    design,  # the same ratios to the first reading
+)
 from uncertainty.analyses.inference.problem import Observation, Problem
 
 #: the readings' times are modelled (no "repeated readings of one steady value" note)
@@ -55,25 +57,6 @@ def validate(obs: Observation, problem: Problem) -> None:
     v = np.asarray(obs.rows.value, dtype=float)
     obs.check_values((v > 0) & (v < 1), 'a haematocrit reading lies strictly between 0 and 1 as a fraction '
                      '(unit = "1") and between 0 and 100 in per cent (unit = "%")', "file")
-
-
-def design(obs: Observation, subjects: list[str]) -> dict[str, np.ndarray]:
-    """The readings as the term uses them (numpy): ratios to each subject's earliest reading, as haemoglobin's.
-
-    Parameters
-    ----------
-    obs : Observation
-        A ``haematocrit`` observation with data-file rows (fraction, min).
-    subjects : list of str
-        The model's subject labels (index 0 is the study's individual when a row has none).
-
-    Returns
-    -------
-    dict
-        As ``observations.course.ratios_to_first``: ``subject``, ``time`` and ``ref_time`` (min), ``value`` and
-        ``sd`` (1), ``skipped``.
-    """
-    return red_cell_design(obs, subjects)
 
 
 def add(ctx: Any, obs: Observation) -> None:
