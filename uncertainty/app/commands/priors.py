@@ -35,32 +35,33 @@ def _fmt(x: Any) -> str:
 
 def rows_table(rows: list[dict[str, Any]], *, with_origin: bool = True) -> str:
     """Plain-text table of prior rows (symbol, distribution, median, 95 % interval, unit, spread, origin)."""
-    head = f"{'symbol':<9}{'distribution':<42}{'median':>11}{'95% interval':>24}  {'unit':<18}{'between':<12}"
+    w = max([9, *(len(str(r["symbol"])) + 1 for r in rows)])   # the longest symbol and a space
+    head = f"{'symbol':<{w}}{'distribution':<42}{'median':>11}{'95% interval':>24}  {'unit':<18}{'between':<12}"
     lines = [head, "-" * len(head)]
     for r in rows:
         if r["dist"] == "derived":
             desc = r.get("derivation", "derived")
             if r.get("median") is not None:
                 ci = "[" + ", ".join(_fmt(x) for x in r["ci95"]) + "]"
-                lines.append(f"{r['symbol']:<9}{'implied (typical subject)':<42}{_fmt(r['median']):>11}{ci:>24}  "
+                lines.append(f"{r['symbol']:<{w}}{'implied (typical subject)':<42}{_fmt(r['median']):>11}{ci:>24}  "
                              f"{r['unit']:<18}")
                 ind = r.get("individual")
                 if ind:
                     ci = "[" + ", ".join(_fmt(x) for x in ind["ci95"]) + "]"
-                    lines.append(f"{'':<9}{'implied (an individual)':<42}{_fmt(ind['median']):>11}{ci:>24}  "
+                    lines.append(f"{'':<{w}}{'implied (an individual)':<42}{_fmt(ind['median']):>11}{ci:>24}  "
                                  f"{r['unit']:<18}")
-                lines.append(f"{'':<9}{desc}")
+                lines.append(f"{'':<{w}}{desc}")
             else:
-                lines.append(f"{r['symbol']:<9}{desc}")
+                lines.append(f"{r['symbol']:<{w}}{desc}")
         else:
             params = ", ".join(f"{k}={_fmt(v)}" for k, v in (r.get("params") or {}).items())
             dist = f"{r['dist']}({params})"
             ci = "[" + ", ".join(_fmt(x) for x in r["ci95"]) + "]"
             bs = r.get("between_subject")
             bs_text = ", ".join(f"{k}={_fmt(v)}" for k, v in bs.items()) if bs else "-"
-            lines.append(f"{r['symbol']:<9}{dist:<42}{_fmt(r['median']):>11}{ci:>24}  {r['unit']:<18}{bs_text:<12}")
+            lines.append(f"{r['symbol']:<{w}}{dist:<42}{_fmt(r['median']):>11}{ci:>24}  {r['unit']:<18}{bs_text:<12}")
         if with_origin and r.get("origin"):
-            lines.append(f"{'':<9}origin: {r['origin']}")
+            lines.append(f"{'':<{w}}origin: {r['origin']}")
     return "\n".join(lines)
 
 
