@@ -16,6 +16,7 @@ import pytest
 from click.testing import CliRunner
 from scipy import stats
 
+import uncertainty.analyses.calibrate as calibrate_mod
 from uncertainty.analyses.calibrate import calibrate, summarise
 from uncertainty.analyses.calibrate import stats as sbc
 from uncertainty.app.cli import main
@@ -183,3 +184,56 @@ def test_too_few_usable_replicates_give_no_verdict() -> None:
         o["passed"] = False
     q = summarise(outcomes, ["theta"], 19, 4)["quantities"]["theta"]
     assert not q["flagged"] and "no verdict" in q["verdict"]
+
+
+class _Fake:
+    """A Session stand-in counting its makings (test scaffolding)."""
+
+    made = 0
+
+    def __init__(self, problem, sampler="nutpie") -> None:
+        type(self).made += 1
+
+
+def test_process_session_compiles_once_per_key(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(calibrate_mod, "Session", _Fake)
+    monkeypatch.setattr(calibrate_mod, "as_problem", lambda s: s)
+    monkeypatch.setattr(calibrate_mod, "_SESSIONS", {})
+    _Fake.made = 0
+    calibrate_mod.SessionWarmup("run-a", object(), "nutpie")()
+    task = calibrate_mod.ReplicateTask(object(), {}, [], None, sampler="nutpie", chains=1, draws=1, tune=1,
+                                       target_accept=0.8, L=1, session_key="run-a")
+    first = task.session()
+    assert _Fake.made == 1 and first is calibrate_mod._SESSIONS["run-a"]   # the warm-up's, not a second compile
+    calibrate_mod.process_session("run-b", object(), "nutpie")
+    calibrate_mod.process_session("run-c", object(), "nutpie")
+    assert _Fake.made == 3 and set(calibrate_mod._SESSIONS) == {"run-b", "run-c"}   # only the latest kept
+
+
+class _StopHere(Exception):
+    pass
+
+
+class _Recorder:
+    """An executor stand-in: records warm() and the task function map() is given, then stops the run."""
+
+    def __init__(self) -> None:
+        self.calls: list[tuple[str, object]] = []
+
+    def warm(self, fn) -> None:
+        self.calls.append(("warm", fn))
+
+    def map(self, fn, tasks, *, seed, label="tasks"):
+        self.calls.append(("map", fn))
+        raise _StopHere
+
+
+def test_calibrate_warms_the_workers_before_it_simulates(tmp_path: Path) -> None:
+    path = tmp_path / "s.toml"
+    path.write_text(STUDY)
+    ex = _Recorder()
+    with pytest.raises(_StopHere):
+        calibrate(load_study(path), replicates=50, bins=5, draws=19, executor=ex)
+    (w, warm), (m, task) = ex.calls
+    assert (w, m) == ("warm", "map")
+    assert isinstance(warm, calibrate_mod.SessionWarmup) and warm.key == task.session_key and task.cores == 1

@@ -82,6 +82,39 @@ def test_one_and_two_dask_workers_give_identical_results() -> None:
     assert r2 == ref
 
 
+#: a worker's state set by _set_warm (read back by _read_warm in the same worker process)
+_WARM: list[str] = []
+
+
+def _set_warm() -> None:
+    _WARM.append("warm")
+
+
+def _read_warm(task: int, ss: np.random.SeedSequence) -> tuple[int, int, bool]:
+    import os
+
+    import dask
+
+    return task, os.getpid(), len(_WARM) == 1 and not dask.config.get("distributed.worker.profile.enabled")
+
+
+def test_in_process_warm_runs_nothing() -> None:
+    InProcess().warm(_set_warm)
+    assert _WARM == []
+
+
+@pytest.mark.slow
+def test_warm_runs_once_in_every_worker_before_its_tasks() -> None:
+    """Every task, on whichever worker, finds the warm-up done once in its process, and the workers of a
+    LocalCluster we start have dask's sampling profiler off."""
+    with make_executor(workers=2) as two:
+        two.warm(_set_warm)
+        out = two.map(_read_warm, list(range(12)), seed=1)
+    assert [o[0] for o in out] == list(range(12))
+    assert all(o[2] for o in out)
+    assert _WARM == []  # (not in this process)
+
+
 # --------------------------------------------------------------------------------------------
 # Row chunks (sensitivity model runs)
 # --------------------------------------------------------------------------------------------

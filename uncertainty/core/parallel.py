@@ -10,6 +10,10 @@ same in-process, on 1 worker or on many.
   LocalCluster of N processes with one thread each (one core per task); ``scheduler=ADDRESS`` joins
   an existing cluster. dask is imported only when this executor is made.
 
+``executor.warm(fn)`` starts ``fn()`` once on every worker in the background (in-process: nothing), so
+that a one-off set-up of the workers (a model compile) overlaps with what this process does before
+:meth:`~InProcess.map`; the set-up must keep what it makes in the worker process for the tasks to find.
+
 Both show progress (rich, on stderr) when asked: tasks done of all and time left; and can
 checkpoint finished tasks to a folder, so that an interrupted sweep resumes where it stopped (a
 checkpoint is keyed by the label, the seed, the tasks and the task function's ``checkpoint_key``
@@ -47,6 +51,9 @@ TaskFn = Callable[[Any, np.random.SeedSequence], Any]
 RETRIES = 2
 #: rows of one task of :class:`ChunkedModel` (fixed: the split never depends on the worker count)
 CHUNK_ROWS = 4096
+#: dask settings of a LocalCluster we start: no sampling profiler in the workers (it walks the task thread's
+#: stack every 10 ms, holding the GIL the task needs; its flame graphs are not used)
+WORKER_CONFIG = {"distributed.worker.profile.enabled": False}
 
 
 def task_seeds(seed: int, n: int) -> list[np.random.SeedSequence]:
@@ -122,6 +129,9 @@ class InProcess:
         self.checkpoint_dir = checkpoint_dir
         self.progress = progress
 
+    def warm(self, fn: Callable[[], Any]) -> None:
+        """Nothing in-process: a task's set-up runs with the first task, in this process alike."""
+
     def map(self, fn: TaskFn, tasks: Sequence, *, seed: int, label: str = "tasks") -> list:
         """Return ``[fn(task_i, seedseq_i)]`` in task order (seeds from :func:`task_seeds`)."""
         tasks = list(tasks)
@@ -151,7 +161,9 @@ class DaskExecutor(InProcess):
     """Run tasks on a dask.distributed cluster (a LocalCluster of ``workers`` processes, or ``scheduler``).
 
     Every task is submitted with ``retries`` (a task whose worker died runs again elsewhere, with the
-    same seed, so the same result).
+    same seed, so the same result). A LocalCluster started here has dask's sampling profiler of the
+    workers turned off (:data:`WORKER_CONFIG`): it reads the task thread's stack every 10 ms under the GIL,
+    a cost on every task that tells nothing we use.
     """
 
     def __init__(self, workers: int | None = None, scheduler: str | None = None, *,
@@ -168,6 +180,7 @@ class DaskExecutor(InProcess):
         self._logging: int = logging.root.manager.disable  # the level close() restores
         self.retries = int(retries)
         self._sent: dict[int, tuple[Any, Any]] = {}  # id(task function) -> (it, its scattered future)
+        self._warming: list[Any] = []  # futures of warm() (held so that they run to their end)
         self.cluster = None
         self.client: Any = None
         if scheduler:
@@ -182,11 +195,36 @@ class DaskExecutor(InProcess):
                 raise InputError("need at least one worker", key="--workers", value=workers)
             import logging
 
-            with _children_ignore_sigint():  # (Ctrl-C during these few seconds of start-up is ignored)
+            import dask
+
+            # (Ctrl-C during these few seconds of start-up is ignored; the nannies pass the config on)
+            with _children_ignore_sigint(), dask.config.set(WORKER_CONFIG):
                 self.cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                                             dashboard_address=None, silence_logs=logging.ERROR)
             self.client = Client(self.cluster)
         self.workers = len(self.client.scheduler_info().get("workers", {})) or int(workers or 1)
+
+    def _shared(self, fn: Any) -> Any:
+        """The future of ``fn`` scattered to every worker (once per function: a task function often holds a
+        study, sent to each worker once, not with every task; kept, with ``fn`` so that its id stays unique,
+        until close())."""
+        if id(fn) not in self._sent:
+            self._sent[id(fn)] = (fn, self.client.scatter(fn, broadcast=True, hash=False))
+        return self._sent[id(fn)][1]
+
+    def warm(self, fn: Callable[[], Any]) -> None:
+        """Start ``fn()`` on every worker of the cluster now, one task per worker, and return at once.
+
+        For a set-up each worker process would otherwise do in its first task (a model compile of some
+        seconds), started while this process still prepares the tasks. ``fn`` keeps what it makes in the
+        worker process (a module-level cache) for the tasks to find; an error in it is held back (the
+        first task that needs the set-up meets it again and reports it). Workers that join later do the
+        set-up in their first task.
+        """
+        shared = self._shared(fn)
+        for address in self.client.scheduler_info(n_workers=-1).get("workers", {}):
+            self._warming.append(self.client.submit(_warm, shared, workers=[address], allow_other_workers=False,
+                                                    pure=False))
 
     def map(self, fn: TaskFn, tasks: Sequence, *, seed: int, label: str = "tasks") -> list:
         """Return ``[fn(task_i, seedseq_i)]`` in task order, computed on the cluster.
@@ -203,10 +241,8 @@ class DaskExecutor(InProcess):
         bar = _Progress(self.progress, label, len(tasks), len(ckpt.done))
         futures: dict[Any, int] = {}
         try:
-            if todo:  # the task function (often holding a study) goes to every worker once, not per task
-                if id(fn) not in self._sent:  # kept (with fn, so its id stays unique) until close()
-                    self._sent[id(fn)] = (fn, self.client.scatter(fn, broadcast=True, hash=False))
-                shared = self._sent[id(fn)][1]
+            if todo:  # the task function goes to every worker once, not with every task
+                shared = self._shared(fn)
                 futures = {self.client.submit(_apply, shared, tasks[i], seeds[i], pure=False,
                                               retries=self.retries): i for i in todo}
             for fut in as_completed(list(futures)):
@@ -219,8 +255,8 @@ class DaskExecutor(InProcess):
             # cancelled tasks are held back until close() has shut the cluster down
             logging.disable(logging.CRITICAL)
             with contextlib.suppress(Exception):
-                if futures:
-                    self.client.cancel(list(futures))
+                if futures or self._warming:
+                    self.client.cancel(list(futures) + self._warming)
             raise
         finally:
             bar.close()
@@ -234,6 +270,7 @@ class DaskExecutor(InProcess):
         previous = self._logging
         logging.disable(logging.CRITICAL)
         self._sent.clear()
+        self._warming.clear()
         try:
             if self.client is not None:
                 self.client.close()
@@ -261,6 +298,14 @@ def _children_ignore_sigint() -> Iterator[None]:
         yield
     finally:
         signal.signal(signal.SIGINT, previous)
+
+
+def _warm(fn: Callable[[], Any]) -> None:
+    """``fn()`` on a worker, any error held back (:meth:`DaskExecutor.warm`)."""
+    try:
+        fn()
+    except Exception:  # noqa: BLE001 - the first task that needs the set-up raises it again, with its message
+        pass
 
 
 def _apply(fn: TaskFn, task: Any, ss: np.random.SeedSequence) -> Any:

@@ -11,7 +11,8 @@ Each replicate:
    sds) simulated through the model's own forward path and likelihood
    (:func:`uncertainty.analyses.inference.checks.prior_predictive`, one joint draw per replicate,
    made in this process from the study seed);
-2. a refit of the model compiled once per process (``Session``; new data per replicate), with the
+2. a refit of the model compiled once per process (``Session``; new data per replicate; on a cluster
+   every worker starts its compile while this process still simulates the replicates), with the
    study's ``[infer]`` sampler settings, checked by the same quality gate as ``infer`` (R-hat, bulk
    and tail ESS, divergences); a replicate that fails is counted and reported, never used;
 3. the rank of each truth among L thinned posterior draws, for every quantity the model reports (its
@@ -33,6 +34,8 @@ first two). L = 99 makes 100 possible ranks, which 10 bins split evenly.
 from __future__ import annotations
 
 import dataclasses
+import threading
+import uuid
 from typing import Any
 
 import numpy as np
@@ -136,14 +139,61 @@ def _scalar(x: Any) -> np.ndarray:
     return a.reshape(a.shape[0], -1)[:, 0]
 
 
+#: compiled models of this process by session key (a cluster worker's, made by :class:`SessionWarmup` or the
+#: first replicate task; only the latest few are kept: a worker serves one calibration at a time)
+_SESSIONS: dict[str, Session] = {}
+_SESSIONS_KEEP = 2
+_SESSIONS_LOCK = threading.Lock()
+
+
+def process_session(key: str, study: Any, sampler: str) -> Session:
+    """The compiled model of ``study`` in this process under ``key``, made on first use (one compile per
+    process even when a warm-up and a task ask at once).
+
+    Parameters
+    ----------
+    key : str
+        Names one calibration run (its study and sampler); a new run takes a new key.
+    study : Study or Problem
+        The study whose inference model is compiled.
+    sampler : str
+        Sampler to compile for (``nutpie`` or ``pymc``).
+
+    Returns
+    -------
+    Session
+        The session (model built and compiled, seconds in ``compile_seconds``).
+    """
+    with _SESSIONS_LOCK:
+        if key not in _SESSIONS:
+            session = Session(as_problem(study), sampler=sampler)
+            while len(_SESSIONS) >= _SESSIONS_KEEP:
+                _SESSIONS.pop(next(iter(_SESSIONS)))
+            _SESSIONS[key] = session
+        return _SESSIONS[key]
+
+
+class SessionWarmup:
+    """Warm-up of a cluster worker (``executor.warm``): compile the study's model into this process's
+    cache under ``key``, where the replicate tasks of the same run find it (picklable)."""
+
+    def __init__(self, key: str, study: Any, sampler: str) -> None:
+        self.key, self.study, self.sampler = key, study, sampler
+
+    def __call__(self) -> None:
+        process_session(self.key, self.study, self.sampler)
+
+
 class ReplicateTask:
     """Task function of the executor: refit one replicate and rank its truths (picklable; the
-    compiled model is made once per process on first use and never pickled)."""
+    compiled model is made once per process on first use and never pickled; with a ``session_key`` it is
+    the process's cached one of :func:`process_session`, which a warm-up may have made already)."""
 
     def __init__(self, study: Any, variables: dict[str, str], gate_vars: list[str], gate: Gate, *,
                  sampler: str, chains: int, draws: int, tune: int, target_accept: float, L: int,
-                 cores: int | None = None) -> None:
+                 cores: int | None = None, session_key: str | None = None) -> None:
         self.study, self.variables, self.gate_vars, self.gate = study, variables, gate_vars, gate
+        self.session_key = session_key  # (not in checkpoint_key: it names the compile, not the result)
         self.cores = cores  # sampler threads per refit (1 on cluster workers: the replicates are the parallel work)
         self.sampler, self.chains, self.draws, self.tune = sampler, chains, draws, tune
         self.target_accept, self.L = target_accept, L
@@ -169,7 +219,10 @@ class ReplicateTask:
     def session(self) -> Session:
         """The compiled model of this process (made on first use)."""
         if self._session is None:
-            self._session = Session(as_problem(self.study), sampler=self.sampler)
+            if self.session_key is None:
+                self._session = Session(as_problem(self.study), sampler=self.sampler)
+            else:
+                self._session = process_session(self.session_key, self.study, self.sampler)
         return self._session
 
     def __call__(self, rep: Replicate, ss: np.random.SeedSequence) -> dict[str, Any]:
@@ -337,6 +390,12 @@ def calibrate(study: Any, seed: int | None = None, *, replicates: int = REPLICAT
     if seed is None:
         seed = getattr(study, "seed", None) if not isinstance(study, Problem) else getattr(study.study, "seed", None)
     seed = int(seed if seed is not None else 0)
+    executor = executor or InProcess()
+    on_workers = type(executor) is not InProcess
+    # cluster workers compile the model now, while this process builds its own and simulates the replicates
+    session_key = uuid.uuid4().hex if on_workers else None
+    if on_workers and hasattr(executor, "warm"):
+        executor.warm(SessionWarmup(session_key, study, opts["sampler"]))
     built = build_model(problem)
     variables = _reported_vars(built)
     gate = Gate.coerce(opts["gate"])
@@ -345,10 +404,9 @@ def calibrate(study: Any, seed: int | None = None, *, replicates: int = REPLICAT
     # the prior-predictive stream: its own child of the seed, apart from the task streams
     pp_seed = int(np.random.SeedSequence([seed, 5813]).generate_state(1)[0] % (2**31))
     reps = simulate_replicates(built, replicates, pp_seed)
-    executor = executor or InProcess()
     task = ReplicateTask(study, variables, gate_vars, gate, sampler=opts["sampler"], chains=opts["chains"],
                          draws=opts["draws"], tune=opts["tune"], target_accept=opts["target_accept"], L=draws,
-                         cores=None if type(executor) is InProcess else 1)
+                         cores=1 if on_workers else None, session_key=session_key)
     outcomes = executor.map(task, reps, seed=seed, label="calibration replicates")
     names = [n for n in variables if n in reps[0].truths]
     summary = summarise(outcomes, names, draws, bins)
