@@ -228,3 +228,41 @@ unit = "mmHg"
     assert got["parameters"]["Pi"] == json.loads(to_json(ref.doc["parameters"]))["Pi"]
     assert got["parameters"] == json.loads(to_json(ref.doc["parameters"]))
 
+
+
+def test_calibrate_on_the_cluster_gives_the_in_process_ranks(scheduler: str, tmp_path: Path) -> None:
+    # each worker compiles the model in a warm-up task while this process simulates the replicates
+    from test_calibrate import STUDY as SBC_STUDY
+
+    from uncertainty.analyses.calibrate import calibrate
+    from uncertainty.core.errors import QualityGateError
+    from uncertainty.core.parallel import make_executor
+    from uncertainty.study import load_study
+
+    def doc_of(executor: object = None) -> dict:   # a run with too few passing refits still has its ranks
+        try:
+            return calibrate(s, executor=executor, **opts).doc
+        except QualityGateError as exc:
+            return exc.result.doc
+
+    p = tmp_path / "sbc.toml"
+    p.write_text(SBC_STUDY)
+    s = load_study(p)
+    # small refits, gate lowered to what they give (test scaffolding, as in test_calibrate)
+    opts = {"replicates": 30, "bins": 5, "draws": 19, "chains": 2, "posterior_draws": 400, "tune": 300,
+            "gate": {"r_hat_max": 1.05, "ess_bulk_min": 100.0, "ess_tail_min": 100.0}}
+    box: dict = {}
+
+    def on_cluster() -> None:
+        with make_executor(scheduler=scheduler) as ex:
+            box["doc"] = doc_of(ex)
+
+    worker = threading.Thread(target=on_cluster, daemon=True)
+    worker.start()
+    worker.join(4 * LIMIT)
+    if worker.is_alive():
+        pytest.fail(f"calibrate on the cluster did not finish within {4 * LIMIT:.0f} s")
+    alone = doc_of()
+    assert box["doc"]["failures"] == alone["failures"]
+    for name, q in alone["quantities"].items():
+        assert box["doc"]["quantities"][name]["ranks"] == q["ranks"]
