@@ -84,6 +84,14 @@ def _cpu_seconds() -> float:
     return t.user + t.system
 
 
+def _compile_seconds() -> float:
+    """Seconds the latest compile of the study's model took in this worker (0 when none was made there)."""
+    from uncertainty.analyses import calibrate as mod
+
+    sessions = list(getattr(mod, "_SESSIONS", {}).values())
+    return float(sessions[-1].compile_seconds) if sessions else 0.0
+
+
 def main() -> None:
     """Time one calibration on 1 and on 2 workers (``--repeat`` times, alternating) and print the ratios."""
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
@@ -118,8 +126,10 @@ def main() -> None:
                     res = calibrate(study, replicates=args.replicates, executor=ex)
                     times[n] = time.perf_counter() - t0
                     cpu = sum(ex.client.run(_cpu_seconds).values()) - cpu0
-                print(f"{n} worker(s): {times[n]:.1f} s, workers' CPU {cpu:.1f} s, load {load:.2f} at the start "
-                      f"({args.replicates} replicates, 4 chains x ({args.tune} + {args.draws}) per refit, "
+                    compiles = ", ".join(f"{c:.1f}" for c in ex.client.run(_compile_seconds).values())
+                print(f"{n} worker(s): {times[n]:.1f} s, workers' CPU {cpu:.1f} s, compile {compiles} s, "
+                      f"load {load:.2f} at the start ({args.replicates} replicates, 4 chains x "
+                      f"({args.tune} + {args.draws}) per refit, "
                       f"{res.doc['replicates_used']} passed, calibrated: {res.doc['calibrated']})", flush=True)
             ratios.append(times[1] / times[2])
             print(f"calibration on 2 workers against 1: {ratios[-1]:.2f}x (target >= 1.7x)", flush=True)
