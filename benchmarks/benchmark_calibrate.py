@@ -22,6 +22,40 @@ on the 2-worker run; with 400 replicates the ideal would be 12 + 84 / 2 = 54 s (
 1.47x. The 2-worker run grows by 51 s per 100 replicates against 67 s on 1 worker, so part of each replicate's cost
 is serial (dispatch and result handling on the client side, not yet profiled). Target not met.
 
+Profiled 2026-12-04 (py-spy on the client and both workers, 2 workers, 200 replicates, 80 s): the client is
+idle. Its event loop (client and scheduler) did about 2 s of work in all; submitting the tasks, collecting
+results and the progress bar were under 1 s; there is no checkpoint file unless one is asked for. Its own
+set-up at the start (build the model, prior predictive of the replicates) took about 5 s. Each worker's task
+thread was busy 80 % of the run and its event loop about 6 %, 2 of those points dask's sampling profiler. Of the
+task time, 48 % was the one-off model set-up of each worker (numba compile of nutpie's log density 29 %, importing
+PyMC and building the model 19 %). The refits took the rest: the deterministics computed draw by draw after
+sampling 28 %, nutpie's draws turned into ArviZ data 14 %, the gate's diagnostics 9 %, the sampler itself a few
+%. No serial cost per replicate was found: what does not shrink on 2 workers is each worker's set-up. A second
+worker cannot skip it (the compiled functions cannot be sent or cached), so 2 workers against 1 can give at most
+(C + W) / (C + W / 2), with C a worker's set-up and W the refits' work on 1 worker. Workers'
+CPU for 100 replicates was 20.5 s with a compile of 4.5 s at load 1.3, so W is about 12 s and C about 8 s, and
+the bound at 100 replicates is about 1.4x.
+Changes since: each worker starts its set-up in a warm-up task (``executor.warm``) while the client builds its
+model and simulates the replicates, and keeps the compiled model in a cache in its process. LocalClusters we
+start have dask's profiler off. This process imports PyMC before both clocks, so the 1-worker run no longer
+pays for it, and the workers' CPU, each worker's compile seconds and the load are printed per run.
+
+Measured 2026-12-04 11:53-12:22 on the same 2 cores, while another session's jobs were running (one to two
+cores busy all along, load 1.3-4 at the start of the runs; no quiet window came), "before" being main at
+7bab661 run with this script:
+  100 replicates, after:  24.2 s (load 1.27) and 39.5 s (load 1.67), 0.61x; before: 32.5 s and 45.2 s (load 2.2),
+      0.72x; two earlier pairs at load 5-7: after 48.9 s and 60.1 s, 0.81x; 43.1 s and 65.0 s, 0.66x;
+      before 45.5 s and 47.6 s, 0.95x;
+  400 replicates, after:  80.4 s (load 3.0) and 166.2 s (load 3.8), 0.48x; before: 75.6 s (4.1) and 84.9 s (3.1),
+      0.89x;
+  --subjects 12, 100 replicates, after: 102.0 s (load 3.8) and 100.7 s (load 3.3), 1.01x; before: 115.9 s
+      (load 3.9) and 83.9 s (load 3.4), 1.38x.
+With a busy machine the 2-worker run gets one core or less, and its figures say nothing about the executor.
+The workers' CPU shows this: for the same replicates it rises from 65 s (1 worker) to 105 s (2 workers) at 400
+replicates. The 1.7x target is neither shown nor ruled out at 400 replicates or with --subjects 12 (where W is
+large against C). At 100 replicates of the one-reading study it cannot be reached while each worker compiles
+the model.
+
 Run: python benchmarks/benchmark_calibrate.py [--replicates 100] [--subjects 12] [--repeat 3]
 """
 
