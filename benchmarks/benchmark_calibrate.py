@@ -40,22 +40,22 @@ model and simulates the replicates, and keeps the compiled model in a cache in i
 start have dask's profiler off. This process imports PyMC before both clocks, so the 1-worker run no longer
 pays for it, and the workers' CPU, each worker's compile seconds and the load are printed per run.
 
-Measured 2026-12-04 11:41-12:26 on the same 2 cores, while another session's jobs were running (one to two
+Measured 2026-12-04 11:41-12:39 on the same 2 cores, while another session's jobs were running (one to two
 cores busy all along, load 1.3-4 at the start of the runs; no quiet window came), "before" being main at
 7bab661 run with this script:
   100 replicates, after:  24.2 s (load 1.27) and 39.5 s (load 1.67), 0.61x; before: 32.5 s and 45.2 s (load 2.2),
       0.72x; two earlier pairs at load 5-7: after 48.9 s and 60.1 s, 0.81x; 43.1 s and 65.0 s, 0.66x;
       before 45.5 s and 47.6 s, 0.95x;
   400 replicates, after:  80.4 s (load 3.0) and 166.2 s (load 3.8), 0.48x; before: 75.6 s (4.1) and 84.9 s (3.1),
-      0.89x;
+      0.89x; again at 12:33-12:39 (one job of the other session on one core): after 75.0 s (3.4) and 81.6 s
+      (2.5), 0.92x, compiles 7.8 s and 5.9 s; before 75.1 s (2.8) and 85.2 s (2.6), 0.88x;
   --subjects 12, 100 replicates, after: 102.0 s (load 3.8) and 100.7 s (load 3.3), 1.01x; again 80.3 s (3.6)
-      and 95.0 s (4.2), 0.85x; before: 115.9 s
-      (load 3.9) and 83.9 s (load 3.4), 1.38x.
+      and 95.0 s (4.2), 0.85x; before: 115.9 s (load 3.9) and 83.9 s (load 3.4), 1.38x.
 With a busy machine the 2-worker run gets one core or less, and its figures say nothing about the executor.
-The workers' CPU shows this: for the same replicates it rises from 65 s (1 worker) to 105 s (2 workers) at 400
-replicates. The 1.7x target is neither shown nor ruled out at 400 replicates or with --subjects 12 (where W is
-large against C). At 100 replicates of the one-reading study it cannot be reached while each worker compiles
-the model.
+The workers' CPU shows this: for the same 400 refits it rises from 65 s (1 worker) to 105 s (2 workers) at load
+3-3.8, and from 68 s to 89 s at load 2.5-3.4, as three busy processes take turns on two cores. The 1.7x target
+is neither shown nor ruled out at 400 replicates or with --subjects 12 (where W is large against C). At 100
+replicates of the one-reading study it cannot be reached while each worker compiles the model.
 
 Run: python benchmarks/benchmark_calibrate.py [--replicates 100] [--subjects 12] [--repeat 3]
 """
