@@ -57,6 +57,13 @@ The workers' CPU shows this: for the same 400 refits it rises from 65 s (1 worke
 is neither shown nor ruled out at 400 replicates or with --subjects 12 (where W is large against C). At 100
 replicates of the one-reading study it cannot be reached while each worker compiles the model.
 
+Measured 2026-12-04 12:40-12:48 with nothing else running (load 1.1-2.0 at the start, the benchmark's own
+processes), 400 replicates: this branch 60.7 s (1 worker) and 41.1 s (2), 1.48x, and 44.2 s on 2 in a first
+pair, 1.51x (its 1-worker time lost with the first pair's output); main at 7bab661 with this script 69.2 and
+39.6 s, 1.75x, then 70.8 and 46.0 s, 1.54x. So the warm-up saves about 9 s on 1 worker (the compile overlaps
+with the client's simulation) and nothing on 2, where each worker still compiles; the ratio moves between 1.5x
+and 1.75x from run to run. Target 1.7x not shown.
+
 Run: python benchmarks/benchmark_calibrate.py [--replicates 100] [--subjects 12] [--repeat 3]
 """
 
