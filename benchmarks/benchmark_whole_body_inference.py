@@ -31,7 +31,7 @@ Measured again 2026-12-04 (seventh session, load 2-6 from other work on the mach
 scan of single Runge-Kutta steps over one stacked state matrix (a scan with one recurrent output and one input
 instead of a dozen of each; node creation tracebacks off during nutpie's compile). PyTensor's part is solved: the
 20-subject model's log density and gradient graph are built in 8-19 s, where the nested scan was still inside
-``Scan.L_op`` (a shape inference through the loop's body per scan input and output) after 13 min for 3 subjects.
+``Scan.L_op`` (a shape inference through the loop's body per scan input and output) after 12 min for 3 subjects.
 What remains is the compiler. numba (nutpie's default) was still compiling the loop's gradient after 14 min (3
 subjects); for 20 subjects, after 21 min with NUMBA_OPT=0 and after 11 min with PyTensor's elementwise fusion off
 (LLVM's passes on one very large function). nutpie's JAX backend (gradient by JAX) compiled in 2 min but took 54.7
