@@ -15,40 +15,20 @@ import pytest
 from click.testing import CliRunner
 from scipy.integrate import solve_ivp
 from toml_text import toml_text
+from whole_body_inputs import BODY_KG, dose, params
 
 from uncertainty.analyses.propagate import propagate
-from uncertainty.analyses.propagate.timeline import bed_ratios
 from uncertainty.app.cli import main
-from uncertainty.forms.whole_body import timeline_parameters
 from uncertainty.physiology import whole_body as wb
-from uncertainty.priors import prior_medians
 from uncertainty.study import Study
-
-BODY_KG = 73.0  # ICRP Publication 89 (2002) reference adult male
-
-
-def _params(n: int = 1, scale: dict[str, float] | None = None):
-    """Body, beds and Cp0 at the skeletal-muscle prior medians (n equal draws, some optionally scaled)."""
-    m = prior_medians("skeletal_muscle")
-    v = {k: np.full(n, val) for k, val in m.items()}
-    for k, f in (scale or {}).items():
-        v[k] = v[k] * np.asarray(f)
-    return timeline_parameters(v, BODY_KG, bed_ratios("skeletal_muscle"))
-
-
-def _dose(fluid: str, volume: float, duration: float, start: float = 0.0) -> list[wb.Dose]:
-    if fluid == "bleed":
-        return [wb.Dose("bleed", volume, start, duration)]
-    return [wb.infusion(fluid, volume, start, duration)]
-
 
 # --- solver -----------------------------------------------------------------------------------------------
 
 def test_rk4_agrees_with_solve_ivp_on_three_draws() -> None:
     # three different subjects (Kf and L scaled), crystalloid then a bleed; reference: DOP853 at rtol 1e-8,
     # integrated piecewise between the intervention boundaries (the rates are constant on each piece)
-    body, beds, Cp0 = _params(3, {"Kf": [0.6, 1.0, 1.8], "L": [1.5, 1.0, 0.7]})
-    doses = _dose("crystalloid", 1500.0, 30.0) + _dose("bleed", 400.0, 10.0, start=60.0)
+    body, beds, Cp0 = params(3, {"Kf": [0.6, 1.0, 1.8], "L": [1.5, 1.0, 0.7]})
+    doses = dose("crystalloid", 1500.0, 30.0) + dose("bleed", 400.0, 10.0, start=60.0)
     end, every = 90.0, 10.0
     sim = wb.simulate(body, beds, Cp0, doses, end, every, max_step=0.5)
     for j in range(3):
@@ -131,8 +111,8 @@ REFERENCE = {
 
 
 def test_simulate_matches_the_stored_reference() -> None:
-    body, beds, Cp0 = _params(3, {"Kf": [0.6, 1.0, 1.8], "L": [1.5, 1.0, 0.7]})
-    doses = _dose("crystalloid", 1500.0, 30.0) + _dose("bleed", 400.0, 10.0, start=60.0)
+    body, beds, Cp0 = params(3, {"Kf": [0.6, 1.0, 1.8], "L": [1.5, 1.0, 0.7]})
+    doses = dose("crystalloid", 1500.0, 30.0) + dose("bleed", 400.0, 10.0, start=60.0)
     sim = wb.simulate(body, beds, Cp0, doses, 120.0, 30.0, max_step=0.5)
     for name, want in REFERENCE.items():
         got = np.array([np.broadcast_to(x, (3,)) for x in sim[name]], dtype=float)
@@ -141,8 +121,8 @@ def test_simulate_matches_the_stored_reference() -> None:
 
 def test_blocks_on_threads_give_the_same_numbers(monkeypatch: pytest.MonkeyPatch) -> None:
     """simulate_blocks (blocks of 4 draws here, the last one short, on 2 threads) equals one simulate call."""
-    body, beds, Cp0 = _params(10, {"Kf": np.linspace(0.5, 2.0, 10), "L": np.linspace(1.5, 0.7, 10)})
-    doses = _dose("crystalloid", 1500.0, 30.0) + _dose("bleed", 400.0, 10.0, start=60.0)
+    body, beds, Cp0 = params(10, {"Kf": np.linspace(0.5, 2.0, 10), "L": np.linspace(1.5, 0.7, 10)})
+    doses = dose("crystalloid", 1500.0, 30.0) + dose("bleed", 400.0, 10.0, start=60.0)
     whole = wb.simulate(body, beds, Cp0, doses, 120.0, 30.0, max_step=1.0)
     monkeypatch.setattr(wb, "BLOCK_DRAWS", 4)
     blocks = wb.simulate_blocks(body, beds, Cp0, doses, 120.0, 30.0, max_step=1.0, threads=2)
@@ -154,7 +134,7 @@ def test_blocks_on_threads_give_the_same_numbers(monkeypatch: pytest.MonkeyPatch
 
 
 def test_rest_stays_at_rest() -> None:
-    body, beds, Cp0 = _params()
+    body, beds, Cp0 = params()
     sim = wb.simulate(body, beds, Cp0, [], 120.0, 30.0, max_step=1.0)
     for name in ("plasma_volume_change", "interstitial_volume_change_muscle", "interstitial_volume_change_skin"):
         assert abs(float(sim[name][-1][0])) < 1e-6, name
@@ -162,7 +142,7 @@ def test_rest_stays_at_rest() -> None:
 
 
 def _run(doses: list[wb.Dose], end: float):
-    body, beds, Cp0 = _params()
+    body, beds, Cp0 = params()
     state, rest = wb.initial_state(body, beds, Cp0)
     start = dict(state)
     dt, n, _ = wb.time_grid(end, 1.0, 0.5)
@@ -178,7 +158,7 @@ def _run(doses: list[wb.Dose], end: float):
 def test_water_is_conserved() -> None:
     # infused = plasma change + interstitial change + urine above basal + plasma bled (a conservation law)
     body, beds, rest, _, state, given, _ = _run(
-        _dose("albumin_20", 200.0, 20.0) + _dose("bleed", 500.0, 15.0, start=40.0), 90.0)
+        dose("albumin_20", 200.0, 20.0) + dose("bleed", 500.0, 15.0, start=40.0), 90.0)
     f = wb.fluxes(state, body, beds, rest)
     water = (state["Vp"] - body["Vp0"]) + f["Vx_muscle"] + f["Vx_skin"] + (state["U"] - body["u_basal"] * 90.0)
     assert float(water[0] + state["B"][0]) == pytest.approx(given, abs=1e-6)
@@ -186,14 +166,14 @@ def test_water_is_conserved() -> None:
 
 def test_protein_is_conserved() -> None:
     # without bleeding, protein only enters (infused) and moves between plasma and interstitium
-    _, _, _, start, state, _, protein = _run(_dose("albumin_20", 200.0, 20.0), 90.0)
+    _, _, _, start, state, _, protein = _run(dose("albumin_20", 200.0, 20.0), 90.0)
     total = [float(s["Qp"][0] + s["Qi_muscle"][0] + s["Qi_skin"][0]) for s in (start, state)]
     assert protein == pytest.approx(40.0)
     assert total[1] == pytest.approx(total[0] + protein, abs=1e-8)
 
 
 def test_step_rates_deliver_the_volume() -> None:
-    doses = _dose("albumin_5", 1000.0, 45.0, start=2.3) + _dose("bleed", 450.0, 0.0, start=7.0)
+    doses = dose("albumin_5", 1000.0, 45.0, start=2.3) + dose("bleed", 450.0, 0.0, start=7.0)
     dt = 0.5
     totals = np.sum([wb.step_rates(doses, i * dt, dt) for i in range(200)], axis=0) * dt
     assert totals == pytest.approx([1000.0, 50.0, 450.0])
@@ -202,12 +182,12 @@ def test_step_rates_deliver_the_volume() -> None:
 def test_renal_clearance_follows_the_fluids_given() -> None:
     # closed form of the volume-weighted rule, k_r(t) = a k_r + b: crystalloid alone (1, 0), colloid alone (0, 7.1)
     # (Lee et al. 2010), 300 mL crystalloid then 100 mL albumin: (300/400, 100 x 7.1 / 400); bleeds do not enter
-    cryst, alb = _dose("crystalloid", 300.0, 30.0), _dose("albumin_20", 100.0, 10.0, start=60.0)
+    cryst, alb = dose("crystalloid", 300.0, 30.0), dose("albumin_20", 100.0, 10.0, start=60.0)
     assert wb.renal_terms([], 10.0) == (1.0, 0.0)
     assert wb.renal_terms(cryst, 15.0) == pytest.approx((1.0, 0.0))
     assert wb.renal_terms(alb, 65.0) == pytest.approx((0.0, 7.1))
     assert wb.renal_terms(cryst + alb, 120.0) == pytest.approx((300.0 / 400.0, 100.0 * 7.1 / 400.0))
-    assert wb.renal_terms(cryst + _dose("bleed", 450.0, 10.0, start=40.0), 60.0) == pytest.approx((1.0, 0.0))
+    assert wb.renal_terms(cryst + dose("bleed", 450.0, 10.0, start=40.0), 60.0) == pytest.approx((1.0, 0.0))
     # the study file's fluid names carry the clearance through to the doses
     s = Study.from_dict(_doc([{"kind": "infusion", "fluid": "albumin_5", "volume": "500 mL"}]))
     assert s.interventions[0].clearance == wb.K_R_COLLOID_ML_MIN
@@ -243,7 +223,7 @@ def test_numpy_and_pytensor_agree() -> None:
     # (FAST_COMPILE: the graph is large and only its values are compared)
     pytensor = pytest.importorskip("pytensor")
     pt = pytest.importorskip("pytensor.tensor")
-    body, beds, Cp0 = _params(4, {"Kf": [0.5, 1.0, 1.5, 2.0]})
+    body, beds, Cp0 = params(4, {"Kf": [0.5, 1.0, 1.5, 2.0]})
     state, rest = wb.initial_state(body, beds, Cp0)
     state = {**state, "Vp": state["Vp"] + 600.0, "Pi_muscle": state["Pi_muscle"] + 0.7}
     kf = pt.dvector("kf")
@@ -265,15 +245,15 @@ def test_numpy_and_pytensor_agree() -> None:
 
 
 @pytest.mark.slow
-def test_pytensor_course_is_one_scan_and_agrees_with_numpy() -> None:
-    """simulate(xp=pytensor) solves the timeline as one scan of Runge-Kutta steps: same numbers as the numpy
-    loop (to rounding), and a graph whose size does not grow with the timeline's length."""
+def test_pytensor_course_is_one_node_and_agrees_with_numpy() -> None:
+    """simulate(xp=pytensor) solves the timeline in one compiled node: same numbers as the numpy loop (to
+    rounding), and a graph whose size does not grow with the timeline's length."""
     pytensor = pytest.importorskip("pytensor")
     pt = pytest.importorskip("pytensor.tensor")
-    body, beds, Cp0 = _params(4, {"Kf": [0.5, 1.0, 1.5, 2.0]})
+    body, beds, Cp0 = params(4, {"Kf": [0.5, 1.0, 1.5, 2.0]})
     kf = pt.dvector("kf")
     beds_sym = {name: {**p, "Kf": kf * (p["Kf"] / beds["muscle"]["Kf"])} for name, p in beds.items()}
-    doses = _dose("crystalloid", 1500.0, 30.0) + _dose("bleed", 400.0, 10.0, start=40.0)
+    doses = dose("crystalloid", 1500.0, 30.0) + dose("bleed", 400.0, 10.0, start=40.0)
     sizes = []
     for end in (60.0, 240.0):
         sym = wb.simulate(body, beds_sym, Cp0, doses, end, 15.0, max_step=4.0, xp=pt)
@@ -292,11 +272,11 @@ def test_pytensor_course_is_one_scan_and_agrees_with_numpy() -> None:
 
 @pytest.fixture(scope="module")
 def courses() -> dict[str, dict]:
-    body, beds, Cp0 = _params()
-    runs = {"ringer": (_dose("crystalloid", 25.0 * BODY_KG, 30.0), 120.0),
-            "albumin_5": (_dose("albumin_5", 1000.0, 30.0), 240.0),
-            "albumin_20": (_dose("albumin_20", 100.0, 30.0), 240.0),
-            "bleed": (_dose("bleed", 450.0, 10.0), 360.0)}
+    body, beds, Cp0 = params()
+    runs = {"ringer": (dose("crystalloid", 25.0 * BODY_KG, 30.0), 120.0),
+            "albumin_5": (dose("albumin_5", 1000.0, 30.0), 240.0),
+            "albumin_20": (dose("albumin_20", 100.0, 30.0), 240.0),
+            "bleed": (dose("bleed", 450.0, 10.0), 360.0)}
     out = {}
     for name, (doses, end) in runs.items():
         sim = wb.simulate(body, beds, Cp0, doses, end, 5.0, max_step=1.0)

@@ -415,6 +415,14 @@ class _Prepared:
                 "cS": m * (Ch - C),
                 "mKf": m * b["Kf"], "mPS": m * b["PS"], "Pc": b["Pc"], "sigma": b["sigma"]}))
 
+    def rows(self) -> list[Array]:
+        """The constants in the row order of the compiled course (``whole_body_kernel.GLOBAL``, then per bed
+        ``whole_body_kernel.BED``)."""
+        from uncertainty.physiology.whole_body_kernel import BED, GLOBAL
+
+        return ([getattr(self, k) for k in GLOBAL]
+                + [b[k] for _, b in self.beds for k in BED])
+
 
 def _softplus(x: Array, xp: Any) -> Array:
     """log(1 + e^x) without overflow (the expression of ``interstitium.smooth_tissue_volume``)."""
@@ -696,7 +704,7 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
     max_step : float
         Largest Runge-Kutta step, min (the step divides ``report_every``).
     xp : module
-        numpy or pytensor.tensor (PyTensor: one scan of Runge-Kutta steps, :func:`_simulate_scan`).
+        numpy or pytensor.tensor (PyTensor: the steps compiled as one node, :func:`_simulate_compiled`).
 
     Returns
     -------
@@ -705,7 +713,7 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
         per report time, each over the draws).
     """
     if xp is not np:
-        return _simulate_scan(body, beds, Cp0, doses, end, report_every, max_step)
+        return _simulate_compiled(body, beds, Cp0, doses, end, report_every, max_step)
     dt, n_steps, per = time_grid(end, report_every, max_step)
     # float64, contiguous: one memory layout for every operand of the step loop
     body = {k: _f64(v) for k, v in body.items()}
@@ -734,16 +742,16 @@ def simulate(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
     return {"times_min": times, **series}
 
 
-def _simulate_scan(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]], Cp0: Array,
-                   doses: Sequence[Dose], end: float, report_every: float, max_step: float) -> dict[str, Any]:
-    """:func:`simulate` in PyTensor as one ``scan`` of Runge-Kutta steps, so the graph holds one step whatever the
-    timeline's length. The state is one matrix (state variable, draw) and the model's quantities one matrix
-    (quantity, draw): a scan with one recurrent output and one input, whose gradient PyTensor derives and compiles
-    in a fraction of the time a scan with a dozen of each takes (each of its inputs and outputs costs a shape
-    inference through the loop's body). The reports are taken afterwards, over all report times at once. Same
-    arithmetic as the numpy loop."""
-    import pytensor
+def _simulate_compiled(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]], Cp0: Array,
+                       doses: Sequence[Dose], end: float, report_every: float, max_step: float) -> dict[str, Any]:
+    """:func:`simulate` in PyTensor: the resting state, the constants and the reports are graph, the steps one
+    node (``whole_body_op.Course``: the same arithmetic compiled by numba, with a hand-derived reverse pass), so a
+    sampler's graph holds no loop to unroll or differentiate. The state is one matrix (state variable, draw), the
+    model's quantities one matrix (quantity, draw); the reports are taken over all report times at once."""
     import pytensor.tensor as pt
+
+    from uncertainty.physiology.interstitium import BREAK_WIDTH
+    from uncertainty.physiology.whole_body_op import Course
 
     dt, n_steps, per = time_grid(end, report_every, max_step)
     state, rest = initial_state(body, beds, Cp0, pt)
@@ -751,26 +759,10 @@ def _simulate_scan(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Ar
     keys = list(state)
     like = sum(0.0 * pt.as_tensor_variable(v) for v in state.values())   # one shape (draws) for every row
     start = pt.stack([pt.as_tensor_variable(state[k]) + like for k in keys])
+    quantities = pt.stack([pt.as_tensor_variable(v) + like for v in p.rows()])
     plan = np.array([(*step_rates(doses, i * dt, dt, equivalent=True), *renal_terms(doses, (i + 1) * dt))
                      for i in range(n_steps)], dtype=float)
-    # the model's quantities enter the loop as one explicit input (strict scan: PyMC must see every random
-    # variable the loop reads in order to replace it by its value variable in the log density)
-    inputs = {"body": body, "rest": rest, **{f"bed:{name}": b for name, b in beds.items()}}
-    leaves = [(group, k) for group, d in inputs.items() for k, v in d.items() if isinstance(v, pytensor.graph.Variable)]
-    quantities = pt.stack([pt.as_tensor_variable(inputs[g][k]) + like for g, k in leaves])
-
-    def step(rates: Any, values: Any, given: Any) -> Any:
-        inner = {group: dict(d) for group, d in inputs.items()}
-        for i, (group, k) in enumerate(leaves):
-            inner[group][k] = given[i]
-        q = _Prepared(inner["body"], {name: inner[f"bed:{name}"] for name in beds}, inner["rest"], pt)
-        st = _rk4({k: values[i] for i, k in enumerate(keys)}, tuple(rates[j] for j in range(5)), dt, q, pt)
-        return pt.stack([st[k] for k in keys])
-
-    steps = pytensor.scan(step, sequences=[pt.constant(plan)], outputs_info=[start], non_sequences=[quantities],
-                          n_steps=n_steps, strict=True, return_list=True)[0][0]
-    # every report time at once: the rest and the end of each interval, (reports, draws)
-    ends = pt.concatenate([start[None], steps[per - 1::per]], axis=0)
+    ends = Course(plan, dt, per, tuple(b["sat"] for _, b in p.beds), 1.0 / BREAK_WIDTH)(start, quantities)
     at = {k: ends[:, i] for i, k in enumerate(keys)}
     times = [i * per * dt for i in range(n_steps // per + 1)]
     given = np.concatenate([[0.0], np.cumsum(plan[:, 0].reshape(-1, per).sum(axis=1) * dt)])[:, None]
