@@ -312,6 +312,89 @@ def test_points_on_the_fan_chart(tmp_path: Path) -> None:
     np.testing.assert_allclose(vol["values"], [30.0, 155.0, 245.0, 240.0])
 
 
+def test_charted_balances_on_the_weight_chart_in_kg(tmp_path: Path) -> None:
+    # the fluid_balance kind is fitted to body_weight_change through charted_balance (weight + insensible loss since
+    # 0, at 1 kg/L): its points are the readings taken back through that relation, so on the weight chart in kg
+    from uncertainty.analyses.propagate.timeline import balance_as_weight_change, observed_points
+
+    _files(tmp_path)
+    (tmp_path / "w.csv").write_text("subject,time_min,value\nA,0,70\nA,30,71.2\n", encoding="utf-8")
+    weights = {"kind": "body_weight", "file": "w.csv", "unit": "kg", "sd": 0.1}
+    chart = observed_points(Study.from_dict(_doc([weights, BALANCE]), base_dir=tmp_path))["body_weight_change"]
+    assert chart["series"] == ["body_weight"] * 2 + ["fluid_balance"] * 4
+    assert chart["subjects"] == ["A", "A", "A", "A", "A", "B"]
+    assert not chart["change_from_first"] and not chart["relative_to_first"]  # two ways of showing on one chart
+    assert set(chart["legends"]) == {"body_weight", "fluid_balance"}
+    t = np.array(chart["times_min"][2:])
+    np.testing.assert_allclose(t, [0.0, 30.0, 75.0, 45.0])
+    # closed form: mL -> L, less (450 + 300) mL/day of insensible loss (Institute of Medicine 2005, ch. 4), 1 kg/L
+    by_hand = (np.array([0.0, 1400.0, 1100.0, 1250.0]) - 750.0 / 1440.0 * t) / 1000.0
+    np.testing.assert_allclose(chart["values"][2:], by_hand, rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(chart["values"][:2], [0.0, 1.2], atol=1e-12)  # weights: minus the first
+    # the inverse of the relation the term is fitted through, at any time
+    y, tt = np.array([0.3, -0.2, 1.7]), np.array([5.0, 60.0, 240.0])
+    np.testing.assert_allclose(weight_course.charted_balance(balance_as_weight_change(y, tt), tt), y, rtol=1e-12)
+
+
+def test_every_timed_kind_is_drawn_on_the_chart_of_its_course() -> None:
+    # a timed kind of a whole_body study fits one of the form's time courses: its readings go on that course's chart
+    import importlib
+
+    from uncertainty.analyses.inference.observations import KINDS, plasma_protein
+    from uncertainty.analyses.propagate.timeline import OBSERVED_COURSES, OBSERVED_LEGENDS
+
+    timed = {k for k, m in KINDS.items()
+             if getattr(importlib.import_module(f"uncertainty.analyses.inference.observations.{m}"), "TIMED", False)}
+    assert timed == set(OBSERVED_COURSES)
+    fitted = {"haemoglobin": haemoglobin.COURSE, "haematocrit": haemoglobin.COURSE, "urine": urine.COURSE,
+              "body_weight": weight_course.COURSE, "fluid_balance": weight_course.COURSE,
+              "plasma_protein": plasma_protein.COURSE}
+    assert {k: c for k, (c, _) in OBSERVED_COURSES.items()} == fitted
+    assert all(c in wb.TIMELINE_UNITS for c in fitted.values())
+    assert set(OBSERVED_LEGENDS) == set(OBSERVED_COURSES) | {"urine_rate"}
+
+
+def test_the_figure_draws_every_series_of_a_chart(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # weights, charted balances, haematocrit and urine flows of one study: each chart shows its readings, one colour
+    # and one legend entry per series, one marker line per subject and series
+    from uncertainty.analyses.propagate import figure
+    from uncertainty.analyses.propagate.timeline import timeline
+
+    _files(tmp_path)
+    (tmp_path / "w.csv").write_text("subject,time_min,value\nA,0,70\nA,30,71.2\n", encoding="utf-8")
+    weights = {"kind": "body_weight", "file": "w.csv", "unit": "kg", "sd": 0.1}
+    tl = timeline(Study.from_dict(_doc([HCT, RATE, BALANCE, weights]), base_dir=tmp_path), draws=8)
+    shown: dict = {}
+
+    def keep(fig, out_dir, stem):
+        shown["fig"] = fig
+        return [stem]
+
+    monkeypatch.setattr(figure, "save_figure", keep)
+    figure.plot_timeline(tl, str(tmp_path))
+    for name, n_lines in (("hb_ratio", 3), ("urine_volume", 2), ("body_weight_change", 3)):
+        obs = tl["observed"][name]
+        ax = next(a for a in shown["fig"].axes if a.get_title().split(" ")[0] == name)
+        lines = [ln for ln in ax.get_lines() if ln.get_marker() not in (None, "None", "")]
+        assert len(lines) == n_lines, name  # subjects x series
+        pts = sorted((float(x), float(y)) for ln in lines for x, y in zip(*ln.get_data(), strict=True))
+        assert pts == sorted(zip(obs["times_min"], obs["values"], strict=True)), name
+        legend = [t.get_text() for t in ax.get_legend().get_texts()]
+        assert [x for x in legend if x.startswith("observed")] == [f"observed: {obs['legends'][s]}"
+                                                                   for s in dict.fromkeys(obs["series"])]
+        colours = {s: {ln.get_color() for ln, z in zip(lines, _series_of_lines(obs), strict=True) if z == s}
+                   for s in set(obs["series"])}
+        assert all(len(c) == 1 for c in colours.values()) and len(set.union(*colours.values())) == len(colours)
+
+
+def _series_of_lines(obs: dict) -> list[str]:
+    """The series of each marker line ``figure._observed`` draws, in drawing order (series, then subject)."""
+    out = []
+    for s in dict.fromkeys(obs["series"]):
+        out += [s] * len(dict.fromkeys(x for x, z in zip(obs["subjects"], obs["series"], strict=True) if z == s))
+    return out
+
+
 # --- the model: every new term built in PyTensor and evaluated at one point -----------------------------------------
 
 @pytest.mark.slow

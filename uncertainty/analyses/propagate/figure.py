@@ -51,8 +51,9 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> l
     """Fan charts of a ``whole_body`` timeline: for each reported time course the median line and the 95%
     band over time (min) for the typical subject (``layer``), units as ``tl["units"]``; the interventions are
     shaded. Observed points are drawn when ``tl["observed"]`` maps a name to ``{"times_min", "values"}`` (optional
-    ``subjects``: one marker line per subject; ``relative_to_first`` / ``change_from_first``: readings over / minus
-    each subject's first, said in the legend). PNG and SVG paths."""
+    ``subjects``: one marker line per subject; ``series`` and ``legends``: one colour and legend entry per series,
+    saying how it is shown; without them ``relative_to_first`` / ``change_from_first``: readings over / minus each
+    subject's first, said in the legend). PNG and SVG paths."""
     plt = pyplot()
     names = list((tl.get(layer) or {}).keys())
     t = np.asarray(tl.get("times_min") or [], dtype=float)
@@ -84,18 +85,28 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> l
 
 #: Marker cycle for the subjects of observed points.
 _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "*")
+#: Colour of each series of points on one chart, in order of appearance.
+_SERIES_COLOURS = (STYLE["interval"], "#6a3d9a", "#1b7837", "#b2182b")
 
 
 def _observed(ax: Any, obs: dict[str, Any]) -> None:
-    """Observed points on one fan chart: each subject's readings joined by a thin line, a marker per subject (the
-    first ten subjects get their own marker, the rest share them); the legend says how they are scaled."""
+    """Observed points on one fan chart: each subject's readings of one series (an observation kind, urine flows
+    apart) joined by a thin line, a marker per subject (the first ten subjects get their own marker, the rest share
+    them; a subject keeps its marker across series) and a colour per series; the legend says how each series is
+    shown (``obs["legends"]``; without it, from ``relative_to_first`` / ``change_from_first``)."""
     t = np.asarray(obs.get("times_min") or [], dtype=float)
     y = np.asarray([np.nan if v is None else v for v in obs.get("values") or []], dtype=float)
     subjects = list(obs.get("subjects") or [""] * t.size)
-    label = ("observed (over each subject's first)" if obs.get("relative_to_first") else
-             "observed (minus each subject's first)" if obs.get("change_from_first") else "observed")
-    for k, s in enumerate(dict.fromkeys(subjects)):
-        idx = [i for i, x in enumerate(subjects) if x == s]
-        ax.plot(t[idx], y[idx], marker=_MARKERS[k % len(_MARKERS)], color=STYLE["interval"], ms=3.5, lw=0.6,
-                alpha=0.8, label=label if k == 0 else None)
+    series = list(obs.get("series") or [""] * t.size)
+    legends = obs.get("legends") or {}
+    fallback = ("observed (over each subject's first)" if obs.get("relative_to_first") else
+                "observed (minus each subject's first)" if obs.get("change_from_first") else "observed")
+    marker = {s: _MARKERS[k % len(_MARKERS)] for k, s in enumerate(dict.fromkeys(subjects))}
+    for j, name in enumerate(dict.fromkeys(series)):
+        label = f"observed: {legends[name]}" if name in legends else fallback
+        colour = _SERIES_COLOURS[j % len(_SERIES_COLOURS)]
+        for k, s in enumerate(dict.fromkeys(x for x, z in zip(subjects, series, strict=True) if z == name)):
+            idx = [i for i, (x, z) in enumerate(zip(subjects, series, strict=True)) if x == s and z == name]
+            ax.plot(t[idx], y[idx], marker=marker[s], color=colour, ms=3.5, lw=0.6, alpha=0.8,
+                    label=label if k == 0 else None)
     ax.legend(fontsize=7, frameon=False)

@@ -17,8 +17,10 @@ CAPTIONS: tuple[Caption, ...] = (
     ("timeline", "", "Fan charts of the whole-body time courses for the typical subject: median (line) and "
                      "95% interval (band) at each reported time; shaded spans mark the infusions (blue) and "
                      "bleeds (red); timed observations of the study are drawn as markers joined per subject "
-                     "(haemoglobin, haematocrit and plasma protein as each subject's reading over its first, as "
-                     "the inference fits them; urine flows as the volumes they add up to)."),
+                     "in the time course's unit, one colour per kind (haemoglobin, haematocrit and plasma protein "
+                     "as each subject's reading over its first, as the inference fits them; weights minus each "
+                     "subject's first; urine flows as the volumes they add up to; charted fluid balances less the "
+                     "insensible loss a chart omits, at 1 kg per L, on the body-weight chart)."),
     ("", "", "Histograms of {output} for this study's individual (typical-subject uncertainty "
              "plus between-subject spread) and for the typical subject (uncertainty only), with "
              "the median and 95% interval as solid lines; for Jv the mass left of the dashed zero "

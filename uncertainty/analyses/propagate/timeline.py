@@ -18,7 +18,12 @@ from uncertainty.analyses.sampling import draw
 from uncertainty.core import units
 from uncertainty.forms.evaluate import input_values
 from uncertainty.forms.whole_body import timeline_parameters
-from uncertainty.physiology.whole_body import TIMELINE_UNITS, simulate_blocks
+from uncertainty.physiology.whole_body import (
+    INSENSIBLE_LOSS_ML_MIN,
+    KG_PER_L,
+    TIMELINE_UNITS,
+    simulate_blocks,
+)
 from uncertainty.priors import prior_medians
 from uncertainty.study.endpoints import TimePoint
 from uncertainty.study.schema import obs_symbol
@@ -53,13 +58,49 @@ def bed_ratios(tissue: str) -> dict[str, float]:
 #: Observation kinds drawn on a fan chart: kind -> (time course, how its readings are shown). ``first``: each
 #: subject's readings over its earliest one (as the kind's likelihood takes them, ``haemoglobin``); ``change``: each
 #: subject's readings minus its earliest one, in the time course's unit (``body_weight``, kg); ``as_read``: the
-#: readings themselves in the time course's unit. Urine read as rates (``how = "rate"``) is shown as the cumulative
-#: volumes the rates imply, sum_j rate_j (t_j - t_{j-1}) per subject (mL since 0).
+#: readings themselves in the time course's unit; ``balance``: a charted balance since 0 (L) less the insensible loss
+#: the chart omits, at 1 kg per L, i.e. the weight change it implies (kg; the inverse of
+#: ``observations.weight_course.charted_balance``, through which the ``fluid_balance`` kind of a whole_body study is
+#: fitted to ``body_weight_change``). Urine read as rates (``how = "rate"``) is shown as the cumulative volumes the
+#: rates imply, sum_j rate_j (t_j - t_{j-1}) per subject (mL since 0; the rate term's readings telescope to them).
 OBSERVED_COURSES: dict[str, tuple[str, str]] = {"haemoglobin": ("hb_ratio", "first"),
                                                 "haematocrit": ("hb_ratio", "first"),
                                                 "urine": ("urine_volume", "as_read"),
                                                 "plasma_protein": ("plasma_protein_ratio", "first"),
-                                                "body_weight": ("body_weight_change", "change")}
+                                                "body_weight": ("body_weight_change", "change"),
+                                                "fluid_balance": ("body_weight_change", "balance")}
+
+#: Legend of each series of points (a kind, or ``urine_rate`` for urine read as rates), saying how it is shown.
+OBSERVED_LEGENDS: dict[str, str] = {
+    "haemoglobin": "Hb / subject's first",
+    "haematocrit": "Hct / subject's first",
+    "plasma_protein": "protein / subject's first",
+    "urine": "urine since 0",
+    "urine_rate": "urine flows summed over intervals",
+    "body_weight": "weight - subject's first",
+    "fluid_balance": "charted balance - insensible loss",
+}
+
+
+def balance_as_weight_change(balance_L: np.ndarray, t_min: np.ndarray) -> np.ndarray:
+    """The body weight change (kg) a charted fluid balance since time 0 implies: the balance less the insensible loss
+    the chart does not record, at 1 kg per L (``physiology.whole_body``'s ``INSENSIBLE_LOSS_ML_MIN`` and
+    ``KG_PER_L``); the inverse of ``observations.weight_course.charted_balance``.
+
+    Parameters
+    ----------
+    balance_L : numpy.ndarray
+        Charted balance since time 0 (infused - bled - urine), L.
+    t_min : numpy.ndarray
+        Time since 0, min.
+
+    Returns
+    -------
+    numpy.ndarray
+        Weight change since 0, kg.
+    """
+    return (np.asarray(balance_L, dtype=float) - INSENSIBLE_LOSS_ML_MIN * np.asarray(t_min, dtype=float) / 1000.0) \
+        * KG_PER_L
 
 
 def observed_points(study: Any) -> dict[str, dict[str, Any]]:
@@ -74,14 +115,18 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
     Returns
     -------
     dict
-        time course -> ``times_min`` (list, min), ``values`` (list; for ``haemoglobin``, ``haematocrit`` and
-        ``plasma_protein`` each subject's reading over its earliest one, 1; for ``body_weight`` each subject's reading
-        minus its earliest one, kg; for ``urine`` the volumes since 0, mL, summed from the rates when read as
-        rates), ``subjects`` (list of labels, "" for none), ``kinds`` (list), ``relative_to_first`` (bool: readings
-        over the first), ``change_from_first`` (bool: readings minus the first). Readings without a time are left
-        out; empty without such observations.
+        time course -> ``times_min`` (list, min), ``values`` (list, in the time course's unit: for ``haemoglobin``,
+        ``haematocrit`` and ``plasma_protein`` each subject's reading over its earliest one, 1; for ``body_weight``
+        each subject's reading minus its earliest one, kg; for ``fluid_balance`` the charted balance less the
+        insensible loss since 0, kg (:func:`balance_as_weight_change`); for ``urine`` the volumes since 0, mL, summed
+        from the rates when read as rates), ``subjects`` (list of labels, "" for none), ``kinds`` (list),
+        ``series`` (list: the kind, ``urine_rate`` for urine read as rates), ``legends`` (series -> legend,
+        :data:`OBSERVED_LEGENDS`), ``relative_to_first`` / ``change_from_first`` (bool: every reading on the chart
+        is over / minus its subject's first). Readings without a time are left out; empty without such
+        observations.
     """
     out: dict[str, dict[str, Any]] = {}
+    shown: dict[str, set[str]] = {}
     for ob in getattr(study, "observations", None) or []:
         kind = getattr(ob, "kind", None)
         data = getattr(ob, "data", None)
@@ -89,6 +134,7 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
             continue
         name, how = OBSERVED_COURSES[kind]
         rates = kind == "urine" and getattr(ob, "how", None) == "rate"
+        series = "urine_rate" if rates else kind
         declared = getattr(ob, "declared_unit", None)
         symbol = obs_symbol(kind, getattr(ob, "how", None))
         factor = 1.0 if how == "first" or not declared else units.to_canonical(symbol, 1.0, declared)
@@ -97,8 +143,8 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
         time = np.asarray(data.get("time_min") or [np.nan] * n, dtype=float)
         subject = [str(x) if x is not None else "" for x in (data.get("subject") or [None] * n)]
         keep = np.isfinite(time) & np.isfinite(value)
-        entry = out.setdefault(name, {"times_min": [], "values": [], "subjects": [], "kinds": [],
-                                      "relative_to_first": how == "first", "change_from_first": how == "change"})
+        entry = out.setdefault(name, {"times_min": [], "values": [], "subjects": [], "kinds": [], "series": [],
+                                      "legends": {}})
         for label in dict.fromkeys(subject):
             idx = [k for k in range(n) if subject[k] == label and keep[k]]
             idx.sort(key=lambda k: time[k])
@@ -110,10 +156,18 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
             if rates:  # mL/min over each interval since the previous reading (0 for the first) -> mL since 0
                 dt = np.diff(np.concatenate([[0.0], time[idx]]))
                 entry["values"] += [float(v) for v in np.cumsum(value[idx] * dt)]
+            elif how == "balance":
+                entry["values"] += [float(v) for v in balance_as_weight_change(value[idx], time[idx])]
             else:
                 entry["values"] += [float((value[k] - shift) / ref) for k in idx]
             entry["subjects"] += [label] * len(idx)
             entry["kinds"] += [kind] * len(idx)
+            entry["series"] += [series] * len(idx)
+            entry["legends"][series] = OBSERVED_LEGENDS[series]
+            shown.setdefault(name, set()).add(how)
+    for name, entry in out.items():
+        entry["relative_to_first"] = shown.get(name) == {"first"}
+        entry["change_from_first"] = shown.get(name) == {"change"}
     return {k: v for k, v in out.items() if v["times_min"]}
 
 

@@ -45,6 +45,8 @@ NOTE = ("plasma_protein: each subject's plasma protein readings relative to its 
         "rest (no baseline concentration sampled).")
 #: The ``protein`` key's values and what each names in the term's label.
 PROTEINS = {"total": "total protein", "albumin": "albumin"}
+#: The time course the readings follow (``physiology.whole_body.TIMELINE_UNITS``: plasma total protein over rest).
+COURSE = "plasma_protein_ratio"
 
 
 def protein_of(obs: Observation) -> str:
@@ -101,9 +103,9 @@ def add(ctx: Any, obs: Observation) -> None:
     protein = PROTEINS[protein_of(obs)]
     infused = ("the study infuses albumin, which the form counts at its oncotic total-protein equivalent (more "
                "grams than labelled), so the predicted rise of total protein is too large by that factor",)
-    add_ratio_term(ctx, obs, "plasma_protein_ratio", what=f"plasma {protein}",
+    add_ratio_term(ctx, obs, COURSE, what=f"plasma {protein}",
                    label=f"plasma {protein} relative to the first reading", note=NOTE,
                    notes_when_fitted=infused if _protein_infused(ctx.problem) else ())
 
 
-__all__ = ["NOTE", "TIMED", "PROTEINS", "add", "design", "protein_of", "validate"]
+__all__ = ["COURSE", "NOTE", "TIMED", "PROTEINS", "add", "design", "protein_of", "validate"]
