@@ -29,7 +29,7 @@ def _inputs(doses: list[wb.Dose], end: float, every: float, max_step: float, uns
     plan = np.array([(*wb.step_rates(doses, i * dt, dt, equivalent=True), *wb.renal_terms(doses, (i + 1) * dt))
                      for i in range(n_steps)])
     sat = np.array([b["sat"] for _, b in p.beds])
-    return (body, beds, Cp0), start, q, (plan, dt, per, sat, 1.0 / BREAK_WIDTH)
+    return (body, beds, Cp0, per), start, q, (plan, dt, sat, 1.0 / BREAK_WIDTH)
 
 
 MIXED = dose("crystalloid", 1500.0, 30.0) + dose("albumin_20", 100.0, 15.0, start=20.0) + \
@@ -39,9 +39,9 @@ MIXED = dose("crystalloid", 1500.0, 30.0) + dose("albumin_20", 100.0, 15.0, star
 @pytest.mark.parametrize("unsaturated", [False, True])
 def test_course_equals_the_numpy_loop(unsaturated: bool) -> None:
     # same steps, same arithmetic: the reported volumes agree to rounding (1e-9 mL on about 1000 mL)
-    (body, beds, Cp0), start, q, consts = _inputs(MIXED, 90.0, 10.0, 2.5, unsaturated)
-    assert consts[3].tolist() == [True, not unsaturated]
-    out = kernel.course(start, q, *consts)
+    (body, beds, Cp0, per), start, q, consts = _inputs(MIXED, 90.0, 10.0, 2.5, unsaturated)
+    assert consts[2].tolist() == [True, not unsaturated]
+    out = kernel.course(start, q, *consts)[::per]
     sim = wb.simulate(body, beds, Cp0, MIXED, 90.0, 10.0, max_step=2.5)
     assert out.shape == (len(sim["times_min"]), start.shape[0], 3)
     np.testing.assert_allclose(out[:, 0, :] - body["Vp0"], np.array(sim["plasma_volume_change"]), atol=1e-9)
@@ -59,7 +59,7 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
     _, start, q, consts = _inputs(MIXED, 90.0, 10.0, 2.5, unsaturated)
     rng = np.random.default_rng(7)
     w = rng.normal(size=kernel.course(start, q, *consts).shape)
-    g_start, g_q = kernel.course_vjp(start, q, *consts, w)
+    g_start, g_q = kernel.course_vjp(kernel.course(start, q, *consts), q, *consts, w)
     for which in ("start", "quantities"):
         x = start if which == "start" else q
         v = rng.normal(size=x.shape) * np.maximum(np.abs(x), 1.0) * 1e-3
@@ -81,9 +81,10 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
 def test_each_subject_depends_on_its_own_inputs_only() -> None:
     # the columns are independent subjects: a cotangent on one subject's course gives zero gradient elsewhere
     _, start, q, consts = _inputs(MIXED, 60.0, 10.0, 2.5)
-    w = np.zeros(kernel.course(start, q, *consts).shape)
+    traj = kernel.course(start, q, *consts)
+    w = np.zeros(traj.shape)
     w[:, :, 1] = 1.0
-    g_start, g_q = kernel.course_vjp(start, q, *consts, w)
+    g_start, g_q = kernel.course_vjp(traj, q, *consts, w)
     assert np.all(g_start[:, [0, 2]] == 0.0) and np.all(g_q[:, [0, 2]] == 0.0)
     assert np.abs(g_q[:, 1]).max() > 0.0
 
@@ -95,8 +96,8 @@ def test_op_gradient_passes_pytensor_verify_grad() -> None:
 
     from uncertainty.physiology.whole_body_op import Course
 
-    _, start, q, (plan, dt, per, sat, inv_w) = _inputs(dose("crystalloid", 1000.0, 20.0), 40.0, 10.0, 5.0)
-    op = Course(plan, dt, per, tuple(sat), inv_w)
+    _, start, q, (plan, dt, sat, inv_w) = _inputs(dose("crystalloid", 1000.0, 20.0), 40.0, 10.0, 5.0)
+    op = Course(plan, dt, tuple(sat), inv_w)
     rng = np.random.default_rng(3)
     # PyTensor perturbs every input by 1e-7 (one-sided): inputs as multiples of the subjects' values, so that is
     # a small relative step. One-sided differences are accurate to about 1e-4 here, hence 1e-3: this checks the
@@ -116,9 +117,9 @@ def test_numba_mode_calls_the_kernels_and_agrees_with_the_c_mode() -> None:
 
     from uncertainty.physiology.whole_body_op import Course
 
-    _, start, q, (plan, dt, per, sat, inv_w) = _inputs(MIXED, 60.0, 10.0, 2.5)
+    _, start, q, (plan, dt, sat, inv_w) = _inputs(MIXED, 60.0, 10.0, 2.5)
     s, r = pt.dmatrix("s"), pt.dmatrix("r")
-    out = Course(plan, dt, per, tuple(sat), inv_w)(s, r)
+    out = Course(plan, dt, tuple(sat), inv_w)(s, r)
     cost = (out ** 2).sum()
     outs = [out, *pytensor.grad(cost, [s, r])]
     with warnings.catch_warnings():

@@ -50,7 +50,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.physiology.interstitium import overflow, volume_lymph_flow
-from uncertainty.physiology.iteration import fixed_steps
+from uncertainty.physiology.iteration import fixed_steps, stop_gradient
 from uncertainty.physiology.oncotic import pi_cubic, pi_cubic_slope
 from uncertainty.physiology.solute import ratio_and_slope, steady_state_ratio
 
@@ -70,15 +70,6 @@ def oncotic_from_ratio(R: Array, pi_c: Array, Cp: Array | None) -> tuple[Array, 
         return pi_c * R, pi_c + 0.0 * R
     scale = pi_c / pi_cubic(Cp, "total")
     return scale * pi_cubic(R * Cp, "total"), scale * Cp * pi_cubic_slope(R * Cp, "total")
-
-
-def _stop_gradient(x: Array, xp: Any) -> Array:
-    """x itself, cut from differentiation on PyTensor (identity on numpy)."""
-    if getattr(xp, "__name__", "").startswith("pytensor"):
-        from pytensor.gradient import disconnected_grad
-
-        return disconnected_grad(x)
-    return x
 
 
 def _residual(x: Array, Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Array,
@@ -117,7 +108,7 @@ def _solve_jv(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Arr
     # Last step with the incoming iterate held constant for differentiation: at convergence its
     # gradient is the implicit-function gradient -F_theta / F_Jv, and the gradient graph stays the size
     # of one step instead of n_steps.
-    x = _stop_gradient(x, xp)
+    x = stop_gradient(x, xp)
     f, d = _residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp, xp)
     x = x - f / d
     return xp.where(hi > 0, x, 0.0 * hi)
@@ -295,7 +286,7 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
         return xp.where(pos, mid, lo), xp.where(pos, hi, mid)
 
     lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp, params=tuple(base + extra + cp))
-    x = _stop_gradient(0.5 * (lo + hi), xp)
+    x = stop_gradient(0.5 * (lo + hi), xp)
     g, dg = _safety_residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, tissue, Cp, xp)
     safe = xp.where(dg < 0, dg, -1.0)
     x = xp.maximum(x - g / safe, lo0)  # the root lies in [Pi_L0, Pc]: keep the Newton step there

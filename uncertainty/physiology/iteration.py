@@ -69,9 +69,10 @@ def fixed_steps(step: Callable[..., tuple[Array, ...]], init: tuple[Array, ...],
 
 
 def stop_gradient(x: Array, xp: Any = np) -> Array:
-    """x itself, cut from differentiation on PyTensor (identity on numpy)."""
+    """x itself, cut from differentiation on PyTensor (``cut_gradient``, which graph rewrites keep; identity on
+    numpy)."""
     if is_pytensor(xp):
-        from pytensor.gradient import disconnected_grad
+        from uncertainty.physiology.cut_gradient import cut_gradient
 
-        return disconnected_grad(x)
+        return cut_gradient(x)
     return x

@@ -762,7 +762,8 @@ def _simulate_compiled(body: Mapping[str, Array], beds: Mapping[str, Mapping[str
     quantities = pt.stack([pt.as_tensor_variable(v) + like for v in p.rows()])
     plan = np.array([(*step_rates(doses, i * dt, dt, equivalent=True), *renal_terms(doses, (i + 1) * dt))
                      for i in range(n_steps)], dtype=float)
-    ends = Course(plan, dt, per, tuple(b["sat"] for _, b in p.beds), 1.0 / BREAK_WIDTH)(start, quantities)
+    steps = Course(plan, dt, tuple(b["sat"] for _, b in p.beds), 1.0 / BREAK_WIDTH)(start, quantities)
+    ends = steps[::per]
     at = {k: ends[:, i] for i, k in enumerate(keys)}
     times = [i * per * dt for i in range(n_steps // per + 1)]
     given = np.concatenate([[0.0], np.cumsum(plan[:, 0].reshape(-1, per).sum(axis=1) * dt)])[:, None]

@@ -287,17 +287,9 @@ def _rk4_vjp(s, q, r, dt, sat, inv_w, lam, gs, gq, w):  # noqa: ANN001, ANN202 (
 
 
 @_jit
-def _trajectory(start, q, plan, dt, sat, inv_w, j, traj, w):  # noqa: ANN001, ANN202 (numba)
-    """Every step's state of column ``j`` into ``traj`` (n_steps + 1, state)."""
-    traj[0, :] = start[:, j]
-    for i in range(plan.shape[0]):
-        _rk4(traj[i], q, plan[i], dt, sat, inv_w, traj[i + 1], w[0], w[1], w[2], w[3], w[4])
-
-
-@_jit
-def course(start: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: float, per: int, sat: np.ndarray,
+def course(start: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: float, sat: np.ndarray,
            inv_w: float) -> np.ndarray:
-    """The state at every report time (``per`` steps of ``dt`` min apart, time 0 first).
+    """The state after every step (time 0 first).
 
     Parameters
     ----------
@@ -306,11 +298,9 @@ def course(start: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: floa
     quantities : ndarray (quantities, n)
         :data:`GLOBAL` and per bed :data:`BED` rows.
     plan : ndarray (n_steps, 5)
-        Rates per step (module docstring); n_steps a multiple of ``per``.
+        Rates per step (module docstring).
     dt : float
         Step, min.
-    per : int
-        Steps per report.
     sat : ndarray of bool (beds,)
         Saturating lymph per bed.
     inv_w : float
@@ -318,31 +308,34 @@ def course(start: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: floa
 
     Returns
     -------
-    ndarray (n_steps / per + 1, state, n)
+    ndarray (n_steps + 1, state, n)
     """
     ns, n = start.shape
     n_steps = plan.shape[0]
-    out = np.empty((n_steps // per + 1, ns, n))
+    out = np.empty((n_steps + 1, ns, n))
     traj = np.empty((n_steps + 1, ns))
     w = np.empty((5, ns))
     for j in range(n):
         q = quantities[:, j].copy()
-        _trajectory(start, q, plan, dt, sat, inv_w, j, traj, w)
-        for m in range(n_steps // per + 1):
-            out[m, :, j] = traj[m * per]
+        traj[0, :] = start[:, j]
+        for i in range(n_steps):
+            _rk4(traj[i], q, plan[i], dt, sat, inv_w, traj[i + 1], w[0], w[1], w[2], w[3], w[4])
+        out[:, :, j] = traj
     return out
 
 
 @_jit
-def course_vjp(start: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: float, per: int, sat: np.ndarray,
+def course_vjp(trajectory: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: float, sat: np.ndarray,
                inv_w: float, g_out: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Cotangents of ``start`` and ``quantities`` for the cotangent ``g_out`` of :func:`course`'s output.
+    """Cotangents of the start and of ``quantities`` for the cotangent ``g_out`` of :func:`course`'s output.
 
     Parameters
     ----------
-    start, quantities, plan, dt, per, sat, inv_w
+    trajectory : ndarray (n_steps + 1, state, n)
+        :func:`course`'s output.
+    quantities, plan, dt, sat, inv_w
         As :func:`course`.
-    g_out : ndarray (n_steps / per + 1, state, n)
+    g_out : ndarray (n_steps + 1, state, n)
         d(objective)/d(course output).
 
     Returns
@@ -350,25 +343,24 @@ def course_vjp(start: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: 
     tuple of ndarray
         d(objective)/d(start) (state, n) and d(objective)/d(quantities) (quantities, n).
     """
-    ns, n = start.shape
     n_steps = plan.shape[0]
+    ns, n = trajectory.shape[1], trajectory.shape[2]
     g_start = np.empty((ns, n))
     g_q = np.zeros((quantities.shape[0], n))
-    traj = np.empty((n_steps + 1, ns))
     w = np.empty((10, ns))
+    s = np.empty(ns)
     lam = np.empty(ns)
     gs = np.empty(ns)
     gq = np.empty(quantities.shape[0])
     for j in range(n):
         q = quantities[:, j].copy()
-        _trajectory(start, q, plan, dt, sat, inv_w, j, traj, w)
-        lam[:] = g_out[n_steps // per, :, j]
+        lam[:] = g_out[n_steps, :, j]
         gq[:] = 0.0
         for i in range(n_steps - 1, -1, -1):
-            _rk4_vjp(traj[i], q, plan[i], dt, sat, inv_w, lam, gs, gq, w)
+            s[:] = trajectory[i, :, j]
+            _rk4_vjp(s, q, plan[i], dt, sat, inv_w, lam, gs, gq, w)
             lam[:] = gs
-            if i % per == 0:
-                lam += g_out[i // per, :, j]
+            lam += g_out[i, :, j]
         g_start[:, j] = lam
         g_q[:, j] = gq
     return g_start, g_q

@@ -26,22 +26,22 @@ _SALT = zlib.crc32(inspect.getsource(kernel).encode())
 
 
 class _CourseBase(Op):
-    """What both Ops share: the timeline (plan rows, step, steps per report) and the beds' lymph saturation."""
+    """What both Ops share: the timeline (plan rows, step) and the beds' lymph saturation."""
 
-    __props__ = ("plan", "dt", "per", "sat", "inv_w")
+    __props__ = ("plan", "dt", "sat", "inv_w")
 
-    def __init__(self, plan: np.ndarray, dt: float, per: int, sat: tuple[bool, ...], inv_w: float) -> None:
+    def __init__(self, plan: np.ndarray, dt: float, sat: tuple[bool, ...], inv_w: float) -> None:
         self.plan = tuple(tuple(float(x) for x in row) for row in np.asarray(plan, dtype=float))
-        self.dt, self.per, self.sat, self.inv_w = float(dt), int(per), tuple(bool(s) for s in sat), float(inv_w)
+        self.dt, self.sat, self.inv_w = float(dt), tuple(bool(s) for s in sat), float(inv_w)
 
-    def constants(self) -> tuple[np.ndarray, float, int, np.ndarray, float]:
-        """(plan array, dt, per, sat array, inv_w) as the kernels take them."""
-        return (np.array(self.plan, dtype=np.float64).reshape(-1, 5), self.dt, self.per,
-                np.array(self.sat, dtype=np.bool_), self.inv_w)
+    def constants(self) -> tuple[np.ndarray, float, np.ndarray, float]:
+        """(plan array, dt, sat array, inv_w) as the kernels take them."""
+        return (np.array(self.plan, dtype=np.float64).reshape(-1, 5), self.dt, np.array(self.sat, dtype=np.bool_),
+                self.inv_w)
 
 
 class Course(_CourseBase):
-    """(start (state, n), quantities (rows, n)) -> the state at every report time (reports, state, n)."""
+    """(start (state, n), quantities (rows, n)) -> the state after every step (steps + 1, state, n)."""
 
     def make_node(self, start: Any, quantities: Any) -> Apply:
         start = pt.as_tensor_variable(start, dtype="float64")
@@ -53,44 +53,46 @@ class Course(_CourseBase):
         outputs[0][0] = kernel.course(start, q, *self.constants())
 
     def grad(self, inputs: list[Any], grads: list[Any]) -> list[Any]:
-        return list(CourseVJP(np.array(self.plan), self.dt, self.per, self.sat, self.inv_w)(*inputs, grads[0]))
+        vjp = CourseVJP(np.array(self.plan), self.dt, self.sat, self.inv_w)
+        return list(vjp(self(*inputs), inputs[1], grads[0]))
 
 
 class CourseVJP(_CourseBase):
-    """(start, quantities, cotangent of :class:`Course`'s output) -> cotangents of start and quantities."""
+    """(:class:`Course`'s output, quantities, its cotangent) -> cotangents of start and quantities (the forward
+    pass is the first input, computed once for the log density and its gradient)."""
 
-    def make_node(self, start: Any, quantities: Any, g: Any) -> Apply:
-        start = pt.as_tensor_variable(start, dtype="float64")
+    def make_node(self, trajectory: Any, quantities: Any, g: Any) -> Apply:
+        trajectory = pt.as_tensor_variable(trajectory, dtype="float64")
         quantities = pt.as_tensor_variable(quantities, dtype="float64")
         g = pt.as_tensor_variable(g, dtype="float64")
-        return Apply(self, [start, quantities, g], [start.type(), quantities.type()])
+        return Apply(self, [trajectory, quantities, g], [pt.dmatrix(), quantities.type()])
 
     def perform(self, node: Apply, inputs: list[np.ndarray], outputs: list[list[Any]]) -> None:
-        start, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
-        g_start, g_q = kernel.course_vjp(start, q, *self.constants(), g)
+        traj, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
+        g_start, g_q = kernel.course_vjp(traj, q, *self.constants(), g)
         outputs[0][0], outputs[1][0] = g_start, g_q
 
 
 @numba_basic.register_funcify_default_op_cache_key(Course)
 def _numba_course(op: Course, **kwargs: Any) -> tuple[Any, int]:
-    plan, dt, per, sat, inv_w = op.constants()
+    plan, dt, sat, inv_w = op.constants()
     run = kernel.course
 
     @numba_basic.numba_njit
     def course(start: np.ndarray, q: np.ndarray) -> np.ndarray:
-        return run(np.ascontiguousarray(start), np.ascontiguousarray(q), plan, dt, per, sat, inv_w)
+        return run(np.ascontiguousarray(start), np.ascontiguousarray(q), plan, dt, sat, inv_w)
 
     return course, _SALT
 
 
 @numba_basic.register_funcify_default_op_cache_key(CourseVJP)
 def _numba_course_vjp(op: CourseVJP, **kwargs: Any) -> tuple[Any, int]:
-    plan, dt, per, sat, inv_w = op.constants()
+    plan, dt, sat, inv_w = op.constants()
     run = kernel.course_vjp
 
     @numba_basic.numba_njit
-    def course_vjp(start: np.ndarray, q: np.ndarray, g: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return run(np.ascontiguousarray(start), np.ascontiguousarray(q), plan, dt, per, sat, inv_w,
+    def course_vjp(traj: np.ndarray, q: np.ndarray, g: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return run(np.ascontiguousarray(traj), np.ascontiguousarray(q), plan, dt, sat, inv_w,
                    np.ascontiguousarray(g))
 
     return course_vjp, _SALT
