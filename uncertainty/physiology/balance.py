@@ -105,12 +105,12 @@ def _solve_jv(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Array, L: Arr
     for _ in range(n_steps - 2):
         f, d = _residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp, xp)
         x = x - f / d
-    # Last step with the incoming iterate held constant for differentiation: at convergence its
-    # gradient is the implicit-function gradient -F_theta / F_Jv, and the gradient graph stays the size
-    # of one step instead of n_steps.
+    # Last step with the incoming iterate and the slope held constant for differentiation: its gradient is
+    # the implicit-function gradient -F_theta / F_Jv, and the gradient graph stays the size of one residual
+    # instead of n_steps steps and their slopes' second derivatives.
     x = stop_gradient(x, xp)
     f, d = _residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, Cp, xp)
-    x = x - f / d
+    x = x - f / stop_gradient(d, xp)
     return xp.where(hi > 0, x, 0.0 * hi)
 
 
@@ -288,7 +288,7 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
     lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp, params=tuple(base + extra + cp))
     x = stop_gradient(0.5 * (lo + hi), xp)
     g, dg = _safety_residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, tissue, Cp, xp)
-    safe = xp.where(dg < 0, dg, -1.0)
+    safe = stop_gradient(xp.where(dg < 0, dg, -1.0), xp)  # the slope, constant: the implicit-function gradient
     x = xp.maximum(x - g / safe, lo0)  # the root lies in [Pi_L0, Pc]: keep the Newton step there
     flowing = Pc - Pi_L0 + full > 0
     Pi = xp.where(flowing, x, Pc + full)

@@ -110,7 +110,7 @@ def absorbing_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: 
     width = hi0 - lo0
     d = 1e-6 * width + 1e-300
     slope = (F(x + d) - F(x - d)) / (2.0 * d)
-    safe_slope = xp.where(xp.abs(slope) > 0, slope, -1.0)
+    safe_slope = stop_gradient(xp.where(xp.abs(slope) > 0, slope, -1.0), xp)  # constant: -F_theta / F_x
     polished = x - F(x) / safe_slope
     interior = (width > 0) & ~stopped
     Jv = xp.where(interior, polished, xp.where(stopped, lo0, x))
