@@ -18,10 +18,11 @@ Timed here on the same refits (a study's model compiled once, ``--refits`` fits 
 
 Both paths must give the same values to the last bit (printed; a difference is reported).
 
-Measured 2026-12-04 (2 shared cores, another session's jobs running, load at the start given per line), demo study
-(one individual, 16 free variables, 21 deterministics), 4000 draws:
-  deterministics 245 ms -> 74 ms (3.3x), conversion 54-67 ms -> 28 ms (about 2x), bit-identical;
-septic_shock_cohort (10 subjects, steady_state form whose scan runs in every draw), synthetic draws:
+First measured 2026-12-04 with one-off scripts (2 shared cores, another session's jobs running), before the
+one-update change: demo study (one individual, 16 free variables, 21 deterministics), 4000 draws of a real fit:
+  deterministics 245 ms -> 74 ms (3.3x, load 2.2), conversion 54-67 ms -> 28 ms (about 2x, load 3.4), bit-identical;
+septic_shock_cohort (10 subjects, steady_state form whose scan runs in every draw), 4000 synthetic draws (standard
+normal unconstrained values; its nutpie compile alone takes minutes), load 1.7:
   deterministics 1643-1673 ms -> 1202-1229 ms (1.4x; the scan's own time is the rest), bit-identical.
 A graph vectorised over the draws (pytensor ``vectorize_graph``, C mode) was tried and lost: demo 14 s to compile
 against 5 s and 91 ms per 4000 draws against 53 ms; septic 40 s against 15 s and 2991 ms against 1202 ms; and its
@@ -30,16 +31,20 @@ with checked calls. The per-draw function is compiled once per model and kept (`
 a calibration's refits pay its compile once per process.
 
 This script, 2026-12-04 on the shared 2 cores (per-refit medians; old -> new, same draws):
-  demo study, 5 refits, load 1.7-1.9: conversion 36.8 -> 19.6 ms (1.87x), deterministics 198.9 -> 60.4 ms (3.29x),
-      gate 34.4 ms, sampler 555 ms; a refit 825 -> 670 ms (1.23x); values identical to the last bit;
-  arm_after_node_surgery (12 subjects, classic form), 3 refits, load 1.6-2.7: conversion 58.4 -> 30.4 ms (1.92x),
-      deterministics 666 -> 288 ms (2.32x), gate 209 ms, sampler 31.3 s; a fit 32.2 -> 31.8 s (1.01x: its
-      sampler dominates); identical to the last bit.
-Whole runs, main (38bf708) against this branch, alternated, `fluidshift calibrate studies/demo.toml --replicates 40
---bins 5 --seed 1 --json`: 78.8 s -> 72.3 s (load 1.6-2.5), then 84.0 s -> 78.7 s (load 2.5-2.7): 1.08x and 1.07x,
-about 0.15 s less per refit; the JSON documents byte-identical. `infer`'s fit of the demo study (seed 5, no checks):
-45.2 s -> 39.8 s in one pair (compile included, noise of a shared machine), posterior (38 variables, deterministics
-included), sampler statistics and result document identical.
+  demo study, 5 refits, load 1.6-1.7: conversion 35.5 -> 18.7 ms (1.90x), deterministics 213.5 -> 53.8 ms (3.97x),
+      gate 33.6 ms, sampler 611 ms; a refit 894 -> 717 ms (1.25x); values identical to the last bit;
+  arm_after_node_surgery (12 subjects, classic form), 3 refits, load 2.9-3.6: conversion 71.9 -> 33.1 ms (2.17x),
+      deterministics 694 -> 266 ms (2.61x), gate 190 ms, sampler 33.3 s; a fit 34.2 -> 33.7 s (1.01x: its sampler
+      dominates); identical to the last bit.
+Whole calibration runs, main (38bf708) against this branch, `fluidshift calibrate studies/demo.toml --replicates 40
+--bins 5 --seed 1 --json`, in alternated pairs: 78.8 -> 72.3 s (load 1.6-2.5), 84.0 -> 78.7 s (2.5-2.7), then, with
+the other session's load rising during each pair, 55.2 -> 68.0 s (1.7-2.2) and 83.5 -> 94.0 s (2.2-2.4): the saving
+(about 0.25 s per refit, 10 s per 40) is inside this machine's run-to-run noise (the sampler's own time moved by
++-30 %). Timed inside one run each (wrappers around the steps, load 2-3.3): per refit conversion 58 -> 25 ms,
+deterministics 306 -> 72 ms (the first refit's compile spread over 40; about 180 -> 65 ms without it), gate 52 ->
+45 ms; the three together 416 -> 142 ms; the sampler 1381 and 1188 ms. Every run's JSON document byte-identical.
+`infer`'s fit of the demo study (seed 5, no checks): 45.2 s -> 39.8 s in one pair (compile included), posterior (38
+variables, deterministics included), sampler statistics and result document identical.
 The gate's diagnostics were left as they are: each gated variable is read by the verdict, and the only repeated
 work found is the rank normalisation of the split chains, made once for R-hat and again for the bulk ESS inside
 ArviZ (about a seventh of the gate's time under cProfile, so about 5 ms of a demo refit); sharing it would mean
