@@ -64,6 +64,9 @@ pair, 1.51x (its 1-worker time lost with the first pair's output); main at 7bab6
 with the client's simulation) and nothing on 2, where each worker still compiles; the ratio moves between 1.5x
 and 1.75x from run to run. Target 1.7x not shown.
 
+The refits' own steps after the sampler (deterministics, conversion to ArviZ, gate) are timed old against new in
+benchmark_refit.py: 2026-12-04 a demo refit 894 -> 717 ms, a calibration of 40 replicates 1.07-1.08x faster.
+
 Run: python benchmarks/benchmark_calibrate.py [--replicates 100] [--subjects 12] [--repeat 3]
 """
 
