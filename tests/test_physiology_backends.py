@@ -255,6 +255,9 @@ OTHER_FILES = {
     "iteration.is_pytensor": "back-end switch",
     "two_pore": "tests/test_two_pore.py",
     "whole_body": "tests/test_whole_body.py (simulate through PyTensor; step_rates and rhs_vector numpy only)",
+    "whole_body_kernel": "tests/test_whole_body_kernel.py (numba, against the numpy course)",
+    "whole_body_op": "tests/test_whole_body_kernel.py (PyTensor only: the kernel as an Op)",
+    "cut_gradient": "tests/test_cut_gradient.py (PyTensor only)",
 }
 
 

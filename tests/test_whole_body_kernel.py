@@ -24,7 +24,7 @@ def _inputs(doses: list[wb.Dose], end: float, every: float, max_step: float, uns
     state, rest = wb.initial_state(body, beds, Cp0)
     p = wb._Prepared(body, beds, rest, np)
     start = np.stack([np.broadcast_to(np.asarray(v, float), (3,)) for v in state.values()])
-    q = np.stack([np.broadcast_to(np.asarray(v, float), (3,)) for v in p.rows()])
+    q = np.stack([np.broadcast_to(np.asarray(v, float), (3,)) for v in kernel.quantity_rows(p)])
     dt, n_steps, per = wb.time_grid(end, every, max_step)
     plan = np.array([(*wb.step_rates(doses, i * dt, dt, equivalent=True), *wb.renal_terms(doses, (i + 1) * dt))
                      for i in range(n_steps)])

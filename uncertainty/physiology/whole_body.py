@@ -415,14 +415,6 @@ class _Prepared:
                 "cS": m * (Ch - C),
                 "mKf": m * b["Kf"], "mPS": m * b["PS"], "Pc": b["Pc"], "sigma": b["sigma"]}))
 
-    def rows(self) -> list[Array]:
-        """The constants in the row order of the compiled course (``whole_body_kernel.GLOBAL``, then per bed
-        ``whole_body_kernel.BED``)."""
-        from uncertainty.physiology.whole_body_kernel import BED, GLOBAL
-
-        return ([getattr(self, k) for k in GLOBAL]
-                + [b[k] for _, b in self.beds for k in BED])
-
 
 def _softplus(x: Array, xp: Any) -> Array:
     """log(1 + e^x) without overflow (the expression of ``interstitium.smooth_tissue_volume``)."""
@@ -750,20 +742,15 @@ def _simulate_compiled(body: Mapping[str, Array], beds: Mapping[str, Mapping[str
     model's quantities one matrix (quantity, draw); the reports are taken over all report times at once."""
     import pytensor.tensor as pt
 
-    from uncertainty.physiology.interstitium import BREAK_WIDTH
-    from uncertainty.physiology.whole_body_op import Course
+    from uncertainty.physiology.whole_body_op import compiled_steps
 
     dt, n_steps, per = time_grid(end, report_every, max_step)
     state, rest = initial_state(body, beds, Cp0, pt)
     p = _Prepared(body, beds, rest, pt)
     keys = list(state)
-    like = sum(0.0 * pt.as_tensor_variable(v) for v in state.values())   # one shape (draws) for every row
-    start = pt.stack([pt.as_tensor_variable(state[k]) + like for k in keys])
-    quantities = pt.stack([pt.as_tensor_variable(v) + like for v in p.rows()])
     plan = np.array([(*step_rates(doses, i * dt, dt, equivalent=True), *renal_terms(doses, (i + 1) * dt))
                      for i in range(n_steps)], dtype=float)
-    steps = Course(plan, dt, tuple(b["sat"] for _, b in p.beds), 1.0 / BREAK_WIDTH)(start, quantities)
-    ends = steps[::per]
+    ends = compiled_steps(state, p, plan, dt, 1.0 / BREAK_WIDTH)[::per]
     at = {k: ends[:, i] for i, k in enumerate(keys)}
     times = [i * per * dt for i in range(n_steps // per + 1)]
     given = np.concatenate([[0.0], np.cumsum(plan[:, 0].reshape(-1, per).sum(axis=1) * dt)])[:, None]

@@ -19,6 +19,8 @@ Layout (columns are subjects or draws, ``n`` of them):
 
 from __future__ import annotations
 
+from typing import Any
+
 import numba
 import numpy as np
 
@@ -36,6 +38,12 @@ STATE = ("Vp", "Qp", "Vrbc", "U", "B")
 N_GLOBAL, N_BED, N_STATE = len(GLOBAL), len(BED), len(STATE)
 
 _A1, _A2, _A3 = COEFFICIENTS["total"]
+
+
+def quantity_rows(prepared: Any) -> list[Any]:
+    """The constants of ``whole_body._Prepared`` in the row order of the quantities matrix (:data:`GLOBAL`, then
+    per bed :data:`BED`; numbers, numpy arrays or tensors over the draws, as prepared)."""
+    return [getattr(prepared, k) for k in GLOBAL] + [b[k] for _, b in prepared.beds for k in BED]
 #: Series threshold of the Bernoulli factor (``whole_body._PE_SERIES``).
 _PE_SERIES = 1e-4
 

@@ -73,6 +73,31 @@ class CourseVJP(_CourseBase):
         outputs[0][0], outputs[1][0] = g_start, g_q
 
 
+def compiled_steps(state: dict[str, Any], prepared: Any, plan: np.ndarray, dt: float, inv_w: float) -> Any:
+    """The state after every step as one :class:`Course` node (PyTensor).
+
+    Parameters
+    ----------
+    state : dict
+        Resting state per variable (``whole_body.initial_state`` order; tensors or numbers over the draws).
+    prepared : whole_body._Prepared
+        The constants of the right-hand side (:func:`whole_body_kernel.quantity_rows`) and each bed's ``sat``.
+    plan : ndarray (n_steps, 5)
+        Rates per step (``whole_body_kernel``).
+    dt, inv_w : float
+        Step (min) and 1 / the tissue curve's break width (1/mmHg).
+
+    Returns
+    -------
+    TensorVariable (n_steps + 1, state, draws)
+    """
+    rows = kernel.quantity_rows(prepared)
+    like = sum(0.0 * pt.as_tensor_variable(v) for v in state.values())   # one shape (draws) for every row
+    start = pt.stack([pt.as_tensor_variable(v) + like for v in state.values()])
+    quantities = pt.stack([pt.as_tensor_variable(v) + like for v in rows])
+    return Course(plan, dt, tuple(b["sat"] for _, b in prepared.beds), inv_w)(start, quantities)
+
+
 @numba_basic.register_funcify_default_op_cache_key(Course)
 def _numba_course(op: Course, **kwargs: Any) -> tuple[Any, int]:
     plan, dt, sat, inv_w = op.constants()
