@@ -63,7 +63,8 @@ TIMES_MIN = (0, 15, 30, 45, 60, 75, 90, 120, 150, 180)   # invented protocol: 10
 HB_SD = 0.2                # g/dL, from memory (analyser repeatability about 1-2% at 14 g/dL)
 
 
-def write_study(folder: Path, n: int, samples: int, seed: int = 20) -> tuple[Path, dict[str, np.ndarray]]:
+def write_study(folder: Path, n: int, samples: int, seed: int = 20, sampler: str | None = None
+                ) -> tuple[Path, dict[str, np.ndarray]]:
     """Write an invented whole-body study of ``n`` subjects with ``samples`` haemoglobin readings each.
 
     Parameters
@@ -76,6 +77,8 @@ def write_study(folder: Path, n: int, samples: int, seed: int = 20) -> tuple[Pat
         Readings per subject (the first ``samples`` of :data:`TIMES_MIN`, at most 10).
     seed : int
         Seed of the subjects' values, baselines and noise.
+    sampler : str, optional
+        ``[infer] sampler`` of the study (default: the tool's default, nutpie).
 
     Returns
     -------
@@ -116,7 +119,7 @@ kind = "haemoglobin"
 file = "hb.csv"
 unit = "g/dL"
 sd = {HB_SD}                         # from memory: analyser repeatability
-"""
+""" + (f'\n[infer]\nsampler = "{sampler}"\n' if sampler else "")
     path = folder / "study.toml"
     path.write_text(text)
     (folder / "hb.csv").write_text("subject,time_min,value\nS00,0,14\nS00,15,13\n")  # placeholder to load
@@ -140,7 +143,7 @@ sd = {HB_SD}                         # from memory: analyser repeatability
     return path, {k: np.asarray(v, dtype=float) for k, v in truth.items()}
 
 
-def child(n: int, samples: int, build_only: bool) -> dict[str, object]:
+def child(n: int, samples: int, build_only: bool, sampler: str | None = None) -> dict[str, object]:
     """Load, build and (unless ``build_only``) infer the study in this interpreter; the figures as a dict."""
     import resource
 
@@ -149,9 +152,9 @@ def child(n: int, samples: int, build_only: bool) -> dict[str, object]:
     from uncertainty.core.errors import QualityGateError
     from uncertainty.study import load_study
 
-    out: dict[str, object] = {"subjects": n, "samples": samples}
+    out: dict[str, object] = {"subjects": n, "samples": samples, "sampler": sampler or "nutpie"}
     with tempfile.TemporaryDirectory() as tmp:
-        path, _ = write_study(Path(tmp), n, samples)
+        path, _ = write_study(Path(tmp), n, samples, sampler=sampler)
         t0 = time.perf_counter()
         study = load_study(path)
         out["load_s"] = time.perf_counter() - t0
@@ -190,21 +193,24 @@ def main() -> None:
     ap.add_argument("--samples", type=int, default=10, help="haemoglobin readings per subject (at most 10)")
     ap.add_argument("--build-only", action="store_true", help="load and build only; no sampling")
     ap.add_argument("--cap", type=float, default=None, help="seconds after which the child is stopped")
+    ap.add_argument("--sampler", choices=("nutpie", "pymc"), default=None, help="the study's [infer] sampler")
     ap.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.child:
-        print(json.dumps(child(args.subjects, args.samples, args.build_only)))
+        print(json.dumps(child(args.subjects, args.samples, args.build_only, args.sampler)))
         return
     cmd = [sys.executable, __file__, "--child", "--subjects", str(args.subjects), "--samples", str(args.samples)]
     cmd += ["--build-only"] if args.build_only else []
+    cmd += ["--sampler", args.sampler] if args.sampler else []
     load = os.getloadavg()[0]
     t0 = time.perf_counter()
     try:
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=args.cap)
     except subprocess.TimeoutExpired as exc:
         said = exc.stderr.decode() if isinstance(exc.stderr, bytes) else (exc.stderr or "")
-        print(f"{args.subjects} subjects x {args.samples} Hb: stopped at the cap of {args.cap:g} s (load average "
-              f"{load:.1f} at the start; wall time is a lower bound); the child said: {said.strip()[-300:]}")
+        print(f"{args.subjects} subjects x {args.samples} Hb, {args.sampler or 'nutpie'}: stopped at the cap of "
+              f"{args.cap:g} s (load average {load:.1f} at the start; wall time is a lower bound); the child said: "
+              f"{said.strip()[-300:]}")
         return
     wall = time.perf_counter() - t0
     last = (done.stdout.strip().splitlines() or ["{}"])[-1]
@@ -220,7 +226,8 @@ def main() -> None:
         f", infer {row['infer_s']:.1f} s ({row['infer_cpu_s']:.0f} s CPU; compile {row.get('compile_s', 0):.1f} s, "
         f"sampling {row.get('sample_s', 0):.1f} s; {row.get('divergences', 0)} divergences, "
         f"{row.get('mean_leapfrog_steps', float('nan')):.0f} leapfrog steps per draw)")
-    print(f"{args.subjects} subjects x {args.samples} Hb (load average {load:.1f} at the start): load "
+    print(f"{args.subjects} subjects x {args.samples} Hb, {row['sampler']} (load average {load:.1f} at the start): "
+          f"load "
           f"{row['load_s']:.2f} s, build {row['build_s']:.1f} s{infer}, wall {wall:.1f} s, "
           f"peak {row['peak_mb']:.0f} MB, {row['free_variables']} free variables{gate}")
     if "infer_s" in row:
