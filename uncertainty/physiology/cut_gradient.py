@@ -9,9 +9,9 @@ so no rewrite removes it.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
-import numpy as np
 from pytensor.gradient import disconnected_type
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
@@ -25,17 +25,17 @@ class CutGradient(Op):
     __props__ = ()
     view_map = {0: [0]}
 
-    def make_node(self, x: Any) -> Apply:
-        x = as_tensor_variable(x)
+    def make_node(self, *inputs: Any) -> Apply:
+        x = as_tensor_variable(inputs[0])
         return Apply(self, [x], [x.type()])
 
-    def perform(self, node: Apply, inputs: list[np.ndarray], outputs: list[list[Any]]) -> None:
+    def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
         outputs[0][0] = inputs[0]
 
-    def infer_shape(self, fgraph: Any, node: Apply, shapes: list[Any]) -> list[Any]:
+    def infer_shape(self, fgraph: Any, node: Apply, shapes: Any) -> Any:
         return shapes
 
-    def grad(self, inputs: list[Any], grads: list[Any]) -> list[Any]:
+    def grad(self, inputs: Sequence[Any], output_grads: Sequence[Any]) -> list[Any]:
         return [disconnected_type()]
 
     def connection_pattern(self, node: Apply) -> list[list[bool]]:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import inspect
 import zlib
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -43,31 +44,28 @@ class _CourseBase(Op):
 class Course(_CourseBase):
     """(start (state, n), quantities (rows, n)) -> the state after every step (steps + 1, state, n)."""
 
-    def make_node(self, start: Any, quantities: Any) -> Apply:
-        start = pt.as_tensor_variable(start, dtype="float64")
-        quantities = pt.as_tensor_variable(quantities, dtype="float64")
+    def make_node(self, *inputs: Any) -> Apply:
+        start, quantities = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
         return Apply(self, [start, quantities], [pt.tensor3(dtype="float64")])
 
-    def perform(self, node: Apply, inputs: list[np.ndarray], outputs: list[list[Any]]) -> None:
+    def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
         start, q = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
         outputs[0][0] = kernel.course(start, q, *self.constants())
 
-    def grad(self, inputs: list[Any], grads: list[Any]) -> list[Any]:
+    def grad(self, inputs: Sequence[Any], output_grads: Sequence[Any]) -> list[Any]:
         vjp = CourseVJP(np.array(self.plan), self.dt, self.sat, self.inv_w)
-        return list(vjp(self(*inputs), inputs[1], grads[0]))
+        return list(vjp.make_node(self.make_node(*inputs).outputs[0], inputs[1], output_grads[0]).outputs)
 
 
 class CourseVJP(_CourseBase):
     """(:class:`Course`'s output, quantities, its cotangent) -> cotangents of start and quantities (the forward
     pass is the first input, computed once for the log density and its gradient)."""
 
-    def make_node(self, trajectory: Any, quantities: Any, g: Any) -> Apply:
-        trajectory = pt.as_tensor_variable(trajectory, dtype="float64")
-        quantities = pt.as_tensor_variable(quantities, dtype="float64")
-        g = pt.as_tensor_variable(g, dtype="float64")
+    def make_node(self, *inputs: Any) -> Apply:
+        trajectory, quantities, g = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
         return Apply(self, [trajectory, quantities, g], [pt.dmatrix(), quantities.type()])
 
-    def perform(self, node: Apply, inputs: list[np.ndarray], outputs: list[list[Any]]) -> None:
+    def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
         traj, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
         g_start, g_q = kernel.course_vjp(traj, q, *self.constants(), g)
         outputs[0][0], outputs[1][0] = g_start, g_q
