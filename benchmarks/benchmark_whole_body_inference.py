@@ -40,8 +40,20 @@ leapfrog steps per draw, about 2 h on 2 cores for the default 4 x 2000 draws. NO
 as one custom Op, its step and hand-written adjoint in module-level numba functions (compiled once per machine and
 cached on disk), so that neither PyTensor nor numba compiles the loop's graph per model.
 
+Measured again 2026-12-04 (eighth session) after the course became one compiled node (numba steps with a
+hand-derived reverse pass, ``physiology/whole_body_kernel.py``) and the steady states' gradient cut became an Op
+that PyMC's rewrites keep (they had removed PyTensor's ``disconnected_grad``, so the gradient ran back through every
+bisection loop). The kernel, 20 subjects, 48 steps: 1.3 ms forward and 2.8 ms reverse (load 4.7). 3 subjects,
+default settings, load 3-5 with the test suite beside it: nutpie's compile took about 12 min (cold; a second run
+with PyTensor's numba cache warm was still compiling after 8 min: nutpie's uncached ``numba.cfunc`` makes numba
+re-optimise the whole linked module); both runs then sampled until their caps of 1200 s and 1800 s. NOT met. What
+remains: the graph around the node (the resting state's two steady states are about half of the log density) and
+the number of leapfrog steps per draw (unmeasured: a short fit reporting them is next). ``--sampler pymc`` compares
+PyMC's own NUTS (C back end: the 3-subject log density and gradient compiled in 161 s cold, 111 s warm).
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
-[--cap SECONDS] (``--cap``: stop the child after this many seconds; its figures are then lower bounds.)
+[--cap SECONDS] [--sampler nutpie|pymc] (``--cap``: stop the child after this many seconds; its figures are then
+lower bounds.)
 """
 
 from __future__ import annotations
