@@ -38,58 +38,81 @@ STATE = ("Vp", "Qp", "Vrbc", "U", "B")
 N_GLOBAL, N_BED, N_STATE = len(GLOBAL), len(BED), len(STATE)
 
 _A1, _A2, _A3 = COEFFICIENTS["total"]
+#: Series threshold of the Bernoulli factor (``whole_body._PE_SERIES``).
+_PE_SERIES = 1e-4
+
+_jit = numba.njit(cache=True, fastmath=False, error_model="numpy")
+#: For the shared pieces of the right-hand side and its reverse pass: inlined where called (a call returning a
+#: tuple of 19 numbers cost as much as the arithmetic).
+_jit_inline = numba.njit(cache=True, fastmath=False, error_model="numpy", inline="always")
 
 
 def quantity_rows(prepared: Any) -> list[Any]:
     """The constants of ``whole_body._Prepared`` in the row order of the quantities matrix (:data:`GLOBAL`, then
     per bed :data:`BED`; numbers, numpy arrays or tensors over the draws, as prepared)."""
     return [getattr(prepared, k) for k in GLOBAL] + [b[k] for _, b in prepared.beds for k in BED]
-#: Series threshold of the Bernoulli factor (``whole_body._PE_SERIES``).
-_PE_SERIES = 1e-4
 
-_jit = numba.njit(cache=True, fastmath=False, error_model="numpy")
+
+@_jit_inline
+def _plasma(s, q, r):  # noqa: ANN001, ANN202 (numba)
+    """The whole-body terms at ``s`` (one subject): Cp (g/dL), pi_c (mmHg), dPc (mmHg), the dilution, the
+    clearance constant, the unclipped urine flow (mL/min), the blood volume (mL), the haematocrit and the plasma
+    bled (mL/min)."""
+    Vp, Qp, Vrbc = s[0], s[1], s[2]
+    Cp = 100.0 * Qp / Vp
+    pic = Cp * (_A1 + Cp * (_A2 + Cp * _A3))
+    dPc = (Vp + Vrbc - q[1]) / q[2]
+    dil = (Vp - q[0]) / q[0]
+    kk = q[3] * r[3] + r[4]
+    tot = Vp + Vrbc
+    hct = Vrbc / tot
+    return Cp, pic, dPc, dil, kk, q[4] + kk * dil, tot, hct, r[2] * (1.0 - hct)
+
+
+@_jit_inline
+def _bed(s, q, b, sat, inv_w, Cp, pic, dPc):  # noqa: ANN001, ANN202 (numba)
+    """The flows of bed ``b`` at ``s`` and the intermediate values the reverse pass reads (whole bed)."""
+    o, k = N_GLOBAL + N_BED * b, N_STATE + 2 * b
+    Pi, Qi = s[k], s[k + 1]
+    x = (Pi - q[o]) * inv_w
+    e = np.exp(-abs(x))
+    rr = 1.0 / (1.0 + e)
+    sp = max(x, 0.0) + np.log(1.0 + e)
+    lg = rr if x >= 0 else e * rr
+    den = q[o + 4] + (q[o + 1] * Pi + q[o + 2] * sp - q[o + 3])
+    ci = Qi / den
+    Ci = 100.0 * ci
+    pii = Ci * (_A1 + Ci * (_A2 + Ci * _A3))
+    sigma, mPS = q[o + 12], q[o + 13]
+    net = (q[o + 11] + dPc - Pi) - sigma * (pic - pii)
+    Jv = q[o + 10] * net
+    u = q[o + 5] * Pi + q[o + 6] * sp - q[o + 7]
+    th = np.tanh(u) if sat[b] else u
+    JL = q[o + 8] * th
+    pe = Jv * (1.0 - sigma) / mPS
+    qq = abs(pe)
+    decay = np.exp(-qq)
+    bern = 1.0 + qq * (0.5 + qq / 12.0) if qq < _PE_SERIES else qq / (1.0 - decay)
+    g = Cp - Ci * decay if pe >= 0 else Cp * decay - Ci
+    Js = mPS * bern * g / 100.0
+    C = q[o + 1] + q[o + 9] * lg
+    return Pi, sp, lg, den, ci, Ci, pii, net, Jv, th, JL, pe, qq, decay, bern, g, Js, JL * ci, C
 
 
 @_jit
 def _rhs(s, q, r, sat, inv_w, d):  # noqa: ANN001, ANN202 (numba)
     """d/dt of the state ``s`` (one subject) into ``d``; ``r``: the step's plan row."""
-    Vp, Qp, Vrbc = s[0], s[1], s[2]
-    Vp0, Vb0, vasc, k_r, u_basal = q[0], q[1], q[2], q[3], q[4]
-    Cp = 100.0 * Qp / Vp
-    pic = Cp * (_A1 + Cp * (_A2 + Cp * _A3))
-    dPc = (Vp + Vrbc - Vb0) / vasc
-    dil = (Vp - Vp0) / Vp0
-    urine = max(u_basal + (k_r * r[3] + r[4]) * dil, 0.0)
-    hct = Vrbc / (Vp + Vrbc)
-    bp = r[2] * (1.0 - hct)
-    dVp = r[0] - bp - (urine - u_basal)
+    Cp, pic, dPc, _, _, uraw, _, hct, bp = _plasma(s, q, r)
+    urine = max(uraw, 0.0)
+    dVp = r[0] - bp - (urine - q[4])
     dQp = r[1] - bp * Cp / 100.0
     for b in range(sat.shape[0]):
-        o, k = N_GLOBAL + N_BED * b, N_STATE + 2 * b
-        Pi, Qi = s[k], s[k + 1]
-        x = (Pi - q[o]) * inv_w
-        e = np.exp(-abs(x))
-        rr = 1.0 / (1.0 + e)
-        sp = max(x, 0.0) + np.log(1.0 + e)
-        lg = rr if x >= 0 else e * rr
-        den = q[o + 4] + (q[o + 1] * Pi + q[o + 2] * sp - q[o + 3])
-        ci = Qi / den
-        Ci = 100.0 * ci
-        pii = Ci * (_A1 + Ci * (_A2 + Ci * _A3))
-        sigma, mPS = q[o + 12], q[o + 13]
-        Jv = q[o + 10] * ((q[o + 11] + dPc - Pi) - sigma * (pic - pii))
-        u = q[o + 5] * Pi + q[o + 6] * sp - q[o + 7]
-        JL = q[o + 8] * (np.tanh(u) if sat[b] else u)
-        pe = Jv * (1.0 - sigma) / mPS
-        qq = abs(pe)
-        decay = np.exp(-qq)
-        bern = 1.0 + qq * (0.5 + qq / 12.0) if qq < _PE_SERIES else qq / (1.0 - decay)
-        g = Cp - Ci * decay if pe >= 0 else Cp * decay - Ci
-        Js = mPS * bern * g / 100.0
-        JLs = JL * ci
+        k = N_STATE + 2 * b
+        f = _bed(s, q, b, sat, inv_w, Cp, pic, dPc)
+        Jv, JL, Js, JLs, C = f[8], f[10], f[16], f[17], f[18]
         dVp = dVp - Jv + JL
         dQp = dQp - Js + JLs
-        d[k] = (Jv - JL) / (q[o + 1] + q[o + 9] * lg)
+        d[k] = (Jv - JL) / C
         d[k + 1] = Js - JLs
     d[0], d[1], d[2], d[3], d[4] = dVp, dQp, -r[2] * hct, urine, bp
 
@@ -97,17 +120,8 @@ def _rhs(s, q, r, sat, inv_w, d):  # noqa: ANN001, ANN202 (numba)
 @_jit
 def _rhs_vjp(s, q, r, sat, inv_w, gd, gs, gq):  # noqa: ANN001, ANN202, PLR0915 (numba)
     """Add gd . d(rhs)/d(s) to ``gs`` and gd . d(rhs)/d(q) to ``gq`` at ``s`` (one subject)."""
-    Vp, Qp, Vrbc = s[0], s[1], s[2]
-    Vp0, Vb0, vasc, k_r, u_basal = q[0], q[1], q[2], q[3], q[4]
-    Cp = 100.0 * Qp / Vp
-    pic = Cp * (_A1 + Cp * (_A2 + Cp * _A3))
-    dPc = (Vp + Vrbc - Vb0) / vasc
-    dil = (Vp - Vp0) / Vp0
-    kk = k_r * r[3] + r[4]
-    uraw = u_basal + kk * dil
-    tot = Vp + Vrbc
-    hct = Vrbc / tot
-    bp = r[2] * (1.0 - hct)
+    Vp, Vrbc = s[0], s[2]
+    Cp, pic, dPc, dil, kk, uraw, tot, hct, bp = _plasma(s, q, r)
     gdVp, gdQp = gd[0], gd[1]
     gbp = gd[4] - gdVp - gdQp * Cp / 100.0
     gurine = gd[3] - gdVp
@@ -118,30 +132,9 @@ def _rhs_vjp(s, q, r, sat, inv_w, gd, gs, gq):  # noqa: ANN001, ANN202, PLR0915 
     gdPc = 0.0
     for b in range(sat.shape[0]):
         o, k = N_GLOBAL + N_BED * b, N_STATE + 2 * b
-        Pi, Qi = s[k], s[k + 1]
-        # forward, again
-        x = (Pi - q[o]) * inv_w
-        e = np.exp(-abs(x))
-        rr = 1.0 / (1.0 + e)
-        sp = max(x, 0.0) + np.log(1.0 + e)
-        lg = rr if x >= 0 else e * rr
-        den = q[o + 4] + (q[o + 1] * Pi + q[o + 2] * sp - q[o + 3])
-        ci = Qi / den
-        Ci = 100.0 * ci
-        pii = Ci * (_A1 + Ci * (_A2 + Ci * _A3))
+        Pi, sp, lg, den, ci, Ci, pii, net, Jv, th, JL, pe, qq, decay, bern, g, _, _, C = _bed(
+            s, q, b, sat, inv_w, Cp, pic, dPc)
         sigma, mPS, mKf = q[o + 12], q[o + 13], q[o + 10]
-        net = (q[o + 11] + dPc - Pi) - sigma * (pic - pii)
-        Jv = mKf * net
-        u = q[o + 5] * Pi + q[o + 6] * sp - q[o + 7]
-        th = np.tanh(u) if sat[b] else u
-        JL = q[o + 8] * th
-        pe = Jv * (1.0 - sigma) / mPS
-        qq = abs(pe)
-        decay = np.exp(-qq)
-        small = qq < _PE_SERIES
-        bern = 1.0 + qq * (0.5 + qq / 12.0) if small else qq / (1.0 - decay)
-        g = Cp - Ci * decay if pe >= 0 else Cp * decay - Ci
-        C = q[o + 1] + q[o + 9] * lg
         dPi = (Jv - JL) / C
         # backward
         gdPi, gdQi = gd[k], gd[k + 1]
@@ -166,7 +159,7 @@ def _rhs_vjp(s, q, r, sat, inv_w, gd, gs, gq):  # noqa: ANN001, ANN202, PLR0915 
             gCp += decay * gg
             gCi = -gg
             gdecay = Cp * gg
-        if small:
+        if qq < _PE_SERIES:
             gqq = gbern * (0.5 + qq / 6.0)
         else:
             om = 1.0 - decay
@@ -214,14 +207,14 @@ def _rhs_vjp(s, q, r, sat, inv_w, gd, gs, gq):  # noqa: ANN001, ANN202, PLR0915 
     gq[4] += guraw
     gq[3] += guraw * dil * r[3]
     gdil = guraw * kk
-    gVp = gdil / Vp0
-    gq[0] -= gdil * Vp / (Vp0 * Vp0)
+    gVp = gdil / q[0]
+    gq[0] -= gdil * Vp / (q[0] * q[0])
     # hct = Vrbc / (Vp + Vrbc)
     gVp -= ghct * Vrbc / (tot * tot)
     gVrbc = ghct * Vp / (tot * tot)
     # dPc = (Vp + Vrbc - Vb0) / vasc
-    gdVb = gdPc / vasc
-    gq[2] -= gdPc * dPc / vasc
+    gdVb = gdPc / q[2]
+    gq[2] -= gdPc * dPc / q[2]
     gVp += gdVb
     gVrbc += gdVb
     gq[1] -= gdVb
