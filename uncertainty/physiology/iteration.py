@@ -61,8 +61,13 @@ def fixed_steps(step: Callable[..., tuple[Array, ...]], init: tuple[Array, ...],
         par, st = args[:len(rows)], args[len(rows):]
         return list(step(x0, *st, *par))
 
+    # The loop body is compiled without in-place rewrites: under the numba back end (nutpie) an in-place
+    # update of a carried value gave a wrong result (pytensor 2.38: a whole-body log density off by 9e-4 and
+    # its gradient off in sign, where the C back end and the numba back end without the in-place carries were
+    # right; tests/test_backend_agreement.py).
+    inner_mode = pytensor.compile.mode.get_default_mode().excluding("inplace")
     outs = pytensor.scan(fn=inner, sequences=[xs, *rows], outputs_info=flat[:k], n_steps=n_steps,
-                         return_updates=False)
+                         return_updates=False, mode=inner_mode)
     if not isinstance(outs, list | tuple):
         outs = [outs]
     return tuple(o[-1][:-1].reshape(shape) for o in outs)
