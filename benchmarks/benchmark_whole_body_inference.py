@@ -214,10 +214,13 @@ def main() -> None:
     cmd = [sys.executable, __file__, "--child", "--subjects", str(args.subjects), "--samples", str(args.samples)]
     cmd += ["--build-only"] if args.build_only else []
     cmd += ["--sampler", args.sampler] if args.sampler else []
+    from uncertainty.app.cli import QUICK_COMPILE_ENV
+
+    env = {**QUICK_COMPILE_ENV, **os.environ}   # as `fluidshift infer` runs it (the user's own setting wins)
     load = os.getloadavg()[0]
     t0 = time.perf_counter()
     try:
-        done = subprocess.run(cmd, capture_output=True, text=True, timeout=args.cap)
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=args.cap, env=env)
     except subprocess.TimeoutExpired as exc:
         said = exc.stderr.decode() if isinstance(exc.stderr, bytes) else (exc.stderr or "")
         print(f"{args.subjects} subjects x {args.samples} Hb, {args.sampler or 'nutpie'}: stopped at the cap of "

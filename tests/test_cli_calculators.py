@@ -163,6 +163,18 @@ def test_top_level_help_imports_nothing_heavy():
     assert out.strip() == "[]"
 
 
+@pytest.mark.parametrize(("given", "expected"), [(None, "1"), ("2", "2")])
+def test_numba_compiles_at_the_quicker_level_unless_the_user_chose(given, expected):
+    # the level is read by numba at its import: the command line sets it first, and a user's own value stays
+    import os
+
+    env = {k: v for k, v in os.environ.items() if k != "NUMBA_OPT"} | ({"NUMBA_OPT": given} if given else {})
+    code = ("import uncertainty.app.cli, numba.core.config as c, sys; "
+            "print(int(c.OPT))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, env=env)
+    assert out.stdout.strip() == expected
+
+
 def test_console_script_runs():
     out = subprocess.run(["fluidshift", "oncotic", "7", "g/dL", "--json"], capture_output=True, text=True)
     assert out.returncode == 0 and json.loads(out.stdout)["pi"] > 20

@@ -8,11 +8,21 @@ matplotlib imports.
 from __future__ import annotations
 
 import importlib
+import os
 import sys
 
 import click
 
 from uncertainty.core.errors import FluidshiftError, one_line
+
+#: Environment set for this process (and the workers it starts) unless the user set it: numba's LLVM optimisation
+#: level 1 instead of 3. nutpie compiles a model's log density through numba; for the 3-subject whole-body
+#: benchmark model that took 156 s instead of 244 s, at the same cost per gradient (0.98 against 0.97 ms;
+#: benchmarks/benchmark_whole_body_inference.py). Read by numba at its import, so it is set before any command
+#: module is imported; level 0 was slower still to compile (over 18 min, stopped).
+QUICK_COMPILE_ENV = {"NUMBA_OPT": "1"}
+for _key, _value in QUICK_COMPILE_ENV.items():
+    os.environ.setdefault(_key, _value)
 
 # name -> (module under uncertainty.app.commands, one-line help shown by `fluidshift --help`)
 COMMANDS: dict[str, tuple[str, str]] = {
