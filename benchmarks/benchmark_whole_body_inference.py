@@ -51,6 +51,13 @@ remains: the graph around the node (the resting state's two steady states are ab
 the number of leapfrog steps per draw (unmeasured: a short fit reporting them is next). ``--sampler pymc`` compares
 PyMC's own NUTS (C back end: the 3-subject log density and gradient compiled in 161 s cold, 111 s warm).
 
+Measured again 2026-12-04 (ninth session, load 0.7, nothing beside it, main cdfb5ee) after two fixes: the bisection
+loops' in-place carries had given numba (nutpie) a wrong log density and gradient, so every draw ran 1,023 leapfrog
+steps (``tests/test_backend_agreement.py``); and the command line compiles numba at LLVM level 1. 20 subjects x 10
+Hb, default settings: infer 735.6 s (compile 186.3 s, sampling 405.1 s at 32 leapfrog steps per draw, about 3.2 ms
+per gradient; the remaining 144 s are the model checks, mostly the power-scaling prior sensitivity and the prior
+and posterior predictive draws), peak 3.2 GB; gate FAILED on 4 divergent transitions. NOT met, but a fit now ends.
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] (``--cap``: stop the child after this many seconds; its figures are then
 lower bounds.)
