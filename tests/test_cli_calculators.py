@@ -169,8 +169,7 @@ def test_numba_compiles_at_the_quicker_level_unless_the_user_chose(given, expect
     import os
 
     env = {k: v for k, v in os.environ.items() if k != "NUMBA_OPT"} | ({"NUMBA_OPT": given} if given else {})
-    code = ("import uncertainty.app.cli, numba.core.config as c, sys; "
-            "print(int(c.OPT))")
+    code = "import uncertainty.app.cli, numba.core.config as c; print(int(c.OPT))"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, env=env)
     assert out.stdout.strip() == expected
 
