@@ -19,7 +19,7 @@ from uncertainty.analyses.inference.model_builder import build_model
 from uncertainty.analyses.inference.problem import problem_from_study
 from uncertainty.study import Study
 
-pytestmark = pytest.mark.slow  # numba compiles the model's graph (about a minute)
+pytestmark = pytest.mark.slow  # numba and C compile the model's graph (1-4 min)
 
 
 def _whole_body_model(tmp: Path):  # noqa: ANN202
@@ -38,8 +38,8 @@ def test_whole_body_log_density_and_gradient_agree_between_back_ends(tmp_path: P
     names = [v.name for v in model.value_vars]
     start = model.initial_point()
     rng = np.random.default_rng(0)
-    point = [np.array(start[k], dtype=float) + rng.normal(0.0, 0.3, np.shape(start[k])) for k in names]
-    point = [np.array(p, dtype=float) for p in point]  # 0-d arrays, not numpy scalars (edited in place below)
+    # arrays, 0-d ones too (not numpy scalars: entries are edited in place below)
+    point = [np.array(start[k] + rng.normal(0.0, 0.3, np.shape(start[k])), dtype=float) for k in names]
     logp = model.logp()
     outs = [logp, *pytensor.grad(logp, model.value_vars)]
     numba = model.compile_fn(outs, inputs=model.value_vars, point_fn=False, mode="NUMBA")(*point)
