@@ -75,3 +75,29 @@ def test_prior_predictive_tail_probability_uses_the_correlation():
     se = np.sqrt(p_corr * (1 - p_corr) / draws) * 2 + 2 / draws   # binomial se of a two-sided p
     assert abs(row["p_tail"] - p_corr) < 4 * se, (row["p_tail"], p_corr, p_indep)
     assert abs(p_corr - p_indep) > 8 * se
+
+
+def test_log_densities_in_one_pass_equal_pymc_own():
+    """``checks.add_log_densities`` (one compiled function) against PyMC's ``compute_log_prior`` (declared
+    priors) and ``compute_log_likelihood`` (an outside reference: the library's own functions), on 2 x 25 draws
+    of the correlated two-quantity model; the copula's term is added to the prior group as before."""
+    import arviz as az
+    import pymc as pm
+
+    from uncertainty.analyses.inference.model_builder import build_model
+
+    built = build_model(_problem())
+    with built.model:
+        draws = pm.sample_prior_predictive(draws=50, random_seed=3).prior
+    kept = [v.name for v in built.model.free_RVs + built.model.deterministics if v.name in draws]
+    posterior = {k: draws[k].values.reshape((2, 25) + draws[k].shape[2:]) for k in kept}
+    ours, pymc_own = az.from_dict(posterior=posterior), az.from_dict(posterior=posterior)
+    checks.add_log_densities(built, ours)
+    pm.compute_log_prior(pymc_own, var_names=checks.top_level(built.model), model=built.model, progressbar=False)
+    pm.compute_log_likelihood(pymc_own, model=built.model, progressbar=False)
+    for group in ("log_prior", "log_likelihood"):
+        for name, values in getattr(pymc_own, group).data_vars.items():
+            np.testing.assert_allclose(getattr(ours, group)[name].values, values.values, rtol=1e-12)
+    assert set(ours.log_prior.data_vars) == set(pymc_own.log_prior.data_vars) | {"copula"}
+    expected = checks.copula_log_density(built.problem, {n: posterior[n] for n in ("Kf", "Pc")})
+    np.testing.assert_allclose(ours.log_prior["copula"].values, expected, rtol=1e-12)

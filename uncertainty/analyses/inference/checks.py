@@ -168,8 +168,10 @@ def prior_predictive(built: Any, *, draws: int = PRIOR_PREDICTIVE_DRAWS, seed: i
 
     PyMC's forward sampling leaves out the copula (a ``pm.Potential``), so the typical values are
     drawn independently first, then made correlated (:func:`correlate_prior_draws`) and every
-    quantity downstream of them (between-subject layers, outputs, the readings) drawn again given
-    the new values (``pm.sample_posterior_predictive`` on the corrected draws).
+    quantity downstream of them (between-subject layers, outputs, the readings) drawn given
+    the new values (``pm.sample_posterior_predictive`` on the corrected draws). The first pass draws only
+    the typical values and what they are made of, so that the model's outputs are compiled once (for the
+    whole-body form each forward-sampling function of the full model took about 20 s to compile).
 
     Parameters
     ----------
@@ -188,14 +190,20 @@ def prior_predictive(built: Any, *, draws: int = PRIOR_PREDICTIVE_DRAWS, seed: i
     import warnings
 
     import pymc as pm
+    from pytensor.graph.traversal import ancestors
 
-    with built.model, warnings.catch_warnings():
+    model = built.model
+    block = correlated_block(built.problem)
+    first = None
+    if block is not None:
+        upstream = set(ancestors([model[n] for n in block[0]]))
+        first = [v.name for v in model.free_RVs + model.deterministics if v in upstream]
+    with model, warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        idata = pm.sample_prior_predictive(draws=draws, random_seed=seed)
-    problem = built.problem
-    block = correlated_block(problem)
+        idata = pm.sample_prior_predictive(draws=draws, var_names=first, random_seed=seed)
     if block is None:
         return idata
+    problem = built.problem
     names = block[0]
     old = {n: np.asarray(idata.prior[n].values, dtype=float) for n in names}
     new = correlate_prior_draws(problem, old)
@@ -365,17 +373,10 @@ def power_scaling(built: Any, idata: Any, var_names: list[str]) -> dict[str, Any
     import warnings
 
     import arviz as az
-    import pymc as pm
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        if "log_prior" not in idata.groups():
-            pm.compute_log_prior(idata, var_names=top_level(built.model), model=built.model,
-                                 extend_inferencedata=True, progressbar=False)
-            _add_copula_log_prior(built, idata)
-        if "log_likelihood" not in idata.groups():
-            pm.compute_log_likelihood(idata, model=built.model, extend_inferencedata=True,
-                                      progressbar=False)
+        add_log_densities(built, idata)
         names = [v for v in var_names if v in idata.posterior]
         prior_s = az.psens(idata, component="prior", var_names=names)
         lik_s = az.psens(idata, component="likelihood", var_names=names)
@@ -388,6 +389,37 @@ def power_scaling(built: Any, idata: Any, var_names: list[str]) -> dict[str, Any
         q = v.replace("__subject", "")
         out[q] = {"prior": ps, "likelihood": ls, **scaling_pattern(q, ps, ls)}
     return out
+
+
+def add_log_densities(built: Any, idata: Any) -> None:
+    """Add the ``log_prior`` (declared priors, :func:`top_level`, and the copula) and ``log_likelihood``
+    (every observed term) groups to ``idata``: per posterior draw, pointwise, in nats.
+
+    The values are those of ``pymc.compute_log_prior`` and ``pymc.compute_log_likelihood`` (untransformed
+    values, no Jacobian), but from one log-density graph and one compiled function: each of those builds PyMC's
+    log density of the whole model and compiles it again, which for the whole-body form cost about 15 s apiece.
+    A group already there is kept (nothing is computed when both are).
+    """
+    missing = [g for g in ("log_prior", "log_likelihood") if g not in idata.groups()]
+    if not missing:
+        return
+    from pymc.backends.arviz import apply_function_over_dataset, coords_and_dims_for_inferencedata
+    from pymc.model.transform.conditioning import remove_value_transforms
+
+    umodel = remove_value_transforms(built.model)
+    priors = [umodel.named_vars[name] for name in top_level(built.model)]
+    observed = list(umodel.observed_RVs)
+    fn = umodel.compile_fn(inputs=umodel.value_vars, outs=umodel.logp(vars=priors + observed, sum=False),
+                           on_unused_input="ignore")
+    coords, dims = coords_and_dims_for_inferencedata(umodel)
+    names = [v.name for v in priors + observed]
+    both = apply_function_over_dataset(fn, idata.posterior[[rv.name for rv in umodel.free_RVs]],
+                                       output_var_names=names, sample_dims=("chain", "draw"), dims=dims,
+                                       coords=coords, progressbar=False)
+    groups = {"log_prior": both[names[:len(priors)]], "log_likelihood": both[names[len(priors):]]}
+    idata.add_groups({g: groups[g] for g in missing})
+    if "log_prior" in missing:
+        _add_copula_log_prior(built, idata)
 
 
 def _add_copula_log_prior(built: Any, idata: Any) -> None:
