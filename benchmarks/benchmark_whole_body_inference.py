@@ -4,7 +4,8 @@ An INVENTED study: 20 invented volunteers of 73 kg, each given crystalloid 25 mL
 volunteer protocol, Hahn RG 2010 Anesthesiology 113:470, abstract; the subjects are invented), haemoglobin drawn 10
 times from 0 to 180 min. Each subject's readings are simulated with the numpy time course
 (``observations.course.whole_body_course``, the same equations the model solves in PyTensor) at that subject's
-values, drawn from the individual layer of the skeletal-muscle prior set (known values, seeded), times an invented
+values (one population: a typical value drawn from the skeletal-muscle prior set, each subject around it through the
+declared between-subject layer, :func:`population`; known values, seeded), times an invented
 baseline Hb (normal 14 g/dL, sd 1) plus normal reading noise of 0.2 g/dL (from memory: analysers repeat to about
 1-2% at 14 g/dL, as ``analyses.schedule.blood`` takes it).
 
@@ -82,6 +83,24 @@ TIMES_MIN = (0, 15, 30, 45, 60, 75, 90, 120, 150, 180)   # invented protocol: 10
 HB_SD = 0.2                # g/dL, from memory (analyser repeatability about 1-2% at 14 g/dL)
 
 
+def population(study: object, n: int, seed: int) -> dict[str, np.ndarray]:
+    """``n`` invented subjects of one population, as the hierarchical model assumes: ONE typical value of every
+    quantity drawn from its prior (the study's correlations included) and each subject's own value around it
+    through the declared between-subject layer (fresh scores per subject). Canonical units, arrays of shape (n,).
+
+    (Drawing every subject from the ``individual`` layer instead draws a new typical value per subject too: the
+    cohort is then spread as widely as the prior's uncertainty plus the between-subject layer, wider than the
+    model's population, and the fit pushes the shared spread up.)
+    """
+    from uncertainty.analyses.sampling import correlate_scores, cube_columns, from_scores
+
+    rng = np.random.default_rng([seed, 1])            # a stream apart from the readings' noise
+    z = correlate_scores(study, rng.standard_normal((n, len(cube_columns(study, "individual")))), "individual")
+    typical = len(study.names)
+    z[:, :typical] = z[0, :typical]                   # one typical value shared by the population
+    return from_scores(study, z, "individual")
+
+
 def write_study(folder: Path, n: int, samples: int, seed: int = 20, sampler: str | None = None
                 ) -> tuple[Path, dict[str, np.ndarray]]:
     """Write an invented whole-body study of ``n`` subjects with ``samples`` haemoglobin readings each.
@@ -107,7 +126,6 @@ def write_study(folder: Path, n: int, samples: int, seed: int = 20, sampler: str
         symbol -> the subjects' true values (canonical units), shape (n,).
     """
     from uncertainty.analyses.inference.observations.course import interpolation, whole_body_course
-    from uncertainty.analyses.sampling import draw
     from uncertainty.forms.evaluate import input_values
     from uncertainty.study import Study
 
@@ -147,7 +165,7 @@ sd = {HB_SD}                         # from memory: analyser repeatability
                              "interventions": [{"kind": "infusion", "fluid": "crystalloid",
                                                 "volume": f"{25.0 * BODY_KG:g} mL", "duration": "30 min"}],
                              "timeline": {"end": f"{times[-1]:g} min", "report_every": "15 min"}})
-    truth = draw(study, n, method="mc", seed=seed, layer="individual")
+    truth = population(study, n, seed)
     course = whole_body_course(input_values(study, truth), study, "hb_ratio", np)
     lo, hi, w = interpolation(times, course["times_min"])
     grid = np.stack([np.ravel(x) * np.ones(n) for x in course["hb_ratio"]])     # (report time, subject)

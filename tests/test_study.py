@@ -30,7 +30,7 @@ def _doc(**sections) -> dict:
 
 
 def test_override_replaces_whole_declaration() -> None:
-    assert MUSCLE.priors["Pv"].between_subject == {"sd": 3.4}
+    assert MUSCLE.priors["Pv"].between_subject == {"cv": 0.37}
     s = Study.from_dict(_doc(parameters={"Pv": {"dist": "normal", "mean": 12, "sd": 2, "unit": "mmHg"}}))
     assert s.priors["Pv"].params == {"mean": 12.0, "sd": 2.0}
     assert s.priors["Pv"].between_subject is None

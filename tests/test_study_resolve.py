@@ -110,7 +110,7 @@ def test_an_override_replaces_the_whole_declaration() -> None:
     head = _head()
     base = tissue_base(head, FILE)
     declared = base.declared()
-    assert MUSCLE.priors["Pv"].between_subject == {"sd": 3.4}  # priors/skeletal_muscle.toml
+    assert MUSCLE.priors["Pv"].between_subject == {"cv": 0.37}  # priors/skeletal_muscle.toml
     out = apply_overrides(declared, {"Pv": {"dist": "normal", "mean": 12, "sd": 2, "unit": "mmHg"}}, head, base,
                           FILE)
     assert out.priors["Pv"].params == {"mean": 12.0, "sd": 2.0}

@@ -439,3 +439,18 @@ def test_the_models_terms_keep_the_relations_at_a_point(tmp_path: Path) -> None:
     # weights at 30 and 75 min minus the weight at 0 (where the course is 0): the course itself, kg
     np.testing.assert_allclose(chart, weight + wb.INSENSIBLE_LOSS_ML_MIN * np.array([30.0, 75.0]) / 1000.0,
                                rtol=1e-9)
+
+
+@pytest.mark.parametrize("kind", ["haematocrit", "urine"])
+def test_kf_keeps_its_own_spread_factor_under_red_cell_readings(tmp_path: Path, kind: str) -> None:
+    # red-cell dilution informs each subject's Kf alone (haemoglobin.OWN_SPREAD), so Kf's between-subject spread
+    # has its own factor and the joint factor holds the others; urine alone informs no quantity so (all joint)
+    from uncertainty.analyses.inference.model_builder import build_model
+
+    problem = _problem(tmp_path, [HCT if kind == "haematocrit" else RATE])
+    built = build_model(problem, structure_only=True)
+    free = {v.name for v in built.model.free_RVs}
+    assert "joint__spread_z" in free
+    assert ("Kf__spread_z" in free) is (kind == "haematocrit")
+    joint_note = next(n for n in built.notes if n.startswith("one between-subject spread factor"))
+    assert ("Kf" in joint_note.split(" for ")[1].split(" (")[0].split(", ")) is (kind != "haematocrit")

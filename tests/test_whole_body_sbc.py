@@ -28,7 +28,6 @@ only; ``fluidshift calibrate`` with its default N = 200 is the finer check.
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
@@ -36,7 +35,6 @@ import pytest
 from scipy import stats
 
 from uncertainty.analyses.calibrate import calibrate
-from uncertainty.app.cli import QUICK_COMPILE_ENV
 from uncertainty.core.errors import QualityGateError
 from uncertainty.study import load_study
 
@@ -110,9 +108,7 @@ def write_study(folder: Path) -> Path:
     return path
 
 
-def test_whole_body_haemoglobin_posterior_is_calibrated(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    for key, value in QUICK_COMPILE_ENV.items():   # numba's level as `fluidshift calibrate` compiles (the user's wins)
-        monkeypatch.setenv(key, os.environ.get(key, value))
+def test_whole_body_haemoglobin_posterior_is_calibrated(tmp_path: Path) -> None:
     study = load_study(write_study(tmp_path))
     try:
         doc = calibrate(study, seed=20180406, replicates=N_REPLICATES, bins=BINS, draws=L_DRAWS, gate=GATE,

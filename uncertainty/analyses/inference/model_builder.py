@@ -386,13 +386,17 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
                              + (" (log ratio)" if targets else ""))
         # individuals (a kind's ``claims(obs, problem)`` names quantities whose subject layer it
         # builds itself, e.g. centred on a scale the data identify; it must ``ctx.override`` them)
+        # (a kind's ``OWN_SPREAD`` names quantities whose spread its readings inform alone: own factors)
         claimed: set[str] = set()
+        own: set[str] = set()
         scored: dict[str, tuple[Any, Any, Any]] = {}   # quantity -> (prior, base, spread ratio)
         for obs in problem.observations:
-            fn = getattr(kind_module(obs), "claims", None)
+            module = kind_module(obs)
+            fn = getattr(module, "claims", None)
             if fn is not None and hierarchical:
                 claimed.update(fn(obs, problem))
-        joint = _jointly_spread(problem, claimed | set(collapsed)) if hierarchical else []
+            own.update(getattr(module, "OWN_SPREAD", ()))
+        joint = _jointly_spread(problem, claimed | own | set(collapsed)) if hierarchical else []
         if joint:
             w_joint = pm.Normal("joint__spread_z", 0.0, 1.0)
             ctx.notes.append(f"one between-subject spread factor for {', '.join(joint)} (the data reach them "
@@ -460,7 +464,8 @@ def build_model(problem: Problem, structure_only: bool = False) -> BuiltModel:
 
 def _jointly_spread(problem: Problem, own: set[str]) -> list[str]:
     """Quantities whose between-subject spreads share one factor: those with a declared spread that no
-    observation reads on its own (a ``measurement`` of the quantity) and no kind models itself (``own``).
+    observation reads on its own (a ``measurement`` of the quantity) and no kind models itself or names as
+    informed alone (``own``: a kind's ``claims`` and ``OWN_SPREAD``).
 
     The data reach such quantities only through combinations (Jv from weights or lymph flow, say), so
     they say how much subjects differ in the combination but not how that variance divides among the

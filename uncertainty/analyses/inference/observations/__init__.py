@@ -3,7 +3,9 @@
 Each module exposes ``validate(obs, problem)`` (raises InputError naming file, key and value),
 ``add(ctx, obs)`` (adds the likelihood inside the model context) and optionally
 ``subjects(obs, problem)`` (subject and group labels found in the observation's data),
-``prepare(ctx, obs)`` (re-parameterise per-subject quantities before any term is added) and
+``prepare(ctx, obs)`` (re-parameterise per-subject quantities before any term is added),
+``OWN_SPREAD`` (quantities whose between-subject spread the readings inform on their own: each keeps its own
+spread factor outside the joint one) and
 ``NOTE`` (a sentence printed with the results; ``kind_note(obs, problem)`` where it depends on the study).
 """
 

@@ -25,6 +25,7 @@ import numpy as np
 
 from uncertainty.analyses.inference.observations.course import check_timed_rows
 from uncertainty.analyses.inference.observations.haemoglobin import (
+    OWN_SPREAD,  # noqa: F401 - the same dilution signal informs Kf alone
     add_red_cell_term,
     design,  # the same ratios to the first reading
 )

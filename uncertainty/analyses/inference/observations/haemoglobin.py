@@ -31,6 +31,14 @@ NOTE = ("haemoglobin: each subject's readings relative to its earliest one, fitt
 #: (``physiology.whole_body.TIMELINE_UNITS``; haemoglobin concentration is proportional to it while the mean
 #: corpuscular haemoglobin concentration stays constant).
 COURSE = "hb_ratio"
+#: Quantities whose between-subject spread these readings inform on their own, so each keeps its own spread
+#: factor outside the joint one (``model_builder._jointly_spread``). After a crystalloid the readings' recovery
+#: is set by the filtration coefficient (Hahn 2010, Anesthesiology 113:470: the distribution clearance), and
+#: the fits find each subject's Kf (tests/test_whole_body_recovery.py). Sharing one factor, a cohort whose
+#: Kf varies widely widened every other quantity's spread with it: 3 invented subjects put unread venous
+#: pressures at -8 to -11 mmHg, where the capillary pressure falls below the zero-lymph pressure and the resting
+#: state has its corner (Jv = 0), and the chains diverged there.
+OWN_SPREAD = ("Kf",)
 
 
 def validate(obs: Observation, problem: Problem) -> None:
