@@ -14,12 +14,12 @@ average by at least half (an outside reference: the values the data were simulat
 
 from __future__ import annotations
 
-import importlib.util
 from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import stats
+from whole_body_inputs import invented_infusion_study
 
 from uncertainty.analyses.inference.answers import subject_draws
 from uncertainty.analyses.inference.model_builder import build_model
@@ -32,18 +32,9 @@ pytestmark = pytest.mark.slow
 
 SUBJECTS = 6   # invented volunteers: enough that the mean error is not one subject's luck (a choice)
 
-BENCHMARK = Path(__file__).resolve().parents[1] / "benchmarks" / "benchmark_whole_body_inference.py"
-
-
-def _simulator():  # noqa: ANN202
-    spec = importlib.util.spec_from_file_location("benchmark_whole_body_inference", BENCHMARK)
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return module.write_study
-
 
 def test_filtration_coefficient_recovered_from_serial_haemoglobin(tmp_path: Path) -> None:
-    path, truth = _simulator()(tmp_path, SUBJECTS, 10, seed=20)
+    path, truth = invented_infusion_study(tmp_path, SUBJECTS)
     study = load_study(path)
     built = build_model(problem_from_study(study))
     run = sample(built.model, chains=2, draws=300, tune=300, seed=1, target_accept=0.95)

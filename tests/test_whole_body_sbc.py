@@ -3,7 +3,8 @@ serial haemoglobin (slow: nutpie compiles the model once, then N short refits).
 
 One invented volunteer (one subject keeps the model non-hierarchical and its compile short) receives 25 mL/kg of
 crystalloid over 30 min (the published volunteer protocol, Hahn 2010, Anesthesiology 113:470; the subject is
-invented) and gives 8 haemoglobin readings over 0-180 min. :func:`uncertainty.analyses.calibrate.calibrate` draws N
+invented) and gives 10 haemoglobin readings over 0-180 min (the whole-body inference benchmark's study,
+``tests/whole_body_inputs.invented_infusion_study``). :func:`uncertainty.analyses.calibrate.calibrate` draws N
 truths and readings from the model's own prior predictive, refits the model compiled once, and ranks each truth
 among L = 99 thinned posterior draws. Checked for Kf (the quantity these readings inform: the slope of the
 haemoglobin recovery after an infusion is set by the capillary filtration coefficient, Hahn 2010) and Jv (the
@@ -15,15 +16,16 @@ subject's resting net filtration, the model's headline output):
 - at most :data:`MAX_FAILED_SHARE` of the replicates fail the quality gate (they are left out of the tests, and
   leaving out many could itself bias the ranks when failures depend on the truth).
 
-Cost and power. Measured on a shared 2-core machine (load average 2-3 from other work): simulating the replicates
-27 s (the prior predictive's compile), nutpie's compile 156 s at numba's LLVM level 1, each refit of 2 chains x (200 +
-200) draws 2.4 s, the whole test 317 s (316 s of CPU). N = 50 is the least the chi-square approximation allows with
-10 bins (5 expected ranks per bin, common practice), and what the CI budget allows. Its power is low: at p < 0.001
-the uniformity test detects a posterior half as wide as the right one with power 0.88, 30 % too narrow with 0.11,
-shifted by half a posterior sd with 0.21 (``calibrate.stats.chi2_power`` on ``scaled_posterior_bins``, closed form);
-the coverage count catches 30 % too narrow with power 0.36 (Binomial(50, 0.75) outside the range) and cannot see a
-posterior too wide (the range's top is 50 of 50). So this test catches gross miscalibration of the whole-body model
-only; ``fluidshift calibrate`` with its default N = 200 is the finer check.
+Cost and power. Measured with an earlier version of 8 readings, on a shared 2-core machine (load average 2-3):
+simulating the replicates 27 s (the prior predictive's compile), nutpie's compile 156 s at numba's LLVM level 1,
+each refit of 2 chains x (200 + 200) draws 2.4 s, the whole test 317 s (316 s of CPU). N = 50 is the least the chi-
+square approximation allows with 10 bins (5 expected ranks per bin, common practice), and what the CI budget allows.
+Its power is low: at p < 0.001 the uniformity test detects a posterior half as wide as the right one with power
+0.88, 30 % too narrow with 0.11, shifted by half a posterior sd with 0.21 (``calibrate.stats.chi2_power`` on
+``scaled_posterior_bins``, closed form); the coverage count catches 30 % too narrow with power 0.36 (Binomial(50,
+0.75) outside the range) and cannot see a posterior too wide (the range's top is 50 of 50). So this test catches
+gross miscalibration of the whole-body model only; ``fluidshift calibrate`` with its default N = 200 is the finer
+check.
 """
 
 from __future__ import annotations
@@ -33,6 +35,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from scipy import stats
+from whole_body_inputs import invented_infusion_study
 
 from uncertainty.analyses.calibrate import calibrate
 from uncertainty.core.errors import QualityGateError
@@ -57,59 +60,8 @@ CHECKED = ("Kf", "Jv")  # Kf: informed by haemoglobin (Hahn 2010); Jv: the model
 SAMPLER = {"chains": 2, "tune": 200, "posterior_draws": 200}
 GATE = {"r_hat_max": 1.05, "ess_bulk_min": float(L_DRAWS), "ess_tail_min": float(L_DRAWS), "divergences_max": 0}
 
-BODY_KG = 73.0                                      # invented subject (the ICRP Publication 89 reference male's mass)
-TIMES_MIN = (0, 15, 30, 45, 60, 90, 120, 180)       # invented protocol: 8 samples over 0-180 min
-STUDY = f"""# INVENTED study for simulation-based calibration: one invented volunteer; the readings in hb.csv are
-# invented placeholders (calibration simulates its own readings at these times, with this sd).
-[study]
-title = "SBC: one invented volunteer, crystalloid 25 mL/kg over 30 min, serial haemoglobin"
-tissue = "skeletal_muscle"
-model = "whole_body"
-seed = 1804                          # invented
-body_mass = "{BODY_KG:g} kg"          # invented
-
-[[interventions]]
-kind = "infusion"
-fluid = "crystalloid"
-volume = "{25.0 * BODY_KG:g} mL"      # 25 mL/kg (Hahn 2010 protocol; invented subject)
-start = "0 min"
-duration = "30 min"
-
-[timeline]
-end = "180 min"
-report_every = "15 min"              # invented setting
-
-[[observations]]
-kind = "haemoglobin"
-file = "hb.csv"
-unit = "g/dL"
-sd = 0.2                             # from memory: analyser repeatability about 1-2 % at 14 g/dL
-"""
-HB_PLACEHOLDER = (14.0, 13.1, 12.4, 12.7, 13.0, 13.3, 13.5, 13.8)   # g/dL, invented placeholders
-
-
-def write_study(folder: Path) -> Path:
-    """Write the invented one-volunteer study and its placeholder haemoglobin file.
-
-    Parameters
-    ----------
-    folder : Path
-        An existing folder.
-
-    Returns
-    -------
-    Path
-        The study file (readings in g/dL at :data:`TIMES_MIN`, min).
-    """
-    rows = ["subject,time_min,value"] + [f"V01,{t},{hb}" for t, hb in zip(TIMES_MIN, HB_PLACEHOLDER, strict=True)]
-    (folder / "hb.csv").write_text("\n".join(rows) + "\n")
-    path = folder / "study.toml"
-    path.write_text(STUDY)
-    return path
-
-
 def test_whole_body_haemoglobin_posterior_is_calibrated(tmp_path: Path) -> None:
-    study = load_study(write_study(tmp_path))
+    study = load_study(invented_infusion_study(tmp_path, 1)[0])
     try:
         doc = calibrate(study, seed=20180406, replicates=N_REPLICATES, bins=BINS, draws=L_DRAWS, gate=GATE,
                         **SAMPLER).doc
