@@ -36,7 +36,7 @@ COURSE = "hb_ratio"
 #: is set by the filtration coefficient (Hahn 2010, Anesthesiology 113:470: the distribution clearance), and
 #: the fits find each subject's Kf (tests/test_whole_body_recovery.py). Sharing one factor, a cohort whose
 #: Kf varies widely widened every other quantity's spread with it: 3 invented subjects put unread venous
-#: pressures at -8 to -11 mmHg, where the capillary pressure falls below the zero-lymph pressure and the resting
+#: pressures at -8 to -21 mmHg, where the capillary pressure falls below the zero-lymph pressure and the resting
 #: state has its corner (Jv = 0), and the chains diverged there.
 OWN_SPREAD = ("Kf",)
 
