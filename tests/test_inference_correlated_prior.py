@@ -93,6 +93,9 @@ def test_log_densities_in_one_pass_equal_pymc_own():
     posterior = {k: draws[k].values.reshape((2, 25) + draws[k].shape[2:]) for k in kept}
     ours, pymc_own = az.from_dict(posterior=posterior), az.from_dict(posterior=posterior)
     checks.add_log_densities(built, ours)
+    kept_prior = ours.log_prior
+    checks.add_log_densities(built, ours)          # groups already there are kept, not computed again
+    assert ours.log_prior is kept_prior
     pm.compute_log_prior(pymc_own, var_names=checks.top_level(built.model), model=built.model, progressbar=False)
     pm.compute_log_likelihood(pymc_own, model=built.model, progressbar=False)
     for group in ("log_prior", "log_likelihood"):
