@@ -20,6 +20,9 @@ from typing import Any
 import numpy as np
 
 SLOW = float(os.environ.get("FAKE_SLOW", "0"))  # seconds of work per analysis
+# FAKE_HOLD=SECTION:PATH: that section's SVG stops half-written, PATH is created, and the run waits there
+# for a signal, so a test can interrupt it mid-file however fast or loaded the machine is
+HOLD_SECTION, _, HOLD_MARK = os.environ.get("FAKE_HOLD", "").partition(":")
 
 
 @dataclass
@@ -130,6 +133,10 @@ class FakeResult:
                         fh.write(data[i:i + step])
                         fh.flush()
                         time.sleep(SLOW / 20)
+                        if self.name == HOLD_SECTION and i >= len(data) // 2:
+                            Path(HOLD_MARK).touch()
+                            while True:  # until interrupted
+                                time.sleep(0.1)
             else:
                 fig.savefig(p)
             paths.append(str(p))

@@ -212,30 +212,31 @@ def test_a_bundle_naming_files_outside_is_refused_and_nothing_is_deleted(fakes, 
     assert victim.exists()
 
 
-def _start(study: Path, out: Path, slow: float) -> subprocess.Popen:
-    env = {**os.environ, "FAKE_SLOW": str(slow), "PYTHONPATH": os.pathsep.join([str(HERE), str(ROOT)])}
+def _start(study: Path, out: Path, slow: float, hold: str = "") -> subprocess.Popen:
+    env = {**os.environ, "FAKE_SLOW": str(slow), "FAKE_HOLD": hold,
+           "PYTHONPATH": os.pathsep.join([str(HERE), str(ROOT)])}
     return subprocess.Popen([sys.executable, str(HERE / "run_fakes.py"), str(study), str(out)], env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE)
 
 
-def _wait_for_checkpoint(out: Path, proc: subprocess.Popen, sections: int, timeout: float = 60.0) -> None:
-    """Poll until results.json records at least ``sections`` sections (a condition, not a timing check)."""
+def _wait_for(condition, proc: subprocess.Popen, timeout: float = 120.0) -> None:
+    """Poll until ``condition()`` holds while ``proc`` still runs (a condition, not a timing check)."""
     t0 = time.monotonic()
     while time.monotonic() - t0 < timeout:
-        doc = bundle_mod.read_results(out, missing_ok=True)
-        if doc and len(doc["sections"]) >= sections:
+        if condition():
             return
         assert proc.poll() is None, proc.communicate()
         time.sleep(0.05)
-    raise AssertionError("the run never reached its checkpoint")
+    raise AssertionError("the run never got there")
 
 
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGKILL], ids=["SIGINT", "SIGKILL"])
 def test_interrupted_run_leaves_whole_files_and_resumes(sig, study, tmp_path):
     out = tmp_path / "out"
-    proc = _start(study, out, slow=1.0)
-    _wait_for_checkpoint(out, proc, sections=2)  # check + propagate done; sensitivity under way
-    time.sleep(1.3)  # into sensitivity's slow figure writing (1 s of work, then 1 s of SVG chunks)
+    held = tmp_path / "held"
+    proc = _start(study, out, slow=0.2, hold=f"sensitivity:{held}")
+    _wait_for(lambda: held.exists(), proc)  # sensitivity's SVG half-written, the run waiting for the signal
+    assert len(bundle_mod.read_results(out)["sections"]) >= 2  # check + propagate were checkpointed
     proc.send_signal(sig)
     proc.communicate(timeout=60)
     assert proc.returncode != 0
