@@ -11,7 +11,7 @@ baseline Hb (normal 14 g/dL, sd 1) plus normal reading noise of 0.2 g/dL (from m
 
 In a fresh interpreter (so that peak memory is the fit's own): the wall time of loading the study, of building the
 model (``problem_from_study`` + ``build_model``, no compiling), and of ``infer`` at the default settings (nutpie,
-4 chains x (1000 + 1000), target_accept 0.95) split into compile and sampling, the peak resident memory
+4 chains x (1000 + 1000), target_accept 0.95) or the study's ``[infer]`` settings given by the flags, split into compile and sampling, the peak resident memory
 (``resource.getrusage``) and the quality gate's verdict as ``infer`` reports it (R-hat, ESS, divergences; the
 failing quantities). Target (issue 20): a passed gate in at most 5 minutes on 2 cores.
 
@@ -77,8 +77,22 @@ nutpie's warm-up needs far fewer than the default 1000 steps here; with nutpie's
 the posterior): 108.4 s before the change (prior predictive 43.7, power scaling 44.8, posterior predictive 19.9),
 70.2 s after (21.8, 26.2, 22.2).
 
+Measured again 2026-12-05 (eleventh session, idle machine, load 0.3-0.7 at the start, PyTensor's numba cache
+warm from earlier fits of this model's shape), with the study's ``[infer] tune = 300, draws = 600`` (``--tune 300
+--draws 600``): main 1b4cd86, infer 283.1 s (compile 49.3 s, sampling 195.4 s, the rest 38.4 s), wall 296.4 s; after
+the readings were drawn around their recorded prediction (``observations.base.add_reading``: the posterior
+predictive no longer compiles the model again) infer 242.6 s (compile 48.7 s, sampling 167.9 s, the rest 26.0 s),
+**wall 255.9 s: target met**. Both: 0 divergences, 35 leapfrog steps per draw, smallest bulk ESS 487 and tail ESS
+796 (the gate asks 400), gate passed, peak 1.2 GB. Cold (no numba cache on the machine: a first fit after
+installing) the same compile took 235 s in a profile (numba and LLVM 171 s, PyTensor's rewrites 58 s; the course's
+own kernels 7.5 s of it), so a first fit after installing stays above 5 minutes. At the defaults (4 x (1000 +
+1000)) the sampling alone is about 420 s. Leaving PyTensor's greedy distributor out of the rewrites (about 25 s
+less rewriting under load in the tenth session) gave no gain on the warm compile (51.8 s against 53.7 s) and was
+dropped. The cost per gradient is mostly the course (20 subjects, 48 steps of 3.75 min: 0.57 ms forward and
+1.23 ms reverse of 2.2 ms per log density and gradient).
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
-[--cap SECONDS] [--sampler nutpie|pymc] (``--cap``: stop the child after this many seconds; its figures are then
+[--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] (``--cap``: stop the child after this many seconds; its figures are then
 lower bounds.)
 """
 
@@ -119,7 +133,7 @@ def population(study: object, n: int, seed: int) -> dict[str, np.ndarray]:
     return from_scores(study, z, "individual")
 
 
-def write_study(folder: Path, n: int, samples: int, seed: int = 20, sampler: str | None = None
+def write_study(folder: Path, n: int, samples: int, seed: int = 20, settings: dict[str, object] | None = None
                 ) -> tuple[Path, dict[str, np.ndarray]]:
     """Write an invented whole-body study of ``n`` subjects with ``samples`` haemoglobin readings each.
 
@@ -133,8 +147,8 @@ def write_study(folder: Path, n: int, samples: int, seed: int = 20, sampler: str
         Readings per subject (the first ``samples`` of :data:`TIMES_MIN`, at most 10).
     seed : int
         Seed of the subjects' values, baselines and noise.
-    sampler : str, optional
-        ``[infer] sampler`` of the study (default: the tool's default, nutpie).
+    settings : dict, optional
+        The study's ``[infer]`` settings (``sampler``, ``tune``, ``draws``; default: the tool's defaults).
 
     Returns
     -------
@@ -174,7 +188,7 @@ kind = "haemoglobin"
 file = "hb.csv"
 unit = "g/dL"
 sd = {HB_SD}                         # from memory: analyser repeatability
-""" + (f'\n[infer]\nsampler = "{sampler}"\n' if sampler else "")
+""" + ("\n[infer]\n" + "".join(f"{k} = {json.dumps(v)}\n" for k, v in settings.items()) if settings else "")
     path = folder / "study.toml"
     path.write_text(text)
     (folder / "hb.csv").write_text("subject,time_min,value\nS00,0,14\nS00,15,13\n")  # placeholder to load
@@ -198,7 +212,7 @@ sd = {HB_SD}                         # from memory: analyser repeatability
     return path, {k: np.asarray(v, dtype=float) for k, v in truth.items()}
 
 
-def child(n: int, samples: int, build_only: bool, sampler: str | None = None) -> dict[str, object]:
+def child(n: int, samples: int, build_only: bool, settings: dict[str, object]) -> dict[str, object]:
     """Load, build and (unless ``build_only``) infer the study in this interpreter; the figures as a dict."""
     import resource
 
@@ -207,9 +221,9 @@ def child(n: int, samples: int, build_only: bool, sampler: str | None = None) ->
     from uncertainty.core.errors import QualityGateError
     from uncertainty.study import load_study
 
-    out: dict[str, object] = {"subjects": n, "samples": samples, "sampler": sampler or "nutpie"}
+    out: dict[str, object] = {"subjects": n, "samples": samples, "settings": settings}
     with tempfile.TemporaryDirectory() as tmp:
-        path, _ = write_study(Path(tmp), n, samples, sampler=sampler)
+        path, _ = write_study(Path(tmp), n, samples, settings=settings)
         t0 = time.perf_counter()
         study = load_study(path)
         out["load_s"] = time.perf_counter() - t0
@@ -217,6 +231,7 @@ def child(n: int, samples: int, build_only: bool, sampler: str | None = None) ->
         built = build_model(problem_from_study(study))
         out["build_s"] = time.perf_counter() - t0
         out["free_variables"] = len(built.model.free_RVs)
+        built_vars = list(built.model.free_RVs)
         print(f"built in {out['build_s']:.1f} s; infer starts", file=sys.stderr, flush=True)
         del built
         if not build_only:
@@ -237,6 +252,12 @@ def child(n: int, samples: int, build_only: bool, sampler: str | None = None) ->
             out["divergences"] = int(stats["diverging"].sum())
             if "n_steps" in stats:
                 out["mean_leapfrog_steps"] = float(stats["n_steps"].mean())
+            import arviz as az
+
+            free = [v.name for v in built_vars]
+            for method in ("bulk", "tail"):
+                ess = az.ess(res.idata.posterior[free], method=method)
+                out[f"min_ess_{method}"] = float(min(float(ess[v].min()) for v in free))
     out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: KiB
     return out
 
@@ -249,14 +270,18 @@ def main() -> None:
     ap.add_argument("--build-only", action="store_true", help="load and build only; no sampling")
     ap.add_argument("--cap", type=float, default=None, help="seconds after which the child is stopped")
     ap.add_argument("--sampler", choices=("nutpie", "pymc"), default=None, help="the study's [infer] sampler")
+    ap.add_argument("--tune", type=int, default=None, help="the study's [infer] warm-up steps per chain")
+    ap.add_argument("--draws", type=int, default=None, help="the study's [infer] draws per chain")
     ap.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.child:
-        print(json.dumps(child(args.subjects, args.samples, args.build_only, args.sampler)))
+        settings = {k: getattr(args, k) for k in ("sampler", "tune", "draws") if getattr(args, k) is not None}
+        print(json.dumps(child(args.subjects, args.samples, args.build_only, settings)))
         return
     cmd = [sys.executable, __file__, "--child", "--subjects", str(args.subjects), "--samples", str(args.samples)]
     cmd += ["--build-only"] if args.build_only else []
-    cmd += ["--sampler", args.sampler] if args.sampler else []
+    for k in ("sampler", "tune", "draws"):
+        cmd += [f"--{k}", str(getattr(args, k))] if getattr(args, k) is not None else []
     from uncertainty.app.cli import QUICK_COMPILE_ENV
 
     env = {**QUICK_COMPILE_ENV, **os.environ}   # as `fluidshift infer` runs it (the user's own setting wins)
@@ -283,8 +308,10 @@ def main() -> None:
     infer = "" if "infer_s" not in row else (
         f", infer {row['infer_s']:.1f} s ({row['infer_cpu_s']:.0f} s CPU; compile {row.get('compile_s', 0):.1f} s, "
         f"sampling {row.get('sample_s', 0):.1f} s; {row.get('divergences', 0)} divergences, "
-        f"{row.get('mean_leapfrog_steps', float('nan')):.0f} leapfrog steps per draw)")
-    print(f"{args.subjects} subjects x {args.samples} Hb, {row['sampler']} (load average {load:.1f} at the start): "
+        f"{row.get('mean_leapfrog_steps', float('nan')):.0f} leapfrog steps per draw; smallest ESS bulk "
+        f"{row.get('min_ess_bulk', float('nan')):.0f}, tail {row.get('min_ess_tail', float('nan')):.0f})")
+    print(f"{args.subjects} subjects x {args.samples} Hb, [infer] {row['settings'] or 'defaults'} "
+          f"(load average {load:.1f} at the start): "
           f"load "
           f"{row['load_s']:.2f} s, build {row['build_s']:.1f} s{infer}, wall {wall:.1f} s, "
           f"peak {row['peak_mb']:.0f} MB, {row['free_variables']} free variables{gate}")

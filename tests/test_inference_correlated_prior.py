@@ -104,3 +104,26 @@ def test_log_densities_in_one_pass_equal_pymc_own():
     assert set(ours.log_prior.data_vars) == set(pymc_own.log_prior.data_vars) | {"copula"}
     expected = checks.copula_log_density(built.problem, {n: posterior[n] for n in ("Kf", "Pc")})
     np.testing.assert_allclose(ours.log_prior["copula"].values, expected, rtol=1e-12)
+
+
+def test_posterior_predictive_reads_the_prediction_from_the_trace():
+    """The readings are drawn around the recorded prediction ``{term}__pred``, so the posterior predictive takes
+    it from the draws instead of compiling the model again: with the trace's prediction replaced by 1000 (an
+    invented value far from any the model gives), every replicated reading lies within 10 sd of 1000."""
+    import arviz as az
+    import pymc as pm
+
+    from uncertainty.analyses.inference.model_builder import build_model
+
+    built = build_model(_problem())
+    with built.model:
+        draws = pm.sample_prior_predictive(draws=50, random_seed=4).prior
+    kept = [v.name for v in built.model.free_RVs + built.model.deterministics if v.name in draws]
+    posterior = {k: draws[k].values.reshape((2, 25) + draws[k].shape[2:]) for k in kept}
+    (term,) = built.terms
+    assert term.predicted in posterior
+    posterior[term.predicted] = np.full_like(posterior[term.predicted], 1000.0)
+    idata = az.from_dict(posterior=posterior)
+    checks.posterior_predictive(built, idata, seed=5)
+    rep = idata.posterior_predictive[term.name].values
+    assert np.all(np.abs(rep - 1000.0) < 10 * 0.004)   # sd of the reading in _problem

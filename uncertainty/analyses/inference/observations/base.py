@@ -51,11 +51,15 @@ def add_reading(name: str, predicted: Any, value: Any, *, sd: float | None = Non
     """Add the observed reading(s) ``value`` of ``predicted`` to the current PyMC model.
 
     ``sd``: normal error in the value's (canonical) unit; ``cv``: lognormal error with
-    log-sd ``sqrt(log(1 + cv^2))`` around the prediction (which must be positive).
+    log-sd ``sqrt(log(1 + cv^2))`` around the prediction (which must be positive). The prediction is
+    recorded as the Deterministic ``{name}__pred`` and the readings are drawn around that variable, so a
+    posterior predictive reads it from the trace instead of compiling the model again (for the whole-body
+    form about 20 s); the log density is the same (PyTensor's rewrites drop the Deterministic's view).
     """
     import pymc as pm
     import pytensor.tensor as pt
 
+    predicted = pm.Deterministic(f"{name}__pred", predicted)
     data = pm.Data(f"{name}__data", np.asarray(value, dtype=float))
     if cv is not None:
         s = log_sd_from_cv(cv)

@@ -40,7 +40,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def add(ctx: Any, obs: Observation) -> None:
     """k ~ error(Jv / V_dist), one V_dist per observation."""
-    import pymc as pm
 
 
     i = ctx.subject_index(obs)
@@ -51,7 +50,6 @@ def add(ctx: Any, obs: Observation) -> None:
         vd = prior_rv(f"{name}__V_dist", declared_prior(obs.extra["volume"], "V_dist", obs, "volume"))
         ctx.extra_params.append(f"{name}__V_dist")
         pred = ctx.value("Jv")[i] / vd
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
                               subjects=term_subjects(i), label="clearance rate"))

@@ -162,7 +162,6 @@ def add_relative_term(ctx: Any, obs: Observation, course: str, *, what: str, lab
     notes_when_fitted : tuple of str
         Further notes, added when there are readings to fit.
     """
-    import pymc as pm
 
     design, _, word = RELATIVE[how]
     d = design(obs, ctx.subjects)
@@ -177,7 +176,6 @@ def add_relative_term(ctx: Any, obs: Observation, course: str, *, what: str, lab
     times, series = course_series(ctx, course)  # (time, subject)
     i = d["subject"]
     pred = relative_prediction(series, times, d, how)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {note}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i, label=label))

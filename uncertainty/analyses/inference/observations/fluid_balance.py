@@ -173,7 +173,6 @@ def predicted(flow_L_per_day: Any, days: Any, share: Any, kind: str) -> Any:
 def add(ctx: Any, obs: Observation) -> None:
     """change ~ Normal(Jv_L_per_day[subject] x days / share (x 1 kg/L for weights), sd) over all rows (in a
     ``whole_body`` study: ``observations.weight_course.add``)."""
-    import pymc as pm
 
     if _whole_body(obs, ctx.problem):
         weight_course.add(ctx, obs)
@@ -190,7 +189,6 @@ def add(ctx: Any, obs: Observation) -> None:
     ctx.extra_params.append(f"{name}__share")
     i = d["subject"]
     pred = predicted(ctx.value("Jv_L_per_day")[i], d["days"], share, obs.kind)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {NOTE}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i,

@@ -47,13 +47,11 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def add(ctx: Any, obs: Observation) -> None:
     """reading ~ error(GFR, RPF or FF of the observation's subject)."""
-    import pymc as pm
 
 
     i = ctx.subject_index(obs)
     pred = ctx.value(QUANTITY[obs.kind])[i]
     name = term_name(obs)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
                               subjects=term_subjects(i), label=LABEL[obs.kind]))

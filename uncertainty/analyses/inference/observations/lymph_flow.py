@@ -45,13 +45,11 @@ def pinned_output(obs: Observation, problem: Problem) -> tuple[str, bool]:
 def add(ctx: Any, obs: Observation) -> None:
     """reading ~ error(lymph flow of the observation's subject): the model's JL output where the form
     has one (steady forms; JL = Jv + J_epi in the absorbing mucosa), else Jv (lymph = Jv)."""
-    import pymc as pm
 
 
     i = ctx.subject_index(obs)
     pred = ctx.value("JL" if "JL" in ctx.outputs() else "Jv")[i]
     name = term_name(obs)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     if obs.extra.get("site") == "post_nodal":
         ctx.notes.append(f"{obs.key}: post-nodal lymph is fitted as if it were pre-nodal; the Jv "

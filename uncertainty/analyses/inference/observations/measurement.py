@@ -97,7 +97,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def add(ctx: Any, obs: Observation) -> None:
     """Add the reading's likelihood for its subject (or the study's individual)."""
-    import pymc as pm
 
     i = ctx.subject_index(obs)
     pred = ctx.value(obs.parameter)[i]
@@ -117,7 +116,6 @@ def add(ctx: Any, obs: Observation) -> None:
             pred = pred + ctx.instrument_bias[key]
     sd, cv = _noise(obs, ctx.problem)
     name = term_name(obs)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.values, sd=sd, cv=cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
                               subjects=term_subjects(i), label=label))

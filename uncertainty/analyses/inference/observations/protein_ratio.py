@@ -35,7 +35,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def add(ctx: Any, obs: Observation) -> None:
     """ratio ~ error(steady_state_ratio(Jv, sigma, PS)) for the observation's subject."""
-    import pymc as pm
     import pytensor.tensor as pt
 
 
@@ -43,7 +42,6 @@ def add(ctx: Any, obs: Observation) -> None:
     name = term_name(obs)
     pred = solute.steady_state_ratio(ctx.value("Jv")[i], ctx.value("sigma")[i], ctx.value("PS")[i],
                                      xp=pt)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
                               subjects=term_subjects(i), label="lymph/plasma protein ratio"))

@@ -39,7 +39,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def add(ctx: Any, obs: Observation) -> None:
     """rate ~ error(Jv - JL) for the observation's subject."""
-    import pymc as pm
     import pytensor.tensor as pt
 
 
@@ -52,7 +51,6 @@ def add(ctx: Any, obs: Observation) -> None:
         JL = interstitium.lymph_flow(ctx.value("Pi")[i], ctx.value("L")[i], ctx.value("Pi_L0")[i],
                                      xp=pt)
     pred = ctx.value("Jv")[i] - JL
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, obs.values, sd=obs.sds, cv=obs.cv)
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred",
                               subjects=term_subjects(i), label="swelling rate"))

@@ -163,7 +163,6 @@ def predicted(series: Any, times_min: list[float], d: dict[str, np.ndarray]) -> 
 def add(ctx: Any, obs: Observation) -> None:
     """y ~ Normal(U(t) of the reading's subject, sd) over the readings after time 0 (cumulative), or
     y ~ Normal((U(t) - U(t_prev)) / (t - t_prev), sd) over every reading (rate)."""
-    import pymc as pm
 
     how = how_of(obs)
     d = design(obs, ctx.subjects)
@@ -173,7 +172,6 @@ def add(ctx: Any, obs: Observation) -> None:
         return
     times, series = course_series(ctx, COURSE)  # (time, subject)
     pred = predicted(series, times, d)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {kind_note(obs)}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=d["subject"],

@@ -540,7 +540,6 @@ def add(ctx: Any, obs: Observation) -> None:
         pvi, cv, offset = phys["Pvi"], phys["Cv"], phys["offset"]
         c_arg = l_arg = None
     pred = _curve(t, sidx, n, times, cuffs, kf, c_arg, l_arg, cv, pv0, pvi, tau_v, r, trans, tau) + offset[sidx]
-    pm.Deterministic(f"{name}__pred", pred)
     pm.Deterministic(f"{name}__Pvi__subject", pvi, dims="subject")
     pm.Deterministic(f"{name}__Kf_100mL__subject", kf, dims="subject")
     ctx.subject_params[f"{name}__Pvi__subject"] = "Pvi"

@@ -174,7 +174,6 @@ def balance_predicted(series: Any, times_min: list[float], d: dict[str, np.ndarr
 def add(ctx: Any, obs: Observation) -> None:
     """body_weight: y ~ Normal(body_weight_change(t) - body_weight_change(t_ref) of the reading's subject, sd_y), kg;
     fluid_balance: y ~ Normal(charted_balance(t) of the reading's subject, sd), L."""
-    import pymc as pm
 
     if obs.kind == "body_weight":
         add_relative_term(ctx, obs, COURSE, what="body weight", label="body weight change from the first reading",
@@ -184,7 +183,6 @@ def add(ctx: Any, obs: Observation) -> None:
     name = term_name(obs)
     times, series = course_series(ctx, COURSE)  # (time, subject), kg
     pred = balance_predicted(series, times, d)
-    pm.Deterministic(f"{name}__pred", pred)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {BALANCE_NOTE}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=d["subject"],
