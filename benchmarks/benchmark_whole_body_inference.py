@@ -11,7 +11,8 @@ baseline Hb (normal 14 g/dL, sd 1) plus normal reading noise of 0.2 g/dL (from m
 
 In a fresh interpreter (so that peak memory is the fit's own): the wall time of loading the study, of building the
 model (``problem_from_study`` + ``build_model``, no compiling), and of ``infer`` at the default settings (nutpie,
-4 chains x (1000 + 1000), target_accept 0.95) or the study's ``[infer]`` settings given by the flags, split into compile and sampling, the peak resident memory
+4 chains x (1000 + 1000), target_accept 0.95) or the study's ``[infer]`` settings given by the flags, split into
+compile and sampling, the peak resident memory
 (``resource.getrusage``) and the quality gate's verdict as ``infer`` reports it (R-hat, ESS, divergences; the
 failing quantities). Target (issue 20): a passed gate in at most 5 minutes on 2 cores.
 
@@ -92,8 +93,8 @@ dropped. The cost per gradient is mostly the course (20 subjects, 48 steps of 3.
 1.23 ms reverse of 2.2 ms per log density and gradient).
 
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
-[--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] (``--cap``: stop the child after this many seconds; its figures are then
-lower bounds.)
+[--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] (``--cap``: stop the child after this many seconds;
+its figures are then lower bounds.)
 """
 
 from __future__ import annotations
