@@ -136,6 +136,11 @@ def test_prior_set_names_and_plausibility(path: Path) -> None:
             assert dist == "lognormal" and decl["gsd"] > 1, (path.name, sym)
         if sym == "sigma":
             assert dist in ("beta", "fixed", "uniform", "triangular", "truncnormal"), path.name
+        if sym == "Pa" or (sym == "Pv" and "whole_body" in doc["set"].get("models", [])):
+            # common practice: arterial and (supine peripheral) venous pressures are positive; an additive
+            # between-subject sd let hierarchical fits whose shared spread widened put subjects at negative
+            # pressures (Pv -8 to -21 mmHg, Pa -19 mmHg), so these layers are on a log scale (cv)
+            assert set(decl.get("between_subject", {"cv": 0})) == {"cv"}, (path.name, sym)
     # every quantity the classic form needs, Pc as a prior or derived
     assert {"Kf", "Pi", "pi_c", "pi_i", "sigma"} <= set(priors), path.name
     assert "Pc" in priors or "Pc" in derived, path.name
