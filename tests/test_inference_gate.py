@@ -96,3 +96,29 @@ def test_failed_gate_flags_every_file_and_the_json(tmp_path):
     assert sorted(os.listdir(tmp_path)) == sorted(os.path.basename(p) for p in paths.values())
     assert json.loads((tmp_path / f"{InferenceResult.failed_prefix}inference.json").read_text())[
         "trustworthy"] is False
+
+
+def test_divergent_draws_in_one_tail_are_named():
+    """Three divergent transitions whose draws sit at the top of Pc (invented draws) are named with their
+    quantiles; an unrelated quantity with a subject dimension is not, and without divergences nothing is."""
+    import arviz as az
+
+    from uncertainty.analyses.inference.diagnostics import divergent_tails
+
+    rng = np.random.default_rng(2)
+    pc, other = rng.standard_normal((4, 500)), rng.standard_normal((4, 500, 3))
+    diverging = np.zeros((4, 500), dtype=bool)
+    top = np.argsort(pc.ravel())[-40:][::14]          # three draws among the top 2 % of Pc
+    diverging.flat[top] = True
+    idata = az.from_dict(posterior={"Pc": pc, "Kf__subject_z": other}, sample_stats={"diverging": diverging},
+                         coords={"subject": ["A", "B", "C"]}, dims={"Kf__subject_z": ["subject"]})
+    tails = divergent_tails(idata, ["Pc", "Kf__subject_z"])
+    assert tails[0]["quantity"] == "Pc" and tails[0]["side"] == "high"
+    assert all(q >= 0.98 for q in tails[0]["quantiles"]) and len(tails[0]["quantiles"]) == 3
+    # a subject's unrelated score is named by chance with probability about 0.03 (three uniform quantiles on one
+    # side with a mean beyond 0.85: 2 x 0.45^3 / 6); with this seed none is
+    assert [t["quantity"] for t in tails] == ["Pc"]
+    d = diagnose(idata, ["Pc", "Kf__subject_z"], Gate())
+    assert d["divergent_tails"] == tails and "divergent draws sat in the tails of (Pc high)" in gate_message(d)
+    calm = az.from_dict(posterior={"Pc": pc}, sample_stats={"diverging": np.zeros((4, 500), dtype=bool)})
+    assert divergent_tails(calm, ["Pc"]) == [] and diagnose(calm, ["Pc"], Gate())["divergent_tails"] == []

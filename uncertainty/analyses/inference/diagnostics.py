@@ -55,7 +55,7 @@ def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
     Returns
     -------
     dict
-        ``{r_hat_max, ess_bulk_min, ess_tail_min, divergences, bfmi_min, passed, failing,
+        ``{r_hat_max, ess_bulk_min, ess_tail_min, divergences, divergent_tails, bfmi_min, passed, failing,
         failed_checks, failed_quantities, chains, gate, per_quantity: {name: {r_hat, ess_bulk,
         ess_tail}}}`` (``failed_checks`` among r_hat, ess_bulk, ess_tail, divergences, bfmi).
     """
@@ -96,6 +96,7 @@ def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
         bfmi_min = float(np.min(bfmi))
     except Exception:  # noqa: BLE001 - energy not recorded by every sampler
         bfmi_min = float("nan")
+    tails = divergent_tails(idata, names) if divergences else []
     if divergences > gate.divergences_max:
         failing.append(f"{divergences} divergent transitions (allowed {gate.divergences_max})")
         failed["divergences"] = []
@@ -110,6 +111,7 @@ def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
         "ess_bulk_min": float(np.nanmin(eb_all)) if eb_all else float("nan"),
         "ess_tail_min": float(np.nanmin(et_all)) if et_all else float("nan"),
         "divergences": divergences,
+        "divergent_tails": tails,
         "bfmi_min": bfmi_min,
         "passed": not failing,
         "failing": failing,
@@ -120,6 +122,61 @@ def diagnose(idata: Any, var_names: list[str], gate: Gate) -> dict[str, Any]:
                  "ess_tail_min": float(gate.ess_tail_min), "divergences_max": int(gate.divergences_max)},
         "per_quantity": per,
     }
+
+
+#: at most this many divergent draws are ranked (the tails are clear long before)
+TAIL_DRAWS = 200
+#: a quantity is named when its divergent draws all lie on one side of its median and their quantiles
+#: among all draws are on average at least this far from 0.5 (0.35: beyond the 15th or 85th percentile)
+TAIL_DISTANCE = 0.35
+
+
+def divergent_tails(idata: Any, var_names: list[str], top: int = 4) -> list[dict[str, Any]]:
+    """Where the divergent transitions' draws sat: the quantities (each element of an array, e.g. one
+    subject's score) whose draws at divergent transitions lie in one tail of their posterior.
+
+    Divergences cluster where the log density curves sharply (Betancourt 2017, arXiv:1701.02434, section
+    6.2; from memory), so the tails they share point at the part of the model to look at, or to
+    reparametrise. The quantile of each divergent draw among all draws is computed per element; an element
+    is kept when all of them lie on one side of 0.5 and their mean distance from 0.5 is at least
+    :data:`TAIL_DISTANCE`. With one or two divergences a tail is often chance.
+
+    Parameters
+    ----------
+    idata : arviz.InferenceData
+        Posterior draws with ``sample_stats.diverging``.
+    var_names : list of str
+        Quantities to look at (those not in the posterior are skipped).
+    top : int
+        At most this many elements, the farthest in the tails first.
+
+    Returns
+    -------
+    list of dict
+        ``{"quantity": "NAME" or "NAME[coord]", "side": "low" | "high", "quantiles": [...]}``.
+    """
+    post = idata.posterior
+    div = np.asarray(idata.sample_stats["diverging"].values, dtype=bool).ravel()
+    if not div.any():
+        return []
+    rows = []
+    for v in [n for n in var_names if n in post]:
+        arr = post[v]
+        extra = [d for d in arr.dims if d not in ("chain", "draw")]
+        x = np.asarray(arr.transpose("chain", "draw", *extra).values, dtype=float)
+        flat = x.reshape(div.size, -1)
+        at = flat[div][:TAIL_DRAWS]
+        q = (flat[None, :, :] < at[:, None, :]).mean(axis=1)          # (divergent draw, element)
+        coords = [arr[d].values for d in extra]
+        for j, idx in enumerate(np.ndindex(*x.shape[2:])):
+            qj = q[:, j]
+            if not (np.all(qj > 0.5) or np.all(qj < 0.5)) or abs(qj.mean() - 0.5) < TAIL_DISTANCE:
+                continue
+            label = v + (f"[{','.join(str(c[i]) for c, i in zip(coords, idx, strict=True))}]" if extra else "")
+            rows.append({"quantity": label, "side": "high" if qj.mean() > 0.5 else "low",
+                         "quantiles": [round(float(a), 3) for a in qj]})
+    rows.sort(key=lambda r: -abs(np.mean(r["quantiles"]) - 0.5))
+    return rows[:top]
 
 
 def _halves(post: Any) -> Any:
@@ -165,6 +222,9 @@ def gate_message(diag: dict[str, Any]) -> str:
     for check in diag.get("failed_checks") or []:
         what, fix = REMEDIES.get(check, (check, ""))
         who = list((diag.get("failed_quantities") or {}).get(check) or [])
+        if check == "divergences" and diag.get("divergent_tails"):
+            who = [f"{t['quantity']} {t['side']}" for t in diag["divergent_tails"]]
+            what += "; its divergent draws sat in the tails of"
         parts.append(what.format(**gate) + (f" ({', '.join(who[:6])}{', ...' if len(who) > 6 else ''})"
                                             if who else "") + (f": {fix}" if fix else ""))
     return "; ".join(parts)
