@@ -443,3 +443,26 @@ def test_shipped_bleed_study_refills_over_hours() -> None:
     assert 0.88 <= hb[times.index(360.0)] <= 0.96
     assert hb[times.index(360.0)] < hb[times.index(60.0)]
     assert pv[times.index(10.0)] < pv[times.index(60.0)] < pv[times.index(360.0)] < 0.0
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known gap: the whole-body prior puts about 18 % of healthy subjects (individual layer) at a resting muscle Pi "
+    "above 5.6 mmHg and about 10 % above 9 mmHg, resting oedema. Where JL_max (median 0.014 mL/min/100 g from the "
+    "sourced resting lymph 0.0007 x 20) falls below the resting filtration that the judgement L prior implies (about "
+    "0.006), lymph saturates at rest and Pi climbs until filtration falls to JL_max (first-order shares of the event: "
+    "JL_max 0.16, r 0.13, Pv 0.10, PS 0.09). The two lymph priors are not reconciled (priors/skeletal_muscle.toml, "
+    "JL_max note); the divergent transitions of a small invented haemoglobin cohort sat in these resting states"))
+def test_healthy_resting_muscle_pressure_has_the_measured_spread() -> None:
+    # Scand J Clin Lab Invest 1990, pages 331-336 (abstract; authors not confirmed; the muscle Pi prior's and the
+    # validation row skeletal_muscle.Pi.calf's source): wick-in-needle Pi in deep calf muscle -1.2 (SD 3.4) mmHg
+    # between subjects, so about 2.3 % of healthy adults above -1.2 + 2 x 3.4 = 5.6 mmHg (normal theory, common
+    # practice). The prior of healthy adults' resting state should put at most 5 % there (a judgement allowing for
+    # tails heavier than normal).
+    s = Study.from_dict({"study": {"tissue": "skeletal_muscle", "model": "whole_body", "seed": 7,
+                                   "body_mass": f"{BODY_KG:g} kg"},
+                         "interventions": [{"kind": "infusion", "fluid": "crystalloid", "volume": "500 mL",
+                                            "duration": "30 min"}],
+                         "timeline": {"end": "60 min", "report_every": "15 min"},
+                         "propagate": {"samples": 4096, "thresholds": [{"output": "Pi", "above": "5.6 mmHg"}]}})
+    (event,) = propagate(s).to_dict()["thresholds"]
+    assert event["individual"]["p"] <= 0.05
