@@ -40,8 +40,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def add(ctx: Any, obs: Observation) -> None:
     """k ~ error(Jv / V_dist), one V_dist per observation."""
-
-
     i = ctx.subject_index(obs)
     name = term_name(obs)
     if obs.extra.get("as_flow"):  # a clearance already expressed as a flow: JL = Jv

@@ -47,8 +47,6 @@ def validate(obs: Observation, problem: Problem) -> None:
 
 def add(ctx: Any, obs: Observation) -> None:
     """reading ~ error(GFR, RPF or FF of the observation's subject)."""
-
-
     i = ctx.subject_index(obs)
     pred = ctx.value(QUANTITY[obs.kind])[i]
     name = term_name(obs)

@@ -45,8 +45,6 @@ def pinned_output(obs: Observation, problem: Problem) -> tuple[str, bool]:
 def add(ctx: Any, obs: Observation) -> None:
     """reading ~ error(lymph flow of the observation's subject): the model's JL output where the form
     has one (steady forms; JL = Jv + J_epi in the absorbing mucosa), else Jv (lymph = Jv)."""
-
-
     i = ctx.subject_index(obs)
     pred = ctx.value("JL" if "JL" in ctx.outputs() else "Jv")[i]
     name = term_name(obs)
