@@ -84,7 +84,13 @@ warm from earlier fits of this model's shape), with the study's ``[infer] tune =
 the readings were drawn around their recorded prediction (``observations.base.add_reading``: the posterior
 predictive no longer compiles the model again) infer 242.6 s (compile 48.7 s, sampling 167.9 s, the rest 26.0 s),
 **wall 255.9 s: target met**. Both: 0 divergences, 35 leapfrog steps per draw, smallest bulk ESS 487 and tail ESS
-796 (the gate asks 400), gate passed, peak 1.2 GB. Cold (no numba cache on the machine: a first fit after
+796 (the gate asks 400), gate passed, peak 1.2 GB. After arterial pressure's between-subject layer moved to a log
+scale (main a89d43e; the simulated subjects change with it): ``--tune 300 --draws 600`` wall 382.6 s (compile 140.1
+s, sampling 202.9 s, 42 steps per draw), gate FAILED on Kf's R-hat 1.012; ``--tune 400 --draws 600`` wall 404.7 s
+(compile 150.8 s, sampling 211.6 s), gate FAILED on 1 divergence. Both compiled cold although the graph had been
+compiled before: PyTensor's cache key for the whole function graph differs between processes (ten builds of one
+3-subject model gave four keys: the rewritten graphs are wired in a run-dependent order), so the 49 s compile is a
+cache hit that a user cannot count on. Cold (no numba cache on the machine: a first fit after
 installing) the same compile took 235 s in a profile (numba and LLVM 171 s, PyTensor's rewrites 58 s; the course's
 own kernels 7.5 s of it), so a first fit after installing stays above 5 minutes. At the defaults (4 x (1000 +
 1000)) the sampling alone is about 420 s. Leaving PyTensor's greedy distributor out of the rewrites (about 25 s
