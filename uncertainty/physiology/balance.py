@@ -50,7 +50,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.physiology.interstitium import overflow, volume_lymph_flow
-from uncertainty.physiology.iteration import fixed_steps, stop_gradient
+from uncertainty.physiology.iteration import fixed_steps, is_pytensor, stop_gradient
 from uncertainty.physiology.oncotic import pi_cubic, pi_cubic_slope
 from uncertainty.physiology.solute import ratio_and_slope, steady_state_ratio
 
@@ -285,8 +285,17 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
         pos = g > 0
         return xp.where(pos, mid, lo), xp.where(pos, hi, mid)
 
-    lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp, params=tuple(base + extra + cp))
-    x = stop_gradient(0.5 * (lo + hi), xp)
+    if is_pytensor(xp) and G_flood is None and P_flood is None:  # the halvings as one compiled node
+        from uncertainty.physiology.safety_root_op import bracket_midpoint
+
+        zero = 0.0 * full
+        curve = C_tis is not None and C_high is not None and P_break is not None
+        rows = [*base, *(tissue[i] + full if tissue[i] is not None else zero for i in range(4)),
+                (Cp + full) if Cp is not None else zero]
+        x = stop_gradient(bracket_midpoint(rows, n_steps, curve, JL_max is not None, Cp is not None), xp)
+    else:
+        lo, hi = fixed_steps(step, (lo0, hi0), n_steps, 1.0, xp, params=tuple(base + extra + cp))
+        x = stop_gradient(0.5 * (lo + hi), xp)
     g, dg = _safety_residual(x, Kf, Pc, sigma, PS, pi_c, L, Pi_L0, tissue, Cp, xp)
     safe = stop_gradient(xp.where(dg < 0, dg, -1.0), xp)  # the slope, constant: the implicit-function gradient
     x = xp.maximum(x - g / safe, lo0)  # the root lies in [Pi_L0, Pc]: keep the Newton step there
