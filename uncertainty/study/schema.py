@@ -552,7 +552,8 @@ class InferSection(BaseModel):
         "NUTS target acceptance rate; raise it (e.g. 0.99) when a few divergences remain. The default is 0.95, "
         "not the samplers' 0.8: a lymph-flow reading pins only the product Kf x net pressure, a curved ridge "
         "on which 0.8 gave tens of divergences (common practice: raise target_accept before trusting chains "
-        "with divergences)"))
+        "with divergences). Lower costs fewer steps per draw: a 20-subject whole_body fit of haemoglobin took 31 "
+        "leapfrog steps per draw at 0.9 against 36 at 0.95, both without divergences (one invented dataset)"))
     start: Literal["auto", "mode", "prior"] = Field(default="auto", description=(
         "where chains start: around the posterior mode (mode), at the priors' central points (prior), or "
         "the mode only for observation kinds that need it, such as volume time courses (auto)"))
