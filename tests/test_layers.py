@@ -157,10 +157,12 @@ def test_first_party_imports_at_module_top():
 #: when that command runs, and the package's API resolves its functions on first use.
 LAZY_ALLOWED = {"uncertainty": ("",), "uncertainty.app.cli": ("uncertainty.app.commands",),
                 "uncertainty.physiology.whole_body": ("uncertainty.physiology.whole_body_op",),
+                "uncertainty.physiology.balance": ("uncertainty.physiology.safety_root_op",),
                 "uncertainty.physiology.iteration": ("uncertainty.physiology.cut_gradient",)}
 #: Modules that define PyTensor Ops (a class needs its base at import): they import PyTensor at their top and are
 #: themselves imported only inside functions (:data:`LAZY_ALLOWED`), so start-up stays light.
-PYTENSOR_MODULES = ("uncertainty.physiology.whole_body_op", "uncertainty.physiology.cut_gradient")
+PYTENSOR_MODULES = ("uncertainty.physiology.whole_body_op", "uncertainty.physiology.cut_gradient",
+                    "uncertainty.physiology.safety_root_op")
 
 
 def _allowed_lazy(module: str, target: str) -> bool:

@@ -258,6 +258,7 @@ OTHER_FILES = {
     "whole_body_kernel": "tests/test_whole_body_kernel.py (numba, against the numpy course)",
     "whole_body_op": "tests/test_whole_body_kernel.py (PyTensor only: the kernel as an Op)",
     "cut_gradient": "tests/test_cut_gradient.py (PyTensor only)",
+    "safety_root_op": "tests/test_safety_root_op.py (PyTensor only: balance's bisection as an Op, against numpy)",
 }
 
 

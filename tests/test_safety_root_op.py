@@ -84,3 +84,10 @@ def test_the_overflow_path_keeps_the_loop() -> None:
     f = pytensor.function(list(sym.values()), out["Pi"])
     ops = {type(n.op) for n in f.maker.fgraph.apply_nodes}
     assert SafetyBracket not in ops and Scan in ops
+
+
+def test_series_threshold_is_the_solute_module_s() -> None:
+    # the scalar copy switches to the series 1 - Pe/2 where solute.steady_state_ratio does
+    from uncertainty.physiology import safety_root_op, solute
+
+    assert safety_root_op.PE_SERIES == solute._SMALL

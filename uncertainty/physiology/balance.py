@@ -215,9 +215,9 @@ def safety_steady_state(Kf: Array, Pc: Array, sigma: Array, PS: Array, pi_c: Arr
     filtrate, Ci/Cp = R(J) (``solute.steady_state_ratio``). The residual falls monotonically in Pi, so the
     root is bracketed by [Pi_L0, Pc] and found by ``n_steps`` bisection halvings (a fixed count; on PyTensor one
     compiled node, ``safety_root_op``, or a ``pytensor.scan`` with the overflow path), then one Newton step whose
-    incoming iterate is cut from differentiation (the PyTensor gradient is then the implicit-function gradient). Without C_high, P_break, JL_max and the
-    overflow this is the state of ``steady_state`` (linear lymph line). When Pc <= Pi_L0 no lymph flows:
-    Jv = 0, Pi = Pc, pi_i = pi_c (as ``steady_state``).
+    incoming iterate is cut from differentiation (the PyTensor gradient is then the implicit-function gradient).
+    Without C_high, P_break, JL_max and the overflow this is the state of ``steady_state`` (linear lymph line).
+    When Pc <= Pi_L0 no lymph flows: Jv = 0, Pi = Pc, pi_i = pi_c (as ``steady_state``).
 
     Parameters
     ----------

@@ -31,12 +31,13 @@ from pytensor.link.numba.dispatch import basic as numba_basic
 
 from uncertainty.physiology.interstitium import BREAK_WIDTH
 from uncertainty.physiology.oncotic import COEFFICIENTS
-from uncertainty.physiology.solute import _SMALL
 
 #: Rows of the input matrix: the arguments of ``safety_steady_state`` in its order (absent ones as 0).
 ROWS = ("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0", "C_tis", "C_high", "P_break", "JL_max", "Cp")
 
 _A1, _A2, _A3 = COEFFICIENTS["total"]
+#: Below this Peclet number the series 1 - Pe/2 stands for (1 - e^-Pe)/Pe, as ``solute.steady_state_ratio`` does.
+PE_SERIES = 1e-8
 _jit = numba.njit(cache=True, fastmath=False, error_model="numpy")
 
 
@@ -65,7 +66,7 @@ def residual(Pi: float, p: np.ndarray, curve: bool, cap: bool, cubic: bool, widt
     J = p[10] * math.tanh(u / p[10]) if cap else u
     Jp = max(J, 0.0)  # solute.steady_state_ratio
     pe = Jp * (1.0 - sigma) / PS
-    E = 1.0 - 0.5 * pe if pe < _SMALL else -math.expm1(-pe) / pe
+    E = 1.0 - 0.5 * pe if pe < PE_SERIES else -math.expm1(-pe) / pe
     R = 1.0 / (1.0 + sigma * (Jp / PS) * E)
     if cubic:  # balance.oncotic_from_ratio
         pi_o = pi_c / _cubic(p[11]) * _cubic(R * p[11])
@@ -153,4 +154,5 @@ def bracket_midpoint(values: Sequence[Any], n_steps: int, curve: bool, cap: bool
     """
     first = pt.as_tensor_variable(values[0])
     p = pt.stack([pt.as_tensor_variable(v).astype("float64").ravel() for v in values])
-    return SafetyBracket(n_steps, curve, cap, cubic)(p).reshape(first.shape)
+    mid = SafetyBracket(n_steps, curve, cap, cubic).make_node(p).outputs[0]
+    return pt.reshape(mid, first.shape)
