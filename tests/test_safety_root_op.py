@@ -12,6 +12,7 @@ import numpy as np
 import pytensor
 import pytensor.tensor as pt
 import pytest
+from pytensor.gradient import NullTypeGradError
 from pytensor.scan.op import Scan
 
 from uncertainty.physiology.balance import safety_steady_state
@@ -91,3 +92,12 @@ def test_series_threshold_is_the_solute_module_s() -> None:
     from uncertainty.physiology import safety_root_op, solute
 
     assert safety_root_op.PE_SERIES == solute._SMALL
+
+
+def test_a_gradient_through_the_node_without_the_cut_fails() -> None:
+    from uncertainty.physiology.safety_root_op import bracket_midpoint
+
+    kf = pt.dvector("kf")
+    mid = bracket_midpoint([kf, *([pt.ones_like(kf)] * 11)], 30, False, False, False)
+    with pytest.raises(NullTypeGradError, match="no gradient: cut it"):
+        pt.grad(mid.sum(), kf)

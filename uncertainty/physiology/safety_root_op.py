@@ -26,6 +26,7 @@ from typing import Any
 import numba
 import numpy as np
 import pytensor.tensor as pt
+from pytensor.gradient import grad_not_implemented
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
 from pytensor.link.numba.dispatch import basic as numba_basic
@@ -104,7 +105,8 @@ _SALT = zlib.crc32(inspect.getsource(sys.modules[__name__]).encode())
 
 
 class SafetyBracket(Op):
-    """(inputs (rows :data:`ROWS`, n)) -> the bisection midpoint (n,), mmHg; no gradient (the caller cuts it)."""
+    """(inputs (rows :data:`ROWS`, n)) -> the bisection midpoint (n,), mmHg. No gradient: the caller cuts it
+    (``iteration.stop_gradient``); a gradient asked through the node fails rather than coming back as zeros."""
 
     __props__ = ("n_steps", "curve", "cap", "cubic", "width")
 
@@ -121,7 +123,7 @@ class SafetyBracket(Op):
         outputs[0][0] = bracket(p, self.n_steps, self.curve, self.cap, self.cubic, self.width)
 
     def grad(self, inputs: Sequence[Any], output_grads: Sequence[Any]) -> list[Any]:
-        return [pt.zeros_like(inputs[0])]
+        return [grad_not_implemented(self, 0, inputs[0], "no gradient: cut it, then take one Newton step")]
 
 
 @numba_basic.register_funcify_default_op_cache_key(SafetyBracket)
