@@ -41,7 +41,7 @@ def test_course_equals_the_numpy_loop(unsaturated: bool) -> None:
     # same steps, same arithmetic: the reported volumes agree to rounding (1e-9 mL on about 1000 mL)
     (body, beds, Cp0, per), start, q, consts = _inputs(MIXED, 90.0, 10.0, 2.5, unsaturated)
     assert consts[2].tolist() == [True, not unsaturated]
-    out = kernel.course(start, q, *consts)[::per]
+    out = kernel.course(start, q, *consts)[0][::per]
     sim = wb.simulate(body, beds, Cp0, MIXED, 90.0, 10.0, max_step=2.5)
     assert out.shape == (len(sim["times_min"]), start.shape[0], 3)
     np.testing.assert_allclose(out[:, 0, :] - body["Vp0"], np.array(sim["plasma_volume_change"]), atol=1e-9)
@@ -59,8 +59,9 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
     # 1e-5 relative)
     _, start, q, consts = _inputs(MIXED, 90.0, 10.0, 2.5, unsaturated)
     rng = np.random.default_rng(7)
-    w = rng.normal(size=kernel.course(start, q, *consts).shape)
-    g_start, g_q = kernel.course_vjp(kernel.course(start, q, *consts), q, *consts, w)
+    traj, stages = kernel.course(start, q, *consts)
+    w = rng.normal(size=traj.shape)
+    g_start, g_q = kernel.course_vjp(traj, stages, q, *consts, w)
     checked = 0
     for which, x, g in (("start", start, g_start), ("quantities", q, g_q)):
         for row in range(x.shape[0]):
@@ -75,7 +76,7 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
                 vals = []
                 for ti in np.ravel(t):
                     a, b = (x + ti * v, q) if which == "start" else (start, x + ti * v)
-                    vals.append(float((kernel.course(a, b, *consts) * w).sum()))
+                    vals.append(float((kernel.course(a, b, *consts)[0] * w).sum()))
                 return np.reshape(vals, np.shape(t))
 
             fd = derivative(along, 0.0, initial_step=0.5)
@@ -90,10 +91,10 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
 def test_each_subject_depends_on_its_own_inputs_only() -> None:
     # the columns are independent subjects: a cotangent on one subject's course gives zero gradient elsewhere
     _, start, q, consts = _inputs(MIXED, 60.0, 10.0, 2.5)
-    traj = kernel.course(start, q, *consts)
+    traj, stages = kernel.course(start, q, *consts)
     w = np.zeros(traj.shape)
     w[:, :, 1] = 1.0
-    g_start, g_q = kernel.course_vjp(traj, q, *consts, w)
+    g_start, g_q = kernel.course_vjp(traj, stages, q, *consts, w)
     assert np.all(g_start[:, [0, 2]] == 0.0) and np.all(g_q[:, [0, 2]] == 0.0)
     assert np.abs(g_q[:, 1]).max() > 0.0
 
@@ -111,8 +112,8 @@ def test_op_gradient_passes_pytensor_verify_grad() -> None:
     # PyTensor perturbs every input by 1e-7 (one-sided): inputs as multiples of the subjects' values, so that is
     # a small relative step. One-sided differences are accurate to about 1e-4 here, hence 1e-3: this checks the
     # wiring (a wrong input order or cotangent is off by order 1); the precise check is the scipy test above
-    verify_grad(lambda s: op(s * start, q), [np.ones_like(start)], rng=rng, abs_tol=1e-3, rel_tol=1e-3)
-    verify_grad(lambda r: op(start, r * q), [np.ones_like(q)], rng=rng, abs_tol=1e-3, rel_tol=1e-3)
+    verify_grad(lambda s: op(s * start, q)[0], [np.ones_like(start)], rng=rng, abs_tol=1e-3, rel_tol=1e-3)
+    verify_grad(lambda r: op(start, r * q)[0], [np.ones_like(q)], rng=rng, abs_tol=1e-3, rel_tol=1e-3)
 
 
 @pytest.mark.slow
@@ -128,7 +129,7 @@ def test_numba_mode_calls_the_kernels_and_agrees_with_the_c_mode() -> None:
 
     _, start, q, (plan, dt, sat, inv_w) = _inputs(MIXED, 60.0, 10.0, 2.5)
     s, r = pt.dmatrix("s"), pt.dmatrix("r")
-    out = Course(plan, dt, tuple(sat), inv_w)(s, r)
+    out = Course(plan, dt, tuple(sat), inv_w)(s, r)[0]
     cost = (out ** 2).sum()
     outs = [out, *pytensor.grad(cost, [s, r])]
     with warnings.catch_warnings():

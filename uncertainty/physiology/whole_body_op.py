@@ -16,6 +16,7 @@ from typing import Any
 
 import numpy as np
 import pytensor.tensor as pt
+from pytensor.gradient import DisconnectedType
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
 from pytensor.link.numba.dispatch import basic as numba_basic
@@ -42,32 +43,40 @@ class _CourseBase(Op):
 
 
 class Course(_CourseBase):
-    """(start (state, n), quantities (rows, n)) -> the state after every step (steps + 1, state, n)."""
+    """(start (state, n), quantities (rows, n)) -> the state after every step (steps + 1, state, n) and the states
+    of each step's inner stages (n, steps, 3, state; read by the gradient only)."""
 
     def make_node(self, *inputs: Any) -> Apply:
         start, quantities = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
-        return Apply(self, [start, quantities], [pt.tensor3(dtype="float64")])
+        return Apply(self, [start, quantities], [pt.tensor3(dtype="float64"), pt.tensor4(dtype="float64")])
 
     def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
         start, q = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
-        outputs[0][0] = kernel.course(start, q, *self.constants())
+        outputs[0][0], outputs[1][0] = kernel.course(start, q, *self.constants())
 
-    def grad(self, inputs: Sequence[Any], output_grads: Sequence[Any]) -> list[Any]:
+    def L_op(self, inputs: Sequence[Any], outputs: Sequence[Any], output_grads: Sequence[Any]) -> list[Any]:
+        """The reverse pass over the steps; the stage states are not differentiable outputs."""
+        if not isinstance(output_grads[1].type, DisconnectedType):
+            raise NotImplementedError("the stage states of a Course are read by its gradient only")
         vjp = CourseVJP(np.array(self.plan), self.dt, self.sat, self.inv_w)
-        return list(vjp.make_node(self.make_node(*inputs).outputs[0], inputs[1], output_grads[0]).outputs)
+        return list(vjp(outputs[0], outputs[1], inputs[1], output_grads[0]))
+
+    def connection_pattern(self, node: Apply) -> list[list[bool]]:
+        """Both inputs feed the trajectory; the stage states are left out of differentiation."""
+        return [[True, False], [True, False]]
 
 
 class CourseVJP(_CourseBase):
-    """(:class:`Course`'s output, quantities, its cotangent) -> cotangents of start and quantities (the forward
-    pass is the first input, computed once for the log density and its gradient)."""
+    """(:class:`Course`'s two outputs, quantities, the trajectory's cotangent) -> cotangents of start and
+    quantities (the forward pass is computed once for the log density and its gradient)."""
 
     def make_node(self, *inputs: Any) -> Apply:
-        trajectory, quantities, g = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
-        return Apply(self, [trajectory, quantities, g], [pt.dmatrix(), quantities.type()])
+        trajectory, stages, quantities, g = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
+        return Apply(self, [trajectory, stages, quantities, g], [pt.dmatrix(), quantities.type()])
 
     def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
-        traj, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
-        g_start, g_q = kernel.course_vjp(traj, q, *self.constants(), g)
+        traj, stages, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
+        g_start, g_q = kernel.course_vjp(traj, stages, q, *self.constants(), g)
         outputs[0][0], outputs[1][0] = g_start, g_q
 
 
@@ -93,7 +102,7 @@ def compiled_steps(state: dict[str, Any], prepared: Any, plan: np.ndarray, dt: f
     like = sum(0.0 * pt.as_tensor_variable(v) for v in state.values())   # one shape (draws) for every row
     start = pt.stack([pt.as_tensor_variable(v) + like for v in state.values()])
     quantities = pt.stack([pt.as_tensor_variable(v) + like for v in rows])
-    return Course(plan, dt, tuple(b["sat"] for _, b in prepared.beds), inv_w)(start, quantities)
+    return Course(plan, dt, tuple(b["sat"] for _, b in prepared.beds), inv_w)(start, quantities)[0]
 
 
 @numba_basic.register_funcify_default_op_cache_key(Course)
@@ -102,7 +111,7 @@ def _numba_course(op: Course, **kwargs: Any) -> tuple[Any, int]:
     run = kernel.course
 
     @numba_basic.numba_njit
-    def course(start: np.ndarray, q: np.ndarray) -> np.ndarray:
+    def course(start: np.ndarray, q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         return run(np.ascontiguousarray(start), np.ascontiguousarray(q), plan, dt, sat, inv_w)
 
     return course, _SALT
@@ -114,8 +123,9 @@ def _numba_course_vjp(op: CourseVJP, **kwargs: Any) -> tuple[Any, int]:
     run = kernel.course_vjp
 
     @numba_basic.numba_njit
-    def course_vjp(traj: np.ndarray, q: np.ndarray, g: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return run(np.ascontiguousarray(traj), np.ascontiguousarray(q), plan, dt, sat, inv_w,
-                   np.ascontiguousarray(g))
+    def course_vjp(traj: np.ndarray, stages: np.ndarray, q: np.ndarray, g: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray]:
+        return run(np.ascontiguousarray(traj), np.ascontiguousarray(stages), np.ascontiguousarray(q), plan, dt, sat,
+                   inv_w, np.ascontiguousarray(g))
 
     return course_vjp, _SALT
