@@ -59,9 +59,9 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
     # 1e-5 relative)
     _, start, q, consts = _inputs(MIXED, 90.0, 10.0, 2.5, unsaturated)
     rng = np.random.default_rng(7)
-    traj, stages = kernel.course(start, q, *consts)
+    traj, records = kernel.course(start, q, *consts)
     w = rng.normal(size=traj.shape)
-    g_start, g_q = kernel.course_vjp(traj, stages, q, *consts, w)
+    g_start, g_q = kernel.course_vjp(records, q, *consts, w)
     checked = 0
     for which, x, g in (("start", start, g_start), ("quantities", q, g_q)):
         for row in range(x.shape[0]):
@@ -91,10 +91,10 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
 def test_each_subject_depends_on_its_own_inputs_only() -> None:
     # the columns are independent subjects: a cotangent on one subject's course gives zero gradient elsewhere
     _, start, q, consts = _inputs(MIXED, 60.0, 10.0, 2.5)
-    traj, stages = kernel.course(start, q, *consts)
+    traj, records = kernel.course(start, q, *consts)
     w = np.zeros(traj.shape)
     w[:, :, 1] = 1.0
-    g_start, g_q = kernel.course_vjp(traj, stages, q, *consts, w)
+    g_start, g_q = kernel.course_vjp(records, q, *consts, w)
     assert np.all(g_start[:, [0, 2]] == 0.0) and np.all(g_q[:, [0, 2]] == 0.0)
     assert np.abs(g_q[:, 1]).max() > 0.0
 

@@ -43,8 +43,8 @@ class _CourseBase(Op):
 
 
 class Course(_CourseBase):
-    """(start (state, n), quantities (rows, n)) -> the state after every step (steps + 1, state, n) and the states
-    of each step's inner stages (n, steps, 3, state; read by the gradient only)."""
+    """(start (state, n), quantities (rows, n)) -> the state after every step (steps + 1, state, n) and the terms
+    of each step's right-hand sides (n, steps, 4, record length; read by the gradient only)."""
 
     def make_node(self, *inputs: Any) -> Apply:
         start, quantities = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
@@ -55,28 +55,28 @@ class Course(_CourseBase):
         outputs[0][0], outputs[1][0] = kernel.course(start, q, *self.constants())
 
     def L_op(self, inputs: Sequence[Any], outputs: Sequence[Any], output_grads: Sequence[Any]) -> list[Any]:
-        """The reverse pass over the steps; the stage states are not differentiable outputs."""
+        """The reverse pass over the steps; the records are not differentiable outputs."""
         if not isinstance(output_grads[1].type, DisconnectedType):
-            raise NotImplementedError("the stage states of a Course are read by its gradient only")
+            raise NotImplementedError("the records of a Course are read by its gradient only")
         vjp = CourseVJP(np.array(self.plan), self.dt, self.sat, self.inv_w)
-        return list(vjp(outputs[0], outputs[1], inputs[1], output_grads[0]))
+        return list(vjp(outputs[1], inputs[1], output_grads[0]))
 
     def connection_pattern(self, node: Apply) -> list[list[bool]]:
-        """Both inputs feed the trajectory; the stage states are left out of differentiation."""
+        """Both inputs feed the trajectory; the records are left out of differentiation."""
         return [[True, False], [True, False]]
 
 
 class CourseVJP(_CourseBase):
-    """(:class:`Course`'s two outputs, quantities, the trajectory's cotangent) -> cotangents of start and
-    quantities (the forward pass is computed once for the log density and its gradient)."""
+    """(:class:`Course`'s records, quantities, the trajectory's cotangent) -> cotangents of start and quantities
+    (the forward pass is computed once for the log density and its gradient)."""
 
     def make_node(self, *inputs: Any) -> Apply:
-        trajectory, stages, quantities, g = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
-        return Apply(self, [trajectory, stages, quantities, g], [pt.dmatrix(), quantities.type()])
+        records, quantities, g = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
+        return Apply(self, [records, quantities, g], [pt.dmatrix(), quantities.type()])
 
     def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
-        traj, stages, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
-        g_start, g_q = kernel.course_vjp(traj, stages, q, *self.constants(), g)
+        records, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
+        g_start, g_q = kernel.course_vjp(records, q, *self.constants(), g)
         outputs[0][0], outputs[1][0] = g_start, g_q
 
 
@@ -123,9 +123,8 @@ def _numba_course_vjp(op: CourseVJP, **kwargs: Any) -> tuple[Any, int]:
     run = kernel.course_vjp
 
     @numba_basic.numba_njit
-    def course_vjp(traj: np.ndarray, stages: np.ndarray, q: np.ndarray, g: np.ndarray
-                   ) -> tuple[np.ndarray, np.ndarray]:
-        return run(np.ascontiguousarray(traj), np.ascontiguousarray(stages), np.ascontiguousarray(q), plan, dt, sat,
-                   inv_w, np.ascontiguousarray(g))
+    def course_vjp(records: np.ndarray, q: np.ndarray, g: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return run(np.ascontiguousarray(records), np.ascontiguousarray(q), plan, dt, sat, inv_w,
+                   np.ascontiguousarray(g))
 
     return course_vjp, _SALT
