@@ -398,22 +398,32 @@ def add_log_densities(built: Any, idata: Any) -> None:
     The values are those of ``pymc.compute_log_prior`` and ``pymc.compute_log_likelihood`` (untransformed
     values, no Jacobian), but from one log-density graph and one compiled function: each of those builds PyMC's
     log density of the whole model and compiles it again, which for the whole-body form cost about 15 s apiece.
-    A group already there is kept (nothing is computed when both are).
+    Each reading's recorded prediction (``{term}__pred``, in the trace) enters that graph as an input instead of
+    the model that computes it, so the graph holds the readings' and the priors' densities only (3-subject
+    whole-body model: 7.2 s -> 0.9 s, values equal to 1e-12). A group already there is kept (nothing is computed
+    when both are).
     """
     missing = [g for g in ("log_prior", "log_likelihood") if g not in idata.groups()]
     if not missing:
         return
+    import pytensor
+    import pytensor.tensor as pt
     from pymc.backends.arviz import apply_function_over_dataset, coords_and_dims_for_inferencedata
-    from pymc.model.transform.conditioning import remove_value_transforms
+    from pymc.model.transform.conditioning import do, remove_value_transforms
 
     umodel = remove_value_transforms(built.model)
+    preds = [v.name for v in umodel.deterministics if v.name.endswith("__pred") and v.name in idata.posterior]
+    if preds:   # the predictions as data (PyMC's do), then as inputs of the compiled function
+        umodel = do(umodel, {n: np.zeros(idata.posterior[n].shape[2:]) for n in preds})
     priors = [umodel.named_vars[name] for name in top_level(built.model)]
     observed = list(umodel.observed_RVs)
-    fn = umodel.compile_fn(inputs=umodel.value_vars, outs=umodel.logp(vars=priors + observed, sum=False),
-                           on_unused_input="ignore")
+    outs = umodel.logp(vars=priors + observed, sum=False)
+    inputs = {umodel[n]: pt.tensor(name=n, shape=(None,) * umodel[n].ndim, dtype="float64") for n in preds}
+    outs = pytensor.graph_replace(outs, inputs, strict=False)
+    fn = umodel.compile_fn(inputs=umodel.value_vars + list(inputs.values()), outs=outs, on_unused_input="ignore")
     coords, dims = coords_and_dims_for_inferencedata(umodel)
     names = [v.name for v in priors + observed]
-    both = apply_function_over_dataset(fn, idata.posterior[[rv.name for rv in umodel.free_RVs]],
+    both = apply_function_over_dataset(fn, idata.posterior[[rv.name for rv in umodel.free_RVs] + preds],
                                        output_var_names=names, sample_dims=("chain", "draw"), dims=dims,
                                        coords=coords, progressbar=False)
     groups = {"log_prior": both[names[:len(priors)]], "log_likelihood": both[names[len(priors):]]}
