@@ -276,7 +276,8 @@ def courses() -> dict[str, dict]:
     body, beds, Cp0 = params()
     runs = {"ringer": (dose("crystalloid", 25.0 * BODY_KG, 30.0), 120.0),
             "albumin_5": (dose("albumin_5", 1000.0, 30.0), 240.0),
-            "albumin_20": (dose("albumin_20", 100.0, 30.0), 240.0),
+            # the published protocol: 3 mL/kg of 20 % albumin over 30 min, followed for 5 h (sources at the checks)
+            "albumin_20": (dose("albumin_20", 3.0 * BODY_KG, 30.0), 300.0),
             "bleed": (dose("bleed", 450.0, 10.0), 360.0)}
     out = {}
     for name, (doses, end) in runs.items():
@@ -336,14 +337,29 @@ def test_colloid_stays_longer_than_crystalloid(courses) -> None:
 
 
 @pytest.mark.xfail(strict=True, reason=(
-    "known gap: the two beds give up only about 90 mL by 120 min, so the plasma expansion peaks near 156 mL "
-    "(1.56 x the infused volume), not >= 200 mL. Recruitment is opposed by the capillary pressure rise of the "
-    "expanded blood volume (vascular compliance from memory) and the model has no intracellular fluid, which "
-    "gave part of the 3.4 mL recruited per mL of 20% albumin in volunteers (Zdolsek M, Hahn RG, Zdolsek JH 2018 "
-    "Acta Anaesthesiol Scand 62:1255, summary read)"))
-def test_albumin_20_expands_plasma_several_times_its_volume(courses) -> None:
-    # common practice: 100 mL of 20% albumin expands plasma by several (3-4) times its volume; check >= 2x.
-    assert np.max(courses["albumin_20"]["plasma_volume_change"]) >= 200.0
+    "known gap: the typical subject's plasma expands by at most about 11 % (334 mL, 1.5 x the 219 mL infused, at "
+    "100 min), below the published mean's 95 % interval (12.4-19.8 %). The recruited fluid comes only from reversed "
+    "filtration in the two beds (about 120 mL by 2 h) while lymph flow falls slightly; in volunteers half to two "
+    "thirds of it was protein-carrying lymph (Zdolsek JH, Zdolsek M, Hahn RG, 'Recruitment of efferent lymph during "
+    "infusion of 20 % albumin', abstract read through the search tool; journal and year not read). The urine, "
+    "checked beside it, agrees"))
+def test_albumin_20_expands_plasma_about_twice_its_volume(courses) -> None:
+    # Zdolsek M, Sjoberg F, Hahn RG 2022 Intensive Care Med Exp 10:31 (abstract read through the search tool):
+    # 3 mL/kg of 20 % albumin over 30 min in 12 volunteers, largest plasma volume expansion 16.1 % +/- 6.5 % (mean
+    # +/- SD), so the mean's 95 % interval is 16.1 +/- 1.96 x 6.5 / sqrt(12) = 12.4-19.8 % of the plasma volume.
+    # Zdolsek M, Hahn RG, Sjoberg F, Zdolsek JH 2020 Crit Care 24:191 (abstract), the same dose in 15 volunteers:
+    # "almost 15 %, equivalent to twice the infused volume" (not the 3-4 times often quoted).
+    c = courses["albumin_20"]
+    peak = float(np.max(c["plasma_volume_change"])) / wb.body_parameters(BODY_KG)["Vp0"]
+    assert 0.124 <= peak <= 0.198
+
+
+def test_albumin_20_urine_over_five_hours(courses) -> None:
+    # Zdolsek M et al. 2020 Crit Care 24:191 (abstract, as above): over the 5 h after 3 mL/kg of 20 % albumin the
+    # urinary excretion exceeded the infused volume by a factor of 2.5 (and "almost three times" over 6 h, Zdolsek
+    # et al. 2022, above). No spread is given; band 2.0-3.0 x the infused volume (a judgement: 2.5 +/- 0.5).
+    c = courses["albumin_20"]
+    assert 2.0 * 3.0 * BODY_KG <= _at(c, "urine_volume", 300.0) <= 3.0 * 3.0 * BODY_KG
 
 
 def test_bleed_haemodilution_over_hours(courses) -> None:
