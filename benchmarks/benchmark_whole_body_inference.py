@@ -96,7 +96,7 @@ own kernels 7.5 s of it), so a first fit after installing stays above 5 minutes.
 1000)) the sampling alone is about 420 s. Leaving PyTensor's greedy distributor out of the rewrites (about 25 s
 less rewriting under load in the tenth session) gave no gain on the warm compile (51.8 s against 53.7 s) and was
 dropped. The cost per gradient is mostly the course (20 subjects, 48 steps of 3.75 min: 0.57 ms forward and
-1.23 ms reverse of 2.2 ms per log density and gradient).
+1.23 ms reverse of 2.2 ms per log density and gradient; see the thirteenth session below).
 
 Measured again 2026-12-05 (twelfth session, idle machine, load 0-0.9 at the start; every run compiled cold, the
 graph having changed or its cache key not matching). After the muscle r prior was calibrated to the forearm Pc (main
@@ -110,6 +110,19 @@ sampling 169.4 s), wall 349.3 s. With the 49 s warm compile of the eleventh sess
 a cold compile (140-230 s) keeps a first fit of a new dataset above 5 minutes. Turning PyTensor's elementwise
 fusion off made the cold compile longer (307 s) and each gradient slower (2.33 ms against 2.08); the rewritten
 graph has 597 nodes for 3 subjects and for 20 (it is vectorised over subjects).
+
+Measured again 2026-12-05 (thirteenth session, idle machine, load 0.3-0.7 at the start; ``--tune 300 --draws 800
+--target-accept 0.9``, the same invented data and the same draws every run: 0 divergences, 31 steps per draw,
+smallest bulk ESS 691, tail 859, gate passed). The kernel's forward pass now records the terms of every right-hand
+side, which its reverse pass reads instead of evaluating them again (20 subjects, 48 steps: forward 0.56 -> 0.65 ms,
+reverse 1.25 -> 0.43 ms at numba's level 3; 0.70 and 0.48 ms at the command line's level 1), and the power-scaling
+check takes each reading's recorded prediction from the trace (the checks after sampling 24 -> 12 s). Main afc8caa:
+with PyTensor's numba cache holding the whole function (a hit) **wall 195.4 s** (compile 44.7 s, sampling 123.3 s;
+210.1 s at 6244509, before the checks' change): **target met**; with the whole function's cache entries moved
+aside (a miss, as for a new design or an unmatched key; the nodes' entries warm) wall 315.9 s (compile 142.8 s,
+sampling 146.4 s, peak 3.5 GB): NOT met. Sampling took 123-127 s in the two hits and 146 s after the fresh compile
+(not explained; one run each). A first fit on a machine without any numba cache compiles for about 250 s
+(``compile_model`` with fresh cache folders: 253 s) and stays above 5 minutes.
 
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] (``--cap``: stop the child
