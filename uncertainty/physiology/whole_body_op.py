@@ -47,8 +47,20 @@ class Course(_CourseBase):
     of each step's right-hand sides (n, steps, 4, record length; read by the gradient only)."""
 
     def make_node(self, *inputs: Any) -> Apply:
+        """Outputs with the static lengths the Op knows (steps, state rows, record length), so that PyTensor's
+        shape arithmetic on them folds to constants (a reported slice ``[::per]`` of an output of unknown length
+        left broadcast checks whose operand order varied between processes, and with it the compile cache's key)."""
         start, quantities = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
-        return Apply(self, [start, quantities], [pt.tensor3(dtype="float64"), pt.tensor4(dtype="float64")])
+        ns, n = start.type.shape
+        steps, rec = len(self.plan), kernel.N_PLASMA_RECORD + kernel.N_BED_RECORD * len(self.sat)
+        return Apply(self, [start, quantities], [pt.tensor(dtype="float64", shape=(steps + 1, ns, n)),
+                                                 pt.tensor(dtype="float64", shape=(n, steps, 4, rec))])
+
+    def infer_shape(self, fgraph: Any, node: Apply, shapes: Sequence[Any]) -> list[tuple[Any, ...]]:
+        """(steps + 1, state, n) and (n, steps, 4, record length) from the start's shape (state, n)."""
+        ns, n = shapes[0]
+        steps, rec = len(self.plan), kernel.N_PLASMA_RECORD + kernel.N_BED_RECORD * len(self.sat)
+        return [(steps + 1, ns, n), (n, steps, 4, rec)]
 
     def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
         start, q = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
@@ -72,7 +84,12 @@ class CourseVJP(_CourseBase):
 
     def make_node(self, *inputs: Any) -> Apply:
         records, quantities, g = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
-        return Apply(self, [records, quantities, g], [pt.dmatrix(), quantities.type()])
+        return Apply(self, [records, quantities, g], [pt.tensor(dtype="float64", shape=g.type.shape[1:]),
+                                                      quantities.type()])
+
+    def infer_shape(self, fgraph: Any, node: Apply, shapes: Sequence[Any]) -> list[tuple[Any, ...]]:
+        """The start's shape (state, n) from the cotangent's, and the quantities' own."""
+        return [tuple(shapes[2][1:]), tuple(shapes[1])]
 
     def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
         records, q, g = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
