@@ -125,7 +125,7 @@ sampling 146.4 s, peak 3.5 GB): NOT met. Sampling took 123-127 s in the two hits
 (``compile_model`` with fresh cache folders: 253 s) and stays above 5 minutes.
 
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
-[--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] (``--cap``: stop the child
+[--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] [--seed N] (``--cap``: stop the child
 after this many seconds; its figures are then lower bounds.)
 """
 
@@ -247,8 +247,9 @@ sd = {HB_SD}                         # from memory: analyser repeatability
     return path, {k: np.asarray(v, dtype=float) for k, v in truth.items()}
 
 
-def child(n: int, samples: int, build_only: bool, settings: dict[str, object]) -> dict[str, object]:
-    """Load, build and (unless ``build_only``) infer the study in this interpreter; the figures as a dict."""
+def child(n: int, samples: int, build_only: bool, settings: dict[str, object], seed: int = 20) -> dict[str, object]:
+    """Load, build and (unless ``build_only``) infer the study (invented data of ``seed``) in this interpreter; the
+    figures as a dict."""
     import resource
 
     from uncertainty.analyses.inference.model_builder import build_model
@@ -258,7 +259,7 @@ def child(n: int, samples: int, build_only: bool, settings: dict[str, object]) -
 
     out: dict[str, object] = {"subjects": n, "samples": samples, "settings": settings}
     with tempfile.TemporaryDirectory() as tmp:
-        path, _ = write_study(Path(tmp), n, samples, settings=settings)
+        path, _ = write_study(Path(tmp), n, samples, seed=seed, settings=settings)
         t0 = time.perf_counter()
         study = load_study(path)
         out["load_s"] = time.perf_counter() - t0
@@ -308,13 +309,16 @@ def main() -> None:
     ap.add_argument("--tune", type=int, default=None, help="the study's [infer] warm-up steps per chain")
     ap.add_argument("--draws", type=int, default=None, help="the study's [infer] draws per chain")
     ap.add_argument("--target-accept", type=float, default=None, help="the study's [infer] target_accept")
+    ap.add_argument("--seed", type=int, default=20, help="seed of the invented subjects and readings (a new dataset "
+                    "of the same design: same subjects, times and dose)")
     ap.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.child:
         settings = {k: getattr(args, k) for k in SETTINGS if getattr(args, k) is not None}
-        print(json.dumps(child(args.subjects, args.samples, args.build_only, settings)))
+        print(json.dumps(child(args.subjects, args.samples, args.build_only, settings, args.seed)))
         return
-    cmd = [sys.executable, __file__, "--child", "--subjects", str(args.subjects), "--samples", str(args.samples)]
+    cmd = [sys.executable, __file__, "--child", "--subjects", str(args.subjects), "--samples", str(args.samples),
+           "--seed", str(args.seed)]
     cmd += ["--build-only"] if args.build_only else []
     for k in SETTINGS:
         cmd += [f"--{k.replace('_', '-')}", str(getattr(args, k))] if getattr(args, k) is not None else []
@@ -346,8 +350,8 @@ def main() -> None:
         f"sampling {row.get('sample_s', 0):.1f} s; {row.get('divergences', 0)} divergences, "
         f"{row.get('mean_leapfrog_steps', float('nan')):.0f} leapfrog steps per draw; smallest ESS bulk "
         f"{row.get('min_ess_bulk', float('nan')):.0f}, tail {row.get('min_ess_tail', float('nan')):.0f})")
-    print(f"{args.subjects} subjects x {args.samples} Hb, [infer] {row['settings'] or 'defaults'} "
-          f"(load average {load:.1f} at the start): "
+    print(f"{args.subjects} subjects x {args.samples} Hb (data seed {args.seed}), "
+          f"[infer] {row['settings'] or 'defaults'} (load average {load:.1f} at the start): "
           f"load "
           f"{row['load_s']:.2f} s, build {row['build_s']:.1f} s{infer}, wall {wall:.1f} s, "
           f"peak {row['peak_mb']:.0f} MB, {row['free_variables']} free variables{gate}")

@@ -138,3 +138,26 @@ def test_numba_mode_calls_the_kernels_and_agrees_with_the_c_mode() -> None:
     want = pytensor.function([s, r], outs)(start, q)
     for g, w in zip(got, want, strict=True):
         np.testing.assert_allclose(g, w, rtol=1e-13, atol=0)
+
+
+def test_op_declares_its_output_lengths_and_shapes() -> None:
+    # static lengths (steps + 1, state rows; records) on the outputs, and infer_shape equal to what perform returns
+    pytest.importorskip("pytensor")
+    import pytensor
+    import pytensor.tensor as pt
+
+    from uncertainty.physiology.whole_body_op import Course
+
+    _, start, q, (plan, dt, sat, inv_w) = _inputs(dose("crystalloid", 1000.0, 20.0), 40.0, 10.0, 5.0)
+    s = pt.tensor("s", shape=(start.shape[0], None))
+    r = pt.dmatrix("r")
+    traj, records = Course(plan, dt, tuple(sat), inv_w)(s, r)
+    steps = plan.shape[0]
+    assert traj.type.shape == (steps + 1, start.shape[0], None)
+    assert records.type.shape == (None, steps, 4, kernel.N_PLASMA_RECORD + kernel.N_BED_RECORD * len(sat))
+    # the shapes PyTensor infers (the outputs' shape graphs, rewritten without running the Op) against the values
+    shapes = pytensor.function([s, r], [traj.shape, records.shape])
+    assert not any(isinstance(n.op, Course) for n in shapes.maker.fgraph.apply_nodes)
+    got = shapes(start, q)
+    want = kernel.course(start, q, plan, dt, sat, inv_w)
+    assert [tuple(g) for g in got] == [w.shape for w in want]
