@@ -65,7 +65,10 @@ def add_reading(name: str, predicted: Any, value: Any, *, sd: float | None = Non
         s = log_sd_from_cv(cv)
         mu = pt.log(pt.maximum(predicted, 1e-300))
         return pm.LogNormal(name, mu=mu, sigma=s, observed=data, shape=data.shape)
-    return pm.Normal(name, mu=predicted, sigma=sd, observed=data, shape=data.shape)
+    # one sd per reading (e.g. of a ratio to the subject's first reading, which scales with the readings) is data
+    # too, so that a new dataset of the same design leaves the compiled log density's cache key unchanged
+    sigma = pm.Data(f"{name}__sd", np.asarray(sd, dtype=float)) if np.ndim(sd) > 0 else sd
+    return pm.Normal(name, mu=predicted, sigma=sigma, observed=data, shape=data.shape)
 
 
 def check_positive_value(obs: Observation) -> None:
