@@ -51,16 +51,17 @@ class Course(_CourseBase):
         shape arithmetic on them folds to constants (a reported slice ``[::per]`` of an output of unknown length
         left broadcast checks whose operand order varied between processes, and with it the compile cache's key)."""
         start, quantities = (pt.as_tensor_variable(x, dtype="float64") for x in inputs)
-        ns, n = start.type.shape
-        steps, rec = len(self.plan), kernel.N_PLASMA_RECORD + kernel.N_BED_RECORD * len(self.sat)
-        return Apply(self, [start, quantities], [pt.tensor(dtype="float64", shape=(steps + 1, ns, n)),
-                                                 pt.tensor(dtype="float64", shape=(n, steps, 4, rec))])
+        return Apply(self, [start, quantities], [pt.tensor(dtype="float64", shape=s)
+                                                 for s in self._shapes(*start.type.shape)])
 
-    def infer_shape(self, fgraph: Any, node: Apply, shapes: Sequence[Any]) -> list[tuple[Any, ...]]:
-        """(steps + 1, state, n) and (n, steps, 4, record length) from the start's shape (state, n)."""
-        ns, n = shapes[0]
+    def _shapes(self, ns: Any, n: Any) -> list[tuple[Any, ...]]:
+        """The outputs' shapes, (steps + 1, state, n) and (n, steps, 4, record length), for a start (state, n)."""
         steps, rec = len(self.plan), kernel.N_PLASMA_RECORD + kernel.N_BED_RECORD * len(self.sat)
         return [(steps + 1, ns, n), (n, steps, 4, rec)]
+
+    def infer_shape(self, fgraph: Any, node: Apply, shapes: Sequence[Any]) -> list[tuple[Any, ...]]:
+        """The outputs' shapes from the start's (state, n)."""
+        return self._shapes(*shapes[0])
 
     def perform(self, node: Apply, inputs: Sequence[Any], outputs: Any) -> None:
         start, q = (np.ascontiguousarray(x, dtype=np.float64) for x in inputs)
