@@ -72,7 +72,7 @@ class Course(_CourseBase):
         if not isinstance(output_grads[1].type, DisconnectedType):
             raise NotImplementedError("the records of a Course are read by its gradient only")
         vjp = CourseVJP(np.array(self.plan), self.dt, self.sat, self.inv_w)
-        return list(vjp(outputs[1], inputs[1], output_grads[0]))
+        return list(vjp.make_node(outputs[1], inputs[1], output_grads[0]).outputs)
 
     def connection_pattern(self, node: Apply) -> list[list[bool]]:
         """Both inputs feed the trajectory; the records are left out of differentiation."""
@@ -120,7 +120,7 @@ def compiled_steps(state: dict[str, Any], prepared: Any, plan: np.ndarray, dt: f
     like = sum(0.0 * pt.as_tensor_variable(v) for v in state.values())   # one shape (draws) for every row
     start = pt.stack([pt.as_tensor_variable(v) + like for v in state.values()])
     quantities = pt.stack([pt.as_tensor_variable(v) + like for v in rows])
-    return Course(plan, dt, tuple(b["sat"] for _, b in prepared.beds), inv_w)(start, quantities)[0]
+    return Course(plan, dt, tuple(b["sat"] for _, b in prepared.beds), inv_w).make_node(start, quantities).outputs[0]
 
 
 @numba_basic.register_funcify_default_op_cache_key(Course)
