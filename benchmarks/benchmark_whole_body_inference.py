@@ -117,8 +117,8 @@ smallest bulk ESS 691, tail 859, gate passed). The kernel's forward pass now rec
 side, which its reverse pass reads instead of evaluating them again (20 subjects, 48 steps: forward 0.56 -> 0.65 ms,
 reverse 1.25 -> 0.43 ms at numba's level 3; 0.70 and 0.48 ms at the command line's level 1), and the power-scaling
 check takes each reading's recorded prediction from the trace (infer beyond compile and sampling 24 -> 14 s). Main
-afc8caa: with PyTensor's numba cache holding the whole function (a hit) **wall 195.4 s** (compile 44.7 s, sampling 123.3 s;
-210.1 s at 6244509, before the checks' change): **target met**; with the whole function's cache entries moved
+afc8caa: with PyTensor's numba cache holding the whole function (a hit) **wall 195.4 s** (compile 44.7 s, sampling
+123.3 s; 210.1 s at 6244509, before the checks' change): **target met**; with the whole function's cache entries moved
 aside (a miss, as for a new design or an unmatched key; the nodes' entries warm) wall 315.9 s (compile 142.8 s,
 sampling 146.4 s, peak 3.5 GB): NOT met. Sampling took 123-127 s in the two hits and 146 s after the fresh compile
 (not explained; one run each). A first fit on a machine without any numba cache compiles for about 250 s
