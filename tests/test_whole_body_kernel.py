@@ -161,3 +161,21 @@ def test_op_declares_its_output_lengths_and_shapes() -> None:
     got = shapes(start, q)
     want = kernel.course(start, q, plan, dt, sat, inv_w)
     assert [tuple(g) for g in got] == [w.shape for w in want]
+
+
+def test_the_records_are_declared_not_differentiable() -> None:
+    # the records feed the reverse pass only: PyTensor is told they do not depend on the inputs, so a gradient of
+    # them alone is refused (DisconnectedInputError), while the trajectory's is taken
+    pytest.importorskip("pytensor")
+    import pytensor
+    import pytensor.tensor as pt
+    from pytensor.gradient import DisconnectedInputError
+
+    from uncertainty.physiology.whole_body_op import Course
+
+    _, _, _, (plan, dt, sat, inv_w) = _inputs(dose("crystalloid", 1000.0, 20.0), 40.0, 10.0, 5.0)
+    s, r = pt.dmatrix("s"), pt.dmatrix("r")
+    traj, records = Course(plan, dt, tuple(sat), inv_w)(s, r)
+    assert pytensor.grad(traj.sum(), s) is not None
+    with pytest.raises(DisconnectedInputError):
+        pytensor.grad(records.sum(), s)
