@@ -95,3 +95,37 @@ def test_model_builds_with_one_term(tmp_path: Path) -> None:
     built = build_model(problem_from_study(Study.from_dict(_doc(), base_dir=tmp_path)), structure_only=True)
     assert len(built.terms) == 1
     assert built.terms[0].label == "haemoglobin relative to the first reading"
+
+
+def _records(tmp: Path, file: str, sd: float) -> list:
+    """The observation records of the study with readings ``file`` (as loaded: rows read from the file)."""
+    return list(Study.from_dict(_doc({"kind": "haemoglobin", "file": file, "sd": sd, "unit": "g/dL"}),
+                                base_dir=tmp).observations)
+
+
+@pytest.mark.slow
+def test_a_sessions_refit_data_are_the_ratios_the_term_fits(tmp_path: Path) -> None:
+    # Session.fit(observations=...) takes new records; their data must be what the term fits (each subject's
+    # readings over its first, with the delta-method sd), not the raw g/dL. The pymc sampler needs no compile.
+    from uncertainty.analyses.inference.api import Session
+
+    _write(tmp_path, ROWS)
+    session = Session(Study.from_dict(_doc(), base_dir=tmp_path), sampler="pymc")
+    (name,) = session.terms
+    # invented new readings: subject A at half, B at two thirds of the first file's baseline, same ratios
+    (tmp_path / "hb_new.csv").write_text("subject,time_min,value\nA,0,7.0\nA,30,6.3\nA,60,6.65\n"
+                                         "B,0,10.0\nB,45,9.0\nC,20,14.1\n")
+    data = session.data_from(_records(tmp_path, "hb_new.csv", 0.1))
+    assert set(data) == {f"{name}__data", f"{name}__sd"}
+    np.testing.assert_allclose(data[f"{name}__data"], [0.9, 0.95, 0.9])
+    # the delta method's sd (closed form, as in test_readings_become_ratios_to_each_subjects_first)
+    y, ref = np.array([0.9, 0.95, 0.9]), np.array([7.0, 7.0, 10.0])
+    np.testing.assert_allclose(data[f"{name}__sd"], np.sqrt(0.1**2 + (y * 0.1) ** 2) / ref)
+    # the session's own records give back the data it was built with
+    own = session.data_from(_records(tmp_path, "hb.csv", 0.2))
+    np.testing.assert_allclose(own[f"{name}__data"], session.built.model[f"{name}__data"].get_value())
+    # another design (one reading fewer) is refused, naming the term
+    (tmp_path / "hb_short.csv").write_text("subject,time_min,value\nA,0,14.0\nA,30,12.6\nB,0,15.0\nB,45,13.5\n")
+    with pytest.raises(InputError) as err:
+        session.data_from(_records(tmp_path, "hb_short.csv", 0.2))
+    assert err.value.key == "observations" and err.value.value == name

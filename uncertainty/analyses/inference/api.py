@@ -8,6 +8,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from typing import Any
 
@@ -42,9 +43,6 @@ STARTS = ("auto", "mode", "prior")
 def _problem(study: Any, observations: Sequence[Any] | None, model: str | None) -> Problem:
     if isinstance(study, Problem):
         if observations is not None:
-            import dataclasses
-
-
             return dataclasses.replace(study, observations=normalise_observations(
                 observations, file=study.file, density=study.density, tissue_mass_kg=study.tissue_mass_kg))
         return study
@@ -524,17 +522,35 @@ class Session:
         return [t.name for t in self.built.terms]
 
     def data_from(self, observations: Sequence[Any]) -> dict[str, np.ndarray]:
-        """Data arrays (canonical units) for each term from study-form observation records."""
+        """The model's data for new study-form observation records: each term's readings as the term fits them
+        (canonical units; for the kinds fitted relative to each subject's first reading, the ratios or changes)
+        under ``{term}__data`` and, where the term has one per reading, their sds under ``{term}__sd``.
 
+        The records are built into the model again (no compile) and its data read from there, so every kind
+        turns its readings into data in one place (the kind's own ``add``).
+
+        Raises
+        ------
+        InputError
+            Not as many observations as the session was built with, or a term whose readings differ in number
+            from the session's (a new design needs a new session).
+        """
         obs = normalise_observations(observations, file=self.problem.file, density=self.problem.density,
                                      tissue_mass_kg=self.problem.tissue_mass_kg)
         if len(obs) != len(self.problem.observations):
             raise InputError("a refit needs as many observations as the session was built with",
                              key="observations", value=len(obs))
+        rebuilt = build_model(dataclasses.replace(self.problem, observations=obs)).model
         data = {}
         for term in self.built.terms:
-            new = obs[term.observation.index]
-            data[f"{term.name}__data"] = np.asarray(new.values, dtype=float)
+            for key in (f"{term.name}__data", f"{term.name}__sd"):
+                if key not in self.built.model.named_vars:
+                    continue   # a single sd for all readings is a constant of the model
+                value = np.asarray(rebuilt[key].get_value(), dtype=float) if key in rebuilt.named_vars else None
+                if value is None or value.shape != np.shape(self.built.model[key].get_value()):
+                    raise InputError("a refit needs the readings of the session's design (as many per term); "
+                                     "build a new Session for another design", key="observations", value=term.name)
+                data[key] = value
         return data
 
     def fit(self, *, observations: Sequence[Any] | None = None, data: dict[str, Any] | None = None,
@@ -546,7 +562,7 @@ class Session:
         if observations is not None:
             data = self.data_from(observations)
         elif data is not None:
-            data = {(k if k.endswith("__data") else f"{k}__data"): np.asarray(v, dtype=float)
+            data = {(k if k.endswith(("__data", "__sd")) else f"{k}__data"): np.asarray(v, dtype=float)
                     for k, v in data.items()}
         run = sample(self.built.model, sampler=self.sampler, chains=chains, draws=draws, tune=tune,
                      seed=seed, compiled=self.compiled, data=data, target_accept=target_accept, cores=cores)
