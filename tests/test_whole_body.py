@@ -470,7 +470,11 @@ def test_shipped_bleed_study_refills_over_hours() -> None:
     "sourced forces filters far more than the limbs' lymph returns, validation row "
     "skeletal_muscle.Jv_L_per_day.rest_lymph), lymph saturates at rest and Pi climbs until filtration falls to "
     "JL_max (first-order shares of the event: JL_max 0.15, Pv 0.11, PS 0.11, r 0.04). The divergent transitions of "
-    "a small invented haemoglobin cohort sat in these resting states"))
+    "a small invented haemoglobin cohort sat in these resting states. Exchange across the glycocalyx (the revised "
+    "form's pi_g in each bed) is no cure: with one exchange pathway the resting interstitial protein is the "
+    "filtrate's, so pi_i = pi_g and the resting state is the same (tried 2026-12-05, a numpy prototype: rest "
+    "identical; Ringer's retained at 15 min 0.73 -> 0.79, the 20 % albumin expansion 11.3 -> 8.1 %, both further "
+    "from their sources)"))
 def test_healthy_resting_muscle_pressure_has_the_measured_spread() -> None:
     # Scand J Clin Lab Invest 1990, pages 331-336 (abstract; authors not confirmed; the muscle Pi prior's and the
     # validation row skeletal_muscle.Pi.calf's source): wick-in-needle Pi in deep calf muscle -1.2 (SD 3.4) mmHg
