@@ -28,6 +28,7 @@ from uncertainty.analyses.inference.summaries import CONFOUNDED_CORRELATION, PRI
 from uncertainty.analyses.inference.worker_chains import sample_on_workers
 from uncertainty.core import units
 from uncertainty.core.errors import InputError, QualityGateError
+from uncertainty.core.stage import stage
 from uncertainty.forms.catalogue import note_outputs, output_notes
 from uncertainty.study import InferSection
 
@@ -78,12 +79,14 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     else:
         run = sample_on_workers(executor, problem, sampler=sampler, chains=chains, draws=draws, tune=tune,
                                 target_accept=target_accept, seed=seed, start=mode)
-    result = summarise_run(built, run, Gate.coerce(gate), seed=seed, sensitivity=sensitivity)
+    with stage(progress, "summarising the draws" + (" and running the model checks" if checks else ""),
+               "summarised the draws" + (" and ran the model checks" if checks else "")):
+        result = summarise_run(built, run, Gate.coerce(gate), seed=seed, sensitivity=sensitivity)
+        if checks:
+            result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
     if mode is not None:
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
                                    "with uniform jitter of +/-1 on the unconstrained scale")
-    if checks:
-        result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
     return result
 
 

@@ -13,6 +13,7 @@ import weakref
 from typing import Any
 
 from uncertainty.core.errors import FluidshiftError
+from uncertainty.core.stage import stage
 
 SAMPLERS = ("nutpie", "pymc")
 
@@ -316,7 +317,10 @@ def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int =
         import nutpie
 
         if compiled is None:
-            compiled, compile_s = compile_model(model, "nutpie")
+            with stage(progress, "compiling the log density and its gradient (the first fit of a study design on "
+                       "this machine takes minutes; a later fit of the same design reuses the compiled code)",
+                       "compiled the log density and its gradient"):
+                compiled, compile_s = compile_model(model, "nutpie")
         run_model = compiled.with_data(**data) if data else compiled
         if start is not None:
             run_model = dataclasses.replace(run_model, initial_point_func=_jittered_start(model, start))
