@@ -317,9 +317,9 @@ def sample(model: Any, *, sampler: str = "nutpie", chains: int = 4, draws: int =
         import nutpie
 
         if compiled is None:
-            with stage(progress, "compiling the log density and its gradient (the first fit of a study design on "
-                       "this machine takes minutes; a later fit of the same design reuses the compiled code)",
-                       "compiled the log density and its gradient"):
+            # (short enough for the spinner and the elapsed time on an 80-column terminal; a design's first fit
+            # on a machine compiles for minutes, a later fit of the same design finds it in the disk cache)
+            with stage(progress, "compiling the model (a new design takes minutes)", "compiled the model"):
                 compiled, compile_s = compile_model(model, "nutpie")
         run_model = compiled.with_data(**data) if data else compiled
         if start is not None:
