@@ -134,6 +134,17 @@ data like the readings (9abaa3d): first fit of the new graph wall 295.2 s (compi
 bulk ESS >= 1227). So the 5-minute target holds for every fit of a design after the first; the first fit of a design
 sits at 295-317 s (misses, four runs), and a first fit on a machine without any cache near 400 s.
 
+Where a first fit's compile goes, measured 2026-12-05 (fourteenth session) on a fresh machine (nothing cached, idle),
+20 subjects x 10 Hb, nutpie's ``compile_pymc_model`` timed in phases in one interpreter with an empty PyTensor cache
+folder: PyTensor's graph rewrites of the log density, its gradient and the free variables' function 25.7 s; numba's
+compile of the log density and gradient (nutpie's ``numba.cfunc`` around PyTensor's whole-graph function) 192.9 s;
+the free variables' function 1.2 s; in all 220.5 s (1.5 ms per log density and gradient after). The same again (a
+hit): 25.7 + 16.0 + 0.4 s. numba's compile events, cold: the whole-graph function 141 s inside the 152 s of its
+Python-callable wrapper (and nutpie's cfunc around that a further 14 s: numba optimises the linked module at each
+level); the largest single node inside, a fused elementwise loop, 13 s. At ``NUMBA_OPT=0`` the cold compile was still
+running after 9 minutes (stopped; as in the seventh session, unoptimised code is slower to generate). So what a first
+fit of a design pays beyond a later one is numba optimising one large function, not any one node.
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] [--seed N] (``--cap``: stop the child
 after this many seconds; its figures are then lower bounds.)
