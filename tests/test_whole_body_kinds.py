@@ -388,7 +388,7 @@ def test_the_figure_draws_every_series_of_a_chart(tmp_path: Path, monkeypatch: p
 
 
 def _series_of_lines(obs: dict) -> list[str]:
-    """The series of each marker line ``figure._observed`` draws, in drawing order (series, then subject)."""
+    """The series of each marker line ``figure.draw_observed`` draws, in drawing order (series, then subject)."""
     out = []
     for s in dict.fromkeys(obs["series"]):
         out += [s] * len(dict.fromkeys(x for x, z in zip(obs["subjects"], obs["series"], strict=True) if z == s))

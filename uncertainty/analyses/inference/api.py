@@ -21,6 +21,7 @@ from uncertainty.analyses.inference.diagnostics import Gate, contraction_note, d
 from uncertainty.analyses.inference.model_builder import BuiltModel, apply_layer, build_model, is_positive, spread_ratio
 from uncertainty.analyses.inference.observations import kind_module
 from uncertainty.analyses.inference.posterior_sensitivity import posterior_sensitivity
+from uncertainty.analyses.inference.posterior_timeline import posterior_timeline
 from uncertainty.analyses.inference.problem import Problem, normalise_observations, problem_from_study
 from uncertainty.analyses.inference.result import InferenceResult
 from uncertainty.analyses.inference.samplers import SampleRun, compile_model, posterior_mode, sample
@@ -82,12 +83,25 @@ def fit(study: Any, observations: Sequence[Any] | None = None, *, sampler: str =
     with stage(progress, "summarising the draws" + (" and running the model checks" if checks else ""),
                "summarised the draws" + (" and ran the model checks" if checks else "")):
         result = summarise_run(built, run, Gate.coerce(gate), seed=seed, sensitivity=sensitivity)
+        _add_timeline(result, built)
         if checks:
             result.doc["checks"] = checks_mod.run_checks(built, result.idata, seed=seed)
     if mode is not None:
         result.doc["notes"].append(f"chains started around the posterior mode (found in {mode_seconds:.1f} s), "
                                    "with uniform jitter of +/-1 on the unconstrained scale")
     return result
+
+
+def _add_timeline(result: InferenceResult, built: BuiltModel) -> None:
+    """The posterior time courses of a ``whole_body`` study into ``result.doc["timeline"]`` (nothing for another
+    form; a failure is noted, never loses the fit)."""
+    try:
+        tl = posterior_timeline(built, result.idata)
+    except Exception as exc:  # noqa: BLE001 - a summary; a failure must not lose the fit
+        result.doc["notes"].append(f"posterior time courses not computed: {type(exc).__name__}: {exc}")
+        return
+    if tl is not None:
+        result.doc["timeline"] = tl
 
 
 def check_model(study: Any) -> dict[str, Any]:

@@ -1,5 +1,6 @@
 """Figures of an inference result: prior vs posterior per quantity, Jv interval per subject,
-posterior predictive overlay on limb-volume time courses. matplotlib is imported here only."""
+posterior predictive overlay on limb-volume time courses, and the posterior time courses of a whole-body study
+(fan charts with the readings). matplotlib is imported here only."""
 
 from __future__ import annotations
 
@@ -8,6 +9,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.summaries import flat
+from uncertainty.analyses.propagate.figure import plot_timeline
 from uncertainty.core.plotting import pyplot, save_figure
 
 
@@ -96,6 +98,63 @@ def curves_overlay(result: Any, out_dir: str) -> list[str]:
     return paths
 
 
+#: Subjects drawn in the per-subject figure of a posterior time course (the first ones; every subject is in the JSON)
+TIMELINE_SUBJECTS_SHOWN = 24
+
+
+def timeline_fans(result: Any, out_dir: str) -> list[str]:
+    """The posterior time courses of a ``whole_body`` study (``doc["timeline"]``): fan charts of every course for the
+    typical subject (or the study's individual) with all readings on their courses; and, for each course with
+    readings, one panel per subject with that subject's band and readings."""
+    tl = result.doc.get("timeline")
+    if not tl:
+        return []
+    layer = "typical" if "typical" in tl else "individual"
+    who = "the typical subject" if layer == "typical" else "the study's individual"
+    paths = plot_timeline(tl, out_dir, layer=layer, stem="inference_timeline",
+                          title=f"posterior time courses of {who} (median and 95% interval of the course; reading "
+                                "error not included)")
+    plt = pyplot()
+    t = np.asarray(tl["times_min"], dtype=float)
+    for name, obs in (tl.get("observed") or {}).items():
+        subjects = [s for s in (tl.get("subjects") or {}) if s in set(obs.get("subjects") or [])]
+        subjects = subjects[:TIMELINE_SUBJECTS_SHOWN]
+        if not subjects:
+            continue
+        cols = min(4, len(subjects))
+        rows = -(-len(subjects) // cols)
+        fig, axes = plt.subplots(rows, cols, figsize=(3.0 * cols, 2.3 * rows), squeeze=False, sharex=True,
+                                 sharey=True)
+        for ax, sid in zip(axes.ravel(), subjects, strict=False):
+            band = tl["subjects"][sid][name]
+            med = np.array([np.nan if m is None else m for m in band["median"]], dtype=float)
+            ci = np.array([[np.nan if x is None else x for x in pair] for pair in band["ci95"]], dtype=float)
+            ax.fill_between(t, ci[:, 0], ci[:, 1], color="#3b6ea5", alpha=0.25, lw=0)
+            ax.plot(t, med, color="#3b6ea5", lw=1.2)
+            mine = [k for k, s in enumerate(obs["subjects"]) if s == sid]
+            ax.plot([obs["times_min"][k] for k in mine], [obs["values"][k] for k in mine], "o", color="#222222",
+                    ms=3)
+            ax.set_title(sid, fontsize=8)
+            ax.tick_params(labelsize=7)
+        for ax in axes.ravel()[len(subjects):]:
+            ax.axis("off")
+        unit = tl["units"].get(name, "")
+        fig.suptitle(f"{name}: each subject's posterior course (median, 95% interval; reading error not included)"
+                     + (f" ({_obs_legend(obs)})" if _obs_legend(obs) else ""), fontsize=9)
+        fig.supxlabel("time (min)", fontsize=8)
+        fig.supylabel(f"{name} ({unit})" if unit and unit != "1" else name, fontsize=8)
+        fig.tight_layout()
+        paths += save_figure(fig, out_dir, f"inference_timeline_subjects_{name}")
+    return paths
+
+
+def _obs_legend(obs: dict[str, Any]) -> str:
+    """How the readings on a course are shown: over or minus each subject's first reading, or "" as read."""
+    return ("over each subject's first reading" if obs.get("relative_to_first") else
+            "minus each subject's first reading" if obs.get("change_from_first") else "")
+
+
 def plot_all(result: Any, out_dir: str) -> list[str]:
     """Every inference figure (PNG and SVG) under ``out_dir``; returns the paths."""
-    return prior_vs_posterior(result, out_dir) + jv_by_subject(result, out_dir) + curves_overlay(result, out_dir)
+    return (prior_vs_posterior(result, out_dir) + jv_by_subject(result, out_dir) + curves_overlay(result, out_dir)
+            + timeline_fans(result, out_dir))

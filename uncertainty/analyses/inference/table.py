@@ -20,6 +20,40 @@ def _ci(block: dict[str, Any], key: str = "ci95") -> str:
     return f"[{_fmt(lo)}, {_fmt(hi)}]"
 
 
+#: Times (min) the posterior time courses are printed at, where the study reports them (its end always).
+TIMELINE_PRINT_MIN = (30.0, 60.0, 120.0, 240.0)
+#: The time courses printed: the share of the intervention's volume in the plasma, and the plasma volume change.
+TIMELINE_PRINTED = ("infused_retained_fraction", "plasma_volume_change")
+
+
+def timeline_text(doc: dict[str, Any]) -> str:
+    """The posterior time courses of a ``whole_body`` study (``doc["timeline"]``) as text: for each printed course
+    a row per level (typical subject, then each subject; or the study's individual) and a column per printed time,
+    median [95 % interval]; "" without a timeline."""
+    tl = doc.get("timeline")
+    if not tl:
+        return ""
+    times = list(tl["times_min"])
+    at = [times.index(t) for t in (*TIMELINE_PRINT_MIN, times[-1]) if t in times]
+    at = sorted(set(at))
+    rows = ([("typical", tl["typical"])] + list(tl["subjects"].items())) if "subjects" in tl else \
+        [("individual", tl["individual"])]
+    width = max(len(r[0]) for r in rows) + 2
+    lines = [f"where the volume is over time (posterior median [95% interval], {tl['draws']} draws per subject)",
+             "(infused_retained_fraction: the share of the infused volume in the plasma; after a bleed, of the plasma "
+             "lost still missing)"]
+    for name in TIMELINE_PRINTED:
+        unit = tl["units"].get(name, "")
+        head = f"{name + (f' ({unit})' if unit and unit != '1' else ''):<{width + 2}}" + "".join(
+            f"{f'{times[i]:g} min':>26}" for i in at)
+        lines += ["", head]
+        for label, block in rows:
+            band = block[name]
+            cells = [f"{_fmt(band['median'][i])} [{_fmt(band['ci95'][i][0])}, {_fmt(band['ci95'][i][1])}]" for i in at]
+            lines.append(f"  {label:<{width}}" + "".join(f"{c:>26}" for c in cells))
+    return "\n".join(lines)
+
+
 def table(doc: dict[str, Any]) -> str:
     """Plain-text summary of an inference result document.
 
@@ -63,6 +97,9 @@ def table(doc: dict[str, Any]) -> str:
     sens = posterior_sensitivity.text(doc)
     if sens:
         lines += ["", sens]
+    course = timeline_text(doc)
+    if course:
+        lines += ["", course]
     d = doc["diagnostics"]
     lines.append("")
     lines += [f"sampler check: {line}" for line in describe(d)]

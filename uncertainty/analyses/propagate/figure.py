@@ -47,13 +47,15 @@ def plot_distribution(result: Any, out_dir: str, output: str = "Jv") -> list[str
     return save_figure(fig, out_dir, f"propagate_{output}")
 
 
-def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> list[str]:
+def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical",
+                  stem: str = "propagate_timeline", title: str | None = None) -> list[str]:
     """Fan charts of a ``whole_body`` timeline: for each reported time course the median line and the 95%
     band over time (min) for the typical subject (``layer``), units as ``tl["units"]``; the interventions are
     shaded. Observed points are drawn when ``tl["observed"]`` maps a name to ``{"times_min", "values"}`` (optional
     ``subjects``: one marker line per subject; ``series`` and ``legends``: one colour and legend entry per series,
     saying how it is shown; without them ``relative_to_first`` / ``change_from_first``: readings over / minus each
-    subject's first, said in the legend). PNG and SVG paths."""
+    subject's first, said in the legend). ``title`` above the panels when given. PNG and SVG paths, named
+    ``stem``."""
     plt = pyplot()
     names = list((tl.get(layer) or {}).keys())
     t = np.asarray(tl.get("times_min") or [], dtype=float)
@@ -72,15 +74,17 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical") -> l
             ax.axvspan(a, b, color="#dd3333" if iv["kind"] == "bleed" else "#3b6ea5", alpha=0.08, lw=0)
         obs = (tl.get("observed") or {}).get(name)
         if obs:
-            _observed(ax, obs)
+            draw_observed(ax, obs)
         unit = (tl.get("units") or {}).get(name, "")
         ax.set_title(f"{name} ({unit})" if unit and unit != "1" else name, fontsize=9)
         ax.set_xlabel("time (min)", fontsize=8)
         ax.spines[["top", "right"]].set_visible(False)
     for ax in axes.ravel()[len(names):]:
         ax.set_visible(False)
+    if title:
+        fig.suptitle(title, fontsize=10)
     fig.tight_layout()
-    return save_figure(fig, out_dir, "propagate_timeline")
+    return save_figure(fig, out_dir, stem)
 
 
 #: Marker cycle for the subjects of observed points.
@@ -89,7 +93,7 @@ _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "*")
 _SERIES_COLOURS = (STYLE["interval"], "#6a3d9a", "#1b7837", "#b2182b")
 
 
-def _observed(ax: Any, obs: dict[str, Any]) -> None:
+def draw_observed(ax: Any, obs: dict[str, Any]) -> None:
     """Observed points on one fan chart: each subject's readings of one series (an observation kind, urine flows
     apart) joined by a thin line, a marker per subject (the first ten subjects get their own marker, the rest share
     them; a subject keeps its marker across series) and a colour per series; the legend says how each series is

@@ -171,7 +171,9 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
     return {k: v for k, v in out.items() if v["times_min"]}
 
 
-def _summary(series: list[np.ndarray]) -> dict[str, list[Any]]:
+def band_over_time(series: list[np.ndarray]) -> dict[str, list[Any]]:
+    """Median and equal-tailed 95 % interval over the draws at each report time (``series``: one array of draws per
+    time, the course's unit): ``median`` list and ``ci95`` list of [low, high] (None where no draw is finite)."""
     med, ci = [], []
     for y in series:
         y = np.asarray(y, dtype=float)
@@ -221,10 +223,11 @@ class _Layer:
 
     def __call__(self, layer: str, ss: Any = None) -> dict[str, Any]:
         sim = run_layer(self.study, layer, self.n, self.seed)
-        return {"times_min": list(sim["times_min"]), "summary": {name: _summary(sim[name]) for name in TIMELINE_UNITS}}
+        return {"times_min": list(sim["times_min"]),
+                "summary": {name: band_over_time(sim[name]) for name in TIMELINE_UNITS}}
 
 
-def _courses(study: Any, values: dict[str, Any], end: float, every: float) -> dict[str, Any]:
+def courses_at(study: Any, values: dict[str, Any], end: float, every: float) -> dict[str, Any]:
     """``simulate`` of a study's draws ``values`` (name -> array, canonical units) from 0 to ``end`` (min)."""
     plan = study.timeline
     v = input_values(study, values)
@@ -261,7 +264,7 @@ def values_at(study: Any, point: TimePoint, values: dict[str, Any]) -> np.ndarra
     every = float(study.timeline.report_every)
     k = t / every
     step = every if abs(k - round(k)) < 1e-9 and round(k) >= 1 else t
-    sim = _courses(study, values, t, step)
+    sim = courses_at(study, values, t, step)
     return np.asarray(sim[point.name][-1], dtype=float) * np.ones(_draw_count(values))
 
 
@@ -285,7 +288,7 @@ def values_over_time(study: Any, name: str, values: dict[str, Any]) -> tuple[lis
         Shape (n, len(times)), in the time course's unit.
     """
     plan = study.timeline
-    sim = _courses(study, values, plan.end, plan.report_every)
+    sim = courses_at(study, values, plan.end, plan.report_every)
     n = _draw_count(values)
     y = np.stack([np.asarray(a, dtype=float) * np.ones(n) for a in sim[name][1:]], axis=1)
     return list(sim["times_min"][1:]), y
@@ -308,6 +311,13 @@ def timepoint_evaluator(point: TimePoint) -> Callable[[Any, dict[str, Any]], dic
         return {point.text: values_at(study, point, values)}
 
     return evaluate
+
+
+def interventions_of(plan: Any) -> list[dict[str, Any]]:
+    """The study's interventions as resolved (a ``TimelinePlan``'s doses): ``kind``, ``volume_mL``, ``start_min``,
+    ``duration_min`` and ``protein_g_per_dL`` each."""
+    return [{"kind": d.kind, "volume_mL": d.volume, "start_min": d.start, "duration_min": d.duration,
+             "protein_g_per_dL": d.protein} for d in plan.doses]
 
 
 def timeline(study: Any, seed: Any = None, draws: int | None = None, executor: Any = None) -> dict[str, Any]:
@@ -335,10 +345,7 @@ def timeline(study: Any, seed: Any = None, draws: int | None = None, executor: A
     plan = study.timeline
     seed = getattr(study, "seed", None) if seed is None else seed
     n = plan.draws if draws is None else draws
-    out: dict[str, Any] = {"units": dict(TIMELINE_UNITS), "draws": n,
-                           "interventions": [{"kind": d.kind, "volume_mL": d.volume, "start_min": d.start,
-                                              "duration_min": d.duration, "protein_g_per_dL": d.protein}
-                                             for d in plan.doses],
+    out: dict[str, Any] = {"units": dict(TIMELINE_UNITS), "draws": n, "interventions": interventions_of(plan),
                            "body_mass_kg": plan.body_mass_kg}
     observed = observed_points(study)
     if observed:

@@ -1,0 +1,96 @@
+"""Posterior time courses of a whole_body study (``inference.posterior_timeline``): each subject's band is the time
+course at that subject's own draws (a subject's course computed apart must match its row), the typical subject's at
+the typical draws, a point posterior gives a band of no width, other forms have none; the printed table and the
+figures. The draws are a stand-in posterior (prior draws of the study), so no sampling is needed."""
+
+from __future__ import annotations
+
+import types
+from pathlib import Path
+
+import arviz as az
+import numpy as np
+import pytest
+from test_whole_body_inference import ROWS, _doc, _write
+
+from uncertainty.analyses.inference.figure import timeline_fans
+from uncertainty.analyses.inference.model_builder import build_model
+from uncertainty.analyses.inference.posterior_timeline import posterior_timeline
+from uncertainty.analyses.inference.problem import problem_from_study
+from uncertainty.analyses.inference.table import timeline_text
+from uncertainty.analyses.propagate.timeline import band_over_time, courses_at
+from uncertainty.analyses.sampling import draw
+from uncertainty.study import Study
+
+N = 16  # stand-in posterior draws (one chain)
+
+
+@pytest.fixture(scope="module")
+def setting(tmp_path_factory: pytest.TempPathFactory) -> tuple:
+    """The three-subject haemoglobin study of test_whole_body_inference, its model's structure, and stand-in draws:
+    typical values from the typical layer, each subject's from the individual layer with its own seed."""
+    tmp = tmp_path_factory.mktemp("tl")
+    _write(tmp, ROWS)
+    study = Study.from_dict(_doc(), base_dir=tmp)
+    built = build_model(problem_from_study(study), structure_only=True)
+    typical = draw(study, N, seed=1, layer="typical")
+    subjects = [draw(study, N, seed=2 + k, layer="individual") for k in range(len(built.subjects))]
+    post = {}
+    for q in built.problem.priors:
+        post[q] = typical[q][None, :]
+        post[f"{q}__subject"] = np.stack([s[q] for s in subjects], axis=-1)[None, :, :]
+    return study, built, typical, subjects, az.from_dict(posterior=post)
+
+
+def test_each_subjects_band_is_its_own_course(setting: tuple) -> None:
+    study, built, typical, subjects, idata = setting
+    tl = posterior_timeline(built, idata, draws=N)
+    plan = study.timeline
+    assert tl["times_min"][0] == 0.0 and tl["times_min"][-1] == plan.end and tl["draws"] == N
+    assert list(tl["subjects"]) == built.subjects == ["A", "B", "C"]
+    for k, label in enumerate(built.subjects):
+        alone = courses_at(study, subjects[k], plan.end, plan.report_every)
+        for name in ("hb_ratio", "infused_retained_fraction", "urine_volume"):
+            want = band_over_time(alone[name])
+            got = tl["subjects"][label][name]
+            np.testing.assert_allclose(np.array(got["median"][1:], float), np.array(want["median"][1:], float),
+                                       rtol=1e-9)
+            np.testing.assert_allclose(np.array(got["ci95"][1:], float), np.array(want["ci95"][1:], float),
+                                       rtol=1e-9)
+    alone = courses_at(study, typical, plan.end, plan.report_every)
+    np.testing.assert_allclose(tl["typical"]["plasma_volume_change"]["median"],
+                               band_over_time(alone["plasma_volume_change"])["median"], rtol=1e-9)
+    # at rest, before the infusion: haemoglobin at its resting value in every draw (the ratio's definition)
+    assert tl["subjects"]["B"]["hb_ratio"]["ci95"][0] == pytest.approx([1.0, 1.0])
+    # the readings are on their course, over each subject's first
+    assert tl["observed"]["hb_ratio"]["relative_to_first"]
+
+
+def test_a_point_posterior_has_a_band_of_no_width(setting: tuple) -> None:
+    study, built, _, _, idata = setting
+    point = az.from_dict(posterior={k: np.repeat(v.values[:, :1], N, axis=1) for k, v in idata.posterior.items()})
+    tl = posterior_timeline(built, point, draws=8)
+    band = tl["subjects"]["C"]["plasma_volume_change"]
+    lo, hi = np.array(band["ci95"], float).T
+    np.testing.assert_allclose(lo, band["median"], atol=1e-9)
+    np.testing.assert_allclose(hi, band["median"], atol=1e-9)
+
+
+def test_other_forms_have_no_timeline() -> None:
+    built = types.SimpleNamespace(problem=types.SimpleNamespace(study=types.SimpleNamespace(model="classic")))
+    assert posterior_timeline(built, None) is None
+
+
+def test_the_table_and_the_figures(setting: tuple, tmp_path: Path) -> None:
+    _, built, _, _, idata = setting
+    tl = posterior_timeline(built, idata, draws=N)
+    text = timeline_text({"timeline": tl})
+    lines = text.splitlines()
+    assert lines[0].startswith("where the volume is over time")
+    head = next(line for line in lines if line.startswith("infused_retained_fraction"))
+    assert "30 min" in head and "60 min" in head and "90 min" in head     # the end (90 min) always
+    assert sum(line.strip().startswith(("typical", "A ", "B ", "C ")) for line in lines) == 8  # 2 courses x 4 rows
+    paths = timeline_fans(types.SimpleNamespace(doc={"timeline": tl}), str(tmp_path))
+    names = {Path(p).name for p in paths}
+    assert {"inference_timeline.png", "inference_timeline_subjects_hb_ratio.png"} <= names
+    assert timeline_text({}) == "" and timeline_fans(types.SimpleNamespace(doc={}), str(tmp_path)) == []
