@@ -17,6 +17,7 @@ from uncertainty.analyses.inference.figure import timeline_fans
 from uncertainty.analyses.inference.model_builder import build_model
 from uncertainty.analyses.inference.posterior_timeline import posterior_timeline
 from uncertainty.analyses.inference.problem import problem_from_study
+from uncertainty.analyses.inference.report_section import section_html
 from uncertainty.analyses.inference.table import timeline_text
 from uncertainty.analyses.propagate.timeline import band_over_time, courses_at
 from uncertainty.analyses.sampling import draw
@@ -94,3 +95,5 @@ def test_the_table_and_the_figures(setting: tuple, tmp_path: Path) -> None:
     names = {Path(p).name for p in paths}
     assert {"inference_timeline.png", "inference_timeline_subjects_hb_ratio.png"} <= names
     assert timeline_text({}) == "" and timeline_fans(types.SimpleNamespace(doc={}), str(tmp_path)) == []
+    html = section_html({"timeline": tl})
+    assert "Where the volume is over time" in html and html.count("<table") == 2 and ">typical<" in html

@@ -8,11 +8,18 @@ from typing import Any
 
 from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe
+from uncertainty.analyses.inference.table import TIMELINE_HEAD, TIMELINE_PRINTED, timeline_rows
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import cell, fmt, interval
 from uncertainty.core.html import escape, kv_table, table
 
 CAPTIONS: tuple[Caption, ...] = (
+    ("timeline_subjects", "", "Each subject's posterior time course (median line, 95% band) with that subject's "
+                              "readings as points, on the scale they are fitted (e.g. haemoglobin over the subject's "
+                              "first reading); the band is the course's, without the reading error."),
+    ("timeline", "", "Posterior time courses of the typical subject: where the infused volume is over time "
+                     "(plasma, each tissue bed's interstitium, urine), median and 95% band, with every subject's "
+                     "readings on their course; shaded: the interventions."),
     ("curves", "", "Observed limb-volume readings (dots) against the posterior predictive median and 95% "
                    "band for each subject: readings inside the band mean the model reproduces what was "
                    "seen."),
@@ -57,6 +64,12 @@ def section_html(res: dict[str, Any]) -> str:
         parts.append(table(["quantity", "mean", "sd", "95% credible interval", "contraction"], rows,
                            num_cols={1, 2, 4}))
     parts.append(posterior_sensitivity.html(res))
+    for name, unit, heads, rows in timeline_rows(res):
+        if name == TIMELINE_PRINTED[0]:
+            parts.append(f"<h3>Where the volume is over time</h3><p>{escape(TIMELINE_HEAD[0].upper())}"
+                         f"{escape(TIMELINE_HEAD[1:])}.</p>")
+        parts.append(f"<p>{escape(name + (f' ({unit})' if unit and unit != '1' else ''))}</p>"
+                     + table(["", *heads], [[label, *cells] for label, cells in rows]))
     answers = answers_table.html(res)
     subjects = res.get("subjects") or {}
     if answers:

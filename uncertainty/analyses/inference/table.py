@@ -26,31 +26,43 @@ TIMELINE_PRINT_MIN = (30.0, 60.0, 120.0, 240.0)
 TIMELINE_PRINTED = ("infused_retained_fraction", "plasma_volume_change")
 
 
-def timeline_text(doc: dict[str, Any]) -> str:
-    """The posterior time courses of a ``whole_body`` study (``doc["timeline"]``) as text: for each printed course
-    a row per level (typical subject, then each subject; or the study's individual) and a column per printed time,
-    median [95 % interval]; "" without a timeline."""
+def timeline_rows(doc: dict[str, Any]) -> list[tuple[str, str, list[str], list[tuple[str, list[str]]]]]:
+    """The printed part of a ``whole_body`` study's posterior time courses (``doc["timeline"]``): for each course of
+    :data:`TIMELINE_PRINTED`, (course, unit, time labels, rows), a row (level label, cells) per level (typical
+    subject, then each subject; or the study's individual), a cell "median [low, high]" per printed time
+    (:data:`TIMELINE_PRINT_MIN` where reported, and the end). Empty without a timeline."""
     tl = doc.get("timeline")
     if not tl:
-        return ""
+        return []
     times = list(tl["times_min"])
-    at = [times.index(t) for t in (*TIMELINE_PRINT_MIN, times[-1]) if t in times]
-    at = sorted(set(at))
-    rows = ([("typical", tl["typical"])] + list(tl["subjects"].items())) if "subjects" in tl else \
+    at = sorted({times.index(t) for t in (*TIMELINE_PRINT_MIN, times[-1]) if t in times})
+    levels = ([("typical", tl["typical"])] + list(tl["subjects"].items())) if "subjects" in tl else \
         [("individual", tl["individual"])]
-    width = max(len(r[0]) for r in rows) + 2
-    lines = [f"where the volume is over time (posterior median [95% interval], {tl['draws']} draws per subject)",
-             "(infused_retained_fraction: the share of the infused volume in the plasma; after a bleed, of the plasma "
-             "lost still missing)"]
+    out = []
     for name in TIMELINE_PRINTED:
-        unit = tl["units"].get(name, "")
-        head = f"{name + (f' ({unit})' if unit and unit != '1' else ''):<{width + 2}}" + "".join(
-            f"{f'{times[i]:g} min':>26}" for i in at)
-        lines += ["", head]
-        for label, block in rows:
-            band = block[name]
-            cells = [f"{_fmt(band['median'][i])} [{_fmt(band['ci95'][i][0])}, {_fmt(band['ci95'][i][1])}]" for i in at]
-            lines.append(f"  {label:<{width}}" + "".join(f"{c:>26}" for c in cells))
+        rows = [(label, [f"{_fmt(b[name]['median'][i])} [{_fmt(b[name]['ci95'][i][0])}, "
+                         f"{_fmt(b[name]['ci95'][i][1])}]" for i in at]) for label, b in levels]
+        out.append((name, tl["units"].get(name, ""), [f"{times[i]:g} min" for i in at], rows))
+    return out
+
+
+#: What the posterior time courses' table says above it.
+TIMELINE_HEAD = ("where the volume is over time (posterior median [95% interval] of each course; "
+                 "infused_retained_fraction: the share of the infused volume in the plasma, after a bleed the share "
+                 "of the plasma lost still missing)")
+
+
+def timeline_text(doc: dict[str, Any]) -> str:
+    """:func:`timeline_rows` as text ("" without a timeline)."""
+    blocks = timeline_rows(doc)
+    if not blocks:
+        return ""
+    width = max(len(label) for _, _, _, rows in blocks for label, _ in rows) + 2
+    lines = [TIMELINE_HEAD]
+    for name, unit, heads, rows in blocks:
+        title = name + (f" ({unit})" if unit and unit != "1" else "")
+        lines += ["", f"{title:<{width + 2}}" + "".join(f"{h:>26}" for h in heads)]
+        lines += [f"  {label:<{width}}" + "".join(f"{c:>26}" for c in cells) for label, cells in rows]
     return "\n".join(lines)
 
 
