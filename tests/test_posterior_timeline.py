@@ -17,7 +17,7 @@ from uncertainty.analyses.inference.figure import timeline_fans
 from uncertainty.analyses.inference.model_builder import build_model
 from uncertainty.analyses.inference.posterior_timeline import posterior_timeline
 from uncertainty.analyses.inference.problem import problem_from_study
-from uncertainty.analyses.inference.report_section import section_html
+from uncertainty.analyses.inference.report_section import section_html, summary
 from uncertainty.analyses.inference.table import timeline_text
 from uncertainty.analyses.propagate.timeline import band_over_time, courses_at
 from uncertainty.analyses.sampling import draw
@@ -97,3 +97,5 @@ def test_the_table_and_the_figures(setting: tuple, tmp_path: Path) -> None:
     assert timeline_text({}) == "" and timeline_fans(types.SimpleNamespace(doc={}), str(tmp_path)) == []
     html = section_html({"timeline": tl})
     assert "Where the volume is over time" in html and html.count("<table") == 2 and ">typical<" in html
+    glance = summary({"Jv": {"mean": 0.01, "ci95": [0.0, 0.02]}, "timeline": tl})
+    assert len(glance) == 2 and glance[1].startswith("Share of the infused volume in the plasma (typical subject")

@@ -8,7 +8,7 @@ from typing import Any
 
 from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe
-from uncertainty.analyses.inference.table import TIMELINE_HEAD, TIMELINE_PRINTED, timeline_rows
+from uncertainty.analyses.inference.table import TIMELINE_HEAD, TIMELINE_NOTE, TIMELINE_PRINTED, timeline_rows
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import cell, fmt, interval
 from uncertainty.core.html import escape, kv_table, table
@@ -66,8 +66,7 @@ def section_html(res: dict[str, Any]) -> str:
     parts.append(posterior_sensitivity.html(res))
     for name, unit, heads, rows in timeline_rows(res):
         if name == TIMELINE_PRINTED[0]:
-            parts.append(f"<h3>Where the volume is over time</h3><p>{escape(TIMELINE_HEAD[0].upper())}"
-                         f"{escape(TIMELINE_HEAD[1:])}.</p>")
+            parts.append(f"<h3>{escape(TIMELINE_HEAD.capitalize())}</h3><p>{escape(TIMELINE_NOTE.capitalize())}.</p>")
         parts.append(f"<p>{escape(name + (f' ({unit})' if unit and unit != '1' else ''))}</p>"
                      + table(["", *heads], [[label, *cells] for label, cells in rows]))
     answers = answers_table.html(res)
@@ -99,9 +98,17 @@ def summary(inf: dict[str, Any]) -> list[str]:
     diag = inf.get("diagnostics") or {}
     unit = (inf.get("units") or {}).get("Jv", "")
     level = f" ({inf['level']})" if inf.get("level") else ""
-    return [f"Jv after the observations{level}: mean {fmt(jv.get('mean'), 3)}, 95% credible interval "
-            f"{interval(jv.get('ci95'))} {unit}".rstrip()
-            + (f"  (diagnostics {'passed' if diag.get('passed') else 'FAILED'})" if diag else "")]
+    lines = [f"Jv after the observations{level}: mean {fmt(jv.get('mean'), 3)}, 95% credible interval "
+             f"{interval(jv.get('ci95'))} {unit}".rstrip()
+             + (f"  (diagnostics {'passed' if diag.get('passed') else 'FAILED'})" if diag else "")]
+    blocks = timeline_rows(inf)
+    if blocks:   # a whole-body study: the infused volume's share in the plasma, first level (typical or individual)
+        _, _, heads, rows = blocks[0]
+        label, cells = rows[0]
+        who = "typical subject" if label == "typical" else label
+        at = ", ".join(f"{h} {c}" for h, c in zip(heads, cells, strict=True))
+        lines.append(f"Share of the infused volume in the plasma ({who}, posterior median [95% interval]): {at}")
+    return lines
 
 
 def _diag_number(key: str, v: Any) -> str:

@@ -46,10 +46,10 @@ def timeline_rows(doc: dict[str, Any]) -> list[tuple[str, str, list[str], list[t
     return out
 
 
-#: What the posterior time courses' table says above it.
-TIMELINE_HEAD = ("where the volume is over time (posterior median [95% interval] of each course; "
-                 "infused_retained_fraction: the share of the infused volume in the plasma, after a bleed the share "
-                 "of the plasma lost still missing)")
+#: The posterior time courses' heading, and what their cells are.
+TIMELINE_HEAD = "where the volume is over time"
+TIMELINE_NOTE = ("posterior median [95% interval] of each course; infused_retained_fraction: the share of the infused "
+                 "volume in the plasma, after a bleed the share of the plasma lost still missing")
 
 
 def timeline_text(doc: dict[str, Any]) -> str:
@@ -58,7 +58,7 @@ def timeline_text(doc: dict[str, Any]) -> str:
     if not blocks:
         return ""
     width = max(len(label) for _, _, _, rows in blocks for label, _ in rows) + 2
-    lines = [TIMELINE_HEAD]
+    lines = [f"{TIMELINE_HEAD} ({TIMELINE_NOTE})"]
     for name, unit, heads, rows in blocks:
         title = name + (f" ({unit})" if unit and unit != "1" else "")
         lines += ["", f"{title:<{width + 2}}" + "".join(f"{h:>26}" for h in heads)]
