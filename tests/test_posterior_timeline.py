@@ -26,12 +26,10 @@ from uncertainty.study import Study
 N = 16  # stand-in posterior draws (one chain)
 
 
-@pytest.fixture(scope="module")
-def setting(tmp_path_factory: pytest.TempPathFactory) -> tuple:
-    """The three-subject haemoglobin study of test_whole_body_inference, its model's structure, and stand-in draws:
-    typical values from the typical layer, each subject's from the individual layer with its own seed."""
-    tmp = tmp_path_factory.mktemp("tl")
-    _write(tmp, ROWS)
+def _setting(tmp: Path, rows: str) -> tuple:
+    """A three-subject haemoglobin study (readings ``rows``), its model's structure, and stand-in draws: typical
+    values from the typical layer, each subject's from the individual layer with its own seed."""
+    _write(tmp, rows)
     study = Study.from_dict(_doc(), base_dir=tmp)
     built = build_model(problem_from_study(study), structure_only=True)
     typical = draw(study, N, seed=1, layer="typical")
@@ -41,6 +39,12 @@ def setting(tmp_path_factory: pytest.TempPathFactory) -> tuple:
         post[q] = typical[q][None, :]
         post[f"{q}__subject"] = np.stack([s[q] for s in subjects], axis=-1)[None, :, :]
     return study, built, typical, subjects, az.from_dict(posterior=post)
+
+
+@pytest.fixture(scope="module")
+def setting(tmp_path_factory: pytest.TempPathFactory) -> tuple:
+    """:func:`_setting` with the readings of test_whole_body_inference (subjects A and B first read at 0 min)."""
+    return _setting(tmp_path_factory.mktemp("tl"), ROWS)
 
 
 def test_each_subjects_band_is_its_own_course(setting: tuple) -> None:
@@ -99,3 +103,17 @@ def test_the_table_and_the_figures(setting: tuple, tmp_path: Path) -> None:
     assert "Where the volume is over time" in html and html.count("<table") == 2 and ">typical<" in html
     glance = summary({"Jv": {"mean": 0.01, "ci95": [0.0, 0.02]}, "timeline": tl})
     assert len(glance) == 2 and glance[1].startswith("Share of the infused volume in the plasma (typical subject")
+
+
+def test_each_subjects_band_on_the_scale_of_its_readings(tmp_path: Path) -> None:
+    # readings are shown over each subject's first; a subject first read at 20 min has its course over the course at
+    # 20 min (ratio 1 there in every draw), one first read at rest its course over rest (the course itself)
+    _, built, _, _, idata = _setting(tmp_path, "A,0,14.0\nA,30,12.6\nB,20,13.1\n"
+                                               "B,45,13.5\nC,0,15.0\nC,60,14.4\n")
+    tl = posterior_timeline(built, idata, draws=N)
+    at20 = tl["times_min"].index(20.0)
+    b = tl["as_read"]["hb_ratio"]["B"]
+    assert b["median"][at20] == pytest.approx(1.0) and b["ci95"][at20] == pytest.approx([1.0, 1.0])
+    assert b["median"][0] > 1.0   # at rest, before the dilution: above the diluted first reading
+    np.testing.assert_allclose(tl["as_read"]["hb_ratio"]["A"]["median"], tl["subjects"]["A"]["hb_ratio"]["median"],
+                               rtol=1e-12)

@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from uncertainty.analyses.inference.observations.course import interpolation
 from uncertainty.analyses.inference.summaries import flat
 from uncertainty.analyses.propagate.timeline import band_over_time, courses_at, interventions_of, observed_points
 from uncertainty.physiology.whole_body import TIMELINE_UNITS
@@ -26,6 +27,31 @@ COURSE_DRAWS = 200
 def _thinned(n: int, k: int) -> np.ndarray:
     """``min(k, n)`` indices spread evenly over ``n`` stacked draws (chains in turn)."""
     return np.unique(np.linspace(0, n - 1, min(k, n)).round().astype(int))
+
+
+def _as_read(observed: dict[str, Any], by_subject: dict[str, list[np.ndarray]], subjects: list[str],
+             times: list[float]) -> dict[str, dict[str, Any]]:
+    """Each subject's course on the scale of its readings, for the courses whose readings are shown over or minus each
+    subject's first: draw by draw the course over (minus) its value at that subject's first reading (linear between
+    the report times, as the model predicts a reading), then the band. course -> subject -> band."""
+    out: dict[str, dict[str, Any]] = {}
+    for name, obs in observed.items():
+        over, minus = bool(obs.get("relative_to_first")), bool(obs.get("change_from_first"))
+        if not (over or minus) or name not in by_subject:
+            continue
+        first: dict[str, float] = {}
+        for sid, t in zip(obs["subjects"], obs["times_min"], strict=True):
+            first[sid] = min(first.get(sid, t), t)
+        series = np.stack(by_subject[name])                       # (time, draw, subject)
+        out[name] = {}
+        for sid, t_ref in first.items():
+            if sid not in subjects:
+                continue
+            y = series[:, :, subjects.index(sid)]
+            lo, hi, w = interpolation(np.array([t_ref]), times)
+            ref = (1.0 - w[0]) * y[lo[0]] + w[0] * y[hi[0]]      # per draw
+            out[name][sid] = band_over_time(list(y / ref if over else y - ref))
+    return out
 
 
 def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dict[str, Any] | None:
@@ -47,7 +73,9 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
         ``times_min`` (list, min), ``units`` (course -> unit), ``draws``, ``interventions`` (as resolved),
         ``observed`` (the readings as points on their courses, ``propagate.timeline.observed_points``), and per
         course ``median`` and ``ci95`` lists: under ``typical`` and ``subjects`` (label -> course -> band) for a
-        study with subjects, under ``individual`` for the study's one individual.
+        study with subjects, under ``individual`` for the study's one individual; with subjects also ``as_read``
+        (course -> subject -> band: the course over, or minus, its value at the subject's first reading, on the
+        scale the readings are shown, for the courses read relative to each subject's first).
     """
     study = getattr(built.problem, "study", None)
     if getattr(study, "model", None) != "whole_body" or getattr(study, "timeline", None) is None:
@@ -77,6 +105,7 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
         return out
     out["subjects"] = {label: {name: band_over_time([y[:, i] for y in by_subject[name]]) for name in TIMELINE_UNITS}
                        for i, label in enumerate(built.subjects)}
+    out["as_read"] = _as_read(observed, by_subject, built.subjects, out["times_min"])
     typ = courses_at(study, typical, plan.end, plan.report_every)
     out["typical"] = {name: band_over_time(typ[name]) for name in TIMELINE_UNITS}
     return out
