@@ -139,8 +139,9 @@ def timeline_fans(result: Any, out_dir: str) -> list[str]:
         for ax in axes.ravel()[len(subjects):]:
             ax.axis("off")
         unit = tl["units"].get(name, "")
-        fig.suptitle(f"{name}: each subject's posterior course (median, 95% interval; reading error not included)"
-                     + (f" ({_obs_legend(obs)})" if _obs_legend(obs) else ""), fontsize=9)
+        scale = f" {_obs_legend(obs)}" if _obs_legend(obs) else ""
+        fig.suptitle(f"{name}{scale}: each subject's posterior course (median, 95% interval; reading error not "
+                     "included) and readings", fontsize=9)
         fig.supxlabel("time (min)", fontsize=8)
         fig.supylabel(f"{name} ({unit})" if unit and unit != "1" else name, fontsize=8)
         fig.tight_layout()
