@@ -15,8 +15,8 @@ from uncertainty.core.html import escape, kv_table, table
 
 CAPTIONS: tuple[Caption, ...] = (
     ("timeline_subjects", "", "Each subject's posterior time course (median line, 95% band) with that subject's "
-                              "readings as points, on the scale they are fitted (e.g. haemoglobin over the subject's "
-                              "first reading); the band is the course's, without the reading error."),
+                              "readings as points, on the scale they are fitted (haemoglobin, for one, over the "
+                              "subject's first reading); the band is the course's, without the reading error."),
     ("timeline", "", "Posterior time courses of the typical subject: where the infused volume is over time "
                      "(plasma, each tissue bed's interstitium, urine), median and 95% band, with every subject's "
                      "readings on their course; shaded: the interventions."),
