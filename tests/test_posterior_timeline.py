@@ -117,3 +117,22 @@ def test_each_subjects_band_on_the_scale_of_its_readings(tmp_path: Path) -> None
     assert b["median"][0] > 1.0   # at rest, before the dilution: above the diluted first reading
     np.testing.assert_allclose(tl["as_read"]["hb_ratio"]["A"]["median"], tl["subjects"]["A"]["hb_ratio"]["median"],
                                rtol=1e-12)
+
+
+def test_a_failed_time_course_is_a_note_not_a_lost_fit(setting: tuple, monkeypatch: pytest.MonkeyPatch) -> None:
+    # the time courses are a summary: if computing them fails, infer keeps its result and says why in a note
+    from uncertainty.analyses.inference import api
+
+    _, built, _, _, idata = setting
+
+    def broken(*args: object, **kwargs: object) -> None:
+        raise FloatingPointError("invented failure")
+
+    monkeypatch.setattr(api, "posterior_timeline", broken)
+    result = types.SimpleNamespace(doc={"notes": []}, idata=idata)
+    api._add_timeline(result, built)
+    assert "timeline" not in result.doc
+    assert result.doc["notes"] == ["posterior time courses not computed: FloatingPointError: invented failure"]
+    monkeypatch.undo()
+    api._add_timeline(result, built)
+    assert set(result.doc["timeline"]["subjects"]) == {"A", "B", "C"}

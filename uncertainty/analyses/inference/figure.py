@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.summaries import flat
-from uncertainty.analyses.propagate.figure import plot_timeline
+from uncertainty.analyses.propagate.figure import draw_band, plot_timeline
 from uncertainty.core.plotting import pyplot, save_figure
 
 
@@ -126,11 +126,7 @@ def timeline_fans(result: Any, out_dir: str) -> list[str]:
         fig, axes = plt.subplots(rows, cols, figsize=(3.0 * cols, 2.3 * rows), squeeze=False, sharex=True,
                                  sharey=True)
         for ax, sid in zip(axes.ravel(), subjects, strict=False):
-            band = (tl.get("as_read") or {}).get(name, {}).get(sid) or tl["subjects"][sid][name]
-            med = np.array([np.nan if m is None else m for m in band["median"]], dtype=float)
-            ci = np.array([[np.nan if x is None else x for x in pair] for pair in band["ci95"]], dtype=float)
-            ax.fill_between(t, ci[:, 0], ci[:, 1], color="#3b6ea5", alpha=0.25, lw=0)
-            ax.plot(t, med, color="#3b6ea5", lw=1.2)
+            draw_band(ax, t, (tl.get("as_read") or {}).get(name, {}).get(sid) or tl["subjects"][sid][name], "#3b6ea5")
             mine = [k for k, s in enumerate(obs["subjects"]) if s == sid]
             ax.plot([obs["times_min"][k] for k in mine], [obs["values"][k] for k in mine], "o", color="#222222",
                     ms=3)

@@ -86,7 +86,7 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
     idx = _thinned(n, draws)
     k = idx.size
     s = len(built.subjects) if built.hierarchical else 1
-    typical = {q: flat(idata, q)[idx] for q in quantities if q in post and flat(idata, q).ndim == 1}
+    typical = {q: x[idx] for q in quantities if q in post and (x := flat(idata, q)).ndim == 1}
     each = {}
     for q in quantities:
         x = flat(idata, f"{q}__subject")[idx] if f"{q}__subject" in post else np.repeat(typical[q][:, None], s, 1)

@@ -20,7 +20,9 @@ def _ci(block: dict[str, Any], key: str = "ci95") -> str:
     return f"[{_fmt(lo)}, {_fmt(hi)}]"
 
 
-#: Times (min) the posterior time courses are printed at, where the study reports them (its end always).
+#: Times (min) the posterior time courses are printed at, where the study reports them (its end always): the
+#: times fluid-therapy questions are asked at (30, 60 and 120 min after an infusion starts; common practice), and
+#: 240 min for longer timelines.
 TIMELINE_PRINT_MIN = (30.0, 60.0, 120.0, 240.0)
 #: The time courses printed: the share of the intervention's volume in the plasma, and the plasma volume change.
 TIMELINE_PRINTED = ("infused_retained_fraction", "plasma_volume_change")

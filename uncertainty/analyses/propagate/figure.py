@@ -63,11 +63,7 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical",
     rows = max(1, -(-len(names) // cols))
     fig, axes = plt.subplots(rows, cols, figsize=(11, 3.0 * rows), squeeze=False)
     for ax, name in zip(axes.ravel(), names, strict=False):
-        d = tl[layer][name]
-        med = np.array([np.nan if m is None else m for m in d["median"]], dtype=float)
-        ci = np.array([[np.nan if x is None else x for x in pair] for pair in d["ci95"]], dtype=float)
-        ax.fill_between(t, ci[:, 0], ci[:, 1], color=STYLE["typical"], alpha=0.25, lw=0, label="95% interval")
-        ax.plot(t, med, color=STYLE["typical"], lw=1.6, label="median")
+        draw_band(ax, t, tl[layer][name], STYLE["typical"], labels=True)
         for iv in tl.get("interventions") or []:
             a = iv["start_min"]
             b = a + max(iv["duration_min"], 0.5)
@@ -85,6 +81,15 @@ def plot_timeline(tl: dict[str, Any], out_dir: str, layer: str = "typical",
         fig.suptitle(title, fontsize=10)
     fig.tight_layout()
     return save_figure(fig, out_dir, stem)
+
+
+def draw_band(ax: Any, t: np.ndarray, band: dict[str, Any], colour: str, labels: bool = False) -> None:
+    """One time course's band on ``ax``: the 95 % interval shaded and the median line over the times ``t`` (min);
+    ``band`` as ``propagate.timeline.band_over_time`` makes it (None where no draw was finite: a gap)."""
+    med = np.array([np.nan if m is None else m for m in band["median"]], dtype=float)
+    ci = np.array([[np.nan if x is None else x for x in pair] for pair in band["ci95"]], dtype=float)
+    ax.fill_between(t, ci[:, 0], ci[:, 1], color=colour, alpha=0.25, lw=0, label="95% interval" if labels else None)
+    ax.plot(t, med, color=colour, lw=1.6 if labels else 1.2, label="median" if labels else None)
 
 
 #: Marker cycle for the subjects of observed points.
