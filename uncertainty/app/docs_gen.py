@@ -449,7 +449,8 @@ canonical units with a `units` map beside them. The JSON Schema itself:
 
 Other files of the bundle: `tables/<section>.csv` (each result's `to_dataframe()`; a result with several
 kinds of row also writes `tables/<section>-<kind>.csv`, e.g. infer's `subjects`, `cohort` and `group_effects`),
-`figures/<section>-*.png` and `.svg`, `posterior.nc` (ArviZ InferenceData, where inference ran) and
+`figures/<name>.png` and `.svg` (each name begins with its section's: `propagate_timeline`,
+`inference_timeline`, `schedule-blood_schedule`), `posterior.nc` (ArviZ InferenceData, where inference ran) and
 `report.html` (self-contained). A hidden `.partial/` folder holds temporary files during a run.
 """
 

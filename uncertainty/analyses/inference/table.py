@@ -6,6 +6,7 @@ from typing import Any
 
 from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe, gate_message
+from uncertainty.analyses.propagate.timeline import printed_times
 
 
 def _fmt(x: Any) -> str:
@@ -20,10 +21,6 @@ def _ci(block: dict[str, Any], key: str = "ci95") -> str:
     return f"[{_fmt(lo)}, {_fmt(hi)}]"
 
 
-#: Times (min) the posterior time courses are printed at, where the study reports them (its end always): the
-#: times fluid-therapy questions are asked at (30, 60 and 120 min after an infusion starts; common practice), and
-#: 240 min for longer timelines.
-TIMELINE_PRINT_MIN = (30.0, 60.0, 120.0, 240.0)
 #: The time courses printed: the share of the intervention's volume in the plasma, and the plasma volume change.
 TIMELINE_PRINTED = ("infused_retained_fraction", "plasma_volume_change")
 
@@ -32,12 +29,12 @@ def timeline_rows(doc: dict[str, Any]) -> list[tuple[str, str, list[str], list[t
     """The printed part of a ``whole_body`` study's posterior time courses (``doc["timeline"]``): for each course of
     :data:`TIMELINE_PRINTED`, (course, unit, time labels, rows), a row (level label, cells) per level (typical
     subject, then each subject; or the study's individual), a cell "median [low, high]" per printed time
-    (:data:`TIMELINE_PRINT_MIN` where reported, and the end). Empty without a timeline."""
+    (``propagate.timeline.printed_times``). Empty without a timeline."""
     tl = doc.get("timeline")
     if not tl:
         return []
     times = list(tl["times_min"])
-    at = sorted({times.index(t) for t in (*TIMELINE_PRINT_MIN, times[-1]) if t in times})
+    at = printed_times(times)
     levels = ([("typical", tl["typical"])] + list(tl["subjects"].items())) if "subjects" in tl else \
         [("individual", tl["individual"])]
     out = []

@@ -9,6 +9,7 @@ from __future__ import annotations
 from typing import Any
 
 from uncertainty.analyses.propagate.thresholds import threshold_html
+from uncertainty.analyses.propagate.timeline import printed_times
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import fmt, interval
 from uncertainty.core.html import escape, kv_table, table
@@ -106,8 +107,50 @@ def timeline_html(tl: dict[str, Any], every: int = 6) -> str:
     return intro + table(["quantity", "time (min)", "median", "95% interval", "unit"], rows, num_cols={1, 2})
 
 
+def timeline_summary(tl: dict[str, Any]) -> list[str]:
+    """Summary lines of a whole-body timeline (typical subject): the share of the intervention's volume in the plasma
+    at the printed times (``timeline.printed_times``), median [95% interval]; and, at the first printed time after
+    the interventions end (else the last), where the volume is: the plasma, each bed's interstitium and the urine
+    since 0 (medians).
+
+    Parameters
+    ----------
+    tl : dict
+        The stored ``timeline`` entry (``times_min``, ``units``, ``typical``, ``interventions``).
+
+    Returns
+    -------
+    list of str
+        Two lines, or none without the typical subject's courses.
+    """
+    typ, times = tl.get("typical") or {}, list(tl.get("times_min") or [])
+    share = typ.get("infused_retained_fraction")
+    if not share or not times:
+        return []
+    at = printed_times(times)
+    infused = any(d.get("kind") == "infusion" for d in tl.get("interventions") or [])
+    what = "the infused volume in the plasma" if infused else "the plasma lost still missing"
+    cells = ", ".join(f"{fmt(times[i])} min {fmt(share['median'][i], 3)} [{fmt(share['ci95'][i][0], 3)}, "
+                      f"{fmt(share['ci95'][i][1], 3)}]" for i in at)
+    lines = [f"Share of {what} (typical subject, median [95% interval]): {cells}"]
+    end = max((d.get("start_min", 0.0) + d.get("duration_min", 0.0) for d in tl.get("interventions") or []),
+              default=0.0)
+    i = next((k for k in at if times[k] >= end), at[-1])
+
+    def ml(name: str) -> str:  # whole mL, signed (volumes of hundreds of mL)
+        return f"{typ[name]['median'][i]:+.0f} mL"
+
+    parts = [f"plasma {ml('plasma_volume_change')}"]
+    parts += [f"{name.removeprefix('interstitial_volume_change_')} interstitium {ml(name)}"
+              for name in typ if name.startswith("interstitial_volume_change_")]
+    parts.append(f"urine since 0 {typ['urine_volume']['median'][i]:.0f} mL")
+    lines.append(f"Volume changes at {fmt(times[i])} min (typical subject, medians): " + ", ".join(parts))
+    return lines
+
+
 def summary(prop: dict[str, Any]) -> list[str]:
-    """One-screen summary lines: Jv for the individual and the typical subject, P(absorption).
+    """One-screen summary lines: Jv for the individual and the typical subject, P(absorption), and for a whole-body
+    study where the volume is over time (:func:`timeline_summary`).
 
     Parameters
     ----------
@@ -130,6 +173,8 @@ def summary(prop: dict[str, Any]) -> list[str]:
                          f"{interval(typ.get('ci95'))} {unit}")
         if prop.get("p_absorption") is not None:
             lines.append(f"P(absorption, Jv < 0) for the individual: {fmt(prop['p_absorption'], 3)}")
+    if isinstance(prop.get("timeline"), dict):
+        lines += timeline_summary(prop["timeline"])
     return lines
 
 

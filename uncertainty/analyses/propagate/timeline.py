@@ -171,6 +171,19 @@ def observed_points(study: Any) -> dict[str, dict[str, Any]]:
     return {k: v for k, v in out.items() if v["times_min"]}
 
 
+#: Times (min) a time course is printed at, where the study reports them (its end always): the times fluid-therapy
+#: questions are asked at (30, 60 and 120 min after an infusion starts; common practice), and 240 min for longer
+#: timelines.
+PRINT_TIMES_MIN = (30.0, 60.0, 120.0, 240.0)
+
+
+def printed_times(times_min: list[float]) -> list[int]:
+    """Indices of the report times ``times_min`` (min) that are printed: :data:`PRINT_TIMES_MIN` where reported, and
+    the end."""
+    times = list(times_min)
+    return sorted({times.index(t) for t in (*PRINT_TIMES_MIN, times[-1]) if t in times}) if times else []
+
+
 def band_over_time(series: list[np.ndarray]) -> dict[str, list[Any]]:
     """Median and equal-tailed 95 % interval over the draws at each report time (``series``: one array of draws per
     time, the course's unit): ``median`` list and ``ci95`` list of [low, high] (None where no draw is finite)."""
