@@ -48,10 +48,14 @@ _A1, _A2, _A3 = COEFFICIENTS["total"]
 #: Series threshold of the Bernoulli factor (``whole_body._PE_SERIES``).
 _PE_SERIES = 1e-4
 
-_jit = numba.njit(cache=True, fastmath=False, error_model="numpy")
+#: LLVM's floating-point freedoms the kernels take: reassociation, fused multiply-add, reciprocals and the sign of
+#: zero; not "no NaNs or infinities" (a bad draw's NaN must reach the log density) nor approximate functions. Our
+#: measurement (20 subjects, 48 steps, idle 2-core machine): forward 0.69 -> 0.62 ms, reverse 0.46 -> 0.33 ms.
+FASTMATH = {"reassoc", "contract", "arcp", "nsz"}
+_jit = numba.njit(cache=True, fastmath=FASTMATH, error_model="numpy")
 #: For the shared pieces of the right-hand side and its reverse pass: inlined where called (a call returning a
 #: tuple of 19 numbers cost as much as the arithmetic).
-_jit_inline = numba.njit(cache=True, fastmath=False, error_model="numpy", inline="always")
+_jit_inline = numba.njit(cache=True, fastmath=FASTMATH, error_model="numpy", inline="always")
 
 
 def quantity_rows(prepared: Any) -> list[Any]:
