@@ -136,3 +136,29 @@ def test_a_failed_time_course_is_a_note_not_a_lost_fit(setting: tuple, monkeypat
     monkeypatch.undo()
     api._add_timeline(result, built)
     assert set(result.doc["timeline"]["subjects"]) == {"A", "B", "C"}
+
+
+def test_each_readings_predictive_interval_is_the_convolution_in_closed_form(setting: tuple) -> None:
+    # stand-in posterior of each reading's noise-free prediction: normal, mean m_k and sd s_k; the reading error is
+    # normal with the term's sd e_k, so the predictive is normal(m_k, sqrt(s_k^2 + e_k^2)) and its 2.5 % and 97.5 %
+    # points come from scipy.stats.norm (the outside reference); 40,000 draws put the sampled quantiles within about
+    # 0.02 predictive sd of them
+    from scipy import stats
+
+    from uncertainty.analyses.inference.posterior_timeline import reading_intervals
+
+    _, built, _, _, _ = setting
+    (term,) = built.terms
+    e = np.asarray(built.model[f"{term.name}__sd"].get_value(), dtype=float)
+    k = e.size
+    m, s = np.linspace(0.85, 0.95, k), np.linspace(0.01, 0.03, k)
+    rng = np.random.default_rng(5)
+    pred = m + s * rng.standard_normal((40_000, k))
+    got = reading_intervals(built, az.from_dict(posterior={term.predicted: pred[None]}))
+    (course,) = got
+    entry = got[course]
+    assert course == "hb_ratio"
+    assert entry["subjects"] == ["A", "A", "B"] and entry["times_min"] == [30.0, 60.0, 45.0]  # C has one reading
+    scale = np.hypot(s, e)
+    want = np.stack([stats.norm.ppf(0.025, m, scale), stats.norm.ppf(0.975, m, scale)], axis=1)
+    np.testing.assert_allclose(entry["ci95"], want, atol=0.03 * scale.max())

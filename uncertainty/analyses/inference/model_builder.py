@@ -55,6 +55,7 @@ class ObservedTerm:
     predicted: str | None = None    # a Deterministic with the noise-free prediction
     subjects: np.ndarray | None = None   # subject index of each element (for leave-one-subject-out)
     label: str = ""
+    times_min: np.ndarray | None = None  # time of each element, min (timed readings on a whole-body course)
 
 
 @dataclasses.dataclass

@@ -16,12 +16,68 @@ import numpy as np
 
 from uncertainty.analyses.inference.observations.course import interpolation
 from uncertainty.analyses.inference.summaries import flat
-from uncertainty.analyses.propagate.timeline import band_over_time, courses_at, interventions_of, observed_points
+from uncertainty.analyses.propagate.timeline import (
+    OBSERVED_COURSES,
+    balance_as_weight_change,
+    band_over_time,
+    courses_at,
+    interventions_of,
+    observed_points,
+)
 from uncertainty.physiology.whole_body import TIMELINE_UNITS
 
 #: Posterior draws per subject the time courses are simulated at (a numerical choice for a displayed band: the
 #: 2.5 % point of 200 draws has a standard error of sqrt(0.025 x 0.975 / 200) = 1.1 percentile points, binomial).
 COURSE_DRAWS = 200
+#: Seed of the reading errors drawn for the readings' predictive intervals (fixed: the same fit gives the same
+#: intervals).
+PREDICTIVE_SEED = 0
+
+
+def reading_intervals(built: Any, idata: Any) -> dict[str, dict[str, Any]]:
+    """Each timed reading's 95 % posterior predictive interval on the scale its course's fan chart shows it.
+
+    A reading's predictive draws are its recorded noise-free prediction (``{term}__pred``, every posterior draw) plus
+    a normal reading error of the term's sd (the whole-body kinds take an sd), so the interval holds the course's
+    uncertainty and the reading's error. Readings relative to each subject's first (haemoglobin, haematocrit,
+    plasma protein: ratios; body weight: changes) and cumulative urine volumes are fitted on the chart's scale; a
+    charted fluid balance is shown as the weight change it implies (``balance_as_weight_change``); urine read as
+    rates is left out (its readings are flows over intervals, the chart shows volumes).
+
+    Parameters
+    ----------
+    built : BuiltModel
+        The model the draws come from.
+    idata : arviz.InferenceData
+        Posterior draws holding each term's ``{term}__pred``.
+
+    Returns
+    -------
+    dict
+        course -> ``subjects`` (labels), ``times_min`` (min), ``ci95`` ([low, high] per reading, the course's unit).
+    """
+    rng = np.random.default_rng(PREDICTIVE_SEED)
+    out: dict[str, dict[str, Any]] = {}
+    for term in built.terms:
+        kind = term.observation.kind
+        rv = built.model[term.name]
+        if (term.times_min is None or kind not in OBSERVED_COURSES or term.predicted not in idata.posterior
+                or rv.owner.op.name != "normal" or (kind == "urine" and term.observation.how == "rate")):
+            continue
+        pred = flat(idata, term.predicted)
+        pred = pred.reshape(pred.shape[0], -1)                               # (draw, reading)
+        sd = np.broadcast_to(np.asarray(rv.owner.inputs[-1].eval(), dtype=float).ravel(), pred.shape[1:])
+        lo, hi = np.quantile(pred + sd * rng.standard_normal(pred.shape), [0.025, 0.975], axis=0)
+        t = np.asarray(term.times_min, dtype=float)
+        if kind == "fluid_balance":
+            lo, hi = balance_as_weight_change(lo, t), balance_as_weight_change(hi, t)
+        labels = built.subjects or [""]
+        idx = term.subjects if term.subjects is not None else np.zeros(t.size, dtype=int)
+        entry = out.setdefault(OBSERVED_COURSES[kind][0], {"subjects": [], "times_min": [], "ci95": []})
+        entry["subjects"] += [labels[int(i)] for i in idx]
+        entry["times_min"] += [float(x) for x in t]
+        entry["ci95"] += [[float(a), float(b)] for a, b in zip(lo, hi, strict=True)]
+    return out
 
 
 def _thinned(n: int, k: int) -> np.ndarray:
@@ -71,7 +127,8 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
     -------
     dict or None
         ``times_min`` (list, min), ``units`` (course -> unit), ``draws``, ``interventions`` (as resolved),
-        ``observed`` (the readings as points on their courses, ``propagate.timeline.observed_points``), and per
+        ``observed`` (the readings as points on their courses, ``propagate.timeline.observed_points``),
+        ``predictive`` (each reading's 95 % posterior predictive interval, :func:`reading_intervals`), and per
         course ``median`` and ``ci95`` lists: under ``typical`` and ``subjects`` (label -> course -> band) for a
         study with subjects, under ``individual`` for the study's one individual; with subjects also ``as_read``
         (course -> subject -> band: the course over, or minus, its value at the subject's first reading, on the
@@ -98,6 +155,7 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
     observed = observed_points(study)
     if observed:
         out["observed"] = observed
+        out["predictive"] = reading_intervals(built, idata)
     by_subject = {name: [np.broadcast_to(np.asarray(y, dtype=float), (k * s,)).reshape(k, s) for y in sim[name]]
                   for name in TIMELINE_UNITS}
     if not built.hierarchical:
@@ -111,4 +169,4 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
     return out
 
 
-__all__ = ["COURSE_DRAWS", "posterior_timeline"]
+__all__ = ["COURSE_DRAWS", "PREDICTIVE_SEED", "posterior_timeline", "reading_intervals"]

@@ -14,9 +14,11 @@ from uncertainty.core.formatting import cell, fmt, interval
 from uncertainty.core.html import escape, kv_table, table
 
 CAPTIONS: tuple[Caption, ...] = (
-    ("timeline_subjects", "", "Each subject's posterior time course (median line, 95% band) with that subject's "
-                              "readings as points, on the scale they are fitted (haemoglobin, for one, over the "
-                              "subject's first reading); the band is the course's, without the reading error."),
+    ("timeline_subjects", "", "Each subject's posterior time course (median line, 95% band, without the reading "
+                              "error) with that subject's readings as points, on the scale they are fitted "
+                              "(haemoglobin, for one, over the subject's first reading), and grey bars giving each "
+                              "reading's 95% posterior predictive interval (course and reading error together): a "
+                              "point outside its bar is a reading the model does not reproduce."),
     ("timeline", "", "Posterior time courses of the typical subject: where the infused volume is over time "
                      "(plasma, each tissue bed's interstitium, urine), median and 95% band, with every subject's "
                      "readings on their course; shaded: the interventions."),

@@ -178,7 +178,8 @@ def add_relative_term(ctx: Any, obs: Observation, course: str, *, what: str, lab
     pred = relative_prediction(series, times, d, how)
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {note}")
-    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i, label=label))
+    ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=i, label=label,
+                              times_min=d["time"]))
 
 
 def relative_prediction(series: Any, times_min: list[float], d: dict[str, np.ndarray], how: str = "ratio") -> Any:

@@ -175,7 +175,7 @@ def add(ctx: Any, obs: Observation) -> None:
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {kind_note(obs)}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=d["subject"],
-                              label=HOWS[how]))
+                              label=HOWS[how], times_min=d["time"]))
 
 
 __all__ = ["COURSE", "HOWS", "NOTE", "RATE_NOTE", "TIMED", "add", "design", "how_of", "kind_note", "predicted",

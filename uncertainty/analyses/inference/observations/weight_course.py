@@ -186,7 +186,7 @@ def add(ctx: Any, obs: Observation) -> None:
     add_reading(name, pred, d["value"], sd=d["sd"])
     ctx.notes.append(f"{obs.key}: {BALANCE_NOTE}")
     ctx.add_term(ObservedTerm(name=name, observation=obs, predicted=f"{name}__pred", subjects=d["subject"],
-                              label="charted fluid balance since time 0"))
+                              label="charted fluid balance since time 0", times_min=d["time"]))
 
 
 __all__ = ["BALANCE_NOTE", "COURSE", "NOTE", "add", "balance_design", "balance_predicted", "charted_balance",
