@@ -343,6 +343,27 @@ def test_colloid_stays_longer_than_crystalloid(courses) -> None:
 
 
 @pytest.mark.xfail(strict=True, reason=(
+    "known gap: 5 % albumin persists far too long. After 1000 mL over 30 min the typical subject's plasma expansion "
+    "is 609 mL at the end of the infusion, 484 mL at 3 h and still 379 mL at 12 h (it never halves within 10 h), "
+    "against a published intravascular persistence half-life of 2-3 h. The infused protein stays in the plasma (the "
+    "plasma protein ratio rises to 1.12 by 12 h: no albumin catabolism, and the Patlak escape of the small PS "
+    "medians is matched by lymph return) and holds the water there while the renal excess, at the colloid's "
+    "clearance constant (7.1 mL/min on the dilution, a starch value), is about 1 mL/min; not built: an albumin "
+    "escape and turnover beyond the two beds' exchange"))
+def test_albumin_5_expansion_halves_within_hours() -> None:
+    # Hahn RG 2020 Acta Anaesthesiol Scand 64:570 (abstract, as above): colloid fluids have an intravascular
+    # persistence half-life of 2-3 hours. Check: the plasma volume expansion falls to half its value at the end of
+    # a 30-min infusion of 1000 mL of 5 % albumin within 1.5-4 h of that end (2-3 h widened for a typical-subject
+    # model and for reading the expansion, not the infused volume, as what persists).
+    body, beds, Cp0 = params()
+    sim = wb.simulate(body, beds, Cp0, dose("albumin_5", 1000.0, 30.0), 600.0, 5.0, max_step=1.0)
+    t = np.array(sim["times_min"])
+    pv = np.array([float(np.ravel(x)[0]) for x in sim["plasma_volume_change"]])
+    half = t[(t > 30.0) & (pv <= 0.5 * pv[t == 30.0][0])]
+    assert half.size and 90.0 <= half[0] - 30.0 <= 240.0
+
+
+@pytest.mark.xfail(strict=True, reason=(
     "known gap: the typical subject's plasma expands by at most about 11 % (334 mL, 1.5 x the 219 mL infused, at "
     "100 min), below the published mean's 95 % interval (12.4-19.8 %). The recruited fluid comes only from reversed "
     "filtration in the two beds (about 120 mL by 2 h) while lymph flow falls slightly; in volunteers half to two "
