@@ -11,11 +11,13 @@ import json
 import math
 import re
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
 from uncertainty.analyses.propagate import WHOLE_BODY_LYMPH_L_PER_DAY, propagate
 from uncertainty.analyses.validation import (
+    DEFAULT_SEED,
     KINDS,
     VERDICTS,
     ValidationResult,
@@ -210,3 +212,30 @@ def test_verdicts_on_a_small_table(tmp_path) -> None:
     assert [r.verdict for r in res.rows] == ["inside", "outside", "known gap", "known gap"]
     assert res.counts() == {"inside": 1, "outside": 1, "known gap": 2}
     assert res.closed_gaps() == ["r3"]
+
+
+def test_whole_body_rows_read_a_course_at_a_time_or_its_peak(tmp_path) -> None:
+    # an invented table of whole-body rows on one experiment (a 450 mL bleed over 10 min, 73 kg): Hb relative to
+    # rest at 60 min, the peak of the plasma volume change (its largest value: 0 at rest, the course only falls)
+    # and a refused join; the medians are the typical subject's, against the numpy course at the same draws
+    from uncertainty.analyses.propagate.timeline import courses_at
+    from uncertainty.analyses.sampling import draw
+    from uncertainty.study import Study
+
+    head = ('tissue = "skeletal_muscle"\nmodel = "whole_body"\nbody_mass = "73 kg"\nunit = "{unit}"\n'
+            'interventions = [{{ kind = "bleed", volume = "450 mL", duration = "10 min" }}]\n'
+            'timeline = {{ end = "120 min", report_every = "10 min" }}\nlow = 0.0\nhigh = 2.0\n'
+            'origin = "invented for a test"\nband = "invented"\n')
+    rows = [("hb", "hb_ratio at 60 min", "1"), ("peak", "peak plasma_volume_change", "mL"),
+            ("join", "hb_ratio at 60 min / hb_ratio at 30 min", "1"), ("nothing", "peak Jv", "1")]
+    text = "\n".join(f'[[row]]\nid = "{i}"\nquantity = "{q}"\n' + head.format(unit=u) for i, q, u in rows)
+    path = tmp_path / "table.toml"
+    path.write_text(text, encoding="utf-8")
+    res = validate(path=path, samples=64)
+    hb, peak, join, nothing = res.rows
+    study = Study.from_dict(hb.row.study_document())
+    sim = courses_at(study, draw(study, 64, seed=DEFAULT_SEED, layer="typical"), 120.0, 10.0)
+    want = np.median(np.asarray(sim["hb_ratio"][6], dtype=float))
+    assert hb.median == pytest.approx(want, rel=1e-9) and 0.9 < hb.median < 1.0 and hb.verdict == "inside"
+    assert peak.median == pytest.approx(0.0, abs=1e-9) and peak.row.group == "whole body"
+    assert "joined" in join.error and "no such time course" in nothing.error

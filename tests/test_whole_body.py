@@ -343,24 +343,28 @@ def test_colloid_stays_longer_than_crystalloid(courses) -> None:
 
 
 @pytest.mark.xfail(strict=True, reason=(
-    "known gap: 5 % albumin persists far too long. After 1000 mL over 30 min the typical subject's plasma expansion "
-    "is 609 mL at the end of the infusion, 484 mL at 3 h and still 379 mL at 12 h (it never halves within 10 h), "
-    "against a published intravascular persistence half-life of 2-3 h. The infused protein stays in the plasma (the "
-    "plasma protein ratio rises to 1.12 by 12 h: no albumin catabolism, and the Patlak escape of the small PS "
-    "medians is matched by lymph return) and holds the water there while the renal excess, at the colloid's "
-    "clearance constant (7.1 mL/min on the dilution, a starch value), is about 1 mL/min; not built: an albumin "
-    "escape and turnover beyond the two beds' exchange"))
-def test_albumin_5_expansion_halves_within_hours() -> None:
-    # Hahn RG 2020 Acta Anaesthesiol Scand 64:570 (abstract, as above): colloid fluids have an intravascular
-    # persistence half-life of 2-3 hours. Check: the plasma volume expansion falls to half its value at the end of
-    # a 30-min infusion of 1000 mL of 5 % albumin within 1.5-4 h of that end (2-3 h widened for a typical-subject
-    # model and for reading the expansion, not the infused volume, as what persists).
+    "known gap: 20 % albumin's plasma expansion lasts about twice as long as in volunteers: the typical subject's "
+    "expansion (peak 334 mL at 100 min) halves only by 900 min, 13.3 h after its peak. The infused protein leaves the "
+    "plasma too slowly: 1.7 %/h of the infused amount over the first 5 h and 2.2 %/h over the next 5 (the Patlak "
+    "escape of the two beds' PS medians), against 3.8 %/h in volunteers (Zdolsek M, Wuethrich PY, Gunnstrom M et al. "
+    "2022, 'Plasma disappearance rate of albumin when infused as a 20 % solution', Crit Care 26, abstract read "
+    "through the search tool: T1/2 16.2 h), so it holds the water in the plasma longer; the leaky viscera (gut, "
+    "liver), which carry much of the body's albumin escape, are not modelled (a gut-wall bed was tried, see the "
+    "Ringer's 15-min check)"))
+def test_albumin_20_expansion_half_life_as_in_volunteers() -> None:
+    # Zdolsek M, Sjoberg F, Hahn RG 2022 Intensive Care Med Exp 10:31 (abstract read through the search tool): 3 mL/kg
+    # of 20 % albumin over 30 min in 12 volunteers, half-life of the plasma volume expansion median 5.6 h (5.4 h
+    # over 120 min); Hasselgren E, Zdolsek M, Zdolsek JH et al. 2019 Anesth Analg, November issue, doi
+    # 10.1213/ANE.0000000000004047 (key points read through the search tool): intravascular half-life of the infused
+    # fluid 7 h in volunteers, 10 h in postoperative patients. Check: the typical subject's expansion falls from its
+    # peak to half of it within 4-9 h (5.4-7 h widened; the half-life read from the course, not fitted).
     body, beds, Cp0 = params()
-    sim = wb.simulate(body, beds, Cp0, dose("albumin_5", 1000.0, 30.0), 600.0, 5.0, max_step=1.0)
+    sim = wb.simulate(body, beds, Cp0, dose("albumin_20", 3.0 * BODY_KG, 30.0), 1440.0, 10.0, max_step=1.0)
     t = np.array(sim["times_min"])
     pv = np.array([float(np.ravel(x)[0]) for x in sim["plasma_volume_change"]])
-    half = t[(t > 30.0) & (pv <= 0.5 * pv[t == 30.0][0])]
-    assert half.size and 90.0 <= half[0] - 30.0 <= 240.0
+    k = int(np.argmax(pv))
+    half = t[(t > t[k]) & (pv <= 0.5 * pv[k])]
+    assert half.size and 240.0 <= half[0] - t[k] <= 540.0
 
 
 @pytest.mark.xfail(strict=True, reason=(

@@ -15,9 +15,12 @@ published value) or ``calibration`` (a prior was set so that this output meets t
 there is by construction and says only that the calibration still holds).
 
 Quantities: one name (``"pi_i"``), or two names joined by `` - `` or `` / `` (``"pi_c - pi_i"``), taken
-draw by draw from one run. With ``reference = { ... }`` the quantity is compared with a second run of
-the same row under other conditions or parameters (``op = "difference"`` or ``"ratio"``): draws are
-paired when both runs sample the same inputs, otherwise only the medians are compared.
+draw by draw from one run. A ``whole_body`` row gives its experiment as a study does (``interventions``,
+``timeline``, ``body_mass``) and reads a time course at a time (``"infused_retained_fraction at 30 min"``, the
+endpoints of ``study.endpoints``) or its largest value over the timeline (``"peak plasma_volume_change"``).
+With ``reference = { ... }`` the quantity is compared with a second run of the same row under other conditions
+or parameters (``op = "difference"`` or ``"ratio"``): draws are paired when both runs sample the same inputs,
+otherwise only the medians are compared.
 """
 
 from __future__ import annotations
@@ -32,11 +35,14 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.propagate import propagate
+from uncertainty.analyses.propagate.timeline import courses_at, values_at
 from uncertainty.analyses.sampling import draw
 from uncertainty.core.errors import InputError, StudyError
 from uncertainty.core.resources import priors_dir
 from uncertainty.forms.catalogue import output_unit
+from uncertainty.physiology.whole_body import TIMELINE_UNITS
 from uncertainty.study import Study
+from uncertainty.study.endpoints import is_time_endpoint, parse_time_endpoint
 
 #: File name of the table inside the shipped priors folder.
 TABLE_FILE = "validation.toml"
@@ -51,7 +57,9 @@ VERDICTS = ("inside", "outside", "known gap")
 _OPS = {" - ": "difference", " / ": "ratio"}
 _ROW_KEYS = {"id", "quantity", "tissue", "model", "conditions", "low", "high", "unit", "value", "origin",
              "band", "kind", "known_gap", "parameters", "tissue_mass", "posture_height", "reference",
-             "setting", "note"}
+             "setting", "note", "interventions", "timeline", "body_mass"}
+#: A whole-body row's quantity ``"peak NAME"``: the time course's largest value over the timeline.
+PEAK = "peak "
 
 
 @dataclass(frozen=True)
@@ -75,6 +83,7 @@ class ValidationRow:
         tissue_mass, posture_height: ``[study]`` keys, as strings with units.
         reference: a second run to compare with: ``conditions``, ``parameters``, ``op``.
         note: anything else a reader should know.
+        interventions, timeline, body_mass: a ``whole_body`` row's experiment, as the study file gives them.
     """
 
     id: str
@@ -96,6 +105,14 @@ class ValidationRow:
     posture_height: str | None = None
     reference: Mapping[str, Any] | None = None
     note: str = ""
+    interventions: tuple[Mapping[str, Any], ...] = ()
+    timeline: Mapping[str, Any] | None = None
+    body_mass: str | None = None
+
+    @property
+    def group(self) -> str:
+        """Where the docs list the row: ``whole body`` for the whole-body form's rows, else the tissue."""
+        return "whole body" if self.model == "whole_body" else self.tissue
 
     @property
     def terms(self) -> tuple[str, str | None, str | None]:
@@ -131,7 +148,13 @@ class ValidationRow:
             head["tissue_mass"] = self.tissue_mass
         if self.posture_height is not None and "posture" in conditions:
             head["posture_height"] = self.posture_height
+        if self.body_mass is not None:
+            head["body_mass"] = self.body_mass
         doc: dict[str, Any] = {"study": head}
+        if self.interventions:
+            doc["interventions"] = [dict(d) for d in self.interventions]
+        if self.timeline is not None:
+            doc["timeline"] = dict(self.timeline)
         if params:
             origin = self.setting or f"setting of validation row {self.id}"
             doc["parameters"] = {k: ({**v, "origin": v.get("origin", origin)} if isinstance(v, Mapping) else v)
@@ -260,7 +283,8 @@ def parse_row(raw: Mapping[str, Any], index: int, file: str = TABLE_FILE) -> Val
         known_gap=str(raw.get("known_gap", "")), parameters=dict(raw.get("parameters", {})),
         setting=str(raw.get("setting", "")), tissue_mass=raw.get("tissue_mass"),
         posture_height=raw.get("posture_height"), reference=dict(ref) if ref else None,
-        note=str(raw.get("note", "")))
+        note=str(raw.get("note", "")), interventions=tuple(dict(d) for d in raw.get("interventions", ())),
+        timeline=dict(raw["timeline"]) if "timeline" in raw else None, body_mass=raw.get("body_mass"))
 
 
 def load_table(path: str | Path | None = None, tissue: str | None = None) -> list[ValidationRow]:
@@ -330,8 +354,40 @@ def _combine(a: Any, op: str | None, b: Any) -> Any:
         return a - b if op == "difference" else a / b
 
 
+def _course(study: Study, text: str) -> tuple[str, Any]:
+    """(time course, None for its peak or the parsed endpoint) of a whole-body row's quantity, or ("", None)."""
+    if study.timeline is None:
+        return "", None
+    if text.startswith(PEAK):
+        name = text[len(PEAK):].strip()
+        if name not in TIMELINE_UNITS:
+            raise InputError(f"no such time course; the whole_body form reports {', '.join(TIMELINE_UNITS)}",
+                             key="quantity", value=text)
+        return name, None
+    if is_time_endpoint(text):
+        point = parse_time_endpoint(text, study.timeline, key="quantity")
+        return point.name, point  # type: ignore[union-attr]
+    return "", None
+
+
+def _course_draws(study: Study, text: str, samples: int, seed: int) -> np.ndarray:
+    """Typical-subject draws of a time course at a time, or of its largest value over the timeline."""
+    name, point = _course(study, text)
+    values = draw(study, samples, seed=seed, layer="typical")
+    if point is not None:
+        return values_at(study, point, values)
+    plan = study.timeline
+    sim = courses_at(study, values, plan.end, plan.report_every)  # type: ignore[union-attr]
+    return np.max(np.stack([np.broadcast_to(np.asarray(x, dtype=float), (samples,)) for x in sim[name]]), axis=0)
+
+
 def _quantity(row: ValidationRow, study: Study, samples: int, seed: int) -> np.ndarray:
     a, op, b = row.terms
+    if _course(study, a)[0]:
+        if op is not None:
+            raise InputError("a time course is compared alone, not joined with another quantity", key="quantity",
+                             value=row.quantity)
+        return _course_draws(study, a, samples, seed)
     d = _draws(study, [a] + ([b] if b else []), samples, seed)
     return _combine(d[a], op, d[b] if b else None)
 
@@ -387,6 +443,9 @@ def _unit_of(row: ValidationRow, study: Study) -> str | None:
     a, op, b = row.terms
     if op == "ratio" or (row.reference and row.reference.get("op") == "ratio"):
         return "1"
+    course = _course(study, a)[0]
+    if course:
+        return TIMELINE_UNITS[course]
 
     def unit(name: str) -> str | None:
         if output_unit(name):
@@ -456,6 +515,9 @@ def _band(row: ValidationRow) -> str:
 
 
 def _conditions(row: ValidationRow) -> str:
+    if row.interventions:  # a whole-body row: its experiment
+        return "; ".join(f"{d.get('fluid', d.get('kind', ''))} {d.get('volume', '')} over {d.get('duration', '0 min')}"
+                         for d in row.interventions)
     text = ", ".join(row.conditions) or "normal"
     if row.reference:
         ref = ", ".join(row.reference.get("conditions", row.conditions)) or "normal"
@@ -542,16 +604,16 @@ def markdown(result: ValidationResult) -> str:
         "| tissue | rows | inside | outside | known gaps |",
         "| --- | ---: | ---: | ---: | ---: |",
     ]
-    tissues = list(dict.fromkeys(rr.row.tissue for rr in result.rows))
+    tissues = list(dict.fromkeys(rr.row.group for rr in result.rows))
     for t in tissues:
-        rs = [rr for rr in result.rows if rr.row.tissue == t]
+        rs = [rr for rr in result.rows if rr.row.group == t]
         out.append(f"| {t} | {len(rs)} | {sum(r.verdict == 'inside' for r in rs)} | "
                    f"{sum(r.verdict == 'outside' for r in rs)} | {sum(r.verdict == 'known gap' for r in rs)} |")
     for t in tissues:
         out += ["", f"## {t}", "",
                 "| id | quantity | conditions | form | kind | band | median | 95 % interval | unit | verdict |",
                 "| --- | --- | --- | --- | --- | --- | ---: | --- | --- | --- |"]
-        rs = [rr for rr in result.rows if rr.row.tissue == t]
+        rs = [rr for rr in result.rows if rr.row.group == t]
         for rr in rs:
             r = rr.row
             ci = f"[{_fmt(rr.ci95[0])}, {_fmt(rr.ci95[1])}]"
