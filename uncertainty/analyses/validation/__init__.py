@@ -542,7 +542,8 @@ def table(result: ValidationResult, *, sources: bool = False) -> str:
     -------
     str
     """
-    head = (f"{'tissue':<18}{'quantity':<15}{'conditions':<34}{'form':<13}{'band':>20}{'median':>10}"
+    qw = max([15] + [len(rr.row.quantity) + 2 for rr in result.rows])  # whole-body endpoints run longer
+    head = (f"{'tissue':<18}{'quantity':<{qw}}{'conditions':<34}{'form':<13}{'band':>20}{'median':>10}"
             f"{'95% interval':>22}  {'unit':<17}{'verdict':<10}")
     lines = [head, "-" * len(head)]
     for rr in result.rows:
@@ -550,7 +551,7 @@ def table(result: ValidationResult, *, sources: bool = False) -> str:
         ci = f"[{_fmt(rr.ci95[0])}, {_fmt(rr.ci95[1])}]"
         verdict = rr.verdict + (" (calibration)" if r.kind == "calibration" else "") + \
             (" (input)" if r.kind == "input" else "")
-        lines.append(f"{r.tissue:<18}{r.quantity:<15}{_conditions(r)[:33]:<34}{r.model:<13}{_band(r):>20}"
+        lines.append(f"{r.tissue:<18}{r.quantity:<{qw}}{_conditions(r)[:33]:<34}{r.model:<13}{_band(r):>20}"
                      f"{_fmt(rr.median):>10}{ci:>22}  {r.unit:<17}{verdict}")
         if sources:
             lines.append(f"{'':<18}id {r.id}; source: {r.source}")
