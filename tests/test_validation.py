@@ -156,6 +156,15 @@ def test_validate_command_unknown_tissue_is_bad_input() -> None:
     assert res.exit_code == 2
 
 
+def test_validate_command_keeps_one_model_form() -> None:
+    # the shipped whole-body rows only (the ids of priors/validation.toml); an unknown form is bad input
+    doc = json.loads(CliRunner().invoke(main, ["validate", "--form", "whole_body", "--json"]).stdout)
+    ids = [r["id"] for r in doc["rows"]]
+    assert ids and all(i.startswith("whole_body.") for i in ids) and "whole_body.hb_ratio.donation_6h" in ids
+    res = CliRunner().invoke(main, ["validate", "--form", "no_such_form"])
+    assert res.exit_code == 2 and "form" in res.output
+
+
 # --------------------------------------------------------------------------- plausibility guard
 
 def _study(tissue: str, model: str, conditions: list[str], mass: str) -> Study:

@@ -287,8 +287,9 @@ def parse_row(raw: Mapping[str, Any], index: int, file: str = TABLE_FILE) -> Val
         timeline=dict(raw["timeline"]) if "timeline" in raw else None, body_mass=raw.get("body_mass"))
 
 
-def load_table(path: str | Path | None = None, tissue: str | None = None) -> list[ValidationRow]:
-    """Rows of the validation table, optionally those of one tissue.
+def load_table(path: str | Path | None = None, tissue: str | None = None, form: str | None = None
+               ) -> list[ValidationRow]:
+    """Rows of the validation table, optionally those of one tissue and / or one model form.
 
     Parameters
     ----------
@@ -296,6 +297,8 @@ def load_table(path: str | Path | None = None, tissue: str | None = None) -> lis
         The TOML file; default the shipped ``validation.toml`` (:func:`table_path`).
     tissue : str, optional
         Keep only this tissue's rows.
+    form : str, optional
+        Keep only the rows of this model form (``whole_body``).
 
     Returns
     -------
@@ -319,6 +322,8 @@ def load_table(path: str | Path | None = None, tissue: str | None = None) -> lis
         seen.add(r.id)
     if tissue is not None:
         rows = [r for r in rows if r.tissue == tissue]
+    if form is not None:
+        rows = [r for r in rows if r.model == form]
     return rows
 
 
@@ -467,13 +472,15 @@ def _result(row: ValidationRow, med: float, ci: tuple[float, float], paired: boo
 
 
 def validate(tissue: str | None = None, *, samples: int = DEFAULT_SAMPLES, seed: int = DEFAULT_SEED,
-             path: str | Path | None = None) -> ValidationResult:
+             path: str | Path | None = None, form: str | None = None) -> ValidationResult:
     """Every row of the validation table beside the model's prediction.
 
     Parameters
     ----------
     tissue : str, optional
         Only this tissue's rows.
+    form : str, optional
+        Only this model form's rows (``whole_body``).
     samples : int
         Draws per run (default :data:`DEFAULT_SAMPLES`).
     seed : int
@@ -488,11 +495,13 @@ def validate(tissue: str | None = None, *, samples: int = DEFAULT_SAMPLES, seed:
     Raises
     ------
     StudyError
-        A malformed table, or a tissue with no rows.
+        A malformed table, or a tissue or form with no rows.
     """
-    rows = load_table(path, tissue)
+    rows = load_table(path, tissue, form)
     if tissue is not None and not rows:
         raise StudyError("no validation rows for this tissue", key="tissue", value=tissue)
+    if form is not None and not rows:
+        raise StudyError("no validation rows for this model form", key="form", value=form)
     p = Path(path) if path is not None else table_path()
     return ValidationResult(rows=[predict_row(r, samples=samples, seed=seed) for r in rows], samples=samples,
                             seed=seed, table=p.name)

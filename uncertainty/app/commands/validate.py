@@ -12,17 +12,21 @@ from uncertainty.core.serialise import to_json
 
 @click.command("validate", short_help="Published measurements beside the model's predictions.")
 @click.option("--tissue", default=None, help="Only this tissue's rows (a prior set name).")
+@click.option("--form", "form", default=None,
+              help="Only the rows of this model form, e.g. whole_body (the time courses after infusions and bleeds).")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout and nothing else.")
 @click.option("--out", "out", type=click.Path(file_okay=False), default=None,
               help="Folder for validation.json, validation.csv and validation.md.")
 @click.option("--sources", is_flag=True, help="Print each row's source and known-gap reason beneath it.")
 @handle_errors
-def command(tissue: str | None, as_json: bool, out: str | None, sources: bool) -> None:
+def command(tissue: str | None, form: str | None, as_json: bool, out: str | None, sources: bool) -> None:
     """Each published measurement of the validation table (quantity, tissue, conditions, band, source)
     beside the model's median and 95 % interval for the typical subject, with a verdict: inside, outside
-    or known gap. Exit status 3 when a row not marked as a known gap lies outside its band."""
+    or known gap. Exit status 3 when a row not marked as a known gap lies outside its band.
 
-    result = validate(tissue)
+    Example: fluidshift validate --form whole_body --sources"""
+
+    result = validate(tissue, form=form)
     doc = result.to_dict()
     if out:
         import csv
