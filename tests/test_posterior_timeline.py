@@ -102,7 +102,9 @@ def test_the_table_and_the_figures(setting: tuple, tmp_path: Path) -> None:
     html = section_html({"timeline": tl})
     assert "Where the volume is over time" in html and html.count("<table") == 2 and ">typical<" in html
     glance = summary({"Jv": {"mean": 0.01, "ci95": [0.0, 0.02]}, "timeline": tl})
-    assert len(glance) == 2 and glance[1].startswith("Share of the infused volume in the plasma (typical subject")
+    assert len(glance) == 3 and glance[1].startswith("Share of the infused volume in the plasma (typical subject, "
+                                                     "posterior median")
+    assert glance[2].startswith("Volume changes at 30 min (typical subject, posterior medians): plasma +")
 
 
 def test_each_subjects_band_on_the_scale_of_its_readings(tmp_path: Path) -> None:

@@ -9,6 +9,7 @@ from typing import Any
 from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe
 from uncertainty.analyses.inference.table import TIMELINE_HEAD, TIMELINE_NOTE, TIMELINE_PRINTED, timeline_rows
+from uncertainty.analyses.propagate.report_section import timeline_summary
 from uncertainty.analyses.result import Caption
 from uncertainty.core.formatting import cell, fmt, interval
 from uncertainty.core.html import escape, kv_table, table
@@ -82,7 +83,8 @@ def section_html(res: dict[str, Any]) -> str:
 
 
 def summary(inf: dict[str, Any]) -> list[str]:
-    """One-screen summary line: Jv after the observations and whether the diagnostics passed.
+    """One-screen summary lines: Jv after the observations and whether the diagnostics passed; for a whole-body
+    study where the volume is over time (``propagate.report_section.timeline_summary`` on the posterior courses).
 
     Parameters
     ----------
@@ -92,7 +94,7 @@ def summary(inf: dict[str, Any]) -> list[str]:
     Returns
     -------
     list of str
-        One line, or none without a Jv block.
+        Jv's line (and the time courses' two), or none without a Jv block.
     """
     if not isinstance(inf.get("Jv"), dict):
         return []
@@ -103,13 +105,8 @@ def summary(inf: dict[str, Any]) -> list[str]:
     lines = [f"Jv after the observations{level}: mean {fmt(jv.get('mean'), 3)}, 95% credible interval "
              f"{interval(jv.get('ci95'))} {unit}".rstrip()
              + (f"  (diagnostics {'passed' if diag.get('passed') else 'FAILED'})" if diag else "")]
-    blocks = timeline_rows(inf)
-    if blocks:   # a whole-body study: the infused volume's share in the plasma, first level (typical or individual)
-        _, _, heads, rows = blocks[0]
-        label, cells = rows[0]
-        who = "typical subject" if label == "typical" else label
-        at = ", ".join(f"{h} {c}" for h, c in zip(heads, cells, strict=True))
-        lines.append(f"Share of the infused volume in the plasma ({who}, posterior median [95% interval]): {at}")
+    if isinstance(inf.get("timeline"), dict):   # a whole-body study: where the volume is (typical or individual)
+        lines += timeline_summary(inf["timeline"], posterior=True)
     return lines
 
 

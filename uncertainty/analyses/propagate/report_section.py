@@ -107,23 +107,29 @@ def timeline_html(tl: dict[str, Any], every: int = 6) -> str:
     return intro + table(["quantity", "time (min)", "median", "95% interval", "unit"], rows, num_cols={1, 2})
 
 
-def timeline_summary(tl: dict[str, Any]) -> list[str]:
-    """Summary lines of a whole-body timeline (typical subject): the share of the intervention's volume in the plasma
-    at the printed times (``timeline.printed_times``), median [95% interval]; and, at the first printed time after
-    the interventions end (else the last), where the volume is: the plasma, each bed's interstitium and the urine
-    since 0 (medians).
+def timeline_summary(tl: dict[str, Any], posterior: bool = False) -> list[str]:
+    """Summary lines of a whole-body timeline (the typical subject, else the study's individual): the share of the
+    intervention's volume in the plasma at the printed times (``timeline.printed_times``), median [95% interval];
+    and, at the first printed time after the interventions end (else the last), where the volume is: the plasma,
+    each bed's interstitium and the urine since 0 (medians).
 
     Parameters
     ----------
     tl : dict
-        The stored ``timeline`` entry (``times_min``, ``units``, ``typical``, ``interventions``).
+        A stored ``timeline`` entry (``times_min``, ``typical`` or ``individual``, ``interventions``): propagate's, or
+        an inference result's posterior time courses.
+    posterior : bool
+        Say "posterior median" (an inference result's courses).
 
     Returns
     -------
     list of str
-        Two lines, or none without the typical subject's courses.
+        Two lines, or none without the courses.
     """
-    typ, times = tl.get("typical") or {}, list(tl.get("times_min") or [])
+    layer = "typical" if tl.get("typical") else "individual"
+    who = "typical subject" if layer == "typical" else "the study's individual"
+    median = "posterior median" if posterior else "median"
+    typ, times = tl.get(layer) or {}, list(tl.get("times_min") or [])
     share = typ.get("infused_retained_fraction")
     if not share or not times:
         return []
@@ -132,7 +138,7 @@ def timeline_summary(tl: dict[str, Any]) -> list[str]:
     what = "the infused volume in the plasma" if infused else "the plasma lost still missing"
     cells = ", ".join(f"{fmt(times[i])} min {fmt(share['median'][i], 3)} [{fmt(share['ci95'][i][0], 3)}, "
                       f"{fmt(share['ci95'][i][1], 3)}]" for i in at)
-    lines = [f"Share of {what} (typical subject, median [95% interval]): {cells}"]
+    lines = [f"Share of {what} ({who}, {median} [95% interval]): {cells}"]
     end = max((d.get("start_min", 0.0) + d.get("duration_min", 0.0) for d in tl.get("interventions") or []),
               default=0.0)
     i = next((k for k in at if times[k] >= end), at[-1])
@@ -144,7 +150,7 @@ def timeline_summary(tl: dict[str, Any]) -> list[str]:
     parts += [f"{name.removeprefix('interstitial_volume_change_')} interstitium {ml(name)}"
               for name in typ if name.startswith("interstitial_volume_change_")]
     parts.append(f"urine since 0 {typ['urine_volume']['median'][i]:.0f} mL")
-    lines.append(f"Volume changes at {fmt(times[i])} min (typical subject, medians): " + ", ".join(parts))
+    lines.append(f"Volume changes at {fmt(times[i])} min ({who}, {median}s): " + ", ".join(parts))
     return lines
 
 
