@@ -454,3 +454,42 @@ def test_kf_keeps_its_own_spread_factor_under_red_cell_readings(tmp_path: Path, 
     assert ("Kf__spread_z" in free) is (kind == "haematocrit")
     joint_note = next(n for n in built.notes if n.startswith("one between-subject spread factor"))
     assert ("Kf" in joint_note.split(" for ")[1].split(" (")[0].split(", ")) is (kind != "haematocrit")
+
+
+def test_each_kinds_reading_intervals_on_its_chart(tmp_path: Path) -> None:
+    # haematocrit (ratios, per-reading sds), cumulative urine (one sd), a charted balance (shown as the weight change
+    # it implies) and urine read as rates (left out: the chart shows volumes). A stand-in posterior puts each
+    # reading's prediction at a fixed value c, so its predictive is normal(c, sd) and the interval's ends are
+    # c -/+ 1.959964 sd (scipy.stats.norm, the outside reference), within 0.06 sd (about 4.5 standard errors of a
+    # 2.5 % quantile from 40,000 draws)
+    import arviz as az
+    from scipy import stats
+
+    from uncertainty.analyses.inference.model_builder import build_model
+    from uncertainty.analyses.inference.posterior_timeline import reading_intervals
+    from uncertainty.analyses.propagate.timeline import balance_as_weight_change
+
+    (tmp_path / "cum.csv").write_text("subject,time_min,value\nA,30,80\nB,60,150\n", encoding="utf-8")
+    cum = {"kind": "urine", "file": "cum.csv", "unit": "mL", "sd": 5.0}
+    built = build_model(_problem(tmp_path, [HCT, cum, BALANCE, RATE]), structure_only=True)
+    post = {}
+    for term in built.terms:
+        n = int(np.asarray(built.model[f"{term.name}__data"].get_value()).size)
+        post[term.predicted] = np.broadcast_to(np.linspace(0.5, 1.5, n), (1, 40_000, n))
+    got = reading_intervals(built, az.from_dict(posterior=post))
+    assert set(got) == {"hb_ratio", "urine_volume", "body_weight_change"}   # the rates are left out
+    z = stats.norm.ppf(0.975)
+    for term in built.terms:
+        kind = term.observation.kind
+        if kind == "urine" and urine.how_of(term.observation) == "rate":
+            continue
+        course = {"haematocrit": "hb_ratio", "urine": "urine_volume", "fluid_balance": "body_weight_change"}[kind]
+        entry = got[course]
+        sd = np.broadcast_to(np.asarray(built.model[term.name].owner.inputs[-1].eval(), float).ravel(),
+                             term.times_min.shape)
+        c = np.linspace(0.5, 1.5, sd.size)
+        lo, hi = c - z * sd, c + z * sd
+        if kind == "fluid_balance":
+            lo, hi = balance_as_weight_change(lo, term.times_min), balance_as_weight_change(hi, term.times_min)
+        np.testing.assert_allclose(entry["ci95"], np.stack([lo, hi], axis=1), atol=0.06 * float(sd.min()))
+        assert entry["times_min"] == [float(t) for t in term.times_min]   # one term per course here

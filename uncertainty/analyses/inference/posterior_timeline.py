@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 
 from uncertainty.analyses.inference.observations.course import interpolation
+from uncertainty.analyses.inference.observations.urine import how_of
 from uncertainty.analyses.inference.summaries import flat
 from uncertainty.analyses.propagate.timeline import (
     OBSERVED_COURSES,
@@ -62,7 +63,7 @@ def reading_intervals(built: Any, idata: Any) -> dict[str, dict[str, Any]]:
         kind = term.observation.kind
         rv = built.model[term.name]
         if (term.times_min is None or kind not in OBSERVED_COURSES or term.predicted not in idata.posterior
-                or rv.owner.op.name != "normal" or (kind == "urine" and term.observation.how == "rate")):
+                or rv.owner.op.name != "normal" or (kind == "urine" and how_of(term.observation) == "rate")):
             continue
         pred = flat(idata, term.predicted)
         pred = pred.reshape(pred.shape[0], -1)                               # (draw, reading)
