@@ -43,7 +43,8 @@ def reading_intervals(built: Any, idata: Any) -> dict[str, dict[str, Any]]:
     uncertainty and the reading's error. Readings relative to each subject's first (haemoglobin, haematocrit,
     plasma protein: ratios; body weight: changes) and cumulative urine volumes are fitted on the chart's scale; a
     charted fluid balance is shown as the weight change it implies (``balance_as_weight_change``); urine read as
-    rates is left out (its readings are flows over intervals, the chart shows volumes).
+    rates is left out (its readings are flows over intervals, the chart shows volumes), as is a term whose reading
+    error is itself estimated (none of the whole-body kinds).
 
     Parameters
     ----------
@@ -57,6 +58,8 @@ def reading_intervals(built: Any, idata: Any) -> dict[str, dict[str, Any]]:
     dict
         course -> ``subjects`` (labels), ``times_min`` (min), ``ci95`` ([low, high] per reading, the course's unit).
     """
+    from pytensor.graph.traversal import ancestors
+
     rng = np.random.default_rng(PREDICTIVE_SEED)
     out: dict[str, dict[str, Any]] = {}
     for term in built.terms:
@@ -65,9 +68,12 @@ def reading_intervals(built: Any, idata: Any) -> dict[str, dict[str, Any]]:
         if (term.times_min is None or kind not in OBSERVED_COURSES or term.predicted not in idata.posterior
                 or rv.owner.op.name != "normal" or (kind == "urine" and how_of(term.observation) == "rate")):
             continue
+        sigma = rv.owner.inputs[-1]
+        if set(ancestors([sigma])) & set(built.model.free_RVs):   # an estimated reading error: not drawn here
+            continue
         pred = flat(idata, term.predicted)
         pred = pred.reshape(pred.shape[0], -1)                               # (draw, reading)
-        sd = np.broadcast_to(np.asarray(rv.owner.inputs[-1].eval(), dtype=float).ravel(), pred.shape[1:])
+        sd = np.broadcast_to(np.asarray(sigma.eval(), dtype=float).ravel(), pred.shape[1:])
         lo, hi = np.quantile(pred + sd * rng.standard_normal(pred.shape), [0.025, 0.975], axis=0)
         t = np.asarray(term.times_min, dtype=float)
         if kind == "fluid_balance":
