@@ -147,7 +147,7 @@ def test_each_readings_predictive_interval_is_the_convolution_in_closed_form(set
     # 0.02 predictive sd of them
     from scipy import stats
 
-    from uncertainty.analyses.inference.posterior_timeline import reading_intervals
+    from uncertainty.analyses.inference.posterior_timeline import coverage, reading_intervals
 
     _, built, _, _, _ = setting
     (term,) = built.terms
@@ -164,3 +164,9 @@ def test_each_readings_predictive_interval_is_the_convolution_in_closed_form(set
     scale = np.hypot(s, e)
     want = np.stack([stats.norm.ppf(0.025, m, scale), stats.norm.ppf(0.975, m, scale)], axis=1)
     np.testing.assert_allclose(entry["ci95"], want, atol=0.03 * scale.max())
+    # each reading as fitted beside its interval, and the count inside
+    y = np.asarray(built.model[f"{term.name}__data"].get_value(), dtype=float)
+    assert entry["values"] == pytest.approx(list(y))
+    lo, hi = np.asarray(entry["ci95"]).T
+    assert entry["inside"] == [bool(a <= v <= b) for a, v, b in zip(lo, y, hi, strict=True)]
+    assert coverage(got) == (sum(entry["inside"]), 3) and coverage({}) == (0, 0)

@@ -127,10 +127,14 @@ def timeline_fans(result: Any, out_dir: str) -> list[str]:
                                  sharey=True)
         for ax, sid in zip(axes.ravel(), subjects, strict=False):
             draw_band(ax, t, (tl.get("as_read") or {}).get(name, {}).get(sid) or tl["subjects"][sid][name], "#3b6ea5")
-            pred = (tl.get("predictive") or {}).get(name) or {"subjects": [], "times_min": [], "ci95": []}
+            pred = (tl.get("predictive") or {}).get(name) or {"subjects": [], "times_min": [], "ci95": [],
+                                                              "values": [], "inside": []}
             bars = [k for k, s in enumerate(pred["subjects"]) if s == sid]
             ax.vlines([pred["times_min"][k] for k in bars], [pred["ci95"][k][0] for k in bars],
                       [pred["ci95"][k][1] for k in bars], color="#8a8a8a", lw=1.6, zorder=2)
+            out = [k for k in bars if not pred["inside"][k]]
+            ax.plot([pred["times_min"][k] for k in out], [pred["values"][k] for k in out], "o", mfc="none",
+                    mec="#c0392b", ms=7, mew=1.4, zorder=4)
             mine = [k for k, s in enumerate(obs["subjects"]) if s == sid]
             ax.plot([obs["times_min"][k] for k in mine], [obs["values"][k] for k in mine], "o", color="#222222",
                     ms=3)
@@ -141,7 +145,8 @@ def timeline_fans(result: Any, out_dir: str) -> list[str]:
         unit = tl["units"].get(name, "")
         scale = f" {_obs_legend(obs)}" if _obs_legend(obs) else ""
         fig.suptitle(f"{name}{scale}: each subject's posterior course (band: median, 95% interval, reading error "
-                     "not included), readings (points) and their 95% predictive intervals (bars)", fontsize=9)
+                     "not included), readings (points) and their 95% predictive intervals (bars; red ring: "
+                     "outside)", fontsize=9)
         fig.supxlabel("time (min)", fontsize=8)
         fig.supylabel(f"{name} ({unit})" if unit and unit != "1" else name, fontsize=8)
         fig.tight_layout()

@@ -56,7 +56,8 @@ def reading_intervals(built: Any, idata: Any) -> dict[str, dict[str, Any]]:
     Returns
     -------
     dict
-        course -> ``subjects`` (labels), ``times_min`` (min), ``ci95`` ([low, high] per reading, the course's unit).
+        course -> ``subjects`` (labels), ``times_min`` (min), ``ci95`` ([low, high] per reading, the course's unit),
+        ``values`` (the readings as fitted, on the same scale) and ``inside`` (whether each lies in its interval).
     """
     from pytensor.graph.traversal import ancestors
 
@@ -75,16 +76,28 @@ def reading_intervals(built: Any, idata: Any) -> dict[str, dict[str, Any]]:
         pred = pred.reshape(pred.shape[0], -1)                               # (draw, reading)
         sd = np.broadcast_to(np.asarray(sigma.eval(), dtype=float).ravel(), pred.shape[1:])
         lo, hi = np.quantile(pred + sd * rng.standard_normal(pred.shape), [0.025, 0.975], axis=0)
+        y = np.asarray(built.model[f"{term.name}__data"].get_value(), dtype=float).ravel()
+        inside = (y >= lo) & (y <= hi)
         t = np.asarray(term.times_min, dtype=float)
         if kind == "fluid_balance":
-            lo, hi = balance_as_weight_change(lo, t), balance_as_weight_change(hi, t)
+            lo, hi, y = (balance_as_weight_change(x, t) for x in (lo, hi, y))
         labels = built.subjects or [""]
         idx = term.subjects if term.subjects is not None else np.zeros(t.size, dtype=int)
-        entry = out.setdefault(OBSERVED_COURSES[kind][0], {"subjects": [], "times_min": [], "ci95": []})
+        entry = out.setdefault(OBSERVED_COURSES[kind][0],
+                               {"subjects": [], "times_min": [], "ci95": [], "values": [], "inside": []})
         entry["subjects"] += [labels[int(i)] for i in idx]
         entry["times_min"] += [float(x) for x in t]
         entry["ci95"] += [[float(a), float(b)] for a, b in zip(lo, hi, strict=True)]
+        entry["values"] += [float(v) for v in y]
+        entry["inside"] += [bool(v) for v in inside]
     return out
+
+
+def coverage(predictive: dict[str, dict[str, Any]]) -> tuple[int, int]:
+    """(readings inside their 95 % predictive interval, readings) over every course of :func:`reading_intervals`;
+    about 95 % inside is what a model that reproduces the readings gives."""
+    flags = [f for entry in predictive.values() for f in entry.get("inside", [])]
+    return sum(flags), len(flags)
 
 
 def _thinned(n: int, k: int) -> np.ndarray:
@@ -176,4 +189,4 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
     return out
 
 
-__all__ = ["COURSE_DRAWS", "PREDICTIVE_SEED", "posterior_timeline", "reading_intervals"]
+__all__ = ["COURSE_DRAWS", "PREDICTIVE_SEED", "coverage", "posterior_timeline", "reading_intervals"]
