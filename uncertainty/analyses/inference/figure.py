@@ -133,8 +133,9 @@ def timeline_fans(result: Any, out_dir: str) -> list[str]:
             ax.vlines([pred["times_min"][k] for k in bars], [pred["ci95"][k][0] for k in bars],
                       [pred["ci95"][k][1] for k in bars], color="#8a8a8a", lw=1.6, zorder=2)
             out = [k for k in bars if not pred["inside"][k]]
-            ax.plot([pred["times_min"][k] for k in out], [pred["values"][k] for k in out], "o", mfc="none",
-                    mec="#c0392b", ms=7, mew=1.4, zorder=4)
+            if out:   # rings drawn over the axes' edge too (an empty unclipped line upsets the tight layout)
+                ax.plot([pred["times_min"][k] for k in out], [pred["values"][k] for k in out], "o", mfc="none",
+                        mec="#c0392b", ms=7, mew=1.4, zorder=4, clip_on=False)
             mine = [k for k, s in enumerate(obs["subjects"]) if s == sid]
             ax.plot([obs["times_min"][k] for k in mine], [obs["values"][k] for k in mine], "o", color="#222222",
                     ms=3)
@@ -145,8 +146,8 @@ def timeline_fans(result: Any, out_dir: str) -> list[str]:
         unit = tl["units"].get(name, "")
         scale = f" {_obs_legend(obs)}" if _obs_legend(obs) else ""
         fig.suptitle(f"{name}{scale}: each subject's posterior course (band: median, 95% interval, reading error "
-                     "not included), readings (points) and their 95% predictive intervals (bars; red ring: "
-                     "outside)", fontsize=9)
+                     "not included),\nreadings (points) and their 95% predictive intervals (bars; red ring: outside)",
+                     fontsize=9)
         fig.supxlabel("time (min)", fontsize=8)
         fig.supylabel(f"{name} ({unit})" if unit and unit != "1" else name, fontsize=8)
         fig.tight_layout()
