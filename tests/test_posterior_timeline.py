@@ -170,3 +170,35 @@ def test_each_readings_predictive_interval_is_the_convolution_in_closed_form(set
     lo, hi = np.asarray(entry["ci95"]).T
     assert entry["inside"] == [bool(a <= v <= b) for a, v, b in zip(lo, y, hi, strict=True)]
     assert coverage(got) == (sum(entry["inside"]), 3) and coverage({}) == (0, 0)
+
+
+def test_an_estimated_reading_error_gets_no_interval_and_the_count_is_said_once() -> None:
+    # a term whose sd is a free variable is left out (its error would need drawing with the posterior); a term
+    # with a fixed sd is kept, and coverage_line counts it (the sentence the terminal table and the summary share)
+    import types
+
+    import pymc as pm
+
+    from uncertainty.analyses.inference.posterior_timeline import coverage_line, reading_intervals
+
+    with pm.Model() as model:
+        mu = pm.Normal("mu", 1.0, 0.1)
+        noise = pm.HalfNormal("noise", 0.1)
+        pm.Deterministic("fixed__pred", mu * np.ones(2))
+        pm.Deterministic("free__pred", mu * np.ones(2))
+        pm.Normal("fixed", mu=model["fixed__pred"], sigma=0.01, observed=np.array([1.0, 1.5]))
+        pm.Data("fixed__data", np.array([1.0, 1.5]))
+        pm.Normal("free", mu=model["free__pred"], sigma=noise, observed=np.array([1.0, 1.5]))
+
+    def term(name: str) -> types.SimpleNamespace:
+        obs = types.SimpleNamespace(kind="haemoglobin", extra={})
+        return types.SimpleNamespace(name=name, observation=obs, predicted=f"{name}__pred", subjects=np.array([0, 0]),
+                                     times_min=np.array([30.0, 60.0]))
+
+    built = types.SimpleNamespace(model=model, terms=[term("fixed"), term("free")], subjects=["A"])
+    post = {f"{n}__pred": np.ones((1, 2000, 2)) for n in ("fixed", "free")}
+    got = reading_intervals(built, az.from_dict(posterior=post))
+    assert got["hb_ratio"]["times_min"] == [30.0, 60.0] and got["hb_ratio"]["inside"] == [True, False]
+    line = coverage_line({"predictive": got})
+    assert line.startswith("Readings inside their 95% posterior predictive intervals: 1 of 2")
+    assert coverage_line({}) == ""

@@ -225,7 +225,8 @@ def test_verdicts_on_a_small_table(tmp_path) -> None:
 
 def test_whole_body_rows_read_a_course_at_a_time_or_its_peak(tmp_path) -> None:
     # an invented table of whole-body rows on one experiment (a 450 mL bleed over 10 min, 73 kg): Hb relative to
-    # rest at 60 min, the peak of the plasma volume change (its largest value: 0 at rest, the course only falls)
+    # rest at 60 min, the peak of the urine volume (cumulative, so its largest value is its value at the end; little
+    # after a bleed, the kidneys sparing the plasma)
     # and a refused join; the medians are the typical subject's, against the numpy course at the same draws
     from uncertainty.analyses.propagate.timeline import courses_at
     from uncertainty.analyses.sampling import draw
@@ -235,7 +236,7 @@ def test_whole_body_rows_read_a_course_at_a_time_or_its_peak(tmp_path) -> None:
             'interventions = [{{ kind = "bleed", volume = "450 mL", duration = "10 min" }}]\n'
             'timeline = {{ end = "120 min", report_every = "10 min" }}\nlow = 0.0\nhigh = 2.0\n'
             'origin = "invented for a test"\nband = "invented"\n')
-    rows = [("hb", "hb_ratio at 60 min", "1"), ("peak", "peak plasma_volume_change", "mL"),
+    rows = [("hb", "hb_ratio at 60 min", "1"), ("peak", "peak urine_volume", "mL"),
             ("join", "hb_ratio at 60 min / hb_ratio at 30 min", "1"), ("nothing", "peak Jv", "1")]
     text = "\n".join(f'[[row]]\nid = "{i}"\nquantity = "{q}"\n' + head.format(unit=u) for i, q, u in rows)
     path = tmp_path / "table.toml"
@@ -246,5 +247,6 @@ def test_whole_body_rows_read_a_course_at_a_time_or_its_peak(tmp_path) -> None:
     sim = courses_at(study, draw(study, 64, seed=DEFAULT_SEED, layer="typical"), 120.0, 10.0)
     want = np.median(np.asarray(sim["hb_ratio"][6], dtype=float))
     assert hb.median == pytest.approx(want, rel=1e-9) and 0.9 < hb.median < 1.0 and hb.verdict == "inside"
-    assert peak.median == pytest.approx(0.0, abs=1e-9) and peak.row.group == "whole body"
+    end = np.median(np.asarray(sim["urine_volume"][-1], dtype=float))
+    assert peak.median == pytest.approx(end, rel=1e-9) and end > 0.0 and peak.row.group == "whole body"
     assert "joined" in join.error and "no such time course" in nothing.error

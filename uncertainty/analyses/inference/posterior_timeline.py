@@ -100,6 +100,13 @@ def coverage(predictive: dict[str, dict[str, Any]]) -> tuple[int, int]:
     return sum(flags), len(flags)
 
 
+def coverage_line(timeline: dict[str, Any]) -> str:
+    """The sentence that counts the readings inside their intervals ("" without predictive intervals)."""
+    inside, n = coverage(timeline.get("predictive") or {})
+    return (f"Readings inside their 95% posterior predictive intervals: {inside} of {n} (about 95% is what a model "
+            "that reproduces them gives)") if n else ""
+
+
 def _thinned(n: int, k: int) -> np.ndarray:
     """``min(k, n)`` indices spread evenly over ``n`` stacked draws (chains in turn)."""
     return np.unique(np.linspace(0, n - 1, min(k, n)).round().astype(int))
@@ -189,4 +196,5 @@ def posterior_timeline(built: Any, idata: Any, draws: int = COURSE_DRAWS) -> dic
     return out
 
 
-__all__ = ["COURSE_DRAWS", "PREDICTIVE_SEED", "coverage", "posterior_timeline", "reading_intervals"]
+__all__ = ["COURSE_DRAWS", "PREDICTIVE_SEED", "coverage", "coverage_line", "posterior_timeline",
+           "reading_intervals"]

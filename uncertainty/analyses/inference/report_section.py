@@ -8,7 +8,7 @@ from typing import Any
 
 from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe
-from uncertainty.analyses.inference.posterior_timeline import coverage
+from uncertainty.analyses.inference.posterior_timeline import coverage_line
 from uncertainty.analyses.inference.table import TIMELINE_HEAD, TIMELINE_NOTE, TIMELINE_PRINTED, timeline_rows
 from uncertainty.analyses.propagate.report_section import timeline_summary
 from uncertainty.analyses.result import Caption
@@ -108,9 +108,9 @@ def summary(inf: dict[str, Any]) -> list[str]:
              + (f"  (diagnostics {'passed' if diag.get('passed') else 'FAILED'})" if diag else "")]
     if isinstance(inf.get("timeline"), dict):   # a whole-body study: where the volume is (typical or individual)
         lines += timeline_summary(inf["timeline"], posterior=True)
-        inside, n = coverage(inf["timeline"].get("predictive") or {})
-        if n:
-            lines.append(f"Readings inside their 95% posterior predictive intervals: {inside} of {n}")
+        counted = coverage_line(inf["timeline"])
+        if counted:
+            lines.append(counted)
     return lines
 
 

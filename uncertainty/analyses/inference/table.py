@@ -6,7 +6,7 @@ from typing import Any
 
 from uncertainty.analyses.inference import answers_table, posterior_sensitivity
 from uncertainty.analyses.inference.diagnostics import describe, gate_message
-from uncertainty.analyses.inference.posterior_timeline import coverage
+from uncertainty.analyses.inference.posterior_timeline import coverage_line
 from uncertainty.analyses.propagate.timeline import printed_times
 
 
@@ -63,11 +63,8 @@ def timeline_text(doc: dict[str, Any]) -> str:
         title = name + (f" ({unit})" if unit and unit != "1" else "")
         lines += ["", f"{title:<{width + 2}}" + "".join(f"{h:>26}" for h in heads)]
         lines += [f"  {label:<{width}}" + "".join(f"{c:>26}" for c in cells) for label, cells in rows]
-    inside, n = coverage(doc["timeline"].get("predictive") or {})
-    if n:
-        lines += ["", f"readings inside their 95% posterior predictive intervals: {inside} of {n} (about 95% is what "
-                      "a model that reproduces them gives)"]
-    return "\n".join(lines)
+    counted = coverage_line(doc["timeline"])
+    return "\n".join(lines + (["", counted] if counted else []))
 
 
 def table(doc: dict[str, Any]) -> str:
