@@ -425,15 +425,6 @@ class _Prepared:
                 "mKf": m * b["Kf"], "mPS": m * b["PS"], "Pc": b["Pc"], "sigma": b["sigma"]}))
 
 
-    def etd(self, dt: float) -> dict[str, tuple[Array, ...]]:
-        """Each bed's Pi row -> its :func:`_etd_coefficients` for steps of ``dt`` (min), computed once per step
-        length (they depend on the draws' constants only)."""
-        cache: dict[float, dict[str, tuple[Array, ...]]] = self.__dict__.setdefault("_etd", {})
-        if dt not in cache:
-            cache[dt] = {f"Pi_{name}": _etd_coefficients(-b["lam"] * dt, self.xp) for name, b in self.beds}
-        return cache[dt]
-
-
 def _softplus(x: Array, xp: Any) -> Array:
     """log(1 + e^x) without overflow (the expression of ``interstitium.smooth_tissue_volume``)."""
     return xp.maximum(x, 0.0) + xp.log1p(xp.exp(-xp.abs(x)))
@@ -593,7 +584,7 @@ def _rk4(state: dict[str, Array], rates: Sequence[Array], dt: float, args: Args3
     scale = _renal(rates)
     h, h2 = dt, 0.5 * dt
     lam = {f"Pi_{name}": b["lam"] for name, b in p.beds}
-    co = p.etd(dt)
+    co = {k: _etd_coefficients(-a * h, xp) for k, a in lam.items()}   # E2, Q/h, E, f1/h, f2/h, f3/h
 
     def stage(s: Mapping[str, Array], f: Mapping[str, Array] | None = None) -> dict[str, Array]:
         d = _derivatives(s, _fluxes(s, p, xp, scale) if f is None else f, rates, p)
