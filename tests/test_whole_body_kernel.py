@@ -40,7 +40,7 @@ MIXED = dose("crystalloid", 1500.0, 30.0) + dose("albumin_20", 100.0, 15.0, star
 def test_course_equals_the_numpy_loop(unsaturated: bool) -> None:
     # same steps, same arithmetic: the reported volumes agree to rounding (1e-9 mL on about 1000 mL)
     (body, beds, Cp0, per), start, q, consts = _inputs(MIXED, 90.0, 10.0, 2.5, unsaturated)
-    assert consts[2].tolist() == [True, not unsaturated, True]  # muscle, skin, gut
+    assert consts[2].tolist() == [True, not unsaturated]
     out = kernel.course(start, q, *consts)[0][::per]
     sim = wb.simulate(body, beds, Cp0, MIXED, 90.0, 10.0, max_step=2.5)
     assert out.shape == (len(sim["times_min"]), start.shape[0], 3)
@@ -70,8 +70,6 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
             # mL rounds a 0.01 mL perturbation's differences to about 1e-5 of themselves
             size = np.abs(x[row]).max()
             size = 100.0 if size == 0.0 and which == "start" else max(size, 1.0)
-            if which == "quantities" and row in LAM_ROWS:
-                continue   # moves the course only through the step's error: test_gradient_in_each_beds_lam
             v[row] = rng.uniform(0.5, 1.5, x.shape[1]) * size * 1e-2
 
             def along(t: np.ndarray, x: np.ndarray = x, v: np.ndarray = v, which: str = which) -> np.ndarray:
@@ -84,43 +82,10 @@ def test_gradient_matches_adaptive_finite_differences(unsaturated: bool) -> None
             fd = derivative(along, 0.0, initial_step=0.5)
             want = float((g * v).sum())
             err = float(fd.error)
-            if want == 0.0:   # a constant the course does not use (the gut wall's curve has no break)
-                assert abs(float(fd.df)) <= 1e-7, (which, row, float(fd.df))
-                continue
             assert err <= 1e-5 * abs(want) + 1e-9, (which, row, err)   # the differences are informative
             assert abs(float(fd.df) - want) <= 1e-6 * abs(want) + 10 * err, (which, row, float(fd.df), want)
             checked += want != 0.0
     assert checked >= 30   # rows the course depends on (the cumulative urine and bleed rows do not feed back)
-
-
-#: Rows of each bed's resting relaxation rate lam in the quantities matrix (0.005-0.2 /min).
-LAM_ROWS = [kernel.N_GLOBAL + kernel.N_BED * b + kernel.BED.index("lam") for b in range(len(wb.BEDS))]
-
-
-def test_gradient_in_each_beds_lam() -> None:
-    # a bed's lam sets the exponential scheme's coefficients, exact for the bed's relaxation at rest, so it moves
-    # the course only through the step's error: on 10-min steps (where that error is large enough to difference)
-    # the reverse pass against fourth-order central differences at 1 % of lam (their error about 1e-7 relative
-    # here, by comparison with 0.3 % steps)
-    _, start, q, consts = _inputs(MIXED, 90.0, 10.0, 10.0)
-    w = np.random.default_rng(7).normal(size=(consts[0].shape[0] + 1, *start.shape))
-    traj, records = kernel.course(start, q, *consts)
-    g_q = kernel.course_vjp(records, q, *consts, w)[1]
-
-    def value(qq: np.ndarray) -> float:
-        return float((kernel.course(start, qq, *consts)[0] * w).sum())
-
-    for row in LAM_ROWS:
-        for col in range(q.shape[1]):
-            h = 1e-2 * q[row, col]
-            vals = []
-            for t in (-2, -1, 1, 2):
-                moved = q.copy()
-                moved[row, col] += t * h
-                vals.append(value(moved))
-            fd = (vals[0] - 8.0 * vals[1] + 8.0 * vals[2] - vals[3]) / (12.0 * h)
-            assert abs(fd - g_q[row, col]) <= 1e-5 * abs(fd), (row, col, fd, g_q[row, col])
-    assert np.abs(g_q[LAM_ROWS]).min() > 0.0
 
 
 def test_each_subject_depends_on_its_own_inputs_only() -> None:
@@ -144,12 +109,11 @@ def test_op_gradient_passes_pytensor_verify_grad() -> None:
     _, start, q, (plan, dt, sat, inv_w) = _inputs(dose("crystalloid", 1000.0, 20.0), 40.0, 10.0, 5.0)
     op = Course(plan, dt, tuple(sat), inv_w)
     rng = np.random.default_rng(3)
-    # PyTensor perturbs every input by eps (one-sided): inputs as multiples of the subjects' values, so that is
-    # a relative step. 1e-6: at its default 1e-7 rounding left the gut bed's small constants (v0 about 0.2 mL)
-    # about 4e-3 off; one-sided differences at 1e-6 are accurate to about 1e-4 here, hence 1e-3: this checks the
-    # wiring (a wrong input order or cotangent is off by order 1); the precise checks are the scipy tests above
-    verify_grad(lambda s: op(s * start, q)[0], [np.ones_like(start)], rng=rng, eps=1e-6, abs_tol=1e-3, rel_tol=1e-3)
-    verify_grad(lambda r: op(start, r * q)[0], [np.ones_like(q)], rng=rng, eps=1e-6, abs_tol=1e-3, rel_tol=1e-3)
+    # PyTensor perturbs every input by 1e-7 (one-sided): inputs as multiples of the subjects' values, so that is
+    # a small relative step. One-sided differences are accurate to about 1e-4 here, hence 1e-3: this checks the
+    # wiring (a wrong input order or cotangent is off by order 1); the precise check is the scipy test above
+    verify_grad(lambda s: op(s * start, q)[0], [np.ones_like(start)], rng=rng, abs_tol=1e-3, rel_tol=1e-3)
+    verify_grad(lambda r: op(start, r * q)[0], [np.ones_like(q)], rng=rng, abs_tol=1e-3, rel_tol=1e-3)
 
 
 @pytest.mark.slow

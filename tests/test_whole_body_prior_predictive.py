@@ -158,11 +158,10 @@ def test_with_the_kidneys_silenced_the_chart_records_the_volume_infused(tmp_path
                                rtol=1e-12, atol=1e-12)
     d = urine.design(problem.observations[1], subjects)
     np.testing.assert_array_equal(urine.predicted(c[urine.COURSE], t, d), 0.0)
-    held = c["plasma_volume_change"] + sum(c[f"interstitial_volume_change_{bed}"] for bed in wb.BEDS)
-    # 2 mL: the interstitial volumes follow from the integrated pressures, so the balance holds to the step's error,
-    # not to rounding (below 0.05 mL with 4-min steps for two beds; up to 1.4 mL in 6 of these 300 prior draws
-    # since the gut wall, whose exchange is fast, became the third: its Pi takes the exponential step)
-    np.testing.assert_allclose(held[-1], VOLUME_ML, rtol=0, atol=2.0)
+    held = c["plasma_volume_change"] + c["interstitial_volume_change_muscle"] + c["interstitial_volume_change_skin"]
+    # 0.5 mL: the interstitial volumes follow from the integrated pressures, so the balance holds to the Runge-Kutta
+    # error (measured below 0.05 mL with 4-min steps), not to rounding
+    np.testing.assert_allclose(held[-1], VOLUME_ML, rtol=0, atol=0.5)
     assert np.ptp(c["plasma_volume_change"][-1]) > 100.0  # the draws share V out differently
 
 

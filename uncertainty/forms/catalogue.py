@@ -129,7 +129,7 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
     ),
     FormSpec(
         name="whole_body",
-        summary=("plasma, red cells and three interstitial beds over time after infusions and bleeds "
+        summary=("plasma, red cells and two interstitial beds over time after infusions and bleeds "
                  "([[interventions]], [timeline]); scalar outputs: the resting state of the study's bed"),
         evaluate=whole_body.evaluate,
         required=("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0", "C_tis"),

@@ -5,19 +5,14 @@ The form's scalar outputs are the resting (steady) state of the bed whose prior 
 quantities as the ``steady_state`` form (``general.steady_state``); the time courses after infusions and bleeds
 are computed by the propagate analysis from :func:`timeline_parameters`.
 
-Three beds: the study's tissue (skeletal muscle) takes the sampled values; each other bed (skin and subcutis; the
-gut wall) takes the same draws multiplied by ``bed_ratios`` (the ratio of the bed's prior set's median,
-:data:`BED_SETS`, to the study tissue's median for each quantity, supplied by the caller from ``priors/``), i.e. a
-subject whose muscle Kf lies high has a skin and a gut Kf that lie equally high (full between-bed correlation, an
-assumption of this version). A quantity the bed's prior set does not name is left out of that bed (the gut set has
-no compliance break: its pressure-volume curve is one line of slope C_tis).
+Two beds: the study's tissue (skeletal muscle) takes the sampled values; the skin-and-subcutis bed takes the
+same draws multiplied by ``bed_ratios`` (the ratio of the skin prior set's median to the study tissue's median for
+each quantity, supplied by the caller from ``priors/``), i.e. a subject whose muscle Kf lies high has a skin Kf
+that lies equally high (full between-bed correlation, an assumption of this first version).
 
-Bed masses scale with body mass. Skeletal muscle and skin: ICRP Publication 89, 2002, reference adult male, 73 kg
-(read through the search tool as a reproduced table): muscle 29 kg (0.40 of body mass); skin 3.3 kg plus
-subcutaneous adipose tissue, taken as 0.8 of the 18.2 kg of adipose tissue (the share from memory), 17.9 kg
-(0.245). Gut: 1.4 % of body mass in humans (Brown RP, Delp MD, Lindstedt SL, Rhomberg LR, Beliles RP 1997 Toxicol
-Ind Health 13:407, physiological parameter values for PBPK models; read through the search tool as a table of
-another paper citing it).
+Bed masses scale with body mass (ICRP Publication 89, 2002, reference adult male, 73 kg; read through the
+search tool as a reproduced table): skeletal muscle 29 kg (0.40 of body mass); skin 3.3 kg plus subcutaneous
+adipose tissue, taken as 0.8 of the 18.2 kg of adipose tissue (the share from memory), 17.9 kg (0.245).
 """
 
 from __future__ import annotations
@@ -31,26 +26,15 @@ from uncertainty.forms.spec import Array, FormContext, FormResult
 from uncertainty.physiology import whole_body as wb
 
 #: Bed mass as a fraction of body mass (ICRP Publication 89 2002 reference male, see the module docstring).
-BED_MASS_FRACTION = {"muscle": 29.0 / 73.0, "skin": (3.3 + 0.8 * 18.2) / 73.0, "gut": 0.014}
+BED_MASS_FRACTION = {"muscle": 29.0 / 73.0, "skin": (3.3 + 0.8 * 18.2) / 73.0}
 #: Resting interstitial fluid volume, mL per 100 g of bed: muscle 10 mL/100 g wet tissue (Wiig H, Reed RK 1981
 #: Acta Physiol Scand 113:297, abstract, rat hindlimb muscle); skin and subcutis 20 mL/100 g, the mass-weighted
 #: mean of skin (0.33 of tissue volume) and adipose tissue (0.17) of the physiologically based model of Shah DK,
-#: Betts AM 2012 J Pharmacokinet Pharmacodyn 39:67 (table reproduced in PMC4429683, read through the search tool);
-#: gut 16.6 mL/100 g, the human small- and large-intestine interstitial volumes of the same model, 67.1 + 95.3 mL
-#: (table reproduced in a parameter guide, read through the search tool), over a gut of 1.4 % of a 70 kg body
-#: (the mass fraction above; the model's reference body of 70 kg from memory).
-INTERSTITIAL_ML_PER_100G = {"muscle": 10.0, "skin": (3.3 * 33.0 + 14.6 * 17.0) / 17.9,
-                            "gut": (67.1 + 95.3) / (0.014 * 70.0 * 10.0)}
-#: The prior set of each bed other than the study's (the study tissue's bed is ``muscle``): the resting skin and
-#: subcutis, and the resting (not absorbing) small-intestinal mucosa for the gut wall (its Kf is a whole-segment
-#: gravimetric value per 100 g of intestine, see ``priors/intestinal_mucosa.toml``).
-BED_SETS = {"skin": "skin_subcutis", "gut": "intestinal_mucosa"}
+#: Betts AM 2012 J Pharmacokinet Pharmacodyn 39:67 (table reproduced in PMC4429683, read through the search tool).
+INTERSTITIAL_ML_PER_100G = {"muscle": 10.0, "skin": (3.3 * 33.0 + 14.6 * 17.0) / 17.9}
 
 #: Per-bed inputs of the time course (besides the required steady-form inputs).
 BED_INPUTS = ("Kf", "Pc", "sigma", "PS", "L", "Pi_L0", "C_tis", "C_tis_high", "Pi_break", "JL_max")
-#: Of those, the pressures (mmHg): another bed takes the study bed's value shifted by the difference of the medians,
-#: the others scaled by their ratio.
-SHIFTED = ("Pc", "Pi_L0", "Pi_break")
 
 
 def evaluate(v: Mapping[str, Array], ctx: FormContext, xp: object) -> FormResult:
@@ -58,9 +42,8 @@ def evaluate(v: Mapping[str, Array], ctx: FormContext, xp: object) -> FormResult
     return general.steady_state(v, ctx, xp)
 
 
-def timeline_parameters(v: Mapping[str, Array], body_mass_kg: float,
-                        bed_ratios: Mapping[str, Mapping[str, float]], xp: object = None
-                        ) -> tuple[dict[str, Array], dict[str, dict[str, Array]], Array]:
+def timeline_parameters(v: Mapping[str, Array], body_mass_kg: float, bed_ratios: Mapping[str, float],
+                        xp: object = None) -> tuple[dict[str, Array], dict[str, dict[str, Array]], Array]:
     """Body, bed and plasma-protein arguments of ``physiology.whole_body.simulate`` from the study's inputs.
 
     Parameters
@@ -71,9 +54,7 @@ def timeline_parameters(v: Mapping[str, Array], body_mass_kg: float,
     body_mass_kg : float
         Body mass, kg.
     bed_ratios : mapping
-        bed (a key of :data:`BED_SETS`) -> {symbol: the bed's value over the study bed's value, and
-        ``<symbol>_shift``: the bed's pressure minus the study bed's, mmHg}; a symbol missing there is left out of
-        that bed.
+        symbol -> skin-bed value over the study bed's value (1 when missing).
     xp : module, optional
         numpy (default) or pytensor.tensor.
 
@@ -82,7 +63,7 @@ def timeline_parameters(v: Mapping[str, Array], body_mass_kg: float,
     body : dict
         ``physiology.whole_body.body_parameters`` plus ``r``.
     beds : dict
-        ``muscle``, ``skin`` and ``gut`` parameter dicts (mass ``m`` in 100 g, ``Vi0`` mL).
+        ``muscle`` and ``skin`` parameter dicts (mass ``m`` in 100 g, ``Vi0`` mL).
     Cp0 : array
         Resting plasma total protein, g/dL (``Cp`` when given, else from pi_c by the inverse cubic).
     """
@@ -94,16 +75,12 @@ def timeline_parameters(v: Mapping[str, Array], body_mass_kg: float,
     for bed in wb.BEDS:
         mass_100g = BED_MASS_FRACTION[bed] * body_mass_kg * 10.0
         p: dict[str, Array] = {"m": mass_100g, "Vi0": INTERSTITIAL_ML_PER_100G[bed] * mass_100g}
-        own = bed_ratios.get(bed, {})
         for s in BED_INPUTS:
-            if s not in v:
-                continue
-            if bed == "muscle":
-                p[s] = v[s]
-            elif s in SHIFTED:  # pressures: shifted, not scaled
-                if s + "_shift" in own:
-                    p[s] = v[s] + own[s + "_shift"]
-            elif s in own:
-                p[s] = v[s] * own[s]
+            if s in v:
+                ratio = 1.0 if bed == "muscle" else bed_ratios.get(s, 1.0)
+                if s in ("Pc", "Pi_L0", "Pi_break"):  # pressures: shifted, not scaled
+                    p[s] = v[s] + (0.0 if bed == "muscle" else bed_ratios.get(s + "_shift", 0.0))
+                else:
+                    p[s] = v[s] * ratio
         beds[bed] = p
     return body, beds, Cp0

@@ -1,11 +1,11 @@
-"""Whole-body fluid shifts over time: plasma, red cells and three interstitial beds (model form ``whole_body``).
+"""Whole-body fluid shifts over time: plasma, red cells and two interstitial beds (model form ``whole_body``).
 
 State (one value per draw; shape ``(n,)`` arrays or scalars):
 
 - plasma volume ``Vp`` (mL) and plasma protein mass ``Qp`` (g); red-cell volume ``Vrbc`` (mL), constant
   except when blood is lost (whole blood leaves at the current haematocrit);
-- for each tissue bed (skeletal muscle; skin and subcutis; the gut wall): interstitial pressure ``Pi`` (mmHg; the
-  volume follows from the bed's pressure-volume curve) and interstitial protein mass ``Qi`` (g);
+- for each tissue bed (skeletal muscle; skin and subcutis): interstitial pressure ``Pi`` (mmHg; the volume
+  follows from the bed's pressure-volume curve) and interstitial protein mass ``Qi`` (g);
 - cumulative urine ``U`` (mL) and cumulative plasma lost by bleeding ``B`` (mL).
 
 Exchange in each bed uses the steady forms' physiology: Starling filtration (``starling.filtration``) with
@@ -43,9 +43,8 @@ total protein ignores.
 Units: volumes mL, protein mass g, concentrations g/dL (g per 100 mL), pressures mmHg, flows mL/min, times
 min. Per-bed conductances and compliances are per 100 g of tissue (as in the prior sets) and are scaled by
 the bed mass ``m`` in units of 100 g. Everything is ``xp`` arithmetic (numpy or pytensor.tensor);
-:func:`simulate` steps a fixed number of fourth-order steps (a Python loop, the same count for every draw), with
-the intervention rates held at their mean over each step: the exponential scheme of Cox and Matthews for each bed's
-Pi, classical Runge-Kutta for everything else (:func:`_rk4`).
+:func:`simulate` steps a fixed number of classical fourth-order Runge-Kutta steps (a Python loop, the same
+count for every draw), with the intervention rates held at their mean over each step.
 """
 
 from __future__ import annotations
@@ -129,7 +128,7 @@ def total_protein_equivalent(albumin_g_per_dl: float) -> float:
 
 
 #: The tissue beds, in order.
-BEDS = ("muscle", "skin", "gut")
+BEDS = ("muscle", "skin")
 
 
 @dataclass(frozen=True)
@@ -357,7 +356,7 @@ def initial_state(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Arr
     state : dict
         ``Vp``, ``Qp``, ``Vrbc``, ``U``, ``B`` and per bed ``Pi_<bed>``, ``Qi_<bed>``.
     rest : dict
-        Resting references: ``Pi0_<bed>`` (mmHg), ``Ci0_<bed>`` (interstitial protein, g/dL), ``Cp0``.
+        Resting references: ``Pi0_<bed>`` (mmHg), ``Cp0``.
     """
     pi_c0 = pi_cubic(Cp0, "total")
     zero = 0.0 * Cp0
@@ -371,7 +370,6 @@ def initial_state(body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Arr
         state[f"Pi_{name}"] = ss["Pi"] + zero
         state[f"Qi_{name}"] = ss["ratio"] * Cp0 * b["Vi0"] / 100.0 + zero
         rest[f"Pi0_{name}"] = ss["Pi"] + zero
-        rest[f"Ci0_{name}"] = ss["ratio"] * Cp0 + zero
     return state, rest
 
 
@@ -387,10 +385,6 @@ class _Prepared:
     logistic sharing the softplus's exponential. Filtration and protein flux take the bed's Kf and PS
     times its mass (the Peclet number is unchanged). Same quantities as the physiology functions, regrouped
     (agreement to rounding, checked against the stored reference in the tests).
-
-    ``lam`` (1/min) is the rate at which the bed's Pi relaxes at rest, minus d(dPi/dt)/dPi there: filtration
-    (Kf, and through the interstitial oncotic pressure, which falls as the bed fills: sigma Ci pi'(Ci) C_tis m /
-    Vi0) and lymph (L), over the compliance C_tis; :func:`_rk4` integrates that part of each Pi exactly.
     """
 
     def __init__(self, body: Mapping[str, Array], beds: Mapping[str, Mapping[str, Array]],
@@ -413,10 +407,7 @@ class _Prepared:
             lv = (L / C) * dCw  # lymph drive per unit softplus
             lin = (L, lv, L * b["Pi_L0"] + lv * spL) if jmax is None else (
                 L / jmax, lv / jmax, (L * b["Pi_L0"] + lv * spL) / jmax)
-            Ci0 = rest[f"Ci0_{name}"]
-            onc = b["sigma"] * Ci0 * pi_cubic_slope(Ci0, "total") * C * m / b["Vi0"]
             self.beds.append((name, {
-                "lam": (b["Kf"] * (1.0 + onc) + L) / C,
                 "Pb": Pb, "inv_w": 1.0 / w,
                 "vC": m * C, "vS": m * dCw, "v0": m * C * Pi0 + m * dCw * sp0, "Vi0": b["Vi0"],
                 "lP": lin[0], "lS": lin[1], "l0": lin[2], "lm": m if jmax is None else m * jmax,
@@ -566,77 +557,25 @@ Args3 = tuple[Mapping[str, Array], Mapping[str, Mapping[str, Array]], Mapping[st
 
 def _rk4(state: dict[str, Array], rates: Sequence[Array], dt: float, args: Args3 | _Prepared, xp: Any,
          f1: Mapping[str, Array] | None = None) -> dict[str, Array]:
-    """One fourth-order step of length ``dt`` (min); ``f1``: the fluxes at ``state`` if known.
-
-    Each bed's Pi takes the exponential time-differencing scheme ETDRK4 (Cox SM, Matthews PC 2002 J Comput Phys
-    176:430, from memory): with a = the bed's resting relaxation rate (``_Prepared``, ``lam``, 1/min) the equation
-    is written dPi/dt = -a Pi + g with g = dPi/dt + a Pi, the linear part is integrated exactly (the coefficients
-    e^(z/2), e^z and the phi functions of z = -a dt, :func:`_etd_coefficients`) and g by the scheme's four stages.
-    So a bed that relaxes in well under a step (the gut wall: about 6 min at the medians, under a minute in the
-    prior's tails) stays stable and accurate at the inference's 4-min steps, where the classical step erred by
-    hundreds of mL in those tails. Every other variable (a = 0) takes the classical Runge-Kutta step, to which the
-    scheme reduces. Each bed's volume is a curve of its Pi, weighted here otherwise than the plasma's exchange with
-    it, so water is kept to the step's error (0.05 mL of 1500 at 4-min steps at the prior medians), not to rounding.
-    Our measurement (4096 individual-layer draws of the shipped Ringer's scenario against 0.125-min steps): 5-min
-    steps err by 0.12 mL of urine at the median draw, 3.4 mL at the 99th percentile and 11 mL at the worst.
-    """
+    """One classical Runge-Kutta step of length ``dt`` (min); ``f1``: the fluxes at ``state`` if known."""
     p = args if isinstance(args, _Prepared) else _Prepared(*args, xp)
     scale = _renal(rates)
     h, h2 = dt, 0.5 * dt
-    lam = {f"Pi_{name}": b["lam"] for name, b in p.beds}
-    co = {k: _etd_coefficients(-a * h, xp) for k, a in lam.items()}   # E2, Q/h, E, f1/h, f2/h, f3/h
-
-    def stage(s: Mapping[str, Array], f: Mapping[str, Array] | None = None) -> dict[str, Array]:
-        d = _derivatives(s, _fluxes(s, p, xp, scale) if f is None else f, rates, p)
-        return {k: d[k] + lam[k] * s[k] if k in lam else d[k] for k in d}
-
-    k1 = stage(state, f1)
-    sa = {k: co[k][0] * v + h * co[k][1] * k1[k] if k in lam else v + h2 * k1[k] for k, v in state.items()}
-    ka = stage(sa)
-    sb = {k: co[k][0] * v + h * co[k][1] * ka[k] if k in lam else v + h2 * ka[k] for k, v in state.items()}
-    kb = stage(sb)
-    sc = {k: co[k][0] * sa[k] + h * co[k][1] * (2.0 * kb[k] - k1[k]) if k in lam else v + h * kb[k]
-          for k, v in state.items()}
-    kc = stage(sc)
+    k1 = _derivatives(state, _fluxes(state, p, xp, scale) if f1 is None else f1, rates, p)
+    s2 = {k: v + h2 * k1[k] for k, v in state.items()}
+    k2 = _derivatives(s2, _fluxes(s2, p, xp, scale), rates, p)
+    s3 = {k: v + h2 * k2[k] for k, v in state.items()}
+    k3 = _derivatives(s3, _fluxes(s3, p, xp, scale), rates, p)
+    s4 = {k: v + h * k3[k] for k, v in state.items()}
+    k4 = _derivatives(s4, _fluxes(s4, p, xp, scale), rates, p)
     h6 = dt / 6.0
-    return {k: co[k][2] * v + h * (co[k][3] * k1[k] + 2.0 * co[k][4] * (ka[k] + kb[k]) + co[k][5] * kc[k])
-            if k in lam else v + h6 * (k1[k] + 2.0 * (ka[k] + kb[k]) + kc[k]) for k, v in state.items()}
-
-
-def _phi(z: Array, xp: Any) -> tuple[Array, Array, Array]:
-    """phi_1, phi_2, phi_3 of z: phi_j(z) = sum_k z^k / (k + j)!, from 21 terms of the series below |z| = 1 (error
-    below 1e-22), else from the closed forms phi_1 = (e^z - 1)/z, phi_(j+1) = (phi_j - 1/j!)/z."""
-    small = xp.abs(z) < 1.0
-    zs = xp.where(small, z, 0.0)
-    p1 = p2 = p3 = 0.0
-    fac = [1.0]
-    for k in range(1, 25):
-        fac.append(fac[-1] * k)
-    for k in range(20, -1, -1):
-        p1 = p1 * zs + 1.0 / fac[k + 1]
-        p2 = p2 * zs + 1.0 / fac[k + 2]
-        p3 = p3 * zs + 1.0 / fac[k + 3]
-    zl = xp.where(small, 1.0, z)
-    e = xp.exp(zl)
-    q1 = (e - 1.0) / zl
-    q2 = (q1 - 1.0) / zl
-    q3 = (q2 - 0.5) / zl
-    return xp.where(small, p1, q1), xp.where(small, p2, q2), xp.where(small, p3, q3)
-
-
-def _etd_coefficients(z: Array, xp: Any) -> tuple[Array, ...]:
-    """ETDRK4 coefficients for z = -a h (:func:`_rk4`): e^(z/2), phi_1(z/2)/2, e^z and the weights of the four
-    stages over h, phi_1 - 3 phi_2 + 4 phi_3, phi_2 - 2 phi_3 (twice) and 4 phi_3 - phi_2 (all 1/6 at z = 0)."""
-    a1, _, _ = _phi(0.5 * z, xp)
-    p1, p2, p3 = _phi(z, xp)
-    return (xp.exp(0.5 * z), 0.5 * a1, xp.exp(z), p1 - 3.0 * p2 + 4.0 * p3, p2 - 2.0 * p3, -p2 + 4.0 * p3)
+    return {k: v + h6 * (k1[k] + 2.0 * k2[k] + 2.0 * k3[k] + k4[k]) for k, v in state.items()}
 
 
 #: Time courses :func:`simulate` reports (units).
 TIMELINE_UNITS: dict[str, str] = {
     "plasma_volume_change": "mL", "infused_retained_fraction": "1", "hb_ratio": "1",
     "interstitial_volume_change_muscle": "mL", "interstitial_volume_change_skin": "mL",
-    "interstitial_volume_change_gut": "mL",
     "urine_volume": "mL", "lymph_flow": "mL/min", "plasma_protein_ratio": "1", "body_weight_change": "kg",
 }
 

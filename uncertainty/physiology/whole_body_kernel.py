@@ -1,13 +1,13 @@
 """The whole-body time course and its adjoint as compiled loops (numba), for inference.
 
-Same equations and arithmetic as :func:`uncertainty.physiology.whole_body.simulate` (fixed fourth-order steps:
-ETDRK4 for each bed's Pi, classical Runge-Kutta elsewhere, ``whole_body._rk4``; the right-hand side of ``_fluxes`` /
-``_derivatives`` on the prepared constants of ``_Prepared``), written out per subject in scalar code so that a
-sampler's log density and its gradient cost one pass forward and one backward through the steps, compiled once and
-cached on disk. The forward pass records the terms of every right-hand side evaluation (the records below), so the
-backward pass only multiplies: for 20 subjects and 48 steps the reverse pass fell from 1.25 to 0.43 ms and the
-forward rose from 0.56 to 0.65 ms. The gradient is the exact reverse-mode derivative of the discrete steps
-(hand-derived; checked against finite differences and against the numpy course in the tests).
+Same equations and arithmetic as :func:`uncertainty.physiology.whole_body.simulate` (fixed classical fourth-order
+Runge-Kutta steps, the right-hand side of ``_fluxes`` / ``_derivatives`` on the prepared constants of
+``_Prepared``), written out per subject in scalar code so that a sampler's log density and its gradient cost one
+pass forward and one backward through the steps, compiled once and cached on disk. The forward pass records the
+terms of every right-hand side evaluation (the records below), so the backward pass only multiplies: for 20
+subjects and 48 steps the reverse pass fell from 1.25 to 0.43 ms and the forward rose from 0.56 to 0.65 ms. The
+gradient is the exact reverse-mode derivative of the discrete steps (hand-derived; checked against finite
+differences and against the numpy course in the tests).
 
 Layout (columns are subjects or draws, ``n`` of them):
 
@@ -23,7 +23,6 @@ Layout (columns are subjects or draws, ``n`` of them):
 
 from __future__ import annotations
 
-import math
 from typing import Any
 
 import numba
@@ -36,8 +35,8 @@ from uncertainty.physiology.oncotic import COEFFICIENTS
 GLOBAL = ("Vp0", "Vb0", "vasc", "k_r", "u_basal")
 #: Rows per bed (``_Prepared.beds``; whole bed): break pressure (mmHg), volume slopes vC, vS (mL/mmHg, mL) and
 #: offset v0 (mL), resting volume Vi0 (mL), lymph drive terms lP, lS, l0 and scale lm, compliance step cS
-#: (mL/mmHg), m Kf (mL/min/mmHg), Pc (mmHg), sigma (1), m PS (mL/min), resting relaxation rate of Pi lam (1/min).
-BED = ("Pb", "vC", "vS", "v0", "Vi0", "lP", "lS", "l0", "lm", "cS", "mKf", "Pc", "sigma", "mPS", "lam")
+#: (mL/mmHg), m Kf (mL/min/mmHg), Pc (mmHg), sigma (1), m PS (mL/min).
+BED = ("Pb", "vC", "vS", "v0", "Vi0", "lP", "lS", "l0", "lm", "cS", "mKf", "Pc", "sigma", "mPS")
 #: Whole-body state rows before the beds' (``initial_state``).
 STATE = ("Vp", "Qp", "Vrbc", "U", "B")
 N_GLOBAL, N_BED, N_STATE = len(GLOBAL), len(BED), len(STATE)
@@ -249,155 +248,56 @@ def _rhs_vjp(rec, q, r, sat, inv_w, gd, gs, gq):  # noqa: ANN001, ANN202, PLR091
     gs[2] += gVrbc
 
 
-#: Horner terms of the series of phi_j below |z| = 1 (error below 1e-22 there).
-_PHI_TERMS = 21
-_FACT = np.array([math.factorial(k) for k in range(_PHI_TERMS + 5)], dtype=np.float64)
-
-
-@_jit_inline
-def _phis(z):  # noqa: ANN001, ANN202 (numba)
-    """phi_1, phi_2, phi_3 of z and their derivatives (``whole_body._phi``: series below |z| = 1, else closed
-    forms; phi_j' = (phi_(j-1) - j phi_j) / z, phi_0 = e^z)."""
-    if abs(z) < 1.0:
-        p1 = p2 = p3 = d1 = d2 = d3 = 0.0
-        for k in range(_PHI_TERMS - 1, -1, -1):
-            p1 = p1 * z + 1.0 / _FACT[k + 1]
-            p2 = p2 * z + 1.0 / _FACT[k + 2]
-            p3 = p3 * z + 1.0 / _FACT[k + 3]
-            d1 = d1 * z + (k + 1.0) / _FACT[k + 2]
-            d2 = d2 * z + (k + 1.0) / _FACT[k + 3]
-            d3 = d3 * z + (k + 1.0) / _FACT[k + 4]
-        return p1, p2, p3, d1, d2, d3
-    e = np.exp(z)
-    p1 = (e - 1.0) / z
-    p2 = (p1 - 1.0) / z
-    p3 = (p2 - 0.5) / z
-    return p1, p2, p3, (e - p1) / z, (p1 - 2.0 * p2) / z, (p2 - 3.0 * p3) / z
-
-
 @_jit
-def _coefficients(q, dt, sat, co, dco, lamv):  # noqa: ANN001, ANN202 (numba)
-    """The step's coefficients per state row into ``co`` (rows, 6): e^(z/2), phi_1(z/2)/2, e^z and the three
-    weights of ``whole_body._etd_coefficients`` at z = -lam dt for each bed's Pi, the classical step's (1, 1/2, 1,
-    1/6, 1/6, 1/6) elsewhere; their derivatives in lam into ``dco``; each row's lam into ``lamv`` (0 elsewhere)."""
-    for i in range(co.shape[0]):
-        co[i, 0], co[i, 1], co[i, 2], co[i, 3], co[i, 4], co[i, 5] = 1.0, 0.5, 1.0, 1.0 / 6.0, 1.0 / 6.0, 1.0 / 6.0
-        for c in range(6):
-            dco[i, c] = 0.0
-        lamv[i] = 0.0
-    for b in range(sat.shape[0]):
-        k = N_STATE + 2 * b
-        lam = q[N_GLOBAL + N_BED * b + 14]
-        z = -lam * dt
-        a1, _, _, da1, _, _ = _phis(0.5 * z)
-        p1, p2, p3, d1, d2, d3 = _phis(z)
-        e2, e = np.exp(0.5 * z), np.exp(z)
-        co[k, 0], co[k, 1], co[k, 2] = e2, 0.5 * a1, e
-        co[k, 3], co[k, 4], co[k, 5] = p1 - 3.0 * p2 + 4.0 * p3, p2 - 2.0 * p3, -p2 + 4.0 * p3
-        # d/dlam = -dt d/dz
-        dco[k, 0], dco[k, 1], dco[k, 2] = -dt * 0.5 * e2, -dt * 0.25 * da1, -dt * e
-        dco[k, 3] = -dt * (d1 - 3.0 * d2 + 4.0 * d3)
-        dco[k, 4] = -dt * (d2 - 2.0 * d3)
-        dco[k, 5] = -dt * (-d2 + 4.0 * d3)
-        lamv[k] = lam
-
-
-@_jit
-def _step(s, q, r, dt, sat, inv_w, co, lamv, out, w, rec):  # noqa: ANN001, ANN202 (numba)
-    """One step from ``s`` into ``out`` (``whole_body._rk4``: the Cox-Matthews exponential fourth-order scheme for
-    each bed's Pi, the classical Runge-Kutta step elsewhere, both in the form out = co2 s + dt (co3 k1 + 2 co4
-    (ka + kb) + co5 kc) with k = rhs + lam y); the four right-hand sides' records into ``rec``; ``w``: work array
-    (6, state length)."""
+def _rk4(s, q, r, dt, sat, inv_w, out, k1, k2, k3, k4, tmp, rec):  # noqa: ANN001, ANN202 (numba)
+    """One Runge-Kutta step from ``s`` into ``out``; the four right-hand sides' records into ``rec`` (4, record
+    length), which the reverse pass reads; the k's and ``tmp``: work arrays of the state's length."""
     ns = s.shape[0]
-    k1, ka, kb, kc, sa, tmp = w[0], w[1], w[2], w[3], w[4], w[5]
+    h2 = 0.5 * dt
     _rhs(s, q, r, sat, inv_w, k1, rec[0])
     for i in range(ns):
-        k1[i] += lamv[i] * s[i]
-        sa[i] = co[i, 0] * s[i] + dt * co[i, 1] * k1[i]
-    _rhs(sa, q, r, sat, inv_w, ka, rec[1])
+        tmp[i] = s[i] + h2 * k1[i]
+    _rhs(tmp, q, r, sat, inv_w, k2, rec[1])
     for i in range(ns):
-        ka[i] += lamv[i] * sa[i]
-        tmp[i] = co[i, 0] * s[i] + dt * co[i, 1] * ka[i]
-    _rhs(tmp, q, r, sat, inv_w, kb, rec[2])
+        tmp[i] = s[i] + h2 * k2[i]
+    _rhs(tmp, q, r, sat, inv_w, k3, rec[2])
     for i in range(ns):
-        kb[i] += lamv[i] * tmp[i]
-        tmp[i] = co[i, 0] * sa[i] + dt * co[i, 1] * (2.0 * kb[i] - k1[i])
-    _rhs(tmp, q, r, sat, inv_w, kc, rec[3])
+        tmp[i] = s[i] + dt * k3[i]
+    _rhs(tmp, q, r, sat, inv_w, k4, rec[3])
+    h6 = dt / 6.0
     for i in range(ns):
-        kc[i] += lamv[i] * tmp[i]
-        out[i] = co[i, 2] * s[i] + dt * (co[i, 3] * k1[i] + 2.0 * co[i, 4] * (ka[i] + kb[i]) + co[i, 5] * kc[i])
+        out[i] = s[i] + h6 * (k1[i] + 2.0 * k2[i] + 2.0 * k3[i] + k4[i])
 
 
 @_jit
-def _step_vjp(rec, q, r, dt, sat, inv_w, co, dco, lamv, lam, gs, gq, w):  # noqa: ANN001, ANN202 (numba)
-    """Cotangent of the step's start into ``gs`` (overwritten) and of ``q`` added to ``gq`` (lam through the
-    coefficients included), for the cotangent ``lam`` of its end; ``rec``: the step's four records (:func:`_step`);
-    ``w``: work array (8, state length)."""
+def _rk4_vjp(rec, q, r, dt, sat, inv_w, lam, gs, gq, w):  # noqa: ANN001, ANN202 (numba)
+    """Cotangent of the step's start into ``gs`` (overwritten) and of ``q`` added to ``gq``, for the cotangent
+    ``lam`` of its end; ``rec``: the step's four records (:func:`_rk4`); ``w``: work array (2, state length)."""
     ns = gs.shape[0]
-    gk1, gka, gkb, gkc, gsa, gsb, gsc, gx = w[0], w[1], w[2], w[3], w[4], w[5], w[6], w[7]
+    h2, h6 = 0.5 * dt, dt / 6.0
+    lk, gx = w[0], w[1]
     for i in range(ns):
-        gs[i] = co[i, 2] * lam[i]
-        gk1[i] = dt * co[i, 3] * lam[i]
-        gka[i] = 2.0 * dt * co[i, 4] * lam[i]
-        gkb[i] = gka[i]
-        gkc[i] = dt * co[i, 5] * lam[i]
+        gs[i] = lam[i]
         gx[i] = 0.0
-    # kc = rhs(sc) + lam sc
-    _rhs_vjp(rec[3], q, r, sat, inv_w, gkc, gx, gq)
+        lk[i] = h6 * lam[i]
+    _rhs_vjp(rec[3], q, r, sat, inv_w, lk, gx, gq)  # k4
     for i in range(ns):
-        gsc[i] = gx[i] + lamv[i] * gkc[i]
-        gsa[i] = co[i, 0] * gsc[i]
-        gkb[i] += 2.0 * dt * co[i, 1] * gsc[i]
-        gk1[i] -= dt * co[i, 1] * gsc[i]
-    for b in range(sat.shape[0]):  # coefficients and lam of each bed's Pi row (states and k's from the records)
-        k = N_STATE + 2 * b
-        f = N_PLASMA_RECORD + N_BED_RECORD * b
-        lb = lamv[k]
-        y0, ya, yb, yc = rec[0, f], rec[1, f], rec[2, f], rec[3, f]
-        k1 = (rec[0, f + 8] - rec[0, f + 10]) / rec[0, f + 18] + lb * y0
-        ka = (rec[1, f + 8] - rec[1, f + 10]) / rec[1, f + 18] + lb * ya
-        kb = (rec[2, f + 8] - rec[2, f + 10]) / rec[2, f + 18] + lb * yb
-        kc = (rec[3, f + 8] - rec[3, f + 10]) / rec[3, f + 18] + lb * yc
-        g = dco[k, 2] * lam[k] * y0 + dt * lam[k] * (dco[k, 3] * k1 + 2.0 * dco[k, 4] * (ka + kb) + dco[k, 5] * kc)
-        g += gkc[k] * yc + gsc[k] * (dco[k, 0] * ya + dt * dco[k, 1] * (2.0 * kb - k1))
-        gq[N_GLOBAL + N_BED * b + 14] += g
-    for i in range(ns):
+        gs[i] += gx[i]
+        lk[i] = 2.0 * h6 * lam[i] + dt * gx[i]
         gx[i] = 0.0
-    # kb = rhs(sb) + lam sb
-    _rhs_vjp(rec[2], q, r, sat, inv_w, gkb, gx, gq)
+    _rhs_vjp(rec[2], q, r, sat, inv_w, lk, gx, gq)  # k3
     for i in range(ns):
-        gsb[i] = gx[i] + lamv[i] * gkb[i]
-        gs[i] += co[i, 0] * gsb[i]
-        gka[i] += dt * co[i, 1] * gsb[i]
+        gs[i] += gx[i]
+        lk[i] = 2.0 * h6 * lam[i] + h2 * gx[i]
         gx[i] = 0.0
-    for b in range(sat.shape[0]):
-        k = N_STATE + 2 * b
-        f = N_PLASMA_RECORD + N_BED_RECORD * b
-        lb = lamv[k]
-        y0, ya, yb = rec[0, f], rec[1, f], rec[2, f]
-        ka = (rec[1, f + 8] - rec[1, f + 10]) / rec[1, f + 18] + lb * ya
-        gq[N_GLOBAL + N_BED * b + 14] += gkb[k] * yb + dco[k, 0] * gsb[k] * y0 + dt * dco[k, 1] * gsb[k] * ka
-    # ka = rhs(sa) + lam sa
-    _rhs_vjp(rec[1], q, r, sat, inv_w, gka, gx, gq)
+    _rhs_vjp(rec[1], q, r, sat, inv_w, lk, gx, gq)  # k2
     for i in range(ns):
-        gsa[i] += gx[i] + lamv[i] * gka[i]
-        gs[i] += co[i, 0] * gsa[i]
-        gk1[i] += dt * co[i, 1] * gsa[i]
+        gs[i] += gx[i]
+        lk[i] = h6 * lam[i] + h2 * gx[i]
         gx[i] = 0.0
-    for b in range(sat.shape[0]):
-        k = N_STATE + 2 * b
-        f = N_PLASMA_RECORD + N_BED_RECORD * b
-        lb = lamv[k]
-        y0, ya = rec[0, f], rec[1, f]
-        k1 = (rec[0, f + 8] - rec[0, f + 10]) / rec[0, f + 18] + lb * y0
-        gq[N_GLOBAL + N_BED * b + 14] += gka[k] * ya + dco[k, 0] * gsa[k] * y0 + dt * dco[k, 1] * gsa[k] * k1
-    # k1 = rhs(s) + lam s
-    _rhs_vjp(rec[0], q, r, sat, inv_w, gk1, gx, gq)
+    _rhs_vjp(rec[0], q, r, sat, inv_w, lk, gx, gq)  # k1
     for i in range(ns):
-        gs[i] += gx[i] + lamv[i] * gk1[i]
-    for b in range(sat.shape[0]):
-        k = N_STATE + 2 * b
-        gq[N_GLOBAL + N_BED * b + 14] += gk1[k] * rec[0, N_PLASMA_RECORD + N_BED_RECORD * b]
+        gs[i] += gx[i]
 
 
 @_jit
@@ -432,14 +332,12 @@ def course(start: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt: floa
     out = np.empty((n_steps + 1, ns, n))
     records = np.empty((n, n_steps, 4, N_PLASMA_RECORD + N_BED_RECORD * sat.shape[0]))
     traj = np.empty((n_steps + 1, ns))
-    w = np.empty((6, ns))
-    co, dco, lamv = np.empty((ns, 6)), np.empty((ns, 6)), np.empty(ns)
+    w = np.empty((5, ns))
     for j in range(n):
         q = quantities[:, j].copy()
-        _coefficients(q, dt, sat, co, dco, lamv)
         traj[0, :] = start[:, j]
         for i in range(n_steps):
-            _step(traj[i], q, plan[i], dt, sat, inv_w, co, lamv, traj[i + 1], w, records[j, i])
+            _rk4(traj[i], q, plan[i], dt, sat, inv_w, traj[i + 1], w[0], w[1], w[2], w[3], w[4], records[j, i])
         out[:, :, j] = traj
     return out, records
 
@@ -467,18 +365,16 @@ def course_vjp(records: np.ndarray, quantities: np.ndarray, plan: np.ndarray, dt
     ns, n = g_out.shape[1], g_out.shape[2]
     g_start = np.empty((ns, n))
     g_q = np.zeros((quantities.shape[0], n))
-    w = np.empty((8, ns))
-    co, dco, lamv = np.empty((ns, 6)), np.empty((ns, 6)), np.empty(ns)
+    w = np.empty((2, ns))
     lam = np.empty(ns)
     gs = np.empty(ns)
     gq = np.empty(quantities.shape[0])
     for j in range(n):
         q = quantities[:, j].copy()
-        _coefficients(q, dt, sat, co, dco, lamv)
         lam[:] = g_out[n_steps, :, j]
         gq[:] = 0.0
         for i in range(n_steps - 1, -1, -1):
-            _step_vjp(records[j, i], q, plan[i], dt, sat, inv_w, co, dco, lamv, lam, gs, gq, w)
+            _rk4_vjp(records[j, i], q, plan[i], dt, sat, inv_w, lam, gs, gq, w)
             lam[:] = gs
             lam += g_out[i, :, j]
         g_start[:, j] = lam

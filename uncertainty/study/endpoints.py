@@ -3,11 +3,10 @@
 One way of writing, shared by ``[sensitivity] output``, ``[rank] output``, ``[design] endpoint`` and the
 ``--output`` option of the commands: the name of a reported time course (``physiology.whole_body.TIMELINE_UNITS``:
 ``plasma_volume_change``, ``infused_retained_fraction``, ``hb_ratio``, ``interstitial_volume_change_muscle``,
-``interstitial_volume_change_skin``, ``interstitial_volume_change_gut``, ``urine_volume``, ``lymph_flow``,
-``plasma_protein_ratio``, ``body_weight_change``), the word ``at`` and a time with its unit (``s``, ``min``, ``h``,
-``day``; pint spellings such as ``"1.5 hour"`` too). The time lies after 0 and at or before the study's
-``[timeline] end``. ``[sensitivity] output`` also takes ``"NAME over time"``: the indices at every report time of
-the timeline (:data:`OVER_TIME`).
+``interstitial_volume_change_skin``, ``urine_volume``, ``lymph_flow``, ``plasma_protein_ratio``), the word ``at``
+and a time with its unit (``s``, ``min``, ``h``, ``day``; pint spellings such as ``"1.5 hour"`` too). The time
+lies after 0 and at or before the study's ``[timeline] end``. ``[sensitivity] output`` also takes
+``"NAME over time"``: the indices at every report time of the timeline (:data:`OVER_TIME`).
 
 A name that is no time course, a time without a time unit, a negative or zero time or one beyond the end is
 refused (:class:`~uncertainty.core.errors.StudyError`, exit 2) naming the key and

@@ -2,8 +2,8 @@
 
 For each layer (the typical subject: uncertainty only; the individual: uncertainty plus between-subject spread)
 ``TimelinePlan.draws`` points are drawn (scrambled Sobol', the study's seed), every input is evaluated
-(derived Pc and pi_c included), the other beds (skin and subcutis; gut) take the draws scaled by the ratio of
-their prior sets' medians to the study tissue's (``forms.whole_body``), and the time courses are
+(derived Pc and pi_c included), the skin-and-subcutis bed takes the draws scaled by the ratio of the
+``skin_subcutis`` prior set's medians to the study tissue's (``forms.whole_body``), and the time courses are
 summarised per report time by their median and 95% interval.
 """
 
@@ -17,7 +17,7 @@ import numpy as np
 from uncertainty.analyses.sampling import draw
 from uncertainty.core import units
 from uncertainty.forms.evaluate import input_values
-from uncertainty.forms.whole_body import BED_INPUTS, BED_SETS, SHIFTED, timeline_parameters
+from uncertainty.forms.whole_body import timeline_parameters
 from uncertainty.physiology.whole_body import (
     INSENSIBLE_LOSS_ML_MIN,
     KG_PER_L,
@@ -28,11 +28,16 @@ from uncertainty.priors import prior_medians
 from uncertainty.study.endpoints import TimePoint
 from uncertainty.study.schema import obs_symbol
 
+#: The prior set of the second bed.
+SKIN_SET = "skin_subcutis"
+#: Quantities scaled (ratio of medians) and shifted (difference of medians) from the study's bed to the skin bed.
+SCALED = ("Kf", "sigma", "PS", "L", "C_tis", "C_tis_high", "JL_max")
+SHIFTED = ("Pc", "Pi_L0", "Pi_break")
 
-def bed_ratios(tissue: str) -> dict[str, dict[str, float]]:
-    """Each other bed's values relative to the study bed's: median ratios (the pressures ``forms.whole_body.SHIFTED``
-    as differences, ``<symbol>_shift``, mmHg) of the bed's prior set (``forms.whole_body.BED_SETS``) against
-    ``priors/<tissue>.toml``; a quantity the bed's set does not name is absent.
+
+def bed_ratios(tissue: str) -> dict[str, float]:
+    """Skin-bed value relative to the study bed's: median ratios (SCALED) and differences (``<symbol>_shift``,
+    SHIFTED, mmHg) of ``priors/skin_subcutis.toml`` against ``priors/<tissue>.toml``.
 
     Parameters
     ----------
@@ -42,16 +47,11 @@ def bed_ratios(tissue: str) -> dict[str, dict[str, float]]:
     Returns
     -------
     dict
-        bed -> {symbol: ratio (1), ``<symbol>_shift``: difference (mmHg)}.
+        symbol -> ratio (1), ``<symbol>_shift`` -> difference (mmHg).
     """
-    own = prior_medians(tissue)
-    out: dict[str, dict[str, float]] = {}
-    for bed, prior_set in BED_SETS.items():
-        other = prior_medians(prior_set)
-        both = [s for s in BED_INPUTS if s in own and s in other]
-        ratios = {s: other[s] / own[s] for s in both if s not in SHIFTED and own[s] != 0}
-        ratios.update({f"{s}_shift": other[s] - own[s] for s in both if s in SHIFTED})
-        out[bed] = ratios
+    own, skin = prior_medians(tissue), prior_medians(SKIN_SET)
+    out = {s: skin[s] / own[s] for s in SCALED if s in own and s in skin and own[s] != 0}
+    out.update({f"{s}_shift": skin[s] - own[s] for s in SHIFTED if s in own and s in skin})
     return out
 
 
