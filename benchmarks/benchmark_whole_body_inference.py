@@ -159,6 +159,18 @@ earlier cohort sat in resting states where lymph saturates, the resting-Pi expec
 tests/test_whole_body.py); the gate is right to say so, and the 5-minute figure holds for the time, not for every
 dataset's gate.
 
+Measured again 2026-12-05 (sixteenth session, idle machine; the data of ``--seed 23``, the model of main 1608cda, one
+compile then nutpie called directly, ``tune 300, draws 800, target_accept 0.9``, 4 chains). The gate's verdict on
+these data depends on the sampler's seed: seed 23 R-hat 1.010 on the shared between-subject spread factor (bulk ESS
+473, fails), seed 24 R-hat 1.0045 (smallest bulk ESS 544, passes), both 0 divergences, 31 steps per draw, sampling
+102 and 129 s. The factor's posterior is close to its prior (z mean 0.76, sd 0.95 against 0 and 1; per-chain means
+0.59-0.94 at seed 23): the readings barely inform it, and it moves with the scores of the few subjects whose readings
+do pin a combination (correlation up to 0.41 with one subject's plasma-protein score), a funnel the chains cross
+slowly. nutpie's low-rank mass matrix did worse (seed 23: R-hat 1.023 and 2 divergences; seed 24: R-hat 1.013 and 1
+divergence). A gut-wall bed (tried and not kept, see the validation row of the Ringer's share at 15 min) made the
+first fit of the design compile for 245.5 s, sample for 183.2 s at 34 steps per draw and diverge in 965 of 3200
+transitions (peak 7.0 GB).
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] [--seed N] (``--cap``: stop the child
 after this many seconds; its figures are then lower bounds.)
