@@ -169,7 +169,8 @@ do pin a combination (correlation up to 0.41 with one subject's plasma-protein s
 slowly. nutpie's low-rank mass matrix did worse (seed 23: R-hat 1.023 and 2 divergences; seed 24: R-hat 1.013 and 1
 divergence). A gut-wall bed (tried and not kept, see the validation row of the Ringer's share at 15 min) made the
 first fit of the design compile for 245.5 s, sample for 183.2 s at 34 steps per draw and diverge in 965 of 3200
-transitions (peak 7.0 GB).
+transitions (peak 7.0 GB); with the gut at its own prior set's medians instead (an experiment, the test suite's
+clean-clone run beside it, so no times): 5 divergences, 31 steps per draw, smallest bulk ESS 691, peak 5.1 GB.
 
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] [--seed N] (``--cap``: stop the child
