@@ -98,6 +98,11 @@ def test_the_table_and_the_figures(setting: tuple, tmp_path: Path) -> None:
     paths = timeline_fans(types.SimpleNamespace(doc={"timeline": tl}), str(tmp_path))
     names = {Path(p).name for p in paths}
     assert {"inference_timeline.png", "inference_timeline_subjects_hb_ratio.png"} <= names
+    # a result without predictive intervals (saved before they existed, or urine read as rates only): the same
+    # panels, without bars
+    bare = {k: v for k, v in tl.items() if k != "predictive"}
+    again = timeline_fans(types.SimpleNamespace(doc={"timeline": bare}), str(tmp_path / "bare"))
+    assert {Path(p).name for p in again} == names
     assert timeline_text({}) == "" and timeline_fans(types.SimpleNamespace(doc={}), str(tmp_path)) == []
     html = section_html({"timeline": tl})
     assert "Where the volume is over time" in html and html.count("<table") == 2 and ">typical<" in html

@@ -127,9 +127,8 @@ def timeline_fans(result: Any, out_dir: str) -> list[str]:
                                  sharey=True)
         for ax, sid in zip(axes.ravel(), subjects, strict=False):
             draw_band(ax, t, (tl.get("as_read") or {}).get(name, {}).get(sid) or tl["subjects"][sid][name], "#3b6ea5")
-            pred = (tl.get("predictive") or {}).get(name) or {"subjects": [], "times_min": [], "ci95": [],
-                                                              "values": [], "inside": []}
-            bars = [k for k, s in enumerate(pred["subjects"]) if s == sid]
+            pred = (tl.get("predictive") or {}).get(name) or {}   # (posterior_timeline.reading_intervals)
+            bars = [k for k, s in enumerate(pred.get("subjects", [])) if s == sid]
             ax.vlines([pred["times_min"][k] for k in bars], [pred["ci95"][k][0] for k in bars],
                       [pred["ci95"][k][1] for k in bars], color="#8a8a8a", lw=1.6, zorder=2)
             out = [k for k in bars if not pred["inside"][k]]
