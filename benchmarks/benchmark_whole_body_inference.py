@@ -172,6 +172,19 @@ first fit of the design compile for 245.5 s, sample for 183.2 s at 34 steps per 
 transitions (peak 7.0 GB); with the gut at its own prior set's medians instead (an experiment, the test suite's
 clean-clone run beside it, so no times): 5 divergences, 31 steps per draw, smallest bulk ESS 691, peak 5.1 GB.
 
+Measured again 2026-12-05 (seventeenth session; the data of ``--seed 23``, one compile (a hit, 40.3 s), then nutpie
+called directly, ``tune 300, target_accept 0.9``; the test suite ran beside the last three, so no times). Sampler
+settings against the slow spread factor: the default (4 x 800, seed 23) again R-hat 1.010, bulk ESS 473, 0
+divergences; nutpie's variance-based mass matrix instead of the gradient-based one (``use_grad_based_mass_matrix =
+False``) mixed the factor better but diverged: seed 23 R-hat 1.0059, smallest bulk ESS 724, 4 divergences, 39 steps
+per draw; seed 24 R-hat 1.0022, ESS 524, 2 divergences; six chains of 550 draws: R-hat 1.0159 (Kf's score), 1
+divergence. None passes the gate reliably; the default stays. With a gut-wall bed, the step's local relaxation rate
+(an exponential step whose rate is re-taken at each step's start; a numpy prototype, not kept) did not help either:
+on the posterior draws of the 965-divergence fit its haemoglobin-ratio step error at 3.75-min steps was 7e-5 at the
+median (9e-5 at the resting rate) but 1.03 at the worst (0.015): the Jacobian at rest of the worst draws has a second
+fast mode, -0.26 to -0.31 /min, that is mostly plasma volume (the plasma relaxing through a gut whose Kf times mass
+reached about 14 mL/min/mmHg), which the per-bed exponential step does not cover.
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] [--seed N] (``--cap``: stop the child
 after this many seconds; its figures are then lower bounds.)

@@ -26,7 +26,8 @@ from uncertainty.core.serialise import jsonable, to_json
 def test_every_analysis_is_registered_once_in_run_order() -> None:
     names = [a.name for a in registry.ANALYSES]
     assert names == ["propagate", "sensitivity", "infer", "rank", "design", "schedule", "scenarios",
-                     "calibrate"]  # calibrate runs only with a [calibrate] section (issue 18 item 13)
+                     "calibrate",  # calibrate runs only with a [calibrate] section (issue 18 item 13)
+                     "validation"]  # only where the validation table has rows for the study's tissue and form
     assert all(registry.analysis(n).name == n for n in names)
     assert registry.analysis("check") is None
     assert [a.name for a in registry.DIAGNOSTICS] == ["infer", "propagate"]

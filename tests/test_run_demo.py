@@ -18,7 +18,7 @@ from uncertainty.core.resources import studies_dir
 
 pytestmark = pytest.mark.slow  # PyMC sampling inside
 
-ANALYSES = ("propagate", "sensitivity", "infer", "rank", "design")
+ANALYSES = ("propagate", "sensitivity", "infer", "rank", "design", "validation")
 
 
 def _fluidshift() -> list[str]:

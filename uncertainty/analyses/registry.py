@@ -36,6 +36,9 @@ from uncertainty.analyses.schedule import report_section as schedule_report
 from uncertainty.analyses.schedule.result import ScheduleResult
 from uncertainty.analyses.sensitivity import report_section as sensitivity_report
 from uncertainty.analyses.sensitivity.result import SensitivityResult
+from uncertainty.analyses.validation import report_section as validation_report
+from uncertainty.analyses.validation import section as validation_
+from uncertainty.analyses.validation.result import FormValidationResult
 from uncertainty.core.errors import QualityGateError
 
 
@@ -112,6 +115,14 @@ def _run_calibrate(study: Any, seed: int | None, executor: Any = None) -> Result
                                 draws=getattr(section, "draws", calibrate_.DRAWS))
 
 
+def _has_validation_rows(study: Any) -> bool:
+    return bool(validation_.study_rows(study))
+
+
+def _run_validation(study: Any, seed: int | None) -> Result:
+    return validation_.validate_study(study, seed=seed)
+
+
 #: the analyses whose ``run`` also takes ``executor=`` (:mod:`uncertainty.core.parallel`): their
 #: independent tasks go through it, with the same numbers on any executor
 USES_EXECUTOR = frozenset({"propagate", "sensitivity", "rank", "design", "schedule", "calibrate"})
@@ -153,6 +164,11 @@ ANALYSES: tuple[Analysis, ...] = (
              from_dict=CalibrationResult.from_dict, present=_has_section("calibrate"),
              section_html=calibrate_report.section_html, summary=calibrate_report.summary,
              captions=calibrate_report.CAPTIONS),
+    # every study whose tissue and model form have rows in the shipped validation table (shipped priors)
+    Analysis(name="validation", title="The form against published measurements", label="published measurements",
+             depends=(), run=_run_validation, from_dict=FormValidationResult.from_dict, present=_has_validation_rows,
+             section_html=validation_report.section_html, summary=validation_report.summary,
+             captions=validation_report.CAPTIONS),
 )
 
 #: the analyses whose diagnostics the report shows, in its order: the sampler's, then Monte Carlo's
@@ -167,7 +183,7 @@ def analysis(name: str) -> Analysis | None:
     ----------
     name : str
         A section name of results.json ("propagate", "sensitivity", "infer", "rank", "design",
-        "schedule", "scenarios").
+        "schedule", "scenarios", "calibrate", "validation").
 
     Returns
     -------

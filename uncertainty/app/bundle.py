@@ -37,7 +37,7 @@ LOCK = ".lock"
 BUNDLE_ENTRIES = frozenset({RESULTS, REPORT, "tables", "figures", "posterior.nc", STAGING, LOCK})
 
 SectionName = Literal["check", "propagate", "sensitivity", "infer", "rank", "design", "schedule", "scenarios",
-                      "calibrate"]
+                      "calibrate", "validation"]
 
 
 # --------------------------------------------------------------------------------------------

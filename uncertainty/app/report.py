@@ -116,7 +116,7 @@ def _priors(doc: dict[str, Any]) -> str:
     """The priors table: one row of numbers per quantity, then its origin (and note) on a full-width row
     beneath it, so the origin reads whole on a phone and in print instead of in a narrow last column."""
     head = ["symbol", "distribution", "median", "95% interval", "unit", "basis", "between-subject"]
-    out = ['<div class="table-wrap"><table class="priors"><thead><tr>']
+    out = ['<div class="table-wrap"><table class="priors stacked"><thead><tr>']
     out += [f"<th>{escape(h)}</th>" for h in head]
     out.append("</tr></thead><tbody>")
     for r in doc.get("priors", []):
@@ -128,7 +128,7 @@ def _priors(doc: dict[str, Any]) -> str:
         for i, (h, c) in enumerate(zip(head, cells, strict=True)):
             cls = ' class="num"' if i == 2 else ""
             tds.append(f'<td data-label="{escape(h)}"{cls}>{escape(c)}</td>')
-        out.append('<tr class="prior">' + "".join(tds) + "</tr>")
+        out.append('<tr class="prior entry">' + "".join(tds) + "</tr>")
         origin = r.get("origin") or "(no origin given)"
         note = f' <span class="note">Note: {escape(r["note"])}</span>' if r.get("note") else ""
         out.append(f'<tr class="origin-row"><td colspan="{len(head)}"><span class="origin-label">Origin:</span> '

@@ -183,7 +183,7 @@ class RowResult:
         """JSON-ready row: the table's fields, the prediction and the verdict."""
         r = self.row
         return {"id": r.id, "quantity": r.quantity, "tissue": r.tissue, "model": r.model,
-                "conditions": list(r.conditions), "unit": r.unit, "low": r.low,
+                "conditions": list(r.conditions), "conditions_text": _conditions(r), "unit": r.unit, "low": r.low,
                 "high": r.high if math.isfinite(r.high) else None, "value": r.value, "source": r.source,
                 "band": r.band, "kind": r.kind, "known_gap": r.known_gap or None,
                 "setting": r.setting or None, "parameters": dict(r.parameters) or None,
