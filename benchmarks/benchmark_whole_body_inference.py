@@ -208,6 +208,7 @@ BODY_KG = 73.0             # invented subjects (the ICRP Publication 89 referenc
 TIMES_MIN = (0, 15, 30, 45, 60, 75, 90, 120, 150, 180)   # invented protocol: 10 samples
 SETTINGS = ("sampler", "tune", "draws", "target_accept")   # the study's [infer] keys the flags write
 HB_SD = 0.2                # g/dL, from memory (analyser repeatability about 1-2% at 14 g/dL)
+URINE_SD = 15.0            # mL, from memory (a graduated collection read to about 10-20 mL)
 
 
 def population(study: object, n: int, seed: int) -> dict[str, np.ndarray]:
@@ -228,9 +229,10 @@ def population(study: object, n: int, seed: int) -> dict[str, np.ndarray]:
     return from_scores(study, z, "individual")
 
 
-def write_study(folder: Path, n: int, samples: int, seed: int = 20, settings: dict[str, object] | None = None
-                ) -> tuple[Path, dict[str, np.ndarray]]:
-    """Write an invented whole-body study of ``n`` subjects with ``samples`` haemoglobin readings each.
+def write_study(folder: Path, n: int, samples: int, seed: int = 20, settings: dict[str, object] | None = None,
+                urine: bool = False) -> tuple[Path, dict[str, np.ndarray]]:
+    """Write an invented whole-body study of ``n`` subjects with ``samples`` haemoglobin readings each (and, with
+    ``urine``, the cumulative urine volume at the same times after 0).
 
     Parameters
     ----------
@@ -245,6 +247,9 @@ def write_study(folder: Path, n: int, samples: int, seed: int = 20, settings: di
     settings : dict, optional
         The study's ``[infer]`` settings (``sampler``, ``tune``, ``draws``, ``target_accept``; default: the tool's
         defaults).
+    urine : bool
+        Also simulate each subject's cumulative urine (mL) at the reading times after 0, with normal noise of
+        :data:`URINE_SD`, as a ``urine`` observation (the readings that inform renal elimination, ``t_el``).
 
     Returns
     -------
@@ -284,7 +289,14 @@ kind = "haemoglobin"
 file = "hb.csv"
 unit = "g/dL"
 sd = {HB_SD}                         # from memory: analyser repeatability
-""" + ("\n[infer]\n" + "".join(f"{k} = {json.dumps(v)}\n" for k, v in settings.items()) if settings else "")
+""" + (f"""
+[[observations]]
+kind = "urine"
+file = "urine.csv"
+unit = "mL"
+sd = {URINE_SD}                      # from memory: a graduated collection
+""" if urine else "") + (
+        "\n[infer]\n" + "".join(f"{k} = {json.dumps(v)}\n" for k, v in settings.items()) if settings else "")
     path = folder / "study.toml"
     path.write_text(text)
     (folder / "hb.csv").write_text("subject,time_min,value\nS00,0,14\nS00,15,13\n")  # placeholder to load
@@ -294,10 +306,14 @@ sd = {HB_SD}                         # from memory: analyser repeatability
                                                 "volume": f"{25.0 * BODY_KG:g} mL", "duration": "30 min"}],
                              "timeline": {"end": f"{times[-1]:g} min", "report_every": "15 min"}})
     truth = population(study, n, seed)
-    course = whole_body_course(input_values(study, truth), study, "hb_ratio", np)
+    course = whole_body_course(input_values(study, truth), study, None, np)
     lo, hi, w = interpolation(times, course["times_min"])
-    grid = np.stack([np.ravel(x) * np.ones(n) for x in course["hb_ratio"]])     # (report time, subject)
-    ratio = (1.0 - w)[:, None] * grid[lo] + w[:, None] * grid[hi]                 # (reading, subject)
+
+    def at_readings(name: str) -> np.ndarray:  # (reading, subject), linearly between the report times
+        grid = np.stack([np.ravel(x) * np.ones(n) for x in course[name]])      # (report time, subject)
+        return (1.0 - w)[:, None] * grid[lo] + w[:, None] * grid[hi]
+
+    ratio = at_readings("hb_ratio")
     rng = np.random.default_rng(seed)
     base = rng.normal(14.0, 1.0, n)                   # invented baseline Hb, g/dL
     rows = ["subject,time_min,value"]
@@ -305,6 +321,12 @@ sd = {HB_SD}                         # from memory: analyser repeatability
         for k, t in enumerate(times):
             rows.append(f"S{s:02d},{t:g},{base[s] * ratio[k, s] + rng.normal(0.0, HB_SD):.3f}")
     (folder / "hb.csv").write_text("\n".join(rows) + "\n")
+    if urine:
+        volume = at_readings("urine_volume")
+        noise = np.random.default_rng([seed, 2]).normal(0.0, URINE_SD, volume.shape)   # a stream of its own
+        rows = ["subject,time_min,value"] + [f"S{s:02d},{t:g},{max(volume[k, s] + noise[k, s], 0.0):.1f}"
+                                             for s in range(n) for k, t in enumerate(times) if t > 0]
+        (folder / "urine.csv").write_text("\n".join(rows) + "\n")
     return path, {k: np.asarray(v, dtype=float) for k, v in truth.items()}
 
 

@@ -35,13 +35,14 @@ def dose(fluid: str, volume: float, duration: float, start: float = 0.0) -> list
 BENCHMARK = Path(__file__).resolve().parents[1] / "benchmarks" / "benchmark_whole_body_inference.py"
 
 
-def invented_infusion_study(folder: Path, subjects: int, samples: int = 10, seed: int = 20
+def invented_infusion_study(folder: Path, subjects: int, samples: int = 10, seed: int = 20, urine: bool = False
                             ) -> tuple[Path, dict[str, Any]]:
     """The whole-body inference benchmark's invented study (``write_study`` of
     ``benchmarks/benchmark_whole_body_inference.py``, loaded by file path so that tests and benchmark simulate with
     one function): ``subjects`` invented volunteers of one population, 25 mL/kg crystalloid over 30 min,
-    ``samples`` haemoglobin readings each (g/dL, 0-180 min). Returns the study file and the true values."""
+    ``samples`` haemoglobin readings each (g/dL, 0-180 min), with ``urine`` also cumulative urine (mL) at those times.
+    Returns the study file and the true values."""
     spec = importlib.util.spec_from_file_location("benchmark_whole_body_inference", BENCHMARK)
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
-    return module.write_study(folder, subjects, samples, seed=seed)
+    return module.write_study(folder, subjects, samples, seed=seed, urine=urine)

@@ -57,7 +57,7 @@ CANONICAL: dict[str, str] = {
     "GFR": "mL/min", "RPF": "mL/min", "Kf_organ": "mL/min/mmHg", "Jv_organ": "mL/min",
     # other
     "r_S": "nm", "r_L": "nm",
-    "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min",
+    "tissue_mass": "kg", "density": "g/mL", "height": "cm", "tau_v": "min", "time": "min", "t_el": "min",
     "M_lung": "g/kg", "EVLWI": "mL/kg",
     "k_clear": "1/min", "k_AFC": "1/min",
     # whole-body albumin transcapillary escape rate: % of the plasma albumin mass leaving per hour

@@ -133,7 +133,7 @@ FORMS: dict[str, FormSpec] = {spec.name: spec for spec in (
                  "([[interventions]], [timeline]); scalar outputs: the resting state of the study's bed"),
         evaluate=whole_body.evaluate,
         required=("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0", "C_tis"),
-        optional=("C_tis_high", "Pi_break", "JL_max", "r", "Cp"),
+        optional=("C_tis_high", "Pi_break", "JL_max", "r", "Cp", "t_el"),
         solved=("Pi", "pi_i", "pi_g"),
         outputs=_STEADY_OUTPUTS,
         tissues=("skeletal_muscle",),
@@ -476,7 +476,7 @@ OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "E
 #: Display order of inputs (others follow alphabetically).
 INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C_alb", "C_glob", "pi_i",
                "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0",
-               "JL_max", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s", "alpha_L", "r_S", "r_L")
+               "JL_max", "t_el", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s", "alpha_L", "r_S", "r_L")
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "

@@ -17,6 +17,7 @@ adipose tissue, taken as 0.8 of the 18.2 kg of adipose tissue (the share from me
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 
 import numpy as np
@@ -50,7 +51,8 @@ def timeline_parameters(v: Mapping[str, Array], body_mass_kg: float, bed_ratios:
     ----------
     v : mapping
         Every input (``forms.evaluate.input_values``): Kf, Pc, sigma, PS, pi_c (mmHg), L, Pi_L0, C_tis and
-        optionally C_tis_high, Pi_break, JL_max, r, Cp (g/dL), canonical units.
+        optionally C_tis_high, Pi_break, JL_max, r, Cp (g/dL) and t_el (the elimination half-life of infused
+        crystalloid, min; default ``physiology.whole_body.ELIMINATION_HALF_LIFE_MIN``), canonical units.
     body_mass_kg : float
         Body mass, kg.
     bed_ratios : mapping
@@ -69,6 +71,8 @@ def timeline_parameters(v: Mapping[str, Array], body_mass_kg: float, bed_ratios:
     """
     xp = np if xp is None else xp
     body = wb.body_parameters(body_mass_kg)
+    if "t_el" in v:  # the crystalloid's clearance constant from the subject's elimination half-life
+        body["k_r"] = math.log(2.0) / v["t_el"] * body["Vp0"]
     body["r"] = v.get("r", 0.12)  # from memory: Rv/Ra about 0.1-0.3 (Pappenheimer & Soto-Rivera 1948)
     Cp0 = v["Cp"] if "Cp" in v else wb.protein_from_oncotic(v["pi_c"], xp)
     beds: dict[str, dict[str, Array]] = {}

@@ -27,7 +27,10 @@ single-study constant multiplied the dilution of a larger expandable space (Sven
 a 4.8 L space; Drobin D, Hahn RG 1999 Anesthesiology 90:81, 133 mL/min in a two-volume model); applied to the
 plasma dilution it doubles the early urine (about 720 mL by 30 min after 25 mL/kg against a peak of 19 (13-31)
 mL/min of urine in conscious volunteers, Rodhe P et al. 2010 Comput Math Methods Med 11:341, abstract), which is
-why the half-life form is used. Here urine = max(u_basal + k_r(t) (Vp - Vp0)/Vp0, 0); the basal urine is taken as
+why the half-life form is used. The ``whole_body`` form draws the half-life per subject from its prior ``t_el``
+(``priors/skeletal_muscle.toml``: median 38 min, wider for saline and concentrated urine), so that renal
+elimination is uncertain and readings of urine or haemoglobin update it; the constant is the default without it.
+Here urine = max(u_basal + k_r(t) (Vp - Vp0)/Vp0, 0); the basal urine is taken as
 balanced by basal intake, so only the excess leaves the plasma. Colloids have their own clearance constant on the
 plasma dilution (7.1 mL/min, Lee et al. 2010, see :data:`K_R_COLLOID_ML_MIN`); k_r(t) (:func:`renal_terms`) is the
 volume-weighted mean of the constants of the fluids infused by t (the crystalloid's before any infusion and for

@@ -40,7 +40,7 @@ from uncertainty.physiology import whole_body as wb
 #: 0.5-min timeline by more than ``tests/test_whole_body_endpoints.py`` allows.
 MAX_STEP_MIN = 4.0
 #: Inputs of the time course besides the per-bed ones (forms.whole_body.timeline_parameters).
-BODY_INPUTS = ("pi_c", "Cp", "r")
+BODY_INPUTS = ("pi_c", "Cp", "r", "t_el")
 
 
 def check_timed_rows(obs: Observation, problem: Problem, what: str, sd_unit: str) -> None:
