@@ -185,6 +185,16 @@ median (9e-5 at the resting rate) but 1.03 at the worst (0.015): the Jacobian at
 fast mode, -0.26 to -0.31 /min, that is mostly plasma volume (the plasma relaxing through a gut whose Kf times mass
 reached about 14 mL/min/mmHg), which the per-bed exponential step does not cover.
 
+Measured again 2026-12-05 (seventeenth session, idle machine, load 0.5-1.2 at the starts) after the crystalloid's
+elimination half-life became an uncertain prior (``t_el``: one more typical value and subject layer, 26 free
+variables; the invented subjects change with it), ``--tune 300 --draws 800 --target-accept 0.9``: data seed 23, the
+first fit of the new design (a miss), wall 243.6 s (compile 115.9 s, sampling 105.5 s, 31 steps per draw, 0
+divergences, peak 3.3 GB), gate FAILED on t_el's bulk ESS 393 (the spread factor, which failed on these data before,
+now passes); data seed 22, a later fit (compile 40.5 s), **wall 156.7 s, gate passed** (0 divergences, smallest bulk
+ESS 473, tail 675, peak 1.0 GB). Haemoglobin alone informs the half-life only through the late slope of the
+dilution, so its subject values mix slowly like the spread factor's; urine readings pin it
+(``tests/test_whole_body_recovery.py``).
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] [--seed N] (``--cap``: stop the child
 after this many seconds; its figures are then lower bounds.)
