@@ -27,6 +27,15 @@ def _interval(r: dict[str, Any]) -> str:
     return f"[{fmt(ci[0], 3)}, {fmt(ci[1], 3)}]"
 
 
+def _conditions(r: dict[str, Any]) -> str:
+    return str(r.get("conditions_text") or ", ".join(r.get("conditions") or []) or "normal")
+
+
+def _verdict(r: dict[str, Any]) -> str:
+    kind = f" ({r['kind']})" if r.get("kind") in ("calibration", "input") else ""
+    return f"{r.get('verdict', '')}{kind}"
+
+
 def _counts(doc: dict[str, Any]) -> str:
     c = doc.get("counts") or {}
     return (f"{len(doc.get('rows') or [])} published measurements: {c.get('inside', 0)} inside their band, "
@@ -77,11 +86,8 @@ def section_html(doc: dict[str, Any]) -> str:
            '<div class="table-wrap"><table class="validation stacked"><thead><tr>',
            *(f"<th>{escape(h)}</th>" for h in head), "</tr></thead><tbody>"]
     for r in doc.get("rows") or []:
-        verdict = str(r.get("verdict", ""))
-        if r.get("kind") in ("calibration", "input"):
-            verdict += f" ({r['kind']})"
-        cells = [r.get("quantity"), r.get("conditions_text") or ", ".join(r.get("conditions") or []) or "normal",
-                 _band(r), fmt(r.get("median"), 3), _interval(r), r.get("unit") or "", verdict]
+        cells = [r.get("quantity"), _conditions(r), _band(r), fmt(r.get("median"), 3), _interval(r),
+                 r.get("unit") or "", _verdict(r)]
         tds = "".join(f'<td data-label="{escape(h)}"{" class=num" if h == "median" else ""}>{escape(str(c))}</td>'
                       for h, c in zip(head, cells, strict=True))
         cls = {"inside": "ok", "outside": "bad"}.get(str(r.get("verdict")), "gap")
@@ -111,9 +117,8 @@ def text_table(doc: dict[str, Any]) -> str:
     qw = max([10] + [len(str(r.get("quantity"))) + 2 for r in rows])
     lines = [f"{'quantity':<{qw}}{'conditions':<36}{'band':>20}{'median':>10}{'95% interval':>24}  {'unit':<14}verdict"]
     for r in rows:
-        cond = str(r.get("conditions_text") or "normal")[:35]
-        lines.append(f"{str(r.get('quantity')):<{qw}}{cond:<36}{_band(r):>20}{fmt(r.get('median'), 3):>10}"
-                     f"{_interval(r):>24}  {str(r.get('unit') or ''):<14}{r.get('verdict')}")
+        lines.append(f"{str(r.get('quantity')):<{qw}}{_conditions(r)[:35]:<36}{_band(r):>20}"
+                     f"{fmt(r.get('median'), 3):>10}{_interval(r):>24}  {str(r.get('unit') or ''):<14}{_verdict(r)}")
     lines.append(_counts(doc) + f" ({doc.get('form')} form of {doc.get('tissue')}, shipped priors, typical subject)")
     return "\n".join(lines)
 
