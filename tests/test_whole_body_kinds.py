@@ -442,9 +442,10 @@ def test_the_models_terms_keep_the_relations_at_a_point(tmp_path: Path) -> None:
 
 
 @pytest.mark.parametrize("kind", ["haematocrit", "urine"])
-def test_kf_keeps_its_own_spread_factor_under_red_cell_readings(tmp_path: Path, kind: str) -> None:
-    # red-cell dilution informs each subject's Kf alone (haemoglobin.OWN_SPREAD), so Kf's between-subject spread
-    # has its own factor and the joint factor holds the others; urine alone informs no quantity so (all joint)
+def test_kf_and_t_el_keep_their_own_spread_factors_under_their_readings(tmp_path: Path, kind: str) -> None:
+    # red-cell dilution informs each subject's Kf alone (haemoglobin.OWN_SPREAD), urine each subject's elimination
+    # half-life t_el (urine.OWN_SPREAD): that quantity's between-subject spread has its own factor and the joint
+    # factor holds the others
     from uncertainty.analyses.inference.model_builder import build_model
 
     problem = _problem(tmp_path, [HCT if kind == "haematocrit" else RATE])
@@ -452,8 +453,10 @@ def test_kf_keeps_its_own_spread_factor_under_red_cell_readings(tmp_path: Path, 
     free = {v.name for v in built.model.free_RVs}
     assert "joint__spread_z" in free
     assert ("Kf__spread_z" in free) is (kind == "haematocrit")
+    assert ("t_el__spread_z" in free) is (kind == "urine")
     joint_note = next(n for n in built.notes if n.startswith("one between-subject spread factor"))
-    assert ("Kf" in joint_note.split(" for ")[1].split(" (")[0].split(", ")) is (kind != "haematocrit")
+    joint = joint_note.split(" for ")[1].split(" (")[0].split(", ")
+    assert ("Kf" in joint) is (kind != "haematocrit") and ("t_el" in joint) is (kind != "urine")
 
 
 def test_each_kinds_reading_intervals_on_its_chart(tmp_path: Path) -> None:

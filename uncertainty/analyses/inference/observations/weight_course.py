@@ -50,6 +50,9 @@ from uncertainty.analyses.inference.observations.course import (
 from uncertainty.analyses.inference.problem import Observation, Problem
 from uncertainty.physiology import whole_body as wb
 
+#: As ``observations.urine.OWN_SPREAD``: the weights follow the urine, so they read each subject's t_el alone.
+OWN_SPREAD = ("t_el",)
+
 #: The time course the readings follow (``physiology.whole_body.TIMELINE_UNITS``, kg).
 COURSE = "body_weight_change"
 
