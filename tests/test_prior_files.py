@@ -43,6 +43,7 @@ SYMBOLS = {
     "sigma_s",  # reflection coefficient of the blood-brain barrier to small solutes (crystalloid term)
     "M_lung",  # blood-free lung mass per kg predicted body weight: EVLW -> EVLWI (issue 15 item 1)
     "alpha_L", "r_S", "r_L",  # two-pore form: large-pore share of Kf, pore radii (issue 15 item 2)
+    "t_el",  # whole-body form: elimination half-life of infused crystalloid (volume kinetics; issue 20)
 }
 
 #: Quantities that may be negative (DESIGN.md section 4: "Negative pressures are valid where the
