@@ -46,7 +46,7 @@ COURSE = "urine_volume"
 #: Quantities whose between-subject spread these readings inform on their own (``model_builder._jointly_spread``):
 #: the urine is the elimination (Hahn RG 2016 Biol Sex Differ 7:54 defines the half-life from it), so each subject's
 #: t_el is read here. Sharing the joint factor, six invented subjects whose urine put the typical half-life at 64 min
-#: widened every other spread with t_el's: PS wandered far into its tail (posterior 120 times wider than its prior),
+#: widened every other spread with t_el's: PS wandered far into its tail (posterior variance 120 times its prior's),
 #: 186 divergent transitions, R-hat 1.046 (our measurement, 2026-12-05).
 OWN_SPREAD = ("t_el",)
 
