@@ -67,7 +67,7 @@ def test_round_trip_html_table_csv_and_figure(muscle_classic, tmp_path) -> None:
     assert cap.endswith(".") and ". " not in cap
 
 
-def test_known_gap_shows_the_first_sentence_of_its_reason() -> None:
+def test_known_gap_shows_the_first_sentence_of_its_reason(tmp_path) -> None:
     # an invented reason: the abbreviation "et al." does not end the first sentence
     reason = "the cause here (Smith et al. 2001 J Invented Physiol 1:1). What was tried. More."
     assert first_sentence(reason) == "the cause here (Smith et al. 2001 J Invented Physiol 1:1)."
@@ -80,6 +80,14 @@ def test_known_gap_shows_the_first_sentence_of_its_reason() -> None:
     assert "Known gap:</span> the cause here (Smith et al. 2001 J Invented Physiol 1:1)." in html
     assert "What was tried" not in html
     assert re.search(r"\[0\.4, inf\]", html)   # a one-sided band
+    # the figure draws an open band with its arrow and a row the form could not predict (no median, no interval)
+    doc["rows"].append({"quantity": "q at 60 min", "verdict": "outside", "source": "s 2001", "low": 1.0,
+                        "high": 2.0, "median": float("nan"), "ci95": [float("nan"), float("nan")], "unit": "1"})
+    files = FormValidationResult.from_dict(doc).plot(str(tmp_path))
+    assert sorted(p.rsplit(".", 1)[1] for p in files) == ["png", "svg"]
+    svg = next(p for p in files if p.endswith(".svg"))
+    assert "not predicted" in open(svg, encoding="utf-8").read()
+    doc["rows"].pop()
     (line,) = summary(doc)
     assert "2 published measurements: 1 inside their band, 0 outside, 1 known gaps" in line
     assert line.endswith("known gaps: q at 15 min.")
