@@ -31,6 +31,7 @@ TISSUES = {"skeletal_muscle", "skin_subcutis", "lung", "myocardium", "intestinal
 SYMBOLS = {
     "Pc", "Pi", "pi_c", "pi_i", "pi_g", "sigma", "Kf", "Jv", "JL", "Pa", "Pv", "r", "Cp", "Ci", "PS",
     "C_tis", "L", "Pvi", "tissue_mass", "LAP", "PAP", "Pi_L0", "JL_max",
+    "JL_reserve",  # lymph flow's rise above its resting flow: JL_max = resting filtrate + JL_reserve (muscle set)
     "k_AFC",  # alveolar fluid clearance rate (1/min): alveolar water of the flooded lung (physiology.lung)
     "P_imb",  # shift of the interstitial pressure-volume relation of an injured matrix (burns)
     "TPG",  # transpulmonary gradient PAP - LAP: the lung's PAP = LAP + TPG (issue 15 item 9)

@@ -47,7 +47,8 @@ CANONICAL: dict[str, str] = {
     "osmolality": "mOsm/kg", "d_osmolality": "mOsm/kg", "Osm_p": "mOsm/kg", "Osm_i": "mOsm/kg",
     # per-tissue quantities (basis suffix)
     "Kf": "mL/min/mmHg/100g",
-    "Jv": "mL/min/100g", "JL": "mL/min/100g", "JL_max": "mL/min/100g", "swelling_rate": "mL/min/100g",
+    "Jv": "mL/min/100g", "JL": "mL/min/100g", "JL_max": "mL/min/100g", "JL_reserve": "mL/min/100g",
+    "swelling_rate": "mL/min/100g",
     "J_epi": "mL/min/100g", "Jv_large": "mL/min/100g",
     "PS": "mL/min/100g",
     "C_tis": "mL/mmHg/100g", "C_tis_high": "mL/mmHg/100g", "C_v": "mL/mmHg/100g",

@@ -145,7 +145,7 @@ MODEL_FORMS = tuple(FORMS)
 GENERAL_FORMS = tuple(name for name, spec in FORMS.items() if spec.tissues is None)
 
 #: Derived quantities a study may show as outputs (``priors.derived`` targets; units from core.units).
-DERIVED_OUTPUTS = ("Pc", "pi_c", "pi_i")
+DERIVED_OUTPUTS = ("Pc", "pi_c", "pi_i", "JL_max")
 
 
 def form(name: str) -> FormSpec:
@@ -476,7 +476,8 @@ OUTPUT_ONLY = frozenset({"Jv", "JL", "net_pressure", "oedema_volume", "EVLW", "E
 #: Display order of inputs (others follow alphabetically).
 INPUT_ORDER = ("Kf", "Pc", "Pa", "Pv", "r", "LAP", "PAP", "Pi", "pi_c", "Cp", "C_alb", "C_glob", "pi_i",
                "Ci", "Ci_alb", "Ci_glob", "sigma", "PS", "PS_large", "C_tis", "C_tis_high", "Pi_break", "L", "Pi_L0",
-               "JL_max", "t_el", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s", "alpha_L", "r_S", "r_L")
+               "JL_max", "JL_reserve", "t_el", "G_flood", "P_flood", "Osm_p", "Osm_i", "sigma_s", "alpha_L", "r_S",
+               "r_L")
 
 #: Tissues without conventional lymphatics: lymph-flow observations are refused there, with the reason.
 NO_LYMPH = {"brain": "the brain has no conventional lymphatics (interstitial fluid leaves by perivascular "

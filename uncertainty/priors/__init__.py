@@ -33,8 +33,10 @@ from uncertainty.priors.declarations import (  # noqa: F401
     unit_info,
 )
 from uncertainty.priors.derived import (  # noqa: F401
-    PRESSURE_DERIVATIONS,
+    DERIVATION_RULES,
+    WIDENED_INPUT,
     Derivation,
+    hold_capacity,
     parse_derived,
 )
 from uncertainty.priors.instruments import (  # noqa: F401

@@ -23,7 +23,7 @@ from uncertainty.priors.declarations import (
     is_number,
     parse_prior,
 )
-from uncertainty.priors.derived import Derivation
+from uncertainty.priors.derived import WIDENED_INPUT, Derivation
 from uncertainty.priors.library import PriorSet, data_dir
 
 
@@ -67,7 +67,9 @@ class Condition:
         triangular); ``set`` replaces the declaration (keeping the between-subject spread unless the
         new one states its own); ``extra_sd`` / ``extra_gsd`` widen the prior by the uncertainty about
         the size of the change (variances added). A modifier of a derived quantity (pi_c from protein,
-        Pc from pressures) changes the derivation's result (multiply / shift); a modifier of a quantity
+        Pc from pressures) changes the derivation's result (multiply / shift), its extra uncertainty going to
+        the input that carries the derived quantity's own spread (``derived.WIDENED_INPUT``: JL_reserve for
+        the lymph capacity) or, where there is none, left out with a note; a modifier of a quantity
         absent from the set is skipped with a note in ``notes``. A row with ``tissues`` applies only to
         those tissues (the same parameter may then change by different amounts in different tissues).
         """
@@ -91,7 +93,13 @@ class Condition:
                 priors[sym] = _modify_prior(priors[sym], m, self.path, key, density)
             elif sym in derived:
                 d = derived[sym]
-                if m.set is not None or m.extra_sd or m.extra_gsd:
+                widened = WIDENED_INPUT.get(d.formula)
+                if widened in priors and m.set is None and (m.extra_sd or m.extra_gsd):
+                    # the extra uncertainty goes to the input that carries the derived quantity's own spread
+                    priors[widened] = _modify_prior(priors[widened], Modifier(parameter=widened,
+                                                    extra_sd=m.extra_sd, extra_gsd=m.extra_gsd, origin=m.origin),
+                                                    self.path, key, density)
+                elif m.set is not None or m.extra_sd or m.extra_gsd:
                     if notes is not None:
                         notes.append(f"condition {self.name}: {sym} is derived ({d.describe()}); only its "
                                      "shift / multiply applies, the extra uncertainty is not added")

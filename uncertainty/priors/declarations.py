@@ -81,7 +81,7 @@ META_KEYS = ("dist", "unit", "between_subject", "origin", "note")
 #: Quantities that must be positive (mass at or below zero negligible).
 POSITIVE = frozenset({
     "Kf", "PS", "C_tis", "C_tis_high", "C_v", "L", "sigma", "sigma_g", "sigma_osm", "pi_c", "pi_i",
-    "pi_g", "Cp", "Ci", "C_alb", "C_glob", "Ci_alb", "Ci_glob", "r", "JL_max", "tissue_mass",
+    "pi_g", "Cp", "Ci", "C_alb", "C_glob", "Ci_alb", "Ci_glob", "r", "JL_max", "JL_reserve", "tissue_mass",
     "density", "Pa", "PAP", "tau_v", "k_clear", "Kf_organ", "transmission", "osmolality", "V_dist",
     "J_epi", "EVLW0", "G_flood", "M_lung", "Osm_p", "Osm_i", "t_el",
 })

@@ -60,6 +60,7 @@ from uncertainty.priors import (
     Prior,
     PriorSet,
     convert_unit,
+    hold_capacity,
     load_conditions,
     load_instruments,
     load_prior_set,
@@ -508,7 +509,8 @@ def apply_conditions(declared: Declared, head: StudySection, base: TissueBase, f
             if sym in priors and priors[sym] is not before.get(sym):
                 notes.append(f"condition {cname} changes {sym}, but the {head.model} form solves {sym}; "
                              "that change does not apply (its effect comes through the other quantities)")
-    return Declared(priors=priors, derived=derived, notes=tuple(notes), overridden=declared.overridden)
+    derived, held = hold_capacity(derived, priors, declared.derived, declared.priors)
+    return Declared(priors=priors, derived=derived, notes=tuple(notes + held), overridden=declared.overridden)
 
 
 def apply_overrides(declared: Declared, parameters: Mapping[str, Any], head: StudySection, base: TissueBase,
