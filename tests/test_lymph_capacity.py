@@ -6,12 +6,15 @@ uncertainty on the reserve, and an override that replaces the derivation.
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
 import pytest
+from click.testing import CliRunner
 from scipy.optimize import brentq
 
+from uncertainty.app.cli import main
 from uncertainty.priors import load_prior_set, prior_medians
 from uncertainty.priors.derived import lymph_capacity
 from uncertainty.study import Study
@@ -80,3 +83,14 @@ def test_a_declared_capacity_replaces_the_derivation() -> None:
     s = _study([], parameters={"JL_max": {"dist": "lognormal", "median": 0.02, "gsd": 2.0, "unit": "mL/min/100g",
                                           "origin": "invented for a test"}})
     assert "JL_max" not in s.derived and "JL_max" in s.priors and "JL_reserve" not in s.priors
+
+
+def test_priors_show_gives_the_capacity_its_implied_range() -> None:
+    # the classic form (the set's first) does not read JL_max; the range comes from the first form that does
+    res = CliRunner().invoke(main, ["priors", "show", "skeletal_muscle", "--json"])
+    assert res.exit_code == 0, res.output
+    (row,) = [r for r in json.loads(res.output) if r["symbol"] == "JL_max"]
+    m = prior_medians("skeletal_muscle")
+    lo, hi = row["ci95"]
+    assert lo < m["JL_max"] < hi and lo > 0.0
+    assert row["median"] == pytest.approx(m["JL_max"], rel=0.25)  # the median of the sum is near the sum of medians

@@ -165,7 +165,10 @@ def show_cmd(tissue: str, as_json: bool) -> None:
 
     pset = load_prior_set(tissue)
     rows = prior_rows(pset.priors, pset.derived)
-    implied = implied_ranges(tissue, pset.models[0])
+    implied: dict[str, dict[str, Any]] = {}
+    for model in pset.models:  # a derivation only some forms read (the muscle JL_max) from the first that does
+        if any(r["dist"] == "derived" and r["symbol"] not in implied for r in rows):
+            implied = {**implied_ranges(tissue, model), **implied}
     for r in rows:
         if r["dist"] == "derived" and r["symbol"] in implied:
             r.update(implied[r["symbol"]])
