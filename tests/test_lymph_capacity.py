@@ -41,11 +41,12 @@ def test_the_resting_filtrate_is_the_classic_balance_root(scale: dict[str, float
     assert float(lymph_capacity(0.013, *v.values())) == pytest.approx(want + 0.013, rel=1e-9)
 
 
-def test_the_muscle_set_derives_its_capacity_above_every_resting_filtrate() -> None:
-    pset = load_prior_set("skeletal_muscle")
+@pytest.mark.parametrize("tissue", ["skeletal_muscle", "skin_subcutis"])
+def test_the_set_derives_its_capacity_from_the_resting_filtrate(tissue: str) -> None:
+    pset = load_prior_set(tissue)
     assert "JL_max" not in pset.priors and pset.derived["JL_max"].formula == "lymph_capacity"
-    m = prior_medians("skeletal_muscle")
-    # at the medians: the classic root (about 0.006 mL/min/100 g) plus the reserve's median 0.013
+    m = prior_medians(tissue)
+    # at the medians: the classic root (muscle about 0.006 mL/min/100 g, skin 0.012) plus the reserve's median
     filtrate = _classic_filtrate(*(m[k] for k in ("Kf", "Pc", "sigma", "PS", "pi_c", "L", "Pi_L0")))
     assert m["JL_max"] == pytest.approx(filtrate + m["JL_reserve"], rel=1e-9)
 
