@@ -195,6 +195,24 @@ ESS 473, tail 675, peak 1.0 GB). Haemoglobin alone informs the half-life only th
 dilution, so its subject values mix slowly like the spread factor's; urine readings pin it
 (``tests/test_whole_body_recovery.py``).
 
+Measured again 2026-12-05 (eighteenth session, idle machine, load 0.5-1.0 at the starts) after the muscle lymph
+capacity became the draw's resting filtrate plus ``JL_reserve`` (``priors.derived.lymph_capacity``: 12 Newton steps
+of the classic balance per subject inside the log density; an absolute JL_max had saturated about 12 % of subjects'
+lymph at rest), ``--tune 300 --draws 800 --target-accept 0.9``: data seed 23, the first fit of the new design (a
+miss), wall 347.4 s (compile 195.9 s, sampling 114.5 s, 31 steps per draw, 0 divergences, peak 5.2 GB), **gate
+passed** (smallest bulk ESS 658, tail 1042; these data failed on t_el's ESS 393 before); data seed 22, a later fit
+(compile 56.5 s), wall 187.9 s, 24 steps per draw, 0 divergences, gate FAILED on t_el's bulk ESS 397 (473 before).
+The typical half-life stays the slowest score under haemoglobin alone, at the gate's edge either side. The first
+fit's compile grew (116 -> 196 s); with the resting filtrate in 8 Newton steps instead of 12
+(``derived.CAPACITY_STEPS``, at most 1e-10 of the capacity from 40 steps) and the skin capacity derived the same
+way, data seed 24, again a first fit (a miss): wall 345.1 s (compile 209.4 s, sampling 99.2 s, 28 steps per draw, 0
+divergences, peak 5.2 GB), gate passed (bulk ESS 401, tail 660). So the step count was not the cost; a first fit
+of the design now misses the 5-minute target by its compile (numba over the larger log density), a later fit
+meets it. On the invented six-volunteer
+haemoglobin cohort of the README's check (6 readings each over 120 min, tune 400, draws 600) the gate went from
+FAILED (R-hat 1.010, bulk ESS 342, tail 136) to passed (R-hat 1.007, bulk ESS 958, tail 988, 0 divergences): its
+slow direction was a branch of low JL_max with high PS and t_el, subjects whose lymph saturated at rest.
+
 Run: python benchmarks/benchmark_whole_body_inference.py [--subjects 20] [--samples 10] [--build-only]
 [--cap SECONDS] [--sampler nutpie|pymc] [--tune N] [--draws N] [--target-accept P] [--seed N] (``--cap``: stop the child
 after this many seconds; its figures are then lower bounds.)
