@@ -95,3 +95,13 @@ def test_priors_show_gives_the_capacity_its_implied_range() -> None:
     lo, hi = row["ci95"]
     assert lo < m["JL_max"] < hi and lo > 0.0
     assert row["median"] == pytest.approx(m["JL_max"], rel=0.25)  # the median of the sum is near the sum of medians
+
+
+def test_an_override_of_a_force_keeps_the_capacity_per_draw_and_says_so() -> None:
+    # [parameters] most often declares healthy subjects' own values (studies/forearm_volunteers.toml: Kf), so the
+    # capacity keeps each draw's filtrate; the note says a disease state belongs in a condition
+    s = _study([], parameters={"Pv": 25.0})
+    assert s.derived["JL_max"].healthy_filtrate is None
+    assert any(n.startswith("parameters.Pv: the lymph capacity JL_max") for n in s.notes)
+    classic = Study.from_dict({"study": {"tissue": "skeletal_muscle", "model": "classic"}, "parameters": {"Pv": 25.0}})
+    assert not any("lymph capacity" in n for n in classic.notes)  # (the classic form has no lymph)

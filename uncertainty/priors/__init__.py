@@ -36,6 +36,7 @@ from uncertainty.priors.derived import (  # noqa: F401
     DERIVATION_RULES,
     WIDENED_INPUT,
     Derivation,
+    capacity_forces,
     hold_capacity,
     parse_derived,
 )

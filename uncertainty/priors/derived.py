@@ -128,15 +128,22 @@ DERIVATION_RULES: dict[str, tuple[str, tuple[str, ...]]] = {
 WIDENED_INPUT: dict[str, str] = {"lymph_capacity": "JL_reserve"}
 
 
-def _reads(derived: Mapping[str, Derivation], target: str) -> set[str]:
-    """Every quantity ``target``'s derivation reads, through the derived ones it reads (which are included)."""
-    out: set[str] = set()
-    todo = list(derived[target].inputs)
-    while todo:
-        s = todo.pop()
-        if s not in out:
-            out.add(s)
-            todo += list(derived[s].inputs) if s in derived and s != target else []
+def capacity_forces(derived: Mapping[str, Derivation]) -> dict[str, set[str]]:
+    """For each ``lymph_capacity`` derivation (target -> quantities): the forces its resting filtrate reads, through
+    the derived ones it reads (Pc and its Pa, Pv, r; those derived included), the reserve left out (it is the
+    lymph's own, not a force)."""
+    out: dict[str, set[str]] = {}
+    for target, d in derived.items():
+        if d.formula != "lymph_capacity":
+            continue
+        reads: set[str] = set()
+        todo = list(d.inputs[1:])
+        while todo:
+            s = todo.pop()
+            if s not in reads:
+                reads.add(s)
+                todo += list(derived[s].inputs) if s in derived and s != target else []
+        out[target] = reads
     return out
 
 
@@ -170,10 +177,10 @@ def hold_capacity(derived: Mapping[str, Derivation], priors: Mapping[str, Any],
     """
     out = dict(derived)
     notes: list[str] = []
-    for target, d in derived.items():
-        if d.formula != "lymph_capacity" or d.healthy_filtrate is not None:
+    for target, reads in capacity_forces(derived).items():
+        d = derived[target]
+        if d.healthy_filtrate is not None:
             continue
-        reads = _reads(derived, target) - {d.inputs[0]}  # (the reserve is the lymph's own, not a force)
         moved = [s for s in sorted(reads) if (s in priors and priors[s] is not healthy_priors.get(s))
                  or (s in derived and derived[s] != healthy_derived.get(s))]
         if not moved or any(s not in healthy_priors for s in reads if s not in healthy_derived):

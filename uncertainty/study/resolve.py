@@ -59,6 +59,7 @@ from uncertainty.priors import (
     Instrument,
     Prior,
     PriorSet,
+    capacity_forces,
     convert_unit,
     hold_capacity,
     load_conditions,
@@ -577,6 +578,13 @@ def apply_overrides(declared: Declared, parameters: Mapping[str, Any], head: Stu
         priors.update(new)
         overridden.update(new)
         overridden.add(sym)
+    read = set(required_inputs(head.model, head.tissue)) | set(optional_inputs(head.model, head.tissue))
+    for target, forces in capacity_forces(derived).items():
+        if target in read and derived[target].healthy_filtrate is None and forces & set(parameters):
+            notes.append(f"parameters.{', parameters.'.join(sorted(forces & set(parameters)))}: the lymph capacity "
+                         f"{target} is each draw's resting filtrate with these values plus JL_reserve, as for healthy "
+                         f"subjects; where they describe a disease state, use a condition (its capacity stays the "
+                         f"healthy one) or declare {target}")
     return Declared(priors=priors, derived=derived, notes=tuple(notes), overridden=frozenset(overridden))
 
 
