@@ -183,7 +183,7 @@ def hold_capacity(derived: Mapping[str, Derivation], priors: Mapping[str, Any],
             continue
         moved = [s for s in sorted(reads) if (s in priors and priors[s] is not healthy_priors.get(s))
                  or (s in derived and derived[s] != healthy_derived.get(s))]
-        if not moved or any(s not in healthy_priors for s in reads if s not in healthy_derived):
+        if not moved:
             continue
         medians = compute_all({k: v for k, v in healthy_derived.items() if k != target},
                               {s: p.median() for s, p in healthy_priors.items()})
